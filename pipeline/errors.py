@@ -1,0 +1,88 @@
+"""The project's exception hierarchy.
+
+Every problem a user can fix (a recipe, an input file, a plugin) is raised as a :class:`VzeroError`
+subclass whose message says what is wrong, where (file, line, row, column, well, step) and what to do. The
+command line prints the message alone (no traceback unless ``--debug``) and exits with :attr:`exit_code`.
+"""
+
+from __future__ import annotations
+
+
+class VzeroError(Exception):
+    """Base of every error vzero raises on purpose. ``exit_code`` is what the CLI returns (2: bad input)."""
+
+    exit_code = 2
+
+    def __init__(self, message: str, *, hint: str | None = None) -> None:
+        self.message = message
+        self.hint = hint
+        super().__init__(message if not hint else f"{message} {hint}")
+
+
+class RecipeError(VzeroError):
+    """The recipe is wrong. ``problems`` holds one line per problem (``file:line key.path: what``)."""
+
+    def __init__(self, problems: list[str] | str, *, hint: str | None = None) -> None:
+        self.problems = [problems] if isinstance(problems, str) else list(problems)
+        n = len(self.problems)
+        head = "" if n == 1 else f"{n} problems in the recipe:\n"
+        super().__init__(head + "\n".join(self.problems), hint=hint)
+
+
+class InputFileError(VzeroError):
+    """An input file (data, layout) cannot be read as asked.
+
+    Parameters name the place: ``path`` (as the user wrote it), ``row`` (1-based line or spreadsheet row),
+    ``column`` (header text or letter), ``well``.
+    """
+
+    def __init__(
+        self,
+        message: str,
+        *,
+        path: str | None = None,
+        row: int | None = None,
+        column: str | None = None,
+        well: str | None = None,
+        hint: str | None = None,
+    ) -> None:
+        self.path, self.row, self.column, self.well = path, row, column, well
+        where = []
+        if path is not None:
+            where.append(str(path))
+        if row is not None:
+            where.append(f"row {row}")
+        if column is not None:
+            where.append(f"column {column!r}")
+        if well is not None:
+            where.append(f"well {well}")
+        prefix = ", ".join(where)
+        super().__init__(f"{prefix}: {message}" if prefix else message, hint=hint)
+
+
+class LayoutError(InputFileError):
+    """The plate layout is inconsistent with itself or with the data."""
+
+
+class UnitError(VzeroError):
+    """A quantity has no unit, an unknown unit or a unit of the wrong dimension."""
+
+
+class PluginError(VzeroError):
+    """A plugin failed to load, registered something invalid, or broke the stage contract. Names the plugin."""
+
+
+class StageError(VzeroError):
+    """A stage could not run on a whole plate (per-well trouble becomes a flag instead)."""
+
+
+class FitError(VzeroError):
+    """A fit could not be set up (not: did not converge; that is a result with ``success=False``)."""
+
+
+class AuditFileError(VzeroError):
+    """An audit file is missing, damaged, truncated, tampered with or from a newer major format version."""
+
+
+class OutputExistsError(VzeroError):
+    """The output folder already holds a run; pass ``--force`` to replace it."""
