@@ -1,0 +1,1 @@
+"""Built-in convert stage: signal to concentration (pathlength, extinction, standard curves)."""

@@ -1,0 +1,1 @@
+"""Built-in import stage: readers for plate-reader exports and plate layouts."""
