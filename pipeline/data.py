@@ -1,0 +1,96 @@
+"""Data containers that carry their own labels and units.
+
+* :class:`Traces`: one plate's time courses: ``time`` [n_time] in seconds, ``signal`` [n_wells, n_time],
+  a boolean ``mask`` of usable reads, and the well table (one row per signal row, in the same order).
+* :class:`Table`: a pandas DataFrame with a unit per column (``units``), the shape of every per-well and
+  per-parameter result.
+
+Both are immutable by convention: a stage returns new objects and never changes the ones it was given.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+
+@dataclass(frozen=True)
+class Table:
+    """A DataFrame plus the unit of each numeric column (missing key: no unit / dimensionless)."""
+
+    frame: pd.DataFrame
+    units: Mapping[str, str] = field(default_factory=dict)
+    meta: Mapping[str, Any] = field(default_factory=dict)
+
+    def with_frame(self, frame: pd.DataFrame, **units: str) -> Table:
+        """A new table with ``frame`` and the units updated by ``units``."""
+        merged = {k: v for k, v in {**self.units, **units}.items() if k in frame.columns}
+        return Table(frame, merged, dict(self.meta))
+
+    def __len__(self) -> int:
+        return len(self.frame)
+
+    @staticmethod
+    def concat(tables: list[Table]) -> Table:
+        """Stack tables with the same columns (units taken from the first; conflicts raise ValueError)."""
+        if not tables:
+            return Table(pd.DataFrame())
+        units: dict[str, str] = {}
+        for t in tables:
+            for k, v in t.units.items():
+                if units.setdefault(k, v) != v:
+                    raise ValueError(f"column {k!r} has unit {units[k]!r} in one plate and {v!r} in another")
+        frame = pd.concat([t.frame for t in tables], ignore_index=True)
+        return Table(frame, units, dict(tables[0].meta))
+
+
+@dataclass(frozen=True)
+class Traces:
+    """Time courses of one plate.
+
+    Attributes
+    ----------
+    plate : plate name (from the recipe).
+    time : read times in seconds, strictly increasing, shape [n_time].
+    signal : reads, shape [n_wells, n_time], NaN where missing.
+    mask : True where a read is usable, shape [n_wells, n_time].
+    saturated : True where a read hit the detector ceiling or was an overflow token.
+    wells : well table, one row per signal row (column ``well`` at least), units in ``well_units``.
+    signal_unit : unit of ``signal`` (``AU``, ``RFU``, ...).
+    temperature : optional temperature per read, °C.
+    """
+
+    plate: str
+    time: np.ndarray
+    signal: np.ndarray
+    mask: np.ndarray
+    saturated: np.ndarray
+    wells: pd.DataFrame
+    signal_unit: str
+    well_units: Mapping[str, str] = field(default_factory=dict)
+    temperature: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        n_wells, n_time = self.signal.shape
+        if self.time.shape != (n_time,):
+            raise ValueError(f"time has shape {self.time.shape}, signal has {n_time} reads")
+        if self.mask.shape != self.signal.shape or self.saturated.shape != self.signal.shape:
+            raise ValueError("mask and saturated must have the shape of signal")
+        if len(self.wells) != n_wells:
+            raise ValueError(f"well table has {len(self.wells)} rows for {n_wells} signal rows")
+
+    @property
+    def well_names(self) -> list[str]:
+        return [str(w) for w in self.wells["well"]]
+
+    def masked_signal(self) -> np.ndarray:
+        """Signal with unusable reads set to NaN (a new array)."""
+        return np.where(self.mask, self.signal, np.nan)
+
+    def evolve(self, **changes: Any) -> Traces:
+        """A copy with some fields replaced (the validation in ``__post_init__`` runs again)."""
+        return replace(self, **changes)

@@ -1,0 +1,111 @@
+"""The whole plugin contract of vzero: every hook a plugin may implement.
+
+A plugin is a module (or object) with functions named like the hooks below, marked with
+``from pipeline import hookimpl``. It is found in one of three ways:
+
+* an installed distribution declaring an entry point in the group ``vzero.plugins`` (the built-in stages
+  come this way too, from vzero's own pyproject.toml);
+* a Python file or importable module named in a recipe: ``plugins: [my_rates.py]``;
+* (tests) passed directly to :func:`pipeline.plugins.make_manager`.
+
+Hooks are grouped by phase. Hooks *observe* or *register*; they never decide the order of stages, which
+comes from the recipe alone. Run events take one context object, so that new information arrives as a new
+attribute and existing plugins keep working.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import pluggy
+
+from pipeline import PROJECT
+
+hookspec = pluggy.HookspecMarker(PROJECT)
+
+
+# -- registration ---------------------------------------------------------------------------------------
+
+
+@hookspec
+def vzero_register(registry: Any) -> None:
+    """Add this plugin's components to ``registry`` (a :class:`pipeline.registry.Registry`).
+
+    Called once per plugin when the plugin manager is built. Call ``registry.add(component)`` for each stage
+    method class (a :class:`pipeline.stage.Stage` subclass) and for other named components, such as a fit
+    model (any object with ``kind`` and ``name`` attributes). A name already taken is an error naming both
+    plugins. The registry records the plugin, its distribution and version for the audit file.
+
+    Example::
+
+        from pipeline import hookimpl
+        from pipeline.stage import Stage, StageOutput
+
+        class FirstReads(Stage):
+            kind, method, version = "rates", "first-reads", "1.0"
+            ...
+
+        @hookimpl
+        def vzero_register(registry):
+            registry.add(FirstReads)
+    """
+
+
+@hookspec
+def vzero_commands(commands: Any) -> None:
+    """Add command-line subcommands: ``commands.add(name, help, configure, run)``.
+
+    ``configure(parser)`` adds arguments to an :class:`argparse.ArgumentParser`; ``run(args) -> int``
+    executes the command and returns its exit code. Called only when the command line is built, so keep
+    the plugin module's top-level imports light.
+
+    Example::
+
+        @hookimpl
+        def vzero_commands(commands):
+            commands.add("hello", "Say hello.", lambda p: None, lambda args: print("hello") or 0)
+    """
+
+
+# -- run events (observers) -----------------------------------------------------------------------------
+
+
+@hookspec
+def vzero_before_step(event: Any) -> None:
+    """Called before a step runs (once per plate for plate-scoped steps).
+
+    ``event`` is a :class:`pipeline.runner.StepEvent` with ``index``, ``kind``, ``method``, ``plate``
+    (``None`` for pooled and final steps), ``settings`` and ``run_id``. Return value ignored.
+
+    Example::
+
+        @hookimpl
+        def vzero_before_step(event):
+            print(f"starting {event.kind}:{event.method} on {event.plate}")
+    """
+
+
+@hookspec
+def vzero_after_step(event: Any) -> None:
+    """Called after a step succeeded; ``event.seconds`` holds its duration and ``event.output`` the
+    :class:`pipeline.stage.StageOutput`. Observers must not change the output.
+
+    Example::
+
+        @hookimpl
+        def vzero_after_step(event):
+            log.info("%s took %.3f s", event.method, event.seconds)
+    """
+
+
+@hookspec
+def vzero_step_error(event: Any) -> None:
+    """Called when a step raised; ``event.error`` holds the exception. The run then stops for this plate
+    (the batch goes on with the others). Return value ignored.
+
+    Example::
+
+        @hookimpl
+        def vzero_step_error(event):
+            alert(f"{event.plate}: {event.error}")
+    """

@@ -1,0 +1,173 @@
+"""Building the plugin manager: built-ins and installed plugins by entry point, then recipe-named files.
+
+Set the environment variable ``VZERO_NO_AUTOLOAD=1`` to load only vzero's own built-in plugins from the
+entry-point group (useful when an unrelated installed plugin is broken, and in tests).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib
+import importlib.util
+import os
+import sys
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from importlib import metadata
+from pathlib import Path
+from typing import Any
+
+import pluggy
+
+from pipeline import PROJECT, __version__, hookspecs
+from pipeline.errors import PluginError, VzeroError
+from pipeline.registry import Registry, Source
+
+ENTRY_POINT_GROUP = "vzero.plugins"
+AUTOLOAD_ENV = "VZERO_NO_AUTOLOAD"
+
+
+@dataclass
+class Plugins:
+    """The plugin manager, the registry it filled, and the sources of every plugin loaded."""
+
+    manager: pluggy.PluginManager
+    registry: Registry
+    sources: dict[str, Source] = field(default_factory=dict)
+
+    @property
+    def hook(self) -> Any:
+        return self.manager.hook
+
+
+def make_manager(
+    local: Sequence[str] = (),
+    *,
+    base_dir: Path | None = None,
+    extra: Iterable[tuple[str, object]] = (),
+    autoload: bool | None = None,
+) -> Plugins:
+    """Build a fresh plugin manager and registry (nothing global; each call is independent).
+
+    ``local`` are recipe entries: a path to a ``.py`` file (relative to ``base_dir``) or a dotted module
+    name. ``extra`` are ``(name, plugin_object)`` pairs registered after them (for tests). Every plugin's
+    ``vzero_register`` is called with the registry; a failure names the plugin.
+    """
+    pm = pluggy.PluginManager(PROJECT)
+    pm.add_hookspecs(hookspecs)
+    sources: dict[str, Source] = {}
+    if autoload is None:
+        autoload = os.environ.get(AUTOLOAD_ENV, "") in ("", "0")
+
+    for ep in _entry_points():
+        dist = ep.dist.name if ep.dist is not None else "unknown"
+        if not autoload and _normal(dist) != PROJECT:
+            continue
+        name = f"{dist}:{ep.name}"
+        try:
+            module = ep.load()
+        except Exception as exc:
+            raise PluginError(
+                f"plugin {name!r} (entry point {ep.value!r} of distribution {dist!r}) failed to import: "
+                f"{type(exc).__name__}: {exc}",
+                hint=f"Fix or uninstall that package, or set {AUTOLOAD_ENV}=1 to load only vzero's own plugins.",
+            ) from exc
+        version = ep.dist.version if ep.dist is not None else "0"
+        _register(pm, sources, name, module, Source(name, ep.value, dist, version))
+
+    for entry in local:
+        module, source = _load_local(entry, base_dir)
+        _register(pm, sources, source.plugin, module, source)
+
+    for name, obj in extra:
+        _register(pm, sources, name, obj, Source(name, getattr(obj, "__name__", repr(obj)), "direct", "0"))
+
+    try:
+        pm.check_pending()
+    except pluggy.PluginValidationError as exc:
+        raise PluginError(f"a plugin implements a hook that vzero does not define: {exc}") from exc
+
+    registry = Registry()
+    for impl in pm.hook.vzero_register.get_hookimpls():
+        source = sources[impl.plugin_name]
+        registry._current = source
+        try:
+            impl.function(registry=registry)
+        except VzeroError:
+            raise
+        except Exception as exc:
+            raise PluginError(
+                f"plugin {source.plugin!r} failed while registering: {type(exc).__name__}: {exc}"
+            ) from exc
+        finally:
+            registry._current = None
+    return Plugins(pm, registry, sources)
+
+
+def _register(pm: pluggy.PluginManager, sources: dict[str, Source], name: str, obj: object, source: Source) -> None:
+    if name in sources or pm.is_registered(obj):
+        return  # the same plugin reached by two roads (entry point and recipe) is loaded once
+    try:
+        pm.register(obj, name=name)
+    except (ValueError, pluggy.PluginValidationError) as exc:
+        raise PluginError(f"plugin {name!r} could not be registered: {exc}") from exc
+    sources[name] = source
+
+
+def _entry_points() -> list[metadata.EntryPoint]:
+    eps = metadata.entry_points(group=ENTRY_POINT_GROUP)
+    seen: set[tuple[str, str]] = set()
+    out = []
+    for ep in sorted(eps, key=lambda e: (e.dist.name if e.dist else "", e.name)):
+        key = (ep.dist.name if ep.dist else "", ep.name)
+        if key not in seen:  # a distribution seen twice on sys.path (editable installs) is loaded once
+            seen.add(key)
+            out.append(ep)
+    return out
+
+
+def _normal(name: str) -> str:
+    return name.lower().replace("_", "-")
+
+
+def _load_local(entry: str, base_dir: Path | None) -> tuple[object, Source]:
+    """Import a recipe-named plugin: a ``.py`` file (path relative to the recipe) or a module name."""
+    if entry.endswith(".py") or "/" in entry or os.sep in entry:
+        path = Path(entry)
+        if not path.is_absolute() and base_dir is not None:
+            path = base_dir / path
+        if not path.is_file():
+            raise PluginError(
+                f"plugin file {entry!r} named in the recipe was not found (looked at {path})",
+                hint="Paths are relative to the recipe file.",
+            )
+        data = path.read_bytes()
+        digest = hashlib.sha256(data).hexdigest()
+        mod_name = f"vzero_local_{path.stem}_{digest[:12]}"
+        if mod_name in sys.modules:
+            module = sys.modules[mod_name]
+        else:
+            spec = importlib.util.spec_from_file_location(mod_name, path)
+            if spec is None or spec.loader is None:
+                raise PluginError(f"plugin file {entry!r} cannot be imported as Python")
+            module = importlib.util.module_from_spec(spec)
+            sys.modules[mod_name] = module
+            try:
+                spec.loader.exec_module(module)
+            except Exception as exc:
+                del sys.modules[mod_name]
+                raise PluginError(f"plugin file {entry!r} failed to import: {type(exc).__name__}: {exc}") from exc
+        version = str(getattr(module, "__version__", "0"))
+        return module, Source(f"file:{entry}", mod_name, "local file", version, path=entry, sha256=digest)
+    try:
+        module = importlib.import_module(entry)
+    except Exception as exc:
+        raise PluginError(
+            f"plugin module {entry!r} named in the recipe failed to import: {type(exc).__name__}: {exc}"
+        ) from exc
+    version = str(getattr(module, "__version__", "0"))
+    return module, Source(f"module:{entry}", entry, "module", version)
+
+
+def core_version() -> str:
+    return __version__

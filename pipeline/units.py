@@ -1,0 +1,88 @@
+"""Quantities with units, parsed with pint from recipe text such as ``"6220 M^-1 cm^-1"`` or ``"30 s"``.
+
+One unit registry for the whole process (pint is imported on first use, to keep the command line quick).
+Plate-reader signal units are added to it: ``AU`` (absorbance units, pint's own), ``RFU`` (relative
+fluorescence units) and ``RLU`` (relative luminescence units), the last two as dimensionless counts.
+"""
+
+from __future__ import annotations
+
+import functools
+from typing import Any
+
+from pipeline.errors import UnitError
+
+
+@functools.cache
+def registry() -> Any:
+    """Return the process-wide :class:`pint.UnitRegistry` (created once, set as pint's application registry)."""
+    import pint
+
+    ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    ureg.define("relative_fluorescence_unit = [] = RFU")
+    ureg.define("relative_luminescence_unit = [] = RLU")
+    ureg.define("milli_absorbance_unit = 0.001 * absorbance_unit = mAU")
+    pint.set_application_registry(ureg)
+    return ureg
+
+
+def quantity(text: Any, *, like: str | None = None, what: str = "value") -> Any:
+    """Parse ``text`` (for example ``"0.55 cm"``) into a pint Quantity.
+
+    ``like`` is a unit whose dimension the quantity must share (``"s"`` for a time, ``"M"`` for a
+    concentration). A bare number is refused when ``like`` has a dimension, because a silent unit assumption
+    is how a thousand-fold error gets into a paper. Raises :class:`UnitError` saying what was expected.
+    """
+    ureg = registry()
+    if isinstance(text, bool) or text is None:
+        raise UnitError(f"{what}: expected a quantity like {_example(like)}, got {text!r}")
+    try:
+        q = ureg.Quantity(text) if isinstance(text, str) else ureg.Quantity(float(text), "")
+    except Exception as exc:  # pint raises several unrelated types for bad text
+        raise UnitError(
+            f"{what}: cannot read {text!r} as a quantity ({exc}); write a number and a unit, "
+            f"for example {_example(like)}"
+        ) from None
+    if like is not None:
+        target = ureg.Quantity(1, like)
+        if q.dimensionality != target.dimensionality:
+            got = "no unit" if q.dimensionless else f"unit {q.units:~P} ({q.dimensionality})"
+            raise UnitError(
+                f"{what}: expected a quantity with a unit like {like!r} ({target.dimensionality}), got {got} "
+                f"in {text!r}; write it like {_example(like)}"
+            )
+    return q
+
+
+def unit(text: str, *, like: str | None = None, what: str = "unit") -> Any:
+    """Parse a unit alone (``"uM/min"``), optionally checking its dimension against ``like``."""
+    ureg = registry()
+    try:
+        u = ureg.Unit(text)
+    except Exception as exc:
+        raise UnitError(f"{what}: unknown unit {text!r} ({exc})") from None
+    if like is not None and ureg.Quantity(1, u).dimensionality != ureg.Quantity(1, like).dimensionality:
+        raise UnitError(f"{what}: {text!r} is not a unit like {like!r}")
+    return u
+
+
+def factor(from_unit: str, to_unit: str) -> float:
+    """Multiplicative factor converting a value in ``from_unit`` to ``to_unit``; UnitError if incompatible."""
+    ureg = registry()
+    try:
+        return float(ureg.Quantity(1.0, from_unit).m_as(to_unit))
+    except Exception as exc:
+        raise UnitError(f"cannot convert {from_unit!r} to {to_unit!r}: {exc}") from None
+
+
+def pretty(u: Any) -> str:
+    """Short, plain-text form of a unit for tables and plots (``µM/min``, ``1/s``)."""
+    text = f"{registry().Unit(u) if isinstance(u, str) else u:~P}"
+    return text.replace("µ", "µ") or "1"
+
+
+_EXAMPLES = {"s": '"30 s"', "cm": '"0.55 cm"', "M": '"10 uM"', "M^-1 cm^-1": '"6220 M^-1 cm^-1"'}
+
+
+def _example(like: str | None) -> str:
+    return _EXAMPLES.get(like or "", f'"1 {like}"' if like else '"1.5 uM"')
