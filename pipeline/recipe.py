@@ -1,0 +1,311 @@
+"""Recipes: YAML read with ``yaml.safe_load``, validated in full before any work starts.
+
+A recipe looks like this (the worked example is ``configs/demo.yaml``)::
+
+    vzero: 1                      # recipe format version
+    name: demo
+    plugins: [my_rates.py]        # optional: local plugin files or modules
+    plates:
+      - name: plate-1
+        data: plate1.csv          # paths are relative to the recipe file
+        layout: layout.csv
+    steps:                        # run in this order; each step is {kind: {method: ..., params...}}
+      - import: {method: table}
+      - rates: {method: window, start: "0 s", end: "120 s"}
+
+Every problem found is collected and reported together, one per line, as
+``recipe.yaml:14 steps[2].rates.end: expected a quantity like "1 s", got 120 (did you mean "120 s"?)``.
+"""
+
+from __future__ import annotations
+
+import glob
+import hashlib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from pipeline.errors import RecipeError
+from pipeline.params import REQUIRED, Param, closest, validate
+from pipeline.registry import Registry
+
+FORMAT_VERSION = 1
+
+#: Top-level keys of a recipe and what they hold. Plugins may not add top-level keys; a step's own
+#: parameters are declared by its stage class.
+TOP_LEVEL: dict[str, Param] = {
+    "vzero": Param("int", FORMAT_VERSION, "recipe format version"),
+    "name": Param("str", "run", "a short name for the run"),
+    "description": Param("str", "", "free text"),
+    "plugins": Param("list", [], "local plugin files (.py, relative to the recipe) or module names"),
+    "plates": Param("list", REQUIRED, "plates: name, data file, layout file"),
+    "steps": Param("list", REQUIRED, "the stages to run, in order"),
+    "assay": Param("mapping", {}, "assay conditions: temperature, pH, buffer, enzyme (flows into exports)"),
+    "exclusions": Param("list", [], "wells or reads excluded, each with a reason"),
+    "overrides": Param("list", [], "per-well settings fixed by hand, each with a reason"),
+}
+PLATE_KEYS = {"name", "data", "layout", "manifest"}
+
+
+@dataclass(frozen=True)
+class StepSpec:
+    """One validated step: its position, kind, method, parameters as written and as parsed."""
+
+    index: int
+    kind: str
+    method: str
+    written: Mapping[str, Any]
+    settings: Mapping[str, Any]
+    line: int
+
+    @property
+    def label(self) -> str:
+        return f"{self.index:02d}-{self.kind}-{self.method}"
+
+
+@dataclass(frozen=True)
+class PlateSpec:
+    """One plate: its name and its input files by key (``data``, ``layout``), as paths relative to the
+    recipe folder (or keys of stored inputs when rerunning)."""
+
+    name: str
+    files: Mapping[str, str]
+
+
+@dataclass
+class Recipe:
+    """A parsed recipe with the line of every key path, for messages that point into the file."""
+
+    path: str
+    text: str
+    data: dict[str, Any]
+    lines: dict[tuple[Any, ...], int]
+    steps: list[StepSpec] = field(default_factory=list)
+    plates: list[PlateSpec] = field(default_factory=list)
+
+    @property
+    def sha256(self) -> str:
+        return hashlib.sha256(self.text.encode("utf-8")).hexdigest()
+
+    @property
+    def base_dir(self) -> Path:
+        return Path(self.path).resolve().parent
+
+    @property
+    def plugin_entries(self) -> list[str]:
+        value = self.data.get("plugins") or []
+        return [str(v) for v in value] if isinstance(value, list) else []
+
+    def line_of(self, path: tuple[Any, ...]) -> int:
+        """The line of ``path`` or of its nearest ancestor that has one (1-based; 0 if unknown)."""
+        while path:
+            if path in self.lines:
+                return self.lines[path]
+            path = path[:-1]
+        return self.lines.get((), 0)
+
+    def where(self, path: tuple[Any, ...]) -> str:
+        return f"{Path(self.path).name}:{self.line_of(path)} {format_path(path)}"
+
+
+def format_path(path: tuple[Any, ...]) -> str:
+    out = ""
+    for part in path:
+        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
+    return out or "(top)"
+
+
+def parse(text: str, path: str) -> Recipe:
+    """Parse YAML ``text`` (from ``path``, used in messages) into a :class:`Recipe` with line numbers.
+
+    Raises :class:`RecipeError` for YAML syntax errors and duplicated keys.
+    """
+    name = Path(path).name
+    try:
+        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        data = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        line = mark.line + 1 if mark is not None else 0
+        problem = getattr(exc, "problem", None) or str(exc)
+        raise RecipeError(f"{name}:{line} is not valid YAML: {problem}") from None
+    if not isinstance(data, dict):
+        raise RecipeError(f"{name}:1 a recipe must be a mapping of keys (vzero, name, plates, steps, ...)")
+    lines: dict[tuple[Any, ...], int] = {}
+    dupes: list[str] = []
+    _walk(node, (), lines, dupes, name)
+    if dupes:
+        raise RecipeError(dupes)
+    return Recipe(path=str(path), text=text, data=data, lines=lines)
+
+
+def _walk(node: Any, path: tuple[Any, ...], lines: dict[tuple[Any, ...], int], dupes: list[str], name: str) -> None:
+    lines.setdefault(path, node.start_mark.line + 1)
+    if isinstance(node, yaml.MappingNode):
+        seen: dict[Any, int] = {}
+        for key_node, value_node in node.value:
+            key = key_node.value
+            if key in seen:
+                dupes.append(
+                    f"{name}:{key_node.start_mark.line + 1} {format_path((*path, key))}: key given twice "
+                    f"(first on line {seen[key]}); keep one"
+                )
+            seen[key] = key_node.start_mark.line + 1
+            lines[(*path, key)] = key_node.start_mark.line + 1
+            _walk(value_node, (*path, key), lines, dupes, name)
+    elif isinstance(node, yaml.SequenceNode):
+        for i, item in enumerate(node.value):
+            _walk(item, (*path, i), lines, dupes, name)
+
+
+def load(path: str | Path) -> Recipe:
+    """Read and parse a recipe file; a missing or unreadable file is a :class:`RecipeError`."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise RecipeError(f"recipe file {str(path)!r} not found", hint="Check the path.") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RecipeError(f"recipe file {str(path)!r} cannot be read: {exc}") from None
+    return parse(text, str(path))
+
+
+def check(
+    recipe: Recipe,
+    registry: Registry,
+    *,
+    exists: Callable[[str], bool] | None = None,
+    expand: Callable[[str], list[str]] | None = None,
+) -> Recipe:
+    """Validate ``recipe`` against the registry: keys, types, units, methods, plates and input files.
+
+    ``exists(rel_path)`` says whether an input file is available (default: on disk beside the recipe);
+    ``expand(pattern)`` expands a glob in a ``data`` entry (default: on disk). Fills ``recipe.steps`` and
+    ``recipe.plates`` and returns the recipe; raises :class:`RecipeError` listing every problem.
+    """
+    base = recipe.base_dir
+    exists = exists or (lambda rel: (base / rel).is_file())
+    expand = expand or (lambda pat: sorted(str(Path(p).relative_to(base)) for p in glob.glob(str(base / pat))))
+    problems: list[str] = []
+
+    def bad(path: tuple[Any, ...], msg: str) -> None:
+        problems.append(f"{recipe.where(path)}: {msg}")
+
+    data = recipe.data
+    for key in data:
+        if key not in TOP_LEVEL:
+            hit = closest(key, TOP_LEVEL)
+            near = f" (did you mean {hit!r}?)" if hit else ""
+            bad((key,), f"unknown key{near}; valid keys: {', '.join(TOP_LEVEL)}")
+    for key, param in TOP_LEVEL.items():
+        if key in data:
+            try:
+                param.convert(data[key])
+            except ValueError as exc:
+                bad((key,), str(exc))
+        elif param.required:
+            bad((), f"missing required key {key!r}")
+    if data.get("vzero", FORMAT_VERSION) != FORMAT_VERSION and isinstance(data.get("vzero"), int):
+        bad(("vzero",), f"recipe format {data['vzero']} is not supported by this vzero (format {FORMAT_VERSION})")
+
+    recipe.plates = _check_plates(data.get("plates"), bad, exists, expand)
+    recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad)
+    if problems:
+        raise RecipeError(problems, hint="Nothing was run.")
+    return recipe
+
+
+def _check_plates(
+    plates: Any,
+    bad: Callable[[tuple[Any, ...], str], None],
+    exists: Callable[[str], bool],
+    expand: Callable[[str], list[str]],
+) -> list[PlateSpec]:
+    out: list[PlateSpec] = []
+    if not isinstance(plates, list):
+        return out
+    names: set[str] = set()
+    for i, entry in enumerate(plates):
+        path: tuple[Any, ...] = ("plates", i)
+        if not isinstance(entry, dict):
+            bad(path, "expected a mapping with name, data and layout")
+            continue
+        for key in entry:
+            if key not in PLATE_KEYS:
+                hit = closest(key, PLATE_KEYS)
+                bad((*path, key), f"unknown key{f' (did you mean {hit!r}?)' if hit else ''}; valid: name, data, layout")
+        data_entry = entry.get("data")
+        if not isinstance(data_entry, str):
+            bad((*path, "data"), f"expected the path of a data file, got {data_entry!r}")
+            continue
+        files = {k: v for k, v in entry.items() if k in ("data", "layout") and isinstance(v, str)}
+        if "layout" in entry and not isinstance(entry["layout"], str):
+            bad((*path, "layout"), f"expected the path of a layout file, got {entry['layout']!r}")
+        if any(ch in data_entry for ch in "*?["):
+            matches = expand(data_entry)
+            if not matches:
+                bad((*path, "data"), f"no file matches {data_entry!r}")
+            for rel in matches:
+                name = Path(rel).stem
+                out.append(PlateSpec(name, {**files, "data": rel}))
+        else:
+            name = str(entry.get("name") or Path(data_entry).stem)
+            out.append(PlateSpec(name, files))
+        for key, rel in files.items():
+            if key == "data" and any(ch in rel for ch in "*?["):
+                continue
+            if not exists(rel):
+                bad((*path, key), f"input file {rel!r} not found (paths are relative to the recipe)")
+    for j, plate in enumerate(out):
+        if plate.name in names:
+            bad(("plates",), f"plate name {plate.name!r} is used twice (plate {j + 1}); give each plate its own name")
+        names.add(plate.name)
+    return out
+
+
+def _check_steps(
+    recipe: Recipe, steps: Any, registry: Registry, bad: Callable[[tuple[Any, ...], str], None]
+) -> list[StepSpec]:
+    out: list[StepSpec] = []
+    if not isinstance(steps, list):
+        return out
+    kinds = [k for k in registry.kinds() if k != "model"]
+    order = {"plate": 0, "pooled": 1, "final": 2}
+    last_scope = 0
+    for i, step in enumerate(steps):
+        path: tuple[Any, ...] = ("steps", i)
+        if not isinstance(step, dict) or len(step) != 1:
+            bad(path, "expected one mapping like {rates: {method: window, ...}}")
+            continue
+        kind, body = next(iter(step.items()))
+        if kind not in kinds:
+            hit = closest(kind, kinds)
+            near = f" (did you mean {hit!r}?)" if hit else ""
+            bad((*path, kind), f"unknown step kind{near}; known: {', '.join(kinds)}")
+            continue
+        body = {} if body is None else body
+        if not isinstance(body, dict):
+            bad((*path, kind), "expected a mapping with 'method' and the method's parameters")
+            continue
+        method = body.get("method")
+        if not isinstance(method, str):
+            bad((*path, kind), f"missing 'method'; available {kind} methods: {', '.join(registry.names(kind))}")
+            continue
+        try:
+            entry = registry.get(kind, method)
+        except KeyError as exc:
+            bad((*path, kind, "method"), str(exc.args[0]))
+            continue
+        written = {k: v for k, v in body.items() if k != "method"}
+        settings, problems = validate(entry.component.params, written)
+        for key, msg in problems:
+            bad((*path, kind, key) if key else (*path, kind), msg)
+        scope = order[entry.component.scope]
+        if scope < last_scope:
+            bad(path, f"a {entry.component.scope} step ({kind}) cannot come after a pooled or final step; reorder")
+        last_scope = max(last_scope, scope)
+        out.append(StepSpec(i + 1, kind, method, written, settings, recipe.line_of((*path, kind))))
+    return out

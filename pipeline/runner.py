@@ -1,0 +1,383 @@
+"""Executing a recipe: plates through the plate-scoped steps (a map), then pooled and final steps (a reduce),
+with every raw input, step and result written to the audit file, atomically.
+
+Use :func:`run` from Python (it returns the tables as DataFrames) or ``vzero run`` from a shell.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import os
+import shutil
+import tempfile
+import time
+import uuid
+from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Protocol
+
+import pandas as pd
+
+from pipeline.data import Table, Traces
+from pipeline.errors import InputFileError, OutputExistsError, StageError, VzeroError
+from pipeline.plugins import Plugins, make_manager
+from pipeline.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
+from pipeline.stage import RawInput, StageInput, StageOutput
+
+
+class InputSource(Protocol):
+    """Where the raw bytes of input files come from: the disk, or an old audit file when rerunning."""
+
+    def exists(self, rel: str) -> bool: ...
+
+    def read(self, rel: str) -> bytes: ...
+
+    def expand(self, pattern: str) -> list[str]: ...
+
+
+@dataclass
+class DiskInputs:
+    """Input files on disk, relative to the recipe's folder."""
+
+    base: Path
+
+    def exists(self, rel: str) -> bool:
+        return (self.base / rel).is_file()
+
+    def read(self, rel: str) -> bytes:
+        try:
+            return (self.base / rel).read_bytes()
+        except OSError as exc:
+            raise InputFileError(f"cannot read the file: {exc.strerror}", path=rel) from None
+
+    def expand(self, pattern: str) -> list[str]:
+        import glob
+
+        return sorted(str(Path(p).relative_to(self.base)) for p in glob.glob(str(self.base / pattern)))
+
+
+@dataclass
+class StepEvent:
+    """The context object handed to the run-event hooks (new information arrives as new attributes)."""
+
+    run_id: str
+    index: int
+    kind: str
+    method: str
+    plate: str | None
+    settings: Mapping[str, Any]
+    seconds: float | None = None
+    output: StageOutput | None = None
+    error: BaseException | None = None
+
+
+@dataclass
+class StepRecord:
+    """What the audit file keeps of one step on one plate (or pooled)."""
+
+    spec: StepSpec
+    plate: str | None
+    started: str
+    seconds: float
+    warnings: list[str]
+    outputs: dict[str, Any]
+
+
+@dataclass
+class PlateOutcome:
+    plate: str
+    artifacts: dict[str, Any] = field(default_factory=dict)
+    records: list[StepRecord] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    error: str | None = None
+
+
+@dataclass
+class RunResult:
+    """The outcome of a run: the final tables, where the audit file is, warnings and failed plates."""
+
+    out_dir: Path
+    audit_path: Path
+    tables: dict[str, Table]
+    warnings: list[str]
+    failed: dict[str, str]
+
+    @property
+    def rates(self) -> pd.DataFrame:
+        return self.tables["rates"].frame if "rates" in self.tables else pd.DataFrame()
+
+    @property
+    def fits(self) -> pd.DataFrame:
+        return self.tables["fits"].frame if "fits" in self.tables else pd.DataFrame()
+
+    @property
+    def exit_code(self) -> int:
+        """0 when everything ran, 1 when the run finished but plates failed."""
+        return 1 if self.failed else 0
+
+
+def prepare(
+    recipe: str | Path | Recipe, *, inputs: InputSource | None = None, extra_plugins: Iterable[tuple[str, object]] = ()
+) -> tuple[Recipe, Plugins, InputSource]:
+    """Load the recipe, build the plugins it names, and validate it in full. Nothing is run or written."""
+    rec = recipe if isinstance(recipe, Recipe) else load(recipe)
+    plugins = make_manager(rec.plugin_entries, base_dir=rec.base_dir, extra=extra_plugins)
+    source = inputs or DiskInputs(rec.base_dir)
+    check(rec, plugins.registry, exists=source.exists, expand=source.expand)
+    return rec, plugins, source
+
+
+def run(
+    recipe: str | Path | Recipe,
+    out: str | Path,
+    *,
+    force: bool = False,
+    inputs: InputSource | None = None,
+    extra_plugins: Iterable[tuple[str, object]] = (),
+    derived_from: Mapping[str, Any] | None = None,
+    progress: Callable[[str], None] | None = None,
+) -> RunResult:
+    """Run ``recipe`` and write ``out``/run.h5 and one CSV per final table (rates.csv, fits.csv, ...).
+
+    The run is written to a temporary folder beside ``out`` and renamed into place only when complete, so
+    a failed or killed run leaves nothing at ``out`` (and a previous run there untouched). An existing run
+    at ``out`` is replaced only with ``force=True``.
+    """
+    rec, plugins, source = prepare(recipe, inputs=inputs, extra_plugins=extra_plugins)
+    out_dir = Path(out)
+    if out_dir.exists() and not force and any(out_dir.iterdir()):
+        raise OutputExistsError(
+            f"output folder {str(out)!r} already holds files", hint="Choose another --out, or pass --force to replace it."
+        )
+    run_id = uuid.uuid4().hex
+    warnings: list[str] = []
+    raw_by_sha: dict[str, RawInput] = {}
+    input_plates: dict[str, list[str]] = {}
+
+    plate_steps = [s for s in rec.steps if _scope(plugins, s) == "plate"]
+    later_steps = [s for s in rec.steps if _scope(plugins, s) != "plate"]
+
+    outcomes: list[PlateOutcome] = []
+    for plate in rec.plates:
+        if progress:
+            progress(f"plate {plate.name}")
+        raws = {key: _raw(source, key, rel) for key, rel in plate.files.items()}
+        for raw in raws.values():
+            raw_by_sha.setdefault(raw.sha256, raw)
+            input_plates.setdefault(raw.sha256, []).append(plate.name)
+        outcomes.append(process_plate(plate, raws, rec, plugins, plate_steps, run_id))
+
+    failed = {o.plate: o.error for o in outcomes if o.error}
+    ok = [o for o in outcomes if not o.error]
+    for o in outcomes:
+        warnings.extend(f"{o.plate}: {w}" for w in o.warnings)
+    if not ok:
+        if len(outcomes) == 1:
+            raise _reraise(outcomes[0])
+        raise StageError("every plate failed:\n" + "\n".join(f"  {k}: {v}" for k, v in failed.items()))
+
+    pooled: dict[str, Any] = _pool(ok)
+    records: list[StepRecord] = [r for o in ok for r in o.records]
+    files: dict[str, bytes] = {}
+    for spec in later_steps:
+        if progress:
+            progress(f"{spec.kind}:{spec.method}")
+        output, record = _run_step(spec, plugins, None, pooled, {}, rec, run_id)
+        warnings.extend(record.warnings)
+        pooled.update(output.artifacts)
+        files.update(output.files)
+        records.append(record)
+
+    final_tables = {k: v for k, v in pooled.items() if isinstance(v, Table)}
+    return _write_run(
+        out_dir, force, rec, plugins, run_id, raw_by_sha, input_plates, ok, records, final_tables, files,
+        warnings, failed, derived_from,
+    )
+
+
+def process_plate(
+    plate: PlateSpec,
+    raws: Mapping[str, RawInput],
+    rec: Recipe,
+    plugins: Plugins,
+    steps: list[StepSpec],
+    run_id: str,
+) -> PlateOutcome:
+    """Run the plate-scoped steps on one plate. A :class:`VzeroError` becomes the plate's error; the batch
+    goes on with the other plates."""
+    outcome = PlateOutcome(plate.name)
+    artifacts: dict[str, Any] = {}
+    for spec in steps:
+        try:
+            output, record = _run_step(spec, plugins, plate, artifacts, raws, rec, run_id)
+        except VzeroError as exc:
+            outcome.error = str(exc)
+            outcome.artifacts = {"exception": exc}
+            return outcome
+        artifacts.update(output.artifacts)
+        outcome.records.append(record)
+        outcome.warnings.extend(record.warnings)
+    outcome.artifacts = artifacts
+    return outcome
+
+
+def _reraise(outcome: PlateOutcome) -> BaseException:
+    exc = outcome.artifacts.get("exception")
+    return exc if isinstance(exc, BaseException) else StageError(outcome.error or "plate failed")
+
+
+def _scope(plugins: Plugins, spec: StepSpec) -> str:
+    return str(plugins.registry.get(spec.kind, spec.method).component.scope)
+
+
+def _raw(source: InputSource, key: str, rel: str) -> RawInput:
+    data = source.read(rel)
+    return RawInput(key=key, name=rel, data=data, sha256=hashlib.sha256(data).hexdigest())
+
+
+def _run_step(
+    spec: StepSpec,
+    plugins: Plugins,
+    plate: PlateSpec | None,
+    artifacts: Mapping[str, Any],
+    raws: Mapping[str, RawInput],
+    rec: Recipe,
+    run_id: str,
+) -> tuple[StageOutput, StepRecord]:
+    entry = plugins.registry.get(spec.kind, spec.method)
+    stage = entry.component(**spec.settings)
+    step_warnings: list[str] = []
+    plate_info = {"name": plate.name, "files": dict(plate.files)} if plate else None
+    event = StepEvent(run_id, spec.index, spec.kind, spec.method, plate.name if plate else None, spec.settings)
+    plugins.hook.vzero_before_step(event=event)
+    started = _utc_now()
+    t0 = time.perf_counter()
+    data = StageInput(
+        artifacts=dict(artifacts), plate=plate_info, inputs=dict(raws), recipe=rec.data,
+        registry=plugins.registry, warn=step_warnings.append,
+    )
+    try:
+        output = stage.run(data)
+    except VzeroError as exc:
+        event.error = exc
+        plugins.hook.vzero_step_error(event=event)
+        where = f"step {spec.index} ({spec.kind}: {spec.method})"
+        exc.args = (f"{where}: {exc}",)
+        raise
+    except Exception as exc:
+        event.error = exc
+        plugins.hook.vzero_step_error(event=event)
+        src = entry.source
+        raise StageError(
+            f"step {spec.index} ({spec.kind}: {spec.method}, from {src.describe()}) failed"
+            + (f" on plate {plate.name}" if plate else "") + f": {type(exc).__name__}: {exc}",
+            hint="This is a bug in that stage method; run with --debug for the traceback and report it.",
+        ) from exc
+    if not isinstance(output, StageOutput):
+        raise StageError(
+            f"step {spec.index} ({spec.kind}: {spec.method}, from {entry.source.describe()}) returned "
+            f"{type(output).__name__}, not a StageOutput; fix the plugin"
+        )
+    seconds = time.perf_counter() - t0
+    event.seconds, event.output = seconds, output
+    plugins.hook.vzero_after_step(event=event)
+    outputs = {**output.artifacts, **output.record}
+    return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs)
+
+
+def _pool(outcomes: list[PlateOutcome]) -> dict[str, Any]:
+    """Stack each plate's tables (with a ``plate`` column first) and keep traces per plate."""
+    pooled: dict[str, Any] = {}
+    names = {k for o in outcomes for k, v in o.artifacts.items() if isinstance(v, Table)}
+    for name in sorted(names):
+        tables = []
+        for o in outcomes:
+            t = o.artifacts.get(name)
+            if isinstance(t, Table):
+                frame = t.frame
+                if "plate" not in frame.columns:
+                    frame = frame.copy()
+                    frame.insert(0, "plate", o.plate)
+                tables.append(t.with_frame(frame))
+        pooled[name] = Table.concat(tables)
+    pooled["traces"] = {o.plate: o.artifacts["traces"] for o in outcomes if isinstance(o.artifacts.get("traces"), Traces)}
+    return pooled
+
+
+def _utc_now() -> str:
+    return _dt.datetime.now(_dt.UTC).isoformat(timespec="milliseconds")
+
+
+def _write_run(
+    out_dir: Path,
+    force: bool,
+    rec: Recipe,
+    plugins: Plugins,
+    run_id: str,
+    raw_by_sha: Mapping[str, RawInput],
+    input_plates: Mapping[str, list[str]],
+    outcomes: list[PlateOutcome],
+    records: list[StepRecord],
+    tables: Mapping[str, Table],
+    files: Mapping[str, bytes],
+    warnings: list[str],
+    failed: Mapping[str, str],
+    derived_from: Mapping[str, Any] | None,
+) -> RunResult:
+    """Write everything into a temporary folder beside ``out_dir``, then move it into place."""
+    from pipeline import audit
+
+    parent = out_dir.resolve().parent
+    parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=parent))
+    try:
+        h5 = audit.write_run_file(
+            tmp / "run.h5", rec, plugins, run_id, raw_by_sha, input_plates, records, tables, warnings, failed,
+            derived_from,
+        )
+        for name, table in tables.items():
+            table.frame.to_csv(tmp / f"{name}.csv", index=False)
+        for rel, data in files.items():
+            target = tmp / rel
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(data)
+        if failed:
+            (tmp / "failed_plates.txt").write_text("".join(f"{k}: {v}\n" for k, v in failed.items()), "utf-8")
+        _fsync_dir(tmp)
+        _swap_into_place(tmp, out_dir, force)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    del h5
+    return RunResult(out_dir, out_dir / "run.h5", dict(tables), warnings, dict(failed))
+
+
+def _fsync_dir(path: Path) -> None:
+    for p in path.rglob("*"):
+        if p.is_file():
+            with open(p, "rb") as fh:
+                os.fsync(fh.fileno())
+
+
+def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:
+    if out_dir.exists():
+        if not force and any(out_dir.iterdir()):
+            raise OutputExistsError(f"output folder {str(out_dir)!r} already holds files", hint="Pass --force.")
+        old = out_dir.parent / f".{out_dir.name}.old-{uuid.uuid4().hex[:8]}"
+        os.replace(out_dir, old)
+        os.replace(tmp, out_dir)
+        shutil.rmtree(old, ignore_errors=True)
+    else:
+        os.replace(tmp, out_dir)
+
+
+def check_recipe(recipe: str | Path) -> Recipe:
+    """Validate a recipe without running it (``vzero check``)."""
+    rec, _, _ = prepare(recipe)
+    return rec
+
+
+def parse_recipe_text(text: str, path: str) -> Recipe:
+    return parse(text, path)
