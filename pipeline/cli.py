@@ -1,0 +1,206 @@
+"""The ``vzero`` command line: ``main(argv) -> int``.
+
+Exit codes: 0 success; 1 the run finished but some wells or plates failed; 2 bad recipe, input or usage.
+Errors print as one message ending with what to do; ``--debug`` shows the traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+from pipeline import __version__
+from pipeline.errors import VzeroError
+
+EPILOG = """exit codes: 0 success; 1 finished with failed wells or plates; 2 bad recipe or input.
+Results are for research use; they do not replace your lab's validated procedures."""
+
+
+@dataclass
+class Command:
+    name: str
+    help: str
+    configure: Callable[[argparse.ArgumentParser], None]
+    run: Callable[[argparse.Namespace], int]
+    example: str = ""
+
+
+class Commands:
+    """Collects subcommands from the core and from plugins (hook ``vzero_commands``)."""
+
+    def __init__(self) -> None:
+        self.items: dict[str, Command] = {}
+
+    def add(
+        self,
+        name: str,
+        help: str,
+        configure: Callable[[argparse.ArgumentParser], None],
+        run: Callable[[argparse.Namespace], int],
+        example: str = "",
+    ) -> None:
+        if name in self.items:
+            raise VzeroError(f"command {name!r} is defined twice (by the core or a plugin); rename one")
+        self.items[name] = Command(name, help, configure, run, example)
+
+
+def _say(args: argparse.Namespace, text: str) -> None:
+    if not getattr(args, "quiet", False):
+        print(text)
+
+
+# -- core commands ---------------------------------------------------------------------------------------
+
+
+def _cfg_run(p: argparse.ArgumentParser) -> None:
+    p.add_argument("recipe", help="the recipe file (YAML)")
+    p.add_argument("--out", "-o", required=True, help="folder to write run.h5 and the tables into")
+    p.add_argument("--force", action="store_true", help="replace an existing run in --out")
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    from pipeline.runner import run
+
+    progress = (lambda msg: print(f"  {msg}", file=sys.stderr)) if args.verbose else None
+    result = run(args.recipe, args.out, force=args.force, progress=progress)
+    _report_result(args, result)
+    return result.exit_code
+
+
+def _report_result(args: argparse.Namespace, result: Any) -> None:
+    rates = result.rates
+    _say(args, f"wrote {result.out_dir}/ (run.h5, {', '.join(sorted(n + '.csv' for n in result.tables))})")
+    if len(rates):
+        flagged = int((rates.get("flags", "").astype(str) != "").sum()) if "flags" in rates else 0
+        _say(args, f"{len(rates)} wells, {flagged} flagged")
+    for w in result.warnings[: 20 if args.verbose else 5]:
+        _say(args, f"warning: {w}")
+    if len(result.warnings) > 5 and not args.verbose:
+        _say(args, f"... {len(result.warnings) - 5} more warnings (vzero inspect {result.audit_path})")
+    for plate, err in result.failed.items():
+        print(f"plate {plate} failed: {err}", file=sys.stderr)
+
+
+def _cfg_check(p: argparse.ArgumentParser) -> None:
+    p.add_argument("recipe", help="the recipe file (YAML)")
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from pipeline.runner import check_recipe
+
+    rec = check_recipe(args.recipe)
+    _say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps: "
+               + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ")")
+    return 0
+
+
+def _cfg_plugins(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--recipe", help="also load the local plugins this recipe names")
+    p.add_argument("--params", action="store_true", help="list each method's parameters")
+
+
+def _cmd_plugins(args: argparse.Namespace) -> int:
+    from pipeline.plugins import make_manager
+
+    local: list[str] = []
+    base = None
+    if args.recipe:
+        from pipeline.recipe import load
+
+        rec = load(args.recipe)
+        local, base = rec.plugin_entries, rec.base_dir
+    plugins = make_manager(local, base_dir=base)
+    rows = [(e.kind, e.name, e.source.distribution, str(getattr(e.component, "version", e.source.version)),
+             e.source.path or e.source.module) for e in plugins.registry]
+    widths = [max(len(r[i]) for r in [("kind", "method", "from", "version", "module"), *rows]) for i in range(5)]
+    fmt = "  ".join(f"{{:{w}}}" for w in widths)
+    print(fmt.format("kind", "method", "from", "version", "module"))
+    for row, entry in zip(rows, plugins.registry, strict=True):
+        print(fmt.format(*row))
+        if args.params:
+            for key, param in dict(getattr(entry.component, "params", {})).items():
+                default = "" if param.required else f" (default {param.default!r})"
+                print(f"      {key}: {param.describe()}{default}. {param.doc}")
+    return 0
+
+
+def _cfg_inspect(p: argparse.ArgumentParser) -> None:
+    p.add_argument("audit", help="an audit file (run.h5)")
+
+
+def _cmd_inspect(args: argparse.Namespace) -> int:
+    from pipeline.inspect import summary
+
+    print(summary(args.audit))
+    return 0
+
+
+CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int], str]] = [
+    ("run", "Run a recipe on its plates and write the audit file and tables.", _cfg_run, _cmd_run,
+     "vzero run configs/demo.yaml --out runs/today"),
+    ("check", "Validate a recipe without running it.", _cfg_check, _cmd_check, "vzero check configs/demo.yaml"),
+    ("plugins", "List every stage method and model, where it came from and its version.", _cfg_plugins,
+     _cmd_plugins, "vzero plugins --params"),
+    ("inspect", "Summarise an audit file: provenance, steps, warnings, flagged wells.", _cfg_inspect,
+     _cmd_inspect, "vzero inspect runs/today/run.h5"),
+]
+
+
+def build_parser(with_plugins: bool = True) -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="vzero",
+        description="Initial rates and kinetic parameters from plate-reader time courses.",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--version", action="version", version=f"vzero {__version__}")
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-q", "--quiet", action="store_true", help="print only errors")
+    common.add_argument("-v", "--verbose", action="store_true", help="print more detail")
+    common.add_argument("--debug", action="store_true", help="show tracebacks")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    commands = Commands()
+    for name, help_, configure, run_, example in CORE:
+        commands.add(name, help_, configure, run_, example)
+    if with_plugins:
+        from pipeline.plugins import make_manager
+
+        make_manager().hook.vzero_commands(commands=commands)
+    for cmd in commands.items.values():
+        epilog = f"example:\n  {cmd.example}\n\n{EPILOG}" if cmd.example else EPILOG
+        p = sub.add_parser(cmd.name, help=cmd.help, description=cmd.help, parents=[common], epilog=epilog,
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        cmd.configure(p)
+        p.set_defaults(_run=cmd.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in argv
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "_run", None):
+            parser.print_help()
+            return 2
+        return int(args._run(args))
+    except VzeroError as exc:
+        if debug:
+            raise
+        print(f"error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("interrupted; nothing was written to the output folder", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
