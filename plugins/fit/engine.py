@@ -1,0 +1,436 @@
+"""Nonlinear least-squares engine: one result shape for every model, honest uncertainties.
+
+Two entry points share :class:`FitResult`:
+
+* :func:`fit` fits one data set with :func:`scipy.optimize.least_squares` (trust-region reflective,
+  analytic Jacobian, tolerances 1e-15), used for single fits, for profile likelihood and as the fallback.
+* :func:`fit_batch` fits many groups of the same model at once with a Levenberg-Marquardt iteration
+  vectorised over groups (numpy arrays ``[n_groups, n_points]``, padding masked out); a group it cannot
+  bring to a clean minimum is refitted by :func:`fit`.
+
+Model functions take ``(params, x)`` where ``params`` is a sequence of arrays (one per parameter, each
+broadcastable against the arrays of ``x``, a mapping of independent variables) and return the predicted
+values; Jacobians return one array of partial derivatives per parameter, in the same order.
+
+Uncertainty: standard errors from s²(JᵀJ)⁻¹ with s² = RSS/(n − p) (the Gauss-Newton covariance NIST uses
+for its certified standard deviations), Wald intervals with Student's t on n − p degrees of freedom, and
+profile-likelihood intervals where RSS rises to RSS·(1 + F(1, n − p)/(n − p)) (Bates & Watts 1988, ch. 6 —
+memory for the chapter) for parameters whose sampling distribution is skewed (Km, K0.5, h, Ki).
+When an uncertainty cannot be given, ``errorbars`` is False and ``note`` says why.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy import optimize, stats
+
+Func = Callable[[Sequence[Any], Mapping[str, np.ndarray]], np.ndarray]
+Jac = Callable[[Sequence[Any], Mapping[str, np.ndarray]], Sequence[np.ndarray]]
+
+TOL = 1e-15
+"""ftol = xtol = gtol for the single-fit path (tight: REFERENCES section 1.4 shows 1e-8 stops early)."""
+
+
+@dataclass(frozen=True)
+class ParamEstimate:
+    """One parameter: value, standard error and confidence interval (NaN where not determined)."""
+
+    name: str
+    value: float
+    stderr: float = float("nan")
+    ci_low: float = float("nan")
+    ci_high: float = float("nan")
+    ci_method: str = "wald-t"
+    unit: str = ""
+    fixed: bool = False
+    note: str = ""
+
+
+@dataclass
+class FitResult:
+    """The outcome of one fit, the same shape for every model.
+
+    ``covariance`` and ``correlation`` are over all parameters in ``names`` order (rows and columns of
+    fixed parameters are zero / NaN). ``aicc`` is the small-sample Akaike criterion for Gaussian errors,
+    n·ln(RSS/n) + 2k + 2k(k+1)/(n − k − 1) with k = free parameters + 1 (the variance).
+    """
+
+    names: tuple[str, ...]
+    params: dict[str, ParamEstimate]
+    success: bool
+    message: str
+    nfev: int
+    rss: float
+    dof: int
+    n_points: int
+    aicc: float
+    r_squared: float
+    covariance: np.ndarray
+    correlation: np.ndarray
+    errorbars: bool
+    note: str = ""
+    values: np.ndarray = field(default_factory=lambda: np.empty(0))
+    free: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=bool))
+
+    def value(self, name: str) -> float:
+        return self.params[name].value
+
+
+def _as_bounds(names: Sequence[str], bounds: Mapping[str, tuple[float, float]] | None) -> tuple[np.ndarray, np.ndarray]:
+    lo = np.full(len(names), -np.inf)
+    hi = np.full(len(names), np.inf)
+    for i, n in enumerate(names):
+        if bounds and n in bounds:
+            lo[i], hi[i] = bounds[n]
+    return lo, hi
+
+
+def _jacobian(jac: Jac, p: np.ndarray, x: Mapping[str, np.ndarray], shape: tuple[int, ...]) -> np.ndarray:
+    """Jacobian as an array [..., n_points, n_params] (derivatives broadcast to the data shape)."""
+    cols = jac(list(p.T) if p.ndim == 1 else [p[:, j, None] for j in range(p.shape[1])], x)
+    return np.stack([np.broadcast_to(c, shape) for c in cols], axis=-1)
+
+
+def summarize(
+    names: Sequence[str],
+    values: np.ndarray,
+    free: np.ndarray,
+    jmat: np.ndarray,
+    resid: np.ndarray,
+    y: np.ndarray,
+    w: np.ndarray,
+    *,
+    success: bool,
+    message: str,
+    nfev: int,
+    confidence: float,
+    units: Mapping[str, str] | None = None,
+) -> FitResult:
+    """Build a :class:`FitResult` from the solution: weighted residuals ``resid`` [n], weighted Jacobian
+    ``jmat`` [n, p] (rows of unused points zero), weights ``w`` (0 for unused points)."""
+    used = w > 0
+    n = int(used.sum())
+    k = int(free.sum())
+    dof = n - k
+    rss = float(np.sum(resid[used] ** 2))
+    yw = (y * w)[used]
+    # R² of the (weighted) fit against a weighted mean, the usual definition; NaN with fewer than 2 points
+    wm = np.sum(w[used] * yw) / np.sum(w[used] ** 2) if n else np.nan
+    tss = float(np.sum((yw - w[used] * wm) ** 2)) if n else np.nan
+    r2 = 1.0 - rss / tss if tss > 0 else float("nan")
+    kk = k + 1
+    aicc = n * np.log(rss / n) + 2 * kk + 2 * kk * (kk + 1) / (n - kk - 1) if n - kk - 1 > 0 and rss > 0 else np.nan
+    p = len(names)
+    cov = np.full((p, p), np.nan)
+    note = ""
+    errorbars = False
+    if dof <= 0:
+        note = f"no degrees of freedom left ({n} points for {k} free parameters): no standard errors"
+    elif not success:
+        note = "the fit did not converge: no standard errors"
+    else:
+        jf = jmat[used][:, free]
+        _, s, vt = np.linalg.svd(jf, full_matrices=False)
+        if s.size == 0 or not np.all(np.isfinite(s)) or s[-1] <= s[0] * max(jf.shape) * np.finfo(float).eps:
+            note = "parameters not separately determined by these data (singular Jacobian): no standard errors"
+        else:
+            s2 = rss / dof
+            cf = (vt.T / s**2) @ vt * s2
+            cov[np.ix_(free, free)] = cf
+            cov[~free, :] = 0.0
+            cov[:, ~free] = 0.0
+            errorbars = True
+    se = np.sqrt(np.clip(np.diag(cov), 0, None))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = cov / np.outer(se, se)
+    tq = stats.t.ppf(0.5 + confidence / 2, dof) if dof > 0 else np.nan
+    params = {}
+    for i, name in enumerate(names):
+        fixed = not free[i]
+        params[name] = ParamEstimate(
+            name,
+            float(values[i]),
+            0.0 if fixed else float(se[i]),
+            float(values[i]) if fixed else float(values[i] - tq * se[i]),
+            float(values[i]) if fixed else float(values[i] + tq * se[i]),
+            "fixed" if fixed else "wald-t",
+            (units or {}).get(name, ""),
+            fixed,
+            "" if fixed or errorbars else note,
+        )
+    return FitResult(
+        tuple(names), params, success, message, nfev, rss, dof, n, float(aicc), float(r2), cov, corr,
+        errorbars, note, np.asarray(values, float), free.copy(),
+    )
+
+
+def fit(
+    func: Func,
+    jac: Jac,
+    x: Mapping[str, np.ndarray],
+    y: np.ndarray,
+    p0: Sequence[float],
+    names: Sequence[str],
+    *,
+    sigma: np.ndarray | None = None,
+    fixed: Mapping[str, float] | None = None,
+    bounds: Mapping[str, tuple[float, float]] | None = None,
+    confidence: float = 0.95,
+    units: Mapping[str, str] | None = None,
+    method: str = "trf",
+) -> FitResult:
+    """Fit one data set by least squares; ``sigma`` gives per-point standard deviations (weights 1/σ).
+
+    Minimises Σ((f − y)/σ)². ``fixed`` holds parameters at given values; ``bounds`` maps a name to
+    (low, high). A fit that converges to a point no better than a constant (R² ≤ 1e-9 while y varies) is
+    retried from the start with the other algorithm (``lm`` ↔ ``trf``) and the lower RSS kept: this is the
+    trap NIST BoxBOD start 1 sets for Levenberg-Marquardt (REFERENCES section 1.4).
+    """
+    y = np.asarray(y, float)
+    w = np.ones_like(y) if sigma is None else 1.0 / np.asarray(sigma, float)
+    names = tuple(names)
+    values = np.array(p0, float)
+    free = np.ones(len(names), bool)
+    for i, n in enumerate(names):
+        if fixed and n in fixed:
+            values[i] = float(fixed[n])
+            free[i] = False
+    lo, hi = _as_bounds(names, bounds)
+    start = np.clip(values, lo, hi)
+
+    def full(q: np.ndarray) -> np.ndarray:
+        v = values.copy()
+        v[free] = q
+        return v
+
+    def res(q: np.ndarray) -> np.ndarray:
+        return w * (func(list(full(q)), x) - y)
+
+    def jj(q: np.ndarray) -> np.ndarray:
+        return (_jacobian(jac, full(q), x, y.shape) * w[:, None])[:, free]
+
+    def run(meth: str) -> Any:
+        kw: dict[str, Any] = {"method": meth, "ftol": TOL, "xtol": TOL, "gtol": TOL, "max_nfev": 100_000}
+        if meth != "lm":
+            kw["bounds"] = (lo[free], hi[free])
+        with np.errstate(all="ignore"):
+            return optimize.least_squares(res, start[free], jac=jj, **kw)
+
+    boxed = np.any(np.isfinite(lo[free]) | np.isfinite(hi[free]))
+    first = "trf" if boxed else method
+    sol = run(first)
+    tss = float(np.sum((w * (y - y.mean())) ** 2))
+    if not boxed and (not sol.success or not np.isfinite(sol.cost) or (tss > 0 and 2 * sol.cost >= tss * (1 - 1e-9))):
+        other = run("lm" if first == "trf" else "trf")
+        if np.isfinite(other.cost) and (not np.isfinite(sol.cost) or other.cost < sol.cost or not sol.success):
+            sol = other
+    v = full(sol.x)
+    ok = bool(sol.success and np.all(np.isfinite(v)) and np.isfinite(sol.cost))
+    jmat = _jacobian(jac, v, x, y.shape) * w[:, None]
+    resid = w * (func(list(v), x) - y)
+    return summarize(
+        names, v, free, jmat, resid, y, w, success=ok, message=str(sol.message), nfev=int(sol.nfev),
+        confidence=confidence, units=units,
+    )
+
+
+def _fill_value(used: np.ndarray) -> float:
+    """A harmless value for padded points (their weight is zero): the mean of the finite used values."""
+    finite = used[np.isfinite(used)]
+    return float(finite.mean()) if finite.size else 1.0
+
+
+def fit_batch(
+    func: Func,
+    jac: Jac,
+    x: Mapping[str, np.ndarray],
+    y: np.ndarray,
+    mask: np.ndarray,
+    p0: np.ndarray,
+    names: Sequence[str],
+    *,
+    sigma: np.ndarray | None = None,
+    fixed: Mapping[str, float] | None = None,
+    bounds: Mapping[str, tuple[float, float]] | None = None,
+    confidence: float = 0.95,
+    units: Mapping[str, str] | None = None,
+    max_iter: int = 500,
+) -> list[FitResult]:
+    """Fit many groups of one model at once: ``y``, ``mask`` and each ``x`` array are [n_groups, n_points]
+    (``mask`` False on padding), ``p0`` is [n_groups, n_params]. Returns one :class:`FitResult` per group.
+
+    Levenberg-Marquardt with Marquardt's diagonal scaling and a damping factor per group, steps projected
+    onto the bounds; a group stops when the relative RSS change and the relative step are both below 1e-13
+    or the scaled gradient vanishes. Groups that end elsewhere, or fit no better than a constant, are
+    refitted one by one with :func:`fit`.
+    """
+    y = np.asarray(y, float)
+    mask = np.asarray(mask, bool)
+    g, npts = y.shape
+    names = tuple(names)
+    p = len(names)
+    w = np.where(mask, 1.0 if sigma is None else 1.0 / np.where(mask, sigma, 1.0), 0.0)
+    yz = np.where(mask, y, 0.0)
+    xs = {k: np.where(mask, v, _fill_value(np.asarray(v, float)[mask])) for k, v in x.items()}
+    vals = np.array(p0, float).reshape(g, p).copy()
+    free = np.ones(p, bool)
+    for i, n in enumerate(names):
+        if fixed and n in fixed:
+            vals[:, i] = float(fixed[n])
+            free[i] = False
+    lo, hi = _as_bounds(names, bounds)
+    vals = np.clip(vals, lo, hi)
+
+    def params_of(v: np.ndarray) -> list[np.ndarray]:
+        return [v[:, j, None] for j in range(p)]
+
+    rows = np.arange(g)
+
+    def resid(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            return np.where(mask[i], w[i] * (func(params_of(v), {k: a[i] for k, a in xs.items()}) - yz[i]), 0.0)
+
+    def jmat(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            jm = _jacobian(jac, v, {k: a[i] for k, a in xs.items()}, (len(i), npts)) * w[i][:, :, None]
+        jm = np.where(np.isfinite(jm), jm, 0.0)
+        return jm * free
+
+    r = resid(vals)
+    with np.errstate(all="ignore"):
+        cost = np.sum(r**2, axis=1)
+    lam = np.full(g, 1e-3)
+    active = np.isfinite(cost)
+    converged = np.zeros(g, bool)
+    nfev = np.ones(g, int)
+    eye = np.eye(p)
+    with np.errstate(all="ignore"):  # trial steps may overflow; they are rejected, not reported
+        for _ in range(max_iter):
+            if not active.any():
+                break
+            idx = np.flatnonzero(active)
+            jm = jmat(vals[idx], idx)
+            ri = r[idx]
+            jtj = np.einsum("gni,gnj->gij", jm, jm)
+            grad = np.einsum("gni,gn->gi", jm, ri)
+            scale = np.einsum("gii->gi", jtj)
+            scale = np.where(scale > 0, scale, 1.0)
+            gnorm = np.max(np.abs(grad) / np.sqrt(scale) / np.sqrt(np.maximum(cost[idx], 1e-300)), axis=1)
+            a = jtj + lam[idx, None, None] * (scale[:, :, None] * eye) + (~free)[None, :, None] * eye
+            try:
+                step = -np.linalg.solve(a, grad[:, :, None])[:, :, 0]
+            except np.linalg.LinAlgError:
+                step = -np.stack([np.linalg.lstsq(ai, gi, rcond=None)[0] for ai, gi in zip(a, grad, strict=True)])
+            trial = np.clip(vals[idx] + step, lo, hi)
+            rt = resid(trial, idx)
+            ct = np.sum(rt**2, axis=1)
+            nfev[idx] += 1
+            better = np.isfinite(ct) & (ct <= cost[idx])
+            rel_cost = np.where(better, (cost[idx] - ct) / np.maximum(cost[idx], 1e-300), np.inf)
+            rel_step = np.max(np.abs(trial - vals[idx]) / (np.abs(vals[idx]) + 1e-300), axis=1)
+            vals[idx[better]] = trial[better]
+            r[idx[better]] = rt[better]
+            cost[idx[better]] = ct[better]
+            lam[idx] = np.where(better, np.maximum(lam[idx] / 3, 1e-12), lam[idx] * 4)
+            done = (better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
+            stuck = lam[idx] > 1e16
+            converged[idx[done]] = True
+            active[idx[done | stuck]] = False
+
+    results: list[FitResult] = []
+    jall = jmat(vals)
+    for gi in range(g):
+        m = mask[gi]
+        yy = y[gi][m]
+        tss = float(np.sum((w[gi][m] * (yy - yy.mean())) ** 2)) if m.any() else 0.0
+        flat = tss > 0 and cost[gi] >= tss * (1 - 1e-9)
+        if not converged[gi] or flat or not np.all(np.isfinite(vals[gi])):
+            xi = {k: np.asarray(v[gi][m], float) for k, v in x.items()}
+            sg = None if sigma is None else np.asarray(sigma[gi][m], float)
+            results.append(fit(func, jac, xi, yy, p0[gi], names, sigma=sg, fixed=fixed, bounds=bounds,
+                               confidence=confidence, units=units))
+            continue
+        results.append(summarize(
+            names, vals[gi], free, jall[gi], r[gi], yz[gi], w[gi], success=True,
+            message="converged (batched Levenberg-Marquardt)", nfev=int(nfev[gi]), confidence=confidence,
+            units=units,
+        ))
+    return results
+
+
+def profile_interval(
+    func: Func,
+    jac: Jac,
+    x: Mapping[str, np.ndarray],
+    y: np.ndarray,
+    result: FitResult,
+    name: str,
+    *,
+    sigma: np.ndarray | None = None,
+    fixed: Mapping[str, float] | None = None,
+    bounds: Mapping[str, tuple[float, float]] | None = None,
+    confidence: float = 0.95,
+    max_expand: int = 12,
+) -> tuple[float, float, str]:
+    """Profile-likelihood interval of parameter ``name``: the values where the RSS, minimised over the
+    other parameters, reaches RSS_min·(1 + F(confidence; 1, n − p)/(n − p)).
+
+    Returns (low, high, note). A side that never reaches the threshold before a bound, or within
+    2^max_expand standard errors, is NaN (open interval) and the note says so.
+    """
+    if not result.success or result.dof <= 0 or name not in result.names or result.params[name].fixed:
+        return float("nan"), float("nan"), "no profile: fit failed, parameter fixed or no degrees of freedom"
+    names = result.names
+    j = names.index(name)
+    best = result.values
+    dof = result.dof
+    target = result.rss * (1 + stats.f.ppf(confidence, 1, dof) / dof)
+    lo, hi = _as_bounds(names, bounds)
+    fx = dict(fixed or {})
+    se = result.params[name].stderr
+    step0 = se if np.isfinite(se) and se > 0 else 0.1 * max(abs(best[j]), 1e-12)
+    if result.free.sum() == 1:
+        def rss_at(t: float) -> float:
+            v = best.copy()
+            v[j] = t
+            w = 1.0 if sigma is None else 1.0 / np.asarray(sigma, float)
+            return float(np.sum((w * (func(list(v), x) - y)) ** 2))
+    else:
+        def rss_at(t: float) -> float:
+            f = fit(func, jac, x, y, best, names, sigma=sigma, fixed={**fx, name: t}, bounds=bounds,
+                    confidence=confidence)
+            return f.rss if np.isfinite(f.rss) else np.inf
+
+    out: list[float] = []
+    notes: list[str] = []
+    for sign, bound in ((-1, lo[j]), (1, hi[j])):
+        inside = best[j]
+        found = float("nan")
+        step = step0
+        for _ in range(max_expand):
+            t = best[j] + sign * step
+            at_bound = (sign < 0 and t <= bound) or (sign > 0 and t >= bound)
+            if at_bound:
+                t = bound
+            if not np.isfinite(t):
+                break
+            val = rss_at(t)
+            if val >= target:
+                try:
+                    found = optimize.brentq(lambda u: rss_at(u) - target, min(inside, t), max(inside, t),
+                                            xtol=1e-10 * max(abs(best[j]), 1e-300), rtol=1e-8, maxiter=60)
+                except ValueError:
+                    found = t
+                break
+            inside = t
+            if at_bound:
+                break
+            step *= 2
+        if not np.isfinite(found):
+            notes.append(f"{'lower' if sign < 0 else 'upper'} limit not reached (open interval)")
+        out.append(float(found))
+    return out[0], out[1], "; ".join(notes)
