@@ -73,8 +73,7 @@ def well_index(name: str, plate_size: int) -> tuple[int, int]:
     r, c = _ROW_INDEX[m.group(1)], int(m.group(2)) - 1
     if r >= rows or c >= cols:
         raise ValueError(
-            f"well {norm} is not on a {plate_size}-well plate "
-            f"(rows A-{ROW_LABELS[rows - 1]}, columns 1-{cols})"
+            f"well {norm} is not on a {plate_size}-well plate (rows A-{ROW_LABELS[rows - 1]}, columns 1-{cols})"
         )
     return r, c
 
