@@ -645,6 +645,24 @@ def _bad_cell(message: str, source: str, row: int, column: str, well: str | None
     )
 
 
+def _temperature(
+    body: np.ndarray,
+    header: list[str],
+    j: int | None,
+    decimal: str,
+    opts: ReadOptions,
+    source: str,
+    lines: list[int],
+) -> np.ndarray | None:
+    """Column ``j`` as numbers (NaN where empty), or None when there is no temperature column."""
+    if j is None:
+        return None
+    values, _, bad = _numbers(body[:, j], decimal, opts, allow_overflow=False)
+    if bad is not None:
+        raise _bad_cell("temperature", source, lines[bad[0]], header[j].strip(), None, str(body[bad[0], j]))
+    return values
+
+
 # ---------------------------------------------------------------------------------------------------------
 # wide and long blocks
 
@@ -687,13 +705,7 @@ def _read_wide(grid: _Grid, h: int, end: int, name: str, source: str, opts: Read
     if bad is not None:
         w, t = bad
         raise _bad_cell("read", source, lines[t], header[well_j[w]].strip(), wells[w], str(body[t, well_j[w]]))
-    temperature = None
-    if temp_j is not None:
-        temperature, _, badt = _numbers(body[:, temp_j], grid.decimal, opts, allow_overflow=False)
-        if badt is not None:
-            raise _bad_cell(
-                "temperature", source, lines[badt[0]], header[temp_j].strip(), None, str(body[badt[0], temp_j])
-            )
+    temperature = _temperature(body, header, temp_j, grid.decimal, opts, source, lines)
     saturated = over if opts.ceiling is None else over | (signal >= opts.ceiling)
     return Block(name, time_s, wells, signal, saturated, temperature, notes + tnotes)
 
@@ -760,15 +772,10 @@ def _read_long(grid: _Grid, h: int, end: int, name: str, source: str, opts: Read
     saturated = np.zeros(signal.shape, dtype=bool)
     signal[well_code, t_code] = values
     saturated[well_code, t_code] = over
-    temperature = None
-    if temp_j is not None:
-        tv, _, badt = _numbers(body[:, temp_j], grid.decimal, opts, allow_overflow=False)
-        if badt is not None:
-            raise _bad_cell(
-                "temperature", source, lines[badt[0]], header[temp_j].strip(), None, str(body[badt[0], temp_j])
-            )
+    temperature = _temperature(body, header, temp_j, grid.decimal, opts, source, lines)
+    if temperature is not None:
         _, first_t = np.unique(t_code, return_index=True)
-        temperature = tv[first_t]
+        temperature = temperature[first_t]  # one value per read time: the first row at that time
     if opts.ceiling is not None:
         saturated |= signal >= opts.ceiling
     return Block(name, times, wells, signal, saturated, temperature, notes)
