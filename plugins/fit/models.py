@@ -1,0 +1,320 @@
+"""Kinetic models for the fit stage: rate laws with analytic Jacobians and data-driven start values.
+
+A model is a component of kind ``"model"`` (register it with ``registry.add(model)``). Its parameters carry
+a unit *role*: ``"rate"`` (the unit of the fitted rates), ``"substrate"``, ``"inhibitor"``, ``"enzyme"``
+or ``""`` (dimensionless); the fit stage turns roles into the units of the data. ``variables`` names the
+independent variables it needs (columns of the rates table). Functions are vectorised: each parameter may
+be a scalar or an array ``[n_groups, 1]`` broadcasting against data arrays ``[n_groups, n_points]``.
+
+A third party adds a model by building a :class:`Model` (or any object with the same attributes) and
+registering it from its own ``vzero_register`` hook.
+
+Equations (textbook forms; see docs/fitting.md for sources):
+
+* michaelis-menten: v = Vmax·S/(Km + S)
+* hill: v = Vmax·S^h/(K0.5^h + S^h)
+* substrate-inhibition: v = Vmax·S/(Km + S + S²/Ksi)
+* competitive: v = Vmax·S/(Km(1 + I/Kic) + S)
+* uncompetitive: v = Vmax·S/(Km + S(1 + I/Kiu))
+* mixed: v = Vmax·S/(Km(1 + I/Kic) + S(1 + I/Kiu))
+* noncompetitive: v = Vmax·S/((Km + S)(1 + I/Ki))
+* morrison: v = v0·(1 − 2I/(B + √(B² − 4·E·I))), B = E + I + Ki_app (the tight-binding quadratic, in the
+  cancellation-free form of ((B − √(B² − 4EI))/(2E)) = 2I/(B + √(B² − 4EI)))
+* logistic-4p: v = bottom + (top − bottom)/(1 + (I/IC50)^slope)
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+Arr = Any
+X = Mapping[str, np.ndarray]
+INF = float("inf")
+
+
+@dataclass(frozen=True)
+class Model:
+    """A rate law the fit stage can fit.
+
+    ``units`` maps each parameter to its unit role; ``bounds`` gives default (low, high) per parameter
+    (the recipe may override); ``profile`` lists the parameters whose intervals are computed by profile
+    likelihood (the ones with skewed sampling distributions); ``nests`` names simpler models this one
+    contains as a special case (for the extra-sum-of-squares F-test), with the constraint in words.
+    """
+
+    name: str
+    params: tuple[str, ...]
+    units: Mapping[str, str]
+    variables: tuple[str, ...]
+    func: Callable[[Sequence[Arr], X], np.ndarray]
+    jac: Callable[[Sequence[Arr], X], list[np.ndarray]]
+    guess: Callable[[X, np.ndarray], list[float]]
+    equation: str
+    summary: str = ""
+    bounds: Mapping[str, tuple[float, float]] = field(default_factory=dict)
+    profile: tuple[str, ...] = ()
+    nests: Mapping[str, str] = field(default_factory=dict)
+    kind: str = "model"
+
+    def __call__(self, params: Sequence[Arr], x: X) -> np.ndarray:
+        return self.func(params, x)
+
+
+# -- start values (from the data alone) ------------------------------------------------------------------
+
+
+def _half_point(s: np.ndarray, v: np.ndarray, vmax: float) -> float:
+    """Substrate level where the rate first reaches half of ``vmax`` (geometric midpoint of its neighbours),
+    or the median positive level when the data never get there."""
+    order = np.argsort(s)
+    s, v = s[order], v[order]
+    pos = s[s > 0]
+    if pos.size == 0:
+        return 1.0
+    above = np.flatnonzero(v >= vmax / 2)
+    if above.size and above[0] > 0 and s[above[0] - 1] > 0:
+        return float(np.sqrt(s[above[0]] * s[above[0] - 1]))
+    if above.size:
+        return float(s[above[0]]) if s[above[0]] > 0 else float(np.median(pos))
+    return float(np.median(pos))
+
+
+def _mm_start(x: X, y: np.ndarray) -> tuple[float, float]:
+    s = np.asarray(x["substrate"], float)
+    vmax = float(np.nanmax(y)) if np.any(np.isfinite(y)) else 1.0
+    vmax = vmax if vmax > 0 else 1.0
+    return vmax, _half_point(s, y, vmax)
+
+
+def _uninhibited(x: X, y: np.ndarray) -> tuple[X, np.ndarray]:
+    i = np.asarray(x["inhibitor"], float)
+    low = i <= np.nanmin(i) if np.any(np.isfinite(i)) else np.ones(i.shape, bool)
+    return {"substrate": np.asarray(x["substrate"])[low]}, y[low]
+
+
+def _typical_inhibitor(x: X) -> float:
+    i = np.asarray(x["inhibitor"], float)
+    pos = i[np.isfinite(i) & (i > 0)]
+    return float(np.median(pos)) if pos.size else 1.0
+
+
+# -- substrate-only models -------------------------------------------------------------------------------
+
+
+def _mm(p: Sequence[Arr], x: X) -> np.ndarray:
+    s = x["substrate"]
+    return p[0] * s / (p[1] + s)
+
+
+def _mm_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    s = x["substrate"]
+    d = p[1] + s
+    return [s / d, -p[0] * s / d**2]
+
+
+def _hill_u(p: Sequence[Arr], s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ls = np.where(s > 0, np.log(np.where(s > 0, s, 1.0)) - np.log(p[1]), -np.inf)
+        u = np.exp(p[2] * ls)
+    return u, ls
+
+
+def _hill(p: Sequence[Arr], x: X) -> np.ndarray:
+    u, _ = _hill_u(p, x["substrate"])
+    return p[0] * u / (1 + u)
+
+
+def _hill_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    u, ls = _hill_u(p, x["substrate"])
+    d = (1 + u) ** 2
+    dh = np.where(u > 0, p[0] * u * np.where(np.isfinite(ls), ls, 0.0) / d, 0.0)
+    return [u / (1 + u), -p[0] * p[2] * u / (p[1] * d), dh]
+
+
+def _hill_guess(x: X, y: np.ndarray) -> list[float]:
+    return [*_mm_start(x, y), 1.0]
+
+
+def _si(p: Sequence[Arr], x: X) -> np.ndarray:
+    s = x["substrate"]
+    return p[0] * s / (p[1] + s + s**2 / p[2])
+
+
+def _si_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    s = x["substrate"]
+    d = p[1] + s + s**2 / p[2]
+    return [s / d, -p[0] * s / d**2, p[0] * s**3 / (p[2] ** 2 * d**2)]
+
+
+def _si_guess(x: X, y: np.ndarray) -> list[float]:
+    vmax, km = _mm_start(x, y)
+    s = np.asarray(x["substrate"], float)
+    return [vmax, km, 10.0 * float(np.nanmax(s)) if np.nanmax(s) > 0 else 1.0]
+
+
+# -- inhibitor models (general mixed form; the others fix one term) --------------------------------------
+
+
+def _mixed_terms(p: Sequence[Arr], x: X, kic: Arr, kiu: Arr) -> tuple[np.ndarray, ...]:
+    s, i = x["substrate"], x["inhibitor"]
+    a = 1 + i / kic
+    b = 1 + i / kiu
+    d = p[1] * a + s * b
+    return s, i, a, b, d
+
+
+def _competitive(p: Sequence[Arr], x: X) -> np.ndarray:
+    s, _, _, _, d = _mixed_terms(p, x, p[2], INF)
+    return p[0] * s / d
+
+
+def _competitive_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    s, i, a, _, d = _mixed_terms(p, x, p[2], INF)
+    return [s / d, -p[0] * s * a / d**2, p[0] * s * p[1] * i / (p[2] ** 2 * d**2)]
+
+
+def _uncompetitive(p: Sequence[Arr], x: X) -> np.ndarray:
+    s, _, _, _, d = _mixed_terms(p, x, INF, p[2])
+    return p[0] * s / d
+
+
+def _uncompetitive_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    s, i, _, _, d = _mixed_terms(p, x, INF, p[2])
+    return [s / d, -p[0] * s / d**2, p[0] * s * s * i / (p[2] ** 2 * d**2)]
+
+
+def _mixed(p: Sequence[Arr], x: X) -> np.ndarray:
+    s, _, _, _, d = _mixed_terms(p, x, p[2], p[3])
+    return p[0] * s / d
+
+
+def _mixed_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    s, i, a, _, d = _mixed_terms(p, x, p[2], p[3])
+    vs = p[0] * s / d**2
+    return [s / d, -vs * a, vs * p[1] * i / p[2] ** 2, vs * s * i / p[3] ** 2]
+
+
+def _noncompetitive(p: Sequence[Arr], x: X) -> np.ndarray:
+    s, i = x["substrate"], x["inhibitor"]
+    return p[0] * s / ((p[1] + s) * (1 + i / p[2]))
+
+
+def _noncompetitive_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    s, i = x["substrate"], x["inhibitor"]
+    a = 1 + i / p[2]
+    d = (p[1] + s) * a
+    return [s / d, -p[0] * s * a / d**2, p[0] * s * (p[1] + s) * i / (p[2] ** 2 * d**2)]
+
+
+def _inhib_guess(n_ki: int) -> Callable[[X, np.ndarray], list[float]]:
+    def guess(x: X, y: np.ndarray) -> list[float]:
+        xs, ys = _uninhibited(x, y)
+        vmax, km = _mm_start(xs, ys)
+        return [vmax, km] + [_typical_inhibitor(x)] * n_ki
+
+    return guess
+
+
+# -- inhibitor titrations --------------------------------------------------------------------------------
+
+
+def _morrison_terms(p: Sequence[Arr], x: X) -> tuple[np.ndarray, ...]:
+    e, i = x["enzyme"], x["inhibitor"]
+    b = e + i + p[1]
+    q = np.sqrt(np.maximum(b * b - 4 * e * i, 0.0))
+    return i, b, q
+
+
+def _morrison(p: Sequence[Arr], x: X) -> np.ndarray:
+    i, b, q = _morrison_terms(p, x)
+    return p[0] * (1 - 2 * i / (b + q))
+
+
+def _morrison_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    i, b, q = _morrison_terms(p, x)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        dq = np.where(q > 0, b / q, 0.0)
+    return [1 - 2 * i / (b + q), p[0] * 2 * i * (1 + dq) / (b + q) ** 2]
+
+
+def _morrison_guess(x: X, y: np.ndarray) -> list[float]:
+    top = float(np.nanmax(y)) if np.nanmax(y) > 0 else 1.0
+    return [top, _typical_inhibitor(x)]
+
+
+def _logistic_u(p: Sequence[Arr], i: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        li = np.where(i > 0, np.log(np.where(i > 0, i, 1.0)) - np.log(p[2]), -np.inf)
+        u = np.exp(p[3] * li)
+    return u, li
+
+
+def _logistic(p: Sequence[Arr], x: X) -> np.ndarray:
+    u, _ = _logistic_u(p, x["inhibitor"])
+    return p[1] + (p[0] - p[1]) / (1 + u)
+
+
+def _logistic_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
+    u, li = _logistic_u(p, x["inhibitor"])
+    d = (1 + u) ** 2
+    span = p[0] - p[1]
+    dslope = np.where(u > 0, -span * u * np.where(np.isfinite(li), li, 0.0) / d, 0.0)
+    return [1 / (1 + u), u / (1 + u), span * u * p[3] / (p[2] * d), dslope]
+
+
+def _logistic_guess(x: X, y: np.ndarray) -> list[float]:
+    i = np.asarray(x["inhibitor"], float)
+    pos = i[i > 0]
+    mid = float(np.exp(np.median(np.log(pos)))) if pos.size else 1.0
+    top, bottom = float(np.nanmax(y)), float(np.nanmin(y))
+    order = np.argsort(i)
+    # a falling curve (inhibition) gets a positive slope; a rising one a negative slope
+    rising = np.nanmean(y[order][-3:]) > np.nanmean(y[order][:3])
+    return [bottom, top, mid, -1.0] if rising else [top, bottom, mid, 1.0]
+
+
+POS = (0.0, INF)
+
+MODELS: tuple[Model, ...] = (
+    Model("michaelis-menten", ("Vmax", "Km"), {"Vmax": "rate", "Km": "substrate"}, ("substrate",),
+          _mm, _mm_jac, lambda x, y: list(_mm_start(x, y)), "v = Vmax·S/(Km + S)",
+          "Michaelis-Menten rate law", {"Km": POS}, ("Km",)),
+    Model("hill", ("Vmax", "K0.5", "h"), {"Vmax": "rate", "K0.5": "substrate", "h": ""}, ("substrate",),
+          _hill, _hill_jac, _hill_guess, "v = Vmax·S^h/(K0.5^h + S^h)",
+          "Hill equation (cooperativity)", {"K0.5": POS, "h": (0.05, 20.0)}, ("K0.5", "h"),
+          {"michaelis-menten": "h = 1"}),
+    Model("substrate-inhibition", ("Vmax", "Km", "Ksi"), {"Vmax": "rate", "Km": "substrate", "Ksi": "substrate"},
+          ("substrate",), _si, _si_jac, _si_guess, "v = Vmax·S/(Km + S + S²/Ksi)",
+          "Haldane substrate inhibition", {"Km": POS, "Ksi": POS}, ("Km", "Ksi"),
+          {"michaelis-menten": "Ksi → ∞"}),
+    Model("competitive", ("Vmax", "Km", "Kic"), {"Vmax": "rate", "Km": "substrate", "Kic": "inhibitor"},
+          ("substrate", "inhibitor"), _competitive, _competitive_jac, _inhib_guess(1),
+          "v = Vmax·S/(Km(1 + I/Kic) + S)", "competitive inhibition", {"Km": POS, "Kic": POS}, ("Km", "Kic")),
+    Model("uncompetitive", ("Vmax", "Km", "Kiu"), {"Vmax": "rate", "Km": "substrate", "Kiu": "inhibitor"},
+          ("substrate", "inhibitor"), _uncompetitive, _uncompetitive_jac, _inhib_guess(1),
+          "v = Vmax·S/(Km + S(1 + I/Kiu))", "uncompetitive inhibition", {"Km": POS, "Kiu": POS}, ("Km", "Kiu")),
+    Model("mixed", ("Vmax", "Km", "Kic", "Kiu"),
+          {"Vmax": "rate", "Km": "substrate", "Kic": "inhibitor", "Kiu": "inhibitor"},
+          ("substrate", "inhibitor"), _mixed, _mixed_jac, _inhib_guess(2),
+          "v = Vmax·S/(Km(1 + I/Kic) + S(1 + I/Kiu))", "mixed inhibition",
+          {"Km": POS, "Kic": POS, "Kiu": POS}, ("Km", "Kic", "Kiu"),
+          {"competitive": "Kiu → ∞", "uncompetitive": "Kic → ∞", "noncompetitive": "Kic = Kiu"}),
+    Model("noncompetitive", ("Vmax", "Km", "Ki"), {"Vmax": "rate", "Km": "substrate", "Ki": "inhibitor"},
+          ("substrate", "inhibitor"), _noncompetitive, _noncompetitive_jac, _inhib_guess(1),
+          "v = Vmax·S/((Km + S)(1 + I/Ki))", "pure noncompetitive inhibition", {"Km": POS, "Ki": POS},
+          ("Km", "Ki")),
+    Model("morrison", ("v0", "Ki_app"), {"v0": "rate", "Ki_app": "inhibitor"}, ("inhibitor", "enzyme"),
+          _morrison, _morrison_jac, _morrison_guess,
+          "v = v0·(1 − ((E + I + Ki_app) − √((E + I + Ki_app)² − 4EI))/(2E))",
+          "Morrison tight-binding inhibition (enzyme in the inhibitor's unit)", {"Ki_app": POS}, ("Ki_app",)),
+    Model("logistic-4p", ("top", "bottom", "IC50", "slope"),
+          {"top": "rate", "bottom": "rate", "IC50": "inhibitor", "slope": ""}, ("inhibitor",),
+          _logistic, _logistic_jac, _logistic_guess, "v = bottom + (top − bottom)/(1 + (I/IC50)^slope)",
+          "four-parameter logistic dose-response", {"IC50": POS}, ("IC50",)),
+)
+
+BY_NAME = {m.name: m for m in MODELS}
