@@ -1,1 +1,128 @@
-"""Built-in import stage: readers for plate-reader exports and plate layouts."""
+"""Built-in import stage: a plate's time courses and its layout, from the files the runner hands over.
+
+Kept light at import time (the command line imports every plugin); the readers are imported in ``run``.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from pipeline import hookimpl
+from pipeline.errors import InputFileError, LayoutError
+from pipeline.params import Param
+from pipeline.stage import Stage, StageInput, StageOutput
+
+LAYOUT_QUANTITIES = ("substrate", "enzyme", "inhibitor")
+
+
+class TableImport(Stage):
+    """Read a wide table (time column, then one column per well) or a long table (well, time, signal), in
+    CSV, TSV, semicolon/decimal-comma text or xlsx, and join it with the plate layout.
+
+    Wells in the data but not in the layout (or the reverse) are an error naming them. Saturated reads
+    (overflow tokens, or reads at or above ``ceiling``) are kept in the audit file but masked.
+    """
+
+    kind = "import"
+    method = "table"
+    version = "1.0"
+    summary = "wide or long plate-reader tables (CSV/TSV/xlsx) joined with a plate layout"
+    params = {
+        "shape": Param.choice(("auto", "wide", "long"), "auto", "table shape; auto detects it"),
+        "signal_unit": Param("unit", "AU", "unit of the reads (AU, RFU, RLU, ...)"),
+        "time_unit": Param.choice(("s", "min", "h"), None, "unit of a numeric time column (default: from the "
+                                  "header, else seconds, stated in the run's warnings)", nullable=True),
+        "time_column": Param("str", None, "name of the time column (default: detected)", nullable=True),
+        "temperature_column": Param("str", None, "name of a temperature column (°C)", nullable=True),
+        "delimiter": Param.choice((",", ";", "\t"), None, "field separator (default: detected)", nullable=True),
+        "decimal": Param.choice((".", ","), None, "decimal mark (default: detected)", nullable=True),
+        "encoding": Param("str", None, "text encoding (default: UTF-8, else Latin-1)", nullable=True),
+        "sheet": Param("any", None, "xlsx sheet by name or 0-based position", nullable=True),
+        "skip_rows": Param("int", None, "rows above the header to skip (default: detected)", nullable=True, low=0),
+        "block": Param("any", None, "which block of a multi-block file (name or 0-based position)", nullable=True),
+        "overflow_tokens": Param("list", None, "text that marks a saturated read (default: a built-in list)",
+                                 nullable=True),
+        "ceiling": Param("float", None, "reads at or above this value count as saturated", nullable=True),
+        "substrate_unit": Param("unit", None, "unit of the layout's substrate column, if its header has none",
+                                like="M", nullable=True),
+        "enzyme_unit": Param("unit", None, "unit of the layout's enzyme column, if its header has none",
+                             like="M", nullable=True),
+        "inhibitor_unit": Param("unit", None, "unit of the layout's inhibitor column, if its header has none",
+                                like="M", nullable=True),
+    }
+
+    def run(self, data: StageInput) -> StageOutput:
+        import numpy as np
+
+        from pipeline.data import Traces
+        from plugins.importers import layouts, readers
+
+        s = self.settings
+        raw = data.inputs.get("data")
+        if raw is None:
+            raise InputFileError("the plate has no 'data' file in the recipe", hint="Add data: FILE to the plate.")
+        options = readers.ReadOptions(
+            shape=s["shape"], delimiter=s["delimiter"], decimal=s["decimal"], encoding=s["encoding"],
+            sheet=s["sheet"], skip_rows=s["skip_rows"], time_column=s["time_column"], time_unit=s["time_unit"],
+            temperature_column=s["temperature_column"], ceiling=s["ceiling"],
+            **({"overflow_tokens": tuple(s["overflow_tokens"])} if s["overflow_tokens"] else {}),
+        )
+        blocks = readers.read_table(raw.data, source=raw.name, options=options)
+        block = _pick_block(blocks, s["block"], raw.name)
+        for note in block.assumptions:
+            data.warn(note)
+
+        layout_raw = data.inputs.get("layout")
+        if layout_raw is None:
+            raise InputFileError("the plate has no 'layout' file in the recipe",
+                                 hint="Add layout: FILE (well, role, substrate, enzyme, inhibitor, group).")
+        layout = layouts.read_layout(layout_raw.data, source=layout_raw.name, plate_size=None)
+        layouts.check_match(block.wells, list(layout["well"]), layout_raw.name)
+        units = dict(layout.attrs.get("units", {}))
+        for q in LAYOUT_QUANTITIES:
+            given = s[f"{q}_unit"]
+            if q in layout.columns and layout[q].notna().any():
+                if given and units.get(q) and units[q] != given:
+                    data.warn(f"layout header gives {q} in {units[q]}, recipe says {given}; the header wins")
+                units.setdefault(q, given or "")
+                if not units[q]:
+                    raise LayoutError(
+                        f"the {q} column has no unit", path=layout_raw.name, column=q,
+                        hint=f'Write the unit in the header, like "{q} (uM)", or set {q}_unit in the import step.',
+                    )
+        wells = layout.set_index("well").loc[block.wells].reset_index()
+        signal = np.asarray(block.signal, dtype=float)
+        saturated = np.asarray(block.saturated, dtype=bool)
+        traces = Traces(
+            plate=str(data.plate["name"]) if data.plate else "plate",
+            time=np.asarray(block.time_s, dtype=float),
+            signal=signal,
+            mask=np.isfinite(signal) & ~saturated,
+            saturated=saturated,
+            wells=wells,
+            signal_unit=s["signal_unit"],
+            well_units={k: v for k, v in units.items() if k in wells.columns and v},
+            temperature=block.temperature,
+        )
+        return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
+
+
+def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
+    names = [b.name for b in blocks]
+    if which is None:
+        if len(blocks) > 1:
+            raise InputFileError(
+                f"the file holds {len(blocks)} blocks ({', '.join(names)})", path=source,
+                hint="Choose one with block: NAME in the import step, or give each block its own plate entry.",
+            )
+        return blocks[0]
+    if isinstance(which, int) and 0 <= which < len(blocks):
+        return blocks[which]
+    if which in names:
+        return blocks[names.index(which)]
+    raise InputFileError(f"no block {which!r}; the file holds {', '.join(map(str, names))}", path=source)
+
+
+@hookimpl
+def vzero_register(registry: Any) -> None:
+    registry.add(TableImport)

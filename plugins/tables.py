@@ -1,0 +1,58 @@
+"""Building the standard per-well rates table from traces and a rate result (shared by rate methods)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from pipeline.data import Table, Traces
+from plugins.flags import Flag, names_array
+from plugins.rates.result import RateResult
+
+WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor")
+
+
+def saturation_flags(traces: Traces) -> np.ndarray:
+    """SATURATED where a well has any saturated read, ALL_MISSING where it has no usable read."""
+    flags = np.where(traces.saturated.any(axis=1), int(Flag.SATURATED), 0).astype(np.int64)
+    flags |= np.where(~traces.mask.any(axis=1), int(Flag.ALL_MISSING), 0)
+    return flags
+
+
+def rates_table(traces: Traces, result: RateResult, method: str, extra_flags: np.ndarray | None = None) -> Table:
+    """One row per well: identity and layout columns with units, then the rate, its error and window."""
+    w = traces.wells
+    cols: dict[str, Any] = {}
+    units: dict[str, str] = {}
+    for c in WELL_COLUMNS:
+        if c in w.columns:
+            values = w[c].to_numpy()
+            cols[c] = values.astype(float) if c in ("substrate", "enzyme", "inhibitor") else values.astype(str)
+            if c in ("substrate", "enzyme", "inhibitor"):
+                u = traces.well_units.get(c, "")
+                cols[f"{c}_unit"] = np.full(len(w), u, dtype=object)
+                if u:
+                    units[c] = u
+    rate_unit = f"{traces.signal_unit}/s"
+    flags = np.asarray(result.flags, dtype=np.int64) | saturation_flags(traces)
+    if extra_flags is not None:
+        flags |= extra_flags
+    cols.update(
+        rate=result.v0.astype(float),
+        rate_stderr=result.stderr.astype(float),
+        rate_unit=np.full(len(w), rate_unit, dtype=object),
+        method=np.full(len(w), method, dtype=object),
+        window_start_s=result.window_start_s.astype(float),
+        window_end_s=result.window_end_s.astype(float),
+        n_points=np.asarray(result.n_points, dtype=np.int64),
+        lag_s=np.asarray(result.lag_s, dtype=float),
+    )
+    cols[result.goodness_name] = result.goodness.astype(float)
+    for name, values in result.extra.items():
+        cols[name] = np.asarray(values, dtype=float)
+    cols["flags"] = names_array(flags)
+    frame = pd.DataFrame(cols)
+    units.update(rate=rate_unit, rate_stderr=rate_unit, window_start_s="s", window_end_s="s", lag_s="s")
+    return Table(frame, units, {"signal_unit": traces.signal_unit})
