@@ -193,6 +193,8 @@ def load_grid(data: bytes, *, source: str, options: ReadOptions) -> _Grid:
         raise InputFileError("the file is empty", path=source, hint="Check that the export finished.")
     if data[:4] == _XLSX_MAGIC:
         rows = _xlsx_rows(data, source, options.sheet)
+        width = max(map(len, rows), default=0)  # a sheet stores no trailing empty cells: pad them back
+        rows = [r + [""] * (width - len(r)) for r in rows]
         assumptions: list[str] = []
         decimal = options.decimal or "."
         if decimal == ",":
