@@ -1,0 +1,206 @@
+"""Lag phases and inactivation: detect them, and report the rate they hide.
+
+Lag (hysteresis, temperature equilibration): the curve starts slow and accelerates. :func:`detect_lag`
+fits straight lines to sliding blocks of reads (all wells and blocks at once from cumulative sums) and calls
+a lag when the first block's slope is clearly below the steepest block's. The lag time is the standard one:
+the time at which the steady-state line (the steepest block's line) meets the baseline.
+
+Decay (inactivation, Selwyn-type): after the lag, :func:`lag_decay` fits
+``y = y0 + v0 * (1 - exp(-k (t - ts))) / k`` (first-order loss of rate) to every well with one batched
+Levenberg–Marquardt solve, and reports ``v0``, the rate extrapolated to the start ``ts``. A rate that falls is
+not yet inactivation: substrate depletion also slows the reaction. Under Michaelis–Menten depletion the rate
+at conversion x is at least ``v0 (1 - x)`` (because ``S/(Km + S) * (Km + S0)/S0 >= S/S0``), so DECAY is set
+only when, with s0 and signal_per_conc known, the fitted rate at the last read is significantly below that
+bound. Without them decay and depletion cannot be told apart from one curve and DECAY is not assessed
+(``k_decay`` is still reported).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from plugins.flags import Flag
+from plugins.rates.noise import (
+    Screen,
+    blank_result,
+    check_inputs,
+    conversion_scale,
+    finish,
+    flag_noisy,
+    screen,
+)
+from plugins.rates.polynomial import masked_polyfit
+from plugins.rates.progress import batched_lm
+from plugins.rates.result import RateResult
+
+
+def _block_lines(
+    t: np.ndarray, y: np.ndarray, valid: np.ndarray, width: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Least-squares lines over every block of ``width`` consecutive reads.
+
+    Returns slope, value of the line at the block's mean time, that mean time, and ``1/Sxx`` (so the slope's
+    standard error is ``sigma * sqrt(1/Sxx)``); each ``[n_wells, n_blocks]``, NaN for blocks with < 3 reads.
+    """
+    w = valid.astype(float)
+    tc = t - t[0]
+    y0 = np.where(valid, y, 0.0)
+
+    def block_sum(a: np.ndarray) -> np.ndarray:
+        c = np.concatenate([np.zeros((a.shape[0], 1)), np.cumsum(a, axis=1)], axis=1)
+        return c[:, width:] - c[:, :-width]
+
+    s0, s1, s2 = block_sum(w), block_sum(w * tc), block_sum(w * tc**2)
+    sy, sty = block_sum(w * y0), block_sum(w * tc * y0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tbar = s1 / s0
+        sxx = s2 - s1 * tbar
+        slope = (sty - tbar * sy) / sxx
+        ybar = sy / s0
+        inv_sxx = 1.0 / sxx
+    few = s0 < 3
+    for a in (slope, ybar, tbar, inv_sxx):
+        a[few] = np.nan
+    return slope, ybar, tbar + t[0], inv_sxx
+
+
+def detect_lag(
+    t: np.ndarray,
+    y: np.ndarray,
+    sc: Screen,
+    *,
+    min_rise: float = 0.2,
+    z: float = 6.0,
+    settle: float = 0.03,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Find lag phases. Returns ``(start_index, lag_s, has_lag)`` per well.
+
+    A lag is called when the first block's slope is below ``(1 - min_rise)`` times the steepest block's and
+    the difference exceeds ``z`` standard errors. ``start_index`` is the first read of the first block whose
+    slope is within ``max(settle * steepest, 2 SE)`` of the steepest (where the steady state begins; 0 when
+    no lag). ``lag_s`` is where the steepest block's line meets the baseline (the first block's line at the
+    first read); 0 without lag, NaN for unusable wells.
+    """
+    n_w, n_t = y.shape
+    start = np.zeros(n_w, dtype=np.int64)
+    lag_s = np.where(sc.usable, 0.0, np.nan)
+    has = np.zeros(n_w, dtype=bool)
+    width = max(4, n_t // 8)
+    if n_t < 3 * width:
+        return start, lag_s, has
+    slope, ybar, tbar, inv_sxx = _block_lines(t, y, sc.valid, width)
+    d = np.sign(sc.change)[:, None]
+    so = d * slope
+    so_f = np.where(np.isfinite(so), so, -np.inf)
+    jmax = np.argmax(so_f, axis=1)
+    rows = np.arange(n_w)
+    smax = so[rows, jmax]
+    se = sc.sigma[:, None] * np.sqrt(inv_sxx)
+    first = so[:, 0]
+    with np.errstate(invalid="ignore"):
+        has = (
+            sc.usable
+            & (jmax > 0)
+            & (first < (1.0 - min_rise) * smax)
+            & (smax - first > z * np.hypot(se[:, 0], se[rows, jmax]))
+        )
+        near = so_f >= (smax - np.fmax(settle * smax, 2.0 * se[rows, jmax]))[:, None]
+    start = np.where(has, np.argmax(near, axis=1), 0).astype(np.int64)
+    first_read = t[np.argmax(sc.valid, axis=1)]
+    base = ybar[:, 0] + slope[:, 0] * (first_read - tbar[:, 0])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lag = tbar[rows, jmax] - (ybar[rows, jmax] - base) / slope[rows, jmax]
+    lag_s = np.where(has, lag, lag_s)
+    return start, lag_s, has
+
+
+def _selwyn(params: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Model ``y0 + v0 * (1 - exp(-k tau)) / k`` and its Jacobian; params ``[n, 3]`` = (y0, v0, k)."""
+    y0, v0, k = params[:, 0:1], params[:, 1:2], params[:, 2:3]
+    kt = k * tau
+    small = np.abs(kt) < 1e-6
+    kt_safe = np.where(small, 1.0, kt)
+    # g = (1 - exp(-k tau)) / k written as tau * phi(k tau), phi(x) = -expm1(-x) / x
+    phi = np.where(small, 1.0 - kt / 2.0, -np.expm1(-kt_safe) / kt_safe)
+    dphi = np.where(small, -0.5 + kt / 3.0, (np.exp(-kt_safe) * kt_safe + np.expm1(-kt_safe)) / kt_safe**2)
+    f = y0 + v0 * tau * phi
+    jac = np.stack([np.ones_like(f), tau * phi, v0 * tau * tau * dphi], axis=-1)
+    return f, jac
+
+
+def lag_decay(
+    time: np.ndarray,
+    signal: np.ndarray,
+    *,
+    s0: np.ndarray | None = None,
+    signal_per_conc: float | None = None,
+    min_points: int = 8,
+    z: float = 3.0,
+    fail_ratio: float = 3.0,
+    max_iter: int = 60,
+) -> RateResult:
+    """Steady-state rate after any lag, extrapolated back through any first-order decay.
+
+    v0 is the rate at the start of the steady state (the first read after the lag; the first read when there
+    is none), in signal/s, from the first-order-decay fit over all later reads. Flags: LAG (with ``lag_s``);
+    DECAY (see module text; needs s0 and signal_per_conc); FIT_FAILED when the fit does not converge or its
+    residual RMS exceeds ``fail_ratio`` times the read noise. ``extra``: ``k_decay`` (1/s),
+    ``k_decay_stderr``, ``rmse_over_noise``.
+    """
+    t, y = check_inputs(time, signal)
+    n_w = y.shape[0]
+    sc = screen(y, min_points=min_points)
+    out = blank_result(n_w, sc.flags)
+    extra = {"k_decay": np.full(n_w, np.nan), "k_decay_stderr": np.full(n_w, np.nan),
+             "rmse_over_noise": np.full(n_w, np.nan), "read_noise": sc.sigma}
+    if t.size == 0:
+        return finish(out, extra)
+    start, lag_s, has_lag = detect_lag(t, y, sc)
+    out["lag_s"] = lag_s
+    out["flags"][has_lag] |= int(Flag.LAG)
+    ts = t[start]
+    w = (sc.valid & (np.arange(t.size)[None, :] >= start[:, None])).astype(float)
+    n_in = w.sum(axis=1)
+    few = sc.usable & (n_in < min_points)
+    out["flags"][few] |= int(Flag.TOO_FEW_POINTS)
+    todo = np.flatnonzero(sc.usable & ~few)
+    if todo.size:
+        tau = np.maximum(t[None, :] - ts[todo, None], 0.0)
+        yy, ww = y[todo], w[todo]
+        # start values from a quadratic y ≈ a + b tau + c tau²  ->  v0 = b, k = -2c/b
+        span = np.fmax(tau.max(axis=1), 1e-300)
+        q = masked_polyfit(tau / span[:, None], yy, ww, 2)
+        b, c = q.coef[:, 1] / span, q.coef[:, 2] / span**2
+        k0 = np.clip(np.nan_to_num(-2.0 * c / b), -1.0 / span, 10.0 / span)
+        p0 = np.stack([q.coef[:, 0], b, k0], axis=1)
+        fit = batched_lm(lambda p: _selwyn(p, tau), p0, yy, ww, max_iter=max_iter)
+        dof = np.fmax(n_in[todo] - 3, 1)
+        rmse = np.sqrt(fit.rss / dof)
+        ratio = rmse / sc.sigma[todo]
+        cov = fit.cov_unit * (np.fmax(rmse, sc.sigma[todo]) ** 2)[:, None, None]
+        se = np.sqrt(np.abs(np.diagonal(cov, axis1=1, axis2=2)))
+        failed = ~fit.converged | ~(ratio <= fail_ratio) | ~np.all(np.isfinite(fit.params), axis=1)
+        v0 = fit.params[:, 1]
+        k = fit.params[:, 2]
+        out["v0"][todo], out["stderr"][todo] = v0, se[:, 1]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out["goodness"][todo] = 1.0 - fit.rss / fit.tss
+        extra["k_decay"][todo], extra["k_decay_stderr"][todo] = k, se[:, 2]
+        extra["rmse_over_noise"][todo] = ratio
+        out["flags"][todo[failed]] |= int(Flag.FIT_FAILED)
+        full = conversion_scale(s0, signal_per_conc, n_w)
+        if full is not None:
+            span_t = t[-1] - ts[todo]
+            f_end, _ = _selwyn(fit.params, span_t[:, None])
+            x_end = np.abs(f_end[:, 0] - fit.params[:, 0]) / full[todo]
+            k_low = k - z * se[:, 2]
+            with np.errstate(invalid="ignore", over="ignore"):
+                decay = (k_low > 0) & (np.exp(-k_low * span_t) < 1.0 - x_end)
+            out["flags"][todo[decay & ~failed]] |= int(Flag.DECAY)
+        out["window_start_s"][todo] = ts[todo]
+        last = t.size - 1 - np.argmax(ww[:, ::-1] > 0, axis=1)
+        out["window_end_s"][todo] = t[last]
+        out["n_points"][todo] = n_in[todo].astype(np.int64)
+    flag_noisy(out["v0"], out["stderr"], out["flags"])
+    out["goodness_name"] = "r_squared"
+    return finish(out, extra)

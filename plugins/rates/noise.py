@@ -1,0 +1,167 @@
+"""Shared screening for every rate kernel: input checks, read noise, bad-well flags, conversion.
+
+Every kernel first calls :func:`screen`, which finds the wells that cannot give a rate (all reads missing,
+too few reads, total change within a few multiples of the read noise) *before* any fit is attempted, so that
+nonlinear fits never run on them. All functions work on whole plates: ``signal`` is ``[n_wells, n_time]``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from pipeline.errors import StageError
+from plugins.flags import Flag
+from plugins.rates.result import RateResult
+
+#: Scale from the median absolute deviation to the standard deviation of a normal distribution.
+MAD_TO_SD = 1.4826
+#: Default multiple of the read noise below which a well's total change counts as no signal.
+NO_SIGNAL_FACTOR = 5.0
+#: Default minimum |v0| / stderr(v0); below it a rate is flagged NOISY (a relative error above 10 %).
+NOISY_MIN_T = 10.0
+
+
+def check_inputs(time: np.ndarray, signal: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return ``(time, signal)`` as float arrays ``[n_time]`` and ``[n_wells, n_time]``.
+
+    Raises :class:`~pipeline.errors.StageError` when the shapes disagree or time is not strictly increasing
+    (a plate-level problem: the importer should have caught it).
+    """
+    t = np.asarray(time, dtype=float)
+    y = np.asarray(signal, dtype=float)
+    if y.ndim == 1:
+        y = y[None, :]
+    if t.ndim != 1 or y.ndim != 2 or y.shape[1] != t.size:
+        raise StageError(
+            f"rate kernel: time has shape {t.shape} and signal {y.shape}; expected time [n_time] and "
+            "signal [n_wells, n_time] with the same n_time.",
+            hint="Pass one shared time axis and one row of reads per well.",
+        )
+    if t.size and (not np.all(np.isfinite(t)) or np.any(np.diff(t) <= 0)):
+        raise StageError(
+            "rate kernel: the time axis must be finite and strictly increasing.",
+            hint="Check the import stage's time column (repeated or backwards times).",
+        )
+    return t, y
+
+
+def read_noise(signal: np.ndarray) -> np.ndarray:
+    """Robust per-well read noise (signal units) from second differences: ``1.4826 * MAD(d2) / sqrt(6)``.
+
+    Second differences remove a straight line and almost all of a smooth curve; for independent reads of
+    standard deviation sigma, ``d2 = y[i+1] - 2 y[i] + y[i-1]`` has variance ``6 sigma²``. The median absolute
+    deviation makes the estimate robust to single outliers. Differences touching a missing read are
+    skipped; wells with fewer than 3 usable second differences get NaN.
+    """
+    y = np.asarray(signal, dtype=float)
+    if y.shape[-1] < 3:
+        return np.full(y.shape[0], np.nan)
+    d2 = y[:, 2:] - 2.0 * y[:, 1:-1] + y[:, :-2]
+    ok = np.isfinite(d2)
+    enough = ok.sum(axis=1) >= 3
+    out = np.full(y.shape[0], np.nan)
+    if np.any(enough):
+        d = d2[enough]
+        med = np.nanmedian(d, axis=1, keepdims=True)
+        out[enough] = MAD_TO_SD * np.nanmedian(np.abs(d - med), axis=1) / np.sqrt(6.0)
+    return out
+
+
+@dataclass(frozen=True)
+class Screen:
+    """What :func:`screen` found, per well (arrays ``[n_wells]`` unless noted).
+
+    ``valid`` is ``[n_wells, n_time]`` (finite reads); ``sigma`` the read noise with a tiny floor so that
+    noise-free simulations do not divide by zero; ``change`` the signed total change (mean of the last few
+    reads minus mean of the first few); ``usable`` the wells a kernel should work on.
+    """
+
+    valid: np.ndarray
+    n_valid: np.ndarray
+    sigma: np.ndarray
+    change: np.ndarray
+    flags: np.ndarray
+    usable: np.ndarray
+
+
+def screen(
+    signal: np.ndarray, *, min_points: int, no_signal_factor: float = NO_SIGNAL_FACTOR
+) -> Screen:
+    """Flag wells with no determinable rate before any fitting.
+
+    ALL_MISSING: no finite read. TOO_FEW_POINTS: fewer than ``min_points`` finite reads. NO_SIGNAL: the
+    total change ``|mean(last m) - mean(first m)|`` (m = 3 reads, fewer if the well has few) is at most
+    ``no_signal_factor`` times the read noise (this includes constant wells).
+    """
+    valid = np.isfinite(signal)
+    n_valid = valid.sum(axis=1)
+    flags = np.zeros(signal.shape[0], dtype=np.int64)
+    flags[n_valid == 0] |= int(Flag.ALL_MISSING)
+    flags[(n_valid > 0) & (n_valid < min_points)] |= int(Flag.TOO_FEW_POINTS)
+    m = np.clip(n_valid // 3, 1, 3)[:, None]
+    rank = np.cumsum(valid, axis=1)
+    first = valid & (rank <= m)
+    last = valid & (rank > n_valid[:, None] - m)
+    y0 = np.where(valid, signal, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        change = (y0 * last).sum(axis=1) / last.sum(axis=1) - (y0 * first).sum(axis=1) / first.sum(axis=1)
+        scale = np.nanmax(np.abs(np.where(valid, signal, np.nan)), axis=1, initial=0.0)
+    sigma = read_noise(signal)
+    sigma = np.fmax(np.nan_to_num(sigma, nan=0.0), 1e-12 * np.fmax(scale, 1e-300))
+    small = n_valid >= min_points
+    no_sig = small & ~(np.abs(change) > no_signal_factor * sigma)
+    flags[no_sig] |= int(Flag.NO_SIGNAL)
+    return Screen(valid, n_valid, sigma, change, flags, flags == 0)
+
+
+def conversion_scale(
+    s0: np.ndarray | None, signal_per_conc: float | None, n_wells: int
+) -> np.ndarray | None:
+    """Signal change at full conversion per well, ``|signal_per_conc| * s0`` (None when either is unknown).
+
+    Percent conversion of a signal change ``d`` is then ``|d| / conversion_scale``.
+    """
+    if s0 is None or signal_per_conc is None:
+        return None
+    s = np.broadcast_to(np.asarray(s0, dtype=float), (n_wells,)).copy()
+    if signal_per_conc == 0 or not np.isfinite(signal_per_conc):
+        raise StageError(
+            f"rate kernel: signal_per_conc must be finite and non-zero, got {signal_per_conc!r}.",
+            hint="Give the signal change per unit product concentration (e.g. epsilon x pathlength).",
+        )
+    s[~(s > 0)] = np.nan
+    return np.abs(float(signal_per_conc)) * s
+
+
+def blank_result(n_wells: int, flags: np.ndarray, goodness_name: str = "r_squared") -> dict:
+    """Keyword arguments for a :class:`RateResult` with every value NaN (filled in by the kernel)."""
+    nan = np.full(n_wells, np.nan)
+    return {
+        "v0": nan.copy(),
+        "stderr": nan.copy(),
+        "window_start_s": nan.copy(),
+        "window_end_s": nan.copy(),
+        "goodness": nan.copy(),
+        "flags": np.asarray(flags, dtype=np.int64).copy(),
+        "n_points": np.zeros(n_wells, dtype=np.int64),
+        "lag_s": nan.copy(),
+        "goodness_name": goodness_name,
+    }
+
+
+def flag_noisy(v0: np.ndarray, stderr: np.ndarray, flags: np.ndarray, min_t: float = NOISY_MIN_T) -> None:
+    """Set NOISY in place where the rate's signal-to-noise ``|v0| / stderr`` is below ``min_t``."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        snr = np.abs(v0) / stderr
+    flags[np.isfinite(v0) & ~(snr >= min_t)] |= int(Flag.NOISY)
+
+
+def finish(fields: dict, extra: dict[str, np.ndarray] | None = None) -> RateResult:
+    """Build the :class:`RateResult`, forcing NaN v0/stderr on wells flagged as having no rate."""
+    dead = int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)
+    bad = (fields["flags"] & dead) != 0
+    fields["v0"][bad] = np.nan
+    fields["stderr"][bad] = np.nan
+    return RateResult(**fields, extra=extra or {})

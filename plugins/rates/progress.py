@@ -1,0 +1,257 @@
+"""Whole-progress-curve fit of the integrated Michaelis–Menten equation, all wells at once.
+
+Closed form (Schnell & Mendoza 1997, J. Theor. Biol. 187:207-212), written with the Wright omega function
+so that it stays finite for S0/Km above ~700 where ``exp`` overflows::
+
+    S(t) = Km * W((S0/Km) * exp((S0 - Vmax t)/Km)) = Km * omega(ln(S0/Km) + (S0 - Vmax t)/Km),  P = S0 - S
+
+Jacobian by implicit differentiation of ``Vmax t = (S0 - S) + Km ln(S0/S)``:
+``dP/dVmax = t S/(S + Km)``, ``dP/dKm = -S ln(S0/S)/(S + Km)``, ``dP/dS0 = 1 - S (S0 + Km)/(S0 (S + Km))``.
+
+The fit is a batched Levenberg–Marquardt (:func:`batched_lm`): one ``[n_wells, n_time, n_params]``
+Jacobian per iteration and a stacked ``numpy.linalg.solve``, instead of one optimiser call per well.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.special import wrightomega
+
+from plugins.flags import Flag
+from plugins.rates.noise import blank_result, check_inputs, finish, flag_noisy, screen
+from plugins.rates.polynomial import masked_polyfit
+from plugins.rates.result import RateResult
+
+
+@dataclass(frozen=True)
+class LMFit:
+    """Result of :func:`batched_lm`, arrays over wells: ``params [n, p]``, ``rss``, ``tss`` (about the
+    weighted mean), ``cov_unit = (J' W J)^-1`` at the solution, ``converged``, ``n_iter`` (plate-wide)."""
+
+    params: np.ndarray
+    rss: np.ndarray
+    tss: np.ndarray
+    cov_unit: np.ndarray
+    converged: np.ndarray
+    n_iter: int
+
+
+def batched_lm(
+    fun: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]],
+    p0: np.ndarray,
+    y: np.ndarray,
+    w: np.ndarray,
+    *,
+    lower: np.ndarray | None = None,
+    upper: np.ndarray | None = None,
+    max_iter: int = 60,
+    rtol: float = 1e-6,
+    xtol: float = 1e-9,
+) -> LMFit:
+    """Levenberg–Marquardt for many independent least-squares problems sharing one model.
+
+    ``fun(params[n, p]) -> (model [n, t], jacobian [n, t, p])``; ``y`` ``[n, t]`` (NaN allowed where
+    ``w == 0``); ``w`` 0/1 weights. Each well keeps its own damping (Marquardt scaling by ``diag(J'J)``);
+    steps that do not lower a well's cost are rejected for that well only. A well has converged when an
+    accepted step lowers its cost by less than ``rtol`` relatively or moves every parameter by less than
+    ``xtol * (|p| + xtol)``, or the damping has grown so large that no step helps (a stationary point).
+    Parameters are clipped to ``[lower, upper]`` when given.
+    """
+    y0 = np.where(w > 0, y, 0.0)
+    p = np.array(p0, dtype=float)
+    n, n_p = p.shape
+
+    def clip(q: np.ndarray) -> np.ndarray:
+        if lower is not None:
+            q = np.maximum(q, lower)
+        if upper is not None:
+            q = np.minimum(q, upper)
+        return q
+
+    p = clip(p)
+    f, jac = fun(p)
+    r = (y0 - f) * w
+    cost = np.einsum("wt,wt->w", r, r)
+    lam = np.full(n, 1e-3)
+    done = ~np.isfinite(cost)
+    eye = np.eye(n_p)
+    it = 0
+    for it in range(1, max_iter + 1):  # noqa: B007 - the count is reported
+        jw = jac * w[:, :, None]
+        a = np.einsum("wtp,wtq->wpq", jw, jac)
+        g = np.einsum("wtp,wt->wp", jw, r)
+        diag = np.diagonal(a, axis1=1, axis2=2)
+        damp = a + (lam[:, None] * (diag + 1e-12 * diag.max(axis=1, keepdims=True) + 1e-300))[:, :, None] * eye
+        damp[~np.all(np.isfinite(damp), axis=(1, 2))] = eye
+        step = np.linalg.solve(damp, g[:, :, None])[:, :, 0]
+        step[done] = 0.0
+        p_new = clip(p + step)
+        with np.errstate(all="ignore"):
+            f_new, j_new = fun(p_new)
+            r_new = (y0 - f_new) * w
+            c_new = np.einsum("wt,wt->w", r_new, r_new)
+        better = ~done & np.isfinite(c_new) & (c_new < cost)
+        rel = (cost - c_new) / np.fmax(cost, 1e-300)
+        tiny_step = np.all(np.abs(p_new - p) <= xtol * (np.abs(p) + xtol), axis=1)
+        small = better & ((rel < rtol) | tiny_step)
+        p[better], f[better], jac[better], r[better] = p_new[better], f_new[better], j_new[better], r_new[better]
+        cost = np.where(better, c_new, cost)
+        lam = np.where(better, np.fmax(lam / 3.0, 1e-12), lam * 4.0)
+        done |= small | (lam > 1e10)
+        if done.all():
+            break
+    jw = jac * w[:, :, None]
+    a = np.einsum("wtp,wtq->wpq", jw, jac)
+    bad = ~np.all(np.isfinite(a), axis=(1, 2)) | (np.abs(np.linalg.det(np.where(np.isfinite(a), a, 1.0))) == 0)
+    a[bad] = eye
+    cov = np.linalg.inv(a)
+    cov[bad] = np.nan
+    nw = np.fmax(w.sum(axis=1), 1.0)
+    mean = (y0 * w).sum(axis=1) / nw
+    tss = (((y0 - mean[:, None]) * w) ** 2).sum(axis=1)
+    return LMFit(p, cost, tss, cov, done & np.isfinite(cost), it)
+
+
+def integrated_mm(t: np.ndarray, s0: np.ndarray, km: np.ndarray, vmax: np.ndarray) -> np.ndarray:
+    """Substrate left at time ``t`` under Michaelis–Menten kinetics (closed form, broadcasting).
+
+    ``S = Km * omega(ln(S0/Km) + (S0 - Vmax t)/Km)`` (Wright omega = Lambert W of ``exp`` of the argument).
+    """
+    arg = np.log(s0 / km) + (s0 - vmax * t) / km
+    return km * wrightomega(arg)
+
+
+def _mm_curve(
+    t: np.ndarray, s0: np.ndarray, km: np.ndarray, vmax: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Product P and its derivatives with respect to ln S0, ln Km and ln Vmax (each ``[n, t]``)."""
+    s = np.maximum(integrated_mm(t, s0, km, vmax), 1e-300)
+    s = np.minimum(s, s0)
+    denom = s + km
+    p = s0 - s
+    d_ls0 = s0 - s * (s0 + km) / denom
+    d_lkm = -km * s * np.log(s0 / s) / denom
+    d_lv = vmax * t * s / denom
+    return p, d_ls0, d_lkm, d_lv
+
+
+def progress_curve(
+    time: np.ndarray,
+    signal: np.ndarray,
+    *,
+    s0: np.ndarray | None = None,
+    signal_per_conc: float | None = None,
+    min_points: int = 8,
+    fail_ratio: float = 3.0,
+    max_iter: int = 80,
+) -> RateResult:
+    """Initial rate from a fit of the integrated Michaelis–Menten equation to the whole curve.
+
+    With ``s0`` and ``signal_per_conc`` both given the model is ``baseline + signal_per_conc * P(t)`` with
+    fitted baseline, Km and Vmax (concentration units of ``s0``); otherwise it is fitted in signal units,
+    ``baseline ± P(t)`` with an apparent amplitude A (the signal change at full conversion) in place of
+    ``S0``, direction from the data. ``v0 = Vmax S0/(Km + S0)`` converted to signal/s; its standard error by
+    the delta method from the fit covariance scaled by ``max(residual variance, read noise²)``.
+
+    The reaction is taken to start at ``t = 0`` of the time axis (reads may start later) with no lag and a
+    stable enzyme; use :func:`plugins.rates.lagdecay.lag_decay` for curves with lag or inactivation.
+    FIT_FAILED marks wells where the fit did not converge or its residual RMS exceeds ``fail_ratio`` times
+    the read noise (the model does not describe the curve). Wells flagged by the screen (NO_SIGNAL, ...) are
+    never fitted. ``extra``: ``km``, ``vmax`` (per second), ``s0_fit`` (A in signal units when s0 is unknown),
+    ``rmse_over_noise``. Km and Vmax are weakly determined when the curve is far from completion; v0 is
+    a fitted parameter itself, so its value and standard error stay sound there.
+    """
+    t, y = check_inputs(time, signal)
+    n_w = y.shape[0]
+    sc = screen(y, min_points=min_points)
+    out = blank_result(n_w, sc.flags)
+    extra = {k: np.full(n_w, np.nan) for k in ("km", "vmax", "s0_fit", "rmse_over_noise")}
+    extra["read_noise"] = sc.sigma
+    known = s0 is not None and signal_per_conc is not None
+    todo = np.flatnonzero(sc.usable)
+    if known:
+        s0_arr = np.broadcast_to(np.asarray(s0, dtype=float), (n_w,))
+        todo = todo[s0_arr[todo] > 0]
+    if todo.size == 0 or t.size == 0:
+        return finish(out, extra)
+    yy = y[todo]
+    ww = sc.valid[todo].astype(float)
+    tt = t[None, :]
+    d = np.sign(sc.change[todo])
+    # start values: slope at the first read from a quadratic over the first half of the reads
+    first_half = ww * (np.arange(t.size) < max(t.size // 2, min_points))[None, :]
+    span = t[-1] - t[0]
+    q = masked_polyfit(np.broadcast_to((t - t[0]) / span, yy.shape), yy, first_half, 2)
+    v_init = np.fmax(d * q.coef[:, 1] / span, 1e-6 * np.abs(sc.change[todo]) / span)
+    base0 = q.coef[:, 0]
+    c_init = -2.0 * d * q.coef[:, 2] / span**2 / v_init**2  # -(dv/dP)/v0 at the start, 1/signal
+    c_floor = 1e-3 / np.abs(sc.change[todo])
+    c_init = np.where(np.isfinite(c_init), np.fmax(c_init, c_floor), c_floor)
+    free = np.full(todo.size, np.inf)
+    if known:
+        # parameters: baseline, ln v0 (conc/s), logit r with r = S0/(Km + S0) (Km -> inf is r -> 0)
+        spc = float(signal_per_conc)  # type: ignore[arg-type]
+        s0w = s0_arr[todo][:, None]
+        vc = v_init / abs(spc)
+        p0 = np.stack([base0, np.log(vc), np.zeros(todo.size)], axis=1)
+        lo = np.stack([-free, np.log(vc) - 12, np.full(todo.size, -30.0)], axis=1)
+        hi = np.stack([free, np.log(vc) + 12, np.full(todo.size, 30.0)], axis=1)
+
+        def model(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            r = 1.0 / (1.0 + np.exp(-p[:, 2:3]))
+            km, vm = s0w * (1.0 - r) / r, np.exp(p[:, 1:2]) / r
+            prod, _, d_km, d_v = _mm_curve(tt, s0w, km, vm)
+            jac = np.stack([np.ones_like(prod), spc * d_v, spc * (-d_km - (1.0 - r) * d_v)], axis=-1)
+            return p[:, 0:1] + spc * prod, jac
+    else:
+        # parameters: baseline, ln v0 (signal/s), ln c1 with c1 = -(dv/dP)/v0 = Km/(A (Km + A)), logit r
+        # with r = A/(Km + A); then A = (1 - r)/c1, Km = A (1 - r)/r, Vmax = v0/r. Both v0 and c1 stay
+        # identifiable when the curve is far from completion, where A and Km alone are not.
+        dd = d[:, None]
+        p0 = np.stack([base0, np.log(v_init), np.log(c_init), np.zeros(todo.size)], axis=1)
+        lo = np.stack([-free, np.log(v_init) - 12, np.log(c_floor) - 6, np.full(todo.size, -30.0)], axis=1)
+        hi = np.stack([free, np.log(v_init) + 12, np.log(c_floor) + 20, np.full(todo.size, 30.0)], axis=1)
+
+        def model(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            r = 1.0 / (1.0 + np.exp(-p[:, 3:4]))
+            a = (1.0 - r) / np.exp(p[:, 2:3])
+            km, vm = a * (1.0 - r) / r, np.exp(p[:, 1:2]) / r
+            prod, d_a, d_km, d_v = _mm_curve(tt, a, km, vm)
+            jac = np.stack([np.ones_like(prod), dd * d_v, -dd * (d_a + d_km),
+                            -dd * (r * d_a + (1.0 + r) * d_km + (1.0 - r) * d_v)], axis=-1)
+            return p[:, 0:1] + dd * prod, jac
+
+    fit = batched_lm(model, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter)
+    n_par = p0.shape[1]
+    dof = np.fmax(ww.sum(axis=1) - n_par, 1.0)
+    rmse = np.sqrt(fit.rss / dof)
+    ratio = rmse / sc.sigma[todo]
+    scale2 = np.fmax(rmse, sc.sigma[todo]) ** 2
+    r_fit = 1.0 / (1.0 + np.exp(-fit.params[:, -1]))
+    if known:
+        sub = s0_arr[todo]
+        v0 = spc * np.exp(fit.params[:, 1])
+        km, vm = sub * (1.0 - r_fit) / r_fit, np.exp(fit.params[:, 1]) / r_fit
+    else:
+        v0 = d * np.exp(fit.params[:, 1])
+        sub = (1.0 - r_fit) / np.exp(fit.params[:, 2])
+        km, vm = sub * (1.0 - r_fit) / r_fit, np.abs(v0) / r_fit
+    grad = np.zeros_like(fit.params)
+    grad[:, 1] = v0
+    var = np.einsum("wp,wpq,wq->w", grad, fit.cov_unit, grad) * scale2
+    failed = ~fit.converged | ~(ratio <= fail_ratio) | ~np.isfinite(v0)
+    out["v0"][todo], out["stderr"][todo] = v0, np.sqrt(np.abs(var))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out["goodness"][todo] = 1.0 - fit.rss / fit.tss
+    out["flags"][todo[failed]] |= int(Flag.FIT_FAILED)
+    first = np.argmax(sc.valid[todo], axis=1)
+    last = t.size - 1 - np.argmax(sc.valid[todo][:, ::-1], axis=1)
+    out["window_start_s"][todo], out["window_end_s"][todo] = t[first], t[last]
+    out["n_points"][todo] = sc.n_valid[todo]
+    extra["km"][todo], extra["vmax"][todo], extra["s0_fit"][todo] = km, vm, sub
+    extra["rmse_over_noise"][todo] = ratio
+    flag_noisy(out["v0"], out["stderr"], out["flags"])
+    return finish(out, extra)
