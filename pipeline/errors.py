@@ -26,7 +26,9 @@ class RecipeError(VzeroError):
         self.problems = [problems] if isinstance(problems, str) else list(problems)
         n = len(self.problems)
         head = "" if n == 1 else f"{n} problems in the recipe:\n"
-        super().__init__(head + "\n".join(self.problems), hint=hint)
+        self.message = head + "\n".join(self.problems)
+        self.hint = hint
+        Exception.__init__(self, self.message if not hint else f"{self.message}\n{hint}")
 
 
 class InputFileError(VzeroError):

@@ -43,7 +43,7 @@ def window_slopes(time: np.ndarray, signal: np.ndarray, start_s: float, end_s: f
     flags |= np.where(few, int(Flag.TOO_FEW_POINTS), 0)
     constant = (syy == 0) & ~few
     flags |= np.where(constant, int(Flag.NO_SIGNAL), 0)
-    bad = few | ~np.isfinite(slope)
+    bad = few | constant | ~np.isfinite(slope)
     nan = np.full(len(y), np.nan)
     return RateResult(
         v0=np.where(bad, np.nan, slope),

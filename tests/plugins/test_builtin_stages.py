@@ -1,0 +1,121 @@
+"""Each backbone stage on its own: blank subtraction, fixed-window slopes, Beer–Lambert conversion."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+from pipeline.data import Table, Traces
+from pipeline.params import validate
+from pipeline.stage import StageInput
+from plugins.blank import MeanBlank
+from plugins.convert import BeerLambert
+from plugins.rates import WindowRates
+from plugins.rates.window import window_slopes
+
+
+def _input(artifacts, warnings=None):
+    return StageInput(artifacts=artifacts, plate={"name": "p"}, inputs={}, recipe={}, registry=None,
+                      warn=(warnings if warnings is not None else []).append)
+
+
+def _stage(cls, **written):
+    settings, problems = validate(cls.params, written)
+    assert not problems
+    return cls(**settings)
+
+
+def _traces(signal, roles, time=None, **well_cols):
+    n, m = signal.shape
+    time = np.arange(m, dtype=float) * 10.0 if time is None else time
+    wells = pd.DataFrame({"well": [f"A{i + 1}" for i in range(n)], "role": roles, **well_cols})
+    return Traces("p", time, signal, np.isfinite(signal), np.zeros_like(signal, bool), wells, "AU",
+                  {"substrate": "uM", "enzyme": "nM"} if "substrate" in well_cols else {})
+
+
+def test_window_slopes_match_numpy_polyfit():
+    # Reference: numpy.polyfit (an independent least-squares line) on each well's window.
+    rng = np.random.default_rng(1)
+    t = np.arange(0.0, 200.0, 5.0)
+    y = 0.1 + rng.uniform(-1e-3, 1e-3, (7, 1)) * t + rng.normal(0, 1e-3, (7, t.size))
+    y[2, 3] = np.nan
+    res = window_slopes(t, y, 20.0, 150.0)
+    for i in range(7):
+        sel = (t >= 20) & (t <= 150) & np.isfinite(y[i])
+        (slope, _), cov = np.polyfit(t[sel], y[i, sel], 1, cov=True)
+        assert_allclose(res.v0[i], slope, rtol=1e-10)
+        assert_allclose(res.stderr[i], np.sqrt(cov[0, 0]), rtol=1e-8)
+        assert res.n_points[i] == sel.sum()
+    assert res.window_start_s[0] == 20 and res.window_end_s[0] == 150
+
+
+def test_window_flags_bad_wells_without_raising():
+    t = np.arange(0.0, 60.0, 10.0)
+    y = np.vstack([np.full(t.size, np.nan), np.where(t < 10, 1.0, np.nan), np.full(t.size, 0.3), 0.01 * t])
+    res = window_slopes(t, y, 0, 60)
+    assert np.isnan(res.v0[:3]).all() and res.v0[3] == pytest.approx(0.01)
+    assert res.flags[0] & 128 and res.flags[1] & 64  # all missing, too few points
+    assert res.flags[2] & 256  # constant well: no signal
+
+
+def test_blank_subtracts_matching_mean():
+    t = np.arange(5.0)
+    drift = 0.01 * t
+    signal = np.vstack([0.5 + 0.02 * t + drift, 0.2 + 0.05 * t + drift, 0.5 + drift, 0.2 + drift])
+    traces = _traces(signal, ["sample", "sample", "blank", "blank"], time=t, substrate=[5.0, 1.0, 5.0, 1.0],
+                     enzyme=[1.0, 1.0, 0.0, 0.0])
+    out = _stage(MeanBlank, match="substrate").run(_input({"traces": traces})).artifacts["traces"]
+    assert_allclose(out.signal[0], 0.02 * t, atol=1e-12)
+    assert_allclose(out.signal[1], 0.05 * t, atol=1e-12)
+    assert out is not traces and traces.signal[0, 1] == signal[0, 1]  # input not mutated
+    pooled = _stage(MeanBlank, match="none").run(_input({"traces": traces})).artifacts["traces"]
+    assert_allclose(pooled.signal[0], 0.5 + 0.02 * t - 0.35, atol=1e-12)
+
+
+def test_blank_constant_minus_constant_is_zero():
+    signal = np.full((3, 6), 0.42)
+    traces = _traces(signal, ["sample", "blank", "blank"])
+    out = _stage(MeanBlank).run(_input({"traces": traces})).artifacts["traces"]
+    assert_allclose(out.signal, 0.0, atol=0)
+
+
+def test_window_stage_builds_rates_table():
+    t = np.arange(0.0, 100.0, 10.0)
+    traces = _traces(np.vstack([0.001 * t, 0.002 * t]), ["sample", "sample"], time=t, substrate=[1.0, 2.0],
+                     enzyme=[1.0, 1.0])
+    table = _stage(WindowRates, start="0 s", end="50 s").run(_input({"traces": traces})).artifacts["rates"]
+    f = table.frame
+    assert list(f["rate"]) == pytest.approx([0.001, 0.002])
+    assert set(f["rate_unit"]) == {"AU/s"} and table.units["substrate"] == "uM"
+    assert list(f["window_end_s"]) == [50.0, 50.0]
+
+
+def _rates(rate_au_per_s):
+    frame = pd.DataFrame({"well": ["A1"], "role": ["sample"], "rate": [rate_au_per_s], "rate_stderr": [0.0],
+                          "enzyme": [np.nan]})
+    return Table(frame, {"rate": "AU/s"}, {"signal_unit": "AU"})
+
+
+@pytest.mark.parametrize(("path", "expected"), [("1 cm", -10.0), ("0.55 cm", -10.0 / 0.55)])
+def test_beer_lambert_nadh_worked_example(path, expected):
+    # Worked conversion from the reference pack (REFERENCES.md section 4, computed, exact arithmetic):
+    # dA340/dt = -0.0622 per min with ε(NADH, 340 nm) = 6220 M^-1 cm^-1 (Horecker & Kornberg 1948)
+    # gives -10.0 µM/min in a 1 cm cuvette and -18.18 µM/min at l = 0.55 cm.
+    stage = _stage(BeerLambert, epsilon="6220 M^-1 cm^-1", pathlength=path, output_unit="uM/min")
+    out = stage.run(_input({"rates": _rates(-0.0622 / 60.0)})).artifacts["rates"]
+    assert_allclose(out.frame["rate"].iloc[0], expected, rtol=1e-12)
+    assert out.units["rate"] == "uM/min"
+
+
+def test_beer_lambert_turnover_and_direction():
+    frame = pd.DataFrame({"well": ["A1"], "role": ["sample"], "rate": [-0.0622 / 60.0], "rate_stderr": [1e-6],
+                          "enzyme": [10.0]})
+    table = Table(frame, {"rate": "AU/s", "enzyme": "nM"}, {"signal_unit": "AU"})
+    stage = _stage(BeerLambert, epsilon="6220 M^-1 cm^-1", pathlength="1 cm", direction="decrease",
+                   output_unit="uM/min")
+    out = stage.run(_input({"rates": table})).artifacts["rates"].frame
+    assert_allclose(out["rate"].iloc[0], 10.0, rtol=1e-12)
+    # 10 µM/min over 10 nM enzyme = 1000 per min = 16.67 per second
+    assert_allclose(out["turnover"].iloc[0], 1000.0 / 60.0, rtol=1e-12)
