@@ -146,7 +146,7 @@ class Block:
 
 
 @dataclass
-class _Grid:
+class TextGrid:
     """Rows of cell texts with the 1-based line (or spreadsheet row) each came from."""
 
     rows: list[list[str]]
@@ -184,7 +184,7 @@ def read_table(data: bytes, *, source: str, options: ReadOptions | None = None) 
     return blocks
 
 
-def load_grid(data: bytes, *, source: str, options: ReadOptions) -> _Grid:
+def load_grid(data: bytes, *, source: str, options: ReadOptions) -> TextGrid:
     """Decode ``data`` (delimited text or .xlsx) into rows of cell texts, detecting what options leave open.
 
     Shared with the layout reader. Raises :class:`InputFileError` for empty, binary or damaged files.
@@ -199,7 +199,7 @@ def load_grid(data: bytes, *, source: str, options: ReadOptions) -> _Grid:
         decimal = options.decimal or "."
         if decimal == ",":
             rows = [[c.replace(",", ".") for c in r] for r in rows]
-        return _Grid(rows, list(range(1, len(rows) + 1)), ".", assumptions)
+        return TextGrid(rows, list(range(1, len(rows) + 1)), ".", assumptions)
     text, enc_note = _decode(data, source, options.encoding)
     assumptions = [enc_note] if enc_note else []
     delimiter = options.delimiter or _sniff_delimiter(text)
@@ -227,7 +227,7 @@ def load_grid(data: bytes, *, source: str, options: ReadOptions) -> _Grid:
             row=reader.line_num,
             hint="Look for a stray quote character.",
         ) from None
-    return _Grid(rows, lines, decimal, assumptions)
+    return TextGrid(rows, lines, decimal, assumptions)
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -354,7 +354,7 @@ def _seconds_text(s: float) -> str:
 # header rows and block extents
 
 
-def _split_label(label: str) -> tuple[str, str | None]:
+def split_label(label: str) -> tuple[str, str | None]:
     """``"Time (min)"`` -> ("time", "min"); ``"Temp [°C]"`` -> ("temp", "°c"); lower-cased, stripped."""
     text = label.strip()
     m = _LABEL_RE.match(text)
@@ -369,7 +369,7 @@ def _is_time_label(label: str, opts: ReadOptions) -> bool:
     for wanted in (opts.time_column, opts.long_columns[1] if opts.long_columns else None):
         if wanted is not None:
             return low == wanted.strip().lower()
-    name, unit = _split_label(label)
+    name, unit = split_label(label)
     if unit in _TEMP_UNITS:
         return False
     return name in _TIME_NAMES or name.startswith("time ")
@@ -378,7 +378,7 @@ def _is_time_label(label: str, opts: ReadOptions) -> bool:
 def _is_temp_label(label: str, opts: ReadOptions) -> bool:
     if opts.temperature_column is not None:
         return label.strip().lower() == opts.temperature_column.strip().lower()
-    name, unit = _split_label(label)
+    name, unit = split_label(label)
     return bool(name) and (name.startswith("temp") or unit in _TEMP_UNITS)
 
 
@@ -417,13 +417,13 @@ def _long_columns(cells: list[str], opts: ReadOptions) -> tuple[int, int, int] |
         if all(n in low for n in names):
             return low.index(names[0]), low.index(names[1]), low.index(names[2])
         return None
-    well = next((j for j, c in enumerate(low) if _split_label(c)[0] in _WELL_NAMES), None)
+    well = next((j for j, c in enumerate(low) if split_label(c)[0] in _WELL_NAMES), None)
     time = next((j for j, c in enumerate(cells) if c and _is_time_label(c, opts)), None)
     if well is None or time is None:
         return None
     temp = {j for j, c in enumerate(cells) if c and _is_temp_label(c, opts)}
     others = [j for j, c in enumerate(low) if c and j not in (well, time) and j not in temp]
-    named = [j for j in others if _split_label(low[j])[0] in _SIGNAL_NAMES]
+    named = [j for j in others if split_label(low[j])[0] in _SIGNAL_NAMES]
     if len(named) == 1:
         return well, time, named[0]
     if len(others) == 1:
@@ -447,7 +447,7 @@ def _single_label(row: list[str]) -> str | None:
     return None
 
 
-def _find_headers(grid: _Grid, source: str, opts: ReadOptions) -> list[tuple[int, str, int]]:
+def _find_headers(grid: TextGrid, source: str, opts: ReadOptions) -> list[tuple[int, str, int]]:
     """(header index, kind, end index exclusive) of every block."""
     rows = grid.rows
     first = 0
@@ -490,7 +490,7 @@ def _find_headers(grid: _Grid, source: str, opts: ReadOptions) -> list[tuple[int
     return out
 
 
-def _title_above(grid: _Grid, h: int, prev_end: int | None) -> str | None:
+def _title_above(grid: TextGrid, h: int, prev_end: int | None) -> str | None:
     if h == 0 or (prev_end is not None and h - 1 < prev_end):
         return None
     return _single_label(grid.rows[h - 1])
@@ -500,7 +500,7 @@ def _title_above(grid: _Grid, h: int, prev_end: int | None) -> str | None:
 # cell parsing
 
 
-def _cells(grid: _Grid, h: int, end: int, source: str) -> tuple[list[str], np.ndarray]:
+def _cells(grid: TextGrid, h: int, end: int, source: str) -> tuple[list[str], np.ndarray]:
     """Header cells (trailing empties dropped) and the data rows as a 2-D text array of that width."""
     header = list(grid.rows[h])
     while header and not header[-1].strip():
@@ -611,7 +611,7 @@ def _times(
         )
     unit = opts.time_unit
     if unit is None:
-        unit = _split_label(label)[1]
+        unit = split_label(label)[1]
         if unit not in _TIME_UNITS:
             notes.append(f"time column {label!r} states no unit; assumed seconds (set time_unit if not)")
             unit = "s"
@@ -669,7 +669,7 @@ def _temperature(
 # wide and long blocks
 
 
-def _read_wide(grid: _Grid, h: int, end: int, name: str, source: str, opts: ReadOptions) -> Block:
+def _read_wide(grid: TextGrid, h: int, end: int, name: str, source: str, opts: ReadOptions) -> Block:
     header, body = _cells(grid, h, end, source)
     lines = grid.lines[h + 1 : end]
     notes: list[str] = []
@@ -712,7 +712,7 @@ def _read_wide(grid: _Grid, h: int, end: int, name: str, source: str, opts: Read
     return Block(name, time_s, wells, signal, saturated, temperature, notes + tnotes)
 
 
-def _read_long(grid: _Grid, h: int, end: int, name: str, source: str, opts: ReadOptions) -> Block:
+def _read_long(grid: TextGrid, h: int, end: int, name: str, source: str, opts: ReadOptions) -> Block:
     header, body = _cells(grid, h, end, source)
     lines = grid.lines[h + 1 : end]
     cols = _long_columns(header, opts)
