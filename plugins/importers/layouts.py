@@ -338,6 +338,14 @@ def _number(spec: dict, key: str, where: str, positive: bool = True) -> float:
     return float(v)
 
 
+def _check_keys(entry: Any, where: str, allowed: set[str]) -> None:
+    if not isinstance(entry, dict):
+        raise _fail(where, "expected a mapping")
+    unknown = sorted(set(entry) - allowed)
+    if unknown:
+        raise _fail(f"{where}.{unknown[0]}", f"unknown key (allowed: {', '.join(sorted(allowed))})")
+
+
 def _set_values(spec: dict, where: str) -> dict[str, Any]:
     values = spec.get("set", {})
     if not isinstance(values, dict):
@@ -378,10 +386,7 @@ def expand_declared_layout(spec: dict, plate_size: int) -> pd.DataFrame:
 
     for s_i, s in enumerate(spec.get("series") or []):
         where = f"series[{s_i}]"
-        if not isinstance(s, dict):
-            raise _fail(where, "expected a mapping")
-        if set(s) - _SERIES_KEYS:
-            raise _fail(f"{where}.{sorted(set(s) - _SERIES_KEYS)[0]}", f"unknown key (allowed: {sorted(_SERIES_KEYS)})")
+        _check_keys(s, where, _SERIES_KEYS)
         variable = s.get("variable")
         if not isinstance(variable, str) or not variable or variable in ("well", *TEXT_COLUMNS):
             raise _fail(f"{where}.variable", f"expected a quantity name like substrate, got {variable!r}")
@@ -411,10 +416,7 @@ def expand_declared_layout(spec: dict, plate_size: int) -> pd.DataFrame:
                 put(f"{ROW_LABELS[r]}{c + 1}", where, rec)
     for w_i, e in enumerate(spec.get("wells") or []):
         where = f"wells[{w_i}]"
-        if not isinstance(e, dict):
-            raise _fail(where, "expected a mapping")
-        if set(e) - _WELLS_KEYS:
-            raise _fail(f"{where}.{sorted(set(e) - _WELLS_KEYS)[0]}", f"unknown key (allowed: {sorted(_WELLS_KEYS)})")
+        _check_keys(e, where, _WELLS_KEYS)
         if "wells" not in e:
             raise _fail(f"{where}.wells", "missing")
         role = e.get("role", "sample")
