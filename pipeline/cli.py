@@ -150,6 +150,18 @@ CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[
 ]
 
 
+#: Core commands that live in their own modules. Each module defines HELP, EXAMPLE, configure(parser) and
+#: run(args) -> int, and keeps its top-level imports light.
+COMMAND_MODULES: tuple[tuple[str, str], ...] = ()
+
+
+def _module_command(name: str, module_name: str) -> tuple[str, str, Any, Any, str]:
+    import importlib
+
+    module = importlib.import_module(module_name)
+    return name, module.HELP, module.configure, module.run, module.EXAMPLE
+
+
 def build_parser(with_plugins: bool = True) -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="vzero",
@@ -164,7 +176,7 @@ def build_parser(with_plugins: bool = True) -> argparse.ArgumentParser:
     common.add_argument("--debug", action="store_true", help="show tracebacks")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     commands = Commands()
-    for name, help_, configure, run_, example in CORE:
+    for name, help_, configure, run_, example in CORE + [_module_command(n, m) for n, m in COMMAND_MODULES]:
         commands.add(name, help_, configure, run_, example)
     if with_plugins:
         from pipeline.plugins import make_manager

@@ -149,7 +149,8 @@ def run(
     out_dir = Path(out)
     if out_dir.exists() and not force and any(out_dir.iterdir()):
         raise OutputExistsError(
-            f"output folder {str(out)!r} already holds files", hint="Choose another --out, or pass --force to replace it."
+            f"output folder {str(out)!r} already holds files",
+            hint="Choose another --out, or pass --force to replace it.",
         )
     run_id = uuid.uuid4().hex
     warnings: list[str] = []
@@ -302,7 +303,9 @@ def _pool(outcomes: list[PlateOutcome]) -> dict[str, Any]:
                     frame.insert(0, "plate", o.plate)
                 tables.append(t.with_frame(frame))
         pooled[name] = Table.concat(tables)
-    pooled["traces"] = {o.plate: o.artifacts["traces"] for o in outcomes if isinstance(o.artifacts.get("traces"), Traces)}
+    pooled["traces"] = {
+        o.plate: o.artifacts["traces"] for o in outcomes if isinstance(o.artifacts.get("traces"), Traces)
+    }
     return pooled
 
 
@@ -332,6 +335,9 @@ def _write_run(
     parent = out_dir.resolve().parent
     parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=parent))
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes the folder private; a run folder is an ordinary one
     try:
         h5 = audit.write_run_file(
             tmp / "run.h5", rec, plugins, run_id, raw_by_sha, input_plates, records, tables, warnings, failed,
