@@ -97,7 +97,7 @@ def auto(
     """
     t, y = check_inputs(time, signal)
     n_w, n_t = y.shape
-    sc = screen(y, min_points=min_points)
+    sc = screen(y, min_points=min_points, time=t)
     out = blank_result(n_w, sc.flags)
     extra = {k: np.full(n_w, np.nan) for k in ("curvature_t", "rmse_over_noise", "conversion")}
     extra["read_noise"] = sc.sigma
@@ -127,19 +127,22 @@ def auto(
         t_c = c / (sigma[:, None] * np.sqrt(inv[..., 2, 2]))
         slope_s = b + 2 * c * us
         drop = 1.0 - (b + 2 * c * ue) / slope_s
-        fails = ~(count >= min_points) | ((np.abs(t_c) > t_crit) & ~(np.abs(drop) <= max_rate_drop))
+        enough = count >= min_points
+        fails = enough & (np.abs(t_c) > t_crit) & ~(np.abs(drop) <= max_rate_drop)
     full = conversion_scale(s0, signal_per_conc, n_w)
     if full is not None:
         with np.errstate(all="ignore"):
             conv = np.abs(b * (ue - us) + c * (ue**2 - us**2)) / full[todo][:, None]
-        fails |= conv > max_conversion
+        fails |= enough & (conv > max_conversion)
     # stop at the first of two failing candidates in a row (one chance excursion of the t-test does not end
     # the window), keep the last passing candidate before it
     nxt = np.concatenate([fails[:, 1:], np.ones((todo.size, 1), dtype=bool)], axis=1)
     both = fails & nxt
     stop = np.where(both.any(axis=1), np.argmax(both, axis=1), fails.shape[1])
-    before = ~fails & (np.arange(fails.shape[1])[None, :] < stop[:, None])
-    k = np.where(before.any(axis=1), fails.shape[1] - 1 - np.argmax(before[:, ::-1], axis=1), 0)
+    # candidates with fewer than min_points finite reads (masked reads) neither pass nor stop the search
+    before = enough & ~fails & (np.arange(fails.shape[1])[None, :] < stop[:, None])
+    k = np.where(before.any(axis=1), fails.shape[1] - 1 - np.argmax(before[:, ::-1], axis=1),
+                 np.argmax(enough, axis=1))
     end_idx = ends[np.arange(todo.size), k]
 
     # refit the chosen window in its own scaled time: quadratic for the curvature test, line otherwise

@@ -71,15 +71,16 @@ def detect_lag(
     *,
     min_rise: float = 0.2,
     z: float = 6.0,
-    settle: float = 0.03,
+    settle: float = 0.02,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Find lag phases. Returns ``(start_index, lag_s, has_lag)`` per well.
 
     A lag is called when the first block's slope is below ``(1 - min_rise)`` times the steepest block's and
-    the difference exceeds ``z`` standard errors. ``start_index`` is the first read of the first block whose
+    the difference exceeds ``z`` standard errors. ``start_index`` is the middle read of the first block whose
     slope is within ``max(settle * steepest, 2 SE)`` of the steepest (where the steady state begins; 0 when
-    no lag). ``lag_s`` is where the steepest block's line meets the baseline (the first block's line at the
-    first read); 0 without lag, NaN for unusable wells.
+    no lag; at most ``n_time - 2 * width`` so that a window remains). ``lag_s`` is where the steepest
+    block's line meets the baseline (the first block's line at the first read); 0 without lag, NaN for
+    unusable wells.
     """
     n_w, n_t = y.shape
     start = np.zeros(n_w, dtype=np.int64)
@@ -105,7 +106,8 @@ def detect_lag(
             & (smax - first > z * np.hypot(se[:, 0], se[rows, jmax]))
         )
         near = so_f >= (smax - np.fmax(settle * smax, 2.0 * se[rows, jmax]))[:, None]
-    start = np.where(has, np.argmax(near, axis=1), 0).astype(np.int64)
+    # a block's slope is the curve's slope near the block's middle: the steady state starts there
+    start = np.where(has, np.minimum(np.argmax(near, axis=1) + width // 2, n_t - 2 * width), 0).astype(np.int64)
     first_read = t[np.argmax(sc.valid, axis=1)]
     base = ybar[:, 0] + slope[:, 0] * (first_read - tbar[:, 0])
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -149,7 +151,7 @@ def lag_decay(
     """
     t, y = check_inputs(time, signal)
     n_w = y.shape[0]
-    sc = screen(y, min_points=min_points)
+    sc = screen(y, min_points=min_points, time=t)
     out = blank_result(n_w, sc.flags)
     extra = {"k_decay": np.full(n_w, np.nan), "k_decay_stderr": np.full(n_w, np.nan),
              "rmse_over_noise": np.full(n_w, np.nan), "read_noise": sc.sigma}

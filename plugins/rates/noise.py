@@ -47,25 +47,40 @@ def check_inputs(time: np.ndarray, signal: np.ndarray) -> tuple[np.ndarray, np.n
     return t, y
 
 
-def read_noise(signal: np.ndarray) -> np.ndarray:
-    """Robust per-well read noise (signal units) from second differences: ``1.4826 * MAD(d2) / sqrt(6)``.
+def read_noise(signal: np.ndarray, time: np.ndarray | None = None) -> np.ndarray:
+    """Robust per-well read noise (signal units) from second differences of the finite reads.
 
-    Second differences remove a straight line and almost all of a smooth curve; for independent reads of
-    standard deviation sigma, ``d2 = y[i+1] - 2 y[i] + y[i-1]`` has variance ``6 sigma²``. The median absolute
-    deviation makes the estimate robust to single outliers. Differences touching a missing read are
-    skipped; wells with fewer than 3 usable second differences get NaN.
+    For three consecutive finite reads the middle one is compared with the straight line through its
+    neighbours, ``r = y1 - (a y0 + b y2)`` with ``a = (t2 - t1)/(t2 - t0)``, ``b = (t1 - t0)/(t2 - t0)``;
+    for independent reads of standard deviation sigma, ``Var(r) = sigma² (1 + a² + b²)`` (for equal spacing
+    this is the classic ``Var(y2 - 2 y1 + y0) = 6 sigma²``). The estimate is ``1.4826 * MAD`` of the
+    normalised ``r``: robust to single outliers, and blind to straight lines and nearly so to smooth curves.
+    Missing reads are skipped (the neighbours are the nearest finite reads). Wells with fewer than 3
+    usable triples get NaN.
     """
     y = np.asarray(signal, dtype=float)
-    if y.shape[-1] < 3:
-        return np.full(y.shape[0], np.nan)
-    d2 = y[:, 2:] - 2.0 * y[:, 1:-1] + y[:, :-2]
-    ok = np.isfinite(d2)
-    enough = ok.sum(axis=1) >= 3
-    out = np.full(y.shape[0], np.nan)
+    n_w, n_t = y.shape
+    out = np.full(n_w, np.nan)
+    if n_t < 3:
+        return out
+    t = np.arange(n_t, dtype=float) if time is None else np.asarray(time, dtype=float)
+    valid = np.isfinite(y)
+    # move each well's finite reads to the front, keeping their order
+    order = np.argsort(~valid, axis=1, kind="stable")
+    yv = np.take_along_axis(y, order, axis=1)
+    tv = t[order]
+    n_valid = valid.sum(axis=1)
+    t0, t1, t2 = tv[:, :-2], tv[:, 1:-1], tv[:, 2:]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = (t2 - t1) / (t2 - t0)
+        b = (t1 - t0) / (t2 - t0)
+        r = (yv[:, 1:-1] - a * yv[:, :-2] - b * yv[:, 2:]) / np.sqrt(1.0 + a * a + b * b)
+    r[np.arange(n_t - 2)[None, :] >= (n_valid - 2)[:, None]] = np.nan
+    enough = n_valid >= 5
     if np.any(enough):
-        d = d2[enough]
+        d = r[enough]
         med = np.nanmedian(d, axis=1, keepdims=True)
-        out[enough] = MAD_TO_SD * np.nanmedian(np.abs(d - med), axis=1) / np.sqrt(6.0)
+        out[enough] = MAD_TO_SD * np.nanmedian(np.abs(d - med), axis=1)
     return out
 
 
@@ -73,9 +88,10 @@ def read_noise(signal: np.ndarray) -> np.ndarray:
 class Screen:
     """What :func:`screen` found, per well (arrays ``[n_wells]`` unless noted).
 
-    ``valid`` is ``[n_wells, n_time]`` (finite reads); ``sigma`` the read noise with a tiny floor so that
-    noise-free simulations do not divide by zero; ``change`` the signed total change (mean of the last few
-    reads minus mean of the first few); ``usable`` the wells a kernel should work on.
+    ``valid`` is ``[n_wells, n_time]`` (finite reads); ``sigma`` the read noise, at least 1e-7 times the
+    largest |read| (below any real reader's resolution) so that noise-free simulations do not divide by
+    zero; ``change`` the signed total change (mean of the last few reads minus mean of the first few);
+    ``usable`` the wells a kernel should work on.
     """
 
     valid: np.ndarray
@@ -87,7 +103,11 @@ class Screen:
 
 
 def screen(
-    signal: np.ndarray, *, min_points: int, no_signal_factor: float = NO_SIGNAL_FACTOR
+    signal: np.ndarray,
+    *,
+    min_points: int,
+    no_signal_factor: float = NO_SIGNAL_FACTOR,
+    time: np.ndarray | None = None,
 ) -> Screen:
     """Flag wells with no determinable rate before any fitting.
 
@@ -108,8 +128,8 @@ def screen(
     with np.errstate(invalid="ignore", divide="ignore"):
         change = (y0 * last).sum(axis=1) / last.sum(axis=1) - (y0 * first).sum(axis=1) / first.sum(axis=1)
         scale = np.nanmax(np.abs(np.where(valid, signal, np.nan)), axis=1, initial=0.0)
-    sigma = read_noise(signal)
-    sigma = np.fmax(np.nan_to_num(sigma, nan=0.0), 1e-12 * np.fmax(scale, 1e-300))
+    sigma = read_noise(signal, time)
+    sigma = np.fmax(np.nan_to_num(sigma, nan=0.0), 1e-7 * np.fmax(scale, 1e-300))
     small = n_valid >= min_points
     no_sig = small & ~(np.abs(change) > no_signal_factor * sigma)
     flags[no_sig] |= int(Flag.NO_SIGNAL)

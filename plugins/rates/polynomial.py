@@ -111,7 +111,7 @@ def polynomial(
     t, y = check_inputs(time, signal)
     n_w = y.shape[0]
     min_points = max(min_points, degree + 2)
-    sc = screen(y, min_points=min_points)
+    sc = screen(y, min_points=min_points, time=t)
     out = blank_result(n_w, sc.flags)
     if t.size == 0:
         return finish(out)

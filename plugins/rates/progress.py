@@ -166,7 +166,7 @@ def progress_curve(
     """
     t, y = check_inputs(time, signal)
     n_w = y.shape[0]
-    sc = screen(y, min_points=min_points)
+    sc = screen(y, min_points=min_points, time=t)
     out = blank_result(n_w, sc.flags)
     extra = {k: np.full(n_w, np.nan) for k in ("km", "vmax", "s0_fit", "rmse_over_noise")}
     extra["read_noise"] = sc.sigma
@@ -212,7 +212,7 @@ def progress_curve(
         # identifiable when the curve is far from completion, where A and Km alone are not.
         dd = d[:, None]
         p0 = np.stack([base0, np.log(v_init), np.log(c_init), np.zeros(todo.size)], axis=1)
-        lo = np.stack([-free, np.log(v_init) - 12, np.log(c_floor) - 6, np.full(todo.size, -30.0)], axis=1)
+        lo = np.stack([-free, np.log(v_init) - 12, np.log(c_floor) - 30, np.full(todo.size, -30.0)], axis=1)
         hi = np.stack([free, np.log(v_init) + 12, np.log(c_floor) + 20, np.full(todo.size, 30.0)], axis=1)
 
         def model(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

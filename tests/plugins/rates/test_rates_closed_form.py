@@ -1,0 +1,71 @@
+"""The closed-form integrated Michaelis–Menten equation used by the progress-curve kernel.
+
+Sources: the closed form of Schnell & Mendoza (1997, J. Theor. Biol. 187:207-212); check values and the ODE
+cross-check recipe from the project's reference pack (REFERENCES.md section 5, computed with scipy);
+independent numerics: scipy.integrate.solve_ivp (Radau, rtol 1e-12) and scipy.special.lambertw.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+from scipy.special import lambertw
+
+from plugins.rates.progress import _mm_curve, integrated_mm
+
+# (S0, Km, Vmax, t, S(t)) from REFERENCES.md section 5 "Check values" (computed there with the closed form)
+CHECK = [
+    (1.0, 0.5, 0.05, 10, 0.687411264092),
+    (1.0, 0.5, 0.05, 30, 0.231527756683),
+    (1.0, 0.5, 0.05, 60, 0.017679337828),
+    (0.1, 1.0, 0.01, 10, 0.091276527161),
+    (0.1, 1.0, 0.01, 60, 0.057276677070),
+    (10.0, 1.0, 0.5, 10, 5.582880271997),
+    (10.0, 1.0, 0.5, 30, 0.063249717100),
+    (1000, 1.0, 10, 50, 500.6917646075),  # S0/Km = 1000: exp() would overflow; Wright omega does not
+    (1000, 1.0, 10, 99, 14.2509329072),
+]
+
+
+@pytest.mark.parametrize(("s0", "km", "vmax", "t", "expected"), CHECK)
+def test_check_values(s0: float, km: float, vmax: float, t: float, expected: float) -> None:
+    # printed to 12 significant digits in the reference pack
+    np.testing.assert_allclose(integrated_mm(t, s0, km, vmax), expected, rtol=2e-11)
+
+
+@pytest.mark.parametrize(("s0", "km", "vmax"), [(1.0, 0.5, 0.05), (0.1, 1.0, 0.01), (10.0, 1.0, 0.5), (3.0, 1.0, 2e-3)])
+def test_agrees_with_ode_solver(s0: float, km: float, vmax: float) -> None:
+    # independent: numerical integration of dS/dt = -Vmax S/(Km + S) with scipy's Radau (implicit RK, order 5)
+    t_end = 2 * (s0 + km * np.log(100)) / vmax  # to 99 % conversion and beyond (REFERENCES.md section 5)
+    t = np.linspace(0, t_end, 201)
+    sol = solve_ivp(lambda _t, s: -vmax * s / (km + s), (0, t_end), [s0], method="Radau", t_eval=t,
+                    rtol=1e-12, atol=1e-15 * s0)
+    closed = integrated_mm(t, s0, km, vmax)
+    assert np.max(np.abs(closed - sol.y[0])) <= 1e-8 * s0
+
+
+def test_matches_lambertw_form_and_implicit_equation() -> None:
+    # Schnell & Mendoza's form with scipy.special.lambertw (principal branch), and the implicit integrated
+    # equation Vmax t = (S0 - S) + Km ln(S0/S) it solves
+    s0, km, vmax = 2.0, 0.7, 0.03
+    t = np.linspace(0, 300, 61)
+    s = integrated_mm(t, s0, km, vmax)
+    lw = km * lambertw((s0 / km) * np.exp((s0 - vmax * t) / km)).real
+    np.testing.assert_allclose(s, lw, rtol=1e-12)
+    np.testing.assert_allclose(vmax * t, (s0 - s) + km * np.log(s0 / s), rtol=0, atol=1e-12 * vmax * t[-1])
+
+
+def test_jacobian_matches_finite_differences() -> None:
+    # central differences (step 1e-6 in the log parameters) as the independent check of the analytic terms
+    t = np.linspace(0, 400, 41)[None, :]
+    s0, km, vm = np.array([[1.3]]), np.array([[0.8]]), np.array([[4e-3]])
+    _, d_s0, d_km, d_v = _mm_curve(t, s0, km, vm)
+    h = 1e-6
+    for arg, analytic in ((0, d_s0), (1, d_km), (2, d_v)):
+        up = [s0, km, vm]
+        dn = [s0, km, vm]
+        up[arg] = up[arg] * np.exp(h)
+        dn[arg] = dn[arg] * np.exp(-h)
+        numeric = (_mm_curve(t, *up)[0] - _mm_curve(t, *dn)[0]) / (2 * h)
+        np.testing.assert_allclose(analytic, numeric, rtol=1e-6, atol=1e-12)
