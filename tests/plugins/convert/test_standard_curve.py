@@ -1,0 +1,74 @@
+"""Standard-curve line, linear-range check and conversion with error propagation."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy import stats
+
+from pipeline.errors import FitError
+from plugins.convert.standard_curve import fit_standard_curve
+
+
+def test_line_matches_scipy_linregress() -> None:
+    rng = np.random.default_rng(7)
+    conc = np.repeat([0.0, 5, 10, 20, 40, 80], 3)
+    sig = 0.012 * conc + 0.05 + rng.normal(0, 0.004, conc.size)
+    cur = fit_standard_curve(conc, sig, check_linearity=False)
+    ref = stats.linregress(conc, sig)  # scipy's independent OLS with standard errors
+    assert_allclose([cur.slope, cur.intercept], [ref.slope, ref.intercept], rtol=1e-10)
+    assert_allclose([cur.slope_se, cur.intercept_se], [ref.stderr, ref.intercept_stderr], rtol=1e-8)
+    assert_allclose(cur.r2, ref.rvalue**2, rtol=1e-10)
+    # covariance of slope and intercept: -mean(x) * slope_se² for a line (textbook OLS identity)
+    assert_allclose(cur.cov, -conc.mean() * ref.stderr**2, rtol=1e-8)
+    assert cur.n_points == 18 and cur.dof == 16 and cur.conc_range == (0.0, 80.0)
+
+
+def test_exact_line() -> None:
+    cur = fit_standard_curve([0, 1, 2, 3], [1, 3, 5, 7])
+    assert_allclose([cur.slope, cur.intercept], [2.0, 1.0], atol=1e-12)
+    assert cur.slope_se < 1e-12 and cur.dropped_levels == ()
+
+
+def test_saturating_top_standards_are_dropped() -> None:
+    # Detector that bends at high signal: s = 2c / (1 + c/100); below c = 10 the bend is under 10 %.
+    conc = np.repeat([0.0, 2.5, 5, 10, 20, 40, 80, 160], 2)
+    rng = np.random.default_rng(3)
+    sig = 2 * conc / (1 + conc / 100) + rng.normal(0, 0.05, conc.size)
+    cur = fit_standard_curve(conc, sig)
+    assert 160.0 in cur.dropped_levels and cur.conc_range[1] < 160
+    assert cur.curvature_p >= 0.05
+    assert cur.used.sum() == cur.n_points == 2 * (8 - len(cur.dropped_levels))
+    straight = fit_standard_curve(conc, 2 * conc + rng.normal(0, 0.05, conc.size))
+    assert straight.dropped_levels == () and straight.conc_range == (0.0, 160.0)
+
+
+def test_to_conc_propagation_against_monte_carlo() -> None:
+    # Monte Carlo of the slope's sampling error: rate/slope spread vs the first-order formula.
+    conc = np.repeat([0.0, 10, 20, 40], 2)
+    true_slope, sd, rate = 0.02, 0.01, 0.005
+    rng = np.random.default_rng(11)
+    sims = true_slope * conc + 0.1 + rng.normal(0, sd, (4000, conc.size))
+    slopes = np.polyfit(conc, sims.T, 1)[0]
+    mc_sd = np.std(rate / slopes)
+    cur = fit_standard_curve(conc, true_slope * conc + 0.1 + rng.normal(0, sd, conc.size), check_linearity=False)
+    conc_rate, se = cur.to_conc(rate)
+    assert_allclose(conc_rate, rate / cur.slope)
+    # the first-order SE uses this curve's slope and s; compare in relative terms with 15 % tolerance
+    assert_allclose(se / abs(conc_rate), mc_sd / (rate / true_slope), rtol=0.15)
+    _, se2 = cur.to_conc(np.array([rate]), np.array([0.001]))
+    assert se2[0] > se
+
+
+def test_signal_to_conc_inverts_line() -> None:
+    cur = fit_standard_curve([0, 10, 20, 30, 40], [0.1, 0.3, 0.5, 0.7, 0.9])
+    x, se = cur.signal_to_conc(np.array([0.4, 0.8]))
+    assert_allclose(x, [15.0, 35.0], atol=1e-9) and (se >= 0).all()
+
+
+def test_errors() -> None:
+    with pytest.raises(FitError, match="usable points"):
+        fit_standard_curve([1, 1, 1], [0.1, 0.2, 0.3])
+    with pytest.raises(FitError, match="not distinguishable"):
+        fit_standard_curve([0, 1, 2, 3], [1, 0, 1, 0])
