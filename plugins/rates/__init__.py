@@ -2,16 +2,149 @@
 
 Each method is a small :class:`~pipeline.stage.Stage` that calls a vectorised kernel (imported in ``run``,
 to keep this module light) and builds the standard rates table (:func:`plugins.tables.rates_table`).
+The methods, their assumptions and which to choose when are described in docs/rates.md.
+
+Methods that judge substrate conversion (``auto``, ``polynomial``, ``progress``, ``lag-decay``) need the
+signal change per unit of product concentration: give ``signal_per_conc`` (for example ``"3.42 AU/mM"``) or
+``epsilon`` and ``pathlength``; the substrate per well comes from the layout.
 """
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, ClassVar
 
 from pipeline import hookimpl
 from pipeline.errors import StageError
 from pipeline.params import Param
 from pipeline.stage import Stage, StageInput, StageOutput
+
+CONVERSION_PARAMS = {
+    "signal_per_conc": Param.quantity("1/M", None, "signal change per unit product concentration, e.g. "
+                                      '"3.42 AU/mM"; enables the conversion checks', nullable=True),
+    "epsilon": Param.quantity("M^-1 cm^-1", None, "molar absorption coefficient (with pathlength, instead of "
+                              "signal_per_conc)", nullable=True),
+    "pathlength": Param.quantity("cm", None, "optical pathlength (with epsilon)", nullable=True),
+    "direction": Param.choice(("increase", "decrease"), "increase", "whether the signal rises or falls as "
+                              "product forms"),
+}
+MAX_CONVERSION = Param("float", 0.10, "largest fraction of substrate converted inside the rate window "
+                       "(10 %: common practice)", low=0.001, high=1.0)
+
+
+def conversion(traces: Any, settings: dict[str, Any], warn: Any) -> tuple[Any, float | None]:
+    """Substrate per well (layout unit) and signed signal per unit concentration in that unit, or Nones."""
+    import numpy as np
+
+    sub_unit = traces.well_units.get("substrate")
+    if "substrate" not in traces.wells.columns or not sub_unit:
+        return None, None
+    per = settings.get("signal_per_conc")
+    if per is None and settings.get("epsilon") is not None and settings.get("pathlength") is not None:
+        per = settings["epsilon"] * settings["pathlength"]
+    elif per is None and (settings.get("epsilon") is not None or settings.get("pathlength") is not None):
+        raise StageError("give both epsilon and pathlength (or signal_per_conc) for the conversion checks")
+    if per is None:
+        warn("no signal_per_conc (or epsilon and pathlength) given: substrate conversion is not checked")
+        return None, None
+    value = float(per.m_as(f"1/{sub_unit}"))
+    sign = -1.0 if settings.get("direction") == "decrease" else 1.0
+    return traces.wells["substrate"].to_numpy(dtype=float), sign * value if np.isfinite(value) else None
+
+
+class KernelRates(Stage):
+    """Shared ``run`` for methods that call a kernel ``f(time, signal, s0=, signal_per_conc=, **kw)``."""
+
+    kernel: ClassVar[str] = ""
+    kernel_params: ClassVar[tuple[str, ...]] = ()
+
+    def run(self, data: StageInput) -> StageOutput:
+        import importlib
+
+        from plugins.tables import rates_table
+
+        traces = data.artifacts["traces"]
+        s0, per = conversion(traces, self.settings, data.warn)
+        module, name = self.kernel.split(":")
+        func = getattr(importlib.import_module(module), name)
+        kwargs = {k: self._value(k) for k in self.kernel_params}
+        result = func(traces.time, traces.masked_signal(), s0=s0, signal_per_conc=per, **kwargs)
+        return StageOutput(artifacts={"rates": rates_table(traces, result, self.method)})
+
+    def _value(self, key: str) -> Any:
+        v = self.settings[key]
+        return v.m_as("s") if hasattr(v, "m_as") else v
+
+
+class AutoRates(KernelRates):
+    """Automatic linear range: per well, the longest early window that is straight within the read noise
+    (curvature judged by the t statistic of a quadratic term), starting after any lag and ending before
+    ``max_conversion``; v0 is the slope at the window start (curvature-aware)."""
+
+    kind, method, version = "rates", "auto", "1.0"
+    summary = "automatic early window, curvature judged against read noise; slope at the window start"
+    kernel = "plugins.rates.auto:auto"
+    kernel_params = ("max_conversion", "max_rate_drop", "t_crit", "min_points", "find_lag")
+    params = {
+        **CONVERSION_PARAMS,
+        "max_conversion": MAX_CONVERSION,
+        "max_rate_drop": Param("float", 0.10, "largest relative fall of the slope across a curved window",
+                               low=0.0, high=1.0),
+        "t_crit": Param("float", 3.0, "|t| of the quadratic term above which curvature is significant", low=1.0),
+        "min_points": Param("int", 6, "reads in the shortest window", low=4),
+        "find_lag": Param("bool", True, "start the window after a detected lag phase"),
+    }
+
+
+class PolynomialRates(KernelRates):
+    """A low-order polynomial over the early curve; v0 is its derivative at the window start."""
+
+    kind, method, version = "rates", "polynomial", "1.0"
+    summary = "low-order polynomial over the early curve; derivative at the start"
+    kernel = "plugins.rates.polynomial:polynomial"
+    kernel_params = ("degree", "window_s", "min_points", "max_conversion")
+    params = {
+        **CONVERSION_PARAMS,
+        "max_conversion": MAX_CONVERSION,
+        "degree": Param("int", 2, "polynomial order (1 = straight line)", low=1, high=4),
+        "window": Param.quantity("s", None, "window length from the first read (default: all reads)",
+                                 nullable=True),
+        "min_points": Param("int", 5, "reads needed in the window", low=3),
+    }
+
+    def _value(self, key: str) -> Any:
+        if key == "window_s":
+            w = self.settings["window"]
+            return None if w is None else float(w.m_as("s"))
+        return super()._value(key)
+
+
+class ProgressRates(KernelRates):
+    """The whole curve fitted with the integrated Michaelis–Menten equation (Lambert W closed form);
+    v0 = Vmax·S0/(Km + S0). Curves the model does not describe are flagged ``fit_failed``."""
+
+    kind, method, version = "rates", "progress", "1.0"
+    summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
+    kernel = "plugins.rates.progress:progress_curve"
+    kernel_params = ("min_points", "fail_ratio")
+    params = {
+        **CONVERSION_PARAMS,
+        "min_points": Param("int", 8, "reads needed for a fit", low=4),
+        "fail_ratio": Param("float", 3.0, "residual RMS over read noise above which the fit is refused", low=1.0),
+    }
+
+
+class LagDecayRates(KernelRates):
+    """Steady-state rate after a lag phase, extrapolated to its start through first-order inactivation."""
+
+    kind, method, version = "rates", "lag-decay", "1.0"
+    summary = "rate after a lag, extrapolated back through first-order inactivation"
+    kernel = "plugins.rates.lagdecay:lag_decay"
+    kernel_params = ("min_points", "fail_ratio")
+    params = {
+        **CONVERSION_PARAMS,
+        "min_points": Param("int", 8, "reads needed for a fit", low=4),
+        "fail_ratio": Param("float", 3.0, "residual RMS over read noise above which the fit is refused", low=1.0),
+    }
 
 
 class WindowRates(Stage):
@@ -44,4 +177,5 @@ class WindowRates(Stage):
 
 @hookimpl
 def vzero_register(registry: Any) -> None:
-    registry.add(WindowRates)
+    for stage in (WindowRates, AutoRates, PolynomialRates, ProgressRates, LagDecayRates):
+        registry.add(stage)
