@@ -200,3 +200,14 @@ def test_saturated_reads_masked_and_high_conversion() -> None:
     r = auto(T60, p.signal, s0=s0, signal_per_conc=2.0)
     np.testing.assert_allclose(r.v0[:2], p.v0_true[:2], rtol=0.05)
     assert r.flags[2] & Flag.HIGH_CONVERSION
+
+
+def test_auto_value_matches_numpy_polyfit_on_its_window() -> None:
+    # independent: numpy.polyfit (quadratic) over the window auto reports; v0 = slope at the window start
+    s0, plate = mm_series(31)
+    r = auto(T60, plate.signal)
+    for i in range(0, s0.size, 5):
+        sel = (T60 >= r.window_start_s[i]) & (T60 <= r.window_end_s[i])
+        c = np.polyfit(T60[sel] - r.window_start_s[i], plate.signal[i, sel], 2)
+        np.testing.assert_allclose(r.v0[i], c[1], rtol=1e-7)
+        assert r.n_points[i] == sel.sum()
