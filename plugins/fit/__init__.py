@@ -1,1 +1,20 @@
+"""Built-in fit stage and kinetic models (pluggy plugin ``builtin_fit``).
 
+Kept light at import time: registering imports only the stage declaration and the model catalog; numpy,
+scipy and pandas are imported when a fit actually runs.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from pipeline import hookimpl
+from plugins.fit.catalog import MODELS
+from plugins.fit.stage import FitStage
+
+
+@hookimpl
+def vzero_register(registry: Any) -> None:
+    registry.add(FitStage)
+    for model in MODELS:
+        registry.add(model)

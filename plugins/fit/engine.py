@@ -218,7 +218,10 @@ def fit(
         if meth != "lm":
             kw["bounds"] = (lo[free], hi[free])
         with np.errstate(all="ignore"):
-            return optimize.least_squares(res, start[free], jac=jj, **kw)
+            try:
+                return optimize.least_squares(res, start[free], jac=jj, **kw)
+            except ValueError as exc:  # residuals not finite at the start, e.g. a parameter on a pole
+                return optimize.OptimizeResult(x=start[free], success=False, cost=np.inf, nfev=0, message=str(exc))
 
     boxed = np.any(np.isfinite(lo[free]) | np.isfinite(hi[free]))
     first = "trf" if boxed else method
@@ -230,8 +233,9 @@ def fit(
             sol = other
     v = full(sol.x)
     ok = bool(sol.success and np.all(np.isfinite(v)) and np.isfinite(sol.cost))
-    jmat = _jacobian(jac, v, x, y.shape) * w[:, None]
-    resid = w * (func(list(v), x) - y)
+    with np.errstate(all="ignore"):
+        jmat = _jacobian(jac, v, x, y.shape) * w[:, None]
+        resid = w * (func(list(v), x) - y)
     return summarize(
         names, v, free, jmat, resid, y, w, success=ok, message=str(sol.message), nfev=int(sol.nfev),
         confidence=confidence, units=units,
@@ -319,7 +323,7 @@ def fit_batch(
             grad = np.einsum("gni,gn->gi", jm, ri)
             scale = np.einsum("gii->gi", jtj)
             scale = np.where(scale > 0, scale, 1.0)
-            gnorm = np.max(np.abs(grad) / np.sqrt(scale) / np.sqrt(np.maximum(cost[idx], 1e-300)), axis=1)
+            gnorm = np.max(np.abs(grad) / np.sqrt(scale) / np.sqrt(np.maximum(cost[idx], 1e-300))[:, None], axis=1)
             a = jtj + lam[idx, None, None] * (scale[:, :, None] * eye) + (~free)[None, :, None] * eye
             try:
                 step = -np.linalg.solve(a, grad[:, :, None])[:, :, 0]

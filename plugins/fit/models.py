@@ -1,13 +1,9 @@
-"""Kinetic models for the fit stage: rate laws with analytic Jacobians and data-driven start values.
+"""Rate-law implementations for the built-in models: functions, analytic Jacobians, start values.
 
-A model is a component of kind ``"model"`` (register it with ``registry.add(model)``). Its parameters carry
-a unit *role*: ``"rate"`` (the unit of the fitted rates), ``"substrate"``, ``"inhibitor"``, ``"enzyme"``
-or ``""`` (dimensionless); the fit stage turns roles into the units of the data. ``variables`` names the
-independent variables it needs (columns of the rates table). Functions are vectorised: each parameter may
-be a scalar or an array ``[n_groups, 1]`` broadcasting against data arrays ``[n_groups, n_points]``.
-
-A third party adds a model by building a :class:`Model` (or any object with the same attributes) and
-registering it from its own ``vzero_register`` hook.
+The model descriptions (names, parameters, unit roles, bounds) live in :mod:`plugins.fit.catalog`, which
+refers to these functions by name so that registering the models does not import numpy. Functions are
+vectorised: each parameter may be a scalar or an array ``[n_groups, 1]`` broadcasting against data arrays
+``[n_groups, n_points]``.
 
 Equations (textbook forms; see docs/fitting.md for sources):
 
@@ -26,7 +22,6 @@ Equations (textbook forms; see docs/fitting.md for sources):
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -34,34 +29,6 @@ import numpy as np
 Arr = Any
 X = Mapping[str, np.ndarray]
 INF = float("inf")
-
-
-@dataclass(frozen=True)
-class Model:
-    """A rate law the fit stage can fit.
-
-    ``units`` maps each parameter to its unit role; ``bounds`` gives default (low, high) per parameter
-    (the recipe may override); ``profile`` lists the parameters whose intervals are computed by profile
-    likelihood (the ones with skewed sampling distributions); ``nests`` names simpler models this one
-    contains as a special case (for the extra-sum-of-squares F-test), with the constraint in words.
-    """
-
-    name: str
-    params: tuple[str, ...]
-    units: Mapping[str, str]
-    variables: tuple[str, ...]
-    func: Callable[[Sequence[Arr], X], np.ndarray]
-    jac: Callable[[Sequence[Arr], X], list[np.ndarray]]
-    guess: Callable[[X, np.ndarray], list[float]]
-    equation: str
-    summary: str = ""
-    bounds: Mapping[str, tuple[float, float]] = field(default_factory=dict)
-    profile: tuple[str, ...] = ()
-    nests: Mapping[str, str] = field(default_factory=dict)
-    kind: str = "model"
-
-    def __call__(self, params: Sequence[Arr], x: X) -> np.ndarray:
-        return self.func(params, x)
 
 
 # -- start values (from the data alone) ------------------------------------------------------------------
@@ -277,44 +244,9 @@ def _logistic_guess(x: X, y: np.ndarray) -> list[float]:
     return [bottom, top, mid, -1.0] if rising else [top, bottom, mid, 1.0]
 
 
-POS = (0.0, INF)
+def _mm_guess(x: X, y: np.ndarray) -> list[float]:
+    return list(_mm_start(x, y))
 
-MODELS: tuple[Model, ...] = (
-    Model("michaelis-menten", ("Vmax", "Km"), {"Vmax": "rate", "Km": "substrate"}, ("substrate",),
-          _mm, _mm_jac, lambda x, y: list(_mm_start(x, y)), "v = Vmax·S/(Km + S)",
-          "Michaelis-Menten rate law", {"Km": POS}, ("Km",)),
-    Model("hill", ("Vmax", "K0.5", "h"), {"Vmax": "rate", "K0.5": "substrate", "h": ""}, ("substrate",),
-          _hill, _hill_jac, _hill_guess, "v = Vmax·S^h/(K0.5^h + S^h)",
-          "Hill equation (cooperativity)", {"K0.5": POS, "h": (0.05, 20.0)}, ("K0.5", "h"),
-          {"michaelis-menten": "h = 1"}),
-    Model("substrate-inhibition", ("Vmax", "Km", "Ksi"), {"Vmax": "rate", "Km": "substrate", "Ksi": "substrate"},
-          ("substrate",), _si, _si_jac, _si_guess, "v = Vmax·S/(Km + S + S²/Ksi)",
-          "Haldane substrate inhibition", {"Km": POS, "Ksi": POS}, ("Km", "Ksi"),
-          {"michaelis-menten": "Ksi → ∞"}),
-    Model("competitive", ("Vmax", "Km", "Kic"), {"Vmax": "rate", "Km": "substrate", "Kic": "inhibitor"},
-          ("substrate", "inhibitor"), _competitive, _competitive_jac, _inhib_guess(1),
-          "v = Vmax·S/(Km(1 + I/Kic) + S)", "competitive inhibition", {"Km": POS, "Kic": POS}, ("Km", "Kic")),
-    Model("uncompetitive", ("Vmax", "Km", "Kiu"), {"Vmax": "rate", "Km": "substrate", "Kiu": "inhibitor"},
-          ("substrate", "inhibitor"), _uncompetitive, _uncompetitive_jac, _inhib_guess(1),
-          "v = Vmax·S/(Km + S(1 + I/Kiu))", "uncompetitive inhibition", {"Km": POS, "Kiu": POS}, ("Km", "Kiu")),
-    Model("mixed", ("Vmax", "Km", "Kic", "Kiu"),
-          {"Vmax": "rate", "Km": "substrate", "Kic": "inhibitor", "Kiu": "inhibitor"},
-          ("substrate", "inhibitor"), _mixed, _mixed_jac, _inhib_guess(2),
-          "v = Vmax·S/(Km(1 + I/Kic) + S(1 + I/Kiu))", "mixed inhibition",
-          {"Km": POS, "Kic": POS, "Kiu": POS}, ("Km", "Kic", "Kiu"),
-          {"competitive": "Kiu → ∞", "uncompetitive": "Kic → ∞", "noncompetitive": "Kic = Kiu"}),
-    Model("noncompetitive", ("Vmax", "Km", "Ki"), {"Vmax": "rate", "Km": "substrate", "Ki": "inhibitor"},
-          ("substrate", "inhibitor"), _noncompetitive, _noncompetitive_jac, _inhib_guess(1),
-          "v = Vmax·S/((Km + S)(1 + I/Ki))", "pure noncompetitive inhibition", {"Km": POS, "Ki": POS},
-          ("Km", "Ki")),
-    Model("morrison", ("v0", "Ki_app"), {"v0": "rate", "Ki_app": "inhibitor"}, ("inhibitor", "enzyme"),
-          _morrison, _morrison_jac, _morrison_guess,
-          "v = v0·(1 − ((E + I + Ki_app) − √((E + I + Ki_app)² − 4EI))/(2E))",
-          "Morrison tight-binding inhibition (enzyme in the inhibitor's unit)", {"Ki_app": POS}, ("Ki_app",)),
-    Model("logistic-4p", ("top", "bottom", "IC50", "slope"),
-          {"top": "rate", "bottom": "rate", "IC50": "inhibitor", "slope": ""}, ("inhibitor",),
-          _logistic, _logistic_jac, _logistic_guess, "v = bottom + (top − bottom)/(1 + (I/IC50)^slope)",
-          "four-parameter logistic dose-response", {"IC50": POS}, ("IC50",)),
-)
 
-BY_NAME = {m.name: m for m in MODELS}
+_inhib1_guess = _inhib_guess(1)
+_inhib2_guess = _inhib_guess(2)

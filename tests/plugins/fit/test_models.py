@@ -9,13 +9,13 @@ import pytest
 from scipy.optimize import approx_fprime
 
 from plugins.fit import engine
-from plugins.fit.models import BY_NAME, MODELS
+from plugins.fit.catalog import BY_NAME, MODELS
 
 DATA = Path(__file__).resolve().parents[2] / "data" / "reference"
 
 
 def _value(name: str, p: list[float], **x: float) -> float:
-    return float(BY_NAME[name].func(p, {k: np.asarray(v, float) for k, v in x.items()}))
+    return float(BY_NAME[name].evaluate(p, {k: np.asarray(v, float) for k, v in x.items()}))
 
 
 def test_check_values() -> None:
@@ -44,11 +44,11 @@ def test_analytic_jacobian_matches_finite_differences(model) -> None:
     # scipy.optimize.approx_fprime (forward differences) as the independent derivative
     rng = np.random.default_rng(1)
     x = {v: rng.uniform(0.2, 5.0, 7) for v in model.variables}
-    p = np.array(model.guess(x, rng.uniform(1, 2, 7)), float)
+    p = np.array(model.start(x, rng.uniform(1, 2, 7)), float)
     p = np.where(p == 0, 0.7, p) * rng.uniform(0.8, 1.2, p.size)
-    analytic = np.stack([np.broadcast_to(c, (7,)) for c in model.jac(list(p), x)], axis=1)
+    analytic = np.stack([np.broadcast_to(c, (7,)) for c in model.jacobian(list(p), x)], axis=1)
     for j in range(7):
-        numeric = approx_fprime(p, lambda q, j=j: float(model.func(list(q), x)[j]), 1e-7 * np.abs(p))
+        numeric = approx_fprime(p, lambda q, j=j: float(model.evaluate(list(q), x)[j]), 1e-7 * np.abs(p))
         np.testing.assert_allclose(analytic[j], numeric, rtol=2e-5, atol=1e-8)
 
 
@@ -63,7 +63,7 @@ def test_puromycin_treated_and_untreated() -> None:
     # Treated: An Introduction to R, section 11.7.1 (nls output): Vm 212.68370711, K 0.06412123,
     # SE 6.947 and 8.281e-03, residual SE 10.93 on 10 df, corr 0.7651; reference pack section 2.1.
     s, v = _puromycin("treated")
-    res = engine.fit(mm.func, mm.jac, {"substrate": s}, v, mm.guess({"substrate": s}, v), mm.params)
+    res = engine.fit(mm.evaluate, mm.jacobian, {"substrate": s}, v, mm.start({"substrate": s}, v), mm.params)
     np.testing.assert_allclose([res.value("Vmax"), res.value("Km")], [212.68370711, 0.06412123], rtol=1e-5)
     np.testing.assert_allclose([res.params["Vmax"].stderr, res.params["Km"].stderr], [6.947, 8.281e-03], rtol=5e-4)
     np.testing.assert_allclose(np.sqrt(res.rss / res.dof), 10.93, rtol=5e-4)
@@ -73,7 +73,7 @@ def test_puromycin_treated_and_untreated() -> None:
     # Untreated: Bates & Watts values (memory in the reference pack) matched by the pack's scipy
     # computation: Vm 160.280046, K 0.0477081845, SE 6.480246, 0.00778188; section 2.2.
     s, v = _puromycin("untreated")
-    res = engine.fit(mm.func, mm.jac, {"substrate": s}, v, mm.guess({"substrate": s}, v), mm.params)
+    res = engine.fit(mm.evaluate, mm.jacobian, {"substrate": s}, v, mm.start({"substrate": s}, v), mm.params)
     np.testing.assert_allclose([res.value("Vmax"), res.value("Km")], [160.280046, 0.0477081845], rtol=1e-6)
     np.testing.assert_allclose([res.params["Vmax"].stderr, res.params["Km"].stderr], [6.480246, 0.00778188],
                                rtol=1e-5)
@@ -88,7 +88,7 @@ def test_severinghaus_hill_fit() -> None:
     hill = BY_NAME["hill"]
     p = np.arange(15.0, 61.0)  # 46 points, 15..60 mmHg, as in the reference pack section 3
     s = _severinghaus(p)
-    res = engine.fit(hill.func, hill.jac, {"substrate": p}, s, hill.guess({"substrate": p}, s), hill.params,
+    res = engine.fit(hill.evaluate, hill.jacobian, {"substrate": p}, s, hill.start({"substrate": p}, s), hill.params,
                      fixed={"Vmax": 1.0}, bounds=hill.bounds)
     # regression check (reference pack section 3, computed with scipy least_squares at 1e-15)
     np.testing.assert_allclose([res.value("K0.5"), res.value("h")], [26.59379403, 2.69131570], rtol=1e-6)

@@ -1,0 +1,118 @@
+"""The fit models as registry components: what each model is, without importing numpy.
+
+A model is a component of kind ``"model"`` (``registry.add(model)`` from a plugin's ``vzero_register``).
+Its parameters carry a unit *role*: ``"rate"`` (the unit of the fitted rates), ``"substrate"``,
+``"inhibitor"``, ``"enzyme"`` or ``""`` (dimensionless); the fit stage turns roles into the units of the
+data. ``variables`` names the independent variables it needs (columns of the rates table).
+
+``func``, ``jac`` and ``guess`` are callables or ``"module:name"`` strings resolved on first use (so the
+command line can list models quickly). A third party builds a :class:`Model` with its own callables:
+
+* ``func(params, x) -> v``: ``params`` a sequence (one array or scalar per parameter, broadcastable against
+  the arrays in the mapping ``x``), vectorised over points and groups;
+* ``jac(params, x) -> [dv/dp_1, ...]``: analytic partial derivatives, one per parameter;
+* ``guess(x, y) -> [p_1, ...]``: start values from the data of one group (1-D arrays).
+"""
+
+from __future__ import annotations
+
+import functools
+import importlib
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+INF = float("inf")
+
+
+@functools.cache
+def _load(ref: str) -> Callable[..., Any]:
+    module, _, name = ref.partition(":")
+    return getattr(importlib.import_module(module), name)
+
+
+def _resolve(obj: Callable[..., Any] | str) -> Callable[..., Any]:
+    return _load(obj) if isinstance(obj, str) else obj
+
+
+@dataclass(frozen=True)
+class Model:
+    """A rate law the fit stage can fit.
+
+    ``units`` maps each parameter to its unit role; ``bounds`` gives default (low, high) per parameter
+    (the recipe may override); ``profile`` lists the parameters whose intervals are computed by profile
+    likelihood (the ones with skewed sampling distributions); ``nests`` names simpler models this one
+    contains as a special case (for the extra-sum-of-squares F-test), with the constraint in words.
+    """
+
+    name: str
+    params: tuple[str, ...]
+    units: Mapping[str, str]
+    variables: tuple[str, ...]
+    func: Callable[..., Any] | str
+    jac: Callable[..., Any] | str
+    guess: Callable[..., Any] | str
+    equation: str
+    summary: str = ""
+    bounds: Mapping[str, tuple[float, float]] = field(default_factory=dict)
+    profile: tuple[str, ...] = ()
+    nests: Mapping[str, str] = field(default_factory=dict)
+    kind: str = "model"
+
+    def evaluate(self, params: Sequence[Any], x: Mapping[str, Any]) -> Any:
+        """Predicted rates (same unit as the data's rates)."""
+        return _resolve(self.func)(params, x)
+
+    def jacobian(self, params: Sequence[Any], x: Mapping[str, Any]) -> list[Any]:
+        """Partial derivatives of the rate with respect to each parameter, in ``params`` order."""
+        return list(_resolve(self.jac)(params, x))
+
+    def start(self, x: Mapping[str, Any], y: Any) -> list[float]:
+        """Start values estimated from one group's data."""
+        return [float(v) for v in _resolve(self.guess)(x, y)]
+
+
+def _impl(name: str) -> str:
+    return f"plugins.fit.models:{name}"
+
+
+POS = (0.0, INF)
+
+
+def _m(name: str, params: str, roles: str, variables: str, impl: str, guess: str, equation: str, summary: str,
+       bounds: Mapping[str, tuple[float, float]], profile: str, nests: Mapping[str, str] | None = None) -> Model:
+    """Compact constructor for the built-ins: ``params``/``roles``/``variables``/``profile`` are
+    space-separated (role ``-`` means dimensionless); ``impl`` is the stem of the function names."""
+    names = tuple(params.split())
+    units = {n: ("" if r == "-" else r) for n, r in zip(names, roles.split(), strict=True)}
+    return Model(name, names, units, tuple(variables.split()), _impl(f"_{impl}"), _impl(f"_{impl}_jac"),
+                 _impl(f"_{guess}_guess"), equation, summary, bounds, tuple(profile.split()), nests or {})
+
+
+MODELS: tuple[Model, ...] = (
+    _m("michaelis-menten", "Vmax Km", "rate substrate", "substrate", "mm", "mm", "v = Vmax·S/(Km + S)",
+       "Michaelis-Menten rate law", {"Km": POS}, "Km"),
+    _m("hill", "Vmax K0.5 h", "rate substrate -", "substrate", "hill", "hill", "v = Vmax·S^h/(K0.5^h + S^h)",
+       "Hill equation (cooperativity)", {"K0.5": POS, "h": (0.05, 20.0)}, "K0.5 h", {"michaelis-menten": "h = 1"}),
+    _m("substrate-inhibition", "Vmax Km Ksi", "rate substrate substrate", "substrate", "si", "si",
+       "v = Vmax·S/(Km + S + S²/Ksi)", "Haldane substrate inhibition", {"Km": POS, "Ksi": POS}, "Km Ksi",
+       {"michaelis-menten": "Ksi → ∞"}),
+    _m("competitive", "Vmax Km Kic", "rate substrate inhibitor", "substrate inhibitor", "competitive", "inhib1",
+       "v = Vmax·S/(Km(1 + I/Kic) + S)", "competitive inhibition", {"Km": POS, "Kic": POS}, "Km Kic"),
+    _m("uncompetitive", "Vmax Km Kiu", "rate substrate inhibitor", "substrate inhibitor", "uncompetitive",
+       "inhib1", "v = Vmax·S/(Km + S(1 + I/Kiu))", "uncompetitive inhibition", {"Km": POS, "Kiu": POS}, "Km Kiu"),
+    _m("mixed", "Vmax Km Kic Kiu", "rate substrate inhibitor inhibitor", "substrate inhibitor", "mixed", "inhib2",
+       "v = Vmax·S/(Km(1 + I/Kic) + S(1 + I/Kiu))", "mixed inhibition", {"Km": POS, "Kic": POS, "Kiu": POS},
+       "Km Kic Kiu", {"competitive": "Kiu → ∞", "uncompetitive": "Kic → ∞", "noncompetitive": "Kic = Kiu"}),
+    _m("noncompetitive", "Vmax Km Ki", "rate substrate inhibitor", "substrate inhibitor", "noncompetitive",
+       "inhib1", "v = Vmax·S/((Km + S)(1 + I/Ki))", "pure noncompetitive inhibition", {"Km": POS, "Ki": POS},
+       "Km Ki"),
+    _m("morrison", "v0 Ki_app", "rate inhibitor", "inhibitor enzyme", "morrison", "morrison",
+       "v = v0·(1 − ((E + I + Ki_app) − √((E + I + Ki_app)² − 4EI))/(2E))",
+       "Morrison tight-binding inhibition (enzyme converted to the inhibitor's unit)", {"Ki_app": POS}, "Ki_app"),
+    _m("logistic-4p", "top bottom IC50 slope", "rate rate inhibitor -", "inhibitor", "logistic", "logistic",
+       "v = bottom + (top − bottom)/(1 + (I/IC50)^slope)", "four-parameter logistic dose-response",
+       {"IC50": POS}, "IC50"),
+)
+
+BY_NAME = {m.name: m for m in MODELS}

@@ -1,0 +1,106 @@
+"""Linear-transform diagnostics, fitted curves with confidence bands, and parameter correlations.
+
+The transforms (Hill plot, Lineweaver-Burk, Eadie-Hofstee, Hanes-Woolf) distort the error structure of the
+rates and are shown for inspection only; parameters always come from nonlinear least squares on the
+untransformed rates. Each transform's own straight-line estimates are reported so the reader can see how far
+they stray from the nonlinear fit.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from scipy import stats
+
+from plugins.fit.engine import FitResult
+from plugins.fit.catalog import Model
+
+HILL_STABLE = (0.1, 0.9)
+"""Fractional saturation range where a Hill-plot point is usable: outside it log(v/(Vmax − v)) is dominated
+by noise in v (common practice; the exact limits are our choice)."""
+
+
+def _ols(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """Slope and intercept of the unweighted least-squares line (NaN with fewer than 2 distinct x)."""
+    ok = np.isfinite(x) & np.isfinite(y)
+    if np.unique(x[ok]).size < 2:
+        return float("nan"), float("nan")
+    slope, intercept = np.polyfit(x[ok], y[ok], 1)
+    return float(slope), float(intercept)
+
+
+def transforms(group: Any, s: np.ndarray, v: np.ndarray, vmax: float, ids: list[tuple[str, str]],
+               s_unit: str, v_unit: str) -> list[dict[str, Any]]:
+    """Rows of the diagnostics table for one group: points of the four plots and each line's estimates.
+
+    ``vmax`` (from the nonlinear Hill or Michaelis-Menten fit) is needed for the Hill plot only. ``ids`` are
+    (plate, well) per point.
+    """
+    rows: list[dict[str, Any]] = []
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pos = (s > 0) & (v > 0)
+        plots = {
+            "lineweaver-burk": (1 / s, 1 / v, f"1/S (1/{s_unit})", f"1/v (1/({v_unit}))", pos),
+            "eadie-hofstee": (v / s, v, f"v/S (({v_unit})/{s_unit})", f"v ({v_unit})", s > 0),
+            "hanes-woolf": (s, s / v, f"S ({s_unit})", f"S/v ({s_unit}/({v_unit}))", pos),
+        }
+        if np.isfinite(vmax) and vmax > 0:
+            frac = v / vmax
+            hy = np.log10(v / (vmax - v))
+            stable = (frac > HILL_STABLE[0]) & (frac < HILL_STABLE[1]) & (s > 0)
+            plots["hill"] = (np.log10(s), hy, f"log10(S/{s_unit})", "log10(v/(Vmax − v))", stable)
+
+    for plot, (x, y, xl, yl, usable) in plots.items():
+        for k in range(len(s)):
+            rows.append({"group": group, "plot": plot, "quantity": "point", "x": float(x[k]), "y": float(y[k]),
+                         "plate": ids[k][0], "well": ids[k][1], "unstable": not bool(usable[k]) or
+                         not np.isfinite(y[k]), "x_label": xl, "y_label": yl})
+        slope, icpt = _ols(x[usable], y[usable])
+        if plot == "lineweaver-burk":
+            est = {"Vmax": 1 / icpt, "Km": slope / icpt}
+        elif plot == "eadie-hofstee":
+            est = {"Vmax": icpt, "Km": -slope}
+        elif plot == "hanes-woolf":
+            est = {"Vmax": 1 / slope, "Km": icpt / slope}
+        else:
+            est = {"h": slope, "K0.5": 10 ** (-icpt / slope) if slope else np.nan}
+        for q, val in {"slope": slope, "intercept": icpt, **est}.items():
+            rows.append({"group": group, "plot": plot, "quantity": q, "x": np.nan, "y": float(val), "plate": "",
+                         "well": "", "unstable": False, "x_label": xl, "y_label": yl})
+    return rows
+
+
+def band(model: Model, res: FitResult, x: dict[str, np.ndarray], confidence: float) -> tuple[np.ndarray, ...]:
+    """Fitted values and a pointwise confidence band by the delta method: f ± t·sqrt(g C gᵀ), g = ∂f/∂θ."""
+    p = list(res.values)
+    with np.errstate(all="ignore"):
+        y = np.asarray(model.evaluate(p, x), float)
+        if not res.errorbars:
+            nan = np.full_like(y, np.nan)
+            return y, nan, nan
+        g = np.stack([np.broadcast_to(c, y.shape) for c in model.jacobian(p, x)], axis=-1)
+        var = np.einsum("ni,ij,nj->n", g, np.nan_to_num(res.covariance), g)
+    half = stats.t.ppf(0.5 + confidence / 2, res.dof) * np.sqrt(np.clip(var, 0, None))
+    return y, y - half, y + half
+
+
+def grid(values: np.ndarray, n: int = 101) -> np.ndarray:
+    """A plotting grid over the observed range: log-spaced when the positive values span > 30-fold, else
+    linear from 0."""
+    pos = values[np.isfinite(values) & (values > 0)]
+    if pos.size == 0:
+        return np.linspace(0.0, 1.0, n)
+    lo, hi = pos.min(), pos.max()
+    if hi / lo > 30:
+        return np.geomspace(lo / 2, hi * 1.5, n)
+    return np.linspace(0.0, hi * 1.1, n)
+
+
+def correlations(group: Any, model: str, res: FitResult) -> list[dict[str, Any]]:
+    """Long-form correlation matrix of the free parameters."""
+    names = [n for n, f in zip(res.names, res.free, strict=True) if f]
+    idx = [res.names.index(n) for n in names]
+    return [{"group": group, "model": model, "parameter_a": a, "parameter_b": b,
+             "r": float(res.correlation[i, j])} for a, i in zip(names, idx, strict=True)
+            for b, j in zip(names, idx, strict=True)]

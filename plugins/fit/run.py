@@ -1,0 +1,401 @@
+"""The work of the fit stage: select wells, fit every model to every group, build the result tables.
+
+Called from :meth:`plugins.fit.stage.FitStage.run`. Per-group trouble (too few levels, no positive rate,
+no saturation, no convergence) becomes a row with ``success`` False and a reason, plus a one-line warning;
+only a set-up problem (no rates table, a missing column, an unknown model) raises :class:`FitError`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from pipeline import units as pu
+from pipeline.data import Table
+from pipeline.errors import FitError
+from pipeline.params import closest
+from pipeline.stage import StageInput, StageOutput
+from plugins.fit import compare, diagnostics, engine
+from plugins.fit.catalog import BY_NAME, Model
+from plugins.flags import from_names
+
+NOT_DETERMINED = "not determined"
+
+
+def _models(names: list[str], registry: Any) -> list[Model]:
+    out = []
+    for name in names:
+        if registry is not None and ("model", name) in registry:
+            out.append(registry.get("model", name).component)
+        elif registry is None and name in BY_NAME:
+            out.append(BY_NAME[name])
+        else:
+            known = registry.names("model") if registry is not None else sorted(BY_NAME)
+            hit = closest(name, known)
+            raise FitError(f"fit.models: no model named {name!r}" + (f" (did you mean {hit!r}?)" if hit else ""),
+                           hint=f"Available models: {', '.join(known)}.")
+    return out
+
+
+def _failed(model: Model, n: int, reason: str) -> engine.FitResult:
+    nan = float("nan")
+    p = len(model.params)
+    params = {k: engine.ParamEstimate(k, nan, note=f"{NOT_DETERMINED}: {reason}") for k in model.params}
+    return engine.FitResult(model.params, params, False, reason, 0, nan, n - p, n, nan, nan, np.full((p, p), nan),
+                            np.full((p, p), nan), False, reason, np.full(p, nan), np.ones(p, bool))
+
+
+def _sigma(weighting: str, y: np.ndarray, levels: np.ndarray) -> tuple[np.ndarray | None, str]:
+    """Per-point standard deviations for one group (None: equal weights) and a note when falling back."""
+    if weighting == "relative":
+        # sigma proportional to the rate; floored at 5 % of the largest |rate| so near-zero rates do not
+        # receive enormous weights (our choice, documented in docs/fitting.md)
+        return np.maximum(np.abs(y), 0.05 * np.max(np.abs(y))), ""
+    if weighting == "replicate":
+        _, inv, counts = np.unique(levels, return_inverse=True, return_counts=True)
+        sd = np.full(counts.size, np.nan)
+        for k in np.flatnonzero(counts >= 2):
+            sd[k] = np.std(y[inv == k], ddof=1)
+        good = sd[np.isfinite(sd) & (sd > 0)]
+        if good.size < 2:
+            return None, "replicate weighting needs replicates at two or more levels; fitted unweighted"
+        typical = float(np.median(good))
+        sd = np.where(np.isfinite(sd), np.maximum(sd, 0.1 * typical), typical)
+        return sd[inv], ""
+    return None, ""
+
+
+def _saturation_problem(model: Model, res: engine.FitResult, s: np.ndarray) -> str:
+    """Reason why Vmax and the half-saturation constant are not determined, or ''."""
+    k = "Km" if "Km" in model.params else "K0.5" if "K0.5" in model.params else ""
+    if not (res.success and k and "Vmax" in model.params and model.variables == ("substrate",)):
+        return ""
+    smax = float(np.max(s))
+    kv = res.value(k)
+    if np.isfinite(kv) and kv > smax:
+        return (f"the highest substrate level ({smax:.4g}) is below the fitted {k} ({kv:.4g}): the rates never "
+                f"approach saturation, so Vmax and {k} are not determined separately (only Vmax/{k} = "
+                f"{res.value('Vmax') / kv:.4g} is); extend the substrate range")
+    return ""
+
+
+def _with_profiles(model: Model, res: engine.FitResult, x: dict[str, np.ndarray], y: np.ndarray,
+                   sigma: np.ndarray | None, fixed: dict[str, float], bounds: dict[str, tuple[float, float]],
+                   confidence: float) -> engine.FitResult:
+    params = dict(res.params)
+    for name in model.profile:
+        if name not in params or params[name].fixed:
+            continue
+        lo, hi, note = engine.profile_interval(model.evaluate, model.jacobian, x, y, res, name, sigma=sigma,
+                                               fixed=fixed, bounds=bounds, confidence=confidence)
+        params[name] = replace(params[name], ci_low=lo, ci_high=hi, ci_method="profile",
+                               note="; ".join(filter(None, [params[name].note, note])))
+    return replace(res, params=params)
+
+
+def _derived(model: Model, res: engine.FitResult, e: float, eu: str, ru: str, su: str,
+             confidence: float) -> list[dict[str, Any]]:
+    """kcat = Vmax/[E] (1/s) and kcat/Km (1/(M·s)) with delta-method standard errors."""
+    if "Vmax" not in model.params:
+        return []
+    rows = []
+    tq = stats.t.ppf(0.5 + confidence / 2, res.dof) if res.dof > 0 else np.nan
+    v = res.params["Vmax"]
+    iv = res.names.index("Vmax")
+
+    def row(name: str, est: float, se: float, unit: str, note: str = "") -> dict[str, Any]:
+        ok = np.isfinite(se)
+        return {"parameter": name, "estimate": est, "stderr": se, "ci_low": est - tq * se if ok else np.nan,
+                "ci_high": est + tq * se if ok else np.nan, "ci_method": "wald-t (derived)" if ok else "",
+                "unit": unit, "fixed": False, "note": note or ("" if ok else "no standard error for Vmax")}
+
+    if not (np.isfinite(e) and e > 0):
+        why = "enzyme concentration unknown or not the same in every well of the group" if not np.isfinite(e) \
+            else "enzyme concentration is not positive"
+        return [row("kcat", np.nan, np.nan, "1/s", f"{NOT_DETERMINED}: {why}")]
+    try:
+        f1 = pu.factor(f"({ru})/({eu})", "1/s")
+    except Exception as exc:
+        return [row("kcat", np.nan, np.nan, "1/s", f"{NOT_DETERMINED}: rate unit {ru!r} and enzyme unit {eu!r} do "
+                    f"not give a turnover ({exc}); convert rates to concentration per time first")]
+    rows.append(row("kcat", v.value / e * f1, v.stderr / e * f1, "1/s"))
+    k = "Km" if "Km" in model.params else ""
+    if k:
+        try:
+            f2 = pu.factor(f"({ru})/(({eu})*({su}))", "1/M/s")
+        except Exception:
+            return rows
+        km = res.params[k]
+        ik = res.names.index(k)
+        val = v.value / (e * km.value) * f2
+        cov = res.covariance
+        rel = (v.stderr / v.value) ** 2 + (km.stderr / km.value) ** 2 - 2 * cov[iv, ik] / (v.value * km.value)
+        rows.append(row("kcat/Km", val, abs(val) * np.sqrt(max(rel, 0.0)), "1/(M·s)"))
+    return rows
+
+
+def _group_enzyme(e: np.ndarray) -> float:
+    e = e[np.isfinite(e)]
+    if e.size == 0 or not np.allclose(e, e[0], rtol=1e-9, atol=0):
+        return float("nan")
+    return float(e[0])
+
+
+def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
+    from plugins.fit.stage import FitStage
+
+    cfg = {k: p.default for k, p in FitStage.params.items()} | dict(settings)
+    rates = data.artifacts.get("rates")
+    if rates is None or not hasattr(rates, "frame"):
+        raise FitError("the fit stage found no 'rates' table",
+                       hint="Put a rates step (and a convert step) before the fit step in the recipe.")
+    frame: pd.DataFrame = rates.frame
+    units = dict(rates.units)
+    models = _models(list(cfg["models"]), data.registry)
+    xcol, icol, gcol = cfg["x"], cfg["inhibitor"], cfg["group_by"]
+    columns = {"substrate": xcol, "inhibitor": icol, "enzyme": "enzyme"}
+    needed = {"rate"} | {columns[v] for m in models for v in m.variables}
+    missing = sorted(c for c in needed if c not in frame.columns)
+    if missing:
+        raise FitError(f"the rates table has no column {', '.join(map(repr, missing))} needed by the models "
+                       f"{', '.join(m.name for m in models)}",
+                       hint="Name the column with fit.x / fit.inhibitor, or add it to the plate layout.")
+    ru, su, iu, eu = (units.get(c, "") for c in ("rate", xcol, icol, "enzyme"))
+    role_unit = {"rate": ru, "substrate": su, "inhibitor": iu, "enzyme": eu, "": ""}
+
+    rate = frame["rate"].to_numpy(float)
+    use = np.isfinite(rate)
+    if "role" in frame.columns:
+        use &= frame["role"].astype(str).to_numpy() == "sample"
+    if "flags" in frame.columns:
+        excl = 0
+        for name in cfg["exclude_flags"]:
+            excl |= from_names(name)
+        codes = {t: from_names(t) for t in frame["flags"].fillna("").astype(str).unique()}
+        use &= np.array([codes[t] & excl == 0 for t in frame["flags"].fillna("").astype(str)], bool)
+    if gcol in frame.columns:
+        groups = frame[gcol].astype(str).to_numpy()
+    else:
+        data.warn(f"fit: the rates table has no column {gcol!r}; all wells are fitted as one group 'all'")
+        groups = np.full(len(frame), "all", dtype=object)
+    var = {v: frame[c].to_numpy(float) if c in frame.columns else np.full(len(frame), np.nan)
+           for v, c in columns.items()}
+    plate = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
+    well = frame["well"].astype(str).to_numpy() if "well" in frame.columns else np.full(len(frame), "")
+    no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
+    group_names = sorted(set(groups[use]))
+    conf = float(cfg["confidence"])
+
+    fits: dict[tuple[str, str], engine.FitResult] = {}
+    point_sets: dict[tuple[str, str], tuple[int, ...]] = {}
+    sigmas: dict[tuple[str, str], np.ndarray | None] = {}
+    extra_notes: dict[tuple[str, str], str] = {}
+    xvars: dict[str, dict[str, np.ndarray]] = {}
+    for model in models:
+        xv = {v: var[v] for v in model.variables}
+        xvars[model.name] = xv
+        if "enzyme" in model.variables and "inhibitor" in model.variables and (eu or iu):
+            try:
+                xv["enzyme"] = var["enzyme"] * pu.factor(eu, iu)
+            except Exception as exc:
+                raise FitError(f"model {model.name}: the enzyme unit {eu!r} cannot be converted to the inhibitor "
+                               f"unit {iu!r} ({exc})", hint="Give enzyme and inhibitor as concentrations.") from None
+        ok = use & np.all([np.isfinite(a) for a in xv.values()], axis=0)
+        if "inhibitor" not in model.variables:
+            ok &= no_inhibitor
+        fixed = {k: float(v) for k, v in cfg["fixed"].get(model.name, {}).items()}
+        user_bounds = cfg["bounds"].get(model.name, {})
+        bounds = {**model.bounds, **{k: (float(v[0]), float(v[1])) for k, v in user_bounds.items()}}
+        starts = cfg["start"].get(model.name, {})
+        for k in [*fixed, *bounds, *starts]:
+            if k not in model.params:
+                raise FitError(f"fit: model {model.name} has no parameter {k!r}",
+                               hint=f"Its parameters are {', '.join(model.params)}.")
+        n_free = len(model.params) - len(fixed)
+        todo: list[tuple[str, np.ndarray]] = []
+        for g in group_names:
+            idx = np.flatnonzero(ok & (groups == g))
+            key = (g, model.name)
+            point_sets[key] = tuple(idx)
+            y = rate[idx]
+            levels = np.unique(np.stack([xv[v][idx] for v in model.variables], axis=1), axis=0) if idx.size else []
+            reason = ""
+            if idx.size == 0:
+                reason = f"no usable wells with the columns {', '.join(columns[v] for v in model.variables)}"
+            elif len(levels) < n_free + 1:
+                reason = (f"too few {'/'.join(model.variables)} levels: {model.name} has {n_free} free parameters "
+                          f"and needs at least {n_free + 1} distinct levels, the group has {len(levels)}")
+            elif "inhibitor" in model.variables and np.unique(xv["inhibitor"][idx]).size < 2:
+                reason = "needs at least two inhibitor concentrations"
+            elif np.all(y <= 0):
+                reason = "all rates are zero or negative: no activity to fit"
+            if reason:
+                fits[key] = _failed(model, idx.size, reason)
+                data.warn(f"fit: group {g}, {model.name}: {reason}")
+                continue
+            sig, note = _sigma(cfg["weighting"], y, np.unique(
+                np.stack([xv[v][idx] for v in model.variables], axis=1), axis=0, return_inverse=True)[1])
+            if note:
+                extra_notes[key] = note
+                data.warn(f"fit: group {g}, {model.name}: {note}")
+            sigmas[key] = sig
+            todo.append((g, idx))
+        if not todo:
+            continue
+        n = max(len(idx) for _, idx in todo)
+        shape = (len(todo), n)
+        ys, mask, sg = np.zeros(shape), np.zeros(shape, bool), np.ones(shape)
+        xs = {v: np.zeros(shape) for v in model.variables}
+        p0 = np.zeros((len(todo), len(model.params)))
+        for r, (g, idx) in enumerate(todo):
+            m = idx.size
+            ys[r, :m], mask[r, :m] = rate[idx], True
+            for v in model.variables:
+                xs[v][r, :m] = xv[v][idx]
+            guess = model.start({v: xv[v][idx] for v in model.variables}, rate[idx])
+            p0[r] = [starts.get(k, guess[j]) for j, k in enumerate(model.params)]
+            if sigmas[(g, model.name)] is not None:
+                sg[r, :m] = sigmas[(g, model.name)]
+        pu_units = {k: role_unit.get(rl, "") for k, rl in model.units.items()}
+        use_sigma = None if cfg["weighting"] == "none" else sg
+        results = engine.fit_batch(model.evaluate, model.jacobian, xs, ys, mask, p0, model.params,
+                                   sigma=use_sigma, fixed=fixed, bounds=bounds, confidence=conf, units=pu_units)
+        for (g, idx), res in zip(todo, results, strict=True):
+            key = (g, model.name)
+            xg = {v: xv[v][idx] for v in model.variables}
+            if not res.success:
+                data.warn(f"fit: group {g}, {model.name}: did not converge ({res.message})")
+            elif cfg["profile"] and res.errorbars:
+                res = _with_profiles(model, res, xg, rate[idx], sigmas[key], fixed, bounds, conf)
+            problem = _saturation_problem(model, res, xg["substrate"]) if "substrate" in xg else ""
+            if problem:
+                data.warn(f"fit: group {g}, {model.name}: Vmax and Km not determined (no saturation)")
+                extra_notes[key] = problem
+            fits[key] = res
+
+    return _tables(models, fits, point_sets, extra_notes, cfg, xvars, var, rate, groups, plate, well, use,
+                   no_inhibitor, role_unit)
+
+
+def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
+            point_sets: dict[tuple[str, str], tuple[int, ...]], extra_notes: dict[tuple[str, str], str],
+            cfg: Mapping[str, Any], xvars: dict[str, dict[str, np.ndarray]], var: dict[str, np.ndarray],
+            rate: np.ndarray,
+            groups: np.ndarray, plate: np.ndarray, well: np.ndarray, use: np.ndarray, no_inhibitor: np.ndarray,
+            role_unit: dict[str, str]) -> StageOutput:
+    conf = float(cfg["confidence"])
+    ru, su, iu, eu = (role_unit[k] for k in ("rate", "substrate", "inhibitor", "enzyme"))
+    by_name = {m.name: m for m in models}
+    fit_rows: list[dict[str, Any]] = []
+    corr_rows: list[dict[str, Any]] = []
+    curve_rows: list[dict[str, Any]] = []
+    for (g, mname), res in fits.items():
+        model = by_name[mname]
+        common = {"group": g, "model": mname, "n_points": res.n_points, "rss": res.rss, "dof": res.dof,
+                  "r_squared": res.r_squared, "aicc": res.aicc, "success": res.success, "message": res.message,
+                  "errorbars": res.errorbars}
+        problem = extra_notes.get((g, mname), "")
+        saturation = problem.startswith("the highest substrate level")
+        for name in model.params:
+            p = res.params[name]
+            row = {"parameter": name, "estimate": p.value, "stderr": p.stderr, "ci_low": p.ci_low,
+                   "ci_high": p.ci_high, "ci_method": p.ci_method, "unit": p.unit, "fixed": p.fixed,
+                   "note": "; ".join(filter(None, [p.note, problem]))}
+            if saturation and name in ("Vmax", "Km", "K0.5"):
+                row.update(estimate=np.nan, stderr=np.nan, ci_low=np.nan, ci_high=np.nan, ci_method="",
+                           note=f"{NOT_DETERMINED}: {problem}")
+            fit_rows.append({**common, **row})
+        if res.success and not saturation and cfg["enzyme"]:
+            idx = np.array(point_sets[(g, mname)], int)
+            for row in _derived(model, res, _group_enzyme(var["enzyme"][idx]), eu, ru, su, conf):
+                fit_rows.append({**common, **row})
+        if res.success:
+            corr_rows += diagnostics.correlations(g, mname, res)
+            idx = np.array(point_sets[(g, mname)], int)
+            curve_rows += _curves(model, res, {**var, **xvars[mname]}, idx, g, conf, role_unit)
+
+    comp_rows: list[dict[str, Any]] = []
+    coop_rows: list[dict[str, Any]] = []
+    nests = {m.name: m.nests for m in models}
+    for g in sorted({k[0] for k in fits}):
+        sets: dict[tuple[int, ...], dict[str, engine.FitResult]] = {}
+        for (gg, mname), res in fits.items():
+            if gg == g:
+                sets.setdefault(point_sets[(gg, mname)], {})[mname] = res
+        for k, (_, members) in enumerate(sorted(sets.items(), key=lambda kv: sorted(kv[1]))):
+            rows, _, _ = compare.compare_set(members, nests, float(cfg["alpha"]))
+            comp_rows += [{"group": g, "comparison_set": k + 1, **r} for r in rows]
+        hill = fits.get((g, "hill"))
+        if hill is not None:
+            mm = fits.get((g, "michaelis-menten"))
+            t = compare.f_test(mm, hill, ("michaelis-menten", "hill")) if mm is not None else None
+            h = hill.params["h"]
+            ci = (h.ci_low, h.ci_high, h.ci_method) if hill.success else (np.nan, np.nan, "")
+            verdict, reason = compare.cooperativity(hill, ci, t.p if t else np.nan, float(cfg["alpha"]))
+            coop_rows.append({"group": g, "h": h.value, "stderr": h.stderr, "ci_low": ci[0], "ci_high": ci[1],
+                              "ci_method": ci[2], "F": t.f if t else np.nan, "p_vs_michaelis_menten":
+                              t.p if t else np.nan, "verdict": verdict, "reason": reason})
+
+    diag_rows: list[dict[str, Any]] = []
+    for g in sorted(set(groups[use])):
+        idx = np.flatnonzero(use & (groups == g) & no_inhibitor & np.isfinite(var["substrate"]))
+        if idx.size == 0:
+            continue
+        vmax = np.nan
+        for mname in ("hill", "michaelis-menten"):
+            res = fits.get((g, mname))
+            if res is not None and res.success and np.isfinite(res.value("Vmax")):
+                vmax = res.value("Vmax")
+                break
+        diag_rows += diagnostics.transforms(g, var["substrate"][idx], rate[idx], vmax,
+                                            list(zip(plate[idx], well[idx], strict=True)), su or "1", ru or "1")
+
+    fit_cols = ["group", "model", "parameter", "estimate", "stderr", "ci_low", "ci_high", "ci_method", "unit",
+                "fixed", "n_points", "rss", "dof", "r_squared", "aicc", "success", "message", "errorbars", "note"]
+    rss_unit = f"({ru})^2" if ru and cfg["weighting"] == "none" else ""
+    meta = {"research_use": "Research use only: check results against the lab's validated procedures."}
+    out = {
+        "fits": Table(pd.DataFrame(fit_rows, columns=fit_cols), {"rss": rss_unit} if rss_unit else {}, meta),
+        "model_comparison": Table(pd.DataFrame(comp_rows), {"rss": rss_unit} if rss_unit else {}, meta),
+        "cooperativity": Table(pd.DataFrame(coop_rows, columns=[
+            "group", "h", "stderr", "ci_low", "ci_high", "ci_method", "F", "p_vs_michaelis_menten", "verdict",
+            "reason"]), {}, meta),
+        "diagnostics": Table(pd.DataFrame(diag_rows, columns=[
+            "group", "plot", "quantity", "x", "y", "plate", "well", "unstable", "x_label", "y_label"]), {}, meta),
+        "curves": Table(pd.DataFrame(curve_rows, columns=[
+            "group", "model", "variable", "inhibitor", "x", "y", "lower", "upper", "x_unit"]),
+            {k: ru for k in ("y", "lower", "upper")} | ({"inhibitor": iu} if iu else {}), meta),
+        "correlations": Table(pd.DataFrame(corr_rows, columns=["group", "model", "parameter_a", "parameter_b", "r"]),
+                              {}, meta),
+    }
+    return StageOutput(artifacts=out)
+
+
+def _curves(model: Model, res: engine.FitResult, var: dict[str, np.ndarray], idx: np.ndarray, g: str,
+            conf: float, role_unit: dict[str, str]) -> list[dict[str, Any]]:
+    """Fitted curve and delta-method band on a grid: against substrate (one curve per inhibitor level for
+    inhibitor models), or against inhibitor for titration models."""
+    rows: list[dict[str, Any]] = []
+    if "substrate" in model.variables:
+        xgrid = diagnostics.grid(var["substrate"][idx])
+        levels = np.unique(var["inhibitor"][idx]) if "inhibitor" in model.variables else [np.nan]
+        for level in levels:
+            x = {"substrate": xgrid, "inhibitor": np.full_like(xgrid, level)}
+            y, lo, hi = diagnostics.band(model, res, x, conf)
+            rows += [{"group": g, "model": model.name, "variable": "substrate", "inhibitor": float(level),
+                      "x": a, "y": b, "lower": c, "upper": d, "x_unit": role_unit["substrate"]}
+                     for a, b, c, d in zip(xgrid, y, lo, hi, strict=True)]
+    else:
+        xgrid = diagnostics.grid(var["inhibitor"][idx])
+        e = var["enzyme"][idx]
+        x = {"inhibitor": xgrid, "enzyme": np.full_like(xgrid, np.nanmedian(e) if np.any(np.isfinite(e)) else 0)}
+        y, lo, hi = diagnostics.band(model, res, x, conf)
+        rows += [{"group": g, "model": model.name, "variable": "inhibitor", "inhibitor": a, "x": a, "y": b,
+                  "lower": c, "upper": d, "x_unit": role_unit["inhibitor"]}
+                 for a, b, c, d in zip(xgrid, y, lo, hi, strict=True)]
+    return rows

@@ -1,0 +1,69 @@
+"""Declaration of the fit stage (method ``nls``): its parameters and a light ``run`` that delegates.
+
+The work is in :mod:`plugins.fit.run`, imported on first use so that listing plugins stays quick.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any, ClassVar
+
+from pipeline.params import Param
+from pipeline.stage import Stage, StageInput, StageOutput
+
+DEFAULT_EXCLUDE = ["saturated", "all_missing", "no_signal", "too_few_points", "fit_failed", "excluded"]
+FLAG_CHOICES = (
+    "saturated", "high_conversion", "curvature", "lag", "decay", "noisy", "too_few_points", "all_missing",
+    "no_signal", "fit_failed", "excluded", "overridden",
+)
+
+
+def _numbers_by_model(value: Any) -> str | None:
+    """Check a mapping model -> parameter -> number (or -> [low, high] for bounds)."""
+    for model, params in value.items():
+        if not isinstance(params, Mapping):
+            return f"expected a mapping of parameter names under {model!r}, got {params!r}"
+        for name, v in params.items():
+            ok = isinstance(v, int | float) and not isinstance(v, bool)
+            pair = isinstance(v, list | tuple) and len(v) == 2 and all(
+                isinstance(u, int | float) and not isinstance(u, bool) for u in v)
+            if not (ok or pair):
+                return f"{model}.{name}: expected a number (or [low, high] for bounds), got {v!r}"
+    return None
+
+
+class FitStage(Stage):
+    """Pooled nonlinear least-squares fit of rate laws to initial rates, one fit per group and model."""
+
+    kind = "fit"
+    method = "nls"
+    version = "1.0"
+    scope = "pooled"
+    summary = ("Nonlinear least squares of rate laws (Michaelis-Menten, Hill, inhibition, ...) on untransformed "
+               "initial rates, per group; standard errors, t and profile-likelihood intervals, AICc and F-test "
+               "model comparison, cooperativity verdict.")
+    params: ClassVar[Mapping[str, Param]] = {
+        "models": Param("list", ["michaelis-menten", "hill"],
+                        "rate laws to fit (names of registered models, see `vzero plugins`)"),
+        "x": Param("str", "substrate", "column of the rates table holding substrate concentration"),
+        "inhibitor": Param("str", "inhibitor", "column holding inhibitor concentration"),
+        "group_by": Param("str", "group", "column whose values define the groups fitted separately"),
+        "exclude_flags": Param("list", list(DEFAULT_EXCLUDE), "wells carrying any of these flags are not fitted",
+                               choices=FLAG_CHOICES),
+        "weighting": Param.choice(("none", "relative", "replicate"), "none",
+                                  "none: equal weights; relative: sigma proportional to the rate; replicate: "
+                                  "sigma from the scatter of replicate wells at each level"),
+        "fixed": Param("mapping", {}, "model -> parameter -> value held fixed", check=_numbers_by_model),
+        "bounds": Param("mapping", {}, "model -> parameter -> [low, high]", check=_numbers_by_model),
+        "start": Param("mapping", {}, "model -> parameter -> start value (default: estimated from the data)",
+                       check=_numbers_by_model),
+        "confidence": Param("float", 0.95, "confidence level of intervals and bands", low=0.5, high=0.9999),
+        "profile": Param("bool", True, "profile-likelihood intervals for Km, K0.5, h, Ki (slower, asymmetric)"),
+        "enzyme": Param("bool", True, "derive kcat and kcat/Km from the per-well enzyme column when present"),
+        "alpha": Param("float", 0.05, "significance level of the F-tests in model comparison", low=1e-6, high=0.5),
+    }
+
+    def run(self, data: StageInput) -> StageOutput:
+        from plugins.fit.run import run_fit
+
+        return run_fit(self.settings, data)
