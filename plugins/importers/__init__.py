@@ -47,6 +47,8 @@ class TableImport(Stage):
                                 like="M", nullable=True),
         "enzyme_unit": Param("unit", None, "unit of the layout's enzyme column, if its header has none",
                              like="M", nullable=True),
+        "layout": Param("mapping", None, "a layout declared here instead of a file: dilution series, replicate "
+                        "groups, blank and standard wells (schema in docs/inputs.md)", nullable=True),
         "inhibitor_unit": Param("unit", None, "unit of the layout's inhibitor column, if its header has none",
                                 like="M", nullable=True),
     }
@@ -72,12 +74,12 @@ class TableImport(Stage):
         for note in block.assumptions:
             data.warn(note)
 
-        layout_raw = data.inputs.get("layout")
-        if layout_raw is None:
-            raise InputFileError("the plate has no 'layout' file in the recipe",
-                                 hint="Add layout: FILE (well, role, substrate, enzyme, inhibitor, group).")
-        layout = layouts.read_layout(layout_raw.data, source=layout_raw.name, plate_size=None)
-        layouts.check_match(block.wells, list(layout["well"]), layout_raw.name)
+        layout, layout_source = _layout(data, s, block.wells)
+        for note in layout.attrs.get("assumptions", []):
+            data.warn(f"{layout_source}: {note}")
+        roles = dict(zip(layout["well"], layout["role"].astype(str), strict=True))
+        used = [w for w, r in roles.items() if r != "empty"]
+        layouts.check_match([w for w in block.wells if roles.get(w) != "empty"], used, layout_source)
         units = dict(layout.attrs.get("units", {}))
         for q in LAYOUT_QUANTITIES:
             given = s[f"{q}_unit"]
@@ -87,7 +89,7 @@ class TableImport(Stage):
                 units.setdefault(q, given or "")
                 if not units[q]:
                     raise LayoutError(
-                        f"the {q} column has no unit", path=layout_raw.name, column=q,
+                        f"the {q} column has no unit", path=layout_source, column=q,
                         hint=f'Write the unit in the header, like "{q} (uM)", or set {q}_unit in the import step.',
                     )
         wells = layout.set_index("well").loc[block.wells].reset_index()
@@ -105,6 +107,24 @@ class TableImport(Stage):
             temperature=block.temperature,
         )
         return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
+
+
+def _layout(data: StageInput, settings: dict[str, Any], wells: list[str]) -> tuple[Any, str]:
+    """The plate layout: from the plate's layout file, or declared in the import step (``layout:``)."""
+    from plugins.importers import layouts
+    from plugins.importers.wells import infer_plate_size
+
+    raw = data.inputs.get("layout")
+    declared = settings.get("layout")
+    if raw is not None and declared:
+        raise LayoutError("the plate has a layout file and the import step declares a layout; keep one")
+    if raw is not None:
+        return layouts.read_layout(raw.data, source=raw.name, plate_size=None), raw.name
+    if declared:
+        return layouts.expand_declared_layout(declared, infer_plate_size(wells)), "recipe layout"
+    raise InputFileError(
+        "the plate has no layout", hint="Add layout: FILE to the plate, or declare one with layout: in the import step."
+    )
 
 
 def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
