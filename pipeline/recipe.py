@@ -47,7 +47,10 @@ TOP_LEVEL: dict[str, Param] = {
     "exclusions": Param("list", [], "wells or reads excluded, each with a reason"),
     "overrides": Param("list", [], "per-well settings fixed by hand, each with a reason"),
 }
-PLATE_KEYS = {"name", "data", "layout", "manifest"}
+PLATE_KEYS = {"name", "data", "layout", "pathcheck", "manifest"}
+#: Plate keys that name input files (stored byte for byte in the audit file). ``pathcheck``: per-well water-peak
+#: reads for the pathlength (columns well, a977, a900).
+FILE_KEYS = ("data", "layout", "pathcheck")
 
 
 @dataclass(frozen=True)
@@ -236,12 +239,13 @@ def _check_plates(
         for key in entry:
             if key not in PLATE_KEYS:
                 hit = closest(key, PLATE_KEYS)
-                bad((*path, key), f"unknown key{f' (did you mean {hit!r}?)' if hit else ''}; valid: name, data, layout")
+                near = f" (did you mean {hit!r}?)" if hit else ""
+                bad((*path, key), f"unknown key{near}; valid: {', '.join(sorted(PLATE_KEYS))}")
         data_entry = entry.get("data")
         if not isinstance(data_entry, str):
             bad((*path, "data"), f"expected the path of a data file, got {data_entry!r}")
             continue
-        files = {k: v for k, v in entry.items() if k in ("data", "layout") and isinstance(v, str)}
+        files = {k: v for k, v in entry.items() if k in FILE_KEYS and isinstance(v, str)}
         if "layout" in entry and not isinstance(entry["layout"], str):
             bad((*path, "layout"), f"expected the path of a layout file, got {entry['layout']!r}")
         if any(ch in data_entry for ch in "*?["):
