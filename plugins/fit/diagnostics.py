@@ -13,8 +13,8 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from plugins.fit.engine import FitResult
 from plugins.fit.catalog import Model
+from plugins.fit.engine import FitResult
 
 HILL_STABLE = (0.1, 0.9)
 """Fractional saturation range where a Hill-plot point is usable: outside it log(v/(Vmax − v)) is dominated

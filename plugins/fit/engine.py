@@ -182,6 +182,7 @@ def fit(
     confidence: float = 0.95,
     units: Mapping[str, str] | None = None,
     method: str = "trf",
+    tol: float = TOL,
 ) -> FitResult:
     """Fit one data set by least squares; ``sigma`` gives per-point standard deviations (weights 1/σ).
 
@@ -214,7 +215,7 @@ def fit(
         return (_jacobian(jac, full(q), x, y.shape) * w[:, None])[:, free]
 
     def run(meth: str) -> Any:
-        kw: dict[str, Any] = {"method": meth, "ftol": TOL, "xtol": TOL, "gtol": TOL, "max_nfev": 100_000}
+        kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": 100_000}
         if meth != "lm":
             kw["bounds"] = (lo[free], hi[free])
         with np.errstate(all="ignore"):
@@ -405,8 +406,9 @@ def profile_interval(
             return float(np.sum((w * (func(list(v), x) - y)) ** 2))
     else:
         def rss_at(t: float) -> float:
+            # inner fits at 1e-10: the limit is found to ~1e-8 relative, far below any interval's meaning
             f = fit(func, jac, x, y, best, names, sigma=sigma, fixed={**fx, name: t}, bounds=bounds,
-                    confidence=confidence)
+                    confidence=confidence, tol=1e-10)
             return f.rss if np.isfinite(f.rss) else np.inf
 
     out: list[float] = []
@@ -426,7 +428,7 @@ def profile_interval(
             if val >= target:
                 try:
                     found = optimize.brentq(lambda u: rss_at(u) - target, min(inside, t), max(inside, t),
-                                            xtol=1e-10 * max(abs(best[j]), 1e-300), rtol=1e-8, maxiter=60)
+                                            xtol=1e-9 * max(abs(best[j]), 1e-300), rtol=1e-7, maxiter=60)
                 except ValueError:
                     found = t
                 break

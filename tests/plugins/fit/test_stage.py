@@ -198,3 +198,19 @@ def test_fixed_start_and_weighting_options() -> None:
     out2, _ = _run(frame, models=["michaelis-menten"], profile=False)
     np.testing.assert_allclose(_param(out["fits"].frame, "g", "hill", "K0.5").estimate,
                                _param(out2["fits"].frame, "g", "michaelis-menten", "Km").estimate, rtol=1e-8)
+
+
+def test_inhibition_matrix_prefers_the_simulated_mechanism() -> None:
+    # invented data: competitive inhibition (Vmax 10, Km 4, Kic 2), 6 x 4 matrix in duplicate, noise SD 0.1
+    rng = np.random.default_rng(5)
+    s, i = (a.ravel().repeat(2) for a in np.meshgrid([1, 2, 5, 10, 20, 50.0], [0, 1, 3, 10.0]))
+    v = 10 * s / (4 * (1 + i / 2) + s) + 0.1 * rng.standard_normal(s.size)
+    frame = pd.DataFrame(_rows("inh", s, v))
+    frame["inhibitor"] = i
+    out, _ = _run(frame, models=["competitive", "uncompetitive", "mixed", "noncompetitive"], profile=False)
+    comp = out["model_comparison"].frame
+    assert set(comp.preferred) == {"competitive"}, comp[["model", "aicc", "p", "reason"]]
+    mixed = comp[comp.model == "mixed"]
+    assert set(mixed.f_test_against) == {"competitive", "uncompetitive", "noncompetitive"}
+    kic = _param(out["fits"].frame, "inh", "competitive", "Kic")
+    assert abs(kic.estimate - 2) < 4 * kic.stderr and kic.unit == "uM"
