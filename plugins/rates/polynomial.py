@@ -45,8 +45,9 @@ def masked_polyfit(u: np.ndarray, y: np.ndarray, w: np.ndarray, degree: int) -> 
     ref = (w * y0).sum(axis=1) / np.fmax(n, 1.0)
     yc = (y0 - ref[:, None]) * w
     x = u0[:, :, None] ** np.arange(p)
-    a = np.einsum("wtp,wtq->wpq", x * w[:, :, None], x)
-    b = np.einsum("wtp,wt->wp", x, yc)
+    xt = x.transpose(0, 2, 1)
+    a = (xt * w[:, None, :]) @ x  # batched matmul (faster than einsum for these shapes)
+    b = (xt @ yc[:, :, None])[:, :, 0]
     ok = n > p
     a[~ok] = np.eye(p)
     with np.errstate(invalid="ignore", over="ignore"):
@@ -55,7 +56,7 @@ def masked_polyfit(u: np.ndarray, y: np.ndarray, w: np.ndarray, degree: int) -> 
         except np.linalg.LinAlgError:
             inv = np.linalg.pinv(a)
     coef = np.einsum("wpq,wq->wp", inv, b)
-    resid = (yc - np.einsum("wtp,wp->wt", x, coef)) * w
+    resid = (yc - (x @ coef[:, :, None])[:, :, 0]) * w
     rss = (resid**2).sum(axis=1)
     tss = (yc**2).sum(axis=1)
     coef[:, 0] += ref
