@@ -14,8 +14,12 @@ Layout (format ``vzero-audit``, version :data:`FORMAT_VERSION`; documented in do
     /results/<table>        final tables (rates, fits, ...)
 
 A table is a group with one dataset per column (numbers as float64/int64/bool, text as UTF-8 strings), the
-column order in the group attribute ``columns`` (JSON) and each column's unit in the dataset attribute
-``unit``. No pickle anywhere: every value is a plain HDF5 type any reader understands.
+column order in the group attribute ``columns`` (JSON), each column's unit in the dataset attribute ``unit``
+and a checksum of its stored content in the group attribute ``sha256`` (see :func:`table_sha256`; checked by
+``vzero verify``). No pickle anywhere: every value is a plain HDF5 type any reader understands.
+
+Format history: 1.0 first version; 1.1 adds ``sha256`` on tables and the root attributes ``assay``,
+``exclusions`` and ``overrides`` (JSON). A minor version only adds; a reader of 1.x reads every 1.y.
 """
 
 from __future__ import annotations
@@ -30,7 +34,7 @@ import pandas as pd
 from pipeline.data import Table, Traces
 
 FORMAT_NAME = "vzero-audit"
-FORMAT_VERSION = "1.0"
+FORMAT_VERSION = "1.1"
 
 
 def _h5py() -> Any:
@@ -70,7 +74,32 @@ def write_table(group: Any, name: str, table: Table | pd.DataFrame) -> Any:
         ds.attrs["unit"] = str(table.units.get(str(col), ""))
     if table.meta:
         g.attrs["meta"] = to_json(dict(table.meta))
+    g.attrs["sha256"] = table_sha256(g)
     return g
+
+
+def table_sha256(group: Any) -> str:
+    """SHA-256 (hex) of a stored table: column names, units, dtypes, shapes and values, in column order.
+
+    Computed from what is in the file (not from the DataFrame), so a reader recomputes exactly the same
+    digest from the datasets; text is hashed as its UTF-8 bytes with lengths, numbers as little-endian bytes.
+    """
+    import hashlib
+
+    h = hashlib.sha256()
+    columns = json.loads(group.attrs["columns"])
+    h.update(to_json(columns).encode("utf-8"))
+    for i in range(len(columns)):
+        ds = group[f"{i:03d}"]
+        h.update(f"|{ds.attrs.get('unit', '')}|{ds.dtype.kind}|{ds.shape}|".encode())
+        if ds.dtype.kind in "OSU":
+            for v in ds[()]:
+                b = v if isinstance(v, bytes) else str(v).encode("utf-8")
+                h.update(len(b).to_bytes(8, "little") + b)
+        else:
+            arr = np.ascontiguousarray(ds[()])
+            h.update(arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes())
+    return h.hexdigest()
 
 
 def _missing(v: Any) -> bool:
@@ -203,6 +232,8 @@ def write_run_file(
         )
         f.attrs["warnings"] = to_json(list(warnings))
         f.attrs["failed_plates"] = to_json(dict(failed))
+        for key in ("assay", "exclusions", "overrides"):
+            f.attrs[key] = to_json(rec.data.get(key) or ({} if key == "assay" else []))
         if derived_from:
             f.attrs["derived_from"] = to_json(dict(derived_from))
 

@@ -152,7 +152,11 @@ CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[
 
 #: Core commands that live in their own modules. Each module defines HELP, EXAMPLE, configure(parser) and
 #: run(args) -> int, and keeps its top-level imports light.
-COMMAND_MODULES: tuple[tuple[str, str], ...] = ()
+COMMAND_MODULES: tuple[tuple[str, str], ...] = (
+    ("rerun", "pipeline.rerun"),
+    ("diff", "pipeline.diff"),
+    ("verify", "pipeline.verify"),
+)
 
 
 def _module_command(name: str, module_name: str) -> tuple[str, str, Any, Any, str]:

@@ -1,16 +1,58 @@
-"""The one module that reads audit files: version check, tables, traces, raw inputs."""
+"""The one module that reads audit files: version check, provenance, raw inputs, steps and tables.
+
+Everything else (inspect, rerun, diff, verify, exports) reads audit files through this module, so a change of
+layout is handled in one place. Reading never executes anything from the file: attributes are plain strings
+and numbers, structured ones are JSON (parsed with :func:`json.loads`), tables and inputs are plain HDF5
+datasets. The layout is documented in docs/audit-format.md.
+"""
 
 from __future__ import annotations
 
 import contextlib
+import json
 from collections.abc import Iterator
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from pipeline.audit import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces
+from pipeline.audit import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces, table_sha256
+from pipeline.data import Table
 from pipeline.errors import AuditFileError
 
-__all__ = ["open_audit", "read_table", "read_traces"]
+__all__ = [
+    "StoredInput",
+    "header",
+    "json_attr",
+    "open_audit",
+    "read_inputs",
+    "read_results",
+    "read_table",
+    "read_traces",
+    "table_sha256",
+]
+
+#: Errors that h5py and JSON raise on damaged, truncated or foreign content.
+DAMAGE = (KeyError, OSError, ValueError, RuntimeError, TypeError, IndexError)
+
+
+@dataclass(frozen=True)
+class StoredInput:
+    """A raw input file kept in an audit file: the name the recipe used, its recipe key, bytes and hashes."""
+
+    dataset: str
+    name: str
+    key: str
+    data: bytes
+    sha256: str
+    size: int
+    plates: tuple[str, ...]
+
+
+def _major(version: str) -> int:
+    try:
+        return int(str(version).split(".")[0])
+    except ValueError:
+        raise AuditFileError(f"format version {version!r} is not a number like '1.0'") from None
 
 
 @contextlib.contextmanager
@@ -18,28 +60,86 @@ def open_audit(path: str | Path) -> Iterator[Any]:
     """Open an audit file read-only after checking it is one and that its major version is readable.
 
     Raises :class:`AuditFileError` for a missing, damaged or truncated file, a file that is not a vzero
-    audit file, or one written by a newer major format version.
+    audit file, or one written by a newer major format version. Damage found while the caller reads
+    (a missing group, an unreadable dataset) is reported the same way.
     """
     import h5py
 
     p = Path(path)
     if not p.is_file():
-        raise AuditFileError(f"audit file {str(path)!r} not found")
+        raise AuditFileError(f"audit file {str(path)!r} not found", hint="Check the path.")
     try:
         f = h5py.File(p, "r")
-    except OSError as exc:
-        raise AuditFileError(f"{path}: not a readable HDF5 file (damaged or truncated?): {exc}") from None
+    except Exception as exc:  # h5py raises OSError for most damage, other types for some truncations
+        raise AuditFileError(
+            f"{path}: not a readable HDF5 file (damaged or truncated?): {exc}",
+            hint="Use a backup copy; `vzero verify` checks a file that opens.",
+        ) from None
     try:
-        if f.attrs.get("format") != FORMAT_NAME:
-            raise AuditFileError(f"{path}: an HDF5 file, but not a vzero audit file")
+        fmt = f.attrs.get("format")
+        if isinstance(fmt, bytes):
+            fmt = fmt.decode("utf-8", "replace")
+        if fmt != FORMAT_NAME:
+            raise AuditFileError(f"{path}: an HDF5 file, but not a vzero audit file (no format={FORMAT_NAME!r})")
         version = str(f.attrs.get("format_version", "0"))
-        if int(version.split(".")[0]) > int(FORMAT_VERSION.split(".")[0]):
+        if _major(version) > _major(FORMAT_VERSION):
             raise AuditFileError(
                 f"{path}: audit format {version} is newer than this vzero reads ({FORMAT_VERSION})",
                 hint="Install a newer vzero to read it.",
             )
         yield f
-    except (KeyError, OSError, ValueError) as exc:
-        raise AuditFileError(f"{path}: the audit file is damaged or incomplete: {exc}") from None
+    except DAMAGE as exc:
+        raise AuditFileError(
+            f"{path}: the audit file is damaged or incomplete: {type(exc).__name__}: {exc}",
+            hint="Run `vzero verify` on it, and use a backup copy.",
+        ) from None
     finally:
-        f.close()
+        with contextlib.suppress(Exception):
+            f.close()
+
+
+def json_attr(obj: Any, name: str, default: Any = None) -> Any:
+    """A JSON attribute of a group or file, parsed (``default`` when absent); bad JSON is damage."""
+    if name not in obj.attrs:
+        return default
+    value = obj.attrs[name]
+    try:
+        return json.loads(value)
+    except (TypeError, ValueError) as exc:
+        raise AuditFileError(f"attribute {name!r} of {obj.name} is not valid JSON: {exc}") from None
+
+
+def header(f: Any) -> dict[str, Any]:
+    """Provenance from the root attributes: format, versions, times, recipe, plugins, assay, exclusions."""
+    a = f.attrs
+    out: dict[str, Any] = {k: str(a[k]) for k in (
+        "format", "format_version", "vzero_version", "created", "run_id", "recipe_name", "recipe_path",
+        "recipe_text", "recipe_sha256") if k in a}
+    for key, default in (("versions", {}), ("plugins", {}), ("warnings", []), ("failed_plates", {}),
+                         ("assay", {}), ("exclusions", []), ("overrides", []), ("derived_from", None)):
+        out[key] = json_attr(f, key, default)
+    return out
+
+
+def read_inputs(f: Any) -> list[StoredInput]:
+    """Every raw input kept in the file, in stored order, with its bytes."""
+    out = []
+    for ds_name, ds in f["inputs"].items():
+        data = ds[()].tobytes()
+        out.append(StoredInput(
+            dataset=ds_name, name=str(ds.attrs["name"]), key=str(ds.attrs.get("key", "")), data=data,
+            sha256=str(ds.attrs["sha256"]), size=int(ds.attrs["size"]),
+            plates=tuple(json_attr(ds, "plates", [])),
+        ))
+    return out
+
+
+def read_results(f: Any) -> dict[str, Table]:
+    """The final tables (``rates``, ``fits``, ...) by name."""
+    return {name: read_table(g) for name, g in f["results"].items()}
+
+
+def read_result(path: str | Path, name: str) -> Table | None:
+    """One final table of the audit file at ``path`` (``None`` when the run has no such table)."""
+    with open_audit(path) as f:
+        return read_table(f["results"][name]) if name in f["results"] else None

@@ -1,0 +1,243 @@
+"""``vzero diff A.h5 B.h5``: what a recipe change changed.
+
+Shows the unified diff of the two recipe texts, then the wells whose rate, flags or window changed and the
+fitted parameters whose estimate or interval changed, each sorted by the size of the change (relative
+change of the rate or estimate; a value that appears or disappears counts as infinitely large). ``--csv``
+writes the same comparison as one table (column ``kind`` is ``well`` or ``parameter``).
+
+A relative change is only computed when both runs give the quantity in the same unit; otherwise the row
+says the unit changed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import difflib
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+HELP = "Compare two audit files: recipe differences and what they changed, per well and per parameter."
+EXAMPLE = "vzero diff runs/old/run.h5 runs/new/run.h5 --csv changes.csv"
+
+WELL_KEY = ["plate", "well"]
+PARAM_KEY = ["group", "model", "parameter"]
+
+
+def recipe_diff(text_a: str, text_b: str, name_a: str = "A", name_b: str = "B") -> str:
+    """Unified diff of two recipe texts ('' when they are the same)."""
+    return "".join(difflib.unified_diff(text_a.splitlines(keepends=True), text_b.splitlines(keepends=True),
+                                        fromfile=name_a, tofile=name_b))
+
+
+def relative_change(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """|b - a| / |a|; inf where exactly one side is missing or a == 0 != b; 0 where both are missing."""
+    a = np.asarray(a, dtype=float)
+    b = np.asarray(b, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel = np.abs(b - a) / np.abs(a)
+    rel = np.where((a == 0) & (b == 0), 0.0, rel)
+    rel = np.where((a == 0) & (b != 0) & np.isfinite(b), np.inf, rel)
+    one_missing = np.isnan(a) ^ np.isnan(b)
+    rel = np.where(one_missing, np.inf, rel)
+    return np.where(np.isnan(a) & np.isnan(b), 0.0, rel)
+
+
+def _col(frame: pd.DataFrame, name: str, default: Any) -> pd.Series:
+    return frame[name] if name in frame.columns else pd.Series([default] * len(frame), index=frame.index)
+
+
+def compare_wells(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
+    """Per well: rate, flags and window in A and B, and the relative rate change; changed wells only, sorted."""
+    cols = ["rate", "rate_unit", "flags", "window_start_s", "window_end_s", "note"]
+
+    def prep(t: pd.DataFrame) -> pd.DataFrame:
+        t = t.copy()
+        if "plate" not in t.columns:
+            t["plate"] = ""
+        out = t[WELL_KEY].astype(str)
+        for c in cols:
+            default: Any = np.nan if c in ("rate", "window_start_s", "window_end_s") else ""
+            series = _col(t, c, default)
+            out[c] = series.astype(float) if c in ("rate", "window_start_s", "window_end_s") else \
+                series.fillna("").astype(str)
+        return out
+
+    m = prep(a).merge(prep(b), on=WELL_KEY, how="outer", suffixes=("_a", "_b"), indicator=True)
+    for c in ("flags", "note", "rate_unit"):
+        m[f"{c}_a"] = m[f"{c}_a"].fillna("").astype(str)
+        m[f"{c}_b"] = m[f"{c}_b"].fillna("").astype(str)
+    same_unit = (m["rate_unit_a"] == m["rate_unit_b"]).to_numpy()
+    rel = relative_change(m["rate_a"].to_numpy(), m["rate_b"].to_numpy())
+    m["relative_change"] = np.where(same_unit, rel, np.nan)
+    m["change"] = np.where(same_unit, m["rate_b"] - m["rate_a"], np.nan)
+    win_a = m[["window_start_s_a", "window_end_s_a"]].to_numpy()
+    win_b = m[["window_start_s_b", "window_end_s_b"]].to_numpy()
+    window_changed = ~((win_a == win_b) | (np.isnan(win_a) & np.isnan(win_b))).all(axis=1)
+    what = []
+    for i in range(len(m)):
+        parts = []
+        if m["_merge"].iat[i] != "both":
+            parts.append("only in " + ("A" if m["_merge"].iat[i] == "left_only" else "B"))
+        if not same_unit[i]:
+            parts.append(f"unit {m['rate_unit_a'].iat[i]} -> {m['rate_unit_b'].iat[i]}")
+        elif rel[i] != 0:
+            parts.append("rate")
+        if m["flags_a"].iat[i] != m["flags_b"].iat[i]:
+            parts.append("flags")
+        if window_changed[i]:
+            parts.append("window")
+        if m["note_a"].iat[i] != m["note_b"].iat[i]:
+            parts.append("note")
+        what.append(", ".join(parts))
+    m["changed"] = what
+    m = m[m["changed"] != ""].drop(columns="_merge")
+    return _sort(m)
+
+
+def compare_parameters(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
+    """Per fitted parameter: estimate and interval in A and B and the relative change; changed ones, sorted."""
+    cols = ["estimate", "stderr", "ci_low", "ci_high"]
+
+    def prep(t: pd.DataFrame) -> pd.DataFrame:
+        if t.empty or not set(PARAM_KEY) <= set(t.columns):
+            return pd.DataFrame({c: pd.Series(dtype=object) for c in [*PARAM_KEY, *cols, "unit"]})
+        out = t[PARAM_KEY].astype(str)
+        for c in cols:
+            out[c] = _col(t, c, np.nan).astype(float)
+        out["unit"] = _col(t, "unit", "").fillna("").astype(str)
+        return out
+
+    m = prep(a).merge(prep(b), on=PARAM_KEY, how="outer", suffixes=("_a", "_b"), indicator=True)
+    for c in cols:
+        m[f"{c}_a"] = m[f"{c}_a"].astype(float)
+        m[f"{c}_b"] = m[f"{c}_b"].astype(float)
+    m["unit_a"] = m["unit_a"].fillna("").astype(str)
+    m["unit_b"] = m["unit_b"].fillna("").astype(str)
+    same_unit = (m["unit_a"] == m["unit_b"]).to_numpy()
+    rel = relative_change(m["estimate_a"].to_numpy(), m["estimate_b"].to_numpy())
+    m["relative_change"] = np.where(same_unit, rel, np.nan)
+    m["change"] = np.where(same_unit, m["estimate_b"] - m["estimate_a"], np.nan)
+    changed = np.zeros(len(m), dtype=bool)
+    for c in cols:
+        x, y = m[f"{c}_a"].to_numpy(), m[f"{c}_b"].to_numpy()
+        changed |= ~((x == y) | (np.isnan(x) & np.isnan(y)))
+    changed |= ~same_unit | (m["_merge"] != "both").to_numpy()
+    m["changed"] = np.where(m["_merge"] == "left_only", "only in A",
+                            np.where(m["_merge"] == "right_only", "only in B",
+                                     np.where(~same_unit, "unit", "estimate or interval")))
+    m = m[changed].drop(columns="_merge")
+    return _sort(m)
+
+
+def _sort(m: pd.DataFrame) -> pd.DataFrame:
+    key = m["relative_change"].fillna(np.inf)
+    return m.assign(_k=key).sort_values("_k", ascending=False, kind="stable").drop(columns="_k").reset_index(drop=True)
+
+
+def compare(path_a: str | Path, path_b: str | Path) -> dict[str, Any]:
+    """Read two audit files and compare them: ``recipe_diff`` (text), ``wells`` and ``parameters`` (tables)."""
+    from pipeline import reader
+
+    found: list[dict[str, Any]] = []
+    for p in (path_a, path_b):
+        with reader.open_audit(p) as f:
+            head = reader.header(f)
+            results = reader.read_results(f)
+        found.append({"head": head, "results": results})
+    a, b = found
+
+    def frame(side: dict[str, Any], name: str) -> pd.DataFrame:
+        t = side["results"].get(name)
+        return t.frame if t is not None else pd.DataFrame()
+
+    ra, rb = frame(a, "rates"), frame(b, "rates")
+    wells = compare_wells(ra, rb) if not ra.empty or not rb.empty else pd.DataFrame()
+    return {
+        "recipe_diff": recipe_diff(a["head"].get("recipe_text", ""), b["head"].get("recipe_text", ""),
+                                   f"{path_a} (recipe)", f"{path_b} (recipe)"),
+        "wells": wells,
+        "parameters": compare_parameters(frame(a, "fits"), frame(b, "fits")),
+        "n_wells": max(len(ra), len(rb)),
+    }
+
+
+def to_csv_frame(result: dict[str, Any]) -> pd.DataFrame:
+    """One table of every change: ``kind`` (well/parameter), identity, A and B values, change."""
+    rows = []
+    w = result["wells"]
+    for _, r in w.iterrows():
+        rows.append({"kind": "well", "plate": r["plate"], "well": r["well"], "quantity": "rate",
+                     "a": r["rate_a"], "b": r["rate_b"], "change": r["change"],
+                     "relative_change": r["relative_change"], "unit_a": r["rate_unit_a"], "unit_b": r["rate_unit_b"],
+                     "flags_a": r["flags_a"], "flags_b": r["flags_b"],
+                     "window_a": _window(r, "a"), "window_b": _window(r, "b"), "changed": r["changed"]})
+    for _, r in result["parameters"].iterrows():
+        rows.append({"kind": "parameter", "group": r["group"], "model": r["model"], "quantity": r["parameter"],
+                     "a": r["estimate_a"], "b": r["estimate_b"], "change": r["change"],
+                     "relative_change": r["relative_change"], "unit_a": r["unit_a"], "unit_b": r["unit_b"],
+                     "interval_a": _interval(r, "a"), "interval_b": _interval(r, "b"), "changed": r["changed"]})
+    columns = ["kind", "plate", "well", "group", "model", "quantity", "a", "b", "change", "relative_change",
+               "unit_a", "unit_b", "flags_a", "flags_b", "window_a", "window_b", "interval_a", "interval_b",
+               "changed"]
+    return pd.DataFrame(rows, columns=columns)
+
+
+def _window(r: Any, side: str) -> str:
+    lo, hi = r[f"window_start_s_{side}"], r[f"window_end_s_{side}"]
+    return "" if np.isnan(lo) else f"{lo:g}-{hi:g} s"
+
+
+def _interval(r: Any, side: str) -> str:
+    lo, hi = r[f"ci_low_{side}"], r[f"ci_high_{side}"]
+    return "" if np.isnan(lo) and np.isnan(hi) else f"[{lo:.4g}, {hi:.4g}]"
+
+
+def _pct(x: float) -> str:
+    if np.isnan(x):
+        return "n/a"
+    return "new/lost" if np.isinf(x) else f"{100 * x:.3g} %"
+
+
+def to_text(result: dict[str, Any], limit: int = 30) -> str:
+    lines = ["recipe changes:"]
+    lines.append(result["recipe_diff"].rstrip("\n") if result["recipe_diff"] else "  (same recipe)")
+    w = result["wells"]
+    lines.append(f"wells changed: {len(w)} of {result['n_wells']}")
+    for _, r in w.head(limit).iterrows():
+        text = f"  {r['plate']} {r['well']}: rate {r['rate_a']:.6g} -> {r['rate_b']:.6g} {r['rate_unit_b'] or ''}"
+        text += f" ({_pct(r['relative_change'])})"
+        if r["flags_a"] != r["flags_b"]:
+            text += f"; flags '{r['flags_a']}' -> '{r['flags_b']}'"
+        if "window" in r["changed"]:
+            text += f"; window {_window(r, 'a') or 'none'} -> {_window(r, 'b') or 'none'}"
+        lines.append(text)
+    if len(w) > limit:
+        lines.append(f"  ... {len(w) - limit} more (use --csv FILE for all)")
+    p = result["parameters"]
+    lines.append(f"parameters changed: {len(p)}")
+    for _, r in p.head(limit).iterrows():
+        lines.append(f"  {r['group']} {r['model']} {r['parameter']}: {r['estimate_a']:.6g} -> {r['estimate_b']:.6g} "
+                     f"{r['unit_b']} ({_pct(r['relative_change'])}); interval {_interval(r, 'a') or 'none'} -> "
+                     f"{_interval(r, 'b') or 'none'}")
+    if len(p) > limit:
+        lines.append(f"  ... {len(p) - limit} more (use --csv FILE for all)")
+    return "\n".join(lines)
+
+
+def configure(p: argparse.ArgumentParser) -> None:
+    p.add_argument("a", help="the first audit file (run.h5), e.g. the old run")
+    p.add_argument("b", help="the second audit file, e.g. the rerun")
+    p.add_argument("--csv", help="also write every change as a CSV table to this file")
+    p.add_argument("--limit", type=int, default=30, help="rows of each list to print (default 30)")
+
+
+def run(args: argparse.Namespace) -> int:
+    result = compare(args.a, args.b)
+    if not args.quiet:
+        print(to_text(result, args.limit))
+    if args.csv:
+        to_csv_frame(result).to_csv(args.csv, index=False)
+    return 0

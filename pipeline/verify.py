@@ -1,0 +1,156 @@
+"""``vzero verify``: recompute every hash stored in an audit file and report tampering or damage.
+
+Checked: the recipe text against ``recipe_sha256``; each raw input's bytes against its ``sha256`` and
+``size``; each table's content against its ``sha256`` (tables written by format 1.1 and later); and every
+dataset is read once, so damage anywhere in the file shows. Exit 0 when all agree, 2 with what is wrong.
+
+A matching hash shows the file is unchanged since it was written, not that its numbers are right; anyone able
+to edit the file can also rewrite its hashes (the hashes guard against accidents and casual edits, they are
+not signatures).
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+HELP = "Recompute every hash in an audit file (inputs, recipe, tables) and report tampering or damage."
+EXAMPLE = "vzero verify runs/today/run.h5"
+
+
+@dataclass
+class Report:
+    """What :func:`verify` found: checks that passed, problems, and notes (things not checkable)."""
+
+    path: str
+    checked: list[str] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+    def text(self) -> str:
+        lines = [f"{self.path}: {'OK' if self.ok else 'DAMAGED OR CHANGED'} ({len(self.checked)} hashes checked)"]
+        lines += [f"  problem: {p}" for p in self.problems]
+        lines += [f"  note: {n}" for n in self.notes]
+        return "\n".join(lines)
+
+
+def verify(path: str | Path) -> Report:
+    """Check every stored hash of the audit file at ``path``. Raises :class:`AuditFileError` only when the
+    file cannot be opened as an audit file at all; everything else is a problem in the report."""
+    from pipeline import reader
+
+    report = Report(str(path))
+    with reader.open_audit(path) as f:
+        _check_recipe(f, report)
+        _check_inputs(f, report)
+        _check_tables(f, report)
+        _read_everything(f, report)
+    return report
+
+
+def _check_recipe(f: Any, report: Report) -> None:
+    try:
+        text = str(f.attrs["recipe_text"])
+        want = str(f.attrs["recipe_sha256"])
+    except KeyError as exc:
+        report.problems.append(f"root attribute {exc.args[0]!r} is missing")
+        return
+    got = hashlib.sha256(text.encode("utf-8")).hexdigest()
+    if got != want:
+        report.problems.append(f"recipe text does not match recipe_sha256 (stored {want[:12]}..., now {got[:12]}...)")
+    else:
+        report.checked.append("recipe")
+
+
+def _check_inputs(f: Any, report: Report) -> None:
+    if "inputs" not in f:
+        report.problems.append("group /inputs is missing")
+        return
+    for name, ds in f["inputs"].items():
+        label = f"input {ds.attrs.get('name', name)!s} (/inputs/{name})"
+        try:
+            data = ds[()].tobytes()
+            want, size = str(ds.attrs["sha256"]), int(ds.attrs["size"])
+        except (KeyError, OSError, ValueError, RuntimeError) as exc:
+            report.problems.append(f"{label}: unreadable ({type(exc).__name__}: {exc})")
+            continue
+        got = hashlib.sha256(data).hexdigest()
+        if len(data) != size:
+            report.problems.append(f"{label}: {len(data)} bytes stored, {size} recorded")
+        if got != want:
+            report.problems.append(f"{label}: bytes do not match the recorded sha256 ({want[:12]}...)")
+        else:
+            report.checked.append(label)
+
+
+def _check_tables(f: Any, report: Report) -> None:
+    from pipeline.reader import table_sha256
+
+    tables: list[tuple[str, Any]] = []
+
+    def visit(name: str, obj: Any) -> None:
+        if obj.attrs.get("kind") == "table":
+            tables.append((name, obj))
+
+    f.visititems(visit)
+    for name, g in tables:
+        if "sha256" not in g.attrs:
+            report.notes.append(f"table /{name} has no stored hash (written before format 1.1)")
+            continue
+        try:
+            got = table_sha256(g)
+        except (KeyError, OSError, ValueError, RuntimeError) as exc:
+            report.problems.append(f"table /{name}: unreadable ({type(exc).__name__}: {exc})")
+            continue
+        if got != str(g.attrs["sha256"]):
+            report.problems.append(f"table /{name}: content does not match its recorded sha256")
+        else:
+            report.checked.append(f"table /{name}")
+    if "results" not in f:
+        report.problems.append("group /results is missing")
+
+
+def _read_everything(f: Any, report: Report) -> None:
+    import h5py
+
+    def visit(name: str, obj: Any) -> None:
+        if isinstance(obj, h5py.Dataset):
+            try:
+                obj[()]
+            except (OSError, ValueError, RuntimeError) as exc:
+                report.problems.append(f"dataset /{name}: unreadable ({type(exc).__name__}: {exc})")
+
+    f.visititems(visit)
+
+
+def configure(p: argparse.ArgumentParser) -> None:
+    p.add_argument("audit", nargs="+", help="audit files (run.h5) to check")
+
+
+def run(args: argparse.Namespace) -> int:
+    import sys
+
+    from pipeline.errors import AuditFileError
+
+    worst = 0
+    for path in args.audit:
+        try:
+            report = verify(path)
+        except AuditFileError as exc:
+            print(f"{path}: DAMAGED OR NOT AN AUDIT FILE: {exc}", file=sys.stderr)
+            worst = 2
+            continue
+        if report.ok:
+            if not args.quiet:
+                print(report.text())
+        else:
+            print(report.text(), file=sys.stderr)
+            worst = 2
+    return worst
