@@ -13,6 +13,13 @@ A recipe looks like this (the worked example is ``configs/demo.yaml``)::
       - import: {method: table}
       - rates: {method: window, start: "0 s", end: "120 s"}
 
+Many plates share one recipe: list them, name a glob (``data: "run-*.csv"``, one plate per matching file,
+named by its stem, all with the same layout) or a manifest, a CSV table with columns ``name``, ``data`` and
+``layout`` (one row per plate; paths relative to the manifest)::
+
+    plates:
+      - manifest: plates.csv
+
 Every problem found is collected and reported together, one per line, as
 ``recipe.yaml:14 steps[2].rates.end: expected a quantity like "1 s", got 120 (did you mean "120 s"?)``.
 """
@@ -28,7 +35,7 @@ from typing import Any
 
 import yaml
 
-from pipeline.errors import RecipeError
+from pipeline.errors import RecipeError, VzeroError
 from pipeline.params import REQUIRED, Param, closest, validate
 from pipeline.registry import Registry
 
@@ -88,6 +95,8 @@ class Recipe:
     lines: dict[tuple[Any, ...], int]
     steps: list[StepSpec] = field(default_factory=list)
     plates: list[PlateSpec] = field(default_factory=list)
+    #: manifest files named in ``plates`` (relative to the recipe folder); the runner stores them as inputs.
+    manifests: list[str] = field(default_factory=list)
 
     @property
     def sha256(self) -> str:
@@ -182,16 +191,21 @@ def check(
     *,
     exists: Callable[[str], bool] | None = None,
     expand: Callable[[str], list[str]] | None = None,
+    read: Callable[[str], bytes] | None = None,
+    plates: bool = True,
 ) -> Recipe:
     """Validate ``recipe`` against the registry: keys, types, units, methods, plates and input files.
 
     ``exists(rel_path)`` says whether an input file is available (default: on disk beside the recipe);
-    ``expand(pattern)`` expands a glob in a ``data`` entry (default: on disk). Fills ``recipe.steps`` and
-    ``recipe.plates`` and returns the recipe; raises :class:`RecipeError` listing every problem.
+    ``expand(pattern)`` expands a glob in a ``data`` entry (default: on disk); ``read(rel_path)`` returns the
+    bytes of a plate manifest (default: from disk). ``plates=False`` skips the plates (a worker process that
+    is handed its plate checks only the steps). Fills ``recipe.steps``, ``recipe.plates`` and
+    ``recipe.manifests`` and returns the recipe; raises :class:`RecipeError` listing every problem.
     """
     base = recipe.base_dir
     exists = exists or (lambda rel: (base / rel).is_file())
     expand = expand or (lambda pat: sorted(str(Path(p).relative_to(base)) for p in glob.glob(str(base / pat))))
+    read = read or (lambda rel: (base / rel).read_bytes())
     problems: list[str] = []
 
     def bad(path: tuple[Any, ...], msg: str) -> None:
@@ -214,7 +228,9 @@ def check(
     if data.get("vzero", FORMAT_VERSION) != FORMAT_VERSION and isinstance(data.get("vzero"), int):
         bad(("vzero",), f"recipe format {data['vzero']} is not supported by this vzero (format {FORMAT_VERSION})")
 
-    recipe.plates = _check_plates(data.get("plates"), bad, exists, expand)
+    if plates:
+        recipe.manifests = []
+        recipe.plates = _check_plates(data.get("plates"), bad, exists, expand, read, recipe.manifests)
     recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad)
     if problems:
         raise RecipeError(problems, hint="Nothing was run.")
@@ -226,6 +242,8 @@ def _check_plates(
     bad: Callable[[tuple[Any, ...], str], None],
     exists: Callable[[str], bool],
     expand: Callable[[str], list[str]],
+    read: Callable[[str], bytes],
+    manifests: list[str],
 ) -> list[PlateSpec]:
     out: list[PlateSpec] = []
     if not isinstance(plates, list):
@@ -234,21 +252,24 @@ def _check_plates(
     for i, entry in enumerate(plates):
         path: tuple[Any, ...] = ("plates", i)
         if not isinstance(entry, dict):
-            bad(path, "expected a mapping with name, data and layout")
+            bad(path, "expected a mapping with name, data and layout (or one key: manifest)")
             continue
         for key in entry:
             if key not in PLATE_KEYS:
                 hit = closest(key, PLATE_KEYS)
-                near = f" (did you mean {hit!r}?)" if hit else ""
-                bad((*path, key), f"unknown key{near}; valid: {', '.join(sorted(PLATE_KEYS))}")
+                bad((*path, key), f"unknown key{f' (did you mean {hit!r}?)' if hit else ''}; "
+                                  "valid: name, data, layout, manifest")
+        if "manifest" in entry:
+            out.extend(_manifest_plates(entry, path, bad, exists, read, manifests))
+            continue
         data_entry = entry.get("data")
         if not isinstance(data_entry, str):
             bad((*path, "data"), f"expected the path of a data file, got {data_entry!r}")
             continue
-        files = {k: v for k, v in entry.items() if k in FILE_KEYS and isinstance(v, str)}
+        files = {k: v for k, v in entry.items() if k in ("data", "layout") and isinstance(v, str)}
         if "layout" in entry and not isinstance(entry["layout"], str):
             bad((*path, "layout"), f"expected the path of a layout file, got {entry['layout']!r}")
-        if any(ch in data_entry for ch in "*?["):
+        if _is_glob(data_entry):
             matches = expand(data_entry)
             if not matches:
                 bad((*path, "data"), f"no file matches {data_entry!r}")
@@ -259,7 +280,7 @@ def _check_plates(
             name = str(entry.get("name") or Path(data_entry).stem)
             out.append(PlateSpec(name, files))
         for key, rel in files.items():
-            if key == "data" and any(ch in rel for ch in "*?["):
+            if key == "data" and _is_glob(rel):
                 continue
             if not exists(rel):
                 bad((*path, key), f"input file {rel!r} not found (paths are relative to the recipe)")
@@ -267,6 +288,73 @@ def _check_plates(
         if plate.name in names:
             bad(("plates",), f"plate name {plate.name!r} is used twice (plate {j + 1}); give each plate its own name")
         names.add(plate.name)
+    return out
+
+
+def _is_glob(text: str) -> bool:
+    return any(ch in text for ch in "*?[")
+
+
+def _manifest_plates(
+    entry: Mapping[str, Any],
+    path: tuple[Any, ...],
+    bad: Callable[[tuple[Any, ...], str], None],
+    exists: Callable[[str], bool],
+    read: Callable[[str], bytes],
+    manifests: list[str],
+) -> list[PlateSpec]:
+    """The plates listed in a manifest CSV (columns name, data, layout; paths relative to the manifest)."""
+    import csv
+    import io
+    import posixpath
+
+    where = (*path, "manifest")
+    rel = entry["manifest"]
+    if not isinstance(rel, str):
+        bad(where, f"expected the path of a CSV file with columns name, data, layout, got {rel!r}")
+        return []
+    if set(entry) - {"manifest"}:
+        bad(path, "a manifest entry has the one key 'manifest'; give name, data and layout as manifest columns")
+    if not exists(rel):
+        bad(where, f"manifest {rel!r} not found (paths are relative to the recipe)")
+        return []
+    manifests.append(rel)
+    try:
+        text = read(rel).decode("utf-8-sig")
+    except (OSError, UnicodeDecodeError, VzeroError) as exc:
+        bad(where, f"manifest {rel!r} cannot be read as UTF-8 text ({exc}); save it as a UTF-8 CSV")
+        return []
+    rows = list(csv.reader(io.StringIO(text)))
+    header = [h.strip() for h in rows[0]] if rows else []
+    unknown = [h for h in header if h not in MANIFEST_COLUMNS]
+    for h in unknown:
+        hit = closest(h, MANIFEST_COLUMNS)
+        bad(where, f"{rel} row 1: unknown column {h!r}{f' (did you mean {hit!r}?)' if hit else ''}; "
+                   "columns: name, data, layout")
+    if "data" not in header:
+        bad(where, f"{rel} row 1: no 'data' column; the first row must name the columns name, data, layout")
+        return []
+    if unknown:
+        return []
+    folder = posixpath.dirname(rel.replace("\\", "/"))
+    out: list[PlateSpec] = []
+    for n, row in enumerate(rows[1:], start=2):
+        if not any(cell.strip() for cell in row):
+            continue
+        if len(row) != len(header):
+            bad(where, f"{rel} row {n}: {len(row)} cells for {len(header)} columns; one row per plate")
+            continue
+        cells = {h: c.strip() for h, c in zip(header, row, strict=True)}
+        if not cells.get("data"):
+            bad(where, f"{rel} row {n}: no data file; fill in the 'data' column")
+            continue
+        files = {k: posixpath.normpath(posixpath.join(folder, cells[k])) for k in ("data", "layout") if cells.get(k)}
+        for key, file in files.items():
+            if not exists(file):
+                bad(where, f"{rel} row {n}: {key} file {file!r} not found (paths are relative to the manifest)")
+        out.append(PlateSpec(cells.get("name") or Path(files["data"]).stem, files))
+    if not out:
+        bad(where, f"manifest {rel!r} lists no plates; add one row per plate under the header name,data,layout")
     return out
 
 
@@ -305,6 +393,9 @@ def _check_steps(
             continue
         written = {k: v for k, v in body.items() if k != "method"}
         settings, problems = validate(entry.component.params, written)
+        cross = getattr(entry.component, "check_settings", None)
+        if cross is not None and not problems:
+            problems.extend(cross(settings))
         for key, msg in problems:
             bad((*path, kind, key) if key else (*path, kind), msg)
         scope = order[entry.component.scope]

@@ -80,6 +80,14 @@ class Stage:
     def __init__(self, **settings: Any) -> None:
         self.settings = dict(settings)
 
+    @classmethod
+    def check_settings(cls, settings: dict[str, Any]) -> list[tuple[str, str]]:
+        """Rules that involve several parameters at once, checked with the recipe before anything runs.
+
+        Return ``(parameter, problem)`` pairs (empty when all is well). The default has no such rules.
+        """
+        return []
+
     def run(self, data: StageInput) -> StageOutput:  # pragma: no cover - abstract
         raise NotImplementedError
 

@@ -1,65 +1,217 @@
-"""Built-in convert stage: rates in signal per time to concentration per time, and to turnover (1/s)."""
+"""Built-in convert stage methods: rates in signal per time to concentration per time, and to turnover (1/s).
+
+* ``beer-lambert``: absorbance; pathlength given, computed from fill volume and well geometry, or measured
+  per well from water-peak reads.
+* ``standard-curve``: fluorescence or luminescence; a calibration line fitted from the standard wells on the
+  same plate, with its linear range checked.
+"""
 
 from __future__ import annotations
 
 from typing import Any
 
 from pipeline import hookimpl
-from pipeline.errors import StageError
+from pipeline.errors import InputFileError, StageError
 from pipeline.params import Param
 from pipeline.stage import Stage, StageInput, StageOutput
+
+OUTPUT_UNIT = Param("unit", "uM/min", "unit of the converted rates (e.g. uM/min, nM/s)", like="M/s")
+
+
+def _finish(table: Any, frame: Any, factor: Any, out_unit: str, signal_unit: str, warn: Any,
+            stderr: Any = None) -> Any:
+    """Apply a per-well (or scalar) factor signal/s -> out_unit, add turnover, return the new table."""
+    from pipeline import units
+
+    frame["signal_rate"] = frame["rate"]
+    frame["rate"] = frame["signal_rate"] * factor
+    frame["rate_stderr"] = stderr if stderr is not None else frame["rate_stderr"] * abs(factor)
+    frame["rate_unit"] = out_unit
+    new_units = {"rate": out_unit, "rate_stderr": out_unit, "signal_rate": f"{signal_unit}/s"}
+    _warn_sign(frame, warn)
+    if "enzyme" in frame and frame["enzyme"].notna().any() and table.units.get("enzyme"):
+        kt = units.factor(f"({out_unit})/({table.units['enzyme']})", "1/s")
+        with_enzyme = frame["enzyme"].where(frame["enzyme"] > 0)
+        frame["turnover"] = frame["rate"] / with_enzyme * kt
+        frame["turnover_stderr"] = frame["rate_stderr"] / with_enzyme * kt
+        frame["turnover_unit"] = "1/s"
+        new_units.update(turnover="1/s", turnover_stderr="1/s")
+    return table.with_frame(frame, **new_units)
 
 
 class BeerLambert(Stage):
     """Absorbance rate to concentration rate by the Beer–Lambert law: rate = (dA/dt) / (ε · l).
 
-    ``direction: increase`` when the product absorbs (A rises as the reaction runs); ``decrease`` when a
-    consumed species absorbs (for example NADH at 340 nm), which flips the sign so that rates are positive.
-    Given a per-well enzyme concentration, the turnover rate (rate / [E], in 1/s) is added.
+    The pathlength ``l`` comes from exactly one of: ``pathlength`` (given); ``fill_volume`` and
+    ``plate_type`` (liquid height in a well of that geometry, flat meniscus assumed); ``water_peak: true``
+    (per well, from the plate's ``pathcheck`` file of A977 and A900 reads: (A977 − A900) / ``water_k``, with
+    0.18 per cm as the usual factor, common practice). ``direction: decrease`` when a consumed species absorbs
+    (for example NADH at 340 nm), so that rates are positive. Given a per-well enzyme concentration, the
+    turnover rate (rate / [E], 1/s) is added.
     """
 
     kind = "convert"
     method = "beer-lambert"
-    version = "1.0"
+    version = "1.1"
     summary = "absorbance/s to concentration/time via ε and pathlength; turnover from [E]"
     params = {
-        "epsilon": Param.quantity("M^-1 cm^-1", doc="molar absorption coefficient, e.g. \"6220 M^-1 cm^-1\""),
-        "pathlength": Param.quantity("cm", doc="optical pathlength of the well, e.g. \"0.55 cm\""),
+        "epsilon": Param.quantity("M^-1 cm^-1", doc='molar absorption coefficient, e.g. "6220 M^-1 cm^-1"'),
+        "pathlength": Param.quantity("cm", None, 'optical pathlength, e.g. "0.55 cm"', nullable=True),
+        "fill_volume": Param.quantity("uL", None, 'liquid volume per well, e.g. "200 uL" (with plate_type)',
+                                      nullable=True),
+        "plate_type": Param.choice(("96-flat", "96-half-area", "384-flat", "1536-flat"), None,
+                                   "well geometry for fill_volume (see plugins/convert/pathlength.py)", nullable=True),
+        "water_peak": Param("bool", False, "measure the pathlength per well from the plate's pathcheck file"),
+        "water_k": Param.quantity("1/cm", "0.18 1/cm", "A977 − A900 of 1 cm of water (common practice)"),
         "direction": Param.choice(("increase", "decrease"), "increase",
                                   "whether the absorbance rises (product absorbs) or falls (substrate absorbs)"),
-        "output_unit": Param("unit", "uM/min", "unit of the converted rates", like="M/s"),
+        "output_unit": OUTPUT_UNIT,
     }
 
+    @classmethod
+    def check_settings(cls, settings: dict[str, Any]) -> list[tuple[str, str]]:
+        """Cross-parameter rule: exactly one pathlength source."""
+        sources = [settings.get("pathlength") is not None,
+                   settings.get("fill_volume") is not None or settings.get("plate_type") is not None,
+                   bool(settings.get("water_peak"))]
+        if sum(sources) != 1:
+            return [("pathlength", "give exactly one pathlength source: pathlength, fill_volume with plate_type, "
+                     "or water_peak: true")]
+        if (settings.get("fill_volume") is None) != (settings.get("plate_type") is None):
+            return [("fill_volume", "fill_volume and plate_type go together")]
+        return []
+
     def run(self, data: StageInput) -> StageOutput:
+        import numpy as np
+
         from pipeline import units
 
+        s = self.settings
         table = data.artifacts["rates"]
         frame = table.frame.copy()
         signal_unit = str(table.meta.get("signal_unit", "AU"))
-        if units.registry().Quantity(1, signal_unit).dimensionality != units.registry().Quantity(1, "").dimensionality:
-            raise StageError(f"Beer–Lambert needs absorbance reads, but the signal unit is {signal_unit!r}")
         ureg = units.registry()
-        per = ureg.Quantity(1.0, f"{signal_unit}/s") / (self.settings["epsilon"] * self.settings["pathlength"])
+        if ureg.Quantity(1, signal_unit).dimensionality != ureg.Quantity(1, "").dimensionality:
+            raise StageError(f"Beer–Lambert needs absorbance reads, but the signal unit is {signal_unit!r}")
+        path_cm, record = self._pathlength(data, frame)
+        per = ureg.Quantity(1.0, f"{signal_unit}/s") / (s["epsilon"] * ureg.Quantity(1.0, "cm"))
+        k = float(per.m_as(s["output_unit"])) * (-1.0 if s["direction"] == "decrease" else 1.0) / path_cm
+        frame["pathlength_cm"] = np.broadcast_to(path_cm, len(frame)).astype(float)
+        out = _finish(table, frame, k, s["output_unit"], signal_unit, data.warn)
+        out = out.with_frame(out.frame, pathlength_cm="cm")
+        return StageOutput(artifacts={"rates": out}, record=record)
+
+    def _pathlength(self, data: StageInput, frame: Any) -> tuple[Any, dict[str, Any]]:
+        import numpy as np
+        import pandas as pd
+
+        from plugins.convert import pathlength as pl
+
+        s = self.settings
+        if s["pathlength"] is not None:
+            return float(s["pathlength"].m_as("cm")), {}
+        if s["fill_volume"] is not None:
+            cm = float(pl.pathlength_from_volume(s["fill_volume"].m_as("uL"), s["plate_type"]))
+            data.warn(f"pathlength {cm:.3f} cm computed from {s['fill_volume']:~P} in a {s['plate_type']} well "
+                      "(flat meniscus assumed)")
+            return cm, {}
+        raw = data.inputs.get("pathcheck")
+        if raw is None:
+            raise InputFileError("water_peak is on but the plate names no pathcheck file",
+                                 hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
+        import io
+
+        from plugins.importers.wells import normalise_well
+
+        try:
+            reads = pd.read_csv(io.BytesIO(raw.data))
+            reads["well"] = [normalise_well(str(w)) for w in reads["well"]]
+            reads = reads.set_index("well")
+            peak, ref = reads["a977"].astype(float), reads["a900"].astype(float)
+        except (KeyError, ValueError, pd.errors.ParserError) as exc:
+            raise InputFileError(f"cannot read water-peak reads: {exc}", path=raw.name,
+                                 hint="Give a CSV with columns well, a977, a900.") from None
+        cm = pl.pathlength_from_water_peak(peak, ref, float(s["water_k"].m_as("1/cm")))
+        per_well = pd.Series(cm, index=reads.index).reindex(frame["well"]).to_numpy(dtype=float)
+        bad = frame["well"][~np.isfinite(per_well)].tolist()
+        if bad:
+            data.warn(f"no usable water-peak pathlength for {len(bad)} well(s) ({', '.join(bad[:8])}); "
+                      "their rates are not converted")
+        return per_well, {"pathlength_cm": per_well}
+
+
+class StandardCurveConvert(Stage):
+    """Fluorescence or luminescence rate to concentration rate through a standard curve on the same plate.
+
+    Standard wells (layout role ``standard``) hold known concentrations of the product in the layout column
+    named by ``column`` (unit from its header or ``unit``). Each standard's signal is the mean of its usable
+    reads; the line signal = slope · conc + intercept is fitted by least squares, top standards are dropped
+    while a quadratic term is significant (the linear range), and rates are divided by the slope, with the
+    slope's uncertainty propagated into each rate's standard error. The calibration is stored in the audit
+    file and reported in the run's warnings.
+    """
+
+    kind = "convert"
+    method = "standard-curve"
+    version = "1.0"
+    summary = "signal/s to concentration/time through a same-plate standard curve (linear range checked)"
+    params = {
+        "column": Param("str", "product", "layout column with the standards' concentrations"),
+        "unit": Param("unit", None, "unit of that column, if its header has none", like="M", nullable=True),
+        "output_unit": OUTPUT_UNIT,
+        "check_linearity": Param("bool", True, "drop top standards while the line bends significantly"),
+    }
+
+    def run(self, data: StageInput) -> StageOutput:
+        import numpy as np
+        import pandas as pd
+
+        from pipeline import units
+        from pipeline.data import Table
+        from plugins.convert.standard_curve import fit_standard_curve
+
+        traces = data.artifacts["traces"]
+        table = data.artifacts["rates"]
+        col = self.settings["column"]
+        wells = traces.wells
+        is_std = (wells["role"].astype(str) == "standard").to_numpy()
+        if not is_std.any() or col not in wells.columns:
+            raise StageError(f"standard-curve needs wells with role 'standard' and a layout column {col!r}",
+                             hint="Add standards to the layout, or use another convert method.")
+        conc_unit = traces.well_units.get(col) or self.settings["unit"]
+        if not conc_unit:
+            raise StageError(f"the layout column {col!r} has no unit; write it like \"{col} (uM)\" or set unit")
+        y = traces.masked_signal()[is_std]
+        with np.errstate(invalid="ignore"):
+            level = np.nanmean(np.where(np.isfinite(y), y, np.nan), axis=1)
+        conc = wells[col].to_numpy(dtype=float)[is_std]
+        keep = np.isfinite(level) & np.isfinite(conc)
+        curve = fit_standard_curve(conc[keep], level[keep], check_linearity=self.settings["check_linearity"])
         out_unit = self.settings["output_unit"]
-        k = float(per.m_as(out_unit)) * (-1.0 if self.settings["direction"] == "decrease" else 1.0)
-        frame["signal_rate"] = frame["rate"]
-        frame["rate"] = frame["rate"] * k
-        frame["rate_stderr"] = frame["rate_stderr"] * abs(k)
-        frame["rate_unit"] = out_unit
-        new_units = {"rate": out_unit, "rate_stderr": out_unit, "signal_rate": f"{signal_unit}/s"}
-        _warn_sign(frame, data.warn)
-        if "enzyme" in frame and frame["enzyme"].notna().any():
-            e_unit = table.units.get("enzyme", "")
-            kt = units.factor(f"({out_unit})/({e_unit})", "1/s")
-            frame["turnover"] = frame["rate"] / frame["enzyme"] * kt
-            frame["turnover_stderr"] = frame["rate_stderr"] / frame["enzyme"] * kt
-            frame["turnover_unit"] = "1/s"
-            new_units.update(turnover="1/s", turnover_stderr="1/s")
-        return StageOutput(artifacts={"rates": table.with_frame(frame, **new_units)})
+        signal_unit = traces.signal_unit
+        to_out = units.factor(f"{conc_unit}/s", out_unit)
+        frame = table.frame.copy()
+        _, se = curve.to_conc(frame["rate"].to_numpy(float), frame["rate_stderr"].to_numpy(float))
+        lo, hi = curve.conc_range
+        data.warn(f"standard curve: slope {curve.slope:.5g} {signal_unit}/{conc_unit} ± {curve.slope_se:.2g}, "
+                  f"R² {curve.r2:.4f}, linear range {lo:g}–{hi:g} {conc_unit} ({curve.n_points} standards"
+                  + (f"; dropped {', '.join(f'{d:g}' for d in curve.dropped_levels)}" if curve.dropped_levels else "")
+                  + ")")
+        out = _finish(table, frame, to_out / curve.slope, out_unit, signal_unit, data.warn, se * to_out)
+        calib = pd.DataFrame({"well": wells["well"].to_numpy()[is_std][keep], "concentration": conc[keep],
+                              "signal": level[keep], "used": np.asarray(curve.used, dtype=bool)})
+        summary = pd.DataFrame({"quantity": ["slope", "intercept", "r_squared", "range_low", "range_high"],
+                                "value": [curve.slope, curve.intercept, curve.r2, lo, hi],
+                                "stderr": [curve.slope_se, curve.intercept_se, np.nan, np.nan, np.nan]})
+        return StageOutput(
+            artifacts={"rates": out},
+            record={"calibration_points": Table(calib, {"concentration": conc_unit, "signal": signal_unit}),
+                    "calibration": Table(summary)},
+        )
 
 
 def _warn_sign(frame: Any, warn: Any) -> None:
-    samples = frame[frame.get("role", "sample") == "sample"] if "role" in frame else frame
+    samples = frame[frame["role"] == "sample"] if "role" in frame else frame
     rates = samples["rate"].dropna()
     if len(rates) and (rates < 0).mean() > 0.5:
         warn(f"{int((rates < 0).sum())} of {len(rates)} sample rates are negative after conversion: "
@@ -69,3 +221,4 @@ def _warn_sign(frame: Any, warn: Any) -> None:
 @hookimpl
 def vzero_register(registry: Any) -> None:
     registry.add(BeerLambert)
+    registry.add(StandardCurveConvert)

@@ -119,3 +119,48 @@ def test_beer_lambert_turnover_and_direction():
     assert_allclose(out["rate"].iloc[0], 10.0, rtol=1e-12)
     # 10 µM/min over 10 nM enzyme = 1000 per min = 16.67 per second
     assert_allclose(out["turnover"].iloc[0], 1000.0 / 60.0, rtol=1e-12)
+
+
+def test_beer_lambert_needs_exactly_one_pathlength_source():
+    settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1"})
+    assert BeerLambert.check_settings(settings)[0][0] == "pathlength"
+    settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "pathlength": "1 cm",
+                                                "fill_volume": "200 uL", "plate_type": "96-flat"})
+    assert BeerLambert.check_settings(settings)
+    settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "fill_volume": "200 uL",
+                                                "plate_type": "96-flat"})
+    assert BeerLambert.check_settings(settings) == []
+
+
+def test_beer_lambert_pathlength_from_fill_volume():
+    from plugins.convert.pathlength import pathlength_from_volume
+
+    stage = _stage(BeerLambert, epsilon="6220 M^-1 cm^-1", fill_volume="200 uL", plate_type="96-flat",
+                   output_unit="uM/min")
+    warnings: list[str] = []
+    out = stage.run(_input({"rates": _rates(0.0622 / 60.0)}, warnings)).artifacts["rates"].frame
+    cm = float(pathlength_from_volume(200.0, "96-flat"))
+    assert 0.5 < cm < 0.7  # 200 µL in a standard 96-well (REFERENCES section 7: about 0.6 cm)
+    assert_allclose(out["rate"].iloc[0], 10.0 / cm, rtol=1e-12)
+    assert any("flat meniscus" in w for w in warnings)
+
+
+def test_standard_curve_converts_fluorescence_rates():
+    from plugins.convert import StandardCurveConvert
+
+    # 4 standards of product (µM) read flat at 120 RFU/µM + 50; one sample well rising 2.4 RFU/s.
+    t = np.arange(0.0, 60.0, 10.0)
+    levels = np.array([0.0, 1.0, 2.0, 4.0])
+    std = 50.0 + 120.0 * levels[:, None] + 0.0 * t
+    sample = 50.0 + 2.4 * t
+    signal = np.vstack([std, sample])
+    wells = pd.DataFrame({"well": ["A1", "A2", "A3", "A4", "B1"], "role": ["standard"] * 4 + ["sample"],
+                          "product": [*levels, np.nan]})
+    traces = Traces("p", t, signal, np.isfinite(signal), np.zeros_like(signal, bool), wells, "RFU",
+                    {"product": "uM"})
+    frame = pd.DataFrame({"well": ["B1"], "role": ["sample"], "rate": [2.4], "rate_stderr": [0.0]})
+    rates = Table(frame, {"rate": "RFU/s"}, {"signal_unit": "RFU"})
+    stage = _stage(StandardCurveConvert, output_unit="uM/min")
+    out = stage.run(_input({"traces": traces, "rates": rates}))
+    assert_allclose(out.artifacts["rates"].frame["rate"].iloc[0], 2.4 / 120.0 * 60.0, rtol=1e-9)
+    assert "calibration" in out.record
