@@ -58,6 +58,8 @@ PLATE_KEYS = {"name", "data", "layout", "pathcheck", "manifest"}
 #: Plate keys that name input files (stored byte for byte in the audit file). ``pathcheck``: per-well water-peak
 #: reads for the pathlength (columns well, a977, a900).
 FILE_KEYS = ("data", "layout", "pathcheck")
+#: Columns of a plate manifest (a CSV table, one row per plate); only ``data`` must be filled in.
+MANIFEST_COLUMNS = ("name", *FILE_KEYS)
 
 
 @dataclass(frozen=True)
@@ -257,8 +259,8 @@ def _check_plates(
         for key in entry:
             if key not in PLATE_KEYS:
                 hit = closest(key, PLATE_KEYS)
-                bad((*path, key), f"unknown key{f' (did you mean {hit!r}?)' if hit else ''}; "
-                                  "valid: name, data, layout, manifest")
+                near = f" (did you mean {hit!r}?)" if hit else ""
+                bad((*path, key), f"unknown key{near}; valid: {', '.join(sorted(PLATE_KEYS))}")
         if "manifest" in entry:
             out.extend(_manifest_plates(entry, path, bad, exists, read, manifests))
             continue
@@ -266,7 +268,7 @@ def _check_plates(
         if not isinstance(data_entry, str):
             bad((*path, "data"), f"expected the path of a data file, got {data_entry!r}")
             continue
-        files = {k: v for k, v in entry.items() if k in ("data", "layout") and isinstance(v, str)}
+        files = {k: v for k, v in entry.items() if k in FILE_KEYS and isinstance(v, str)}
         if "layout" in entry and not isinstance(entry["layout"], str):
             bad((*path, "layout"), f"expected the path of a layout file, got {entry['layout']!r}")
         if _is_glob(data_entry):
@@ -330,7 +332,7 @@ def _manifest_plates(
     for h in unknown:
         hit = closest(h, MANIFEST_COLUMNS)
         bad(where, f"{rel} row 1: unknown column {h!r}{f' (did you mean {hit!r}?)' if hit else ''}; "
-                   "columns: name, data, layout")
+                   f"columns: {', '.join(MANIFEST_COLUMNS)}")
     if "data" not in header:
         bad(where, f"{rel} row 1: no 'data' column; the first row must name the columns name, data, layout")
         return []
@@ -348,7 +350,7 @@ def _manifest_plates(
         if not cells.get("data"):
             bad(where, f"{rel} row {n}: no data file; fill in the 'data' column")
             continue
-        files = {k: posixpath.normpath(posixpath.join(folder, cells[k])) for k in ("data", "layout") if cells.get(k)}
+        files = {k: posixpath.normpath(posixpath.join(folder, cells[k])) for k in FILE_KEYS if cells.get(k)}
         for key, file in files.items():
             if not exists(file):
                 bad(where, f"{rel} row {n}: {key} file {file!r} not found (paths are relative to the manifest)")
