@@ -38,6 +38,7 @@ def _run(args: argparse.Namespace) -> int:
     if not args.quiet:
         print(f"demo inputs: {folder / 'inputs'}/ ; run: {result.out_dir}/")
         print(compare(result.fits, TRUTH))
+        print(verdicts(result.tables))
         print("Results are for research use; they do not replace your lab's validated procedures.")
     return result.exit_code
 
@@ -57,6 +58,21 @@ def compare(fits: Any, truth: Any) -> str:
             true_text = f"{true:8.4g}" if true is not None else f"{'':8}"
             lines.append(f"{t.group:<16} {row['model']:<18} {row['parameter']:<8} {row['estimate']:10.4g} "
                          f"{row['stderr']:9.2g} {true_text}  {row['unit']}")
+    return "\n".join(lines)
+
+
+def verdicts(tables: dict[str, Any]) -> str:
+    """One line per group: the preferred model and the cooperativity verdict, in words."""
+    lines = []
+    comparison = tables.get("model_comparison")
+    coop = tables.get("cooperativity")
+    if comparison is not None:
+        for group, rows in comparison.frame.groupby("group", sort=True):
+            lines.append(f"{group}: preferred model {rows['preferred'].iloc[0]} ({rows['reason'].iloc[0]})")
+    if coop is not None:
+        for _, row in coop.frame.iterrows():
+            lines.append(f"{row['group']}: cooperativity {row['verdict']} (h = {row['h']:.3g}, 95% interval "
+                         f"{row['ci_low']:.3g} to {row['ci_high']:.3g})")
     return "\n".join(lines)
 
 
