@@ -106,6 +106,9 @@ class TableImport(Stage):
             well_units={k: v for k, v in units.items() if k in wells.columns and v},
             temperature=block.temperature,
         )
+        from plugins.exclusions import apply_exclusions
+
+        traces = apply_exclusions(traces, data.recipe)
         return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
 
 
