@@ -21,6 +21,7 @@ When an uncertainty cannot be given, ``errorbars`` is False and ``note`` says wh
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -95,6 +96,12 @@ def _jacobian(jac: Jac, p: np.ndarray, x: Mapping[str, np.ndarray], shape: tuple
     return np.stack([np.broadcast_to(c, shape) for c in cols], axis=-1)
 
 
+@functools.lru_cache(maxsize=256)
+def t_quantile(confidence: float, dof: int) -> float:
+    """Two-sided Student-t quantile for ``confidence`` on ``dof`` degrees of freedom (NaN without dof)."""
+    return float(stats.t.ppf(0.5 + confidence / 2, dof)) if dof > 0 else float("nan")
+
+
 def summarize(
     names: Sequence[str],
     values: np.ndarray,
@@ -104,68 +111,82 @@ def summarize(
     y: np.ndarray,
     w: np.ndarray,
     *,
-    success: bool,
-    message: str,
-    nfev: int,
+    success: Sequence[bool] | bool,
+    message: Sequence[str] | str,
+    nfev: Sequence[int] | int,
     confidence: float,
     units: Mapping[str, str] | None = None,
-) -> FitResult:
-    """Build a :class:`FitResult` from the solution: weighted residuals ``resid`` [n], weighted Jacobian
-    ``jmat`` [n, p] (rows of unused points zero), weights ``w`` (0 for unused points)."""
+) -> list[FitResult]:
+    """Build :class:`FitResult` objects from solutions, vectorised over a leading group axis.
+
+    ``values`` [g, p]; weighted residuals ``resid`` [g, n]; weighted Jacobian ``jmat`` [g, n, p] (rows of
+    unused points zero); weights ``w`` [g, n] (0 for unused points); ``y`` [g, n]. A single fit may pass
+    arrays without the group axis and gets a one-element list.
+    """
+    values, resid, y, w = (np.atleast_2d(np.asarray(a, float)) for a in (values, resid, y, w))
+    jmat = np.asarray(jmat, float).reshape((*resid.shape, len(names)))
+    g = values.shape[0]
+    success = np.broadcast_to(np.asarray(success, bool), (g,))
+    message = [message] * g if isinstance(message, str) else list(message)
+    nfev = np.broadcast_to(np.asarray(nfev, int), (g,))
     used = w > 0
-    n = int(used.sum())
+    n = used.sum(axis=1)
     k = int(free.sum())
     dof = n - k
-    rss = float(np.sum(resid[used] ** 2))
-    yw = (y * w)[used]
-    # R² of the (weighted) fit against a weighted mean, the usual definition; NaN with fewer than 2 points
-    wm = np.sum(w[used] * yw) / np.sum(w[used] ** 2) if n else np.nan
-    tss = float(np.sum((yw - w[used] * wm) ** 2)) if n else np.nan
-    r2 = 1.0 - rss / tss if tss > 0 else float("nan")
-    kk = k + 1
-    aicc = n * np.log(rss / n) + 2 * kk + 2 * kk * (kk + 1) / (n - kk - 1) if n - kk - 1 > 0 and rss > 0 else np.nan
+    with np.errstate(all="ignore"):
+        rss = np.sum(np.where(used, resid**2, 0.0), axis=1)
+        yw = np.where(used, y * w, 0.0)
+        # R² of the (weighted) fit against the weighted mean (the usual definition)
+        wm = np.sum(w * yw, axis=1) / np.sum(w**2, axis=1)
+        tss = np.sum(np.where(used, (yw - w * wm[:, None]) ** 2, 0.0), axis=1)
+        r2 = np.where(tss > 0, 1.0 - rss / tss, np.nan)
+        kk = k + 1
+        aicc = np.where((n - kk - 1 > 0) & (rss > 0),
+                        n * np.log(rss / n) + 2 * kk + 2 * kk * (kk + 1) / (n - kk - 1), np.nan)
+        jf = jmat[:, :, free]
+        finite = np.all(np.isfinite(jf), axis=(1, 2))
+        if k:
+            _, sv, vt = np.linalg.svd(np.where(finite[:, None, None], jf, 0.0), full_matrices=False)
+        else:
+            sv, vt = np.ones((g, 0)), np.ones((g, 0, 0))
+        tiny = sv[:, -1:].ravel() <= sv[:, :1].ravel() * max(jf.shape[1], k) * np.finfo(float).eps if k else 0
+        s2 = rss / np.where(dof > 0, dof, np.nan)
+        cf = np.einsum("gji,gj,gjl->gil", vt, 1.0 / sv**2, vt) * s2[:, None, None]
     p = len(names)
-    cov = np.full((p, p), np.nan)
-    note = ""
-    errorbars = False
-    if dof <= 0:
-        note = f"no degrees of freedom left ({n} points for {k} free parameters): no standard errors"
-    elif not success:
-        note = "the fit did not converge: no standard errors"
-    else:
-        jf = jmat[used][:, free]
-        _, s, vt = np.linalg.svd(jf, full_matrices=False)
-        if s.size == 0 or not np.all(np.isfinite(s)) or s[-1] <= s[0] * max(jf.shape) * np.finfo(float).eps:
+    out = []
+    for gi in range(g):
+        cov = np.full((p, p), np.nan)
+        note = ""
+        errorbars = False
+        if dof[gi] <= 0:
+            note = f"no degrees of freedom left ({n[gi]} points for {k} free parameters): no standard errors"
+        elif not success[gi]:
+            note = "the fit did not converge: no standard errors"
+        elif k and (not finite[gi] or bool(np.asarray(tiny)[gi]) or not np.all(np.isfinite(cf[gi]))):
             note = "parameters not separately determined by these data (singular Jacobian): no standard errors"
         else:
-            s2 = rss / dof
-            cf = (vt.T / s**2) @ vt * s2
-            cov[np.ix_(free, free)] = cf
+            cov[np.ix_(free, free)] = cf[gi]
             cov[~free, :] = 0.0
             cov[:, ~free] = 0.0
             errorbars = True
-    se = np.sqrt(np.clip(np.diag(cov), 0, None))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        corr = cov / np.outer(se, se)
-    tq = stats.t.ppf(0.5 + confidence / 2, dof) if dof > 0 else np.nan
-    params = {}
-    for i, name in enumerate(names):
-        fixed = not free[i]
-        params[name] = ParamEstimate(
-            name,
-            float(values[i]),
-            0.0 if fixed else float(se[i]),
-            float(values[i]) if fixed else float(values[i] - tq * se[i]),
-            float(values[i]) if fixed else float(values[i] + tq * se[i]),
-            "fixed" if fixed else "wald-t",
-            (units or {}).get(name, ""),
-            fixed,
-            "" if fixed or errorbars else note,
-        )
-    return FitResult(
-        tuple(names), params, success, message, nfev, rss, dof, n, float(aicc), float(r2), cov, corr,
-        errorbars, note, np.asarray(values, float), free.copy(),
-    )
+        se = np.sqrt(np.clip(np.diag(cov), 0, None))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            corr = cov / np.outer(se, se)
+        tq = t_quantile(confidence, int(dof[gi]))
+        v = values[gi]
+        params = {}
+        for i, name in enumerate(names):
+            fixed = not free[i]
+            params[name] = ParamEstimate(
+                name, float(v[i]), 0.0 if fixed else float(se[i]),
+                float(v[i]) if fixed else float(v[i] - tq * se[i]), float(v[i]) if fixed else float(v[i] + tq * se[i]),
+                "fixed" if fixed else "wald-t", (units or {}).get(name, ""), fixed, "" if fixed or errorbars else note,
+            )
+        out.append(FitResult(
+            tuple(names), params, bool(success[gi]), message[gi], int(nfev[gi]), float(rss[gi]), int(dof[gi]),
+            int(n[gi]), float(aicc[gi]), float(r2[gi]), cov, corr, errorbars, note, v.copy(), free.copy(),
+        ))
+    return out
 
 
 def fit(
@@ -240,7 +261,7 @@ def fit(
     return summarize(
         names, v, free, jmat, resid, y, w, success=ok, message=str(sol.message), nfev=int(sol.nfev),
         confidence=confidence, units=units,
-    )
+    )[0]
 
 
 def _fill_value(used: np.ndarray) -> float:
@@ -340,30 +361,24 @@ def fit_batch(
             vals[idx[better]] = trial[better]
             r[idx[better]] = rt[better]
             cost[idx[better]] = ct[better]
-            lam[idx] = np.where(better, np.maximum(lam[idx] / 3, 1e-12), lam[idx] * 4)
+            lam[idx] = np.where(better, np.maximum(lam[idx] / 10, 1e-12), lam[idx] * 4)
             done = (better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
             stuck = lam[idx] > 1e16
             converged[idx[done]] = True
             active[idx[done | stuck]] = False
 
-    results: list[FitResult] = []
-    jall = jmat(vals)
-    for gi in range(g):
+    results = summarize(names, vals, free, jmat(vals), r, yz, w, success=True,
+                        message="converged (batched Levenberg-Marquardt)", nfev=nfev, confidence=confidence,
+                        units=units)
+    r2 = np.array([res.r_squared for res in results])
+    redo = ~converged | (r2 <= 1e-9) | ~np.all(np.isfinite(vals), axis=1)
+    for gi in np.flatnonzero(redo):
         m = mask[gi]
         yy = y[gi][m]
-        tss = float(np.sum((w[gi][m] * (yy - yy.mean())) ** 2)) if m.any() else 0.0
-        flat = tss > 0 and cost[gi] >= tss * (1 - 1e-9)
-        if not converged[gi] or flat or not np.all(np.isfinite(vals[gi])):
-            xi = {k: np.asarray(v[gi][m], float) for k, v in x.items()}
-            sg = None if sigma is None else np.asarray(sigma[gi][m], float)
-            results.append(fit(func, jac, xi, yy, p0[gi], names, sigma=sg, fixed=fixed, bounds=bounds,
-                               confidence=confidence, units=units))
-            continue
-        results.append(summarize(
-            names, vals[gi], free, jall[gi], r[gi], yz[gi], w[gi], success=True,
-            message="converged (batched Levenberg-Marquardt)", nfev=int(nfev[gi]), confidence=confidence,
-            units=units,
-        ))
+        xi = {k: np.asarray(v[gi][m], float) for k, v in x.items()}
+        sg = None if sigma is None else np.asarray(sigma[gi][m], float)
+        results[gi] = fit(func, jac, xi, yy, p0[gi], names, sigma=sg, fixed=fixed, bounds=bounds,
+                          confidence=confidence, units=units)
     return results
 
 
