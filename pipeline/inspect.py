@@ -1,54 +1,131 @@
-"""A readable summary of an audit file (``vzero inspect``)."""
+"""A readable summary of an audit file (``vzero inspect``): provenance (versions, hashes, times), inputs, the
+steps with timings and warnings, exclusions and overrides, flagged wells, fitted parameters, and which of
+the reporting items the STRENDA guidelines ask for are present.
+"""
 
 from __future__ import annotations
 
-import json
+from collections.abc import Mapping
 from pathlib import Path
+from typing import Any
 
-from pipeline.errors import AuditFileError
+#: Reporting items the STRENDA guidelines ask authors of enzyme-kinetics data to give (a short selection,
+#: written from memory of the Level 1A/1B lists; check the current guidelines before publishing). Each item:
+#: (label, where vzero looks for it).
+STRENDA_ITEMS: tuple[tuple[str, str], ...] = (
+    ("enzyme identity", "assay.enzyme.name"),
+    ("enzyme source organism", "assay.enzyme.organism"),
+    ("EC number", "assay.enzyme.ec_number"),
+    ("enzyme concentration", "assay.enzyme.concentration or an enzyme column in the layout"),
+    ("assay temperature", "assay.temperature"),
+    ("assay pH", "assay.pH"),
+    ("buffer and its concentration", "assay.buffer"),
+    ("substrate identity", "assay.substrate.name"),
+    ("substrate concentrations", "a substrate column in the layout"),
+    ("detection method", "assay.detection"),
+    ("replicates", "a replicate column in the layout"),
+    ("how initial rates were taken", "the rates step"),
+    ("kinetic parameters with uncertainties", "fits table with stderr or interval"),
+)
 
 
-def summary(path: str | Path) -> str:
-    """Provenance, inputs, steps with timings and warnings, and flagged wells, as text."""
+def _get(mapping: Mapping[str, Any], dotted: str) -> Any:
+    value: Any = mapping
+    for part in dotted.split("."):
+        if not isinstance(value, Mapping) or part not in value:
+            return None
+        value = value[part]
+    return value
+
+
+def strenda_check(assay: Mapping[str, Any], rates_columns: list[str], steps: list[str],
+                  fits: Any) -> list[tuple[str, bool, str]]:
+    """(item, present, where) for each of :data:`STRENDA_ITEMS`."""
+    present = {
+        "enzyme concentration": _get(assay, "enzyme.concentration") is not None or "enzyme" in rates_columns,
+        "substrate concentrations": "substrate" in rates_columns,
+        "replicates": "replicate" in rates_columns,
+        "how initial rates were taken": any("-rates-" in s for s in steps),
+        "kinetic parameters with uncertainties": fits is not None and len(fits) > 0
+        and bool(fits["stderr"].notna().any() if "stderr" in fits else False),
+    }
+    out = []
+    for label, where in STRENDA_ITEMS:
+        ok = present[label] if label in present else _get(assay, where.removeprefix("assay.")) not in (None, "")
+        out.append((label, bool(ok), where))
+    return out
+
+
+def summary(path: str | Path, *, max_wells: int = 50) -> str:
+    """Provenance, inputs, steps with timings and warnings, exclusions, flagged wells and parameters, as text."""
     from pipeline import reader
 
     with reader.open_audit(path) as f:
-        a = f.attrs
+        head = reader.header(f)
         lines = [
             f"audit file {path}",
-            f"  format {a['format']} {a['format_version']}, made by vzero {a['vzero_version']} on {a['created']}",
-            f"  recipe {a.get('recipe_name', '')!s} (sha256 {str(a['recipe_sha256'])[:16]}...)",
-            "  versions: " + ", ".join(f"{k} {v}" for k, v in json.loads(a["versions"]).items()),
+            f"  format {head['format']} {head.get('format_version', '?')}, made by vzero {head.get('vzero_version')}"
+            f" on {head.get('created')} (run {head.get('run_id', '?')})",
+            f"  recipe {head.get('recipe_name', '')} from {head.get('recipe_path', '?')} "
+            f"(sha256 {head.get('recipe_sha256', '')})",
+            "  versions: " + ", ".join(f"{k} {v}" for k, v in head["versions"].items()),
         ]
-        if "derived_from" in a:
-            lines.append(f"  rerun of: {json.loads(a['derived_from'])}")
+        for name, src in (head["plugins"] or {}).items():
+            if isinstance(src, dict) and src.get("path"):
+                lines.append(f"  local plugin {name}: {src.get('path')} version {src.get('version')} "
+                             f"sha256 {src.get('sha256')}")
+        if head.get("derived_from"):
+            d = head["derived_from"]
+            lines.append(f"  rerun of {d.get('path')} (run {d.get('run_id')}, recipe sha256 "
+                         f"{str(d.get('recipe_sha256', ''))[:16]}...)")
+            if d.get("changed_plugins"):
+                lines.append(f"  WARNING: local plugins changed since that run: {', '.join(d['changed_plugins'])}")
         lines.append("inputs:")
-        for ds in f["inputs"].values():
-            lines.append(f"  {ds.attrs['name']} ({ds.attrs['size']} bytes, sha256 {str(ds.attrs['sha256'])[:16]}...)")
+        for s in _inputs_meta(f):
+            lines.append(f"  {s[0]} ({s[1]} bytes, sha256 {s[2]}) plates {', '.join(s[3])}")
         lines.append("steps:")
+        step_labels = list(f["steps"])
         for label, g in f["steps"].items():
-            lines.append(f"  {label}  {g.attrs['plugin']} {g.attrs['version']}  {float(g.attrs['seconds']):.3f} s  "
-                         f"params {g.attrs['parameters']}")
-            for w in json.loads(g.attrs["warnings"]):
+            lines.append(f"  {label}  {g.attrs['plugin']} {g.attrs['version']}  started {g.attrs.get('started', '?')}"
+                         f"  {float(g.attrs['seconds']):.3f} s  params {g.attrs['parameters']}")
+            for w in reader.json_attr(g, "warnings", []):
                 lines.append(f"      warning: {w}")
-        failed = json.loads(a.get("failed_plates", "{}"))
-        for plate, err in failed.items():
+        for plate, err in (head["failed_plates"] or {}).items():
             lines.append(f"failed plate {plate}: {err}")
-        if "rates" in f["results"]:
-            rates = reader.read_table(f["results/rates"]).frame
-            if "flags" in rates:
-                flagged = rates[rates["flags"].astype(str) != ""]
-                lines.append(f"flagged wells: {len(flagged)} of {len(rates)}")
-                for _, row in flagged.head(50).iterrows():
-                    lines.append(f"  {row.get('plate', '')} {row['well']}: {row['flags']}")
-                if len(flagged) > 50:
-                    lines.append(f"  ... {len(flagged) - 50} more")
-        if "fits" in f["results"]:
-            fits = reader.read_table(f["results/fits"]).frame
-            lines.append("fitted parameters:")
-            for _, row in fits.iterrows():
-                lines.append(f"  {row['group']} {row['model']} {row['parameter']} = {row['estimate']:.6g} "
-                             f"± {row['stderr']:.3g} {row['unit']}")
-    if not lines:
-        raise AuditFileError(f"{path}: empty audit file")
+        for key, title in (("exclusions", "excluded"), ("overrides", "window fixed")):
+            for item in head[key] or []:
+                what = f" at {item['time']}" if "time" in item else ""
+                what += f" {item.get('start')} to {item.get('end')}" if key == "overrides" else ""
+                lines.append(f"{title}: {item.get('plate')} {item.get('well')}{what}: {item.get('reason')}")
+        results = reader.read_results(f)
+    rates = results["rates"].frame if "rates" in results else None
+    fits = results["fits"].frame if "fits" in results else None
+    if rates is not None and "flags" in rates:
+        flagged = rates[rates["flags"].astype(str) != ""]
+        lines.append(f"flagged wells: {len(flagged)} of {len(rates)}")
+        for _, row in flagged.head(max_wells).iterrows():
+            note = f"  ({row['note']})" if "note" in row and str(row["note"]) not in ("", "nan") else ""
+            lines.append(f"  {row.get('plate', '')} {row['well']}: {row['flags']}{note}")
+        if len(flagged) > max_wells:
+            lines.append(f"  ... {len(flagged) - max_wells} more")
+    if fits is not None and len(fits):
+        lines.append("fitted parameters:")
+        for _, row in fits.iterrows():
+            lines.append(f"  {row['group']} {row['model']} {row['parameter']} = {row['estimate']:.6g} "
+                         f"± {row['stderr']:.3g} {row['unit']}")
+    lines.append("reporting items (STRENDA guidelines, short list from memory; add them under 'assay:' in the recipe):")
+    for label, ok, where in strenda_check(head["assay"] or {}, list(rates.columns) if rates is not None else [],
+                                          step_labels, fits):
+        lines.append(f"  [{'x' if ok else ' '}] {label}" + ("" if ok else f"  (missing: {where})"))
+    lines.append("Results are for research use; check them against your lab's validated procedures.")
     return "\n".join(lines)
+
+
+def _inputs_meta(f: Any) -> list[tuple[str, int, str, list[str]]]:
+    from pipeline.reader import json_attr
+
+    out = []
+    for ds in f["inputs"].values():
+        plates = json_attr(ds, "plates", [])
+        out.append((str(ds.attrs["name"]), int(ds.attrs["size"]), str(ds.attrs["sha256"]), list(plates)))
+    return out
