@@ -112,6 +112,102 @@ class TableImport(Stage):
         return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
 
 
+class RatesTableImport(Stage):
+    """Read initial rates measured elsewhere (one row per well or measurement) to fit them directly.
+
+    For rates that come from another instrument or an older analysis: a CSV with a substrate column, a rate
+    column and optionally group, inhibitor and enzyme columns. Units come from the headers
+    (``substrate (uM)``) or from the parameters. Each row is a point of its own (replicates are not averaged).
+    """
+
+    kind = "import"
+    method = "rates-table"
+    version = "1.0"
+    summary = "initial rates already measured (substrate, rate, group) for fitting only"
+    params = {
+        "substrate_column": Param("str", "substrate", "column of substrate concentrations"),
+        "rate_column": Param("str", "rate", "column of initial rates"),
+        "group_column": Param("str", None, "column naming the group each row belongs to", nullable=True),
+        "inhibitor_column": Param("str", None, "column of inhibitor concentrations", nullable=True),
+        "enzyme_column": Param("str", None, "column of enzyme concentrations", nullable=True),
+        "substrate_unit": Param("unit", None, "unit of substrate, if its header has none", nullable=True),
+        "rate_unit": Param("unit", None, "unit of the rates, if its header has none", nullable=True),
+        "inhibitor_unit": Param("unit", None, "unit of inhibitor, if its header has none", nullable=True),
+        "enzyme_unit": Param("unit", None, "unit of enzyme, if its header has none", nullable=True),
+    }
+
+    def run(self, data: StageInput) -> StageOutput:
+        import numpy as np
+        import pandas as pd
+
+        from pipeline.data import Table
+        from plugins.importers import readers
+
+        s = self.settings
+        raw = data.inputs.get("data")
+        if raw is None:
+            raise InputFileError("the plate has no 'data' file in the recipe", hint="Add data: FILE to the plate.")
+        grid = readers.load_grid(raw.data, source=raw.name, options=readers.ReadOptions())
+        header, body = grid.rows[0], grid.rows[1:]
+        names: dict[str, tuple[int, str]] = {}
+        for i, label in enumerate(header):
+            name, unit = _split_unit(label)
+            names[name] = (i, unit)
+        out: dict[str, Any] = {}
+        units: dict[str, str] = {}
+        for role, key in (("substrate", "substrate_column"), ("rate", "rate_column"),
+                          ("inhibitor", "inhibitor_column"), ("enzyme", "enzyme_column"), ("group", "group_column")):
+            col = s[key]
+            if col is None:
+                continue
+            if col not in names:
+                raise InputFileError(f"no column {col!r}; the header has {', '.join(names)}", path=raw.name, row=1,
+                                     hint=f"Set {key} in the import step.")
+            idx, unit = names[col]
+            values = [row[idx] if idx < len(row) else "" for row in body]
+            if role == "group":
+                out[role] = np.array(values, dtype=object)
+                continue
+            numbers = np.empty(len(values))
+            for r, text in enumerate(values):
+                try:
+                    numbers[r] = float(text.replace(grid.decimal, ".") if grid.decimal == "," else text)
+                except ValueError:
+                    raise InputFileError(f"{text!r} is not a number", path=raw.name, row=grid.lines[r + 1],
+                                         column=col, hint="Fix or remove that row.") from None
+            out[role] = numbers
+            given = unit or s[f"{role}_unit"]
+            if not given:
+                raise InputFileError(f"the {role} column has no unit", path=raw.name, column=col,
+                                     hint=f'Write it in the header, like "{col} (uM)", or set {role}_unit.')
+            units[role] = given
+        n = len(body)
+        frame = pd.DataFrame({
+            "well": [f"row{grid.lines[r + 1]}" for r in range(n)],
+            "group": out.get("group", np.full(n, "all", dtype=object)),
+            "role": np.full(n, "sample", dtype=object),
+            "substrate": out["substrate"],
+            "substrate_unit": units["substrate"],
+            "inhibitor": out.get("inhibitor", np.full(n, np.nan)),
+            "enzyme": out.get("enzyme", np.full(n, np.nan)),
+            "rate": out["rate"],
+            "rate_stderr": np.full(n, np.nan),
+            "rate_unit": units["rate"],
+            "method": np.full(n, "imported", dtype=object),
+            "flags": np.full(n, "", dtype=object),
+        })
+        units.update(rate_stderr=units["rate"])
+        return StageOutput(artifacts={"rates": Table(frame, units, {"signal_unit": ""})})
+
+
+def _split_unit(label: str) -> tuple[str, str]:
+    """``"substrate (uM)"`` or ``"substrate [uM]"`` -> ``("substrate", "uM")``; no unit -> ``(label, "")``."""
+    import re
+
+    m = re.fullmatch(r"\s*(.*?)\s*[\(\[]\s*(.+?)\s*[\)\]]\s*", label)
+    return (m.group(1), m.group(2)) if m else (label.strip(), "")
+
+
 def _layout(data: StageInput, settings: dict[str, Any], wells: list[str]) -> tuple[Any, str]:
     """The plate layout: from the plate's layout file, or declared in the import step (``layout:``)."""
     from plugins.importers import layouts
@@ -149,3 +245,4 @@ def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
 @hookimpl
 def vzero_register(registry: Any) -> None:
     registry.add(TableImport)
+    registry.add(RatesTableImport)
