@@ -181,7 +181,7 @@ def progress_curve(
     ww = sc.valid[todo].astype(float)
     tt = t[None, :]
     d = np.sign(sc.change[todo])
-    # start values: slope at the first read from a quadratic over the first half of the reads
+    # start values: slope and curvature at the first read from a quadratic over the first half of the reads
     first_half = ww * (np.arange(t.size) < max(t.size // 2, min_points))[None, :]
     span = t[-1] - t[0]
     q = masked_polyfit(np.broadcast_to((t - t[0]) / span, yy.shape), yy, first_half, 2)
@@ -196,7 +196,9 @@ def progress_curve(
         spc = float(signal_per_conc)  # type: ignore[arg-type]
         s0w = s0_arr[todo][:, None]
         vc = v_init / abs(spc)
-        p0 = np.stack([base0, np.log(vc), np.zeros(todo.size)], axis=1)
+        # c1 = -(dv/dP)/v0 = Km/(S0 (Km + S0)) = (1 - r)/S0 gives the start value of r
+        r0 = np.clip(1.0 - c_init * abs(spc) * s0w[:, 0], 0.02, 0.98)
+        p0 = np.stack([base0, np.log(vc), np.log(r0 / (1.0 - r0))], axis=1)
         lo = np.stack([-free, np.log(vc) - 12, np.full(todo.size, -30.0)], axis=1)
         hi = np.stack([free, np.log(vc) + 12, np.full(todo.size, 30.0)], axis=1)
 
