@@ -13,7 +13,7 @@ import shutil
 import tempfile
 import time
 import uuid
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Protocol
@@ -22,6 +22,7 @@ import pandas as pd
 
 from pipeline.data import Table, Traces
 from pipeline.errors import InputFileError, OutputExistsError, StageError, VzeroError
+from pipeline.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
 from pipeline.plugins import Plugins, make_manager
 from pipeline.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
 from pipeline.stage import RawInput, StageInput, StageOutput
@@ -129,6 +130,23 @@ def prepare(
     return rec, plugins, source
 
 
+@dataclass(frozen=True)
+class Progress:
+    """A progress report from :func:`run`: ``done`` of ``total`` plates finished (``plate`` just now, with
+    its ``error`` if it failed), or a pooled/final ``step`` starting; ``seconds`` since the run began."""
+
+    done: int
+    total: int
+    plate: str | None = None
+    error: str | None = None
+    step: str | None = None
+    seconds: float = 0.0
+
+
+#: Batches with more plates than this stream finished plates to a scratch file instead of holding them.
+SPILL_AFTER = 1
+
+
 def run(
     recipe: str | Path | Recipe,
     out: str | Path,
@@ -137,9 +155,20 @@ def run(
     inputs: InputSource | None = None,
     extra_plugins: Iterable[tuple[str, object]] = (),
     derived_from: Mapping[str, Any] | None = None,
-    progress: Callable[[str], None] | None = None,
+    progress: Callable[[Progress], None] | None = None,
+    jobs: int = 1,
+    scheduler: str | None = None,
+    executor: Executor | None = None,
+    spill: bool | None = None,
 ) -> RunResult:
     """Run ``recipe`` and write ``out``/run.h5 and one CSV per final table (rates.csv, fits.csv, ...).
+
+    Plates go through the plate-scoped steps one by one (a map), in ``jobs`` local processes, on the Dask
+    cluster at ``scheduler`` (``"local"`` starts one on this machine) or on a given ``executor``; the pooled
+    and final steps then run once on the stacked tables (the reduce). A plate that fails is reported by name
+    in ``RunResult.failed`` and the others go on. Finished plates are streamed to a scratch file beside
+    ``out`` when there is more than one (``spill`` forces either way), so memory does not grow with the
+    batch. Only this process writes the audit file; the numbers do not depend on where plates ran.
 
     The run is written to a temporary folder beside ``out`` and renamed into place only when complete, so
     a failed or killed run leaves nothing at ``out`` (and a previous run there untouched). An existing run
@@ -152,50 +181,103 @@ def run(
             f"output folder {str(out)!r} already holds files",
             hint="Choose another --out, or pass --force to replace it.",
         )
+    t_start = time.perf_counter()
     run_id = uuid.uuid4().hex
     warnings: list[str] = []
-    raw_by_sha: dict[str, RawInput] = {}
-    input_plates: dict[str, list[str]] = {}
-
     plate_steps = [s for s in rec.steps if _scope(plugins, s) == "plate"]
     later_steps = [s for s in rec.steps if _scope(plugins, s) != "plate"]
 
-    outcomes: list[PlateOutcome] = []
-    for plate in rec.plates:
-        if progress:
-            progress(f"plate {plate.name}")
-        raws = {key: _raw(source, key, rel) for key, rel in plate.files.items()}
-        for raw in raws.values():
-            raw_by_sha.setdefault(raw.sha256, raw)
-            input_plates.setdefault(raw.sha256, []).append(plate.name)
-        outcomes.append(process_plate(plate, raws, rec, plugins, plate_steps, run_id))
+    own_executor = executor is None
+    executor = executor if executor is not None else make_executor(jobs, scheduler)
+    if executor is not None and list(extra_plugins):
+        raise VzeroError("plugins handed to run() in Python cannot be sent to worker processes",
+                         hint="Name them in the recipe's plugins list, or run with one job.")
+    if spill is None:
+        spill = len(rec.plates) > SPILL_AFTER
+    scratch_dir = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.scratch-", dir=_parent(out_dir))) if spill else None
+    store = PlateStore(scratch_dir / "plates.h5" if scratch_dir else None)
+    try:
+        total = len(rec.plates)
+        for outcome in _map_plates(rec, plugins, source, plate_steps, run_id, executor, store):
+            store.add(outcome)
+            if progress:
+                progress(Progress(len(store.outcomes), total, outcome.plate, outcome.error,
+                                  seconds=time.perf_counter() - t_start))
+        outcomes = store.outcomes
+        failed = {o.plate: o.error for o in outcomes if o.error}
+        ok = [o for o in outcomes if not o.error]
+        for o in outcomes:
+            warnings.extend(f"{o.plate}: {w}" for w in o.warnings)
+        if not ok:
+            if len(outcomes) == 1:
+                raise _reraise(outcomes[0])
+            raise StageError("every plate failed:\n" + "\n".join(f"  {k}: {v}" for k, v in failed.items()))
 
-    failed = {o.plate: o.error for o in outcomes if o.error}
-    ok = [o for o in outcomes if not o.error]
-    for o in outcomes:
-        warnings.extend(f"{o.plate}: {w}" for w in o.warnings)
-    if not ok:
-        if len(outcomes) == 1:
-            raise _reraise(outcomes[0])
-        raise StageError("every plate failed:\n" + "\n".join(f"  {k}: {v}" for k, v in failed.items()))
+        pooled: dict[str, Any] = _pool(ok, store.traces())
+        records: list[StepRecord] = [r for o in ok for r in o.records]
+        files: dict[str, bytes] = {}
+        for spec in later_steps:
+            if progress:
+                progress(Progress(len(outcomes), total, step=f"{spec.kind}:{spec.method}",
+                                  seconds=time.perf_counter() - t_start))
+            output, record = _run_step(spec, plugins, None, pooled, {}, rec, run_id)
+            warnings.extend(record.warnings)
+            pooled.update(output.artifacts)
+            files.update(output.files)
+            records.append(record)
 
-    pooled: dict[str, Any] = _pool(ok)
-    records: list[StepRecord] = [r for o in ok for r in o.records]
-    files: dict[str, bytes] = {}
-    for spec in later_steps:
-        if progress:
-            progress(f"{spec.kind}:{spec.method}")
-        output, record = _run_step(spec, plugins, None, pooled, {}, rec, run_id)
-        warnings.extend(record.warnings)
-        pooled.update(output.artifacts)
-        files.update(output.files)
-        records.append(record)
+        final_tables = {k: v for k, v in pooled.items() if isinstance(v, Table)}
+        return _write_run(
+            out_dir, force, rec, plugins, run_id, store.raws, store.input_plates, ok, records, final_tables, files,
+            warnings, failed, derived_from, store.copy_into,
+        )
+    finally:
+        store.close()
+        if scratch_dir is not None:
+            shutil.rmtree(scratch_dir, ignore_errors=True)
+        if own_executor and executor is not None:
+            executor.close()
 
-    final_tables = {k: v for k, v in pooled.items() if isinstance(v, Table)}
-    return _write_run(
-        out_dir, force, rec, plugins, run_id, raw_by_sha, input_plates, ok, records, final_tables, files,
-        warnings, failed, derived_from,
-    )
+
+def _map_plates(
+    rec: Recipe,
+    plugins: Plugins,
+    source: InputSource,
+    steps: list[StepSpec],
+    run_id: str,
+    executor: Executor | None,
+    store: PlateStore,
+) -> Iterator[PlateOutcome]:
+    """Each plate's outcome, in recipe order, computed here or by ``executor`` (bounded number in flight).
+
+    A plate whose input files cannot be read fails alone. The manifests that listed plates are stored as
+    inputs of every plate they list.
+    """
+    manifest_raws = {f"manifest{i or ''}": _raw(source, "manifest", rel) for i, rel in enumerate(rec.manifests)}
+
+    def read(plate: PlateSpec) -> dict[str, RawInput] | PlateOutcome:
+        try:
+            raws = {key: _raw(source, key, rel) for key, rel in plate.files.items()}
+        except VzeroError as exc:
+            return PlateOutcome(plate.name, {"exception": exc}, error=str(exc))
+        store.add_raws(plate.name, raws)
+        return raws
+
+    if manifest_raws:
+        for plate in rec.plates:
+            store.add_raws(plate.name, manifest_raws)
+    if executor is None:
+        for plate in rec.plates:
+            raws = read(plate)
+            yield raws if isinstance(raws, PlateOutcome) else process_plate(plate, raws, rec, plugins, steps, run_id)
+        return
+
+    def tasks() -> Iterator[PlateTask | PlateOutcome]:
+        for plate in rec.plates:
+            raws = read(plate)
+            yield raws if isinstance(raws, PlateOutcome) else PlateTask(rec.text, rec.path, plate, raws, run_id)
+
+    yield from ordered(executor, run_plate_task, tasks(), window=2 * executor.workers)
 
 
 def process_plate(
@@ -288,7 +370,7 @@ def _run_step(
     return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs)
 
 
-def _pool(outcomes: list[PlateOutcome]) -> dict[str, Any]:
+def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[str, Any]:
     """Stack each plate's tables (with a ``plate`` column first) and keep traces per plate."""
     pooled: dict[str, Any] = {}
     names = {k for o in outcomes for k, v in o.artifacts.items() if isinstance(v, Table)}
@@ -303,9 +385,7 @@ def _pool(outcomes: list[PlateOutcome]) -> dict[str, Any]:
                     frame.insert(0, "plate", o.plate)
                 tables.append(t.with_frame(frame))
         pooled[name] = Table.concat(tables)
-    pooled["traces"] = {
-        o.plate: o.artifacts["traces"] for o in outcomes if isinstance(o.artifacts.get("traces"), Traces)
-    }
+    pooled["traces"] = traces
     return pooled
 
 
@@ -328,12 +408,15 @@ def _write_run(
     warnings: list[str],
     failed: Mapping[str, str],
     derived_from: Mapping[str, Any] | None,
+    complete_audit: Callable[[Path], None] | None = None,
 ) -> RunResult:
-    """Write everything into a temporary folder beside ``out_dir``, then move it into place."""
+    """Write everything into a temporary folder beside ``out_dir``, then move it into place.
+
+    ``complete_audit(path)`` adds what was streamed elsewhere (spilled plate outputs) to the written audit
+    file before anything is moved into place."""
     from pipeline import audit
 
-    parent = out_dir.resolve().parent
-    parent.mkdir(parents=True, exist_ok=True)
+    parent = _parent(out_dir)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=parent))
     umask = os.umask(0)
     os.umask(umask)
@@ -343,6 +426,8 @@ def _write_run(
             tmp / "run.h5", rec, plugins, run_id, raw_by_sha, input_plates, records, tables, warnings, failed,
             derived_from,
         )
+        if complete_audit is not None:
+            complete_audit(tmp / "run.h5")
         for name, table in tables.items():
             table.frame.to_csv(tmp / f"{name}.csv", index=False)
         for rel, data in files.items():
@@ -358,6 +443,13 @@ def _write_run(
         raise
     del h5
     return RunResult(out_dir, out_dir / "run.h5", dict(tables), warnings, dict(failed))
+
+
+def _parent(out_dir: Path) -> Path:
+    """The folder that holds ``out_dir`` (created if missing): temporary files go there, on the same disk."""
+    parent = out_dir.resolve().parent
+    parent.mkdir(parents=True, exist_ok=True)
+    return parent
 
 
 def _fsync_dir(path: Path) -> None:

@@ -1,0 +1,323 @@
+"""Where the per-plate map of a batch runs: in this process, in a local process pool, or on a Dask cluster.
+
+The plugin manager cannot be pickled (plugins are modules), so a worker receives only plain data, a
+:class:`PlateTask` (the recipe's text and path, the plate's entry and its raw input bytes), rebuilds the
+plugins from the recipe once per process and runs the plate-scoped steps there. Outcomes come back to the
+driver, which alone writes the audit file. The same function runs the plate whatever the executor, so the
+numbers are the same to the bit.
+
+* :class:`PoolExecutor`: ``--jobs N``, a :class:`concurrent.futures.ProcessPoolExecutor` of N processes.
+* :class:`DaskExecutor`: ``--scheduler ADDRESS`` (``tcp://host:8786``) on a running Dask distributed
+  cluster, or ``--scheduler local`` for a :class:`distributed.LocalCluster` on this machine. Dask is an
+  optional extra (``pip install 'vzero[dask]'``), imported only here and only when asked for.
+
+Workers on other machines must see the recipe's local plugin files at the same path (a shared folder);
+installed plugin packages must be installed on every worker.
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+import pickle
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator, Mapping
+from dataclasses import dataclass
+from typing import Any, Protocol
+
+from pipeline.errors import VzeroError
+from pipeline.recipe import PlateSpec
+from pipeline.stage import RawInput
+
+#: Environment variables that keep each worker's numeric libraries on one thread (N workers, N cores).
+_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+@dataclass(frozen=True)
+class PlateTask:
+    """Everything a worker needs for one plate, as plain picklable data."""
+
+    recipe_text: str
+    recipe_path: str
+    plate: PlateSpec
+    raws: Mapping[str, RawInput]
+    run_id: str
+
+
+class Future(Protocol):
+    def result(self) -> Any: ...
+
+
+class Executor(Protocol):
+    """Runs :func:`run_plate_task` somewhere; ``workers`` is how many plates may run at once."""
+
+    workers: int
+    name: str
+
+    def submit(self, fn: Callable[[PlateTask], Any], task: PlateTask) -> Future: ...
+
+    def close(self) -> None: ...
+
+
+def run_plate_task(task: PlateTask) -> Any:
+    """Run one plate's plate-scoped steps in a worker (returns a :class:`pipeline.runner.PlateOutcome`).
+
+    A problem with the recipe or plugins in the worker becomes the plate's error, like a bad input file.
+    """
+    from pipeline.runner import PlateOutcome, process_plate
+
+    try:
+        rec, plugins, steps = _worker_setup(task.recipe_text, task.recipe_path)
+    except VzeroError as exc:
+        return PlateOutcome(task.plate.name, {"exception": exc}, error=f"worker setup: {exc}")
+    outcome = process_plate(task.plate, task.raws, rec, plugins, steps, task.run_id)
+    exc = outcome.artifacts.get("exception")
+    if exc is not None:
+        try:
+            pickle.loads(pickle.dumps(exc))
+        except Exception:  # an exception type that cannot cross processes: keep its message
+            outcome.artifacts = {"exception": VzeroError(str(exc))}
+    return outcome
+
+
+@functools.lru_cache(maxsize=4)
+def _worker_setup(recipe_text: str, recipe_path: str) -> tuple[Any, Any, list[Any]]:
+    """Parse the recipe, build the plugins it names and validate its steps: once per worker process."""
+    from pipeline.plugins import make_manager
+    from pipeline.recipe import check, parse
+
+    rec = parse(recipe_text, recipe_path)
+    plugins = make_manager(rec.plugin_entries, base_dir=rec.base_dir)
+    check(rec, plugins.registry, plates=False)
+    steps = [s for s in rec.steps if plugins.registry.get(s.kind, s.method).component.scope == "plate"]
+    return rec, plugins, steps
+
+
+def _one_thread() -> None:
+    """Process-pool initializer: one BLAS/OpenMP thread per worker (libraries not yet loaded honour it)."""
+    for var in _THREAD_VARS:
+        os.environ.setdefault(var, "1")
+
+
+class PoolExecutor:
+    """A local pool of ``jobs`` worker processes."""
+
+    name = "process pool"
+
+    def __init__(self, jobs: int) -> None:
+        from concurrent.futures import ProcessPoolExecutor
+
+        self.workers = jobs
+        self._pool = ProcessPoolExecutor(max_workers=jobs, initializer=_one_thread)
+
+    def submit(self, fn: Callable[[PlateTask], Any], task: PlateTask) -> Future:
+        return self._pool.submit(fn, task)
+
+    def close(self) -> None:
+        self._pool.shutdown(wait=True, cancel_futures=True)
+
+
+class DaskExecutor:
+    """Plates on a Dask distributed cluster: a scheduler address, or ``"local"`` for a LocalCluster."""
+
+    name = "dask"
+
+    def __init__(self, address: str, jobs: int | None = None, *, processes: bool = True) -> None:
+        try:
+            from distributed import Client, LocalCluster
+        except ImportError:
+            raise VzeroError(
+                "--scheduler needs Dask distributed, which is not installed",
+                hint="Install it with: pip install 'vzero[dask]'",
+            ) from None
+        self._cluster = None
+        try:
+            if address == "local":
+                self._cluster = LocalCluster(
+                    n_workers=jobs or 2, threads_per_worker=1, processes=processes, dashboard_address=None
+                )
+                self._client = Client(self._cluster)
+            else:
+                self._client = Client(address, timeout="20s")
+        except OSError as exc:
+            raise VzeroError(
+                f"cannot reach the Dask scheduler at {address!r}: {exc}",
+                hint="Check the address (like tcp://host:8786) and that the scheduler is running, "
+                     "or use --scheduler local.",
+            ) from None
+        n = len(self._client.scheduler_info().get("workers", {}))
+        self.workers = max(1, n)
+
+    def submit(self, fn: Callable[[PlateTask], Any], task: PlateTask) -> Future:
+        return self._client.submit(fn, task, pure=False)
+
+    def close(self) -> None:
+        self._client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+
+
+def make_executor(jobs: int = 1, scheduler: str | None = None) -> Executor | None:
+    """The executor for ``--jobs``/``--scheduler``; ``None`` means run plates in this process."""
+    if jobs < 1:
+        raise VzeroError(f"--jobs must be 1 or more, got {jobs}")
+    if scheduler:
+        return DaskExecutor(scheduler, jobs if jobs > 1 else None)
+    if jobs > 1:
+        return PoolExecutor(jobs)
+    return None
+
+
+@dataclass(frozen=True)
+class _Done:
+    """A result known without running anything (a plate that failed before it could be sent)."""
+
+    value: Any
+
+    def result(self) -> Any:
+        return self.value
+
+
+def ordered(executor: Executor, fn: Callable[[PlateTask], Any], items: Iterable[Any], window: int) -> Iterator[Any]:
+    """Submit the :class:`PlateTask` items with at most ``window`` in flight and yield results in order.
+
+    Items that are not tasks are passed through in their place. Items are drawn from the iterable only as
+    room frees up, so a long batch never holds more than ``window`` plates' raw bytes and outcomes at once;
+    yielding in order keeps the output identical to a serial run.
+    """
+    pending: deque[Future] = deque()
+    it = iter(items)
+
+    def put(item: Any) -> None:
+        pending.append(executor.submit(fn, item) if isinstance(item, PlateTask) else _Done(item))
+
+    for item in it:
+        put(item)
+        if len(pending) >= window:
+            break
+    while pending:
+        result = pending.popleft().result()
+        nxt = next(it, None)
+        if nxt is not None:
+            put(nxt)
+        yield result
+
+
+# -- streaming outcomes ------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SpilledRaw:
+    """A raw input whose bytes wait in the scratch file (same fields as :class:`RawInput`; ``data`` is read
+    back when the audit file is written)."""
+
+    key: str
+    name: str
+    sha256: str
+    _dataset: Any
+
+    @property
+    def data(self) -> bytes:
+        return bytes(self._dataset[()].tobytes())
+
+
+class TracesOnDisk(Mapping[str, Any]):
+    """Each plate's final traces, read back from the scratch file when a pooled or final step asks."""
+
+    def __init__(self, h5: Any, paths: Mapping[str, str]) -> None:
+        self._h5, self._paths = h5, dict(paths)
+
+    def __getitem__(self, plate: str) -> Any:
+        from pipeline.audit import read_traces
+
+        return read_traces(self._h5[self._paths[plate]])
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._paths)
+
+    def __len__(self) -> int:
+        return len(self._paths)
+
+
+class PlateStore:
+    """Finished plates, kept for the reduce and the audit file with bounded memory.
+
+    Without a scratch file everything stays in memory (one plate: the quick path). With one, each plate's
+    step outputs (traces, tables, arrays) and raw input bytes are written to the scratch HDF5 file as the plate
+    arrives; memory keeps only the per-plate tables that the pooled steps stack. When the audit file has been
+    written, :meth:`copy_into` copies the stored outputs into it with HDF5's own object copy, so the file is
+    the same as the one written from memory.
+    """
+
+    def __init__(self, scratch: Any | None = None) -> None:
+        self.outcomes: list[Any] = []
+        self.raws: dict[str, Any] = {}
+        self.input_plates: dict[str, list[str]] = {}
+        self._traces: dict[str, str] = {}
+        self._h5: Any = None
+        if scratch is not None:
+            import h5py
+
+            self._h5 = h5py.File(scratch, "w", track_order=True)
+
+    @property
+    def spills(self) -> bool:
+        return self._h5 is not None
+
+    def add_raws(self, plate: str, raws: Mapping[str, RawInput]) -> None:
+        for raw in raws.values():
+            if raw.sha256 not in self.raws:
+                if self._h5 is not None:
+                    import numpy as np
+
+                    ds = self._h5.create_dataset(f"inputs/{raw.sha256}", data=np.frombuffer(raw.data, np.uint8))
+                    self.raws[raw.sha256] = SpilledRaw(raw.key, raw.name, raw.sha256, ds)
+                else:
+                    self.raws[raw.sha256] = raw
+            self.input_plates.setdefault(raw.sha256, []).append(plate)
+
+    def add(self, outcome: Any) -> None:
+        """Keep ``outcome``; with a scratch file, move its step outputs there and keep only its tables."""
+        if self._h5 is not None and not outcome.error:
+            from pipeline.audit import write_artifact
+            from pipeline.data import Table
+
+            final = outcome.artifacts.get("traces")
+            for record in outcome.records:
+                g = self._h5.require_group(f"steps/{record.spec.label}").create_group(outcome.plate, track_order=True)
+                for name, value in record.outputs.items():
+                    write_artifact(g, name, value)
+                    if final is not None and value is final:
+                        self._traces[outcome.plate] = f"{g.name}/{name}"
+                record.outputs = {}
+            outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
+        self.outcomes.append(outcome)
+
+    def traces(self) -> Mapping[str, Any]:
+        """Every successful plate's final traces, by plate name."""
+        from pipeline.data import Traces
+
+        if self._h5 is not None:
+            return TracesOnDisk(self._h5, self._traces)
+        return {o.plate: o.artifacts["traces"] for o in self.outcomes
+                if not o.error and isinstance(o.artifacts.get("traces"), Traces)}
+
+    def copy_into(self, audit_path: Any) -> None:
+        """Copy the spilled step outputs into the written audit file (``/steps/<label>/<plate>``)."""
+        if self._h5 is None or "steps" not in self._h5:
+            return
+        import h5py
+
+        with h5py.File(audit_path, "a") as f:
+            for label, step in self._h5["steps"].items():
+                for plate, src in step.items():
+                    dst = f[f"steps/{label}/{plate}"]
+                    for name in src:
+                        self._h5.copy(src[name], dst, name=name)
+                    for key, value in src.attrs.items():
+                        dst.attrs[key] = value
+
+    def close(self) -> None:
+        if self._h5 is not None:
+            self._h5.close()
+            self._h5 = None
