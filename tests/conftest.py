@@ -7,8 +7,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import settings
 
 from pipeline.plugins import make_manager
+
+# Property tests: no per-example deadline (the first example pays one-off costs such as building the unit
+# registry, and CI machines are shared), and a fixed example budget so the suite's time is predictable.
+settings.register_profile("vzero", deadline=None, max_examples=60)
+settings.load_profile("vzero")
 
 TESTS = Path(__file__).parent
 DATA = TESTS / "data"
