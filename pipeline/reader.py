@@ -26,6 +26,7 @@ __all__ = [
     "open_audit",
     "read_inputs",
     "read_results",
+    "read_step_traces",
     "read_table",
     "read_traces",
     "table_sha256",
@@ -143,3 +144,12 @@ def read_result(path: str | Path, name: str) -> Table | None:
     """One final table of the audit file at ``path`` (``None`` when the run has no such table)."""
     with open_audit(path) as f:
         return read_table(f["results"][name]) if name in f["results"] else None
+
+
+def read_step_traces(f: Any, kind: str = "import") -> dict[str, Any]:
+    """Per-plate traces kept by the first step of ``kind`` (default: the raw reads as imported), by plate."""
+    for g in f["steps"].values():
+        if str(g.attrs.get("kind")) != kind:
+            continue
+        return {plate: read_traces(sub["traces"]) for plate, sub in g.items() if "traces" in sub}
+    return {}

@@ -1,0 +1,110 @@
+"""CSV and xlsx exports of an audit file.
+
+* CSV: one results table (default ``rates``), each row carrying the run it came from (``run_id``,
+  ``recipe_sha256``) and the assay conditions from the recipe's ``assay`` block (columns ``assay_...``), so a
+  row read on its own still says where and under what conditions it was measured.
+* xlsx: a sheet ``about`` (provenance, assay, exclusions and overrides, the research-use note), one sheet per
+  results table, and a sheet ``time courses`` with the reads as imported (long form; masked reads marked).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from pipeline.errors import VzeroError
+
+RESEARCH_NOTE = ("Results are for research use only; check them against your laboratory's validated "
+                 "procedures before relying on them.")
+EXCEL_ROWS = 1_048_575  # rows below the header in one sheet (the format's limit)
+
+
+def flatten(mapping: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    """``{"enzyme": {"name": "x"}}`` -> ``{"enzyme_name": "x"}``; lists become text."""
+    out: dict[str, Any] = {}
+    for key, value in mapping.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            out.update(flatten(value, f"{name}_"))
+        elif isinstance(value, list):
+            out[name] = "; ".join(str(v) for v in value)
+        else:
+            out[name] = value
+    return out
+
+
+def _load(audit: str | Path) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any]]:
+    from pipeline import reader
+
+    with reader.open_audit(audit) as f:
+        return reader.header(f), reader.read_results(f), reader.read_step_traces(f)
+
+
+def table_with_context(head: Mapping[str, Any], table: pd.DataFrame) -> pd.DataFrame:
+    """The table plus ``run_id``, ``recipe_sha256`` and the flattened assay block as constant columns."""
+    out = table.copy()
+    out["run_id"] = head.get("run_id", "")
+    out["recipe_sha256"] = head.get("recipe_sha256", "")
+    for key, value in flatten(head.get("assay") or {}, "assay_").items():
+        out[key] = value
+    return out
+
+
+def write_csv(audit: str | Path, target: str | Path, table: str = "rates") -> None:
+    head, results, _ = _load(audit)
+    if table not in results:
+        raise VzeroError(f"{audit} has no results table {table!r}; it has {', '.join(results) or 'none'}",
+                         hint="Choose one with --table.")
+    table_with_context(head, results[table].frame).to_csv(target, index=False)
+
+
+def about_rows(head: Mapping[str, Any]) -> pd.DataFrame:
+    """Key/value rows for the ``about`` sheet."""
+    rows: list[tuple[str, Any]] = [("note", RESEARCH_NOTE)]
+    for key in ("recipe_name", "run_id", "created", "vzero_version", "format", "format_version", "recipe_sha256"):
+        rows.append((key, head.get(key, "")))
+    rows += [(f"version {k}", v) for k, v in (head.get("versions") or {}).items()]
+    if head.get("derived_from"):
+        rows += [(f"rerun of: {k}", str(v)) for k, v in head["derived_from"].items()]
+    rows += [(f"assay {k}", v) for k, v in flatten(head.get("assay") or {}).items()]
+    for key in ("exclusions", "overrides"):
+        for item in head.get(key) or []:
+            rows.append((key[:-1], ", ".join(f"{k}={v}" for k, v in item.items())))
+    rows.append(("recipe", head.get("recipe_text", "")))
+    return pd.DataFrame(rows, columns=["item", "value"])
+
+
+def time_courses(traces: Mapping[str, Any]) -> pd.DataFrame:
+    """Long table plate, well, time_s, signal, usable (one row per read), from per-plate traces."""
+    import numpy as np
+
+    parts = []
+    for plate, t in traces.items():
+        n_w, n_t = t.signal.shape
+        parts.append(pd.DataFrame({
+            "plate": plate,
+            "well": np.repeat(np.asarray(t.well_names, dtype=object), n_t),
+            "time_s": np.tile(t.time, n_w),
+            "signal": t.signal.ravel(),
+            "signal_unit": t.signal_unit,
+            "usable": t.mask.ravel(),
+        }))
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
+
+
+def write_xlsx(audit: str | Path, target: str | Path) -> None:
+    head, results, traces = _load(audit)
+    courses = time_courses(traces)
+    with pd.ExcelWriter(target, engine="openpyxl") as xw:
+        about_rows(head).to_excel(xw, sheet_name="about", index=False)
+        for name, table in results.items():
+            table.frame.to_excel(xw, sheet_name=name[:31], index=False)
+        if len(courses) <= EXCEL_ROWS:
+            courses.to_excel(xw, sheet_name="time courses", index=False)
+        else:
+            pd.DataFrame({"note": [f"{len(courses)} reads do not fit one sheet; use the audit file or the "
+                                   "EnzymeML export for the time courses"]}).to_excel(
+                xw, sheet_name="time courses", index=False)
