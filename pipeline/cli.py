@@ -1,6 +1,7 @@
 """The ``vzero`` command line: ``main(argv) -> int``.
 
-Exit codes: 0 success; 1 the run finished but some wells or plates failed; 2 bad recipe, input or usage.
+Exit codes: 0 success; 1 the run finished but some wells or plates failed; 2 bad recipe, input or usage;
+3 internal error (a bug: ``--debug`` shows the traceback); 130 interrupted.
 Errors print as one message ending with what to do; ``--debug`` shows the traceback.
 """
 
@@ -16,7 +17,8 @@ from typing import Any
 from pipeline import __version__
 from pipeline.errors import VzeroError
 
-EPILOG = """exit codes: 0 success; 1 finished with failed wells or plates; 2 bad recipe or input.
+EPILOG = """exit codes: 0 success; 1 finished with failed wells or plates; 2 bad recipe or input;
+3 internal error (--debug shows the traceback). Set NO_COLOR to turn colour off.
 Results are for research use; they do not replace your lab's validated procedures."""
 
 
@@ -60,15 +62,79 @@ def _cfg_run(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipe", help="the recipe file (YAML)")
     p.add_argument("--out", "-o", required=True, help="folder to write run.h5 and the tables into")
     p.add_argument("--force", action="store_true", help="replace an existing run in --out")
+    p.add_argument("--jobs", "-j", type=_positive, default=1, metavar="N",
+                   help="run plates in N local processes (default 1); with --scheduler local: N workers")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run plates on the Dask cluster at ADDRESS (tcp://host:8786), or 'local' to start one "
+                        "on this machine (needs: pip install 'vzero[dask]')")
+
+
+def _positive(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number of processes, got {text!r}") from None
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"expected 1 or more processes, got {n}")
+    return n
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
     from pipeline.runner import run
 
-    progress = (lambda msg: print(f"  {msg}", file=sys.stderr)) if args.verbose else None
-    result = run(args.recipe, args.out, force=args.force, progress=progress)
+    shown = Progress(verbose=args.verbose, quiet=args.quiet)
+    try:
+        result = run(args.recipe, args.out, force=args.force, progress=shown, jobs=args.jobs,
+                     scheduler=args.scheduler)
+    finally:
+        shown.finish()
     _report_result(args, result)
     return result.exit_code
+
+
+class Progress:
+    """Progress of a run on stderr: a bar redrawn in place on a terminal for batches, one line per plate
+    with ``-v``, nothing with ``-q`` or when stderr is not a terminal (unless ``-v``). Colour only on a
+    terminal and never when ``NO_COLOR`` is set (https://no-color.org)."""
+
+    def __init__(self, *, verbose: bool = False, quiet: bool = False, stream: Any = None) -> None:
+        self.stream = stream or sys.stderr
+        tty = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.verbose = verbose and not quiet
+        self.bar = tty and not quiet and not verbose
+        self.colour = tty and not os.environ.get("NO_COLOR")
+        self.failed = 0
+        self._drawn = False
+
+    def __call__(self, event: Any) -> None:
+        if event.error:
+            self.failed += 1
+        if self.verbose:
+            if event.plate:
+                state = self._red("failed: " + event.error.splitlines()[0]) if event.error else "done"
+                print(f"  [{event.done}/{event.total}] plate {event.plate} {state} ({event.seconds:.1f} s)",
+                      file=self.stream)
+            elif event.step:
+                print(f"  {event.step} on the pooled plates ({event.seconds:.1f} s)", file=self.stream)
+        elif self.bar and event.total > 1:
+            width = 30
+            filled = width * event.done // event.total
+            failed = f"  {self._red(f'{self.failed} failed')}" if self.failed else ""
+            what = f"  {event.step}" if event.step else ""
+            line = f"\r  [{'#' * filled}{'.' * (width - filled)}] {event.done}/{event.total} plates{failed}" \
+                   f"  {event.seconds:.0f} s{what}\x1b[K"
+            self.stream.write(line)
+            self.stream.flush()
+            self._drawn = True
+
+    def _red(self, text: str) -> str:
+        return f"\x1b[31m{text}\x1b[0m" if self.colour else text
+
+    def finish(self) -> None:
+        if self._drawn:
+            self.stream.write("\n")
+            self.stream.flush()
+            self._drawn = False
 
 
 def _report_result(args: argparse.Namespace, result: Any) -> None:
@@ -141,7 +207,7 @@ def _cmd_inspect(args: argparse.Namespace) -> int:
 
 CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int], str]] = [
     ("run", "Run a recipe on its plates and write the audit file and tables.", _cfg_run, _cmd_run,
-     "vzero run configs/demo.yaml --out runs/today"),
+     "vzero run configs/demo.yaml --out runs/today\n  vzero run batch.yaml --out runs/batch --jobs 4"),
     ("check", "Validate a recipe without running it.", _cfg_check, _cmd_check, "vzero check configs/demo.yaml"),
     ("plugins", "List every stage method and model, where it came from and its version.", _cfg_plugins,
      _cmd_plugins, "vzero plugins --params"),
@@ -216,6 +282,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BrokenPipeError:
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
+    except Exception as exc:  # a bug, not bad input: one line unless --debug
+        if debug:
+            raise
+        print(f"error: internal error ({type(exc).__name__}: {exc}); nothing was written to the output folder. "
+              "Run again with --debug for the traceback and report it.", file=sys.stderr)
+        return 3
 
 
 if __name__ == "__main__":  # pragma: no cover
