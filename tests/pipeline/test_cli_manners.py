@@ -37,6 +37,7 @@ def test_help_is_quick_and_imports_no_heavy_module():
     wall = time.perf_counter() - t0
     seconds, heavy = proc.stderr.strip().split(" ", 1)
     assert heavy == "[]", heavy
+    assert float(seconds) < 1.0, f"import and --help took {seconds} s after interpreter start (target 0.5 s)"
     assert "exit codes" in proc.stdout and "run" in proc.stdout
     assert wall < 2.0, f"vzero --help took {wall:.2f} s including interpreter start"
 
