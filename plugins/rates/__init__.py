@@ -83,7 +83,7 @@ class AutoRates(KernelRates):
     kind, method, version = "rates", "auto", "1.0"
     summary = "automatic early window, curvature judged against read noise; slope at the window start"
     kernel = "plugins.rates.auto:auto"
-    kernel_params = ("max_conversion", "max_rate_drop", "t_crit", "min_points", "find_lag")
+    kernel_params = ("max_conversion", "max_rate_drop", "t_crit", "min_points", "find_lag", "estimate")
     params = {
         **CONVERSION_PARAMS,
         "max_conversion": MAX_CONVERSION,
@@ -92,6 +92,9 @@ class AutoRates(KernelRates):
         "t_crit": Param("float", 3.0, "|t| of the quadratic term above which curvature is significant", low=1.0),
         "min_points": Param("int", 6, "reads in the shortest window", low=4),
         "find_lag": Param("bool", True, "start the window after a detected lag phase"),
+        "estimate": Param.choice(("quadratic", "select"), "quadratic",
+                                 "v0 from the window's quadratic (no low bias from curvature), or 'select': the "
+                                 "straight line where curvature is not significant (smaller scatter on noisy wells)"),
     }
 
 
