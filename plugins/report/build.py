@@ -1,0 +1,250 @@
+"""Assemble the report: gather the tables, draw the figures, render the HTML template.
+
+:func:`build` is the one entry point, used both by the report stage (from a run's artifacts) and by
+``vzero report RUN.h5`` (from an audit file). It returns the files to write, relative to the run folder:
+``report.html`` (self-contained: figures inline as base64 PNG, no network) and ``figures/<name>.png`` and
+``.svg``.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from pipeline.data import Table, Traces
+from plugins.report import content, figures
+
+RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
+                 "lab's validated procedures before relying on them, and do not use them for diagnosis or "
+                 "release decisions.")
+
+
+@dataclass
+class Figure:
+    """One figure of the report: a file stem a person can find, a title, a caption and its bytes."""
+
+    name: str
+    title: str
+    caption: str
+    png: bytes
+    svg: bytes
+    section: str
+
+    @property
+    def png_b64(self) -> str:
+        return base64.b64encode(self.png).decode("ascii")
+
+
+@dataclass
+class ReportInput:
+    """What a report is built from: final tables by name, traces by plate, the recipe mapping, provenance."""
+
+    tables: Mapping[str, Table]
+    traces: Mapping[str, Traces]
+    recipe: Mapping[str, Any]
+    provenance: Mapping[str, Any]
+    max_panels: int = figures.MAX_PANELS
+    title: str = ""
+    notes: list[str] = field(default_factory=list)
+
+
+def _frame(tables: Mapping[str, Table], name: str) -> pd.DataFrame:
+    t = tables.get(name)
+    if t is None:
+        return pd.DataFrame()
+    return t.frame if isinstance(t, Table) else pd.DataFrame(t)
+
+
+def _unique(name: str, taken: set[str]) -> str:
+    out, k = name, 2
+    while out in taken:
+        out, k = f"{name}-{k}", k + 1
+    taken.add(out)
+    return out
+
+
+def _evaluators(fits: pd.DataFrame, group: str, x_col: str) -> dict[str, Callable[[np.ndarray], np.ndarray]]:
+    """Exact fitted-rate functions of ``x_col`` per model of one group, where the fit plugin's model is known
+    and every parameter was determined (residuals then need no interpolation)."""
+    try:
+        from plugins.fit.catalog import BY_NAME
+    except ImportError:  # the fit plugin is optional for the report
+        return {}
+    out: dict[str, Callable[[np.ndarray], np.ndarray]] = {}
+    if fits.empty:
+        return out
+    sub = fits[fits["group"].astype(str) == group]
+    for name in dict.fromkeys(sub["model"].astype(str)):
+        model = BY_NAME.get(name)
+        if model is None or tuple(model.variables) != (x_col,):
+            continue
+        rows = sub[sub["model"].astype(str) == name].set_index("parameter")["estimate"]
+        try:
+            p = [float(rows[k]) for k in model.params]
+        except (KeyError, TypeError, ValueError):
+            continue
+        if np.all(np.isfinite(p)):
+            out[name] = lambda x, m=model, p=p: np.asarray(m.evaluate(p, {x_col: np.asarray(x, float)}), float)
+    return out
+
+
+def _signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: str) -> np.ndarray | None:
+    """Each well's rate in signal units per second (what the progress-curve panels draw), or None."""
+    if "signal_rate" in rates:
+        return pd.to_numeric(rates["signal_rate"], errors="coerce").to_numpy(float)
+    if "rate" in rates and units.get("rate", "") in (f"{signal_unit}/s", ""):
+        return pd.to_numeric(rates["rate"], errors="coerce").to_numpy(float)
+    return None
+
+
+def build(inp: ReportInput) -> dict[str, bytes]:
+    """Draw every figure and render the HTML. Returns ``{relative path: bytes}``."""
+    tables = inp.tables
+    rates_t = tables.get("rates")
+    rates = _frame(tables, "rates")
+    rate_units = dict(rates_t.units) if isinstance(rates_t, Table) else {}
+    fits = _frame(tables, "fits")
+    comparison = _frame(tables, "model_comparison")
+    coop = _frame(tables, "cooperativity")
+    diag = _frame(tables, "diagnostics")
+    curves = _frame(tables, "curves")
+    options = content.fit_options(inp.recipe)
+    rate_unit = rate_units.get("rate", "") or (str(rates["rate_unit"].iloc[0]) if "rate_unit" in rates and len(rates)
+                                               else "")
+    used: np.ndarray | None = None
+    if not rates.empty and options["present"]:
+        used, _ = content.fit_use(rates, options)
+    taken: set[str] = set()
+    figs: list[Figure] = []
+    notes = list(inp.notes)
+
+    # plate maps and progress curves, per plate
+    plates = list(dict.fromkeys(list(inp.traces) + (rates["plate"].astype(str).tolist() if "plate" in rates else [])))
+    for plate in plates:
+        pr = rates[rates["plate"].astype(str) == plate] if "plate" in rates else rates
+        pused = used[(rates["plate"].astype(str) == plate).to_numpy()] if used is not None and "plate" in rates \
+            else used
+        if len(pr) and "rate" in pr and "well" in pr:
+            fig = figures.plate_map(plate, pr, pused, content.pretty_unit(rate_unit) or "?")
+            png, svg = figures.render(fig)
+            figs.append(Figure(_unique(f"plate-map_{figures.slug(plate)}", taken), f"Plate map of v0: {plate}",
+                               "Each circle is a well, darker for a faster initial rate. Hatched grey: no rate. "
+                               "A heavy ring marks a flagged well, a cross a sample well left out of the fit "
+                               "(reasons under Flagged wells and Exclusions).", png, svg, "plates"))
+        traces = inp.traces.get(plate)
+        if traces is not None:
+            slope = None
+            if len(pr) and {"window_start_s", "window_end_s", "well"} <= set(pr.columns):
+                slope = _signal_slope(pr, rate_units, traces.signal_unit)
+                if slope is None:
+                    notes.append(f"plate {plate}: rate lines not drawn (the rates are not in {traces.signal_unit}/s "
+                                 "and there is no signal_rate column)")
+            fig, note = figures.progress_grid(traces, pr if len(pr) else None, slope, inp.max_panels)
+            png, svg = figures.render(fig, dpi=150)
+            cap = ("Every well's reads (grey) in plate geometry, all cells on the same time and signal scale. The "
+                   "orange line has the slope reported as the well's rate and spans the reads it came from. "
+                   "Flagged wells have a dashed frame and their flags in short.")
+            figs.append(Figure(_unique(f"progress-curves_{figures.slug(plate)}", taken),
+                               f"Progress curves: {plate}", cap + (" " + note if note else ""), png, svg, "plates"))
+
+    # per group: rates against concentration, transforms, tables
+    groups: list[dict[str, Any]] = []
+    x_col = options["x"]
+    group_col = options["group_by"]
+    names = list(dict.fromkeys(fits["group"].astype(str))) if "group" in fits else []
+    if not names and group_col in rates and "role" in rates:
+        names = list(dict.fromkeys(rates.loc[rates["role"].astype(str) == "sample", group_col].astype(str)))
+    for g in names:
+        block: dict[str, Any] = {"name": g, "figures": []}
+        rows, sentence = content.comparison_rows(comparison, g)
+        block["comparison"], block["comparison_sentence"] = rows, sentence
+        preferred = next((r["model"] for r in rows if r["preferred"]), "")
+        pref_raw = ""
+        if not comparison.empty and "group" in comparison:
+            sub = comparison[comparison["group"].astype(str) == g]
+            pref_raw = str(sub["preferred"].iloc[0]) if len(sub) else ""
+        block["preferred"] = preferred
+        block["parameters"] = content.parameter_tables(fits, g) if not fits.empty else []
+        crow = coop[coop["group"].astype(str) == g] if "group" in coop else pd.DataFrame()
+        block["verdict"] = content.verdict_sentence(crow.iloc[0], options["confidence"]) if len(crow) else ""
+        block["verdict_key"] = str(crow.iloc[0]["verdict"]) if len(crow) else ""
+        in_group = (rates[group_col].astype(str) == g).to_numpy() if group_col in rates else np.zeros(len(rates), bool)
+        gc = curves[curves["group"].astype(str) == g] if "group" in curves else pd.DataFrame()
+        variables = list(dict.fromkeys(gc["variable"].astype(str))) if len(gc) else ([x_col] if x_col in rates else [])
+        for var in variables:
+            col = x_col if var == "substrate" else options.get("inhibitor", var)
+            col = col if col in rates else var
+            if col not in rates:
+                continue
+            pts_mask = in_group & np.isfinite(pd.to_numeric(rates[col], errors="coerce").to_numpy(float))
+            pts = rates[pts_mask]
+            pused = used[pts_mask] if used is not None else np.ones(len(pts), bool)
+            cv = gc[gc["variable"].astype(str) == var] if len(gc) else pd.DataFrame(
+                columns=["model", "variable", "inhibitor", "x", "y", "lower", "upper"])
+            unit = rate_units.get(col, "") or (str(pts[f"{col}_unit"].iloc[0]) if f"{col}_unit" in pts and len(pts)
+                                               else "")
+            fig = figures.rates_vs_x(g, pts, pused, cv, pref_raw, col, content.pretty_unit(unit),
+                                     content.pretty_unit(rate_unit) or "?",
+                                     _evaluators(fits, g, var))
+            png, svg = figures.render(fig)
+            conf = f"{options['confidence'] * 100:g} %"
+            block["figures"].append(Figure(
+                _unique(f"rates-vs-{figures.slug(var)}_{figures.slug(g)}", taken), f"{g}: v0 against {col}",
+                f"Filled points: wells in the fit, with the standard error of each rate. Lines: fitted models; "
+                f"shaded: the {conf} pointwise confidence band of each curve. Hollow points were not fitted. Below: "
+                "residuals (observed − fitted) of the fitted wells.", png, svg, "groups"))
+        gd = diag[diag["group"].astype(str) == g] if "group" in diag else pd.DataFrame()
+        if len(gd):
+            fig = figures.transforms(g, gd)
+            png, svg = figures.render(fig)
+            block["figures"].append(Figure(
+                _unique(f"transforms_{figures.slug(g)}", taken), f"{g}: Hill plot and linear transforms",
+                "Each transform's straight line and the estimates it implies are shown for inspection only: "
+                "transforms distort the errors, so the reported parameters come from the nonlinear fit. Hill plot "
+                "points outside 10–90 % of Vmax are hollow and not used for its line.", png, svg, "groups"))
+        groups.append(block)
+    figs += [f for b in groups for f in b["figures"]]
+
+    files: dict[str, bytes] = {}
+    for f in figs:
+        files[f"figures/{f.name}.png"] = f.png
+        files[f"figures/{f.name}.svg"] = f.svg
+    flagged = content.flagged_rows(rates) if not rates.empty else []
+    exclusions = content.exclusion_rows(rates, options, inp.recipe)
+    html = render_html({
+        "title": inp.title or f"vzero report: {inp.recipe.get('name', 'run')}",
+        "recipe": inp.recipe,
+        "provenance": inp.provenance,
+        "research_note": RESEARCH_NOTE,
+        "counts": content.summary_counts(rates, used) if not rates.empty else None,
+        "plates": plates,
+        "plate_figures": [f for f in figs if f.section == "plates"],
+        "groups": groups,
+        "flagged": flagged,
+        "flag_text": content.FLAG_TEXT,
+        "exclusions": exclusions,
+        "options": options,
+        "rate_unit": content.pretty_unit(rate_unit),
+        "missing": [n for n in ("rates", "fits", "model_comparison", "cooperativity", "diagnostics", "curves")
+                    if n not in tables],
+        "notes": notes,
+        "built": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+    })
+    files["report.html"] = html.encode("utf-8")
+    return files
+
+
+def render_html(context: Mapping[str, Any]) -> str:
+    """Render the report template (jinja2, autoescape on) with ``context``."""
+    import jinja2
+
+    env = jinja2.Environment(loader=jinja2.PackageLoader("plugins.report", "templates"), autoescape=True,
+                             undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
+    env.filters["num"] = content.num
+    return env.get_template("report.html.j2").render(**context)

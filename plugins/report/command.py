@@ -1,0 +1,52 @@
+"""``vzero report RUN.h5 [--out DIR]``: rebuild the HTML report and figures from an audit file.
+
+Useful for runs made without a report step, or after the report itself improves: the numbers come from the
+audit file unchanged; only the presentation is rebuilt. Files are written to a temporary name and renamed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+from pathlib import Path
+
+from pipeline.errors import OutputExistsError
+
+HELP = "Rebuild the HTML report and figures of a finished run from its audit file."
+EXAMPLE = "vzero report runs/today/run.h5 --out runs/today"
+
+
+def configure(p: argparse.ArgumentParser) -> None:
+    p.add_argument("audit", help="the audit file of a run (run.h5)")
+    p.add_argument("--out", "-o", help="folder for report.html and figures/ (default: the audit file's folder)")
+    p.add_argument("--max-panels", type=int, default=384,
+                   help="most wells drawn per progress-curve figure (default 384)")
+    p.add_argument("--force", action="store_true", help="replace an existing report.html in --out")
+
+
+def write_files(out: Path, files: dict[str, bytes], force: bool) -> None:
+    """Write ``files`` under ``out``, each through a temporary name in the same folder."""
+    target = out / "report.html"
+    if target.exists() and not force:
+        raise OutputExistsError(f"{target} already exists", hint="Pass --force to replace it, or choose --out.")
+    for rel, data in files.items():
+        path = out / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(f".{path.name}.partial")
+        tmp.write_bytes(data)
+        os.replace(tmp, path)
+
+
+def run(args: argparse.Namespace) -> int:
+    from plugins.report.build import build
+    from plugins.report.sources import from_audit
+
+    audit = Path(args.audit)
+    out = Path(args.out) if args.out else audit.parent
+    report_input = from_audit(audit, max_panels=args.max_panels)
+    files = build(report_input)
+    write_files(out, files, args.force)
+    if not getattr(args, "quiet", False):
+        n = sum(1 for k in files if k.endswith(".png"))
+        print(f"wrote {out / 'report.html'} and {n} figures (PNG and SVG) in {out / 'figures'}/")
+    return 0

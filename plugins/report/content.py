@@ -1,0 +1,293 @@
+"""What the report says, as plain data: summary counts, flagged wells, exclusions, parameter tables, model
+comparison and the cooperativity verdict in words.
+
+Everything here works on pandas tables and returns lists of dicts or strings for the templates; nothing is
+drawn. Each table may be missing (a recipe without a fit step, an older audit file): the functions then
+return empty results and the template says what is absent.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+FLAG_TEXT: dict[str, str] = {
+    "saturated": "a read hit the detector ceiling; those reads were not used",
+    "high_conversion": "the rate window runs past about 10 % substrate conversion (common practice limit)",
+    "curvature": "the progress curve bends inside the window used",
+    "lag": "the curve starts slowly and speeds up (lag phase)",
+    "decay": "the rate falls faster than substrate depletion explains (loss of activity?)",
+    "noisy": "signal-to-noise below the method's threshold",
+    "too_few_points": "too few usable reads for the method",
+    "all_missing": "no usable read at all",
+    "no_signal": "total change within the read noise: no determinable rate",
+    "fit_failed": "the per-well curve fit did not converge or does not describe the curve",
+    "excluded": "excluded in the recipe",
+    "overridden": "window fixed by hand in the recipe",
+}
+"""Each quality flag in words, as the report prints it."""
+
+DEFAULT_EXCLUDE = ("saturated", "all_missing", "no_signal", "too_few_points", "fit_failed", "excluded")
+"""Flags that keep a well out of the fit when the recipe does not say otherwise (the fit stage's default)."""
+
+MODEL_TITLES: dict[str, str] = {
+    "michaelis-menten": "Michaelis–Menten",
+    "hill": "Hill",
+}
+
+
+def model_title(name: str) -> str:
+    """A model's name as printed (``hill`` -> ``Hill``); unknown names are shown as they are."""
+    return MODEL_TITLES.get(name, name)
+
+
+# -- numbers -----------------------------------------------------------------------------------------------
+
+
+def _finite(x: Any) -> bool:
+    try:
+        return math.isfinite(float(x))
+    except (TypeError, ValueError):
+        return False
+
+
+def num(x: Any, sig: int = 4) -> str:
+    """``x`` with ``sig`` significant figures; very large or small values as a × 10^n; '—' when missing."""
+    if not _finite(x):
+        return "—"
+    v = float(x)
+    if v == 0:
+        return "0"
+    e = math.floor(math.log10(abs(v)))
+    if -3 <= e < 5:
+        decimals = max(sig - 1 - e, 0)
+        return f"{v:.{decimals}f}"
+    return f"{v / 10**e:.{sig - 1}f} × 10{str(e).translate(_SUPERSCRIPT)}"
+
+
+def with_error(value: Any, stderr: Any) -> str:
+    """``value ± stderr`` with the error to two significant figures and the value to the same decimal place."""
+    if not _finite(value):
+        return "—"
+    if not _finite(stderr) or float(stderr) <= 0:
+        return num(value)
+    v, s = float(value), float(stderr)
+    e = math.floor(math.log10(abs(v))) if v else math.floor(math.log10(s))
+    if not -3 <= e < 5:
+        scale = 10.0**e
+        return f"({with_error(v / scale, s / scale)}) × 10{str(e).translate(_SUPERSCRIPT)}"
+    decimals = max(1 - math.floor(math.log10(s)), 0)
+    return f"{v:.{decimals}f} ± {s:.{decimals}f}"
+
+
+def interval(low: Any, high: Any) -> str:
+    """``[low, high]`` or '—' when either end is missing (an open or undetermined interval)."""
+    if not (_finite(low) and _finite(high)):
+        return "—"
+    return f"[{num(low)}, {num(high)}]"
+
+
+# -- recipe -------------------------------------------------------------------------------------------------
+
+
+def step_settings(recipe: Mapping[str, Any], kind: str) -> dict[str, Any]:
+    """The parameters of the last recipe step of ``kind`` as written ({} when there is none)."""
+    found: dict[str, Any] = {}
+    for step in recipe.get("steps", []) or []:
+        if isinstance(step, Mapping) and kind in step and isinstance(step[kind], Mapping):
+            found = dict(step[kind])
+    return found
+
+
+def fit_options(recipe: Mapping[str, Any]) -> dict[str, Any]:
+    """The fit step's options the report needs, with the fit stage's defaults where the recipe is silent."""
+    s = step_settings(recipe, "fit")
+    return {
+        "present": bool(s),
+        "exclude_flags": [str(f) for f in s.get("exclude_flags", DEFAULT_EXCLUDE)],
+        "confidence": float(s.get("confidence", 0.95)),
+        "x": str(s.get("x", "substrate")),
+        "inhibitor": str(s.get("inhibitor", "inhibitor")),
+        "group_by": str(s.get("group_by", "group")),
+        "models": [str(m) for m in s.get("models", [])],
+    }
+
+
+# -- wells ---------------------------------------------------------------------------------------------------
+
+
+def flag_list(text: Any) -> list[str]:
+    """Flag names of one well (``'lag;noisy'`` -> ``['lag', 'noisy']``)."""
+    if text is None or (isinstance(text, float) and math.isnan(text)):
+        return []
+    return [p.strip() for p in str(text).split(";") if p.strip()]
+
+
+def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray, list[str]]:
+    """Which wells the fit stage used (same rule as the fit stage: a sample, a finite rate, none of the
+    excluding flags) and, for each well not used, the reason in words ('' where used)."""
+    n = len(rates)
+    reasons = [""] * n
+    rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce").to_numpy(float)
+    roles = rates["role"].astype(str).to_numpy() if "role" in rates else np.full(n, "sample", dtype=object)
+    flags = rates["flags"].tolist() if "flags" in rates else [""] * n
+    excluding = set(options.get("exclude_flags", DEFAULT_EXCLUDE))
+    used = np.zeros(n, dtype=bool)
+    for i in range(n):  # a short loop over table rows (text work), not over signal arrays
+        hit = [f for f in flag_list(flags[i]) if f in excluding]
+        if roles[i] != "sample":
+            reasons[i] = f"role {roles[i]!r}: not a sample well, not fitted"
+        elif hit:
+            reasons[i] = "flag " + ", ".join(hit) + ": " + "; ".join(FLAG_TEXT.get(f, f) for f in hit)
+        elif not np.isfinite(rate[i]):
+            reasons[i] = "no rate"
+        else:
+            used[i] = True
+    return used, reasons
+
+
+def flagged_rows(rates: pd.DataFrame) -> list[dict[str, str]]:
+    """One row per well carrying a flag: plate, well, group, role, the flags and what each means."""
+    rows = []
+    if "flags" not in rates:
+        return rows
+    for _, r in rates.iterrows():
+        names = flag_list(r["flags"])
+        if names:
+            rows.append({
+                "plate": str(r.get("plate", "")), "well": str(r.get("well", "")), "group": str(r.get("group", "")),
+                "role": str(r.get("role", "")), "flags": ", ".join(names),
+                "meaning": "; ".join(FLAG_TEXT.get(f, f) for f in names),
+            })
+    return rows
+
+
+def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapping[str, Any]) -> dict[str, Any]:
+    """Wells kept out of the fit, with reasons.
+
+    Sample wells are listed one by one; wells of other roles (blanks, controls) are summarised per role.
+    Exclusions written in the recipe (``exclusions:``) are listed as written, with their reason.
+    """
+    out: dict[str, Any] = {"wells": [], "roles": [], "recipe": []}
+    for item in recipe.get("exclusions", []) or []:
+        if isinstance(item, Mapping):
+            what = ", ".join(f"{k} {v}" for k, v in item.items() if k != "reason")
+            out["recipe"].append({"what": what, "reason": str(item.get("reason", "(no reason given)"))})
+        else:
+            out["recipe"].append({"what": str(item), "reason": "(no reason given)"})
+    if not options.get("present") or rates.empty:
+        return out
+    used, reasons = fit_use(rates, options)
+    roles: dict[str, int] = {}
+    for i, (_, r) in enumerate(rates.iterrows()):
+        if used[i]:
+            continue
+        role = str(r.get("role", "sample"))
+        if role != "sample":
+            roles[role] = roles.get(role, 0) + 1
+            continue
+        out["wells"].append({"plate": str(r.get("plate", "")), "well": str(r.get("well", "")),
+                             "group": str(r.get("group", "")), "reason": reasons[i]})
+    out["roles"] = [{"role": k, "count": v} for k, v in sorted(roles.items())]
+    return out
+
+
+# -- fits ---------------------------------------------------------------------------------------------------
+
+
+def parameter_tables(fits: pd.DataFrame, group: str) -> list[dict[str, Any]]:
+    """For one group, one block per model: fit statistics and its parameter rows, formatted."""
+    blocks = []
+    sub = fits[fits["group"].astype(str) == group]
+    for model in dict.fromkeys(sub["model"].astype(str)):
+        m = sub[sub["model"].astype(str) == model]
+        first = m.iloc[0]
+        rows = []
+        for _, r in m.iterrows():
+            rows.append({
+                "parameter": str(r["parameter"]), "estimate": num(r["estimate"]), "stderr": num(r["stderr"], 2),
+                "value": with_error(r["estimate"], r["stderr"]), "interval": interval(r["ci_low"], r["ci_high"]),
+                "method": str(r.get("ci_method", "") or ""), "unit": pretty_unit(str(r.get("unit", "") or "")),
+                "fixed": bool(r.get("fixed", False)), "note": plain_models(str(r.get("note", "") or "")),
+            })
+        blocks.append({
+            "model": model, "title": model_title(model), "success": bool(first.get("success", True)),
+            "message": plain_models(str(first.get("message", ""))), "n_points": first.get("n_points", ""),
+            "r_squared": num(first.get("r_squared"), 4), "aicc": num(first.get("aicc"), 4),
+            "rss": num(first.get("rss"), 4), "dof": first.get("dof", ""), "rows": rows,
+        })
+    return blocks
+
+
+def comparison_rows(comparison: pd.DataFrame, group: str) -> tuple[list[dict[str, Any]], str]:
+    """Model-comparison rows of one group and a sentence saying which model is preferred and why."""
+    if comparison.empty or "group" not in comparison:
+        return [], ""
+    sub = comparison[comparison["group"].astype(str) == group]
+    rows, sentences = [], []
+    for _, r in sub.iterrows():
+        rows.append({
+            "model": model_title(str(r["model"])), "n_params": r.get("n_params", ""), "rss": num(r.get("rss")),
+            "aicc": num(r.get("aicc")), "delta_aicc": num(r.get("delta_aicc"), 3),
+            "weight": num(r.get("akaike_weight"), 3),
+            "f_test": (f"against {model_title(str(r['f_test_against']))}: F = {num(r['F'], 3)}, p = {num(r['p'], 3)}"
+                       if str(r.get("f_test_against", "") or "") else ""),
+            "preferred": str(r.get("preferred", "")) == str(r["model"]),
+        })
+    for (_, first) in sub.drop_duplicates("preferred").iterrows():
+        pref = str(first.get("preferred", ""))
+        if pref:
+            reason = str(first.get("reason", ""))
+            if reason.startswith(f"{pref}: "):
+                reason = reason[len(pref) + 2:]
+            sentences.append(f"{model_title(pref)} is preferred: {plain_models(reason)}.")
+    return rows, " ".join(sentences)
+
+
+VERDICT_WORDS = {
+    "positive": "positive cooperativity (h > 1)",
+    "negative": "negative cooperativity (h < 1)",
+    "none": "no cooperativity of practical size (h close to 1: Michaelis–Menten behaviour)",
+}
+
+
+def verdict_sentence(row: Mapping[str, Any], confidence: float) -> str:
+    """The cooperativity verdict of one group in words, with h, its interval and the basis of the call."""
+    verdict = str(row.get("verdict", ""))
+    what = VERDICT_WORDS.get(verdict, "cooperativity is not resolved by these data (neither shown nor ruled out)")
+    h = with_error(row.get("h"), row.get("stderr"))
+    ci = interval(row.get("ci_low"), row.get("ci_high"))
+    method = str(row.get("ci_method", "") or "")
+    pct = f"{confidence * 100:g} %"
+    return (f"{row.get('group', '')}: {what}. Hill coefficient h = {h}, {pct} {method} interval {ci}. "
+            f"Basis: {plain_models(str(row.get('reason', '')))}.")
+
+
+def plain_models(text: str) -> str:
+    """Model names in ``text`` as printed (``hill`` -> ``Hill``)."""
+    for key, title in MODEL_TITLES.items():
+        text = re.sub(rf"(?<![\w-]){re.escape(key)}(?![\w-])", title, text)
+    return text
+
+
+_SUPERSCRIPT = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
+
+
+def pretty_unit(unit: str) -> str:
+    """A unit as printed: ``uM/min`` -> ``µM/min`` (the text form keeps the ASCII ``u``)."""
+    return re.sub(r"(?<![A-Za-z])u(?=(M|mol|L|l|g|m|s)\b)", "µ", str(unit))
+
+
+def summary_counts(rates: pd.DataFrame, used: np.ndarray | None) -> dict[str, Any]:
+    """Wells, samples, flagged wells, wells with a rate, wells used in the fit."""
+    n = len(rates)
+    flagged = sum(1 for f in rates.get("flags", pd.Series([], dtype=object)) if flag_list(f))
+    rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce")
+    samples = int((rates["role"].astype(str) == "sample").sum()) if "role" in rates else n
+    return {"wells": n, "samples": samples, "flagged": flagged, "with_rate": int(np.isfinite(rate).sum()),
+            "used": int(used.sum()) if used is not None else None}

@@ -1,0 +1,412 @@
+"""The report's figures, drawn with matplotlib (Agg) and returned as PNG and SVG bytes.
+
+* :func:`plate_map`: v0 of every well in plate geometry, flagged and excluded wells marked.
+* :func:`progress_grid`: every well's progress curve as a small multiple in plate geometry (one axes for
+  the whole plate, drawn as line collections, so 1536 wells cost about as much as 96) with the line whose
+  slope is the well's rate, over the window it came from.
+* :func:`rates_vs_x`: per group, rates against substrate (or inhibitor) with each model's fitted curve, its
+  confidence band and the residuals.
+* :func:`transforms`: per group, the Hill plot and the three classical linear transforms, for inspection.
+
+matplotlib is imported inside the functions, so importing this module stays cheap.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from pipeline.data import Traces
+from plugins.report import palette
+from plugins.report.content import flag_list, model_title, pretty_unit
+
+MAX_PANELS = 384
+"""Most wells drawn in one progress-curve figure; larger plates get a subsample (flagged wells first)."""
+
+FLAG_SHORT = {
+    "saturated": "sat", "high_conversion": "conv", "curvature": "curv", "lag": "lag", "decay": "decay",
+    "noisy": "noisy", "too_few_points": "few", "all_missing": "empty", "no_signal": "no sig",
+    "fit_failed": "fit", "excluded": "excl", "overridden": "fixed",
+}
+
+
+def slug(text: str) -> str:
+    """A file-name-safe form of ``text`` (``'VZ-7 wild type'`` -> ``'vz-7-wild-type'``)."""
+    s = re.sub(r"[^a-z0-9]+", "-", str(text).lower()).strip("-")
+    return s or "unnamed"
+
+
+def render(fig: Any, dpi: int = 130) -> tuple[bytes, bytes]:
+    """PNG and SVG bytes of ``fig``; the figure is closed afterwards."""
+    import matplotlib.pyplot as plt
+
+    png, svg = io.BytesIO(), io.BytesIO()
+    try:
+        fig.savefig(png, format="png", dpi=dpi, metadata={"Software": None})
+        fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
+    finally:
+        plt.close(fig)
+    return png.getvalue(), svg.getvalue()
+
+
+def _plt() -> Any:
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _plate_geometry(wells: Sequence[str]) -> tuple[int, int, np.ndarray, np.ndarray, list[str]]:
+    """(rows, columns, row index, column index, row labels) of ``wells`` on the smallest plate holding them."""
+    from plugins.importers.wells import ROW_LABELS, infer_plate_size, plate_shape, well_index
+
+    size = infer_plate_size(wells)
+    n_rows, n_cols = plate_shape(size)
+    rc = np.array([well_index(w, size) for w in wells], dtype=int).reshape(-1, 2)
+    return n_rows, n_cols, rc[:, 0], rc[:, 1], list(ROW_LABELS[:n_rows])
+
+
+def _plate_axes(ax: Any, n_rows: int, n_cols: int, labels: list[str]) -> None:
+    """Ticks and limits for a plate drawn with row A at the top, one unit per well."""
+    step = 1 if n_cols <= 24 else 4
+    ax.set_xlim(-0.5, n_cols - 0.5)
+    ax.set_ylim(n_rows - 0.5, -0.5)
+    ax.set_xticks(range(0, n_cols, step), [str(c + 1) for c in range(0, n_cols, step)])
+    rstep = 1 if n_rows <= 16 else 2
+    ax.set_yticks(range(0, n_rows, rstep), labels[::rstep])
+    ax.xaxis.tick_top()
+    ax.tick_params(length=0)
+    for side in ("top", "right", "bottom", "left"):
+        ax.spines[side].set_visible(False)
+    ax.set_aspect("equal")
+
+
+# -- plate map ---------------------------------------------------------------------------------------------
+
+
+def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_unit: str) -> Any:
+    """v0 per well in plate geometry: a pale-to-dark ramp, hatched grey for no rate, a heavy ring around
+    flagged wells and a cross on sample wells kept out of the fit."""
+    plt = _plt()
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    wells = rates["well"].astype(str).tolist()
+    n_rows, n_cols, r, c, labels = _plate_geometry(wells)
+    v = pd.to_numeric(rates["rate"], errors="coerce").to_numpy(float)
+    flagged = np.array([bool(flag_list(f)) for f in rates.get("flags", [""] * len(rates))])
+    is_sample = (rates["role"].astype(str) == "sample").to_numpy() if "role" in rates else np.ones(len(v), bool)
+    left_out = (~used & is_sample) if used is not None else np.zeros(len(v), bool)
+
+    with plt.rc_context(palette.STYLE):
+        width = 1.0 + 0.5 * n_cols if n_cols <= 24 else 0.28 * n_cols
+        width = min(width, 14)
+        fig, ax = plt.subplots(figsize=(width, width * n_rows / n_cols * 0.9 + 0.9), layout="constrained")
+        size = {12: 420, 24: 110, 48: 26}.get(n_cols, 60)
+        ok = np.isfinite(v)
+        finite = v[ok]
+        lo, hi = (np.percentile(finite, [1, 99]) if finite.size else (0.0, 1.0))
+        if hi <= lo:
+            hi = lo + 1.0
+        sc = ax.scatter(c[ok], r[ok], c=v[ok], s=size, cmap=palette.rate_cmap(), vmin=lo, vmax=hi,
+                        edgecolors=palette.MUTED, linewidths=0.4, zorder=2)
+        ax.scatter(c[~ok], r[~ok], s=size, facecolors=palette.NO_VALUE, edgecolors=palette.MUTED, hatch="/////",
+                   linewidths=0.4, zorder=2)
+        ax.scatter(c[flagged], r[flagged], s=size * 1.45, facecolors="none", edgecolors=palette.INK,
+                   linewidths=1.6 if n_cols <= 24 else 0.8, zorder=3)
+        ax.scatter(c[left_out], r[left_out], s=size * 0.45, marker="x", color=palette.INK,
+                   linewidths=1.3 if n_cols <= 24 else 0.6, zorder=4)
+        _plate_axes(ax, n_rows, n_cols, labels)
+        extend = "both" if finite.size and (finite.min() < lo or finite.max() > hi) else "neither"
+        bar = fig.colorbar(sc, ax=ax, shrink=0.75, pad=0.02, extend=extend)
+        bar.set_label(f"v0 ({rate_unit})")
+        handles = [
+            Patch(facecolor=palette.NO_VALUE, edgecolor=palette.MUTED, hatch="/////", label="no rate"),
+            Line2D([], [], marker="o", ls="", mfc="none", mec=palette.INK, mew=1.6, ms=10, label="flagged"),
+            Line2D([], [], marker="x", ls="", color=palette.INK, mew=1.3, ms=7, label="sample not fitted"),
+        ]
+        ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.01), ncol=3, fontsize=8)
+        ax.set_title(f"Initial rates, plate {plate}", loc="left")
+    return fig
+
+
+# -- progress curves ---------------------------------------------------------------------------------------
+
+
+def window_lines(traces: Traces, rates: pd.DataFrame, slope: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Signal at the window start and end of the line whose slope is each well's rate, [n_wells] each.
+
+    For the ``window`` method the line is the least-squares line with that slope (through the mean of the
+    reads in the window). For other methods the rate is the slope at the window start, so the line is the
+    tangent there, anchored on a quadratic through the window's reads. Wells with too few reads get NaN.
+    """
+    t = traces.time.astype(float)
+    y = traces.masked_signal().astype(float)
+    ts = pd.to_numeric(rates["window_start_s"], errors="coerce").to_numpy(float)
+    te = pd.to_numeric(rates["window_end_s"], errors="coerce").to_numpy(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = (np.isfinite(y) & (t[None, :] >= ts[:, None]) & (t[None, :] <= te[:, None])).astype(float)
+        yz = np.where(w > 0, y, 0.0)
+        n = w.sum(axis=1)
+        t_mean = (w * t).sum(axis=1) / n
+        y_mean = yz.sum(axis=1) / n
+        start = y_mean + slope * (ts - t_mean)
+        methods = rates["method"].astype(str).to_numpy() if "method" in rates else np.full(len(ts), "window")
+        tangent = (methods != "window") & (n >= 3)
+        if tangent.any():
+            u = np.where(w > 0, t[None, :] - ts[:, None], 0.0)
+            a = np.stack([np.stack([(w * u ** (i + j)).sum(axis=1) for j in range(3)], axis=-1) for i in range(3)],
+                         axis=-2)
+            b = np.stack([(yz * u**i).sum(axis=1) for i in range(3)], axis=-1)
+            good = tangent & (np.abs(np.linalg.det(a)) > 1e-300)
+            if good.any():
+                coef = np.linalg.solve(a[good], b[good][..., None])[..., 0]
+                start[good] = coef[:, 0]
+        end = start + slope * (te - ts)
+    bad = ~np.isfinite(slope) | (n < 2)
+    return np.where(bad, np.nan, start), np.where(bad, np.nan, end)
+
+
+def _choose(n: int, priority: np.ndarray, limit: int) -> np.ndarray:
+    """Indices of at most ``limit`` wells: every priority well first (up to the limit), then evenly spaced."""
+    if n <= limit:
+        return np.arange(n)
+    first = np.flatnonzero(priority)[:limit]
+    rest = np.setdiff1d(np.arange(n), first)
+    k = limit - first.size
+    picked = rest[np.linspace(0, rest.size - 1, k).round().astype(int)] if k > 0 and rest.size else rest[:0]
+    return np.sort(np.concatenate([first, picked]))
+
+
+def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray | None,
+                  max_panels: int = MAX_PANELS) -> tuple[Any, str]:
+    """Every well's reads as a small multiple in plate geometry, with its rate line over its window.
+
+    All cells share one time axis and one signal axis (stated in the figure), so curves can be compared at
+    a glance. Returns the figure and a note ('' or what was left out).
+    """
+    plt = _plt()
+    from matplotlib.collections import LineCollection, PolyCollection
+
+    names = traces.well_names
+    y = traces.masked_signal().astype(float)
+    t = traces.time.astype(float)
+    flags = [""] * len(names)
+    lines = None
+    if rates is not None and len(rates):
+        by_well = rates.set_index(rates["well"].astype(str))
+        rates = by_well.reindex(names).reset_index(drop=True)
+        flags = [";".join(flag_list(f)) for f in rates.get("flags", pd.Series([""] * len(names)))]
+        if slope is not None:
+            slope = pd.Series(slope, index=by_well.index).reindex(names).to_numpy(float)
+            lines = window_lines(traces, rates, slope)
+    flagged = np.array([bool(f) for f in flags])
+    pick = _choose(len(names), flagged, max_panels)
+    note = ""
+    if pick.size < len(names):
+        note = (f"{pick.size} of {len(names)} wells drawn (every flagged well first, then an even spread); "
+                "all wells are in the rates table.")
+    if pick.size > 384 or len(names) > 384:  # subsample: a plain grid in well order
+        n_cols = int(np.ceil(np.sqrt(pick.size * 1.5)))
+        n_rows = int(np.ceil(pick.size / n_cols))
+        rr, cc, labels = np.arange(pick.size) // n_cols, np.arange(pick.size) % n_cols, [""] * n_rows
+        geometric = False
+    else:
+        n_rows, n_cols, r_all, c_all, labels = _plate_geometry(names)
+        rr, cc = r_all[pick], c_all[pick]
+        geometric = True
+    finite = y[pick][np.isfinite(y[pick])]
+    lo, hi = (np.percentile(finite, [0.5, 99.5]) if finite.size else (0.0, 1.0))
+    pad_y = 0.06 * (hi - lo) if hi > lo else 0.5
+    lo, hi = lo - pad_y, hi + pad_y
+    t0, t1 = float(np.nanmin(t)), float(np.nanmax(t))
+    span_t = t1 - t0 if t1 > t0 else 1.0
+    m = 0.1  # margin inside each cell
+
+    def xpos(tt: np.ndarray, col: np.ndarray) -> np.ndarray:
+        return col[:, None] - 0.5 + m + (tt - t0) / span_t * (1 - 2 * m)
+
+    def ypos(yy: np.ndarray, row: np.ndarray) -> np.ndarray:
+        frac = np.clip((yy - lo) / (hi - lo), -0.02, 1.02)
+        return row[:, None] + 0.5 - m - frac * (1 - 2 * m)
+
+    xs = xpos(np.broadcast_to(t, (pick.size, t.size)), cc)
+    ys = ypos(y[pick], rr)
+    with plt.rc_context(palette.STYLE):
+        cell = 0.62 if n_cols <= 12 else (0.34 if n_cols <= 24 else 0.2)
+        fig, ax = plt.subplots(figsize=(min(cell * n_cols + 1.2, 16), min(cell * n_rows + 1.4, 16)),
+                               layout="constrained")
+        ax.set_facecolor("white")
+        g = 0.47  # half the side of a cell frame
+        boxes = [[(c - g, r - g), (c + g, r - g), (c + g, r + g), (c - g, r + g)] for r, c in zip(rr, cc, strict=True)]
+        face = np.where(flagged[pick], "#efe9dc", palette.PAPER)
+        edge = np.where(flagged[pick], palette.INK, "#d9d6cc")
+        ax.add_collection(PolyCollection(boxes, facecolors=face, edgecolors=edge,
+                                         linewidths=np.where(flagged[pick], 0.9, 0.4),
+                                         linestyles=["--" if f else "-" for f in flagged[pick]], zorder=1))
+        ax.add_collection(LineCollection(list(np.stack([xs, ys], axis=-1)), colors=palette.MUTED,
+                                         linewidths=0.6 if n_cols <= 12 else 0.4, zorder=2))
+        if n_cols <= 12:
+            ax.scatter(xs.ravel(), ys.ravel(), s=1.0, color=palette.MUTED, linewidths=0, zorder=3)
+        drawn_lines = 0
+        if lines is not None and rates is not None:
+            ts = pd.to_numeric(rates["window_start_s"], errors="coerce").to_numpy(float)[pick]
+            te = pd.to_numeric(rates["window_end_s"], errors="coerce").to_numpy(float)[pick]
+            ya, yb = lines[0][pick], lines[1][pick]
+            ok = np.isfinite(ya) & np.isfinite(yb) & np.isfinite(ts) & np.isfinite(te)
+            if ok.any():
+                px = np.stack([xpos(ts[ok][:, None], cc[ok])[:, 0], xpos(te[ok][:, None], cc[ok])[:, 0]], axis=1)
+                py = np.stack([ypos(ya[ok][:, None], rr[ok])[:, 0], ypos(yb[ok][:, None], rr[ok])[:, 0]], axis=1)
+                ax.add_collection(LineCollection(list(np.stack([px, py], axis=-1)), colors=palette.WINDOW,
+                                                 linewidths=2.4 if n_cols <= 12 else 1.1, zorder=4))
+                drawn_lines = int(ok.sum())
+        if n_cols <= 12:
+            for k in np.flatnonzero(flagged[pick]):
+                short = ", ".join(FLAG_SHORT.get(f, f) for f in flags[pick[k]].split(";"))
+                ax.text(cc[k], rr[k] - 0.5 + 0.07, short, ha="center", va="top", fontsize=6,
+                        color=palette.INK, zorder=5)
+        if geometric:
+            _plate_axes(ax, n_rows, n_cols, labels)
+            ax.set_aspect("auto")
+        else:
+            ax.set_xlim(-0.5, n_cols - 0.5)
+            ax.set_ylim(n_rows - 0.5, -0.5)
+            ax.set_xticks([])
+            ax.set_yticks([])
+            for k, i in enumerate(pick):
+                ax.text(cc[k] - 0.45, rr[k] - 0.45, names[i], fontsize=3, va="top", color=palette.MUTED)
+        unit = traces.signal_unit
+        ax.set_xlabel(f"within each cell: time {t0:g}–{t1:g} s left to right", fontsize=8)
+        ax.set_ylabel(f"within each cell: signal {lo:.3g} to {hi:.3g} {unit} bottom to top", fontsize=8)
+        legend = "grey: reads" + ("; orange line: the rate (its slope) over the window it came from"
+                                  if drawn_lines else "") + "; dashed frame: flagged well"
+        ax.set_title(f"Progress curves, plate {traces.plate}\n{legend}", loc="left", fontsize=9)
+    return fig, note
+
+
+# -- rates against concentration ---------------------------------------------------------------------------
+
+
+def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.DataFrame,
+               preferred: str, x_col: str, x_unit: str, rate_unit: str,
+               evaluate: Mapping[str, Any] | None = None) -> Any:
+    """Rates of one group against ``x_col`` with each model's curve and confidence band (top) and residuals
+    of the fitted points (bottom). ``evaluate`` maps model -> callable(x array) -> fitted rate, for exact
+    residuals; without it residuals are interpolated on the curve grid."""
+    plt = _plt()
+    x = pd.to_numeric(points[x_col], errors="coerce").to_numpy(float)
+    v = pd.to_numeric(points["rate"], errors="coerce").to_numpy(float)
+    se = pd.to_numeric(points.get("rate_stderr", pd.Series(np.nan, index=points.index)),
+                       errors="coerce").to_numpy(float)
+    with plt.rc_context(palette.STYLE):
+        fig, (ax, axr) = plt.subplots(2, 1, figsize=(6.4, 5.6), sharex=True, height_ratios=(3, 1.3),
+                                      layout="constrained")
+        ax.errorbar(x[used], v[used], yerr=np.where(np.isfinite(se[used]), se[used], 0), fmt="o", ms=4.5,
+                    color=palette.INK, ecolor=palette.MUTED, elinewidth=0.7, capsize=0, zorder=4,
+                    label="wells fitted (± standard error of v0)")
+        out = ~used & np.isfinite(v) & np.isfinite(x)
+        if out.any():
+            ax.plot(x[out], v[out], "o", ms=5, mfc="white", mec=palette.MUTED, mew=1.0, zorder=3,
+                    label="not fitted (see Exclusions)")
+        models = list(dict.fromkeys(curves["model"].astype(str))) if len(curves) else []
+        for i, model in enumerate(models):
+            st = palette.series(i)
+            cm = curves[curves["model"].astype(str) == model]
+            levels = cm["inhibitor"].to_numpy(float) if "inhibitor" in cm else np.full(len(cm), np.nan)
+            distinct = [*np.unique(levels[np.isfinite(levels)]).tolist(), *([np.nan] if np.isnan(levels).any() else [])]
+            for j, level in enumerate(distinct):
+                part = cm[np.isnan(levels)] if np.isnan(level) else cm[levels == level]
+                cx = part["x"].to_numpy(float)
+                label = model_title(model) + (" (preferred)" if model == preferred else "")
+                if not np.isnan(level) and part["variable"].iloc[0] != "inhibitor":
+                    label += f", inhibitor {level:g}"
+                ax.plot(cx, part["y"].to_numpy(float), color=st.color, ls=st.linestyle, lw=1.8 if j == 0 else 1.2,
+                        label=label, zorder=2)
+                lo_, hi_ = part["lower"].to_numpy(float), part["upper"].to_numpy(float)
+                if np.isfinite(lo_).any():
+                    ax.fill_between(cx, lo_, hi_, color=st.color, alpha=0.16, lw=0, zorder=1)
+            fitted = _fitted(model, x[used], cm, evaluate)
+            axr.plot(x[used], v[used] - fitted, ls="", marker=st.marker, ms=4.5, mfc=st.color if i == 0 else "white",
+                     mec=st.color, mew=1.1, label=model_title(model))
+        axr.axhline(0, color=palette.INK, lw=0.7)
+        ax.set_ylabel(f"v0 ({rate_unit})")
+        axr.set_ylabel(f"residual\n({rate_unit})")
+        axr.set_xlabel(f"{x_col} ({x_unit})" if x_unit else x_col)
+        ax.set_xlim(left=min(0.0, float(np.nanmin(x))) if np.isfinite(x).any() else 0.0)
+        ax.set_ylim(bottom=min(0.0, float(np.nanmin(v))) if np.isfinite(v).any() else 0.0)
+        band = "shaded: confidence band of the fitted curve" if models else ""
+        ax.set_title(f"{group}: v0 against {x_col}" + (f"\n{band}" if band else ""), loc="left")
+        ax.legend(fontsize=8, loc="best")
+        if models:
+            axr.legend(fontsize=7, ncol=len(models), loc="best")
+    return fig
+
+
+def _fitted(model: str, x: np.ndarray, curve: pd.DataFrame, evaluate: Mapping[str, Any] | None) -> np.ndarray:
+    if evaluate and model in evaluate:
+        return np.asarray(evaluate[model](x), float)
+    part = curve[np.isnan(curve["inhibitor"].to_numpy(float))] if "inhibitor" in curve else curve
+    if part.empty:
+        part = curve
+    cx, cy = part["x"].to_numpy(float), part["y"].to_numpy(float)
+    order = np.argsort(cx)
+    return np.interp(x, cx[order], cy[order], left=np.nan, right=np.nan)
+
+
+# -- linear transforms -------------------------------------------------------------------------------------
+
+TRANSFORM_TITLES = {
+    "hill": "Hill plot",
+    "lineweaver-burk": "Lineweaver–Burk",
+    "eadie-hofstee": "Eadie–Hofstee",
+    "hanes-woolf": "Hanes–Woolf",
+}
+
+
+def transforms(group: str, diag: pd.DataFrame) -> Any:
+    """The linear transforms of one group: points (hollow where the transform is unstable) and each
+    transform's own straight line, with the estimates that line implies in the panel title."""
+    plt = _plt()
+    plots = [p for p in TRANSFORM_TITLES if p in set(diag["plot"].astype(str))]
+    plots += [p for p in dict.fromkeys(diag["plot"].astype(str)) if p not in plots]
+    n = len(plots)
+    cols = 2 if n > 1 else 1
+    rows = int(np.ceil(n / cols))
+    with plt.rc_context(palette.STYLE):
+        fig, axes = plt.subplots(rows, cols, figsize=(4.0 * cols, 3.3 * rows), layout="constrained", squeeze=False)
+        for ax in axes.ravel()[n:]:
+            ax.set_visible(False)
+        for ax, plot in zip(axes.ravel(), plots, strict=False):
+            d = diag[diag["plot"].astype(str) == plot]
+            pts = d[d["quantity"].astype(str) == "point"]
+            x, y = pts["x"].to_numpy(float), pts["y"].to_numpy(float)
+            unstable = pts["unstable"].astype(str).str.lower().isin(["true", "1"]).to_numpy()
+            ok = np.isfinite(x) & np.isfinite(y)
+            ax.plot(x[ok & ~unstable], y[ok & ~unstable], "o", ms=4, color=palette.INK, label="used for the line")
+            if (ok & unstable).any():
+                ax.plot(x[ok & unstable], y[ok & unstable], "o", ms=4, mfc="white", mec=palette.MUTED,
+                        label="not used (unstable here)")
+            est = {str(q): float(val) for q, val in zip(d["quantity"], d["y"], strict=True) if str(q) != "point"}
+            slope, icpt = est.get("slope", np.nan), est.get("intercept", np.nan)
+            good = ok & ~unstable
+            if np.isfinite(slope) and np.isfinite(icpt) and good.any():
+                gx = np.linspace(np.min(x[good]), np.max(x[good]), 20)
+                st = palette.series(1)
+                ax.plot(gx, icpt + slope * gx, color=st.color, ls=st.linestyle, lw=1.4, label="straight line")
+            words = ", ".join(f"{k} = {v:.3g}" for k, v in est.items() if k not in ("slope", "intercept"))
+            ax.set_title(f"{TRANSFORM_TITLES.get(plot, plot)}" + (f"\nline gives {words}" if words else ""),
+                         loc="left", fontsize=9)
+            if len(pts):
+                ax.set_xlabel(pretty_unit(str(pts["x_label"].iloc[0])))
+                ax.set_ylabel(pretty_unit(str(pts["y_label"].iloc[0])))
+        axes.ravel()[0].legend(fontsize=7, loc="best")
+        fig.suptitle(f"{group}: linear transforms, for inspection only (parameters come from the nonlinear fit)",
+                     x=0.01, ha="left", fontsize=10)
+    return fig

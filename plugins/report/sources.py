@@ -1,0 +1,133 @@
+"""Where a report's input comes from: a finished stage's artifacts, or an audit file (``vzero report``).
+
+Both roads end in a :class:`plugins.report.build.ReportInput` with the same provenance keys: ``source``,
+``recipe_name``, ``recipe_sha256``, ``recipe_text``, ``created``, ``run_id``, ``vzero_version``, ``versions``,
+``steps`` (label, kind, method, plugin, version, seconds, parameters), ``inputs`` (name, plates, size,
+sha256), ``warnings`` and ``failed_plates``.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+from pipeline.data import Table, Traces
+from pipeline.stage import StageInput
+from plugins.report.build import ReportInput
+
+VERSION_DISTS = ("numpy", "scipy", "pandas", "h5py", "matplotlib", "jinja2", "pluggy", "pint")
+
+
+def software_versions() -> dict[str, str]:
+    """Python and the main libraries, as installed now."""
+    import platform
+    from importlib import metadata
+
+    out = {"python": platform.python_version()}
+    for dist in VERSION_DISTS:
+        try:
+            out[dist] = metadata.version(dist)
+        except metadata.PackageNotFoundError:
+            out[dist] = "not installed"
+    return out
+
+
+def _steps_from_recipe(recipe: Mapping[str, Any], registry: Any) -> list[dict[str, Any]]:
+    steps = []
+    for i, step in enumerate(recipe.get("steps", []) or [], start=1):
+        if not isinstance(step, Mapping) or len(step) != 1:
+            continue
+        kind, body = next(iter(step.items()))
+        body = dict(body) if isinstance(body, Mapping) else {}
+        method = str(body.get("method", ""))
+        plugin = version = ""
+        if registry is not None:
+            try:
+                entry = registry.get(kind, method)
+                plugin = f"{entry.source.plugin} ({entry.source.distribution})"
+                version = str(getattr(entry.component, "version", entry.source.version))
+            except Exception:  # a registry without this entry: provenance stays partial, the report goes on
+                plugin = ""
+        params = {k: v for k, v in body.items() if k != "method"}
+        steps.append({"label": f"{i:02d}-{kind}-{method}", "kind": kind, "method": method, "plugin": plugin,
+                      "version": version, "seconds": "", "parameters": json.dumps(params, default=str,
+                                                                                  ensure_ascii=False)})
+    return steps
+
+
+def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
+    """The report input of a running pipeline: the pooled tables and per-plate traces in ``data.artifacts``.
+
+    The stage sees neither the recipe text nor the input files' hashes (they are written to run.h5 by the
+    runner), so the provenance points there for them.
+    """
+    from pipeline import __version__
+
+    tables = {k: v for k, v in data.artifacts.items() if isinstance(v, Table)}
+    traces_in = data.artifacts.get("traces")
+    traces = {}
+    if isinstance(traces_in, Traces):
+        traces = {traces_in.plate: traces_in}
+    elif isinstance(traces_in, Mapping):
+        traces = {str(k): v for k, v in traces_in.items() if isinstance(v, Traces)}
+    recipe = data.recipe or {}
+    inputs = []
+    for plate in recipe.get("plates", []) or []:
+        if isinstance(plate, Mapping):
+            for key in ("data", "layout"):
+                if plate.get(key):
+                    inputs.append({"name": str(plate[key]), "plates": str(plate.get("name", "")), "size": "",
+                                   "sha256": "stored in run.h5"})
+    provenance = {
+        "source": "this run (run.h5 beside this report holds the raw inputs and every step)",
+        "recipe_name": str(recipe.get("name", "")), "recipe_sha256": "", "recipe_text": "", "created": "",
+        "run_id": "", "vzero_version": __version__, "versions": software_versions(),
+        "steps": _steps_from_recipe(recipe, data.registry), "inputs": inputs, "warnings": [], "failed_plates": {},
+    }
+    return ReportInput(tables, traces, recipe, provenance, max_panels=int(settings.get("max_panels", 384)),
+                       title=str(settings.get("title", "") or ""))
+
+
+def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
+    """The report input stored in an audit file: final tables from /results, the last traces stored per
+    plate under /steps, the recipe text and provenance from the file's attributes."""
+    import yaml
+
+    from pipeline import reader
+
+    with reader.open_audit(path) as f:
+        a = f.attrs
+        tables = {name: reader.read_table(g) for name, g in f["results"].items()}
+        traces: dict[str, Traces] = {}
+        steps = []
+        for label, g in f["steps"].items():
+            for plate, sub in g.items():
+                if hasattr(sub, "keys") and "traces" in sub:
+                    traces[plate] = reader.read_traces(sub["traces"])  # later steps replace earlier ones
+            steps.append({"label": label, "kind": str(g.attrs.get("kind", "")),
+                          "method": str(g.attrs.get("method", "")),
+                          "plugin": f"{g.attrs.get('plugin', '')} ({g.attrs.get('distribution', '')})",
+                          "version": str(g.attrs.get("version", "")),
+                          "seconds": f"{float(g.attrs.get('seconds', 0.0)):.3f}",
+                          "parameters": str(g.attrs.get("parameters", ""))})
+        inputs = [{"name": str(ds.attrs.get("name", "")), "plates": ", ".join(json.loads(ds.attrs.get("plates", "[]"))),
+                   "size": int(ds.attrs.get("size", 0)), "sha256": str(ds.attrs.get("sha256", ""))}
+                  for ds in f["inputs"].values()]
+        text = str(a.get("recipe_text", ""))
+        provenance = {
+            "source": f"the audit file {Path(path).name}", "recipe_name": str(a.get("recipe_name", "")),
+            "recipe_sha256": str(a.get("recipe_sha256", "")), "recipe_text": text,
+            "created": str(a.get("created", "")), "run_id": str(a.get("run_id", "")),
+            "vzero_version": str(a.get("vzero_version", "")), "versions": json.loads(a.get("versions", "{}")),
+            "steps": steps, "inputs": inputs, "warnings": json.loads(a.get("warnings", "[]")),
+            "failed_plates": json.loads(a.get("failed_plates", "{}")),
+        }
+    try:
+        recipe = yaml.safe_load(text) or {}
+    except yaml.YAMLError:
+        recipe = {}
+    if not isinstance(recipe, Mapping):
+        recipe = {}
+    return ReportInput(tables, traces, recipe, provenance, max_panels=max_panels)
