@@ -122,7 +122,7 @@ class DaskExecutor:
 
     name = "dask"
 
-    def __init__(self, address: str, jobs: int | None = None, *, processes: bool = True) -> None:
+    def __init__(self, address: str, jobs: int | None = None, *, processes: bool = True, timeout: str = "20s") -> None:
         try:
             from distributed import Client, LocalCluster
         except ImportError:
@@ -138,7 +138,7 @@ class DaskExecutor:
                 )
                 self._client = Client(self._cluster)
             else:
-                self._client = Client(address, timeout="20s")
+                self._client = Client(address, timeout=timeout)
         except OSError as exc:
             raise VzeroError(
                 f"cannot reach the Dask scheduler at {address!r}: {exc}",

@@ -1,0 +1,127 @@
+"""The plate map on other executors: a local process pool and a Dask LocalCluster give the same numbers, to the
+bit, as a serial run; streaming keeps a bounded number of plates in flight."""
+
+from __future__ import annotations
+
+import threading
+from concurrent.futures import Future, ThreadPoolExecutor
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import pytest
+
+from pipeline.errors import VzeroError
+from pipeline.executors import PlateTask, make_executor, ordered
+from pipeline.runner import run
+from tests.pipeline.test_batch import assert_same_h5, demo_batch
+
+
+def _same_run(a: Any, b: Any) -> None:
+    assert a.tables.keys() == b.tables.keys()
+    for name in a.tables:
+        pd.testing.assert_frame_equal(a.tables[name].frame, b.tables[name].frame, check_exact=True)
+    assert a.failed == b.failed
+    assert_same_h5(a.audit_path, b.audit_path)
+
+
+def test_process_pool_matches_serial_to_the_bit(tmp_path: Path):
+    recipe = demo_batch(tmp_path / "in", 4, broken=(2,))
+    serial = run(recipe, tmp_path / "serial")
+    pooled = run(recipe, tmp_path / "pool", jobs=2)
+    assert list(pooled.failed) == ["plate-02"]
+    _same_run(serial, pooled)
+
+
+@pytest.mark.slow
+def test_dask_local_cluster_of_two_processes_matches_serial(tmp_path: Path):
+    pytest.importorskip("distributed")
+    from pipeline.executors import DaskExecutor
+
+    recipe = demo_batch(tmp_path / "in", 4)
+    serial = run(recipe, tmp_path / "serial")
+    executor = DaskExecutor("local", 2, processes=True)
+    try:
+        assert executor.workers == 2
+        on_dask = run(recipe, tmp_path / "dask", executor=executor)
+    finally:
+        executor.close()
+    _same_run(serial, on_dask)
+
+
+class CountingExecutor:
+    """Threads standing in for workers; records the most tasks ever in flight."""
+
+    name = "counting"
+
+    def __init__(self, workers: int) -> None:
+        self.workers = workers
+        self._pool = ThreadPoolExecutor(workers)
+        self._lock = threading.Lock()
+        self.in_flight = 0
+        self.most = 0
+
+    def submit(self, fn: Any, task: Any) -> Future:
+        with self._lock:
+            self.in_flight += 1
+            self.most = max(self.most, self.in_flight)
+        return self._pool.submit(self._run, fn, task)
+
+    def _run(self, fn: Any, task: Any) -> Any:
+        try:
+            return fn(task)
+        finally:
+            with self._lock:
+                self.in_flight -= 1
+
+    def close(self) -> None:
+        self._pool.shutdown()
+
+
+def test_ordered_keeps_order_and_bounds_plates_in_flight():
+    executor = CountingExecutor(3)
+    drawn: list[int] = []
+
+    def items():
+        for i in range(40):
+            drawn.append(i)
+            yield PlateTask("", "", None, {}, str(i)) if i % 7 else f"failed-{i}"  # type: ignore[arg-type]
+
+    def slow_echo(task: PlateTask) -> str:
+        threading.Event().wait(0.001 * (int(task.run_id) % 5))
+        return task.run_id
+
+    out = []
+    for result in ordered(executor, slow_echo, items(), window=4):
+        out.append(result)
+        assert len(drawn) - len(out) <= 4  # never more than the window read ahead
+    executor.close()
+    assert out == [str(i) if i % 7 else f"failed-{i}" for i in range(40)]
+    assert executor.most <= 4
+
+
+def test_batch_through_the_executor_interface_in_threads(tmp_path: Path):
+    recipe = demo_batch(tmp_path / "in", 3, fit=False)
+    serial = run(recipe, tmp_path / "serial")
+    executor = CountingExecutor(2)
+    threaded = run(recipe, tmp_path / "threads", executor=executor)
+    executor.close()
+    assert executor.most <= 4
+    _same_run(serial, threaded)
+
+
+def test_jobs_must_be_positive_and_python_plugins_stay_local(tmp_path: Path):
+    with pytest.raises(VzeroError, match="--jobs must be 1 or more"):
+        make_executor(0)
+    assert make_executor(1) is None
+    recipe = demo_batch(tmp_path / "in", 2, fit=False)
+    with pytest.raises(VzeroError, match="cannot be sent to worker processes"):
+        run(recipe, tmp_path / "out", jobs=2, extra_plugins=[("x", object())])
+
+
+def test_unreachable_scheduler_is_one_clear_error():
+    pytest.importorskip("distributed")
+    from pipeline.executors import DaskExecutor
+
+    with pytest.raises(VzeroError, match="cannot reach the Dask scheduler"):
+        DaskExecutor("tcp://127.0.0.1:9", timeout="1s")
