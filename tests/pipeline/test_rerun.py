@@ -1,0 +1,107 @@
+"""``vzero rerun``: the stored raw bytes reprocessed without the original files; provenance; plugin checks."""
+
+from __future__ import annotations
+
+import hashlib
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from pipeline import reader
+from pipeline.cli import main
+from pipeline.errors import PluginError, RecipeError
+from pipeline.rerun import StoredInputs, rerun
+from pipeline.runner import run
+from tests.conftest import DATA, linear_plate
+
+SLOPES = np.linspace(1e-4, 1e-3, 96)[:84]  # rows A-G of conftest.linear_plate; row H are blanks
+
+
+def _old_run(tmp_path: Path, recipe: Path | None = None) -> Path:
+    recipe = recipe or linear_plate(tmp_path / "in")
+    result = run(recipe, tmp_path / "old")
+    shutil.rmtree(recipe.parent)  # the original files are gone: only the audit file is left
+    return result.audit_path
+
+
+def test_stored_recipe_rerun_matches_and_records_origin(tmp_path: Path):
+    old = _old_run(tmp_path)
+    result = rerun(old, tmp_path / "new")
+    assert_allclose(result.rates["rate"].to_numpy()[:84], SLOPES, rtol=1e-9)  # known slopes of the plate
+    with reader.open_audit(old) as f:
+        old_head = reader.header(f)
+    with reader.open_audit(result.audit_path) as f:
+        head = reader.header(f)
+    d = head["derived_from"]
+    assert d["path"] == str(old.resolve())
+    assert d["run_id"] == old_head["run_id"] and d["recipe_sha256"] == old_head["recipe_sha256"]
+    assert head["recipe_sha256"] == old_head["recipe_sha256"]
+
+
+def test_new_recipe_names_stored_inputs(tmp_path: Path):
+    old = _old_run(tmp_path)
+    new = tmp_path / "new.yaml"
+    with reader.open_audit(old) as f:
+        text = reader.header(f)["recipe_text"]
+    new.write_text(text.replace('end: "300 s"', 'end: "150 s"'), "utf-8")
+    result = rerun(old, tmp_path / "out", recipe=new)
+    rates = result.rates
+    assert set(rates["window_end_s"].iloc[:84]) == {150.0}
+    assert set(rates["n_points"].iloc[:84]) == {11}  # reads every 15 s from 0 to 150 s inclusive
+    assert_allclose(rates["rate"].to_numpy()[:84], SLOPES, rtol=1e-9)  # straight lines: same slope
+    with reader.open_audit(result.audit_path) as f:
+        head = reader.header(f)
+    assert head["derived_from"]["same_recipe"] is False
+    assert hashlib.sha256(new.read_bytes()).hexdigest() == head["recipe_sha256"]
+
+
+def test_new_recipe_naming_an_unknown_input_is_refused_with_the_stored_names(tmp_path: Path):
+    old = _old_run(tmp_path)
+    new = tmp_path / "new.yaml"
+    with reader.open_audit(old) as f:
+        new.write_text(reader.header(f)["recipe_text"].replace("data: plate.csv", "data: other.csv"), "utf-8")
+    with pytest.raises(RecipeError, match=r"other\.csv.*not found[\s\S]*stored in .*plate\.csv, layout\.csv"):
+        rerun(old, tmp_path / "out", recipe=new)
+    assert not (tmp_path / "out").exists()
+
+
+def test_stored_inputs_source():
+    src = StoredInputs({"a/plate1.csv": b"1", "a/plate2.csv": b"2", "layout.csv": b"3"}, "x.h5")
+    assert src.expand("a/plate*.csv") == ["a/plate1.csv", "a/plate2.csv"]
+    assert src.exists("layout.csv") and not src.exists("nope.csv")
+    assert src.read("a/plate2.csv") == b"2"
+
+
+def _plugin_run(tmp_path: Path) -> tuple[Path, Path]:
+    recipe = linear_plate(tmp_path / "in")
+    shutil.copy(DATA / "plugins" / "lab_rates.py", recipe.parent / "lab_rates.py")
+    text = recipe.read_text("utf-8").replace("steps:", "plugins: [lab_rates.py]\nsteps:")
+    recipe.write_text(text.replace('{method: window, start: "0 s", end: "300 s"}', "{method: first-reads}"), "utf-8")
+    return recipe, run(recipe, tmp_path / "old").audit_path
+
+
+def test_changed_local_plugin_is_refused_unless_allowed(tmp_path: Path):
+    recipe, old = _plugin_run(tmp_path)
+    assert rerun(old, tmp_path / "same").exit_code == 0  # unchanged plugin beside the recorded recipe path
+    plugin = recipe.parent / "lab_rates.py"
+    plugin.write_text(plugin.read_text("utf-8").replace('__version__ = "0.3"', '__version__ = "0.4"'), "utf-8")
+    with pytest.raises(PluginError, match="has changed since the old run"):
+        rerun(old, tmp_path / "changed")
+    assert not (tmp_path / "changed").exists()
+    result = rerun(old, tmp_path / "changed", allow_changed_plugins=True)
+    with reader.open_audit(result.audit_path) as f:
+        assert reader.header(f)["derived_from"]["changed_plugins"] == ["lab_rates.py"]
+    plugin.unlink()
+    with pytest.raises(PluginError, match="not at"):
+        rerun(old, tmp_path / "missing")
+
+
+def test_rerun_command_line(tmp_path: Path, capsys):
+    old = _old_run(tmp_path)
+    assert main(["rerun", str(old), "--out", str(tmp_path / "cli"), "-q"]) == 0
+    assert (tmp_path / "cli" / "run.h5").is_file()
+    assert main(["rerun", str(tmp_path / "missing.h5"), "--out", str(tmp_path / "x")]) == 2
+    assert "not found" in capsys.readouterr().err
