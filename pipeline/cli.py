@@ -10,7 +10,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -188,7 +188,11 @@ def _cmd_plugins(args: argparse.Namespace) -> int:
     for row, entry in zip(rows, plugins.registry, strict=True):
         print(fmt.format(*row))
         if args.params:
-            for key, param in dict(getattr(entry.component, "params", {})).items():
+            params = getattr(entry.component, "params", {})
+            if not isinstance(params, Mapping):  # a fit model's params are its parameter names, not settings
+                print(f"      parameters: {', '.join(str(getattr(p, 'name', p)) for p in params)}")
+                continue
+            for key, param in params.items():
                 default = "" if param.required else f" (default {param.default!r})"
                 print(f"      {key}: {param.describe()}{default}. {param.doc}")
     return 0

@@ -129,3 +129,10 @@ def test_bad_jobs_is_a_usage_error(jobs: str, capsys):
         main(["run", "r.yaml", "--out", "o", "--jobs", jobs])
     assert stop.value.code == 2
     assert "--jobs" in capsys.readouterr().err
+
+
+def test_plugins_params_lists_settings_and_model_parameters(capsys):
+    assert main(["plugins", "--params"]) == 0
+    out = capsys.readouterr().out
+    assert "end: a quantity like" in out  # a stage method's setting
+    assert "parameters: Vmax, Km" in out  # a fit model's parameter names
