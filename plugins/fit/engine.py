@@ -270,6 +270,78 @@ def _fill_value(used: np.ndarray) -> float:
     return float(finite.mean()) if finite.size else 1.0
 
 
+def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: np.ndarray, vals: np.ndarray,
+        free: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int,
+        ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Levenberg-Marquardt vectorised over groups (the core of :func:`fit_batch` and :func:`profile_batch`).
+
+    ``xs``/``yz``/``w`` are [g, n] with padding weighted 0; ``vals`` [g, p] start values (fixed columns
+    already set); ``free`` [p] or [g, p] (a per-group mask lets a profile fix one parameter per group).
+    Returns (values, weighted residuals, weighted Jacobian with fixed columns zeroed, converged, nfev).
+    """
+    g, npts = yz.shape
+    p = vals.shape[1]
+    vals = vals.copy()
+    free = np.broadcast_to(free, (g, p))
+    mask = w > 0
+    rows = np.arange(g)
+
+    def params_of(v: np.ndarray) -> list[np.ndarray]:
+        return [v[:, j, None] for j in range(p)]
+
+    def resid(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            return np.where(mask[i], w[i] * (func(params_of(v), {k: a[i] for k, a in xs.items()}) - yz[i]), 0.0)
+
+    def jmat(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            jm = _jacobian(jac, v, {k: a[i] for k, a in xs.items()}, (len(i), npts)) * w[i][:, :, None]
+        jm = np.where(np.isfinite(jm), jm, 0.0)
+        return jm * free[i][:, None, :]
+
+    r = resid(vals)
+    with np.errstate(all="ignore"):
+        cost = np.sum(r**2, axis=1)
+    lam = np.full(g, 1e-3)
+    active = np.isfinite(cost)
+    converged = np.zeros(g, bool)
+    nfev = np.ones(g, int)
+    eye = np.eye(p)
+    with np.errstate(all="ignore"):  # trial steps may overflow; they are rejected, not reported
+        for _ in range(max_iter):
+            if not active.any():
+                break
+            idx = np.flatnonzero(active)
+            jm = jmat(vals[idx], idx)
+            ri = r[idx]
+            jtj = np.einsum("gni,gnj->gij", jm, jm)
+            grad = np.einsum("gni,gn->gi", jm, ri)
+            scale = np.einsum("gii->gi", jtj)
+            scale = np.where(scale > 0, scale, 1.0)
+            gnorm = np.max(np.abs(grad) / np.sqrt(scale) / np.sqrt(np.maximum(cost[idx], 1e-300))[:, None], axis=1)
+            a = jtj + lam[idx, None, None] * (scale[:, :, None] * eye) + (~free[idx])[:, :, None] * eye
+            try:
+                step = -np.linalg.solve(a, grad[:, :, None])[:, :, 0]
+            except np.linalg.LinAlgError:
+                step = -np.stack([np.linalg.lstsq(ai, gi, rcond=None)[0] for ai, gi in zip(a, grad, strict=True)])
+            trial = np.clip(vals[idx] + step, lo, hi)
+            rt = resid(trial, idx)
+            ct = np.sum(rt**2, axis=1)
+            nfev[idx] += 1
+            better = np.isfinite(ct) & (ct <= cost[idx])
+            rel_cost = np.where(better, (cost[idx] - ct) / np.maximum(cost[idx], 1e-300), np.inf)
+            rel_step = np.max(np.abs(trial - vals[idx]) / (np.abs(vals[idx]) + 1e-300), axis=1)
+            vals[idx[better]] = trial[better]
+            r[idx[better]] = rt[better]
+            cost[idx[better]] = ct[better]
+            lam[idx] = np.where(better, np.maximum(lam[idx] / 10, 1e-12), lam[idx] * 4)
+            done = (better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
+            stuck = lam[idx] > 1e16
+            converged[idx[done]] = True
+            active[idx[done | stuck]] = False
+    return vals, r, jmat(vals), converged, nfev
+
+
 def fit_batch(
     func: Func,
     jac: Jac,
@@ -296,7 +368,7 @@ def fit_batch(
     """
     y = np.asarray(y, float)
     mask = np.asarray(mask, bool)
-    g, npts = y.shape
+    g = y.shape[0]
     names = tuple(names)
     p = len(names)
     w = np.where(mask, 1.0 if sigma is None else 1.0 / np.where(mask, sigma, 1.0), 0.0)
@@ -311,63 +383,9 @@ def fit_batch(
     lo, hi = _as_bounds(names, bounds)
     vals = np.clip(vals, lo, hi)
 
-    def params_of(v: np.ndarray) -> list[np.ndarray]:
-        return [v[:, j, None] for j in range(p)]
+    vals, r, jm, converged, nfev = _lm(func, jac, xs, yz, w, vals, free, lo, hi, max_iter)
 
-    rows = np.arange(g)
-
-    def resid(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
-        with np.errstate(all="ignore"):
-            return np.where(mask[i], w[i] * (func(params_of(v), {k: a[i] for k, a in xs.items()}) - yz[i]), 0.0)
-
-    def jmat(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
-        with np.errstate(all="ignore"):
-            jm = _jacobian(jac, v, {k: a[i] for k, a in xs.items()}, (len(i), npts)) * w[i][:, :, None]
-        jm = np.where(np.isfinite(jm), jm, 0.0)
-        return jm * free
-
-    r = resid(vals)
-    with np.errstate(all="ignore"):
-        cost = np.sum(r**2, axis=1)
-    lam = np.full(g, 1e-3)
-    active = np.isfinite(cost)
-    converged = np.zeros(g, bool)
-    nfev = np.ones(g, int)
-    eye = np.eye(p)
-    with np.errstate(all="ignore"):  # trial steps may overflow; they are rejected, not reported
-        for _ in range(max_iter):
-            if not active.any():
-                break
-            idx = np.flatnonzero(active)
-            jm = jmat(vals[idx], idx)
-            ri = r[idx]
-            jtj = np.einsum("gni,gnj->gij", jm, jm)
-            grad = np.einsum("gni,gn->gi", jm, ri)
-            scale = np.einsum("gii->gi", jtj)
-            scale = np.where(scale > 0, scale, 1.0)
-            gnorm = np.max(np.abs(grad) / np.sqrt(scale) / np.sqrt(np.maximum(cost[idx], 1e-300))[:, None], axis=1)
-            a = jtj + lam[idx, None, None] * (scale[:, :, None] * eye) + (~free)[None, :, None] * eye
-            try:
-                step = -np.linalg.solve(a, grad[:, :, None])[:, :, 0]
-            except np.linalg.LinAlgError:
-                step = -np.stack([np.linalg.lstsq(ai, gi, rcond=None)[0] for ai, gi in zip(a, grad, strict=True)])
-            trial = np.clip(vals[idx] + step, lo, hi)
-            rt = resid(trial, idx)
-            ct = np.sum(rt**2, axis=1)
-            nfev[idx] += 1
-            better = np.isfinite(ct) & (ct <= cost[idx])
-            rel_cost = np.where(better, (cost[idx] - ct) / np.maximum(cost[idx], 1e-300), np.inf)
-            rel_step = np.max(np.abs(trial - vals[idx]) / (np.abs(vals[idx]) + 1e-300), axis=1)
-            vals[idx[better]] = trial[better]
-            r[idx[better]] = rt[better]
-            cost[idx[better]] = ct[better]
-            lam[idx] = np.where(better, np.maximum(lam[idx] / 10, 1e-12), lam[idx] * 4)
-            done = (better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
-            stuck = lam[idx] > 1e16
-            converged[idx[done]] = True
-            active[idx[done | stuck]] = False
-
-    results = summarize(names, vals, free, jmat(vals), r, yz, w, success=True,
+    results = summarize(names, vals, free, jm, r, yz, w, success=True,
                         message="converged (batched Levenberg-Marquardt)", nfev=nfev, confidence=confidence,
                         units=units)
     r2 = np.array([res.r_squared for res in results])
@@ -382,6 +400,132 @@ def fit_batch(
     return results
 
 
+PROFILE_EXPAND = 12
+"""Doublings of the step (from one standard error) allowed when looking for each side of a profile interval."""
+PROFILE_ROOT = 30
+"""Root-finding evaluations allowed per side once the limit is bracketed (the cost cap; usually 5-8 suffice)."""
+
+
+def profile_batch(
+    func: Func,
+    jac: Jac,
+    x: Mapping[str, np.ndarray],
+    y: np.ndarray,
+    mask: np.ndarray,
+    results: Sequence[FitResult],
+    name: str,
+    *,
+    sigma: np.ndarray | None = None,
+    bounds: Mapping[str, tuple[float, float]] | None = None,
+    confidence: float = 0.95,
+    max_expand: int = PROFILE_EXPAND,
+    max_root: int = PROFILE_ROOT,
+) -> list[tuple[float, float, str]]:
+    """Profile-likelihood intervals of parameter ``name`` for many groups at once.
+
+    Data as in :func:`fit_batch` ([n_groups, n_points] arrays, ``mask`` False on padding); ``results`` are
+    the groups' fits. The limits are the values where the RSS, minimised over the other free parameters,
+    reaches RSS_min·(1 + F(confidence; 1, n − p)/(n − p)). Every evaluation is one vectorised
+    Levenberg-Marquardt run over all groups still searching, warm-started from the last point inside the
+    interval: the step from the estimate doubles from one standard error (at most ``max_expand`` times)
+    until the threshold is crossed, then an Illinois (modified regula falsi) iteration locates the crossing
+    to 1e-9 relative in RSS, with at most ``max_root`` evaluations per side (the cap that bounds the cost).
+
+    Returns (low, high, note) per group. A side that never reaches the threshold before a bound or within
+    2^max_expand standard errors is NaN (open interval); a limit still moving when the cap is hit is
+    returned with a note saying it is approximate.
+    """
+    nan = float("nan")
+    g = len(results)
+    out: list[tuple[float, float, str]] = [
+        (nan, nan, "no profile: fit failed, parameter fixed or no degrees of freedom")] * g
+    names = results[0].names if g else ()
+    if name not in names:
+        return out
+    j = names.index(name)
+    ok = np.array([r.success and r.dof > 0 and not r.params[name].fixed and bool(np.all(np.isfinite(r.values)))
+                   for r in results], bool)
+    sel = np.flatnonzero(ok)
+    if sel.size == 0:
+        return out
+    mask = np.asarray(mask, bool)[sel]
+    yv = np.asarray(y, float)[sel]
+    w = np.where(mask, 1.0 if sigma is None else 1.0 / np.where(mask, np.asarray(sigma, float)[sel], 1.0), 0.0)
+    yz = np.where(mask, yv, 0.0)
+    xs = {k: np.where(mask, np.asarray(v, float)[sel], _fill_value(np.asarray(v, float)[sel][mask]))
+          for k, v in x.items()}
+    best = np.array([results[i].values for i in sel], float)
+    free = np.array([results[i].free for i in sel], bool)
+    free[:, j] = False
+    dof = np.array([results[i].dof for i in sel])
+    target = np.array([results[i].rss for i in sel]) * (1 + stats.f.ppf(confidence, 1, dof) / dof)
+    se = np.array([results[i].params[name].stderr for i in sel])
+    step0 = np.where(np.isfinite(se) & (se > 0), se, 0.1 * np.maximum(np.abs(best[:, j]), 1e-12))
+    lo, hi = _as_bounds(names, bounds)
+
+    def excess(t: np.ndarray, start: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Profile RSS minus the threshold at ``t`` for groups ``rows``, and the inner solutions."""
+        v = start.copy()
+        v[:, j] = t
+        vals, r, _, _, _ = _lm(func, jac, {k: a[rows] for k, a in xs.items()}, yz[rows], w[rows],
+                               np.clip(v, lo, hi), free[rows], lo, hi, 200)
+        with np.errstate(all="ignore"):
+            return np.sum(r**2, axis=1) - target[rows], vals
+
+    limits = np.full((sel.size, 2), nan)
+    notes: list[list[str]] = [[] for _ in sel]
+    for col, (sign, bound) in enumerate(((-1, lo[j]), (1, hi[j]))):
+        side = "lower" if sign < 0 else "upper"
+        a, fa = best[:, j].copy(), -np.ones(sel.size)
+        b, fb = np.full(sel.size, nan), np.full(sel.size, nan)
+        start = best.copy()
+        step = step0.copy()
+        searching = np.ones(sel.size, bool)
+        for _ in range(max_expand):  # widen until the threshold is crossed (bracket [a, b])
+            rows = np.flatnonzero(searching)
+            if rows.size == 0:
+                break
+            t = best[rows, j] + sign * step[rows]
+            at_bound = t <= bound if sign < 0 else t >= bound
+            t = np.where(at_bound, bound, t)
+            f, vals = excess(t, start[rows], rows)
+            hit = ~(f < 0)  # crossed, or not finite (treated as beyond the threshold)
+            b[rows[hit]], fb[rows[hit]] = t[hit], f[hit]
+            a[rows[~hit]], fa[rows[~hit]], start[rows[~hit]] = t[~hit], f[~hit], vals[~hit]
+            searching[rows[hit | at_bound]] = False
+            step[rows] *= 2
+        active = np.isfinite(b)
+        last = np.zeros(sel.size, int)
+        c = b.copy()
+        for _ in range(max_root):  # Illinois iteration inside the bracket
+            rows = np.flatnonzero(active)
+            if rows.size == 0:
+                break
+            ar, br, far, fbr = a[rows], b[rows], fa[rows], fb[rows]
+            with np.errstate(all="ignore"):
+                cc = np.where(np.isfinite(fbr), br - fbr * (br - ar) / (fbr - far), 0.5 * (ar + br))
+            cc = np.where((cc - ar) * (cc - br) < 0, cc, 0.5 * (ar + br))
+            f, vals = excess(cc, start[rows], rows)
+            c[rows] = cc
+            inside = f < 0
+            ri, ro = rows[inside], rows[~inside]
+            a[ri], fa[ri], start[ri] = cc[inside], f[inside], vals[inside]
+            b[ro], fb[ro] = cc[~inside], f[~inside]
+            fb[ri[last[ri] == -1]] *= 0.5  # same side twice: halve the stale end (Illinois)
+            fa[ro[last[ro] == 1]] *= 0.5
+            last[rows] = np.where(inside, -1, 1)
+            tiny = np.abs(b[rows] - a[rows]) <= 1e-12 * np.maximum(np.abs(best[rows, j]), 1e-300)
+            active[rows[(np.abs(f) <= 1e-9 * target[rows]) | tiny]] = False
+        limits[:, col] = c
+        for k in np.flatnonzero(~np.isfinite(b) & np.isnan(c)):
+            notes[k].append(f"{side} limit not reached (open interval)")
+        for k in np.flatnonzero(active):
+            notes[k].append(f"{side} limit approximate: search stopped after {max_root} evaluations")
+    for k, gi in enumerate(sel):
+        out[gi] = (float(limits[k, 0]), float(limits[k, 1]), "; ".join(notes[k]))
+    return out
+
+
 def profile_interval(
     func: Func,
     jac: Jac,
@@ -391,67 +535,14 @@ def profile_interval(
     name: str,
     *,
     sigma: np.ndarray | None = None,
-    fixed: Mapping[str, float] | None = None,
     bounds: Mapping[str, tuple[float, float]] | None = None,
     confidence: float = 0.95,
-    max_expand: int = 12,
+    max_expand: int = PROFILE_EXPAND,
 ) -> tuple[float, float, str]:
-    """Profile-likelihood interval of parameter ``name``: the values where the RSS, minimised over the
-    other parameters, reaches RSS_min·(1 + F(confidence; 1, n − p)/(n − p)).
-
-    Returns (low, high, note). A side that never reaches the threshold before a bound, or within
-    2^max_expand standard errors, is NaN (open interval) and the note says so.
-    """
-    if not result.success or result.dof <= 0 or name not in result.names or result.params[name].fixed:
-        return float("nan"), float("nan"), "no profile: fit failed, parameter fixed or no degrees of freedom"
-    names = result.names
-    j = names.index(name)
-    best = result.values
-    dof = result.dof
-    target = result.rss * (1 + stats.f.ppf(confidence, 1, dof) / dof)
-    lo, hi = _as_bounds(names, bounds)
-    fx = dict(fixed or {})
-    se = result.params[name].stderr
-    step0 = se if np.isfinite(se) and se > 0 else 0.1 * max(abs(best[j]), 1e-12)
-    if result.free.sum() == 1:
-        def rss_at(t: float) -> float:
-            v = best.copy()
-            v[j] = t
-            w = 1.0 if sigma is None else 1.0 / np.asarray(sigma, float)
-            return float(np.sum((w * (func(list(v), x) - y)) ** 2))
-    else:
-        def rss_at(t: float) -> float:
-            # inner fits at 1e-10: the limit is found to ~1e-8 relative, far below any interval's meaning
-            f = fit(func, jac, x, y, best, names, sigma=sigma, fixed={**fx, name: t}, bounds=bounds,
-                    confidence=confidence, tol=1e-10)
-            return f.rss if np.isfinite(f.rss) else np.inf
-
-    out: list[float] = []
-    notes: list[str] = []
-    for sign, bound in ((-1, lo[j]), (1, hi[j])):
-        inside = best[j]
-        found = float("nan")
-        step = step0
-        for _ in range(max_expand):
-            t = best[j] + sign * step
-            at_bound = (sign < 0 and t <= bound) or (sign > 0 and t >= bound)
-            if at_bound:
-                t = bound
-            if not np.isfinite(t):
-                break
-            val = rss_at(t)
-            if val >= target:
-                try:
-                    found = optimize.brentq(lambda u: rss_at(u) - target, min(inside, t), max(inside, t),
-                                            xtol=1e-9 * max(abs(best[j]), 1e-300), rtol=1e-7, maxiter=60)
-                except ValueError:
-                    found = t
-                break
-            inside = t
-            if at_bound:
-                break
-            step *= 2
-        if not np.isfinite(found):
-            notes.append(f"{'lower' if sign < 0 else 'upper'} limit not reached (open interval)")
-        out.append(float(found))
-    return out[0], out[1], "; ".join(notes)
+    """Profile-likelihood interval of parameter ``name`` for one data set: :func:`profile_batch` on a
+    batch of one. Returns (low, high, note); see there for the method and the notes."""
+    y = np.asarray(y, float)
+    return profile_batch(func, jac, {k: np.asarray(v, float)[None] for k, v in x.items()}, y[None],
+                         np.ones((1, y.size), bool), [result], name,
+                         sigma=None if sigma is None else np.asarray(sigma, float)[None], bounds=bounds,
+                         confidence=confidence, max_expand=max_expand)[0]

@@ -84,18 +84,29 @@ def _saturation_problem(model: Model, res: engine.FitResult, s: np.ndarray) -> s
     return ""
 
 
-def _with_profiles(model: Model, res: engine.FitResult, x: dict[str, np.ndarray], y: np.ndarray,
-                   sigma: np.ndarray | None, fixed: dict[str, float], bounds: dict[str, tuple[float, float]],
-                   confidence: float) -> engine.FitResult:
-    params = dict(res.params)
+def _with_profiles(model: Model, results: list[engine.FitResult], xs: dict[str, np.ndarray], ys: np.ndarray,
+                   mask: np.ndarray, sigma: np.ndarray | None, bounds: dict[str, tuple[float, float]],
+                   confidence: float) -> list[engine.FitResult]:
+    """Replace the Wald intervals of the model's skewed parameters by profile-likelihood intervals, for all
+    groups of the batch at once (``xs``/``ys``/``mask``/``sigma`` as handed to the batch fit)."""
+    rows = [k for k, r in enumerate(results) if r.success and r.errorbars]
+    out = list(results)
+    if not rows:
+        return out
+    sub = np.array(rows)
     for name in model.profile:
-        if name not in params or params[name].fixed:
+        if any(name not in results[k].params or results[k].params[name].fixed for k in rows):
             continue
-        lo, hi, note = engine.profile_interval(model.evaluate, model.jacobian, x, y, res, name, sigma=sigma,
-                                               fixed=fixed, bounds=bounds, confidence=confidence)
-        params[name] = replace(params[name], ci_low=lo, ci_high=hi, ci_method="profile",
-                               note="; ".join(filter(None, [params[name].note, note])))
-    return replace(res, params=params)
+        limits = engine.profile_batch(model.evaluate, model.jacobian, {k: v[sub] for k, v in xs.items()}, ys[sub],
+                                      mask[sub], [out[k] for k in rows], name,
+                                      sigma=None if sigma is None else sigma[sub], bounds=bounds,
+                                      confidence=confidence)
+        for k, (lo, hi, note) in zip(rows, limits, strict=True):
+            params = dict(out[k].params)
+            params[name] = replace(params[name], ci_low=lo, ci_high=hi, ci_method="profile",
+                                   note="; ".join(filter(None, [params[name].note, note])))
+            out[k] = replace(out[k], params=params)
+    return out
 
 
 def _derived(model: Model, res: engine.FitResult, e: float, eu: str, ru: str, su: str,
@@ -265,13 +276,13 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         use_sigma = None if cfg["weighting"] == "none" else sg
         results = engine.fit_batch(model.evaluate, model.jacobian, xs, ys, mask, p0, model.params,
                                    sigma=use_sigma, fixed=fixed, bounds=bounds, confidence=conf, units=pu_units)
+        if cfg["profile"]:
+            results = _with_profiles(model, results, xs, ys, mask, use_sigma, bounds, conf)
         for (g, idx), res in zip(todo, results, strict=True):
             key = (g, model.name)
             xg = {v: xv[v][idx] for v in model.variables}
             if not res.success:
                 data.warn(f"fit: group {g}, {model.name}: did not converge ({res.message})")
-            elif cfg["profile"] and res.errorbars:
-                res = _with_profiles(model, res, xg, rate[idx], sigmas[key], fixed, bounds, conf)
             problem = _saturation_problem(model, res, xg["substrate"]) if "substrate" in xg else ""
             if problem:
                 data.warn(f"fit: group {g}, {model.name}: Vmax and Km not determined (no saturation)")
