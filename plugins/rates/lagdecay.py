@@ -40,28 +40,44 @@ def _block_lines(
     """Least-squares lines over every block of ``width`` consecutive reads.
 
     Returns slope, value of the line at the block's mean time, that mean time, and ``1/Sxx`` (so the slope's
-    standard error is ``sigma * sqrt(1/Sxx)``); each ``[n_wells, n_blocks]``, NaN for blocks with < 3 reads.
+    standard error is ``sigma * sqrt(1/Sxx)``); each ``[n_wells, n_blocks]`` (the last two read-only
+    broadcast views when every read is finite), NaN for blocks with < 3 reads. Sums over blocks come
+    from cumulative sums; the reads are taken relative to each well's first finite read and time relative
+    to the first read, which keeps the cumulative sums small.
     """
-    w = valid.astype(float)
+    n_w, n_t = y.shape
     tc = t - t[0]
-    y0 = np.where(valid, y, 0.0)
-
-    def block_sum(a: np.ndarray) -> np.ndarray:
-        c = np.concatenate([np.zeros((a.shape[0], 1)), np.cumsum(a, axis=1)], axis=1)
-        return c[:, width:] - c[:, :-width]
-
-    s0, s1, s2 = block_sum(w), block_sum(w * tc), block_sum(w * tc**2)
-    sy, sty = block_sum(w * y0), block_sum(w * tc * y0)
+    every = bool(valid.all())
+    ref = y[:, :1] if every else np.where(valid, y, 0.0)[np.arange(n_w), np.argmax(valid, axis=1)][:, None]
+    yr = y - ref
+    if not every:
+        yr = np.where(valid, yr, 0.0)
+    cum = np.empty((2, n_w, n_t + 1))  # not np.zeros: calloc'd pages would fault on first write
+    cum[:, :, 0] = 0.0
+    np.cumsum(yr, axis=1, out=cum[0, :, 1:])
+    np.cumsum(yr * tc, axis=1, out=cum[1, :, 1:])
+    sy, sty = cum[:, :, width:] - cum[:, :, :-width]
+    if every:  # the time moments are the same for every well
+        ct = np.zeros((3, n_t + 1))
+        np.cumsum(tc[None, :] ** np.arange(3)[:, None], axis=1, out=ct[:, 1:])
+        s0, s1, s2 = (ct[:, width:] - ct[:, :-width])[:, None, :]
+    else:
+        w = valid.astype(float)
+        cw = np.zeros((3, n_w, n_t + 1))
+        np.cumsum(w[None] * tc[None, None, :] ** np.arange(3)[:, None, None], axis=2, out=cw[:, :, 1:])
+        s0, s1, s2 = cw[:, :, width:] - cw[:, :, :-width]
     with np.errstate(invalid="ignore", divide="ignore"):
         tbar = s1 / s0
         sxx = s2 - s1 * tbar
-        slope = (sty - tbar * sy) / sxx
-        ybar = sy / s0
         inv_sxx = 1.0 / sxx
-    few = s0 < 3
-    for a in (slope, ybar, tbar, inv_sxx):
-        a[few] = np.nan
-    return slope, ybar, tbar + t[0], inv_sxx
+        slope = (sty - tbar * sy) * inv_sxx
+        ybar = sy / s0 + ref
+    if not every:
+        few = s0 < 3
+        for a in (slope, ybar, tbar, inv_sxx):
+            a[few] = np.nan
+    shape = slope.shape
+    return slope, ybar, np.broadcast_to(tbar + t[0], shape), np.broadcast_to(inv_sxx, shape)
 
 
 def detect_lag(
