@@ -324,7 +324,11 @@ def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: n
                 step = -np.linalg.solve(a, grad[:, :, None])[:, :, 0]
             except np.linalg.LinAlgError:
                 step = -np.stack([np.linalg.lstsq(ai, gi, rcond=None)[0] for ai, gi in zip(a, grad, strict=True)])
-            trial = np.clip(vals[idx] + step, lo, hi)
+            # a step that would cross a bound goes 90 % of the way to it instead: a parameter stays inside an
+            # open bound such as IC50 > 0, where the model degenerates and LM would stall at a false point
+            trial = vals[idx] + step
+            trial = np.where(trial < lo, lo + 0.1 * (vals[idx] - lo), np.where(trial > hi, hi - 0.1 * (hi - vals[idx]),
+                                                                               trial))
             rt = resid(trial, idx)
             ct = np.sum(rt**2, axis=1)
             nfev[idx] += 1

@@ -13,7 +13,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from pipeline import units as pu
 from pipeline.data import Table
@@ -109,21 +108,83 @@ def _with_profiles(model: Model, results: list[engine.FitResult], xs: dict[str, 
     return out
 
 
+def _derived_row(name: str, est: float, se: float, unit: str, tq: float, note: str) -> dict[str, Any]:
+    """A fits-table row for a quantity derived from fitted parameters (Wald interval from its delta-method SE)."""
+    ok = bool(np.isfinite(se))
+    return {"parameter": name, "estimate": est, "stderr": se, "ci_low": est - tq * se if ok else np.nan,
+            "ci_high": est + tq * se if ok else np.nan, "ci_method": "wald-t (derived)" if ok else "",
+            "unit": unit, "fixed": False, "note": note}
+
+
+KI_FROM = {"logistic-4p": "IC50", "morrison": "Ki_app"}
+"""Models whose fitted constant converts to Ki once the mechanism is known, and that constant's name."""
+
+
+def _ki_rows(model: Model, res: engine.FitResult, s: np.ndarray, cfg: Mapping[str, Any], iu: str, su: str,
+             confidence: float) -> list[dict[str, Any]]:
+    """Ki from IC50 (Cheng & Prusoff 1973) or from Morrison's Ki_app, for the mechanism the recipe assumes.
+
+    competitive Ki = K/(1 + S/Km); uncompetitive Ki = K/(1 + Km/S); noncompetitive Ki = K, with K the
+    IC50 or Ki_app. The SE propagates the SE of K and, when given, of Km (delta method, the two taken as
+    independent); the substrate concentration is taken as exact. Refused, with the reason, when the recipe
+    names no mechanism or S or Km is missing.
+    """
+    src = KI_FROM.get(model.name)
+    if src is None or src not in res.params:
+        return []
+    k = res.params[src]
+    mech = str(cfg["mechanism"])
+    tq = engine.t_quantile(confidence, res.dof)
+    how = "Cheng-Prusoff" if src == "IC50" else "Morrison Ki_app"
+
+    def refuse(why: str) -> list[dict[str, Any]]:
+        return [_derived_row("Ki", np.nan, np.nan, iu, tq, f"{NOT_DETERMINED}: {why}")]
+
+    if mech == "none":
+        return refuse(f"no mechanism given (set fit.mechanism to competitive, uncompetitive or noncompetitive); "
+                      f"the conversion of {src} to Ki depends on it")
+    assumed = f"mechanism assumed: {mech} (fit.mechanism), {how}"
+    if src == "IC50":
+        assumed += "; assumes enzyme well below IC50 (no tight binding; fit morrison otherwise)"
+    if mech == "noncompetitive":
+        return [_derived_row("Ki", k.value, k.stderr, iu, tq, f"Ki = {src}; {assumed}")]
+    s = s[np.isfinite(s)]
+    if s.size == 0 or not np.allclose(s, s[0], rtol=1e-9, atol=0) or s[0] <= 0:
+        return refuse(f"{mech} conversion needs one positive substrate concentration shared by the group's wells "
+                      f"(column {cfg['x']!r}); {assumed}")
+    if cfg["km"] is None:
+        return refuse(f"{mech} conversion needs Km (set fit.km, e.g. \"2 uM\"); {assumed}")
+    try:
+        f_km = pu.factor(str(cfg["km"].units), su)
+    except Exception:
+        return refuse(f"fit.km ({cfg['km']}) cannot be expressed in the substrate unit {su!r}; {assumed}")
+    km = float(cfg["km"].magnitude) * f_km
+    km_se = float(cfg["km_stderr"].m_as(cfg["km"].units)) * f_km if cfg["km_stderr"] is not None else 0.0
+    sv = float(s[0])
+    if mech == "competitive":
+        f, dfdkm, form = 1 + sv / km, -sv / km**2, f"Ki = {src}/(1 + S/Km)"
+    else:
+        f, dfdkm, form = 1 + km / sv, 1 / sv, f"Ki = {src}/(1 + Km/S)"
+    ki = k.value / f
+    se = float(np.hypot(k.stderr / f, ki / f * dfdkm * km_se))
+    km_note = f"Km = {km:.6g} {su} ± {km_se:.3g}" if cfg["km_stderr"] is not None else \
+        f"Km = {km:.6g} {su} taken as exact (fit.km_stderr not given)"
+    return [_derived_row("Ki", ki, se, iu, tq, f"{form} with S = {sv:.6g} {su}, {km_note}; "
+                         f"{assumed}")]
+
+
 def _derived(model: Model, res: engine.FitResult, e: float, eu: str, ru: str, su: str,
              confidence: float) -> list[dict[str, Any]]:
     """kcat = Vmax/[E] (1/s) and kcat/Km (1/(M·s)) with delta-method standard errors."""
     if "Vmax" not in model.params:
         return []
     rows = []
-    tq = stats.t.ppf(0.5 + confidence / 2, res.dof) if res.dof > 0 else np.nan
+    tq = engine.t_quantile(confidence, res.dof)
     v = res.params["Vmax"]
     iv = res.names.index("Vmax")
 
     def row(name: str, est: float, se: float, unit: str, note: str = "") -> dict[str, Any]:
-        ok = np.isfinite(se)
-        return {"parameter": name, "estimate": est, "stderr": se, "ci_low": est - tq * se if ok else np.nan,
-                "ci_high": est + tq * se if ok else np.nan, "ci_method": "wald-t (derived)" if ok else "",
-                "unit": unit, "fixed": False, "note": note or ("" if ok else "no standard error for Vmax")}
+        return _derived_row(name, est, se, unit, tq, note or ("" if np.isfinite(se) else "no standard error for Vmax"))
 
     if not (np.isfinite(e) and e > 0):
         why = "enzyme concentration unknown or not the same in every well of the group" if not np.isfinite(e) \
@@ -321,9 +382,12 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
                 row.update(estimate=np.nan, stderr=np.nan, ci_low=np.nan, ci_high=np.nan, ci_method="",
                            note=f"{NOT_DETERMINED}: {problem}")
             fit_rows.append({**common, **row})
+        idx = np.array(point_sets[(g, mname)], int)
         if res.success and not saturation and cfg["enzyme"]:
-            idx = np.array(point_sets[(g, mname)], int)
             for row in _derived(model, res, _group_enzyme(var["enzyme"][idx]), eu, ru, su, conf):
+                fit_rows.append({**common, **row})
+        if res.success:
+            for row in _ki_rows(model, res, var["substrate"][idx], cfg, iu, su, conf):
                 fit_rows.append({**common, **row})
         if res.success:
             corr_rows += diagnostics.correlations(g, mname, res)
@@ -369,7 +433,8 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
     fit_cols = ["group", "model", "parameter", "estimate", "stderr", "ci_low", "ci_high", "ci_method", "unit",
                 "fixed", "n_points", "rss", "dof", "r_squared", "aicc", "success", "message", "errorbars", "note"]
     rss_unit = f"({ru})^2" if ru and cfg["weighting"] == "none" else ""
-    meta = {"research_use": "Research use only: check results against the lab's validated procedures."}
+    meta = {"research_use": "Research use only: check results against the lab's validated procedures.",
+            "ki_mechanism": str(cfg["mechanism"])}
     out = {
         "fits": Table(pd.DataFrame(fit_rows, columns=fit_cols), {"rss": rss_unit} if rss_unit else {}, meta),
         "model_comparison": Table(pd.DataFrame(comp_rows), {"rss": rss_unit} if rss_unit else {}, meta),

@@ -60,6 +60,13 @@ class FitStage(Stage):
         "confidence": Param("float", 0.95, "confidence level of intervals and bands", low=0.5, high=0.9999),
         "profile": Param("bool", True, "profile-likelihood intervals for Km, K0.5, h, Ki (slower, asymmetric)"),
         "enzyme": Param("bool", True, "derive kcat and kcat/Km from the per-well enzyme column when present"),
+        "mechanism": Param.choice(("none", "competitive", "uncompetitive", "noncompetitive"), "none",
+                                  "inhibition mechanism assumed when converting IC50 (logistic-4p, Cheng-Prusoff) "
+                                  "or Ki_app (morrison) to Ki; none: no conversion"),
+        "km": Param.quantity("M", None, "Km of the substrate, for the Ki conversion (competitive, uncompetitive)",
+                             nullable=True),
+        "km_stderr": Param.quantity("M", None, "standard error of km, propagated into Ki (omit: km taken as exact)",
+                                    nullable=True),
         "alpha": Param("float", 0.05, "significance level of the F-tests in model comparison", low=1e-6, high=0.5),
     }
 
