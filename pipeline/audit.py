@@ -49,32 +49,50 @@ def to_json(value: Any) -> str:
 
 
 def write_table(group: Any, name: str, table: Table | pd.DataFrame) -> Any:
-    """Write ``table`` as ``group/name`` with one dataset per column."""
+    """Write ``table`` as ``group/name`` with one dataset per column.
+
+    The ``sha256`` attribute is computed from the arrays as they are written, byte for byte what
+    :func:`table_sha256` computes from the stored datasets (reading them back would double the cost).
+    """
+    import hashlib
+
     h5py = _h5py()
     if isinstance(table, pd.DataFrame):
         table = Table(table)
     frame = table.frame
     g = group.create_group(name)
+    columns = [str(c) for c in frame.columns]
     g.attrs["kind"] = "table"
-    g.attrs["columns"] = to_json([str(c) for c in frame.columns])
+    g.attrs["columns"] = to_json(columns)
     g.attrs["n_rows"] = len(frame)
+    digest = hashlib.sha256(to_json(columns).encode("utf-8"))
     for i, col in enumerate(frame.columns):
         series = frame[col]
         key = f"{i:03d}"
+        unit = str(table.units.get(str(col), ""))
         if pd.api.types.is_bool_dtype(series.dtype):
-            ds = g.create_dataset(key, data=series.to_numpy(dtype=bool))
+            arr = series.to_numpy(dtype=bool)
         elif pd.api.types.is_integer_dtype(series.dtype):
-            ds = g.create_dataset(key, data=series.to_numpy(dtype=np.int64))
+            arr = series.to_numpy(dtype=np.int64)
         elif pd.api.types.is_float_dtype(series.dtype):
-            ds = g.create_dataset(key, data=series.to_numpy(dtype=np.float64))
+            arr = series.to_numpy(dtype=np.float64)
         else:
             text = ["" if _missing(v) else str(v) for v in series.tolist()]
             ds = g.create_dataset(key, data=np.array(text, dtype=object), dtype=h5py.string_dtype("utf-8"))
+            digest.update(f"|{unit}|O|{ds.shape}|".encode())
+            encoded = [t.encode("utf-8") for t in text]
+            digest.update(b"".join(len(b).to_bytes(8, "little") + b for b in encoded))
+            ds.attrs["name"] = str(col)
+            ds.attrs["unit"] = unit
+            continue
+        ds = g.create_dataset(key, data=arr)
+        digest.update(f"|{unit}|{ds.dtype.kind}|{ds.shape}|".encode())
+        digest.update(arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes())
         ds.attrs["name"] = str(col)
-        ds.attrs["unit"] = str(table.units.get(str(col), ""))
+        ds.attrs["unit"] = unit
     if table.meta:
         g.attrs["meta"] = to_json(dict(table.meta))
-    g.attrs["sha256"] = table_sha256(g)
+    g.attrs["sha256"] = digest.hexdigest()
     return g
 
 
