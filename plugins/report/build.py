@@ -201,7 +201,9 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 "residuals (observed − fitted) of the fitted wells.", png, svg, "groups"))
         gd = diag[diag["group"].astype(str) == g] if "group" in diag else pd.DataFrame()
         if len(gd):
-            fig = figures.transforms(g, gd)
+            x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
+                                                    and len(rates) else "")
+            fig = figures.transforms(g, gd, content.pretty_unit(rate_unit), content.pretty_unit(x_unit))
             png, svg = figures.render(fig)
             block["figures"].append(Figure(
                 _unique(f"transforms_{figures.slug(g)}", taken), f"{g}: Hill plot and linear transforms",

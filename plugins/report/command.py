@@ -43,6 +43,9 @@ def run(args: argparse.Namespace) -> int:
 
     audit = Path(args.audit)
     out = Path(args.out) if args.out else audit.parent
+    if (out / "report.html").exists() and not args.force:
+        raise OutputExistsError(f"{out / 'report.html'} already exists",
+                                hint="Pass --force to replace it, or choose another --out.")
     report_input = from_audit(audit, max_panels=args.max_panels)
     files = build(report_input)
     write_files(out, files, args.force)

@@ -161,7 +161,7 @@ def flagged_rows(rates: pd.DataFrame) -> list[dict[str, str]]:
         if names:
             rows.append({
                 "plate": str(r.get("plate", "")), "well": str(r.get("well", "")), "group": str(r.get("group", "")),
-                "role": str(r.get("role", "")), "flags": ", ".join(names),
+                "role": str(r.get("role", "")), "flags": ", ".join(n.replace("_", " ") for n in names),
                 "meaning": "; ".join(FLAG_TEXT.get(f, f) for f in names),
             })
     return rows

@@ -23,7 +23,7 @@ import pandas as pd
 
 from pipeline.data import Traces
 from plugins.report import palette
-from plugins.report.content import flag_list, model_title, pretty_unit
+from plugins.report.content import flag_list, model_title, num, pretty_unit
 
 MAX_PANELS = 384
 """Most wells drawn in one progress-curve figure; larger plates get a subsample (flagged wells first)."""
@@ -48,6 +48,7 @@ def render(fig: Any, dpi: int = 130) -> tuple[bytes, bytes]:
     png, svg = io.BytesIO(), io.BytesIO()
     try:
         fig.savefig(png, format="png", dpi=dpi, metadata={"Software": None})
+        fig.set_layout_engine("none")  # keep the layout just computed: the SVG needs no second pass
         fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
     finally:
         plt.close(fig)
@@ -370,7 +371,7 @@ TRANSFORM_TITLES = {
 }
 
 
-def transforms(group: str, diag: pd.DataFrame) -> Any:
+def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str = "") -> Any:
     """The linear transforms of one group: points (hollow where the transform is unstable) and each
     transform's own straight line, with the estimates that line implies in the panel title."""
     plt = _plt()
@@ -400,7 +401,9 @@ def transforms(group: str, diag: pd.DataFrame) -> Any:
                 gx = np.linspace(np.min(x[good]), np.max(x[good]), 20)
                 st = palette.series(1)
                 ax.plot(gx, icpt + slope * gx, color=st.color, ls=st.linestyle, lw=1.4, label="straight line")
-            words = ", ".join(f"{k} = {v:.3g}" for k, v in est.items() if k not in ("slope", "intercept"))
+            unit_of = {"Vmax": rate_unit, "Km": x_unit, "K0.5": x_unit}
+            words = ", ".join(f"{k} = {num(v, 3)} {unit_of.get(k, '')}".rstrip() for k, v in est.items()
+                              if k not in ("slope", "intercept"))
             ax.set_title(f"{TRANSFORM_TITLES.get(plot, plot)}" + (f"\nline gives {words}" if words else ""),
                          loc="left", fontsize=9)
             if len(pts):

@@ -1,0 +1,57 @@
+"""The report in a real browser: headless Chromium loads it from a file, decodes every figure, logs no error.
+
+Needs the Debian packages chromium (and chromium-driver in CI); skipped with a message where the browser is
+missing. Set VZERO_UPDATE_GALLERY=1 to also copy the screenshot to docs/gallery/report-screenshot.png.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+from pathlib import Path
+
+import pytest
+
+from plugins.report.chromium import check_page, find_browser
+
+BROWSER = find_browser()
+GALLERY = Path(__file__).parents[3] / "docs" / "gallery"
+
+pytestmark = [
+    pytest.mark.browser,
+    pytest.mark.skipif(BROWSER is None, reason="no Chromium on PATH: install the Debian packages chromium and "
+                                                "chromium-driver to run the browser test"),
+]
+
+
+def test_report_opens_in_chromium_with_every_figure_and_no_errors(finished_run: Path, tmp_path: Path):
+    assert BROWSER is not None
+    # copy the report alone (no figures/ beside it): it must stand on its own, as an e-mail attachment does
+    alone = tmp_path / "attachment" / "report.html"
+    alone.parent.mkdir()
+    shutil.copy(finished_run / "report.html", alone)
+    seen = check_page(alone, BROWSER, width=1280, height=1600)
+    assert seen.total_images == 3  # plate map, progress curves, rates against substrate
+    assert seen.loaded_images == seen.total_images, seen.broken
+    assert seen.errors == []
+    assert seen.external == []
+    assert seen.title.startswith("vzero report")
+    assert seen.height > 1600  # the page laid out beyond one screen: sections and tables rendered
+    assert seen.screenshot.startswith(b"\x89PNG\r\n\x1a\n")
+    shot = tmp_path / "report-screenshot.png"
+    shot.write_bytes(seen.screenshot)
+    if os.environ.get("VZERO_UPDATE_GALLERY") == "1":
+        GALLERY.mkdir(parents=True, exist_ok=True)
+        shutil.copy(shot, GALLERY / "report-screenshot.png")
+
+
+def test_a_broken_image_is_caught(tmp_path: Path):
+    """The check must be able to fail: a page with an undecodable image and a console error."""
+    assert BROWSER is not None
+    page = tmp_path / "bad.html"
+    page.write_text('<!DOCTYPE html><html><head><title>bad</title></head><body>'
+                    '<img alt="broken" src="data:image/png;base64,AAAA">'
+                    '<script>console.error("deliberate")</script></body></html>', "utf-8")
+    seen = check_page(page, BROWSER, width=400, height=300)
+    assert seen.total_images == 1 and seen.loaded_images == 0 and seen.broken == ["broken"]
+    assert any("deliberate" in e for e in seen.errors)
