@@ -1,0 +1,171 @@
+"""``python -m bench [--quick]``: the benchmark suite. Prints each figure as it comes, then the ratios to the
+peer and the targets, and writes bench/RESULTS.md with the machine it ran on.
+
+Measured (each in a fresh subprocess, one BLAS thread): the whole pipeline (import, blank, rates, convert,
+fit, audit file; no report) per stage with the audit file's share, on 96x60, 384x120 and 1536x200 plates
+with automatic linear rates ("auto") and on 384x120 with progress-curve rates ("progress"); peak memory;
+the peer script (bench/peer.py) on the same plates; a batch of plates with 1 and 2 workers; ``vzero --help``
+and a whole single-plate ``vzero run`` from the shell. ``--quick`` runs smaller sizes and a 40-plate batch.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import platform
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
+
+from bench.pipeline_bench import in_subprocess, wall
+
+HERE = Path(__file__).resolve().parent
+
+
+def machine() -> str:
+    import numpy
+
+    cpu = platform.processor() or platform.machine()
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    return (f"{cpu}; {os.cpu_count()} logical cores; {platform.system()}; Python {platform.python_version()}; "
+            f"numpy {numpy.__version__}")
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(prog="python -m bench", description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="smaller plates and a 40-plate batch (about a minute)")
+    ap.add_argument("--no-write", action="store_true", help="print only; do not rewrite bench/RESULTS.md")
+    args = ap.parse_args(argv)
+    sizes = [(96, 60), (384, 120)] + ([] if args.quick else [(1536, 200)])
+    n_batch = 40 if args.quick else 200
+    rows: list[str] = []
+    notes: list[str] = []
+
+    def say(text: str) -> None:
+        print(text, flush=True)
+
+    say(f"machine: {machine()}")
+    say("plate        rates     total s  import   blank   rates   convert fit     audit s (share)  "
+        "peak RSS MB  traced MB  peer s  peer/vzero")
+    results: dict[tuple[int, int, str], dict[str, Any]] = {}
+    for n_w, n_t in sizes:
+        for rates in ("auto", "progress") if (n_w, n_t) == (384, 120) else ("auto",):
+            r = in_subprocess("plate", str(n_w), str(n_t), rates, "3" if n_w <= 384 else "1")
+            peer_method = "window" if rates == "auto" else "progress"
+            p = in_subprocess("peer", str(n_w), str(n_t), peer_method)
+            results[(n_w, n_t, rates)] = {**r, "peer": p["total"]}
+            st = r["stages"]
+            line = (f"{n_w:>4}x{n_t:<6}  {rates:<9} {r['total']:7.3f}  "
+                    + "  ".join(f"{st.get(k, float('nan')):6.3f}" for k in ("import", "blank", "rates", "convert",
+                                                                          "fit"))
+                    + f"  {r['audit']:6.3f} ({r['audit'] / r['total']:4.0%})   {r['maxrss_mb']:8.0f}   "
+                    f"{r['traced_peak_mb']:8.1f}  {p['total']:7.2f}  {p['total'] / r['total']:6.1f}x")
+            say(line)
+            rows.append(f"| {n_w}x{n_t} | {rates} | {r['total']:.3f} | "
+                        + " | ".join(f"{st.get(k, float('nan')):.3f}" for k in ("import", "blank", "rates",
+                                                                              "convert", "fit"))
+                        + f" | {r['audit']:.3f} ({r['audit'] / r['total']:.0%}) | {r['maxrss_mb']:.0f} | "
+                        f"{r['traced_peak_mb']:.1f} | {p['total']:.2f} ({peer_method}) | "
+                        f"{p['total'] / r['total']:.1f}x |")
+
+    say(f"\nbatch of {n_batch} plates (96x60, auto rates, one pooled fit):")
+    batch = {}
+    for jobs in (1, 2):
+        b = in_subprocess("batch", str(n_batch), str(jobs))
+        batch[jobs] = b
+        say(f"  {jobs} worker(s): {b['total']:.2f} s ({b['total'] / n_batch * 1000:.0f} ms per plate; "
+            f"pooled fit {b['stages'].get('fit', 0):.2f} s; failed {b['failed']})")
+    speedup = batch[1]["total"] / batch[2]["total"]
+    say(f"  speed-up with 2 workers: {speedup:.2f}x")
+
+    with tempfile.TemporaryDirectory() as tmp:
+        vzero = [sys.executable, "-m", "pipeline"]
+        help_s = min(wall([*vzero, "--help"]) for _ in range(3))
+        demo = HERE.parent / "configs" / "demo.yaml"
+        run_s = min(wall([*vzero, "run", str(demo), "--out", str(Path(tmp) / f"r{i}"), "-q"]) for i in range(2))
+    say(f"\nvzero --help: {help_s:.2f} s; whole vzero run of the 96-well demo (interpreter start included): "
+        f"{run_s:.2f} s")
+
+    mid = results.get((384, 120, "auto"))
+    prog = results.get((384, 120, "progress"))
+    big = results.get((1536, 200, "auto"))
+    checks = []
+    if mid:
+        checks += [("384x120 auto: at least 15x faster than the peer", mid["peer"] / mid["total"] >= 15,
+                    f"{mid['peer'] / mid['total']:.1f}x"),
+                   ("384x120 auto: under 50 ms", mid["total"] < 0.05, f"{mid['total'] * 1000:.0f} ms"),
+                   ("audit file no more than 25% of the run", mid["audit"] / mid["total"] <= 0.25,
+                    f"{mid['audit'] / mid['total']:.0%}")]
+    if prog:
+        checks.append(("384x120 progress: at least 25x faster than the peer", prog["peer"] / prog["total"] >= 25,
+                       f"{prog['peer'] / prog['total']:.1f}x"))
+    if big:
+        checks.append(("1536x200 peak memory under 300 MB (whole process RSS)", big["maxrss_mb"] < 300,
+                       f"{big['maxrss_mb']:.0f} MB"))
+    checks += [(f"{n_batch}-plate batch: 2 workers at least 1.7x faster than 1", speedup >= 1.7, f"{speedup:.2f}x"),
+               ("vzero --help under 0.5 s", help_s < 0.5, f"{help_s:.2f} s"),
+               ("single-plate vzero run under 2 s", run_s < 2.0, f"{run_s:.2f} s")]
+    say("\ntargets:")
+    for what, ok, got in checks:
+        say(f"  {'met   ' if ok else 'MISSED'} {what}: {got}")
+        notes.append(f"| {what} | {got} | {'met' if ok else '**missed**'} |")
+
+    if not args.no_write:
+        text = RESULTS.format(
+            machine=machine(), mode="--quick" if args.quick else "full", rows="\n".join(rows), n_batch=n_batch,
+            b1=batch[1]["total"], b2=batch[2]["total"], speedup=speedup, help_s=help_s, run_s=run_s,
+            targets="\n".join(notes),
+        )
+        (HERE / "RESULTS.md").write_text(text, "utf-8")
+        say("\nwrote bench/RESULTS.md")
+    return 0
+
+
+RESULTS = """# Benchmark results
+
+Written by `python -m bench` ({mode} run); rerun it to refresh. Figures depend on the machine and on
+what else it was doing; compare ratios rather than seconds.
+
+Machine: {machine}
+
+## One plate, in-process (seconds; best of 3 runs after a warm-up; one BLAS thread)
+
+Import, blank, rates, convert, fit (Michaelis–Menten with profile intervals) and the audit file; no report.
+Stage times are those stored in the audit file; "audit" is the writing of run.h5. Peak RSS is the whole
+benchmark process (interpreter, numpy, scipy, pandas, h5py included); "traced" is tracemalloc's peak of
+Python-tracked allocations during one run. The peer is bench/peer.py on the same files: pandas,
+a Python loop over wells (growing-window `linregress`, or per-well `curve_fit` of the integrated
+Michaelis–Menten equation for "progress"), `curve_fit` per group, CSV out.
+
+| plate | rates | total | import | blank | rates | convert | fit | audit (share) | peak RSS MB | traced MB \
+| peer s | peer / vzero |
+|---|---|---|---|---|---|---|---|---|---|---|---|---|
+{rows}
+
+## Batch
+
+{n_batch} plates of 96x60 (auto rates), one recipe, pooled fit: 1 worker {b1:.2f} s, 2 worker processes
+{b2:.2f} s, speed-up {speedup:.2f}x.
+
+## Command line
+
+`vzero --help` {help_s:.2f} s; a whole `vzero run` of the 96-well demo {run_s:.2f} s (interpreter start
+included).
+
+## Targets
+
+| target | measured | |
+|---|---|---|
+{targets}
+"""
+
+
+if __name__ == "__main__":
+    sys.exit(main())
