@@ -108,3 +108,16 @@ def test_slug_and_units():
     assert figures.slug("***") == "unnamed"
     assert content.pretty_unit("uM/min") == "µM/min"
     assert content.pretty_unit("AU/s") == "AU/s"
+
+
+def test_residuals_use_the_fitted_model_exactly(report_input):
+    """The residual panel evaluates the fit plugin's model at each well; for Michaelis-Menten that must be the
+    textbook v = Vmax·S/(Km + S) (Michaelis & Menten 1913; any biochemistry text)."""
+    pytest.importorskip("plugins.fit.catalog")
+    from plugins.report.build import _evaluators
+
+    from .conftest import GROUP, KM, VMAX
+
+    ev = _evaluators(report_input.tables["fits"].frame, GROUP, "substrate")
+    s = np.array([0.0, 10.0, 100.0, 1000.0])
+    assert_allclose(ev["michaelis-menten"](s), VMAX * s / (KM + s), rtol=1e-12)
