@@ -67,6 +67,24 @@ def vzero_commands(commands: Any) -> None:
     """
 
 
+@hookspec
+def vzero_check_recipe(recipe: Any, where: Any) -> list[str]:
+    """Validate the parts of a recipe that a plugin owns beyond its step parameters.
+
+    Called once per recipe, after every step has been checked and before anything runs. ``recipe`` is the
+    parsed recipe mapping (read-only); ``where(path)`` turns a key path tuple such as
+    ``("exclusions", 0, "reason")`` into ``"recipe.yaml:31 exclusions[0].reason"``. Return one message per
+    problem (an empty list when all is well); they are reported together with every other recipe problem.
+
+    Example::
+
+        @hookimpl
+        def vzero_check_recipe(recipe, where):
+            assay = recipe.get("assay", {})
+            return [] if "temperature" in assay else [f"{where(('assay',))}: give the temperature"]
+    """
+
+
 # -- run events (observers) -----------------------------------------------------------------------------
 
 

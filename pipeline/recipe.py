@@ -195,13 +195,15 @@ def check(
     expand: Callable[[str], list[str]] | None = None,
     read: Callable[[str], bytes] | None = None,
     plates: bool = True,
+    extra_checks: Callable[[Recipe], list[str]] | None = None,
 ) -> Recipe:
     """Validate ``recipe`` against the registry: keys, types, units, methods, plates and input files.
 
     ``exists(rel_path)`` says whether an input file is available (default: on disk beside the recipe);
     ``expand(pattern)`` expands a glob in a ``data`` entry (default: on disk); ``read(rel_path)`` returns the
     bytes of a plate manifest (default: from disk). ``plates=False`` skips the plates (a worker process that
-    is handed its plate checks only the steps). Fills ``recipe.steps``, ``recipe.plates`` and
+    is handed its plate checks only the steps). ``extra_checks(recipe)`` returns further problems (the
+    plugins' ``vzero_check_recipe`` hook). Fills ``recipe.steps``, ``recipe.plates`` and
     ``recipe.manifests`` and returns the recipe; raises :class:`RecipeError` listing every problem.
     """
     base = recipe.base_dir
@@ -234,6 +236,8 @@ def check(
         recipe.manifests = []
         recipe.plates = _check_plates(data.get("plates"), bad, exists, expand, read, recipe.manifests)
     recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad)
+    if extra_checks is not None:
+        problems.extend(extra_checks(recipe))
     if problems:
         raise RecipeError(problems, hint="Nothing was run.")
     return recipe

@@ -126,7 +126,11 @@ def prepare(
     rec = recipe if isinstance(recipe, Recipe) else load(recipe)
     plugins = make_manager(rec.plugin_entries, base_dir=rec.base_dir, extra=extra_plugins)
     source = inputs or DiskInputs(rec.base_dir)
-    check(rec, plugins.registry, exists=source.exists, expand=source.expand)
+
+    def plugin_checks(r: Recipe) -> list[str]:
+        return [msg for found in plugins.hook.vzero_check_recipe(recipe=r.data, where=r.where) for msg in found or []]
+
+    check(rec, plugins.registry, exists=source.exists, expand=source.expand, extra_checks=plugin_checks)
     return rec, plugins, source
 
 

@@ -243,6 +243,14 @@ def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
 
 
 @hookimpl
+def vzero_check_recipe(recipe: Any, where: Any) -> list[str]:
+    """The recipe's ``exclusions`` and ``overrides`` (applied by the import and rates stages)."""
+    from plugins.exclusions import check_items
+
+    return check_items(recipe, where)
+
+
+@hookimpl
 def vzero_register(registry: Any) -> None:
     registry.add(TableImport)
     registry.add(RatesTableImport)

@@ -51,6 +51,17 @@ def conversion(traces: Any, settings: dict[str, Any], warn: Any) -> tuple[Any, f
     return traces.wells["substrate"].to_numpy(dtype=float), sign * value if np.isfinite(value) else None
 
 
+def finish_table(traces: Any, result: Any, method: str, data: StageInput) -> StageOutput:
+    """The standard rates table for ``result``, with the recipe's per-well overrides and exclusions applied
+    (overridden wells recomputed over their fixed windows, each with its reason in the ``note`` column)."""
+    from plugins.exclusions import apply_overrides
+    from plugins.tables import rates_table
+
+    table = rates_table(traces, result, method)
+    table = apply_overrides(traces, table, data.recipe.get("overrides") or [])
+    return StageOutput(artifacts={"rates": table})
+
+
 class KernelRates(Stage):
     """Shared ``run`` for methods that call a kernel ``f(time, signal, s0=, signal_per_conc=, **kw)``."""
 
@@ -60,15 +71,13 @@ class KernelRates(Stage):
     def run(self, data: StageInput) -> StageOutput:
         import importlib
 
-        from plugins.tables import rates_table
-
         traces = data.artifacts["traces"]
         s0, per = conversion(traces, self.settings, data.warn)
         module, name = self.kernel.split(":")
         func = getattr(importlib.import_module(module), name)
         kwargs = {k: self._value(k) for k in self.kernel_params}
         result = func(traces.time, traces.masked_signal(), s0=s0, signal_per_conc=per, **kwargs)
-        return StageOutput(artifacts={"rates": rates_table(traces, result, self.method)})
+        return finish_table(traces, result, self.method, data)
 
     def _value(self, key: str) -> Any:
         v = self.settings[key]
@@ -168,14 +177,13 @@ class WindowRates(Stage):
 
     def run(self, data: StageInput) -> StageOutput:
         from plugins.rates.window import window_slopes
-        from plugins.tables import rates_table
 
         traces = data.artifacts["traces"]
         start, end = self.settings["start"].m_as("s"), self.settings["end"].m_as("s")
         if end <= start:
             raise StageError(f"rates window ends ({end} s) before it starts ({start} s); fix start and end")
         result = window_slopes(traces.time, traces.masked_signal(), start, end)
-        return StageOutput(artifacts={"rates": rates_table(traces, result, self.method)})
+        return finish_table(traces, result, self.method, data)
 
 
 @hookimpl
