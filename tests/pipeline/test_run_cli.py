@@ -129,3 +129,11 @@ def test_every_command_has_help_with_an_example(capsys):
     with pytest.raises(SystemExit):
         main(["run", "--help"])
     assert "vzero run" in capsys.readouterr().out
+
+
+def test_exclusion_without_reason_is_a_recipe_error_with_its_line(plate_folder: Path, tmp_path: Path, capsys):
+    text = plate_folder.read_text("utf-8") + "exclusions:\n  - {plate: p1, well: B3}\n"
+    plate_folder.write_text(text, "utf-8")
+    assert main(["check", str(plate_folder)]) == 2
+    err = capsys.readouterr().err
+    assert "recipe.yaml:12 exclusions[0]" in err and "reason" in err
