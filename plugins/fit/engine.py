@@ -271,12 +271,13 @@ def _fill_value(used: np.ndarray) -> float:
 
 
 def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: np.ndarray, vals: np.ndarray,
-        free: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int,
+        free: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int, lam0: float = 1e-3,
         ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Levenberg-Marquardt vectorised over groups (the core of :func:`fit_batch` and :func:`profile_batch`).
 
     ``xs``/``yz``/``w`` are [g, n] with padding weighted 0; ``vals`` [g, p] start values (fixed columns
-    already set); ``free`` [p] or [g, p] (a per-group mask lets a profile fix one parameter per group).
+    already set); ``free`` [p] or [g, p] (a per-group mask lets a profile fix one parameter per group);
+    ``lam0`` the initial damping (small for a warm start near the solution, as in profiles).
     Returns (values, weighted residuals, weighted Jacobian with fixed columns zeroed, converged, nfev).
     """
     g, npts = yz.shape
@@ -302,7 +303,7 @@ def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: n
     r = resid(vals)
     with np.errstate(all="ignore"):
         cost = np.sum(r**2, axis=1)
-    lam = np.full(g, 1e-3)
+    lam = np.full(g, lam0)
     active = np.isfinite(cost)
     converged = np.zeros(g, bool)
     nfev = np.ones(g, int)
@@ -472,7 +473,7 @@ def profile_batch(
         v = start.copy()
         v[:, j] = t
         vals, r, _, _, _ = _lm(func, jac, {k: a[rows] for k, a in xs.items()}, yz[rows], w[rows],
-                               np.clip(v, lo, hi), free[rows], lo, hi, 200)
+                               np.clip(v, lo, hi), free[rows], lo, hi, 200, lam0=1e-6)
         with np.errstate(all="ignore"):
             return np.sum(r**2, axis=1) - target[rows], vals
 

@@ -269,3 +269,20 @@ def test_batched_fit_of_different_problems(keys: list[str]) -> None:
             # these reach the minimum in the vectorised iteration itself, not through the one-by-one fallback
             # (which BoxBOD and Eckerle4 from start 1 may take, by design)
             assert res.message.startswith("converged (batched"), (keys[k], start, res.message)
+
+
+def test_profile_batch_cap_and_open_side_are_noted() -> None:
+    # The evaluation cap bounds the cost: with one root-finding step per side the limits are only
+    # approximate and the note says so; a bound below the lower limit leaves that side open. The full-precision
+    # limits come from the threshold definition checked in the test above.
+    x, y = _load("Misra1d")
+    res = engine.fit(misra1d, misra1d_jac, {"x": x}, y, [450, 3e-4], ["b1", "b2"])
+    args = (misra1d, misra1d_jac, {"x": x[None]}, y[None], np.ones((1, x.size), bool), [res], "b2")
+    lo, hi, note = engine.profile_batch(*args)[0]
+    lo1, hi1, note1 = engine.profile_batch(*args, max_root=1)[0]
+    assert note == "" and note1.count("approximate") == 2
+    assert lo1 != lo and hi1 != hi and abs(lo1 - lo) < 0.1 * (hi - lo) and abs(hi1 - hi) < 0.1 * (hi - lo)
+    b2 = res.value("b2")
+    lo2, hi2, note2 = engine.profile_batch(*args, bounds={"b2": (b2 - 0.1 * (b2 - lo), np.inf)})[0]
+    assert np.isnan(lo2) and "lower limit not reached (open interval)" in note2
+    np.testing.assert_allclose(hi2, hi, rtol=1e-9)
