@@ -22,11 +22,12 @@ from collections.abc import Callable  # noqa: E402
 import numpy as np  # noqa: E402
 from scipy import stats  # noqa: E402
 from scipy.optimize import OptimizeWarning, curve_fit  # noqa: E402
+from scipy.special import wrightomega  # noqa: E402
 
 from plugins.flags import Flag  # noqa: E402
 from plugins.rates.auto import auto  # noqa: E402
 from plugins.rates.polynomial import polynomial  # noqa: E402
-from plugins.rates.progress import integrated_mm, progress_curve  # noqa: E402
+from plugins.rates.progress import progress_curve  # noqa: E402
 from plugins.rates.simulate import simulate_plate  # noqa: E402
 
 SPC = 5.0  # signal per mM of product (invented)
@@ -64,13 +65,15 @@ def peer_growing_window(t: np.ndarray, y: np.ndarray, t_crit: float = 3.0, min_p
 
 
 def peer_curve_fit(t: np.ndarray, y: np.ndarray, s0: np.ndarray) -> np.ndarray:
-    """Per-well scipy.optimize.curve_fit (bounded, trust-region) of the integrated Michaelis–Menten equation."""
+    """Per-well scipy.optimize.curve_fit (bounded, trust-region) of the integrated Michaelis–Menten equation,
+    written as a lab would with scipy alone: ``S = Km wrightomega(ln(S0/Km) + (S0 - Vmax t)/Km)`` (scipy's
+    Wright omega, faster and safer than ``lambertw`` of an ``exp``), numerical Jacobian."""
     out = np.full(y.shape[0], np.nan)
     for i, row in enumerate(y):
         s = s0[i]
 
         def model(tt: np.ndarray, base: float, km: float, vmax: float, s=s) -> np.ndarray:
-            return base + SPC * (s - integrated_mm(tt, s, km, vmax))
+            return base + SPC * (s - km * wrightomega(np.log(s / km) + (s - vmax * tt) / km))
 
         v_guess = max((row[5] - row[0]) / (t[5] - t[0]) / SPC, 1e-9)
         try:

@@ -142,7 +142,7 @@ def _selwyn(params: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, np.ndarray
     phi = np.where(small, 1.0 - kt / 2.0, -np.expm1(-kt_safe) / kt_safe)
     dphi = np.where(small, -0.5 + kt / 3.0, (np.exp(-kt_safe) * kt_safe + np.expm1(-kt_safe)) / kt_safe**2)
     f = y0 + v0 * tau * phi
-    jac = np.stack([np.ones_like(f), tau * phi, v0 * tau * tau * dphi], axis=-1)
+    jac = np.stack([np.ones_like(f), tau * phi, v0 * tau * tau * dphi], axis=1)
     return f, jac
 
 

@@ -10,9 +10,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
-from scipy.special import lambertw
+from scipy.special import lambertw, wrightomega
 
-from plugins.rates.progress import _mm_curve, integrated_mm
+from plugins.rates.progress import _concentration_model, _mm_curve, _signal_model, integrated_mm, wright_omega
 
 # (S0, Km, Vmax, t, S(t)) from REFERENCES.md section 5 "Check values" (computed there with the closed form)
 CHECK = [
@@ -68,4 +68,38 @@ def test_jacobian_matches_finite_differences() -> None:
         up[arg] = up[arg] * np.exp(h)
         dn[arg] = dn[arg] * np.exp(-h)
         numeric = (_mm_curve(t, *up)[0] - _mm_curve(t, *dn)[0]) / (2 * h)
-        np.testing.assert_allclose(analytic, numeric, rtol=1e-6, atol=1e-12)
+        # central-difference error: truncation ~h² relative, rounding ~eps * S0 / h ~ 1.5e-10 absolute
+        np.testing.assert_allclose(analytic, numeric, rtol=1e-6, atol=1e-9)
+
+
+@pytest.mark.parametrize("which", ["concentration", "signal"])
+def test_fit_model_jacobians_match_finite_differences(which: str) -> None:
+    # the batched fit's models in their own parameters (baseline, ln v0, logit r / ln c1): analytic columns
+    # against central differences (step 1e-6), as in the test above
+    t = np.linspace(0, 600, 31)
+    if which == "concentration":
+        model = _concentration_model(t, np.array([[0.4], [3.0]]), -2.5)
+        p = np.array([[0.1, np.log(4e-4), 0.3], [0.05, np.log(1e-3), -1.2]])
+    else:
+        model = _signal_model(t, np.array([1.0, -1.0]))
+        p = np.array([[0.1, np.log(2e-3), np.log(0.8), 0.3], [0.9, np.log(1e-3), np.log(2.0), -0.7]])
+    rows = np.arange(2)
+    _, jac = model(p, rows)
+    h = 1e-6
+    for k in range(p.shape[1]):
+        up, dn = p.copy(), p.copy()
+        up[:, k] += h
+        dn[:, k] -= h
+        numeric = (model(up, rows)[0] - model(dn, rows)[0]) / (2 * h)
+        # rounding of the differences: about eps * |signal| / h ~ 1e-9
+        np.testing.assert_allclose(jac[:, k], numeric, rtol=1e-6, atol=1e-8)
+
+
+def test_wright_omega_against_scipy() -> None:
+    # independent: scipy.special.wrightomega and scipy.special.lambertw (principal branch) of exp(x)
+    x = np.concatenate([np.linspace(-745, 60, 20001), np.linspace(-4, 4, 8001), np.geomspace(60, 1e200, 2001)])
+    np.testing.assert_allclose(wright_omega(x), wrightomega(x), rtol=1e-13, atol=0)
+    xm = np.linspace(-700, 700, 14001)
+    np.testing.assert_allclose(wright_omega(xm), lambertw(np.exp(xm)).real, rtol=1e-12, atol=0)
+    assert wright_omega(-800.0) == np.exp(-800.0) and np.isscalar(wright_omega(1.0))
+    assert wright_omega(1.0) == pytest.approx(1.0, rel=1e-15)  # omega(1) = 1 exactly (1 + ln 1 = 1)
