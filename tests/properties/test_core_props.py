@@ -17,7 +17,7 @@ from plugins.blank import MeanBlank
 
 CONC_UNITS = ["M", "mM", "uM", "µM", "nM", "pM"]
 TIME_UNITS = ["s", "min", "h", "ms"]
-finite = st.floats(min_value=-1e12, max_value=1e12, allow_nan=False, allow_infinity=False)
+finite = st.floats(min_value=-1e12, max_value=1e12, allow_nan=False, allow_infinity=False, allow_subnormal=False)
 
 
 @given(st.sampled_from(CONC_UNITS), st.sampled_from(CONC_UNITS), st.sampled_from(TIME_UNITS),
