@@ -10,7 +10,7 @@ import argparse
 import os
 from pathlib import Path
 
-from pipeline.errors import OutputExistsError
+from pipeline.errors import OutputExistsError, VzeroError
 
 HELP = "Rebuild the HTML report and figures of a finished run from its audit file."
 EXAMPLE = "vzero report runs/today/run.h5 --out runs/today"
@@ -41,6 +41,8 @@ def run(args: argparse.Namespace) -> int:
     from plugins.report.build import build
     from plugins.report.sources import from_audit
 
+    if args.max_panels < 24:
+        raise VzeroError(f"--max-panels {args.max_panels}: too few to show a plate", hint="Use 24 or more.")
     audit = Path(args.audit)
     out = Path(args.out) if args.out else audit.parent
     if (out / "report.html").exists() and not args.force:

@@ -136,6 +136,7 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
     rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce").to_numpy(float)
     roles = rates["role"].astype(str).to_numpy() if "role" in rates else np.full(n, "sample", dtype=object)
     flags = rates["flags"].tolist() if "flags" in rates else [""] * n
+    notes = _notes(rates)
     excluding = set(options.get("exclude_flags", DEFAULT_EXCLUDE))
     used = np.zeros(n, dtype=bool)
     for i in range(n):  # a short loop over table rows (text work), not over signal arrays
@@ -144,6 +145,8 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
             reasons[i] = f"role {roles[i]!r}: not a sample well, not fitted"
         elif hit:
             reasons[i] = "flag " + ", ".join(hit) + ": " + "; ".join(FLAG_TEXT.get(f, f) for f in hit)
+            if notes[i]:
+                reasons[i] += f" ({notes[i]})"
         elif not np.isfinite(rate[i]):
             reasons[i] = "no rate"
         else:
@@ -151,18 +154,27 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
     return used, reasons
 
 
+def _notes(rates: pd.DataFrame) -> list[str]:
+    """The per-well ``note`` column (reasons the recipe gave for exclusions and overrides), '' where none."""
+    if "note" not in rates:
+        return [""] * len(rates)
+    return ["" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v).strip() for v in rates["note"]]
+
+
 def flagged_rows(rates: pd.DataFrame) -> list[dict[str, str]]:
     """One row per well carrying a flag: plate, well, group, role, the flags and what each means."""
     rows = []
     if "flags" not in rates:
         return rows
-    for _, r in rates.iterrows():
+    notes = _notes(rates)
+    for i, (_, r) in enumerate(rates.iterrows()):
         names = flag_list(r["flags"])
         if names:
+            meaning = "; ".join(FLAG_TEXT.get(f, f) for f in names)
             rows.append({
                 "plate": str(r.get("plate", "")), "well": str(r.get("well", "")), "group": str(r.get("group", "")),
                 "role": str(r.get("role", "")), "flags": ", ".join(n.replace("_", " ") for n in names),
-                "meaning": "; ".join(FLAG_TEXT.get(f, f) for f in names),
+                "meaning": meaning + (f" (recipe: {notes[i]})" if notes[i] else ""),
             })
     return rows
 
@@ -176,7 +188,12 @@ def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapp
     out: dict[str, Any] = {"wells": [], "roles": [], "recipe": []}
     for item in recipe.get("exclusions", []) or []:
         if isinstance(item, Mapping):
-            what = ", ".join(f"{k} {v}" for k, v in item.items() if k != "reason")
+            what = " ".join(str(item[k]) for k in ("plate", "well") if k in item)
+            if "time" in item:
+                t = item["time"]
+                what += f", reads at {t[0]} to {t[1]}" if isinstance(t, list) and len(t) == 2 else f", read at {t}"
+            else:
+                what += " (whole well)"
             out["recipe"].append({"what": what, "reason": str(item.get("reason", "(no reason given)"))})
         else:
             out["recipe"].append({"what": str(item), "reason": "(no reason given)"})

@@ -144,9 +144,10 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
 def window_lines(traces: Traces, rates: pd.DataFrame, slope: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Signal at the window start and end of the line whose slope is each well's rate, [n_wells] each.
 
-    For the ``window`` method the line is the least-squares line with that slope (through the mean of the
-    reads in the window). For other methods the rate is the slope at the window start, so the line is the
-    tangent there, anchored on a quadratic through the window's reads. Wells with too few reads get NaN.
+    For the ``window`` method (and windows fixed by a recipe override) the line is the least-squares line with
+    that slope (through the mean of the reads in the window). For other methods the rate is the slope at the
+    window start, so the line is the tangent there, anchored on a quadratic through the window's reads. Wells
+    with too few reads get NaN.
     """
     t = traces.time.astype(float)
     y = traces.masked_signal().astype(float)
@@ -160,7 +161,8 @@ def window_lines(traces: Traces, rates: pd.DataFrame, slope: np.ndarray) -> tupl
         y_mean = yz.sum(axis=1) / n
         start = y_mean + slope * (ts - t_mean)
         methods = rates["method"].astype(str).to_numpy() if "method" in rates else np.full(len(ts), "window")
-        tangent = (methods != "window") & (n >= 3)
+        least_squares = np.char.startswith(methods.astype(str), "window")  # also "window (override)"
+        tangent = ~least_squares & (n >= 3)
         if tangent.any():
             u = np.where(w > 0, t[None, :] - ts[:, None], 0.0)
             a = np.stack([np.stack([(w * u ** (i + j)).sum(axis=1) for j in range(3)], axis=-1) for i in range(3)],

@@ -47,8 +47,9 @@ def test_report_says_what_a_reader_must_know(built):
     assert text.count("Research use only.") == 2  # top and bottom of the page
     # the flagged well with its reason in words
     assert "A2" in text and "all missing" in text and "no usable read at all" in text
-    # the exclusion written in the recipe, with its reason
-    assert "bubble seen by eye" in text
+    # the exclusion written in the recipe, with its reason, and the well it kept out of the fit
+    assert "p-1 C5 (whole well): bubble seen by eye" in text
+    assert ("C5 " + GROUP + " flag excluded: excluded in the recipe (excluded: bubble seen by eye)") in text
     # parameters with units, errors and intervals (Km = 100 ± 2 µM, profile interval [96, 104])
     assert "100.0 ± 2.0" in text and "[96.00, 104.0]" in text and "µM" in text
     assert "Michaelis–Menten is preferred: lowest AICc (only model fitted)." in text
