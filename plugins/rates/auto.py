@@ -36,56 +36,56 @@ from plugins.rates.result import RateResult
 def _inv3_sym(m: np.ndarray) -> np.ndarray:
     """Inverse of the symmetric Hankel matrices ``[[m0, m1, m2], [m1, m2, m3], [m2, m3, m4]]`` by cofactors.
 
-    ``m`` is ``[5, ...]``; returns ``[..., 3, 3]`` (NaN/inf where singular). Much faster than
+    ``m`` is ``[..., 5]``; returns ``[..., 3, 3]`` (NaN/inf where singular). Much faster than
     ``numpy.linalg.inv`` on many 3x3 systems.
     """
-    m0, m1, m2, m3, m4 = m
-    c00 = m2 * m4 - m3 * m3
-    c01 = m2 * m3 - m1 * m4
-    c02 = m1 * m3 - m2 * m2
-    c11 = m0 * m4 - m2 * m2
-    c12 = m1 * m2 - m0 * m3
-    c22 = m0 * m2 - m1 * m1
+    m0, m1, m2, m3, m4 = np.moveaxis(m, -1, 0)
+    cof = np.empty((*m.shape[:-1], 3, 3))
+    cof[..., 0, 0] = m2 * m4 - m3 * m3
+    cof[..., 0, 1] = cof[..., 1, 0] = m2 * m3 - m1 * m4
+    cof[..., 0, 2] = cof[..., 2, 0] = m1 * m3 - m2 * m2
+    cof[..., 1, 1] = m0 * m4 - m2 * m2
+    cof[..., 1, 2] = cof[..., 2, 1] = m1 * m2 - m0 * m3
+    cof[..., 2, 2] = m0 * m2 - m1 * m1
     with np.errstate(all="ignore"):
-        det = m0 * c00 + m1 * c01 + m2 * c02
-        rows = [np.stack([c00, c01, c02], -1), np.stack([c01, c11, c12], -1), np.stack([c02, c12, c22], -1)]
-        return np.stack(rows, -2) / det[..., None, None]
+        det = m0 * cof[..., 0, 0] + m1 * cof[..., 0, 1] + m2 * cof[..., 0, 2]
+        cof /= det[..., None, None]
+    return cof
 
 
-def _candidate_quadratics(
-    u: np.ndarray, yc: np.ndarray, w: np.ndarray, start: np.ndarray, ends: np.ndarray
-) -> dict[str, np.ndarray]:
-    """Normal equations and quadratic solutions for windows ``[start, ends[:, k]]`` from cumulative sums.
+def _candidate_sums(
+    u: np.ndarray, yc: np.ndarray, w: np.ndarray, start: np.ndarray, offs: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Sums over the candidate windows ``[start, start + offs[k]]`` (clipped to the last read), every well.
 
-    ``u`` is a shared scaled time ``[n_time]``; ``yc`` the reads minus a per-well reference with 0 where
-    missing; ``w`` the 0/1 valid mask. Returns ``a`` (``X'X``, ``[n, K, 3, 3]``), ``b`` (``X'y``), ``yy``
-    (``y'y``), ``coef`` (``[n, K, 3]``, coefficient of ``u**k``), ``inv`` (``(X'X)^-1``) and ``count``.
+    Time is local to each window start, ``v = u - u[start]`` (so the slope at the start is a coefficient
+    and the normal equations stay well conditioned). Returns ``m`` (``sum w v^p``, p = 0..4, ``[n, K, 5]``),
+    ``xy`` (``sum v^p y``, p = 0..2, ``[n, K, 3]``), ``yy`` (``sum y²``, ``[n, K]``) and the window end
+    index ``[n, K]``. ``yc`` must be 0 where ``w`` is 0. Wells sharing a start share one design, so each
+    group is one matrix product ``[wells, reads] @ [reads, K x 3]``; with no missing read the time moments
+    are the same for the whole group.
     """
-    n_w = yc.shape[0]
-    pw = u[None, :] ** np.arange(5)[:, None]  # [5, n_time]
-    rows = np.arange(n_w)[:, None]
-    if w.all():  # every read finite: the time moments are shared by all wells
-        cm = np.zeros((5, u.size + 1))
-        np.cumsum(pw, axis=1, out=cm[:, 1:])
-        m = cm[:, ends + 1] - cm[:, start[:, None]]
-    else:
-        cm = np.zeros((5, n_w, u.size + 1))
-        np.cumsum(w[None] * pw[:, None, :], axis=2, out=cm[:, :, 1:])
-        m = cm[:, rows, ends + 1] - cm[:, rows, start[:, None]]
-    terms = np.concatenate([yc[None] * pw[:3, None, :], (yc * yc)[None]])  # yc is 0 where w is 0
-    cum = np.zeros((4, n_w, u.size + 1))
-    np.cumsum(terms, axis=2, out=cum[:, :, 1:])
-    win = cum[:, rows, ends + 1] - cum[:, rows, start[:, None]]  # [4, n, K]
-    xy, yy = win[:3], win[3]
-    idx = np.add.outer(np.arange(3), np.arange(3))
-    a = np.moveaxis(m[idx], (0, 1), (-2, -1))  # [n, K, 3, 3]
-    b = np.moveaxis(xy, 0, -1)  # [n, K, 3]
-    count = m[0]
-    ok = count >= 4
-    inv = _inv3_sym(m)
-    inv[~ok] = np.nan
-    coef = (inv @ b[..., None])[..., 0]
-    return {"a": a, "b": b, "yy": yy, "coef": coef, "inv": inv, "count": count}
+    n_w, n_t = yc.shape
+    k = offs.size
+    m = np.empty((n_w, k, 5))
+    xy = np.empty((n_w, k, 3))
+    yy = np.empty((n_w, k))
+    ends = np.minimum(start[:, None] + offs[None, :], n_t - 1)
+    for s in np.unique(start):
+        g = np.flatnonzero(start == s)
+        v = u[s:] - u[s]
+        inside = np.arange(n_t - s)[:, None] <= (ends[g[0]] - s)[None, :]  # [reads, K]
+        pw = v[:, None] ** np.arange(5)[None, :]  # [reads, 5]
+        design = inside[:, :, None] * pw[:, None, :]  # [reads, K, 5]
+        ys = yc[g, s:] if g.size < n_w else yc[:, s:]
+        xy[g] = (ys @ design[:, :, :3].reshape(n_t - s, 3 * k)).reshape(g.size, k, 3)
+        yy[g] = (ys * ys) @ inside
+        ws = w[g, s:]
+        if ws.all():
+            m[g] = design.sum(axis=0)
+        else:
+            m[g] = (ws @ design.reshape(n_t - s, 5 * k)).reshape(g.size, k, 5)
+    return m, xy, yy, ends
 
 
 def auto(
@@ -144,21 +144,22 @@ def auto(
 
     # candidate window ends: a geometric grid of offsets after each well's start
     offs = np.unique(np.round(np.geomspace(min_points - 1, max(n_t - 1, min_points), n_candidates)))
-    ends = np.minimum(start[:, None] + offs.astype(np.int64)[None, :], n_t - 1)
-    cand = _candidate_quadratics(u, yc, w, start, ends)
-    coef, inv, count = cand["coef"], cand["inv"], cand["count"]
-    us, ue = u[start][:, None], u[ends]
+    m, xy, yyw, ends = _candidate_sums(u, yc, w, start, offs.astype(np.int64))
+    count = m[..., 0]
+    inv = _inv3_sym(m)
+    inv[count < 4] = np.nan
+    coef = np.einsum("nkpq,nkq->nkp", inv, xy)
+    length = u[ends] - u[start][:, None]  # window length in local time
     b, c = coef[..., 1], coef[..., 2]
     with np.errstate(all="ignore"):
         t_c = c / (sigma[:, None] * np.sqrt(inv[..., 2, 2]))
-        slope_s = b + 2 * c * us
-        drop = 1.0 - (b + 2 * c * ue) / slope_s
+        drop = -2.0 * c * length / b  # relative change of the fitted slope across the window
         enough = count >= min_points
         fails = enough & (np.abs(t_c) > t_crit) & ~(np.abs(drop) <= max_rate_drop)
     full = conversion_scale(s0, signal_per_conc, n_w)
     if full is not None:
         with np.errstate(all="ignore"):
-            conv = np.abs(b * (ue - us) + c * (ue**2 - us**2)) / full[todo][:, None]
+            conv = np.abs(b * length + c * length**2) / full[todo][:, None]
         fails |= enough & (conv > max_conversion)
     # stop at the first of two failing candidates in a row (one chance excursion of the t-test does not end
     # the window), keep the last passing candidate before it
@@ -173,23 +174,21 @@ def auto(
     end_idx = ends[rows, k]
 
     # the chosen window: quadratic from the candidate solve, straight line from the same sums
-    a_k, b_k, yy_k = cand["a"][rows, k], cand["b"][rows, k], cand["yy"][rows, k]
+    mk, xk, yy_k = m[rows, k], xy[rows, k], yyw[rows, k]
     cq, iq = coef[rows, k], inv[rows, k]
-    n_in = count[rows, k]
-    u_s = u[start]
+    n_in = mk[:, 0]
     with np.errstate(all="ignore"):
-        det = a_k[:, 0, 0] * a_k[:, 1, 1] - a_k[:, 0, 1] ** 2
-        il11 = a_k[:, 0, 0] / det
-        bl = (a_k[:, 0, 0] * b_k[:, 1] - a_k[:, 0, 1] * b_k[:, 0]) / det
-        al = (b_k[:, 0] - a_k[:, 0, 1] * bl) / a_k[:, 0, 0]
         tq = t_c[rows, k]
-        g = np.stack([np.zeros_like(u_s), np.ones_like(u_s), 2.0 * u_s], axis=1)
-        vq = (cq[:, 1] + 2.0 * cq[:, 2] * u_s) / span
-        sq = sigma * np.sqrt(np.einsum("wp,wpq,wq->w", g, iq, g)) / span
+        det = mk[:, 0] * mk[:, 2] - mk[:, 1] ** 2
+        il11 = mk[:, 0] / det
+        bl = (mk[:, 0] * xk[:, 1] - mk[:, 1] * xk[:, 0]) / det
+        al = (xk[:, 0] - mk[:, 1] * bl) / mk[:, 0]
+        vq = cq[:, 1] / span
+        sq = sigma * np.sqrt(iq[:, 1, 1]) / span
         vl, sl = bl / span, sigma * np.sqrt(il11) / span
-        rss_q = np.fmax(yy_k - np.einsum("wp,wp->w", cq, b_k), 0.0)
-        rss_l = np.fmax(yy_k - al * b_k[:, 0] - bl * b_k[:, 1], 0.0)
-        tss = yy_k - b_k[:, 0] ** 2 / n_in
+        rss_q = np.fmax(yy_k - np.einsum("wp,wp->w", cq, xk), 0.0)
+        rss_l = np.fmax(yy_k - al * xk[:, 0] - bl * xk[:, 1], 0.0)
+        tss = yy_k - xk[:, 0] ** 2 / n_in
     curved = np.abs(tq) > t_crit
     use_q = curved | (estimate == "quadratic")
     v0 = np.where(use_q, vq, vl)
@@ -201,7 +200,7 @@ def auto(
     t_start, t_end = t[start], t[end_idx]
     flags = out["flags"][todo]
     flags[curved] |= int(Flag.CURVATURE)
-    flags[count[np.arange(todo.size), k] < min_points] |= int(Flag.TOO_FEW_POINTS)
+    flags[n_in < min_points] |= int(Flag.TOO_FEW_POINTS)
     if full is not None:
         x_end = conv[rows, k]
         flags[x_end > max_conversion * 1.0001] |= int(Flag.HIGH_CONVERSION)
