@@ -77,11 +77,11 @@ def write_table(group: Any, name: str, table: Table | pd.DataFrame) -> Any:
         elif pd.api.types.is_float_dtype(series.dtype):
             arr = series.to_numpy(dtype=np.float64)
         else:
-            text = ["" if _missing(v) else str(v) for v in series.tolist()]
-            ds = g.create_dataset(key, data=np.array(text, dtype=object), dtype=h5py.string_dtype("utf-8"))
+            values = series.to_numpy(dtype=object)
+            text = np.where(pd.isna(values), "", values.astype(str)).astype(object)
+            ds = g.create_dataset(key, data=text, dtype=h5py.string_dtype("utf-8"))
             digest.update(f"|{unit}|O|{ds.shape}|".encode())
-            encoded = [t.encode("utf-8") for t in text]
-            digest.update(b"".join(len(b).to_bytes(8, "little") + b for b in encoded))
+            digest.update(_length_prefixed(text))
             ds.attrs["name"] = str(col)
             ds.attrs["unit"] = unit
             continue
@@ -94,6 +94,16 @@ def write_table(group: Any, name: str, table: Table | pd.DataFrame) -> Any:
         g.attrs["meta"] = to_json(dict(table.meta))
     g.attrs["sha256"] = digest.hexdigest()
     return g
+
+
+def _length_prefixed(text: Any) -> bytes:
+    """Each string as its UTF-8 length (8 bytes, little-endian) followed by its bytes, all concatenated."""
+    import itertools
+
+    encoded = [t.encode("utf-8") for t in text]
+    lengths = np.fromiter(map(len, encoded), dtype="<u8", count=len(encoded)).tobytes()
+    prefixes = [lengths[i : i + 8] for i in range(0, len(lengths), 8)]
+    return b"".join(itertools.chain.from_iterable(zip(prefixes, encoded, strict=True)))
 
 
 def table_sha256(group: Any) -> str:
@@ -111,9 +121,7 @@ def table_sha256(group: Any) -> str:
         ds = group[f"{i:03d}"]
         h.update(f"|{ds.attrs.get('unit', '')}|{ds.dtype.kind}|{ds.shape}|".encode())
         if ds.dtype.kind in "OSU":
-            for v in ds[()]:
-                b = v if isinstance(v, bytes) else str(v).encode("utf-8")
-                h.update(len(b).to_bytes(8, "little") + b)
+            h.update(_length_prefixed([v.decode("utf-8") if isinstance(v, bytes) else str(v) for v in ds[()]]))
         else:
             arr = np.ascontiguousarray(ds[()])
             h.update(arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes())
@@ -265,6 +273,7 @@ def write_run_file(
             ds.attrs["plates"] = to_json(input_plates.get(sha, []))
 
         steps = f.create_group("steps", track_order=True)
+        stored: dict[int, Any] = {}  # id of a Table already written under /steps -> its group
         for rec_ in records:
             spec = rec_.spec
             if spec.label not in steps:
@@ -294,8 +303,13 @@ def write_run_file(
                 if name == "traces" and isinstance(value, Mapping):
                     continue  # per-plate traces are already stored by the plate steps
                 write_artifact(sub, name, value)
+                if isinstance(value, Table):
+                    stored[id(value)] = sub[name]
 
         results = f.create_group("results", track_order=True)
         for name, table in tables.items():
-            write_table(results, name, table)
+            if id(table) in stored:
+                results[name] = stored[id(table)]  # an HDF5 hard link: one copy, reachable from both places
+            else:
+                write_table(results, name, table)
     return str(path)
