@@ -59,8 +59,7 @@ def make_manager(
     if autoload is None:
         autoload = os.environ.get(AUTOLOAD_ENV, "") in ("", "0")
 
-    for ep in _entry_points():
-        dist = ep.dist.name if ep.dist is not None else "unknown"
+    for ep, dist, version in _entry_points():
         if not autoload and _normal(dist) != PROJECT:
             continue
         name = f"{dist}:{ep.name}"
@@ -72,7 +71,6 @@ def make_manager(
                 f"{type(exc).__name__}: {exc}",
                 hint=f"Fix or uninstall that package, or set {AUTOLOAD_ENV}=1 to load only vzero's own plugins.",
             ) from exc
-        version = ep.dist.version if ep.dist is not None else "0"
         _register(pm, sources, name, module, Source(name, ep.value, dist, version))
 
     for entry in local:
@@ -114,15 +112,26 @@ def _register(pm: pluggy.PluginManager, sources: dict[str, Source], name: str, o
     sources[name] = source
 
 
-def _entry_points() -> list[metadata.EntryPoint]:
-    eps = metadata.entry_points(group=ENTRY_POINT_GROUP)
+def _entry_points() -> list[tuple[metadata.EntryPoint, str, str]]:
+    """Entry points of the group with their distribution's name and version (each read once: parsing a
+    distribution's metadata is the slow part of start-up), sorted, each (distribution, name) once."""
+    about: dict[int, tuple[str, str]] = {}
+    found = []
+    for ep in metadata.entry_points(group=ENTRY_POINT_GROUP):
+        if ep.dist is None:
+            dist, version = "unknown", "0"
+        else:
+            if id(ep.dist) not in about:
+                meta = ep.dist.metadata
+                about[id(ep.dist)] = (str(meta["Name"]), str(meta["Version"]))
+            dist, version = about[id(ep.dist)]
+        found.append((ep, dist, version))
     seen: set[tuple[str, str]] = set()
     out = []
-    for ep in sorted(eps, key=lambda e: (e.dist.name if e.dist else "", e.name)):
-        key = (ep.dist.name if ep.dist else "", ep.name)
-        if key not in seen:  # a distribution seen twice on sys.path (editable installs) is loaded once
-            seen.add(key)
-            out.append(ep)
+    for ep, dist, version in sorted(found, key=lambda f: (f[1], f[0].name)):
+        if (dist, ep.name) not in seen:  # a distribution seen twice on sys.path (editable installs) loads once
+            seen.add((dist, ep.name))
+            out.append((ep, dist, version))
     return out
 
 
