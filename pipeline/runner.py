@@ -186,6 +186,7 @@ def run(
             hint="Choose another --out, or pass --force to replace it.",
         )
     t_start = time.perf_counter()
+    started = _utc_now()
     run_id = uuid.uuid4().hex
     warnings: list[str] = []
     plate_steps = [s for s in rec.steps if _scope(plugins, s) == "plate"]
@@ -224,7 +225,8 @@ def run(
             if progress:
                 progress(Progress(len(outcomes), total, step=f"{spec.kind}:{spec.method}",
                                   seconds=time.perf_counter() - t_start))
-            output, record = _run_step(spec, plugins, None, pooled, {}, rec, run_id)
+            info = _run_info(rec, plugins, run_id, started, store, records, warnings, failed)
+            output, record = _run_step(spec, plugins, None, pooled, {}, rec, run_id, info)
             warnings.extend(record.warnings)
             pooled.update(output.artifacts)
             files.update(output.files)
@@ -241,6 +243,30 @@ def run(
             shutil.rmtree(scratch_dir, ignore_errors=True)
         if own_executor and executor is not None:
             executor.close()
+
+
+def _run_info(
+    rec: Recipe,
+    plugins: Plugins,
+    run_id: str,
+    started: str,
+    store: Any,
+    records: list[StepRecord],
+    warnings: list[str],
+    failed: Mapping[str, str | None],
+) -> dict[str, Any]:
+    """What a pooled or final stage may know about the run so far (see :class:`pipeline.stage.StageInput`)."""
+    steps: dict[str, dict[str, Any]] = {}
+    for r in records:
+        entry = plugins.registry.get(r.spec.kind, r.spec.method)
+        item = steps.setdefault(r.spec.label, {"label": r.spec.label, "plugin": entry.source.plugin,
+                                               "version": str(getattr(entry.component, "version", "")),
+                                               "seconds": 0.0})
+        item["seconds"] += r.seconds
+    inputs = [{"name": raw.name, "key": raw.key, "sha256": sha, "size": len(raw.data),
+               "plates": list(store.input_plates.get(sha, []))} for sha, raw in store.raws.items()]
+    return {"run_id": run_id, "started": started, "recipe_text": rec.text, "recipe_sha256": rec.sha256,
+            "inputs": inputs, "warnings": list(warnings), "failed": dict(failed), "steps": list(steps.values())}
 
 
 def _map_plates(
@@ -332,6 +358,7 @@ def _run_step(
     raws: Mapping[str, RawInput],
     rec: Recipe,
     run_id: str,
+    run_info: Mapping[str, Any] | None = None,
 ) -> tuple[StageOutput, StepRecord]:
     entry = plugins.registry.get(spec.kind, spec.method)
     stage = entry.component(**spec.settings)
@@ -343,7 +370,7 @@ def _run_step(
     t0 = time.perf_counter()
     data = StageInput(
         artifacts=dict(artifacts), plate=plate_info, inputs=dict(raws), recipe=rec.data,
-        registry=plugins.registry, warn=step_warnings.append,
+        registry=plugins.registry, warn=step_warnings.append, run=dict(run_info or {}),
     )
     try:
         output = stage.run(data)

@@ -42,7 +42,10 @@ class StageInput:
     plate's entry from the recipe (``None`` for pooled and final stages); ``inputs`` are the raw files of
     this plate (or of the run), by their recipe key (``data``, ``layout``, ...); ``recipe`` is the whole
     validated recipe mapping (read-only); ``registry`` lets a stage look up components (e.g. fit models);
-    ``warn`` records a run warning (stored in the audit file and shown to the user).
+    ``warn`` records a run warning (stored in the audit file and shown to the user); ``run`` describes the
+    run so far for pooled and final stages (``run_id``, ``started``, ``recipe_text``, ``recipe_sha256``,
+    ``inputs``: a list of ``{name, key, sha256, size, plates}``, ``warnings``, ``failed``: plate -> error,
+    ``steps``: a list of ``{label, plugin, version, seconds}``); empty for plate stages.
     """
 
     artifacts: Mapping[str, Any]
@@ -51,6 +54,7 @@ class StageInput:
     recipe: Mapping[str, Any]
     registry: Any
     warn: Callable[[str], None]
+    run: Mapping[str, Any] = field(default_factory=dict)
 
 
 @dataclass

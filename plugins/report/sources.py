@@ -58,11 +58,9 @@ def _steps_from_recipe(recipe: Mapping[str, Any], registry: Any) -> list[dict[st
 
 
 def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
-    """The report input of a running pipeline: the pooled tables and per-plate traces in ``data.artifacts``.
-
-    The stage sees neither the recipe text nor the input files' hashes (they are written to run.h5 by the
-    runner), so the provenance points there for them.
-    """
+    """The report input of a running pipeline: the pooled tables and per-plate traces in ``data.artifacts``,
+    and the provenance the runner hands final stages in ``data.run`` (recipe text and hash, input hashes,
+    step timings so far)."""
     from pipeline import __version__
 
     tables = {k: v for k, v in data.artifacts.items() if isinstance(v, Table)}
@@ -73,18 +71,21 @@ def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
     elif isinstance(traces_in, Mapping):
         traces = {str(k): v for k, v in traces_in.items() if isinstance(v, Traces)}
     recipe = data.recipe or {}
-    inputs = []
-    for plate in recipe.get("plates", []) or []:
-        if isinstance(plate, Mapping):
-            for key in ("data", "layout"):
-                if plate.get(key):
-                    inputs.append({"name": str(plate[key]), "plates": str(plate.get("name", "")), "size": "",
-                                   "sha256": "stored in run.h5"})
+    run = data.run or {}
+    inputs = [{"name": str(i["name"]), "plates": ", ".join(i.get("plates", [])), "size": i.get("size", ""),
+               "sha256": str(i["sha256"])} for i in run.get("inputs", [])]
+    steps = [{"label": st["label"], "kind": st["label"].split("-")[1] if "-" in st["label"] else "",
+              "method": st["label"].split("-", 2)[2] if st["label"].count("-") >= 2 else "",
+              "plugin": st.get("plugin", ""), "version": st.get("version", ""),
+              "seconds": f"{float(st.get('seconds', 0.0)):.3f}", "parameters": ""}
+             for st in run.get("steps", [])] or _steps_from_recipe(recipe, data.registry)
     provenance = {
         "source": "this run (run.h5 beside this report holds the raw inputs and every step)",
-        "recipe_name": str(recipe.get("name", "")), "recipe_sha256": "", "recipe_text": "", "created": "",
-        "run_id": "", "vzero_version": __version__, "versions": software_versions(),
-        "steps": _steps_from_recipe(recipe, data.registry), "inputs": inputs, "warnings": [], "failed_plates": {},
+        "recipe_name": str(recipe.get("name", "")), "recipe_sha256": str(run.get("recipe_sha256", "")),
+        "recipe_text": str(run.get("recipe_text", "")), "created": str(run.get("started", "")),
+        "run_id": str(run.get("run_id", "")), "vzero_version": __version__, "versions": software_versions(),
+        "steps": steps, "inputs": inputs, "warnings": list(run.get("warnings", [])),
+        "failed_plates": dict(run.get("failed", {})),
     }
     return ReportInput(tables, traces, recipe, provenance, max_panels=int(settings.get("max_panels", 384)),
                        title=str(settings.get("title", "") or ""))
