@@ -14,10 +14,11 @@ from __future__ import annotations
 import argparse
 import difflib
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
-import pandas as pd
+if TYPE_CHECKING:  # numpy and pandas are imported when used, to keep `vzero --help` quick
+    import numpy as np
+    import pandas as pd
 
 HELP = "Compare two audit files: recipe differences and what they changed, per well and per parameter."
 EXAMPLE = "vzero diff runs/old/run.h5 runs/new/run.h5 --csv changes.csv"
@@ -34,6 +35,8 @@ def recipe_diff(text_a: str, text_b: str, name_a: str = "A", name_b: str = "B") 
 
 def relative_change(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """|b - a| / |a|; inf where exactly one side is missing or a == 0 != b; 0 where both are missing."""
+    import numpy as np
+
     a = np.asarray(a, dtype=float)
     b = np.asarray(b, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -46,11 +49,15 @@ def relative_change(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 
 def _col(frame: pd.DataFrame, name: str, default: Any) -> pd.Series:
+    import pandas as pd
+
     return frame[name] if name in frame.columns else pd.Series([default] * len(frame), index=frame.index)
 
 
 def compare_wells(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
     """Per well: rate, flags and window in A and B, and the relative rate change; changed wells only, sorted."""
+    import numpy as np
+
     cols = ["rate", "rate_unit", "flags", "window_start_s", "window_end_s", "note"]
 
     def prep(t: pd.DataFrame) -> pd.DataFrame:
@@ -99,6 +106,9 @@ def compare_wells(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
 
 def compare_parameters(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
     """Per fitted parameter: estimate and interval in A and B and the relative change; changed ones, sorted."""
+    import numpy as np
+    import pandas as pd
+
     cols = ["estimate", "stderr", "ci_low", "ci_high"]
 
     def prep(t: pd.DataFrame) -> pd.DataFrame:
@@ -133,12 +143,16 @@ def compare_parameters(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
 
 
 def _sort(m: pd.DataFrame) -> pd.DataFrame:
+    import numpy as np
+
     key = m["relative_change"].fillna(np.inf)
     return m.assign(_k=key).sort_values("_k", ascending=False, kind="stable").drop(columns="_k").reset_index(drop=True)
 
 
 def compare(path_a: str | Path, path_b: str | Path) -> dict[str, Any]:
     """Read two audit files and compare them: ``recipe_diff`` (text), ``wells`` and ``parameters`` (tables)."""
+    import pandas as pd
+
     from pipeline import reader
 
     found: list[dict[str, Any]] = []
@@ -166,6 +180,8 @@ def compare(path_a: str | Path, path_b: str | Path) -> dict[str, Any]:
 
 def to_csv_frame(result: dict[str, Any]) -> pd.DataFrame:
     """One table of every change: ``kind`` (well/parameter), identity, A and B values, change."""
+    import pandas as pd
+
     rows = []
     w = result["wells"]
     for _, r in w.iterrows():
@@ -186,16 +202,22 @@ def to_csv_frame(result: dict[str, Any]) -> pd.DataFrame:
 
 
 def _window(r: Any, side: str) -> str:
+    import numpy as np
+
     lo, hi = r[f"window_start_s_{side}"], r[f"window_end_s_{side}"]
     return "" if np.isnan(lo) else f"{lo:g}-{hi:g} s"
 
 
 def _interval(r: Any, side: str) -> str:
+    import numpy as np
+
     lo, hi = r[f"ci_low_{side}"], r[f"ci_high_{side}"]
     return "" if np.isnan(lo) and np.isnan(hi) else f"[{lo:.4g}, {hi:.4g}]"
 
 
 def _pct(x: float) -> str:
+    import numpy as np
+
     if np.isnan(x):
         return "n/a"
     return "new/lost" if np.isinf(x) else f"{100 * x:.3g} %"
