@@ -23,7 +23,6 @@ import csv
 import datetime as dt
 import io
 import re
-import unicodedata
 from collections import Counter
 from dataclasses import dataclass, field
 from typing import Literal
@@ -234,6 +233,10 @@ def load_grid(data: bytes, *, source: str, options: ReadOptions) -> TextGrid:
 # decoding and sniffing
 
 
+#: Unicode category Cc (C0 and C1 control characters) except tab, carriage return and line feed.
+_CONTROL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
+
+
 def _decode(data: bytes, source: str, encoding: str | None) -> tuple[str, str | None]:
     if b"\x00" in data[:65536] or data[:8] == b"\x89PNG\r\n\x1a\n":
         raise InputFileError(
@@ -254,7 +257,7 @@ def _decode(data: bytes, source: str, encoding: str | None) -> tuple[str, str | 
             text = data.decode("latin-1")
             note = "the file is not UTF-8; read it as latin-1 (set encoding if that is wrong)"
     sample = text[:65536]
-    bad = sum(1 for ch in sample if unicodedata.category(ch) == "Cc" and ch not in "\t\r\n")
+    bad = len(_CONTROL.findall(sample))
     if bad > max(3, len(sample) // 100):
         raise InputFileError(
             "this is not a text table (too many control characters)",
