@@ -71,5 +71,13 @@ def run(args: argparse.Namespace) -> int:
 
 
 @hookimpl
+def vzero_check_recipe(recipe: Any, where: Any) -> list[str]:
+    """The recipe's assay block (conditions that flow into the exports)."""
+    from plugins.export.assay import check_assay
+
+    return check_assay(recipe, where)
+
+
+@hookimpl
 def vzero_commands(commands: Any) -> None:
     commands.add("export", HELP, configure, run, EXAMPLE)

@@ -137,3 +137,14 @@ def test_exclusion_without_reason_is_a_recipe_error_with_its_line(plate_folder: 
     assert main(["check", str(plate_folder)]) == 2
     err = capsys.readouterr().err
     assert "recipe.yaml:12 exclusions[0]" in err and "reason" in err
+
+
+def test_assay_block_is_checked_with_the_recipe(plate_folder: Path, capsys):
+    text = plate_folder.read_text("utf-8") + "assay:\n  temperature: 30\n  ph: 7.5\n"
+    text += "  enzyme: {name: VZ-7, organsm: x}\n"
+    plate_folder.write_text(text, "utf-8")
+    assert main(["check", str(plate_folder)]) == 2
+    err = capsys.readouterr().err
+    assert "recipe.yaml:12 assay.temperature: expected a quantity" in err
+    assert "recipe.yaml:13 assay.ph: unknown assay item (did you mean 'pH'?)" in err
+    assert "assay.enzyme.organsm: unknown item (did you mean 'organism'?)" in err
