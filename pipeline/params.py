@@ -152,7 +152,11 @@ def closest(name: Any, options: Any) -> str | None:
     """The option most like ``name`` (for "did you mean"), or None."""
     if not isinstance(name, str):
         return None
-    hits = difflib.get_close_matches(name, [str(o) for o in options or ()], n=1, cutoff=0.6)
+    names = [str(o) for o in options or ()]
+    for option in names:
+        if option.lower() == name.lower():
+            return option  # only the case differs
+    hits = difflib.get_close_matches(name, names, n=1, cutoff=0.6)
     return hits[0] if hits else None
 
 
