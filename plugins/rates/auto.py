@@ -9,8 +9,8 @@ How a well's window is chosen (all wells at once):
    quadratic ``a + b u + c u²`` is solved from cumulative sums of the reads (no per-window pass over the
    data). Its curvature is judged statistically: ``t_c = c / SE(c)`` with ``SE(c)`` from the read noise of
    second differences (not from R²).
-3. A candidate fails when the curvature is significant (``|t_c| > t_crit``) *and* the fitted slope changes
-   by more than ``max_rate_drop`` across it, or (s0 and signal_per_conc known) when the fitted change exceeds
+3. A candidate fails when the curvature is significant (``|t_c| > t_crit``) *and* the fitted slope falls
+   (towards flat, in the direction of the well's total change) by more than ``max_rate_drop`` across it, or (s0 and signal_per_conc known) when the fitted change exceeds
    ``max_conversion`` of the substrate (10 %, common practice). The window is the last passing candidate
    before the first two failures in a row.
 4. v0 is the slope of the window's quadratic at the window start (``estimate="quadratic"``, the default).
@@ -108,8 +108,10 @@ def auto(
     ----------
     s0, signal_per_conc : substrate per well and signal per unit product; with both, windows stop before
         ``max_conversion`` and HIGH_CONVERSION marks wells where even the shortest window passes it.
-    max_rate_drop : largest relative change of the fitted slope across a window whose curvature is
-        significant (0.10: the rate may fall by 10 % before the window stops).
+    max_rate_drop : largest relative fall of the fitted slope across a window whose curvature is
+        significant (0.10: the rate may fall by 10 % before the window stops). A slope that rises (noise
+        early in a low-signal well, an undetected lag) does not stop the window; on simulated cooperative
+        wells counting it as a failure cut windows short and left some rates of the wrong sign.
     t_crit : |t| of the quadratic coefficient above which curvature counts as significant (3: about 0.3 %
         false alarms per window on pure noise).
     min_points : reads in the shortest window.
@@ -151,11 +153,14 @@ def auto(
     coef = np.einsum("nkpq,nkq->nkp", inv, xy)
     length = u[ends] - u[start][:, None]  # window length in local time
     b, c = coef[..., 1], coef[..., 2]
+    direction = np.sign(sc.change[todo])[:, None]
     with np.errstate(all="ignore"):
         t_c = c / (sigma[:, None] * np.sqrt(inv[..., 2, 2]))
-        drop = -2.0 * c * length / b  # relative change of the fitted slope across the window
         enough = count >= min_points
-        fails = enough & (np.abs(t_c) > t_crit) & ~(np.abs(drop) <= max_rate_drop)
+        # the slope falls (towards flat, in the direction of the well's total change) by more than
+        # max_rate_drop of its start value; a rising slope is not depletion (lags are found beforehand)
+        falls = 2.0 * direction * c * length < -max_rate_drop * np.abs(b)
+        fails = enough & (np.abs(t_c) > t_crit) & falls
     full = conversion_scale(s0, signal_per_conc, n_w)
     if full is not None:
         with np.errstate(all="ignore"):
