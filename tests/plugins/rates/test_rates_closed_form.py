@@ -12,7 +12,14 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.special import lambertw, wrightomega
 
-from plugins.rates.progress import _concentration_model, _mm_curve, _signal_model, integrated_mm, wright_omega
+from plugins.rates.progress import (
+    _concentration_model,
+    _mm_curve,
+    _power_model,
+    _signal_model,
+    integrated_mm,
+    wright_omega,
+)
 
 # (S0, Km, Vmax, t, S(t)) from REFERENCES.md section 5 "Check values" (computed there with the closed form)
 CHECK = [
@@ -72,7 +79,7 @@ def test_jacobian_matches_finite_differences() -> None:
         np.testing.assert_allclose(analytic, numeric, rtol=1e-6, atol=1e-9)
 
 
-@pytest.mark.parametrize("which", ["concentration", "signal"])
+@pytest.mark.parametrize("which", ["concentration", "signal", "power"])
 def test_fit_model_jacobians_match_finite_differences(which: str) -> None:
     # the batched fit's models in their own parameters (baseline, ln v0, logit r / ln c1): analytic columns
     # against central differences (step 1e-6), as in the test above
@@ -80,6 +87,9 @@ def test_fit_model_jacobians_match_finite_differences(which: str) -> None:
     if which == "concentration":
         model = _concentration_model(t, np.array([[0.4], [3.0]]), -2.5)
         p = np.array([[0.1, np.log(4e-4), 0.3], [0.05, np.log(1e-3), -1.2]])
+    elif which == "power":  # the power-law depletion model (baseline, ln v0, order - 1)
+        model = _power_model(t, np.array([[50.0], [120.0]]), 3.421e-3)
+        p = np.array([[0.05, np.log(0.01), 1.4], [0.02, np.log(0.05), -0.3]])
     else:
         model = _signal_model(t, np.array([1.0, -1.0]))
         p = np.array([[0.1, np.log(2e-3), np.log(0.8), 0.3], [0.9, np.log(1e-3), np.log(2.0), -0.7]])

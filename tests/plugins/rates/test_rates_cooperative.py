@@ -17,7 +17,7 @@ from scipy.optimize import curve_fit
 from pipeline.errors import StageError
 from plugins.flags import Flag
 from plugins.rates.auto import auto
-from plugins.rates.progress import _power_model, power_conversion, progress_curve
+from plugins.rates.progress import power_conversion, progress_curve
 from plugins.rates.simulate import simulate_plate
 
 T = np.arange(61) * 10.0
@@ -47,21 +47,6 @@ def test_power_conversion_matches_textbook_integrated_rate_laws() -> None:
     for m in (-2e-4, -5e-5, 5e-5, 2e-4):
         exact = 1 - (1 + m * u) ** (-1 / m)
         np.testing.assert_allclose(power_conversion(u, np.array(m))[0], exact, rtol=1e-9)
-
-
-def test_power_model_jacobian_matches_finite_differences() -> None:
-    # central differences, step 1e-6 (rounding about eps * |signal| / h ~ 1e-10)
-    model = _power_model(T, np.array([[50.0], [120.0]]), SPC)
-    p = np.array([[0.05, np.log(0.01), 1.4], [0.02, np.log(0.05), -0.3]])
-    rows = np.arange(2)
-    _, jac = model(p, rows)
-    h = 1e-6
-    for k in range(3):
-        up, dn = p.copy(), p.copy()
-        up[:, k] += h
-        dn[:, k] -= h
-        numeric = (model(up, rows)[0] - model(dn, rows)[0]) / (2 * h)
-        np.testing.assert_allclose(jac[:, k], numeric, rtol=1e-6, atol=1e-9)
 
 
 def test_power_fit_matches_curve_fit_on_one_well() -> None:
