@@ -144,7 +144,7 @@ def screen(
     flags[n_valid == 0] |= int(Flag.ALL_MISSING)
     flags[(n_valid > 0) & (n_valid < min_points)] |= int(Flag.TOO_FEW_POINTS)
     n_t = signal.shape[1]
-    if n_valid.size and n_valid.min() == n_t:  # every read finite (the common case): plain slices
+    if n_t and n_valid.size and n_valid.min() == n_t:  # every read finite (the common case): plain slices
         m1 = min(max(n_t // 3, 1), 3)
         change = signal[:, -m1:].mean(axis=1) - signal[:, :m1].mean(axis=1)
         scale = np.abs(signal).max(axis=1)
