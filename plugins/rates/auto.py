@@ -10,9 +10,10 @@ How a well's window is chosen (all wells at once):
    data). Its curvature is judged statistically: ``t_c = c / SE(c)`` with ``SE(c)`` from the read noise of
    second differences (not from R²).
 3. A candidate fails when the curvature is significant (``|t_c| > t_crit``) *and* the fitted slope falls
-   (towards flat, in the direction of the well's total change) by more than ``max_rate_drop`` across it, or (s0 and signal_per_conc known) when the fitted change exceeds
-   ``max_conversion`` of the substrate (10 %, common practice). The window is the last passing candidate
-   before the first two failures in a row.
+   (towards flat, in the direction of the well's total change) by more than ``max_rate_drop`` across it,
+   or (s0 and signal_per_conc known) when the fitted change exceeds ``max_conversion`` of the substrate
+   (10 %, common practice). The window is the last passing candidate before the first two failures in a
+   row.
 4. v0 is the slope of the window's quadratic at the window start (``estimate="quadratic"``, the default).
    CURVATURE is set where the quadratic term is significant (a straight line would run low there). With
    ``estimate="select"`` the straight line's slope is used where the quadratic term is not significant:
