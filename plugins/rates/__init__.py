@@ -132,14 +132,21 @@ class PolynomialRates(KernelRates):
 
 class ProgressRates(KernelRates):
     """The whole curve fitted with the integrated Michaelis–Menten equation (Lambert W closed form);
-    v0 = Vmax·S0/(Km + S0). Curves the model does not describe are flagged ``fit_failed``."""
+    v0 = Vmax·S0/(Km + S0). Curves the model does not describe are flagged ``fit_failed``.
+
+    ``model: power`` fits instead a rate that falls as v0·(1 − x)^n with the fraction x of substrate
+    converted (closed form; needs substrate and ``epsilon``/``pathlength`` or ``signal_per_conc``): an
+    empirical order that follows cooperative enzymes, whose rate falls faster than Michaelis–Menten allows
+    (measurements in docs/rates.md)."""
 
     kind, method, version = "rates", "progress", "1.0"
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
     kernel = "plugins.rates.progress:progress_curve"
-    kernel_params = ("min_points", "fail_ratio")
+    kernel_params = ("min_points", "fail_ratio", "model")
     params = {
         **CONVERSION_PARAMS,
+        "model": Param.choice(("michaelis-menten", "power"), "michaelis-menten",
+                              "integrated rate law fitted to each curve"),
         "min_points": Param("int", 8, "reads needed for a fit", low=4),
         "fail_ratio": Param("float", 3.0, "residual RMS over read noise above which the fit is refused", low=1.0),
     }
