@@ -48,17 +48,43 @@ def to_json(value: Any) -> str:
     return json.dumps(value, sort_keys=True, default=str, ensure_ascii=False)
 
 
-def write_table(group: Any, name: str, table: Table | pd.DataFrame) -> Any:
+class Links:
+    """What is already stored in one file, so that the same data is written once and hard-linked.
+
+    Steps pass much through unchanged (the time axis, the well table, most columns of a rates table), and
+    each stored copy costs a dataset. An HDF5 hard link makes the second name point at the first object:
+    readers see two ordinary datasets with the same values. Objects are matched by identity (the same Python
+    object written twice) and columns also by content (same name, unit, type, shape and bytes).
+    """
+
+    def __init__(self) -> None:
+        self.by_id: dict[int, Any] = {}
+        self.keep: list[Any] = []  # keeps matched Python objects alive so their ids stay unique
+        self.by_content: dict[tuple[Any, ...], Any] = {}
+
+    def known(self, obj: Any) -> Any:
+        return self.by_id.get(id(obj))
+
+    def remember(self, obj: Any, h5obj: Any) -> None:
+        self.by_id[id(obj)] = h5obj
+        self.keep.append(obj)
+
+
+def write_table(group: Any, name: str, table: Table | pd.DataFrame, links: Links | None = None) -> Any:
     """Write ``table`` as ``group/name`` with one dataset per column.
 
     The ``sha256`` attribute is computed from the arrays as they are written, byte for byte what
-    :func:`table_sha256` computes from the stored datasets (reading them back would double the cost).
+    :func:`table_sha256` computes from the stored datasets (reading them back would double the cost). With
+    ``links``, a table or column already stored in the file is hard-linked instead of written again.
     """
     import hashlib
 
     h5py = _h5py()
     if isinstance(table, pd.DataFrame):
         table = Table(table)
+    if links is not None and links.known(table) is not None:
+        group[name] = links.known(table)
+        return group[name]
     frame = table.frame
     g = group.create_group(name)
     columns = [str(c) for c in frame.columns]
@@ -79,21 +105,38 @@ def write_table(group: Any, name: str, table: Table | pd.DataFrame) -> Any:
         else:
             values = series.to_numpy(dtype=object)
             text = np.where(pd.isna(values), "", values.astype(str)).astype(object)
-            ds = g.create_dataset(key, data=text, dtype=h5py.string_dtype("utf-8"))
-            digest.update(f"|{unit}|O|{ds.shape}|".encode())
-            digest.update(_length_prefixed(text))
-            ds.attrs["name"] = str(col)
-            ds.attrs["unit"] = unit
+            head, body = f"|{unit}|O|{text.shape}|".encode(), _length_prefixed(text)
+            digest.update(head)
+            digest.update(body)
+            _column(g, key, str(col), unit, text, head, body, links, h5py.string_dtype("utf-8"))
             continue
-        ds = g.create_dataset(key, data=arr)
-        digest.update(f"|{unit}|{ds.dtype.kind}|{ds.shape}|".encode())
-        digest.update(arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes())
-        ds.attrs["name"] = str(col)
-        ds.attrs["unit"] = unit
+        head = f"|{unit}|{arr.dtype.kind}|{arr.shape}|".encode()
+        body = arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes()
+        digest.update(head)
+        digest.update(body)
+        _column(g, key, str(col), unit, arr, head, body, links, None)
     if table.meta:
         g.attrs["meta"] = to_json(dict(table.meta))
     g.attrs["sha256"] = digest.hexdigest()
+    if links is not None:
+        links.remember(table, g)
     return g
+
+
+def _column(g: Any, key: str, col: str, unit: str, data: Any, head: bytes, body: bytes, links: Links | None,
+            dtype: Any) -> None:
+    """One column dataset (with ``name`` and ``unit`` attributes), or a hard link to an identical one."""
+    import hashlib
+
+    content = (col, head, hashlib.sha256(body).digest()) if links is not None else None
+    if content is not None and content in links.by_content:  # type: ignore[union-attr]
+        g[key] = links.by_content[content]  # type: ignore[union-attr]
+        return
+    ds = g.create_dataset(key, data=data, dtype=dtype) if dtype is not None else g.create_dataset(key, data=data)
+    ds.attrs["name"] = col
+    ds.attrs["unit"] = unit
+    if content is not None:
+        links.by_content[content] = ds  # type: ignore[union-attr]
 
 
 def _length_prefixed(text: Any) -> bytes:
@@ -151,21 +194,32 @@ def read_table(group: Any) -> Table:
     return Table(frame, units, meta)
 
 
-def write_traces(group: Any, name: str, traces: Traces) -> Any:
-    """Write one plate's traces: time (s), signal, mask, saturated and the well table."""
+def write_traces(group: Any, name: str, traces: Traces, links: Links | None = None) -> Any:
+    """Write one plate's traces: time (s), signal, mask, saturated and the well table. With ``links``,
+    arrays and the well table already stored (the same objects, passed on by a step) are hard-linked."""
     g = group.create_group(name)
     g.attrs["kind"] = "traces"
     g.attrs["plate"] = traces.plate
     g.attrs["signal_unit"] = traces.signal_unit
-    t = g.create_dataset("time", data=traces.time)
-    t.attrs["unit"] = "s"
-    s = g.create_dataset("signal", data=traces.signal)
-    s.attrs["unit"] = traces.signal_unit
-    g.create_dataset("mask", data=traces.mask)
-    g.create_dataset("saturated", data=traces.saturated)
+    arrays = [("time", traces.time, "s"), ("signal", traces.signal, traces.signal_unit), ("mask", traces.mask, None),
+              ("saturated", traces.saturated, None)]
     if traces.temperature is not None:
-        g.create_dataset("temperature", data=traces.temperature).attrs["unit"] = "degC"
-    write_table(g, "wells", Table(traces.wells, dict(traces.well_units)))
+        arrays.append(("temperature", traces.temperature, "degC"))
+    for key, arr, unit in arrays:
+        if links is not None and links.known(arr) is not None:
+            g[key] = links.known(arr)
+            continue
+        ds = g.create_dataset(key, data=arr)
+        if unit is not None:
+            ds.attrs["unit"] = unit
+        if links is not None:
+            links.remember(arr, ds)
+    if links is not None and links.known(traces.wells) is not None:
+        g["wells"] = links.known(traces.wells)
+    else:
+        wells = write_table(g, "wells", Table(traces.wells, dict(traces.well_units)), links)
+        if links is not None:
+            links.remember(traces.wells, wells)
     return g
 
 
@@ -184,12 +238,16 @@ def read_traces(group: Any) -> Traces:
     )
 
 
-def write_artifact(group: Any, name: str, value: Any) -> None:
+def write_artifact(group: Any, name: str, value: Any, links: Links | None = None) -> None:
     """Write a stage output of any supported type (Traces, Table, DataFrame, array, mapping of those)."""
     if isinstance(value, Traces):
-        write_traces(group, name, value)
+        write_traces(group, name, value, links)
+    elif isinstance(value, pd.DataFrame) and links is not None and links.known(value) is not None:
+        group[name] = links.known(value)
     elif isinstance(value, Table | pd.DataFrame):
-        write_table(group, name, value)
+        g = write_table(group, name, value, links)
+        if links is not None and isinstance(value, pd.DataFrame):
+            links.remember(value, g)
     elif isinstance(value, np.ndarray):
         if value.dtype.kind in "OUS":
             group.create_dataset(name, data=value.astype(object), dtype=_h5py().string_dtype("utf-8"))
@@ -198,7 +256,7 @@ def write_artifact(group: Any, name: str, value: Any) -> None:
     elif isinstance(value, Mapping):
         sub = group.create_group(name)
         for k, v in value.items():
-            write_artifact(sub, str(k), v)
+            write_artifact(sub, str(k), v, links)
     elif isinstance(value, str | int | float | bool):
         group.attrs[name] = value
     else:
@@ -218,98 +276,127 @@ def _versions(plugins: Any) -> dict[str, str]:
     return out
 
 
-def write_run_file(
-    path: Any,
-    rec: Any,
-    plugins: Any,
-    run_id: str,
-    raw_by_sha: Mapping[str, Any],
-    input_plates: Mapping[str, list[str]],
-    records: list[Any],
-    tables: Mapping[str, Table],
-    warnings: list[str],
-    failed: Mapping[str, str],
-    derived_from: Mapping[str, Any] | None,
-) -> str:
-    """Write a complete audit file at ``path`` (the caller renames it into place)."""
-    import datetime as dt
-    import hashlib
+class AuditWriter:
+    """Writes one run's audit file as the run goes: header first, each plate's inputs and step outputs as the
+    plate finishes, the pooled steps and final tables at the end.
 
-    from pipeline import __version__
+    Plates are written as they arrive, so a long batch never holds every plate's intermediate results in
+    memory, and the file is the same whether plates ran here, in a process pool or on a cluster. The caller
+    writes into a temporary folder and renames it into place only after :meth:`finish` (a killed run leaves
+    no file at the target). ``seconds`` accumulates the time spent writing (for the benchmarks).
+    """
 
-    h5py = _h5py()
-    with h5py.File(path, "w", track_order=True) as f:
-        f.attrs["format"] = FORMAT_NAME
-        f.attrs["format_version"] = FORMAT_VERSION
-        f.attrs["vzero_version"] = __version__
-        f.attrs["created"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
-        f.attrs["run_id"] = run_id
-        f.attrs["recipe_name"] = str(rec.data.get("name", ""))
-        f.attrs["recipe_path"] = str(getattr(rec, "path", ""))
-        f.attrs["recipe_text"] = rec.text
-        f.attrs["recipe_sha256"] = hashlib.sha256(rec.text.encode("utf-8")).hexdigest()
-        f.attrs["versions"] = to_json(_versions(plugins))
-        f.attrs["plugins"] = to_json(
+    def __init__(self, path: Any, rec: Any, plugins: Any, run_id: str) -> None:
+        import datetime as dt
+        import hashlib
+        import time
+
+        from pipeline import __version__
+
+        t0 = time.perf_counter()
+        self.path = path
+        self.plugins = plugins
+        self.links = Links()
+        self.input_plates: dict[str, list[str]] = {}
+        self._inputs: dict[str, Any] = {}
+        self.f = _h5py().File(path, "w", track_order=True)
+        a = self.f.attrs
+        a["format"] = FORMAT_NAME
+        a["format_version"] = FORMAT_VERSION
+        a["vzero_version"] = __version__
+        a["created"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+        a["run_id"] = run_id
+        a["recipe_name"] = str(rec.data.get("name", ""))
+        a["recipe_path"] = str(getattr(rec, "path", ""))
+        a["recipe_text"] = rec.text
+        a["recipe_sha256"] = hashlib.sha256(rec.text.encode("utf-8")).hexdigest()
+        a["versions"] = to_json(_versions(plugins))
+        a["plugins"] = to_json(
             {
                 name: {"distribution": s.distribution, "version": s.version, "module": s.module, "path": s.path,
                        "sha256": s.sha256}
                 for name, s in plugins.sources.items()
             }
         )
-        f.attrs["warnings"] = to_json(list(warnings))
-        f.attrs["failed_plates"] = to_json(dict(failed))
         for key in ("assay", "exclusions", "overrides"):
-            f.attrs[key] = to_json(rec.data.get(key) or ({} if key == "assay" else []))
-        if derived_from:
-            f.attrs["derived_from"] = to_json(dict(derived_from))
+            a[key] = to_json(rec.data.get(key) or ({} if key == "assay" else []))
+        self.inputs = self.f.create_group("inputs", track_order=True)
+        self.steps = self.f.create_group("steps", track_order=True)
+        self.seconds = time.perf_counter() - t0
 
-        inputs = f.create_group("inputs", track_order=True)
-        for i, (sha, raw) in enumerate(raw_by_sha.items()):
-            ds = inputs.create_dataset(f"{i:02d}", data=np.frombuffer(raw.data, dtype=np.uint8))
+    def add_input(self, raw: Any, plate: str) -> None:
+        """Store a raw input file byte for byte (once per distinct content) and note which plate used it."""
+        import time
+
+        t0 = time.perf_counter()
+        if raw.sha256 not in self._inputs:
+            ds = self.inputs.create_dataset(f"{len(self._inputs):02d}", data=np.frombuffer(raw.data, dtype=np.uint8))
             ds.attrs["name"] = raw.name
             ds.attrs["key"] = raw.key
-            ds.attrs["sha256"] = sha
+            ds.attrs["sha256"] = raw.sha256
             ds.attrs["size"] = len(raw.data)
-            ds.attrs["plates"] = to_json(input_plates.get(sha, []))
+            self._inputs[raw.sha256] = ds
+        self.input_plates.setdefault(raw.sha256, []).append(plate)
+        self.seconds += time.perf_counter() - t0
 
-        steps = f.create_group("steps", track_order=True)
-        stored: dict[int, Any] = {}  # id of a Table already written under /steps -> its group
-        for rec_ in records:
-            spec = rec_.spec
-            if spec.label not in steps:
-                g = steps.create_group(spec.label, track_order=True)
-                entry = plugins.registry.get(spec.kind, spec.method)
-                g.attrs["kind"] = spec.kind
-                g.attrs["method"] = spec.method
-                g.attrs["parameters"] = to_json(dict(spec.written))
-                g.attrs["settings"] = to_json({k: str(v) if not isinstance(v, bool | int | float | list | dict | None)
-                                               else v for k, v in spec.settings.items()})
-                g.attrs["plugin"] = entry.source.plugin
-                g.attrs["distribution"] = entry.source.distribution
-                g.attrs["version"] = str(getattr(entry.component, "version", entry.source.version))
-                g.attrs["recipe_line"] = spec.line
-                g.attrs["seconds"] = 0.0
-                g.attrs["warnings"] = to_json([])
-                g.attrs["started"] = rec_.started
-            g = steps[spec.label]
-            g.attrs["seconds"] = float(g.attrs["seconds"]) + rec_.seconds
-            if rec_.warnings:
-                prefix = f"{rec_.plate}: " if rec_.plate else ""
-                g.attrs["warnings"] = to_json(json.loads(g.attrs["warnings"]) + [prefix + w for w in rec_.warnings])
-            sub = g.create_group(rec_.plate or "pooled", track_order=True)
-            sub.attrs["started"] = rec_.started
-            sub.attrs["seconds"] = rec_.seconds
-            for name, value in rec_.outputs.items():
-                if name == "traces" and isinstance(value, Mapping):
-                    continue  # per-plate traces are already stored by the plate steps
-                write_artifact(sub, name, value)
-                if isinstance(value, Table):
-                    stored[id(value)] = sub[name]
+    def add_record(self, record: Any) -> Any:
+        """Write one step's record (parameters and provenance once per step; outputs per plate or pooled).
+        Returns the group holding the outputs."""
+        import time
 
-        results = f.create_group("results", track_order=True)
+        t0 = time.perf_counter()
+        spec = record.spec
+        if spec.label not in self.steps:
+            g = self.steps.create_group(spec.label, track_order=True)
+            entry = self.plugins.registry.get(spec.kind, spec.method)
+            g.attrs["kind"] = spec.kind
+            g.attrs["method"] = spec.method
+            g.attrs["parameters"] = to_json(dict(spec.written))
+            g.attrs["settings"] = to_json({k: str(v) if not isinstance(v, bool | int | float | list | dict | None)
+                                           else v for k, v in spec.settings.items()})
+            g.attrs["plugin"] = entry.source.plugin
+            g.attrs["distribution"] = entry.source.distribution
+            g.attrs["version"] = str(getattr(entry.component, "version", entry.source.version))
+            g.attrs["recipe_line"] = spec.line
+            g.attrs["seconds"] = 0.0
+            g.attrs["warnings"] = to_json([])
+            g.attrs["started"] = record.started
+        g = self.steps[spec.label]
+        g.attrs["seconds"] = float(g.attrs["seconds"]) + record.seconds
+        if record.warnings:
+            prefix = f"{record.plate}: " if record.plate else ""
+            g.attrs["warnings"] = to_json(json.loads(g.attrs["warnings"]) + [prefix + w for w in record.warnings])
+        sub = g.create_group(record.plate or "pooled", track_order=True)
+        sub.attrs["started"] = record.started
+        sub.attrs["seconds"] = record.seconds
+        for name, value in record.outputs.items():
+            if name == "traces" and isinstance(value, Mapping):
+                continue  # per-plate traces are already stored by the plate steps
+            write_artifact(sub, name, value, self.links)
+        self.seconds += time.perf_counter() - t0
+        return sub
+
+    def finish(self, tables: Mapping[str, Table], warnings: list[str], failed: Mapping[str, str],
+               derived_from: Mapping[str, Any] | None) -> None:
+        """Write the final tables (hard-linked where a step already stored them) and the run's closing
+        attributes, and close the file."""
+        import time
+
+        t0 = time.perf_counter()
+        for sha, ds in self._inputs.items():
+            ds.attrs["plates"] = to_json(self.input_plates.get(sha, []))
+        self.f.attrs["warnings"] = to_json(list(warnings))
+        self.f.attrs["failed_plates"] = to_json(dict(failed))
+        if derived_from:
+            self.f.attrs["derived_from"] = to_json(dict(derived_from))
+        results = self.f.create_group("results", track_order=True)
         for name, table in tables.items():
-            if id(table) in stored:
-                results[name] = stored[id(table)]  # an HDF5 hard link: one copy, reachable from both places
-            else:
-                write_table(results, name, table)
-    return str(path)
+            write_table(results, name, table, self.links)
+        self.f.close()
+        self.links = Links()
+        self.seconds += time.perf_counter() - t0
+
+    def close(self) -> None:
+        """Close without finishing (after an error; the caller removes the temporary folder)."""
+        if self.f.id.valid:
+            self.f.close()

@@ -207,22 +207,18 @@ def ordered(executor: Executor, fn: Callable[[PlateTask], Any], items: Iterable[
 
 
 @dataclass(frozen=True)
-class SpilledRaw:
-    """A raw input whose bytes wait in the scratch file (same fields as :class:`RawInput`; ``data`` is read
-    back when the audit file is written)."""
+class RawInfo:
+    """What the run remembers of a raw input once its bytes are in the audit file."""
 
     key: str
     name: str
     sha256: str
-    _dataset: Any
-
-    @property
-    def data(self) -> bytes:
-        return bytes(self._dataset[()].tobytes())
+    size: int
 
 
 class TracesOnDisk(Mapping[str, Any]):
-    """Each plate's final traces, read back from the scratch file when a pooled or final step asks."""
+    """Each plate's final traces, read back from the audit file being written when a pooled or final step
+    asks (so a long batch does not hold every plate's traces in memory)."""
 
     def __init__(self, h5: Any, paths: Mapping[str, str]) -> None:
         self._h5, self._paths = h5, dict(paths)
@@ -240,84 +236,53 @@ class TracesOnDisk(Mapping[str, Any]):
 
 
 class PlateStore:
-    """Finished plates, kept for the reduce and the audit file with bounded memory.
+    """Finished plates: written to the audit file as they arrive, kept in memory only as far as needed.
 
-    Without a scratch file everything stays in memory (one plate: the quick path). With one, each plate's
-    step outputs (traces, tables, arrays) and raw input bytes are written to the scratch HDF5 file as the plate
-    arrives; memory keeps only the per-plate tables that the pooled steps stack. When the audit file has been
-    written, :meth:`copy_into` copies the stored outputs into it with HDF5's own object copy, so the file is
-    the same as the one written from memory.
+    Every plate's raw inputs and step outputs go to the :class:`pipeline.audit.AuditWriter` at once. With
+    ``hold`` (a single plate, the quick path) the outcomes stay in memory as they are; without it only the
+    per-plate tables that the pooled steps stack are kept, and traces are read back from the file when a
+    final step (the report) asks for them. Either way the audit file is the same.
     """
 
-    def __init__(self, scratch: Any | None = None) -> None:
+    def __init__(self, writer: Any, hold: bool = True) -> None:
+        self.writer = writer
+        self.hold = hold
         self.outcomes: list[Any] = []
-        self.raws: dict[str, Any] = {}
-        self.input_plates: dict[str, list[str]] = {}
+        self.raws: dict[str, RawInfo] = {}
         self._traces: dict[str, str] = {}
-        self._h5: Any = None
-        if scratch is not None:
-            import h5py
-
-            self._h5 = h5py.File(scratch, "w", track_order=True)
 
     @property
-    def spills(self) -> bool:
-        return self._h5 is not None
+    def input_plates(self) -> Mapping[str, list[str]]:
+        return self.writer.input_plates
 
     def add_raws(self, plate: str, raws: Mapping[str, RawInput]) -> None:
         for raw in raws.values():
-            if raw.sha256 not in self.raws:
-                if self._h5 is not None:
-                    import numpy as np
-
-                    ds = self._h5.create_dataset(f"inputs/{raw.sha256}", data=np.frombuffer(raw.data, np.uint8))
-                    self.raws[raw.sha256] = SpilledRaw(raw.key, raw.name, raw.sha256, ds)
-                else:
-                    self.raws[raw.sha256] = raw
-            self.input_plates.setdefault(raw.sha256, []).append(plate)
+            self.writer.add_input(raw, plate)
+            self.raws.setdefault(raw.sha256, RawInfo(raw.key, raw.name, raw.sha256, len(raw.data)))
 
     def add(self, outcome: Any) -> None:
-        """Keep ``outcome``; with a scratch file, move its step outputs there and keep only its tables."""
-        if self._h5 is not None and not outcome.error:
-            from pipeline.audit import write_artifact
+        """Keep ``outcome``: write its steps to the audit file (successful plates only) and let go of what the
+        pooled steps do not need unless holding."""
+        if not outcome.error:
             from pipeline.data import Table
 
             final = outcome.artifacts.get("traces")
             for record in outcome.records:
-                g = self._h5.require_group(f"steps/{record.spec.label}").create_group(outcome.plate, track_order=True)
+                sub = self.writer.add_record(record)
                 for name, value in record.outputs.items():
-                    write_artifact(g, name, value)
                     if final is not None and value is final:
-                        self._traces[outcome.plate] = f"{g.name}/{name}"
-                record.outputs = {}
-            outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
+                        self._traces[outcome.plate] = f"{sub.name}/{name}"
+                if not self.hold:
+                    record.outputs = {}
+            if not self.hold:
+                outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
         self.outcomes.append(outcome)
 
     def traces(self) -> Mapping[str, Any]:
         """Every successful plate's final traces, by plate name."""
         from pipeline.data import Traces
 
-        if self._h5 is not None:
-            return TracesOnDisk(self._h5, self._traces)
+        if not self.hold:
+            return TracesOnDisk(self.writer.f, self._traces)
         return {o.plate: o.artifacts["traces"] for o in self.outcomes
                 if not o.error and isinstance(o.artifacts.get("traces"), Traces)}
-
-    def copy_into(self, audit_path: Any) -> None:
-        """Copy the spilled step outputs into the written audit file (``/steps/<label>/<plate>``)."""
-        if self._h5 is None or "steps" not in self._h5:
-            return
-        import h5py
-
-        with h5py.File(audit_path, "a") as f:
-            for label, step in self._h5["steps"].items():
-                for plate, src in step.items():
-                    dst = f[f"steps/{label}/{plate}"]
-                    for name in src:
-                        self._h5.copy(src[name], dst, name=name)
-                    for key, value in src.attrs.items():
-                        dst.attrs[key] = value
-
-    def close(self) -> None:
-        if self._h5 is not None:
-            self._h5.close()
-            self._h5 = None

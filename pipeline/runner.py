@@ -104,6 +104,7 @@ class RunResult:
     tables: dict[str, Table]
     warnings: list[str]
     failed: dict[str, str]
+    audit_seconds: float = 0.0
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -147,7 +148,8 @@ class Progress:
     seconds: float = 0.0
 
 
-#: Batches with more plates than this stream finished plates to a scratch file instead of holding them.
+#: Batches with more plates than this keep only each plate's tables in memory (its traces and step outputs
+#: are read back from the audit file being written when a final step needs them).
 SPILL_AFTER = 1
 
 
@@ -170,9 +172,10 @@ def run(
     Plates go through the plate-scoped steps one by one (a map), in ``jobs`` local processes, on the Dask
     cluster at ``scheduler`` (``"local"`` starts one on this machine) or on a given ``executor``; the pooled
     and final steps then run once on the stacked tables (the reduce). A plate that fails is reported by name
-    in ``RunResult.failed`` and the others go on. Finished plates are streamed to a scratch file beside
-    ``out`` when there is more than one (``spill`` forces either way), so memory does not grow with the
-    batch. Only this process writes the audit file; the numbers do not depend on where plates ran.
+    in ``RunResult.failed`` and the others go on. Each finished plate is written to the audit file at once;
+    with more than one plate only its tables stay in memory (``spill`` forces either way), so memory does not
+    grow with the batch. Only this process writes the audit file; the numbers do not depend on where plates
+    ran.
 
     The run is written to a temporary folder beside ``out`` and renamed into place only when complete, so
     a failed or killed run leaves nothing at ``out`` (and a previous run there untouched). An existing run
@@ -199,9 +202,13 @@ def run(
                          hint="Name them in the recipe's plugins list, or run with one job.")
     if spill is None:
         spill = len(rec.plates) > SPILL_AFTER
-    scratch_dir = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.scratch-", dir=_parent(out_dir))) if spill else None
-    store = PlateStore(scratch_dir / "plates.h5" if scratch_dir else None)
+    from pipeline.audit import AuditWriter
+
+    tmp = _temporary_folder(out_dir)
+    writer: AuditWriter | None = None
     try:
+        writer = AuditWriter(tmp / "run.h5", rec, plugins, run_id)
+        store = PlateStore(writer, hold=not spill)
         total = len(rec.plates)
         for outcome in _map_plates(rec, plugins, source, plate_steps, run_id, executor, store):
             store.add(outcome)
@@ -231,16 +238,20 @@ def run(
             pooled.update(output.artifacts)
             files.update(output.files)
             records.append(record)
+            writer.add_record(record)
 
         final_tables = {k: v for k, v in pooled.items() if isinstance(v, Table)}
-        return _write_run(
-            out_dir, force, rec, plugins, run_id, store.raws, store.input_plates, ok, records, final_tables, files,
-            warnings, failed, derived_from, store.copy_into,
-        )
+        writer.finish(final_tables, warnings, failed, derived_from)
+        _write_outputs(tmp, final_tables, files, failed)
+        _swap_into_place(tmp, out_dir, force)
+        return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
+                         audit_seconds=writer.seconds)
+    except BaseException:
+        if writer is not None:
+            writer.close()
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
     finally:
-        store.close()
-        if scratch_dir is not None:
-            shutil.rmtree(scratch_dir, ignore_errors=True)
         if own_executor and executor is not None:
             executor.close()
 
@@ -263,7 +274,7 @@ def _run_info(
                                                "version": str(getattr(entry.component, "version", "")),
                                                "seconds": 0.0})
         item["seconds"] += r.seconds
-    inputs = [{"name": raw.name, "key": raw.key, "sha256": sha, "size": len(raw.data),
+    inputs = [{"name": raw.name, "key": raw.key, "sha256": sha, "size": raw.size,
                "plates": list(store.input_plates.get(sha, []))} for sha, raw in store.raws.items()]
     return {"run_id": run_id, "started": started, "recipe_text": rec.text, "recipe_sha256": rec.sha256,
             "inputs": inputs, "warnings": list(warnings), "failed": dict(failed), "steps": list(steps.values())}
@@ -424,63 +435,55 @@ def _utc_now() -> str:
     return _dt.datetime.now(_dt.UTC).isoformat(timespec="milliseconds")
 
 
-def _write_run(
-    out_dir: Path,
-    force: bool,
-    rec: Recipe,
-    plugins: Plugins,
-    run_id: str,
-    raw_by_sha: Mapping[str, RawInput],
-    input_plates: Mapping[str, list[str]],
-    outcomes: list[PlateOutcome],
-    records: list[StepRecord],
-    tables: Mapping[str, Table],
-    files: Mapping[str, bytes],
-    warnings: list[str],
-    failed: Mapping[str, str],
-    derived_from: Mapping[str, Any] | None,
-    complete_audit: Callable[[Path], None] | None = None,
-) -> RunResult:
-    """Write everything into a temporary folder beside ``out_dir``, then move it into place.
-
-    ``complete_audit(path)`` adds what was streamed elsewhere (spilled plate outputs) to the written audit
-    file before anything is moved into place."""
-    from pipeline import audit
-
-    parent = _parent(out_dir)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=parent))
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes the folder private; a run folder is an ordinary one
-    try:
-        h5 = audit.write_run_file(
-            tmp / "run.h5", rec, plugins, run_id, raw_by_sha, input_plates, records, tables, warnings, failed,
-            derived_from,
-        )
-        if complete_audit is not None:
-            complete_audit(tmp / "run.h5")
-        for name, table in tables.items():
-            table.frame.to_csv(tmp / f"{name}.csv", index=False)
-        for rel, data in files.items():
-            target = tmp / rel
-            target.parent.mkdir(parents=True, exist_ok=True)
-            target.write_bytes(data)
-        if failed:
-            (tmp / "failed_plates.txt").write_text("".join(f"{k}: {v}\n" for k, v in failed.items()), "utf-8")
-        _fsync_dir(tmp)
-        _swap_into_place(tmp, out_dir, force)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
-    del h5
-    return RunResult(out_dir, out_dir / "run.h5", dict(tables), warnings, dict(failed))
-
-
 def _parent(out_dir: Path) -> Path:
     """The folder that holds ``out_dir`` (created if missing): temporary files go there, on the same disk."""
     parent = out_dir.resolve().parent
     parent.mkdir(parents=True, exist_ok=True)
     return parent
+
+
+def _temporary_folder(out_dir: Path) -> Path:
+    """A new folder beside ``out_dir`` (same file system, so the final rename is atomic), with the ordinary
+    permissions of a folder the user makes (mkdtemp makes it private).
+
+    Its name carries this process's id. A run that was killed outright (SIGKILL, power loss) cannot remove
+    its folder; the next run into the same target removes the partial folders of processes that are gone.
+    """
+    parent = _parent(out_dir)
+    for stale in parent.glob(f".{out_dir.name}.partial-*"):
+        pid = stale.name.removeprefix(f".{out_dir.name}.partial-").split("-", 1)[0]
+        if pid.isdigit() and not _alive(int(pid)):
+            shutil.rmtree(stale, ignore_errors=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-{os.getpid()}-", dir=parent))
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o777 & ~umask)
+    return tmp
+
+
+def _alive(pid: int) -> bool:
+    """Whether a process with this id exists (on this machine)."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],
+                   failed: Mapping[str, str]) -> None:
+    """One CSV per final table, the files final steps returned, the list of failed plates; then fsync."""
+    for name, table in tables.items():
+        table.frame.to_csv(tmp / f"{name}.csv", index=False)
+    for rel, data in files.items():
+        target = tmp / rel
+        target.parent.mkdir(parents=True, exist_ok=True)
+        target.write_bytes(data)
+    if failed:
+        (tmp / "failed_plates.txt").write_text("".join(f"{k}: {v}\n" for k, v in failed.items()), "utf-8")
+    _fsync_dir(tmp)
 
 
 def _fsync_dir(path: Path) -> None:
