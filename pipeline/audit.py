@@ -24,6 +24,7 @@ Format history: 1.0 first version; 1.1 adds ``sha256`` on tables and the root at
 
 from __future__ import annotations
 
+import functools
 import json
 from collections.abc import Mapping
 from typing import Any
@@ -264,6 +265,12 @@ def write_artifact(group: Any, name: str, value: Any, links: Links | None = None
 
 
 def _versions(plugins: Any) -> dict[str, str]:
+    return dict(_package_versions())
+
+
+@functools.cache
+def _package_versions() -> tuple[tuple[str, str], ...]:
+    """Python's and the main packages' versions (read once per process: metadata lookups are slow)."""
     import platform
     from importlib import metadata
 
@@ -273,7 +280,7 @@ def _versions(plugins: Any) -> dict[str, str]:
             out[dist] = metadata.version(dist)
         except metadata.PackageNotFoundError:
             out[dist] = "not installed"
-    return out
+    return tuple(out.items())
 
 
 class AuditWriter:

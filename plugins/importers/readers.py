@@ -395,6 +395,9 @@ def _is_number(text: str) -> bool:
 
 def _header_kind(row: list[str], opts: ReadOptions) -> str | None:
     """ "wide" or "long" if ``row`` is a header row of that shape, else None."""
+    lead = next((c for c in row if c and not c.isspace()), "")
+    if lead and _is_number(lead.strip()):
+        return None  # a header row holds no numbers; most rows are data rows starting with a time
     cells = [c.strip() for c in row]
     joined = "\x1f".join(cells).lower()
     wanted = [w.strip().lower() for w in (opts.time_column, *(opts.long_columns or ())) if w]

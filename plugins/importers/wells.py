@@ -8,6 +8,7 @@ A12, B1, ...) is the order used everywhere in vzero.
 
 from __future__ import annotations
 
+import functools
 import re
 from collections.abc import Iterable
 from functools import lru_cache
@@ -30,6 +31,11 @@ def normalise_well(name: str) -> str:
     """
     if not isinstance(name, str):
         raise ValueError(f"well name must be text, got {type(name).__name__}")
+    return _normalise(name)
+
+
+@functools.lru_cache(maxsize=8192)
+def _normalise(name: str) -> str:
     m = _WELL_RE.match(name)
     if m is None:
         raise ValueError(f"{name!r} is not a well name: expected a row letter and a column number, like A1")
