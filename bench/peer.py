@@ -30,15 +30,19 @@ def _blank(reads: pd.DataFrame, lay: pd.DataFrame) -> pd.DataFrame:
     return reads.sub(reads[list(blanks)].mean(axis=1), axis=0)
 
 
-def _window_rate(t: np.ndarray, y: np.ndarray, min_points: int = 6, r2_min: float = 0.995) -> float:
-    """Slope of the longest window from the first read whose straight line has r² >= r2_min."""
-    best = stats.linregress(t[:min_points], y[:min_points]).slope
-    for end in range(min_points + 1, t.size + 1):
-        fit = stats.linregress(t[:end], y[:end])
-        if fit.rvalue**2 < r2_min:
+def _window_rate(t: np.ndarray, y: np.ndarray, min_points: int = 6, t_crit: float = 3.0) -> float:
+    """Slope of the longest window from the first read before the curve bends: the window grows one read at
+    a time until the quadratic term of numpy.polyfit is significant (|c| > t_crit standard errors).
+
+    (An r² threshold such as 0.995, another common rule, stops at once on low-signal wells and so does much
+    less work than the job asks; the curvature test is what the automatic method does.)"""
+    end = min_points
+    while end < t.size:
+        c, cov = np.polyfit(t[: end + 1], y[: end + 1], 2, cov=True)
+        if abs(c[0]) > t_crit * np.sqrt(cov[0, 0]):
             break
-        best = fit.slope
-    return float(best)
+        end += 1
+    return float(stats.linregress(t[:end], y[:end]).slope)
 
 
 def _progress_rate(t: np.ndarray, y: np.ndarray, s0: float, per_um: float) -> float:
