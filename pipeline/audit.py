@@ -283,6 +283,21 @@ def _package_versions() -> tuple[tuple[str, str], ...]:
     return tuple(out.items())
 
 
+def write_part(records: list[Any]) -> bytes:
+    """One plate's step outputs as an in-memory HDF5 file (``/<step label>/<output>``), written where the
+    plate ran (a worker), for :meth:`AuditWriter.add_part` in the process that writes the audit file."""
+    import io
+
+    buffer = io.BytesIO()
+    links = Links()
+    with _h5py().File(buffer, "w", track_order=True) as f:
+        for record in records:
+            g = f.create_group(record.spec.label, track_order=True)
+            for name, value in record.outputs.items():
+                write_artifact(g, name, value, links)
+    return buffer.getvalue()
+
+
 class AuditWriter:
     """Writes one run's audit file as the run goes: header first, each plate's inputs and step outputs as the
     plate finishes, the pooled steps and final tables at the end.
@@ -346,12 +361,9 @@ class AuditWriter:
         self.input_plates.setdefault(raw.sha256, []).append(plate)
         self.seconds += time.perf_counter() - t0
 
-    def add_record(self, record: Any) -> Any:
-        """Write one step's record (parameters and provenance once per step; outputs per plate or pooled).
-        Returns the group holding the outputs."""
-        import time
-
-        t0 = time.perf_counter()
+    def _step_group(self, record: Any) -> Any:
+        """The group for ``record``'s outputs (``/steps/<label>/<plate or pooled>``), creating the step's
+        group with its parameters and provenance the first time, and adding its time and warnings."""
         spec = record.spec
         if spec.label not in self.steps:
             g = self.steps.create_group(spec.label, track_order=True)
@@ -376,12 +388,39 @@ class AuditWriter:
         sub = g.create_group(record.plate or "pooled", track_order=True)
         sub.attrs["started"] = record.started
         sub.attrs["seconds"] = record.seconds
+        return sub
+
+    def add_record(self, record: Any) -> Any:
+        """Write one step's record (parameters and provenance once per step; outputs per plate or pooled).
+        Returns the group holding the outputs."""
+        import time
+
+        t0 = time.perf_counter()
+        sub = self._step_group(record)
         for name, value in record.outputs.items():
             if name == "traces" and isinstance(value, Mapping):
                 continue  # per-plate traces are already stored by the plate steps
             write_artifact(sub, name, value, self.links)
         self.seconds += time.perf_counter() - t0
         return sub
+
+    def add_part(self, records: list[Any], part: bytes) -> dict[str, Any]:
+        """Add one plate's step records whose outputs a worker already wrote (:func:`write_part`): HDF5's own
+        object copy moves them in, so the driver does not re-encode every array. Returns label -> group."""
+        import io
+        import time
+
+        t0 = time.perf_counter()
+        out = {}
+        with _h5py().File(io.BytesIO(part), "r") as src:
+            for record in records:
+                sub = self._step_group(record)
+                if record.spec.label in src:
+                    for name, obj in src[record.spec.label].items():
+                        src.copy(obj, sub, name=name)
+                out[record.spec.label] = sub
+        self.seconds += time.perf_counter() - t0
+        return out
 
     def finish(self, tables: Mapping[str, Table], warnings: list[str], failed: Mapping[str, str],
                derived_from: Mapping[str, Any] | None) -> None:

@@ -71,6 +71,8 @@ def run_plate_task(task: PlateTask) -> Any:
     except VzeroError as exc:
         return PlateOutcome(task.plate.name, {"exception": exc}, error=f"worker setup: {exc}")
     outcome = process_plate(task.plate, task.raws, rec, plugins, steps, task.run_id)
+    if not outcome.error:
+        _pack(outcome)
     exc = outcome.artifacts.get("exception")
     if exc is not None:
         try:
@@ -78,6 +80,22 @@ def run_plate_task(task: PlateTask) -> Any:
         except Exception:  # an exception type that cannot cross processes: keep its message
             outcome.artifacts = {"exception": VzeroError(str(exc))}
     return outcome
+
+
+def _pack(outcome: Any) -> None:
+    """Write the plate's step outputs into an in-memory HDF5 part here, in the worker, and keep only the
+    tables: encoding the arrays is most of the audit file's cost, and this way it runs in parallel."""
+    from pipeline.audit import write_part
+    from pipeline.data import Table
+
+    final = outcome.artifacts.get("traces")
+    for record in outcome.records:
+        if final is not None and any(v is final for v in record.outputs.values()):
+            outcome.part_traces = record.spec.label
+    outcome.part = write_part(outcome.records)
+    for record in outcome.records:
+        record.outputs = {}
+    outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
 
 
 @functools.lru_cache(maxsize=4)
@@ -263,7 +281,12 @@ class PlateStore:
     def add(self, outcome: Any) -> None:
         """Keep ``outcome``: write its steps to the audit file (successful plates only) and let go of what the
         pooled steps do not need unless holding."""
-        if not outcome.error:
+        if not outcome.error and outcome.part is not None:  # written by a worker: copy it in
+            subs = self.writer.add_part(outcome.records, outcome.part)
+            if outcome.part_traces in subs:
+                self._traces[outcome.plate] = f"{subs[outcome.part_traces].name}/traces"
+            outcome.part = None
+        elif not outcome.error:
             from pipeline.data import Table
 
             final = outcome.artifacts.get("traces")
@@ -282,7 +305,8 @@ class PlateStore:
         """Every successful plate's final traces, by plate name."""
         from pipeline.data import Traces
 
-        if not self.hold:
-            return TracesOnDisk(self.writer.f, self._traces)
-        return {o.plate: o.artifacts["traces"] for o in self.outcomes
+        held = {o.plate: o.artifacts["traces"] for o in self.outcomes
                 if not o.error and isinstance(o.artifacts.get("traces"), Traces)}
+        if self.hold and len(held) == len(self._traces):
+            return held
+        return TracesOnDisk(self.writer.f, self._traces)

@@ -88,11 +88,17 @@ class StepRecord:
 
 @dataclass
 class PlateOutcome:
+    """One plate's result from the plate-scoped steps. A worker process sends the step outputs back already
+    written as an in-memory HDF5 file (``part``; ``part_traces`` names the step whose traces are final)
+    and keeps in ``artifacts`` only the tables the pooled steps stack."""
+
     plate: str
     artifacts: dict[str, Any] = field(default_factory=dict)
     records: list[StepRecord] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
     error: str | None = None
+    part: bytes | None = None
+    part_traces: str | None = None
 
 
 @dataclass

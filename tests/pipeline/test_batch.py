@@ -55,19 +55,25 @@ def demo_batch(folder: Path, n: int, *, broken: tuple[int, ...] = (), fit: bool 
 
 
 def h5_contents(path: Path) -> dict[str, Any]:
-    """Every dataset (values) and attribute of an audit file, except the per-run ones (times, run id)."""
+    """Every dataset (values) and attribute of an audit file under every name, except the per-run ones
+    (times, run id). Every link is followed: identical data may be stored once and hard-linked in one file
+    and twice in another, which is the same content."""
     skip = {"created", "run_id", "started", "seconds", "recipe_path"}
     out: dict[str, Any] = {}
 
-    def visit(name: str, obj: Any) -> None:
+    def walk(name: str, obj: Any) -> None:
         for k, v in obj.attrs.items():
             if k not in skip:
                 out[f"{name}@{k}"] = v
         if isinstance(obj, h5py.Dataset):
             out[name] = obj[()]
+        else:
+            for key in obj:
+                walk(f"{name}/{key}" if name else key, obj[key])
 
     with h5py.File(path) as f:
-        f.visititems(visit)
+        for key in f:
+            walk(key, f[key])
         for k, v in f.attrs.items():
             if k not in skip:
                 out[f"/@{k}"] = v
