@@ -21,13 +21,13 @@ class FirstReads(Stage):
     params = {"reads": Param("int", 5, "how many reads from the start", low=2)}
 
     def run(self, data: StageInput) -> StageOutput:
+        from plugins.rates import finish_table
         from plugins.rates.window import window_slopes
-        from plugins.tables import rates_table
 
         traces = data.artifacts["traces"]
         end = traces.time[min(self.settings["reads"], len(traces.time)) - 1]
         result = window_slopes(traces.time, traces.masked_signal(), float(traces.time[0]), float(end))
-        return StageOutput(artifacts={"rates": rates_table(traces, result, self.method)})
+        return finish_table(traces, result, self.method, data)  # flags, overrides, standard columns
 
 
 @hookimpl
