@@ -350,8 +350,42 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
                 extra_notes[key] = problem
             fits[key] = res
 
-    return _tables(models, fits, point_sets, extra_notes, cfg, xvars, var, rate, groups, plate, well, use,
+    output = _tables(models, fits, point_sets, extra_notes, cfg, xvars, var, rate, groups, plate, well, use,
                    no_inhibitor, role_unit)
+    _note_left_out(output, frame, groups, use, plate, well)
+    return output
+
+
+def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray, use: np.ndarray,
+                   plate: np.ndarray, well: np.ndarray) -> None:
+    """Say in each fitted row which of the group's sample wells were left out and why (recipe exclusions
+    and excluding flags), so the fits table itself shows what an exclusion changed."""
+    fits = output.artifacts.get("fits")
+    if fits is None or not len(fits.frame) or "flags" not in frame.columns:
+        return
+    sample = frame["role"].astype(str).to_numpy() == "sample" if "role" in frame.columns else np.ones(len(frame), bool)
+    flags = frame["flags"].fillna("").astype(str).to_numpy()
+    notes: dict[str, str] = {}
+    for g in np.unique(groups):
+        out = np.flatnonzero(sample & (groups == g) & ~use)
+        if out.size == 0:
+            continue
+        where = [f"{plate[i]} {well[i]}".strip() for i in out]
+        by_recipe = [w for w, i in zip(where, out, strict=True) if "excluded" in flags[i].split(";")]
+        parts = []
+        if by_recipe:
+            parts.append(f"{len(by_recipe)} excluded by the recipe ({', '.join(by_recipe[:12])}"
+                         f"{', ...' if len(by_recipe) > 12 else ''})")
+        others = len(out) - len(by_recipe)
+        if others:
+            parts.append(f"{others} flagged or without a rate (see rates.csv)")
+        notes[str(g)] = "wells left out: " + "; ".join(parts)
+    if notes:
+        table = fits.frame.copy()
+        extra = table["group"].astype(str).map(notes).fillna("")
+        table["note"] = ["; ".join(filter(None, [str(a), b])) for a, b in zip(table["note"].fillna(""), extra,
+                                                                              strict=True)]
+        output.artifacts["fits"] = fits.with_frame(table)
 
 
 def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],

@@ -148,3 +148,16 @@ def test_assay_block_is_checked_with_the_recipe(plate_folder: Path, capsys):
     assert "recipe.yaml:12 assay.temperature: expected a quantity" in err
     assert "recipe.yaml:13 assay.ph: unknown assay item (did you mean 'pH'?)" in err
     assert "assay.enzyme.organsm: unknown item (did you mean 'organism'?)" in err
+
+
+def test_recipe_exclusion_is_listed_in_the_fits_it_changes(plate_folder: Path, tmp_path: Path):
+    text = plate_folder.read_text("utf-8") + "  - fit: {method: nls, models: [michaelis-menten]}\n"
+    text += "exclusions:\n  - {plate: p1, well: B3, reason: pipetting error seen at the bench}\n"
+    plate_folder.write_text(text, "utf-8")
+    result = run(plate_folder, tmp_path / "out")
+    rates = result.rates.set_index("well")
+    assert "excluded" in rates.loc["B3", "flags"] and "pipetting error" in rates.loc["B3", "note"]
+    fits = pd.read_csv(tmp_path / "out" / "fits.csv")
+    notes_b = fits.loc[fits["group"] == "gB", "note"].astype(str)
+    assert len(notes_b) and notes_b.str.contains("1 excluded by the recipe \\(p1 B3\\)").all()
+    assert not fits.loc[fits["group"] == "gA", "note"].astype(str).str.contains("excluded by the recipe").any()
