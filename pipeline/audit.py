@@ -293,6 +293,8 @@ def write_part(records: list[Any]) -> bytes:
     with _h5py().File(buffer, "w", track_order=True) as f:
         for record in records:
             g = f.create_group(record.spec.label, track_order=True)
+            g.attrs["started"] = record.started
+            g.attrs["seconds"] = record.seconds
             for name, value in record.outputs.items():
                 write_artifact(g, name, value, links)
     return buffer.getvalue()
@@ -321,6 +323,8 @@ class AuditWriter:
         self.links = Links()
         self.input_plates: dict[str, list[str]] = {}
         self._inputs: dict[str, Any] = {}
+        self._seconds: dict[str, float] = {}
+        self._warnings: dict[str, list[str]] = {}
         self.f = _h5py().File(path, "w", track_order=True)
         a = self.f.attrs
         a["format"] = FORMAT_NAME
@@ -361,9 +365,9 @@ class AuditWriter:
         self.input_plates.setdefault(raw.sha256, []).append(plate)
         self.seconds += time.perf_counter() - t0
 
-    def _step_group(self, record: Any) -> Any:
-        """The group for ``record``'s outputs (``/steps/<label>/<plate or pooled>``), creating the step's
-        group with its parameters and provenance the first time, and adding its time and warnings."""
+    def _step(self, record: Any) -> Any:
+        """The group of ``record``'s step, created with its parameters and provenance the first time. The
+        step's total time and warnings are added up here and written once, by :meth:`finish`."""
         spec = record.spec
         if spec.label not in self.steps:
             g = self.steps.create_group(spec.label, track_order=True)
@@ -377,18 +381,13 @@ class AuditWriter:
             g.attrs["distribution"] = entry.source.distribution
             g.attrs["version"] = str(getattr(entry.component, "version", entry.source.version))
             g.attrs["recipe_line"] = spec.line
-            g.attrs["seconds"] = 0.0
-            g.attrs["warnings"] = to_json([])
             g.attrs["started"] = record.started
-        g = self.steps[spec.label]
-        g.attrs["seconds"] = float(g.attrs["seconds"]) + record.seconds
-        if record.warnings:
-            prefix = f"{record.plate}: " if record.plate else ""
-            g.attrs["warnings"] = to_json(json.loads(g.attrs["warnings"]) + [prefix + w for w in record.warnings])
-        sub = g.create_group(record.plate or "pooled", track_order=True)
-        sub.attrs["started"] = record.started
-        sub.attrs["seconds"] = record.seconds
-        return sub
+            self._seconds[spec.label] = 0.0
+            self._warnings[spec.label] = []
+        self._seconds[spec.label] += record.seconds
+        prefix = f"{record.plate}: " if record.plate else ""
+        self._warnings[spec.label].extend(prefix + w for w in record.warnings)
+        return self.steps[spec.label]
 
     def add_record(self, record: Any) -> Any:
         """Write one step's record (parameters and provenance once per step; outputs per plate or pooled).
@@ -396,7 +395,9 @@ class AuditWriter:
         import time
 
         t0 = time.perf_counter()
-        sub = self._step_group(record)
+        sub = self._step(record).create_group(record.plate or "pooled", track_order=True)
+        sub.attrs["started"] = record.started
+        sub.attrs["seconds"] = record.seconds
         for name, value in record.outputs.items():
             if name == "traces" and isinstance(value, Mapping):
                 continue  # per-plate traces are already stored by the plate steps
@@ -406,7 +407,8 @@ class AuditWriter:
 
     def add_part(self, records: list[Any], part: bytes) -> dict[str, Any]:
         """Add one plate's step records whose outputs a worker already wrote (:func:`write_part`): HDF5's own
-        object copy moves them in, so the driver does not re-encode every array. Returns label -> group."""
+        object copy moves each step's group in whole, so the driver does not re-encode any array. Returns
+        label -> the plate's group under that step."""
         import io
         import time
 
@@ -414,11 +416,10 @@ class AuditWriter:
         out = {}
         with _h5py().File(io.BytesIO(part), "r") as src:
             for record in records:
-                sub = self._step_group(record)
-                if record.spec.label in src:
-                    for name, obj in src[record.spec.label].items():
-                        src.copy(obj, sub, name=name)
-                out[record.spec.label] = sub
+                step = self._step(record)
+                name = record.plate or "pooled"
+                src.copy(src[record.spec.label], step, name=name)
+                out[record.spec.label] = step[name]
         self.seconds += time.perf_counter() - t0
         return out
 
@@ -431,6 +432,9 @@ class AuditWriter:
         t0 = time.perf_counter()
         for sha, ds in self._inputs.items():
             ds.attrs["plates"] = to_json(self.input_plates.get(sha, []))
+        for label, g in self.steps.items():
+            g.attrs["seconds"] = self._seconds.get(label, 0.0)
+            g.attrs["warnings"] = to_json(self._warnings.get(label, []))
         self.f.attrs["warnings"] = to_json(list(warnings))
         self.f.attrs["failed_plates"] = to_json(dict(failed))
         if derived_from:
