@@ -325,6 +325,7 @@ class AuditWriter:
         self._inputs: dict[str, Any] = {}
         self._seconds: dict[str, float] = {}
         self._warnings: dict[str, list[str]] = {}
+        self.failed_items: list[str] = []
         self.f = _h5py().File(path, "w", track_order=True)
         a = self.f.attrs
         a["format"] = FORMAT_NAME
@@ -437,6 +438,7 @@ class AuditWriter:
             g.attrs["warnings"] = to_json(self._warnings.get(label, []))
         self.f.attrs["warnings"] = to_json(list(warnings))
         self.f.attrs["failed_plates"] = to_json(dict(failed))
+        self.f.attrs["failed_items"] = to_json(list(self.failed_items))
         if derived_from:
             self.f.attrs["derived_from"] = to_json(dict(derived_from))
         results = self.f.create_group("results", track_order=True)

@@ -149,6 +149,9 @@ def _report_result(args: argparse.Namespace, result: Any) -> None:
         _say(args, f"... {len(result.warnings) - 5} more warnings (vzero inspect {result.audit_path})")
     for plate, err in result.failed.items():
         print(f"plate {plate} failed: {err}", file=sys.stderr)
+    if result.failed_items:
+        shown = ", ".join(result.failed_items[:10]) + (", ..." if len(result.failed_items) > 10 else "")
+        print(f"{len(result.failed_items)} well(s) without a result: {shown} (see rates.csv flags)", file=sys.stderr)
 
 
 def _cfg_check(p: argparse.ArgumentParser) -> None:

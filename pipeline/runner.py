@@ -84,6 +84,7 @@ class StepRecord:
     seconds: float
     warnings: list[str]
     outputs: dict[str, Any]
+    failed: list[str] = field(default_factory=list)
 
 
 @dataclass
@@ -111,6 +112,7 @@ class RunResult:
     warnings: list[str]
     failed: dict[str, str]
     audit_seconds: float = 0.0
+    failed_items: list[str] = field(default_factory=list)
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -122,8 +124,8 @@ class RunResult:
 
     @property
     def exit_code(self) -> int:
-        """0 when everything ran, 1 when the run finished but plates failed."""
-        return 1 if self.failed else 0
+        """0 when everything ran, 1 when the run finished but plates or wells failed."""
+        return 1 if self.failed or self.failed_items else 0
 
 
 def prepare(
@@ -247,11 +249,13 @@ def run(
             writer.add_record(record)
 
         final_tables = {k: v for k, v in pooled.items() if isinstance(v, Table)}
+        failed_items = [item for r in records for item in r.failed]
+        writer.failed_items = failed_items
         writer.finish(final_tables, warnings, failed, derived_from)
         _write_outputs(tmp, final_tables, files, failed)
         _swap_into_place(tmp, out_dir, force)
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
-                         audit_seconds=writer.seconds)
+                         audit_seconds=writer.seconds, failed_items=failed_items)
     except BaseException:
         if writer is not None:
             writer.close()
@@ -415,7 +419,9 @@ def _run_step(
     event.seconds, event.output = seconds, output
     plugins.hook.vzero_after_step(event=event)
     outputs = {**output.artifacts, **output.record}
-    return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs)
+    prefix = f"{plate.name} " if plate else ""
+    return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs,
+                              [prefix + str(item) for item in output.failed])
 
 
 def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[str, Any]:

@@ -63,12 +63,14 @@ class StageOutput:
 
     ``files`` maps a relative path inside the run folder to bytes; the runner writes them atomically with
     the rest of the run. ``record`` holds extra datasets for the step's group in the audit file (name ->
-    numpy array or :class:`pipeline.data.Table`).
+    numpy array or :class:`pipeline.data.Table`). ``failed`` names the items the step could not compute
+    (for example ``"C7: fit_failed"``): the run goes on, but finishes with exit code 1 and lists them.
     """
 
     artifacts: dict[str, Any] = field(default_factory=dict)
     files: dict[str, bytes] = field(default_factory=dict)
     record: dict[str, Any] = field(default_factory=dict)
+    failed: list[str] = field(default_factory=list)
 
 
 class Stage:

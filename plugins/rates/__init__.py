@@ -59,7 +59,24 @@ def finish_table(traces: Any, result: Any, method: str, data: StageInput) -> Sta
 
     table = rates_table(traces, result, method)
     table = apply_overrides(traces, table, data.recipe.get("overrides") or [])
-    return StageOutput(artifacts={"rates": table})
+    return StageOutput(artifacts={"rates": table}, failed=failed_wells(table.frame))
+
+
+#: Flags that mean the method could not compute a rate for a well that should have one. NO_SIGNAL is not
+#: among them: a well without change (no enzyme, no substrate) is a measurement, not a failure.
+FAILURE_FLAGS = ("fit_failed", "all_missing", "too_few_points")
+
+
+def failed_wells(frame: Any) -> list[str]:
+    """``"C7: fit_failed"`` for each sample well carrying a failure flag (the run's exit code becomes 1)."""
+    if "flags" not in frame or "role" not in frame:
+        return []
+    out = []
+    for well, role, flags in zip(frame["well"], frame["role"], frame["flags"].astype(str), strict=True):
+        bad = [f for f in flags.split(";") if f in FAILURE_FLAGS]
+        if role == "sample" and bad:
+            out.append(f"{well}: {', '.join(bad)}")
+    return out
 
 
 class KernelRates(Stage):

@@ -161,3 +161,16 @@ def test_recipe_exclusion_is_listed_in_the_fits_it_changes(plate_folder: Path, t
     notes_b = fits.loc[fits["group"] == "gB", "note"].astype(str)
     assert len(notes_b) and notes_b.str.contains("1 excluded by the recipe \\(p1 B3\\)").all()
     assert not fits.loc[fits["group"] == "gA", "note"].astype(str).str.contains("excluded by the recipe").any()
+
+
+def test_a_well_without_a_rate_finishes_with_exit_code_1(plate_folder: Path, tmp_path: Path, capsys):
+    path = plate_folder.parent / "plate.csv"
+    frame = pd.read_csv(path)
+    frame["A5"] = np.nan  # every read of a sample well missing: a flag and no rate, never a crash
+    frame.to_csv(path, index=False)
+    assert main(["run", str(plate_folder), "--out", str(tmp_path / "out")]) == 1
+    err = capsys.readouterr().err
+    assert "1 well(s) without a result: p1 A5: too_few_points, all_missing" in err
+    rates = pd.read_csv(tmp_path / "out" / "rates.csv").set_index("well")
+    assert np.isnan(rates.loc["A5", "rate"]) and "all_missing" in rates.loc["A5", "flags"]
+    assert rates["rate"].notna().sum() == 95
