@@ -93,7 +93,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 
 class Progress:
-    """Progress of a run on stderr: a bar redrawn in place on a terminal for batches, one line per plate
+    """Progress of a run on stderr: a bar redrawn in place on a terminal for batches and for the pooled
+    steps (fits, report) of any run, one line per plate
     with ``-v``, nothing with ``-q`` or when stderr is not a terminal (unless ``-v``). Colour only on a
     terminal and never when ``NO_COLOR`` is set (https://no-color.org)."""
 
@@ -116,7 +117,7 @@ class Progress:
                       file=self.stream)
             elif event.step:
                 print(f"  {event.step} on the pooled plates ({event.seconds:.1f} s)", file=self.stream)
-        elif self.bar and event.total > 1:
+        elif self.bar and (event.total > 1 or event.step):  # batches, and long pooled steps such as fits
             width = 30
             filled = width * event.done // event.total
             failed = f"  {self._red(f'{self.failed} failed')}" if self.failed else ""
@@ -139,7 +140,8 @@ class Progress:
 
 def _report_result(args: argparse.Namespace, result: Any) -> None:
     rates = result.rates
-    _say(args, f"wrote {result.out_dir}/ (run.h5, {', '.join(sorted(n + '.csv' for n in result.tables))})")
+    written = sorted(p.name + ("/" if p.is_dir() else "") for p in result.out_dir.iterdir())
+    _say(args, f"wrote {result.out_dir}/: {', '.join(written)}")
     if len(rates):
         flagged = int((rates.get("flags", "").astype(str) != "").sum()) if "flags" in rates else 0
         _say(args, f"{len(rates)} wells, {flagged} flagged")
