@@ -1,0 +1,69 @@
+"""Tables in the audit file (format 1.2): units in one group attribute, text as fixed-length UTF-8, and the
+stored hash equal to the formula written in docs/audit-format.md, recomputed here without vzero's code."""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+
+import h5py
+import numpy as np
+import pandas as pd
+import pytest
+
+from pipeline.audit import read_table, table_sha256, write_table
+from pipeline.data import Table
+
+
+def _documented_hash(columns: list[str], units: list[str], values: list[list[object]]) -> str:
+    """The table hash as docs/audit-format.md defines it, written out with hashlib and struct-free bytes."""
+    h = hashlib.sha256(json.dumps(columns, sort_keys=True, ensure_ascii=False).encode("utf-8"))
+    for unit, col in zip(units, values, strict=True):
+        if isinstance(col[0], str):
+            h.update(f"|{unit}|O|({len(col)},)|".encode())
+            for v in col:
+                b = str(v).encode("utf-8")
+                h.update(len(b).to_bytes(8, "little") + b)
+        else:
+            arr = np.asarray(col)
+            h.update(f"|{unit}|{arr.dtype.kind}|({len(col)},)|".encode())
+            h.update(arr.astype(arr.dtype.newbyteorder("<")).tobytes())
+    return h.hexdigest()
+
+
+def _write(table: Table) -> tuple[io.BytesIO, str]:
+    buf = io.BytesIO()
+    with h5py.File(buf, "w") as f:
+        g = write_table(f, "t", table)
+        return buf, str(g.attrs["sha256"])
+
+
+def test_hash_follows_the_documented_formula_with_multibyte_text():
+    words = ["A1", "Ångström µM", "", "β-NADH"]
+    table = Table(pd.DataFrame({"well": words, "rate": [1.0, np.nan, -2.5, 3e-9], "n": [1, 2, 3, 4]}),
+                  {"rate": "uM/min"})
+    buf, digest = _write(table)
+    assert digest == _documented_hash(["well", "rate", "n"], ["", "uM/min", ""],
+                                      [words, [1.0, np.nan, -2.5, 3e-9], [1, 2, 3, 4]])
+    with h5py.File(buf, "r") as f:
+        g = f["t"]
+        assert json.loads(g.attrs["units"]) == ["", "uM/min", ""]
+        assert g["000"].dtype.kind == "S" and list(g["000"].asstr()[()]) == words  # plain HDF5 UTF-8 text
+        assert not dict(g["001"].attrs)  # no per-column attributes in format 1.2
+        assert table_sha256(g) == digest
+        back = read_table(g)
+    assert list(back.frame["well"]) == words and back.units == {"rate": "uM/min"}
+
+
+def test_text_with_nul_is_refused_not_cut_short():
+    """HDF5 strings (fixed or variable length) cannot hold NUL; storing a shortened value would break the
+    hash check, so writing refuses it."""
+    with pytest.raises(ValueError, match="NUL"):
+        _write(Table(pd.DataFrame({"note": ["a\x00", "b"]})))
+
+
+def test_empty_text_column():
+    buf, digest = _write(Table(pd.DataFrame({"note": pd.Series([], dtype=object)})))
+    with h5py.File(buf, "r") as f:
+        assert len(read_table(f["t"]).frame) == 0 and table_sha256(f["t"]) == digest
