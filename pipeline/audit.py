@@ -98,8 +98,8 @@ def write_table(group: Any, name: str, table: Table | pd.DataFrame, links: Links
     g.attrs["units"] = to_json(units)
     g.attrs["n_rows"] = len(frame)
     digest = hashlib.sha256(to_json(columns).encode("utf-8"))
-    for i, unit in enumerate(units):
-        arr, kind, body = _column_values(frame.iloc[:, i])
+    for i, ((_, series), unit) in enumerate(zip(frame.items(), units, strict=True)):
+        arr, kind, body = _column_values(series)
         head = f"|{kind}|{arr.shape}|".encode()
         digest.update(f"|{unit}".encode() + head)
         digest.update(body)
@@ -123,9 +123,8 @@ def _column_values(series: pd.Series) -> tuple[np.ndarray, str, bytes]:
     elif pd.api.types.is_float_dtype(dtype):
         arr = series.to_numpy(dtype=np.float64)
     else:
-        values = series.to_numpy(dtype=object)
-        missing = pd.isna(values)
-        encoded = [b"" if m else str(v).encode("utf-8") for v, m in zip(values, missing, strict=True)]
+        encoded = [v.encode("utf-8") if type(v) is str else b"" if _missing_scalar(v) else str(v).encode("utf-8")
+                   for v in series.to_numpy(dtype=object)]
         stored, body = _text_array(encoded)
         return stored, "O", body
     return arr, arr.dtype.kind, arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes()
@@ -135,12 +134,12 @@ def _text_array(encoded: list[bytes]) -> tuple[np.ndarray, bytes]:
     """Text as a fixed-length UTF-8 string array (NUL-padded; much faster to write than variable-length
     strings) and its length-prefixed bytes for the hash. HDF5 strings cannot hold a NUL character (neither
     kind keeps it), so such a value is refused rather than stored cut short."""
-    if any(b"\x00" in b for b in encoded):
-        raise ValueError("a text value holds a NUL character, which HDF5 strings cannot store")
     lengths = np.fromiter(map(len, encoded), dtype="<u8", count=len(encoded))
     width = max(int(lengths.max(initial=0)), 1)
     fixed = np.array(encoded, dtype=f"S{width}")
     grid = fixed.view(np.uint8).reshape(len(encoded), width)
+    if np.count_nonzero(grid) != int(lengths.sum()):  # only the padding may be NUL
+        raise ValueError("a text value holds a NUL character, which HDF5 strings cannot store")
     return fixed.astype(_h5py().string_dtype("utf-8", width)), _length_prefixed_grid(lengths, grid)
 
 
@@ -221,8 +220,9 @@ def table_sha256(group: Any) -> str:
     return h.hexdigest()
 
 
-def _missing(v: Any) -> bool:
-    return v is None or (isinstance(v, float) and np.isnan(v)) or v is pd.NA
+def _missing_scalar(v: Any) -> bool:
+    """Whether one value of a text column is missing (None, NaN, pd.NA, NaT): stored as ``""``."""
+    return bool(pd.isna(v))
 
 
 def read_table(group: Any) -> Table:
