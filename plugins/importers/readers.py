@@ -22,6 +22,7 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import io
+import operator
 import re
 from collections import Counter
 from dataclasses import dataclass, field
@@ -508,6 +509,12 @@ def _title_above(grid: TextGrid, h: int, prev_end: int | None) -> str | None:
 
 def _cells(grid: TextGrid, h: int, end: int, source: str) -> tuple[list[str], np.ndarray]:
     """Header cells (trailing empties dropped) and the data rows as a 2-D text array of that width."""
+    header, body = _cell_rows(grid, h, end, source)
+    return header, np.array(body, dtype=str).reshape(len(body), len(header))
+
+
+def _cell_rows(grid: TextGrid, h: int, end: int, source: str) -> tuple[list[str], list[list[str]]]:
+    """Header cells (trailing empties dropped) and the data rows, each cut to that width."""
     header = list(grid.rows[h])
     while header and not header[-1].strip():
         header.pop()
@@ -533,7 +540,24 @@ def _cells(grid: TextGrid, h: int, end: int, source: str) -> tuple[list[str], np
         raise InputFileError(
             "header row without data rows below it", path=source, row=grid.lines[h], hint="Is the export cut?"
         )
-    return header, np.array(body, dtype=str).reshape(len(body), width)
+    return header, body
+
+
+def _plain_numbers(rows: list[list[str]], columns: list[int]) -> np.ndarray | None:
+    """The cells of ``columns`` as a float array [n_rows, n_columns] when every one is a finite number, else
+    None (then the careful path reads tokens and names the bad cell).
+
+    numpy turns each text into a float exactly as ``astype(float64)`` of a text array does (both use
+    Python's float parsing), about four times faster: a plate of plain numbers is the common case.
+    """
+    if not columns:
+        return None
+    pick = operator.itemgetter(*columns)
+    try:
+        values = np.array([pick(r) for r in rows], dtype=np.float64).reshape(len(rows), len(columns))
+    except (ValueError, TypeError):
+        return None
+    return None if np.isinf(values).any() else values
 
 
 def _numbers(
@@ -676,7 +700,7 @@ def _temperature(
 
 
 def _read_wide(grid: TextGrid, h: int, end: int, name: str, source: str, opts: ReadOptions) -> Block:
-    header, body = _cells(grid, h, end, source)
+    header, rows = _cell_rows(grid, h, end, source)
     lines = grid.lines[h + 1 : end]
     notes: list[str] = []
     time_j = next(j for j, c in enumerate(header) if c.strip() and _is_time_label(c, opts))
@@ -707,13 +731,25 @@ def _read_wide(grid: TextGrid, h: int, end: int, name: str, source: str, opts: R
             ignored.append(c.strip())
     if ignored:
         notes.append(f"block {name!r}: ignored columns {', '.join(map(repr, ignored))}")
-    time_s, tnotes = _times(body[:, time_j], header[time_j].strip(), grid.decimal, opts, source, lines)
+    plain = _plain_numbers(rows, well_j) if grid.decimal == "." else None
+    if plain is None:  # the careful path: every cell as text
+        keep = list(range(len(header)))
+        body = np.array(rows, dtype=str).reshape(len(rows), len(header))
+    else:  # reads already parsed: only the time and temperature columns are needed as text
+        keep = [time_j] if temp_j is None else [time_j, temp_j]
+        body = np.array([[r[j] for j in keep] for r in rows], dtype=str).reshape(len(rows), len(keep))
+    at = {j: k for k, j in enumerate(keep)}
+    time_s, tnotes = _times(body[:, at[time_j]], header[time_j].strip(), grid.decimal, opts, source, lines)
     _check_increasing(time_s, header[time_j].strip(), source, lines)
-    signal, over, bad = _numbers(body[:, well_j].T, grid.decimal, opts)
-    if bad is not None:
-        w, t = bad
-        raise _bad_cell("read", source, lines[t], header[well_j[w]].strip(), wells[w], str(body[t, well_j[w]]))
-    temperature = _temperature(body, header, temp_j, grid.decimal, opts, source, lines)
+    if plain is None:
+        signal, over, bad = _numbers(body[:, well_j].T, grid.decimal, opts)
+        if bad is not None:
+            w, t = bad
+            raise _bad_cell("read", source, lines[t], header[well_j[w]].strip(), wells[w], str(body[t, well_j[w]]))
+    else:
+        signal, over = np.ascontiguousarray(plain.T), np.zeros(plain.T.shape, dtype=bool)
+    temperature = _temperature(body, [header[j] for j in keep], None if temp_j is None else at[temp_j],
+                               grid.decimal, opts, source, lines)
     saturated = over if opts.ceiling is None else over | (signal >= opts.ceiling)
     return Block(name, time_s, wells, signal, saturated, temperature, notes + tnotes)
 
