@@ -28,6 +28,10 @@ from plugins.report.content import flag_list, model_title, num, pretty_unit
 MAX_PANELS = 384
 """Most wells drawn in one progress-curve figure; larger plates get a subsample (flagged wells first)."""
 
+DENSE_POINTS = 20_000
+"""Reads per progress-curve figure above which the grey read lines go into the SVG as a bitmap (a vector path
+per read makes a big, slow SVG and shows nothing more)."""
+
 FLAG_SHORT = {
     "saturated": "sat", "high_conversion": "conv", "curvature": "curv", "lag": "lag", "decay": "decay",
     "noisy": "noisy", "too_few_points": "few", "all_missing": "empty", "no_signal": "no sig",
@@ -42,26 +46,122 @@ def slug(text: str) -> str:
 
 
 def render(fig: Any, dpi: int = 130) -> tuple[bytes, bytes]:
-    """PNG and SVG bytes of ``fig``; the figure is closed afterwards."""
-    import matplotlib.pyplot as plt
+    """PNG (at ``dpi``) and SVG bytes of ``fig``, drawn with the report style in force (so the SVG keeps its
+    text as text). Artists marked rasterized go into the SVG as a bitmap at ``dpi``; everything else stays
+    vector. The layout is fixed when the figure is made, so each format costs one draw and nothing more."""
+    import matplotlib
 
     png, svg = io.BytesIO(), io.BytesIO()
-    try:
+    with matplotlib.rc_context(palette.STYLE):
         fig.savefig(png, format="png", dpi=dpi, metadata={"Software": None})
-        fig.set_layout_engine("none")  # keep the layout just computed: the SVG needs no second pass
-        fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
-    finally:
-        plt.close(fig)
+        fig.savefig(svg, format="svg", dpi=dpi, metadata={"Date": None, "Creator": None})
     return png.getvalue(), svg.getvalue()
 
 
-def _plt() -> Any:
-    import matplotlib
+def _new_figure(width: float, height: float) -> Any:
+    """An empty Agg figure of ``width`` × ``height`` inches, outside pyplot's global figure list (nothing to
+    close, nothing kept alive between reports)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
+    fig = Figure(figsize=(width, height))
+    FigureCanvasAgg(fig)
+    return fig
 
-    return plt
+
+# -- layout ------------------------------------------------------------------------------------------------
+# Margins are measured once from font metrics of the texts that sit outside the axes (tick labels, axis
+# labels, titles) and the axes are placed by hand. matplotlib's constrained layout gets the same result by
+# laying out every tick label two or three times per save, which made up about a third of the report's build
+# time. All sizes below are in inches unless a name says points.
+
+PT = 1 / 72
+"""Inches per typographic point."""
+
+EDGE = 0.08
+"""Blank border around every figure."""
+
+TICK = (3.5 + 3.5) * PT
+"""Tick length plus the gap between tick and label (matplotlib's defaults, kept by the report style)."""
+
+LABEL_PAD = 4 * PT
+"""Gap between tick labels and the axis label (matplotlib's default)."""
+
+TITLE_PAD = 6 * PT
+"""Gap between an axes and its title (matplotlib's default)."""
+
+PLATE_TICK_PAD = 3.5 * PT
+"""Gap between a plate's edge and its row letters or column numbers (no tick marks on plate axes)."""
+
+LEADING = 1.2
+"""Line height as a multiple of the font size."""
+
+
+def _lines(n: int, size: float) -> float:
+    """Height of ``n`` lines of text at ``size`` points."""
+    return n * size * LEADING * PT
+
+
+def _text_width(text: str, size: float) -> float:
+    """Width of the widest line of ``text`` at ``size`` points, from the font's metrics (nothing is drawn).
+
+    The 8 % extra covers the rounding of glyph advances in the Agg renderer at screen resolutions.
+    """
+    from matplotlib.font_manager import FontProperties
+    from matplotlib.textpath import text_to_path
+
+    font = FontProperties(size=size)
+    widths = [text_to_path.get_text_width_height_descent(line, font, ismath=False)[0]
+              for line in str(text).split("\n") if line]
+    return max(widths, default=0.0) * PT * 1.08
+
+
+def _tick_labels(axis: Any) -> tuple[list[str], str]:
+    """The major tick labels ``axis`` will draw inside its view limits, and its offset text ('' if none)."""
+    lo, hi = sorted(axis.get_view_interval())
+    slack = 1e-9 * (hi - lo)
+    locs = [v for v in axis.get_major_locator()() if lo - slack <= v <= hi + slack]
+    fmt = axis.get_major_formatter()
+    labels = [s.replace("$", "") for s in fmt.format_ticks(locs)]
+    offset = fmt.get_offset() if hasattr(fmt, "get_offset") else ""
+    return labels, offset
+
+
+def _ytick_room(ax: Any, size: float = 9.0, tick: float = TICK) -> tuple[float, bool]:
+    """Width the y tick labels of ``ax`` take left of it (labels, gap and tick), and whether the axis shows an
+    offset text (a '1e−6' above the axis, which then needs a line of room)."""
+    labels, offset = _tick_labels(ax.yaxis)
+    return max((_text_width(s, size) for s in labels), default=0.0) + tick, bool(offset)
+
+
+def _xtick_overhang(ax: Any, size: float = 9.0) -> float:
+    """How far the last x tick label can reach past the right edge of ``ax`` (half its width)."""
+    labels, _ = _tick_labels(ax.xaxis)
+    return _text_width(labels[-1], size) / 2 if labels else 0.0
+
+
+def _place_grid(fig: Any, axes: Sequence[Sequence[Any]], *, left: float, right: float, top: float,
+                bottom: float, wgap: float = 0.0, hgap: float = 0.0,
+                heights: Sequence[float] | None = None) -> None:
+    """Put ``axes`` (rows of columns) on a regular grid with the given margins and gaps, in inches."""
+    w, h = fig.get_size_inches()
+    n_rows, n_cols = len(axes), len(axes[0])
+    ratios = np.asarray(heights if heights is not None else [1.0] * n_rows, float)
+    aw = max(w - left - right - wgap * (n_cols - 1), 0.5) / n_cols
+    ah_all = max(h - top - bottom - hgap * (n_rows - 1), 0.5) * ratios / ratios.sum()
+    y = h - top
+    for r, row in enumerate(axes):
+        y -= ah_all[r]
+        for c, ax in enumerate(row):
+            x = left + c * (aw + wgap)
+            ax.set_position((x / w, y / h, aw / w, ah_all[r] / h))
+        y -= hgap
+
+
+def _title(ax: Any, text: str, size: float, pad_pt: float = 6.0) -> None:
+    """A left-aligned title ``pad_pt`` points above ``ax``, at a fixed place (matplotlib then skips measuring
+    the tick labels of every axes to move it)."""
+    ax.set_title(text, loc="left", fontsize=size, y=1.0, pad=pad_pt)
 
 
 def _plate_geometry(wells: Sequence[str]) -> tuple[int, int, np.ndarray, np.ndarray, list[str]]:
@@ -95,7 +195,7 @@ def _plate_axes(ax: Any, n_rows: int, n_cols: int, labels: list[str]) -> None:
 def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_unit: str) -> Any:
     """v0 per well in plate geometry: a pale-to-dark ramp, hatched grey for no rate, a heavy ring around
     flagged wells and a cross on sample wells kept out of the fit."""
-    plt = _plt()
+    import matplotlib
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
@@ -106,10 +206,11 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
     is_sample = (rates["role"].astype(str) == "sample").to_numpy() if "role" in rates else np.ones(len(v), bool)
     left_out = (~used & is_sample) if used is not None else np.zeros(len(v), bool)
 
-    with plt.rc_context(palette.STYLE):
-        width = 1.0 + 0.5 * n_cols if n_cols <= 24 else 0.28 * n_cols
-        width = min(width, 14)
-        fig, ax = plt.subplots(figsize=(width, width * n_rows / n_cols * 0.9 + 0.9), layout="constrained")
+    with matplotlib.rc_context(palette.STYLE):
+        cell = 0.5 if n_cols <= 24 else 0.25  # inches per well
+        fig = _new_figure(cell * n_cols + 2.0, cell * n_rows + 1.0)  # resized below, once margins are known
+        ax = fig.add_axes((0.1, 0.1, 0.6, 0.8))
+        cax = fig.add_axes((0.8, 0.2, 0.03, 0.6))
         size = {12: 420, 24: 110, 48: 26}.get(n_cols, 60)
         ok = np.isfinite(v)
         finite = v[ok]
@@ -126,7 +227,7 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
                    linewidths=1.3 if n_cols <= 24 else 0.6, zorder=4)
         _plate_axes(ax, n_rows, n_cols, labels)
         extend = "both" if finite.size and (finite.min() < lo or finite.max() > hi) else "neither"
-        bar = fig.colorbar(sc, ax=ax, shrink=0.75, pad=0.02, extend=extend)
+        bar = fig.colorbar(sc, cax=cax, extend=extend)
         bar.set_label(f"v0 ({rate_unit})")
         handles = [
             Patch(facecolor=palette.NO_VALUE, edgecolor=palette.MUTED, hatch="/////", label="no rate"),
@@ -134,7 +235,23 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
             Line2D([], [], marker="x", ls="", color=palette.INK, mew=1.3, ms=7, label="sample not fitted"),
         ]
         ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.01), ncol=3, fontsize=8)
-        ax.set_title(f"Initial rates, plate {plate}", loc="left")
+        col_labels = _lines(1, 9) + PLATE_TICK_PAD
+        _title(ax, f"Initial rates, plate {plate}", 10, (col_labels + TITLE_PAD) / PT)
+
+        # margins from the labels: row letters left, column numbers and title above, colour bar and its
+        # labels right, legend below; the plate itself is exactly cell × cell per well
+        left = EDGE + max(_text_width(s, 9) for s in labels) + PLATE_TICK_PAD
+        top = EDGE + _lines(1, 10) + TITLE_PAD + col_labels
+        bottom = EDGE + 0.34
+        bar_room, bar_offset = _ytick_room(cax)
+        gap, bar_w = 0.2, 0.16
+        right = EDGE + gap + bar_w + bar_room + LABEL_PAD + _lines(1, 9)
+        pw, ph = cell * n_cols, cell * n_rows
+        w, h = left + pw + right, bottom + ph + top + (_lines(1, 9) if bar_offset else 0.0)
+        fig.set_size_inches(w, h)
+        ax.set_position((left / w, bottom / h, pw / w, ph / h))
+        bh = 0.75 * ph
+        cax.set_position(((left + pw + gap) / w, (bottom + (ph - bh) / 2) / h, bar_w / w, bh / h))
     return fig
 
 
@@ -195,7 +312,7 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
     All cells share one time axis and one signal axis (stated in the figure), so curves can be compared at
     a glance. Returns the figure and a note ('' or what was left out).
     """
-    plt = _plt()
+    import matplotlib
     from matplotlib.collections import LineCollection, PolyCollection
 
     names = traces.well_names
@@ -242,10 +359,11 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
 
     xs = xpos(np.broadcast_to(t, (pick.size, t.size)), cc)
     ys = ypos(y[pick], rr)
-    with plt.rc_context(palette.STYLE):
+    dense = pick.size * t.size > DENSE_POINTS
+    with matplotlib.rc_context(palette.STYLE):
         cell = 0.62 if n_cols <= 12 else (0.34 if n_cols <= 24 else 0.2)
-        fig, ax = plt.subplots(figsize=(min(cell * n_cols + 1.2, 16), min(cell * n_rows + 1.4, 16)),
-                               layout="constrained")
+        fig = _new_figure(min(cell * n_cols + 1.2, 16), min(cell * n_rows + 1.4, 16))
+        ax = fig.add_axes((0.1, 0.1, 0.8, 0.8))
         ax.set_facecolor("white")
         g = 0.47  # half the side of a cell frame
         boxes = [[(c - g, r - g), (c + g, r - g), (c + g, r + g), (c - g, r + g)] for r, c in zip(rr, cc, strict=True)]
@@ -255,9 +373,10 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
                                          linewidths=np.where(flagged[pick], 0.9, 0.4),
                                          linestyles=["--" if f else "-" for f in flagged[pick]], zorder=1))
         ax.add_collection(LineCollection(list(np.stack([xs, ys], axis=-1)), colors=palette.MUTED,
-                                         linewidths=0.6 if n_cols <= 12 else 0.4, zorder=2))
-        if n_cols <= 12:
-            ax.scatter(xs.ravel(), ys.ravel(), s=1.0, color=palette.MUTED, linewidths=0, zorder=3)
+                                         linewidths=0.6 if n_cols <= 12 else 0.4, zorder=2, rasterized=dense))
+        if n_cols <= 12:  # a dot per read: thousands of marks, a bitmap in the SVG
+            ax.scatter(xs.ravel(), ys.ravel(), s=1.0, color=palette.MUTED, linewidths=0, zorder=3,
+                       rasterized=True)
         drawn_lines = 0
         if lines is not None and rates is not None:
             ts = pd.to_numeric(rates["window_start_s"], errors="coerce").to_numpy(float)[pick]
@@ -290,7 +409,13 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
         ax.set_ylabel(f"within each cell: signal {lo:.3g} to {hi:.3g} {unit} bottom to top", fontsize=8)
         legend = "grey: reads" + ("; orange line: the rate (its slope) over the window it came from"
                                   if drawn_lines else "") + "; dashed frame: flagged well"
-        ax.set_title(f"Progress curves, plate {traces.plate}\n{legend}", loc="left", fontsize=9)
+        col_labels = _lines(1, 9) + PLATE_TICK_PAD if geometric else 0.0
+        _title(ax, f"Progress curves, plate {traces.plate}\n{legend}", 9, (col_labels + TITLE_PAD) / PT)
+        row_labels = max((_text_width(s, 9) for s in labels), default=0.0) + PLATE_TICK_PAD if geometric else 0.0
+        left = EDGE + _lines(1, 8) + LABEL_PAD + row_labels
+        top = EDGE + _lines(2, 9) + TITLE_PAD + col_labels
+        bottom = EDGE + _lines(1, 8) + LABEL_PAD
+        _place_grid(fig, [[ax]], left=left, right=EDGE + 0.12, top=top, bottom=bottom)
     return fig, note
 
 
@@ -303,14 +428,16 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
     """Rates of one group against ``x_col`` with each model's curve and confidence band (top) and residuals
     of the fitted points (bottom). ``evaluate`` maps model -> callable(x array) -> fitted rate, for exact
     residuals; without it residuals are interpolated on the curve grid."""
-    plt = _plt()
+    import matplotlib
+
     x = pd.to_numeric(points[x_col], errors="coerce").to_numpy(float)
     v = pd.to_numeric(points["rate"], errors="coerce").to_numpy(float)
     se = pd.to_numeric(points.get("rate_stderr", pd.Series(np.nan, index=points.index)),
                        errors="coerce").to_numpy(float)
-    with plt.rc_context(palette.STYLE):
-        fig, (ax, axr) = plt.subplots(2, 1, figsize=(6.4, 5.6), sharex=True, height_ratios=(3, 1.3),
-                                      layout="constrained")
+    with matplotlib.rc_context(palette.STYLE):
+        fig = _new_figure(6.4, 5.6)
+        ax, axr = fig.subplots(2, 1, sharex=True)
+        heights = (3.0, 1.3)
         ax.errorbar(x[used], v[used], yerr=np.where(np.isfinite(se[used]), se[used], 0), fmt="o", ms=4.5,
                     color=palette.INK, ecolor=palette.MUTED, elinewidth=0.7, capsize=0, zorder=4,
                     label="wells fitted (± standard error of v0)")
@@ -345,10 +472,21 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
         ax.set_xlim(left=min(0.0, float(np.nanmin(x))) if np.isfinite(x).any() else 0.0)
         ax.set_ylim(bottom=min(0.0, float(np.nanmin(v))) if np.isfinite(v).any() else 0.0)
         band = "shaded: confidence band of the fitted curve" if models else ""
-        ax.set_title(f"{group}: v0 against {x_col}" + (f"\n{band}" if band else ""), loc="left")
         ax.legend(fontsize=8, loc="best")
         if models:
             axr.legend(fontsize=7, ncol=len(models), loc="best")
+        # first a typical placement (tick choice depends on the axes' size), then margins from the labels
+        _place_grid(fig, [[ax], [axr]], left=0.75, right=0.2, top=0.6, bottom=0.55, hgap=0.15, heights=heights)
+        room, offset = _ytick_room(ax)
+        room_r, offset_r = _ytick_room(axr)
+        title_pad = TITLE_PAD + (_lines(1, 9) if offset else 0.0)
+        _title(ax, f"{group}: v0 against {x_col}" + (f"\n{band}" if band else ""), 10, title_pad / PT)
+        _place_grid(fig, [[ax], [axr]],
+                    left=EDGE + LABEL_PAD + max(room + _lines(1, 9), room_r + _lines(2, 9)),
+                    right=EDGE + max(0.1, _xtick_overhang(axr)),
+                    top=EDGE + _lines(2 if band else 1, 10) + title_pad,
+                    bottom=EDGE + _lines(2, 9) + LABEL_PAD + TICK,
+                    hgap=0.15 + (_lines(1, 9) if offset_r else 0.0), heights=heights)
     return fig
 
 
@@ -376,14 +514,17 @@ TRANSFORM_TITLES = {
 def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str = "") -> Any:
     """The linear transforms of one group: points (hollow where the transform is unstable) and each
     transform's own straight line, with the estimates that line implies in the panel title."""
-    plt = _plt()
+    import matplotlib
+
     plots = [p for p in TRANSFORM_TITLES if p in set(diag["plot"].astype(str))]
     plots += [p for p in dict.fromkeys(diag["plot"].astype(str)) if p not in plots]
     n = len(plots)
     cols = 2 if n > 1 else 1
     rows = int(np.ceil(n / cols))
-    with plt.rc_context(palette.STYLE):
-        fig, axes = plt.subplots(rows, cols, figsize=(4.0 * cols, 3.3 * rows), layout="constrained", squeeze=False)
+    titles: list[str] = []
+    with matplotlib.rc_context(palette.STYLE):
+        fig = _new_figure(4.0 * cols, 3.3 * rows)
+        axes = fig.subplots(rows, cols, squeeze=False)
         for ax in axes.ravel()[n:]:
             ax.set_visible(False)
         for ax, plot in zip(axes.ravel(), plots, strict=False):
@@ -406,12 +547,39 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
             unit_of = {"Vmax": rate_unit, "Km": x_unit, "K0.5": x_unit}
             words = ", ".join(f"{k} = {num(v, 3)} {unit_of.get(k, '')}".rstrip() for k, v in est.items()
                               if k not in ("slope", "intercept"))
-            ax.set_title(f"{TRANSFORM_TITLES.get(plot, plot)}" + (f"\nline gives {words}" if words else ""),
-                         loc="left", fontsize=9)
+            titles.append(f"{TRANSFORM_TITLES.get(plot, plot)}" + (f"\nline gives {words}" if words else ""))
             if len(pts):
                 ax.set_xlabel(pretty_unit(str(pts["x_label"].iloc[0])))
                 ax.set_ylabel(pretty_unit(str(pts["y_label"].iloc[0])))
         axes.ravel()[0].legend(fontsize=7, loc="best")
+        w, h = fig.get_size_inches()
         fig.suptitle(f"{group}: linear transforms, for inspection only (parameters come from the nonlinear fit)",
-                     x=0.01, ha="left", fontsize=10)
+                     x=EDGE / w, y=1 - EDGE / h, ha="left", va="top", fontsize=10)
+        _arrange_panels(fig, axes, titles)
     return fig
+
+
+def _arrange_panels(fig: Any, axes: np.ndarray, titles: list[str]) -> None:
+    """Titles and placement of a grid of panels (the first ``len(titles)`` of ``axes``, row by row) under a
+    one-line figure title: each column as far right as its widest y tick labels need, each row as low as the
+    titles and x labels of the row above need."""
+    rows, cols = axes.shape
+    shown = list(axes.ravel()[: len(titles)])
+    title_lines = [t.count("\n") + 1 for t in titles] + [0] * (rows * cols - len(titles))
+    x_decor = _lines(2, 9) + LABEL_PAD + TICK  # x tick labels and x label below each panel
+    _place_grid(fig, axes.tolist(), left=0.8, right=0.3, top=0.9, bottom=0.6, wgap=1.0, hgap=1.1)
+    rooms = [_ytick_room(ax) for ax in shown]
+    pads = [TITLE_PAD + (_lines(1, 9) if offset else 0.0) for _, offset in rooms]
+    for ax, title, pad in zip(shown, titles, pads, strict=True):
+        _title(ax, title, 9, pad / PT)
+    col_room = [max([rooms[k][0] for k in range(c, len(shown), cols)], default=0.0) + _lines(1, 9) + LABEL_PAD
+                for c in range(cols)]
+    overhang = [max([_xtick_overhang(shown[k]) for k in range(c, len(shown), cols)], default=0.0)
+                for c in range(cols)]
+    row_head = [max(_lines(title_lines[r * cols + c], 9) + (pads[r * cols + c] if r * cols + c < len(pads)
+                                                             else TITLE_PAD) for c in range(cols))
+                for r in range(rows)]
+    _place_grid(fig, axes.tolist(), left=EDGE + col_room[0], right=EDGE + max(0.1, overhang[-1]),
+                top=EDGE + _lines(1, 10) + 4 * PT + row_head[0], bottom=EDGE + x_decor,
+                wgap=max(0.15, overhang[0] + 0.1) + (col_room[1] if cols > 1 else 0.0),
+                hgap=x_decor + 0.12 + max(row_head[1:], default=0.0))
