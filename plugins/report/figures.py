@@ -8,7 +8,9 @@
   confidence band and the residuals.
 * :func:`transforms`: per group, the Hill plot and the three classical linear transforms, for inspection.
 
-matplotlib is imported inside the functions, so importing this module stays cheap.
+matplotlib is imported inside the functions, so importing this module stays cheap. Figures are made without
+pyplot (no global figure list) and placed by hand from font metrics (see "layout" below), so each format costs
+one draw.
 """
 
 from __future__ import annotations
