@@ -9,6 +9,7 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import os
+import re
 import shutil
 import tempfile
 import time
@@ -517,6 +518,7 @@ def csv_text(frame: pd.DataFrame) -> str | None:
     if frame.columns.nlevels != 1 or frame.shape[1] == 0:
         return None
     columns: list[list[str]] = []
+    texts: list[list[str]] = []  # the columns that may need quoting
     for _, series in frame.items():
         dtype = series.dtype
         if dtype == "float64":
@@ -528,14 +530,23 @@ def csv_text(frame: pd.DataFrame) -> str | None:
             text = list(map(str, series.to_numpy().tolist()))
         elif (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
             text = [v if type(v) is str else "" if _is_missing(v) else str(v) for v in series.to_numpy(dtype=object)]
+            texts.append(text)
         else:
             return None
         columns.append(text)
+    header = [str(c) for c in frame.columns]
+    if len(columns) > 1 and not any(_NEEDS_QUOTES.search("".join(col)) for col in [header, *texts]):
+        # nothing to quote: plain joins (twice as fast as the csv module)
+        return "".join(line + os.linesep for line in map(",".join, [header, *zip(*columns, strict=True)]))
     out = io.StringIO()
     writer = csv.writer(out, lineterminator=os.linesep)
-    writer.writerow([str(c) for c in frame.columns])
+    writer.writerow(header)
     writer.writerows(zip(*columns, strict=True))
     return out.getvalue()
+
+
+_NEEDS_QUOTES = re.compile('[,"\r\n]')
+"""Characters that make the csv module quote a field (delimiter, quote character, line breaks)."""
 
 
 def _is_missing(value: Any) -> bool:

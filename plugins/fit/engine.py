@@ -477,55 +477,59 @@ def profile_batch(
         with np.errstate(all="ignore"):
             return np.sum(r**2, axis=1) - target[rows], vals
 
-    limits = np.full((sel.size, 2), nan)
+    # both sides of every group searched at once: search q is group grp[q], lower side for q < n, upper after
+    n = sel.size
+    grp = np.concatenate([np.arange(n), np.arange(n)])
+    sign = np.repeat([-1.0, 1.0], n)
+    bound = np.repeat([lo[j], hi[j]], n)
+    a, fa = best[grp, j].copy(), -np.ones(2 * n)
+    b, fb = np.full(2 * n, nan), np.full(2 * n, nan)
+    start = best[grp].copy()
+    step = step0[grp].copy()
+    searching = np.ones(2 * n, bool)
+    for _ in range(max_expand):  # widen until the threshold is crossed (bracket [a, b])
+        rows = np.flatnonzero(searching)
+        if rows.size == 0:
+            break
+        t = best[grp[rows], j] + sign[rows] * step[rows]
+        at_bound = np.where(sign[rows] < 0, t <= bound[rows], t >= bound[rows])
+        t = np.where(at_bound, bound[rows], t)
+        f, vals = excess(t, start[rows], grp[rows])
+        hit = ~(f < 0)  # crossed, or not finite (treated as beyond the threshold)
+        b[rows[hit]], fb[rows[hit]] = t[hit], f[hit]
+        a[rows[~hit]], fa[rows[~hit]], start[rows[~hit]] = t[~hit], f[~hit], vals[~hit]
+        searching[rows[hit | at_bound]] = False
+        step[rows] *= 2
+    active = np.isfinite(b)
+    last = np.zeros(2 * n, int)
+    c = b.copy()
+    for _ in range(max_root):  # Illinois iteration inside the bracket
+        rows = np.flatnonzero(active)
+        if rows.size == 0:
+            break
+        ar, br, far, fbr = a[rows], b[rows], fa[rows], fb[rows]
+        with np.errstate(all="ignore"):
+            cc = np.where(np.isfinite(fbr), br - fbr * (br - ar) / (fbr - far), 0.5 * (ar + br))
+        cc = np.where((cc - ar) * (cc - br) < 0, cc, 0.5 * (ar + br))
+        f, vals = excess(cc, start[rows], grp[rows])
+        c[rows] = cc
+        inside = f < 0
+        ri, ro = rows[inside], rows[~inside]
+        a[ri], fa[ri], start[ri] = cc[inside], f[inside], vals[inside]
+        b[ro], fb[ro] = cc[~inside], f[~inside]
+        fb[ri[last[ri] == -1]] *= 0.5  # same side twice: halve the stale end (Illinois)
+        fa[ro[last[ro] == 1]] *= 0.5
+        last[rows] = np.where(inside, -1, 1)
+        tiny = np.abs(b[rows] - a[rows]) <= 1e-12 * np.maximum(np.abs(best[grp[rows], j]), 1e-300)
+        active[rows[(np.abs(f) <= 1e-9 * target[grp[rows]]) | tiny]] = False
+    limits = c.reshape(2, n).T
     notes: list[list[str]] = [[] for _ in sel]
-    for col, (sign, bound) in enumerate(((-1, lo[j]), (1, hi[j]))):
-        side = "lower" if sign < 0 else "upper"
-        a, fa = best[:, j].copy(), -np.ones(sel.size)
-        b, fb = np.full(sel.size, nan), np.full(sel.size, nan)
-        start = best.copy()
-        step = step0.copy()
-        searching = np.ones(sel.size, bool)
-        for _ in range(max_expand):  # widen until the threshold is crossed (bracket [a, b])
-            rows = np.flatnonzero(searching)
-            if rows.size == 0:
-                break
-            t = best[rows, j] + sign * step[rows]
-            at_bound = t <= bound if sign < 0 else t >= bound
-            t = np.where(at_bound, bound, t)
-            f, vals = excess(t, start[rows], rows)
-            hit = ~(f < 0)  # crossed, or not finite (treated as beyond the threshold)
-            b[rows[hit]], fb[rows[hit]] = t[hit], f[hit]
-            a[rows[~hit]], fa[rows[~hit]], start[rows[~hit]] = t[~hit], f[~hit], vals[~hit]
-            searching[rows[hit | at_bound]] = False
-            step[rows] *= 2
-        active = np.isfinite(b)
-        last = np.zeros(sel.size, int)
-        c = b.copy()
-        for _ in range(max_root):  # Illinois iteration inside the bracket
-            rows = np.flatnonzero(active)
-            if rows.size == 0:
-                break
-            ar, br, far, fbr = a[rows], b[rows], fa[rows], fb[rows]
-            with np.errstate(all="ignore"):
-                cc = np.where(np.isfinite(fbr), br - fbr * (br - ar) / (fbr - far), 0.5 * (ar + br))
-            cc = np.where((cc - ar) * (cc - br) < 0, cc, 0.5 * (ar + br))
-            f, vals = excess(cc, start[rows], rows)
-            c[rows] = cc
-            inside = f < 0
-            ri, ro = rows[inside], rows[~inside]
-            a[ri], fa[ri], start[ri] = cc[inside], f[inside], vals[inside]
-            b[ro], fb[ro] = cc[~inside], f[~inside]
-            fb[ri[last[ri] == -1]] *= 0.5  # same side twice: halve the stale end (Illinois)
-            fa[ro[last[ro] == 1]] *= 0.5
-            last[rows] = np.where(inside, -1, 1)
-            tiny = np.abs(b[rows] - a[rows]) <= 1e-12 * np.maximum(np.abs(best[rows, j]), 1e-300)
-            active[rows[(np.abs(f) <= 1e-9 * target[rows]) | tiny]] = False
-        limits[:, col] = c
-        for k in np.flatnonzero(~np.isfinite(b) & np.isnan(c)):
-            notes[k].append(f"{side} limit not reached (open interval)")
-        for k in np.flatnonzero(active):
-            notes[k].append(f"{side} limit approximate: search stopped after {max_root} evaluations")
+    for q in range(2 * n):  # per group: the lower side's notes, then the upper side's
+        side = "lower" if q < n else "upper"
+        if not np.isfinite(b[q]) and np.isnan(c[q]):
+            notes[grp[q]].append(f"{side} limit not reached (open interval)")
+        if active[q]:
+            notes[grp[q]].append(f"{side} limit approximate: search stopped after {max_root} evaluations")
     for k, gi in enumerate(sel):
         out[gi] = (float(limits[k, 0]), float(limits[k, 1]), "; ".join(notes[k]))
     return out
