@@ -123,21 +123,31 @@ def _column_values(series: pd.Series) -> tuple[np.ndarray, str, bytes]:
     elif pd.api.types.is_float_dtype(dtype):
         arr = series.to_numpy(dtype=np.float64)
     else:
-        encoded = [v.encode("utf-8") if type(v) is str else b"" if _missing_scalar(v) else str(v).encode("utf-8")
-                   for v in series.to_numpy(dtype=object)]
-        stored, body = _text_array(encoded)
+        stored, body = _text_array(*text_codes(series.to_numpy(dtype=object)))
         return stored, "O", body
     return arr, arr.dtype.kind, arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes()
 
 
-def _text_array(encoded: list[bytes]) -> tuple[np.ndarray, bytes]:
-    """Text as a fixed-length UTF-8 string array (NUL-padded; much faster to write than variable-length
-    strings) and its length-prefixed bytes for the hash. HDF5 strings cannot hold a NUL character (neither
-    kind keeps it), so such a value is refused rather than stored cut short."""
-    lengths = np.fromiter(map(len, encoded), dtype="<u8", count=len(encoded))
+def text_codes(values: np.ndarray) -> tuple[list[str], np.ndarray]:
+    """The text of each value (``""`` when missing, else ``str(value)``) as (distinct texts, each value's
+    index into them). Text columns repeat a few values (group, plate, flags, labels) over many rows, so
+    converting each distinct value once, with pandas' hashing in C, is much faster than once per row."""
+    if pd.api.types.infer_dtype(values, skipna=True) in ("string", "empty"):
+        codes, uniques = pd.factorize(values, use_na_sentinel=True)
+        return [str(u) for u in uniques] + [""], codes  # code -1 (missing) picks the last text, ""
+    texts = [v if isinstance(v, str) else "" if _missing_scalar(v) else str(v) for v in values]
+    return texts, np.arange(len(texts))
+
+
+def _text_array(texts: list[str], codes: np.ndarray) -> tuple[np.ndarray, bytes]:
+    """Text (``texts[codes]``) as a fixed-length UTF-8 string array (NUL-padded; much faster to write than
+    variable-length strings) and its length-prefixed bytes for the hash. HDF5 strings cannot hold a NUL
+    character (neither kind keeps it), so such a value is refused rather than stored cut short."""
+    encoded = [t.encode("utf-8") for t in texts]
+    lengths = np.fromiter(map(len, encoded), dtype="<u8", count=len(encoded))[codes]
     width = max(int(lengths.max(initial=0)), 1)
-    fixed = np.array(encoded, dtype=f"S{width}")
-    grid = fixed.view(np.uint8).reshape(len(encoded), width)
+    fixed = np.array(encoded, dtype=f"S{width}")[codes]
+    grid = fixed.view(np.uint8).reshape(len(codes), width)
     if np.count_nonzero(grid) != int(lengths.sum()):  # only the padding may be NUL
         raise ValueError("a text value holds a NUL character, which HDF5 strings cannot store")
     return fixed.astype(_h5py().string_dtype("utf-8", width)), _length_prefixed_grid(lengths, grid)
@@ -333,19 +343,25 @@ def _package_versions() -> tuple[tuple[str, str], ...]:
 
 def write_part(records: list[Any]) -> bytes:
     """One plate's step outputs as an in-memory HDF5 file (``/<step label>/<output>``), written where the
-    plate ran (a worker), for :meth:`AuditWriter.add_part` in the process that writes the audit file."""
-    import io
+    plate ran (a worker), for :meth:`AuditWriter.add_part` in the process that writes the audit file.
 
-    buffer = io.BytesIO()
+    HDF5's in-memory ("core") driver keeps the file in C memory; the image is taken once at the end (a
+    Python file object as backing store would cost a Python call per block read or written)."""
+    import uuid
+
     links = Links()
-    with _h5py().File(buffer, "w", track_order=True) as f:
+    f = _h5py().File(f"part-{uuid.uuid4().hex}.h5", "w", driver="core", backing_store=False, track_order=True)
+    try:
         for record in records:
             g = f.create_group(record.spec.label, track_order=True)
             g.attrs["started"] = record.started
             g.attrs["seconds"] = record.seconds
             for name, value in record.outputs.items():
                 write_artifact(g, name, value, links)
-    return buffer.getvalue()
+        f.flush()
+        return bytes(f.id.get_file_image())
+    finally:
+        f.close()
 
 
 class AuditWriter:
@@ -456,19 +472,24 @@ class AuditWriter:
 
     def add_part(self, records: list[Any], part: bytes) -> dict[str, Any]:
         """Add one plate's step records whose outputs a worker already wrote (:func:`write_part`): HDF5's own
-        object copy moves each step's group in whole, so the driver does not re-encode any array. Returns
-        label -> the plate's group under that step."""
-        import io
+        object copy moves the part in whole, in one copy (so data the steps share stays shared), to a
+        staging group whose step groups are then linked into place. The driver re-encodes no array.
+        Returns label -> the plate's group under that step."""
         import time
 
+        h5py = _h5py()
         t0 = time.perf_counter()
         out = {}
-        with _h5py().File(io.BytesIO(part), "r") as src:
-            for record in records:
-                step = self._step(record)
-                name = record.plate or "pooled"
-                src.copy(src[record.spec.label], step, name=name)
-                out[record.spec.label] = step[name]
+        staging = "_part"
+        with h5py.File(h5py.h5f.open_file_image(part), "r") as src:
+            src.copy(src["/"], self.f, name=staging)
+        staged = self.f[staging]
+        for record in records:
+            step = self._step(record)
+            name = record.plate or "pooled"
+            step[name] = staged[record.spec.label]
+            out[record.spec.label] = step[name]
+        del self.f[staging]  # the step groups stay reachable through their new links
         self.seconds += time.perf_counter() - t0
         return out
 

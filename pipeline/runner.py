@@ -212,6 +212,9 @@ def run(
                          hint="Name them in the recipe's plugins list, or run with one job.")
     if spill is None:
         spill = len(rec.plates) > SPILL_AFTER
+    start_workers = getattr(executor, "start", None)
+    if start_workers is not None:
+        start_workers(rec.text, rec.path)
     from pipeline.audit import AuditWriter
 
     tmp = _temporary_folder(out_dir)
@@ -515,10 +518,12 @@ def csv_text(frame: pd.DataFrame) -> str | None:
     import csv
     import io
 
+    from pipeline.audit import text_codes
+
     if frame.columns.nlevels != 1 or frame.shape[1] == 0:
         return None
     columns: list[list[str]] = []
-    texts: list[list[str]] = []  # the columns that may need quoting
+    texts: list[list[str]] = []  # the distinct values of the columns that may need quoting
     for _, series in frame.items():
         dtype = series.dtype
         if dtype == "float64":
@@ -529,8 +534,9 @@ def csv_text(frame: pd.DataFrame) -> str | None:
         elif isinstance(dtype, np.dtype) and dtype.kind in "biu":
             text = list(map(str, series.to_numpy().tolist()))
         elif (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
-            text = [v if type(v) is str else "" if _is_missing(v) else str(v) for v in series.to_numpy(dtype=object)]
-            texts.append(text)
+            distinct, codes = text_codes(series.to_numpy(dtype=object))
+            text = np.array(distinct, dtype=object)[codes].tolist()
+            texts.append(distinct)
         else:
             return None
         columns.append(text)
@@ -547,13 +553,6 @@ def csv_text(frame: pd.DataFrame) -> str | None:
 
 _NEEDS_QUOTES = re.compile('[,"\r\n]')
 """Characters that make the csv module quote a field (delimiter, quote character, line breaks)."""
-
-
-def _is_missing(value: Any) -> bool:
-    try:
-        return bool(pd.isna(value))
-    except (TypeError, ValueError):  # a list or array in a cell: not missing
-        return False
 
 
 def _fsync_dir(path: Path) -> None:

@@ -67,3 +67,15 @@ def test_empty_text_column():
     buf, digest = _write(Table(pd.DataFrame({"note": pd.Series([], dtype=object)})))
     with h5py.File(buf, "r") as f:
         assert len(read_table(f["t"]).frame) == 0 and table_sha256(f["t"]) == digest
+
+
+def test_text_of_mixed_and_missing_values():
+    """Each value's text is str(value), missing ones "" (pd.isna); equal-hashing values such as 1, 1.0 and
+    True keep their own texts (a hash table that merged them would print "1" three times)."""
+    from pipeline.audit import text_codes
+
+    values = np.array([1, 1.0, True, None, "a", np.nan, pd.NA], dtype=object)
+    texts, codes = text_codes(values)
+    assert [texts[c] for c in codes] == ["1", "1.0", "True", "", "a", "", ""]
+    texts, codes = text_codes(np.array(["b", None, "a", "b", np.str_("a")], dtype=object))
+    assert [texts[c] for c in codes] == ["b", "", "a", "b", "a"]
