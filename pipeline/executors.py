@@ -121,6 +121,7 @@ class PoolExecutor:
     """A local pool of ``jobs`` worker processes."""
 
     name = "process pool"
+    shares_disk = True  # workers see this machine's files (the run may hand them output files to write)
 
     def __init__(self, jobs: int) -> None:
         import multiprocessing

@@ -6,6 +6,7 @@ Use :func:`run` from Python (it returns the tables as DataFrames) or ``vzero run
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import hashlib
 import os
@@ -215,10 +216,15 @@ def run(
     start_workers = getattr(executor, "start", None)
     if start_workers is not None:
         start_workers(rec.text, rec.path)
+    if executor is not None and later_steps:
+        import threading
+
+        threading.Thread(target=_warm_imports, daemon=True).start()
     from pipeline.audit import AuditWriter
 
     tmp = _temporary_folder(out_dir)
     writer: AuditWriter | None = None
+    elsewhere: dict[str, Any] = {}
     try:
         writer = AuditWriter(tmp / "run.h5", rec, plugins, run_id)
         store = PlateStore(writer, hold=not spill)
@@ -256,14 +262,18 @@ def run(
         final_tables = {k: v for k, v in pooled.items() if isinstance(v, Table)}
         failed_items = [item for r in records for item in r.failed]
         writer.failed_items = failed_items
+        elsewhere = _csv_in_workers(executor, tmp, final_tables)
         writer.finish(final_tables, warnings, failed, derived_from)
-        _write_outputs(tmp, final_tables, files, failed)
+        _write_outputs(tmp, final_tables, files, failed, elsewhere)
         _swap_into_place(tmp, out_dir, force)
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
                          audit_seconds=writer.seconds, failed_items=failed_items)
     except BaseException:
         if writer is not None:
             writer.close()
+        for future in elsewhere.values():  # let workers finish writing into tmp before it is removed
+            with contextlib.suppress(Exception):
+                future.result()
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     finally:
@@ -489,15 +499,54 @@ def _alive(pid: int) -> bool:
     return True
 
 
+#: Modules the built-in pooled steps import on first use (scipy.stats alone takes about half a second). With
+#: worker processes the driver mostly waits while plates run, so it imports them then, in a thread.
+WARM_IMPORTS = ("scipy.stats", "scipy.optimize")
+
+#: Final tables with at least this many rows are written to CSV by idle worker processes (in parallel with the
+#: audit file's last tables) when the run has a local process pool.
+CSV_IN_WORKERS_ROWS = 5000
+
+
+def _warm_imports() -> None:
+    import importlib
+
+    for name in WARM_IMPORTS:
+        try:
+            importlib.import_module(name)
+        except ImportError:  # pragma: no cover - then the step that needs it says so
+            pass
+
+
+def _csv_in_workers(executor: Executor | None, tmp: Path, tables: Mapping[str, Table]) -> dict[str, Any]:
+    """Start writing the large final tables' CSV files in the (by now idle) worker processes of a local pool;
+    returns name -> future. Remote workers (Dask) may not see this disk: nothing is sent there."""
+    if executor is None or not getattr(executor, "shares_disk", False):
+        return {}
+    import functools
+
+    return {name: executor.submit(functools.partial(write_csv, str(tmp / f"{name}.csv")), table.frame)  # type: ignore[arg-type]
+            for name, table in tables.items() if len(table.frame) >= CSV_IN_WORKERS_ROWS}
+
+
+def write_csv(path: str, frame: pd.DataFrame) -> None:
+    """Write ``frame`` to ``path`` as :func:`csv_text` (pandas' text); also run in worker processes."""
+    text = csv_text(frame)
+    if text is None:
+        frame.to_csv(path, index=False)
+    else:
+        Path(path).write_text(text, encoding="utf-8", newline="")
+
+
 def _write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],
-                   failed: Mapping[str, str]) -> None:
-    """One CSV per final table, the files final steps returned, the list of failed plates; then fsync."""
+                   failed: Mapping[str, str], elsewhere: Mapping[str, Any] | None = None) -> None:
+    """One CSV per final table (those in ``elsewhere`` are being written by workers: wait for them), the
+    files final steps returned, the list of failed plates; then fsync."""
     for name, table in tables.items():
-        text = csv_text(table.frame)
-        if text is None:
-            table.frame.to_csv(tmp / f"{name}.csv", index=False)
+        if elsewhere and name in elsewhere:
+            elsewhere[name].result()
         else:
-            (tmp / f"{name}.csv").write_text(text, encoding="utf-8", newline="")
+            write_csv(str(tmp / f"{name}.csv"), table.frame)
     for rel, data in files.items():
         target = tmp / rel
         target.parent.mkdir(parents=True, exist_ok=True)

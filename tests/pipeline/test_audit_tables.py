@@ -42,7 +42,7 @@ def _write(table: Table) -> tuple[io.BytesIO, str]:
 def test_hash_follows_the_documented_formula_with_multibyte_text():
     words = ["A1", "Ångström µM", "", "β-NADH"]
     table = Table(pd.DataFrame({"well": words, "rate": [1.0, np.nan, -2.5, 3e-9], "n": [1, 2, 3, 4]}),
-                  {"rate": "uM/min"})
+                  {"rate": "uM/min"}, {"note": "β-NADH at 340 nm, µM"})
     buf, digest = _write(table)
     assert digest == _documented_hash(["well", "rate", "n"], ["", "uM/min", ""],
                                       [words, [1.0, np.nan, -2.5, 3e-9], [1, 2, 3, 4]])
@@ -54,6 +54,7 @@ def test_hash_follows_the_documented_formula_with_multibyte_text():
         assert table_sha256(g) == digest
         back = read_table(g)
     assert list(back.frame["well"]) == words and back.units == {"rate": "uM/min"}
+    assert back.meta == {"note": "β-NADH at 340 nm, µM"}
 
 
 def test_text_with_nul_is_refused_not_cut_short():
