@@ -290,25 +290,24 @@ def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: n
     def params_of(v: np.ndarray) -> list[np.ndarray]:
         return [v[:, j, None] for j in range(p)]
 
-    def resid(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
-        with np.errstate(all="ignore"):
-            return np.where(mask[i], w[i] * (func(params_of(v), {k: a[i] for k, a in xs.items()}) - yz[i]), 0.0)
+    def resid(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:  # called inside errstate(all="ignore")
+        return np.where(mask[i], w[i] * (func(params_of(v), {k: a[i] for k, a in xs.items()}) - yz[i]), 0.0)
 
-    def jmat(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:
-        with np.errstate(all="ignore"):
-            jm = _jacobian(jac, v, {k: a[i] for k, a in xs.items()}, (len(i), npts)) * w[i][:, :, None]
+    def jmat(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:  # called inside errstate(all="ignore")
+        jm = _jacobian(jac, v, {k: a[i] for k, a in xs.items()}, (len(i), npts)) * w[i][:, :, None]
         jm = np.where(np.isfinite(jm), jm, 0.0)
         return jm * free[i][:, None, :]
 
-    r = resid(vals)
+    # one errstate for the whole run (entering it costs a few µs, a cost paid per iteration otherwise):
+    # trial steps may overflow; they are rejected, not reported
     with np.errstate(all="ignore"):
+        r = resid(vals)
         cost = np.sum(r**2, axis=1)
-    lam = np.full(g, lam0)
-    active = np.isfinite(cost)
-    converged = np.zeros(g, bool)
-    nfev = np.ones(g, int)
-    eye = np.eye(p)
-    with np.errstate(all="ignore"):  # trial steps may overflow; they are rejected, not reported
+        lam = np.full(g, lam0)
+        active = np.isfinite(cost)
+        converged = np.zeros(g, bool)
+        nfev = np.ones(g, int)
+        eye = np.eye(p)
         for _ in range(max_iter):
             if not active.any():
                 break
@@ -344,7 +343,7 @@ def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: n
             stuck = lam[idx] > 1e16
             converged[idx[done]] = True
             active[idx[done | stuck]] = False
-    return vals, r, jmat(vals), converged, nfev
+        return vals, r, jmat(vals), converged, nfev
 
 
 def fit_batch(
