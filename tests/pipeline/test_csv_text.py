@@ -23,6 +23,7 @@ def test_same_text_as_pandas_for_every_column_type():
     })
     frame.loc[[0, 7, 9], "rate (uM/min)"] = [np.nan, np.inf, -0.0]
     frame["str"] = pd.Series(["x", None] * (n // 2), dtype="string")
+    frame["level"] = [0.0, -0.0, np.nan, 1e-7, 250.0] * (n // 5)  # repeats: each distinct value formatted once
     assert csv_text(frame) == frame.to_csv(index=False)  # pandas itself is the reference
 
 
