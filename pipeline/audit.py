@@ -127,9 +127,20 @@ def _new_attr(oid: Any, name: str, value: str | int | float) -> None:
     """Set an attribute of a new object through h5py's low-level calls: the type ``obj.attrs[name] = value``
     stores (a scalar variable-length UTF-8 string, int64 or float64) at less than half the cost."""
     h5py = _h5py()
-    arr = np.array(value, dtype=h5py.string_dtype()) if isinstance(value, str) else np.array(value)
-    tid = h5py.h5t.py_create(arr.dtype, logical=True)
-    h5py.h5a.create(oid, name.encode(), tid, h5py.h5s.create(h5py.h5s.SCALAR)).write(arr)
+    arr = np.array(value, dtype=_VSTR) if isinstance(value, str) else np.array(value)
+    tid = _scalar_types.get(arr.dtype.str)
+    if tid is None:
+        tid = _scalar_types[arr.dtype.str] = h5py.h5t.py_create(arr.dtype, logical=True)
+    h5py.h5a.create(oid, name.encode(), tid, _scalar_space()).write(arr)
+
+
+_VSTR = np.dtype("O", metadata={"vlen": str})  # what h5py.string_dtype() returns: variable-length UTF-8
+_scalar_types: dict[str, Any] = {}  # HDF5 type of a scalar attribute, by numpy dtype (created once)
+
+
+@functools.cache
+def _scalar_space() -> Any:
+    return _h5py().h5s.create(_h5py().h5s.SCALAR)
 
 
 def _column_values(series: pd.Series) -> tuple[np.ndarray, str, bytes]:
