@@ -57,7 +57,7 @@ class Links:
     Steps pass much through unchanged (the time axis, the well table, most columns of a rates table), and
     each stored copy costs a dataset. An HDF5 hard link makes the second name point at the first object:
     readers see two ordinary datasets with the same values. Objects are matched by identity (the same Python
-    object written twice) and columns also by content (same name, unit, type, shape and bytes).
+    object written twice) and columns also by content (same type, shape and bytes; columns carry no name or unit).
     """
 
     def __init__(self) -> None:
