@@ -499,9 +499,9 @@ def _alive(pid: int) -> bool:
     return True
 
 
-#: Modules the built-in pooled steps import on first use (scipy.stats alone takes about half a second). With
-#: worker processes the driver mostly waits while plates run, so it imports them then, in a thread.
-WARM_IMPORTS = ("scipy.stats", "scipy.optimize")
+#: Modules the built-in pooled steps import on first use. With worker processes the driver mostly waits while
+#: plates run, so it imports them then, in a thread.
+WARM_IMPORTS = ("scipy.optimize", "scipy.special")
 
 #: Final tables with at least this many rows are written to CSV by idle worker processes (in parallel with the
 #: audit file's last tables) when the run has a local process pool.

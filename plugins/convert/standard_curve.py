@@ -14,7 +14,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
 
 from pipeline.errors import FitError
 
@@ -96,7 +96,7 @@ def _curvature_p(x: np.ndarray, y: np.ndarray, rss_lin: float) -> float:
     if rss_quad <= 1e-14 * scale:
         return 0.0 if rss_lin > 1e-12 * scale else 1.0
     f = (rss_lin - rss_quad) / (rss_quad / (x.size - 3))
-    return float(stats.f.sf(f, 1, x.size - 3))
+    return float(special.fdtrc(1, x.size - 3, f))
 
 
 def fit_standard_curve(

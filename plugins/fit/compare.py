@@ -25,7 +25,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
 
 from plugins.fit.engine import FitResult
 
@@ -52,7 +52,7 @@ def f_test(simple: FitResult, complex_: FitResult, names: tuple[str, str]) -> FT
     if df1 <= 0 or df2 <= 0 or not (complex_.rss > 0):
         return None
     f = max((simple.rss - complex_.rss) / df1, 0.0) / (complex_.rss / df2)
-    return FTest(names[0], names[1], float(f), float(stats.f.sf(f, df1, df2)), df1, df2)
+    return FTest(names[0], names[1], float(f), float(special.fdtrc(df1, df2, f)), df1, df2)
 
 
 def compare_set(

@@ -11,7 +11,7 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
 
 from plugins.fit.catalog import Model
 from plugins.fit.engine import FitResult
@@ -81,7 +81,7 @@ def band(model: Model, res: FitResult, x: dict[str, np.ndarray], confidence: flo
             return y, nan, nan
         g = np.stack([np.broadcast_to(c, y.shape) for c in model.jacobian(p, x)], axis=-1)
         var = np.einsum("ni,ij,nj->n", g, np.nan_to_num(res.covariance), g)
-    half = stats.t.ppf(0.5 + confidence / 2, res.dof) * np.sqrt(np.clip(var, 0, None))
+    half = special.stdtrit(res.dof, 0.5 + confidence / 2) * np.sqrt(np.clip(var, 0, None))
     return y, y - half, y + half
 
 
