@@ -396,6 +396,20 @@ def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray,
         output.artifacts["fits"] = fits.with_frame(table)
 
 
+def _with_comparison(fits: pd.DataFrame, comp_rows: list[dict[str, Any]]) -> pd.DataFrame:
+    """The model comparison on every row of the fits table: the model's AICc difference from the best and
+    Akaike weight, the group's preferred model and whether this row's model is it (the full comparison, with
+    F-tests and reasons, is the model_comparison table)."""
+    cols = ["delta_aicc", "akaike_weight", "preferred_model"]
+    if not comp_rows or fits.empty:
+        return fits.assign(delta_aicc=np.nan, akaike_weight=np.nan, preferred_model="", preferred=False)
+    comp = pd.DataFrame(comp_rows).drop_duplicates(["group", "model"]).rename(columns={"preferred": "preferred_model"})
+    out = fits.merge(comp[["group", "model", *cols]], on=["group", "model"], how="left")
+    out["preferred_model"] = out["preferred_model"].fillna("").astype(str)
+    out["preferred"] = out["model"] == out["preferred_model"]
+    return out
+
+
 def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
             point_sets: dict[tuple[str, str], tuple[int, ...]], extra_notes: dict[tuple[str, str], str],
             cfg: Mapping[str, Any], xvars: dict[str, dict[str, np.ndarray]], var: dict[str, np.ndarray],
@@ -478,7 +492,8 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
     meta = {"research_use": "Research use only: check results against the lab's validated procedures.",
             "ki_mechanism": str(cfg["mechanism"])}
     out = {
-        "fits": Table(pd.DataFrame(fit_rows, columns=fit_cols), {"rss": rss_unit} if rss_unit else {}, meta),
+        "fits": Table(_with_comparison(pd.DataFrame(fit_rows, columns=fit_cols), comp_rows),
+                      {"rss": rss_unit} if rss_unit else {}, meta),
         "model_comparison": Table(pd.DataFrame(comp_rows), {"rss": rss_unit} if rss_unit else {}, meta),
         "cooperativity": Table(pd.DataFrame(coop_rows, columns=[
             "group", "h", "stderr", "ci_low", "ci_high", "ci_method", "F", "p_vs_michaelis_menten", "verdict",
