@@ -5,6 +5,12 @@ The original data files are not needed: the recipe names its inputs by the names
 path, run_id and recipe sha256 of the old file). A recipe that names a local plugin file which the old run
 also used is refused when the file is missing or its sha256 differs from the one stored, unless the user
 says ``--allow-changed-plugins`` (the new run then records which plugins changed).
+
+Rerunning the *stored* recipe never imports a module on the file's word alone: an audit file may come from
+anywhere, and a plugin module (which has no stored hash to compare) runs code on this machine. When the
+stored recipe names plugin modules, the user must pass ``--allow-stored-plugins`` after checking them (or
+give a recipe of their own); local plugin files follow the hash rule above. The stored recipe must also match
+its stored sha256.
 """
 
 from __future__ import annotations
@@ -91,6 +97,7 @@ def rerun(
     recipe: str | Path | None = None,
     plugin_dir: str | Path | None = None,
     allow_changed_plugins: bool = False,
+    allow_stored_plugins: bool = False,
     force: bool = False,
 ) -> Any:
     """Rerun the inputs stored in ``old`` with ``recipe`` (default: the stored recipe); returns a RunResult.
@@ -99,7 +106,7 @@ def rerun(
     folder of the original recipe, as recorded); for a new recipe they are relative to that recipe.
     """
     from pipeline import reader
-    from pipeline.errors import RecipeError
+    from pipeline.errors import AuditFileError, PluginError, RecipeError
     from pipeline.recipe import load, parse
     from pipeline.runner import run
 
@@ -107,9 +114,21 @@ def rerun(
         head = reader.header(f)
     source = StoredInputs.from_audit(old)
     if recipe is None:
+        text = str(head["recipe_text"])
+        if hashlib.sha256(text.encode("utf-8")).hexdigest() != str(head.get("recipe_sha256", "")):
+            raise AuditFileError(f"{old}: the stored recipe does not match its stored sha256 (damaged or edited)",
+                                 hint="Run vzero verify on it; give a recipe of your own with --recipe.")
         original = Path(head.get("recipe_path") or "recipe.yaml")
         base = Path(plugin_dir) if plugin_dir else original.parent
-        rec = parse(head["recipe_text"], str(base / (original.name or "recipe.yaml")))
+        rec = parse(text, str(base / (original.name or "recipe.yaml")))
+        modules = [e for e in rec.plugin_entries if not (e.endswith(".py") or "/" in e)]
+        if modules and not allow_stored_plugins:
+            raise PluginError(
+                f"the recipe stored in {old} imports plugin modules ({', '.join(modules)}); rerunning it would run "
+                "their code on this machine",
+                hint="Check those plugins, then pass --allow-stored-plugins, or give a recipe of your own with "
+                     "--recipe.",
+            )
     else:
         rec = load(recipe)
         if plugin_dir:
@@ -139,12 +158,15 @@ def configure(p: argparse.ArgumentParser) -> None:
     p.add_argument("--plugin-dir", help="where the local plugin files named by the recipe are")
     p.add_argument("--allow-changed-plugins", action="store_true",
                    help="run local plugins whose code differs from the old run's (recorded in the new file)")
+    p.add_argument("--allow-stored-plugins", action="store_true",
+                   help="let the stored recipe load the plugins it names (their code runs on this machine)")
 
 
 def run(args: argparse.Namespace) -> int:
     from pipeline.cli import _report_result
 
     result = rerun(args.old, args.out, recipe=args.recipe, plugin_dir=args.plugin_dir,
-                   allow_changed_plugins=args.allow_changed_plugins, force=args.force)
+                   allow_changed_plugins=args.allow_changed_plugins,
+                   allow_stored_plugins=args.allow_stored_plugins, force=args.force)
     _report_result(args, result)
     return int(result.exit_code)

@@ -105,3 +105,26 @@ def test_rerun_command_line(tmp_path: Path, capsys):
     assert (tmp_path / "cli" / "run.h5").is_file()
     assert main(["rerun", str(tmp_path / "missing.h5"), "--out", str(tmp_path / "x")]) == 2
     assert "not found" in capsys.readouterr().err
+
+
+def test_stored_recipe_does_not_import_modules_without_consent(tmp_path: Path):
+    """An audit file may come from anywhere: a module its stored recipe names is not imported unless the user
+    says so, and a stored recipe that no longer matches its hash is refused."""
+    import h5py
+
+    from pipeline.errors import AuditFileError
+
+    old = _old_run(tmp_path)
+    with h5py.File(old, "r+") as f:
+        text = f.attrs["recipe_text"].replace("steps:", "plugins: [json]\nsteps:")
+        f.attrs["recipe_text"] = text
+    with pytest.raises(AuditFileError, match="does not match its stored sha256"):
+        rerun(old, tmp_path / "tampered")
+    import hashlib
+
+    with h5py.File(old, "r+") as f:
+        f.attrs["recipe_sha256"] = hashlib.sha256(text.encode("utf-8")).hexdigest()
+    with pytest.raises(PluginError, match=r"imports plugin modules \(json\)"):
+        rerun(old, tmp_path / "modules")
+    assert not (tmp_path / "modules").exists()
+    assert rerun(old, tmp_path / "allowed", allow_stored_plugins=True).exit_code == 0
