@@ -194,11 +194,7 @@ def run(
     """
     rec, plugins, source = prepare(recipe, inputs=inputs, extra_plugins=extra_plugins)
     out_dir = Path(out)
-    if out_dir.exists() and not force and any(out_dir.iterdir()):
-        raise OutputExistsError(
-            f"output folder {str(out)!r} already holds files",
-            hint="Choose another --out, or pass --force to replace it.",
-        )
+    _check_output_folder(out_dir, force, rec)
     t_start = time.perf_counter()
     started = _utc_now()
     run_id = uuid.uuid4().hex
@@ -460,6 +456,46 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
 
 def _utc_now() -> str:
     return _dt.datetime.now(_dt.UTC).isoformat(timespec="milliseconds")
+
+
+def _check_output_folder(out_dir: Path, force: bool, rec: Recipe) -> None:
+    """Refuse an output folder that would lose something: a file in its place, a folder with files (without
+    ``force``), and even with ``force`` a folder that is not a previous vzero run, or that holds the recipe."""
+    if not out_dir.exists():
+        return
+    if not out_dir.is_dir():
+        raise OutputExistsError(f"--out {str(out_dir)!r} is a file, not a folder", hint="Choose a folder name.")
+    if not any(out_dir.iterdir()):
+        return
+    if not force:
+        raise OutputExistsError(f"output folder {str(out_dir)!r} already holds files",
+                                hint="Choose another --out, or pass --force to replace it.")
+    here = out_dir.resolve()
+    recipe_path = Path(rec.path).resolve()
+    if here == recipe_path.parent or here in recipe_path.parents:
+        raise OutputExistsError(f"output folder {str(out_dir)!r} holds the recipe; --force would delete it",
+                                hint="Write runs to a folder of their own.")
+    if not _is_vzero_run(out_dir):
+        raise OutputExistsError(
+            f"output folder {str(out_dir)!r} holds files but no vzero run (no run.h5 made by vzero)",
+            hint="--force replaces only a previous run; choose another --out.",
+        )
+
+
+def _is_vzero_run(folder: Path) -> bool:
+    """Whether ``folder/run.h5`` is a vzero audit file (any version)."""
+    target = folder / "run.h5"
+    if not target.is_file():
+        return False
+    try:
+        import h5py
+
+        with h5py.File(target, "r") as f:
+            from pipeline.audit import FORMAT_NAME
+
+            return bool(f.attrs.get("format") == FORMAT_NAME)
+    except OSError:
+        return False
 
 
 def _parent(out_dir: Path) -> Path:

@@ -174,3 +174,20 @@ def test_a_well_without_a_rate_finishes_with_exit_code_1(plate_folder: Path, tmp
     rates = pd.read_csv(tmp_path / "out" / "rates.csv").set_index("well")
     assert np.isnan(rates.loc["A5", "rate"]) and "all_missing" in rates.loc["A5", "flags"]
     assert rates["rate"].notna().sum() == 95
+
+
+def test_force_replaces_only_a_previous_run(plate_folder: Path, tmp_path: Path, capsys):
+    """--force must never delete a folder that is not a vzero run, nor the folder holding the recipe."""
+    inputs = plate_folder.parent
+    (inputs / "notes.txt").write_text("keep me", "utf-8")
+    assert main(["run", str(plate_folder), "--out", str(inputs), "--force"]) == 2
+    assert "holds the recipe" in capsys.readouterr().err and (inputs / "notes.txt").exists()
+    other = tmp_path / "other"
+    other.mkdir()
+    (other / "thesis.docx").write_bytes(b"draft")
+    assert main(["run", str(plate_folder), "--out", str(other), "--force"]) == 2
+    assert "no vzero run" in capsys.readouterr().err and (other / "thesis.docx").exists()
+    afile = tmp_path / "afile"
+    afile.write_text("x", "utf-8")
+    assert main(["run", str(plate_folder), "--out", str(afile), "--force"]) == 2
+    assert "is a file, not a folder" in capsys.readouterr().err and afile.read_text("utf-8") == "x"
