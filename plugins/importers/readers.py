@@ -761,6 +761,37 @@ def _read_wide(grid: TextGrid, h: int, end: int, name: str, source: str, opts: R
     return Block(name, time_s, wells, signal, saturated, temperature, notes + tnotes)
 
 
+def _align_cycles(times: np.ndarray, t_code: np.ndarray, t_row: np.ndarray, well_code: np.ndarray, n_wells: int,
+                  notes: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    """One shared time axis for wells read at staggered times within each read cycle.
+
+    Readers that list each read with its own time stamp (long tables) often stamp wells a few seconds apart
+    within one pass over the plate. Taken literally, no two wells share a time and every read sits alone in
+    its column, so blank subtraction finds no blank at any sample's time. When every well has the same number
+    of reads and the stagger is under half the spacing of the cycles, reads are aligned by cycle on the median
+    time of each cycle, and a note (a run warning) says by how much the wells were apart.
+    """
+    counts = np.bincount(well_code, minlength=n_wells)
+    n = int(counts.max()) if counts.size else 0
+    if n < 2 or times.size <= n or not (counts == n).all():
+        return times, t_code
+    by_well = np.lexsort((t_row, well_code))  # rows grouped by well, each well's reads in time order
+    cycle = np.empty(t_row.size, dtype=np.int64)
+    cycle[by_well] = np.tile(np.arange(n), n_wells)
+    stamp = np.empty((n_wells, n))
+    stamp[well_code, cycle] = t_row
+    axis = np.median(stamp, axis=0)
+    spacing = np.diff(axis)
+    stagger = float((stamp.max(axis=0) - stamp.min(axis=0)).max())  # widest spread of one cycle
+    if (spacing <= 0).any() or stagger >= 0.5 * float(spacing.min()):
+        notes.append("wells were read at different times and could not be aligned into read cycles; each time "
+                     "is kept as read, so some reads have no blank at the same time")
+        return times, t_code
+    notes.append(f"wells were stamped up to {stagger:.3g} s apart within each read cycle; reads were aligned "
+                 "by cycle on the median time of each cycle")
+    return axis, cycle
+
+
 def _read_long(grid: TextGrid, h: int, end: int, name: str, source: str, opts: ReadOptions) -> Block:
     header, body = _cells(grid, h, end, source)
     lines = grid.lines[h + 1 : end]
@@ -815,6 +846,7 @@ def _read_long(grid: TextGrid, h: int, end: int, name: str, source: str, opts: R
             well=wells[well_code[i]],
             hint="Each well's reads must be in time order.",
         )
+    times, t_code = _align_cycles(times, t_code, t_row, well_code, len(wells), notes)
     values, over, bad = _numbers(body[:, sj], grid.decimal, opts)
     if bad is not None:
         i = bad[0]
