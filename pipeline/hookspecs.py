@@ -68,11 +68,12 @@ def vzero_commands(commands: Any) -> None:
 
 
 @hookspec
-def vzero_check_recipe(recipe: Any, where: Any) -> list[str]:
+def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
     """Validate the parts of a recipe that a plugin owns beyond its step parameters.
 
     Called once per recipe, after every step has been checked and before anything runs. ``recipe`` is the
-    parsed recipe mapping (read-only); ``where(path)`` turns a key path tuple such as
+    parsed recipe mapping (read-only); ``plates`` the names of the run's plates (globs and manifests
+    expanded); ``where(path)`` turns a key path tuple such as
     ``("exclusions", 0, "reason")`` into ``"recipe.yaml:31 exclusions[0].reason"``. Return one message per
     problem (an empty list when all is well); they are reported together with every other recipe problem.
 

@@ -140,7 +140,9 @@ def prepare(
     source = inputs or DiskInputs(rec.base_dir)
 
     def plugin_checks(r: Recipe) -> list[str]:
-        return [msg for found in plugins.hook.vzero_check_recipe(recipe=r.data, where=r.where) for msg in found or []]
+        names = [p.name for p in r.plates]
+        found = plugins.hook.vzero_check_recipe(recipe=r.data, where=r.where, plates=names)
+        return [msg for msgs in found for msg in msgs or []]
 
     check(rec, plugins.registry, exists=source.exists, expand=source.expand, extra_checks=plugin_checks)
     return rec, plugins, source

@@ -45,14 +45,18 @@ def _seconds(value: Any) -> float:
     return float(units.quantity(value, like="s").m_as("s"))
 
 
-def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str] | None = None) -> list[str]:
+def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str] | None = None,
+                plates: Sequence[str] | None = None) -> list[str]:
     """Validate the ``exclusions`` and ``overrides`` of a recipe mapping; one message per problem.
 
     ``where(path)`` turns a key path into ``file:line key.path`` (``Recipe.where``); without it the key path
-    alone is used. Meant to be called from ``recipe.check`` so problems are reported before anything runs.
+    alone is used. ``plates`` are the run's plate names: an item naming another plate would silently do
+    nothing, so it is a problem (with the closest name). Meant to be called from ``recipe.check`` so problems
+    are reported before anything runs.
     """
+    from pipeline.params import closest
     from pipeline.recipe import format_path
-    from plugins.importers.wells import is_well
+    from plugins.importers.wells import is_well, normalise_well
 
     place = where or format_path
     problems: list[str] = []
@@ -79,11 +83,16 @@ def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str]
                 problems.append(f"{place((*path, 'reason'))}: expected a non-empty text, got {item['reason']!r}")
             if "plate" in item and not isinstance(item["plate"], str):
                 problems.append(f"{place((*path, 'plate'))}: expected a plate name, got {item['plate']!r}")
+            elif "plate" in item and plates is not None and item["plate"] not in plates:
+                hit = closest(item["plate"], plates)
+                near = f" (did you mean {hit!r}?)" if hit else ""
+                problems.append(f"{place((*path, 'plate'))}: no plate {item['plate']!r} in this run{near}; "
+                                f"plates: {', '.join(plates)}")
             if "well" in item and not (isinstance(item["well"], str) and is_well(item["well"])):
                 problems.append(f"{place((*path, 'well'))}: expected a well name like 'B7', got {item['well']!r}")
             problems += _check_times(item, top, path, place)
             if top == "overrides" and isinstance(item.get("well"), str) and isinstance(item.get("plate"), str):
-                k = (item["plate"], item["well"].upper())
+                k = (item["plate"], normalise_well(item["well"]) if is_well(item["well"]) else item["well"])
                 if k in seen:
                     problems.append(f"{place(path)}: well {k[1]} of plate {k[0]} is overridden twice "
                                     f"(also item {seen[k]}); keep one")

@@ -243,11 +243,11 @@ def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
 
 
 @hookimpl
-def vzero_check_recipe(recipe: Any, where: Any) -> list[str]:
+def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
     """The recipe's ``exclusions`` and ``overrides`` (applied by the import and rates stages)."""
     from plugins.exclusions import check_items
 
-    return check_items(recipe, where)
+    return check_items(recipe, where, plates)
 
 
 @hookimpl

@@ -191,3 +191,11 @@ def test_force_replaces_only_a_previous_run(plate_folder: Path, tmp_path: Path, 
     afile.write_text("x", "utf-8")
     assert main(["run", str(plate_folder), "--out", str(afile), "--force"]) == 2
     assert "is a file, not a folder" in capsys.readouterr().err and afile.read_text("utf-8") == "x"
+
+
+def test_exclusion_naming_another_plate_is_an_error(plate_folder: Path, capsys):
+    text = plate_folder.read_text("utf-8") + "exclusions:\n  - {plate: P1, well: B3, reason: bubble}\n"
+    plate_folder.write_text(text, "utf-8")
+    assert main(["check", str(plate_folder)]) == 2
+    assert "recipe.yaml:12 exclusions[0].plate: no plate 'P1' in this run (did you mean 'p1'?)" in (
+        capsys.readouterr().err)
