@@ -420,6 +420,7 @@ class AuditWriter:
         self._inputs: dict[str, Any] = {}
         self._seconds: dict[str, float] = {}
         self._warnings: dict[str, list[str]] = {}
+        self._names: dict[str, list[str]] = {}
         self.failed_items: list[str] = []
         self.f = _h5py().File(path, "w", track_order=True)
         _set_attr(self.f, "format", FORMAT_NAME)
@@ -458,6 +459,9 @@ class AuditWriter:
             _set_attr(ds, "size", len(raw.data))
             self._inputs[raw.sha256] = ds
         self.input_plates.setdefault(raw.sha256, []).append(plate)
+        names = self._names.setdefault(raw.sha256, [])
+        if raw.name not in names:  # the same bytes under another name (a copied layout): keep every name
+            names.append(raw.name)
         self.seconds += time.perf_counter() - t0
 
     def _step(self, record: Any) -> Any:
@@ -532,6 +536,7 @@ class AuditWriter:
         t0 = time.perf_counter()
         for sha, ds in self._inputs.items():
             _set_attr(ds, "plates", to_json(self.input_plates.get(sha, [])))
+            _set_attr(ds, "names", to_json(self._names.get(sha, [])))
         for label, g in self.steps.items():
             _set_attr(g, "seconds", self._seconds.get(label, 0.0))
             _set_attr(g, "warnings", to_json(self._warnings.get(label, [])))

@@ -47,6 +47,7 @@ class StoredInput:
     sha256: str
     size: int
     plates: tuple[str, ...]
+    names: tuple[str, ...] = ()  # every name these bytes entered the run under (format 1.2 and later)
 
 
 def _major(version: str) -> int:
@@ -130,7 +131,7 @@ def read_inputs(f: Any) -> list[StoredInput]:
         out.append(StoredInput(
             dataset=ds_name, name=str(ds.attrs["name"]), key=str(ds.attrs.get("key", "")), data=data,
             sha256=str(ds.attrs["sha256"]), size=int(ds.attrs["size"]),
-            plates=tuple(json_attr(ds, "plates", [])),
+            plates=tuple(json_attr(ds, "plates", [])), names=tuple(json_attr(ds, "names", [])),
         ))
     return out
 

@@ -39,7 +39,12 @@ class StoredInputs:
         from pipeline import reader
 
         with reader.open_audit(path) as f:
-            return cls({s.name: s.data for s in reader.read_inputs(f)}, str(path))
+            stored = reader.read_inputs(f)
+        files = {}
+        for s in stored:
+            for name in (s.name, *s.names):  # identical files kept once, under every name they had
+                files[name] = s.data
+        return cls(files, str(path))
 
     def exists(self, rel: str) -> bool:
         return rel in self.files

@@ -128,3 +128,20 @@ def test_stored_recipe_does_not_import_modules_without_consent(tmp_path: Path):
         rerun(old, tmp_path / "modules")
     assert not (tmp_path / "modules").exists()
     assert rerun(old, tmp_path / "allowed", allow_stored_plugins=True).exit_code == 0
+
+
+def test_identical_inputs_under_two_names_rerun(tmp_path: Path):
+    """Two plates with byte-identical layouts under different names: the bytes are stored once, every name is
+    kept, and a rerun finds both."""
+    import shutil
+
+    recipe = linear_plate(tmp_path / "in")
+    folder = recipe.parent
+    shutil.copy(folder / "layout.csv", folder / "layout2.csv")
+    shutil.copy(folder / "plate.csv", folder / "plate2.csv")
+    second = "  - name: p2\n    data: plate2.csv\n    layout: layout2.csv\n"
+    text = recipe.read_text("utf-8").replace("    layout: layout.csv\n", "    layout: layout.csv\n" + second)
+    recipe.write_text(text, "utf-8")
+    old = run(recipe, tmp_path / "old").audit_path
+    result = rerun(old, tmp_path / "again")
+    assert result.exit_code == 0 and set(result.rates["plate"]) == {"p1", "p2"}
