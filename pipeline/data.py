@@ -36,16 +36,47 @@ class Table:
 
     @staticmethod
     def concat(tables: list[Table]) -> Table:
-        """Stack tables with the same columns (units taken from the first; conflicts raise ValueError)."""
+        """Stack tables with the same columns; units are taken from the first table.
+
+        A column given in another but equivalent spelling (``µM`` and ``uM``) is taken as it is; one given in
+        another unit of the same dimension (``mM`` against ``uM``) is converted to the first table's unit,
+        together with its ``<column>_unit`` text column if there is one. Units that cannot be converted raise
+        :class:`pipeline.errors.UnitError` naming the column and both units.
+        """
         if not tables:
             return Table(pd.DataFrame())
         units: dict[str, str] = {}
+        frames = []
         for t in tables:
+            frame = t.frame
             for k, v in t.units.items():
-                if units.setdefault(k, v) != v:
-                    raise ValueError(f"column {k!r} has unit {units[k]!r} in one plate and {v!r} in another")
-        frame = pd.concat([t.frame for t in tables], ignore_index=True)
+                first = units.setdefault(k, v)
+                if first == v:
+                    continue
+                factor = _conversion(first, v, k)
+                if factor != 1.0 or f"{k}_unit" in frame.columns:
+                    frame = frame.copy() if frame is t.frame else frame
+                    frame[k] = frame[k] * factor
+                    if f"{k}_unit" in frame.columns:
+                        frame[f"{k}_unit"] = first
+            frames.append(frame)
+        frame = pd.concat(frames, ignore_index=True)
         return Table(frame, units, dict(tables[0].meta))
+
+
+def _conversion(to_unit: str, from_unit: str, column: str) -> float:
+    """Factor from ``from_unit`` to ``to_unit`` (1.0 for two spellings of one unit); UnitError otherwise."""
+    from pipeline import units
+    from pipeline.errors import UnitError
+
+    try:
+        return units.factor(from_unit, to_unit)
+    except UnitError:
+        raise UnitError(
+            f"column {column!r} is in {to_unit!r} on one plate and in {from_unit!r} on another, which do not "
+            "convert into each other",
+            hint="Give that quantity in one kind of unit on every plate.",
+        ) from None
 
 
 @dataclass(frozen=True)

@@ -64,3 +64,19 @@ def test_table_write_then_read_is_identical(tmp_path_factory, rows):
     assert back.frame["value"].to_numpy().tobytes() == frame["value"].to_numpy().tobytes()
     assert (back.frame["count"].to_numpy() == frame["count"].to_numpy()).all()
     assert (back.frame["ok"].to_numpy() == frame["ok"].to_numpy()).all()
+
+
+def test_pooling_converts_equivalent_and_compatible_units():
+    import pytest
+
+    from pipeline.errors import UnitError
+
+    a = Table(pd.DataFrame({"substrate": [1.0], "substrate_unit": ["uM"]}), {"substrate": "uM"})
+    b = Table(pd.DataFrame({"substrate": [2.0], "substrate_unit": ["µM"]}), {"substrate": "µM"})
+    c = Table(pd.DataFrame({"substrate": [0.003], "substrate_unit": ["mM"]}), {"substrate": "mM"})
+    pooled = Table.concat([a, b, c])
+    assert_allclose(pooled.frame["substrate"], [1.0, 2.0, 3.0], rtol=1e-12)
+    assert list(pooled.frame["substrate_unit"]) == ["uM"] * 3 and pooled.units["substrate"] == "uM"
+    d = Table(pd.DataFrame({"substrate": [1.0]}), {"substrate": "s"})
+    with pytest.raises(UnitError, match="'uM' on one plate and in 's' on another"):
+        Table.concat([a, d])
