@@ -191,11 +191,23 @@ def build_document(head: Mapping[str, Any], results: Mapping[str, Any], traces: 
     return doc
 
 
+def _celsius(value: Any) -> float | None:
+    """The assay temperature in °C (given with any temperature unit: "30 degC", "303.15 K")."""
+    if value is None or value == "":
+        return None
+    from pipeline import units
+
+    try:
+        return float(units.quantity(str(value), like="degC", what="assay.temperature").m_as("degC"))
+    except Exception:  # the recipe check reports a bad temperature; an old file may still hold one
+        return None
+
+
 def _measurements(assay: Mapping[str, Any], rates: Any, traces: Mapping[str, Any], measured: str,
                   has_inhibitor: bool) -> list[dict[str, Any]]:
     if rates is None:
         return []
-    temp = _num(str(assay.get("temperature", "")).split()[0]) if assay.get("temperature") else None
+    temp = _celsius(assay.get("temperature"))
     ph = _num(assay.get("pH"))
     index = {(p, w): (t, i) for p, t in traces.items() for i, w in enumerate(t.well_names)}
     out = []

@@ -108,3 +108,14 @@ def write_xlsx(audit: str | Path, target: str | Path) -> None:
             pd.DataFrame({"note": [f"{len(courses)} reads do not fit one sheet; use the audit file or the "
                                    "EnzymeML export for the time courses"]}).to_excel(
                 xw, sheet_name="time courses", index=False)
+        _no_formulas(xw.book)
+
+
+def _no_formulas(book: Any) -> None:
+    """Keep every cell as the value it is: text starting with ``=`` (a group named "=1+41", say) would
+    otherwise be stored as a live spreadsheet formula. vzero never writes formulas."""
+    for sheet in book.worksheets:
+        for row in sheet.iter_rows():
+            for cell in row:
+                if cell.data_type == "f":
+                    cell.data_type = "s"
