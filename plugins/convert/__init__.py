@@ -126,6 +126,10 @@ class BeerLambert(Stage):
         try:
             reads = pd.read_csv(io.BytesIO(raw.data))
             reads["well"] = [normalise_well(str(w)) for w in reads["well"]]
+            twice = reads["well"][reads["well"].duplicated()].tolist()
+            if twice:
+                raise InputFileError(f"well {twice[0]} has two rows of water-peak reads", path=raw.name,
+                                     well=twice[0], hint="Keep one row per well.")
             reads = reads.set_index("well")
             peak, ref = reads["a977"].astype(float), reads["a900"].astype(float)
         except (KeyError, ValueError, pd.errors.ParserError) as exc:
@@ -197,6 +201,15 @@ class StandardCurveConvert(Stage):
                   f"R² {curve.r2:.4f}, linear range {lo:g}–{hi:g} {conc_unit} ({curve.n_points} standards"
                   + (f"; dropped {', '.join(f'{d:g}' for d in curve.dropped_levels)}" if curve.dropped_levels else "")
                   + ")")
+        top = curve.intercept + curve.slope * hi
+        with np.errstate(invalid="ignore"):
+            peak = np.nanmax(np.where(traces.mask, traces.signal, np.nan), axis=1, initial=-np.inf)
+        beyond = [w for w, r, p in zip(wells["well"], wells["role"].astype(str), peak, strict=True)
+                  if r == "sample" and np.isfinite(p) and (p - top) * np.sign(curve.slope) > 0]
+        if beyond:
+            data.warn(f"{len(beyond)} sample well(s) read beyond the highest standard kept ({hi:g} {conc_unit}): "
+                      f"{', '.join(map(str, beyond[:10]))}{', ...' if len(beyond) > 10 else ''}; their rates "
+                      "extrapolate the standard curve")
         out = _finish(table, frame, to_out / curve.slope, out_unit, signal_unit, data.warn, se * to_out)
         calib = pd.DataFrame({"well": wells["well"].to_numpy()[is_std][keep], "concentration": conc[keep],
                               "signal": level[keep], "used": np.asarray(curve.used, dtype=bool)})

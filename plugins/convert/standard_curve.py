@@ -4,7 +4,7 @@ An ordinary least-squares line with intercept through the standard wells, with s
 usual covariance ``s² (XᵀX)⁻¹``. Detectors leave their linear range at high signal, so the top standards
 are tested for curvature first: while adding a quadratic term improves the fit significantly (extra sum of
 squares F-test at level ``alpha``), the highest concentration level is dropped. The concentration range kept
-is reported; rates whose signal lies outside it are extrapolations the caller should flag.
+is reported; the convert stage warns about sample wells whose reads go beyond the highest standard kept.
 
 Results are for research use; defer to the lab's validated calibration procedure.
 """

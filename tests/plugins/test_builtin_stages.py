@@ -164,3 +164,21 @@ def test_standard_curve_converts_fluorescence_rates():
     out = stage.run(_input({"traces": traces, "rates": rates}))
     assert_allclose(out.artifacts["rates"].frame["rate"].iloc[0], 2.4 / 120.0 * 60.0, rtol=1e-9)
     assert "calibration" in out.record
+
+
+def test_standard_curve_warns_about_wells_beyond_the_top_standard():
+    from plugins.convert import StandardCurveConvert
+
+    t = np.arange(0.0, 60.0, 10.0)
+    levels = np.array([0.0, 1.0, 2.0, 4.0])
+    signal = np.vstack([50.0 + 120.0 * levels[:, None] + 0.0 * t, 50.0 + 2.4 * t, 400.0 + 5.0 * t])
+    wells = pd.DataFrame({"well": ["A1", "A2", "A3", "A4", "B1", "B2"], "role": ["standard"] * 4 + ["sample"] * 2,
+                          "product": [*levels, np.nan, np.nan]})
+    traces = Traces("p", t, signal, np.isfinite(signal), np.zeros_like(signal, bool), wells, "RFU",
+                    {"product": "uM"})
+    frame = pd.DataFrame({"well": ["B1", "B2"], "role": ["sample"] * 2, "rate": [2.4, 5.0], "rate_stderr": [0.0, 0.0]})
+    warnings: list[str] = []
+    _stage(StandardCurveConvert).run(_input({"traces": traces, "rates": Table(frame, {"rate": "RFU/s"},
+                                                                               {"signal_unit": "RFU"})}, warnings))
+    # B2 reaches 645 RFU, above the top standard's 530 RFU (4 uM); B1 stays below
+    assert any("1 sample well(s) read beyond the highest standard" in w and "B2" in w for w in warnings)
