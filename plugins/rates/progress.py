@@ -367,6 +367,8 @@ def progress_curve(
     todo = np.flatnonzero(sc.usable)
     if known:
         s0_arr = np.broadcast_to(np.asarray(s0, dtype=float), (n_w,))
+        # a changing well without a substrate concentration (0 or missing) does not fit this model: say so
+        out["flags"][todo[~(s0_arr[todo] > 0)]] |= int(Flag.FIT_FAILED)
         todo = todo[s0_arr[todo] > 0]
     if todo.size == 0 or t.size == 0:
         return finish(out, extra)

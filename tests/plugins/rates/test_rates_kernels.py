@@ -211,3 +211,16 @@ def test_auto_value_matches_numpy_polyfit_on_its_window() -> None:
         c = np.polyfit(T60[sel] - r.window_start_s[i], plate.signal[i, sel], 2)
         np.testing.assert_allclose(r.v0[i], c[1], rtol=1e-7)
         assert r.n_points[i] == sel.sum()
+
+
+def test_progress_flags_a_changing_well_without_substrate():
+    """With substrate and signal_per_conc given, a well that changes but has no substrate value (0 or
+    missing) cannot be fitted by the integrated equation: it gets FIT_FAILED, never a silent blank."""
+    from plugins.rates.progress import progress_curve
+
+    rng = np.random.default_rng(0)
+    t = np.arange(0.0, 600.0, 10.0)
+    y = 0.05 + 1e-4 * t + rng.normal(0.0, 0.001, (3, t.size))
+    res = progress_curve(t, y, s0=np.array([100.0, np.nan, 0.0]), signal_per_conc=0.0034)
+    assert np.isfinite(res.v0[0]) and not res.flags[0] & int(Flag.FIT_FAILED)
+    assert np.isnan(res.v0[1:]).all() and (res.flags[1:] & int(Flag.FIT_FAILED)).all()
