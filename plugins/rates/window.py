@@ -3,7 +3,8 @@
 For each well, the ordinary least-squares line through the usable reads with ``start <= t <= end``: the
 slope is v0 (signal/s), with its standard error from the residual variance (n - 2 degrees of freedom) and
 the coefficient of determination R². All wells are solved at once from weighted sums, so a 1536-well plate
-costs a handful of array operations.
+costs a handful of array operations. Flags: ALL_MISSING, TOO_FEW_POINTS, NO_SIGNAL (a constant well: no rate)
+and NOISY (signal-to-noise of the slope below 10; the rate is kept).
 """
 
 from __future__ import annotations
@@ -11,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from plugins.flags import Flag
+from plugins.rates.noise import flag_noisy
 from plugins.rates.result import RateResult
 
 MIN_POINTS = 3
@@ -44,6 +46,9 @@ def window_slopes(time: np.ndarray, signal: np.ndarray, start_s: float, end_s: f
     constant = (syy == 0) & ~few
     flags |= np.where(constant, int(Flag.NO_SIGNAL), 0)
     bad = few | constant | ~np.isfinite(slope)
+    # NOISY as for every method: the slope's signal-to-noise |v0| / SE(v0) below 10 (docs/rates.md). The
+    # rate is still reported; the recipe's fit step decides whether noisy wells are fitted.
+    flag_noisy(np.where(bad, np.nan, slope), stderr, flags)
     nan = np.full(len(y), np.nan)
     return RateResult(
         v0=np.where(bad, np.nan, slope),

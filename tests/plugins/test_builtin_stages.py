@@ -182,3 +182,13 @@ def test_standard_curve_warns_about_wells_beyond_the_top_standard():
                                                                                {"signal_unit": "RFU"})}, warnings))
     # B2 reaches 645 RFU, above the top standard's 530 RFU (4 uM); B1 stays below
     assert any("1 sample well(s) read beyond the highest standard" in w and "B2" in w for w in warnings)
+
+
+def test_window_flags_noisy_slopes_but_keeps_them():
+    # SNR = |v0| / SE(v0) below 10 (docs/rates.md): flagged NOISY, rate still reported
+    rng = np.random.default_rng(3)
+    t = np.arange(0.0, 100.0, 10.0)
+    y = np.vstack([1e-3 * t + rng.normal(0, 1e-4, t.size), 1e-6 * t + rng.normal(0, 1e-3, t.size)])
+    res = window_slopes(t, y, 0.0, 100.0)
+    assert not res.flags[0] & 32 and res.flags[1] & 32  # Flag.NOISY
+    assert np.isfinite(res.v0).all()
