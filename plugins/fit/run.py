@@ -22,7 +22,6 @@ from pipeline.params import closest
 from pipeline.stage import StageInput, StageOutput
 from plugins.fit import compare, diagnostics, engine
 from plugins.fit.catalog import BY_NAME, Model
-from plugins.flags import from_names
 
 NOT_DETERMINED = "not determined"
 
@@ -253,13 +252,13 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     if "role" in frame.columns:
         use &= frame["role"].astype(str).to_numpy() == "sample"
     if "flags" in frame.columns:
-        excl = 0
-        for name in cfg["exclude_flags"]:
-            excl |= from_names(name)
-        codes = {t: from_names(t) for t in frame["flags"].fillna("").astype(str).unique()}
-        use &= np.array([codes[t] & excl == 0 for t in frame["flags"].fillna("").astype(str)], bool)
+        # by name, so that flags a lab's own rate plugin sets (names we do not know) never break the fit
+        excluded = set(cfg["exclude_flags"])
+        texts = frame["flags"].fillna("").astype(str)
+        hit = {t: bool(excluded & set(filter(None, t.split(";")))) for t in texts.unique()}
+        use &= ~np.array([hit[t] for t in texts], bool)
     if gcol in frame.columns:
-        groups = frame[gcol].astype(str).to_numpy()
+        groups = frame[gcol].fillna("").astype(str).to_numpy()  # a missing group is the group ""
     else:
         data.warn(f"fit: the rates table has no column {gcol!r}; all wells are fitted as one group 'all'")
         groups = np.full(len(frame), "all", dtype=object)

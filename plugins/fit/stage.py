@@ -29,6 +29,8 @@ def _numbers_by_model(value: Any) -> str | None:
                 isinstance(u, int | float) and not isinstance(u, bool) for u in v)
             if not (ok or pair):
                 return f"{model}.{name}: expected a number (or [low, high] for bounds), got {v!r}"
+            if pair and not v[0] < v[1]:
+                return f"{model}.{name}: the bounds [low, high] must have low < high, got {list(v)!r}"
     return None
 
 

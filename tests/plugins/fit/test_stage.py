@@ -214,3 +214,33 @@ def test_inhibition_matrix_prefers_the_simulated_mechanism() -> None:
     assert set(mixed.f_test_against) == {"competitive", "uncompetitive", "noncompetitive"}
     kic = _param(out["fits"].frame, "inh", "competitive", "Kic")
     assert abs(kic.estimate - 2) < 4 * kic.stderr and kic.unit == "uM"
+
+
+def test_unknown_flag_names_and_missing_groups_do_not_break_the_fit() -> None:
+    """A lab plugin may set flags of its own ('spike'); a group value may be missing: the fit goes on."""
+    from pipeline.data import Table
+    from pipeline.params import validate
+    from pipeline.plugins import make_manager
+    from pipeline.stage import StageInput
+    from plugins.fit.stage import FitStage
+
+    s = np.repeat([1.0, 2.0, 5.0, 10.0, 20.0, 50.0], 2)
+    rate = 10.0 * s / (5.0 + s)
+    frame = pd.DataFrame({"well": [f"A{i + 1}" for i in range(s.size)], "group": ["g"] * (s.size - 1) + [None],
+                          "role": "sample", "substrate": s, "rate": rate, "rate_stderr": 0.1,
+                          "flags": ["spike"] + [""] * (s.size - 1)})
+    settings, problems = validate(FitStage.params, {"models": ["michaelis-menten"]})
+    assert not problems
+    data = StageInput({"rates": Table(frame, {"rate": "uM/min", "substrate": "uM"})}, None, {}, {},
+                      make_manager(autoload=False).registry, lambda _: None)
+    fits = FitStage(**settings).run(data).artifacts["fits"].frame
+    assert set(fits["group"]) == {"g", ""}
+    assert fits.loc[(fits["group"] == "g") & (fits["parameter"] == "Km"), "n_points"].iloc[0] == s.size - 1
+
+
+def test_reversed_bounds_are_a_recipe_error() -> None:
+    from pipeline.params import validate
+    from plugins.fit.stage import FitStage
+
+    _, problems = validate(FitStage.params, {"bounds": {"michaelis-menten": {"Km": [200, 100]}}})
+    assert problems and "low < high" in problems[0][1]
