@@ -14,7 +14,7 @@ import numpy as np
 
 
 class Flag(enum.IntFlag):
-    """Quality flags for a well. Definitions are in docs/flags.md."""
+    """Quality flags for a well. Definitions are in docs/rates.md (section "Flags") and docs/inputs.md."""
 
     NONE = 0
     SATURATED = 1 << 0  # a read at the detector ceiling or an overflow token; those reads are masked
