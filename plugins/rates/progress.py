@@ -337,7 +337,8 @@ def progress_curve(
     the read noise (the model does not describe the curve). Wells flagged by the screen (NO_SIGNAL, ...) are
     never fitted. ``extra``: ``km``, ``vmax`` (per second), ``s0_fit`` (A in signal units when s0 is unknown),
     ``rmse_over_noise``. Km and Vmax are weakly determined when the curve is far from completion; v0 is
-    a fitted parameter itself, so its value and standard error stay sound there.
+    a fitted parameter itself, so its value stays sound there; its standard error then errs on the large side
+    (95 % intervals covered the truth 97 % of the time on 12 %-conversion curves with S0 = Km, one simulation).
 
     ``model="power"`` fits instead a rate that falls as a power of the substrate left, ``v = v0 (1 -
     x)^n`` (:func:`power_conversion`; needs ``s0`` and ``signal_per_conc``), with fitted baseline, v0 and
