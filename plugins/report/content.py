@@ -137,6 +137,11 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
     roles = rates["role"].astype(str).to_numpy() if "role" in rates else np.full(n, "sample", dtype=object)
     flags = rates["flags"].tolist() if "flags" in rates else [""] * n
     notes = _notes(rates)
+    # every built-in model but the dose-response ones needs the substrate of a well: without it, not fitted
+    x_col = str(options.get("x", "substrate"))
+    models = list(options.get("models") or ["michaelis-menten", "hill"])
+    needs_x = x_col in rates and not ({"logistic-4p", "morrison"} & set(models))
+    x = pd.to_numeric(rates[x_col], errors="coerce").to_numpy(float) if needs_x else np.zeros(n)
     excluding = set(options.get("exclude_flags", DEFAULT_EXCLUDE))
     used = np.zeros(n, dtype=bool)
     for i in range(n):  # a short loop over table rows (text work), not over signal arrays
@@ -149,6 +154,8 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
                 reasons[i] += f" ({notes[i]})"
         elif not np.isfinite(rate[i]):
             reasons[i] = "no rate"
+        elif not np.isfinite(x[i]):
+            reasons[i] = f"no {x_col} concentration: not fitted"
         else:
             used[i] = True
     return used, reasons
