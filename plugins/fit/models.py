@@ -83,11 +83,17 @@ def _mm_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
     return [s / d, -p[0] * s / d**2]
 
 
-def _hill_u(p: Sequence[Arr], s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _ratio_power(c: np.ndarray, k: Arr, n: Arr) -> tuple[np.ndarray, np.ndarray]:
+    """``u = (c/k)**n`` and ``ln(c/k)`` (``-inf`` at c <= 0, so that u is 0 there): the Hill and
+    log-logistic terms."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        ls = np.where(s > 0, np.log(np.where(s > 0, s, 1.0)) - np.log(p[1]), -np.inf)
-        u = np.exp(p[2] * ls)
-    return u, ls
+        lc = np.where(c > 0, np.log(np.where(c > 0, c, 1.0)) - np.log(k), -np.inf)
+        u = np.exp(n * lc)
+    return u, lc
+
+
+def _hill_u(p: Sequence[Arr], s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    return _ratio_power(s, p[1], p[2])
 
 
 def _hill(p: Sequence[Arr], x: X) -> np.ndarray:
@@ -214,10 +220,7 @@ def _morrison_guess(x: X, y: np.ndarray) -> list[float]:
 
 
 def _logistic_u(p: Sequence[Arr], i: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    with np.errstate(divide="ignore", invalid="ignore"):
-        li = np.where(i > 0, np.log(np.where(i > 0, i, 1.0)) - np.log(p[2]), -np.inf)
-        u = np.exp(p[3] * li)
-    return u, li
+    return _ratio_power(i, p[2], p[3])
 
 
 def _logistic(p: Sequence[Arr], x: X) -> np.ndarray:
