@@ -113,8 +113,38 @@ def _register(pm: pluggy.PluginManager, sources: dict[str, Source], name: str, o
 
 
 def _entry_points() -> list[tuple[metadata.EntryPoint, str, str]]:
-    """Entry points of the group with their distribution's name and version (each read once: parsing a
-    distribution's metadata is the slow part of start-up), sorted, each (distribution, name) once."""
+    """Entry points of the group with their distribution's name and version, sorted, each (distribution,
+    name) once.
+
+    Scanning the installed distributions costs a few milliseconds, a large share of a small run, so the
+    answer is kept for as long as ``sys.path`` and the modification times of its folders stay the same
+    (installing or removing a distribution changes the folder holding its metadata)."""
+    key = _path_state()
+    cached = _ENTRY_POINT_CACHE.get(key)
+    if cached is None:
+        _ENTRY_POINT_CACHE.clear()
+        cached = _ENTRY_POINT_CACHE[key] = _scan_entry_points()
+    return list(cached)
+
+
+_ENTRY_POINT_CACHE: dict[tuple[tuple[str, int], ...], list[tuple[metadata.EntryPoint, str, str]]] = {}
+
+
+def _path_state() -> tuple[tuple[str, int], ...]:
+    """``sys.path`` with each folder's modification time (ns; -1 where it cannot be read)."""
+    state = []
+    for entry in sys.path:
+        try:
+            mtime = os.stat(entry or ".").st_mtime_ns
+        except OSError:
+            mtime = -1
+        state.append((entry, mtime))
+    return tuple(state)
+
+
+def _scan_entry_points() -> list[tuple[metadata.EntryPoint, str, str]]:
+    """Read the entry points of the group from the installed distributions' metadata (each distribution's
+    metadata parsed once)."""
     about: dict[int, tuple[str, str]] = {}
     found = []
     for ep in metadata.entry_points(group=ENTRY_POINT_GROUP):

@@ -579,19 +579,38 @@ def write_csv(path: str, frame: pd.DataFrame) -> None:
 def _write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],
                    failed: Mapping[str, str], elsewhere: Mapping[str, Any] | None = None) -> None:
     """One CSV per final table (those in ``elsewhere`` are being written by workers: wait for them), the
-    files final steps returned, the list of failed plates; then fsync."""
-    for name, table in tables.items():
-        if elsewhere and name in elsewhere:
-            elsewhere[name].result()
-        else:
-            write_csv(str(tmp / f"{name}.csv"), table.frame)
-    for rel, data in files.items():
-        target = tmp / rel
-        target.parent.mkdir(parents=True, exist_ok=True)
-        target.write_bytes(data)
-    if failed:
-        (tmp / "failed_plates.txt").write_text("".join(f"{k}: {v}\n" for k, v in failed.items()), "utf-8")
-    _fsync_dir(tmp)
+    files final steps returned, the list of failed plates; every file in ``tmp`` is on disk (fsync) when this
+    returns.
+
+    The fsync calls wait on the disk, not on the processor, and release the GIL: a thread flushes run.h5 and
+    each file as soon as it is written while this thread formats the next, so the flushing costs almost no
+    time of its own."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="vzero-fsync") as flusher:
+        syncs = [flusher.submit(_fsync, tmp / "run.h5")]
+
+        def written(path: Path) -> None:
+            syncs.append(flusher.submit(_fsync, path))
+
+        for name, table in tables.items():
+            target = tmp / f"{name}.csv"
+            if elsewhere and name in elsewhere:
+                elsewhere[name].result()
+            else:
+                write_csv(str(target), table.frame)
+            written(target)
+        for rel, data in files.items():
+            target = tmp / rel
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(data)
+            written(target)
+        if failed:
+            target = tmp / "failed_plates.txt"
+            target.write_text("".join(f"{k}: {v}\n" for k, v in failed.items()), "utf-8")
+            written(target)
+        for sync in syncs:
+            sync.result()
 
 
 def csv_text(frame: pd.DataFrame) -> str | None:
@@ -652,11 +671,10 @@ _NEEDS_QUOTES = re.compile('[,"\r\n]')
 """Characters that make the csv module quote a field (delimiter, quote character, line breaks)."""
 
 
-def _fsync_dir(path: Path) -> None:
-    for p in path.rglob("*"):
-        if p.is_file():
-            with open(p, "rb") as fh:
-                os.fsync(fh.fileno())
+def _fsync(path: Path) -> None:
+    """Flush one file's data to disk (the run is renamed into place only once every file is)."""
+    with open(path, "rb") as fh:
+        os.fsync(fh.fileno())
 
 
 def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:
