@@ -146,17 +146,32 @@ def _scalar_space() -> Any:
 def _column_values(series: pd.Series) -> tuple[np.ndarray, str, bytes]:
     """The array to store for one column, its kind for the hash (``b``, ``i``, ``f``; ``O`` for text however
     it is stored) and the bytes the hash covers (little-endian numbers; length-prefixed UTF-8 text)."""
-    dtype = series.dtype
-    if pd.api.types.is_bool_dtype(dtype):
-        arr = series.to_numpy(dtype=bool)
-    elif pd.api.types.is_integer_dtype(dtype):
-        arr = series.to_numpy(dtype=np.int64)
-    elif pd.api.types.is_float_dtype(dtype):
-        arr = series.to_numpy(dtype=np.float64)
-    else:
+    kind = _storage_kind(series.dtype)
+    if kind == "O":
         stored, body = _text_array(*text_codes(series.to_numpy(dtype=object)))
         return stored, "O", body
-    return arr, arr.dtype.kind, arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes()
+    arr = series.to_numpy(dtype=_NUMERIC[kind])
+    return arr, kind, arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes()
+
+
+_NUMERIC = {"b": np.dtype(bool), "i": np.dtype(np.int64), "f": np.dtype(np.float64)}
+_KINDS: dict[Any, str] = {}  # a column dtype's storage kind, worked out once per dtype
+
+
+def _storage_kind(dtype: Any) -> str:
+    """How a column of this dtype is stored: ``b`` bool, ``i`` int64, ``f`` float64, ``O`` text."""
+    try:
+        return _KINDS[dtype]
+    except (KeyError, TypeError):
+        pass
+    types = pd.api.types
+    kind = ("b" if types.is_bool_dtype(dtype) else "i" if types.is_integer_dtype(dtype)
+            else "f" if types.is_float_dtype(dtype) else "O")
+    try:
+        _KINDS[dtype] = kind
+    except TypeError:  # an unhashable extension dtype: worked out each time
+        pass
+    return kind
 
 
 def text_codes(values: np.ndarray) -> tuple[list[str], np.ndarray]:
@@ -173,23 +188,16 @@ def text_codes(values: np.ndarray) -> tuple[list[str], np.ndarray]:
 def _text_array(texts: list[str], codes: np.ndarray) -> tuple[np.ndarray, bytes]:
     """Text (``texts[codes]``) as a fixed-length UTF-8 string array (NUL-padded; much faster to write than
     variable-length strings) and its length-prefixed bytes for the hash. HDF5 strings cannot hold a NUL
-    character (neither kind keeps it), so such a value is refused rather than stored cut short."""
+    character (neither kind keeps it), so such a value is refused rather than stored cut short.
+
+    Each distinct text is encoded and prefixed once; rows only pick among them."""
     encoded = [t.encode("utf-8") for t in texts]
-    lengths = np.fromiter(map(len, encoded), dtype="<u8", count=len(encoded))[codes]
-    width = max(int(lengths.max(initial=0)), 1)
-    fixed = np.array(encoded, dtype=f"S{width}")[codes]
-    grid = fixed.view(np.uint8).reshape(len(codes), width)
-    if np.count_nonzero(grid) != int(lengths.sum()):  # only the padding may be NUL
+    if any(b"\0" in e for e in encoded):
         raise ValueError("a text value holds a NUL character, which HDF5 strings cannot store")
-    return fixed.astype(_h5py().string_dtype("utf-8", width)), _length_prefixed_grid(lengths, grid)
-
-
-def _length_prefixed_grid(lengths: np.ndarray, grid: np.ndarray) -> bytes:
-    """Each value as its length (8 bytes, little-endian) followed by its bytes, all concatenated, from the
-    lengths and the NUL-padded rows of bytes (vectorised: no Python loop over values)."""
-    rows = np.concatenate([lengths.view(np.uint8).reshape(-1, 8), grid], axis=1)
-    keep = np.arange(rows.shape[1]) < (lengths[:, None].astype(np.int64) + 8)
-    return rows[keep].tobytes()
+    width = max(max(map(len, encoded), default=0), 1)
+    fixed = np.array(encoded, dtype=f"S{width}")[codes]
+    prefixed = np.array([len(e).to_bytes(8, "little") + e for e in encoded], dtype=object)
+    return fixed, b"".join(prefixed[codes].tolist())
 
 
 def _column(gid: Any, key: str, data: np.ndarray, head: bytes, body: bytes, links: Links | None) -> None:
@@ -210,7 +218,10 @@ def _dataset(gid: Any, key: str, data: np.ndarray) -> Any:
     """``create_dataset(key, data=data)`` through h5py's low-level calls (half the cost for small columns:
     no keyword handling, no filters, contiguous layout); returns the low-level dataset id."""
     h5py = _h5py()
-    tid = h5py.h5t.py_create(data.dtype, logical=True)
+    tid = _dataset_types.get(data.dtype.str)
+    if tid is None:  # fixed-length byte strings are stored as UTF-8 text (h5py.string_dtype("utf-8", n))
+        stored = h5py.string_dtype("utf-8", data.dtype.itemsize) if data.dtype.kind == "S" else data.dtype
+        tid = _dataset_types[data.dtype.str] = h5py.h5t.py_create(stored, logical=True)
     sid = h5py.h5s.create_simple(data.shape)
     dsid = h5py.h5d.create(gid, key.encode(), tid, sid)
     if data.size:
@@ -218,13 +229,12 @@ def _dataset(gid: Any, key: str, data: np.ndarray) -> Any:
     return dsid
 
 
+_dataset_types: dict[str, Any] = {}  # HDF5 type of a column dataset, by numpy dtype (created once)
+
+
 def _length_prefixed(text: Any) -> bytes:
     """Each string as its UTF-8 length (8 bytes, little-endian) followed by its bytes, all concatenated."""
-    encoded = [t.encode("utf-8") for t in text]
-    lengths = np.fromiter(map(len, encoded), dtype="<u8", count=len(encoded))
-    width = max(int(lengths.max(initial=0)), 1)
-    grid = np.array(encoded, dtype=f"S{width}").view(np.uint8).reshape(len(encoded), width)
-    return _length_prefixed_grid(lengths, grid)
+    return b"".join(len(e).to_bytes(8, "little") + e for e in (t.encode("utf-8") for t in text))
 
 
 def _text(values: Any) -> list[str]:

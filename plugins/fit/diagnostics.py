@@ -11,6 +11,7 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+import pandas as pd
 from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
 
 from plugins.fit.catalog import Model
@@ -30,14 +31,18 @@ def _ols(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
     return float(slope), float(intercept)
 
 
+TRANSFORM_COLUMNS = ["group", "plot", "quantity", "x", "y", "plate", "well", "unstable", "x_label", "y_label"]
+"""Columns of the diagnostics table (see :func:`transforms`)."""
+
+
 def transforms(group: Any, s: np.ndarray, v: np.ndarray, vmax: float, ids: list[tuple[str, str]],
-               s_unit: str, v_unit: str) -> list[dict[str, Any]]:
-    """Rows of the diagnostics table for one group: points of the four plots and each line's estimates.
+               s_unit: str, v_unit: str) -> dict[str, np.ndarray]:
+    """The diagnostics table's rows for one group, as columns (:data:`TRANSFORM_COLUMNS`): for each plot its
+    points, then its line's slope, intercept and the estimates the line implies.
 
     ``vmax`` (from the nonlinear Hill or Michaelis-Menten fit) is needed for the Hill plot only. ``ids`` are
     (plate, well) per point.
     """
-    rows: list[dict[str, Any]] = []
     with np.errstate(divide="ignore", invalid="ignore"):
         pos = (s > 0) & (v > 0)
         plots = {
@@ -51,24 +56,44 @@ def transforms(group: Any, s: np.ndarray, v: np.ndarray, vmax: float, ids: list[
             stable = (frac > HILL_STABLE[0]) & (frac < HILL_STABLE[1]) & (s > 0)
             plots["hill"] = (np.log10(s), hy, f"log10(S/{s_unit})", "log10(v/(Vmax − v))", stable)
 
+    n = len(s)
+    plates = [i[0] for i in ids]
+    wells = [i[1] for i in ids]
+    parts: list[dict[str, np.ndarray]] = []
     for plot, (x, y, xl, yl, usable) in plots.items():
-        for k in range(len(s)):
-            rows.append({"group": group, "plot": plot, "quantity": "point", "x": float(x[k]), "y": float(y[k]),
-                         "plate": ids[k][0], "well": ids[k][1], "unstable": not bool(usable[k]) or
-                         not np.isfinite(y[k]), "x_label": xl, "y_label": yl})
-        slope, icpt = _ols(x[usable], y[usable])
-        if plot == "lineweaver-burk":
-            est = {"Vmax": 1 / icpt, "Km": slope / icpt}
-        elif plot == "eadie-hofstee":
-            est = {"Vmax": icpt, "Km": -slope}
-        elif plot == "hanes-woolf":
-            est = {"Vmax": 1 / slope, "Km": icpt / slope}
-        else:
-            est = {"h": slope, "K0.5": 10 ** (-icpt / slope) if slope else np.nan}
-        for q, val in {"slope": slope, "intercept": icpt, **est}.items():
-            rows.append({"group": group, "plot": plot, "quantity": q, "x": np.nan, "y": float(val), "plate": "",
-                         "well": "", "unstable": False, "x_label": xl, "y_label": yl})
-    return rows
+        slope, icpt = (np.float64(q) for q in _ols(x[usable], y[usable]))  # numpy floats: 1/0 is inf, not an error
+        with np.errstate(divide="ignore", invalid="ignore"):
+            if plot == "lineweaver-burk":
+                est = {"Vmax": 1 / icpt, "Km": slope / icpt}
+            elif plot == "eadie-hofstee":
+                est = {"Vmax": icpt, "Km": -slope}
+            elif plot == "hanes-woolf":
+                est = {"Vmax": 1 / slope, "Km": icpt / slope}
+            else:
+                est = {"h": slope, "K0.5": 10 ** (-icpt / slope) if slope else np.nan}
+        lines = {"slope": slope, "intercept": icpt, **est}
+        m = len(lines)
+        y = np.asarray(y, float)
+        parts.append({
+            "group": np.full(n + m, group, dtype=object),
+            "plot": np.full(n + m, plot, dtype=object),
+            "quantity": np.array(["point"] * n + list(lines), dtype=object),
+            "x": np.concatenate([np.asarray(x, float), np.full(m, np.nan)]),
+            "y": np.concatenate([y, np.array([float(q) for q in lines.values()])]),
+            "plate": np.array(plates + [""] * m, dtype=object),
+            "well": np.array(wells + [""] * m, dtype=object),
+            "unstable": np.concatenate([~np.asarray(usable, bool) | ~np.isfinite(y), np.zeros(m, bool)]),
+            "x_label": np.full(n + m, xl, dtype=object),
+            "y_label": np.full(n + m, yl, dtype=object),
+        })
+    return {c: np.concatenate([p[c] for p in parts]) for c in TRANSFORM_COLUMNS}
+
+
+def stack(blocks: list[dict[str, np.ndarray]], columns: list[str]) -> pd.DataFrame:
+    """One table from blocks of columns (each a mapping column -> equal-length array), in block order."""
+    if not blocks:
+        return pd.DataFrame(columns=columns)
+    return pd.DataFrame({c: np.concatenate([b[c] for b in blocks]) for c in columns}, columns=columns)
 
 
 def band(model: Model, res: FitResult, x: dict[str, np.ndarray], confidence: float) -> tuple[np.ndarray, ...]:

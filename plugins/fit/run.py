@@ -399,14 +399,19 @@ def _with_comparison(fits: pd.DataFrame, comp_rows: list[dict[str, Any]]) -> pd.
     """The model comparison on every row of the fits table: the model's AICc difference from the best and
     Akaike weight, the group's preferred model and whether this row's model is it (the full comparison, with
     F-tests and reasons, is the model_comparison table)."""
-    cols = ["delta_aicc", "akaike_weight", "preferred_model"]
     if not comp_rows or fits.empty:
         return fits.assign(delta_aicc=np.nan, akaike_weight=np.nan, preferred_model="", preferred=False)
-    comp = pd.DataFrame(comp_rows).drop_duplicates(["group", "model"]).rename(columns={"preferred": "preferred_model"})
-    out = fits.merge(comp[["group", "model", *cols]], on=["group", "model"], how="left")
-    out["preferred_model"] = out["preferred_model"].fillna("").astype(str)
-    out["preferred"] = out["model"] == out["preferred_model"]
-    return out
+    by_key: dict[tuple[str, str], dict[str, Any]] = {}
+    for r in comp_rows:  # the first row of each (group, model), as the comparison lists them
+        by_key.setdefault((str(r["group"]), str(r["model"])), r)
+    found = [by_key.get(k, {}) for k in zip(fits["group"].astype(str), fits["model"].astype(str), strict=True)]
+    preferred = ["" if pd.isna(r.get("preferred")) else str(r.get("preferred")) for r in found]
+    return fits.assign(
+        delta_aicc=np.array([r.get("delta_aicc", np.nan) for r in found], float),
+        akaike_weight=np.array([r.get("akaike_weight", np.nan) for r in found], float),
+        preferred_model=preferred,
+        preferred=fits["model"].astype(str).to_numpy() == np.array(preferred, dtype=object),
+    )
 
 
 def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
@@ -420,7 +425,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
     by_name = {m.name: m for m in models}
     fit_rows: list[dict[str, Any]] = []
     corr_rows: list[dict[str, Any]] = []
-    curve_rows: list[dict[str, Any]] = []
+    curve_blocks: list[dict[str, np.ndarray]] = []
     for (g, mname), res in fits.items():
         model = by_name[mname]
         common = {"group": g, "model": mname, "n_points": res.n_points, "rss": res.rss, "dof": res.dof,
@@ -447,7 +452,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
         if res.success:
             corr_rows += diagnostics.correlations(g, mname, res)
             idx = np.array(point_sets[(g, mname)], int)
-            curve_rows += _curves(model, res, {**var, **xvars[mname]}, idx, g, conf, role_unit)
+            curve_blocks += _curves(model, res, {**var, **xvars[mname]}, idx, g, conf, role_unit)
 
     comp_rows: list[dict[str, Any]] = []
     coop_rows: list[dict[str, Any]] = []
@@ -471,7 +476,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
                               "ci_method": ci[2], "F": t.f if t else np.nan, "p_vs_michaelis_menten":
                               t.p if t else np.nan, "verdict": verdict, "reason": reason})
 
-    diag_rows: list[dict[str, Any]] = []
+    diag_blocks: list[dict[str, np.ndarray]] = []
     for g in sorted(set(groups[use])):
         idx = np.flatnonzero(use & (groups == g) & no_inhibitor & np.isfinite(var["substrate"]))
         if idx.size == 0:
@@ -482,8 +487,8 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
             if res is not None and res.success and np.isfinite(res.value("Vmax")):
                 vmax = res.value("Vmax")
                 break
-        diag_rows += diagnostics.transforms(g, var["substrate"][idx], rate[idx], vmax,
-                                            list(zip(plate[idx], well[idx], strict=True)), su or "1", ru or "1")
+        diag_blocks.append(diagnostics.transforms(g, var["substrate"][idx], rate[idx], vmax,
+                                            list(zip(plate[idx], well[idx], strict=True)), su or "1", ru or "1"))
 
     fit_cols = ["group", "model", "parameter", "estimate", "stderr", "ci_low", "ci_high", "ci_method", "unit",
                 "fixed", "n_points", "rss", "dof", "r_squared", "aicc", "success", "message", "errorbars", "note"]
@@ -497,10 +502,8 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
         "cooperativity": Table(pd.DataFrame(coop_rows, columns=[
             "group", "h", "stderr", "ci_low", "ci_high", "ci_method", "F", "p_vs_michaelis_menten", "verdict",
             "reason"]), {}, meta),
-        "diagnostics": Table(pd.DataFrame(diag_rows, columns=[
-            "group", "plot", "quantity", "x", "y", "plate", "well", "unstable", "x_label", "y_label"]), {}, meta),
-        "curves": Table(pd.DataFrame(curve_rows, columns=[
-            "group", "model", "variable", "inhibitor", "x", "y", "lower", "upper", "x_unit"]),
+        "diagnostics": Table(diagnostics.stack(diag_blocks, diagnostics.TRANSFORM_COLUMNS), {}, meta),
+        "curves": Table(diagnostics.stack(curve_blocks, CURVE_COLUMNS),
             {k: ru for k in ("y", "lower", "upper")} | ({"inhibitor": iu} if iu else {}), meta),
         "correlations": Table(pd.DataFrame(corr_rows, columns=["group", "model", "parameter_a", "parameter_b", "r"]),
                               {}, meta),
@@ -508,26 +511,29 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
     return StageOutput(artifacts=out)
 
 
+CURVE_COLUMNS = ["group", "model", "variable", "inhibitor", "x", "y", "lower", "upper", "x_unit"]
+"""Columns of the curves table (see :func:`_curves`)."""
+
+
 def _curves(model: Model, res: engine.FitResult, var: dict[str, np.ndarray], idx: np.ndarray, g: str,
-            conf: float, role_unit: dict[str, str]) -> list[dict[str, Any]]:
+            conf: float, role_unit: dict[str, str]) -> list[dict[str, np.ndarray]]:
     """Fitted curve and delta-method band on a grid: against substrate (one curve per inhibitor level for
-    inhibitor models), or against inhibitor for titration models."""
-    rows: list[dict[str, Any]] = []
+    inhibitor models), or against inhibitor for titration models. Blocks of :data:`CURVE_COLUMNS`."""
+
+    def block(variable: str, inhibitor: np.ndarray, xgrid: np.ndarray, x: dict[str, np.ndarray]) -> dict[str, Any]:
+        y, lo, hi = diagnostics.band(model, res, x, conf)
+        n = len(xgrid)
+        return {"group": np.full(n, g, dtype=object), "model": np.full(n, model.name, dtype=object),
+                "variable": np.full(n, variable, dtype=object), "inhibitor": np.asarray(inhibitor, float),
+                "x": np.asarray(xgrid, float), "y": np.asarray(y, float), "lower": np.asarray(lo, float),
+                "upper": np.asarray(hi, float), "x_unit": np.full(n, role_unit[variable], dtype=object)}
+
     if "substrate" in model.variables:
         xgrid = diagnostics.grid(var["substrate"][idx])
         levels = np.unique(var["inhibitor"][idx]) if "inhibitor" in model.variables else [np.nan]
-        for level in levels:
-            x = {"substrate": xgrid, "inhibitor": np.full_like(xgrid, level)}
-            y, lo, hi = diagnostics.band(model, res, x, conf)
-            rows += [{"group": g, "model": model.name, "variable": "substrate", "inhibitor": float(level),
-                      "x": a, "y": b, "lower": c, "upper": d, "x_unit": role_unit["substrate"]}
-                     for a, b, c, d in zip(xgrid, y, lo, hi, strict=True)]
-    else:
-        xgrid = diagnostics.grid(var["inhibitor"][idx])
-        e = var["enzyme"][idx]
-        x = {"inhibitor": xgrid, "enzyme": np.full_like(xgrid, np.nanmedian(e) if np.any(np.isfinite(e)) else 0)}
-        y, lo, hi = diagnostics.band(model, res, x, conf)
-        rows += [{"group": g, "model": model.name, "variable": "inhibitor", "inhibitor": a, "x": a, "y": b,
-                  "lower": c, "upper": d, "x_unit": role_unit["inhibitor"]}
-                 for a, b, c, d in zip(xgrid, y, lo, hi, strict=True)]
-    return rows
+        return [block("substrate", np.full(len(xgrid), float(level)), xgrid,
+                      {"substrate": xgrid, "inhibitor": np.full_like(xgrid, level)}) for level in levels]
+    xgrid = diagnostics.grid(var["inhibitor"][idx])
+    e = var["enzyme"][idx]
+    x = {"inhibitor": xgrid, "enzyme": np.full_like(xgrid, np.nanmedian(e) if np.any(np.isfinite(e)) else 0)}
+    return [block("inhibitor", xgrid, xgrid, x)]
