@@ -446,11 +446,12 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
         for o in outcomes:
             t = o.artifacts.get(name)
             if isinstance(t, Table):
-                frame = t.frame
-                if "plate" not in frame.columns:
-                    frame = frame.copy()
+                if "plate" in t.frame.columns:
+                    tables.append(t)
+                else:
+                    frame = t.frame.copy()
                     frame.insert(0, "plate", o.plate)
-                tables.append(t.with_frame(frame))
+                    tables.append(t.with_frame(frame))
         pooled[name] = Table.concat(tables)
     pooled["traces"] = traces
     return pooled

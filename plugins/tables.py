@@ -22,9 +22,11 @@ def saturation_flags(traces: Traces) -> np.ndarray:
 
 
 def rates_table(traces: Traces, result: RateResult, method: str, extra_flags: np.ndarray | None = None) -> Table:
-    """One row per well: identity and layout columns with units, then the rate, its error and window."""
+    """One row per well: the plate, identity and layout columns with units, then the rate, its error and
+    window. (The plate column is what the run's stacked rates table needs, so one plate's table is final as
+    it stands.)"""
     w = traces.wells
-    cols: dict[str, Any] = {}
+    cols: dict[str, Any] = {"plate": np.full(len(w), traces.plate, dtype=object)}
     units: dict[str, str] = {}
     for c in WELL_COLUMNS:
         if c in w.columns:

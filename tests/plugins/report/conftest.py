@@ -92,7 +92,7 @@ def report_input() -> ReportInput:
     result = window_slopes(traces.time, traces.masked_signal(), 0.0, 200.0)
     rates = rates_table(traces, result, "window")
     frame = rates.frame.copy()
-    frame.insert(0, "plate", "p-1")
+    frame["plate"] = "p-1"  # rates_table names the traces' plate; the recipe's plate is p-1
     # C5 excluded by the recipe, as plugins.exclusions leaves it: flag, no rate, the reason in "note"
     c5 = frame["well"] == "C5"
     frame.loc[c5, ["rate", "rate_stderr"]] = np.nan
