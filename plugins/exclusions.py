@@ -137,11 +137,12 @@ def _rows(traces: Traces, items: Sequence[Mapping[str, Any]], what: str) -> list
     """(row of the well in ``traces``, item) for the items naming this plate; an unknown well is an error."""
     from plugins.importers.wells import normalise_well
 
+    mine = [item for item in items if str(item.get("plate")) == traces.plate]
+    if not mine:
+        return []
     index = {normalise_well(w): i for i, w in enumerate(traces.well_names)}
     out = []
-    for item in items:
-        if str(item.get("plate")) != traces.plate:
-            continue
+    for item in mine:
         well = normalise_well(str(item["well"]))
         if well not in index:
             raise LayoutError(f"the recipe's {what} name well {well}, which plate {traces.plate} does not have",
@@ -201,17 +202,18 @@ def apply_overrides(traces: Traces, rates_table: Table, overrides: Sequence[Mapp
     from plugins.tables import saturation_flags
 
     _raise_if_bad({"overrides": list(overrides)})
-    frame = rates_table.frame.copy()
-    if list(frame["well"].astype(str)) != traces.well_names:
-        raise ValueError("apply_overrides: the rates table rows must match the traces' wells, in order")
-    flags = np.array([from_names(x) for x in frame["flags"].astype(str)], dtype=np.int64)
     wells = traces.wells
-    excluded = wells["excluded"].to_numpy(dtype=bool) if "excluded" in wells.columns else np.zeros(len(frame), bool)
-    notes = (wells["note"].astype(str).to_numpy(dtype=object) if "note" in wells.columns
-             else np.full(len(frame), "", dtype=object))
+    n = len(rates_table.frame)
+    if rates_table.frame["well"].astype(str).tolist() != traces.well_names:
+        raise ValueError("apply_overrides: the rates table rows must match the traces' wells, in order")
+    excluded = wells["excluded"].to_numpy(dtype=bool) if "excluded" in wells.columns else np.zeros(n, bool)
     items = _rows(traces, overrides, "overrides")
     if not items and not excluded.any() and "note" not in wells.columns:
         return rates_table
+    frame = rates_table.frame.copy()
+    flags = np.array([from_names(x) for x in frame["flags"].astype(str)], dtype=np.int64)
+    notes = (wells["note"].astype(str).to_numpy(dtype=object) if "note" in wells.columns
+             else np.full(n, "", dtype=object))
     measured = [c for c in frame.columns if c not in ("well", "flags", "note", "method") and
                 frame[c].dtype.kind == "f" and c not in wells.columns and not c.endswith("_unit")]
     signal = traces.masked_signal()

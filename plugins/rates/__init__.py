@@ -71,12 +71,13 @@ def failed_wells(frame: Any) -> list[str]:
     """``"C7: fit_failed"`` for each sample well carrying a failure flag (the run's exit code becomes 1)."""
     if "flags" not in frame or "role" not in frame:
         return []
-    out = []
-    for well, role, flags in zip(frame["well"], frame["role"], frame["flags"].astype(str), strict=True):
-        bad = [f for f in flags.split(";") if f in FAILURE_FLAGS]
-        if role == "sample" and bad:
-            out.append(f"{well}: {', '.join(bad)}")
-    return out
+    flags = frame["flags"].astype(str).tolist()
+    failing = {text: bad for text in set(flags) if (bad := [f for f in text.split(";") if f in FAILURE_FLAGS])}
+    if not failing:  # each distinct flag text is read once: most wells share a few
+        return []
+    return [f"{well}: {', '.join(failing[text])}"
+            for well, role, text in zip(frame["well"].tolist(), frame["role"].tolist(), flags, strict=True)
+            if role == "sample" and text in failing]
 
 
 class KernelRates(Stage):
