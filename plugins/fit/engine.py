@@ -270,6 +270,11 @@ def _fill_value(used: np.ndarray) -> float:
     return float(finite.mean()) if finite.size else 1.0
 
 
+STALL_GRADIENT = 1e-7
+"""Scaled gradient (the largest cosine between the residual vector and a Jacobian column) below which a refused
+step ends the iteration as converged (MINPACK's gtol test, applied when no step can be verified)."""
+
+
 def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: np.ndarray, vals: np.ndarray,
         free: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int, lam0: float = 1e-3,
         ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -339,7 +344,12 @@ def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: n
             r[idx[better]] = rt[better]
             cost[idx[better]] = ct[better]
             lam[idx] = np.where(better, np.maximum(lam[idx] / 10, 1e-12), lam[idx] * 4)
-            done = (better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
+            # converged: an accepted step that changed nothing, a vanishing gradient, or a step refused at a
+            # point where the gradient is already orthogonal to the residuals to rounding level (at the minimum
+            # to working precision, trial steps only add rounding noise: raising the damping until one is
+            # accepted would cost dozens of iterations and move nothing)
+            done = ((better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
+                    | (~better & (gnorm < STALL_GRADIENT)))
             stuck = lam[idx] > 1e16
             converged[idx[done]] = True
             active[idx[done | stuck]] = False

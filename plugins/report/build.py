@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.data import Table, Traces
-from plugins.report import content, figures
+from plugins.report import content, figures, parallel
 
 RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
                  "lab's validated procedures before relying on them, and do not use them for diagnosis or "
@@ -103,6 +103,34 @@ def _signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: st
     return None
 
 
+WEIGHTS = {"plate_map": 1.0, "progress_grid": 1.6, "rates_vs_x": 1.0, "transforms": 1.8}
+"""Relative cost of drawing each kind of figure as PNG and SVG (measured on the demo), to share them out."""
+
+DRAW_BATCH = 16
+"""Figures made before they are drawn together (bounds the memory of undrawn figures in long batches)."""
+
+
+class _Drawing:
+    """Figures made but not yet drawn. They are drawn together, in parallel where that is safe (see
+    :mod:`plugins.report.parallel`), and each one's bytes are set on its :class:`Figure`."""
+
+    def __init__(self) -> None:
+        self.pending: list[tuple[Any, int, float, Figure]] = []
+
+    def add(self, fig: Any, dpi: int, weight: float, entry: Figure) -> Figure:
+        self.pending.append((fig, dpi, weight, entry))
+        if len(self.pending) >= DRAW_BATCH:
+            self.flush()
+        return entry
+
+    def flush(self) -> None:
+        drawn = parallel.render_all(figures.render, [(fig, dpi) for fig, dpi, _, _ in self.pending],
+                                    [w for _, _, w, _ in self.pending])
+        for (_, _, _, entry), (png, svg) in zip(self.pending, drawn, strict=True):
+            entry.png, entry.svg = png, svg
+        self.pending.clear()
+
+
 def build(inp: ReportInput) -> dict[str, bytes]:
     """Draw every figure and render the HTML. Returns ``{relative path: bytes}``."""
     tables = inp.tables
@@ -122,6 +150,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         used, _ = content.fit_use(rates, options)
     taken: set[str] = set()
     figs: list[Figure] = []
+    drawing = _Drawing()
     notes = list(inp.notes)
 
     # plate maps and progress curves, per plate
@@ -132,11 +161,11 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             else used
         if len(pr) and "rate" in pr and "well" in pr:
             fig = figures.plate_map(plate, pr, pused, content.pretty_unit(rate_unit) or "?")
-            png, svg = figures.render(fig)
-            figs.append(Figure(_unique(f"plate-map_{figures.slug(plate)}", taken), f"Plate map of v0: {plate}",
-                               "Each circle is a well, darker for a faster initial rate. Hatched grey: no rate. "
-                               "A heavy ring marks a flagged well, a cross a sample well left out of the fit "
-                               "(reasons under Flagged wells and Exclusions).", png, svg, "plates"))
+            figs.append(drawing.add(fig, 130, WEIGHTS["plate_map"], Figure(
+                _unique(f"plate-map_{figures.slug(plate)}", taken), f"Plate map of v0: {plate}",
+                "Each circle is a well, darker for a faster initial rate. Hatched grey: no rate. A heavy ring marks "
+                "a flagged well, a cross a sample well left out of the fit (reasons under Flagged wells and "
+                "Exclusions).", b"", b"", "plates")))
         traces = inp.traces.get(plate)
         if traces is not None:
             slope = None
@@ -146,12 +175,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                     notes.append(f"plate {plate}: rate lines not drawn (the rates are not in {traces.signal_unit}/s "
                                  "and there is no signal_rate column)")
             fig, note = figures.progress_grid(traces, pr if len(pr) else None, slope, inp.max_panels)
-            png, svg = figures.render(fig, dpi=150)
             cap = ("Every well's reads (grey) in plate geometry, all cells on the same time and signal scale. The "
                    "orange line has the slope reported as the well's rate and spans the reads it came from. "
                    "Flagged wells have a dashed frame and their flags in short.")
-            figs.append(Figure(_unique(f"progress-curves_{figures.slug(plate)}", taken),
-                               f"Progress curves: {plate}", cap + (" " + note if note else ""), png, svg, "plates"))
+            figs.append(drawing.add(fig, 150, WEIGHTS["progress_grid"], Figure(
+                _unique(f"progress-curves_{figures.slug(plate)}", taken), f"Progress curves: {plate}",
+                cap + (" " + note if note else ""), b"", b"", "plates")))
 
     # per group: rates against concentration, transforms, tables
     groups: list[dict[str, Any]] = []
@@ -192,25 +221,24 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             fig = figures.rates_vs_x(g, pts, pused, cv, pref_raw, col, content.pretty_unit(unit),
                                      content.pretty_unit(rate_unit) or "?",
                                      _evaluators(fits, g, var))
-            png, svg = figures.render(fig)
             conf = f"{options['confidence'] * 100:g} %"
-            block["figures"].append(Figure(
+            block["figures"].append(drawing.add(fig, 130, WEIGHTS["rates_vs_x"], Figure(
                 _unique(f"rates-vs-{figures.slug(var)}_{figures.slug(g)}", taken), f"{g}: v0 against {col}",
                 f"Filled points: wells in the fit, with the standard error of each rate. Lines: fitted models; "
                 f"shaded: the {conf} pointwise confidence band of each curve. Hollow points were not fitted. Below: "
-                "residuals (observed − fitted) of the fitted wells.", png, svg, "groups"))
+                "residuals (observed − fitted) of the fitted wells.", b"", b"", "groups")))
         gd = diag[diag["group"].astype(str) == g] if "group" in diag else pd.DataFrame()
         if len(gd):
             x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
                                                     and len(rates) else "")
             fig = figures.transforms(g, gd, content.pretty_unit(rate_unit), content.pretty_unit(x_unit))
-            png, svg = figures.render(fig)
-            block["figures"].append(Figure(
+            block["figures"].append(drawing.add(fig, 130, WEIGHTS["transforms"], Figure(
                 _unique(f"transforms_{figures.slug(g)}", taken), f"{g}: Hill plot and linear transforms",
                 "Each transform's straight line and the estimates it implies are shown for inspection only: "
                 "transforms distort the errors, so the reported parameters come from the nonlinear fit. Hill plot "
-                "points outside 10–90 % of Vmax are hollow and not used for its line.", png, svg, "groups"))
+                "points outside 10–90 % of Vmax are hollow and not used for its line.", b"", b"", "groups")))
         groups.append(block)
+    drawing.flush()
     figs += [f for b in groups for f in b["figures"]]
 
     files: dict[str, bytes] = {}
