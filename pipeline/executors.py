@@ -307,7 +307,7 @@ class PlateStore:
         if not outcome.error and outcome.part is not None:  # written by a worker: copy it in
             subs = self.writer.add_part(outcome.records, outcome.part)
             if outcome.part_traces in subs:
-                self._traces[outcome.plate] = f"{subs[outcome.part_traces].name}/traces"
+                self._traces[outcome.plate] = f"{subs[outcome.part_traces]}/traces"
             outcome.part = None
         elif not outcome.error:
             from pipeline.data import Table

@@ -68,8 +68,10 @@ def unit(text: str, *, like: str | None = None, what: str = "unit") -> Any:
     return u
 
 
+@functools.lru_cache(maxsize=256)
 def factor(from_unit: str, to_unit: str) -> float:
-    """Multiplicative factor converting a value in ``from_unit`` to ``to_unit``; UnitError if incompatible."""
+    """Multiplicative factor converting a value in ``from_unit`` to ``to_unit``; UnitError if incompatible.
+    (Kept per pair of units: a batch asks the same few questions for every plate.)"""
     ureg = registry()
     try:
         return float(ureg.Quantity(1.0, from_unit).m_as(to_unit))

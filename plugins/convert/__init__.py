@@ -224,10 +224,15 @@ class StandardCurveConvert(Stage):
 
 
 def _warn_sign(frame: Any, warn: Any) -> None:
-    samples = frame[frame["role"] == "sample"] if "role" in frame else frame
-    rates = samples["rate"].dropna()
-    if len(rates) and (rates < 0).mean() > 0.5:
-        warn(f"{int((rates < 0).sum())} of {len(rates)} sample rates are negative after conversion: "
+    import numpy as np
+
+    rates = frame["rate"].to_numpy(dtype=float)
+    if "role" in frame:
+        rates = rates[(frame["role"] == "sample").to_numpy()]
+    rates = rates[np.isfinite(rates)]
+    negative = int((rates < 0).sum())
+    if rates.size and negative > 0.5 * rates.size:
+        warn(f"{negative} of {rates.size} sample rates are negative after conversion: "
              "check 'direction' (increase when the product absorbs, decrease when the substrate does)")
 
 

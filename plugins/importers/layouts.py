@@ -104,7 +104,25 @@ def _check_plate(wells: list[str], plate_size: int | None, source: str, rows: li
 
 
 def read_layout(data: bytes, *, source: str, plate_size: int | None = None) -> pd.DataFrame:
-    """Read a layout file (long or grid form; CSV, TSV, semicolon or xlsx) into one row per well."""
+    """Read a layout file (long or grid form; CSV, TSV, semicolon or xlsx) into one row per well.
+
+    A batch often gives every plate the same layout file: the last few layouts read are kept (by content,
+    name and plate size) and a copy is returned, so each is parsed once per process."""
+    key = (data, source, plate_size)
+    cached = _LAYOUTS.get(key)
+    if cached is None:
+        cached = _read_layout(data, source=source, plate_size=plate_size)
+        if len(_LAYOUTS) >= _LAYOUTS_KEPT:
+            _LAYOUTS.pop(next(iter(_LAYOUTS)))
+        _LAYOUTS[key] = cached
+    return cached.copy()
+
+
+_LAYOUTS: dict[tuple[bytes, str, int | None], pd.DataFrame] = {}
+_LAYOUTS_KEPT = 8
+
+
+def _read_layout(data: bytes, *, source: str, plate_size: int | None = None) -> pd.DataFrame:
     grid = load_grid(data, source=source, options=ReadOptions())
     for i, row in enumerate(grid.rows):
         if any(_column_name(c)[0] == "well" for c in row if c.strip()):
