@@ -116,6 +116,8 @@ class RunResult:
     failed: dict[str, str]
     audit_seconds: float = 0.0
     failed_items: list[str] = field(default_factory=list)
+    output_seconds: float = 0.0
+    """Time spent writing the CSV exports and other files beside run.h5, flushing and renaming (benchmarks)."""
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -262,10 +264,12 @@ def run(
         writer.failed_items = failed_items
         elsewhere = _csv_in_workers(executor, tmp, final_tables)
         writer.finish(final_tables, warnings, failed, derived_from)
+        t_out = time.perf_counter()
         _write_outputs(tmp, final_tables, files, failed, elsewhere)
         _swap_into_place(tmp, out_dir, force)
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
-                         audit_seconds=writer.seconds, failed_items=failed_items)
+                         audit_seconds=writer.seconds, failed_items=failed_items,
+                         output_seconds=time.perf_counter() - t_out)
     except BaseException:
         if writer is not None:
             writer.close()

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import base64
 import datetime as _dt
+import functools
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -103,32 +104,50 @@ def _signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: st
     return None
 
 
-WEIGHTS = {"plate_map": 1.0, "progress_grid": 1.6, "rates_vs_x": 1.0, "transforms": 1.8}
-"""Relative cost of drawing each kind of figure as PNG and SVG (measured on the demo), to share them out."""
+WEIGHTS = {"plate_map": 1.0, "progress_grid": 1.4, "rates_vs_x": 0.9, "transforms": 1.6}
+"""Relative cost of making each kind of figure and saving it as PNG and SVG (measured on the demo), to share
+them out."""
 
 DRAW_BATCH = 16
 """Figures made before they are drawn together (bounds the memory of undrawn figures in long batches)."""
 
 
 class _Drawing:
-    """Figures made but not yet drawn. They are drawn together, in parallel where that is safe (see
-    :mod:`plugins.report.parallel`), and each one's bytes are set on its :class:`Figure`."""
+    """Figures not yet made. Each is a job that makes the figure and saves it as PNG and SVG (returning a
+    note for the caption as its third part, possibly empty); the jobs run together, in parallel where that is
+    safe (see :mod:`plugins.report.parallel`), and each result is set on its :class:`Figure`."""
 
     def __init__(self) -> None:
-        self.pending: list[tuple[Any, int, float, Figure]] = []
+        self.pending: list[tuple[parallel.Job, float, Figure]] = []
 
-    def add(self, fig: Any, dpi: int, weight: float, entry: Figure) -> Figure:
-        self.pending.append((fig, dpi, weight, entry))
+    def add(self, job: parallel.Job, weight: float, entry: Figure) -> Figure:
+        self.pending.append((job, weight, entry))
         if len(self.pending) >= DRAW_BATCH:
             self.flush()
         return entry
 
     def flush(self) -> None:
-        drawn = parallel.render_all(figures.render, [(fig, dpi) for fig, dpi, _, _ in self.pending],
-                                    [w for _, _, w, _ in self.pending])
-        for (_, _, _, entry), (png, svg) in zip(self.pending, drawn, strict=True):
+        if not self.pending:
+            return
+        figures.load_matplotlib()  # once, here, so that forked children inherit it
+        done = parallel.run_all([job for job, _, _ in self.pending], [w for _, w, _ in self.pending])
+        for (_, _, entry), (png, svg, note) in zip(self.pending, done, strict=True):
             entry.png, entry.svg = png, svg
+            if note:
+                entry.caption += " " + note.decode("utf-8")
         self.pending.clear()
+
+
+def _job(make: Callable[[], Any], dpi: int) -> parallel.Job:
+    """The job for one figure: ``make()`` returns the figure, or (figure, caption note)."""
+
+    def job() -> tuple[bytes, bytes, bytes]:
+        made = make()
+        fig, note = made if isinstance(made, tuple) else (made, "")
+        png, svg = figures.render(fig, dpi=dpi)
+        return png, svg, note.encode("utf-8")
+
+    return job
 
 
 def build(inp: ReportInput) -> dict[str, bytes]:
@@ -160,8 +179,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         pused = used[(rates["plate"].astype(str) == plate).to_numpy()] if used is not None and "plate" in rates \
             else used
         if len(pr) and "rate" in pr and "well" in pr:
-            fig = figures.plate_map(plate, pr, pused, content.pretty_unit(rate_unit) or "?")
-            figs.append(drawing.add(fig, 130, WEIGHTS["plate_map"], Figure(
+            make = functools.partial(figures.plate_map, plate, pr, pused, content.pretty_unit(rate_unit) or "?")
+            figs.append(drawing.add(_job(make, 130), WEIGHTS["plate_map"], Figure(
                 _unique(f"plate-map_{figures.slug(plate)}", taken), f"Plate map of v0: {plate}",
                 "Each circle is a well, darker for a faster initial rate. Hatched grey: no rate. A heavy ring marks "
                 "a flagged well, a cross a sample well left out of the fit (reasons under Flagged wells and "
@@ -174,13 +193,13 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 if slope is None:
                     notes.append(f"plate {plate}: rate lines not drawn (the rates are not in {traces.signal_unit}/s "
                                  "and there is no signal_rate column)")
-            fig, note = figures.progress_grid(traces, pr if len(pr) else None, slope, inp.max_panels)
+            make = functools.partial(figures.progress_grid, traces, pr if len(pr) else None, slope, inp.max_panels)
             cap = ("Every well's reads (grey) in plate geometry, all cells on the same time and signal scale. The "
                    "orange line has the slope reported as the well's rate and spans the reads it came from. "
                    "Flagged wells have a dashed frame and their flags in short.")
-            figs.append(drawing.add(fig, 150, WEIGHTS["progress_grid"], Figure(
+            figs.append(drawing.add(_job(make, 150), WEIGHTS["progress_grid"], Figure(
                 _unique(f"progress-curves_{figures.slug(plate)}", taken), f"Progress curves: {plate}",
-                cap + (" " + note if note else ""), b"", b"", "plates")))
+                cap, b"", b"", "plates")))
 
     # per group: rates against concentration, transforms, tables
     groups: list[dict[str, Any]] = []
@@ -218,11 +237,10 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 columns=["model", "variable", "inhibitor", "x", "y", "lower", "upper"])
             unit = rate_units.get(col, "") or (str(pts[f"{col}_unit"].iloc[0]) if f"{col}_unit" in pts and len(pts)
                                                else "")
-            fig = figures.rates_vs_x(g, pts, pused, cv, pref_raw, col, content.pretty_unit(unit),
-                                     content.pretty_unit(rate_unit) or "?",
-                                     _evaluators(fits, g, var))
+            make = functools.partial(figures.rates_vs_x, g, pts, pused, cv, pref_raw, col, content.pretty_unit(unit),
+                                     content.pretty_unit(rate_unit) or "?", _evaluators(fits, g, var))
             conf = f"{options['confidence'] * 100:g} %"
-            block["figures"].append(drawing.add(fig, 130, WEIGHTS["rates_vs_x"], Figure(
+            block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["rates_vs_x"], Figure(
                 _unique(f"rates-vs-{figures.slug(var)}_{figures.slug(g)}", taken), f"{g}: v0 against {col}",
                 f"Filled points: wells in the fit, with the standard error of each rate. Lines: fitted models; "
                 f"shaded: the {conf} pointwise confidence band of each curve. Hollow points were not fitted. Below: "
@@ -231,8 +249,9 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         if len(gd):
             x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
                                                     and len(rates) else "")
-            fig = figures.transforms(g, gd, content.pretty_unit(rate_unit), content.pretty_unit(x_unit))
-            block["figures"].append(drawing.add(fig, 130, WEIGHTS["transforms"], Figure(
+            make = functools.partial(figures.transforms, g, gd, content.pretty_unit(rate_unit),
+                                     content.pretty_unit(x_unit))
+            block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["transforms"], Figure(
                 _unique(f"transforms_{figures.slug(g)}", taken), f"{g}: Hill plot and linear transforms",
                 "Each transform's straight line and the estimates it implies are shown for inspection only: "
                 "transforms distort the errors, so the reported parameters come from the nonlinear fit. Hill plot "

@@ -47,6 +47,15 @@ def slug(text: str) -> str:
     return s or "unnamed"
 
 
+def load_matplotlib() -> None:
+    """Import what making and saving the figures needs (before work is shared out to forked processes, so
+    that each inherits it instead of importing it again)."""
+    import matplotlib.backends.backend_agg
+    import matplotlib.backends.backend_svg
+    import matplotlib.figure
+    import matplotlib.font_manager  # noqa: F401
+
+
 def render(fig: Any, dpi: int = 130) -> tuple[bytes, bytes]:
     """PNG (at ``dpi``) and SVG bytes of ``fig``, drawn with the report style in force (so the SVG keeps its
     text as text). Artists marked rasterized go into the SVG as a bitmap at ``dpi``; everything else stays
