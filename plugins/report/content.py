@@ -129,19 +129,48 @@ def flag_list(text: Any) -> list[str]:
 
 
 def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray, list[str]]:
-    """Which wells the fit stage used (same rule as the fit stage: a sample, a finite rate, none of the
-    excluding flags) and, for each well not used, the reason in words ('' where used)."""
+    """Which wells the fit stage used and, for each well not used, the reason in words ('' where used).
+
+    The fit stage's rule: a sample well with a finite rate and none of the excluding flags, used by a model
+    when it has a value for each of the model's variables, and, for a model without an inhibitor variable,
+    no inhibitor. A well counts as used when at least one of the recipe's models uses it. A model the report
+    does not know (a lab's own) is taken to use any well with a rate."""
+    from plugins.fit.catalog import BY_NAME
+
     n = len(rates)
     reasons = [""] * n
     rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce").to_numpy(float)
     roles = rates["role"].astype(str).to_numpy() if "role" in rates else np.full(n, "sample", dtype=object)
     flags = rates["flags"].tolist() if "flags" in rates else [""] * n
     notes = _notes(rates)
-    # every built-in model but the dose-response ones needs the substrate of a well: without it, not fitted
-    x_col = str(options.get("x", "substrate"))
-    models = list(options.get("models") or ["michaelis-menten", "hill"])
-    needs_x = x_col in rates and not ({"logistic-4p", "morrison"} & set(models))
-    x = pd.to_numeric(rates[x_col], errors="coerce").to_numpy(float) if needs_x else np.zeros(n)
+    columns = {"substrate": str(options.get("x", "substrate")), "inhibitor": str(options.get("inhibitor", "inhibitor")),
+               "enzyme": "enzyme"}
+
+    def values(var: str) -> np.ndarray:
+        col = columns.get(var, var)
+        return pd.to_numeric(rates[col], errors="coerce").to_numpy(float) if col in rates else np.full(n, np.nan)
+
+    inhibitor = values("inhibitor")
+    with_inhibitor = np.isfinite(inhibitor) & (inhibitor != 0)
+    names = list(options.get("models") or ["michaelis-menten", "hill"])
+    by_model: list[tuple[str, np.ndarray, str]] = []  # (model, wells it can use, why not, for the others)
+    for name in names:
+        model = BY_NAME.get(name)
+        if model is None:
+            by_model.append((name, np.ones(n, bool), ""))
+            continue
+        ok = np.ones(n, bool)
+        why = np.full(n, "", dtype=object)
+        for var in model.variables:
+            missing = ~np.isfinite(values(var))
+            why[ok & missing] = f"no {columns.get(var, var)} concentration"
+            ok &= ~missing
+        if "inhibitor" not in model.variables:
+            why[ok & with_inhibitor] = "holds inhibitor, and the models fitted use none"
+            ok &= ~with_inhibitor
+        by_model.append((name, ok, why))
+    usable = np.any([ok for _, ok, _ in by_model], axis=0) if by_model else np.ones(n, bool)
+
     excluding = set(options.get("exclude_flags", DEFAULT_EXCLUDE))
     used = np.zeros(n, dtype=bool)
     for i in range(n):  # a short loop over table rows (text work), not over signal arrays
@@ -154,8 +183,9 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
                 reasons[i] += f" ({notes[i]})"
         elif not np.isfinite(rate[i]):
             reasons[i] = "no rate"
-        elif not np.isfinite(x[i]):
-            reasons[i] = f"no {x_col} concentration: not fitted"
+        elif not usable[i]:
+            whys = list(dict.fromkeys(str(w[i]) for _, ok, w in by_model if not ok[i] and str(w[i])))
+            reasons[i] = "; ".join(whys) + ": not fitted"
         else:
             used[i] = True
     return used, reasons

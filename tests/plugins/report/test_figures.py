@@ -121,3 +121,25 @@ def test_residuals_use_the_fitted_model_exactly(report_input):
     ev = _evaluators(report_input.tables["fits"].frame, GROUP, "substrate")
     s = np.array([0.0, 10.0, 100.0, 1000.0])
     assert_allclose(ev["michaelis-menten"](s), VMAX * s / (KM + s), rtol=1e-12)
+
+
+def test_wells_used_follow_the_fit_stages_rule_per_model() -> None:
+    """A well holding inhibitor is fitted only by a model with an inhibitor variable (the fit stage's rule,
+    plugins/fit/run.py); the report must not mark it as used when only substrate models were fitted."""
+    import numpy as np
+    import pandas as pd
+
+    rates = pd.DataFrame({
+        "well": ["A1", "A2", "A3", "A4"], "role": ["sample", "sample", "sample", "blank"],
+        "substrate": [10.0, 10.0, np.nan, 10.0], "inhibitor": [0.0, 5.0, 0.0, 0.0],
+        "rate": [1.0, 0.5, 0.7, 0.0], "flags": ["", "", "", ""],
+    })
+    substrate_only = {"models": ["michaelis-menten", "hill"]}
+    used, why = content.fit_use(rates, substrate_only)
+    assert used.tolist() == [True, False, False, False]
+    assert "inhibitor" in why[1] and "no substrate concentration" in why[2] and "blank" in why[3]
+    with_inhibition = {"models": ["michaelis-menten", "competitive"]}
+    used, _ = content.fit_use(rates, with_inhibition)
+    assert used.tolist() == [True, True, False, False]
+    used, _ = content.fit_use(rates, {"models": ["a-lab-model"]})  # unknown to the report: any well with a rate
+    assert used.tolist() == [True, True, True, False]
