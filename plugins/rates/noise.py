@@ -200,17 +200,21 @@ def blank_result(n_wells: int, flags: np.ndarray, goodness_name: str = "r_square
     }
 
 
+#: Flags that leave a well without a rate (:func:`finish` sets its v0 to NaN).
+NO_RATE = int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)
+
+
 def flag_noisy(v0: np.ndarray, stderr: np.ndarray, flags: np.ndarray, min_t: float = NOISY_MIN_T) -> None:
-    """Set NOISY in place where the rate's signal-to-noise ``|v0| / stderr`` is below ``min_t``."""
+    """Set NOISY in place where the rate's signal-to-noise ``|v0| / stderr`` is below ``min_t`` (not on wells
+    that get no rate at all: a well without signal is not also noisy)."""
     with np.errstate(invalid="ignore", divide="ignore"):
         snr = np.abs(v0) / stderr
-    flags[np.isfinite(v0) & ~(snr >= min_t)] |= int(Flag.NOISY)
+    flags[np.isfinite(v0) & ~(snr >= min_t) & ((flags & NO_RATE) == 0)] |= int(Flag.NOISY)
 
 
 def finish(fields: dict, extra: dict[str, np.ndarray] | None = None) -> RateResult:
     """Build the :class:`RateResult`, forcing NaN v0/stderr on wells flagged as having no rate."""
-    dead = int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)
-    bad = (fields["flags"] & dead) != 0
+    bad = (fields["flags"] & NO_RATE) != 0
     fields["v0"][bad] = np.nan
     fields["stderr"][bad] = np.nan
     return RateResult(**fields, extra=extra or {})

@@ -52,6 +52,7 @@ def test_bad_wells_flagged_not_raised(kernel) -> None:
     assert r.flags[2] & Flag.NO_SIGNAL
     assert r.flags[3] & Flag.NO_SIGNAL
     assert np.all(np.isnan(r.v0[:4])) and np.all(np.isnan(r.stderr[:4]))
+    assert not np.any(r.flags[:4] & Flag.NOISY)  # a well without a rate is not also called noisy
     # the good well: slope 1e-3 /s exactly by construction
     assert r.v0[4] == pytest.approx(1e-3, rel=0.05)
     assert r.flags[4] & (Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.FIT_FAILED | Flag.TOO_FEW_POINTS) == 0
