@@ -91,7 +91,7 @@ def write_table(group: Any, name: str, table: Table | pd.DataFrame, links: Links
         return group[name]
     h5py = _h5py()
     frame = table.frame
-    gid = h5py.h5g.create(group.id, name.encode())
+    gid = h5py.h5g.create(group.id, *_link_name(name))
     columns = [str(c) for c in frame.columns]
     units = [str(table.units.get(c, "")) for c in columns]
     _new_attr(gid, "kind", "table")
@@ -227,6 +227,24 @@ def _dataset(gid: Any, key: str, data: np.ndarray) -> Any:
     if data.size:
         dsid.write(h5py.h5s.ALL, h5py.h5s.ALL, np.ascontiguousarray(data), mtype=tid)
     return dsid
+
+
+def _link_name(name: str) -> tuple[bytes, Any]:
+    """A link name for h5py's low-level calls, with the link-creation properties h5py's own calls use: ASCII
+    names marked ASCII, any other name encoded and marked UTF-8 (so a plate or table named ``Platte-ä`` is
+    stored alike whichever path wrote it)."""
+    try:
+        return name.encode("ascii"), None
+    except UnicodeEncodeError:
+        return name.encode("utf-8"), _utf8_links()
+
+
+@functools.cache
+def _utf8_links() -> Any:
+    h5py = _h5py()
+    lcpl = h5py.h5p.create(h5py.h5p.LINK_CREATE)
+    lcpl.set_char_encoding(h5py.h5t.CSET_UTF8)
+    return lcpl
 
 
 _dataset_types: dict[str, Any] = {}  # HDF5 type of a column dataset, by numpy dtype (created once)
@@ -538,7 +556,7 @@ class AuditWriter:
             name = record.plate or "pooled"
             obj = h5py.h5o.open(self.f.id, staging + b"/" + record.spec.label.encode())
             try:
-                h5py.h5o.link(obj, step.id, name.encode())
+                h5py.h5o.link(obj, step.id, *_link_name(name))
             finally:
                 obj.close()
             out[record.spec.label] = f"{step.name}/{name}"

@@ -125,3 +125,28 @@ def test_unreachable_scheduler_is_one_clear_error():
 
     with pytest.raises(VzeroError, match="cannot reach the Dask scheduler"):
         DaskExecutor("tcp://127.0.0.1:9", timeout="1s")
+
+
+def _link_encodings(path: Path) -> dict[str, int]:
+    """The character set HDF5 records for every link name under /steps (ASCII 0, UTF-8 1)."""
+    import h5py
+
+    out: dict[str, int] = {}
+    with h5py.File(path) as f:
+        for label in f["steps"]:
+            step = f["steps"][label]
+            for name in step:
+                out[f"{label}/{name}"] = step.id.links.get_info(name.encode("utf-8")).cset
+    return out
+
+
+def test_a_plate_name_beyond_ascii_is_stored_alike_by_every_executor(tmp_path: Path):
+    recipe = demo_batch(tmp_path / "in", 2)
+    manifest = tmp_path / "in" / "plates" / "manifest.csv"
+    manifest.write_text(manifest.read_text("utf-8").replace("plate-00", "Platte-ä"), "utf-8")
+    serial = run(recipe, tmp_path / "serial")
+    pooled = run(recipe, tmp_path / "pool", jobs=2)
+    _same_run(serial, pooled)
+    names = _link_encodings(serial.audit_path)
+    assert names == _link_encodings(pooled.audit_path)
+    assert {v for k, v in names.items() if k.endswith("/Platte-ä")} == {1}  # UTF-8, as h5py marks such names
