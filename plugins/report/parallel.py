@@ -13,7 +13,9 @@ runs the job itself, so the report never depends on the children.
 
 from __future__ import annotations
 
+import contextlib
 import os
+import signal
 import struct
 import sys
 import threading
@@ -62,38 +64,58 @@ def run_all(jobs: Sequence[Job], weights: Sequence[float] | None = None,
         return [job() for job in jobs]
     parts = shares(list(weights) if weights is not None else [1.0] * n, workers)
     mine, theirs = parts[0], [p for p in parts[1:] if p]
-    children: list[tuple[int, int, list[int]]] = []  # (pid, read end, indices)
-    for part in theirs:
-        read, write = os.pipe()
-        pid = os.fork()
-        if pid == 0:  # child: run this share, send it, leave without running the parent's exit handlers
-            status = 1
-            try:
-                os.close(read)
-                done = [jobs[i]() for i in part]  # all first: writing blocks until the parent reads
-                with os.fdopen(write, "wb") as out:
-                    for blobs in done:
-                        out.write(struct.pack("<Q", len(blobs)))
-                        for blob in blobs:
-                            out.write(struct.pack("<Q", len(blob)))
-                            out.write(blob)
-                status = 0
-            finally:
-                os._exit(status)
-        os.close(write)
-        children.append((pid, read, part))
-
+    children: list[tuple[int, int, list[int]]] = []  # (pid, read end, indices), until collected
     results: list[tuple[bytes, ...] | None] = [None] * n
-    for i in mine:
-        results[i] = jobs[i]()
-    for pid, read, part in children:
-        got = _receive(read, len(part))
-        _, status = os.waitpid(pid, 0)
-        if got is not None and status == 0:
-            for i, blobs in zip(part, got, strict=True):
-                results[i] = blobs
+    try:
+        for part in theirs:
+            read, write = os.pipe()
+            pid = os.fork()
+            if pid == 0:  # child: run this share, send it, leave without running the parent's exit handlers
+                _child(jobs, part, read, write)
+            os.close(write)
+            children.append((pid, read, part))
+        for i in mine:
+            results[i] = jobs[i]()
+        while children:
+            pid, read, part = children[0]
+            try:
+                got = _receive(read, len(part))
+            finally:
+                children[0] = (pid, -1, part)  # _receive closed the read end
+            children.pop(0)
+            _, status = os.waitpid(pid, 0)
+            if got is not None and status == 0:
+                for i, blobs in zip(part, got, strict=True):
+                    results[i] = blobs
+    finally:  # a job of ours failed (or Ctrl-C): do not leave children blocked on a pipe nobody reads
+        for pid, read, _ in children:
+            if read >= 0:
+                with contextlib.suppress(OSError):
+                    os.close(read)
+            with contextlib.suppress(OSError):
+                os.kill(pid, signal.SIGKILL)
+            with contextlib.suppress(OSError):
+                os.waitpid(pid, 0)
     # a child that failed (or sent less than its share): its jobs are run here
     return [r if r is not None else jobs[i]() for i, r in enumerate(results)]
+
+
+def _child(jobs: Sequence[Job], part: list[int], read: int, write: int) -> None:
+    """In a forked child: run the jobs of ``part``, write their results to the pipe, and exit (status 0 when
+    everything was sent). Never returns."""
+    status = 1
+    try:
+        os.close(read)
+        done = [jobs[i]() for i in part]  # all first: writing blocks until the parent reads
+        with os.fdopen(write, "wb") as out:
+            for blobs in done:
+                out.write(struct.pack("<Q", len(blobs)))
+                for blob in blobs:
+                    out.write(struct.pack("<Q", len(blob)))
+                    out.write(blob)
+        status = 0
+    finally:
+        os._exit(status)
 
 
 def _receive(fd: int, count: int) -> list[tuple[bytes, ...]] | None:
