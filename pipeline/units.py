@@ -110,9 +110,9 @@ def pretty(u: Any) -> str:
     return text.replace("µ", "µ") or "1"
 
 
-KNOWN = ("vzero knows m, s, min, h, d, L, M (molar), mol, g, Da, K, degC, degF, U, kat, Hz, rpm, %, ppm, AU, "
-         "RFU, RLU and count, with SI prefixes (u or µ for micro), combined with *, / and ^ (see "
-         "pipeline/units.txt).")
+KNOWN = ("vzero knows m, s, min, h, d, week, L, M (molar), mol, g, Da, K, degC, degF, U (IU), kat, Hz, rpm, Bq, "
+         "Ci, %, ‰, ppm, AU, RFU, RLU, count, cps, cpm and dpm, with SI prefixes (u or µ for micro), combined "
+         "with *, / and ^ (see pipeline/units.txt).")
 """The units of pipeline/units.txt in one sentence, for error messages."""
 
 _EXAMPLES = {"s": '"30 s"', "cm": '"0.55 cm"', "M": '"10 uM"', "M^-1 cm^-1": '"6220 M^-1 cm^-1"'}

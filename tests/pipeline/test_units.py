@@ -26,6 +26,12 @@ DEFINITIONS = [
     ("ppm", "", 1e-6),
     ("mAU", "AU", 1e-3),
     ("cpm", "count/s", 1 / 60),
+    ("cps", "count/min", 60.0),
+    ("dpm", "Bq", 1 / 60),  # one disintegration per minute
+    ("Ci", "GBq", 37.0),  # the curie is defined as exactly 3.7e10 Bq (from memory; an older non-SI unit)
+    ("uCi", "kBq", 37.0),
+    ("week", "d", 7.0),
+    ("‰", "%", 0.1),
     ("M^-1 cm^-1", "mM^-1 cm^-1", 1e-3),  # 6220 M^-1 cm^-1 = 6.22 mM^-1 cm^-1
 ]
 
