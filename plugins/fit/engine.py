@@ -270,9 +270,13 @@ def _fill_value(used: np.ndarray) -> float:
     return float(finite.mean()) if finite.size else 1.0
 
 
-STALL_GRADIENT = 1e-7
-"""Scaled gradient (the largest cosine between the residual vector and a Jacobian column) below which a refused
-step ends the iteration as converged (MINPACK's gtol test, applied when no step can be verified)."""
+STALL_GRADIENT = 1e-8
+"""Scaled gradient (the largest cosine between the residual vector and a Jacobian column) below which
+refused steps end the iteration as converged: MINPACK's gtol test (scipy's default gtol is 1e-8), applied
+when no step can be verified."""
+
+STALL_REFUSALS = 3
+"""Steps refused in a row (the damping grown 64-fold) before :data:`STALL_GRADIENT` may end the iteration."""
 
 
 def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: np.ndarray, vals: np.ndarray,
@@ -311,6 +315,7 @@ def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: n
         lam = np.full(g, lam0)
         active = np.isfinite(cost)
         converged = np.zeros(g, bool)
+        refused = np.zeros(g, int)  # steps refused in a row
         nfev = np.ones(g, int)
         eye = np.eye(p)
         for _ in range(max_iter):
@@ -344,12 +349,13 @@ def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: n
             r[idx[better]] = rt[better]
             cost[idx[better]] = ct[better]
             lam[idx] = np.where(better, np.maximum(lam[idx] / 10, 1e-12), lam[idx] * 4)
-            # converged: an accepted step that changed nothing, a vanishing gradient, or a step refused at a
-            # point where the gradient is already orthogonal to the residuals to rounding level (at the minimum
-            # to working precision, trial steps only add rounding noise: raising the damping until one is
+            # converged: an accepted step that changed nothing, a vanishing gradient, or steps refused again
+            # and again at a point where the gradient is already orthogonal to the residuals (at the minimum to
+            # working precision, trial steps only add rounding noise: raising the damping until one is
             # accepted would cost dozens of iterations and move nothing)
+            refused[idx] = np.where(better, 0, refused[idx] + 1)
             done = ((better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
-                    | (~better & (gnorm < STALL_GRADIENT)))
+                    | ((refused[idx] >= STALL_REFUSALS) & (gnorm < STALL_GRADIENT)))
             stuck = lam[idx] > 1e16
             converged[idx[done]] = True
             active[idx[done | stuck]] = False
