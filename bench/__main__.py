@@ -62,13 +62,13 @@ def main(argv: list[str] | None = None) -> int:
             p = in_subprocess("peer", str(n_w), str(n_t), peer_method)
             results[(n_w, n_t, rates)] = {**r, "peer": p["total"]}
             st = r["stages"]
-            line = (f"{n_w:>4}x{n_t:<6}  {rates:<9} {r['total']:7.3f}  {r['total'] - r['outputs']:7.3f}  "
+            line = (f"{n_w:>4}x{n_t:<6}  {rates:<9} {r['total']:7.3f}  {r['total'] - r['csv']:7.3f}  "
                     + "  ".join(f"{st.get(k, float('nan')):6.3f}" for k in ("import", "blank", "rates", "convert",
                                                                           "fit"))
                     + f"  {r['audit']:6.3f} ({r['audit'] / r['total']:4.0%})   {r['maxrss_mb']:8.0f}   "
                     f"{r['traced_peak_mb']:8.1f}  {p['total']:7.2f}  {p['total'] / r['total']:6.1f}x")
             say(line)
-            rows.append(f"| {n_w}x{n_t} | {rates} | {r['total']:.3f} | {r['total'] - r['outputs']:.3f} | "
+            rows.append(f"| {n_w}x{n_t} | {rates} | {r['total']:.3f} | {r['total'] - r['csv']:.3f} | "
                         + " | ".join(f"{st.get(k, float('nan')):.3f}" for k in ("import", "blank", "rates",
                                                                               "convert", "fit"))
                         + f" | {r['audit']:.3f} ({r['audit'] / r['total']:.0%}) | {r['maxrss_mb']:.0f} | "
@@ -101,8 +101,8 @@ def main(argv: list[str] | None = None) -> int:
         checks += [("384x120 auto: at least 15x faster than the peer", mid["peer"] / mid["total"] >= 15,
                     f"{mid['peer'] / mid['total']:.1f}x"),
                    ("384x120 auto: under 50 ms, whole run", mid["total"] < 0.05, f"{mid['total'] * 1000:.0f} ms"),
-                   ("384x120 auto: under 50 ms, the issue's list (stages and audit file; CSV exports not counted)",
-                    mid["total"] - mid["outputs"] < 0.05, f"{(mid['total'] - mid['outputs']) * 1000:.0f} ms"),
+                   ("384x120 auto: under 50 ms, without writing the CSV exports (the issue's list: stages and "
+                    "audit file)", mid["total"] - mid["csv"] < 0.05, f"{(mid['total'] - mid['csv']) * 1000:.0f} ms"),
                    ("audit file no more than 25% of the run", mid["audit"] / mid["total"] <= 0.25,
                     f"{mid['audit'] / mid['total']:.0%}")]
     if prog:
@@ -140,8 +140,9 @@ Machine: {machine}
 ## One plate, in-process (seconds; best of 3 runs after a warm-up; one BLAS thread)
 
 Import, blank, rates, convert, fit (Michaelis–Menten with profile intervals) and the audit file; no report.
-"total" is the whole `runner.run` call: recipe and plugins, the stages, run.h5, and the CSV exports with the
-flush and rename of the output folder; "no CSV" leaves out that last part (the CSV files, fsync, rename).
+"total" is the whole `runner.run` call: recipe and plugins, the stages, run.h5, the CSV exports, and the
+flush to disk and rename of the output folder; "no CSV" is the same without the time spent formatting and
+writing the CSV files (the flush and the rename stay counted).
 Stage times are those stored in the audit file; "audit" is the writing of run.h5. Peak RSS is the whole
 benchmark process (interpreter, numpy, scipy, pandas, h5py included); "traced" is tracemalloc's peak of
 Python-tracked allocations during one run. The peer is bench/peer.py on the same files: pandas,

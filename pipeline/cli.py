@@ -305,17 +305,24 @@ def entry() -> None:
     Left to itself, the interpreter would free one by one every object that pandas, pint, scipy and
     matplotlib made before it exits: about 0.2 s of a two-second run, spent after the work is done. By the
     time :func:`main` returns, every file vzero wrote is closed and on disk, so the exit handlers are run,
-    standard output and error flushed, and the process leaves at once with main's exit code. (Tests call
-    :func:`main` itself, in-process.)"""
+    standard output and error flushed, and the process leaves at once with main's exit code (120 if standard
+    output could not be written, as Python itself reports). Where a thread is still running, the ordinary
+    exit is kept. (Tests call :func:`main` itself, in-process.)"""
     import atexit
+    import threading
 
     code = main()
+    if threading.active_count() > 1:  # a plugin left a thread running: let Python end it the usual way
+        sys.exit(code)
     atexit._run_exitfuncs()  # what a normal exit would run (temporary folders, pools, clusters)
-    for stream in (sys.stdout, sys.stderr):
-        try:
-            stream.flush()
-        except (OSError, ValueError):  # a closed pipe or stream: nothing more can be written anyway
-            pass
+    try:
+        sys.stdout.flush()
+    except (OSError, ValueError):  # output lost (a full disk, a closed pipe): say so in the exit code, as Python
+        code = code or 120
+    try:
+        sys.stderr.flush()
+    except (OSError, ValueError):
+        pass
     os._exit(code)
 
 

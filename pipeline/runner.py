@@ -116,8 +116,8 @@ class RunResult:
     failed: dict[str, str]
     audit_seconds: float = 0.0
     failed_items: list[str] = field(default_factory=list)
-    output_seconds: float = 0.0
-    """Time spent writing the CSV exports and other files beside run.h5, flushing and renaming (benchmarks)."""
+    csv_seconds: float = 0.0
+    """Time this process spent formatting and writing the CSV exports (for the benchmarks)."""
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -264,12 +264,10 @@ def run(
         writer.failed_items = failed_items
         elsewhere = _csv_in_workers(executor, tmp, final_tables)
         writer.finish(final_tables, warnings, failed, derived_from)
-        t_out = time.perf_counter()
-        _write_outputs(tmp, final_tables, files, failed, elsewhere)
+        csv_seconds = _write_outputs(tmp, final_tables, files, failed, elsewhere)
         _swap_into_place(tmp, out_dir, force)
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
-                         audit_seconds=writer.seconds, failed_items=failed_items,
-                         output_seconds=time.perf_counter() - t_out)
+                         audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds)
     except BaseException:
         if writer is not None:
             writer.close()
@@ -442,7 +440,9 @@ def _run_step(
 
 
 def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[str, Any]:
-    """Stack each plate's tables (with a ``plate`` column first) and keep traces per plate."""
+    """Stack each plate's tables and keep traces per plate. Every row names its plate as the recipe does: a
+    table without a ``plate`` column gets one first; one whose ``plate`` column says otherwise (a plugin that
+    named its traces differently) is given the recipe's name."""
     pooled: dict[str, Any] = {}
     names = {k for o in outcomes for k, v in o.artifacts.items() if isinstance(v, Table)}
     for name in sorted(names):
@@ -450,12 +450,16 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
         for o in outcomes:
             t = o.artifacts.get(name)
             if isinstance(t, Table):
-                if "plate" in t.frame.columns:
-                    tables.append(t)
+                frame = t.frame
+                if "plate" in frame.columns and bool((frame["plate"].astype(str) == o.plate).all()):
+                    tables.append(t)  # already names the recipe's plate (the built-in rates tables do)
+                    continue
+                frame = frame.copy()
+                if "plate" in frame.columns:  # the recipe's plate name is the one every output uses
+                    frame["plate"] = o.plate
                 else:
-                    frame = t.frame.copy()
                     frame.insert(0, "plate", o.plate)
-                    tables.append(t.with_frame(frame))
+                tables.append(t.with_frame(frame))
         pooled[name] = Table.concat(tables)
     pooled["traces"] = traces
     return pooled
@@ -582,10 +586,10 @@ def write_csv(path: str, frame: pd.DataFrame) -> None:
 
 
 def _write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],
-                   failed: Mapping[str, str], elsewhere: Mapping[str, Any] | None = None) -> None:
+                   failed: Mapping[str, str], elsewhere: Mapping[str, Any] | None = None) -> float:
     """One CSV per final table (those in ``elsewhere`` are being written by workers: wait for them), the
     files final steps returned, the list of failed plates; every file in ``tmp`` is on disk (fsync) when this
-    returns.
+    returns. Returns the seconds spent formatting and writing CSV files here.
 
     The fsync calls wait on the disk, not on the processor, and release the GIL: a thread flushes run.h5 and
     each file as soon as it is written while this thread formats the next, so the flushing costs almost no
@@ -598,12 +602,15 @@ def _write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, b
         def written(path: Path) -> None:
             syncs.append(flusher.submit(_fsync, path))
 
+        csv_seconds = 0.0
         for name, table in tables.items():
             target = tmp / f"{name}.csv"
             if elsewhere and name in elsewhere:
                 elsewhere[name].result()
             else:
+                t0 = time.perf_counter()
                 write_csv(str(target), table.frame)
+                csv_seconds += time.perf_counter() - t0
             written(target)
         for rel, data in files.items():
             target = tmp / rel
@@ -616,6 +623,7 @@ def _write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, b
             written(target)
         for sync in syncs:
             sync.result()
+    return csv_seconds
 
 
 def csv_text(frame: pd.DataFrame) -> str | None:
