@@ -118,7 +118,8 @@ def _entry_points() -> list[tuple[metadata.EntryPoint, str, str]]:
 
     Scanning the installed distributions costs a few milliseconds, a large share of a small run, so the
     answer is kept for as long as ``sys.path`` and the modification times of its folders stay the same
-    (installing or removing a distribution changes the folder holding its metadata)."""
+    (installing or removing a distribution changes the folder holding its metadata). An entry-point file
+    rewritten in place, as an old-style editable install may do, is seen by the next process, not this one."""
     key = _path_state()
     cached = _ENTRY_POINT_CACHE.get(key)
     if cached is None:
