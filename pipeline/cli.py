@@ -273,6 +273,7 @@ def build_parser(with_plugins: bool = True) -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in argv
+    args = None
     try:
         parser = build_parser()
         args = parser.parse_args(argv)
@@ -294,7 +295,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # a bug, not bad input: one line unless --debug
         if debug:
             raise
-        print(f"error: internal error ({type(exc).__name__}: {exc}); nothing was written to the output folder. "
+        nothing = "; nothing was written to the output folder" if getattr(args, "out", None) else ""
+        print(f"error: internal error ({type(exc).__name__}: {exc}){nothing}. "
               "Run again with --debug for the traceback and report it.", file=sys.stderr)
         return 3
 

@@ -119,8 +119,12 @@ def test_internal_error_exits_3_with_one_line(monkeypatch, tmp_path: Path, capsy
     assert main(["check", str(tmp_path / "r.yaml")]) == 3
     err = capsys.readouterr().err
     assert "internal error (ZeroDivisionError" in err and "--debug" in err and "Traceback" not in err
+    assert "output folder" not in err  # check writes no folder, so the message does not speak of one
     with pytest.raises(ZeroDivisionError):
         main(["check", str(tmp_path / "r.yaml"), "--debug"])
+    monkeypatch.setattr(pipeline.runner, "run", broken)
+    assert main(["run", str(tmp_path / "r.yaml"), "--out", str(tmp_path / "out")]) == 3
+    assert "nothing was written to the output folder" in capsys.readouterr().err
 
 
 @pytest.mark.parametrize("jobs", ["0", "two"])
