@@ -154,6 +154,19 @@ def measure_batch(n_plates: int, jobs: int, n_wells: int = 96, n_time: int = 60)
         shutil.rmtree(work, ignore_errors=True)
 
 
+def spin(n: int) -> float:
+    """A fixed piece of pure compute (Python and numpy), the same in every process."""
+    import numpy as np
+
+    total = 0.0
+    for i in range(n):
+        total += i * 0.5
+    a = np.linspace(0.0, 1.0, 90_000).reshape(300, 300)
+    for _ in range(15):
+        a = a @ a / 300.0
+    return total + float(a[0, 0])
+
+
 def in_subprocess(*args: str) -> dict[str, Any]:
     """Run one measurement in a fresh interpreter and return its JSON result."""
     root = Path(__file__).resolve().parent.parent
