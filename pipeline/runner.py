@@ -248,6 +248,12 @@ def run(
         records: list[StepRecord] = [r for o in ok for r in o.records]
         files: dict[str, bytes] = {}
         for spec in later_steps:
+            if own_executor and executor is not None and _scope(plugins, spec) == "final" \
+                    and getattr(executor, "shares_disk", False):
+                # a final step (the report) may share its work out to forked processes, which is safe only
+                # once the pool's own threads are gone; its idle workers are not needed any more
+                executor.close()
+                executor = None
             if progress:
                 progress(Progress(len(outcomes), total, step=f"{spec.kind}:{spec.method}",
                                   seconds=time.perf_counter() - t_start))

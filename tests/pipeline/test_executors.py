@@ -150,3 +150,26 @@ def test_a_plate_name_beyond_ascii_is_stored_alike_by_every_executor(tmp_path: P
     names = _link_encodings(serial.audit_path)
     assert names == _link_encodings(pooled.audit_path)
     assert {v for k, v in names.items() if k.endswith("/Platte-ä")} == {1}  # UTF-8, as h5py marks such names
+
+
+def test_the_process_pool_is_closed_before_a_final_step(tmp_path: Path, monkeypatch):
+    """The report may fork processes to draw figures, which is safe only once the pool's threads are gone:
+    a run with --jobs closes its pool before the first final step (the report still gets every figure)."""
+    import threading
+    from concurrent.futures import process
+
+    from plugins.report import parallel
+
+    recipe = demo_batch(tmp_path / "in", 2)
+    recipe.write_text(recipe.read_text("utf-8") + "  - report: {method: html}\n", "utf-8")
+    pool_threads: list[int] = []
+    run_all = parallel.run_all
+
+    def watching(*args: Any, **kwargs: Any) -> Any:
+        pool_threads.append(sum(isinstance(t, process._ExecutorManagerThread) for t in threading.enumerate()))
+        return run_all(*args, **kwargs)
+
+    monkeypatch.setattr(parallel, "run_all", watching)
+    result = run(recipe, tmp_path / "pool", jobs=2)
+    assert pool_threads and set(pool_threads) == {0}
+    assert (result.out_dir / "report.html").is_file() and len(list((result.out_dir / "figures").glob("*.png"))) >= 4
