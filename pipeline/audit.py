@@ -177,12 +177,23 @@ def _storage_kind(dtype: Any) -> str:
 def text_codes(values: np.ndarray) -> tuple[list[str], np.ndarray]:
     """The text of each value (``""`` when missing, else ``str(value)``) as (distinct texts, each value's
     index into them). Text columns repeat a few values (group, plate, flags, labels) over many rows, so
-    converting each distinct value once, with pandas' hashing in C, is much faster than once per row."""
+    converting each distinct value once, with pandas' hashing in C, is much faster than once per row; a
+    column holding one text throughout (a plate name, a unit, a method) is recognised with one comparison."""
+    if (values.size and isinstance(first := values.flat[0], str) and isinstance(last := values.flat[-1], str)
+            and last == first and _all_equal(values, first)):
+        return [str(first)], np.zeros(values.shape, dtype=np.intp)
     if pd.api.types.infer_dtype(values, skipna=True) in ("string", "empty"):
         codes, uniques = pd.factorize(values, use_na_sentinel=True)
-        return [str(u) for u in uniques] + [""], codes  # code -1 (missing) picks the last text, ""
+        return [*map(str, uniques), ""], codes  # code -1 (missing) picks the last text, ""
     texts = [v if isinstance(v, str) else "" if _missing_scalar(v) else str(v) for v in values]
     return texts, np.arange(len(texts))
+
+
+def _all_equal(values: np.ndarray, text: str) -> bool:
+    try:
+        return bool((values == text).all())
+    except TypeError:  # pd.NA among the values: its comparison has no truth value
+        return False
 
 
 def _text_array(texts: list[str], codes: np.ndarray) -> tuple[np.ndarray, bytes]:
@@ -192,12 +203,14 @@ def _text_array(texts: list[str], codes: np.ndarray) -> tuple[np.ndarray, bytes]
 
     Each distinct text is encoded and prefixed once; rows only pick among them."""
     encoded = [t.encode("utf-8") for t in texts]
-    if any(b"\0" in e for e in encoded):
+    if b"\0" in b"".join(encoded):
         raise ValueError("a text value holds a NUL character, which HDF5 strings cannot store")
     width = max(max(map(len, encoded), default=0), 1)
     fixed = np.array(encoded, dtype=f"S{width}")[codes]
-    prefixed = np.array([len(e).to_bytes(8, "little") + e for e in encoded], dtype=object)
-    return fixed, b"".join(prefixed[codes].tolist())
+    prefixed = [len(e).to_bytes(8, "little") + e for e in encoded]
+    if len(prefixed) == 1:  # one text throughout
+        return fixed, prefixed[0] * codes.size
+    return fixed, b"".join(np.array(prefixed, dtype=object)[codes].tolist())
 
 
 def _column(gid: Any, key: str, data: np.ndarray, head: bytes, body: bytes, links: Links | None) -> None:

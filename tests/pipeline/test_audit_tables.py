@@ -80,3 +80,21 @@ def test_text_of_mixed_and_missing_values():
     assert [texts[c] for c in codes] == ["1", "1.0", "True", "", "a", "", ""]
     texts, codes = text_codes(np.array(["b", None, "a", "b", np.str_("a")], dtype=object))
     assert [texts[c] for c in codes] == ["b", "", "a", "b", "a"]
+
+
+def test_text_of_columns_holding_one_text():
+    """A column of one text throughout takes a shortcut; a missing value (None, NaN, pd.NA) or another text
+    anywhere in it, first and last rows equal, must still come out row by row."""
+    from pipeline.audit import text_codes
+
+    for values, expected in [
+        (["uM"] * 4, ["uM"] * 4),
+        (["uM", np.str_("uM"), "uM"], ["uM"] * 3),
+        (["x", pd.NA, "x"], ["x", "", "x"]),
+        (["x", None, "x"], ["x", "", "x"]),
+        (["x", np.nan, "x"], ["x", "", "x"]),
+        (["x", "y", "x"], ["x", "y", "x"]),
+        (["x", 1, "x"], ["x", "1", "x"]),
+    ]:
+        texts, codes = text_codes(np.array(values, dtype=object))
+        assert [texts[c] for c in codes] == expected

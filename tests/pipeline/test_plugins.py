@@ -94,6 +94,26 @@ def test_unknown_hook_is_refused(tmp_path):
         make_manager(["typo.py"], base_dir=tmp_path, autoload=False)
 
 
+def test_module_hooks_of_every_kind_pluggy_accepts_are_found(tmp_path):
+    """The manager passes over module names that are not functions; a hook under another name (pluggy's
+    ``specname``) or bound to an object must still be found, and a marked non-function still ignored."""
+    (tmp_path / "kinds.py").write_text(
+        "from pipeline import hookimpl\n"
+        "seen = []\n"
+        "@hookimpl(specname='vzero_register')\n"
+        "def register_under_another_name(registry):\n    seen.append('specname')\n"
+        "class Holder:\n"
+        "    @hookimpl\n"
+        "    def vzero_after_step(self, event):\n        seen.append('bound')\n"
+        "vzero_after_step = Holder().vzero_after_step\n",
+        "utf-8",
+    )
+    p = make_manager(["kinds.py"], base_dir=tmp_path, autoload=False)
+    names = {impl.plugin_name for impl in p.hook.vzero_register.get_hookimpls()}
+    assert any("kinds" in n for n in names)
+    assert [impl.function.__name__ for impl in p.hook.vzero_after_step.get_hookimpls()] == ["vzero_after_step"]
+
+
 def test_bad_stage_declaration_is_refused():
     class BadScope(Stage):
         kind, method, scope = "rates", "bad", "everywhere"
