@@ -59,7 +59,9 @@ def batched_lm(
     lower a well's cost are rejected for that well only. A well has converged when an accepted step lowers
     its cost by less than ``rtol`` relatively (1e-6: a change of chi² far below 1 for plate-sized curves) or
     moves every parameter by less than ``xtol * (|p| + xtol)``, or the damping has grown so large that no
-    step helps (a stationary point). Parameters are clipped to ``[lower, upper]`` when given.
+    step helps (a stationary point). Parameters are clipped to ``[lower, upper]`` when given, and a
+    parameter on its bound whose gradient points outward is held there for the step (a projected step: the
+    clipped full step would be refused over and over, and the well never settle).
     """
     y0 = np.where(w > 0, y, 0.0)
     p = np.array(p0, dtype=float)
@@ -67,6 +69,7 @@ def batched_lm(
     lo = np.full_like(p, -np.inf) if lower is None else np.broadcast_to(lower, p.shape)
     hi = np.full_like(p, np.inf) if upper is None else np.broadcast_to(upper, p.shape)
     p = np.clip(p, lo, hi)
+    bounded = bool(np.isfinite(lo).any() or np.isfinite(hi).any())
     all_rows = np.arange(n)
     unit = bool(np.all(w == 1.0))  # no missing reads: the weights need no multiplications
     f, jac = fun(p, all_rows)
@@ -91,9 +94,18 @@ def batched_lm(
         diag = np.diagonal(a, axis1=1, axis2=2)
         scale = diag + 1e-12 * diag.max(axis=1, keepdims=True) + 1e-300
         damp = a + (lam[act, None] * scale)[:, :, None] * eye
+        p_act = p[act]
+        if bounded:
+            # a parameter on its bound whose gradient points outward is held there: its row and column
+            # leave the step (else the clipped step is refused again and again and the well never settles)
+            pin = ((p_act <= lo[act]) & (g < 0)) | ((p_act >= hi[act]) & (g > 0))
+            if pin.any():
+                free_p = ~pin
+                damp *= free_p[:, :, None] & free_p[:, None, :]
+                damp += pin[:, :, None] * eye
+                g = np.where(pin, 0.0, g)
         damp[~np.all(np.isfinite(damp), axis=(1, 2))] = eye
         step = np.linalg.solve(damp, g[:, :, None])[:, :, 0]
-        p_act = p[act]
         p_new = np.clip(p_act + step, lo[act], hi[act])
         with np.errstate(all="ignore"):
             f_new, j_new = fun(p_new, act)
@@ -208,28 +220,42 @@ Model = Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]]
 def _concentration_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
     """``baseline + spc * P(t)`` for the wells' known ``s0`` (``[n, 1]``), as a :func:`batched_lm` model.
 
-    Parameters (baseline, ln v0, logit r) with ``r = S0/(Km + S0)``: ``Km = S0 (1 - r)/r``, ``Vmax = v0/r``.
-    By the chain rule the Jacobian columns are 1, ``spc Vmax t q`` and ``spc q (r Vmax t - P)`` (terms of
-    :func:`_mm_terms`; ``d ln Km / d logit r = -1``, ``d ln Vmax / d logit r = -(1 - r)``).
+    Parameters (baseline, ln v0, u) with ``u = Km/(Km + S0)`` in (0, 1), the curvature of the curve
+    (``-(dv/dP)/v0 = u/S0``): ``Km = S0 u/(1 - u)``, ``Vmax = v0/(1 - u)``. P is smooth in u over the whole
+    range, from the straight line of zero order (u -> 0) to first order (u -> 1), so a fit is not trapped at
+    either end as it was in logit coordinates, where the gradient vanishes on both plateaus. With the terms
+    of :func:`_mm_terms` the Jacobian columns are 1, ``spc Vmax t q`` and
+    ``spc q (Vmax t + S0 ln(1 - P/S0)/(1 - u))/(1 - u)`` (``d ln Km/du = 1/(u (1 - u))``,
+    ``d ln Vmax/du = 1/(1 - u)``, and ``Km ln(S0/S) = Vmax t - P`` written without that difference, which
+    loses digits when u is small).
     """
     tt = t[None, :]
 
     def model(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        r = 1.0 / (1.0 + np.exp(-p[:, 2:3]))
+        u = p[:, 2:3]
+        stay = 1.0 - u
         sub = s0[rows]
-        prod, q, vt = _mm_terms(tt, sub, sub * (1.0 - r) / r, np.exp(p[:, 1:2]) / r)
+        prod, q, vt = _mm_terms(tt, sub, sub * u / stay, np.exp(p[:, 1:2]) / stay)
         q *= spc
         jac = np.empty((rows.size, 3, t.size))
         jac[:, 0] = 1.0
         np.multiply(vt, q, out=jac[:, 1])
-        col = np.multiply(vt, r, out=jac[:, 2])
-        col -= prod
-        col *= q
+        col = np.divide(prod, sub, out=jac[:, 2])
+        np.negative(col, out=col)
+        np.log1p(col, out=col)
+        col *= sub / stay
+        col += vt
+        col *= q / stay
         prod *= spc
         prod += p[:, 0:1]
         return prod, jac
 
     return model
+
+
+#: Bounds of u = Km/(Km + S0) in the fit with known S0: Km from 1e-9 S0 to 1e9 S0, past both limits a
+#: curve can show (a straight line, first order).
+U_BOUNDS = (1e-9, 1.0 - 1e-9)
 
 
 def _signal_model(t: np.ndarray, d: np.ndarray) -> Model:
@@ -323,7 +349,8 @@ RESTART_LOGIT = 2.0
 def _restart_plateaus(fun: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]], fit: LMFit,
                       y: np.ndarray, w: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int) -> LMFit:
     """Fit again the wells whose fit ended on the zero-order plateau (r near 1, Km far below S0), from
-    logit r = 2, and keep whichever fit has the lower cost.
+    logit r = 2, and keep whichever fit has the lower cost. Used by the fit in signal units (unknown S0), which
+    works in logit r; the fit with known S0 works in u = 1 - r, where there is no plateau to be caught on.
 
     On a plateau the gradient in r vanishes, so Levenberg–Marquardt can stop there although the curve has a
     better, curved fit. Measured on the 384-well bench plate against scipy's ``least_squares`` from several
@@ -425,16 +452,14 @@ def progress_curve(
     c_init = np.where(np.isfinite(c_init), np.fmax(c_init, c_floor), c_floor)
     free = np.full(todo.size, np.inf)
     if known:
-        # parameters: baseline, ln v0 (conc/s), logit r with r = S0/(Km + S0) (Km -> inf is r -> 0)
+        # parameters: baseline, ln v0 (conc/s), u = Km/(Km + S0) (_concentration_model)
         spc = float(signal_per_conc)  # type: ignore[arg-type]
         s0w = s0_arr[todo][:, None]
         vc = v_init / abs(spc)
-        # r starts at 1/2 (S0 = Km), between the two plateaus (see _restart_plateaus): a start from the early
-        # curvature, c1 = -(dv/dP)/v0 = (1 - r)/S0, left a sixth of the bench plate's wells on a plateau
-        r0 = np.full(todo.size, 0.5)
-        p0 = np.stack([base0, np.log(vc), np.log(r0 / (1.0 - r0))], axis=1)
-        lo = np.stack([-free, np.log(vc) - 12, np.full(todo.size, -30.0)], axis=1)
-        hi = np.stack([free, np.log(vc) + 12, np.full(todo.size, 30.0)], axis=1)
+        # u = Km/(Km + S0) starts at 1/2 (S0 = Km), mid-range
+        p0 = np.stack([base0, np.log(vc), np.full(todo.size, 0.5)], axis=1)
+        lo = np.stack([-free, np.log(vc) - 12, np.full(todo.size, U_BOUNDS[0])], axis=1)
+        hi = np.stack([free, np.log(vc) + 12, np.full(todo.size, U_BOUNDS[1])], axis=1)
 
         if power:
             # parameters: baseline, ln v0 (conc/s), m = n - 1; -(dv/dP)/v0 = n/S0 gives the start order
@@ -455,14 +480,14 @@ def progress_curve(
         fun = _signal_model(t, d)
 
     fit = batched_lm(fun, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter)
-    if not power:
+    if not known:
         fit = _restart_plateaus(fun, fit, yy, ww, lo, hi, max_iter)
     n_par = p0.shape[1]
     dof = np.fmax(ww.sum(axis=1) - n_par, 1.0)
     rmse = np.sqrt(fit.rss / dof)
     ratio = rmse / sc.sigma[todo]
     scale2 = np.fmax(rmse, sc.sigma[todo]) ** 2
-    r_fit = 1.0 / (1.0 + np.exp(-fit.params[:, -1]))
+    r_fit = 1.0 - fit.params[:, -1] if known else 1.0 / (1.0 + np.exp(-fit.params[:, -1]))
     if power:
         sub = s0_arr[todo]
         v0 = spc * np.exp(fit.params[:, 1])

@@ -17,6 +17,7 @@ from plugins.rates.progress import (
     _mm_curve,
     _power_model,
     _signal_model,
+    batched_lm,
     integrated_mm,
     wright_omega,
 )
@@ -81,12 +82,13 @@ def test_jacobian_matches_finite_differences() -> None:
 
 @pytest.mark.parametrize("which", ["concentration", "signal", "power"])
 def test_fit_model_jacobians_match_finite_differences(which: str) -> None:
-    # the batched fit's models in their own parameters (baseline, ln v0, logit r / ln c1): analytic columns
+    # the batched fit's models in their own parameters (baseline, ln v0, u = Km/(Km + S0) / ln c1, logit r):
+    # analytic columns
     # against central differences (step 1e-6), as in the test above
     t = np.linspace(0, 600, 31)
     if which == "concentration":
         model = _concentration_model(t, np.array([[0.4], [3.0]]), -2.5)
-        p = np.array([[0.1, np.log(4e-4), 0.3], [0.05, np.log(1e-3), -1.2]])
+        p = np.array([[0.1, np.log(4e-4), 0.3], [0.05, np.log(1e-3), 0.85]])
     elif which == "power":  # the power-law depletion model (baseline, ln v0, order - 1)
         model = _power_model(t, np.array([[50.0], [120.0]]), 3.421e-3)
         p = np.array([[0.05, np.log(0.01), 1.4], [0.02, np.log(0.05), -0.3]])
@@ -103,6 +105,24 @@ def test_fit_model_jacobians_match_finite_differences(which: str) -> None:
         numeric = (model(up, rows)[0] - model(dn, rows)[0]) / (2 * h)
         # rounding of the differences: about eps * |signal| / h ~ 1e-9
         np.testing.assert_allclose(jac[:, k], numeric, rtol=1e-6, atol=1e-8)
+
+
+def test_batched_lm_settles_on_a_bound() -> None:
+    """When the optimum lies beyond a bound, the fit ends on the bound at the constrained optimum, in a few
+    iterations. Reference: the linear least-squares fit with that parameter fixed (numpy.linalg.lstsq)."""
+    x = np.linspace(0.0, 1.0, 50)
+    rng = np.random.default_rng(0)
+    y = np.stack([0.3 + 2.0 * x + 0.5 * x**2 + rng.normal(0.0, 0.01, 50) for _ in range(6)])  # slope 2
+
+    def fun(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        basis = np.stack([np.ones_like(x), x, x**2])
+        return p @ basis, np.broadcast_to(basis, (rows.size, 3, x.size)).copy()
+
+    fit = batched_lm(fun, np.zeros((6, 3)), y, np.ones_like(y), upper=np.array([np.inf, 1.0, np.inf]))
+    assert fit.converged.all() and fit.n_iter < 20  # it was 136, ending short of the optimum, before
+    for i in range(6):
+        fixed = np.linalg.lstsq(np.stack([np.ones_like(x), x**2], axis=1), y[i] - x, rcond=None)[0]
+        np.testing.assert_allclose(fit.params[i], [fixed[0], 1.0, fixed[1]], rtol=1e-6)
 
 
 def test_wright_omega_against_scipy() -> None:
