@@ -34,7 +34,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from pipeline.data import Table, Traces
+from pipeline.data import Table, Traces, values_as
+from pipeline.data import columns as data_columns
 
 FORMAT_NAME = "vzero-audit"
 FORMAT_VERSION = "1.2"
@@ -99,8 +100,8 @@ def write_table(group: Any, name: str, table: Table | pd.DataFrame, links: Links
     _new_attr(gid, "units", to_json(units))
     _new_attr(gid, "n_rows", len(frame))
     digest = hashlib.sha256(to_json(columns).encode("utf-8"))
-    for i, ((_, series), unit) in enumerate(zip(frame.items(), units, strict=True)):
-        arr, kind, body = _column_values(series)
+    for i, ((dtype, values), unit) in enumerate(zip(data_columns(frame), units, strict=True)):
+        arr, kind, body = _column_values(dtype, values)
         head = f"|{kind}|{arr.shape}|".encode()
         digest.update(f"|{unit}".encode() + head)
         digest.update(body)
@@ -143,14 +144,15 @@ def _scalar_space() -> Any:
     return _h5py().h5s.create(_h5py().h5s.SCALAR)
 
 
-def _column_values(series: pd.Series) -> tuple[np.ndarray, str, bytes]:
-    """The array to store for one column, its kind for the hash (``b``, ``i``, ``f``; ``O`` for text however
-    it is stored) and the bytes the hash covers (little-endian numbers; length-prefixed UTF-8 text)."""
-    kind = _storage_kind(series.dtype)
+def _column_values(dtype: Any, values: Any) -> tuple[np.ndarray, str, bytes]:
+    """The array to store for one column (its dtype and values from :func:`pipeline.data.columns`), its kind
+    for the hash (``b``, ``i``, ``f``; ``O`` for text however it is stored) and the bytes the hash covers
+    (little-endian numbers; length-prefixed UTF-8 text)."""
+    kind = _storage_kind(dtype)
     if kind == "O":
-        stored, body = _text_array(*text_codes(series.to_numpy(dtype=object)))
+        stored, body = _text_array(*text_codes(values_as(values, object)))
         return stored, "O", body
-    arr = series.to_numpy(dtype=_NUMERIC[kind])
+    arr = values_as(values, _NUMERIC[kind])
     return arr, kind, arr.astype(arr.dtype.newbyteorder("<"), copy=False).tobytes()
 
 

@@ -67,6 +67,25 @@ class Table:
         return Table(frame, units, dict(tables[0].meta))
 
 
+def columns(frame: pd.DataFrame) -> list[tuple[Any, Any]]:
+    """Each column of ``frame`` as (dtype, values as stored: a numpy array or a pandas extension array),
+    without building a Series per column (about 8 µs each in pandas 3; a run writes a few hundred columns
+    to its audit file and CSV exports). Uses pandas' own column accessor where it has one, else the Series."""
+    get = getattr(frame, "_get_column_array", None)
+    if get is not None and frame.columns.is_unique:
+        return [(dtype, get(i)) for i, dtype in enumerate(frame.dtypes)]
+    return [(series.dtype, series.array if not isinstance(series.dtype, np.dtype) else series.to_numpy())
+            for _, series in frame.items()]
+
+
+def values_as(values: Any, dtype: Any) -> np.ndarray:
+    """``values`` (from :func:`columns`) as a numpy array of ``dtype``, as ``Series.to_numpy(dtype=...)``
+    gives it (missing values of a text column as NaN; a missing value refused by an integer dtype raises)."""
+    if isinstance(values, np.ndarray):
+        return np.asarray(values, dtype=dtype)
+    return np.asarray(values.to_numpy(dtype=dtype))
+
+
 def _conversion(to_unit: str, from_unit: str, column: str) -> float:
     """Factor from ``from_unit`` to ``to_unit`` (1.0 for two spellings of one unit); UnitError otherwise."""
     from pipeline import units

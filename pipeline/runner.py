@@ -644,19 +644,20 @@ def csv_text(frame: pd.DataFrame) -> str | None:
     import io
 
     from pipeline.audit import text_codes
+    from pipeline.data import columns as data_columns
+    from pipeline.data import values_as
 
     if frame.columns.nlevels != 1 or frame.shape[1] == 0:
         return None
     columns: list[list[str]] = []
     texts: list[list[str]] = []  # the distinct values of the columns that may need quoting
-    for _, series in frame.items():
-        dtype = series.dtype
+    for dtype, values in data_columns(frame):
         if dtype == "float64":
-            text = _float_texts(series.to_numpy())
+            text = _float_texts(values_as(values, np.float64))
         elif isinstance(dtype, np.dtype) and dtype.kind in "biu":
-            text = list(map(str, series.to_numpy().tolist()))
+            text = list(map(str, values.tolist()))
         elif (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
-            distinct, codes = text_codes(series.to_numpy(dtype=object))
+            distinct, codes = text_codes(values_as(values, object))
             text = np.array(distinct, dtype=object)[codes].tolist()
             texts.append(distinct)
         else:

@@ -98,3 +98,18 @@ def test_text_of_columns_holding_one_text():
     ]:
         texts, codes = text_codes(np.array(values, dtype=object))
         assert [texts[c] for c in codes] == expected
+
+
+def test_repeated_column_names_and_pandas_own_dtypes():
+    """Columns are read without a Series each where pandas allows; a table with a repeated column name, or
+    with pandas' nullable and text dtypes, is stored as before: the hash of the formula, values read back."""
+    frame = pd.DataFrame({"a": [1.5, 2.5], "s": pd.array(["x", None], dtype="string"),
+                          "n": pd.array([1, 2], dtype="Int64"), "b": pd.array([True, False], dtype="boolean")})
+    buf, digest = _write(Table(frame))
+    assert digest == _documented_hash(["a", "s", "n", "b"], ["", "", "", ""],
+                                      [[1.5, 2.5], ["x", ""], [1, 2], [True, False]])
+    twice = pd.DataFrame([[1.0, "p"], [2.0, "q"]], columns=["v", "v"])
+    buf, digest = _write(Table(twice))
+    assert digest == _documented_hash(["v", "v"], ["", ""], [[1.0, 2.0], ["p", "q"]])
+    with h5py.File(buf, "r") as f:
+        assert read_table(f["t"]).frame.iloc[:, 1].tolist() == ["p", "q"]
