@@ -238,7 +238,7 @@ def _dataset(gid: Any, key: str, data: np.ndarray) -> Any:
         stored = h5py.string_dtype("utf-8", data.dtype.itemsize) if data.dtype.kind == "S" else data.dtype
         tid = _dataset_types[data.dtype.str] = h5py.h5t.py_create(stored, logical=True)
     sid = h5py.h5s.create_simple(data.shape)
-    dsid = h5py.h5d.create(gid, key.encode(), tid, sid)
+    dsid = h5py.h5d.create(gid, key.encode(), tid, sid, dcpl=_dataset_properties())
     if data.size:
         dsid.write(h5py.h5s.ALL, h5py.h5s.ALL, np.ascontiguousarray(data), mtype=tid)
     return dsid
@@ -254,12 +254,40 @@ def _link_name(name: str) -> tuple[bytes, Any]:
         return name.encode("utf-8"), _utf8_links()
 
 
+def _new_group(parent: Any, name: str, track_order: bool = True) -> Any:
+    """``parent.create_group(name, track_order=...)`` with the same properties h5py gives it (creation order
+    tracked and indexed, no timestamps), from a creation property list made once rather than per group."""
+    h5py = _h5py()
+    return h5py.Group(h5py.h5g.create(parent.id, *_link_name(name), gcpl=_group_properties(track_order)))
+
+
+@functools.cache
+def _group_properties(track_order: bool) -> Any:
+    h5py = _h5py()
+    gcpl = h5py.h5p.create(h5py.h5p.GROUP_CREATE)
+    if track_order:
+        order = h5py.h5p.CRT_ORDER_TRACKED | h5py.h5p.CRT_ORDER_INDEXED
+        gcpl.set_link_creation_order(order)
+        gcpl.set_attr_creation_order(order)
+    gcpl.set_obj_track_times(False)
+    return gcpl
+
+
 @functools.cache
 def _utf8_links() -> Any:
     h5py = _h5py()
     lcpl = h5py.h5p.create(h5py.h5p.LINK_CREATE)
     lcpl.set_char_encoding(h5py.h5t.CSET_UTF8)
     return lcpl
+
+
+@functools.cache
+def _dataset_properties() -> Any:
+    """Dataset creation properties as h5py's ``create_dataset`` sets them: no timestamps in the file."""
+    h5py = _h5py()
+    dcpl = h5py.h5p.create(h5py.h5p.DATASET_CREATE)
+    dcpl.set_obj_track_times(False)
+    return dcpl
 
 
 _dataset_types: dict[str, Any] = {}  # HDF5 type of a column dataset, by numpy dtype (created once)
@@ -330,10 +358,10 @@ def read_table(group: Any) -> Table:
 def write_traces(group: Any, name: str, traces: Traces, links: Links | None = None) -> Any:
     """Write one plate's traces: time (s), signal, mask, saturated and the well table. With ``links``,
     arrays and the well table already stored (the same objects, passed on by a step) are hard-linked."""
-    g = group.create_group(name)
-    _set_attr(g, "kind", "traces")
-    _set_attr(g, "plate", traces.plate)
-    _set_attr(g, "signal_unit", traces.signal_unit)
+    g = _new_group(group, name, track_order=False)
+    _new_attr(g.id, "kind", "traces")
+    _new_attr(g.id, "plate", traces.plate)
+    _new_attr(g.id, "signal_unit", traces.signal_unit)
     arrays = [("time", traces.time, "s"), ("signal", traces.signal, traces.signal_unit), ("mask", traces.mask, None),
               ("saturated", traces.saturated, None)]
     if traces.temperature is not None:
@@ -342,9 +370,10 @@ def write_traces(group: Any, name: str, traces: Traces, links: Links | None = No
         if links is not None and links.known(arr) is not None:
             g[key] = links.known(arr)
             continue
-        ds = g.create_dataset(key, data=arr)
+        dsid = _dataset(g.id, key, np.asarray(arr))
         if unit is not None:
-            _set_attr(ds, "unit", unit)
+            _new_attr(dsid, "unit", unit)
+        ds = _h5py().Dataset(dsid)
         if links is not None:
             links.remember(arr, ds)
     if links is not None and links.known(traces.wells) is not None:
@@ -427,7 +456,7 @@ def write_part(records: list[Any]) -> bytes:
     f = _h5py().File(f"part-{uuid.uuid4().hex}.h5", "w", driver="core", backing_store=False, track_order=True)
     try:
         for record in records:
-            g = f.create_group(record.spec.label, track_order=True)
+            g = _new_group(f, record.spec.label)
             _set_attr(g, "started", record.started)
             _set_attr(g, "seconds", record.seconds)
             for name, value in record.outputs.items():
@@ -487,6 +516,7 @@ class AuditWriter:
             _set_attr(self.f, key, to_json(rec.data.get(key) or ({} if key == "assay" else [])))
         self.inputs = self.f.create_group("inputs", track_order=True)
         self.steps = self.f.create_group("steps", track_order=True)
+        self._step_groups: dict[str, Any] = {}
         self.seconds = time.perf_counter() - t0
 
     def add_input(self, raw: Any, plate: str) -> None:
@@ -511,8 +541,8 @@ class AuditWriter:
         """The group of ``record``'s step, created with its parameters and provenance the first time. The
         step's total time and warnings are added up here and written once, by :meth:`finish`."""
         spec = record.spec
-        if spec.label not in self.steps:
-            g = self.steps.create_group(spec.label, track_order=True)
+        if spec.label not in self._step_groups:
+            g = self._step_groups[spec.label] = _new_group(self.steps, spec.label)
             entry = self.plugins.registry.get(spec.kind, spec.method)
             _set_attr(g, "kind", spec.kind)
             _set_attr(g, "method", spec.method)
@@ -529,7 +559,7 @@ class AuditWriter:
         self._seconds[spec.label] += record.seconds
         prefix = f"{record.plate}: " if record.plate else ""
         self._warnings[spec.label].extend(prefix + w for w in record.warnings)
-        return self.steps[spec.label]
+        return self._step_groups[spec.label]
 
     def add_record(self, record: Any) -> Any:
         """Write one step's record (parameters and provenance once per step; outputs per plate or pooled).
@@ -537,7 +567,7 @@ class AuditWriter:
         import time
 
         t0 = time.perf_counter()
-        sub = self._step(record).create_group(record.plate or "pooled", track_order=True)
+        sub = _new_group(self._step(record), record.plate or "pooled")
         _set_attr(sub, "started", record.started)
         _set_attr(sub, "seconds", record.seconds)
         for name, value in record.outputs.items():
@@ -593,7 +623,7 @@ class AuditWriter:
         for sha, ds in self._inputs.items():
             _set_attr(ds, "plates", to_json(self.input_plates.get(sha, [])))
             _set_attr(ds, "names", to_json(self._names.get(sha, [])))
-        for label, g in self.steps.items():
+        for label, g in self._step_groups.items():
             _set_attr(g, "seconds", self._seconds.get(label, 0.0))
             _set_attr(g, "warnings", to_json(self._warnings.get(label, [])))
         _set_attr(self.f, "warnings", to_json(list(warnings)))
