@@ -238,7 +238,7 @@ def _dataset(gid: Any, key: str, data: np.ndarray) -> Any:
         stored = h5py.string_dtype("utf-8", data.dtype.itemsize) if data.dtype.kind == "S" else data.dtype
         tid = _dataset_types[data.dtype.str] = h5py.h5t.py_create(stored, logical=True)
     sid = h5py.h5s.create_simple(data.shape)
-    dsid = h5py.h5d.create(gid, key.encode(), tid, sid, dcpl=_dataset_properties())
+    dsid = h5py.h5d.create(gid, key.encode(), tid, sid)
     if data.size:
         dsid.write(h5py.h5s.ALL, h5py.h5s.ALL, np.ascontiguousarray(data), mtype=tid)
     return dsid
@@ -255,21 +255,21 @@ def _link_name(name: str) -> tuple[bytes, Any]:
 
 
 def _new_group(parent: Any, name: str, track_order: bool = True) -> Any:
-    """``parent.create_group(name, track_order=...)`` with the same properties h5py gives it (creation order
-    tracked and indexed, no timestamps), from a creation property list made once rather than per group."""
+    """``parent.create_group(name, track_order=...)``: with ``track_order`` creation order tracked and indexed as
+    h5py does it, from a creation property list made once rather than per group; otherwise HDF5's defaults
+    (a non-default list costs more per object than it saves)."""
     h5py = _h5py()
-    return h5py.Group(h5py.h5g.create(parent.id, *_link_name(name), gcpl=_group_properties(track_order)))
+    gcpl = _group_properties() if track_order else None
+    return h5py.Group(h5py.h5g.create(parent.id, *_link_name(name), gcpl=gcpl))
 
 
 @functools.cache
-def _group_properties(track_order: bool) -> Any:
+def _group_properties() -> Any:
     h5py = _h5py()
     gcpl = h5py.h5p.create(h5py.h5p.GROUP_CREATE)
-    if track_order:
-        order = h5py.h5p.CRT_ORDER_TRACKED | h5py.h5p.CRT_ORDER_INDEXED
-        gcpl.set_link_creation_order(order)
-        gcpl.set_attr_creation_order(order)
-    gcpl.set_obj_track_times(False)
+    order = h5py.h5p.CRT_ORDER_TRACKED | h5py.h5p.CRT_ORDER_INDEXED
+    gcpl.set_link_creation_order(order)
+    gcpl.set_attr_creation_order(order)
     return gcpl
 
 
@@ -279,15 +279,6 @@ def _utf8_links() -> Any:
     lcpl = h5py.h5p.create(h5py.h5p.LINK_CREATE)
     lcpl.set_char_encoding(h5py.h5t.CSET_UTF8)
     return lcpl
-
-
-@functools.cache
-def _dataset_properties() -> Any:
-    """Dataset creation properties as h5py's ``create_dataset`` sets them: no timestamps in the file."""
-    h5py = _h5py()
-    dcpl = h5py.h5p.create(h5py.h5p.DATASET_CREATE)
-    dcpl.set_obj_track_times(False)
-    return dcpl
 
 
 _dataset_types: dict[str, Any] = {}  # HDF5 type of a column dataset, by numpy dtype (created once)
