@@ -421,9 +421,9 @@ def fit_batch(
 
 
 PROFILE_EXPAND = 12
-"""Doublings of the step (from one standard error) allowed when looking for each side of a profile interval."""
+"""Doublings of the step (from the Wald limit) allowed when looking for each side of a profile interval."""
 PROFILE_ROOT = 30
-"""Root-finding evaluations allowed per side once the limit is bracketed (the cost cap; usually 5-8 suffice)."""
+"""Root-finding evaluations allowed per side once the limit is bracketed (the cost cap; a few suffice)."""
 
 
 def profile_batch(
@@ -447,9 +447,11 @@ def profile_batch(
     the groups' fits. The limits are the values where the RSS, minimised over the other free parameters,
     reaches RSS_min·(1 + F(confidence; 1, n − p)/(n − p)). Every evaluation is one vectorised
     Levenberg-Marquardt run over all groups still searching, warm-started from the last point inside the
-    interval: the step from the estimate doubles from one standard error (at most ``max_expand`` times)
-    until the threshold is crossed, then an Illinois (modified regula falsi) iteration locates the crossing
-    to 1e-9 relative in RSS, with at most ``max_root`` evaluations per side (the cap that bounds the cost).
+    interval: the first try is the Wald limit (sqrt(F) standard errors from the estimate) and the step
+    doubles from there (at most ``max_expand`` times) until the threshold is crossed, then an Illinois
+    (modified regula falsi) iteration on sqrt(RSS - RSS_min), nearly linear in the parameter, locates the
+    crossing to 1e-9 relative in RSS, with at most ``max_root`` evaluations per side (the cap that bounds
+    the cost).
 
     Returns (low, high, note) per group. A side that never reaches the threshold before a bound or within
     2^max_expand standard errors is NaN (open interval); a limit still moving when the cap is hit is
@@ -478,10 +480,21 @@ def profile_batch(
     free = np.array([results[i].free for i in sel], bool)
     free[:, j] = False
     dof = np.array([results[i].dof for i in sel])
-    target = np.array([results[i].rss for i in sel]) * (1 + special.fdtri(1, dof, confidence) / dof)
+    quantile = special.fdtri(1, dof, confidence)
+    rss_min = np.array([results[i].rss for i in sel])
+    target = rss_min * (1 + quantile / dof)
     se = np.array([results[i].params[name].stderr for i in sel])
-    step0 = np.where(np.isfinite(se) & (se > 0), se, 0.1 * np.maximum(np.abs(best[:, j]), 1e-12))
+    # the first try on each side is the Wald limit, sqrt(F) standard errors away: where the profile is
+    # quadratic the limit itself
+    step0 = np.where(np.isfinite(se) & (se > 0), np.sqrt(quantile) * se, 0.1 * np.maximum(np.abs(best[:, j]), 1e-12))
     lo, hi = _as_bounds(names, bounds)
+
+    def root_scale(f: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        """The excess as ``sqrt(RSS - RSS_min) - sqrt(target - RSS_min)``: same sign, and nearly linear in the
+        parameter (exactly so where the profile is quadratic), so that regula falsi converges in a few steps."""
+        rise = target[rows] - rss_min[rows]
+        with np.errstate(all="ignore"):
+            return np.sqrt(np.fmax(f + rise, 0.0)) - np.sqrt(rise)
 
     def excess(t: np.ndarray, start: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Profile RSS minus the threshold at ``t`` for groups ``rows``, and the inner solutions."""
@@ -497,7 +510,8 @@ def profile_batch(
     grp = np.concatenate([np.arange(n), np.arange(n)])
     sign = np.repeat([-1.0, 1.0], n)
     bound = np.repeat([lo[j], hi[j]], n)
-    a, fa = best[grp, j].copy(), -np.ones(2 * n)
+    a = best[grp, j].copy()
+    fa = root_scale(rss_min[grp] - target[grp], grp)  # at the estimate itself
     b, fb = np.full(2 * n, nan), np.full(2 * n, nan)
     start = best[grp].copy()
     step = step0[grp].copy()
@@ -511,6 +525,7 @@ def profile_batch(
         t = np.where(at_bound, bound[rows], t)
         f, vals = excess(t, start[rows], grp[rows])
         hit = ~(f < 0)  # crossed, or not finite (treated as beyond the threshold)
+        f = root_scale(f, grp[rows])
         b[rows[hit]], fb[rows[hit]] = t[hit], f[hit]
         a[rows[~hit]], fa[rows[~hit]], start[rows[~hit]] = t[~hit], f[~hit], vals[~hit]
         searching[rows[hit | at_bound]] = False
@@ -526,9 +541,10 @@ def profile_batch(
         with np.errstate(all="ignore"):
             cc = np.where(np.isfinite(fbr), br - fbr * (br - ar) / (fbr - far), 0.5 * (ar + br))
         cc = np.where((cc - ar) * (cc - br) < 0, cc, 0.5 * (ar + br))
-        f, vals = excess(cc, start[rows], grp[rows])
+        excess_rss, vals = excess(cc, start[rows], grp[rows])
         c[rows] = cc
-        inside = f < 0
+        inside = excess_rss < 0
+        f = root_scale(excess_rss, grp[rows])
         ri, ro = rows[inside], rows[~inside]
         a[ri], fa[ri], start[ri] = cc[inside], f[inside], vals[inside]
         b[ro], fb[ro] = cc[~inside], f[~inside]
@@ -536,7 +552,7 @@ def profile_batch(
         fa[ro[last[ro] == 1]] *= 0.5
         last[rows] = np.where(inside, -1, 1)
         tiny = np.abs(b[rows] - a[rows]) <= 1e-12 * np.maximum(np.abs(best[grp[rows], j]), 1e-300)
-        active[rows[(np.abs(f) <= 1e-9 * target[grp[rows]]) | tiny]] = False
+        active[rows[(np.abs(excess_rss) <= 1e-9 * target[grp[rows]]) | tiny]] = False
     limits = c.reshape(2, n).T
     notes: list[list[str]] = [[] for _ in sel]
     for q in range(2 * n):  # per group: the lower side's notes, then the upper side's
