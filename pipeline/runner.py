@@ -6,11 +6,9 @@ Use :func:`run` from Python (it returns the tables as DataFrames) or ``vzero run
 
 from __future__ import annotations
 
-import contextlib
 import datetime as _dt
 import hashlib
 import os
-import re
 import shutil
 import tempfile
 import time
@@ -20,12 +18,12 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Protocol
 
-import numpy as np
 import pandas as pd
 
 from pipeline.data import Table, Traces
 from pipeline.errors import InputFileError, OutputExistsError, StageError, VzeroError
 from pipeline.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
+from pipeline.outputs import CsvInWorkers, write_outputs
 from pipeline.plugins import Plugins, make_manager
 from pipeline.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
 from pipeline.stage import RawInput, StageInput, StageOutput
@@ -224,7 +222,7 @@ def run(
 
     tmp = _temporary_folder(out_dir)
     writer: AuditWriter | None = None
-    elsewhere: dict[str, Any] = {}
+    csv_workers: CsvInWorkers | None = None
     try:
         writer = AuditWriter(tmp / "run.h5", rec, plugins, run_id)
         store = PlateStore(writer, hold=not spill)
@@ -245,6 +243,9 @@ def run(
             raise StageError("every plate failed:\n" + "\n".join(f"  {k}: {v}" for k, v in failed.items()))
 
         pooled: dict[str, Any] = _pool(ok, store.traces())
+        # large stacked tables (the rates of every plate) go to CSV in idle workers while the driver fits
+        csv_workers = CsvInWorkers(executor, tmp)
+        csv_workers.start(pooled)
         records: list[StepRecord] = [r for o in ok for r in o.records]
         files: dict[str, bytes] = {}
         for spec in later_steps:
@@ -252,6 +253,7 @@ def run(
                     and getattr(executor, "shares_disk", False):
                 # a final step (the report) may share its work out to forked processes, which is safe only
                 # once the pool's own threads are gone; its idle workers are not needed any more
+                csv_workers.detach()  # the pool's last work: the CSV pieces it has begun
                 executor.close()
                 executor = None
             if progress:
@@ -268,18 +270,17 @@ def run(
         final_tables = {k: v for k, v in pooled.items() if isinstance(v, Table)}
         failed_items = [item for r in records for item in r.failed]
         writer.failed_items = failed_items
-        elsewhere = _csv_in_workers(executor, tmp, final_tables)
+        csv_workers.start(final_tables)
         writer.finish(final_tables, warnings, failed, derived_from)
-        csv_seconds = _write_outputs(tmp, final_tables, files, failed, elsewhere)
+        csv_seconds = write_outputs(tmp, final_tables, files, failed, csv_workers)
         _swap_into_place(tmp, out_dir, force)
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
                          audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds)
     except BaseException:
         if writer is not None:
             writer.close()
-        for future in elsewhere.values():  # let workers finish writing into tmp before it is removed
-            with contextlib.suppress(Exception):
-                future.result()
+        if csv_workers is not None:  # let workers finish writing into tmp before it is removed
+            csv_workers.finish()
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     finally:
@@ -556,11 +557,6 @@ def _alive(pid: int) -> bool:
 #: plates run, so it imports them then, in a thread.
 WARM_IMPORTS = ("scipy.optimize", "scipy.special")
 
-#: Final tables with at least this many rows are written to CSV by idle worker processes (in parallel with the
-#: audit file's last tables) when the run has a local process pool.
-CSV_IN_WORKERS_ROWS = 5000
-
-
 def _warm_imports() -> None:
     import importlib
 
@@ -569,132 +565,6 @@ def _warm_imports() -> None:
             importlib.import_module(name)
         except ImportError:  # pragma: no cover - then the step that needs it says so
             pass
-
-
-def _csv_in_workers(executor: Executor | None, tmp: Path, tables: Mapping[str, Table]) -> dict[str, Any]:
-    """Start writing the large final tables' CSV files in the (by now idle) worker processes of a local pool;
-    returns name -> future. Remote workers (Dask) may not see this disk: nothing is sent there."""
-    if executor is None or not getattr(executor, "shares_disk", False):
-        return {}
-    import functools
-
-    return {name: executor.submit(functools.partial(write_csv, str(tmp / f"{name}.csv")), table.frame)  # type: ignore[arg-type]
-            for name, table in tables.items() if len(table.frame) >= CSV_IN_WORKERS_ROWS}
-
-
-def write_csv(path: str, frame: pd.DataFrame) -> None:
-    """Write ``frame`` to ``path`` as :func:`csv_text` (pandas' text); also run in worker processes."""
-    text = csv_text(frame)
-    if text is None:
-        frame.to_csv(path, index=False)
-    else:
-        Path(path).write_text(text, encoding="utf-8", newline="")
-
-
-def _write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],
-                   failed: Mapping[str, str], elsewhere: Mapping[str, Any] | None = None) -> float:
-    """One CSV per final table (those in ``elsewhere`` are being written by workers: wait for them), the
-    files final steps returned, the list of failed plates; every file in ``tmp`` is on disk (fsync) when this
-    returns. Returns the seconds spent formatting and writing CSV files here.
-
-    The fsync calls wait on the disk, not on the processor, and release the GIL: a thread flushes run.h5 and
-    each file as soon as it is written while this thread formats the next, so the flushing costs almost no
-    time of its own."""
-    from concurrent.futures import ThreadPoolExecutor
-
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="vzero-fsync") as flusher:
-        syncs = [flusher.submit(_fsync, tmp / "run.h5")]
-
-        def written(path: Path) -> None:
-            syncs.append(flusher.submit(_fsync, path))
-
-        csv_seconds = 0.0
-        for name, table in tables.items():
-            target = tmp / f"{name}.csv"
-            if elsewhere and name in elsewhere:
-                elsewhere[name].result()
-            else:
-                t0 = time.perf_counter()
-                write_csv(str(target), table.frame)
-                csv_seconds += time.perf_counter() - t0
-            written(target)
-        for rel, data in files.items():
-            target = tmp / rel
-            target.parent.mkdir(parents=True, exist_ok=True)
-            target.write_bytes(data)
-            written(target)
-        if failed:
-            target = tmp / "failed_plates.txt"
-            target.write_text("".join(f"{k}: {v}\n" for k, v in failed.items()), "utf-8")
-            written(target)
-        for sync in syncs:
-            sync.result()
-    return csv_seconds
-
-
-def csv_text(frame: pd.DataFrame) -> str | None:
-    """``frame.to_csv(index=False)``'s text, character for character, about four times faster; ``None``
-    when a column has a type this does not handle (the caller then uses pandas).
-
-    pandas formats float64 through numpy's shortest round-trip text, which is Python's ``repr`` of the same
-    float (checked over millions of bit patterns); ``repr`` on a list is much faster than numpy's
-    ``astype(str)``. Missing values are empty fields; quoting is the csv module's minimal quoting, as pandas.
-    """
-    import csv
-    import io
-
-    from pipeline.audit import text_codes
-    from pipeline.data import columns as data_columns
-    from pipeline.data import values_as
-
-    if frame.columns.nlevels != 1 or frame.shape[1] == 0:
-        return None
-    columns: list[list[str]] = []
-    texts: list[list[str]] = []  # the distinct values of the columns that may need quoting
-    for dtype, values in data_columns(frame):
-        if dtype == "float64":
-            text = _float_texts(values_as(values, np.float64))
-        elif isinstance(dtype, np.dtype) and dtype.kind in "biu":
-            text = list(map(str, values.tolist()))
-        elif (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
-            distinct, codes = text_codes(values_as(values, object))
-            text = np.array(distinct, dtype=object)[codes].tolist()
-            texts.append(distinct)
-        else:
-            return None
-        columns.append(text)
-    header = [str(c) for c in frame.columns]
-    if len(columns) > 1 and not any(_NEEDS_QUOTES.search("".join(col)) for col in [header, *texts]):
-        # nothing to quote: plain joins (twice as fast as the csv module)
-        return os.linesep.join(map(",".join, [header, *zip(*columns, strict=True)])) + os.linesep
-    out = io.StringIO()
-    writer = csv.writer(out, lineterminator=os.linesep)
-    writer.writerow(header)
-    writer.writerows(zip(*columns, strict=True))
-    return out.getvalue()
-
-
-def _float_texts(values: np.ndarray) -> list[str]:
-    """Each float's shortest round-trip text (``repr``), NaN as an empty field. A column with many repeats
-    (concentrations, levels, a constant) formats each distinct bit pattern once (so -0.0 stays "-0.0")."""
-    bits, codes = np.unique(values.view(np.int64), return_inverse=True)
-    if 2 * bits.size <= values.size:
-        distinct = ["" if t == "nan" else t for t in map(repr, bits.view(np.float64).tolist())]
-        return np.array(distinct, dtype=object)[codes].tolist()  # type: ignore[no-any-return]
-    text = list(map(repr, values.tolist()))
-    for i in np.flatnonzero(np.isnan(values)).tolist():
-        text[i] = ""
-    return text
-
-
-_NEEDS_QUOTES = re.compile('[,"\r\n]')
-"""Characters that make the csv module quote a field (delimiter, quote character, line breaks)."""
-
-
-def _fsync(path: Path) -> None:
-    """Flush one file's data to disk (the run is renamed into place only once every file is)."""
-    with open(path, "rb") as fh:
-        os.fsync(fh.fileno())
 
 
 def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:

@@ -7,7 +7,7 @@ import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from pipeline.runner import csv_text
+from pipeline.outputs import csv_text
 
 
 def test_same_text_as_pandas_for_every_column_type():
@@ -39,3 +39,47 @@ def test_empty_and_unhandled_frames():
 def test_any_floats_and_text_match_pandas(xs: list[float], words: list[str]):
     frame = pd.DataFrame({"x": np.array(xs, dtype=np.float64), "w": pd.Series(words[: len(xs)], dtype=object)})
     assert csv_text(frame) == frame.to_csv(index=False)
+
+
+def test_pieces_split_by_rows_join_into_the_same_text():
+    """Large tables are written by worker processes in pieces of rows, the first with the header: joined,
+    they must be the text of the whole table (quoting and missing values decided row by row)."""
+    frame = pd.DataFrame({"x": [1.5, np.nan, -0.0, 2.0, 1e-9], "w": ["a,b", None, 'q"', "plain", "line\nbreak"],
+                          "n": [1, 2, 3, 4, 5]})
+    whole = frame.to_csv(index=False)
+    for cut in range(1, 5):
+        assert csv_text(frame.iloc[:cut]) + csv_text(frame.iloc[cut:], header=False) == whole
+    plain = pd.DataFrame({"x": [1.0, 2.0], "y": ["a", "b"]})
+    assert csv_text(plain.iloc[:1]) + csv_text(plain.iloc[1:], header=False) == plain.to_csv(index=False)
+    assert csv_text(plain.iloc[:0], header=False) == ""
+
+
+def test_tables_written_in_pieces_by_workers(tmp_path):
+    """CsvInWorkers: a large table split over the workers joins into the table's CSV; a table replaced by a
+    later step is not used (the new one is written instead) and no piece is left in the folder."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from pipeline import outputs
+    from pipeline.data import Table
+
+    class Pool:  # the executor interface, on threads
+        workers, shares_disk = 2, True
+
+        def __init__(self) -> None:
+            self.pool = ThreadPoolExecutor(2)
+
+        def submit(self, fn, arg):
+            return self.pool.submit(fn, arg)
+
+    rows = outputs.CSV_IN_WORKERS_ROWS
+    first = Table(pd.DataFrame({"x": np.arange(rows + 7) * 0.1, "w": ["a", "b,c"] * ((rows + 7) // 2) + ["d"]}))
+    later = Table(first.frame.assign(x=first.frame["x"] * 2))
+    small = Table(pd.DataFrame({"x": [1.0]}))
+    (tmp_path / "run.h5").write_bytes(b"")  # the run folder's audit file, flushed with the rest
+    workers = outputs.CsvInWorkers(Pool(), tmp_path)
+    workers.start({"rates": first, "small": small})
+    assert len(workers.started["rates"].paths) == 2 and "small" not in workers.started
+    workers.start({"rates": later})
+    outputs.write_outputs(tmp_path, {"rates": later, "small": small}, {}, {}, workers)
+    assert (tmp_path / "rates.csv").read_text("utf-8") == later.frame.to_csv(index=False)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["rates.csv", "run.h5", "small.csv"]

@@ -173,3 +173,23 @@ def test_the_process_pool_is_closed_before_a_final_step(tmp_path: Path, monkeypa
     result = run(recipe, tmp_path / "pool", jobs=2)
     assert pool_threads and set(pool_threads) == {0}
     assert (result.out_dir / "report.html").is_file() and len(list((result.out_dir / "figures").glob("*.png"))) >= 4
+
+
+@pytest.mark.parametrize("report", [False, True])
+def test_csv_files_written_in_pieces_by_the_pool_match_serial(tmp_path: Path, monkeypatch, report: bool):
+    """With a process pool, large tables' CSV files are written by the workers, split by rows (the stacked
+    rates as soon as the plates are in, while the driver fits); the files are the serial run's, byte for byte,
+    also when the pool closes early for a report, and no piece is left in the run folder."""
+    from pipeline import outputs
+
+    recipe = demo_batch(tmp_path / "in", 3)
+    if report:
+        recipe.write_text(recipe.read_text("utf-8") + "  - report: {method: html}\n", "utf-8")
+    serial = run(recipe, tmp_path / "serial")
+    monkeypatch.setattr(outputs, "CSV_IN_WORKERS_ROWS", 10)  # every stacked table goes to the workers
+    pooled = run(recipe, tmp_path / "pool", jobs=2)
+    csvs = sorted(p.name for p in serial.out_dir.glob("*.csv"))
+    assert "rates.csv" in csvs and csvs == sorted(p.name for p in pooled.out_dir.glob("*.csv"))
+    for name in csvs:
+        assert (pooled.out_dir / name).read_bytes() == (serial.out_dir / name).read_bytes(), name
+    assert not [p.name for p in pooled.out_dir.iterdir() if p.name.startswith(".")]

@@ -1,0 +1,232 @@
+"""The files a run writes beside its audit file: one CSV per final table, the files final steps returned and
+the list of failed plates, every one flushed to disk before the run folder is renamed into place.
+
+CSV text is pandas' ``to_csv`` text, character for character, made several times faster (:func:`csv_text`).
+With a local process pool, large tables are written by the workers, each table split by rows over all of
+them, and a table already final when the pooled steps start (the stacked rates) is begun then, while the
+driver fits; the pieces are joined into one file at the end (:class:`CsvInWorkers`).
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+import re
+import shutil
+import time
+import uuid
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from pipeline.data import Table
+from pipeline.executors import Executor
+
+#: Final tables with at least this many rows are written to CSV by worker processes when the run has a local
+#: process pool, split by rows into pieces of at least half as many rows, one piece per worker at most.
+CSV_IN_WORKERS_ROWS = 5000
+
+
+@dataclass
+class _Pieces:
+    """One table being written by workers: the table object (the file is used only if the run's final table is
+    still this object), its pieces' paths in row order, and the workers' futures."""
+
+    table: Table
+    paths: list[Path]
+    futures: list[Any]
+
+    def wait(self) -> None:
+        for future in self.futures:
+            future.result()
+
+
+class CsvInWorkers:
+    """CSV files of large tables written by the worker processes of a local pool, started as soon as a table is
+    known. Nothing is sent to remote workers (Dask), which may not see this disk."""
+
+    def __init__(self, executor: Executor | None, tmp: Path) -> None:
+        self.executor = executor if executor is not None and getattr(executor, "shares_disk", False) else None
+        self.tmp = tmp
+        self.started: dict[str, _Pieces] = {}
+        self.stale: list[_Pieces] = []
+
+    def start(self, tables: Mapping[str, Any]) -> None:
+        """Start writing every large table of ``tables`` not already being written as that very object."""
+        if self.executor is None:
+            return
+        for name, table in tables.items():
+            if not isinstance(table, Table) or len(table.frame) < CSV_IN_WORKERS_ROWS:
+                continue
+            old = self.started.get(name)
+            if old is not None:
+                if old.table is table:
+                    continue
+                self.stale.append(old)  # replaced by a later step: written again, the old pieces dropped
+            n = len(table.frame)
+            k = max(1, min(self.executor.workers, n // max(CSV_IN_WORKERS_ROWS // 2, 1)))
+            edges = np.linspace(0, n, k + 1).astype(int).tolist()
+            tag = uuid.uuid4().hex[:8]
+            paths = [self.tmp / f".{name}.csv.{tag}.{i}" for i in range(k)]
+            futures = [self.executor.submit(functools.partial(write_csv, str(path), header=i == 0),  # type: ignore[arg-type]
+                                            table.frame.iloc[edges[i]:edges[i + 1]])
+                       for i, path in enumerate(paths)]
+            self.started[name] = _Pieces(table, paths, futures)
+
+    def detach(self) -> None:
+        """Let the pieces already begun finish, and start no more (the pool is about to close)."""
+        for pieces in self.started.values():
+            pieces.wait()
+        self.executor = None
+
+    def take(self, name: str, table: Table, target: Path) -> bool:
+        """Join the pieces of ``name`` into ``target`` if the workers wrote exactly ``table``; False if not."""
+        pieces = self.started.get(name)
+        if pieces is None or pieces.table is not table:
+            return False
+        pieces.wait()
+        with open(target, "wb") as out:
+            for path in pieces.paths:
+                with open(path, "rb") as part:
+                    shutil.copyfileobj(part, out, 1 << 20)
+                path.unlink()
+        del self.started[name]
+        return True
+
+    def finish(self) -> None:
+        """Wait for every piece still being written and remove the unused ones (the run's folder may then be
+        removed safely: no worker writes into it any more)."""
+        for pieces in [*self.stale, *self.started.values()]:
+            for future in pieces.futures:
+                try:
+                    future.result()
+                except Exception:  # the piece is dropped either way
+                    pass
+            for path in pieces.paths:
+                path.unlink(missing_ok=True)
+        self.stale, self.started = [], {}
+
+
+def write_csv(path: str, frame: pd.DataFrame, header: bool = True) -> None:
+    """Write ``frame`` to ``path`` as :func:`csv_text` (pandas' text); also run in worker processes. Without
+    ``header`` only the rows (a piece of a file split by rows)."""
+    text = csv_text(frame, header=header)
+    if text is None:
+        frame.to_csv(path, index=False, header=header)
+    else:
+        Path(path).write_text(text, encoding="utf-8", newline="")
+
+
+def write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],
+                  failed: Mapping[str, str], workers: CsvInWorkers | None = None) -> float:
+    """One CSV per final table (those the ``workers`` wrote are joined from their pieces), the files final steps
+    returned, the list of failed plates; every file in ``tmp`` is on disk (fsync) when this returns. Returns
+    the seconds spent formatting and writing CSV files here.
+
+    The fsync calls wait on the disk, not on the processor, and release the GIL: a thread flushes run.h5 and
+    each file as soon as it is written while this thread formats the next, so the flushing costs almost no
+    time of its own."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="vzero-fsync") as flusher:
+        syncs = [flusher.submit(_fsync, tmp / "run.h5")]
+
+        def written(path: Path) -> None:
+            syncs.append(flusher.submit(_fsync, path))
+
+        csv_seconds = 0.0
+        # tables the workers are not writing first, so that they have time to finish theirs
+        order = sorted(tables, key=lambda name: workers is not None and name in workers.started)
+        for name in order:
+            target = tmp / f"{name}.csv"
+            if workers is None or not workers.take(name, tables[name], target):
+                t0 = time.perf_counter()
+                write_csv(str(target), tables[name].frame)
+                csv_seconds += time.perf_counter() - t0
+            written(target)
+        if workers is not None:
+            workers.finish()
+        for rel, data in files.items():
+            target = tmp / rel
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(data)
+            written(target)
+        if failed:
+            target = tmp / "failed_plates.txt"
+            target.write_text("".join(f"{k}: {v}\n" for k, v in failed.items()), "utf-8")
+            written(target)
+        for sync in syncs:
+            sync.result()
+    return csv_seconds
+
+
+def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
+    """``frame.to_csv(index=False, header=header)``'s text, character for character, about four times faster;
+    ``None`` when a column has a type this does not handle (the caller then uses pandas).
+
+    pandas formats float64 through numpy's shortest round-trip text, which is Python's ``repr`` of the same
+    float (checked over millions of bit patterns); ``repr`` on a list is much faster than numpy's
+    ``astype(str)``. Missing values are empty fields; quoting is the csv module's minimal quoting, as pandas.
+    Every row's text depends on that row alone, so a file split by rows joins into the same text.
+    """
+    import csv
+    import io
+
+    from pipeline.audit import text_codes
+    from pipeline.data import columns as data_columns
+    from pipeline.data import values_as
+
+    if frame.columns.nlevels != 1 or frame.shape[1] == 0:
+        return None
+    columns: list[list[str]] = []
+    texts: list[list[str]] = []  # the distinct values of the columns that may need quoting
+    for dtype, values in data_columns(frame):
+        if dtype == "float64":
+            text = _float_texts(values_as(values, np.float64))
+        elif isinstance(dtype, np.dtype) and dtype.kind in "biu":
+            text = list(map(str, values.tolist()))
+        elif (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
+            distinct, codes = text_codes(values_as(values, object))
+            text = np.array(distinct, dtype=object)[codes].tolist()
+            texts.append(distinct)
+        else:
+            return None
+        columns.append(text)
+    names = [str(c) for c in frame.columns]
+    head = [names] if header else []
+    if len(columns) > 1 and not any(_NEEDS_QUOTES.search("".join(col)) for col in [names, *texts]):
+        # nothing to quote: plain joins (twice as fast as the csv module)
+        lines = [*head, *zip(*columns, strict=True)]
+        return os.linesep.join(map(",".join, lines)) + os.linesep if lines else ""
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator=os.linesep)
+    writer.writerows(head)
+    writer.writerows(zip(*columns, strict=True))
+    return out.getvalue()
+
+
+def _float_texts(values: np.ndarray) -> list[str]:
+    """Each float's shortest round-trip text (``repr``), NaN as an empty field. A column with many repeats
+    (concentrations, levels, a constant) formats each distinct bit pattern once (so -0.0 stays "-0.0")."""
+    bits, codes = np.unique(values.view(np.int64), return_inverse=True)
+    if 2 * bits.size <= values.size:
+        distinct = ["" if t == "nan" else t for t in map(repr, bits.view(np.float64).tolist())]
+        return np.array(distinct, dtype=object)[codes].tolist()  # type: ignore[no-any-return]
+    text = list(map(repr, values.tolist()))
+    for i in np.flatnonzero(np.isnan(values)).tolist():
+        text[i] = ""
+    return text
+
+
+_NEEDS_QUOTES = re.compile('[,"\r\n]')
+"""Characters that make the csv module quote a field (delimiter, quote character, line breaks)."""
+
+
+def _fsync(path: Path) -> None:
+    """Flush one file's data to disk (the run is renamed into place only once every file is)."""
+    with open(path, "rb") as fh:
+        os.fsync(fh.fileno())
