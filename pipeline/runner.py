@@ -554,8 +554,10 @@ def _alive(pid: int) -> bool:
 
 
 #: Modules the built-in pooled steps import on first use. With worker processes the driver mostly waits while
-#: plates run, so it imports them then, in a thread.
-WARM_IMPORTS = ("scipy.optimize", "scipy.special")
+#: plates run, so it imports them then, in a thread. (scipy.optimize is left out: the fit imports it only for
+#: the rare group its batched iteration hands to scipy's solver.)
+WARM_IMPORTS = ("scipy.special",)
+
 
 def _warm_imports() -> None:
     import importlib

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import optimize, special  # special: t and F quantiles without importing scipy.stats (0.3 s)
+from scipy import special  # t and F quantiles without importing scipy.stats (0.3 s)
 
 Func = Callable[[Sequence[Any], Mapping[str, np.ndarray]], np.ndarray]
 Jac = Callable[[Sequence[Any], Mapping[str, np.ndarray]], Sequence[np.ndarray]]
@@ -236,6 +236,9 @@ def fit(
         return (_jacobian(jac, full(q), x, y.shape) * w[:, None])[:, free]
 
     def run(meth: str) -> Any:
+        from scipy import optimize  # here, not at the top: a batched fit that needs no fallback never pays its
+        # import (0.1 s, once per process)
+
         kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": 100_000}
         if meth != "lm":
             kw["bounds"] = (lo[free], hi[free])
