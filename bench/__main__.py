@@ -4,7 +4,8 @@ peer and the targets, and writes bench/RESULTS.md with the machine it ran on.
 Measured (each in a fresh subprocess, one BLAS thread): the whole pipeline (import, blank, rates, convert,
 fit, audit file; no report) per stage with the audit file's share, on 96x60, 384x120 and 1536x200 plates
 with automatic linear rates ("auto") and on 384x120 with progress-curve rates ("progress"); peak memory;
-the peer script (bench/peer.py) on the same plates; a batch of plates with 1 and 2 workers; ``vzero --help``
+the peer script (bench/peer.py) on the same plates; a batch of plates with 1 and 2 workers (alternating
+pairs, median ratio); ``vzero --help``
 and a whole single-plate ``vzero run`` from the shell. ``--quick`` runs smaller sizes and a 40-plate batch.
 """
 
@@ -13,15 +14,20 @@ from __future__ import annotations
 import argparse
 import os
 import platform
+import statistics
 import sys
 import tempfile
 import time
 from pathlib import Path
 from typing import Any
 
-from bench.pipeline_bench import in_subprocess, spin, wall
+from bench.pipeline_bench import in_subprocess, spin, wall, write_batch
 
 HERE = Path(__file__).resolve().parent
+
+#: The batch is run as alternating pairs (1 worker, then 2) and the median ratio kept: on a shared machine the
+#: cores' speed drifts by a fifth within minutes, more than the difference being measured.
+BATCH_PAIRS = 3
 
 
 def machine() -> str:
@@ -94,17 +100,22 @@ def main(argv: list[str] | None = None) -> int:
                         f"{r['traced_peak_mb']:.1f} | {p['total']:.2f} ({peer_method}) | "
                         f"{p['total'] / r['total']:.1f}x |")
 
-    say(f"\nbatch of {n_batch} plates (96x60, auto rates, one pooled fit):")
-    batch = {}
-    for jobs in (1, 2):
-        b = in_subprocess("batch", str(n_batch), str(jobs))
-        batch[jobs] = b
-        say(f"  {jobs} worker(s): {b['total']:.2f} s ({b['total'] / n_batch * 1000:.0f} ms per plate; "
-            f"pooled fit {b['stages'].get('fit', 0):.2f} s; failed {b['failed']})")
-    speedup = batch[1]["total"] / batch[2]["total"]
-    capacity = parallel_capacity()
-    say(f"  speed-up with 2 workers: {speedup:.2f}x (the machine's own: {capacity:.2f}x for two independent "
-        "compute processes, measured just after)")
+    say(f"\nbatch of {n_batch} plates (96x60, auto rates, one pooled fit), {BATCH_PAIRS} alternating pairs:")
+    pairs: list[tuple[dict[str, Any], dict[str, Any], float]] = []
+    with tempfile.TemporaryDirectory() as plates:
+        write_batch(Path(plates), n_batch)
+        for k in range(BATCH_PAIRS):
+            one, two = (in_subprocess("batch", str(n_batch), str(jobs), plates) for jobs in (1, 2))
+            capacity = parallel_capacity()
+            pairs.append((one, two, capacity))
+            say(f"  pair {k + 1}: 1 worker {one['total']:.2f} s, 2 workers {two['total']:.2f} s: "
+                f"{one['total'] / two['total']:.2f}x (the machine's own, just after: {capacity:.2f}x; pooled fit "
+                f"{two['stages'].get('fit', 0):.2f} s; failed {one['failed']}, {two['failed']})")
+    speedup = statistics.median(one["total"] / two["total"] for one, two, _ in pairs)
+    capacity = statistics.median(c for _, _, c in pairs)
+    batch = {jobs: {"total": statistics.median(p[jobs - 1]["total"] for p in pairs)} for jobs in (1, 2)}
+    say(f"  speed-up with 2 workers: {speedup:.2f}x, median of the pairs (the machine's own: {capacity:.2f}x "
+        "for two independent compute processes)")
 
     with tempfile.TemporaryDirectory() as tmp:
         vzero = [sys.executable, "-m", "pipeline"]
@@ -144,6 +155,7 @@ def main(argv: list[str] | None = None) -> int:
         text = RESULTS.format(
             machine=machine(), mode="--quick" if args.quick else "full", rows="\n".join(rows), n_batch=n_batch,
             b1=batch[1]["total"], b2=batch[2]["total"], speedup=speedup, capacity=capacity, help_s=help_s,
+            pairs=BATCH_PAIRS, ratios=", ".join(f"{one['total'] / two['total']:.2f}x" for one, two, _ in pairs),
             run_s=run_s,
             targets="\n".join(notes),
         )
@@ -178,9 +190,11 @@ Michaelis–Menten equation for "progress"), `curve_fit` per group, CSV out.
 
 ## Batch
 
-{n_batch} plates of 96x60 (auto rates), one recipe, pooled fit: 1 worker {b1:.2f} s, 2 worker processes
-{b2:.2f} s, speed-up {speedup:.2f}x. The machine itself gave {capacity:.2f}x at the time (two equal pieces of
-pure compute in two processes against one process; 2.0 on two free cores): a batch speed-up cannot exceed it.
+{n_batch} plates of 96x60 (auto rates), one recipe, pooled fit, run as {pairs} alternating pairs (1 worker, then 2
+worker processes): medians 1 worker {b1:.2f} s, 2 workers {b2:.2f} s; speed-up {speedup:.2f}x, the median of
+the pairs' ratios ({ratios}). The machine itself gave {capacity:.2f}x (median, measured after each pair: two
+equal pieces of pure compute in two processes against one process; 2.0 on two free cores): a batch speed-up
+cannot exceed it.
 
 ## Command line
 

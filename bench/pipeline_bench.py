@@ -134,17 +134,24 @@ def measure_peer(n_wells: int, n_time: int, method: str) -> dict[str, Any]:
         shutil.rmtree(work, ignore_errors=True)
 
 
-def measure_batch(n_plates: int, jobs: int, n_wells: int = 96, n_time: int = 60) -> dict[str, Any]:
-    """In this process: ``n_plates`` plates through one recipe with ``jobs`` worker processes."""
+def write_batch(folder: Path, n_plates: int, n_wells: int = 96, n_time: int = 60) -> Path:
+    """Write ``n_plates`` synthetic plates and a recipe for them under ``folder``; return the recipe."""
+    for i in range(n_plates):
+        write_plate(folder / "plates", n_wells, n_time, seed=i, name=f"p{i:03d}")
+    recipe = folder / "batch.yaml"
+    plates = '  - data: "plates/p*.csv"\n    layout: plates/layout.csv\n'
+    recipe.write_text(recipe_text("auto", plates), "utf-8")
+    return recipe
+
+
+def measure_batch(n_plates: int, jobs: int, folder: str | None = None) -> dict[str, Any]:
+    """In this process: ``n_plates`` plates through one recipe with ``jobs`` worker processes (the plates of
+    :func:`write_batch` in ``folder`` when given, else written here first)."""
     from pipeline import runner
 
     work = Path(tempfile.mkdtemp(prefix="vzero-bench-"))
     try:
-        for i in range(n_plates):
-            write_plate(work / "plates", n_wells, n_time, seed=i, name=f"p{i:03d}")
-        recipe = work / "batch.yaml"
-        plates = '  - data: "plates/p*.csv"\n    layout: plates/layout.csv\n'
-        recipe.write_text(recipe_text("auto", plates), "utf-8")
+        recipe = Path(folder) / "batch.yaml" if folder else write_batch(work, n_plates)
         t0 = time.perf_counter()
         result = runner.run(recipe, work / "out", force=True, jobs=jobs)
         total = time.perf_counter() - t0
@@ -186,14 +193,14 @@ def wall(cmd: list[str], cwd: Path | None = None) -> float:
 
 
 def main(argv: list[str]) -> int:
-    """``plate N_WELLS N_TIME RATES REPEAT`` | ``peer N_WELLS N_TIME METHOD`` | ``batch N_PLATES JOBS``."""
+    """``plate N_WELLS N_TIME RATES REPEAT`` | ``peer N_WELLS N_TIME METHOD`` | ``batch N_PLATES JOBS [FOLDER]``."""
     what = argv[0]
     if what == "plate":
         out = measure_plate(int(argv[1]), int(argv[2]), argv[3], int(argv[4]))
     elif what == "peer":
         out = measure_peer(int(argv[1]), int(argv[2]), argv[3])
     elif what == "batch":
-        out = measure_batch(int(argv[1]), int(argv[2]))
+        out = measure_batch(int(argv[1]), int(argv[2]), argv[3] if len(argv) > 3 else None)
     else:
         raise SystemExit(f"unknown measurement {what!r}; see python -m bench --help")
     print(json.dumps(out))
