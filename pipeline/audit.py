@@ -73,6 +73,10 @@ class Links:
         self.by_id[id(obj)] = h5obj
         self.keep.append(obj)
 
+    def clear(self) -> None:
+        """Forget everything (the objects kept alive, and the open datasets' handles)."""
+        self.by_id, self.keep, self.by_content = {}, [], {}
+
 
 def write_table(group: Any, name: str, table: Table | pd.DataFrame, links: Links | None = None) -> Any:
     """Write ``table`` as ``group/name`` with one dataset per column.
@@ -567,6 +571,14 @@ class AuditWriter:
             write_artifact(sub, name, value, self.links)
         self.seconds += time.perf_counter() - t0
         return sub
+
+    def forget_plate(self) -> None:
+        """Drop what links a plate's objects to later writes: call once a plate of a long batch is written.
+        Its arrays and tables stay referenced otherwise (links are found by object identity), several MB a
+        384-well plate, and every column's dataset stays open; a plate's objects are not written again by a
+        later plate or by the pooled steps (they stack new tables), so nothing is lost but cross-plate
+        sharing of equal columns, which a process pool's parts never had either."""
+        self.links.clear()
 
     def add_part(self, records: list[Any], part: bytes) -> dict[str, str]:
         """Add one plate's step records whose outputs a worker already wrote (:func:`write_part`): HDF5's own

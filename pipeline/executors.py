@@ -322,6 +322,7 @@ class PlateStore:
                     record.outputs = {}
             if not self.hold:
                 outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
+                self.writer.forget_plate()
         self.outcomes.append(outcome)
 
     def traces(self) -> Mapping[str, Any]:

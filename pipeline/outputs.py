@@ -111,14 +111,22 @@ class CsvInWorkers:
         self.stale, self.started = [], {}
 
 
+#: Rows formatted at a time when writing a CSV file: the text of a large batch's tables (millions of cells) is
+#: never all in memory at once.
+CSV_BLOCK_ROWS = 20_000
+
+
 def write_csv(path: str, frame: pd.DataFrame, header: bool = True) -> None:
-    """Write ``frame`` to ``path`` as :func:`csv_text` (pandas' text); also run in worker processes. Without
-    ``header`` only the rows (a piece of a file split by rows)."""
-    text = csv_text(frame, header=header)
-    if text is None:
-        frame.to_csv(path, index=False, header=header)
-    else:
-        Path(path).write_text(text, encoding="utf-8", newline="")
+    """Write ``frame`` to ``path`` as :func:`csv_text` (pandas' text), a block of rows at a time; also run in
+    worker processes. Without ``header`` only the rows (a piece of a file split by rows)."""
+    with open(path, "w", encoding="utf-8", newline="") as out:
+        for start in range(0, max(len(frame), 1), CSV_BLOCK_ROWS):
+            block = frame.iloc[start:start + CSV_BLOCK_ROWS]
+            text = csv_text(block, header=header and start == 0)
+            if text is None:
+                block.to_csv(out, index=False, header=header and start == 0)
+            else:
+                out.write(text)
 
 
 def write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],

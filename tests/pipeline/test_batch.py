@@ -164,6 +164,35 @@ def test_streamed_plates_give_the_same_audit_file_as_held_plates(tmp_path: Path)
     assert not any(p.name.startswith(".streamed.scratch") for p in tmp_path.iterdir())  # scratch removed
 
 
+def test_streamed_plates_are_let_go_once_written(tmp_path: Path, monkeypatch):
+    """A long batch run in one process keeps no plate's arrays and tables once the plate is in the audit file
+    (they were kept alive for links by object identity: several MB a 384-well plate, for the whole run)."""
+    import gc
+    import weakref
+
+    from pipeline import audit
+    from pipeline.data import Traces
+
+    alive: list[weakref.ref] = []
+    write_traces = audit.write_traces
+
+    def watching(group, name, traces: Traces, links=None):
+        alive.append(weakref.ref(traces.signal))
+        return write_traces(group, name, traces, links)
+
+    held_on: list[int] = []
+
+    def progress(p) -> None:  # as each plate is done: how many earlier plates' signal arrays still exist
+        if p.step is None:
+            gc.collect()
+            held_on.append(sum(ref() is not None for ref in alive[: 2 * (p.done - 1)]))
+
+    monkeypatch.setattr(audit, "write_traces", watching)
+    recipe = demo_batch(tmp_path / "in", 4)
+    run(recipe, tmp_path / "streamed", spill=True, progress=progress)
+    assert len(alive) == 8 and held_on == [0, 0, 0, 0]  # import and blank traces of 4 plates
+
+
 def test_glob_plates_named_by_file(tmp_path: Path):
     recipe = demo_batch(tmp_path / "in", 2, fit=False)
     text = recipe.read_text("utf-8").replace("  - manifest: plates/manifest.csv",

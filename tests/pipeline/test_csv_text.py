@@ -83,3 +83,17 @@ def test_tables_written_in_pieces_by_workers(tmp_path):
     outputs.write_outputs(tmp_path, {"rates": later, "small": small}, {}, {}, workers)
     assert (tmp_path / "rates.csv").read_text("utf-8") == later.frame.to_csv(index=False)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["rates.csv", "run.h5", "small.csv"]
+
+
+def test_large_tables_are_written_a_block_of_rows_at_a_time(tmp_path, monkeypatch):
+    """write_csv formats a block of rows at a time (bounded memory); the file is pandas' text all the same, also
+    for a table left to pandas (a date column) and for a table without rows."""
+    from pipeline import outputs
+
+    monkeypatch.setattr(outputs, "CSV_BLOCK_ROWS", 3)
+    frames = [pd.DataFrame({"x": np.arange(10) / 3, "w": ["a,b", None, "c"] * 3 + ["d"]}),
+              pd.DataFrame({"t": pd.to_datetime(["2024-01-01"] * 7), "v": np.arange(7)}),
+              pd.DataFrame({"a": pd.Series([], dtype=float)})]
+    for i, frame in enumerate(frames):
+        outputs.write_csv(str(tmp_path / f"{i}.csv"), frame)
+        assert (tmp_path / f"{i}.csv").read_text("utf-8") == frame.to_csv(index=False)
