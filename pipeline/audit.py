@@ -574,7 +574,7 @@ class AuditWriter:
 
     def forget_plate(self) -> None:
         """Drop what links a plate's objects to later writes: call once a plate of a long batch is written.
-        Its arrays and tables stay referenced otherwise (links are found by object identity), several MB a
+        Its arrays and tables stay referenced otherwise (links are found by object identity), over 1 MB a
         384-well plate, and every column's dataset stays open; a plate's objects are not written again by a
         later plate or by the pooled steps (they stack new tables), so nothing is lost but cross-plate
         sharing of equal columns, which a process pool's parts never had either."""
