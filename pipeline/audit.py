@@ -520,12 +520,10 @@ class AuditWriter:
 
         t0 = time.perf_counter()
         if raw.sha256 not in self._inputs:
-            ds = self.inputs.create_dataset(f"{len(self._inputs):02d}", data=np.frombuffer(raw.data, dtype=np.uint8))
-            _set_attr(ds, "name", raw.name)
-            _set_attr(ds, "key", raw.key)
-            _set_attr(ds, "sha256", raw.sha256)
-            _set_attr(ds, "size", len(raw.data))
-            self._inputs[raw.sha256] = ds
+            dsid = _dataset(self.inputs.id, f"{len(self._inputs):02d}", np.frombuffer(raw.data, dtype=np.uint8))
+            for key, value in (("name", raw.name), ("key", raw.key), ("sha256", raw.sha256), ("size", len(raw.data))):
+                _new_attr(dsid, key, value)
+            self._inputs[raw.sha256] = _h5py().Dataset(dsid)
         self.input_plates.setdefault(raw.sha256, []).append(plate)
         names = self._names.setdefault(raw.sha256, [])
         if raw.name not in names:  # the same bytes under another name (a copied layout): keep every name

@@ -254,9 +254,9 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     if "flags" in frame.columns:
         # by name, so that flags a lab's own rate plugin sets (names we do not know) never break the fit
         excluded = set(cfg["exclude_flags"])
-        texts = frame["flags"].fillna("").astype(str)
-        hit = {t: bool(excluded & set(filter(None, t.split(";")))) for t in texts.unique()}
-        use &= ~np.array([hit[t] for t in texts], bool)
+        codes, texts = pd.factorize(frame["flags"].fillna("").astype(str))  # each distinct text looked at once
+        hit = np.array([bool(excluded & set(filter(None, str(t).split(";")))) for t in texts] + [False], bool)
+        use &= ~hit[codes]
     if gcol in frame.columns:
         groups = frame[gcol].fillna("").astype(str).to_numpy()  # a missing group is the group ""
     else:
