@@ -69,6 +69,8 @@ class CsvInWorkers:
                 self.stale.append(old)  # replaced by a later step: written again, the old pieces dropped
             n = len(table.frame)
             k = max(1, min(self.executor.workers, n // max(CSV_IN_WORKERS_ROWS // 2, 1)))
+            if not handled(table.frame):
+                k = 1  # pandas writes it, and decides some formats (dates) from all the rows it sees
             edges = np.linspace(0, n, k + 1).astype(int).tolist()
             tag = uuid.uuid4().hex[:8]
             paths = [self.tmp / f".{name}.csv.{tag}.{i}" for i in range(k)]
@@ -99,16 +101,22 @@ class CsvInWorkers:
 
     def finish(self) -> None:
         """Wait for every piece still being written and remove the unused ones (the run's folder may then be
-        removed safely: no worker writes into it any more)."""
+        removed safely: no worker writes into it any more). An interrupt while waiting is raised again once
+        every piece is accounted for."""
+        interrupted: BaseException | None = None
         for pieces in [*self.stale, *self.started.values()]:
             for future in pieces.futures:
                 try:
                     future.result()
                 except Exception:  # the piece is dropped either way
                     pass
+                except BaseException as exc:  # Ctrl-C: still wait for the others, then stop
+                    interrupted = interrupted or exc
             for path in pieces.paths:
                 path.unlink(missing_ok=True)
         self.stale, self.started = [], {}
+        if interrupted is not None:
+            raise interrupted
 
 
 #: Rows formatted at a time when writing a CSV file: the text of a large batch's tables (millions of cells) is
@@ -118,15 +126,15 @@ CSV_BLOCK_ROWS = 20_000
 
 def write_csv(path: str, frame: pd.DataFrame, header: bool = True) -> None:
     """Write ``frame`` to ``path`` as :func:`csv_text` (pandas' text), a block of rows at a time; also run in
-    worker processes. Without ``header`` only the rows (a piece of a file split by rows)."""
+    worker processes. Without ``header`` only the rows (a piece of a file split by rows). A table with a
+    column :func:`csv_text` does not handle is written by pandas in one go (pandas chooses some formats, such
+    as dates with or without a time of day, from all the rows)."""
+    if not handled(frame):
+        frame.to_csv(path, index=False, header=header)
+        return
     with open(path, "w", encoding="utf-8", newline="") as out:
         for start in range(0, max(len(frame), 1), CSV_BLOCK_ROWS):
-            block = frame.iloc[start:start + CSV_BLOCK_ROWS]
-            text = csv_text(block, header=header and start == 0)
-            if text is None:
-                block.to_csv(out, index=False, header=header and start == 0)
-            else:
-                out.write(text)
+            out.write(csv_text(frame.iloc[start:start + CSV_BLOCK_ROWS], header=header and start == 0) or "")
 
 
 def write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, bytes],
@@ -188,21 +196,20 @@ def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
     from pipeline.data import columns as data_columns
     from pipeline.data import values_as
 
-    if frame.columns.nlevels != 1 or frame.shape[1] == 0:
+    if not handled(frame):
         return None
     columns: list[list[str]] = []
     texts: list[list[str]] = []  # the distinct values of the columns that may need quoting
     for dtype, values in data_columns(frame):
-        if dtype == "float64":
+        kind = _kind(dtype)
+        if kind == "float":
             text = _float_texts(values_as(values, np.float64))
-        elif isinstance(dtype, np.dtype) and dtype.kind in "biu":
+        elif kind == "int":
             text = list(map(str, values.tolist()))
-        elif (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
+        else:
             distinct, codes = text_codes(values_as(values, object))
             text = np.array(distinct, dtype=object)[codes].tolist()
             texts.append(distinct)
-        else:
-            return None
         columns.append(text)
     names = [str(c) for c in frame.columns]
     head = [names] if header else []
@@ -215,6 +222,22 @@ def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
     writer.writerows(head)
     writer.writerows(zip(*columns, strict=True))
     return out.getvalue()
+
+
+def handled(frame: pd.DataFrame) -> bool:
+    """Whether :func:`csv_text` writes ``frame`` (float64, numpy integer and bool, and text columns, one level
+    of column names, at least one column); other tables are left to pandas."""
+    return frame.columns.nlevels == 1 and frame.shape[1] > 0 and all(_kind(d) is not None for d in frame.dtypes)
+
+
+def _kind(dtype: Any) -> str | None:
+    if dtype == "float64":
+        return "float"
+    if isinstance(dtype, np.dtype) and dtype.kind in "biu":
+        return "int"
+    if (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
+        return "text"
+    return None
 
 
 def _float_texts(values: np.ndarray) -> list[str]:

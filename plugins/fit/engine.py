@@ -457,7 +457,7 @@ def profile_batch(
     the cost).
 
     Returns (low, high, note) per group. A side that never reaches the threshold before a bound or within
-    2^max_expand standard errors is NaN (open interval); a limit still moving when the cap is hit is
+    2^(max_expand - 1) Wald half-widths is NaN (open interval); a limit still moving when the cap is hit is
     returned with a note saying it is approximate.
     """
     nan = float("nan")
@@ -497,7 +497,7 @@ def profile_batch(
         parameter (exactly so where the profile is quadratic), so that regula falsi converges in a few steps."""
         rise = target[rows] - rss_min[rows]
         with np.errstate(all="ignore"):
-            return np.sqrt(np.fmax(f + rise, 0.0)) - np.sqrt(rise)
+            return np.sqrt(np.maximum(f + rise, 0.0)) - np.sqrt(rise)  # NaN stays NaN (then: bisection)
 
     def excess(t: np.ndarray, start: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Profile RSS minus the threshold at ``t`` for groups ``rows``, and the inner solutions."""

@@ -60,7 +60,7 @@ def batched_lm(
     its cost by less than ``rtol`` relatively (1e-6: a change of chi² far below 1 for plate-sized curves) or
     moves every parameter by less than ``xtol * (|p| + xtol)``, or the damping has grown so large that no
     step helps (a stationary point). Parameters are clipped to ``[lower, upper]`` when given, and a
-    parameter on its bound whose gradient points outward is held there for the step (a projected step: the
+    parameter on its bound where the descent direction points outward is held there for the step (a projected step: the
     clipped full step would be refused over and over, and the well never settle).
     """
     y0 = np.where(w > 0, y, 0.0)
@@ -96,8 +96,9 @@ def batched_lm(
         damp = a + (lam[act, None] * scale)[:, :, None] * eye
         p_act = p[act]
         if bounded:
-            # a parameter on its bound whose gradient points outward is held there: its row and column
-            # leave the step (else the clipped step is refused again and again and the well never settles)
+            # a parameter on its bound where the descent direction (g = J r) points outward is held there:
+            # its row and column leave the step (else the clipped step is refused again and again and the
+            # well never settles)
             pin = ((p_act <= lo[act]) & (g < 0)) | ((p_act >= hi[act]) & (g > 0))
             if pin.any():
                 free_p = ~pin
@@ -184,6 +185,20 @@ def integrated_mm(t: np.ndarray, s0: np.ndarray, km: np.ndarray, vmax: np.ndarra
     return km * wright_omega(arg)
 
 
+def _substrate_left(
+    t: np.ndarray, s0: np.ndarray, km: np.ndarray, vmax: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Substrate left ``S`` (clipped to [1e-300, S0]) and ``Vmax t``, each ``[n, t]``."""
+    vt = vmax * t
+    arg = np.subtract(s0, vt)
+    arg /= km
+    arg += np.log(s0 / km)
+    s = wright_omega(arg)
+    s *= km
+    np.clip(s, 1e-300, s0, out=s)
+    return s, vt
+
+
 def _mm_terms(
     t: np.ndarray, s0: np.ndarray, km: np.ndarray, vmax: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -193,17 +208,22 @@ def _mm_terms(
     P with respect to ln S0, ln Km and ln Vmax are ``S0 - (S0 + Km) q``, ``-(Vmax t - P) q`` and
     ``Vmax t q`` (:func:`_mm_curve`).
     """
-    vt = vmax * t
-    arg = np.subtract(s0, vt)
-    arg /= km
-    arg += np.log(s0 / km)
-    s = wright_omega(arg)
-    s *= km
-    np.clip(s, 1e-300, s0, out=s)
+    s, vt = _substrate_left(t, s0, km, vmax)
     q = s + km
     np.divide(s, q, out=q)
     np.subtract(s0, s, out=s)
     return s, q, vt
+
+
+def _mm_terms_with_s(
+    t: np.ndarray, s0: np.ndarray, km: np.ndarray, vmax: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`_mm_terms` and the substrate left ``S`` itself (at least 1e-300): ``ln(S/S0)`` taken from ``P``
+    would be ``log1p(-P/S0)``, which is ``-inf`` once a curve has run to completion (P/S0 rounds to 1)."""
+    s, vt = _substrate_left(t, s0, km, vmax)
+    q = s + km
+    np.divide(s, q, out=q)
+    return np.subtract(s0, s), q, vt, s
 
 
 def _mm_curve(
@@ -225,9 +245,10 @@ def _concentration_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
     range, from the straight line of zero order (u -> 0) to first order (u -> 1), so a fit is not trapped at
     either end as it was in logit coordinates, where the gradient vanishes on both plateaus. With the terms
     of :func:`_mm_terms` the Jacobian columns are 1, ``spc Vmax t q`` and
-    ``spc q (Vmax t + S0 ln(1 - P/S0)/(1 - u))/(1 - u)`` (``d ln Km/du = 1/(u (1 - u))``,
+    ``spc q (Vmax t + S0 ln(S/S0)/(1 - u))/(1 - u)`` (``d ln Km/du = 1/(u (1 - u))``,
     ``d ln Vmax/du = 1/(1 - u)``, and ``Km ln(S0/S) = Vmax t - P`` written without that difference, which
-    loses digits when u is small).
+    loses digits when u is small; ``ln(S/S0)`` from S itself, which stays finite when a curve has run to
+    completion).
     """
     tt = t[None, :]
 
@@ -235,14 +256,13 @@ def _concentration_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
         u = p[:, 2:3]
         stay = 1.0 - u
         sub = s0[rows]
-        prod, q, vt = _mm_terms(tt, sub, sub * u / stay, np.exp(p[:, 1:2]) / stay)
+        prod, q, vt, left = _mm_terms_with_s(tt, sub, sub * u / stay, np.exp(p[:, 1:2]) / stay)
         q *= spc
         jac = np.empty((rows.size, 3, t.size))
         jac[:, 0] = 1.0
         np.multiply(vt, q, out=jac[:, 1])
-        col = np.divide(prod, sub, out=jac[:, 2])
-        np.negative(col, out=col)
-        np.log1p(col, out=col)
+        col = np.divide(left, sub, out=jac[:, 2])
+        np.log(col, out=col)
         col *= sub / stay
         col += vt
         col *= q / stay

@@ -113,3 +113,19 @@ def test_repeated_column_names_and_pandas_own_dtypes():
     assert digest == _documented_hash(["v", "v"], ["", ""], [[1.0, 2.0], ["p", "q"]])
     with h5py.File(buf, "r") as f:
         assert read_table(f["t"]).frame.iloc[:, 1].tolist() == ["p", "q"]
+
+
+def test_one_text_shortcut_keeps_odd_cells_as_they_are():
+    """Between two equal texts, a cell that is not text (an array, a number) keeps its own str() (a review
+    found that an array cell comparing equal to the text was taken for that text, and one that did not compare
+    at all raised)."""
+    from pipeline.audit import text_codes
+
+    cells = np.empty(3, dtype=object)
+    cells[:] = ["x", None, "x"]
+    cells[1] = np.array(["x"])
+    texts, codes = text_codes(cells)
+    assert [texts[c] for c in codes] == ["x", str(np.array(["x"])), "x"]
+    cells[1] = np.array(["x", "y"])
+    texts, codes = text_codes(cells)
+    assert [texts[c] for c in codes] == ["x", str(np.array(["x", "y"])), "x"]

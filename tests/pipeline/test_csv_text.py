@@ -80,6 +80,12 @@ def test_tables_written_in_pieces_by_workers(tmp_path):
     workers.start({"rates": first, "small": small})
     assert len(workers.started["rates"].paths) == 2 and "small" not in workers.started
     workers.start({"rates": later})
+    dated = Table(pd.DataFrame({"t": pd.to_datetime(["2024-01-01 00:00"] * rows + ["2024-01-01 12:30"])}))
+    workers.start({"dated": dated})
+    assert len(workers.started["dated"].paths) == 1  # left to pandas, which needs every row at once
+    outputs.write_outputs(tmp_path, {"dated": dated}, {}, {}, workers)
+    assert (tmp_path / "dated.csv").read_text("utf-8") == dated.frame.to_csv(index=False)
+    (tmp_path / "dated.csv").unlink()
     outputs.write_outputs(tmp_path, {"rates": later, "small": small}, {}, {}, workers)
     assert (tmp_path / "rates.csv").read_text("utf-8") == later.frame.to_csv(index=False)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["rates.csv", "run.h5", "small.csv"]
@@ -92,7 +98,8 @@ def test_large_tables_are_written_a_block_of_rows_at_a_time(tmp_path, monkeypatc
 
     monkeypatch.setattr(outputs, "CSV_BLOCK_ROWS", 3)
     frames = [pd.DataFrame({"x": np.arange(10) / 3, "w": ["a,b", None, "c"] * 3 + ["d"]}),
-              pd.DataFrame({"t": pd.to_datetime(["2024-01-01"] * 7), "v": np.arange(7)}),
+              # pandas drops the time of day only when no row has one: such a table is written in one go
+              pd.DataFrame({"t": pd.to_datetime(["2024-01-01 00:00"] * 6 + ["2024-01-01 12:30"]), "v": np.arange(7)}),
               pd.DataFrame({"a": pd.Series([], dtype=float)})]
     for i, frame in enumerate(frames):
         outputs.write_csv(str(tmp_path / f"{i}.csv"), frame)

@@ -96,7 +96,7 @@ def test_unknown_hook_is_refused(tmp_path):
 
 def test_module_hooks_of_every_kind_pluggy_accepts_are_found(tmp_path):
     """The manager passes over module names that are not functions; a hook under another name (pluggy's
-    ``specname``) or bound to an object must still be found, and a marked non-function still ignored."""
+    ``specname``) or bound to an object must still be found."""
     (tmp_path / "kinds.py").write_text(
         "from pipeline import hookimpl\n"
         "seen = []\n"

@@ -13,6 +13,7 @@ import pytest
 from scipy.optimize import least_squares
 from scipy.special import lambertw
 
+from plugins.flags import Flag
 from plugins.rates.progress import progress_curve
 from plugins.rates.simulate import simulate_plate
 
@@ -59,3 +60,18 @@ def test_noisy_wells_get_the_least_squares_optimum() -> None:
         # solvers stop at slightly different places; a fit stuck on the wrong side was off by about one SE)
         assert res.v0[i] == pytest.approx(v_ref, rel=1e-4, abs=0.05 * res.stderr[i]), (i, s0[i], km[i])
     assert checked > n // 2
+
+
+def test_wells_that_run_to_completion() -> None:
+    """Km far below S0 and a fast enzyme: the substrate is used up early in the read window. Every well is fitted
+    (no FIT_FAILED) and v0 is the simulated one (invented plate; read noise 2e-4 AU)."""
+    t = np.linspace(0.0, 1800.0, 121)
+    n = 24
+    s0 = np.full(n, 100.0)
+    km = np.geomspace(0.2, 10.0, n)  # µM: S0/Km from 10 to 500
+    vmax = 0.5  # µM/s: the 100 µM are gone after 200-300 s
+    plate = simulate_plate(t, s0, km, vmax, signal_per_conc=SPC, baseline=0.05, noise=2e-4, seed=5)
+    res = progress_curve(t, plate.signal, s0=s0, signal_per_conc=SPC)
+    truth = SPC * vmax * s0 / (km + s0)
+    assert not np.any(res.flags & int(Flag.FIT_FAILED))
+    np.testing.assert_allclose(res.v0, truth, rtol=0.01)

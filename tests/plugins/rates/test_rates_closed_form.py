@@ -133,3 +133,20 @@ def test_wright_omega_against_scipy() -> None:
     np.testing.assert_allclose(wright_omega(xm), lambertw(np.exp(xm)).real, rtol=1e-12, atol=0)
     assert wright_omega(-800.0) == np.exp(-800.0) and np.isscalar(wright_omega(1.0))
     assert wright_omega(1.0) == pytest.approx(1.0, rel=1e-15)  # omega(1) = 1 exactly (1 + ln 1 = 1)
+
+
+def test_concentration_model_jacobian_when_the_substrate_runs_out() -> None:
+    # a curve that runs to completion with Km far below S0 (u = 0.01, 0.05): the u column must stay finite
+    # (computed as ln(S/S0) from P it was -inf once P/S0 rounded to 1) and match central differences
+    t = np.linspace(0.0, 1800.0, 61)
+    model = _concentration_model(t, np.array([[1.0], [1.0]]), 1.0)
+    p = np.array([[0.0, np.log(0.01), 0.01], [0.0, np.log(0.004), 0.05]])  # used up after ~100 and ~250 s
+    rows = np.arange(2)
+    f, jac = model(p, rows)
+    assert np.all(f[:, -1] > 1.0 - 1e-12) and np.all(np.isfinite(jac))
+    h = 1e-7
+    up, dn = p.copy(), p.copy()
+    up[:, 2] += h
+    dn[:, 2] -= h
+    numeric = (model(up, rows)[0] - model(dn, rows)[0]) / (2 * h)
+    np.testing.assert_allclose(jac[:, 2], numeric, rtol=1e-5, atol=1e-7)
