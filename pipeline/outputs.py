@@ -86,11 +86,16 @@ class CsvInWorkers:
         self.executor = None
 
     def take(self, name: str, table: Table, target: Path) -> bool:
-        """Join the pieces of ``name`` into ``target`` if the workers wrote exactly ``table``; False if not."""
+        """Join the pieces of ``name`` into ``target`` if the workers wrote exactly ``table``; False if not (or
+        if a piece failed), and the caller writes it."""
         pieces = self.started.get(name)
         if pieces is None or pieces.table is not table:
             return False
-        pieces.wait()
+        try:
+            pieces.wait()
+        except Exception:  # a worker could not write its piece (a broken pool): the caller writes the table
+            self.stale.append(self.started.pop(name))
+            return False
         with open(target, "wb") as out:
             for path in pieces.paths:
                 with open(path, "rb") as part:

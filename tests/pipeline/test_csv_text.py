@@ -90,6 +90,17 @@ def test_tables_written_in_pieces_by_workers(tmp_path):
     assert (tmp_path / "rates.csv").read_text("utf-8") == later.frame.to_csv(index=False)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["rates.csv", "run.h5", "small.csv"]
 
+    class Broken(Pool):  # a pool whose workers fail: the table is written here instead
+        def submit(self, fn, arg):
+            return self.pool.submit(lambda: 1 / 0)
+
+    (tmp_path / "rates.csv").unlink()
+    workers = outputs.CsvInWorkers(Broken(), tmp_path)
+    workers.start({"rates": later})
+    outputs.write_outputs(tmp_path, {"rates": later}, {}, {}, workers)
+    assert (tmp_path / "rates.csv").read_text("utf-8") == later.frame.to_csv(index=False)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["rates.csv", "run.h5", "small.csv"]
+
 
 def test_large_tables_are_written_a_block_of_rows_at_a_time(tmp_path, monkeypatch):
     """write_csv formats a block of rows at a time (bounded memory); the file is pandas' text all the same, also
