@@ -80,9 +80,13 @@ class CsvInWorkers:
             self.started[name] = _Pieces(table, paths, futures)
 
     def detach(self) -> None:
-        """Let the pieces already begun finish, and start no more (the pool is about to close)."""
+        """Let the pieces already begun finish, and start no more (the pool is about to close). A piece that
+        failed is dealt with by :meth:`take` (the caller then writes that table)."""
         for pieces in self.started.values():
-            pieces.wait()
+            try:
+                pieces.wait()
+            except Exception:
+                pass
         self.executor = None
 
     def take(self, name: str, table: Table, target: Path) -> bool:
