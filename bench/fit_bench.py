@@ -5,11 +5,11 @@ Run on demand (never part of the tests):  python bench/fit_bench.py [n_groups] [
 Simulates invented Michaelis-Menten and Hill data (noise SD 2 % of Vmax), then times
 
 * a per-group ``scipy.optimize.curve_fit`` loop (default settings, finite-difference Jacobian): the baseline;
-* :func:`plugins.fit.engine.fit_batch` (vectorised Levenberg-Marquardt over groups, analytic Jacobian,
+* :func:`vzero.plugins.fit.engine.fit_batch` (vectorised Levenberg-Marquardt over groups, analytic Jacobian,
   tolerances 1e-13 relative);
-* a per-group :func:`plugins.fit.engine.fit` loop (scipy least_squares, tolerances 1e-15);
+* a per-group :func:`vzero.plugins.fit.engine.fit` loop (scipy least_squares, tolerances 1e-15);
 * the extra cost of profile-likelihood intervals for the asymmetric parameters
-  (:func:`plugins.fit.engine.profile_batch`, all groups at once);
+  (:func:`vzero.plugins.fit.engine.profile_batch`, all groups at once);
 * the whole fit stage (Michaelis-Menten and Hill, profiles on: the default) on a plate of 30 groups.
 
 Prints seconds, the speed ratio batch / curve_fit, and the largest relative difference between the batch and
@@ -23,9 +23,8 @@ import time
 
 import numpy as np
 from scipy.optimize import curve_fit
-
-from plugins.fit import engine
-from plugins.fit.catalog import BY_NAME
+from vzero.plugins.fit import engine
+from vzero.plugins.fit.catalog import BY_NAME
 
 
 def simulate(model: str, truth: list[float], n_groups: int, n_points: int, seed: int = 1):
@@ -86,10 +85,9 @@ def bench(model_name: str, truth: list[float], n_groups: int, n_points: int) -> 
 def bench_stage(n_groups: int = 30) -> None:
     """The fit stage as a recipe runs it by default (Michaelis-Menten and Hill, profile intervals on)."""
     import pandas as pd
-
-    from pipeline.data import Table
-    from pipeline.stage import StageInput
-    from plugins.fit.run import run_fit
+    from vzero.data import Table
+    from vzero.plugins.fit.run import run_fit
+    from vzero.stage import StageInput
 
     s, y = simulate("hill", [10.0, 5.0, 1.5], n_groups, 24)
     frame = pd.DataFrame({"group": np.repeat([f"g{k}" for k in range(n_groups)], s.shape[1]),

@@ -5,7 +5,7 @@ Each measurement runs in a fresh subprocess (``python -m bench.pipeline_bench pl
 prints one JSON line, so peak memory (``resource.getrusage``, whole process; and tracemalloc's peak of
 Python-tracked allocations during the run alone) belongs to that measurement only. One BLAS thread, so the
 figures are per core. Plates are invented: a Michaelis–Menten series simulated with
-:func:`plugins.rates.simulate.simulate_plate`, NADH-like absorbance (6220 M^-1 cm^-1, 0.55 cm), read noise
+:func:`vzero.plugins.rates.simulate.simulate_plate`, NADH-like absorbance (6220 M^-1 cm^-1, 0.55 cm), read noise
 0.001 AU, every 16th well a blank.
 """
 
@@ -52,9 +52,8 @@ def write_plate(folder: Path, n_wells: int, n_time: int, seed: int = 0, name: st
     """Write a synthetic wide-table plate and its long layout; return (data, layout) paths."""
     import numpy as np
     import pandas as pd
-
-    from plugins.importers.wells import all_wells
-    from plugins.rates.simulate import simulate_plate
+    from vzero.plugins.importers.wells import all_wells
+    from vzero.plugins.rates.simulate import simulate_plate
 
     wells = all_wells(n_wells)
     t = np.linspace(0.0, 600.0, n_time)
@@ -90,7 +89,7 @@ def measure_plate(n_wells: int, n_time: int, rates: str, repeat: int) -> dict[st
     import resource
     import tracemalloc
 
-    from pipeline import runner
+    from vzero import runner
 
     work = Path(tempfile.mkdtemp(prefix="vzero-bench-"))
     try:
@@ -147,7 +146,7 @@ def write_batch(folder: Path, n_plates: int, n_wells: int = 96, n_time: int = 60
 def measure_batch(n_plates: int, jobs: int, folder: str | None = None) -> dict[str, Any]:
     """In this process: ``n_plates`` plates through one recipe with ``jobs`` worker processes (the plates of
     :func:`write_batch` in ``folder`` when given, else written here first)."""
-    from pipeline import runner
+    from vzero import runner
 
     work = Path(tempfile.mkdtemp(prefix="vzero-bench-"))
     try:

@@ -57,8 +57,8 @@ class _Figures(HTMLParser):
 
 def run_demo(folder: Path) -> Path:
     """Run the demo recipe (with its report step) in ``folder``; return the run folder."""
-    from pipeline.runner import run
-    from plugins.demo import write_demo
+    from vzero.plugins.demo import write_demo
+    from vzero.runner import run
 
     recipe = write_demo(folder / "inputs")
     return run(recipe, folder / "run").out_dir
@@ -78,7 +78,7 @@ def write_gallery(run_dir: Path, gallery: Path, screenshot: bool = True) -> list
     parser.feed((run_dir / "report.html").read_text("utf-8"))
     shot_note = ""
     if screenshot:
-        from plugins.report.chromium import check_page, find_browser
+        from vzero.plugins.report.chromium import check_page, find_browser
 
         browser = find_browser()
         if browser is None:

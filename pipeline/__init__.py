@@ -3,7 +3,7 @@
 The core knows no chemistry. Stage methods (import, blank, rates, convert, fit, report and any a lab adds)
 are plugins; a plugin module marks its hook implementations with :data:`hookimpl`::
 
-    from pipeline import hookimpl
+    from vzero import hookimpl
 
     @hookimpl
     def vzero_register(registry):

@@ -1,5 +1,5 @@
 """``python -m pipeline`` is the same as the ``vzero`` command."""
 
-from pipeline.cli import entry
+from vzero.cli import entry
 
 entry()

@@ -33,9 +33,8 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from pipeline.data import Table, Traces, values_as
-from pipeline.data import columns as data_columns
+from vzero.data import Table, Traces, values_as
+from vzero.data import columns as data_columns
 
 FORMAT_NAME = "vzero-audit"
 FORMAT_VERSION = "1.2"
@@ -149,7 +148,7 @@ def _scalar_space() -> Any:
 
 
 def _column_values(dtype: Any, values: Any) -> tuple[np.ndarray, str, bytes]:
-    """The array to store for one column (its dtype and values from :func:`pipeline.data.columns`), its kind
+    """The array to store for one column (its dtype and values from :func:`vzero.data.columns`), its kind
     for the hash (``b``, ``i``, ``f``; ``O`` for text however it is stored) and the bytes the hash covers
     (little-endian numbers; length-prefixed UTF-8 text)."""
     kind = _storage_kind(dtype)
@@ -474,7 +473,7 @@ class AuditWriter:
         import hashlib
         import time
 
-        from pipeline import __version__
+        from vzero import __version__
 
         t0 = time.perf_counter()
         self.path = path

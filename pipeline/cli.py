@@ -14,8 +14,8 @@ from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from pipeline import __version__
-from pipeline.errors import VzeroError
+from vzero import __version__
+from vzero.errors import VzeroError
 
 EPILOG = """exit codes: 0 success; 1 finished with failed wells or plates; 2 bad recipe or input;
 3 internal error (--debug shows the traceback). Set NO_COLOR to turn colour off.
@@ -32,7 +32,7 @@ class Command:
 
 
 class Commands:
-    """Collects subcommands from the core and from plugins (hook ``vzero_commands``)."""
+    """Collects subcommands from the core and from vzero.plugins (hook ``vzero_commands``)."""
 
     def __init__(self) -> None:
         self.items: dict[str, Command] = {}
@@ -80,7 +80,7 @@ def _positive(text: str) -> int:
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
-    from pipeline.runner import run
+    from vzero.runner import run
 
     shown = Progress(verbose=args.verbose, quiet=args.quiet)
     try:
@@ -161,7 +161,7 @@ def _cfg_check(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from pipeline.runner import check_recipe
+    from vzero.runner import check_recipe
 
     rec = check_recipe(args.recipe)
     _say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps: "
@@ -175,12 +175,12 @@ def _cfg_plugins(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_plugins(args: argparse.Namespace) -> int:
-    from pipeline.plugins import make_manager
+    from vzero.manager import make_manager
 
     local: list[str] = []
     base = None
     if args.recipe:
-        from pipeline.recipe import load
+        from vzero.recipe import load
 
         rec = load(args.recipe)
         local, base = rec.plugin_entries, rec.base_dir
@@ -208,7 +208,7 @@ def _cfg_inspect(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_inspect(args: argparse.Namespace) -> int:
-    from pipeline.inspect import summary
+    from vzero.inspect import summary
 
     print(summary(args.audit))
     return 0
@@ -228,9 +228,9 @@ CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[
 #: Core commands that live in their own modules. Each module defines HELP, EXAMPLE, configure(parser) and
 #: run(args) -> int, and keeps its top-level imports light.
 COMMAND_MODULES: tuple[tuple[str, str], ...] = (
-    ("rerun", "pipeline.rerun"),
-    ("diff", "pipeline.diff"),
-    ("verify", "pipeline.verify"),
+    ("rerun", "vzero.rerun"),
+    ("diff", "vzero.diff"),
+    ("verify", "vzero.verify"),
 )
 
 
@@ -258,7 +258,7 @@ def build_parser(with_plugins: bool = True) -> argparse.ArgumentParser:
     for name, help_, configure, run_, example in CORE + [_module_command(n, m) for n, m in COMMAND_MODULES]:
         commands.add(name, help_, configure, run_, example)
     if with_plugins:
-        from pipeline.plugins import make_manager
+        from vzero.manager import make_manager
 
         make_manager().hook.vzero_commands(commands=commands)
     for cmd in commands.items.values():

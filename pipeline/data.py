@@ -41,7 +41,7 @@ class Table:
         A column given in another but equivalent spelling (``µM`` and ``uM``) is taken as it is; one given in
         another unit of the same dimension (``mM`` against ``uM``) is converted to the first table's unit,
         together with its ``<column>_unit`` text column if there is one. Units that cannot be converted raise
-        :class:`pipeline.errors.UnitError` naming the column and both units.
+        :class:`vzero.errors.UnitError` naming the column and both units.
         """
         if not tables:
             return Table(pd.DataFrame())
@@ -88,8 +88,8 @@ def values_as(values: Any, dtype: Any) -> np.ndarray:
 
 def _conversion(to_unit: str, from_unit: str, column: str) -> float:
     """Factor from ``from_unit`` to ``to_unit`` (1.0 for two spellings of one unit); UnitError otherwise."""
-    from pipeline import units
-    from pipeline.errors import UnitError
+    from vzero import units
+    from vzero.errors import UnitError
 
     try:
         return units.factor(from_unit, to_unit)

@@ -25,9 +25,9 @@ from collections.abc import Callable, Iterable, Iterator, Mapping
 from dataclasses import dataclass
 from typing import Any, Protocol
 
-from pipeline.errors import VzeroError
-from pipeline.recipe import PlateSpec
-from pipeline.stage import RawInput
+from vzero.errors import VzeroError
+from vzero.recipe import PlateSpec
+from vzero.stage import RawInput
 
 #: Environment variables that keep each worker's numeric libraries on one thread (N workers, N cores).
 _THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
@@ -60,11 +60,11 @@ class Executor(Protocol):
 
 
 def run_plate_task(task: PlateTask) -> Any:
-    """Run one plate's plate-scoped steps in a worker (returns a :class:`pipeline.runner.PlateOutcome`).
+    """Run one plate's plate-scoped steps in a worker (returns a :class:`vzero.runner.PlateOutcome`).
 
     A problem with the recipe or plugins in the worker becomes the plate's error, like a bad input file.
     """
-    from pipeline.runner import PlateOutcome, process_plate
+    from vzero.runner import PlateOutcome, process_plate
 
     try:
         rec, plugins, steps = _worker_setup(task.recipe_text, task.recipe_path)
@@ -85,8 +85,8 @@ def run_plate_task(task: PlateTask) -> Any:
 def _pack(outcome: Any) -> None:
     """Write the plate's step outputs into an in-memory HDF5 part here, in the worker, and keep only the
     tables: encoding the arrays is most of the audit file's cost, and this way it runs in parallel."""
-    from pipeline.audit import write_part
-    from pipeline.data import Table
+    from vzero.audit import write_part
+    from vzero.data import Table
 
     final = outcome.artifacts.get("traces")
     for record in outcome.records:
@@ -101,8 +101,8 @@ def _pack(outcome: Any) -> None:
 @functools.lru_cache(maxsize=4)
 def _worker_setup(recipe_text: str, recipe_path: str) -> tuple[Any, Any, list[Any]]:
     """Parse the recipe, build the plugins it names and validate its steps: once per worker process."""
-    from pipeline.plugins import make_manager
-    from pipeline.recipe import check, parse
+    from vzero.manager import make_manager
+    from vzero.recipe import check, parse
 
     rec = parse(recipe_text, recipe_path)
     plugins = make_manager(rec.plugin_entries, base_dir=rec.base_dir)
@@ -137,7 +137,7 @@ class PoolExecutor:
         half a second of CPU on the same imports. Call before opening the audit file (a forked worker then
         holds no open HDF5 file)."""
         if self._context.get_start_method() == "fork":
-            import pipeline.audit  # noqa: F401  (h5py and the part writer)
+            import vzero.audit  # noqa: F401  (h5py and the part writer)
 
             try:
                 _worker_setup(recipe_text, recipe_path)
@@ -265,7 +265,7 @@ class TracesOnDisk(Mapping[str, Any]):
         self._h5, self._paths = h5, dict(paths)
 
     def __getitem__(self, plate: str) -> Any:
-        from pipeline.audit import read_traces
+        from vzero.audit import read_traces
 
         return read_traces(self._h5[self._paths[plate]])
 
@@ -279,7 +279,7 @@ class TracesOnDisk(Mapping[str, Any]):
 class PlateStore:
     """Finished plates: written to the audit file as they arrive, kept in memory only as far as needed.
 
-    Every plate's raw inputs and step outputs go to the :class:`pipeline.audit.AuditWriter` at once. With
+    Every plate's raw inputs and step outputs go to the :class:`vzero.audit.AuditWriter` at once. With
     ``hold`` (a single plate, the quick path) the outcomes stay in memory as they are; without it only the
     per-plate tables that the pooled steps stack are kept, and traces are read back from the file when a
     final step (the report) asks for them. Either way the audit file is the same.
@@ -310,7 +310,7 @@ class PlateStore:
                 self._traces[outcome.plate] = f"{subs[outcome.part_traces]}/traces"
             outcome.part = None
         elif not outcome.error:
-            from pipeline.data import Table
+            from vzero.data import Table
 
             final = outcome.artifacts.get("traces")
             for record in outcome.records:
@@ -327,7 +327,7 @@ class PlateStore:
 
     def traces(self) -> Mapping[str, Any]:
         """Every successful plate's final traces, by plate name."""
-        from pipeline.data import Traces
+        from vzero.data import Traces
 
         held = {o.plate: o.artifacts["traces"] for o in self.outcomes
                 if not o.error and isinstance(o.artifacts.get("traces"), Traces)}

@@ -1,12 +1,12 @@
 """The whole plugin contract of vzero: every hook a plugin may implement.
 
 A plugin is a module (or object) with functions named like the hooks below, marked with
-``from pipeline import hookimpl``. It is found in one of three ways:
+``from vzero import hookimpl``. It is found in one of three ways:
 
 * an installed distribution declaring an entry point in the group ``vzero.plugins`` (the built-in stages
   come this way too, from vzero's own pyproject.toml);
 * a Python file or importable module named in a recipe: ``plugins: [my_rates.py]``;
-* (tests) passed directly to :func:`pipeline.plugins.make_manager`.
+* (tests) passed directly to :func:`vzero.manager.make_manager`.
 
 Hooks are grouped by phase. Hooks *observe* or *register*; they never decide the order of stages, which
 comes from the recipe alone. Run events take one context object, so that new information arrives as a new
@@ -18,8 +18,7 @@ from __future__ import annotations
 from typing import Any
 
 import pluggy
-
-from pipeline import PROJECT
+from vzero import PROJECT
 
 hookspec = pluggy.HookspecMarker(PROJECT)
 
@@ -29,17 +28,17 @@ hookspec = pluggy.HookspecMarker(PROJECT)
 
 @hookspec
 def vzero_register(registry: Any) -> None:
-    """Add this plugin's components to ``registry`` (a :class:`pipeline.registry.Registry`).
+    """Add this plugin's components to ``registry`` (a :class:`vzero.registry.Registry`).
 
     Called once per plugin when the plugin manager is built. Call ``registry.add(component)`` for each stage
-    method class (a :class:`pipeline.stage.Stage` subclass) and for other named components, such as a fit
+    method class (a :class:`vzero.stage.Stage` subclass) and for other named components, such as a fit
     model (any object with ``kind`` and ``name`` attributes). A name already taken is an error naming both
     plugins. The registry records the plugin, its distribution and version for the audit file.
 
     Example::
 
-        from pipeline import hookimpl
-        from pipeline.stage import Stage, StageOutput
+        from vzero import hookimpl
+        from vzero.stage import Stage, StageOutput
 
         class FirstReads(Stage):
             kind, method, version = "rates", "first-reads", "1.0"
@@ -93,7 +92,7 @@ def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
 def vzero_before_step(event: Any) -> None:
     """Called before a step runs (once per plate for plate-scoped steps).
 
-    ``event`` is a :class:`pipeline.runner.StepEvent` with ``index``, ``kind``, ``method``, ``plate``
+    ``event`` is a :class:`vzero.runner.StepEvent` with ``index``, ``kind``, ``method``, ``plate``
     (``None`` for pooled and final steps), ``settings`` and ``run_id``. Return value ignored.
 
     Example::
@@ -107,7 +106,7 @@ def vzero_before_step(event: Any) -> None:
 @hookspec
 def vzero_after_step(event: Any) -> None:
     """Called after a step succeeded; ``event.seconds`` holds its duration and ``event.output`` the
-    :class:`pipeline.stage.StageOutput`. Observers must not change the output.
+    :class:`vzero.stage.StageOutput`. Observers must not change the output.
 
     Example::
 

@@ -58,7 +58,7 @@ def strenda_check(assay: Mapping[str, Any], rates_columns: list[str], steps: lis
 
 def summary(path: str | Path, *, max_wells: int = 50) -> str:
     """Provenance, inputs, steps with timings and warnings, exclusions, flagged wells and parameters, as text."""
-    from pipeline import reader
+    from vzero import reader
 
     with reader.open_audit(path) as f:
         head = reader.header(f)
@@ -122,7 +122,7 @@ def summary(path: str | Path, *, max_wells: int = 50) -> str:
 
 
 def _inputs_meta(f: Any) -> list[tuple[str, int, str, list[str]]]:
-    from pipeline.reader import json_attr
+    from vzero.reader import json_attr
 
     out = []
     for ds in f["inputs"].values():

@@ -22,9 +22,8 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from pipeline.data import Table
-from pipeline.executors import Executor
+from vzero.data import Table
+from vzero.executors import Executor
 
 #: Final tables with at least this many rows are written to CSV by worker processes when the run has a local
 #: process pool, split by rows into pieces of at least half as many rows, one piece per worker at most.
@@ -201,9 +200,9 @@ def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
     import csv
     import io
 
-    from pipeline.audit import text_codes
-    from pipeline.data import columns as data_columns
-    from pipeline.data import values_as
+    from vzero.audit import text_codes
+    from vzero.data import columns as data_columns
+    from vzero.data import values_as
 
     if not handled(frame):
         return None

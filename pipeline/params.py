@@ -13,7 +13,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from pipeline.errors import UnitError
+from vzero.errors import UnitError
 
 
 class _Required:
@@ -71,7 +71,7 @@ class Param:
 
     def convert(self, value: Any) -> Any:
         """Return the parsed value or raise ``ValueError`` with an ``expected ..., got ...`` message."""
-        from pipeline import units
+        from vzero import units
 
         if value is None and (self.nullable or self.default is None):
             return None

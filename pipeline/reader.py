@@ -15,9 +15,9 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from pipeline.audit import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces, table_sha256
-from pipeline.data import Table
-from pipeline.errors import AuditFileError
+from vzero.audit import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces, table_sha256
+from vzero.data import Table
+from vzero.errors import AuditFileError
 
 __all__ = [
     "StoredInput",

@@ -34,10 +34,9 @@ from pathlib import Path
 from typing import Any
 
 import yaml
-
-from pipeline.errors import RecipeError, VzeroError
-from pipeline.params import REQUIRED, Param, closest, validate
-from pipeline.registry import Registry
+from vzero.errors import RecipeError, VzeroError
+from vzero.params import REQUIRED, Param, closest, validate
+from vzero.registry import Registry
 
 FORMAT_VERSION = 1
 

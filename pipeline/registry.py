@@ -7,9 +7,9 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import Any
 
-from pipeline.errors import PluginError
-from pipeline.params import KINDS, closest
-from pipeline.stage import SCOPES, Stage
+from vzero.errors import PluginError
+from vzero.params import KINDS, closest
+from vzero.stage import SCOPES, Stage
 
 
 @dataclass(frozen=True)
@@ -94,7 +94,7 @@ def _check_stage(cls: type[Stage], source: Source) -> None:
         problems.append(f"scope must be one of {SCOPES}")
     for key, param in dict(getattr(cls, "params", {})).items():
         if getattr(param, "kind", None) not in KINDS:
-            problems.append(f"parameter {key!r} is not a pipeline.params.Param of a known kind")
+            problems.append(f"parameter {key!r} is not a vzero.params.Param of a known kind")
     if "method" in dict(getattr(cls, "params", {})):
         problems.append("a parameter may not be called 'method' (the recipe uses it to pick the method)")
     if problems:

@@ -29,14 +29,14 @@ EXAMPLE = "vzero rerun runs/2024-03/run.h5 --recipe new-window.yaml --out runs/2
 
 @dataclass
 class StoredInputs:
-    """An :class:`pipeline.runner.InputSource` over the raw inputs of an audit file, by their stored names."""
+    """An :class:`vzero.runner.InputSource` over the raw inputs of an audit file, by their stored names."""
 
     files: dict[str, bytes] = field(default_factory=dict)
     origin: str = ""
 
     @classmethod
     def from_audit(cls, path: str | Path) -> StoredInputs:
-        from pipeline import reader
+        from vzero import reader
 
         with reader.open_audit(path) as f:
             stored = reader.read_inputs(f)
@@ -50,7 +50,7 @@ class StoredInputs:
         return rel in self.files
 
     def read(self, rel: str) -> bytes:
-        from pipeline.errors import InputFileError
+        from vzero.errors import InputFileError
 
         if rel not in self.files:
             raise InputFileError(f"no input of that name is stored in {self.origin}", path=rel,
@@ -67,7 +67,7 @@ def check_plugins(entries: list[str], base_dir: Path, stored: Mapping[str, Any],
     Returns the plugin paths whose content changed (only when ``allow_changed``); raises
     :class:`PluginError` for a missing file, or a changed one without ``allow_changed``.
     """
-    from pipeline.errors import PluginError
+    from vzero.errors import PluginError
 
     by_path = {str(v.get("path")): v for v in stored.values() if isinstance(v, dict) and v.get("path")}
     changed: list[str] = []
@@ -110,10 +110,10 @@ def rerun(
     ``plugin_dir`` is where local plugin files named by the stored recipe are looked for (default: the
     folder of the original recipe, as recorded); for a new recipe they are relative to that recipe.
     """
-    from pipeline import reader
-    from pipeline.errors import AuditFileError, PluginError, RecipeError
-    from pipeline.recipe import load, parse
-    from pipeline.runner import run
+    from vzero import reader
+    from vzero.errors import AuditFileError, PluginError, RecipeError
+    from vzero.recipe import load, parse
+    from vzero.runner import run
 
     with reader.open_audit(old) as f:
         head = reader.header(f)
@@ -168,7 +168,7 @@ def configure(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from pipeline.cli import _report_result
+    from vzero.cli import _report_result
 
     result = rerun(args.old, args.out, recipe=args.recipe, plugin_dir=args.plugin_dir,
                    allow_changed_plugins=args.allow_changed_plugins,

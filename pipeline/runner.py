@@ -19,14 +19,13 @@ from pathlib import Path
 from typing import Any, Protocol
 
 import pandas as pd
-
-from pipeline.data import Table, Traces
-from pipeline.errors import InputFileError, OutputExistsError, StageError, VzeroError
-from pipeline.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
-from pipeline.outputs import CsvInWorkers, write_outputs
-from pipeline.plugins import Plugins, make_manager
-from pipeline.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
-from pipeline.stage import RawInput, StageInput, StageOutput
+from vzero.data import Table, Traces
+from vzero.errors import InputFileError, OutputExistsError, StageError, VzeroError
+from vzero.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
+from vzero.manager import Plugins, make_manager
+from vzero.outputs import CsvInWorkers, write_outputs
+from vzero.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
+from vzero.stage import RawInput, StageInput, StageOutput
 
 
 class InputSource(Protocol):
@@ -218,7 +217,7 @@ def run(
         import threading
 
         threading.Thread(target=_warm_imports, daemon=True).start()
-    from pipeline.audit import AuditWriter
+    from vzero.audit import AuditWriter
 
     tmp = _temporary_folder(out_dir)
     writer: AuditWriter | None = None
@@ -298,7 +297,7 @@ def _run_info(
     warnings: list[str],
     failed: Mapping[str, str | None],
 ) -> dict[str, Any]:
-    """What a pooled or final stage may know about the run so far (see :class:`pipeline.stage.StageInput`)."""
+    """What a pooled or final stage may know about the run so far (see :class:`vzero.stage.StageInput`)."""
     steps: dict[str, dict[str, Any]] = {}
     for r in records:
         entry = plugins.registry.get(r.spec.kind, r.spec.method)
@@ -509,7 +508,7 @@ def _is_vzero_run(folder: Path) -> bool:
         import h5py
 
         with h5py.File(target, "r") as f:
-            from pipeline.audit import FORMAT_NAME
+            from vzero.audit import FORMAT_NAME
 
             return bool(f.attrs.get("format") == FORMAT_NAME)
     except OSError:

@@ -2,7 +2,7 @@
 
 A stage method is a class with class attributes ``kind`` (``import``, ``blank``, ``rates``, ``convert``,
 ``fit``, ``report`` or a kind of a plugin's own), ``method`` (its name in recipes), ``version``, ``scope``
-and ``params`` (a mapping of :class:`pipeline.params.Param`), and one method :meth:`Stage.run`.
+and ``params`` (a mapping of :class:`vzero.params.Param`), and one method :meth:`Stage.run`.
 
 Like an estimator, a stage stores its validated settings unchanged (``self.settings``) and does its work only
 in ``run``, which never mutates its inputs, does no I/O of its own (raw bytes come from the runner through
@@ -21,7 +21,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
-from pipeline.params import Param
+from vzero.params import Param
 
 
 @dataclass(frozen=True)
@@ -63,7 +63,7 @@ class StageOutput:
 
     ``files`` maps a relative path inside the run folder to bytes; the runner writes them atomically with
     the rest of the run. ``record`` holds extra datasets for the step's group in the audit file (name ->
-    numpy array or :class:`pipeline.data.Table`). ``failed`` names the items the step could not compute
+    numpy array or :class:`vzero.data.Table`). ``failed`` names the items the step could not compute
     (for example ``"C7: fit_failed"``): the run goes on, but finishes with exit code 1 and lists them.
     """
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 import functools
 from typing import Any
 
-from pipeline.errors import UnitError
+from vzero.errors import UnitError
 
 
 @functools.cache

@@ -44,7 +44,7 @@ class Report:
 def verify(path: str | Path) -> Report:
     """Check every stored hash of the audit file at ``path``. Raises :class:`AuditFileError` only when the
     file cannot be opened as an audit file at all; everything else is a problem in the report."""
-    from pipeline import reader
+    from vzero import reader
 
     report = Report(str(path))
     with reader.open_audit(path) as f:
@@ -91,7 +91,7 @@ def _check_inputs(f: Any, report: Report) -> None:
 
 
 def _check_tables(f: Any, report: Report) -> None:
-    from pipeline.reader import table_sha256
+    from vzero.reader import table_sha256
 
     tables: list[tuple[str, Any]] = []
 
@@ -137,7 +137,7 @@ def configure(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import sys
 
-    from pipeline.errors import AuditFileError
+    from vzero.errors import AuditFileError
 
     worst = 0
     for path in args.audit:

@@ -15,7 +15,7 @@ What they do:
   gets the flag ``EXCLUDED`` and no rate. :func:`apply_exclusions` does this on a plate's traces right after
   import and writes the reasons into the well table (column ``note``).
 * an overridden well has its rate recomputed as the least-squares slope over the given window
-  (:func:`plugins.rates.window.window_slopes`) whatever the rates method was, and gets the flag
+  (:func:`vzero.plugins.rates.window.window_slopes`) whatever the rates method was, and gets the flag
   ``OVERRIDDEN``. :func:`apply_overrides` does this on the rates table, and also carries the ``EXCLUDED``
   flags and every note into the table's ``note`` column, so the reasons travel into every output.
 
@@ -29,10 +29,9 @@ from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
-
-from pipeline.data import Table, Traces
-from pipeline.errors import LayoutError, RecipeError
-from plugins.flags import Flag, names_array
+from vzero.data import Table, Traces
+from vzero.errors import LayoutError, RecipeError
+from vzero.plugins.flags import Flag, names_array
 
 EXCLUSION_KEYS = {"plate", "well", "time", "reason"}
 OVERRIDE_KEYS = {"plate", "well", "start", "end", "reason"}
@@ -40,7 +39,7 @@ READ_TOLERANCE_S = 0.5
 
 
 def _seconds(value: Any) -> float:
-    from pipeline import units
+    from vzero import units
 
     return float(units.quantity(value, like="s").m_as("s"))
 
@@ -54,9 +53,9 @@ def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str]
     nothing, so it is a problem (with the closest name). Meant to be called from ``recipe.check`` so problems
     are reported before anything runs.
     """
-    from pipeline.params import closest
-    from pipeline.recipe import format_path
-    from plugins.importers.wells import is_well, normalise_well
+    from vzero.params import closest
+    from vzero.plugins.importers.wells import is_well, normalise_well
+    from vzero.recipe import format_path
 
     place = where or format_path
     problems: list[str] = []
@@ -101,7 +100,7 @@ def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str]
 
 
 def _check_times(item: Mapping[str, Any], top: str, path: tuple[Any, ...], place: Callable[..., str]) -> list[str]:
-    from pipeline.errors import UnitError
+    from vzero.errors import UnitError
 
     out: list[str] = []
     names = ("time",) if top == "exclusions" else ("start", "end")
@@ -135,7 +134,7 @@ def _raise_if_bad(recipe: Mapping[str, Any]) -> None:
 
 def _rows(traces: Traces, items: Sequence[Mapping[str, Any]], what: str) -> list[tuple[int, Mapping[str, Any]]]:
     """(row of the well in ``traces``, item) for the items naming this plate; an unknown well is an error."""
-    from plugins.importers.wells import normalise_well
+    from vzero.plugins.importers.wells import normalise_well
 
     mine = [item for item in items if str(item.get("plate")) == traces.plate]
     if not mine:
@@ -197,9 +196,9 @@ def apply_overrides(traces: Traces, rates_table: Table, overrides: Sequence[Mapp
     ``rates_table`` is the plate's table from a rates method (one row per well, same order as ``traces``,
     rates in signal units per second). Returns a new table; the given one is not changed.
     """
-    from plugins.flags import from_names
-    from plugins.rates.window import window_slopes
-    from plugins.tables import saturation_flags
+    from vzero.plugins.flags import from_names
+    from vzero.plugins.rates.window import window_slopes
+    from vzero.plugins.tables import saturation_flags
 
     _raise_if_bad({"overrides": list(overrides)})
     wells = traces.wells

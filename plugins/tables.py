@@ -6,10 +6,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from pipeline.data import Table, Traces
-from plugins.flags import Flag, names_array
-from plugins.rates.result import RateResult
+from vzero.data import Table, Traces
+from vzero.plugins.flags import Flag, names_array
+from vzero.plugins.rates.result import RateResult
 
 WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor")
 

@@ -8,8 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from hypothesis import settings
-
-from pipeline.plugins import make_manager
+from vzero.manager import make_manager
 
 # Property tests: no per-example deadline (the first example pays one-off costs such as building the unit
 # registry, and CI machines are shared), and a fixed example budget so the suite's time is predictable.

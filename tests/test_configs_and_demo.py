@@ -6,11 +6,10 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
-
-from pipeline.cli import main
-from pipeline.runner import check_recipe
-from plugins.demo import RECIPE
-from plugins.demo.simulate import TRUTH, layout, simulate
+from vzero.cli import main
+from vzero.plugins.demo import RECIPE
+from vzero.plugins.demo.simulate import TRUTH, layout, simulate
+from vzero.runner import check_recipe
 
 ROOT = Path(__file__).parents[1]
 CONFIGS = sorted((ROOT / "configs").glob("*.yaml"))

@@ -14,8 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 from numpy.testing import assert_allclose
-
-from pipeline.runner import run
+from vzero.runner import run
 
 DATA = Path(__file__).parent / "data" / "reference" / "puromycin.csv"
 

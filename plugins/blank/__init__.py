@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from pipeline import hookimpl
-from pipeline.params import Param
-from pipeline.stage import Stage, StageInput, StageOutput
+from vzero import hookimpl
+from vzero.params import Param
+from vzero.stage import Stage, StageInput, StageOutput
 
 
 class MeanBlank(Stage):

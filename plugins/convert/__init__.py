@@ -10,10 +10,10 @@ from __future__ import annotations
 
 from typing import Any
 
-from pipeline import hookimpl
-from pipeline.errors import InputFileError, StageError
-from pipeline.params import Param
-from pipeline.stage import Stage, StageInput, StageOutput
+from vzero import hookimpl
+from vzero.errors import InputFileError, StageError
+from vzero.params import Param
+from vzero.stage import Stage, StageInput, StageOutput
 
 OUTPUT_UNIT = Param("unit", "uM/min", "unit of the converted rates (e.g. uM/min, nM/s)", like="M/s")
 
@@ -21,7 +21,7 @@ OUTPUT_UNIT = Param("unit", "uM/min", "unit of the converted rates (e.g. uM/min,
 def _finish(table: Any, frame: Any, factor: Any, out_unit: str, signal_unit: str, warn: Any,
             stderr: Any = None) -> Any:
     """Apply a per-well (or scalar) factor signal/s -> out_unit, add turnover, return the new table."""
-    from pipeline import units
+    from vzero import units
 
     frame["signal_rate"] = frame["rate"]
     frame["rate"] = frame["signal_rate"] * factor
@@ -83,8 +83,7 @@ class BeerLambert(Stage):
 
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
-
-        from pipeline import units
+        from vzero import units
 
         s = self.settings
         table = data.artifacts["rates"]
@@ -104,8 +103,7 @@ class BeerLambert(Stage):
     def _pathlength(self, data: StageInput, frame: Any) -> tuple[Any, dict[str, Any]]:
         import numpy as np
         import pandas as pd
-
-        from plugins.convert import pathlength as pl
+        from vzero.plugins.convert import pathlength as pl
 
         s = self.settings
         if s["pathlength"] is not None:
@@ -121,7 +119,7 @@ class BeerLambert(Stage):
                                  hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
         import io
 
-        from plugins.importers.wells import normalise_well
+        from vzero.plugins.importers.wells import normalise_well
 
         try:
             reads = pd.read_csv(io.BytesIO(raw.data))
@@ -169,10 +167,9 @@ class StandardCurveConvert(Stage):
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
         import pandas as pd
-
-        from pipeline import units
-        from pipeline.data import Table
-        from plugins.convert.standard_curve import fit_standard_curve
+        from vzero import units
+        from vzero.data import Table
+        from vzero.plugins.convert.standard_curve import fit_standard_curve
 
         traces = data.artifacts["traces"]
         table = data.artifacts["rates"]

@@ -23,8 +23,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-
-from pipeline.errors import RecipeError
+from vzero.errors import RecipeError
 
 #: Commonly used 1 cm water-peak difference (A977 - A900) per cm; common practice, not a primary value.
 WATER_K_FACTOR_COMMON = 0.18

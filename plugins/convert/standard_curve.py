@@ -15,8 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
-
-from pipeline.errors import FitError
+from vzero.errors import FitError
 
 
 @dataclass(frozen=True)

@@ -6,14 +6,14 @@ import argparse
 from pathlib import Path
 from typing import Any
 
-from pipeline import hookimpl
+from vzero import hookimpl
 
 RECIPE = Path(__file__).with_name("demo.yaml")
 
 
 def write_demo(folder: Path) -> Path:
     """Write the demo data, layout and recipe into ``folder``; return the recipe path."""
-    from plugins.demo.simulate import layout, simulate
+    from vzero.plugins.demo.simulate import layout, simulate
 
     folder.mkdir(parents=True, exist_ok=True)
     simulate().to_csv(folder / "demo_plate.csv", index=False)
@@ -29,8 +29,8 @@ def _configure(p: argparse.ArgumentParser) -> None:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from pipeline.runner import run
-    from plugins.demo.simulate import TRUTH
+    from vzero.plugins.demo.simulate import TRUTH
+    from vzero.runner import run
 
     folder = Path(args.out)
     recipe = write_demo(folder / "inputs")

@@ -10,7 +10,7 @@ import argparse
 from pathlib import Path
 from typing import Any
 
-from pipeline import hookimpl
+from vzero import hookimpl
 
 HELP = "Write an audit file's results to an open format: csv, xlsx or enzymeml (EnzymeML v2 JSON)."
 EXAMPLE = "vzero export runs/today/run.h5 --format enzymeml --out today.enzymeml.json"
@@ -35,19 +35,19 @@ def export(audit: str | Path, fmt: str, out: str | Path | None = None, *, table:
     tmp = target.with_name(f".{target.name}.partial")
     try:
         if fmt == "csv":
-            from plugins.export.tables import write_csv
+            from vzero.plugins.export.tables import write_csv
 
             write_csv(audit, tmp, table)
         elif fmt == "xlsx":
-            from plugins.export.tables import write_xlsx
+            from vzero.plugins.export.tables import write_xlsx
 
             write_xlsx(audit, tmp)
         elif fmt == "enzymeml":
-            from plugins.export.enzymeml import write_enzymeml
+            from vzero.plugins.export.enzymeml import write_enzymeml
 
             write_enzymeml(audit, tmp)
         else:
-            from pipeline.errors import VzeroError
+            from vzero.errors import VzeroError
 
             raise VzeroError(f"unknown export format {fmt!r}; choose csv, xlsx or enzymeml")
         os.replace(tmp, target)
@@ -73,7 +73,7 @@ def run(args: argparse.Namespace) -> int:
 @hookimpl
 def vzero_check_recipe(recipe: Any, where: Any) -> list[str]:
     """The recipe's assay block (conditions that flow into the exports)."""
-    from plugins.export.assay import check_assay
+    from vzero.plugins.export.assay import check_assay
 
     return check_assay(recipe, where)
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from typing import Any
 
-from pipeline.params import Param, closest
+from vzero.params import Param, closest
 
 #: Molecule blocks: free-text identity fields.
 MOLECULE_KEYS = {"name", "id", "ec_number", "organism", "sequence", "concentration", "smiles", "inchi", "source"}

@@ -25,8 +25,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from plugins.export.tables import RESEARCH_NOTE
+from vzero.plugins.export.tables import RESEARCH_NOTE
 
 SIGNAL_TYPES = {"AU": "absorbance", "mAU": "absorbance", "absorbance_unit": "absorbance", "RFU": "fluorescence"}
 SYMBOLS = {"S": "substrate", "I": "inhibitor", "E": "enzyme"}
@@ -47,7 +46,7 @@ def unit_definition(text: str) -> dict[str, Any]:
     signal units (AU, RFU) and empty units are dimensionless. The overall factor goes into the first base
     unit's ``scale`` when it is a power of ten, otherwise into its ``multiplier``.
     """
-    from pipeline import units
+    from vzero import units
 
     raw = str(text or "").strip()
     name = raw or "dimensionless"
@@ -104,7 +103,7 @@ def _equation(text: str, ids: Mapping[str, str]) -> str:
 def _model_equations() -> dict[str, str]:
     """Equation text of every registered fit model, by name (empty when the fit plugin is unavailable)."""
     try:
-        from pipeline.plugins import make_manager
+        from vzero.manager import make_manager
 
         registry = make_manager(autoload=False).registry
         return {e.name: str(getattr(e.component, "equation", "")) for e in registry if e.kind == "model"}
@@ -134,7 +133,7 @@ def build_document(head: Mapping[str, Any], results: Mapping[str, Any], traces: 
     vessel: dict[str, Any] = {"id": "well", "name": "microplate well", "volume": 0.0,
                               "unit": unit_definition("uL"), "constant": True}
     if volume_text:
-        from pipeline import units
+        from vzero import units
 
         q = units.quantity(volume_text, like="L", what="assay.volume")
         vessel.update(volume=float(q.m_as("uL")))
@@ -195,7 +194,7 @@ def _celsius(value: Any) -> float | None:
     """The assay temperature in °C (given with any temperature unit: "30 degC", "303.15 K")."""
     if value is None or value == "":
         return None
-    from pipeline import units
+    from vzero import units
 
     try:
         return float(units.quantity(str(value), like="degC", what="assay.temperature").m_as("degC"))
@@ -280,7 +279,7 @@ def _fits(fits: Any, measured: str) -> tuple[list[dict[str, Any]], list[dict[str
 
 
 def write_enzymeml(audit: str | Path, target: str | Path) -> None:
-    from pipeline import reader
+    from vzero import reader
 
     with reader.open_audit(audit) as f:
         doc = build_document(reader.header(f), reader.read_results(f), reader.read_step_traces(f))

@@ -14,8 +14,7 @@ from pathlib import Path
 from typing import Any
 
 import pandas as pd
-
-from pipeline.errors import VzeroError
+from vzero.errors import VzeroError
 
 RESEARCH_NOTE = ("Results are for research use only; check them against your laboratory's validated "
                  "procedures before relying on them.")
@@ -37,7 +36,7 @@ def flatten(mapping: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
 
 
 def _load(audit: str | Path) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any]]:
-    from pipeline import reader
+    from vzero import reader
 
     with reader.open_audit(audit) as f:
         return reader.header(f), reader.read_results(f), reader.read_step_traces(f)

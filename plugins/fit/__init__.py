@@ -8,9 +8,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from pipeline import hookimpl
-from plugins.fit.catalog import MODELS
-from plugins.fit.stage import FitStage
+from vzero import hookimpl
+from vzero.plugins.fit.catalog import MODELS
+from vzero.plugins.fit.stage import FitStage
 
 
 @hookimpl

@@ -73,7 +73,7 @@ class Model:
 
 
 def _impl(name: str) -> str:
-    return f"plugins.fit.models:{name}"
+    return f"vzero.plugins.fit.models:{name}"
 
 
 POS = (0.0, INF)

@@ -26,8 +26,7 @@ from typing import Any
 
 import numpy as np
 from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
-
-from plugins.fit.engine import FitResult
+from vzero.plugins.fit.engine import FitResult
 
 EQUIVALENCE = (0.8, 1.25)
 """An interval of h inside this range counts as "no cooperativity of practical size"."""

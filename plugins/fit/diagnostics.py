@@ -13,9 +13,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
-
-from plugins.fit.catalog import Model
-from plugins.fit.engine import FitResult
+from vzero.plugins.fit.catalog import Model
+from vzero.plugins.fit.engine import FitResult
 
 HILL_STABLE = (0.1, 0.9)
 """Fractional saturation range where a Hill-plot point is usable: outside it log(v/(Vmax − v)) is dominated

@@ -1,6 +1,6 @@
 """Rate-law implementations for the built-in models: functions, analytic Jacobians, start values.
 
-The model descriptions (names, parameters, unit roles, bounds) live in :mod:`plugins.fit.catalog`, which
+The model descriptions (names, parameters, unit roles, bounds) live in :mod:`vzero.plugins.fit.catalog`, which
 refers to these functions by name so that registering the models does not import numpy. Functions are
 vectorised: each parameter may be a scalar or an array ``[n_groups, 1]`` broadcasting against data arrays
 ``[n_groups, n_points]``.

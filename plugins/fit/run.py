@@ -1,6 +1,6 @@
 """The work of the fit stage: select wells, fit every model to every group, build the result tables.
 
-Called from :meth:`plugins.fit.stage.FitStage.run`. Per-group trouble (too few levels, no positive rate,
+Called from :meth:`vzero.plugins.fit.stage.FitStage.run`. Per-group trouble (too few levels, no positive rate,
 no saturation, no convergence) becomes a row with ``success`` False and a reason, plus a one-line warning;
 only a set-up problem (no rates table, a missing column, an unknown model) raises :class:`FitError`.
 """
@@ -14,14 +14,13 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from pipeline import units as pu
-from pipeline.data import Table
-from pipeline.errors import FitError
-from pipeline.params import closest
-from pipeline.stage import StageInput, StageOutput
-from plugins.fit import compare, diagnostics, engine
-from plugins.fit.catalog import BY_NAME, Model
+from vzero import units as pu
+from vzero.data import Table
+from vzero.errors import FitError
+from vzero.params import closest
+from vzero.plugins.fit import compare, diagnostics, engine
+from vzero.plugins.fit.catalog import BY_NAME, Model
+from vzero.stage import StageInput, StageOutput
 
 NOT_DETERMINED = "not determined"
 
@@ -175,7 +174,7 @@ def _ki_rows(model: Model, res: engine.FitResult, s: np.ndarray, cfg: Mapping[st
 
 @functools.lru_cache(maxsize=64)
 def _factor(expression: str, target: str) -> float:
-    """:func:`pipeline.units.factor`, remembered: parsing units with pint costs about 0.1 ms a call, and the
+    """:func:`vzero.units.factor`, remembered: parsing units with pint costs about 0.1 ms a call, and the
     same few unit pairs recur for every group and model."""
     return float(pu.factor(expression, target))
 
@@ -226,7 +225,7 @@ def _group_enzyme(e: np.ndarray) -> float:
 
 
 def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
-    from plugins.fit.stage import FitStage
+    from vzero.plugins.fit.stage import FitStage
 
     cfg = {k: p.default for k, p in FitStage.params.items()} | dict(settings)
     rates = data.artifacts.get("rates")

@@ -1,6 +1,6 @@
 """Declaration of the fit stage (method ``nls``): its parameters and a light ``run`` that delegates.
 
-The work is in :mod:`plugins.fit.run`, imported on first use so that listing plugins stays quick.
+The work is in :mod:`vzero.plugins.fit.run`, imported on first use so that listing plugins stays quick.
 """
 
 from __future__ import annotations
@@ -8,8 +8,8 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any, ClassVar
 
-from pipeline.params import Param
-from pipeline.stage import Stage, StageInput, StageOutput
+from vzero.params import Param
+from vzero.stage import Stage, StageInput, StageOutput
 
 DEFAULT_EXCLUDE = ["saturated", "all_missing", "no_signal", "too_few_points", "fit_failed", "excluded"]
 FLAG_CHOICES = (
@@ -73,6 +73,6 @@ class FitStage(Stage):
     }
 
     def run(self, data: StageInput) -> StageOutput:
-        from plugins.fit.run import run_fit
+        from vzero.plugins.fit.run import run_fit
 
         return run_fit(self.settings, data)

@@ -7,10 +7,10 @@ from __future__ import annotations
 
 from typing import Any
 
-from pipeline import hookimpl
-from pipeline.errors import InputFileError, LayoutError
-from pipeline.params import Param
-from pipeline.stage import Stage, StageInput, StageOutput
+from vzero import hookimpl
+from vzero.errors import InputFileError, LayoutError
+from vzero.params import Param
+from vzero.stage import Stage, StageInput, StageOutput
 
 LAYOUT_QUANTITIES = ("substrate", "enzyme", "inhibitor")
 
@@ -55,9 +55,8 @@ class TableImport(Stage):
 
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
-
-        from pipeline.data import Traces
-        from plugins.importers import layouts, readers
+        from vzero.data import Traces
+        from vzero.plugins.importers import layouts, readers
 
         s = self.settings
         raw = data.inputs.get("data")
@@ -106,7 +105,7 @@ class TableImport(Stage):
             well_units={k: v for k, v in units.items() if k in wells.columns and v},
             temperature=block.temperature,
         )
-        from plugins.exclusions import apply_exclusions
+        from vzero.plugins.exclusions import apply_exclusions
 
         traces = apply_exclusions(traces, data.recipe)
         return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
@@ -139,9 +138,8 @@ class RatesTableImport(Stage):
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
         import pandas as pd
-
-        from pipeline.data import Table
-        from plugins.importers import readers
+        from vzero.data import Table
+        from vzero.plugins.importers import readers
 
         s = self.settings
         raw = data.inputs.get("data")
@@ -210,8 +208,8 @@ def _split_unit(label: str) -> tuple[str, str]:
 
 def _layout(data: StageInput, settings: dict[str, Any], wells: list[str]) -> tuple[Any, str]:
     """The plate layout: from the plate's layout file, or declared in the import step (``layout:``)."""
-    from plugins.importers import layouts
-    from plugins.importers.wells import infer_plate_size
+    from vzero.plugins.importers import layouts
+    from vzero.plugins.importers.wells import infer_plate_size
 
     raw = data.inputs.get("layout")
     declared = settings.get("layout")
@@ -245,7 +243,7 @@ def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
 @hookimpl
 def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
     """The recipe's ``exclusions`` and ``overrides`` (applied by the import and rates stages)."""
-    from plugins.exclusions import check_items
+    from vzero.plugins.exclusions import check_items
 
     return check_items(recipe, where, plates)
 

@@ -21,10 +21,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from pipeline.errors import LayoutError
-from plugins.importers.readers import ReadOptions, TextGrid, load_grid, split_label
-from plugins.importers.wells import (
+from vzero.errors import LayoutError
+from vzero.plugins.importers.readers import ReadOptions, TextGrid, load_grid, split_label
+from vzero.plugins.importers.wells import (
     PLATE_SHAPES,
     ROW_LABELS,
     all_wells,

@@ -13,7 +13,7 @@ blank row that do not look like data are skipped.
 
 Everything a recipe leaves open (delimiter, decimal mark, encoding, header row, time unit) is detected; every
 convention taken without being told lands in :attr:`Block.assumptions` so the run can show it as a warning.
-Anything that cannot be read raises :class:`pipeline.errors.InputFileError` naming file, row, column and
+Anything that cannot be read raises :class:`vzero.errors.InputFileError` naming file, row, column and
 well; no other exception type leaves :func:`read_table`.
 """
 
@@ -29,9 +29,8 @@ from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
-
-from pipeline.errors import InputFileError
-from plugins.importers.wells import is_well, normalise_well
+from vzero.errors import InputFileError
+from vzero.plugins.importers.wells import is_well, normalise_well
 
 #: Cell texts (case-insensitive) that mean "the detector was over its range" (our own generic list).
 #: Any cell starting with ``>`` (``>4.0``) means the same.

@@ -1,7 +1,7 @@
 """Built-in rates stage methods: initial rates (v0, signal per second) from each well's progress curve.
 
-Each method is a small :class:`~pipeline.stage.Stage` that calls a vectorised kernel (imported in ``run``,
-to keep this module light) and builds the standard rates table (:func:`plugins.tables.rates_table`).
+Each method is a small :class:`~vzero.stage.Stage` that calls a vectorised kernel (imported in ``run``,
+to keep this module light) and builds the standard rates table (:func:`vzero.plugins.tables.rates_table`).
 The methods, their assumptions and which to choose when are described in docs/rates.md.
 
 Methods that judge substrate conversion (``auto``, ``polynomial``, ``progress``, ``lag-decay``) need the
@@ -13,10 +13,10 @@ from __future__ import annotations
 
 from typing import Any, ClassVar
 
-from pipeline import hookimpl
-from pipeline.errors import StageError
-from pipeline.params import Param
-from pipeline.stage import Stage, StageInput, StageOutput
+from vzero import hookimpl
+from vzero.errors import StageError
+from vzero.params import Param
+from vzero.stage import Stage, StageInput, StageOutput
 
 CONVERSION_PARAMS = {
     "signal_per_conc": Param.quantity("1/M", None, "signal change per unit product concentration, e.g. "
@@ -54,8 +54,8 @@ def conversion(traces: Any, settings: dict[str, Any], warn: Any) -> tuple[Any, f
 def finish_table(traces: Any, result: Any, method: str, data: StageInput) -> StageOutput:
     """The standard rates table for ``result``, with the recipe's per-well overrides and exclusions applied
     (overridden wells recomputed over their fixed windows, each with its reason in the ``note`` column)."""
-    from plugins.exclusions import apply_overrides
-    from plugins.tables import rates_table
+    from vzero.plugins.exclusions import apply_overrides
+    from vzero.plugins.tables import rates_table
 
     table = rates_table(traces, result, method)
     table = apply_overrides(traces, table, data.recipe.get("overrides") or [])
@@ -109,7 +109,7 @@ class AutoRates(KernelRates):
 
     kind, method, version = "rates", "auto", "1.0"
     summary = "automatic early window, curvature judged against read noise; slope at the window start"
-    kernel = "plugins.rates.auto:auto"
+    kernel = "vzero.plugins.rates.auto:auto"
     kernel_params = ("max_conversion", "max_rate_drop", "t_crit", "min_points", "find_lag", "estimate")
     params = {
         **CONVERSION_PARAMS,
@@ -130,7 +130,7 @@ class PolynomialRates(KernelRates):
 
     kind, method, version = "rates", "polynomial", "1.0"
     summary = "low-order polynomial over the early curve; derivative at the start"
-    kernel = "plugins.rates.polynomial:polynomial"
+    kernel = "vzero.plugins.rates.polynomial:polynomial"
     kernel_params = ("degree", "window_s", "min_points", "max_conversion")
     params = {
         **CONVERSION_PARAMS,
@@ -159,7 +159,7 @@ class ProgressRates(KernelRates):
 
     kind, method, version = "rates", "progress", "1.0"
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
-    kernel = "plugins.rates.progress:progress_curve"
+    kernel = "vzero.plugins.rates.progress:progress_curve"
     kernel_params = ("min_points", "fail_ratio", "model")
     params = {
         **CONVERSION_PARAMS,
@@ -175,7 +175,7 @@ class LagDecayRates(KernelRates):
 
     kind, method, version = "rates", "lag-decay", "1.0"
     summary = "rate after a lag, extrapolated back through first-order inactivation"
-    kernel = "plugins.rates.lagdecay:lag_decay"
+    kernel = "vzero.plugins.rates.lagdecay:lag_decay"
     kernel_params = ("min_points", "fail_ratio")
     params = {
         **CONVERSION_PARAMS,
@@ -201,7 +201,7 @@ class WindowRates(Stage):
     }
 
     def run(self, data: StageInput) -> StageOutput:
-        from plugins.rates.window import window_slopes
+        from vzero.plugins.rates.window import window_slopes
 
         traces = data.artifacts["traces"]
         start, end = self.settings["start"].m_as("s"), self.settings["end"].m_as("s")

@@ -3,7 +3,7 @@ measurably, a quadratic) describes within the read noise, then the slope at the 
 
 How a well's window is chosen (all wells at once):
 
-1. Screen the well (:func:`plugins.rates.noise.screen`) and find any lag (:func:`plugins.rates.lagdecay.
+1. Screen the well (:func:`vzero.plugins.rates.noise.screen`) and find any lag (:func:`vzero.plugins.rates.lagdecay.
    detect_lag`); the window starts where the steady state begins (the first read without lag).
 2. Candidate windows end at a geometric grid of read offsets after the start. For every well and candidate a
    quadratic ``a + b u + c u²`` is solved from cumulative sums of the reads (no per-window pass over the
@@ -27,11 +27,10 @@ DESIGN science note); its remaining bias is of order (rate drop)², about 0.1-0.
 from __future__ import annotations
 
 import numpy as np
-
-from plugins.flags import Flag
-from plugins.rates.lagdecay import detect_lag
-from plugins.rates.noise import blank_result, check_inputs, conversion_scale, finish, flag_noisy, screen
-from plugins.rates.result import RateResult
+from vzero.plugins.flags import Flag
+from vzero.plugins.rates.lagdecay import detect_lag
+from vzero.plugins.rates.noise import blank_result, check_inputs, conversion_scale, finish, flag_noisy, screen
+from vzero.plugins.rates.result import RateResult
 
 
 def _inv3_sym(m: np.ndarray) -> np.ndarray:

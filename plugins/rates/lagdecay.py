@@ -18,9 +18,8 @@ bound. Without them decay and depletion cannot be told apart from one curve and 
 from __future__ import annotations
 
 import numpy as np
-
-from plugins.flags import Flag
-from plugins.rates.noise import (
+from vzero.plugins.flags import Flag
+from vzero.plugins.rates.noise import (
     Screen,
     blank_result,
     check_inputs,
@@ -29,9 +28,9 @@ from plugins.rates.noise import (
     flag_noisy,
     screen,
 )
-from plugins.rates.polynomial import masked_polyfit
-from plugins.rates.progress import batched_lm
-from plugins.rates.result import RateResult
+from vzero.plugins.rates.polynomial import masked_polyfit
+from vzero.plugins.rates.progress import batched_lm
+from vzero.plugins.rates.result import RateResult
 
 
 def _block_lines(

@@ -10,10 +10,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-
-from pipeline.errors import StageError
-from plugins.flags import Flag
-from plugins.rates.result import RateResult
+from vzero.errors import StageError
+from vzero.plugins.flags import Flag
+from vzero.plugins.rates.result import RateResult
 
 #: Scale from the median absolute deviation to the standard deviation of a normal distribution.
 MAD_TO_SD = 1.4826
@@ -26,7 +25,7 @@ NOISY_MIN_T = 10.0
 def check_inputs(time: np.ndarray, signal: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Return ``(time, signal)`` as float arrays ``[n_time]`` and ``[n_wells, n_time]``.
 
-    Raises :class:`~pipeline.errors.StageError` when the shapes disagree or time is not strictly increasing
+    Raises :class:`~vzero.errors.StageError` when the shapes disagree or time is not strictly increasing
     (a plate-level problem: the importer should have caught it).
     """
     t = np.asarray(time, dtype=float)

@@ -11,10 +11,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-
-from plugins.flags import Flag
-from plugins.rates.noise import blank_result, check_inputs, conversion_scale, finish, flag_noisy, screen
-from plugins.rates.result import RateResult
+from vzero.plugins.flags import Flag
+from vzero.plugins.rates.noise import blank_result, check_inputs, conversion_scale, finish, flag_noisy, screen
+from vzero.plugins.rates.result import RateResult
 
 
 @dataclass(frozen=True)

@@ -18,12 +18,11 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-
-from pipeline.errors import StageError
-from plugins.flags import Flag
-from plugins.rates.noise import blank_result, check_inputs, finish, flag_noisy, screen
-from plugins.rates.polynomial import masked_polyfit
-from plugins.rates.result import RateResult
+from vzero.errors import StageError
+from vzero.plugins.flags import Flag
+from vzero.plugins.rates.noise import blank_result, check_inputs, finish, flag_noisy, screen
+from vzero.plugins.rates.polynomial import masked_polyfit
+from vzero.plugins.rates.result import RateResult
 
 
 @dataclass(frozen=True)
@@ -417,7 +416,7 @@ def progress_curve(
     the delta method from the fit covariance scaled by ``max(residual variance, read noise²)``.
 
     The reaction is taken to start at ``t = 0`` of the time axis (reads may start later) with no lag and a
-    stable enzyme; use :func:`plugins.rates.lagdecay.lag_decay` for curves with lag or inactivation.
+    stable enzyme; use :func:`vzero.plugins.rates.lagdecay.lag_decay` for curves with lag or inactivation.
     FIT_FAILED marks wells where the fit did not converge or its residual RMS exceeds ``fail_ratio`` times
     the read noise (the model does not describe the curve). Wells flagged by the screen (NO_SIGNAL, ...) are
     never fitted. ``extra``: ``km``, ``vmax`` (per second), ``s0_fit`` (A in signal units when s0 is unknown),

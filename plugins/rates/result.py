@@ -18,7 +18,7 @@ class RateResult:
     window_start_s, window_end_s : the reads (seconds) the rate was taken from; for whole-curve fits the
         span of the fitted curve.
     goodness : a per-well goodness measure named by ``goodness_name`` (for example R² of the window fit).
-    flags : ``int64`` bit masks of :class:`plugins.flags.Flag`.
+    flags : ``int64`` bit masks of :class:`vzero.plugins.flags.Flag`.
     lag_s : lag time in seconds (0 where no lag was detected, NaN where not assessed).
     n_points : reads used per well.
     extra : further per-well arrays a method wants to report (name -> ``[n_wells]`` float array), for

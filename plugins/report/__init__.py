@@ -9,9 +9,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from pipeline import hookimpl
-from pipeline.params import Param
-from pipeline.stage import Stage, StageInput, StageOutput
+from vzero import hookimpl
+from vzero.params import Param
+from vzero.stage import Stage, StageInput, StageOutput
 
 
 class HtmlReport(Stage):
@@ -32,8 +32,8 @@ class HtmlReport(Stage):
     }
 
     def run(self, data: StageInput) -> StageOutput:
-        from plugins.report.build import build
-        from plugins.report.sources import from_stage
+        from vzero.plugins.report.build import build
+        from vzero.plugins.report.sources import from_stage
 
         return StageOutput(files=build(from_stage(data, self.settings)))
 
@@ -45,6 +45,6 @@ def vzero_register(registry: Any) -> None:
 
 @hookimpl
 def vzero_commands(commands: Any) -> None:
-    from plugins.report import command
+    from vzero.plugins.report import command
 
     commands.add("report", command.HELP, command.configure, command.run, command.EXAMPLE)

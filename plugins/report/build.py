@@ -17,9 +17,8 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from pipeline.data import Table, Traces
-from plugins.report import content, figures, parallel
+from vzero.data import Table, Traces
+from vzero.plugins.report import content, figures, parallel
 
 RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
                  "lab's validated procedures before relying on them, and do not use them for diagnosis or "
@@ -74,7 +73,7 @@ def _evaluators(fits: pd.DataFrame, group: str, x_col: str) -> dict[str, Callabl
     """Exact fitted-rate functions of ``x_col`` per model of one group, where the fit plugin's model is known
     and every parameter was determined (residuals then need no interpolation)."""
     try:
-        from plugins.fit.catalog import BY_NAME
+        from vzero.plugins.fit.catalog import BY_NAME
     except ImportError:  # the fit plugin is optional for the report
         return {}
     out: dict[str, Callable[[np.ndarray], np.ndarray]] = {}
@@ -115,7 +114,7 @@ DRAW_BATCH = 16
 class _Drawing:
     """Figures not yet made. Each is a job that makes the figure and saves it as PNG and SVG (returning a
     note for the caption as its third part, possibly empty); the jobs run together, in parallel where that is
-    safe (see :mod:`plugins.report.parallel`), and each result is set on its :class:`Figure`."""
+    safe (see :mod:`vzero.plugins.report.parallel`), and each result is set on its :class:`Figure`."""
 
     def __init__(self) -> None:
         self.pending: list[tuple[parallel.Job, float, Figure]] = []
@@ -293,7 +292,7 @@ def render_html(context: Mapping[str, Any]) -> str:
     """Render the report template (jinja2, autoescape on) with ``context``."""
     import jinja2
 
-    env = jinja2.Environment(loader=jinja2.PackageLoader("plugins.report", "templates"), autoescape=True,
+    env = jinja2.Environment(loader=jinja2.PackageLoader("vzero.plugins.report", "templates"), autoescape=True,
                              undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     env.filters["num"] = content.num
     return env.get_template("report.html.j2").render(**context)

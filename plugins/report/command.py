@@ -10,7 +10,7 @@ import argparse
 import os
 from pathlib import Path
 
-from pipeline.errors import OutputExistsError, VzeroError
+from vzero.errors import OutputExistsError, VzeroError
 
 HELP = "Rebuild the HTML report and figures of a finished run from its audit file."
 EXAMPLE = "vzero report runs/today/run.h5 --out runs/today"
@@ -38,8 +38,8 @@ def write_files(out: Path, files: dict[str, bytes], force: bool) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from plugins.report.build import build
-    from plugins.report.sources import from_audit
+    from vzero.plugins.report.build import build
+    from vzero.plugins.report.sources import from_audit
 
     if args.max_panels < 24:
         raise VzeroError(f"--max-panels {args.max_panels}: too few to show a plate", hint="Use 24 or more.")

@@ -135,7 +135,7 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
     when it has a value for each of the model's variables, and, for a model without an inhibitor variable,
     no inhibitor. A well counts as used when at least one of the recipe's models uses it. A model the report
     does not know (a lab's own) is taken to use any well with a rate."""
-    from plugins.fit.catalog import BY_NAME
+    from vzero.plugins.fit.catalog import BY_NAME
 
     n = len(rates)
     reasons = [""] * n

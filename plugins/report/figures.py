@@ -22,10 +22,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from pipeline.data import Traces
-from plugins.report import palette
-from plugins.report.content import flag_list, model_title, num, pretty_unit
+from vzero.data import Traces
+from vzero.plugins.report import palette
+from vzero.plugins.report.content import flag_list, model_title, num, pretty_unit
 
 MAX_PANELS = 384
 """Most wells drawn in one progress-curve figure; larger plates get a subsample (flagged wells first)."""
@@ -177,7 +176,7 @@ def _title(ax: Any, text: str, size: float, pad_pt: float = 6.0) -> None:
 
 def _plate_geometry(wells: Sequence[str]) -> tuple[int, int, np.ndarray, np.ndarray, list[str]]:
     """(rows, columns, row index, column index, row labels) of ``wells`` on the smallest plate holding them."""
-    from plugins.importers.wells import ROW_LABELS, infer_plate_size, plate_shape, well_index
+    from vzero.plugins.importers.wells import ROW_LABELS, infer_plate_size, plate_shape, well_index
 
     size = infer_plate_size(wells)
     n_rows, n_cols = plate_shape(size)

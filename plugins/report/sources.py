@@ -1,6 +1,6 @@
 """Where a report's input comes from: a finished stage's artifacts, or an audit file (``vzero report``).
 
-Both roads end in a :class:`plugins.report.build.ReportInput` with the same provenance keys: ``source``,
+Both roads end in a :class:`vzero.plugins.report.build.ReportInput` with the same provenance keys: ``source``,
 ``recipe_name``, ``recipe_sha256``, ``recipe_text``, ``created``, ``run_id``, ``vzero_version``, ``versions``,
 ``steps`` (label, kind, method, plugin, version, seconds, parameters), ``inputs`` (name, plates, size,
 sha256), ``warnings`` and ``failed_plates``.
@@ -13,9 +13,9 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-from pipeline.data import Table, Traces
-from pipeline.stage import StageInput
-from plugins.report.build import ReportInput
+from vzero.data import Table, Traces
+from vzero.plugins.report.build import ReportInput
+from vzero.stage import StageInput
 
 VERSION_DISTS = ("numpy", "scipy", "pandas", "h5py", "matplotlib", "jinja2", "pluggy", "pint")
 
@@ -61,7 +61,7 @@ def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
     """The report input of a running pipeline: the pooled tables and per-plate traces in ``data.artifacts``,
     and the provenance the runner hands final stages in ``data.run`` (recipe text and hash, input hashes,
     step timings so far)."""
-    from pipeline import __version__
+    from vzero import __version__
 
     tables = {k: v for k, v in data.artifacts.items() if isinstance(v, Table)}
     traces_in = data.artifacts.get("traces")
@@ -95,8 +95,7 @@ def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
     """The report input stored in an audit file: final tables from /results, the last traces stored per
     plate under /steps, the recipe text and provenance from the file's attributes."""
     import yaml
-
-    from pipeline import reader
+    from vzero import reader
 
     with reader.open_audit(path) as f:
         a = f.attrs

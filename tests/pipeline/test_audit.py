@@ -15,14 +15,14 @@ from pathlib import Path
 import h5py
 import numpy as np
 import pytest
+from vzero import reader
+from vzero.audit import FORMAT_VERSION
+from vzero.cli import main
+from vzero.errors import AuditFileError
+from vzero.inspect import summary
+from vzero.runner import run
+from vzero.verify import verify
 
-from pipeline import reader
-from pipeline.audit import FORMAT_VERSION
-from pipeline.cli import main
-from pipeline.errors import AuditFileError
-from pipeline.inspect import summary
-from pipeline.runner import run
-from pipeline.verify import verify
 from tests.conftest import DATA, linear_plate
 
 KEPT = DATA / "audit" / "linear-v1.1.h5"
@@ -144,8 +144,8 @@ def test_same_inputs_and_recipe_give_identical_tables_to_the_bit(tmp_path: Path)
 SLEEPY = '''
 import time
 from pathlib import Path
-from pipeline import hookimpl
-from pipeline.stage import Stage, StageOutput
+from vzero import hookimpl
+from vzero.stage import Stage, StageOutput
 
 class Sleepy(Stage):
     kind = "rates"

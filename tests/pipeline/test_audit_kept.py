@@ -12,10 +12,10 @@ from pathlib import Path
 
 import numpy as np
 from numpy.testing import assert_allclose
+from vzero import reader
+from vzero.rerun import rerun
+from vzero.verify import verify
 
-from pipeline import reader
-from pipeline.rerun import rerun
-from pipeline.verify import verify
 from tests.conftest import DATA
 
 KEPT = DATA / "audit" / "linear-v1.1.h5"

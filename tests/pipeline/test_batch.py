@@ -13,10 +13,9 @@ import h5py
 import numpy as np
 import pandas as pd
 import pytest
-
-from pipeline.cli import main
-from pipeline.errors import RecipeError
-from pipeline.runner import run
+from vzero.cli import main
+from vzero.errors import RecipeError
+from vzero.runner import run
 
 STEPS = """\
 steps:
@@ -34,7 +33,7 @@ def demo_batch(folder: Path, n: int, *, broken: tuple[int, ...] = (), fit: bool 
 
     Plates whose index is in ``broken`` get a data file that cannot be read as a plate.
     """
-    from plugins.demo.simulate import layout, simulate
+    from vzero.plugins.demo.simulate import layout, simulate
 
     plates = folder / "plates"
     plates.mkdir(parents=True, exist_ok=True)
@@ -101,7 +100,7 @@ def test_manifest_batch_pools_plates_and_stores_the_manifest(tmp_path: Path):
     assert len(result.rates) == 3 * 96
     # the reduce: one fit per group over the wells of all three plates (36 rates per group on one plate,
     # as the single-plate demo run shows)
-    from plugins.demo.simulate import layout
+    from vzero.plugins.demo.simulate import layout
 
     lay = layout()
     assert set(result.fits["group"]) == set(lay.loc[lay["role"] == "sample", "group"])
@@ -137,7 +136,7 @@ def test_every_plate_failed_exits_2(tmp_path: Path, capsys):
 def test_missing_data_file_fails_that_plate_only(tmp_path: Path):
     recipe = demo_batch(tmp_path / "in", 3, fit=False)
     # the file disappears after validation (a network share, a file moved): that plate fails, not the run
-    from pipeline import runner
+    from vzero import runner
 
     real = runner._raw
 
@@ -170,8 +169,8 @@ def test_streamed_plates_are_let_go_once_written(tmp_path: Path, monkeypatch):
     import gc
     import weakref
 
-    from pipeline import audit
-    from pipeline.data import Traces
+    from vzero import audit
+    from vzero.data import Traces
 
     alive: list[weakref.ref] = []
     write_traces = audit.write_traces
@@ -233,7 +232,7 @@ def test_manifest_entry_takes_no_other_keys(tmp_path: Path):
 
 
 def test_table_checksums_written_on_the_fly_match_the_stored_content(tmp_path: Path):
-    from pipeline.audit import table_sha256
+    from vzero.audit import table_sha256
 
     recipe = demo_batch(tmp_path / "in", 2)
     result = run(recipe, tmp_path / "out")  # streamed: tables pass through the scratch file and an HDF5 copy

@@ -6,8 +6,7 @@ import numpy as np
 import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from pipeline.outputs import csv_text
+from vzero.outputs import csv_text
 
 
 def test_same_text_as_pandas_for_every_column_type():
@@ -59,8 +58,8 @@ def test_tables_written_in_pieces_by_workers(tmp_path):
     later step is not used (the new one is written instead) and no piece is left in the folder."""
     from concurrent.futures import ThreadPoolExecutor
 
-    from pipeline import outputs
-    from pipeline.data import Table
+    from vzero import outputs
+    from vzero.data import Table
 
     class Pool:  # the executor interface, on threads
         workers, shares_disk = 2, True
@@ -106,7 +105,7 @@ def test_tables_written_in_pieces_by_workers(tmp_path):
 def test_large_tables_are_written_a_block_of_rows_at_a_time(tmp_path, monkeypatch):
     """write_csv formats a block of rows at a time (bounded memory); the file is pandas' text all the same, also
     for a table left to pandas (a date column) and for a table without rows."""
-    from pipeline import outputs
+    from vzero import outputs
 
     monkeypatch.setattr(outputs, "CSV_BLOCK_ROWS", 3)
     frames = [pd.DataFrame({"x": np.arange(10) / 3, "w": ["a,b", None, "c"] * 3 + ["d"]}),

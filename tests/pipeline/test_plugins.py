@@ -7,11 +7,10 @@ import textwrap
 from pathlib import Path
 
 import pytest
-
-from pipeline import hookspecs
-from pipeline.errors import PluginError
-from pipeline.plugins import make_manager
-from pipeline.stage import Stage
+from vzero import hookspecs
+from vzero.errors import PluginError
+from vzero.manager import make_manager
+from vzero.stage import Stage
 
 DATA = Path(__file__).parents[1] / "data"
 
@@ -69,8 +68,8 @@ def test_duplicate_method_names_both_sources(tmp_path):
     (tmp_path / "dupe.py").write_text(
         textwrap.dedent(
             """
-            from pipeline import hookimpl
-            from pipeline.stage import Stage
+            from vzero import hookimpl
+            from vzero.stage import Stage
 
             class Dupe(Stage):
                 kind, method = "rates", "window"
@@ -88,7 +87,7 @@ def test_duplicate_method_names_both_sources(tmp_path):
 
 def test_unknown_hook_is_refused(tmp_path):
     (tmp_path / "typo.py").write_text(
-        "from pipeline import hookimpl\n\n@hookimpl\ndef vzero_registr(registry):\n    pass\n", "utf-8"
+        "from vzero import hookimpl\n\n@hookimpl\ndef vzero_registr(registry):\n    pass\n", "utf-8"
     )
     with pytest.raises(PluginError, match="does not define"):
         make_manager(["typo.py"], base_dir=tmp_path, autoload=False)
@@ -98,7 +97,7 @@ def test_module_hooks_of_every_kind_pluggy_accepts_are_found(tmp_path):
     """The manager passes over module names that are not functions; a hook under another name (pluggy's
     ``specname``) or bound to an object must still be found."""
     (tmp_path / "kinds.py").write_text(
-        "from pipeline import hookimpl\n"
+        "from vzero import hookimpl\n"
         "seen = []\n"
         "@hookimpl(specname='vzero_register')\n"
         "def register_under_another_name(registry):\n    seen.append('specname')\n"
@@ -119,7 +118,7 @@ def test_bad_stage_declaration_is_refused():
         kind, method, scope = "rates", "bad", "everywhere"
 
     class Plugin:
-        from pipeline import hookimpl
+        from vzero import hookimpl
 
         @staticmethod
         @hookimpl

@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 import pytest
-
-from pipeline.errors import RecipeError
-from pipeline.recipe import check, parse
+from vzero.errors import RecipeError
+from vzero.recipe import check, parse
 
 GOOD = """\
 vzero: 1

@@ -9,12 +9,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
+from vzero import reader
+from vzero.cli import main
+from vzero.errors import PluginError, RecipeError
+from vzero.rerun import StoredInputs, rerun
+from vzero.runner import run
 
-from pipeline import reader
-from pipeline.cli import main
-from pipeline.errors import PluginError, RecipeError
-from pipeline.rerun import StoredInputs, rerun
-from pipeline.runner import run
 from tests.conftest import DATA, linear_plate
 
 SLOPES = np.linspace(1e-4, 1e-3, 96)[:84]  # rows A-G of conftest.linear_plate; row H are blanks
@@ -111,8 +111,7 @@ def test_stored_recipe_does_not_import_modules_without_consent(tmp_path: Path):
     """An audit file may come from anywhere: a module its stored recipe names is not imported unless the user
     says so, and a stored recipe that no longer matches its hash is refused."""
     import h5py
-
-    from pipeline.errors import AuditFileError
+    from vzero.errors import AuditFileError
 
     old = _old_run(tmp_path)
     with h5py.File(old, "r+") as f:

@@ -10,10 +10,10 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
+from vzero.cli import main
+from vzero.reader import open_audit, read_table
+from vzero.runner import run
 
-from pipeline.cli import main
-from pipeline.reader import open_audit, read_table
-from pipeline.runner import run
 from tests.conftest import DATA, linear_plate
 
 
@@ -120,7 +120,7 @@ def test_plugins_command_lists_sources(capsys):
 
 
 def test_every_command_has_help_with_an_example(capsys):
-    from pipeline.cli import build_parser
+    from vzero.cli import build_parser
 
     parser = build_parser()
     sub = next(a for a in parser._actions if a.dest == "command")

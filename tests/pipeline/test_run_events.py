@@ -5,12 +5,12 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+from vzero import hookimpl
+from vzero.cli import Commands
+from vzero.errors import StageError
+from vzero.manager import make_manager
+from vzero.runner import run
 
-from pipeline import hookimpl
-from pipeline.cli import Commands
-from pipeline.errors import StageError
-from pipeline.plugins import make_manager
-from pipeline.runner import run
 from tests.conftest import linear_plate
 
 
@@ -45,7 +45,7 @@ def test_before_and_after_each_step(tmp_path: Path):
 def test_step_error_event_and_plugin_named(tmp_path: Path):
     recipe = linear_plate(tmp_path / "in")
     (tmp_path / "in" / "boom.py").write_text(
-        "from pipeline import hookimpl\nfrom pipeline.stage import Stage\n\n"
+        "from vzero import hookimpl\nfrom vzero.stage import Stage\n\n"
         "class Boom(Stage):\n    kind, method = 'rates', 'boom'\n\n    def run(self, data):\n"
         "        raise ZeroDivisionError('no')\n\n@hookimpl\ndef vzero_register(registry):\n"
         "    registry.add(Boom)\n",

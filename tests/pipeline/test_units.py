@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 import pytest
-
-from pipeline import units
-from pipeline.errors import UnitError
+from vzero import units
+from vzero.errors import UnitError
 
 # (from, to, factor): each factor is a definition, with its source
 DEFINITIONS = [

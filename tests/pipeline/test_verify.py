@@ -8,9 +8,9 @@ from pathlib import Path
 
 import h5py
 import pytest
+from vzero.cli import main
+from vzero.verify import verify
 
-from pipeline.cli import main
-from pipeline.verify import verify
 from tests.conftest import DATA
 
 KEPT = DATA / "audit" / "linear-v1.1.h5"

@@ -6,14 +6,13 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
-
-from pipeline.data import Table, Traces
-from pipeline.params import validate
-from pipeline.stage import StageInput
-from plugins.blank import MeanBlank
-from plugins.convert import BeerLambert
-from plugins.rates import WindowRates
-from plugins.rates.window import window_slopes
+from vzero.data import Table, Traces
+from vzero.params import validate
+from vzero.plugins.blank import MeanBlank
+from vzero.plugins.convert import BeerLambert
+from vzero.plugins.rates import WindowRates
+from vzero.plugins.rates.window import window_slopes
+from vzero.stage import StageInput
 
 
 def _input(artifacts, warnings=None):
@@ -133,7 +132,7 @@ def test_beer_lambert_needs_exactly_one_pathlength_source():
 
 
 def test_beer_lambert_pathlength_from_fill_volume():
-    from plugins.convert.pathlength import pathlength_from_volume
+    from vzero.plugins.convert.pathlength import pathlength_from_volume
 
     stage = _stage(BeerLambert, epsilon="6220 M^-1 cm^-1", fill_volume="200 uL", plate_type="96-flat",
                    output_unit="uM/min")
@@ -146,7 +145,7 @@ def test_beer_lambert_pathlength_from_fill_volume():
 
 
 def test_standard_curve_converts_fluorescence_rates():
-    from plugins.convert import StandardCurveConvert
+    from vzero.plugins.convert import StandardCurveConvert
 
     # 4 standards of product (µM) read flat at 120 RFU/µM + 50; one sample well rising 2.4 RFU/s.
     t = np.arange(0.0, 60.0, 10.0)
@@ -167,7 +166,7 @@ def test_standard_curve_converts_fluorescence_rates():
 
 
 def test_standard_curve_warns_about_wells_beyond_the_top_standard():
-    from plugins.convert import StandardCurveConvert
+    from vzero.plugins.convert import StandardCurveConvert
 
     t = np.arange(0.0, 60.0, 10.0)
     levels = np.array([0.0, 1.0, 2.0, 4.0])

@@ -10,9 +10,8 @@ import numpy as np
 import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from pipeline.audit import read_table, table_sha256, write_table
-from pipeline.data import Table
+from vzero.audit import read_table, table_sha256, write_table
+from vzero.data import Table
 
 floats = st.floats(allow_nan=True, allow_infinity=True, width=64)
 texts = st.text(alphabet=st.characters(exclude_categories=("Cs",), exclude_characters="\x00"), max_size=12)

@@ -8,12 +8,11 @@ import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
-
-from pipeline import units
-from pipeline.audit import read_table, write_table
-from pipeline.data import Table, Traces
-from pipeline.stage import StageInput
-from plugins.blank import MeanBlank
+from vzero import units
+from vzero.audit import read_table, write_table
+from vzero.data import Table, Traces
+from vzero.plugins.blank import MeanBlank
+from vzero.stage import StageInput
 
 CONC_UNITS = ["M", "mM", "uM", "µM", "nM", "pM"]
 TIME_UNITS = ["s", "min", "h", "ms"]
@@ -68,8 +67,7 @@ def test_table_write_then_read_is_identical(tmp_path_factory, rows):
 
 def test_pooling_converts_equivalent_and_compatible_units():
     import pytest
-
-    from pipeline.errors import UnitError
+    from vzero.errors import UnitError
 
     a = Table(pd.DataFrame({"substrate": [1.0], "substrate_unit": ["uM"]}), {"substrate": "uM"})
     b = Table(pd.DataFrame({"substrate": [2.0], "substrate_unit": ["µM"]}), {"substrate": "µM"})

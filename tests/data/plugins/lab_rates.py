@@ -6,9 +6,9 @@ its method exactly like a built-in one.
 
 from __future__ import annotations
 
-from pipeline import hookimpl
-from pipeline.params import Param
-from pipeline.stage import Stage, StageInput, StageOutput
+from vzero import hookimpl
+from vzero.params import Param
+from vzero.stage import Stage, StageInput, StageOutput
 
 __version__ = "0.3"
 
@@ -21,8 +21,8 @@ class FirstReads(Stage):
     params = {"reads": Param("int", 5, "how many reads from the start", low=2)}
 
     def run(self, data: StageInput) -> StageOutput:
-        from plugins.rates import finish_table
-        from plugins.rates.window import window_slopes
+        from vzero.plugins.rates import finish_table
+        from vzero.plugins.rates.window import window_slopes
 
         traces = data.artifacts["traces"]
         end = traces.time[min(self.settings["reads"], len(traces.time)) - 1]

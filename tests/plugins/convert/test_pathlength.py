@@ -5,9 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
-
-from pipeline.errors import RecipeError
-from plugins.convert.pathlength import (
+from vzero.errors import RecipeError
+from vzero.plugins.convert.pathlength import (
     PLATE_GEOMETRIES,
     WellGeometry,
     pathlength_from_volume,

@@ -6,9 +6,8 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 from scipy import stats
-
-from pipeline.errors import FitError
-from plugins.convert.standard_curve import fit_standard_curve
+from vzero.errors import FitError
+from vzero.plugins.convert.standard_curve import fit_standard_curve
 
 
 def test_line_matches_scipy_linregress() -> None:

@@ -6,10 +6,10 @@ from pathlib import Path
 
 import openpyxl
 import pytest
+from vzero.plugins.export.enzymeml import _celsius
+from vzero.plugins.export.tables import write_xlsx
+from vzero.runner import run
 
-from pipeline.runner import run
-from plugins.export.enzymeml import _celsius
-from plugins.export.tables import write_xlsx
 from tests.conftest import linear_plate
 
 

@@ -11,12 +11,12 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
+from vzero import reader
+from vzero.cli import main
+from vzero.plugins.export import export
+from vzero.plugins.export.enzymeml import unit_definition
+from vzero.runner import run
 
-from pipeline import reader
-from pipeline.cli import main
-from pipeline.runner import run
-from plugins.export import export
-from plugins.export.enzymeml import unit_definition
 from tests.conftest import DATA, linear_plate
 
 VMAX, KM = 1e-3, 40.0  # AU/s and µM of the invented plate below

@@ -13,8 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from plugins.fit import engine
+from vzero.plugins.fit import engine
 
 DATA = Path(__file__).resolve().parents[2] / "data" / "reference"
 

@@ -5,9 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
-from plugins.fit import engine
-from plugins.fit.catalog import BY_NAME
+from vzero.plugins.fit import engine
+from vzero.plugins.fit.catalog import BY_NAME
 
 lmfit = pytest.importorskip("lmfit")
 

@@ -7,9 +7,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 from scipy.optimize import approx_fprime
-
-from plugins.fit import engine
-from plugins.fit.catalog import BY_NAME, MODELS
+from vzero.plugins.fit import engine
+from vzero.plugins.fit.catalog import BY_NAME, MODELS
 
 DATA = Path(__file__).resolve().parents[2] / "data" / "reference"
 

@@ -7,14 +7,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-
-from pipeline.data import Table
-from pipeline.errors import FitError
-from pipeline.params import validate
-from pipeline.registry import Registry
-from pipeline.stage import StageInput
-from plugins import fit as fit_plugin
-from plugins.fit.stage import FitStage
+from vzero.data import Table
+from vzero.errors import FitError
+from vzero.params import validate
+from vzero.plugins import fit as fit_plugin
+from vzero.plugins.fit.stage import FitStage
+from vzero.registry import Registry
+from vzero.stage import StageInput
 
 DATA = Path(__file__).resolve().parents[2] / "data" / "reference"
 
@@ -218,11 +217,11 @@ def test_inhibition_matrix_prefers_the_simulated_mechanism() -> None:
 
 def test_unknown_flag_names_and_missing_groups_do_not_break_the_fit() -> None:
     """A lab plugin may set flags of its own ('spike'); a group value may be missing: the fit goes on."""
-    from pipeline.data import Table
-    from pipeline.params import validate
-    from pipeline.plugins import make_manager
-    from pipeline.stage import StageInput
-    from plugins.fit.stage import FitStage
+    from vzero.data import Table
+    from vzero.manager import make_manager
+    from vzero.params import validate
+    from vzero.plugins.fit.stage import FitStage
+    from vzero.stage import StageInput
 
     s = np.repeat([1.0, 2.0, 5.0, 10.0, 20.0, 50.0], 2)
     rate = 10.0 * s / (5.0 + s)
@@ -239,8 +238,8 @@ def test_unknown_flag_names_and_missing_groups_do_not_break_the_fit() -> None:
 
 
 def test_reversed_bounds_are_a_recipe_error() -> None:
-    from pipeline.params import validate
-    from plugins.fit.stage import FitStage
+    from vzero.params import validate
+    from vzero.plugins.fit.stage import FitStage
 
     _, problems = validate(FitStage.params, {"bounds": {"michaelis-menten": {"Km": [200, 100]}}})
     assert problems and "low < high" in problems[0][1]

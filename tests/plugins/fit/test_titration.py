@@ -8,14 +8,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-
-from pipeline.data import Table
-from pipeline.params import validate
-from pipeline.registry import Registry
-from pipeline.stage import StageInput
-from plugins import fit as fit_plugin
-from plugins.fit.catalog import BY_NAME
-from plugins.fit.stage import FitStage
+from vzero.data import Table
+from vzero.params import validate
+from vzero.plugins import fit as fit_plugin
+from vzero.plugins.fit.catalog import BY_NAME
+from vzero.plugins.fit.stage import FitStage
+from vzero.registry import Registry
+from vzero.stage import StageInput
 
 DATA = Path(__file__).resolve().parents[2] / "data" / "reference"
 UNITS = {"rate": "uM/min", "substrate": "uM", "inhibitor": "nM", "enzyme": "nM"}

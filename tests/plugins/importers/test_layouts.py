@@ -9,9 +9,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
-
-from pipeline.errors import InputFileError, LayoutError
-from plugins.importers.layouts import BASE_COLUMNS, check_match, expand_declared_layout, read_layout
+from vzero.errors import InputFileError, LayoutError
+from vzero.plugins.importers.layouts import BASE_COLUMNS, check_match, expand_declared_layout, read_layout
 
 DATA = Path(__file__).parents[2] / "data" / "readers"
 

@@ -7,9 +7,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from plugins.importers import readers
-from plugins.importers.readers import ReadOptions, load_grid, read_table
+from vzero.plugins.importers import readers
+from vzero.plugins.importers.readers import ReadOptions, load_grid, read_table
 
 
 def _plate_text(cells: list[list[str]]) -> bytes:

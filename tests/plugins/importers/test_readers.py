@@ -13,9 +13,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
-
-from pipeline.errors import InputFileError, VzeroError
-from plugins.importers.readers import Block, ReadOptions, read_table
+from vzero.errors import InputFileError, VzeroError
+from vzero.plugins.importers.readers import Block, ReadOptions, read_table
 
 DATA = Path(__file__).parents[2] / "data" / "readers"
 

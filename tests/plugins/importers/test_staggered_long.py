@@ -5,8 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 from numpy.testing import assert_allclose
-
-from plugins.importers.readers import ReadOptions, read_table
+from vzero.plugins.importers.readers import ReadOptions, read_table
 
 
 def _long_csv(offsets: dict[str, float], cycle_s: float = 30.0, n: int = 6) -> bytes:

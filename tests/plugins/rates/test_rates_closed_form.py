@@ -11,8 +11,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.special import lambertw, wrightomega
-
-from plugins.rates.progress import (
+from vzero.plugins.rates.progress import (
     _concentration_model,
     _mm_curve,
     _power_model,

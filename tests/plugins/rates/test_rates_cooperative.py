@@ -13,12 +13,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.optimize import curve_fit
-
-from pipeline.errors import StageError
-from plugins.flags import Flag
-from plugins.rates.auto import auto
-from plugins.rates.progress import power_conversion, progress_curve
-from plugins.rates.simulate import simulate_plate
+from vzero.errors import StageError
+from vzero.plugins.flags import Flag
+from vzero.plugins.rates.auto import auto
+from vzero.plugins.rates.progress import power_conversion, progress_curve
+from vzero.plugins.rates.simulate import simulate_plate
 
 T = np.arange(61) * 10.0
 SPC = 6220e-6 * 0.55  # AU per uM of NADH: 6220 M^-1 cm^-1 x 0.55 cm

@@ -12,14 +12,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.optimize import brentq, curve_fit
-
-from plugins.flags import Flag
-from plugins.rates.auto import auto
-from plugins.rates.lagdecay import lag_decay
-from plugins.rates.noise import read_noise
-from plugins.rates.polynomial import polynomial
-from plugins.rates.progress import integrated_mm, progress_curve
-from plugins.rates.simulate import simulate_plate
+from vzero.plugins.flags import Flag
+from vzero.plugins.rates.auto import auto
+from vzero.plugins.rates.lagdecay import lag_decay
+from vzero.plugins.rates.noise import read_noise
+from vzero.plugins.rates.polynomial import polynomial
+from vzero.plugins.rates.progress import integrated_mm, progress_curve
+from vzero.plugins.rates.simulate import simulate_plate
 
 KERNELS = [auto, polynomial, progress_curve, lag_decay]
 NOISE = 0.002  # absorbance units: a realistic plate-reader read noise (common practice, from memory)
@@ -217,7 +216,7 @@ def test_auto_value_matches_numpy_polyfit_on_its_window() -> None:
 def test_progress_flags_a_changing_well_without_substrate():
     """With substrate and signal_per_conc given, a well that changes but has no substrate value (0 or
     missing) cannot be fitted by the integrated equation: it gets FIT_FAILED, never a silent blank."""
-    from plugins.rates.progress import progress_curve
+    from vzero.plugins.rates.progress import progress_curve
 
     rng = np.random.default_rng(0)
     t = np.arange(0.0, 600.0, 10.0)

@@ -9,11 +9,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-
-from pipeline.data import Table, Traces
-from plugins.rates.window import window_slopes
-from plugins.report.build import ReportInput
-from plugins.tables import rates_table
+from vzero.data import Table, Traces
+from vzero.plugins.rates.window import window_slopes
+from vzero.plugins.report.build import ReportInput
+from vzero.plugins.tables import rates_table
 
 GROUP = "E1 <b>&amp;</b>"
 """A group name with markup in it: the report must show it as text, never as HTML."""
@@ -93,7 +92,7 @@ def report_input() -> ReportInput:
     rates = rates_table(traces, result, "window")
     frame = rates.frame.copy()
     frame["plate"] = "p-1"  # rates_table names the traces' plate; the recipe's plate is p-1
-    # C5 excluded by the recipe, as plugins.exclusions leaves it: flag, no rate, the reason in "note"
+    # C5 excluded by the recipe, as vzero.plugins.exclusions leaves it: flag, no rate, the reason in "note"
     c5 = frame["well"] == "C5"
     frame.loc[c5, ["rate", "rate_stderr"]] = np.nan
     frame.loc[c5, "flags"] = "excluded"
@@ -108,7 +107,7 @@ def report_input() -> ReportInput:
 
 @pytest.fixture(scope="module")
 def built(report_input: ReportInput) -> dict[str, bytes]:
-    from plugins.report.build import build
+    from vzero.plugins.report.build import build
 
     return build(report_input)
 
@@ -123,7 +122,8 @@ def write_files(folder: Path, files: dict[str, bytes]) -> Path:
 @pytest.fixture(scope="session")
 def finished_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """A finished run (import, blank, rates, report; no fit) of the shared linear test plate."""
-    from pipeline.runner import run
+    from vzero.runner import run
+
     from tests.conftest import linear_plate
 
     folder = tmp_path_factory.mktemp("report-run")

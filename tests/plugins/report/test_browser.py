@@ -11,8 +11,7 @@ import shutil
 from pathlib import Path
 
 import pytest
-
-from plugins.report.chromium import check_page, find_browser
+from vzero.plugins.report.chromium import check_page, find_browser
 
 BROWSER = find_browser()
 GALLERY = Path(__file__).parents[3] / "docs" / "gallery"

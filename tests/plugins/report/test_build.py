@@ -8,7 +8,7 @@ import subprocess
 import sys
 import xml.etree.ElementTree as ET
 
-from plugins.report.build import RESEARCH_NOTE, render_html
+from vzero.plugins.report.build import RESEARCH_NOTE, render_html
 
 from .conftest import GROUP
 
@@ -67,7 +67,7 @@ def test_markup_in_data_is_escaped(built):
 def test_absent_tables_are_named_not_fatal(report_input):
     from dataclasses import replace
 
-    from plugins.report.build import build
+    from vzero.plugins.report.build import build
 
     bare = replace(report_input, tables={"rates": report_input.tables["rates"]}, traces={}, recipe={"name": "x"})
     text = build(bare)["report.html"].decode("utf-8")
@@ -87,6 +87,6 @@ def test_template_autoescape_is_on():
 
 
 def test_importing_the_plugin_does_not_load_matplotlib_or_jinja2():
-    code = ("import sys, plugins.report; bad = [m for m in ('matplotlib', 'jinja2') if m in sys.modules]; "
+    code = ("import sys, vzero.plugins.report; bad = [m for m in ('matplotlib', 'jinja2') if m in sys.modules]; "
             "sys.exit(1 if bad else 0)")
     assert subprocess.run([sys.executable, "-c", code], check=False).returncode == 0

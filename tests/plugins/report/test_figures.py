@@ -6,9 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
-
-from pipeline.data import Traces
-from plugins.report import content, figures
+from vzero.data import Traces
+from vzero.plugins.report import content, figures
 
 
 def _traces(signal: np.ndarray, time: np.ndarray, wells: list[str]) -> Traces:
@@ -60,7 +59,7 @@ def test_no_line_without_a_rate():
 
 
 def test_1536_wells_are_subsampled_with_flagged_wells_first():
-    from plugins.importers.wells import all_wells
+    from vzero.plugins.importers.wells import all_wells
 
     wells = all_wells(1536)
     t = np.arange(0.0, 60.0, 10.0)
@@ -79,7 +78,7 @@ def test_1536_wells_are_subsampled_with_flagged_wells_first():
 
 def test_plate_map_places_wells_in_plate_geometry():
     """Well P24 of a 384-well plate is row 16, column 24 (ANSI/SLAS 4-2004 layout: 16 × 24)."""
-    from plugins.importers.wells import all_wells
+    from vzero.plugins.importers.wells import all_wells
 
     wells = all_wells(384)
     rates = pd.DataFrame({"well": wells, "rate": np.arange(384.0), "role": "sample", "flags": ""})
@@ -113,8 +112,8 @@ def test_slug_and_units():
 def test_residuals_use_the_fitted_model_exactly(report_input):
     """The residual panel evaluates the fit plugin's model at each well; for Michaelis-Menten that must be the
     textbook v = Vmax·S/(Km + S) (Michaelis & Menten 1913; any biochemistry text)."""
-    pytest.importorskip("plugins.fit.catalog")
-    from plugins.report.build import _evaluators
+    pytest.importorskip("vzero.plugins.fit.catalog")
+    from vzero.plugins.report.build import _evaluators
 
     from .conftest import GROUP, KM, VMAX
 

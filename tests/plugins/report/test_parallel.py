@@ -10,8 +10,7 @@ import time
 from pathlib import Path
 
 import pytest
-
-from plugins.report import parallel
+from vzero.plugins.report import parallel
 
 needs_fork = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="forking children needs Linux")
 

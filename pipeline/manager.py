@@ -19,10 +19,9 @@ from pathlib import Path
 from typing import Any
 
 import pluggy
-
-from pipeline import PROJECT, __version__, hookspecs
-from pipeline.errors import PluginError, VzeroError
-from pipeline.registry import Registry, Source
+from vzero import PROJECT, __version__, hookspecs
+from vzero.errors import PluginError, VzeroError
+from vzero.registry import Registry, Source
 
 ENTRY_POINT_GROUP = "vzero.plugins"
 AUTOLOAD_ENV = "VZERO_NO_AUTOLOAD"
