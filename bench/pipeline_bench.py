@@ -89,7 +89,7 @@ def measure_plate(n_wells: int, n_time: int, rates: str, repeat: int) -> dict[st
     import resource
     import tracemalloc
 
-    from vzero import runner
+    from vzero.run import runner
 
     work = Path(tempfile.mkdtemp(prefix="vzero-bench-"))
     try:
@@ -146,7 +146,7 @@ def write_batch(folder: Path, n_plates: int, n_wells: int = 96, n_time: int = 60
 def measure_batch(n_plates: int, jobs: int, folder: str | None = None) -> dict[str, Any]:
     """In this process: ``n_plates`` plates through one recipe with ``jobs`` worker processes (the plates of
     :func:`write_batch` in ``folder`` when given, else written here first)."""
-    from vzero import runner
+    from vzero.run import runner
 
     work = Path(tempfile.mkdtemp(prefix="vzero-bench-"))
     try:

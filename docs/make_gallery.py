@@ -58,7 +58,7 @@ class _Figures(HTMLParser):
 def run_demo(folder: Path) -> Path:
     """Run the demo recipe (with its report step) in ``folder``; return the run folder."""
     from vzero.plugins.demo import write_demo
-    from vzero.runner import run
+    from vzero.run.runner import run
 
     recipe = write_demo(folder / "inputs")
     return run(recipe, folder / "run").out_dir

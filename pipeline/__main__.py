@@ -1,5 +1,5 @@
-"""``python -m pipeline`` is the same as the ``vzero`` command."""
+"""``python -m vzero`` is the same as the ``vzero`` command."""
 
-from vzero.cli import entry
+from vzero.cli.main import entry
 
 entry()

@@ -18,7 +18,7 @@ from __future__ import annotations
 from typing import Any
 
 import pluggy
-from vzero import PROJECT
+from vzero.meta import PROJECT
 
 hookspec = pluggy.HookspecMarker(PROJECT)
 
@@ -92,7 +92,7 @@ def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
 def vzero_before_step(event: Any) -> None:
     """Called before a step runs (once per plate for plate-scoped steps).
 
-    ``event`` is a :class:`vzero.runner.StepEvent` with ``index``, ``kind``, ``method``, ``plate``
+    ``event`` is a :class:`vzero.run.steps.StepEvent` with ``index``, ``kind``, ``method``, ``plate``
     (``None`` for pooled and final steps), ``settings`` and ``run_id``. Return value ignored.
 
     Example::

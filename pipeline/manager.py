@@ -19,8 +19,9 @@ from pathlib import Path
 from typing import Any
 
 import pluggy
-from vzero import PROJECT, __version__, hookspecs
+from vzero import hookspecs
 from vzero.errors import PluginError, VzeroError
+from vzero.meta import PROJECT, __version__
 from vzero.registry import Registry, Source
 
 ENTRY_POINT_GROUP = "vzero.plugins"

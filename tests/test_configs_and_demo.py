@@ -6,10 +6,10 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
-from vzero.cli import main
+from vzero.cli.main import main
 from vzero.plugins.demo import RECIPE
 from vzero.plugins.demo.simulate import TRUTH, layout, simulate
-from vzero.runner import check_recipe
+from vzero.run.runner import check_recipe
 
 ROOT = Path(__file__).parents[1]
 CONFIGS = sorted((ROOT / "configs").glob("*.yaml"))

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 from numpy.testing import assert_allclose
-from vzero.runner import run
+from vzero.run.runner import run
 
 DATA = Path(__file__).parent / "data" / "reference" / "puromycin.csv"
 

@@ -30,7 +30,7 @@ def _configure(p: argparse.ArgumentParser) -> None:
 
 def _run(args: argparse.Namespace) -> int:
     from vzero.plugins.demo.simulate import TRUTH
-    from vzero.runner import run
+    from vzero.run.runner import run
 
     folder = Path(args.out)
     recipe = write_demo(folder / "inputs")

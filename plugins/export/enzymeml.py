@@ -279,7 +279,7 @@ def _fits(fits: Any, measured: str) -> tuple[list[dict[str, Any]], list[dict[str
 
 
 def write_enzymeml(audit: str | Path, target: str | Path) -> None:
-    from vzero import reader
+    from vzero.audit import reader
 
     with reader.open_audit(audit) as f:
         doc = build_document(reader.header(f), reader.read_results(f), reader.read_step_traces(f))

@@ -36,7 +36,7 @@ def flatten(mapping: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
 
 
 def _load(audit: str | Path) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any]]:
-    from vzero import reader
+    from vzero.audit import reader
 
     with reader.open_audit(audit) as f:
         return reader.header(f), reader.read_results(f), reader.read_step_traces(f)

@@ -225,9 +225,8 @@ def _group_enzyme(e: np.ndarray) -> float:
 
 
 def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
-    from vzero.plugins.fit.stage import FitStage
-
-    cfg = {k: p.default for k, p in FitStage.params.items()} | dict(settings)
+    """The fit step's work; ``settings`` are the stage's parameters with every default filled in."""
+    cfg = dict(settings)
     rates = data.artifacts.get("rates")
     if rates is None or not hasattr(rates, "frame"):
         raise FitError("the fit stage found no 'rates' table",

@@ -75,4 +75,4 @@ class FitStage(Stage):
     def run(self, data: StageInput) -> StageOutput:
         from vzero.plugins.fit.run import run_fit
 
-        return run_fit(self.settings, data)
+        return run_fit({k: p.default for k, p in self.params.items()} | self.settings, data)

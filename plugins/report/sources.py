@@ -61,7 +61,7 @@ def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
     """The report input of a running pipeline: the pooled tables and per-plate traces in ``data.artifacts``,
     and the provenance the runner hands final stages in ``data.run`` (recipe text and hash, input hashes,
     step timings so far)."""
-    from vzero import __version__
+    from vzero.meta import __version__
 
     tables = {k: v for k, v in data.artifacts.items() if isinstance(v, Table)}
     traces_in = data.artifacts.get("traces")
@@ -95,7 +95,7 @@ def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
     """The report input stored in an audit file: final tables from /results, the last traces stored per
     plate under /steps, the recipe text and provenance from the file's attributes."""
     import yaml
-    from vzero import reader
+    from vzero.audit import reader
 
     with reader.open_audit(path) as f:
         a = f.attrs

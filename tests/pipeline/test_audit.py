@@ -15,13 +15,13 @@ from pathlib import Path
 import h5py
 import numpy as np
 import pytest
-from vzero import reader
-from vzero.audit import FORMAT_VERSION
-from vzero.cli import main
+from vzero.audit import reader
+from vzero.audit.codec import FORMAT_VERSION
+from vzero.audit.verify import verify
+from vzero.cli.inspect import summary
+from vzero.cli.main import main
 from vzero.errors import AuditFileError
-from vzero.inspect import summary
-from vzero.runner import run
-from vzero.verify import verify
+from vzero.run.runner import run
 
 from tests.conftest import DATA, linear_plate
 

@@ -8,14 +8,14 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
-from vzero import reader
+from vzero.audit import reader
 from vzero.data import Traces
 from vzero.errors import RecipeError
 from vzero.plugins.exclusions import apply_exclusions, apply_overrides, check_items
 from vzero.plugins.rates.window import window_slopes
 from vzero.plugins.tables import rates_table
 from vzero.recipe import parse
-from vzero.runner import run
+from vzero.run.runner import run
 
 from tests.conftest import linear_plate
 

@@ -12,9 +12,9 @@ from pathlib import Path
 
 import numpy as np
 from numpy.testing import assert_allclose
-from vzero import reader
-from vzero.rerun import rerun
-from vzero.verify import verify
+from vzero.audit import reader
+from vzero.audit.verify import verify
+from vzero.run.rerun import rerun
 
 from tests.conftest import DATA
 

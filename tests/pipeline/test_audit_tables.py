@@ -11,7 +11,7 @@ import h5py
 import numpy as np
 import pandas as pd
 import pytest
-from vzero.audit import read_table, table_sha256, write_table
+from vzero.audit.codec import read_table, table_sha256, write_table
 from vzero.data import Table
 
 
@@ -72,7 +72,7 @@ def test_empty_text_column():
 def test_text_of_mixed_and_missing_values():
     """Each value's text is str(value), missing ones "" (pd.isna); equal-hashing values such as 1, 1.0 and
     True keep their own texts (a hash table that merged them would print "1" three times)."""
-    from vzero.audit import text_codes
+    from vzero.audit.codec import text_codes
 
     values = np.array([1, 1.0, True, None, "a", np.nan, pd.NA], dtype=object)
     texts, codes = text_codes(values)
@@ -84,7 +84,7 @@ def test_text_of_mixed_and_missing_values():
 def test_text_of_columns_holding_one_text():
     """A column of one text throughout takes a shortcut; a missing value (None, NaN, pd.NA) or another text
     anywhere in it, first and last rows equal, must still come out row by row."""
-    from vzero.audit import text_codes
+    from vzero.audit.codec import text_codes
 
     for values, expected in [
         (["uM"] * 4, ["uM"] * 4),
@@ -118,7 +118,7 @@ def test_one_text_shortcut_keeps_odd_cells_as_they_are():
     """Between two equal texts, a cell that is not text (an array, a number) keeps its own str() (a review
     found that an array cell comparing equal to the text was taken for that text, and one that did not compare
     at all raised)."""
-    from vzero.audit import text_codes
+    from vzero.audit.codec import text_codes
 
     cells = np.empty(3, dtype=object)
     cells[:] = ["x", None, "x"]

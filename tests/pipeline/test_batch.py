@@ -13,9 +13,9 @@ import h5py
 import numpy as np
 import pandas as pd
 import pytest
-from vzero.cli import main
+from vzero.cli.main import main
 from vzero.errors import RecipeError
-from vzero.runner import run
+from vzero.run.runner import run
 
 STEPS = """\
 steps:
@@ -136,7 +136,7 @@ def test_every_plate_failed_exits_2(tmp_path: Path, capsys):
 def test_missing_data_file_fails_that_plate_only(tmp_path: Path):
     recipe = demo_batch(tmp_path / "in", 3, fit=False)
     # the file disappears after validation (a network share, a file moved): that plate fails, not the run
-    from vzero import runner
+    from vzero.run import runner
 
     real = runner._raw
 
@@ -169,7 +169,7 @@ def test_streamed_plates_are_let_go_once_written(tmp_path: Path, monkeypatch):
     import gc
     import weakref
 
-    from vzero import audit
+    from vzero.audit import codec as audit
     from vzero.data import Traces
 
     alive: list[weakref.ref] = []
@@ -232,7 +232,7 @@ def test_manifest_entry_takes_no_other_keys(tmp_path: Path):
 
 
 def test_table_checksums_written_on_the_fly_match_the_stored_content(tmp_path: Path):
-    from vzero.audit import table_sha256
+    from vzero.audit.codec import table_sha256
 
     recipe = demo_batch(tmp_path / "in", 2)
     result = run(recipe, tmp_path / "out")  # streamed: tables pass through the scratch file and an HDF5 copy

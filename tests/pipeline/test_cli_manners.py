@@ -10,7 +10,7 @@ from pathlib import Path
 from types import SimpleNamespace
 
 import pytest
-from vzero.cli import Progress, build_parser, main
+from vzero.cli.main import Progress, build_parser, main
 from vzero.errors import RecipeError
 
 from tests.pipeline.test_batch import demo_batch
@@ -28,7 +28,7 @@ def _event(done: int, total: int, plate: str = "p", error: str | None = None, st
 
 def test_help_is_quick_and_imports_no_heavy_module():
     # the target is 0.5 s; the margin allows for a loaded test machine (common practice for timing tests)
-    code = ("import sys, time; t = time.perf_counter(); from vzero.cli import main\n"
+    code = ("import sys, time; t = time.perf_counter(); from vzero.cli.main import main\n"
             "try:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
             "heavy = [m for m in ('matplotlib', 'dask', 'distributed', 'openpyxl', 'scipy', 'h5py', 'jinja2')"
             " if m in sys.modules]\nprint(time.perf_counter() - t, heavy, file=sys.stderr)")
@@ -110,19 +110,19 @@ def test_debug_shows_the_traceback_otherwise_one_line(tmp_path: Path, capsys):
 
 
 def test_internal_error_exits_3_with_one_line(monkeypatch, tmp_path: Path, capsys):
-    import vzero.runner
+    import vzero.run.runner
 
     def broken(*args, **kwargs):
         raise ZeroDivisionError("division by zero")
 
-    monkeypatch.setattr(vzero.runner, "check_recipe", broken)
+    monkeypatch.setattr(vzero.run.runner, "check_recipe", broken)
     assert main(["check", str(tmp_path / "r.yaml")]) == 3
     err = capsys.readouterr().err
     assert "internal error (ZeroDivisionError" in err and "--debug" in err and "Traceback" not in err
     assert "output folder" not in err  # check writes no folder, so the message does not speak of one
     with pytest.raises(ZeroDivisionError):
         main(["check", str(tmp_path / "r.yaml"), "--debug"])
-    monkeypatch.setattr(vzero.runner, "run", broken)
+    monkeypatch.setattr(vzero.run.runner, "run", broken)
     assert main(["run", str(tmp_path / "r.yaml"), "--out", str(tmp_path / "out")]) == 3
     assert "nothing was written to the output folder" in capsys.readouterr().err
 

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from vzero.outputs import csv_text
+from vzero.run.outputs import csv_text
 
 
 def test_same_text_as_pandas_for_every_column_type():
@@ -58,8 +58,8 @@ def test_tables_written_in_pieces_by_workers(tmp_path):
     later step is not used (the new one is written instead) and no piece is left in the folder."""
     from concurrent.futures import ThreadPoolExecutor
 
-    from vzero import outputs
     from vzero.data import Table
+    from vzero.run import outputs
 
     class Pool:  # the executor interface, on threads
         workers, shares_disk = 2, True
@@ -105,7 +105,7 @@ def test_tables_written_in_pieces_by_workers(tmp_path):
 def test_large_tables_are_written_a_block_of_rows_at_a_time(tmp_path, monkeypatch):
     """write_csv formats a block of rows at a time (bounded memory); the file is pandas' text all the same, also
     for a table left to pandas (a date column) and for a table without rows."""
-    from vzero import outputs
+    from vzero.run import outputs
 
     monkeypatch.setattr(outputs, "CSV_BLOCK_ROWS", 3)
     frames = [pd.DataFrame({"x": np.arange(10) / 3, "w": ["a,b", None, "c"] * 3 + ["d"]}),

@@ -8,9 +8,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from numpy.testing import assert_allclose
-from vzero.cli import main
-from vzero.diff import compare, compare_parameters, recipe_diff, relative_change
-from vzero.runner import run
+from vzero.cli.diff import compare, compare_parameters, recipe_diff, relative_change
+from vzero.cli.main import main
+from vzero.run.runner import run
 
 from tests.conftest import linear_plate
 

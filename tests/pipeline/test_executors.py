@@ -11,8 +11,8 @@ from typing import Any
 import pandas as pd
 import pytest
 from vzero.errors import VzeroError
-from vzero.executors import PlateTask, make_executor, ordered
-from vzero.runner import run
+from vzero.run.executors import PlateTask, make_executor, ordered
+from vzero.run.runner import run
 
 from tests.pipeline.test_batch import assert_same_h5, demo_batch
 
@@ -36,7 +36,7 @@ def test_process_pool_matches_serial_to_the_bit(tmp_path: Path):
 @pytest.mark.slow
 def test_dask_local_cluster_of_two_processes_matches_serial(tmp_path: Path):
     pytest.importorskip("distributed")
-    from vzero.executors import DaskExecutor
+    from vzero.run.executors import DaskExecutor
 
     recipe = demo_batch(tmp_path / "in", 4)
     serial = run(recipe, tmp_path / "serial")
@@ -121,7 +121,7 @@ def test_jobs_must_be_positive_and_python_plugins_stay_local(tmp_path: Path):
 
 def test_unreachable_scheduler_is_one_clear_error():
     pytest.importorskip("distributed")
-    from vzero.executors import DaskExecutor
+    from vzero.run.executors import DaskExecutor
 
     with pytest.raises(VzeroError, match="cannot reach the Dask scheduler"):
         DaskExecutor("tcp://127.0.0.1:9", timeout="1s")
@@ -180,7 +180,7 @@ def test_csv_files_written_in_pieces_by_the_pool_match_serial(tmp_path: Path, mo
     """With a process pool, large tables' CSV files are written by the workers, split by rows (the stacked
     rates as soon as the plates are in, while the driver fits); the files are the serial run's, byte for byte,
     also when the pool closes early for a report, and no piece is left in the run folder."""
-    from vzero import outputs
+    from vzero.run import outputs
 
     recipe = demo_batch(tmp_path / "in", 3)
     if report:

@@ -9,11 +9,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
-from vzero import reader
-from vzero.cli import main
+from vzero.audit import reader
+from vzero.cli.main import main
 from vzero.errors import PluginError, RecipeError
-from vzero.rerun import StoredInputs, rerun
-from vzero.runner import run
+from vzero.run.rerun import StoredInputs, rerun
+from vzero.run.runner import run
 
 from tests.conftest import DATA, linear_plate
 

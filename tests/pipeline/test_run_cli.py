@@ -10,9 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
-from vzero.cli import main
-from vzero.reader import open_audit, read_table
-from vzero.runner import run
+from vzero.audit.reader import open_audit, read_table
+from vzero.cli.main import main
+from vzero.run.runner import run
 
 from tests.conftest import DATA, linear_plate
 
@@ -120,7 +120,7 @@ def test_plugins_command_lists_sources(capsys):
 
 
 def test_every_command_has_help_with_an_example(capsys):
-    from vzero.cli import build_parser
+    from vzero.cli.main import build_parser
 
     parser = build_parser()
     sub = next(a for a in parser._actions if a.dest == "command")

@@ -6,10 +6,10 @@ from pathlib import Path
 
 import pytest
 from vzero import hookimpl
-from vzero.cli import Commands
+from vzero.cli.main import Commands
 from vzero.errors import StageError
 from vzero.manager import make_manager
-from vzero.runner import run
+from vzero.run.runner import run
 
 from tests.conftest import linear_plate
 

@@ -8,8 +8,8 @@ from pathlib import Path
 
 import h5py
 import pytest
-from vzero.cli import main
-from vzero.verify import verify
+from vzero.audit.verify import verify
+from vzero.cli.main import main
 
 from tests.conftest import DATA
 

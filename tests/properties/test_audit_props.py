@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from vzero.audit import read_table, table_sha256, write_table
+from vzero.audit.codec import read_table, table_sha256, write_table
 from vzero.data import Table
 
 floats = st.floats(allow_nan=True, allow_infinity=True, width=64)

@@ -9,7 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from vzero import units
-from vzero.audit import read_table, write_table
+from vzero.audit.codec import read_table, write_table
 from vzero.data import Table, Traces
 from vzero.plugins.blank import MeanBlank
 from vzero.stage import StageInput

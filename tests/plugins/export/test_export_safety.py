@@ -8,7 +8,7 @@ import openpyxl
 import pytest
 from vzero.plugins.export.enzymeml import _celsius
 from vzero.plugins.export.tables import write_xlsx
-from vzero.runner import run
+from vzero.run.runner import run
 
 from tests.conftest import linear_plate
 

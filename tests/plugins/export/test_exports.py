@@ -11,11 +11,11 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
-from vzero import reader
-from vzero.cli import main
+from vzero.audit import reader
+from vzero.cli.main import main
 from vzero.plugins.export import export
 from vzero.plugins.export.enzymeml import unit_definition
-from vzero.runner import run
+from vzero.run.runner import run
 
 from tests.conftest import DATA, linear_plate
 

@@ -122,7 +122,7 @@ def write_files(folder: Path, files: dict[str, bytes]) -> Path:
 @pytest.fixture(scope="session")
 def finished_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """A finished run (import, blank, rates, report; no fit) of the shared linear test plate."""
-    from vzero.runner import run
+    from vzero.run.runner import run
 
     from tests.conftest import linear_plate
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from vzero.cli import main
+from vzero.cli.main import main
 
 
 def test_the_step_writes_the_report_and_figures(finished_run: Path):

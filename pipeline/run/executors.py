@@ -60,11 +60,11 @@ class Executor(Protocol):
 
 
 def run_plate_task(task: PlateTask) -> Any:
-    """Run one plate's plate-scoped steps in a worker (returns a :class:`vzero.runner.PlateOutcome`).
+    """Run one plate's plate-scoped steps in a worker (returns a :class:`vzero.run.steps.PlateOutcome`).
 
     A problem with the recipe or plugins in the worker becomes the plate's error, like a bad input file.
     """
-    from vzero.runner import PlateOutcome, process_plate
+    from vzero.run.steps import PlateOutcome, process_plate
 
     try:
         rec, plugins, steps = _worker_setup(task.recipe_text, task.recipe_path)
@@ -85,7 +85,7 @@ def run_plate_task(task: PlateTask) -> Any:
 def _pack(outcome: Any) -> None:
     """Write the plate's step outputs into an in-memory HDF5 part here, in the worker, and keep only the
     tables: encoding the arrays is most of the audit file's cost, and this way it runs in parallel."""
-    from vzero.audit import write_part
+    from vzero.audit.writer import write_part
     from vzero.data import Table
 
     final = outcome.artifacts.get("traces")
@@ -137,7 +137,7 @@ class PoolExecutor:
         half a second of CPU on the same imports. Call before opening the audit file (a forked worker then
         holds no open HDF5 file)."""
         if self._context.get_start_method() == "fork":
-            import vzero.audit  # noqa: F401  (h5py and the part writer)
+            import vzero.audit.writer  # noqa: F401  (h5py and the part writer)
 
             try:
                 _worker_setup(recipe_text, recipe_path)
@@ -265,7 +265,7 @@ class TracesOnDisk(Mapping[str, Any]):
         self._h5, self._paths = h5, dict(paths)
 
     def __getitem__(self, plate: str) -> Any:
-        from vzero.audit import read_traces
+        from vzero.audit.codec import read_traces
 
         return read_traces(self._h5[self._paths[plate]])
 

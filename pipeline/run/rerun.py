@@ -15,7 +15,6 @@ its stored sha256.
 
 from __future__ import annotations
 
-import argparse
 import fnmatch
 import hashlib
 from collections.abc import Mapping
@@ -23,20 +22,17 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-HELP = "Reprocess the raw inputs stored in an audit file with a new or the stored recipe."
-EXAMPLE = "vzero rerun runs/2024-03/run.h5 --recipe new-window.yaml --out runs/2024-03-rerun"
-
 
 @dataclass
 class StoredInputs:
-    """An :class:`vzero.runner.InputSource` over the raw inputs of an audit file, by their stored names."""
+    """An :class:`vzero.run.runner.InputSource` over the raw inputs of an audit file, by their stored names."""
 
     files: dict[str, bytes] = field(default_factory=dict)
     origin: str = ""
 
     @classmethod
     def from_audit(cls, path: str | Path) -> StoredInputs:
-        from vzero import reader
+        from vzero.audit import reader
 
         with reader.open_audit(path) as f:
             stored = reader.read_inputs(f)
@@ -110,10 +106,10 @@ def rerun(
     ``plugin_dir`` is where local plugin files named by the stored recipe are looked for (default: the
     folder of the original recipe, as recorded); for a new recipe they are relative to that recipe.
     """
-    from vzero import reader
+    from vzero.audit import reader
     from vzero.errors import AuditFileError, PluginError, RecipeError
     from vzero.recipe import load, parse
-    from vzero.runner import run
+    from vzero.run.runner import run
 
     with reader.open_audit(old) as f:
         head = reader.header(f)
@@ -153,25 +149,3 @@ def rerun(
             raise RecipeError(exc.problems, hint=f"A rerun reads only the inputs stored in {old}: "
                               f"{', '.join(source.files)}. Refer to them by these names.") from None
         raise
-
-
-def configure(p: argparse.ArgumentParser) -> None:
-    p.add_argument("old", help="the audit file (run.h5) whose stored inputs are reprocessed")
-    p.add_argument("--recipe", help="the new recipe (default: the recipe stored in the old file)")
-    p.add_argument("--out", "-o", required=True, help="folder for the new run.h5 and tables")
-    p.add_argument("--force", action="store_true", help="replace an existing run in --out")
-    p.add_argument("--plugin-dir", help="where the local plugin files named by the recipe are")
-    p.add_argument("--allow-changed-plugins", action="store_true",
-                   help="run local plugins whose code differs from the old run's (recorded in the new file)")
-    p.add_argument("--allow-stored-plugins", action="store_true",
-                   help="let the stored recipe load the plugins it names (their code runs on this machine)")
-
-
-def run(args: argparse.Namespace) -> int:
-    from vzero.cli import _report_result
-
-    result = rerun(args.old, args.out, recipe=args.recipe, plugin_dir=args.plugin_dir,
-                   allow_changed_plugins=args.allow_changed_plugins,
-                   allow_stored_plugins=args.allow_stored_plugins, force=args.force)
-    _report_result(args, result)
-    return int(result.exit_code)

@@ -14,8 +14,9 @@ from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from vzero import __version__
+from vzero.cli.say import Progress, report_result, say
 from vzero.errors import VzeroError
+from vzero.meta import __version__
 
 EPILOG = """exit codes: 0 success; 1 finished with failed wells or plates; 2 bad recipe or input;
 3 internal error (--debug shows the traceback). Set NO_COLOR to turn colour off.
@@ -50,11 +51,6 @@ class Commands:
         self.items[name] = Command(name, help, configure, run, example)
 
 
-def _say(args: argparse.Namespace, text: str) -> None:
-    if not getattr(args, "quiet", False):
-        print(text)
-
-
 # -- core commands ---------------------------------------------------------------------------------------
 
 
@@ -80,7 +76,7 @@ def _positive(text: str) -> int:
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
-    from vzero.runner import run
+    from vzero.run.runner import run
 
     shown = Progress(verbose=args.verbose, quiet=args.quiet)
     try:
@@ -88,72 +84,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
                      scheduler=args.scheduler)
     finally:
         shown.finish()
-    _report_result(args, result)
+    report_result(args, result)
     return result.exit_code
-
-
-class Progress:
-    """Progress of a run on stderr: a bar redrawn in place on a terminal for batches and for the pooled
-    steps (fits, report) of any run, one line per plate
-    with ``-v``, nothing with ``-q`` or when stderr is not a terminal (unless ``-v``). Colour only on a
-    terminal and never when ``NO_COLOR`` is set (https://no-color.org)."""
-
-    def __init__(self, *, verbose: bool = False, quiet: bool = False, stream: Any = None) -> None:
-        self.stream = stream or sys.stderr
-        tty = bool(getattr(self.stream, "isatty", lambda: False)())
-        self.verbose = verbose and not quiet
-        self.bar = tty and not quiet and not verbose
-        self.colour = tty and not os.environ.get("NO_COLOR")
-        self.failed = 0
-        self._drawn = False
-
-    def __call__(self, event: Any) -> None:
-        if event.error:
-            self.failed += 1
-        if self.verbose:
-            if event.plate:
-                state = self._red("failed: " + event.error.splitlines()[0]) if event.error else "done"
-                print(f"  [{event.done}/{event.total}] plate {event.plate} {state} ({event.seconds:.1f} s)",
-                      file=self.stream)
-            elif event.step:
-                print(f"  {event.step} on the pooled plates ({event.seconds:.1f} s)", file=self.stream)
-        elif self.bar and (event.total > 1 or event.step):  # batches, and long pooled steps such as fits
-            width = 30
-            filled = width * event.done // event.total
-            failed = f"  {self._red(f'{self.failed} failed')}" if self.failed else ""
-            what = f"  {event.step}" if event.step else ""
-            line = f"\r  [{'#' * filled}{'.' * (width - filled)}] {event.done}/{event.total} plates{failed}" \
-                   f"  {event.seconds:.0f} s{what}\x1b[K"
-            self.stream.write(line)
-            self.stream.flush()
-            self._drawn = True
-
-    def _red(self, text: str) -> str:
-        return f"\x1b[31m{text}\x1b[0m" if self.colour else text
-
-    def finish(self) -> None:
-        if self._drawn:
-            self.stream.write("\n")
-            self.stream.flush()
-            self._drawn = False
-
-
-def _report_result(args: argparse.Namespace, result: Any) -> None:
-    rates = result.rates
-    written = sorted(p.name + ("/" if p.is_dir() else "") for p in result.out_dir.iterdir())
-    _say(args, f"wrote {result.out_dir}/: {', '.join(written)}")
-    if len(rates):
-        flagged = int((rates.get("flags", "").astype(str) != "").sum()) if "flags" in rates else 0
-        _say(args, f"{len(rates)} wells, {flagged} flagged")
-    for w in result.warnings[: 20 if args.verbose else 5]:
-        _say(args, f"warning: {w}")
-    if len(result.warnings) > 5 and not args.verbose:
-        _say(args, f"... {len(result.warnings) - 5} more warnings (vzero inspect {result.audit_path})")
-    for plate, err in result.failed.items():
-        print(f"plate {plate} failed: {err}", file=sys.stderr)
-    if result.failed_items:
-        shown = ", ".join(result.failed_items[:10]) + (", ..." if len(result.failed_items) > 10 else "")
-        print(f"{len(result.failed_items)} well(s) without a result: {shown} (see rates.csv flags)", file=sys.stderr)
 
 
 def _cfg_check(p: argparse.ArgumentParser) -> None:
@@ -161,10 +93,10 @@ def _cfg_check(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from vzero.runner import check_recipe
+    from vzero.run.runner import check_recipe
 
     rec = check_recipe(args.recipe)
-    _say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps: "
+    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps: "
                + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ")")
     return 0
 
@@ -208,7 +140,7 @@ def _cfg_inspect(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_inspect(args: argparse.Namespace) -> int:
-    from vzero.inspect import summary
+    from vzero.cli.inspect import summary
 
     print(summary(args.audit))
     return 0
@@ -228,9 +160,9 @@ CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[
 #: Core commands that live in their own modules. Each module defines HELP, EXAMPLE, configure(parser) and
 #: run(args) -> int, and keeps its top-level imports light.
 COMMAND_MODULES: tuple[tuple[str, str], ...] = (
-    ("rerun", "vzero.rerun"),
-    ("diff", "vzero.diff"),
-    ("verify", "vzero.verify"),
+    ("rerun", "vzero.cli.rerun"),
+    ("diff", "vzero.cli.diff"),
+    ("verify", "vzero.cli.verify"),
 )
 
 

@@ -11,14 +11,10 @@ not signatures).
 
 from __future__ import annotations
 
-import argparse
 import hashlib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
-
-HELP = "Recompute every hash in an audit file (inputs, recipe, tables) and report tampering or damage."
-EXAMPLE = "vzero verify runs/today/run.h5"
 
 
 @dataclass
@@ -44,7 +40,7 @@ class Report:
 def verify(path: str | Path) -> Report:
     """Check every stored hash of the audit file at ``path``. Raises :class:`AuditFileError` only when the
     file cannot be opened as an audit file at all; everything else is a problem in the report."""
-    from vzero import reader
+    from vzero.audit import reader
 
     report = Report(str(path))
     with reader.open_audit(path) as f:
@@ -91,7 +87,7 @@ def _check_inputs(f: Any, report: Report) -> None:
 
 
 def _check_tables(f: Any, report: Report) -> None:
-    from vzero.reader import table_sha256
+    from vzero.audit.reader import table_sha256
 
     tables: list[tuple[str, Any]] = []
 
@@ -128,29 +124,3 @@ def _read_everything(f: Any, report: Report) -> None:
                 report.problems.append(f"dataset /{name}: unreadable ({type(exc).__name__}: {exc})")
 
     f.visititems(visit)
-
-
-def configure(p: argparse.ArgumentParser) -> None:
-    p.add_argument("audit", nargs="+", help="audit files (run.h5) to check")
-
-
-def run(args: argparse.Namespace) -> int:
-    import sys
-
-    from vzero.errors import AuditFileError
-
-    worst = 0
-    for path in args.audit:
-        try:
-            report = verify(path)
-        except AuditFileError as exc:
-            print(f"{path}: DAMAGED OR NOT AN AUDIT FILE: {exc}", file=sys.stderr)
-            worst = 2
-            continue
-        if report.ok:
-            if not args.quiet:
-                print(report.text())
-        else:
-            print(report.text(), file=sys.stderr)
-            worst = 2
-    return worst

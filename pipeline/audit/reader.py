@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from vzero.audit import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces, table_sha256
+from vzero.audit.codec import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces, table_sha256
 from vzero.data import Table
 from vzero.errors import AuditFileError
 

@@ -58,7 +58,7 @@ def strenda_check(assay: Mapping[str, Any], rates_columns: list[str], steps: lis
 
 def summary(path: str | Path, *, max_wells: int = 50) -> str:
     """Provenance, inputs, steps with timings and warnings, exclusions, flagged wells and parameters, as text."""
-    from vzero import reader
+    from vzero.audit import reader
 
     with reader.open_audit(path) as f:
         head = reader.header(f)
@@ -122,7 +122,7 @@ def summary(path: str | Path, *, max_wells: int = 50) -> str:
 
 
 def _inputs_meta(f: Any) -> list[tuple[str, int, str, list[str]]]:
-    from vzero.reader import json_attr
+    from vzero.audit.reader import json_attr
 
     out = []
     for ds in f["inputs"].values():

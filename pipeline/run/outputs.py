@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Table
-from vzero.executors import Executor
+from vzero.run.executors import Executor
 
 #: Final tables with at least this many rows are written to CSV by worker processes when the run has a local
 #: process pool, split by rows into pieces of at least half as many rows, one piece per worker at most.
@@ -200,7 +200,7 @@ def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
     import csv
     import io
 
-    from vzero.audit import text_codes
+    from vzero.audit.codec import text_codes
     from vzero.data import columns as data_columns
     from vzero.data import values_as
 

@@ -152,7 +152,7 @@ def _sort(m: pd.DataFrame) -> pd.DataFrame:
 def compare(path_a: str | Path, path_b: str | Path) -> dict[str, Any]:
     """Read two audit files and compare them: ``recipe_diff`` (text), ``wells`` and ``parameters`` (tables)."""
     import pandas as pd
-    from vzero import reader
+    from vzero.audit import reader
 
     found: list[dict[str, Any]] = []
     for p in (path_a, path_b):

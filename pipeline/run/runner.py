@@ -6,7 +6,6 @@ Use :func:`run` from Python (it returns the tables as DataFrames) or ``vzero run
 
 from __future__ import annotations
 
-import datetime as _dt
 import hashlib
 import os
 import shutil
@@ -21,11 +20,12 @@ from typing import Any, Protocol
 import pandas as pd
 from vzero.data import Table, Traces
 from vzero.errors import InputFileError, OutputExistsError, StageError, VzeroError
-from vzero.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
 from vzero.manager import Plugins, make_manager
-from vzero.outputs import CsvInWorkers, write_outputs
 from vzero.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
-from vzero.stage import RawInput, StageInput, StageOutput
+from vzero.run.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
+from vzero.run.outputs import CsvInWorkers, write_outputs
+from vzero.run.steps import PlateOutcome, StepRecord, process_plate, run_step, utc_now
+from vzero.stage import RawInput
 
 
 class InputSource(Protocol):
@@ -57,49 +57,6 @@ class DiskInputs:
         import glob
 
         return sorted(str(Path(p).relative_to(self.base)) for p in glob.glob(str(self.base / pattern)))
-
-
-@dataclass
-class StepEvent:
-    """The context object handed to the run-event hooks (new information arrives as new attributes)."""
-
-    run_id: str
-    index: int
-    kind: str
-    method: str
-    plate: str | None
-    settings: Mapping[str, Any]
-    seconds: float | None = None
-    output: StageOutput | None = None
-    error: BaseException | None = None
-
-
-@dataclass
-class StepRecord:
-    """What the audit file keeps of one step on one plate (or pooled)."""
-
-    spec: StepSpec
-    plate: str | None
-    started: str
-    seconds: float
-    warnings: list[str]
-    outputs: dict[str, Any]
-    failed: list[str] = field(default_factory=list)
-
-
-@dataclass
-class PlateOutcome:
-    """One plate's result from the plate-scoped steps. A worker process sends the step outputs back already
-    written as an in-memory HDF5 file (``part``; ``part_traces`` names the step whose traces are final)
-    and keeps in ``artifacts`` only the tables the pooled steps stack."""
-
-    plate: str
-    artifacts: dict[str, Any] = field(default_factory=dict)
-    records: list[StepRecord] = field(default_factory=list)
-    warnings: list[str] = field(default_factory=list)
-    error: str | None = None
-    part: bytes | None = None
-    part_traces: str | None = None
 
 
 @dataclass
@@ -197,7 +154,7 @@ def run(
     out_dir = Path(out)
     _check_output_folder(out_dir, force, rec)
     t_start = time.perf_counter()
-    started = _utc_now()
+    started = utc_now()
     run_id = uuid.uuid4().hex
     warnings: list[str] = []
     plate_steps = [s for s in rec.steps if _scope(plugins, s) == "plate"]
@@ -217,7 +174,7 @@ def run(
         import threading
 
         threading.Thread(target=_warm_imports, daemon=True).start()
-    from vzero.audit import AuditWriter
+    from vzero.audit.writer import AuditWriter
 
     tmp = _temporary_folder(out_dir)
     writer: AuditWriter | None = None
@@ -259,7 +216,7 @@ def run(
                 progress(Progress(len(outcomes), total, step=f"{spec.kind}:{spec.method}",
                                   seconds=time.perf_counter() - t_start))
             info = _run_info(rec, plugins, run_id, started, store, records, warnings, failed)
-            output, record = _run_step(spec, plugins, None, pooled, {}, rec, run_id, info)
+            output, record = run_step(spec, plugins, None, pooled, {}, rec, run_id, info)
             warnings.extend(record.warnings)
             pooled.update(output.artifacts)
             files.update(output.files)
@@ -352,32 +309,6 @@ def _map_plates(
     yield from ordered(executor, run_plate_task, tasks(), window=2 * executor.workers)
 
 
-def process_plate(
-    plate: PlateSpec,
-    raws: Mapping[str, RawInput],
-    rec: Recipe,
-    plugins: Plugins,
-    steps: list[StepSpec],
-    run_id: str,
-) -> PlateOutcome:
-    """Run the plate-scoped steps on one plate. A :class:`VzeroError` becomes the plate's error; the batch
-    goes on with the other plates."""
-    outcome = PlateOutcome(plate.name)
-    artifacts: dict[str, Any] = {}
-    for spec in steps:
-        try:
-            output, record = _run_step(spec, plugins, plate, artifacts, raws, rec, run_id)
-        except VzeroError as exc:
-            outcome.error = str(exc)
-            outcome.artifacts = {"exception": exc}
-            return outcome
-        artifacts.update(output.artifacts)
-        outcome.records.append(record)
-        outcome.warnings.extend(record.warnings)
-    outcome.artifacts = artifacts
-    return outcome
-
-
 def _reraise(outcome: PlateOutcome) -> BaseException:
     exc = outcome.artifacts.get("exception")
     return exc if isinstance(exc, BaseException) else StageError(outcome.error or "plate failed")
@@ -390,59 +321,6 @@ def _scope(plugins: Plugins, spec: StepSpec) -> str:
 def _raw(source: InputSource, key: str, rel: str) -> RawInput:
     data = source.read(rel)
     return RawInput(key=key, name=rel, data=data, sha256=hashlib.sha256(data).hexdigest())
-
-
-def _run_step(
-    spec: StepSpec,
-    plugins: Plugins,
-    plate: PlateSpec | None,
-    artifacts: Mapping[str, Any],
-    raws: Mapping[str, RawInput],
-    rec: Recipe,
-    run_id: str,
-    run_info: Mapping[str, Any] | None = None,
-) -> tuple[StageOutput, StepRecord]:
-    entry = plugins.registry.get(spec.kind, spec.method)
-    stage = entry.component(**spec.settings)
-    step_warnings: list[str] = []
-    plate_info = {"name": plate.name, "files": dict(plate.files)} if plate else None
-    event = StepEvent(run_id, spec.index, spec.kind, spec.method, plate.name if plate else None, spec.settings)
-    plugins.hook.vzero_before_step(event=event)
-    started = _utc_now()
-    t0 = time.perf_counter()
-    data = StageInput(
-        artifacts=dict(artifacts), plate=plate_info, inputs=dict(raws), recipe=rec.data,
-        registry=plugins.registry, warn=step_warnings.append, run=dict(run_info or {}),
-    )
-    try:
-        output = stage.run(data)
-    except VzeroError as exc:
-        event.error = exc
-        plugins.hook.vzero_step_error(event=event)
-        where = f"step {spec.index} ({spec.kind}: {spec.method})"
-        exc.args = (f"{where}: {exc}",)
-        raise
-    except Exception as exc:
-        event.error = exc
-        plugins.hook.vzero_step_error(event=event)
-        src = entry.source
-        raise StageError(
-            f"step {spec.index} ({spec.kind}: {spec.method}, from {src.describe()}) failed"
-            + (f" on plate {plate.name}" if plate else "") + f": {type(exc).__name__}: {exc}",
-            hint="This is a bug in that stage method; run with --debug for the traceback and report it.",
-        ) from exc
-    if not isinstance(output, StageOutput):
-        raise StageError(
-            f"step {spec.index} ({spec.kind}: {spec.method}, from {entry.source.describe()}) returned "
-            f"{type(output).__name__}, not a StageOutput; fix the plugin"
-        )
-    seconds = time.perf_counter() - t0
-    event.seconds, event.output = seconds, output
-    plugins.hook.vzero_after_step(event=event)
-    outputs = {**output.artifacts, **output.record}
-    prefix = f"{plate.name} " if plate else ""
-    return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs,
-                              [prefix + str(item) for item in output.failed])
 
 
 def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[str, Any]:
@@ -469,10 +347,6 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
         pooled[name] = Table.concat(tables)
     pooled["traces"] = traces
     return pooled
-
-
-def _utc_now() -> str:
-    return _dt.datetime.now(_dt.UTC).isoformat(timespec="milliseconds")
 
 
 def _check_output_folder(out_dir: Path, force: bool, rec: Recipe) -> None:
@@ -508,7 +382,7 @@ def _is_vzero_run(folder: Path) -> bool:
         import h5py
 
         with h5py.File(target, "r") as f:
-            from vzero.audit import FORMAT_NAME
+            from vzero.audit.codec import FORMAT_NAME
 
             return bool(f.attrs.get("format") == FORMAT_NAME)
     except OSError:

@@ -1,0 +1,31 @@
+"""``vzero rerun``: the command; the work is :func:`vzero.run.rerun.rerun`."""
+
+from __future__ import annotations
+
+import argparse
+
+from vzero.cli.say import report_result
+from vzero.run.rerun import rerun
+
+HELP = "Reprocess the raw inputs stored in an audit file with a new or the stored recipe."
+EXAMPLE = "vzero rerun runs/2024-03/run.h5 --recipe new-window.yaml --out runs/2024-03-rerun"
+
+
+def configure(p: argparse.ArgumentParser) -> None:
+    p.add_argument("old", help="the audit file (run.h5) whose stored inputs are reprocessed")
+    p.add_argument("--recipe", help="the new recipe (default: the recipe stored in the old file)")
+    p.add_argument("--out", "-o", required=True, help="folder for the new run.h5 and tables")
+    p.add_argument("--force", action="store_true", help="replace an existing run in --out")
+    p.add_argument("--plugin-dir", help="where the local plugin files named by the recipe are")
+    p.add_argument("--allow-changed-plugins", action="store_true",
+                   help="run local plugins whose code differs from the old run's (recorded in the new file)")
+    p.add_argument("--allow-stored-plugins", action="store_true",
+                   help="let the stored recipe load the plugins it names (their code runs on this machine)")
+
+
+def run(args: argparse.Namespace) -> int:
+    result = rerun(args.old, args.out, recipe=args.recipe, plugin_dir=args.plugin_dir,
+                   allow_changed_plugins=args.allow_changed_plugins,
+                   allow_stored_plugins=args.allow_stored_plugins, force=args.force)
+    report_result(args, result)
+    return int(result.exit_code)

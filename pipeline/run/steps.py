@@ -1,0 +1,144 @@
+"""One step on one plate (or on the pooled tables): the stage call, its run events and its record.
+
+Shared by the driver (:mod:`vzero.run.runner`) and the worker processes (:mod:`vzero.run.executors`), which
+is why it lives apart from both.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import time
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+from vzero.errors import StageError, VzeroError
+from vzero.manager import Plugins
+from vzero.recipe import PlateSpec, Recipe, StepSpec
+from vzero.stage import RawInput, StageInput, StageOutput
+
+
+@dataclass
+class StepEvent:
+    """The context object handed to the run-event hooks (new information arrives as new attributes)."""
+
+    run_id: str
+    index: int
+    kind: str
+    method: str
+    plate: str | None
+    settings: Mapping[str, Any]
+    seconds: float | None = None
+    output: StageOutput | None = None
+    error: BaseException | None = None
+
+
+@dataclass
+class StepRecord:
+    """What the audit file keeps of one step on one plate (or pooled)."""
+
+    spec: StepSpec
+    plate: str | None
+    started: str
+    seconds: float
+    warnings: list[str]
+    outputs: dict[str, Any]
+    failed: list[str] = field(default_factory=list)
+
+
+@dataclass
+class PlateOutcome:
+    """One plate's result from the plate-scoped steps. A worker process sends the step outputs back already
+    written as an in-memory HDF5 file (``part``; ``part_traces`` names the step whose traces are final)
+    and keeps in ``artifacts`` only the tables the pooled steps stack."""
+
+    plate: str
+    artifacts: dict[str, Any] = field(default_factory=dict)
+    records: list[StepRecord] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    error: str | None = None
+    part: bytes | None = None
+    part_traces: str | None = None
+
+
+def process_plate(
+    plate: PlateSpec,
+    raws: Mapping[str, RawInput],
+    rec: Recipe,
+    plugins: Plugins,
+    steps: list[StepSpec],
+    run_id: str,
+) -> PlateOutcome:
+    """Run the plate-scoped steps on one plate. A :class:`VzeroError` becomes the plate's error; the batch
+    goes on with the other plates."""
+    outcome = PlateOutcome(plate.name)
+    artifacts: dict[str, Any] = {}
+    for spec in steps:
+        try:
+            output, record = run_step(spec, plugins, plate, artifacts, raws, rec, run_id)
+        except VzeroError as exc:
+            outcome.error = str(exc)
+            outcome.artifacts = {"exception": exc}
+            return outcome
+        artifacts.update(output.artifacts)
+        outcome.records.append(record)
+        outcome.warnings.extend(record.warnings)
+    outcome.artifacts = artifacts
+    return outcome
+
+
+def run_step(
+    spec: StepSpec,
+    plugins: Plugins,
+    plate: PlateSpec | None,
+    artifacts: Mapping[str, Any],
+    raws: Mapping[str, RawInput],
+    rec: Recipe,
+    run_id: str,
+    run_info: Mapping[str, Any] | None = None,
+) -> tuple[StageOutput, StepRecord]:
+    entry = plugins.registry.get(spec.kind, spec.method)
+    stage = entry.component(**spec.settings)
+    step_warnings: list[str] = []
+    plate_info = {"name": plate.name, "files": dict(plate.files)} if plate else None
+    event = StepEvent(run_id, spec.index, spec.kind, spec.method, plate.name if plate else None, spec.settings)
+    plugins.hook.vzero_before_step(event=event)
+    started = utc_now()
+    t0 = time.perf_counter()
+    data = StageInput(
+        artifacts=dict(artifacts), plate=plate_info, inputs=dict(raws), recipe=rec.data,
+        registry=plugins.registry, warn=step_warnings.append, run=dict(run_info or {}),
+    )
+    try:
+        output = stage.run(data)
+    except VzeroError as exc:
+        event.error = exc
+        plugins.hook.vzero_step_error(event=event)
+        where = f"step {spec.index} ({spec.kind}: {spec.method})"
+        exc.args = (f"{where}: {exc}",)
+        raise
+    except Exception as exc:
+        event.error = exc
+        plugins.hook.vzero_step_error(event=event)
+        src = entry.source
+        raise StageError(
+            f"step {spec.index} ({spec.kind}: {spec.method}, from {src.describe()}) failed"
+            + (f" on plate {plate.name}" if plate else "") + f": {type(exc).__name__}: {exc}",
+            hint="This is a bug in that stage method; run with --debug for the traceback and report it.",
+        ) from exc
+    if not isinstance(output, StageOutput):
+        raise StageError(
+            f"step {spec.index} ({spec.kind}: {spec.method}, from {entry.source.describe()}) returned "
+            f"{type(output).__name__}, not a StageOutput; fix the plugin"
+        )
+    seconds = time.perf_counter() - t0
+    event.seconds, event.output = seconds, output
+    plugins.hook.vzero_after_step(event=event)
+    outputs = {**output.artifacts, **output.record}
+    prefix = f"{plate.name} " if plate else ""
+    return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs,
+                              [prefix + str(item) for item in output.failed])
+
+
+def utc_now() -> str:
+    return _dt.datetime.now(_dt.UTC).isoformat(timespec="milliseconds")
