@@ -119,7 +119,7 @@ class BeerLambert(Stage):
                                  hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
         import io
 
-        from vzero.plugins.importers.wells import normalise_well
+        from vzero.plugins.kinetics.wells import normalise_well
 
         try:
             reads = pd.read_csv(io.BytesIO(raw.data))

@@ -1,0 +1,157 @@
+"""The stage contract: framework-owned bases apply the recipe's rules to every method, and the runner checks
+each step's output against its kind's schema, naming the plugin that broke it (docs/schemas.md)."""
+
+from __future__ import annotations
+
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from vzero.errors import PluginError, StageError
+from vzero.manager import make_manager
+from vzero.plugins.kinetics import RateMethod, flags
+from vzero.plugins.kinetics.schemas import SCHEMAS
+from vzero.run.runner import run
+from vzero.schema import describe
+
+from tests.conftest import DATA, linear_plate
+
+ROOT = Path(__file__).resolve().parents[3]
+
+
+def _lab_recipe(tmp_path: Path, extra: str = "") -> Path:
+    recipe = linear_plate(tmp_path / "in")
+    (tmp_path / "in" / "lab_rates.py").write_bytes((DATA / "plugins" / "lab_rates.py").read_bytes())
+    text = recipe.read_text("utf-8").replace("name: linear\n", "name: linear\nplugins: [lab_rates.py]\n" + extra)
+    text = text.replace('{method: window, start: "0 s", end: "300 s"}', "{method: first-reads, reads: 6}")
+    recipe.write_text(text, "utf-8")
+    return recipe
+
+
+def test_out_of_tree_rate_method_is_short_and_imports_only_the_public_surface():
+    text = (DATA / "plugins" / "lab_rates.py").read_text("utf-8")
+    code = [line for line in text.splitlines() if line.strip() and not line.startswith(('"', " " * 0 + "It ", "Used"))]
+    assert len(code) <= 25
+    imports = {line.split()[1] for line in text.splitlines() if line.startswith(("import ", "from "))}
+    assert imports <= {"numpy", "vzero", "vzero.params", "vzero.plugins.kinetics"}
+
+
+def test_out_of_tree_rate_method_gets_exclusions_and_overrides(tmp_path: Path):
+    extra = ('exclusions:\n  - {plate: p1, well: A2, reason: "bubble"}\n'
+             '  - {plate: p1, well: A3, time: "30 s", reason: "door opened"}\n'
+             'overrides:\n  - {plate: p1, well: B5, start: "60 s", end: "240 s", reason: "after the lag"}\n')
+    result = run(_lab_recipe(tmp_path, extra), tmp_path / "out")
+    rates = result.rates.set_index("well")
+    slopes = np.linspace(1e-4, 1e-3, 96)
+    # A2: excluded by the recipe: flag, no rate, the reason in the note
+    assert rates.loc["A2", "flags"] == "excluded" and np.isnan(rates.loc["A2", "rate"])
+    assert "bubble" in rates.loc["A2", "note"]
+    # A3: the read at 30 s is masked, so the kernel's six reads hold five usable ones
+    assert rates.loc["A3", "n_points"] == 5 and "door opened" in rates.loc["A3", "note"]
+    # B5: the override's window replaces the method's slope (exact line + the blank-corrected drift: slope)
+    assert rates.loc["B5", "method"] == "window (override)" and "overridden" in rates.loc["B5", "flags"]
+    assert rates.loc["B5", "window_start_s"] == 60.0 and rates.loc["B5", "window_end_s"] == 240.0
+    assert_allclose(rates.loc["B5", "rate"], slopes[16], rtol=1e-9)
+    assert_allclose(rates.loc["A1", "rate"], slopes[0], rtol=1e-9)  # the lab's own kernel elsewhere
+    assert rates.loc["A1", "method"] == "first-reads"
+
+
+def _plugin(tmp_path: Path, name: str, body: str) -> Path:
+    (tmp_path / name).write_text(textwrap.dedent(body), "utf-8")
+    return tmp_path
+
+
+def test_a_rate_method_that_overrides_run_is_refused():
+    with pytest.raises(PluginError, match=r"overrides run\(\), which RateMethod owns"):
+        class Sneaky(RateMethod):
+            method = "sneaky"
+
+            def run(self, data):
+                return None
+
+
+def test_a_rates_stage_outside_the_base_is_refused_naming_its_plugin(tmp_path: Path):
+    _plugin(tmp_path, "own_table.py", """
+        from vzero import hookimpl
+        from vzero.stage import Stage
+
+        class OwnTable(Stage):
+            kind, method = "rates", "own-table"
+
+        @hookimpl
+        def vzero_register(registry):
+            registry.add(OwnTable)
+        """)
+    with pytest.raises(PluginError, match=r"plugin 'file:own_table.py'.*does not derive from "
+                                          r"vzero.plugins.kinetics.methods.RateMethod"):
+        make_manager(["own_table.py"], base_dir=tmp_path, autoload=False)
+
+
+def test_a_table_missing_a_column_is_blamed_on_its_plugin_not_the_next_stage(tmp_path: Path):
+    recipe = linear_plate(tmp_path / "in")
+    _plugin(tmp_path / "in", "lossy.py", """
+        from vzero import hookimpl
+        from vzero.stage import Stage, StageOutput
+
+        class Lossy(Stage):
+            kind, method, version = "convert", "lossy", "0.1"
+
+            def run(self, data):
+                table = data.artifacts["rates"]
+                frame = table.frame.drop(columns=["flags"])
+                frame["signal_rate"], frame["rate"] = frame["rate"], frame["rate"] * 1e6
+                return StageOutput(artifacts={"rates": table.with_frame(frame, rate="uM/s",
+                                                                         rate_stderr="uM/s", signal_rate="AU/s")})
+
+        @hookimpl
+        def vzero_register(registry):
+            registry.add(Lossy)
+        """)
+    text = recipe.read_text("utf-8").replace("name: linear\n", "name: linear\nplugins: [lossy.py]\n")
+    recipe.write_text(text + "  - convert: {method: lossy}\n  - fit: {method: nls}\n", "utf-8")
+    with pytest.raises(StageError) as info:
+        run(recipe, tmp_path / "out")
+    message = str(info.value)
+    assert "step 4 (convert: lossy, from local file" in message and "lossy.py" in message
+    assert "column 'flags' is missing" in message and "fit" not in message.split("schema")[0]
+
+
+def test_a_kernel_result_of_the_wrong_shape_names_the_method(tmp_path: Path):
+    recipe = linear_plate(tmp_path / "in")
+    _plugin(tmp_path / "in", "short.py", """
+        import numpy as np
+        from vzero import hookimpl
+        from vzero.plugins.kinetics import RateMethod, RateResult
+
+        class Short(RateMethod):
+            method, version = "short", "0.1"
+
+            def kernel(self, time, signal, plate):
+                return RateResult(v0=np.zeros(3))
+
+        @hookimpl
+        def vzero_register(registry):
+            registry.add(Short)
+        """)
+    text = recipe.read_text("utf-8").replace("name: linear\n", "name: linear\nplugins: [short.py]\n")
+    recipe.write_text(text.replace('{method: window, start: "0 s", end: "300 s"}', "{method: short}"), "utf-8")
+    with pytest.raises(StageError, match=r"rates: short, from local file.*v0 has shape \(3,\), expected \(96,\)"):
+        run(recipe, tmp_path / "out")
+
+
+def test_flag_name_lists_come_from_the_flag_type():
+    from vzero.plugins.fit.stage import DEFAULT_EXCLUDE, FLAG_CHOICES
+    from vzero.plugins.report.content import FLAG_TEXT
+    from vzero.plugins.report.figures import FLAG_SHORT
+
+    names = [f.name.lower() for f in flags.Flag if f.name and f is not flags.Flag.NONE]
+    assert list(FLAG_CHOICES) == names == list(FLAG_TEXT) == list(FLAG_SHORT)
+    assert set(DEFAULT_EXCLUDE) < set(names) and "excluded" in DEFAULT_EXCLUDE and "noisy" not in DEFAULT_EXCLUDE
+
+
+def test_docs_schemas_match_the_registered_schemas():
+    text = (ROOT / "docs" / "schemas.md").read_text("utf-8")
+    for schema in SCHEMAS:
+        assert describe(schema) in text, f"docs/schemas.md is out of date for {schema.name}; see its header"
