@@ -14,6 +14,7 @@ from typing import Any
 #: on first use, so that importing the package stays light for the command line).
 PUBLIC = {
     "RateMethod": "methods", "ImportMethod": "methods", "BlankMethod": "methods", "PlateView": "methods",
+    "ConvertMethod": "methods", "Conversion": "methods",
     "RateResult": "rate_result", "Flag": "flags",
 }
 

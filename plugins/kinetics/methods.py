@@ -9,13 +9,16 @@ can forget it:
   recipe's ``exclusions`` (masked reads, excluded wells, notes) to the traces it returns.
 * :class:`BlankMethod`: the subclass returns the corrected signal (:meth:`BlankMethod.correct`); the base
   keeps the well table (exclusion notes included) and the mask, which a correction may narrow, never widen.
+* :class:`ConvertMethod`: the subclass computes a conversion factor (:meth:`ConvertMethod.conversion`); the
+  base applies it to the rates table, keeping every row, flag and note, and adds the turnover.
 * :class:`RateMethod`: the subclass computes per-well rates (:meth:`RateMethod.kernel`: time, signal and
   settings in, a :class:`~vzero.plugins.kinetics.rate_result.RateResult` out); the base hands it the signal
   with excluded and saturated reads already missing, builds the standard rates table, applies the recipe's
   ``overrides`` and excluded wells, and reports the wells with a failure flag.
 
 The schemas registered in :mod:`vzero.plugins.kinetics.schemas` name these bases, so the registry refuses a
-stage method of these kinds that does not derive from them (docs/schemas.md, docs/plugins.md).
+stage method of these kinds (import, blank, rates, convert) that does not derive from them (docs/schemas.md,
+docs/plugins.md).
 """
 
 from __future__ import annotations
@@ -146,6 +149,86 @@ class RateMethod(Stage):
         table = rates_table(traces, result, self.method)
         table = apply_overrides(traces, table, data.recipe.get("overrides") or [])
         return StageOutput(artifacts={"rates": table}, failed=failed_wells(table.frame))
+
+
+@dataclass(frozen=True)
+class Conversion:
+    """What a convert method computes: rates in signal units per second times ``factor`` (a number or one per
+    row of the rates table) give rates in ``unit``. ``stderr``: the converted standard errors, when they are
+    not simply ``rate_stderr · |factor|`` (for example with the calibration's own uncertainty propagated).
+    ``columns`` (name -> one value per row) and their ``units`` are added to the table; ``record`` holds extra
+    datasets for the audit file (as :attr:`vzero.stage.StageOutput.record`)."""
+
+    factor: Any
+    unit: str
+    stderr: Any = None
+    columns: Mapping[str, Any] = dataclasses.field(default_factory=dict)
+    units: Mapping[str, str] = dataclasses.field(default_factory=dict)
+    record: Mapping[str, Any] = dataclasses.field(default_factory=dict)
+
+
+class ConvertMethod(Stage):
+    """Base of the convert methods. Implement :meth:`conversion`; ``run`` is the framework's: it applies the
+    factor, keeps every row and column of the rates table (flags and the recipe's notes included), keeps the
+    unconverted rate as ``signal_rate``, and adds the turnover (rate / [E], 1/s) where the enzyme is known."""
+
+    kind: ClassVar[str] = "convert"
+    sealed: ClassVar[tuple[str, ...]] = ("run",)
+
+    def conversion(self, rates: Any, data: StageInput) -> Conversion:  # pragma: no cover - abstract
+        """The :class:`Conversion` for the plate's ``rates`` table (``data`` holds the traces and raw files)."""
+        raise NotImplementedError
+
+    @final
+    def run(self, data: StageInput) -> StageOutput:
+        import numpy as np
+
+        table = data.artifacts.get("rates")
+        if table is None:
+            raise StageError("a convert step needs a rates table; put a rates step before it")
+        conv = self.conversion(table, data)
+        if not isinstance(conv, Conversion):
+            raise StageError(f"convert method {self.method!r} returned {type(conv).__name__}, not a Conversion")
+        frame = table.frame.copy()
+        for name, values in conv.columns.items():
+            frame[name] = np.broadcast_to(np.asarray(values, dtype=float), len(frame)).copy()
+        traces = data.artifacts.get("traces")
+        signal_unit = str(table.meta.get("signal_unit") or getattr(traces, "signal_unit", "") or "AU")
+        out = _convert(table.with_frame(frame, **conv.units), frame, conv, signal_unit, data.warn)
+        return StageOutput(artifacts={"rates": out}, record=dict(conv.record))
+
+
+def _convert(table: Any, frame: Any, conv: Conversion, signal_unit: str, warn: Callable[[str], None]) -> Any:
+    """Apply ``conv`` to ``frame`` (a copy of the table's), add the turnover, return the new table."""
+    from vzero import units
+
+    frame["signal_rate"] = frame["rate"]
+    frame["rate"] = frame["signal_rate"] * conv.factor
+    frame["rate_stderr"] = conv.stderr if conv.stderr is not None else frame["rate_stderr"] * abs(conv.factor)
+    frame["rate_unit"] = conv.unit
+    new_units = {"rate": conv.unit, "rate_stderr": conv.unit, "signal_rate": f"{signal_unit}/s"}
+    _warn_sign(frame, warn)
+    if "enzyme" in frame and frame["enzyme"].notna().any() and table.units.get("enzyme"):
+        kt = units.factor(f"({conv.unit})/({table.units['enzyme']})", "1/s")
+        with_enzyme = frame["enzyme"].where(frame["enzyme"] > 0)
+        frame["turnover"] = frame["rate"] / with_enzyme * kt
+        frame["turnover_stderr"] = frame["rate_stderr"] / with_enzyme * kt
+        frame["turnover_unit"] = "1/s"
+        new_units.update(turnover="1/s", turnover_stderr="1/s")
+    return table.with_frame(frame, **new_units)
+
+
+def _warn_sign(frame: Any, warn: Callable[[str], None]) -> None:
+    import numpy as np
+
+    rates = frame["rate"].to_numpy(dtype=float)
+    if "role" in frame:
+        rates = rates[(frame["role"] == "sample").to_numpy()]
+    rates = rates[np.isfinite(rates)]
+    negative = int((rates < 0).sum())
+    if rates.size and negative > 0.5 * rates.size:
+        warn(f"{negative} of {rates.size} sample rates are negative after conversion: "
+             "check 'direction' (increase when the product absorbs, decrease when the substrate does)")
 
 
 FAILURE_NAMES = frozenset(flags.names_of(flags.FAILURE))

@@ -16,7 +16,7 @@ from typing import Any
 
 from vzero import hookimpl
 from vzero.plugins.kinetics import flags
-from vzero.plugins.kinetics.methods import BlankMethod, ImportMethod, RateMethod
+from vzero.plugins.kinetics.methods import BlankMethod, ConvertMethod, ImportMethod, RateMethod
 from vzero.schema import Column, KindSchema, TableSchema, TracesSchema
 
 FLAG_COLUMN = Column("flags", "text", "quality flags, names joined by ';' ('' when none)",
@@ -79,7 +79,7 @@ SCHEMAS = (
         Column("turnover", "float", "rate per enzyme concentration (kcat-like)", unit="1/s", required=False),
     ), "The rates table in concentration per time; every other column kept.")},
                "Rates in signal per time to concentration per time.", required=("rates",),
-               keeps_rows={"rates": "rates"}),
+               keeps_rows={"rates": "rates"}, base=ConvertMethod),
     KindSchema("fit", {
         "fits": TableSchema((
             Column("group", "text", "group fitted"),

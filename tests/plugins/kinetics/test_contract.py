@@ -90,32 +90,41 @@ def test_a_rates_stage_outside_the_base_is_refused_naming_its_plugin(tmp_path: P
 
 
 def test_a_table_missing_a_column_is_blamed_on_its_plugin_not_the_next_stage(tmp_path: Path):
-    recipe = linear_plate(tmp_path / "in")
-    _plugin(tmp_path / "in", "lossy.py", """
+    # An import method that reads rates measured elsewhere but leaves out the flags column: the fit step
+    # after it would fail on the missing column; the runner stops at the import and names its plugin.
+    folder = tmp_path / "in"
+    folder.mkdir()
+    (folder / "rates.csv").write_text("substrate,rate\n1,0.9\n2,1.6\n5,2.9\n10,3.8\n", "utf-8")
+    _plugin(folder, "lossy.py", """
+        import io
+        import pandas as pd
         from vzero import hookimpl
-        from vzero.stage import Stage, StageOutput
+        from vzero.data import Table
+        from vzero.plugins.kinetics import ImportMethod
+        from vzero.stage import StageOutput
 
-        class Lossy(Stage):
-            kind, method, version = "convert", "lossy", "0.1"
+        class Lossy(ImportMethod):
+            method, version = "lossy", "0.1"
 
-            def run(self, data):
-                table = data.artifacts["rates"]
-                frame = table.frame.drop(columns=["flags"])
-                frame["signal_rate"], frame["rate"] = frame["rate"], frame["rate"] * 1e6
-                return StageOutput(artifacts={"rates": table.with_frame(frame, rate="uM/s",
-                                                                         rate_stderr="uM/s", signal_rate="AU/s")})
+            def read(self, data):
+                frame = pd.read_csv(io.BytesIO(data.inputs["data"].data))
+                frame["well"], frame["role"], frame["method"] = [f"r{i}" for i in range(len(frame))], "sample", "x"
+                frame["rate_stderr"], frame["rate_unit"] = 0.01, "uM/min"
+                return StageOutput(artifacts={"rates": Table(frame, {"substrate": "uM", "rate": "uM/min",
+                                                                      "rate_stderr": "uM/min"})})
 
         @hookimpl
         def vzero_register(registry):
             registry.add(Lossy)
         """)
-    text = recipe.read_text("utf-8").replace("name: linear\n", "name: linear\nplugins: [lossy.py]\n")
-    recipe.write_text(text + "  - convert: {method: lossy}\n  - fit: {method: nls}\n", "utf-8")
+    (folder / "recipe.yaml").write_text(
+        "vzero: 1\nname: lossy\nplugins: [lossy.py]\nplates:\n  - name: p1\n    data: rates.csv\n"
+        "steps:\n  - import: {method: lossy}\n  - fit: {method: nls, models: [michaelis-menten]}\n", "utf-8")
     with pytest.raises(StageError) as info:
-        run(recipe, tmp_path / "out")
+        run(folder / "recipe.yaml", tmp_path / "out")
     message = str(info.value)
-    assert "step 4 (convert: lossy, from local file" in message and "lossy.py" in message
-    assert "column 'flags' is missing" in message and "fit" not in message.split("schema")[0]
+    assert "step 1 (import: lossy, from local file 0 (lossy.py)) on plate p1" in message
+    assert "rates: column 'flags' is missing" in message and "fit" not in message
 
 
 def test_a_kernel_result_of_the_wrong_shape_names_the_method(tmp_path: Path):
