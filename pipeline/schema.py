@@ -171,9 +171,9 @@ def _dtype_ok(series: pd.Series, dtype: str) -> bool:
     if dtype == "bool":
         return kind == "b"
     if dtype == "text":
-        if kind in "OUT" or isinstance(series.dtype, pd.StringDtype):
-            return all(isinstance(v, str) for v in pd.unique(series.dropna()))
-        return False
+        if isinstance(series.dtype, pd.StringDtype):
+            return True  # holds text (or missing values) by construction
+        return kind in "OU" and pd.api.types.infer_dtype(series, skipna=True) in ("string", "empty")
     raise ValueError(f"unknown column dtype {dtype!r}; use one of {DTYPES}")
 
 
