@@ -15,11 +15,14 @@ from __future__ import annotations
 import functools
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
-import pandas as pd
-from vzero.data import Table, Traces
+if TYPE_CHECKING:
+    import pandas as pd
+    from vzero.data import Table
+
+# numpy, pandas and vzero.data are imported inside the checks: the registry imports this module, and the
+# command line builds --help from the registry without loading them.
 
 DTYPES = ("float", "int", "text", "bool")
 
@@ -44,6 +47,8 @@ class Column:
 
     def check(self, table: Table) -> list[str]:
         """Problems of this column in ``table`` (empty when it conforms)."""
+        import pandas as pd
+
         frame = table.frame
         if self.name not in frame.columns:
             return [f"column {self.name!r} is missing ({self.doc or self.dtype})"] if self.required else []
@@ -76,6 +81,8 @@ class TableSchema:
     doc: str = ""
 
     def check(self, value: Any) -> list[str]:
+        from vzero.data import Table
+
         if not isinstance(value, Table):
             return [f"expected a vzero.data.Table, got {type(value).__name__}"]
         return [p for c in self.columns for p in c.check(value)]
@@ -90,6 +97,9 @@ class TracesSchema:
     doc: str = ""
 
     def check(self, value: Any) -> list[str]:
+        import numpy as np
+        from vzero.data import Table, Traces
+
         if not isinstance(value, Traces):
             return [f"expected vzero.data.Traces, got {type(value).__name__}"]
         out = []
@@ -148,6 +158,8 @@ def check_output(schema: KindSchema, artifacts: Mapping[str, Any], given: Mappin
 
 
 def _wells(value: Any) -> list[str] | None:
+    from vzero.data import Traces
+
     frame = value.wells if isinstance(value, Traces) else getattr(value, "frame", None)
     if frame is None or "well" not in frame.columns:
         return None
@@ -163,6 +175,8 @@ def _same_rows(got: list[str] | None, want: list[str] | None) -> str:
 
 
 def _dtype_ok(series: pd.Series, dtype: str) -> bool:
+    import pandas as pd
+
     kind = series.dtype.kind
     if dtype == "float":
         return kind == "f"

@@ -75,6 +75,25 @@ def test_a_rate_method_that_overrides_run_is_refused():
                 return None
 
 
+def test_a_plugin_file_whose_rate_method_overrides_run_is_refused_by_name(tmp_path: Path):
+    _plugin(tmp_path, "sneaky.py", """
+        from vzero import hookimpl
+        from vzero.plugins.kinetics import RateMethod
+
+        class Sneaky(RateMethod):
+            method = "sneaky"
+
+            def run(self, data):
+                return None
+
+        @hookimpl
+        def vzero_register(registry):
+            registry.add(Sneaky)
+        """)
+    with pytest.raises(PluginError, match=r"plugin file 'sneaky.py' failed to import.*overrides run\(\)"):
+        make_manager(["sneaky.py"], base_dir=tmp_path, autoload=False)
+
+
 def test_a_rates_stage_outside_the_base_is_refused_naming_its_plugin(tmp_path: Path):
     _plugin(tmp_path, "own_table.py", """
         from vzero import hookimpl
