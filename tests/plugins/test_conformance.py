@@ -154,3 +154,32 @@ def test_the_kit_catches_a_wrong_jacobian():
     x = _points(mm.variables)
     with pytest.raises(AssertionError, match="d/dKm of the jacobian differs"):
         check_model(wrong, x, _data(mm.variables, x))
+
+
+def test_the_kit_catches_a_stage_that_is_not_deterministic(demo):
+    from vzero.plugins.kinetics import RateMethod, RateResult
+
+    class Dice(RateMethod):
+        method = "dice"
+
+        def kernel(self, time, signal, plate):
+            return RateResult(v0=np.random.default_rng().normal(size=len(signal)))  # unseeded on purpose
+
+    with pytest.raises(AssertionError, match="not deterministic"):
+        check_stage(Dice, _input({"traces": demo["traces"]}))
+
+
+def test_the_kit_catches_an_unknown_flag(demo):
+    from vzero.plugins.kinetics import ImportMethod
+    from vzero.stage import StageOutput
+
+    class Odd(ImportMethod):
+        method = "odd"
+
+        def read(self, data):
+            table = demo["signal_rates"]
+            frame = table.frame.assign(flags="wobbly")
+            return StageOutput(artifacts={"rates": table.with_frame(frame)})
+
+    with pytest.raises(AssertionError, match="column 'flags' holds unknown names 'wobbly'"):
+        check_stage(Odd, _input({}))
