@@ -16,7 +16,7 @@ from collections.abc import Callable
 import numpy as np
 import pandas as pd
 from vzero.plugins.importers.readers import ReadOptions, read_table
-from vzero.plugins.importers.wells import all_wells
+from vzero.plugins.kinetics.wells import all_wells
 
 
 def make_csv(n_reads: int, seed: int = 0) -> bytes:

@@ -52,7 +52,7 @@ def write_plate(folder: Path, n_wells: int, n_time: int, seed: int = 0, name: st
     """Write a synthetic wide-table plate and its long layout; return (data, layout) paths."""
     import numpy as np
     import pandas as pd
-    from vzero.plugins.importers.wells import all_wells
+    from vzero.plugins.kinetics.wells import all_wells
     from vzero.plugins.rates.simulate import simulate_plate
 
     wells = all_wells(n_wells)

@@ -23,7 +23,7 @@ import numpy as np  # noqa: E402
 from scipy import stats  # noqa: E402
 from scipy.optimize import OptimizeWarning, curve_fit  # noqa: E402
 from scipy.special import wrightomega  # noqa: E402
-from vzero.plugins.flags import Flag  # noqa: E402
+from vzero.plugins.kinetics.flags import Flag  # noqa: E402
 from vzero.plugins.rates.auto import auto  # noqa: E402
 from vzero.plugins.rates.polynomial import polynomial  # noqa: E402
 from vzero.plugins.rates.progress import progress_curve  # noqa: E402

@@ -32,17 +32,22 @@ def vzero_register(registry: Any) -> None:
 
     Called once per plugin when the plugin manager is built. Call ``registry.add(component)`` for each stage
     method class (a :class:`vzero.stage.Stage` subclass) and for other named components, such as a fit
-    model (any object with ``kind`` and ``name`` attributes). A name already taken is an error naming both
-    plugins. The registry records the plugin, its distribution and version for the audit file.
+    model or the output schema of a step kind (any object with ``kind`` and ``name`` attributes;
+    :class:`vzero.schema.KindSchema` for a schema). A name already taken is an error naming both plugins.
+    The registry records the plugin, its distribution and version for the audit file. A stage method of a
+    kind whose schema names a base class must derive from it (the built-in kinds: docs/schemas.md); the
+    base class of the built-in rates kind owns ``run`` and a rates method writes only its kernel.
 
     Example::
 
         from vzero import hookimpl
-        from vzero.stage import Stage, StageOutput
+        from vzero.plugins.kinetics import RateMethod, RateResult
 
-        class FirstReads(Stage):
-            kind, method, version = "rates", "first-reads", "1.0"
-            ...
+        class FirstReads(RateMethod):
+            method, version = "first-reads", "1.0"
+
+            def kernel(self, time, signal, plate):
+                return RateResult(v0=(signal[:, 4] - signal[:, 0]) / (time[4] - time[0]))
 
         @hookimpl
         def vzero_register(registry):

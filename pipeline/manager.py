@@ -100,6 +100,7 @@ def make_manager(
             ) from exc
         finally:
             registry._current = None
+    registry.check_kinds()
     return Plugins(pm, registry, sources)
 
 

@@ -9,7 +9,8 @@ from typing import Any
 
 from vzero.errors import PluginError
 from vzero.params import KINDS, closest
-from vzero.stage import SCOPES, Stage
+from vzero.schema import KindSchema
+from vzero.stage import SCOPES, Stage, sealed_overrides
 
 
 @dataclass(frozen=True)
@@ -50,7 +51,7 @@ class Registry:
         source = self._current or Source("direct", getattr(component, "__module__", "?"), "unknown", "0")
         if inspect.isclass(component) and issubclass(component, Stage):
             kind, name = getattr(component, "kind", None), getattr(component, "method", None)
-            _check_stage(component, source)
+            check_stage_class(component, source)
         else:
             kind, name = getattr(component, "kind", None), getattr(component, "name", None)
         if not isinstance(kind, str) or not isinstance(name, str) or not kind or not name:
@@ -74,6 +75,28 @@ class Registry:
             near = f" (did you mean {hit!r}?)" if hit else ""
             raise KeyError(f"no {kind} method {name!r}{near}; available: {', '.join(names) or 'none'}") from None
 
+    def schema(self, kind: str) -> KindSchema | None:
+        """The :class:`KindSchema` a plugin declared for step kind ``kind`` (``None`` if none was)."""
+        entry = self._entries.get(("schema", kind))
+        return entry.component if entry is not None and isinstance(entry.component, KindSchema) else None
+
+    def check_kinds(self) -> None:
+        """Refuse, naming the plugin, a stage method whose kind's schema names a base class it does not derive
+        from (called once every plugin has registered, since a kind's schema may come after its methods)."""
+        for entry in self:
+            schema = self.schema(entry.kind)
+            cls = entry.component
+            if schema is None or schema.base is None or not inspect.isclass(cls) or not issubclass(cls, Stage):
+                continue
+            if not issubclass(cls, schema.base):
+                base = f"{schema.base.__module__}.{schema.base.__qualname__}"
+                raise PluginError(
+                    f"plugin {entry.source.plugin!r} ({entry.source.describe()}): {entry.kind} method "
+                    f"{entry.name!r} ({cls.__qualname__}) does not derive from {base}, which every {entry.kind} "
+                    f"method must (it applies the recipe's rules for that kind); derive from it and implement "
+                    f"what its docstring asks for"
+                )
+
     def names(self, kind: str) -> list[str]:
         return sorted(n for k, n in self._entries if k == kind)
 
@@ -87,7 +110,7 @@ class Registry:
         return key in self._entries
 
 
-def _check_stage(cls: type[Stage], source: Source) -> None:
+def check_stage_class(cls: type[Stage], source: Source) -> None:
     """Refuse a stage class that breaks the contract, naming the plugin."""
     problems = []
     if getattr(cls, "scope", None) not in SCOPES:
@@ -97,5 +120,8 @@ def _check_stage(cls: type[Stage], source: Source) -> None:
             problems.append(f"parameter {key!r} is not a vzero.params.Param of a known kind")
     if "method" in dict(getattr(cls, "params", {})):
         problems.append("a parameter may not be called 'method' (the recipe uses it to pick the method)")
+    sealed = sealed_overrides(cls)
+    if sealed:
+        problems.append(sealed)
     if problems:
         raise PluginError(f"plugin {source.plugin!r}: stage {cls.__name__}: " + "; ".join(problems))

@@ -21,6 +21,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
+from vzero.errors import PluginError
 from vzero.params import Param
 
 
@@ -82,6 +83,16 @@ class Stage:
     scope: ClassVar[str] = "plate"
     summary: ClassVar[str] = ""
     params: ClassVar[Mapping[str, Param]] = {}
+    #: Methods a framework-owned base class keeps for itself: a subclass that overrides one is refused when
+    #: it is defined (and again when registered), so no stage method can skip what that base does for every
+    #: method of its kind (see :class:`vzero.schema.KindSchema`).
+    sealed: ClassVar[tuple[str, ...]] = ()
+
+    def __init_subclass__(cls, **kwargs: Any) -> None:
+        super().__init_subclass__(**kwargs)
+        broken = sealed_overrides(cls)
+        if broken:
+            raise PluginError(broken)
 
     def __init__(self, **settings: Any) -> None:
         self.settings = dict(settings)
@@ -102,3 +113,16 @@ class Stage:
 
 
 SCOPES = ("plate", "pooled", "final")
+
+
+def sealed_overrides(cls: type) -> str:
+    """Why ``cls`` breaks a base class's ``sealed`` methods ('' when it does not)."""
+    mro = cls.__mro__
+    for i, base in enumerate(mro[1:], start=1):
+        for name in base.__dict__.get("sealed", ()):
+            culprits = [k.__qualname__ for k in mro[:i] if name in k.__dict__]
+            if culprits:
+                return (f"stage {cls.__qualname__} (module {cls.__module__}): {culprits[0]} overrides "
+                        f"{name}(), which {base.__qualname__} owns; implement the method {base.__qualname__} "
+                        f"asks for instead (see its docstring)")
+    return ""

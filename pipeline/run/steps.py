@@ -15,6 +15,8 @@ from typing import Any
 from vzero.errors import StageError, VzeroError
 from vzero.manager import Plugins
 from vzero.recipe import PlateSpec, Recipe, StepSpec
+from vzero.registry import Entry
+from vzero.schema import check_output
 from vzero.stage import RawInput, StageInput, StageOutput
 
 
@@ -114,7 +116,7 @@ def run_step(
     except VzeroError as exc:
         event.error = exc
         plugins.hook.vzero_step_error(event=event)
-        where = f"step {spec.index} ({spec.kind}: {spec.method})"
+        where = f"step {spec.index} ({spec.kind}: {spec.method}, from {entry.source.describe()})"
         exc.args = (f"{where}: {exc}",)
         raise
     except Exception as exc:
@@ -131,6 +133,7 @@ def run_step(
             f"step {spec.index} ({spec.kind}: {spec.method}, from {entry.source.describe()}) returned "
             f"{type(output).__name__}, not a StageOutput; fix the plugin"
         )
+    _check_schema(spec, entry, plugins, plate, output, artifacts)
     seconds = time.perf_counter() - t0
     event.seconds, event.output = seconds, output
     plugins.hook.vzero_after_step(event=event)
@@ -138,6 +141,23 @@ def run_step(
     prefix = f"{plate.name} " if plate else ""
     return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs,
                               [prefix + str(item) for item in output.failed])
+
+
+def _check_schema(spec: StepSpec, entry: Entry, plugins: Plugins, plate: PlateSpec | None, output: StageOutput,
+                  given: Mapping[str, Any]) -> None:
+    """Check the step's output against the schema its kind's plugin declared (docs/schemas.md); a table that
+    breaks it is an error naming this step and the plugin that made it, not the next stage that reads it."""
+    schema = plugins.registry.schema(spec.kind)
+    if schema is None:
+        return
+    problems = check_output(schema, output.artifacts, given, output.files)
+    if problems:
+        raise StageError(
+            f"step {spec.index} ({spec.kind}: {spec.method}, from {entry.source.describe()})"
+            + (f" on plate {plate.name}" if plate else "")
+            + f" returned output that breaks the {spec.kind} schema (docs/schemas.md): " + "; ".join(problems),
+            hint="This is a bug in that plugin; report it to its authors.",
+        )
 
 
 def utc_now() -> str:

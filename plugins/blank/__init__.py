@@ -6,10 +6,10 @@ from typing import Any
 
 from vzero import hookimpl
 from vzero.params import Param
-from vzero.stage import Stage, StageInput, StageOutput
+from vzero.plugins.kinetics.methods import BlankMethod
 
 
-class MeanBlank(Stage):
+class MeanBlank(BlankMethod):
     """Subtract, at each read, the mean of the blank wells (role ``blank``) from every well.
 
     ``match: none`` uses all blank wells; ``group`` uses the blanks of the same group; ``substrate`` those
@@ -18,7 +18,6 @@ class MeanBlank(Stage):
     warning. Blank wells are corrected too (they end near zero), which keeps them useful for noise checks.
     """
 
-    kind = "blank"
     method = "mean"
     version = "1.0"
     summary = "subtract the per-read mean of matching blank wells"
@@ -27,15 +26,14 @@ class MeanBlank(Stage):
         "role": Param("str", "blank", "layout role that marks blank wells"),
     }
 
-    def run(self, data: StageInput) -> StageOutput:
+    def correct(self, traces: Any, warn: Any) -> Any:
         import numpy as np
 
-        traces = data.artifacts["traces"]
         roles = traces.wells["role"].astype(str).to_numpy()
         is_blank = roles == self.settings["role"]
         if not is_blank.any():
-            data.warn("no blank wells in the layout: signal left uncorrected")
-            return StageOutput(artifacts={"traces": traces})
+            warn("no blank wells in the layout: signal left uncorrected")
+            return None
         y = traces.masked_signal()
         match = self.settings["match"]
         if match == "none":
@@ -52,13 +50,11 @@ class MeanBlank(Stage):
                 correction[members] = _nanmean_rows(y[blanks]) if blanks.any() else overall
             missing = [w for w, k in zip(traces.well_names, keys, strict=True) if not (is_blank & (keys == k)).any()]
         if missing and match != "none":
-            data.warn(f"no blank with the same {match} for {len(missing)} well(s) ({', '.join(missing[:8])}"
+            warn(f"no blank with the same {match} for {len(missing)} well(s) ({', '.join(missing[:8])}"
                       f"{', ...' if len(missing) > 8 else ''}); used the mean of all blanks")
-        # A read where the blank itself is missing cannot be corrected: it becomes missing.
-        corrected = traces.signal - correction
-        mask = traces.mask & np.isfinite(corrected)
-        out = traces.evolve(signal=corrected, mask=mask)
-        return StageOutput(artifacts={"traces": out})
+        # A read where the blank itself is missing cannot be corrected: it becomes missing (the base class
+        # masks every read that is not finite).
+        return traces.signal - correction
 
 
 def _nanmean_rows(block: Any) -> Any:

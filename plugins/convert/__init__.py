@@ -13,33 +13,13 @@ from typing import Any
 from vzero import hookimpl
 from vzero.errors import InputFileError, StageError
 from vzero.params import Param
-from vzero.stage import Stage, StageInput, StageOutput
+from vzero.plugins.kinetics.methods import Conversion, ConvertMethod
+from vzero.stage import StageInput
 
 OUTPUT_UNIT = Param("unit", "uM/min", "unit of the converted rates (e.g. uM/min, nM/s)", like="M/s")
 
 
-def _finish(table: Any, frame: Any, factor: Any, out_unit: str, signal_unit: str, warn: Any,
-            stderr: Any = None) -> Any:
-    """Apply a per-well (or scalar) factor signal/s -> out_unit, add turnover, return the new table."""
-    from vzero import units
-
-    frame["signal_rate"] = frame["rate"]
-    frame["rate"] = frame["signal_rate"] * factor
-    frame["rate_stderr"] = stderr if stderr is not None else frame["rate_stderr"] * abs(factor)
-    frame["rate_unit"] = out_unit
-    new_units = {"rate": out_unit, "rate_stderr": out_unit, "signal_rate": f"{signal_unit}/s"}
-    _warn_sign(frame, warn)
-    if "enzyme" in frame and frame["enzyme"].notna().any() and table.units.get("enzyme"):
-        kt = units.factor(f"({out_unit})/({table.units['enzyme']})", "1/s")
-        with_enzyme = frame["enzyme"].where(frame["enzyme"] > 0)
-        frame["turnover"] = frame["rate"] / with_enzyme * kt
-        frame["turnover_stderr"] = frame["rate_stderr"] / with_enzyme * kt
-        frame["turnover_unit"] = "1/s"
-        new_units.update(turnover="1/s", turnover_stderr="1/s")
-    return table.with_frame(frame, **new_units)
-
-
-class BeerLambert(Stage):
+class BeerLambert(ConvertMethod):
     """Absorbance rate to concentration rate by the Beer–Lambert law: rate = (dA/dt) / (ε · l).
 
     The pathlength ``l`` comes from exactly one of: ``pathlength`` (given); ``fill_volume`` and
@@ -50,7 +30,6 @@ class BeerLambert(Stage):
     turnover rate (rate / [E], 1/s) is added.
     """
 
-    kind = "convert"
     method = "beer-lambert"
     version = "1.1"
     summary = "absorbance/s to concentration/time via ε and pathlength; turnover from [E]"
@@ -81,13 +60,12 @@ class BeerLambert(Stage):
             return [("fill_volume", "fill_volume and plate_type go together")]
         return []
 
-    def run(self, data: StageInput) -> StageOutput:
+    def conversion(self, table: Any, data: StageInput) -> Conversion:
         import numpy as np
         from vzero import units
 
         s = self.settings
-        table = data.artifacts["rates"]
-        frame = table.frame.copy()
+        frame = table.frame
         signal_unit = str(table.meta.get("signal_unit", "AU"))
         ureg = units.registry()
         if ureg.Quantity(1, signal_unit).dimensionality != ureg.Quantity(1, "").dimensionality:
@@ -95,10 +73,8 @@ class BeerLambert(Stage):
         path_cm, record = self._pathlength(data, frame)
         per = ureg.Quantity(1.0, f"{signal_unit}/s") / (s["epsilon"] * ureg.Quantity(1.0, "cm"))
         k = float(per.m_as(s["output_unit"])) * (-1.0 if s["direction"] == "decrease" else 1.0) / path_cm
-        frame["pathlength_cm"] = np.broadcast_to(path_cm, len(frame)).astype(float)
-        out = _finish(table, frame, k, s["output_unit"], signal_unit, data.warn)
-        out = out.with_frame(out.frame, pathlength_cm="cm")
-        return StageOutput(artifacts={"rates": out}, record=record)
+        return Conversion(k, s["output_unit"], columns={"pathlength_cm": np.broadcast_to(path_cm, len(frame))},
+                          units={"pathlength_cm": "cm"}, record=record)
 
     def _pathlength(self, data: StageInput, frame: Any) -> tuple[Any, dict[str, Any]]:
         import numpy as np
@@ -119,7 +95,7 @@ class BeerLambert(Stage):
                                  hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
         import io
 
-        from vzero.plugins.importers.wells import normalise_well
+        from vzero.plugins.kinetics.wells import normalise_well
 
         try:
             reads = pd.read_csv(io.BytesIO(raw.data))
@@ -142,7 +118,7 @@ class BeerLambert(Stage):
         return per_well, {"pathlength_cm": per_well}
 
 
-class StandardCurveConvert(Stage):
+class StandardCurveConvert(ConvertMethod):
     """Fluorescence or luminescence rate to concentration rate through a standard curve on the same plate.
 
     Standard wells (layout role ``standard``) hold known concentrations of the product in the layout column
@@ -153,7 +129,6 @@ class StandardCurveConvert(Stage):
     file and reported in the run's warnings.
     """
 
-    kind = "convert"
     method = "standard-curve"
     version = "1.0"
     summary = "signal/s to concentration/time through a same-plate standard curve (linear range checked)"
@@ -164,7 +139,7 @@ class StandardCurveConvert(Stage):
         "check_linearity": Param("bool", True, "drop top standards while the line bends significantly"),
     }
 
-    def run(self, data: StageInput) -> StageOutput:
+    def conversion(self, table: Any, data: StageInput) -> Conversion:
         import numpy as np
         import pandas as pd
         from vzero import units
@@ -172,7 +147,6 @@ class StandardCurveConvert(Stage):
         from vzero.plugins.convert.standard_curve import fit_standard_curve
 
         traces = data.artifacts["traces"]
-        table = data.artifacts["rates"]
         col = self.settings["column"]
         wells = traces.wells
         is_std = (wells["role"].astype(str) == "standard").to_numpy()
@@ -191,7 +165,7 @@ class StandardCurveConvert(Stage):
         out_unit = self.settings["output_unit"]
         signal_unit = traces.signal_unit
         to_out = units.factor(f"{conc_unit}/s", out_unit)
-        frame = table.frame.copy()
+        frame = table.frame
         _, se = curve.to_conc(frame["rate"].to_numpy(float), frame["rate_stderr"].to_numpy(float))
         lo, hi = curve.conc_range
         data.warn(f"standard curve: slope {curve.slope:.5g} {signal_unit}/{conc_unit} ± {curve.slope_se:.2g}, "
@@ -207,30 +181,14 @@ class StandardCurveConvert(Stage):
             data.warn(f"{len(beyond)} sample well(s) read beyond the highest standard kept ({hi:g} {conc_unit}): "
                       f"{', '.join(map(str, beyond[:10]))}{', ...' if len(beyond) > 10 else ''}; their rates "
                       "extrapolate the standard curve")
-        out = _finish(table, frame, to_out / curve.slope, out_unit, signal_unit, data.warn, se * to_out)
         calib = pd.DataFrame({"well": wells["well"].to_numpy()[is_std][keep], "concentration": conc[keep],
                               "signal": level[keep], "used": np.asarray(curve.used, dtype=bool)})
         summary = pd.DataFrame({"quantity": ["slope", "intercept", "r_squared", "range_low", "range_high"],
                                 "value": [curve.slope, curve.intercept, curve.r2, lo, hi],
                                 "stderr": [curve.slope_se, curve.intercept_se, np.nan, np.nan, np.nan]})
-        return StageOutput(
-            artifacts={"rates": out},
-            record={"calibration_points": Table(calib, {"concentration": conc_unit, "signal": signal_unit}),
-                    "calibration": Table(summary)},
-        )
-
-
-def _warn_sign(frame: Any, warn: Any) -> None:
-    import numpy as np
-
-    rates = frame["rate"].to_numpy(dtype=float)
-    if "role" in frame:
-        rates = rates[(frame["role"] == "sample").to_numpy()]
-    rates = rates[np.isfinite(rates)]
-    negative = int((rates < 0).sum())
-    if rates.size and negative > 0.5 * rates.size:
-        warn(f"{negative} of {rates.size} sample rates are negative after conversion: "
-             "check 'direction' (increase when the product absorbs, decrease when the substrate does)")
+        points = Table(calib, {"concentration": conc_unit, "signal": signal_unit})
+        return Conversion(to_out / curve.slope, out_unit, stderr=se * to_out,
+                          record={"calibration_points": points, "calibration": Table(summary)})
 
 
 @hookimpl

@@ -9,13 +9,11 @@ from collections.abc import Mapping
 from typing import Any, ClassVar
 
 from vzero.params import Param
+from vzero.plugins.kinetics import flags
 from vzero.stage import Stage, StageInput, StageOutput
 
-DEFAULT_EXCLUDE = ["saturated", "all_missing", "no_signal", "too_few_points", "fit_failed", "excluded"]
-FLAG_CHOICES = (
-    "saturated", "high_conversion", "curvature", "lag", "decay", "noisy", "too_few_points", "all_missing",
-    "no_signal", "fit_failed", "excluded", "overridden",
-)
+DEFAULT_EXCLUDE = list(flags.names_of(flags.NOT_FITTED))
+FLAG_CHOICES = flags.NAMES
 
 
 def _numbers_by_model(value: Any) -> str | None:

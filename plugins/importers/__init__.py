@@ -10,12 +10,13 @@ from typing import Any
 from vzero import hookimpl
 from vzero.errors import InputFileError, LayoutError
 from vzero.params import Param
-from vzero.stage import Stage, StageInput, StageOutput
+from vzero.plugins.kinetics.methods import ImportMethod
+from vzero.stage import StageInput, StageOutput
 
 LAYOUT_QUANTITIES = ("substrate", "enzyme", "inhibitor")
 
 
-class TableImport(Stage):
+class TableImport(ImportMethod):
     """Read a wide table (time column, then one column per well) or a long table (well, time, signal), in
     CSV, TSV, semicolon/decimal-comma text or xlsx, and join it with the plate layout.
 
@@ -23,7 +24,6 @@ class TableImport(Stage):
     (overflow tokens, or reads at or above ``ceiling``) are kept in the audit file but masked.
     """
 
-    kind = "import"
     method = "table"
     version = "1.0"
     summary = "wide or long plate-reader tables (CSV/TSV/xlsx) joined with a plate layout"
@@ -53,7 +53,7 @@ class TableImport(Stage):
                                 like="M", nullable=True),
     }
 
-    def run(self, data: StageInput) -> StageOutput:
+    def read(self, data: StageInput) -> StageOutput:
         import numpy as np
         from vzero.data import Traces
         from vzero.plugins.importers import layouts, readers
@@ -105,13 +105,10 @@ class TableImport(Stage):
             well_units={k: v for k, v in units.items() if k in wells.columns and v},
             temperature=block.temperature,
         )
-        from vzero.plugins.exclusions import apply_exclusions
-
-        traces = apply_exclusions(traces, data.recipe)
         return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
 
 
-class RatesTableImport(Stage):
+class RatesTableImport(ImportMethod):
     """Read initial rates measured elsewhere (one row per well or measurement) to fit them directly.
 
     For rates that come from another instrument or an older analysis: a CSV with a substrate column, a rate
@@ -119,7 +116,6 @@ class RatesTableImport(Stage):
     (``substrate (uM)``) or from the parameters. Each row is a point of its own (replicates are not averaged).
     """
 
-    kind = "import"
     method = "rates-table"
     version = "1.0"
     summary = "initial rates already measured (substrate, rate, group) for fitting only"
@@ -135,7 +131,7 @@ class RatesTableImport(Stage):
         "enzyme_unit": Param("unit", None, "unit of enzyme, if its header has none", nullable=True),
     }
 
-    def run(self, data: StageInput) -> StageOutput:
+    def read(self, data: StageInput) -> StageOutput:
         import numpy as np
         import pandas as pd
         from vzero.data import Table
@@ -209,7 +205,7 @@ def _split_unit(label: str) -> tuple[str, str]:
 def _layout(data: StageInput, settings: dict[str, Any], wells: list[str]) -> tuple[Any, str]:
     """The plate layout: from the plate's layout file, or declared in the import step (``layout:``)."""
     from vzero.plugins.importers import layouts
-    from vzero.plugins.importers.wells import infer_plate_size
+    from vzero.plugins.kinetics.wells import infer_plate_size
 
     raw = data.inputs.get("layout")
     declared = settings.get("layout")
@@ -243,7 +239,7 @@ def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
 @hookimpl
 def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
     """The recipe's ``exclusions`` and ``overrides`` (applied by the import and rates stages)."""
-    from vzero.plugins.exclusions import check_items
+    from vzero.plugins.kinetics.exclusions import check_items
 
     return check_items(recipe, where, plates)
 

@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 from vzero.errors import LayoutError
 from vzero.plugins.importers.readers import ReadOptions, TextGrid, load_grid, split_label
-from vzero.plugins.importers.wells import (
+from vzero.plugins.kinetics.wells import (
     PLATE_SHAPES,
     ROW_LABELS,
     all_wells,

@@ -30,7 +30,7 @@ from typing import Literal
 
 import numpy as np
 from vzero.errors import InputFileError
-from vzero.plugins.importers.wells import is_well, normalise_well
+from vzero.plugins.kinetics.wells import is_well, normalise_well
 
 #: Cell texts (case-insensitive) that mean "the detector was over its range" (our own generic list).
 #: Any cell starting with ``>`` (``>4.0``) means the same.

@@ -1,7 +1,8 @@
 """Built-in rates stage methods: initial rates (v0, signal per second) from each well's progress curve.
 
-Each method is a small :class:`~vzero.stage.Stage` that calls a vectorised kernel (imported in ``run``,
-to keep this module light) and builds the standard rates table (:func:`vzero.plugins.tables.rates_table`).
+Each method is a small :class:`~vzero.plugins.kinetics.methods.RateMethod` whose ``kernel`` calls a vectorised
+function (imported on first use, to keep this module light); the base class builds the standard rates table
+and applies the recipe's exclusions and overrides.
 The methods, their assumptions and which to choose when are described in docs/rates.md.
 
 Methods that judge substrate conversion (``auto``, ``polynomial``, ``progress``, ``lag-decay``) need the
@@ -16,7 +17,7 @@ from typing import Any, ClassVar
 from vzero import hookimpl
 from vzero.errors import StageError
 from vzero.params import Param
-from vzero.stage import Stage, StageInput, StageOutput
+from vzero.plugins.kinetics.methods import PlateView, RateMethod
 
 CONVERSION_PARAMS = {
     "signal_per_conc": Param.quantity("1/M", None, "signal change per unit product concentration, e.g. "
@@ -51,51 +52,21 @@ def conversion(traces: Any, settings: dict[str, Any], warn: Any) -> tuple[Any, f
     return traces.wells["substrate"].to_numpy(dtype=float), sign * value if np.isfinite(value) else None
 
 
-def finish_table(traces: Any, result: Any, method: str, data: StageInput) -> StageOutput:
-    """The standard rates table for ``result``, with the recipe's per-well overrides and exclusions applied
-    (overridden wells recomputed over their fixed windows, each with its reason in the ``note`` column)."""
-    from vzero.plugins.exclusions import apply_overrides
-    from vzero.plugins.tables import rates_table
+class KernelRates(RateMethod):
+    """Shared kernel for methods that call a function ``f(time, signal, s0=, signal_per_conc=, **kw)`` named by
+    ``function`` (``"module:name"``, imported on first use)."""
 
-    table = rates_table(traces, result, method)
-    table = apply_overrides(traces, table, data.recipe.get("overrides") or [])
-    return StageOutput(artifacts={"rates": table}, failed=failed_wells(table.frame))
-
-
-#: Flags that mean the method could not compute a rate for a well that should have one. NO_SIGNAL is not
-#: among them: a well without change (no enzyme, no substrate) is a measurement, not a failure.
-FAILURE_FLAGS = ("fit_failed", "all_missing", "too_few_points")
-
-
-def failed_wells(frame: Any) -> list[str]:
-    """``"C7: fit_failed"`` for each sample well carrying a failure flag (the run's exit code becomes 1)."""
-    if "flags" not in frame or "role" not in frame:
-        return []
-    flags = frame["flags"].astype(str).tolist()
-    failing = {text: bad for text in set(flags) if (bad := [f for f in text.split(";") if f in FAILURE_FLAGS])}
-    if not failing:  # each distinct flag text is read once: most wells share a few
-        return []
-    return [f"{well}: {', '.join(failing[text])}"
-            for well, role, text in zip(frame["well"].tolist(), frame["role"].tolist(), flags, strict=True)
-            if role == "sample" and text in failing]
-
-
-class KernelRates(Stage):
-    """Shared ``run`` for methods that call a kernel ``f(time, signal, s0=, signal_per_conc=, **kw)``."""
-
-    kernel: ClassVar[str] = ""
+    function: ClassVar[str] = ""
     kernel_params: ClassVar[tuple[str, ...]] = ()
 
-    def run(self, data: StageInput) -> StageOutput:
+    def kernel(self, time: Any, signal: Any, plate: PlateView) -> Any:
         import importlib
 
-        traces = data.artifacts["traces"]
-        s0, per = conversion(traces, self.settings, data.warn)
-        module, name = self.kernel.split(":")
+        s0, per = conversion(plate, self.settings, plate.warn)
+        module, name = self.function.split(":")
         func = getattr(importlib.import_module(module), name)
         kwargs = {k: self._value(k) for k in self.kernel_params}
-        result = func(traces.time, traces.masked_signal(), s0=s0, signal_per_conc=per, **kwargs)
-        return finish_table(traces, result, self.method, data)
+        return func(time, signal, s0=s0, signal_per_conc=per, **kwargs)
 
     def _value(self, key: str) -> Any:
         v = self.settings[key]
@@ -107,9 +78,9 @@ class AutoRates(KernelRates):
     (curvature judged by the t statistic of a quadratic term), starting after any lag and ending before
     ``max_conversion``; v0 is the slope at the window start (curvature-aware)."""
 
-    kind, method, version = "rates", "auto", "1.0"
+    method, version = "auto", "1.0"
     summary = "automatic early window, curvature judged against read noise; slope at the window start"
-    kernel = "vzero.plugins.rates.auto:auto"
+    function = "vzero.plugins.rates.auto:auto"
     kernel_params = ("max_conversion", "max_rate_drop", "t_crit", "min_points", "find_lag", "estimate")
     params = {
         **CONVERSION_PARAMS,
@@ -128,9 +99,9 @@ class AutoRates(KernelRates):
 class PolynomialRates(KernelRates):
     """A low-order polynomial over the early curve; v0 is its derivative at the window start."""
 
-    kind, method, version = "rates", "polynomial", "1.0"
+    method, version = "polynomial", "1.0"
     summary = "low-order polynomial over the early curve; derivative at the start"
-    kernel = "vzero.plugins.rates.polynomial:polynomial"
+    function = "vzero.plugins.rates.polynomial:polynomial"
     kernel_params = ("degree", "window_s", "min_points", "max_conversion")
     params = {
         **CONVERSION_PARAMS,
@@ -157,9 +128,9 @@ class ProgressRates(KernelRates):
     empirical order that follows cooperative enzymes, whose rate falls faster than Michaelis–Menten allows
     (measurements in docs/rates.md)."""
 
-    kind, method, version = "rates", "progress", "1.0"
+    method, version = "progress", "1.0"
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
-    kernel = "vzero.plugins.rates.progress:progress_curve"
+    function = "vzero.plugins.rates.progress:progress_curve"
     kernel_params = ("min_points", "fail_ratio", "model")
     params = {
         **CONVERSION_PARAMS,
@@ -173,9 +144,9 @@ class ProgressRates(KernelRates):
 class LagDecayRates(KernelRates):
     """Steady-state rate after a lag phase, extrapolated to its start through first-order inactivation."""
 
-    kind, method, version = "rates", "lag-decay", "1.0"
+    method, version = "lag-decay", "1.0"
     summary = "rate after a lag, extrapolated back through first-order inactivation"
-    kernel = "vzero.plugins.rates.lagdecay:lag_decay"
+    function = "vzero.plugins.rates.lagdecay:lag_decay"
     kernel_params = ("min_points", "fail_ratio")
     params = {
         **CONVERSION_PARAMS,
@@ -184,14 +155,13 @@ class LagDecayRates(KernelRates):
     }
 
 
-class WindowRates(Stage):
+class WindowRates(RateMethod):
     """Least-squares slope over a fixed time window given in the recipe, with its standard error and R².
 
     Simple and transparent, but a straight line through a curving progress curve underestimates v0: use it
     when the window is known to be within the linear, low-conversion part of every curve.
     """
 
-    kind = "rates"
     method = "window"
     version = "1.0"
     summary = "least-squares slope over a fixed window"
@@ -200,15 +170,13 @@ class WindowRates(Stage):
         "end": Param.quantity("s", "120 s", "window end"),
     }
 
-    def run(self, data: StageInput) -> StageOutput:
+    def kernel(self, time: Any, signal: Any, plate: PlateView) -> Any:
         from vzero.plugins.rates.window import window_slopes
 
-        traces = data.artifacts["traces"]
         start, end = self.settings["start"].m_as("s"), self.settings["end"].m_as("s")
         if end <= start:
             raise StageError(f"rates window ends ({end} s) before it starts ({start} s); fix start and end")
-        result = window_slopes(traces.time, traces.masked_signal(), start, end)
-        return finish_table(traces, result, self.method, data)
+        return window_slopes(time, signal, start, end)
 
 
 @hookimpl

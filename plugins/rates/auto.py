@@ -27,10 +27,10 @@ DESIGN science note); its remaining bias is of order (rate drop)², about 0.1-0.
 from __future__ import annotations
 
 import numpy as np
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.lagdecay import detect_lag
 from vzero.plugins.rates.noise import blank_result, check_inputs, conversion_scale, finish, flag_noisy, screen
-from vzero.plugins.rates.result import RateResult
 
 
 def _inv3_sym(m: np.ndarray) -> np.ndarray:

@@ -18,7 +18,8 @@ bound. Without them decay and depletion cannot be told apart from one curve and 
 from __future__ import annotations
 
 import numpy as np
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import (
     Screen,
     blank_result,
@@ -30,7 +31,6 @@ from vzero.plugins.rates.noise import (
 )
 from vzero.plugins.rates.polynomial import masked_polyfit
 from vzero.plugins.rates.progress import batched_lm
-from vzero.plugins.rates.result import RateResult
 
 
 def _block_lines(

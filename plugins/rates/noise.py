@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from vzero.errors import StageError
-from vzero.plugins.flags import Flag
-from vzero.plugins.rates.result import RateResult
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
 
 #: Scale from the median absolute deviation to the standard deviation of a normal distribution.
 MAD_TO_SD = 1.4826

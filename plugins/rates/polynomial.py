@@ -11,9 +11,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import blank_result, check_inputs, conversion_scale, finish, flag_noisy, screen
-from vzero.plugins.rates.result import RateResult
 
 
 @dataclass(frozen=True)

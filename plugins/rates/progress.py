@@ -19,10 +19,10 @@ from dataclasses import dataclass
 
 import numpy as np
 from vzero.errors import StageError
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import blank_result, check_inputs, finish, flag_noisy, screen
 from vzero.plugins.rates.polynomial import masked_polyfit
-from vzero.plugins.rates.result import RateResult
 
 
 @dataclass(frozen=True)

@@ -10,9 +10,9 @@ and NOISY (signal-to-noise of the slope below 10; the rate is kept).
 from __future__ import annotations
 
 import numpy as np
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import flag_noisy
-from vzero.plugins.rates.result import RateResult
 
 MIN_POINTS = 3
 

@@ -15,24 +15,12 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from vzero.plugins.kinetics import flags
 
-FLAG_TEXT: dict[str, str] = {
-    "saturated": "a read hit the detector ceiling; those reads were not used",
-    "high_conversion": "the rate window runs past about 10 % substrate conversion (common practice limit)",
-    "curvature": "the progress curve bends inside the window used",
-    "lag": "the curve starts slowly and speeds up (lag phase)",
-    "decay": "the rate falls faster than substrate depletion explains (loss of activity?)",
-    "noisy": "signal-to-noise below the method's threshold",
-    "too_few_points": "too few usable reads for the method",
-    "all_missing": "no usable read at all",
-    "no_signal": "total change within the read noise: no determinable rate",
-    "fit_failed": "the per-well curve fit did not converge or does not describe the curve",
-    "excluded": "excluded in the recipe",
-    "overridden": "window fixed by hand in the recipe",
-}
+FLAG_TEXT: dict[str, str] = flags.text_by_name()
 """Each quality flag in words, as the report prints it."""
 
-DEFAULT_EXCLUDE = ("saturated", "all_missing", "no_signal", "too_few_points", "fit_failed", "excluded")
+DEFAULT_EXCLUDE = flags.names_of(flags.NOT_FITTED)
 """Flags that keep a well out of the fit when the recipe does not say otherwise (the fit stage's default)."""
 
 MODEL_TITLES: dict[str, str] = {

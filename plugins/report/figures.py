@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Traces
+from vzero.plugins.kinetics import flags
 from vzero.plugins.report import palette
 from vzero.plugins.report.content import flag_list, model_title, num, pretty_unit
 
@@ -33,11 +34,7 @@ DENSE_POINTS = 20_000
 """Reads per progress-curve figure above which the grey read lines go into the SVG as a bitmap (a vector path
 per read makes a big, slow SVG and shows nothing more)."""
 
-FLAG_SHORT = {
-    "saturated": "sat", "high_conversion": "conv", "curvature": "curv", "lag": "lag", "decay": "decay",
-    "noisy": "noisy", "too_few_points": "few", "all_missing": "empty", "no_signal": "no sig",
-    "fit_failed": "fit", "excluded": "excl", "overridden": "fixed",
-}
+FLAG_SHORT = flags.short_by_name()
 
 
 def slug(text: str) -> str:
@@ -176,7 +173,7 @@ def _title(ax: Any, text: str, size: float, pad_pt: float = 6.0) -> None:
 
 def _plate_geometry(wells: Sequence[str]) -> tuple[int, int, np.ndarray, np.ndarray, list[str]]:
     """(rows, columns, row index, column index, row labels) of ``wells`` on the smallest plate holding them."""
-    from vzero.plugins.importers.wells import ROW_LABELS, infer_plate_size, plate_shape, well_index
+    from vzero.plugins.kinetics.wells import ROW_LABELS, infer_plate_size, plate_shape, well_index
 
     size = infer_plate_size(wells)
     n_rows, n_cols = plate_shape(size)

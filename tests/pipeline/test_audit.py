@@ -145,17 +145,16 @@ SLEEPY = '''
 import time
 from pathlib import Path
 from vzero import hookimpl
-from vzero.stage import Stage, StageOutput
+from vzero.plugins.kinetics import RateMethod
 
-class Sleepy(Stage):
-    kind = "rates"
+class Sleepy(RateMethod):
     method = "sleepy"
     version = "1"
 
-    def run(self, data):
+    def kernel(self, time_s, signal, plate):
         Path(__file__).with_name("started").write_text("yes")
         time.sleep(60)
-        return StageOutput()
+        return None
 
 @hookimpl
 def vzero_register(registry):

@@ -11,9 +11,9 @@ from numpy.testing import assert_allclose
 from vzero.audit import reader
 from vzero.data import Traces
 from vzero.errors import RecipeError
-from vzero.plugins.exclusions import apply_exclusions, apply_overrides, check_items
+from vzero.plugins.kinetics.exclusions import apply_exclusions, apply_overrides, check_items
+from vzero.plugins.kinetics.rates_table import rates_table
 from vzero.plugins.rates.window import window_slopes
-from vzero.plugins.tables import rates_table
 from vzero.recipe import parse
 from vzero.run.runner import run
 

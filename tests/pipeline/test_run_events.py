@@ -45,8 +45,8 @@ def test_before_and_after_each_step(tmp_path: Path):
 def test_step_error_event_and_plugin_named(tmp_path: Path):
     recipe = linear_plate(tmp_path / "in")
     (tmp_path / "in" / "boom.py").write_text(
-        "from vzero import hookimpl\nfrom vzero.stage import Stage\n\n"
-        "class Boom(Stage):\n    kind, method = 'rates', 'boom'\n\n    def run(self, data):\n"
+        "from vzero import hookimpl\nfrom vzero.plugins.kinetics import RateMethod\n\n"
+        "class Boom(RateMethod):\n    method = 'boom'\n\n    def kernel(self, time, signal, plate):\n"
         "        raise ZeroDivisionError('no')\n\n@hookimpl\ndef vzero_register(registry):\n"
         "    registry.add(Boom)\n",
         "utf-8",

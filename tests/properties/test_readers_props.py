@@ -13,7 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_array_equal
 from vzero.plugins.importers.readers import ReadOptions, read_table
-from vzero.plugins.importers.wells import all_wells
+from vzero.plugins.kinetics.wells import all_wells
 
 DIALECTS = [(",", ".", "utf-8"), ("\t", ".", "utf-8-sig"), (";", ",", "latin-1"), (";", ".", "utf-8")]
 _value = st.one_of(st.none(), st.floats(-1e6, 1e6, allow_nan=False, allow_infinity=False))

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import pytest
-from vzero.plugins.importers.wells import (
+from vzero.plugins.kinetics.wells import (
     all_wells,
     infer_plate_size,
     normalise_well,

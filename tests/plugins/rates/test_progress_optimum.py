@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 from scipy.special import lambertw
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.rates.progress import progress_curve
 from vzero.plugins.rates.simulate import simulate_plate
 

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from scipy.optimize import curve_fit
 from vzero.errors import StageError
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.rates.auto import auto
 from vzero.plugins.rates.progress import power_conversion, progress_curve
 from vzero.plugins.rates.simulate import simulate_plate

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.optimize import brentq, curve_fit
-from vzero.plugins.flags import Flag
+from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.rates.auto import auto
 from vzero.plugins.rates.lagdecay import lag_decay
 from vzero.plugins.rates.noise import read_noise

@@ -10,9 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 from vzero.data import Table, Traces
+from vzero.plugins.kinetics.rates_table import rates_table
 from vzero.plugins.rates.window import window_slopes
 from vzero.plugins.report.build import ReportInput
-from vzero.plugins.tables import rates_table
 
 GROUP = "E1 <b>&amp;</b>"
 """A group name with markup in it: the report must show it as text, never as HTML."""
@@ -92,7 +92,7 @@ def report_input() -> ReportInput:
     rates = rates_table(traces, result, "window")
     frame = rates.frame.copy()
     frame["plate"] = "p-1"  # rates_table names the traces' plate; the recipe's plate is p-1
-    # C5 excluded by the recipe, as vzero.plugins.exclusions leaves it: flag, no rate, the reason in "note"
+    # C5 excluded by the recipe, as vzero.plugins.kinetics.exclusions leaves it: flag, no rate, the reason in "note"
     c5 = frame["well"] == "C5"
     frame.loc[c5, ["rate", "rate_stderr"]] = np.nan
     frame.loc[c5, "flags"] = "excluded"

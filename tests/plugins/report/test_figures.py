@@ -59,7 +59,7 @@ def test_no_line_without_a_rate():
 
 
 def test_1536_wells_are_subsampled_with_flagged_wells_first():
-    from vzero.plugins.importers.wells import all_wells
+    from vzero.plugins.kinetics.wells import all_wells
 
     wells = all_wells(1536)
     t = np.arange(0.0, 60.0, 10.0)
@@ -78,7 +78,7 @@ def test_1536_wells_are_subsampled_with_flagged_wells_first():
 
 def test_plate_map_places_wells_in_plate_geometry():
     """Well P24 of a 384-well plate is row 16, column 24 (ANSI/SLAS 4-2004 layout: 16 × 24)."""
-    from vzero.plugins.importers.wells import all_wells
+    from vzero.plugins.kinetics.wells import all_wells
 
     wells = all_wells(384)
     rates = pd.DataFrame({"well": wells, "rate": np.arange(384.0), "role": "sample", "flags": ""})

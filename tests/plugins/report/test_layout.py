@@ -106,7 +106,7 @@ def test_plate_figures_keep_every_label_inside_and_apart(report_input):
 
 
 def test_384_well_plate_map_keeps_its_labels_apart():
-    from vzero.plugins.importers.wells import all_wells
+    from vzero.plugins.kinetics.wells import all_wells
 
     wells = all_wells(384)
     rates = pd.DataFrame({"well": wells, "rate": np.linspace(1e-6, 5e-4, 384), "role": "sample", "flags": ""})

@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 from vzero.data import Table, Traces
 from vzero.errors import LayoutError, RecipeError
-from vzero.plugins.flags import Flag, names_array
+from vzero.plugins.kinetics.flags import Flag, names_array
 
 EXCLUSION_KEYS = {"plate", "well", "time", "reason"}
 OVERRIDE_KEYS = {"plate", "well", "start", "end", "reason"}
@@ -54,7 +54,7 @@ def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str]
     are reported before anything runs.
     """
     from vzero.params import closest
-    from vzero.plugins.importers.wells import is_well, normalise_well
+    from vzero.plugins.kinetics.wells import is_well, normalise_well
     from vzero.recipe import format_path
 
     place = where or format_path
@@ -134,7 +134,7 @@ def _raise_if_bad(recipe: Mapping[str, Any]) -> None:
 
 def _rows(traces: Traces, items: Sequence[Mapping[str, Any]], what: str) -> list[tuple[int, Mapping[str, Any]]]:
     """(row of the well in ``traces``, item) for the items naming this plate; an unknown well is an error."""
-    from vzero.plugins.importers.wells import normalise_well
+    from vzero.plugins.kinetics.wells import normalise_well
 
     mine = [item for item in items if str(item.get("plate")) == traces.plate]
     if not mine:
@@ -196,9 +196,9 @@ def apply_overrides(traces: Traces, rates_table: Table, overrides: Sequence[Mapp
     ``rates_table`` is the plate's table from a rates method (one row per well, same order as ``traces``,
     rates in signal units per second). Returns a new table; the given one is not changed.
     """
-    from vzero.plugins.flags import from_names
+    from vzero.plugins.kinetics.flags import from_names
+    from vzero.plugins.kinetics.rates_table import saturation_flags
     from vzero.plugins.rates.window import window_slopes
-    from vzero.plugins.tables import saturation_flags
 
     _raise_if_bad({"overrides": list(overrides)})
     wells = traces.wells

@@ -7,8 +7,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Table, Traces
-from vzero.plugins.flags import Flag, names_array
-from vzero.plugins.rates.result import RateResult
+from vzero.plugins.kinetics.flags import Flag, names_array
+from vzero.plugins.kinetics.rate_result import RateResult
 
 WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor")
 
