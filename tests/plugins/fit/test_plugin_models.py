@@ -90,12 +90,17 @@ def test_report_titles_come_from_the_models() -> None:
     assert content.plain_models("lab-sigmoid over hill", titles) == "Lab sigmoid over Hill"
 
 
-@pytest.mark.parametrize("path", ["plugins/fit/run.py", "plugins/fit/compare.py", "plugins/report/build.py",
-                                  "plugins/report/content.py", "plugins/report/figures.py"])
-def test_fit_and_report_code_name_no_model(path: str) -> None:
+# the inhibition mechanisms are also the values of fit.mechanism (the mechanism a Ki conversion assumes), and
+# "hill" is also the Hill plot among the linear transforms the report draws
+NOT_MODELS = {"competitive", "uncompetitive", "noncompetitive", "mixed"}
+
+
+@pytest.mark.parametrize(("path", "allowed"), [
+    ("plugins/fit/run.py", NOT_MODELS), ("plugins/fit/compare.py", set()), ("plugins/report/build.py", set()),
+    ("plugins/report/content.py", set()), ("plugins/report/figures.py", {"hill"})])
+def test_fit_and_report_code_name_no_model(path: str, allowed: set[str]) -> None:
     """No built-in model name appears as a string in the code that fits or reports (docstrings aside)."""
-    # the inhibition mechanisms are also the values of fit.mechanism (the mechanism a Ki conversion assumes)
-    names = {m.name for m in MODELS} - {"competitive", "uncompetitive", "noncompetitive", "mixed"}
+    names = {m.name for m in MODELS} - allowed
     tree = ast.parse((ROOT / path).read_text(encoding="utf-8"))
     docstrings = {id(n.body[0].value) for n in ast.walk(tree)
                   if isinstance(n, (ast.Module, ast.FunctionDef, ast.ClassDef)) and n.body
