@@ -238,7 +238,7 @@ def fit(
 
     def run(meth: str) -> Any:
         from scipy import optimize  # here, not at the top: a batched fit that needs no fallback never pays its
-        # import (0.1 s, once per process)
+        # import
 
         kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": 100_000}
         if meth != "lm":

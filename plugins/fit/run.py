@@ -170,7 +170,7 @@ def _ki_rows(model: Model, res: engine.FitResult, s: np.ndarray, cfg: Mapping[st
 
 @functools.lru_cache(maxsize=64)
 def _factor(expression: str, target: str) -> float:
-    """:func:`vzero.units.factor`, remembered: parsing units with pint costs about 0.1 ms a call, and the
+    """:func:`vzero.units.factor`, remembered: parsing units with pint is slow next to the arithmetic, and the
     same few unit pairs recur for every group and model."""
     return float(pu.factor(expression, target))
 
