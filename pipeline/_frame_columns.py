@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 
@@ -22,4 +23,10 @@ def columns(frame: pd.DataFrame) -> list[tuple[Any, Any]] | None:
     get = getattr(frame, "_get_column_array", None)
     if get is None or not frame.columns.is_unique:
         return None
-    return [(dtype, get(i)) for i, dtype in enumerate(frame.dtypes)]
+    out = []
+    for i, dtype in enumerate(frame.dtypes):
+        values = get(i)
+        if isinstance(dtype, np.dtype) and not isinstance(values, np.ndarray):  # datetimes come back wrapped
+            values = values.to_numpy()
+        out.append((dtype, values))
+    return out

@@ -20,9 +20,9 @@ def registry() -> Any:
 
     Its units are vzero's own short list (``pipeline/units.txt``: SI prefixes, time, length, volume, molar,
     mass, temperature, enzyme activity, ratios and the plate-reader signals), read much faster than pint's
-    full list, which would dominate the start of every command. pint can also cache parsed definitions as pickle files in the
-    user's cache folder; vzero does not, so that nothing it does ever unpickles a file another program could
-    write."""
+    full list, which would dominate the start of every command. pint can also cache parsed definitions as
+    pickle files in the user's cache folder; vzero does not, so that nothing it does ever unpickles a file
+    another program could write."""
     from importlib import resources
 
     pint = _import_pint()
