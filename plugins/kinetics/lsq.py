@@ -117,15 +117,24 @@ def solve(
     p = np.clip(p, lo, hi)
     eye = np.eye(n_p)
     all_rows = np.arange(g)
+    unit = bool(np.all(w == 1.0))  # every point counts with weight 1: no weighting to apply
+    any_held = bool(held.any())
 
     def evaluate(v: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Weighted residuals [m, n] and weighted Jacobian [m, p, n] (held rows zero) of problems ``rows``."""
         f, jac = model(v, rows)
-        wr = w[rows]
-        r = np.where(wr > 0, wr * (f - y0[rows]), 0.0)
-        jw = jac * wr[:, None, :]
-        jw = np.where(np.isfinite(jw), jw, 0.0)
-        jw *= ~held[rows][:, :, None]
+        whole = rows.size == g
+        r = np.subtract(f, y0 if whole else y0[rows])
+        jw = np.array(jac, dtype=float)  # a copy: the model's array is left alone
+        if not unit:
+            wr = w if whole else w[rows]
+            r *= wr
+            np.copyto(r, 0.0, where=wr == 0)  # a point that does not count, even where the model is not finite
+            jw *= wr[:, None, :]
+        if not np.isfinite(jw.sum()):
+            jw[~np.isfinite(jw)] = 0.0
+        if any_held:
+            jw *= ~(held if whole else held[rows])[:, :, None]
         return r, jw
 
     # one errstate for the whole run: trial steps may overflow; they are refused, not reported
@@ -144,7 +153,8 @@ def solve(
             if act.size == 0:
                 it -= 1
                 break
-            ja, ra, pa = jac[act], r[act], p[act]
+            whole = act.size == g
+            ja, ra, pa = (jac, r, p.copy()) if whole else (jac[act], r[act], p[act])
             a = ja @ ja.transpose(0, 2, 1)
             grad = (ja @ ra[:, :, None])[:, :, 0]  # gradient of cost/2
             diag = np.diagonal(a, axis1=1, axis2=2)
