@@ -108,3 +108,12 @@ def test_fit_and_report_code_name_no_model(path: str, allowed: set[str]) -> None
     found = [n.value for n in ast.walk(tree) if isinstance(n, ast.Constant) and isinstance(n.value, str)
              and id(n) not in docstrings and n.value in names]
     assert not found, f"{path} names built-in models {found}: put what the code needs on the Model"
+
+
+def test_the_report_takes_its_models_from_the_registry() -> None:
+    from vzero.plugins.report.sources import registry_models
+
+    models = registry_models(_registry())
+    assert models["lab-sigmoid"] is LAB_HILL and models["hill"] is BY_NAME["hill"]
+    assert content.model_titles(models)["lab-dose-response"] == "Lab dose response"
+    assert registry_models(None) == {}
