@@ -37,7 +37,7 @@ def _import_pint() -> Any:
     """Import pint without its optional dask support.
 
     When dask is installed (vzero's ``dask`` extra), importing pint imports dask too, to recognise dask
-    arrays of quantities: about 0.07 s of every start, for a feature vzero never uses. While pint is
+    arrays of quantities: a noticeable part of every start, for a feature vzero never uses. While pint is
     imported, ``dask`` is marked as not importable (a ``None`` entry in ``sys.modules``, Python's own way of
     saying so); the mark is taken away at once, so dask imports normally afterwards (``--scheduler``)."""
     import sys
