@@ -5,7 +5,7 @@ Each measurement runs in a fresh subprocess (``python -m bench.pipeline_bench pl
 prints one JSON line, so peak memory (``resource.getrusage``, whole process; and tracemalloc's peak of
 Python-tracked allocations during the run alone) belongs to that measurement only. One BLAS thread, so the
 figures are per core. Plates are invented: a Michaelis–Menten series simulated with
-:func:`vzero.plugins.rates.simulate.simulate_plate`, NADH-like absorbance (6220 M^-1 cm^-1, 0.55 cm), read noise
+:func:`vzero.plugins.kinetics.simulate.simulate_plate`, NADH-like absorbance (6220 M^-1 cm^-1, 0.55 cm), read noise
 0.001 AU, every 16th well a blank.
 """
 
@@ -52,8 +52,8 @@ def write_plate(folder: Path, n_wells: int, n_time: int, seed: int = 0, name: st
     """Write a synthetic wide-table plate and its long layout; return (data, layout) paths."""
     import numpy as np
     import pandas as pd
+    from vzero.plugins.kinetics.simulate import simulate_plate
     from vzero.plugins.kinetics.wells import all_wells
-    from vzero.plugins.rates.simulate import simulate_plate
 
     wells = all_wells(n_wells)
     t = np.linspace(0.0, 600.0, n_time)

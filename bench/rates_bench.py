@@ -1,7 +1,7 @@
 """Benchmark: the vectorised rate kernels against the per-well loops a user would write.
 
 Run on demand (not a test): ``python -m bench.rates_bench [--quick]``. Single-threaded BLAS is forced so
-the ratios are per core. Plates are simulated with :func:`vzero.plugins.rates.simulate.simulate_plate` (invented
+the ratios are per core. Plates are simulated with :func:`vzero.plugins.kinetics.simulate.simulate_plate` (invented
 data: a Michaelis–Menten series S0 = 0.2-5 Km, up to ~30 % conversion, read noise 0.002, every 16th well
 empty). Per-well peers on plates above 96 wells are timed on a sample of wells and scaled to the plate
 (printed as "sampled"); their per-well cost does not depend on the plate size.
@@ -24,10 +24,10 @@ from scipy import stats  # noqa: E402
 from scipy.optimize import OptimizeWarning, curve_fit  # noqa: E402
 from scipy.special import wrightomega  # noqa: E402
 from vzero.plugins.kinetics.flags import Flag  # noqa: E402
+from vzero.plugins.kinetics.simulate import simulate_plate  # noqa: E402
 from vzero.plugins.rates.auto import auto  # noqa: E402
 from vzero.plugins.rates.polynomial import polynomial  # noqa: E402
 from vzero.plugins.rates.progress import progress_curve  # noqa: E402
-from vzero.plugins.rates.simulate import simulate_plate  # noqa: E402
 
 SPC = 5.0  # signal per mM of product (invented)
 KM = 1.0

@@ -17,8 +17,24 @@ import sys
 import tempfile
 from html.parser import HTMLParser
 from pathlib import Path
+from typing import Any
 
 GALLERY = Path(__file__).resolve().parent / "gallery"
+DRIVER = Path(__file__).resolve().parents[1] / "tests" / "plugins" / "report" / "chromium.py"
+
+
+def _browser_driver() -> tuple[Any, Any]:
+    """``check_page`` and ``find_browser`` of the headless-Chromium driver the browser test uses (a test
+    helper, not part of the installed package), loaded from its file."""
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location("vzero_test_chromium", DRIVER)
+    if spec is None or spec.loader is None:
+        raise SystemExit(f"cannot load the browser driver {DRIVER}")
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[spec.name] = module  # dataclasses look their module up while the class is made
+    spec.loader.exec_module(module)
+    return module.check_page, module.find_browser
 
 
 class _Figures(HTMLParser):
@@ -78,8 +94,7 @@ def write_gallery(run_dir: Path, gallery: Path, screenshot: bool = True) -> list
     parser.feed((run_dir / "report.html").read_text("utf-8"))
     shot_note = ""
     if screenshot:
-        from vzero.plugins.report.chromium import check_page, find_browser
-
+        check_page, find_browser = _browser_driver()
         browser = find_browser()
         if browser is None:
             shot_note = "(No screenshot: Chromium was not installed when this gallery was made.)"

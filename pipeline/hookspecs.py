@@ -15,10 +15,16 @@ attribute and existing plugins keep working.
 
 from __future__ import annotations
 
-from typing import Any
+from collections.abc import Callable, Mapping, Sequence
+from typing import TYPE_CHECKING, Any
 
 import pluggy
 from vzero.meta import PROJECT
+
+if TYPE_CHECKING:  # for annotations only: these modules import this one through the plugin manager
+    from vzero.cli.main import Commands
+    from vzero.registry import Registry
+    from vzero.run.steps import StepEvent
 
 hookspec = pluggy.HookspecMarker(PROJECT)
 
@@ -27,7 +33,7 @@ hookspec = pluggy.HookspecMarker(PROJECT)
 
 
 @hookspec
-def vzero_register(registry: Any) -> None:
+def vzero_register(registry: Registry) -> None:
     """Add this plugin's components to ``registry`` (a :class:`vzero.registry.Registry`).
 
     Called once per plugin when the plugin manager is built. Call ``registry.add(component)`` for each stage
@@ -56,7 +62,7 @@ def vzero_register(registry: Any) -> None:
 
 
 @hookspec
-def vzero_commands(commands: Any) -> None:
+def vzero_commands(commands: Commands) -> None:
     """Add command-line subcommands: ``commands.add(name, help, configure, run)``.
 
     ``configure(parser)`` adds arguments to an :class:`argparse.ArgumentParser`; ``run(args) -> int``
@@ -72,7 +78,8 @@ def vzero_commands(commands: Any) -> None:
 
 
 @hookspec
-def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
+def vzero_check_recipe(recipe: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str],
+                       plates: Sequence[str]) -> list[str]:
     """Validate the parts of a recipe that a plugin owns beyond its step parameters.
 
     Called once per recipe, after every step has been checked and before anything runs. ``recipe`` is the
@@ -88,13 +95,14 @@ def vzero_check_recipe(recipe: Any, where: Any, plates: Any) -> list[str]:
             assay = recipe.get("assay", {})
             return [] if "temperature" in assay else [f"{where(('assay',))}: give the temperature"]
     """
+    raise NotImplementedError  # a specification: pluggy calls the plugins' implementations, never this
 
 
 # -- run events (observers) -----------------------------------------------------------------------------
 
 
 @hookspec
-def vzero_before_step(event: Any) -> None:
+def vzero_before_step(event: StepEvent) -> None:
     """Called before a step runs (once per plate for plate-scoped steps).
 
     ``event`` is a :class:`vzero.run.steps.StepEvent` with ``index``, ``kind``, ``method``, ``plate``
@@ -109,7 +117,7 @@ def vzero_before_step(event: Any) -> None:
 
 
 @hookspec
-def vzero_after_step(event: Any) -> None:
+def vzero_after_step(event: StepEvent) -> None:
     """Called after a step succeeded; ``event.seconds`` holds its duration and ``event.output`` the
     :class:`vzero.stage.StageOutput`. Observers must not change the output.
 
@@ -122,7 +130,7 @@ def vzero_after_step(event: Any) -> None:
 
 
 @hookspec
-def vzero_step_error(event: Any) -> None:
+def vzero_step_error(event: StepEvent) -> None:
     """Called when a step raised; ``event.error`` holds the exception. The run then stops for this plate
     (the batch goes on with the others). Return value ignored.
 

@@ -106,7 +106,7 @@ def make_manager(
 
 class _Manager(pluggy.PluginManager):
     """pluggy's manager, quicker at registering a module: pluggy looks up every name a plugin module holds
-    (its imports too) through ``inspect``, about 10 µs a name and a few milliseconds a run. A module's hook
+    (its imports too) through ``inspect``, a cost paid for every run (figures in bench/RESULTS.md). A module's hook
     implementations are functions (or bound methods) in its namespace, the only kinds pluggy itself accepts
     there, so other names are passed over here first; the rest still go through pluggy's own check."""
 
@@ -133,7 +133,7 @@ def _entry_points() -> list[tuple[metadata.EntryPoint, str, str]]:
     """Entry points of the group with their distribution's name and version, sorted, each (distribution,
     name) once.
 
-    Scanning the installed distributions costs a few milliseconds, a large share of a small run, so the
+    Scanning the installed distributions is a noticeable share of a small run, so the
     answer is kept for as long as ``sys.path`` and the modification times of its folders stay the same
     (installing or removing a distribution changes the folder holding its metadata). An entry-point file
     rewritten in place, as an old-style editable install may do, is seen by the next process, not this one."""

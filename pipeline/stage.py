@@ -19,10 +19,13 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 from vzero.errors import PluginError
 from vzero.params import Param
+
+if TYPE_CHECKING:  # for annotations only: the registry module imports this one
+    from vzero.registry import Registry
 
 
 @dataclass(frozen=True)
@@ -53,7 +56,7 @@ class StageInput:
     plate: Mapping[str, Any] | None
     inputs: Mapping[str, RawInput]
     recipe: Mapping[str, Any]
-    registry: Any
+    registry: Registry | None
     warn: Callable[[str], None]
     run: Mapping[str, Any] = field(default_factory=dict)
 

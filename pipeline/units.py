@@ -19,10 +19,10 @@ def registry() -> Any:
     """Return the process-wide :class:`pint.UnitRegistry` (created once, set as pint's application registry).
 
     Its units are vzero's own short list (``pipeline/units.txt``: SI prefixes, time, length, volume, molar,
-    mass, temperature, enzyme activity, ratios and the plate-reader signals), read in a few milliseconds
-    where pint's full list takes about 0.15 s. pint can also cache parsed definitions as pickle files in the
-    user's cache folder; vzero does not, so that nothing it does ever unpickles a file another program could
-    write."""
+    mass, temperature, enzyme activity, ratios and the plate-reader signals), read much faster than pint's
+    full list, which would dominate the start of every command. pint can also cache parsed definitions as
+    pickle files in the user's cache folder; vzero does not, so that nothing it does ever unpickles a file
+    another program could write."""
     from importlib import resources
 
     pint = _import_pint()
@@ -37,7 +37,7 @@ def _import_pint() -> Any:
     """Import pint without its optional dask support.
 
     When dask is installed (vzero's ``dask`` extra), importing pint imports dask too, to recognise dask
-    arrays of quantities: about 0.07 s of every start, for a feature vzero never uses. While pint is
+    arrays of quantities: a noticeable part of every start, for a feature vzero never uses. While pint is
     imported, ``dask`` is marked as not importable (a ``None`` entry in ``sys.modules``, Python's own way of
     saying so); the mark is taken away at once, so dask imports normally afterwards (``--scheduler``)."""
     import sys

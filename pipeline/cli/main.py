@@ -237,7 +237,7 @@ def entry() -> None:
     """The ``vzero`` command: :func:`main`, then a quick exit.
 
     Left to itself, the interpreter would free one by one every object that pandas, pint, scipy and
-    matplotlib made before it exits: about 0.2 s of a two-second run, spent after the work is done. By the
+    matplotlib made before it exits: a tenth of a short run, spent after the work is done. By the
     time :func:`main` returns, every file vzero wrote is closed and on disk, so the exit handlers are run,
     standard output and error flushed, and the process leaves at once with main's exit code (120 if standard
     output could not be written, as Python itself reports). Where a thread is still running, the ordinary
@@ -248,7 +248,9 @@ def entry() -> None:
     code = main()
     if threading.active_count() > 1:  # a plugin left a thread running: let Python end it the usual way
         sys.exit(code)
-    atexit._run_exitfuncs()  # what a normal exit would run (temporary folders, pools, clusters)
+    # what a normal exit would run (temporary folders, pools, clusters): CPython's private hook, the one way to
+    # run the exit handlers before os._exit; tests/pipeline/test_cli_exit.py pins that they run
+    atexit._run_exitfuncs()
     try:
         sys.stdout.flush()
     except (OSError, ValueError):  # output lost (a full disk, a closed pipe): say so in the exit code, as Python

@@ -73,12 +73,12 @@ def run_plate_task(task: PlateTask) -> Any:
     outcome = process_plate(task.plate, task.raws, rec, plugins, steps, task.run_id)
     if not outcome.error:
         _pack(outcome)
-    exc = outcome.artifacts.get("exception")
-    if exc is not None:
+    raised = outcome.artifacts.get("exception")
+    if raised is not None:
         try:
-            pickle.loads(pickle.dumps(exc))
+            pickle.loads(pickle.dumps(raised))
         except Exception:  # an exception type that cannot cross processes: keep its message
-            outcome.artifacts = {"exception": VzeroError(str(exc))}
+            outcome.artifacts = {"exception": VzeroError(str(raised))}
     return outcome
 
 

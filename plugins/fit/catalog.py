@@ -37,12 +37,28 @@ def _resolve(obj: Callable[..., Any] | str) -> Callable[..., Any]:
 
 @dataclass(frozen=True)
 class Model:
-    """A rate law the fit stage can fit.
+    """A rate law the fit stage can fit, with everything the fit and report code need to know about it.
 
     ``units`` maps each parameter to its unit role; ``bounds`` gives default (low, high) per parameter
     (the recipe may override); ``profile`` lists the parameters whose intervals are computed by profile
     likelihood (the ones with skewed sampling distributions); ``nests`` names simpler models this one
     contains as a special case (for the extra-sum-of-squares F-test), with the constraint in words.
+
+    The remaining fields say what the parameters *mean*, so that the fit and report code never test a
+    model's name (a plugin's model gets exactly the treatment of a built-in one); each is empty when it does
+    not apply:
+
+    * ``title``: the name as printed in reports ("Michaelis–Menten"); the name itself when empty;
+    * ``limiting_rate``: the parameter that is the limiting rate Vmax (turnover kcat = Vmax/[E]);
+    * ``michaelis_constant``: the parameter that is a Michaelis constant Km (specificity kcat/Km);
+    * ``half_saturation``: the substrate level of half the limiting rate (Km, K0.5): a substrate-only fit
+      whose value lies above the highest substrate level tested has not determined it nor the limiting rate;
+    * ``cooperativity``: the cooperativity coefficient (the Hill h): the model forms the cooperativity test,
+      the interval of that parameter against 1 with the F-test against the nested model where it is 1
+      (:meth:`cooperativity_reference`);
+    * ``ki_from``: the fitted constant (IC50, Ki_app) that converts to an inhibition constant Ki once the
+      mechanism is known, by the published conversion named in ``ki_conversion``; ``ki_assumes`` states
+      what that conversion takes for granted, in words.
     """
 
     name: str
@@ -57,7 +73,26 @@ class Model:
     bounds: Mapping[str, tuple[float, float]] = field(default_factory=dict)
     profile: tuple[str, ...] = ()
     nests: Mapping[str, str] = field(default_factory=dict)
+    title: str = ""
+    limiting_rate: str = ""
+    michaelis_constant: str = ""
+    half_saturation: str = ""
+    cooperativity: str = ""
+    ki_from: str = ""
+    ki_conversion: str = ""
+    ki_assumes: str = ""
     kind: str = "model"
+
+    @property
+    def display(self) -> str:
+        """The model's name as printed (``title``, or the name when it has none)."""
+        return self.title or self.name
+
+    def cooperativity_reference(self) -> str:
+        """The nested model where the cooperativity coefficient is 1 (``nests`` entry ``"h = 1"``), or ''."""
+        if not self.cooperativity:
+            return ""
+        return next((m for m, rule in self.nests.items() if rule.replace(" ", "") == f"{self.cooperativity}=1"), "")
 
     def evaluate(self, params: Sequence[Any], x: Mapping[str, Any]) -> Any:
         """Predicted rates (same unit as the data's rates)."""
@@ -80,39 +115,51 @@ POS = (0.0, INF)
 
 
 def _m(name: str, params: str, roles: str, variables: str, impl: str, guess: str, equation: str, summary: str,
-       bounds: Mapping[str, tuple[float, float]], profile: str, nests: Mapping[str, str] | None = None) -> Model:
+       bounds: Mapping[str, tuple[float, float]], profile: str, nests: Mapping[str, str] | None = None,
+       **facts: str) -> Model:
     """Compact constructor for the built-ins: ``params``/``roles``/``variables``/``profile`` are
-    space-separated (role ``-`` means dimensionless); ``impl`` is the stem of the function names."""
+    space-separated (role ``-`` means dimensionless); ``impl`` is the stem of the function names; ``facts``
+    are the meaning fields of :class:`Model` (``title``, ``limiting_rate``, ...)."""
     names = tuple(params.split())
     units = {n: ("" if r == "-" else r) for n, r in zip(names, roles.split(), strict=True)}
     return Model(name, names, units, tuple(variables.split()), _impl(f"_{impl}"), _impl(f"_{impl}_jac"),
-                 _impl(f"_{guess}_guess"), equation, summary, bounds, tuple(profile.split()), nests or {})
+                 _impl(f"_{guess}_guess"), equation, summary, bounds, tuple(profile.split()), nests or {}, **facts)
 
+
+_MICHAELIS = {"limiting_rate": "Vmax", "michaelis_constant": "Km", "half_saturation": "Km"}
+"""The meaning of Vmax and Km in every Michaelis–Menten-type rate law."""
 
 MODELS: tuple[Model, ...] = (
     _m("michaelis-menten", "Vmax Km", "rate substrate", "substrate", "mm", "mm", "v = Vmax·S/(Km + S)",
-       "Michaelis-Menten rate law", {"Km": POS}, "Km"),
+       "Michaelis-Menten rate law", {"Km": POS}, "Km", title="Michaelis–Menten",
+       **_MICHAELIS),
     _m("hill", "Vmax K0.5 h", "rate substrate -", "substrate", "hill", "hill", "v = Vmax·S^h/(K0.5^h + S^h)",
-       "Hill equation (cooperativity)", {"K0.5": POS, "h": (0.05, 20.0)}, "K0.5 h", {"michaelis-menten": "h = 1"}),
+       "Hill equation (cooperativity)", {"K0.5": POS, "h": (0.05, 20.0)}, "K0.5 h", {"michaelis-menten": "h = 1"},
+       title="Hill", limiting_rate="Vmax", half_saturation="K0.5", cooperativity="h"),
     _m("substrate-inhibition", "Vmax Km Ksi", "rate substrate substrate", "substrate", "si", "si",
        "v = Vmax·S/(Km + S + S²/Ksi)", "Haldane substrate inhibition", {"Km": POS, "Ksi": POS}, "Km Ksi",
-       {"michaelis-menten": "Ksi → ∞"}),
+       {"michaelis-menten": "Ksi → ∞"}, **_MICHAELIS),
     _m("competitive", "Vmax Km Kic", "rate substrate inhibitor", "substrate inhibitor", "competitive", "inhib1",
-       "v = Vmax·S/(Km(1 + I/Kic) + S)", "competitive inhibition", {"Km": POS, "Kic": POS}, "Km Kic"),
+       "v = Vmax·S/(Km(1 + I/Kic) + S)", "competitive inhibition", {"Km": POS, "Kic": POS}, "Km Kic",
+       **_MICHAELIS),
     _m("uncompetitive", "Vmax Km Kiu", "rate substrate inhibitor", "substrate inhibitor", "uncompetitive",
-       "inhib1", "v = Vmax·S/(Km + S(1 + I/Kiu))", "uncompetitive inhibition", {"Km": POS, "Kiu": POS}, "Km Kiu"),
+       "inhib1", "v = Vmax·S/(Km + S(1 + I/Kiu))", "uncompetitive inhibition", {"Km": POS, "Kiu": POS}, "Km Kiu",
+       **_MICHAELIS),
     _m("mixed", "Vmax Km Kic Kiu", "rate substrate inhibitor inhibitor", "substrate inhibitor", "mixed", "inhib2",
        "v = Vmax·S/(Km(1 + I/Kic) + S(1 + I/Kiu))", "mixed inhibition", {"Km": POS, "Kic": POS, "Kiu": POS},
-       "Km Kic Kiu", {"competitive": "Kiu → ∞", "uncompetitive": "Kic → ∞", "noncompetitive": "Kic = Kiu"}),
+       "Km Kic Kiu", {"competitive": "Kiu → ∞", "uncompetitive": "Kic → ∞", "noncompetitive": "Kic = Kiu"},
+       **_MICHAELIS),
     _m("noncompetitive", "Vmax Km Ki", "rate substrate inhibitor", "substrate inhibitor", "noncompetitive",
        "inhib1", "v = Vmax·S/((Km + S)(1 + I/Ki))", "pure noncompetitive inhibition", {"Km": POS, "Ki": POS},
-       "Km Ki"),
+       "Km Ki", **_MICHAELIS),
     _m("morrison", "v0 Ki_app", "rate inhibitor", "inhibitor enzyme", "morrison", "morrison",
        "v = v0·(1 − ((E + I + Ki_app) − √((E + I + Ki_app)² − 4EI))/(2E))",
-       "Morrison tight-binding inhibition (enzyme converted to the inhibitor's unit)", {"Ki_app": POS}, "Ki_app"),
+       "Morrison tight-binding inhibition (enzyme converted to the inhibitor's unit)", {"Ki_app": POS}, "Ki_app",
+       ki_from="Ki_app", ki_conversion="Morrison Ki_app"),
     _m("logistic-4p", "top bottom IC50 slope", "rate rate inhibitor -", "inhibitor", "logistic", "logistic",
        "v = bottom + (top − bottom)/(1 + (I/IC50)^slope)", "four-parameter logistic dose-response",
-       {"IC50": POS}, "IC50"),
+       {"IC50": POS}, "IC50", ki_from="IC50", ki_conversion="Cheng-Prusoff",
+       ki_assumes="assumes enzyme well below IC50 (no tight binding; fit morrison otherwise)"),
 )
 
 BY_NAME = {m.name: m for m in MODELS}

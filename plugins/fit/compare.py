@@ -5,7 +5,8 @@ points than one that does not). Within such a set the preferred model is the one
 unless it contains a simpler fitted model as a special case (``Model.nests``) and the F-test does not
 support the extra parameters at level ``alpha``: then the simpler model is preferred (parsimony).
 
-Cooperativity verdict (from a Hill fit and its comparison with Michaelis-Menten), in this order:
+Cooperativity verdict (from the fit of a model that declares a cooperativity coefficient, the Hill equation's
+h among the built-ins, and its comparison with the nested model where that coefficient is 1), in this order:
 
 1. no usable Hill fit or no interval for h                          -> "not resolved by these data"
 2. interval of h excludes 1 and the F-test agrees (p < alpha)       -> "positive" (h > 1) / "negative" (h < 1)
@@ -106,27 +107,34 @@ def compare_set(
 
 
 def cooperativity(
-    hill: FitResult | None, ci: tuple[float, float, str], p_vs_mm: float, alpha: float = 0.05
+    fit: FitResult | None, ci: tuple[float, float, str], p_vs_reference: float, alpha: float = 0.05,
+    *, names: tuple[str, str, str],
 ) -> tuple[str, str]:
-    """The verdict on h and the reason in words (rule in the module docstring). ``ci`` is (low, high,
-    method)."""
+    """The verdict on the cooperativity coefficient and the reason in words (rule in the module docstring).
+
+    ``ci`` is (low, high, method) of the coefficient; ``p_vs_reference`` the F-test p-value against the
+    nested model where the coefficient is 1; ``names`` are the printed names of the model (``Hill``), of
+    that reference model (``Michaelis–Menten``) and of the coefficient (``h``), as the model declares them.
+    """
+    title, reference, h = names
     low, high, method = ci
-    if hill is None or not hill.success:
-        return "not resolved by these data", "the Hill equation could not be fitted"
+    if fit is None or not fit.success:
+        return "not resolved by these data", f"the {title} equation could not be fitted"
     if not (np.isfinite(low) and np.isfinite(high)):
-        return "not resolved by these data", f"no {method} interval for h (open or undetermined)"
-    f_known = np.isfinite(p_vs_mm)
-    f_txt = f"F-test against Michaelis-Menten p = {p_vs_mm:.3g}" if f_known else "no F-test against Michaelis-Menten"
+        return "not resolved by these data", f"no {method} interval for {h} (open or undetermined)"
+    f_known = np.isfinite(p_vs_reference)
+    f_txt = (f"F-test against {reference} p = {p_vs_reference:.3g}" if f_known
+             else f"no F-test against {reference}")
     if low > 1 or high < 1:
         side = "positive" if low > 1 else "negative"
-        if f_known and p_vs_mm >= alpha:
-            return "not resolved by these data", (f"the {method} interval of h excludes 1 but the {f_txt} "
-                                                  f"does not prefer Hill")
-        return side, f"{method} interval of h [{low:.3g}, {high:.3g}] excludes 1; {f_txt}"
-    if f_known and p_vs_mm < alpha:
-        return "not resolved by these data", f"interval of h contains 1 but the {f_txt} prefers Hill"
+        if f_known and p_vs_reference >= alpha:
+            return "not resolved by these data", (f"the {method} interval of {h} excludes 1 but the {f_txt} "
+                                                  f"does not prefer {title}")
+        return side, f"{method} interval of {h} [{low:.3g}, {high:.3g}] excludes 1; {f_txt}"
+    if f_known and p_vs_reference < alpha:
+        return "not resolved by these data", f"interval of {h} contains 1 but the {f_txt} prefers {title}"
     if EQUIVALENCE[0] <= low and high <= EQUIVALENCE[1]:
-        return "none", (f"{method} interval of h [{low:.3g}, {high:.3g}] contains 1 and lies within "
+        return "none", (f"{method} interval of {h} [{low:.3g}, {high:.3g}] contains 1 and lies within "
                         f"[{EQUIVALENCE[0]:g}, {EQUIVALENCE[1]:g}]; {f_txt}")
-    return "not resolved by these data", (f"{method} interval of h [{low:.3g}, {high:.3g}] contains 1 but is too "
-                                          f"wide to rule out cooperativity; {f_txt}")
+    return "not resolved by these data", (f"{method} interval of {h} [{low:.3g}, {high:.3g}] contains 1 but is "
+                                          f"too wide to rule out cooperativity; {f_txt}")

@@ -4,9 +4,9 @@ Two entry points share :class:`FitResult`:
 
 * :func:`fit` fits one data set with :func:`scipy.optimize.least_squares` (trust-region reflective,
   analytic Jacobian, tolerances 1e-15), used for single fits, for profile likelihood and as the fallback.
-* :func:`fit_batch` fits many groups of the same model at once with a Levenberg-Marquardt iteration
-  vectorised over groups (numpy arrays ``[n_groups, n_points]``, padding masked out); a group it cannot
-  bring to a clean minimum is refitted by :func:`fit`.
+* :func:`fit_batch` fits many groups of the same model at once with the batched Levenberg-Marquardt solver
+  the rates methods share (:mod:`vzero.plugins.kinetics.lsq`; numpy arrays ``[n_groups, n_points]``,
+  padding masked out); a group it cannot bring to a clean minimum is refitted by :func:`fit`.
 
 Model functions take ``(params, x)`` where ``params`` is a sequence of arrays (one per parameter, each
 broadcastable against the arrays of ``x``, a mapping of independent variables) and return the predicted
@@ -27,7 +27,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import special  # t and F quantiles without importing scipy.stats (0.3 s)
+from scipy import special  # t and F quantiles without importing scipy.stats
+from vzero.plugins.kinetics import lsq
 
 Func = Callable[[Sequence[Any], Mapping[str, np.ndarray]], np.ndarray]
 Jac = Callable[[Sequence[Any], Mapping[str, np.ndarray]], Sequence[np.ndarray]]
@@ -237,7 +238,7 @@ def fit(
 
     def run(meth: str) -> Any:
         from scipy import optimize  # here, not at the top: a batched fit that needs no fallback never pays its
-        # import (0.1 s, once per process)
+        # import
 
         kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": 100_000}
         if meth != "lm":
@@ -273,96 +274,36 @@ def _fill_value(used: np.ndarray) -> float:
     return float(finite.mean()) if finite.size else 1.0
 
 
-STALL_GRADIENT = 1e-8
-"""Scaled gradient (the largest cosine between the residual vector and a Jacobian column) below which
-refused steps end the iteration as converged: MINPACK's gtol test (scipy's default gtol is 1e-8), applied
-when no step can be verified."""
-
-STALL_REFUSALS = 3
-"""Steps refused in a row (the damping grown 64-fold) before :data:`STALL_GRADIENT` may end the iteration."""
+LM_TOLERANCES = {"ftol": 1e-13, "xtol": 1e-9, "gtol": 1e-12}
+"""Convergence tolerances of the batched fits (:func:`vzero.plugins.kinetics.lsq.solve`): tight, because a
+group that ends short of its minimum shifts the parameters the report prints (NIST StRD certified values are
+matched to 1e-6 in the tests)."""
 
 
 def _lm(func: Func, jac: Jac, xs: Mapping[str, np.ndarray], yz: np.ndarray, w: np.ndarray, vals: np.ndarray,
         free: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int, lam0: float = 1e-3,
         ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Levenberg-Marquardt vectorised over groups (the core of :func:`fit_batch` and :func:`profile_batch`).
+    """The shared batched Levenberg-Marquardt solver (:func:`vzero.plugins.kinetics.lsq.solve`, its bound
+    handling and convergence rules) on a model given as ``func``/``jac`` of parameters and data mappings.
 
     ``xs``/``yz``/``w`` are [g, n] with padding weighted 0; ``vals`` [g, p] start values (fixed columns
     already set); ``free`` [p] or [g, p] (a per-group mask lets a profile fix one parameter per group);
     ``lam0`` the initial damping (small for a warm start near the solution, as in profiles).
-    Returns (values, weighted residuals, weighted Jacobian with fixed columns zeroed, converged, nfev).
+    Returns (values, weighted residuals, weighted Jacobian [g, n, p] with fixed columns zeroed, converged,
+    nfev); a stalled group counts as not converged (the caller refits it).
     """
-    g, npts = yz.shape
-    p = vals.shape[1]
-    vals = vals.copy()
-    free = np.broadcast_to(free, (g, p))
-    mask = w > 0
-    rows = np.arange(g)
+    npts = yz.shape[1]
+    n_par = vals.shape[1]
 
-    def params_of(v: np.ndarray) -> list[np.ndarray]:
-        return [v[:, j, None] for j in range(p)]
+    def model(v: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        x = {k: a[rows] for k, a in xs.items()}
+        params = [v[:, j, None] for j in range(n_par)]
+        f = np.broadcast_to(func(params, x), (rows.size, npts))
+        return f, np.moveaxis(_jacobian(jac, v, x, (rows.size, npts)), -1, 1)
 
-    def resid(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:  # called inside errstate(all="ignore")
-        return np.where(mask[i], w[i] * (func(params_of(v), {k: a[i] for k, a in xs.items()}) - yz[i]), 0.0)
-
-    def jmat(v: np.ndarray, i: np.ndarray = rows) -> np.ndarray:  # called inside errstate(all="ignore")
-        jm = _jacobian(jac, v, {k: a[i] for k, a in xs.items()}, (len(i), npts)) * w[i][:, :, None]
-        jm = np.where(np.isfinite(jm), jm, 0.0)
-        return jm * free[i][:, None, :]
-
-    # one errstate for the whole run (entering it costs a few µs, a cost paid per iteration otherwise):
-    # trial steps may overflow; they are rejected, not reported
-    with np.errstate(all="ignore"):
-        r = resid(vals)
-        cost = np.sum(r**2, axis=1)
-        lam = np.full(g, lam0)
-        active = np.isfinite(cost)
-        converged = np.zeros(g, bool)
-        refused = np.zeros(g, int)  # steps refused in a row
-        nfev = np.ones(g, int)
-        eye = np.eye(p)
-        for _ in range(max_iter):
-            if not active.any():
-                break
-            idx = np.flatnonzero(active)
-            jm = jmat(vals[idx], idx)
-            ri = r[idx]
-            jtj = np.einsum("gni,gnj->gij", jm, jm)
-            grad = np.einsum("gni,gn->gi", jm, ri)
-            scale = np.einsum("gii->gi", jtj)
-            scale = np.where(scale > 0, scale, 1.0)
-            gnorm = np.max(np.abs(grad) / np.sqrt(scale) / np.sqrt(np.maximum(cost[idx], 1e-300))[:, None], axis=1)
-            a = jtj + lam[idx, None, None] * (scale[:, :, None] * eye) + (~free[idx])[:, :, None] * eye
-            try:
-                step = -np.linalg.solve(a, grad[:, :, None])[:, :, 0]
-            except np.linalg.LinAlgError:
-                step = -np.stack([np.linalg.lstsq(ai, gi, rcond=None)[0] for ai, gi in zip(a, grad, strict=True)])
-            # a step that would cross a bound goes 90 % of the way to it instead: a parameter stays inside an
-            # open bound such as IC50 > 0, where the model degenerates and LM would stall at a false point
-            trial = vals[idx] + step
-            trial = np.where(trial < lo, lo + 0.1 * (vals[idx] - lo), np.where(trial > hi, hi - 0.1 * (hi - vals[idx]),
-                                                                               trial))
-            rt = resid(trial, idx)
-            ct = np.sum(rt**2, axis=1)
-            nfev[idx] += 1
-            better = np.isfinite(ct) & (ct <= cost[idx])
-            rel_cost = np.where(better, (cost[idx] - ct) / np.maximum(cost[idx], 1e-300), np.inf)
-            rel_step = np.max(np.abs(trial - vals[idx]) / (np.abs(vals[idx]) + 1e-300), axis=1)
-            vals[idx[better]] = trial[better]
-            r[idx[better]] = rt[better]
-            cost[idx[better]] = ct[better]
-            lam[idx] = np.where(better, np.maximum(lam[idx] / 10, 1e-12), lam[idx] * 4)
-            # converged: an accepted step that changed nothing, a vanishing gradient, or steps refused again
-            # and again at a point where the gradient is already orthogonal to the residuals (at the minimum to
-            # working precision, trial steps only add rounding noise: raising the damping until one is
-            # accepted would cost dozens of iterations and move nothing)
-            refused[idx] = np.where(better, 0, refused[idx] + 1)
-            done = ((better & (rel_cost < 1e-13) & (rel_step < 1e-9)) | (gnorm < 1e-12)
-                    | ((refused[idx] >= STALL_REFUSALS) & (gnorm < STALL_GRADIENT)))
-            stuck = lam[idx] > 1e16
-            converged[idx[done]] = True
-            active[idx[done | stuck]] = False
-        return vals, r, jmat(vals), converged, nfev
+    sol = lsq.solve(model, vals, yz, w, lower=lo, upper=hi, free=free, max_iter=max_iter, lam0=lam0,
+                    **LM_TOLERANCES)
+    return sol.params, sol.resid, np.moveaxis(sol.jac, 1, -1), sol.converged, sol.nfev
 
 
 def fit_batch(
@@ -384,10 +325,9 @@ def fit_batch(
     """Fit many groups of one model at once: ``y``, ``mask`` and each ``x`` array are [n_groups, n_points]
     (``mask`` False on padding), ``p0`` is [n_groups, n_params]. Returns one :class:`FitResult` per group.
 
-    Levenberg-Marquardt with Marquardt's diagonal scaling and a damping factor per group, steps projected
-    onto the bounds; a group stops when the relative RSS change and the relative step are both below 1e-13
-    or the scaled gradient vanishes. Groups that end elsewhere, or fit no better than a constant, are
-    refitted one by one with :func:`fit`.
+    The shared batched Levenberg-Marquardt solver (:mod:`vzero.plugins.kinetics.lsq`: open bounds, damping
+    and convergence rules documented there) with :data:`LM_TOLERANCES`. Groups that end elsewhere (stalled,
+    or out of iterations), or fit no better than a constant, are refitted one by one with :func:`fit`.
     """
     y = np.asarray(y, float)
     mask = np.asarray(mask, bool)

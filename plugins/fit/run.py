@@ -26,6 +26,8 @@ NOT_DETERMINED = "not determined"
 
 
 def _models(names: list[str], registry: Any) -> list[Model]:
+    """The recipe's models, from the registry (built-in and plugin models alike; the built-in catalog when
+    the stage runs without a registry, as in unit tests)."""
     out = []
     for name in names:
         if registry is not None and ("model", name) in registry:
@@ -69,16 +71,16 @@ def _sigma(weighting: str, y: np.ndarray, levels: np.ndarray) -> tuple[np.ndarra
 
 
 def _saturation_problem(model: Model, res: engine.FitResult, s: np.ndarray) -> str:
-    """Reason why Vmax and the half-saturation constant are not determined, or ''."""
-    k = "Km" if "Km" in model.params else "K0.5" if "K0.5" in model.params else ""
-    if not (res.success and k and "Vmax" in model.params and model.variables == ("substrate",)):
+    """Reason why the limiting rate and the half-saturation constant are not determined, or ''."""
+    k, vmax = model.half_saturation, model.limiting_rate
+    if not (res.success and k and vmax and model.variables == ("substrate",)):
         return ""
     smax = float(np.max(s))
     kv = res.value(k)
     if np.isfinite(kv) and kv > smax:
         return (f"the highest substrate level ({smax:.4g}) is below the fitted {k} ({kv:.4g}): the rates never "
-                f"approach saturation, so Vmax and {k} are not determined separately (only Vmax/{k} = "
-                f"{res.value('Vmax') / kv:.4g} is); extend the substrate range")
+                f"approach saturation, so {vmax} and {k} are not determined separately (only {vmax}/{k} = "
+                f"{res.value(vmax) / kv:.4g} is); extend the substrate range")
     return ""
 
 
@@ -115,10 +117,6 @@ def _derived_row(name: str, est: float, se: float, unit: str, tq: float, note: s
             "unit": unit, "fixed": False, "note": note}
 
 
-KI_FROM = {"logistic-4p": "IC50", "morrison": "Ki_app"}
-"""Models whose fitted constant converts to Ki once the mechanism is known, and that constant's name."""
-
-
 def _ki_rows(model: Model, res: engine.FitResult, s: np.ndarray, cfg: Mapping[str, Any], iu: str, su: str,
              confidence: float) -> list[dict[str, Any]]:
     """Ki from IC50 (Cheng & Prusoff 1973) or from Morrison's Ki_app, for the mechanism the recipe assumes.
@@ -128,13 +126,13 @@ def _ki_rows(model: Model, res: engine.FitResult, s: np.ndarray, cfg: Mapping[st
     independent); the substrate concentration is taken as exact. Refused, with the reason, when the recipe
     names no mechanism or S or Km is missing.
     """
-    src = KI_FROM.get(model.name)
-    if src is None or src not in res.params:
+    src = model.ki_from
+    if not src or src not in res.params:
         return []
     k = res.params[src]
     mech = str(cfg["mechanism"])
     tq = engine.t_quantile(confidence, res.dof)
-    how = "Cheng-Prusoff" if src == "IC50" else "Morrison Ki_app"
+    how = model.ki_conversion
 
     def refuse(why: str) -> list[dict[str, Any]]:
         return [_derived_row("Ki", np.nan, np.nan, iu, tq, f"{NOT_DETERMINED}: {why}")]
@@ -142,9 +140,7 @@ def _ki_rows(model: Model, res: engine.FitResult, s: np.ndarray, cfg: Mapping[st
     if mech == "none":
         return refuse(f"no mechanism given (set fit.mechanism to competitive, uncompetitive or noncompetitive); "
                       f"the conversion of {src} to Ki depends on it")
-    assumed = f"mechanism assumed: {mech} (fit.mechanism), {how}"
-    if src == "IC50":
-        assumed += "; assumes enzyme well below IC50 (no tight binding; fit morrison otherwise)"
+    assumed = "; ".join(filter(None, [f"mechanism assumed: {mech} (fit.mechanism), {how}", model.ki_assumes]))
     if mech == "noncompetitive":
         return [_derived_row("Ki", k.value, k.stderr, iu, tq, f"Ki = {src}; {assumed}")]
     s = s[np.isfinite(s)]
@@ -174,23 +170,25 @@ def _ki_rows(model: Model, res: engine.FitResult, s: np.ndarray, cfg: Mapping[st
 
 @functools.lru_cache(maxsize=64)
 def _factor(expression: str, target: str) -> float:
-    """:func:`vzero.units.factor`, remembered: parsing units with pint costs about 0.1 ms a call, and the
+    """:func:`vzero.units.factor`, remembered: parsing units with pint is slow next to the arithmetic, and the
     same few unit pairs recur for every group and model."""
     return float(pu.factor(expression, target))
 
 
 def _derived(model: Model, res: engine.FitResult, e: float, eu: str, ru: str, su: str,
              confidence: float) -> list[dict[str, Any]]:
-    """kcat = Vmax/[E] (1/s) and kcat/Km (1/(M·s)) with delta-method standard errors."""
-    if "Vmax" not in model.params:
+    """kcat = Vmax/[E] (1/s) and kcat/Km (1/(M·s)) with delta-method standard errors, for a model with a
+    limiting rate (and a Michaelis constant)."""
+    if not model.limiting_rate:
         return []
     rows = []
     tq = engine.t_quantile(confidence, res.dof)
-    v = res.params["Vmax"]
-    iv = res.names.index("Vmax")
+    v = res.params[model.limiting_rate]
+    iv = res.names.index(model.limiting_rate)
 
     def row(name: str, est: float, se: float, unit: str, note: str = "") -> dict[str, Any]:
-        return _derived_row(name, est, se, unit, tq, note or ("" if np.isfinite(se) else "no standard error for Vmax"))
+        return _derived_row(name, est, se, unit, tq,
+                            note or ("" if np.isfinite(se) else f"no standard error for {model.limiting_rate}"))
 
     if not (np.isfinite(e) and e > 0):
         why = "enzyme concentration unknown or not the same in every well of the group" if not np.isfinite(e) \
@@ -202,7 +200,7 @@ def _derived(model: Model, res: engine.FitResult, e: float, eu: str, ru: str, su
         return [row("kcat", np.nan, np.nan, "1/s", f"{NOT_DETERMINED}: rate unit {ru!r} and enzyme unit {eu!r} do "
                     f"not give a turnover ({exc}); convert rates to concentration per time first")]
     rows.append(row("kcat", v.value / e * f1, v.stderr / e * f1, "1/s"))
-    k = "Km" if "Km" in model.params else ""
+    k = model.michaelis_constant
     if k:
         try:
             f2 = _factor(f"({ru})/(({eu})*({su}))", "1/M/s")
@@ -436,7 +434,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
             row = {"parameter": name, "estimate": p.value, "stderr": p.stderr, "ci_low": p.ci_low,
                    "ci_high": p.ci_high, "ci_method": p.ci_method, "unit": p.unit, "fixed": p.fixed,
                    "note": "; ".join(filter(None, [p.note, problem]))}
-            if saturation and name in ("Vmax", "Km", "K0.5"):
+            if saturation and name in (model.limiting_rate, model.half_saturation):
                 row.update(estimate=np.nan, stderr=np.nan, ci_low=np.nan, ci_high=np.nan, ci_method="",
                            note=f"{NOT_DETERMINED}: {problem}")
             fit_rows.append({**common, **row})
@@ -463,16 +461,21 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
         for k, (_, members) in enumerate(sorted(sets.items(), key=lambda kv: sorted(kv[1]))):
             rows, _, _ = compare.compare_set(members, nests, float(cfg["alpha"]))
             comp_rows += [{"group": g, "comparison_set": k + 1, **r} for r in rows]
-        hill = fits.get((g, "hill"))
-        if hill is not None:
-            mm = fits.get((g, "michaelis-menten"))
-            t = compare.f_test(mm, hill, ("michaelis-menten", "hill")) if mm is not None else None
-            h = hill.params["h"]
-            ci = (h.ci_low, h.ci_high, h.ci_method) if hill.success else (np.nan, np.nan, "")
-            verdict, reason = compare.cooperativity(hill, ci, t.p if t else np.nan, float(cfg["alpha"]))
-            coop_rows.append({"group": g, "h": h.value, "stderr": h.stderr, "ci_low": ci[0], "ci_high": ci[1],
-                              "ci_method": ci[2], "F": t.f if t else np.nan, "p_vs_michaelis_menten":
-                              t.p if t else np.nan, "verdict": verdict, "reason": reason})
+        for model in models:  # every model that declares a cooperativity coefficient forms the test
+            coop = fits.get((g, model.name))
+            if not model.cooperativity or coop is None:
+                continue
+            ref_name = model.cooperativity_reference()
+            ref = fits.get((g, ref_name)) if ref_name else None
+            t = compare.f_test(ref, coop, (ref_name, model.name)) if ref is not None else None
+            h = coop.params[model.cooperativity]
+            ci = (h.ci_low, h.ci_high, h.ci_method) if coop.success else (np.nan, np.nan, "")
+            ref_title = by_name[ref_name].display if ref_name in by_name else ref_name or "the simpler model"
+            verdict, reason = compare.cooperativity(coop, ci, t.p if t else np.nan, float(cfg["alpha"]),
+                                                    names=(model.display, ref_title, model.cooperativity))
+            coop_rows.append({"group": g, "model": model.name, "h": h.value, "stderr": h.stderr, "ci_low": ci[0],
+                              "ci_high": ci[1], "ci_method": ci[2], "F": t.f if t else np.nan,
+                              "p_vs_michaelis_menten": t.p if t else np.nan, "verdict": verdict, "reason": reason})
 
     diag_blocks: list[dict[str, np.ndarray]] = []
     for g in sorted(set(groups[use])):
@@ -480,10 +483,10 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
         if idx.size == 0:
             continue
         vmax = np.nan
-        for mname in ("hill", "michaelis-menten"):
-            res = fits.get((g, mname))
-            if res is not None and res.success and np.isfinite(res.value("Vmax")):
-                vmax = res.value("Vmax")
+        for model in _vmax_sources(models):
+            res = fits.get((g, model.name))
+            if res is not None and res.success and np.isfinite(res.value(model.limiting_rate)):
+                vmax = res.value(model.limiting_rate)
                 break
         diag_blocks.append(diagnostics.transforms(g, var["substrate"][idx], rate[idx], vmax,
                                             list(zip(plate[idx], well[idx], strict=True)), su or "1", ru or "1"))
@@ -498,8 +501,8 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
                       {"rss": rss_unit} if rss_unit else {}, meta),
         "model_comparison": Table(pd.DataFrame(comp_rows), {"rss": rss_unit} if rss_unit else {}, meta),
         "cooperativity": Table(pd.DataFrame(coop_rows, columns=[
-            "group", "h", "stderr", "ci_low", "ci_high", "ci_method", "F", "p_vs_michaelis_menten", "verdict",
-            "reason"]), {}, meta),
+            "group", "model", "h", "stderr", "ci_low", "ci_high", "ci_method", "F", "p_vs_michaelis_menten",
+            "verdict", "reason"]), {}, meta),
         "diagnostics": Table(diagnostics.stack(diag_blocks, diagnostics.TRANSFORM_COLUMNS), {}, meta),
         "curves": Table(diagnostics.stack(curve_blocks, CURVE_COLUMNS),
             {k: ru for k in ("y", "lower", "upper")} | ({"inhibitor": iu} if iu else {}), meta),
@@ -507,6 +510,14 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
                               {}, meta),
     }
     return StageOutput(artifacts=out)
+
+
+def _vmax_sources(models: list[Model]) -> list[Model]:
+    """Substrate-only models with a limiting rate, in the order their Vmax is taken for the linear transforms
+    of a group: models with a cooperativity coefficient first (their Vmax also fits a sigmoid curve), then
+    the others in the recipe's order."""
+    usable = [m for m in models if m.limiting_rate and m.variables == ("substrate",)]
+    return sorted(usable, key=lambda m: not m.cooperativity)
 
 
 CURVE_COLUMNS = ["group", "model", "variable", "inhibitor", "x", "y", "lower", "upper", "x_unit"]

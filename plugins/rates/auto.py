@@ -36,8 +36,8 @@ from vzero.plugins.rates.noise import blank_result, check_inputs, conversion_sca
 def _inv3_sym(m: np.ndarray) -> np.ndarray:
     """Inverse of the symmetric Hankel matrices ``[[m0, m1, m2], [m1, m2, m3], [m2, m3, m4]]`` by cofactors.
 
-    ``m`` is ``[..., 5]``; returns ``[..., 3, 3]`` (NaN/inf where singular). Much faster than
-    ``numpy.linalg.inv`` on many 3x3 systems.
+    ``m`` is ``[..., 5]``; returns ``[..., 3, 3]`` (NaN/inf where singular). Closed-form cofactors avoid the
+    per-matrix overhead of ``numpy.linalg.inv`` on many 3x3 systems.
     """
     m0, m1, m2, m3, m4 = np.moveaxis(m, -1, 0)
     cof = np.empty((*m.shape[:-1], 3, 3))

@@ -30,7 +30,7 @@ from vzero.plugins.rates.noise import (
     screen,
 )
 from vzero.plugins.rates.polynomial import masked_polyfit
-from vzero.plugins.rates.progress import batched_lm
+from vzero.plugins.rates.progress import fit_wells
 
 
 def _block_lines(
@@ -190,7 +190,7 @@ def lag_decay(
         b, c = q.coef[:, 1] / span, q.coef[:, 2] / span**2
         k0 = np.clip(np.nan_to_num(-2.0 * c / b), -1.0 / span, 10.0 / span)
         p0 = np.stack([q.coef[:, 0], b, k0], axis=1)
-        fit = batched_lm(lambda p, rows: _selwyn(p, tau[rows]), p0, yy, ww, max_iter=max_iter)
+        fit = fit_wells(lambda p, rows: _selwyn(p, tau[rows]), p0, yy, ww, max_iter=max_iter)
         dof = np.fmax(n_in[todo] - 3, 1)
         rmse = np.sqrt(fit.rss / dof)
         ratio = rmse / sc.sigma[todo]

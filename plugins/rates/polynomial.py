@@ -45,7 +45,7 @@ def masked_polyfit(u: np.ndarray, y: np.ndarray, w: np.ndarray, degree: int) -> 
     yc = (y0 - ref[:, None]) * w
     x = u0[:, :, None] ** np.arange(p)
     xt = x.transpose(0, 2, 1)
-    a = (xt * w[:, None, :]) @ x  # batched matmul (faster than einsum for these shapes)
+    a = (xt * w[:, None, :]) @ x  # batched matmul: the normal matrix of every well at once
     b = (xt @ yc[:, :, None])[:, :, 0]
     ok = n > p
     a[~ok] = np.eye(p)

@@ -8,17 +8,18 @@ so that it stays finite for S0/Km above ~700 where ``exp`` overflows::
 Jacobian by implicit differentiation of ``Vmax t = (S0 - S) + Km ln(S0/S)``:
 ``dP/dVmax = t S/(S + Km)``, ``dP/dKm = -S ln(S0/S)/(S + Km)``, ``dP/dS0 = 1 - S (S0 + Km)/(S0 (S + Km))``.
 
-The fit is a batched Levenberg–Marquardt (:func:`batched_lm`): one ``[n_wells, n_time, n_params]``
-Jacobian per iteration and a stacked ``numpy.linalg.solve``, instead of one optimiser call per well.
+The fit is the shared batched Levenberg–Marquardt solver (:mod:`vzero.plugins.kinetics.lsq`, through
+:func:`fit_wells`): one ``[n_wells, n_params, n_time]`` Jacobian per iteration and a stacked
+``numpy.linalg.solve``, instead of one optimiser call per well.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 from vzero.errors import StageError
+from vzero.plugins.kinetics import lsq
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import blank_result, check_inputs, finish, flag_noisy, screen
@@ -27,7 +28,7 @@ from vzero.plugins.rates.polynomial import masked_polyfit
 
 @dataclass(frozen=True)
 class LMFit:
-    """Result of :func:`batched_lm`, arrays over wells: ``params [n, p]``, ``rss``, ``tss`` (about the
+    """Result of :func:`fit_wells`, arrays over wells: ``params [n, p]``, ``rss``, ``tss`` (about the
     weighted mean), ``cov_unit = (J' W J)^-1`` at the solution, ``converged``, ``n_iter`` (plate-wide)."""
 
     params: np.ndarray
@@ -38,8 +39,13 @@ class LMFit:
     n_iter: int
 
 
-def batched_lm(
-    fun: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]],
+WELL_TOLERANCES = {"ftol": 1e-6, "xtol": 1e-9, "gtol": 1e-12}
+"""Convergence tolerances of the per-well curve fits: a relative change of cost of 1e-6 is a change of chi²
+far below 1 for plate-sized curves, so stopping there costs no accuracy in v0."""
+
+
+def fit_wells(
+    fun: lsq.Model,
     p0: np.ndarray,
     y: np.ndarray,
     w: np.ndarray,
@@ -47,91 +53,22 @@ def batched_lm(
     lower: np.ndarray | None = None,
     upper: np.ndarray | None = None,
     max_iter: int = 60,
-    rtol: float = 1e-6,
-    xtol: float = 1e-9,
 ) -> LMFit:
-    """Levenberg–Marquardt for many independent least-squares problems sharing one model.
+    """Fit one curve per well with the shared batched solver (:func:`vzero.plugins.kinetics.lsq.solve`: its
+    bound handling and convergence rules) and :data:`WELL_TOLERANCES`.
 
-    ``fun(params[m, p], rows[m]) -> (model [m, t], jacobian [m, p, t])`` evaluates the wells ``rows`` (so
-    converged wells drop out of later iterations); ``y`` ``[n, t]`` (NaN allowed where ``w == 0``); ``w``
-    0/1 weights. Each well keeps its own damping (Marquardt scaling by ``diag(J'J)``); steps that do not
-    lower a well's cost are rejected for that well only. A well has converged when an accepted step lowers
-    its cost by less than ``rtol`` relatively (1e-6: a change of chi² far below 1 for plate-sized curves) or
-    moves every parameter by less than ``xtol * (|p| + xtol)``, or the damping has grown so large that no
-    step helps (a stationary point). Parameters are clipped to ``[lower, upper]`` when given, and a
-    parameter on its bound where the descent direction points outward is held there for the step (a projected step: the
-    clipped full step would be refused over and over, and the well never settle).
+    ``fun(params[m, p], rows[m]) -> (model [m, t], jacobian [m, p, t])`` evaluates the wells ``rows``;
+    ``y`` ``[n, t]`` (NaN allowed where ``w == 0``); ``w`` 0/1 weights. A well whose damping grew without a
+    step lowering its cost (stalled) sits at a stationary point: it counts as converged here, and the
+    caller judges the fit by its residuals against the read noise.
     """
+    sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, **WELL_TOLERANCES)
     y0 = np.where(w > 0, y, 0.0)
-    p = np.array(p0, dtype=float)
-    n, n_p = p.shape
-    lo = np.full_like(p, -np.inf) if lower is None else np.broadcast_to(lower, p.shape)
-    hi = np.full_like(p, np.inf) if upper is None else np.broadcast_to(upper, p.shape)
-    p = np.clip(p, lo, hi)
-    bounded = bool(np.isfinite(lo).any() or np.isfinite(hi).any())
-    all_rows = np.arange(n)
-    unit = bool(np.all(w == 1.0))  # no missing reads: the weights need no multiplications
-    f, jac = fun(p, all_rows)
-    r = y0 - f
-    if not unit:
-        r *= w
-    cost = np.einsum("ij,ij->i", r, r)
-    lam = np.full(n, 1e-3)
-    done = ~np.isfinite(cost)
-    eye = np.eye(n_p)
-    it = 0
-    for it in range(1, max_iter + 1):  # noqa: B007 - the count is reported
-        act = np.flatnonzero(~done)
-        if act.size == 0:
-            break
-        whole = act.size == n
-        ja, ra = (jac, r) if whole else (jac[act], r[act])
-        wa = w if whole else w[act]
-        jw = ja if unit else ja * wa[:, None, :]
-        a = jw @ ja.transpose(0, 2, 1)  # batched matmul: several times faster than einsum for these shapes
-        g = (ja @ ra[:, :, None])[:, :, 0]  # r is 0 where w is 0
-        diag = np.diagonal(a, axis1=1, axis2=2)
-        scale = diag + 1e-12 * diag.max(axis=1, keepdims=True) + 1e-300
-        damp = a + (lam[act, None] * scale)[:, :, None] * eye
-        p_act = p[act]
-        if bounded:
-            # a parameter on its bound where the descent direction (g = J r) points outward is held there:
-            # its row and column leave the step (else the clipped step is refused again and again and the
-            # well never settles)
-            pin = ((p_act <= lo[act]) & (g < 0)) | ((p_act >= hi[act]) & (g > 0))
-            if pin.any():
-                free_p = ~pin
-                damp *= free_p[:, :, None] & free_p[:, None, :]
-                damp += pin[:, :, None] * eye
-                g = np.where(pin, 0.0, g)
-        damp[~np.all(np.isfinite(damp), axis=(1, 2))] = eye
-        step = np.linalg.solve(damp, g[:, :, None])[:, :, 0]
-        p_new = np.clip(p_act + step, lo[act], hi[act])
-        with np.errstate(all="ignore"):
-            f_new, j_new = fun(p_new, act)
-            r_new = np.subtract(y0 if whole else y0[act], f_new, out=f_new)  # f_new is not needed again
-            if not unit:
-                r_new *= wa
-            c_new = np.einsum("ij,ij->i", r_new, r_new)
-        better = np.isfinite(c_new) & (c_new < cost[act])
-        rel = (cost[act] - c_new) / np.fmax(cost[act], 1e-300)
-        tiny_step = np.all(np.abs(p_new - p_act) <= xtol * (np.abs(p_act) + xtol), axis=1)
-        small = better & ((rel < rtol) | tiny_step)
-        acc = act[better]
-        p[acc], jac[acc], r[acc] = p_new[better], j_new[better], r_new[better]
-        cost[acc] = c_new[better]
-        lam[act] = np.where(better, np.fmax(lam[act] / 3.0, 1e-12), lam[act] * 4.0)
-        done[act] = small | (lam[act] > 1e10)
-    jw = jac if unit else jac * w[:, None, :]
-    a = jw @ jac.transpose(0, 2, 1)
-    bad = ~np.all(np.isfinite(a), axis=(1, 2)) | (np.abs(np.linalg.det(np.where(np.isfinite(a), a, 1.0))) == 0)
-    a[bad] = eye
-    cov = np.linalg.inv(a)
-    cov[bad] = np.nan
     nw = np.fmax(w.sum(axis=1), 1.0)
     mean = (y0 * w).sum(axis=1) / nw
     tss = (((y0 - mean[:, None]) * w) ** 2).sum(axis=1)
-    return LMFit(p, cost, tss, cov, done & np.isfinite(cost), it)
+    return LMFit(sol.params, sol.cost, tss, lsq.unit_covariance(sol.jac),
+                 (sol.converged | sol.stalled) & np.isfinite(sol.cost), sol.n_iter)
 
 
 #: Below this argument Wright omega is exp(x) to double precision (relative error e^x); the iteration would
@@ -143,7 +80,7 @@ def wright_omega(x: np.ndarray | float) -> np.ndarray:
     """Wright omega function for real ``x``: the solution ``w > 0`` of ``w + ln w = x`` (``W(e^x)``).
 
     The same values as ``scipy.special.wrightomega`` (within a few 1e-15 relative; checked against it and
-    against ``scipy.special.lambertw`` in the tests) at about a quarter of its cost on large arrays: a start
+    against ``scipy.special.lambertw`` in the tests) for less work on large arrays (bench/RESULTS.md): a start
     from Winitzki's approximation of Lambert W (2003, relative error below 2 %) applied to ``ln(1 + e^x)``,
     then three Newton steps ``w <- w (1 + x - ln w) / (1 + w)``, each squaring the relative error
     (2e-2 -> 1e-4 -> 1e-8 -> 1e-16). Every step works in place on whole arrays. Finite ``x`` expected.
@@ -233,11 +170,11 @@ def _mm_curve(
     return p, s0 - (s0 + km) * q, (p - vt) * q, vt * q
 
 
-Model = Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]]
+Model = lsq.Model
 
 
 def _concentration_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
-    """``baseline + spc * P(t)`` for the wells' known ``s0`` (``[n, 1]``), as a :func:`batched_lm` model.
+    """``baseline + spc * P(t)`` for the wells' known ``s0`` (``[n, 1]``), as a :func:`fit_wells` model.
 
     Parameters (baseline, ln v0, u) with ``u = Km/(Km + S0)`` in (0, 1), the curvature of the curve
     (``-(dv/dP)/v0 = u/S0``): ``Km = S0 u/(1 - u)``, ``Vmax = v0/(1 - u)``. P is smooth in u over the whole
@@ -278,7 +215,7 @@ U_BOUNDS = (1e-9, 1.0 - 1e-9)
 
 
 def _signal_model(t: np.ndarray, d: np.ndarray) -> Model:
-    """``baseline + d * P(t)`` in signal units with an apparent amplitude A, as a :func:`batched_lm` model.
+    """``baseline + d * P(t)`` in signal units with an apparent amplitude A, as a :func:`fit_wells` model.
 
     Parameters (baseline, ln v0, ln c1, logit r) with ``c1 = Km/(A (Km + A))`` and ``r = A/(Km + A)``: then
     ``A = (1 - r)/c1``, ``Km = A (1 - r)/r``, ``Vmax = v0/r``. With the derivatives of :func:`_mm_terms`
@@ -339,7 +276,7 @@ def power_conversion(u: np.ndarray, m: np.ndarray) -> tuple[np.ndarray, np.ndarr
 
 
 def _power_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
-    """``baseline + spc * S0 * x(t)`` of :func:`power_conversion`, as a :func:`batched_lm` model.
+    """``baseline + spc * S0 * x(t)`` of :func:`power_conversion`, as a :func:`fit_wells` model.
 
     Parameters (baseline, ln v0, m) with v0 in concentration per second and the order ``n = 1 + m``.
     """
@@ -365,7 +302,7 @@ RESTART_LOGIT = 2.0
 """logit r from which wells on the r -> 1 plateau are fitted again (r = 0.88)."""
 
 
-def _restart_plateaus(fun: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]], fit: LMFit,
+def _restart_plateaus(fun: Model, fit: LMFit,
                       y: np.ndarray, w: np.ndarray, lo: np.ndarray, hi: np.ndarray, max_iter: int) -> LMFit:
     """Fit again the wells whose fit ended on the zero-order plateau (r near 1, Km far below S0), from
     logit r = 2, and keep whichever fit has the lower cost. Used by the fit in signal units (unknown S0), which
@@ -385,7 +322,7 @@ def _restart_plateaus(fun: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, 
     def sub(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         return fun(p, edge[rows])
 
-    again = batched_lm(sub, start, y[edge], w[edge], lower=lo[edge], upper=hi[edge], max_iter=max_iter)
+    again = fit_wells(sub, start, y[edge], w[edge], lower=lo[edge], upper=hi[edge], max_iter=max_iter)
     take = again.converged & (again.rss < fit.rss[edge])
     if not take.any():
         return fit
@@ -498,7 +435,7 @@ def progress_curve(
 
         fun = _signal_model(t, d)
 
-    fit = batched_lm(fun, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter)
+    fit = fit_wells(fun, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter)
     if not known:
         fit = _restart_plateaus(fun, fit, yy, ww, lo, hi, max_iter)
     n_par = p0.shape[1]

@@ -52,6 +52,10 @@ class ReportInput:
     max_panels: int = figures.MAX_PANELS
     title: str = ""
     notes: list[str] = field(default_factory=list)
+    models: Mapping[str, Any] = field(default_factory=dict)
+    """The fit models this installation knows, by name (the registry's components of kind ``model``, built-in
+    and plugin models alike): their titles, variables and rate laws. A model missing here is reported by its
+    name, with residuals interpolated on its curve."""
 
 
 def _frame(tables: Mapping[str, Table], name: str) -> pd.DataFrame:
@@ -69,19 +73,16 @@ def _unique(name: str, taken: set[str]) -> str:
     return out
 
 
-def _evaluators(fits: pd.DataFrame, group: str, x_col: str) -> dict[str, Callable[[np.ndarray], np.ndarray]]:
-    """Exact fitted-rate functions of ``x_col`` per model of one group, where the fit plugin's model is known
-    and every parameter was determined (residuals then need no interpolation)."""
-    try:
-        from vzero.plugins.fit.catalog import BY_NAME
-    except ImportError:  # the fit plugin is optional for the report
-        return {}
+def _evaluators(fits: pd.DataFrame, group: str, x_col: str,
+                models: Mapping[str, Any]) -> dict[str, Callable[[np.ndarray], np.ndarray]]:
+    """Exact fitted-rate functions of ``x_col`` per model of one group, where the model is known (in
+    ``models``, by name) and every parameter was determined (residuals then need no interpolation)."""
     out: dict[str, Callable[[np.ndarray], np.ndarray]] = {}
     if fits.empty:
         return out
     sub = fits[fits["group"].astype(str) == group]
     for name in dict.fromkeys(sub["model"].astype(str)):
-        model = BY_NAME.get(name)
+        model = models.get(name)
         if model is None or tuple(model.variables) != (x_col,):
             continue
         rows = sub[sub["model"].astype(str) == name].set_index("parameter")["estimate"]
@@ -165,7 +166,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                                                else "")
     used: np.ndarray | None = None
     if not rates.empty and options["present"]:
-        used, _ = content.fit_use(rates, options)
+        used, _ = content.fit_use(rates, options, inp.models)
+    titles = content.model_titles(inp.models)
     taken: set[str] = set()
     figs: list[Figure] = []
     drawing = _Drawing()
@@ -209,7 +211,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         names = list(dict.fromkeys(rates.loc[rates["role"].astype(str) == "sample", group_col].astype(str)))
     for g in names:
         block: dict[str, Any] = {"name": g, "figures": []}
-        rows, sentence = content.comparison_rows(comparison, g)
+        rows, sentence = content.comparison_rows(comparison, g, titles)
         block["comparison"], block["comparison_sentence"] = rows, sentence
         preferred = next((r["model"] for r in rows if r["preferred"]), "")
         pref_raw = ""
@@ -217,9 +219,9 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             sub = comparison[comparison["group"].astype(str) == g]
             pref_raw = str(sub["preferred"].iloc[0]) if len(sub) else ""
         block["preferred"] = preferred
-        block["parameters"] = content.parameter_tables(fits, g) if not fits.empty else []
+        block["parameters"] = content.parameter_tables(fits, g, titles) if not fits.empty else []
         crow = coop[coop["group"].astype(str) == g] if "group" in coop else pd.DataFrame()
-        block["verdict"] = content.verdict_sentence(crow.iloc[0], options["confidence"]) if len(crow) else ""
+        block["verdict"] = content.verdict_sentence(crow.iloc[0], options["confidence"], titles) if len(crow) else ""
         block["verdict_key"] = str(crow.iloc[0]["verdict"]) if len(crow) else ""
         in_group = (rates[group_col].astype(str) == g).to_numpy() if group_col in rates else np.zeros(len(rates), bool)
         gc = curves[curves["group"].astype(str) == g] if "group" in curves else pd.DataFrame()
@@ -237,7 +239,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             unit = rate_units.get(col, "") or (str(pts[f"{col}_unit"].iloc[0]) if f"{col}_unit" in pts and len(pts)
                                                else "")
             make = functools.partial(figures.rates_vs_x, g, pts, pused, cv, pref_raw, col, content.pretty_unit(unit),
-                                     content.pretty_unit(rate_unit) or "?", _evaluators(fits, g, var))
+                                     content.pretty_unit(rate_unit) or "?", _evaluators(fits, g, var, inp.models),
+                                     titles)
             conf = f"{options['confidence'] * 100:g} %"
             block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["rates_vs_x"], Figure(
                 _unique(f"rates-vs-{figures.slug(var)}_{figures.slug(g)}", taken), f"{g}: v0 against {col}",
@@ -264,7 +267,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         files[f"figures/{f.name}.png"] = f.png
         files[f"figures/{f.name}.svg"] = f.svg
     flagged = content.flagged_rows(rates) if not rates.empty else []
-    exclusions = content.exclusion_rows(rates, options, inp.recipe)
+    exclusions = content.exclusion_rows(rates, options, inp.recipe, inp.models)
     html = render_html({
         "title": inp.title or f"vzero report: {inp.recipe.get('name', 'run')}",
         "recipe": inp.recipe,

@@ -23,15 +23,16 @@ FLAG_TEXT: dict[str, str] = flags.text_by_name()
 DEFAULT_EXCLUDE = flags.names_of(flags.NOT_FITTED)
 """Flags that keep a well out of the fit when the recipe does not say otherwise (the fit stage's default)."""
 
-MODEL_TITLES: dict[str, str] = {
-    "michaelis-menten": "Michaelis–Menten",
-    "hill": "Hill",
-}
+def model_titles(models: Mapping[str, Any]) -> dict[str, str]:
+    """Each known model's name as printed, from the model objects (their ``title``; a model without one,
+    or an object without the attribute, keeps its name)."""
+    return {name: str(getattr(m, "title", "") or name) for name, m in models.items()}
 
 
-def model_title(name: str) -> str:
-    """A model's name as printed (``hill`` -> ``Hill``); unknown names are shown as they are."""
-    return MODEL_TITLES.get(name, name)
+def model_title(name: str, titles: Mapping[str, str] | None = None) -> str:
+    """A model's name as printed (``hill`` -> ``Hill``, from :func:`model_titles`); unknown names are shown as
+    they are."""
+    return (titles or {}).get(name, name)
 
 
 # -- numbers -----------------------------------------------------------------------------------------------
@@ -106,6 +107,16 @@ def fit_options(recipe: Mapping[str, Any]) -> dict[str, Any]:
     }
 
 
+def default_models() -> list[str]:
+    """The models the built-in fit stage fits when the recipe names none (its own default, so that the two
+    never disagree); none when the fit plugin is not installed."""
+    try:
+        from vzero.plugins.fit.stage import FitStage
+    except ImportError:  # the fit plugin is optional for the report
+        return []
+    return [str(m) for m in FitStage.params["models"].default]
+
+
 # -- wells ---------------------------------------------------------------------------------------------------
 
 
@@ -116,15 +127,15 @@ def flag_list(text: Any) -> list[str]:
     return [p.strip() for p in str(text).split(";") if p.strip()]
 
 
-def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray, list[str]]:
+def fit_use(rates: pd.DataFrame, options: Mapping[str, Any],
+            models: Mapping[str, Any]) -> tuple[np.ndarray, list[str]]:
     """Which wells the fit stage used and, for each well not used, the reason in words ('' where used).
 
     The fit stage's rule: a sample well with a finite rate and none of the excluding flags, used by a model
     when it has a value for each of the model's variables, and, for a model without an inhibitor variable,
     no inhibitor. A well counts as used when at least one of the recipe's models uses it. A model the report
-    does not know (a lab's own) is taken to use any well with a rate."""
-    from vzero.plugins.fit.catalog import BY_NAME
-
+    does not know (one not in ``models``, the registry's models by name) is taken to use any well with a
+    rate."""
     n = len(rates)
     reasons = [""] * n
     rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce").to_numpy(float)
@@ -140,10 +151,10 @@ def fit_use(rates: pd.DataFrame, options: Mapping[str, Any]) -> tuple[np.ndarray
 
     inhibitor = values("inhibitor")
     with_inhibitor = np.isfinite(inhibitor) & (inhibitor != 0)
-    names = list(options.get("models") or ["michaelis-menten", "hill"])
+    names = list(options.get("models") or default_models())
     by_model: list[tuple[str, np.ndarray, str]] = []  # (model, wells it can use, why not, for the others)
     for name in names:
-        model = BY_NAME.get(name)
+        model = models.get(name)
         if model is None:
             by_model.append((name, np.ones(n, bool), ""))
             continue
@@ -204,7 +215,8 @@ def flagged_rows(rates: pd.DataFrame) -> list[dict[str, str]]:
     return rows
 
 
-def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapping[str, Any]) -> dict[str, Any]:
+def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapping[str, Any],
+                   models: Mapping[str, Any]) -> dict[str, Any]:
     """Wells kept out of the fit, with reasons.
 
     Sample wells are listed one by one; wells of other roles (blanks, controls) are summarised per role.
@@ -224,7 +236,7 @@ def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapp
             out["recipe"].append({"what": str(item), "reason": "(no reason given)"})
     if not options.get("present") or rates.empty:
         return out
-    used, reasons = fit_use(rates, options)
+    used, reasons = fit_use(rates, options, models)
     roles: dict[str, int] = {}
     for i, (_, r) in enumerate(rates.iterrows()):
         if used[i]:
@@ -242,7 +254,7 @@ def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapp
 # -- fits ---------------------------------------------------------------------------------------------------
 
 
-def parameter_tables(fits: pd.DataFrame, group: str) -> list[dict[str, Any]]:
+def parameter_tables(fits: pd.DataFrame, group: str, titles: Mapping[str, str] | None = None) -> list[dict[str, Any]]:
     """For one group, one block per model: fit statistics and its parameter rows, formatted."""
     blocks = []
     sub = fits[fits["group"].astype(str) == group]
@@ -255,18 +267,19 @@ def parameter_tables(fits: pd.DataFrame, group: str) -> list[dict[str, Any]]:
                 "parameter": str(r["parameter"]), "estimate": num(r["estimate"]), "stderr": num(r["stderr"], 2),
                 "value": with_error(r["estimate"], r["stderr"]), "interval": interval(r["ci_low"], r["ci_high"]),
                 "method": str(r.get("ci_method", "") or ""), "unit": pretty_unit(str(r.get("unit", "") or "")),
-                "fixed": bool(r.get("fixed", False)), "note": plain_models(str(r.get("note", "") or "")),
+                "fixed": bool(r.get("fixed", False)), "note": plain_models(str(r.get("note", "") or ""), titles),
             })
         blocks.append({
-            "model": model, "title": model_title(model), "success": bool(first.get("success", True)),
-            "message": plain_models(str(first.get("message", ""))), "n_points": first.get("n_points", ""),
+            "model": model, "title": model_title(model, titles), "success": bool(first.get("success", True)),
+            "message": plain_models(str(first.get("message", "")), titles), "n_points": first.get("n_points", ""),
             "r_squared": num(first.get("r_squared"), 4), "aicc": num(first.get("aicc"), 4),
             "rss": num(first.get("rss"), 4), "dof": first.get("dof", ""), "rows": rows,
         })
     return blocks
 
 
-def comparison_rows(comparison: pd.DataFrame, group: str) -> tuple[list[dict[str, Any]], str]:
+def comparison_rows(comparison: pd.DataFrame, group: str,
+                    titles: Mapping[str, str] | None = None) -> tuple[list[dict[str, Any]], str]:
     """Model-comparison rows of one group and a sentence saying which model is preferred and why."""
     if comparison.empty or "group" not in comparison:
         return [], ""
@@ -274,10 +287,12 @@ def comparison_rows(comparison: pd.DataFrame, group: str) -> tuple[list[dict[str
     rows, sentences = [], []
     for _, r in sub.iterrows():
         rows.append({
-            "model": model_title(str(r["model"])), "n_params": r.get("n_params", ""), "rss": num(r.get("rss")),
+            "model": model_title(str(r["model"]), titles), "n_params": r.get("n_params", ""),
+            "rss": num(r.get("rss")),
             "aicc": num(r.get("aicc")), "delta_aicc": num(r.get("delta_aicc"), 3),
             "weight": num(r.get("akaike_weight"), 3),
-            "f_test": (f"against {model_title(str(r['f_test_against']))}: F = {num(r['F'], 3)}, p = {num(r['p'], 3)}"
+            "f_test": (f"against {model_title(str(r['f_test_against']), titles)}: F = {num(r['F'], 3)}, "
+                       f"p = {num(r['p'], 3)}"
                        if str(r.get("f_test_against", "") or "") else ""),
             "preferred": str(r.get("preferred", "")) == str(r["model"]),
         })
@@ -287,7 +302,7 @@ def comparison_rows(comparison: pd.DataFrame, group: str) -> tuple[list[dict[str
             reason = str(first.get("reason", ""))
             if reason.startswith(f"{pref}: "):
                 reason = reason[len(pref) + 2:]
-            sentences.append(f"{model_title(pref)} is preferred: {plain_models(reason)}.")
+            sentences.append(f"{model_title(pref, titles)} is preferred: {plain_models(reason, titles)}.")
     return rows, " ".join(sentences)
 
 
@@ -298,7 +313,7 @@ VERDICT_WORDS = {
 }
 
 
-def verdict_sentence(row: Mapping[str, Any], confidence: float) -> str:
+def verdict_sentence(row: Mapping[str, Any], confidence: float, titles: Mapping[str, str] | None = None) -> str:
     """The cooperativity verdict of one group in words, with h, its interval and the basis of the call."""
     verdict = str(row.get("verdict", ""))
     what = VERDICT_WORDS.get(verdict, "cooperativity is not resolved by these data (neither shown nor ruled out)")
@@ -306,13 +321,17 @@ def verdict_sentence(row: Mapping[str, Any], confidence: float) -> str:
     ci = interval(row.get("ci_low"), row.get("ci_high"))
     method = str(row.get("ci_method", "") or "")
     pct = f"{confidence * 100:g} %"
-    return (f"{row.get('group', '')}: {what}. Hill coefficient h = {h}, {pct} {method} interval {ci}. "
-            f"Basis: {plain_models(str(row.get('reason', '')))}.")
+    model = str(row.get("model", "") or "")  # absent in audit files written before the column existed
+    coefficient = f"{model_title(model, titles)} coefficient" if model else "cooperativity coefficient"
+    return (f"{row.get('group', '')}: {what}. {coefficient} h = {h}, {pct} {method} interval {ci}. "
+            f"Basis: {plain_models(str(row.get('reason', '')), titles)}.")
 
 
-def plain_models(text: str) -> str:
-    """Model names in ``text`` as printed (``hill`` -> ``Hill``)."""
-    for key, title in MODEL_TITLES.items():
+def plain_models(text: str, titles: Mapping[str, str] | None = None) -> str:
+    """Model names in ``text`` as printed (``hill`` -> ``Hill``, from :func:`model_titles`)."""
+    for key, title in (titles or {}).items():
+        if key == title:
+            continue
         text = re.sub(rf"(?<![\w-]){re.escape(key)}(?![\w-])", title, text)
     return text
 

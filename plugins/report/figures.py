@@ -431,10 +431,10 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
 
 def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.DataFrame,
                preferred: str, x_col: str, x_unit: str, rate_unit: str,
-               evaluate: Mapping[str, Any] | None = None) -> Any:
+               evaluate: Mapping[str, Any] | None = None, titles: Mapping[str, str] | None = None) -> Any:
     """Rates of one group against ``x_col`` with each model's curve and confidence band (top) and residuals
     of the fitted points (bottom). ``evaluate`` maps model -> callable(x array) -> fitted rate, for exact
-    residuals; without it residuals are interpolated on the curve grid."""
+    residuals; without it residuals are interpolated on the curve grid. ``titles``: models' printed names."""
     import matplotlib
 
     x = pd.to_numeric(points[x_col], errors="coerce").to_numpy(float)
@@ -461,7 +461,7 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
             for j, level in enumerate(distinct):
                 part = cm[np.isnan(levels)] if np.isnan(level) else cm[levels == level]
                 cx = part["x"].to_numpy(float)
-                label = model_title(model) + (" (preferred)" if model == preferred else "")
+                label = model_title(model, titles) + (" (preferred)" if model == preferred else "")
                 if not np.isnan(level) and part["variable"].iloc[0] != "inhibitor":
                     label += f", inhibitor {level:g}"
                 ax.plot(cx, part["y"].to_numpy(float), color=st.color, ls=st.linestyle, lw=1.8 if j == 0 else 1.2,
@@ -471,7 +471,7 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
                     ax.fill_between(cx, lo_, hi_, color=st.color, alpha=0.16, lw=0, zorder=1)
             fitted = _fitted(model, x[used], cm, evaluate)
             axr.plot(x[used], v[used] - fitted, ls="", marker=st.marker, ms=4.5, mfc=st.color if i == 0 else "white",
-                     mec=st.color, mew=1.1, label=model_title(model))
+                     mec=st.color, mew=1.1, label=model_title(model, titles))
         axr.axhline(0, color=palette.INK, lw=0.7)
         ax.set_ylabel(f"v0 ({rate_unit})")
         axr.set_ylabel(f"residual\n({rate_unit})")

@@ -1,6 +1,6 @@
 """Drawing the report's figures on every core the process may use.
 
-Making a figure and saving it as PNG and SVG is most of a report's time (about 0.2 s per figure), and each
+Making a figure and saving it as PNG and SVG is most of a report's time, and each
 figure is independent of the others. :func:`run_all` hands a share of the figure jobs to forked child
 processes: a child inherits the data and code the jobs need (nothing is pickled), runs its share, and sends
 the bytes back through a pipe; the parent runs the rest meanwhile. The bytes are the same whoever made them.

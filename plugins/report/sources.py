@@ -15,6 +15,7 @@ from typing import Any
 
 from vzero.data import Table, Traces
 from vzero.plugins.report.build import ReportInput
+from vzero.registry import Registry
 from vzero.stage import StageInput
 
 VERSION_DISTS = ("numpy", "scipy", "pandas", "h5py", "matplotlib", "jinja2", "pluggy", "pint")
@@ -88,7 +89,7 @@ def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
         "failed_plates": dict(run.get("failed", {})),
     }
     return ReportInput(tables, traces, recipe, provenance, max_panels=int(settings.get("max_panels", 384)),
-                       title=str(settings.get("title", "") or ""))
+                       title=str(settings.get("title", "") or ""), models=registry_models(data.registry))
 
 
 def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
@@ -130,4 +131,19 @@ def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
         recipe = {}
     if not isinstance(recipe, Mapping):
         recipe = {}
-    return ReportInput(tables, traces, recipe, provenance, max_panels=max_panels)
+    return ReportInput(tables, traces, recipe, provenance, max_panels=max_panels, models=installed_models())
+
+
+def registry_models(registry: Registry | None) -> dict[str, Any]:
+    """The fit models a registry holds, by name: built-in and plugin models get the same treatment."""
+    if registry is None:
+        return {}
+    return {entry.name: entry.component for entry in registry if entry.kind == "model"}
+
+
+def installed_models() -> dict[str, Any]:
+    """The fit models of the installed plugins (entry points only: an audit file is data, so no plugin it
+    names is loaded; a model a recipe loaded from a local file is then reported by its name)."""
+    from vzero.manager import make_manager
+
+    return registry_models(make_manager().registry)

@@ -2,8 +2,10 @@
 the built-in plugins.
 
 The graph is read from the source with :mod:`ast`, so an import inside a function counts as much as one at the
-top of a module. ``from a import b`` counts as an import of ``a.b`` when ``a.b`` is a module of ours and of
-``a`` otherwise, as import-graph tools usually read it.
+top of a module. Imports under ``if TYPE_CHECKING:`` never run: they count for the rule about the core and
+the plugins, not for cycles (annotations may name a type from a module that imports this one).
+``from a import b`` counts as an import of ``a.b`` when ``a.b`` is a module of ours and of ``a`` otherwise,
+as import-graph tools usually read it.
 """
 
 from __future__ import annotations
@@ -26,7 +28,17 @@ def modules() -> dict[str, Path]:
     return found
 
 
-def import_graph() -> dict[str, set[str]]:
+def _type_only(tree: ast.Module) -> set[int]:
+    """ids of the nodes inside ``if TYPE_CHECKING:`` blocks (imports for annotations only)."""
+    inside: set[int] = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.If) and ast.unparse(node.test) in ("TYPE_CHECKING", "typing.TYPE_CHECKING"):
+            inside.update(id(n) for stmt in node.body for n in ast.walk(stmt))
+    return inside
+
+
+def import_graph(*, runtime_only: bool = False) -> dict[str, set[str]]:
+    """Module -> the modules of ours it imports; ``runtime_only`` leaves out imports for annotations only."""
     mods = modules()
 
     def ours(name: str) -> str | None:
@@ -38,7 +50,11 @@ def import_graph() -> dict[str, set[str]]:
     for name, path in mods.items():
         package = name if path.name == "__init__.py" else name.rpartition(".")[0]
         deps: set[str] = set()
-        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        skip = _type_only(tree) if runtime_only else set()
+        for node in ast.walk(tree):
+            if id(node) in skip:
+                continue
             if isinstance(node, ast.Import):
                 deps.update(filter(None, (ours(a.name) for a in node.names)))
             elif isinstance(node, ast.ImportFrom):
@@ -105,7 +121,13 @@ def test_the_cycle_finder_finds_a_planted_cycle() -> None:
 
 
 def test_no_import_cycles() -> None:
-    assert cycles(import_graph()) == []
+    assert cycles(import_graph(runtime_only=True)) == []
+
+
+def test_imports_for_annotations_are_told_apart() -> None:
+    tree = ast.parse("from typing import TYPE_CHECKING\nif TYPE_CHECKING:\n    import a\nimport b\n")
+    skipped = [n for n in ast.walk(tree) if id(n) in _type_only(tree) and isinstance(n, ast.Import)]
+    assert [a.name for n in skipped for a in n.names] == ["a"]
 
 
 def test_the_core_never_imports_the_built_in_plugins() -> None:

@@ -13,8 +13,8 @@ import pytest
 from scipy.optimize import least_squares
 from scipy.special import lambertw
 from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.progress import progress_curve
-from vzero.plugins.rates.simulate import simulate_plate
 
 SPC = 6220.0 * 0.55 * 1e-6  # AU per µM: NADH at 340 nm (6220 M^-1 cm^-1, handbook value) in 0.55 cm
 

@@ -16,7 +16,7 @@ from vzero.plugins.rates.progress import (
     _mm_curve,
     _power_model,
     _signal_model,
-    batched_lm,
+    fit_wells,
     integrated_mm,
     wright_omega,
 )
@@ -106,7 +106,7 @@ def test_fit_model_jacobians_match_finite_differences(which: str) -> None:
         np.testing.assert_allclose(jac[:, k], numeric, rtol=1e-6, atol=1e-8)
 
 
-def test_batched_lm_settles_on_a_bound() -> None:
+def test_fit_wells_settles_on_a_bound() -> None:
     """When the optimum lies beyond a bound, the fit ends on the bound at the constrained optimum, in a few
     iterations. Reference: the linear least-squares fit with that parameter fixed (numpy.linalg.lstsq)."""
     x = np.linspace(0.0, 1.0, 50)
@@ -117,7 +117,7 @@ def test_batched_lm_settles_on_a_bound() -> None:
         basis = np.stack([np.ones_like(x), x, x**2])
         return p @ basis, np.broadcast_to(basis, (rows.size, 3, x.size)).copy()
 
-    fit = batched_lm(fun, np.zeros((6, 3)), y, np.ones_like(y), upper=np.array([np.inf, 1.0, np.inf]))
+    fit = fit_wells(fun, np.zeros((6, 3)), y, np.ones_like(y), upper=np.array([np.inf, 1.0, np.inf]))
     assert fit.converged.all() and fit.n_iter < 20  # it was 136, ending short of the optimum, before
     for i in range(6):
         fixed = np.linalg.lstsq(np.stack([np.ones_like(x), x**2], axis=1), y[i] - x, rcond=None)[0]

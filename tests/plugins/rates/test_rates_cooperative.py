@@ -2,7 +2,7 @@
 
 Sources: the integrated rate laws of first, second, third and zero order in one reactant (standard chemical
 kinetics, e.g. any physical chemistry textbook; from memory) for :func:`power_conversion`; curves simulated
-by integrating the Hill rate law with scipy.integrate.solve_ivp (plugins/rates/simulate.py), whose true v0
+by integrating the Hill rate law with scipy.integrate.solve_ivp (plugins/kinetics/simulate.py), whose true v0
 is Vmax S0^h/(K^h + S0^h) by construction; scipy.optimize.curve_fit as the independent fitter. The plate
 mimics the invented demo (K0.5 150 uM, h 2.4, Vmax 0.2 uM/s, NADH 6220 M^-1 cm^-1 x 0.55 cm, 10-s reads for
 600 s, read noise 0.0015 AU doubled in variance by subtracting one blank well).
@@ -15,9 +15,9 @@ import pytest
 from scipy.optimize import curve_fit
 from vzero.errors import StageError
 from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.auto import auto
 from vzero.plugins.rates.progress import power_conversion, progress_curve
-from vzero.plugins.rates.simulate import simulate_plate
 
 T = np.arange(61) * 10.0
 SPC = 6220e-6 * 0.55  # AU per uM of NADH: 6220 M^-1 cm^-1 x 0.55 cm

@@ -13,12 +13,12 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq, curve_fit
 from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.auto import auto
 from vzero.plugins.rates.lagdecay import lag_decay
 from vzero.plugins.rates.noise import read_noise
 from vzero.plugins.rates.polynomial import polynomial
 from vzero.plugins.rates.progress import integrated_mm, progress_curve
-from vzero.plugins.rates.simulate import simulate_plate
 
 KERNELS = [auto, polynomial, progress_curve, lag_decay]
 NOISE = 0.002  # absorbance units: a realistic plate-reader read noise (common practice, from memory)

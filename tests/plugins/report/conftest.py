@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from vzero.data import Table, Traces
+from vzero.plugins.fit.catalog import BY_NAME
 from vzero.plugins.kinetics.rates_table import rates_table
 from vzero.plugins.rates.window import window_slopes
 from vzero.plugins.report.build import ReportInput
@@ -102,7 +103,8 @@ def report_input() -> ReportInput:
     provenance = {"source": "a test", "recipe_name": "report-test", "recipe_sha256": "", "recipe_text": "",
                   "created": "", "run_id": "", "vzero_version": "0", "versions": {"python": "3"}, "steps": [],
                   "inputs": [], "warnings": ["a warning with <markup>"], "failed_plates": {}}
-    return ReportInput(tables, {"p-1": traces}, RECIPE, provenance)
+    # the models as the report stage gets them from the registry (here the built-in catalog)
+    return ReportInput(tables, {"p-1": traces}, RECIPE, provenance, models=BY_NAME)
 
 
 @pytest.fixture(scope="module")

@@ -11,7 +11,8 @@ import shutil
 from pathlib import Path
 
 import pytest
-from vzero.plugins.report.chromium import check_page, find_browser
+
+from .chromium import check_page, find_browser
 
 BROWSER = find_browser()
 GALLERY = Path(__file__).parents[3] / "docs" / "gallery"

@@ -113,11 +113,12 @@ def test_residuals_use_the_fitted_model_exactly(report_input):
     """The residual panel evaluates the fit plugin's model at each well; for Michaelis-Menten that must be the
     textbook v = Vmax·S/(Km + S) (Michaelis & Menten 1913; any biochemistry text)."""
     pytest.importorskip("vzero.plugins.fit.catalog")
+    from vzero.plugins.fit.catalog import BY_NAME
     from vzero.plugins.report.build import _evaluators
 
     from .conftest import GROUP, KM, VMAX
 
-    ev = _evaluators(report_input.tables["fits"].frame, GROUP, "substrate")
+    ev = _evaluators(report_input.tables["fits"].frame, GROUP, "substrate", BY_NAME)
     s = np.array([0.0, 10.0, 100.0, 1000.0])
     assert_allclose(ev["michaelis-menten"](s), VMAX * s / (KM + s), rtol=1e-12)
 
@@ -133,12 +134,15 @@ def test_wells_used_follow_the_fit_stages_rule_per_model() -> None:
         "substrate": [10.0, 10.0, np.nan, 10.0], "inhibitor": [0.0, 5.0, 0.0, 0.0],
         "rate": [1.0, 0.5, 0.7, 0.0], "flags": ["", "", "", ""],
     })
+    from vzero.plugins.fit.catalog import BY_NAME
+
     substrate_only = {"models": ["michaelis-menten", "hill"]}
-    used, why = content.fit_use(rates, substrate_only)
+    used, why = content.fit_use(rates, substrate_only, BY_NAME)
     assert used.tolist() == [True, False, False, False]
     assert "inhibitor" in why[1] and "no substrate concentration" in why[2] and "blank" in why[3]
     with_inhibition = {"models": ["michaelis-menten", "competitive"]}
-    used, _ = content.fit_use(rates, with_inhibition)
+    used, _ = content.fit_use(rates, with_inhibition, BY_NAME)
     assert used.tolist() == [True, True, False, False]
-    used, _ = content.fit_use(rates, {"models": ["a-lab-model"]})  # unknown to the report: any well with a rate
+    # a model unknown to the report: any well with a rate
+    used, _ = content.fit_use(rates, {"models": ["a-lab-model"]}, BY_NAME)
     assert used.tolist() == [True, True, True, False]

@@ -3,7 +3,8 @@ logged as an error, and a screenshot of the first screenfuls.
 
 Speaks the DevTools protocol over ``--remote-debugging-pipe`` (JSON messages ended by NUL bytes on file
 descriptors 3 and 4 of the browser), so it needs no package beyond the standard library. Used by the browser
-test and by the gallery script; not needed to build a report.
+test and by the gallery script (docs/make_gallery.py), never by vzero itself: it lives with the tests, not in
+the installed package.
 """
 
 from __future__ import annotations

@@ -1,7 +1,8 @@
-"""Simulated plates for tests and benchmarks, integrated numerically with ``scipy.integrate.solve_ivp``.
+"""The one progress-curve simulator: plates integrated numerically with ``scipy.integrate.solve_ivp``.
 
-The rate law is integrated as an ODE (never through the closed form the progress-curve kernel uses), so the
-tests compare the kernels against an independent computation. The model per well::
+Used by the demo generator (:mod:`vzero.plugins.demo.simulate`) and by the tests and benchmarks. The rate
+law is integrated as an ODE (never through the closed form the progress-curve kernel uses), so the tests
+compare the kernels against an independent computation. The model per well::
 
     dS/dt = -a(t) * Vmax * S^h / (Km^h + S^h)          (Hill; h = 1 is Michaelis–Menten)
     da/dt = (1 - a) / lag_tau - k_inact * a             (active enzyme fraction; a(0) = a0)
@@ -10,7 +11,7 @@ tests compare the kernels against an independent computation. The model per well
 baseline at ``t = lag_tau`` when ``a0 = 0`` and depletion is negligible); ``k_inact > 0`` gives first-order
 inactivation (Selwyn-type: ``P = v0/k (1 - exp(-k t))`` when depletion is negligible). The signal is
 ``baseline + signal_per_conc * P`` plus Gaussian read noise; reads at or above ``ceiling`` become NaN and are
-marked saturated. Invented data for testing only.
+marked saturated. Invented data only: never a stand-in for measured curves.
 """
 
 from __future__ import annotations
@@ -18,7 +19,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.integrate import solve_ivp
 
 
 @dataclass(frozen=True)
@@ -50,12 +50,16 @@ def simulate_plate(
     ceiling: float | None = None,
     seed: int | None = 0,
     rtol: float = 1e-10,
+    atol: float | None = None,
 ) -> SimulatedPlate:
     """Integrate all wells in one ``solve_ivp`` call (LSODA) and add read noise.
 
     Concentrations in any consistent unit, ``vmax`` in that unit per second, ``time`` in seconds (the
     reaction starts at t = 0; reads may start later). ``a0`` defaults to 0 where ``lag_tau > 0``, else 1.
+    ``rtol``/``atol`` are the integrator's tolerances (``atol`` by default 1e-14 of the largest ``s0``).
     """
+    from scipy.integrate import solve_ivp  # here: registering the demo plugin must not import scipy
+
     t = np.asarray(time, dtype=float)
     s0 = np.atleast_1d(np.asarray(s0, dtype=float))
     n = s0.size
@@ -71,7 +75,7 @@ def simulate_plate(
 
     t_eval = t if t[0] == 0 else np.concatenate([[0.0], t])
     sol = solve_ivp(rhs, (0.0, float(t[-1])), np.concatenate([s0, a_start]), method="LSODA",
-                    t_eval=t_eval, rtol=rtol, atol=1e-14 * max(float(s0.max()), 1.0))
+                    t_eval=t_eval, rtol=rtol, atol=1e-14 * max(float(s0.max()), 1.0) if atol is None else atol)
     s_t = sol.y[:n, -t.size:]
     product = s0[:, None] - s_t
     rng = np.random.default_rng(seed)
