@@ -9,6 +9,7 @@ the new environment's own site-packages, so its ``vzero`` wins), which keeps the
 from __future__ import annotations
 
 import os
+import shutil
 import subprocess
 import sys
 import sysconfig
@@ -26,7 +27,14 @@ pytestmark = pytest.mark.slow
 @pytest.fixture(scope="module")
 def wheel(tmp_path_factory: pytest.TempPathFactory) -> Path:
     out = tmp_path_factory.mktemp("wheel")
-    subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "-q", "-w", str(out), str(ROOT)],
+    # built from a copy, so that the build leaves no build/ or egg-info folder in the checkout
+    source = tmp_path_factory.mktemp("source")
+    for name in ("pyproject.toml", "README.md", "LICENSE"):
+        if (ROOT / name).is_file():
+            shutil.copy2(ROOT / name, source / name)
+    for name in ("pipeline", "plugins"):
+        shutil.copytree(ROOT / name, source / name, ignore=shutil.ignore_patterns("__pycache__"))
+    subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "-q", "-w", str(out), str(source)],
                    check=True, capture_output=True, env={**os.environ, "PIP_NO_INPUT": "1"})
     (found,) = out.glob("vzero-*.whl")
     return found
