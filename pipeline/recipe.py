@@ -98,6 +98,9 @@ class Recipe:
     plates: list[PlateSpec] = field(default_factory=list)
     #: manifest files named in ``plates`` (relative to the recipe folder); the runner stores them as inputs.
     manifests: list[str] = field(default_factory=list)
+    #: the plugins to load instead of the recipe's own list: set by ``vzero rerun`` to the files the user
+    #: passed with ``--plugin`` (an audit file's stored recipe never chooses code by itself).
+    plugin_override: list[str] | None = None
 
     @property
     def sha256(self) -> str:
@@ -109,6 +112,8 @@ class Recipe:
 
     @property
     def plugin_entries(self) -> list[str]:
+        if self.plugin_override is not None:
+            return list(self.plugin_override)
         value = self.data.get("plugins") or []
         return [str(v) for v in value] if isinstance(value, list) else []
 
@@ -203,6 +208,7 @@ def check(
     read: Callable[[str], bytes] | None = None,
     plates: bool = True,
     extra_checks: Callable[[Recipe], list[str]] | None = None,
+    skipped: list[str] | None = None,
 ) -> Recipe:
     """Validate ``recipe`` against the registry: keys, types, units, methods, plates and input files.
 
@@ -210,7 +216,9 @@ def check(
     ``expand(pattern)`` expands a glob in a ``data`` entry (default: on disk); ``read(rel_path)`` returns the
     bytes of a plate manifest (default: from disk). ``plates=False`` skips the plates (a worker process that
     is handed its plate checks only the steps). ``extra_checks(recipe)`` returns further problems (the
-    plugins' ``vzero_check_recipe`` hook). Fills ``recipe.steps``, ``recipe.plates`` and
+    plugins' ``vzero_check_recipe`` hook). With a ``skipped`` list, a step whose kind or method no loaded
+    plugin provides is listed there instead of being an error (``vzero check`` without the recipe's local
+    plugins). Fills ``recipe.steps``, ``recipe.plates`` and
     ``recipe.manifests`` and returns the recipe; raises :class:`RecipeError` listing every problem.
     """
     base = recipe.base_dir
@@ -242,7 +250,7 @@ def check(
     if plates:
         recipe.manifests = []
         recipe.plates = _check_plates(data.get("plates"), bad, exists, expand, read, recipe.manifests)
-    recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad)
+    recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad, skipped)
     if extra_checks is not None:
         problems.extend(extra_checks(recipe))
     if problems:
@@ -372,7 +380,11 @@ def _manifest_plates(
 
 
 def _check_steps(
-    recipe: Recipe, steps: Any, registry: Registry, bad: Callable[[tuple[Any, ...], str], None]
+    recipe: Recipe,
+    steps: Any,
+    registry: Registry,
+    bad: Callable[[tuple[Any, ...], str], None],
+    skipped: list[str] | None = None,
 ) -> list[StepSpec]:
     out: list[StepSpec] = []
     if not isinstance(steps, list):
@@ -386,6 +398,11 @@ def _check_steps(
             bad(path, "expected one mapping like {rates: {method: window, ...}}")
             continue
         kind, body = next(iter(step.items()))
+        method = body.get("method") if isinstance(body, dict) else None
+        if skipped is not None and (kind not in kinds
+                                    or (isinstance(method, str) and method not in registry.names(kind))):
+            skipped.append(f"{recipe.where((*path, kind))} ({kind}: {method})")
+            continue
         if kind not in kinds:
             hit = closest(kind, kinds)
             near = f" (did you mean {hit!r}?)" if hit else ""
@@ -395,7 +412,6 @@ def _check_steps(
         if not isinstance(body, dict):
             bad((*path, kind), "expected a mapping with 'method' and the method's parameters")
             continue
-        method = body.get("method")
         if not isinstance(method, str):
             bad((*path, kind), f"missing 'method'; available {kind} methods: {', '.join(registry.names(kind))}")
             continue

@@ -90,14 +90,21 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 def _cfg_check(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipe", help="the recipe file (YAML)")
+    p.add_argument("--load-plugins", action="store_true",
+                   help="also import the plugins the recipe names and check their steps (runs their code)")
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
     from vzero.run.runner import check_recipe
 
-    rec = check_recipe(args.recipe)
-    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps: "
+    skipped: list[str] | None = None if args.load_plugins else []
+    rec = check_recipe(args.recipe, skipped=skipped)
+    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps checked: "
                + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ")")
+    if rec.plugin_entries and not args.load_plugins:
+        say(args, f"not checked: the recipe's plugins ({', '.join(rec.plugin_entries)}) were not imported, so "
+                  "their steps and settings are unchecked" + (": " + "; ".join(skipped) if skipped else "")
+                  + ". Pass --load-plugins to check them too (that runs their code).")
     return 0
 
 

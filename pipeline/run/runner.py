@@ -88,11 +88,19 @@ class RunResult:
 
 
 def prepare(
-    recipe: str | Path | Recipe, *, inputs: InputSource | None = None, extra_plugins: Iterable[tuple[str, object]] = ()
+    recipe: str | Path | Recipe,
+    *,
+    inputs: InputSource | None = None,
+    extra_plugins: Iterable[tuple[str, object]] = (),
+    skipped: list[str] | None = None,
 ) -> tuple[Recipe, Plugins, InputSource]:
-    """Load the recipe, build the plugins it names, and validate it in full. Nothing is run or written."""
+    """Load the recipe, build the plugins it names, and validate it in full. Nothing is run or written.
+
+    With a ``skipped`` list the recipe's own plugins (local files, modules) are not imported: the steps
+    that need them are listed there unchecked (``vzero check`` runs no code a recipe names)."""
     rec = recipe if isinstance(recipe, Recipe) else load(recipe)
-    plugins = make_manager(rec.plugin_entries, base_dir=rec.base_dir, extra=extra_plugins)
+    local = rec.plugin_entries if skipped is None else []
+    plugins = make_manager(local, base_dir=rec.base_dir, extra=extra_plugins)
     source = inputs or DiskInputs(rec.base_dir)
 
     def plugin_checks(r: Recipe) -> list[str]:
@@ -100,7 +108,8 @@ def prepare(
         found = plugins.hook.vzero_check_recipe(recipe=r.data, where=r.where, plates=names)
         return [msg for msgs in found for msg in msgs or []]
 
-    check(rec, plugins.registry, exists=source.exists, expand=source.expand, extra_checks=plugin_checks)
+    check(rec, plugins.registry, exists=source.exists, expand=source.expand, extra_checks=plugin_checks,
+          skipped=skipped if rec.plugin_entries else None)
     return rec, plugins, source
 
 
@@ -454,9 +463,10 @@ def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:
         os.replace(tmp, out_dir)
 
 
-def check_recipe(recipe: str | Path) -> Recipe:
-    """Validate a recipe without running it (``vzero check``)."""
-    rec, _, _ = prepare(recipe)
+def check_recipe(recipe: str | Path, *, skipped: list[str] | None = None) -> Recipe:
+    """Validate a recipe without running it (``vzero check``). With a ``skipped`` list, the recipe's own
+    plugins are not imported and the steps that need them are listed there (see :func:`prepare`)."""
+    rec, _, _ = prepare(recipe, skipped=skipped)
     return rec
 
 

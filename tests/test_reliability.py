@@ -1,0 +1,97 @@
+"""Probes of an attacker and of a clumsy user, kept fixed: received files run no code, absurd numbers are
+refused or flagged, bounded parsing, faults become exit 2 and never a crash, spreadsheet-safe CSV.
+
+See docs/security.md for the threat model these tests hold vzero to.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import shutil
+from pathlib import Path
+
+import h5py
+import pytest
+from vzero.cli.main import main
+from vzero.errors import PluginError
+from vzero.run.rerun import rerun
+from vzero.run.runner import run
+
+from tests.conftest import DATA, linear_plate
+
+# -- 1. no code runs that the user did not name on the command line ------------------------------------------
+
+MARKER_PLUGIN = '''
+from pathlib import Path
+Path({marker!r}).write_text("ran")
+from vzero import hookimpl
+
+@hookimpl
+def vzero_register(registry):
+    pass
+'''
+
+
+def _plant(folder: Path, marker: Path, name: str = "evil.py") -> Path:
+    """A plugin file whose import leaves ``marker`` behind (the probe: did any command import it?)."""
+    path = folder / name
+    path.write_text(MARKER_PLUGIN.format(marker=str(marker)), "utf-8")
+    return path
+
+
+def _retarget(audit: Path, text: str) -> None:
+    """What whoever made a file can do: replace the stored recipe and recompute its hash."""
+    with h5py.File(audit, "r+") as f:
+        f.attrs["recipe_text"] = text
+        f.attrs["recipe_sha256"] = hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def test_crafted_audit_file_naming_a_plugin_path_runs_no_code(tmp_path: Path):
+    recipe = linear_plate(tmp_path / "in")
+    audit = run(recipe, tmp_path / "old").audit_path
+    marker = tmp_path / "ran.txt"
+    evil = _plant(tmp_path, marker)
+    with h5py.File(audit, "r") as f:
+        text = f.attrs["recipe_text"]
+    _retarget(audit, text.replace("steps:", f"plugins: [{evil}]\nsteps:"))
+    with pytest.raises(PluginError, match="does not import code an audit file names"):
+        rerun(audit, tmp_path / "again")
+    assert main(["rerun", str(audit), "--out", str(tmp_path / "cli"), "-q"]) == 2
+    for command in (["inspect", str(audit)], ["verify", str(audit)], ["diff", str(audit), str(audit)],
+                    ["report", str(audit), "--out", str(tmp_path / "rep")]):
+        main(command)
+    assert not marker.exists()
+    assert not (tmp_path / "again").exists() and not (tmp_path / "cli").exists()
+
+
+def test_plugin_shipped_beside_the_audit_file_runs_only_when_passed(tmp_path: Path):
+    """The file sits where the stored recipe says and its hash matches: still not imported on that word."""
+    folder = tmp_path / "in"
+    recipe = linear_plate(folder)
+    marker = tmp_path / "ran.txt"
+    shutil.copy(DATA / "plugins" / "lab_rates.py", folder / "lab_rates.py")
+    recipe.write_text(recipe.read_text("utf-8").replace("steps:", "plugins: [lab_rates.py]\nsteps:"), "utf-8")
+    audit = run(recipe, tmp_path / "old").audit_path
+    (folder / "lab_rates.py").write_text(
+        (folder / "lab_rates.py").read_text("utf-8") + f"\nfrom pathlib import Path\nPath({str(marker)!r}).touch()\n")
+    with pytest.raises(PluginError, match="--plugin lab_rates.py"):
+        rerun(audit, tmp_path / "again")
+    assert not marker.exists()
+    with pytest.raises(PluginError, match="differs from the old run's"):  # the hash check still holds
+        rerun(audit, tmp_path / "again", plugins=[str(folder / "lab_rates.py")])
+    assert not marker.exists()
+
+
+def test_check_runs_no_plugin_code_and_says_what_it_skipped(tmp_path: Path, capsys):
+    folder = tmp_path / "in"
+    recipe = linear_plate(folder)
+    marker = tmp_path / "ran.txt"
+    _plant(folder, marker)
+    recipe.write_text(recipe.read_text("utf-8").replace("steps:", "plugins: [evil.py]\nsteps:")
+                      .replace("- rates:", "- rates: {method: lab-special}\n  - rates:"), "utf-8")
+    assert main(["check", str(recipe)]) == 0
+    out = capsys.readouterr().out
+    assert not marker.exists()
+    assert "not checked" in out and "evil.py" in out and "rates: lab-special" in out
+    assert main(["check", str(recipe), "--load-plugins"]) == 2  # the user asked: now it runs, and the method is unknown
+    assert marker.exists()
