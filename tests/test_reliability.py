@@ -74,7 +74,7 @@ def test_plugin_shipped_beside_the_audit_file_runs_only_when_passed(tmp_path: Pa
     audit = run(recipe, tmp_path / "old").audit_path
     (folder / "lab_rates.py").write_text(
         (folder / "lab_rates.py").read_text("utf-8") + f"\nfrom pathlib import Path\nPath({str(marker)!r}).touch()\n")
-    with pytest.raises(PluginError, match="--plugin lab_rates.py"):
+    with pytest.raises(PluginError, match=r"--plugin lab_rates\.py"):
         rerun(audit, tmp_path / "again")
     assert not marker.exists()
     with pytest.raises(PluginError, match="differs from the old run's"):  # the hash check still holds
@@ -95,3 +95,39 @@ def test_check_runs_no_plugin_code_and_says_what_it_skipped(tmp_path: Path, caps
     assert "not checked" in out and "evil.py" in out and "rates: lab-special" in out
     assert main(["check", str(recipe), "--load-plugins"]) == 2  # the user asked: now it runs, and the method is unknown
     assert marker.exists()
+
+
+# -- 6. faults are errors, not crashes -------------------------------------------------------------------------
+
+
+def _limited(size: int) -> None:
+    """In the child: a file-size limit (the kernel's stand-in for a full disk), its signal ignored so that a
+    write fails with EFBIG as on a full disk."""
+    import resource
+    import signal
+
+    signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+    resource.setrlimit(resource.RLIMIT_FSIZE, (size, size))
+
+
+@pytest.mark.parametrize("size", [2_000, 40_000, 100_000])
+def test_full_disk_during_the_audit_write_is_exit_2_and_leaves_nothing(tmp_path: Path, size: int):
+    import subprocess
+    import sys
+
+    recipe = linear_plate(tmp_path / "in")
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "vzero", "run", str(recipe), "--out", str(out)],
+                          preexec_fn=lambda: _limited(size), capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 2, proc.stderr[-2000:]  # not -11 (a segmentation fault) nor 3 (internal error)
+    assert f"cannot write '{out / 'run.h5'}': File too large" in proc.stderr
+    assert "Can't decrement" not in proc.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in"]  # no partial folder, no target
+
+
+def test_output_path_that_is_a_file_is_exit_2(tmp_path: Path, capsys):
+    recipe = linear_plate(tmp_path / "in")
+    (tmp_path / "afile").write_text("x")
+    assert main(["run", str(recipe), "--out", str(tmp_path / "afile" / "sub")]) == 2
+    err = capsys.readouterr().err
+    assert f"cannot write '{tmp_path / 'afile'}'" in err and "A file is in the way" in err

@@ -231,6 +231,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BrokenPipeError:
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
+    except OSError as exc:  # the disk or the file system, not vzero: a full disk, a read-only folder, a file in the way
+        if debug:
+            raise
+        from vzero.errors import OutputWriteError
+
+        error = OutputWriteError.from_os(exc, action="use")
+        print(f"error: {error}", file=sys.stderr)
+        return error.exit_code
     except Exception as exc:  # a bug, not bad input: one line unless --debug
         if debug:
             raise

@@ -19,7 +19,7 @@ from typing import Any, Protocol
 
 import pandas as pd
 from vzero.data import Table, Traces
-from vzero.errors import InputFileError, OutputExistsError, StageError, VzeroError
+from vzero.errors import InputFileError, OutputExistsError, OutputWriteError, StageError, VzeroError
 from vzero.manager import Plugins, make_manager
 from vzero.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
 from vzero.run.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
@@ -241,16 +241,31 @@ def run(
         _swap_into_place(tmp, out_dir, force)
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
                          audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds)
-    except BaseException:
+    except BaseException as exc:
         if writer is not None:
             writer.close()
         if csv_workers is not None:  # let workers finish writing into tmp before it is removed
             csv_workers.finish()
         shutil.rmtree(tmp, ignore_errors=True)
+        if isinstance(exc, OSError | OutputWriteError):
+            raise _at_target(exc, tmp, out_dir) from None
         raise
     finally:
         if own_executor and executor is not None:
             executor.close()
+
+
+def _at_target(exc: OSError | OutputWriteError, tmp: Path, out_dir: Path) -> OutputWriteError:
+    """The error of a failed write, naming the file at the target rather than in the temporary folder."""
+    cause = exc.__cause__ if isinstance(exc, OutputWriteError) else exc
+    path = getattr(exc, "path", None) or getattr(cause, "filename", None) or tmp
+    try:
+        shown = out_dir / Path(str(path)).relative_to(tmp)
+    except ValueError:
+        shown = Path(str(path))
+    if isinstance(cause, OSError):
+        return OutputWriteError.from_os(cause, shown)
+    return OutputWriteError(str(exc).replace(str(tmp), str(out_dir)))
 
 
 def _run_info(
@@ -401,7 +416,10 @@ def _is_vzero_run(folder: Path) -> bool:
 def _parent(out_dir: Path) -> Path:
     """The folder that holds ``out_dir`` (created if missing): temporary files go there, on the same disk."""
     parent = out_dir.resolve().parent
-    parent.mkdir(parents=True, exist_ok=True)
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:  # a file where a folder should be, a read-only disk, no permission
+        raise OutputWriteError.from_os(exc, exc.filename or parent) from None
     return parent
 
 
