@@ -131,3 +131,56 @@ def test_output_path_that_is_a_file_is_exit_2(tmp_path: Path, capsys):
     assert main(["run", str(recipe), "--out", str(tmp_path / "afile" / "sub")]) == 2
     err = capsys.readouterr().err
     assert f"cannot write '{tmp_path / 'afile'}'" in err and "A file is in the way" in err
+
+
+def _dead_pid() -> int:
+    import subprocess
+    import sys
+
+    proc = subprocess.Popen([sys.executable, "-c", "pass"])
+    proc.wait()
+    return proc.pid
+
+
+def test_force_swaps_atomically_and_a_killed_swap_is_restored(tmp_path: Path):
+    from vzero.errors import OutputExistsError
+
+    recipe = linear_plate(tmp_path / "in")
+    out = tmp_path / "out"
+    run(recipe, out)
+    first = (out / "run.h5").read_bytes()
+    run(recipe, out, force=True)
+    assert (out / "run.h5").read_bytes() != first  # the new run (a new run id) is in place
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in", "out"]  # the old run is gone, nothing beside
+    # what a --force killed between moving the old run aside and moving the new one in would leave
+    pid = _dead_pid()
+    (out).rename(tmp_path / f".out.old-{pid}-0badc0de")
+    (tmp_path / f".out.partial-{pid}-xyz").mkdir()
+    with pytest.raises(OutputExistsError, match="already holds files"):
+        run(recipe, out)  # the old run is back at the target, so a run without --force refuses to replace it
+    assert (out / "run.h5").is_file()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in", "out"]
+
+
+def test_report_files_are_replaced_as_one_set(tmp_path: Path, monkeypatch):
+    from vzero.run import swap
+
+    swap.replace_set(tmp_path, {"report.html": b"old", "figures/a.png": b"old-a"}, "report")
+    real = Path.write_bytes
+    calls = []
+
+    def fail_second(self: Path, data: bytes) -> int:
+        calls.append(self)
+        if len(calls) == 2:
+            raise OSError(28, "No space left on device", str(self))
+        return real(self, data)
+
+    monkeypatch.setattr(Path, "write_bytes", fail_second)
+    with pytest.raises(OSError, match="No space"):
+        swap.replace_set(tmp_path, {"report.html": b"new", "figures/a.png": b"new-a"}, "report")
+    monkeypatch.undo()
+    assert (tmp_path / "report.html").read_bytes() == b"old" and (tmp_path / "figures/a.png").read_bytes() == b"old-a"
+    (tmp_path / f".report.partial-{_dead_pid()}-left").mkdir()  # a killed call's staging folder
+    swap.replace_set(tmp_path, {"report.html": b"new", "figures/b.png": b"new-b"}, "report")
+    assert sorted(str(p.relative_to(tmp_path)) for p in tmp_path.rglob("*")) == ["figures", "figures/b.png",
+                                                                                 "report.html"]

@@ -25,6 +25,7 @@ from vzero.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
 from vzero.run.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
 from vzero.run.outputs import CsvInWorkers, write_outputs
 from vzero.run.steps import PlateOutcome, StepRecord, process_plate, run_step, utc_now
+from vzero.run.swap import alive, exchange
 from vzero.stage import RawInput
 
 
@@ -375,7 +376,10 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
 
 def _check_output_folder(out_dir: Path, force: bool, rec: Recipe) -> None:
     """Refuse an output folder that would lose something: a file in its place, a folder with files (without
-    ``force``), and even with ``force`` a folder that is not a previous vzero run, or that holds the recipe."""
+    ``force``), and even with ``force`` a folder that is not a previous vzero run, or that holds the recipe.
+    What a killed run left beside the target is cleaned up (or put back) first."""
+    if out_dir.resolve().parent.is_dir():
+        _recover(out_dir, out_dir.resolve().parent)
     if not out_dir.exists():
         return
     if not out_dir.is_dir():
@@ -428,29 +432,16 @@ def _temporary_folder(out_dir: Path) -> Path:
     permissions of a folder the user makes (mkdtemp makes it private).
 
     Its name carries this process's id. A run that was killed outright (SIGKILL, power loss) cannot remove
-    its folder; the next run into the same target removes the partial folders of processes that are gone.
+    its folder; the next run into the same target removes the partial folders of processes that are gone
+    (and puts back a previous run that a killed ``--force`` had moved aside: :func:`_recover`).
     """
     parent = _parent(out_dir)
-    for stale in parent.glob(f".{out_dir.name}.partial-*"):
-        pid = stale.name.removeprefix(f".{out_dir.name}.partial-").split("-", 1)[0]
-        if pid.isdigit() and not _alive(int(pid)):
-            shutil.rmtree(stale, ignore_errors=True)
+    _recover(out_dir, parent)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-{os.getpid()}-", dir=parent))
     umask = os.umask(0)
     os.umask(umask)
     os.chmod(tmp, 0o777 & ~umask)
     return tmp
-
-
-def _alive(pid: int) -> bool:
-    """Whether a process with this id exists (on this machine)."""
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True
 
 
 #: Modules the built-in pooled steps import on first use. With worker processes the driver mostly waits while
@@ -470,15 +461,38 @@ def _warm_imports() -> None:
 
 
 def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:
+    """Put the finished run at ``out_dir``. A previous run there (``force``) is swapped out in one atomic
+    step where the system can (Linux ``renameat2`` with ``RENAME_EXCHANGE``), so a kill at any moment leaves
+    either the old or the new run at the target; the old run then sits in the temporary folder, which the
+    next run removes. Elsewhere it is moved aside under a name that carries this process's id first: if the
+    process dies between the two renames, the next run into the same target moves it back (see
+    :func:`_recover`)."""
     if out_dir.exists():
         if not force and any(out_dir.iterdir()):
             raise OutputExistsError(f"output folder {str(out_dir)!r} already holds files", hint="Pass --force.")
-        old = out_dir.parent / f".{out_dir.name}.old-{uuid.uuid4().hex[:8]}"
+        if exchange(tmp, out_dir):
+            shutil.rmtree(tmp, ignore_errors=True)  # now the old run
+            return
+        old = out_dir.parent / f".{out_dir.name}.old-{os.getpid()}-{uuid.uuid4().hex[:8]}"
         os.replace(out_dir, old)
         os.replace(tmp, out_dir)
         shutil.rmtree(old, ignore_errors=True)
     else:
         os.replace(tmp, out_dir)
+
+
+def _recover(out_dir: Path, parent: Path) -> None:
+    """Clean up after runs into ``out_dir`` that were killed: their partial folders are removed, and a
+    previous run moved aside by a ``--force`` that died before its new run was in place is moved back (or
+    removed, when a run is at the target)."""
+    for stale in sorted(parent.glob(f".{out_dir.name}.partial-*")) + sorted(parent.glob(f".{out_dir.name}.old-*")):
+        rest = stale.name.removeprefix(f".{out_dir.name}.").split("-", 2)
+        if len(rest) < 2 or not rest[1].isdigit() or alive(int(rest[1])):
+            continue
+        if rest[0] == "old" and not out_dir.exists():
+            os.replace(stale, out_dir)  # the old run back where it was
+        else:
+            shutil.rmtree(stale, ignore_errors=True)
 
 
 def check_recipe(recipe: str | Path, *, skipped: list[str] | None = None) -> Recipe:
