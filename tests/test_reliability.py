@@ -184,3 +184,75 @@ def test_report_files_are_replaced_as_one_set(tmp_path: Path, monkeypatch):
     swap.replace_set(tmp_path, {"report.html": b"new", "figures/b.png": b"new-b"}, "report")
     assert sorted(str(p.relative_to(tmp_path)) for p in tmp_path.rglob("*")) == ["figures", "figures/b.png",
                                                                                  "report.html"]
+
+
+# -- 5. bounded parsing ----------------------------------------------------------------------------------------
+
+
+def _alias_bomb(levels: int = 7) -> str:
+    """Each level repeats the one above ten times: 10**levels values from about a kilobyte of text."""
+    text = "vzero: 1\nx0: &x0 [a, a, a, a, a, a, a, a, a, a]\n"
+    for i in range(1, levels):
+        text += f"x{i}: &x{i} [" + ", ".join([f"*x{i - 1}"] * 10) + "]\n"
+    return text
+
+
+def test_yaml_alias_bomb_is_refused_at_once(tmp_path: Path):
+    from vzero.errors import RecipeError
+    from vzero.recipe import MAX_EXPANDED_NODES, load
+
+    path = tmp_path / "bomb.yaml"
+    path.write_text(_alias_bomb(), "utf-8")
+    assert len(_alias_bomb()) < 2000 and 10**7 > MAX_EXPANDED_NODES
+    with pytest.raises(RecipeError, match=r"bomb\.yaml:\d+ the recipe expands to more than"):
+        load(path)
+    many = "vzero: 1\nx: &x 1\nl: [" + ", ".join(["*x"] * 300) + "]\n"
+    (tmp_path / "many.yaml").write_text(many, "utf-8")
+    with pytest.raises(RecipeError, match="more than 200 YAML aliases"):
+        load(tmp_path / "many.yaml")
+
+
+def test_stored_alias_bomb_does_not_stall_the_report(tmp_path: Path):
+    from vzero.plugins.report.sources import from_audit
+
+    audit = run(linear_plate(tmp_path / "in"), tmp_path / "old").audit_path
+    _retarget(audit, _alias_bomb(8))
+    assert from_audit(audit).recipe == {}  # refused by the recipe parser, so the report shows no recipe
+
+
+def test_xlsx_that_unpacks_too_far_is_refused_before_unpacking(tmp_path: Path):
+    import io
+    import zipfile
+
+    from vzero.errors import InputFileError
+    from vzero.plugins.importers.readers import XLSX_MAX_BYTES, _check_xlsx_size
+
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as z:
+        z.writestr("xl/worksheets/sheet1.xml", b"0" * (XLSX_MAX_BYTES + 1))
+    packed = buffer.getvalue()
+    assert len(packed) < XLSX_MAX_BYTES // 500  # the probe: small on disk
+    with pytest.raises(InputFileError, match=r"plate\.xlsx: the \.xlsx workbook unpacks to 200 MB"):
+        _check_xlsx_size(packed, "plate.xlsx")
+
+
+def test_plate_names_unsafe_for_hdf5_or_files_are_refused_at_their_line(tmp_path: Path):
+    from vzero.errors import RecipeError
+    from vzero.run.runner import check_recipe
+
+    recipe = linear_plate(tmp_path / "in")
+    text = recipe.read_text("utf-8")
+    for name, why in (("a/b", "slash"), ('"a\\0b"', "control character"), ('".."', "folder reference")):
+        recipe.write_text(text.replace("name: p1", f"name: {name}"), "utf-8")
+        with pytest.raises(RecipeError, match=rf"recipe\.yaml:\d+ plates: plate name .* {why}"):
+            check_recipe(recipe)
+
+
+def test_non_utf8_recipe_names_its_line(tmp_path: Path):
+    from vzero.errors import RecipeError
+    from vzero.recipe import load
+
+    path = tmp_path / "r.yaml"
+    path.write_bytes(b"vzero: 1\nname: caf\xe9\n")
+    with pytest.raises(RecipeError, match=r"r\.yaml:2 is not UTF-8 text \(byte 0xe9"):
+        load(path)
