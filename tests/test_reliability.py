@@ -256,3 +256,41 @@ def test_non_utf8_recipe_names_its_line(tmp_path: Path):
     path.write_bytes(b"vzero: 1\nname: caf\xe9\n")
     with pytest.raises(RecipeError, match=r"r\.yaml:2 is not UTF-8 text \(byte 0xe9"):
         load(path)
+
+
+# -- 7. safe CSV -------------------------------------------------------------------------------------------------
+
+
+def test_formula_like_text_is_inert_and_numbers_stay_numbers():
+    import pandas as pd
+    from vzero.run.outputs import csv_text
+    from vzero.spreadsheet import inert
+
+    # the usual prefix rule (OWASP, "CSV Injection"): a leading ' before =, +, -, @, tab and CR
+    for text in ("=1+41", "+cmd", "-2+3", "@SUM(A1)", "\tx", "\rx", "- 5", "-1 "):
+        assert inert(text) == "'" + text
+    for text in ("-0.5", "+3", "-1e-07", "-inf", "B7", "note - with dash", ""):
+        assert inert(text) == text
+    frame = pd.DataFrame({"group": ["=HYPERLINK(\"x\")", "g1", "-12.5"], "rate": [-1.0, 2.0, -3.5]})
+    assert csv_text(frame).splitlines() == ["group,rate", "\"'=HYPERLINK(\"\"x\"\")\",-1.0", "g1,2.0",
+                                            "-12.5,-3.5"]
+
+
+def test_run_and_exports_write_no_live_formula(tmp_path: Path):
+    import openpyxl
+    from vzero.plugins.export import export
+
+    folder = tmp_path / "in"
+    recipe = linear_plate(folder)
+    layout = (folder / "layout.csv").read_text("utf-8").replace(",gA\n", ",=1+41\n").replace(",gB\n", ",@cmd\n")
+    (folder / "layout.csv").write_text(layout, "utf-8")
+    result = run(recipe, tmp_path / "out")
+    assert {"=1+41", "@cmd"} <= set(result.rates["group"])  # the values themselves are kept in the results
+    rates = (tmp_path / "out" / "rates.csv").read_text("utf-8")
+    assert ",'=1+41," in rates and ",'@cmd," in rates and ",=1+41" not in rates
+    csv = export(result.audit_path, "csv", tmp_path / "x.csv").read_text("utf-8")
+    assert ",'=1+41," in csv and ",=1+41" not in csv
+    book = openpyxl.load_workbook(export(result.audit_path, "xlsx", tmp_path / "x.xlsx"))
+    cells = [c for row in book["rates"].iter_rows() for c in row]
+    assert not any(c.data_type == "f" for c in cells)
+    assert any(c.value == "'=1+41" for c in cells)
