@@ -294,3 +294,25 @@ def test_run_and_exports_write_no_live_formula(tmp_path: Path):
     cells = [c for row in book["rates"].iter_rows() for c in row]
     assert not any(c.data_type == "f" for c in cells)
     assert any(c.value == "'=1+41" for c in cells)
+
+
+# -- 4. files outside the recipe's folder ------------------------------------------------------------------------
+
+
+def test_files_outside_the_recipe_folder_are_listed_and_input_is_budgeted(tmp_path: Path, capsys):
+    from vzero.errors import InputFileError
+
+    folder = tmp_path / "in"
+    recipe = linear_plate(folder)
+    elsewhere = tmp_path / "elsewhere.csv"
+    shutil.move(folder / "layout.csv", elsewhere)
+    recipe.write_text(recipe.read_text("utf-8").replace("layout: layout.csv", f"layout: {elsewhere}"), "utf-8")
+    assert main(["run", str(recipe), "--out", str(tmp_path / "out")]) == 0
+    size = elsewhere.stat().st_size
+    assert f"note: read a file outside the recipe's folder: {elsewhere} ({size} bytes)" in capsys.readouterr().err
+    assert main(["inspect", str(tmp_path / "out" / "run.h5")]) == 0
+    assert f"{elsewhere} ({size} bytes," in capsys.readouterr().out.split("OUTSIDE")[0]
+    with pytest.raises(InputFileError, match="past its input budget of 1000 bytes"):
+        run(recipe, tmp_path / "small", max_input_bytes=1000)
+    assert main(["run", str(recipe), "--out", str(tmp_path / "small"), "--max-input", "1K"]) == 2
+    assert "pass --max-input" in capsys.readouterr().err

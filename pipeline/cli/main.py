@@ -63,6 +63,21 @@ def _cfg_run(p: argparse.ArgumentParser) -> None:
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run plates on the Dask cluster at ADDRESS (tcp://host:8786), or 'local' to start one "
                         "on this machine (needs: pip install 'vzero[dask]')")
+    p.add_argument("--max-input", type=_size, default=None, metavar="SIZE",
+                   help="read at most SIZE of input files (bytes, or with K, M, G: 8G); default 2G")
+
+
+def _size(text: str) -> int:
+    """``"8G"`` -> 8 * 1024**3 bytes (K, M, G, T; plain digits are bytes)."""
+    factors = {"K": 1024, "M": 1024**2, "G": 1024**3, "T": 1024**4}
+    body, unit = (text[:-1], text[-1].upper()) if text[-1:].upper() in factors else (text, "")
+    try:
+        value = float(body)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a size like 500M or 8G, got {text!r}") from None
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a positive size, got {text!r}")
+    return int(value * factors.get(unit, 1))
 
 
 def _positive(text: str) -> int:
@@ -80,8 +95,9 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
     shown = Progress(verbose=args.verbose, quiet=args.quiet)
     try:
+        limit = {"max_input_bytes": args.max_input} if args.max_input else {}
         result = run(args.recipe, args.out, force=args.force, progress=shown, jobs=args.jobs,
-                     scheduler=args.scheduler)
+                     scheduler=args.scheduler, **limit)
     finally:
         shown.finish()
     report_result(args, result)

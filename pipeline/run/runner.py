@@ -39,20 +39,45 @@ class InputSource(Protocol):
     def expand(self, pattern: str) -> list[str]: ...
 
 
+#: How many bytes of input files a run reads at most unless told otherwise (``vzero run --max-input``).
+MAX_INPUT_BYTES = 2 * 1024**3
+
+
 @dataclass
 class DiskInputs:
-    """Input files on disk, relative to the recipe's folder."""
+    """Input files on disk, relative to the recipe's folder.
+
+    Files outside that folder (an absolute path, ``../``) are read when the recipe or its manifest names
+    them, and each one is recorded in ``outside`` (resolved path, size in bytes) so that the run lists them
+    on the console and in the audit file's warnings: a received recipe cannot take a file from elsewhere on
+    this machine into its audit file unseen. At most ``budget`` bytes are read in all."""
 
     base: Path
+    budget: int = MAX_INPUT_BYTES
+    used: int = 0
+    outside: dict[str, int] = field(default_factory=dict)
 
     def exists(self, rel: str) -> bool:
         return (self.base / rel).is_file()
 
     def read(self, rel: str) -> bytes:
+        path = self.base / rel
         try:
-            return (self.base / rel).read_bytes()
+            size = path.stat().st_size
+            if self.used + size > self.budget:
+                raise InputFileError(
+                    f"reading this file ({size} bytes) would take the run past its input budget of "
+                    f"{self.budget} bytes ({self.used} read so far)", path=rel,
+                    hint="Check that the recipe names the files you meant; pass --max-input (e.g. 8G) to "
+                         "allow more.")
+            data = path.read_bytes()
         except OSError as exc:
             raise InputFileError(f"cannot read the file: {exc.strerror}", path=rel) from None
+        self.used += len(data)
+        resolved = path.resolve()
+        if not resolved.is_relative_to(self.base.resolve()):
+            self.outside[str(resolved)] = len(data)
+        return data
 
     def expand(self, pattern: str) -> list[str]:
         import glob
@@ -145,6 +170,7 @@ def run(
     scheduler: str | None = None,
     executor: Executor | None = None,
     spill: bool | None = None,
+    max_input_bytes: int = MAX_INPUT_BYTES,
 ) -> RunResult:
     """Run ``recipe`` and write ``out``/run.h5 and one CSV per final table (rates.csv, fits.csv, ...).
 
@@ -161,6 +187,8 @@ def run(
     at ``out`` is replaced only with ``force=True``.
     """
     rec, plugins, source = prepare(recipe, inputs=inputs, extra_plugins=extra_plugins)
+    if isinstance(source, DiskInputs):
+        source.budget = max_input_bytes
     out_dir = Path(out)
     _check_output_folder(out_dir, force, rec)
     t_start = time.perf_counter()
@@ -199,6 +227,8 @@ def run(
                 progress(Progress(len(store.outcomes), total, outcome.plate, outcome.error,
                                   seconds=time.perf_counter() - t_start))
         outcomes = store.outcomes
+        outside = dict(getattr(source, "outside", {}))
+        warnings.extend(f"read a file outside the recipe's folder: {p} ({n} bytes)" for p, n in outside.items())
         failed = {o.plate: o.error for o in outcomes if o.error}
         ok = [o for o in outcomes if not o.error]
         for o in outcomes:
