@@ -316,3 +316,150 @@ def test_files_outside_the_recipe_folder_are_listed_and_input_is_budgeted(tmp_pa
         run(recipe, tmp_path / "small", max_input_bytes=1000)
     assert main(["run", str(recipe), "--out", str(tmp_path / "small"), "--max-input", "1K"]) == 2
     assert "pass --max-input" in capsys.readouterr().err
+
+
+# -- 3. physical sense at the door: a mutation corpus ----------------------------------------------------------
+
+CONFIGS = Path(__file__).parent.parent / "configs"
+
+
+def _demo(folder: Path) -> Path:
+    """The demo recipe and data in ``folder``, without the report step (the corpus checks numbers)."""
+    folder.mkdir(parents=True)
+    for name in ("demo.yaml", "demo_layout.csv", "demo_plate.csv"):
+        shutil.copy(CONFIGS / name, folder / name)
+    recipe = folder / "demo.yaml"
+    recipe.write_text(recipe.read_text("utf-8").replace("  - report: {method: html}\n", ""), "utf-8")
+    return recipe
+
+
+def _edit_csv(path: Path, edit) -> None:
+    import pandas as pd
+
+    frame = pd.read_csv(path)
+    edit(frame)
+    frame.to_csv(path, index=False)
+
+
+def _layout(well: str, column: str, value: float):
+    def edit(folder: Path) -> None:
+        def put(f):
+            f.loc[f["well"] == well, column] = value
+        _edit_csv(folder / "demo_layout.csv", put)
+    return edit
+
+
+def _read(well: str, row: int, value: object):
+    def edit(folder: Path) -> None:
+        def put(f):
+            f[well] = f[well].astype(object)
+            f.loc[row, well] = value
+        _edit_csv(folder / "demo_plate.csv", put)
+    return edit
+
+
+def _times(factor: float):
+    def edit(folder: Path) -> None:
+        def put(f):
+            f["time (s)"] = f["time (s)"] * factor
+        _edit_csv(folder / "demo_plate.csv", put)
+    return edit
+
+
+def _recipe(old: str, new: str):
+    def edit(folder: Path) -> None:
+        path = folder / "demo.yaml"
+        path.write_text(path.read_text("utf-8").replace(old, new), "utf-8")
+    return edit
+
+
+EPS, PATH = '"6220 M^-1 cm^-1"', '"0.55 cm"'
+#: The probes that once ended with exit 0 and inf, NaN or values above 1e30 in a result, and their kin.
+CORPUS = {
+    "enzyme 0": _layout("A2", "enzyme (nM)", 0.0),
+    "enzyme negative": _layout("A2", "enzyme (nM)", -5.0),
+    "enzyme 1e308": _layout("A2", "enzyme (nM)", 1e308),
+    "substrate inf": _layout("A3", "substrate (uM)", float("inf")),
+    "substrate negative": _layout("A3", "substrate (uM)", -15.0),
+    "substrate 1e300": _layout("B3", "substrate (uM)", 1e300),
+    "epsilon 1e-320": _recipe(EPS, '"1e-320 M^-1 cm^-1"'),
+    "epsilon NaN": _recipe(EPS, '"nan M^-1 cm^-1"'),
+    "epsilon 0": _recipe(EPS, '"0 M^-1 cm^-1"'),
+    "epsilon negative": _recipe(EPS, '"-6220 M^-1 cm^-1"'),
+    "pathlength 1e308 km": _recipe(PATH, '"1e308 km"'),
+    "pathlength 0": _recipe(PATH, '"0 cm"'),
+    "window end inf": _recipe('end: "90 s"', 'end: "inf s"'),
+    "read 1e308": _read("A5", 3, 1e308),
+    "read -1e308": _read("B5", 3, -1e308),
+    "read 1e5 among absorbances": _read("A5", 3, 1e5),
+    "read 1e-300": _read("C7", 4, 1e-300),
+    "reads 1e30 in a whole well": lambda folder: [_read("D4", r, 1e30)(folder) for r in range(10)],
+    "times x 1e-300": _times(1e-300),
+    "times x 1e300": _times(1e300),
+    "times x 1e-6": _times(1e-6),
+}
+
+
+def _unexplained(out: Path) -> list[str]:
+    """Result cells that are inf, NaN or beyond 1e30 without a flag that explains them: in rates.csv a row
+    needs a flag; in fits.csv a non-finite estimate needs success False (its message says why) and a missing
+    uncertainty needs errorbars False or a note."""
+    import numpy as np
+    import pandas as pd
+
+    def odd(values: pd.Series) -> np.ndarray:
+        v = pd.to_numeric(values, errors="coerce").to_numpy(float)
+        return ~np.isfinite(v) | (np.abs(np.nan_to_num(v)) > 1e30)
+
+    found = []
+    rates = pd.read_csv(out / "rates.csv", dtype={"flags": "string"})
+    flagged = rates["flags"].fillna("").astype(str) != ""
+    sample = rates["role"].astype(str) == "sample"
+    for column in ("rate", "rate_stderr", "signal_rate", "turnover", "turnover_stderr"):
+        if column in rates:
+            bad = odd(rates[column]) & sample.to_numpy() & ~flagged.to_numpy()
+            found += [f"rates {rates['well'][i]} {column}={rates[column][i]}" for i in np.flatnonzero(bad)]
+    if (out / "fits.csv").exists():
+        fits = pd.read_csv(out / "fits.csv", dtype={"note": "string"})
+        ok = fits["success"].astype(str) == "True"
+        bad = odd(fits["estimate"]) & ok.to_numpy()
+        found += [f"fits {fits['group'][i]} {fits['parameter'][i]} estimate" for i in np.flatnonzero(bad)]
+        explained = (fits["errorbars"].astype(str) == "False") | (fits["note"].fillna("").astype(str) != "") | ~ok
+        for column in ("stderr", "ci_low", "ci_high"):
+            bad = odd(fits[column]) & ~explained.to_numpy() & (fits["fixed"].astype(str) != "True").to_numpy()
+            found += [f"fits {fits['group'][i]} {fits['parameter'][i]} {column}" for i in np.flatnonzero(bad)]
+    return found
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("probe", list(CORPUS))
+def test_mutation_corpus_never_ends_well_with_unexplained_absurd_numbers(tmp_path: Path, probe: str, capsys):
+    recipe = _demo(tmp_path / "in")
+    CORPUS[probe](tmp_path / "in")
+    code = main(["run", str(recipe), "--out", str(tmp_path / "out"), "-q"])
+    err = capsys.readouterr().err
+    assert code in (0, 1, 2), err  # never 3 (an internal error) or a crash
+    if code == 2:
+        assert err.startswith("error: ") and ("demo" in err), err  # names the file (recipe line or data file)
+    else:
+        assert _unexplained(tmp_path / "out") == []
+
+
+def test_fit_budget_stops_a_fit_and_says_so():
+    import numpy as np
+    from vzero.plugins.fit import engine
+
+    def line(p, x):
+        return p[0] * x["s"] + p[1]
+
+    def slope(p, x):
+        return [x["s"], np.ones_like(x["s"])]
+
+    x = {"s": np.linspace(0, 10, 11)}
+    y = 2 * x["s"] + 1
+    res = engine.fit(line, slope, x, y, [0.0, 0.0], ["a", "b"], seconds=0.0)
+    assert not res.success and "time budget" in res.message
+    res = engine.fit(line, slope, x, y, [0.0, 0.0], ["a", "b"], max_nfev=1)
+    assert not res.success and "budget of 1 model evaluations" in res.message
+    res = engine.fit(line, slope, x, y, [0.0, 0.0], ["a", "b"])
+    assert res.success  # the ordinary fit, well within its budget

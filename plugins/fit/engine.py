@@ -189,6 +189,18 @@ def summarize(
     return out
 
 
+#: The budget of one :func:`fit`: at most this many model evaluations per algorithm, and this many seconds in
+#: all. Far above what a rate law on a plate's points needs (tens of evaluations, milliseconds); a data set
+#: that reaches it (one absurd read among ordinary ones, say) gets ``success=False`` and a message saying so,
+#: instead of holding up the run for minutes.
+FIT_MAX_NFEV = 5_000
+FIT_SECONDS = 2.0
+
+
+class _OverBudget(Exception):
+    """Raised inside the residual function when a fit has used up its time."""
+
+
 def fit(
     func: Func,
     jac: Jac,
@@ -204,8 +216,13 @@ def fit(
     units: Mapping[str, str] | None = None,
     method: str = "trf",
     tol: float = TOL,
+    max_nfev: int = FIT_MAX_NFEV,
+    seconds: float = FIT_SECONDS,
 ) -> FitResult:
     """Fit one data set by least squares; ``sigma`` gives per-point standard deviations (weights 1/σ).
+
+    The fit stops at its budget (``max_nfev`` evaluations per algorithm, ``seconds`` in all) with
+    ``success=False`` and a message naming the budget.
 
     Minimises Σ((f − y)/σ)². ``fixed`` holds parameters at given values; ``bounds`` maps a name to
     (low, high). A fit that converges to a point no better than a constant (R² ≤ 1e-9 while y varies) is
@@ -229,7 +246,15 @@ def fit(
         v[free] = q
         return v
 
+    import time
+
+    deadline = time.monotonic() + seconds
+    last = [start[free]]
+
     def res(q: np.ndarray) -> np.ndarray:
+        if time.monotonic() > deadline:
+            raise _OverBudget
+        last[0] = q
         return w * (func(list(full(q)), x) - y)
 
     def jj(q: np.ndarray) -> np.ndarray:
@@ -239,14 +264,21 @@ def fit(
         from scipy import optimize  # here, not at the top: a batched fit that needs no fallback never pays its
         # import (0.1 s, once per process)
 
-        kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": 100_000}
+        kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": max_nfev}
         if meth != "lm":
             kw["bounds"] = (lo[free], hi[free])
         with np.errstate(all="ignore"):
             try:
-                return optimize.least_squares(res, start[free], jac=jj, **kw)
+                sol = optimize.least_squares(res, start[free], jac=jj, **kw)
             except ValueError as exc:  # residuals not finite at the start, e.g. a parameter on a pole
                 return optimize.OptimizeResult(x=start[free], success=False, cost=np.inf, nfev=0, message=str(exc))
+            except _OverBudget:
+                return optimize.OptimizeResult(x=last[0], success=False, cost=np.inf, nfev=0,
+                                               message=f"stopped at the fit's time budget ({seconds:g} s)")
+        if sol.status == 0:  # scipy's code for "the number of function evaluations is exceeded"
+            sol.success = False
+            sol.message = f"stopped at the fit's budget of {max_nfev} model evaluations"
+        return sol
 
     boxed = np.any(np.isfinite(lo[free]) | np.isfinite(hi[free]))
     first = "trf" if boxed else method
