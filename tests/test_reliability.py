@@ -463,3 +463,12 @@ def test_fit_budget_stops_a_fit_and_says_so():
     assert not res.success and "budget of 1 model evaluations" in res.message
     res = engine.fit(line, slope, x, y, [0.0, 0.0], ["a", "b"])
     assert res.success  # the ordinary fit, well within its budget
+
+
+def test_a_ten_megabyte_cell_is_refused_with_its_row(tmp_path: Path):
+    from vzero.errors import InputFileError
+    from vzero.plugins.importers.readers import ReadOptions, load_grid
+
+    data = b"time (s),A1\n0," + b"7" * 10_000_000 + b"\n"
+    with pytest.raises(InputFileError, match=r"plate\.csv, row 2, column '2': a cell of 10000000 characters"):
+        load_grid(data, source="plate.csv", options=ReadOptions())

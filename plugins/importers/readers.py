@@ -183,11 +183,29 @@ def read_table(data: bytes, *, source: str, options: ReadOptions | None = None) 
     return blocks
 
 
+#: The longest cell text read (a number, a well name, a group name: a few dozen characters). A longer cell
+#: is a damaged or crafted file, and would cost memory out of all proportion downstream.
+MAX_CELL_CHARS = 10_000
+
+
 def load_grid(data: bytes, *, source: str, options: ReadOptions) -> TextGrid:
     """Decode ``data`` (delimited text or .xlsx) into rows of cell texts, detecting what options leave open.
 
-    Shared with the layout reader. Raises :class:`InputFileError` for empty, binary or damaged files.
+    Shared with the layout reader. Raises :class:`InputFileError` for empty, binary or damaged files, and
+    for a cell longer than ``MAX_CELL_CHARS``.
     """
+    grid = _load_grid(data, source=source, options=options)
+    for k, row in enumerate(grid.rows):
+        if row and max(map(len, row)) > MAX_CELL_CHARS:
+            j = max(range(len(row)), key=lambda i: len(row[i]))
+            raise InputFileError(f"a cell of {len(row[j])} characters; cells over {MAX_CELL_CHARS} are refused",
+                                 path=source, row=grid.lines[k] if grid.lines else k + 1, column=str(j + 1),
+                                 hint="Check the file: it looks damaged or is not a plate export.")
+    return grid
+
+
+def _load_grid(data: bytes, *, source: str, options: ReadOptions) -> TextGrid:
+    """:func:`load_grid` without the cell-size check."""
     if not data or not data.strip():
         raise InputFileError("the file is empty", path=source, hint="Check that the export finished.")
     if data[:4] == _XLSX_MAGIC:
