@@ -58,7 +58,8 @@ def test_crafted_audit_file_naming_a_plugin_path_runs_no_code(tmp_path: Path):
         rerun(audit, tmp_path / "again")
     assert main(["rerun", str(audit), "--out", str(tmp_path / "cli"), "-q"]) == 2
     for command in (["inspect", str(audit)], ["verify", str(audit)], ["diff", str(audit), str(audit)],
-                    ["report", str(audit), "--out", str(tmp_path / "rep")]):
+                    ["report", str(audit), "--out", str(tmp_path / "rep")],
+                    ["export", str(audit), "--format", "xlsx", "--out", str(tmp_path / "x.xlsx")]):
         main(command)
     assert not marker.exists()
     assert not (tmp_path / "again").exists() and not (tmp_path / "cli").exists()
@@ -163,6 +164,7 @@ def test_force_swaps_atomically_and_a_killed_swap_is_restored(tmp_path: Path):
 
 
 def test_report_files_are_replaced_as_one_set(tmp_path: Path, monkeypatch):
+    from vzero.errors import OutputWriteError
     from vzero.run import swap
 
     swap.replace_set(tmp_path, {"report.html": b"old", "figures/a.png": b"old-a"}, "report")
@@ -176,7 +178,7 @@ def test_report_files_are_replaced_as_one_set(tmp_path: Path, monkeypatch):
         return real(self, data)
 
     monkeypatch.setattr(Path, "write_bytes", fail_second)
-    with pytest.raises(OSError, match="No space"):
+    with pytest.raises(OutputWriteError, match=r"cannot write '.*figures/a\.png': No space left on device"):
         swap.replace_set(tmp_path, {"report.html": b"new", "figures/a.png": b"new-a"}, "report")
     monkeypatch.undo()
     assert (tmp_path / "report.html").read_bytes() == b"old" and (tmp_path / "figures/a.png").read_bytes() == b"old-a"
@@ -472,3 +474,31 @@ def test_a_ten_megabyte_cell_is_refused_with_its_row(tmp_path: Path):
     data = b"time (s),A1\n0," + b"7" * 10_000_000 + b"\n"
     with pytest.raises(InputFileError, match=r"plate\.csv, row 2, column '2': a cell of 10000000 characters"):
         load_grid(data, source="plate.csv", options=ReadOptions())
+
+
+@pytest.mark.parametrize("command", ["export", "report"])
+def test_full_disk_in_export_and_report_is_exit_2_naming_the_file(tmp_path: Path, command: str):
+    import subprocess
+    import sys
+
+    audit = run(linear_plate(tmp_path / "in"), tmp_path / "run").audit_path
+    out = tmp_path / ("x.xlsx" if command == "export" else "rep")
+    args = ["export", str(audit), "--format", "xlsx", "--out", str(out)] if command == "export" else \
+        ["report", str(audit), "--out", str(out)]
+    proc = subprocess.run([sys.executable, "-m", "vzero", *args], preexec_fn=lambda: _limited(3000),
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 2, proc.stderr[-2000:]
+    assert f"cannot write '{out}" in proc.stderr and "File too large" in proc.stderr
+    assert not out.exists() or not any(out.iterdir())
+
+
+def test_permission_denied_is_exit_2_naming_the_folder(tmp_path: Path, monkeypatch, capsys):
+    import tempfile
+
+    def denied(*args: object, **kwargs: object) -> str:
+        raise PermissionError(13, "Permission denied", str(tmp_path))
+
+    monkeypatch.setattr(tempfile, "mkdtemp", denied)  # what a read-only folder does (tests may run as root)
+    assert main(["run", str(linear_plate(tmp_path / "in")), "--out", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert f"'{tmp_path}': Permission denied" in err and "Choose a folder you may write to" in err

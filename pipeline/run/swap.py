@@ -47,6 +47,15 @@ def replace_set(out: Path, files: Mapping[str, bytes], prefix: str) -> None:
     first (a failure or a kill there leaves the old set untouched), then each top-level entry is moved in,
     folders by atomic exchange, the files last. The staging folder is named ``.<prefix>.partial-<pid>-*``;
     those of processes that are gone are removed by the next call."""
+    from vzero.errors import OutputWriteError
+
+    try:
+        _replace_set(out, files, prefix)
+    except OSError as exc:  # a full disk, a read-only folder: one sentence naming the folder
+        raise OutputWriteError.from_os(exc, exc.filename or out) from None
+
+
+def _replace_set(out: Path, files: Mapping[str, bytes], prefix: str) -> None:
     out.mkdir(parents=True, exist_ok=True)
     for stale in out.glob(f".{prefix}.partial-*"):
         pid = stale.name.removeprefix(f".{prefix}.partial-").split("-", 1)[0]
