@@ -461,6 +461,12 @@ PROFILE_ROOT = 30
 """Root-finding evaluations allowed per side once the limit is bracketed (the cost cap; a few suffice)."""
 
 
+#: The time budget of one profile-likelihood search (all groups of a batch, one parameter): this many
+#: seconds plus a little per group. Far above what ordinary data need (milliseconds per group).
+PROFILE_SECONDS = 1.0
+PROFILE_SECONDS_PER_GROUP = 0.05
+
+
 def profile_batch(
     func: Func,
     jac: Jac,
@@ -475,6 +481,7 @@ def profile_batch(
     confidence: float = 0.95,
     max_expand: int = PROFILE_EXPAND,
     max_root: int = PROFILE_ROOT,
+    seconds: float | None = None,
 ) -> list[tuple[float, float, str]]:
     """Profile-likelihood intervals of parameter ``name`` for many groups at once.
 
@@ -490,8 +497,15 @@ def profile_batch(
 
     Returns (low, high, note) per group. A side that never reaches the threshold before a bound or within
     2^(max_expand - 1) Wald half-widths is NaN (open interval); a limit still moving when the cap is hit is
-    returned with a note saying it is approximate.
+    returned with a note saying it is approximate. The search also stops after ``seconds`` (default
+    ``PROFILE_SECONDS`` plus ``PROFILE_SECONDS_PER_GROUP`` per group); the sides it had not finished then say
+    so in their note (a side without a bracket yet is NaN).
     """
+    import time
+
+    budget = seconds if seconds is not None else PROFILE_SECONDS + PROFILE_SECONDS_PER_GROUP * len(results)
+    deadline = time.monotonic() + budget
+    timed_out = False
     nan = float("nan")
     g = len(results)
     out: list[tuple[float, float, str]] = [
@@ -555,6 +569,9 @@ def profile_batch(
         rows = np.flatnonzero(searching)
         if rows.size == 0:
             break
+        if time.monotonic() > deadline:
+            timed_out = True
+            break
         t = best[grp[rows], j] + sign[rows] * step[rows]
         at_bound = np.where(sign[rows] < 0, t <= bound[rows], t >= bound[rows])
         t = np.where(at_bound, bound[rows], t)
@@ -571,6 +588,9 @@ def profile_batch(
     for _ in range(max_root):  # Illinois iteration inside the bracket
         rows = np.flatnonzero(active)
         if rows.size == 0:
+            break
+        if time.monotonic() > deadline:
+            timed_out = True
             break
         ar, br, far, fbr = a[rows], b[rows], fa[rows], fb[rows]
         with np.errstate(all="ignore"):
@@ -592,9 +612,12 @@ def profile_batch(
     notes: list[list[str]] = [[] for _ in sel]
     for q in range(2 * n):  # per group: the lower side's notes, then the upper side's
         side = "lower" if q < n else "upper"
-        if not np.isfinite(b[q]) and np.isnan(c[q]):
+        if timed_out and (searching[q] or active[q]):
+            notes[grp[q]].append(f"{side} limit {'approximate' if active[q] else 'not found'}: the search "
+                                 f"stopped at its time budget ({budget:g} s)")
+        elif not np.isfinite(b[q]) and np.isnan(c[q]):
             notes[grp[q]].append(f"{side} limit not reached (open interval)")
-        if active[q]:
+        elif active[q]:
             notes[grp[q]].append(f"{side} limit approximate: search stopped after {max_root} evaluations")
     for k, gi in enumerate(sel):
         out[gi] = (float(limits[k, 0]), float(limits[k, 1]), "; ".join(notes[k]))
