@@ -143,6 +143,7 @@ def match_given_plugins(
                           f"(it names: {', '.join(entries) or 'none'})",
                           hint="Pass only the plugins the stored recipe uses (vzero inspect shows them).")
     recorded = _recorded(stored)
+    by_name = {_file_name(path): sha for path, sha in recorded.items()}  # a rerun recorded the path it was given
     load: list[str] = []
     changed: list[str] = []
     missing: list[str] = []
@@ -160,7 +161,7 @@ def match_given_plugins(
         path = Path(given_as)
         if not path.is_file():
             raise PluginError(f"--plugin {given_as!r}: no such file")
-        if _compare(entry, path, recorded.get(entry, ""), allow_changed):
+        if _compare(entry, path, recorded.get(entry) or by_name.get(_file_name(entry), ""), allow_changed):
             changed.append(entry)
         load.append(str(path.resolve()))
     if missing:

@@ -89,7 +89,9 @@ def test_stored_recipe_plugins_run_only_when_passed_and_unchanged(tmp_path: Path
     with pytest.raises(PluginError, match=r"lab_rates\.py.*--plugin lab_rates\.py"):
         rerun(old, tmp_path / "unnamed")  # the file sits where the recipe said, but the user did not name it
     assert not (tmp_path / "unnamed").exists()
-    assert rerun(old, tmp_path / "same", plugins=[str(plugin)]).exit_code == 0
+    same = rerun(old, tmp_path / "same", plugins=[str(plugin)])
+    assert same.exit_code == 0
+    assert rerun(same.audit_path, tmp_path / "again", plugins=[str(plugin)]).exit_code == 0  # a rerun of a rerun
     plugin.write_text(plugin.read_text("utf-8").replace('__version__ = "0.3"', '__version__ = "0.4"'), "utf-8")
     with pytest.raises(PluginError, match="differs from the old run's"):
         rerun(old, tmp_path / "changed", plugins=[str(plugin)])
