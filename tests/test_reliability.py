@@ -58,7 +58,7 @@ def test_crafted_audit_file_naming_a_plugin_path_runs_no_code(tmp_path: Path):
         rerun(audit, tmp_path / "again")
     assert main(["rerun", str(audit), "--out", str(tmp_path / "cli"), "-q"]) == 2
     for command in (["inspect", str(audit)], ["verify", str(audit)], ["diff", str(audit), str(audit)],
-                    ["report", str(audit), "--out", str(tmp_path / "rep")],
+                    ["report", str(audit), "--out", str(tmp_path / "rep"), "--max-panels", "24"],
                     ["export", str(audit), "--format", "xlsx", "--out", str(tmp_path / "x.xlsx")]):
         main(command)
     assert not marker.exists()
@@ -111,6 +111,7 @@ def _limited(size: int) -> None:
     resource.setrlimit(resource.RLIMIT_FSIZE, (size, size))
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("size", [2_000, 40_000, 100_000])
 def test_full_disk_during_the_audit_write_is_exit_2_and_leaves_nothing(tmp_path: Path, size: int):
     import subprocess
@@ -476,6 +477,7 @@ def test_a_ten_megabyte_cell_is_refused_with_its_row(tmp_path: Path):
         load_grid(data, source="plate.csv", options=ReadOptions())
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("command", ["export", "report"])
 def test_full_disk_in_export_and_report_is_exit_2_naming_the_file(tmp_path: Path, command: str):
     import subprocess
