@@ -88,3 +88,32 @@ class AuditFileError(VzeroError):
 
 class OutputExistsError(VzeroError):
     """The output folder already holds a run; pass ``--force`` to replace it."""
+
+
+class OutputWriteError(VzeroError):
+    """An output file or folder cannot be written (disk full, read-only, permission denied, a file in the way).
+
+    The message is one sentence naming the path and the cause; nothing partial is left at the target."""
+
+    path: str = ""
+
+    @classmethod
+    def from_os(cls, exc: OSError, path: object = None, action: str = "write") -> OutputWriteError:
+        import errno
+
+        where = path if path is not None else (exc.filename or "the output")
+        cause = exc.strerror or str(exc)
+        fixes = {errno.ENOSPC: "Free some space or write to another disk.",
+                 errno.EFBIG: "The file is larger than this system allows; write to another disk.",
+                 errno.EDQUOT: "Your disk quota is used up; free some space.",
+                 errno.EROFS: "That disk is read-only; choose another --out.",
+                 errno.EACCES: "Choose a folder you may write to, or change its permissions.",
+                 errno.EPERM: "Choose a folder you may write to, or change its permissions.",
+                 errno.EEXIST: "A file is in the way; choose another --out.",
+                 errno.ENOTDIR: "Part of that path is a file, not a folder; choose another --out.",
+                 errno.EISDIR: "A folder is in the way; choose another name."}
+        left = "; nothing was left there" if action == "write" else ""
+        error = cls(f"cannot {action} {str(where)!r}: {cause}{left}.",
+                    hint=fixes.get(exc.errno or 0, "Check the path and the disk."))
+        error.path = str(where)
+        return error

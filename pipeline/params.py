@@ -103,6 +103,9 @@ class Param:
                 out = units.quantity(value, like=self.like, what="value")
             except UnitError as exc:
                 raise ValueError(exc.message.removeprefix("value: ")) from None
+            problem = units.implausible(out, self.like)
+            if problem:
+                raise ValueError(f"{value!r}: {problem}")
         elif k == "unit":
             if not isinstance(value, str):
                 raise bad

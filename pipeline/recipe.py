@@ -98,6 +98,9 @@ class Recipe:
     plates: list[PlateSpec] = field(default_factory=list)
     #: manifest files named in ``plates`` (relative to the recipe folder); the runner stores them as inputs.
     manifests: list[str] = field(default_factory=list)
+    #: the plugins to load instead of the recipe's own list: set by ``vzero rerun`` to the files the user
+    #: passed with ``--plugin`` (an audit file's stored recipe never chooses code by itself).
+    plugin_override: list[str] | None = None
 
     @property
     def sha256(self) -> str:
@@ -109,6 +112,8 @@ class Recipe:
 
     @property
     def plugin_entries(self) -> list[str]:
+        if self.plugin_override is not None:
+            return list(self.plugin_override)
         value = self.data.get("plugins") or []
         return [str(v) for v in value] if isinstance(value, list) else []
 
@@ -131,6 +136,12 @@ def format_path(path: tuple[Any, ...]) -> str:
     return out or "(top)"
 
 
+#: Bounds on YAML aliases (``*name``), so that a small recipe cannot expand to millions of values (an "alias
+#: bomb": each alias repeats a mapping that itself repeats others). Recipes rarely need aliases at all.
+MAX_ALIASES = 200
+#: The most values (mappings, lists and scalars, counted with every alias expanded) a recipe may hold.
+MAX_EXPANDED_NODES = 200_000
+
 #: YAML's safe loader (no Python objects from tags), in libyaml's C version where available.
 _LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
@@ -145,6 +156,8 @@ def parse(text: str, path: str) -> Recipe:
         loader = _LOADER(text)  # the safe loader; libyaml's C version where PyYAML has it
         try:
             node = loader.get_single_node()
+            if node is not None:
+                _check_size(node, text, name)
             data = loader.construct_document(node) if node is not None else None
         finally:
             loader.dispose()
@@ -161,6 +174,42 @@ def parse(text: str, path: str) -> Recipe:
     if dupes:
         raise RecipeError(dupes)
     return Recipe(path=str(path), text=text, data=data, lines=lines)
+
+
+def _check_size(root: Any, text: str, name: str) -> None:
+    """Refuse a recipe whose aliases are too many or expand to too many values (see ``MAX_ALIASES``)."""
+    aliases = text.count("*")  # an upper bound: every alias starts with '*'; checked exactly below
+    sizes: dict[int, int] = {}
+    seen_twice = 0
+
+    def size(node: Any) -> int:
+        nonlocal seen_twice
+        key = id(node)
+        if key in sizes:
+            seen_twice += 1  # the same node reached again: an alias
+            if seen_twice > MAX_ALIASES:
+                raise RecipeError(f"{name}:{node.start_mark.line + 1} the recipe uses more than {MAX_ALIASES} "
+                                  "YAML aliases (*name); write the values out, or use fewer aliases")
+            return sizes[key]
+        sizes[key] = 1  # a node that refers to itself counts once
+        children: list[Any] = []
+        if isinstance(node, yaml.MappingNode):
+            children = [n for pair in node.value for n in pair]
+        elif isinstance(node, yaml.SequenceNode):
+            children = list(node.value)
+        total = 1
+        for child in children:
+            total += size(child)
+            if total > MAX_EXPANDED_NODES:
+                raise RecipeError(
+                    f"{name}:{node.start_mark.line + 1} the recipe expands to more than {MAX_EXPANDED_NODES} values "
+                    "through YAML aliases (*name); a recipe that large is refused",
+                    hint="Write the values out, or split the batch into several recipes.")
+        sizes[key] = total
+        return total
+
+    if aliases:
+        size(root)
 
 
 def _walk(node: Any, path: tuple[Any, ...], lines: dict[tuple[Any, ...], int], dupes: list[str], name: str) -> None:
@@ -186,12 +235,29 @@ def load(path: str | Path) -> Recipe:
     """Read and parse a recipe file; a missing or unreadable file is a :class:`RecipeError`."""
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8-sig")
+        raw = p.read_bytes()
     except FileNotFoundError:
         raise RecipeError(f"recipe file {str(path)!r} not found", hint="Check the path.") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RecipeError(f"recipe file {str(path)!r} cannot be read: {exc}") from None
+    except OSError as exc:
+        raise RecipeError(f"recipe file {str(path)!r} cannot be read: {exc.strerror}") from None
+    if len(raw) > MAX_RECIPE_BYTES:
+        raise RecipeError(f"{p.name}:1 the recipe is {len(raw)} bytes; recipes over {MAX_RECIPE_BYTES} bytes are "
+                          "refused", hint="List many plates in a manifest CSV (plates: [{manifest: plates.csv}]).")
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        raise RecipeError(f"{p.name}:{line} is not UTF-8 text (byte 0x{raw[exc.start]:02x} at position "
+                          f"{exc.start})", hint="Save the recipe as UTF-8 in your editor.") from None
+    if "\x00" in text:
+        line = text[: text.index("\x00")].count("\n") + 1
+        raise RecipeError(f"{p.name}:{line} holds a NUL character; a recipe is plain text",
+                          hint="Save the recipe as plain UTF-8 text.")
     return parse(text, str(path))
+
+
+#: Recipes longer than this are refused before parsing (a recipe is a page of text; batches use manifests).
+MAX_RECIPE_BYTES = 1_000_000
 
 
 def check(
@@ -203,6 +269,7 @@ def check(
     read: Callable[[str], bytes] | None = None,
     plates: bool = True,
     extra_checks: Callable[[Recipe], list[str]] | None = None,
+    skipped: list[str] | None = None,
 ) -> Recipe:
     """Validate ``recipe`` against the registry: keys, types, units, methods, plates and input files.
 
@@ -210,7 +277,9 @@ def check(
     ``expand(pattern)`` expands a glob in a ``data`` entry (default: on disk); ``read(rel_path)`` returns the
     bytes of a plate manifest (default: from disk). ``plates=False`` skips the plates (a worker process that
     is handed its plate checks only the steps). ``extra_checks(recipe)`` returns further problems (the
-    plugins' ``vzero_check_recipe`` hook). Fills ``recipe.steps``, ``recipe.plates`` and
+    plugins' ``vzero_check_recipe`` hook). With a ``skipped`` list, a step whose kind or method no loaded
+    plugin provides is listed there instead of being an error (``vzero check`` without the recipe's local
+    plugins). Fills ``recipe.steps``, ``recipe.plates`` and
     ``recipe.manifests`` and returns the recipe; raises :class:`RecipeError` listing every problem.
     """
     base = recipe.base_dir
@@ -242,7 +311,7 @@ def check(
     if plates:
         recipe.manifests = []
         recipe.plates = _check_plates(data.get("plates"), bad, exists, expand, read, recipe.manifests)
-    recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad)
+    recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad, skipped)
     if extra_checks is not None:
         problems.extend(extra_checks(recipe))
     if problems:
@@ -298,10 +367,28 @@ def _check_plates(
             if not exists(rel):
                 bad((*path, key), f"input file {rel!r} not found (paths are relative to the recipe)")
     for j, plate in enumerate(out):
+        problem = unsafe_name(plate.name)
+        if problem:
+            bad(("plates",), f"plate name {plate.name!r} (plate {j + 1}) {problem}; rename it")
         if plate.name in names:
             bad(("plates",), f"plate name {plate.name!r} is used twice (plate {j + 1}); give each plate its own name")
         names.add(plate.name)
     return out
+
+
+def unsafe_name(name: str) -> str | None:
+    """Why ``name`` cannot name a plate (it becomes an HDF5 group and part of file names), or None."""
+    if not name.strip():
+        return "is empty"
+    if name in (".", ".."):
+        return "is a folder reference"
+    if "/" in name or "\\" in name:
+        return "holds a slash, which HDF5 and file systems read as a folder separator"
+    if any(ord(ch) < 32 or ord(ch) == 127 for ch in name):
+        return "holds a control character (NUL, tab, line break, ...)"
+    if len(name) > 200:
+        return f"is {len(name)} characters long; keep it under 200"
+    return None
 
 
 def _is_glob(text: str) -> bool:
@@ -372,7 +459,11 @@ def _manifest_plates(
 
 
 def _check_steps(
-    recipe: Recipe, steps: Any, registry: Registry, bad: Callable[[tuple[Any, ...], str], None]
+    recipe: Recipe,
+    steps: Any,
+    registry: Registry,
+    bad: Callable[[tuple[Any, ...], str], None],
+    skipped: list[str] | None = None,
 ) -> list[StepSpec]:
     out: list[StepSpec] = []
     if not isinstance(steps, list):
@@ -386,6 +477,11 @@ def _check_steps(
             bad(path, "expected one mapping like {rates: {method: window, ...}}")
             continue
         kind, body = next(iter(step.items()))
+        method = body.get("method") if isinstance(body, dict) else None
+        if skipped is not None and (kind not in kinds
+                                    or (isinstance(method, str) and method not in registry.names(kind))):
+            skipped.append(f"{recipe.where((*path, kind))} ({kind}: {method})")
+            continue
         if kind not in kinds:
             hit = closest(kind, kinds)
             near = f" (did you mean {hit!r}?)" if hit else ""
@@ -395,7 +491,6 @@ def _check_steps(
         if not isinstance(body, dict):
             bad((*path, kind), "expected a mapping with 'method' and the method's parameters")
             continue
-        method = body.get("method")
         if not isinstance(method, str):
             bad((*path, kind), f"missing 'method'; available {kind} methods: {', '.join(registry.names(kind))}")
             continue

@@ -81,6 +81,43 @@ def quantity(text: Any, *, like: str | None = None, what: str = "value") -> Any:
     return q
 
 
+#: The magnitudes, in SI base units, that a physical setting of an assay can have (concentrations, extinction
+#: coefficients, pathlengths, volumes, times). Far wider than any real assay; outside it a value is a typo or
+#: a probe, and the arithmetic downstream would overflow to inf or underflow to 0.
+PLAUSIBLE_SI = (1e-30, 1e30)
+#: Dimensions of settings that may be zero (a window that starts at 0 s, a substrate-free control).
+ZERO_ALLOWED = ("[time]", "[substance] / [length] ** 3")
+
+
+def implausible(q: Any, like: str | None) -> str | None:
+    """Why the quantity ``q`` cannot be a physical setting, or None: not a finite number, negative (only a
+    temperature may be below zero on its own scale, and not below absolute zero), zero where that makes no
+    sense (an extinction coefficient, a pathlength, a volume), or outside ``PLAUSIBLE_SI`` once in SI base
+    units. The message gives the allowed range."""
+    import math
+
+    magnitude = float(q.magnitude)
+    if not math.isfinite(magnitude):
+        return "not a finite number; give a value like " + _example(like)
+    try:
+        base = q.to_base_units()
+    except Exception:  # pragma: no cover - pint cannot convert an odd offset unit: leave the value be
+        return None
+    si = float(base.magnitude)
+    low, high = PLAUSIBLE_SI
+    span = f"between {low:g} and {high:g} {base.units:~P} in SI base units"
+    if q.dimensionality == registry().Quantity(1, "K").dimensionality:
+        return None if 0 <= si <= 1e4 else "not a temperature an assay can have (allowed: 0 to 10000 K)"
+    if magnitude < 0:
+        return f"must not be negative (allowed: 0 or {span})"
+    if magnitude == 0:
+        zero_ok = str(q.dimensionality) in ZERO_ALLOWED
+        return None if zero_ok else f"must be greater than zero (allowed: {span})"
+    if not math.isfinite(si) or not low <= si <= high:
+        return f"outside the range an assay can have (allowed: {span}; this is {si:g})"
+    return None
+
+
 def unit(text: str, *, like: str | None = None, what: str = "unit") -> Any:
     """Parse a unit alone (``"uM/min"``), optionally checking its dimension against ``like``."""
     ureg = registry()

@@ -96,7 +96,10 @@ class AuditWriter:
         self._warnings: dict[str, list[str]] = {}
         self._names: dict[str, list[str]] = {}
         self.failed_items: list[str] = []
-        self.f = _h5py().File(path, "w", track_order=True)
+        from vzero.audit.guarded import GuardedFile
+
+        self.sink = GuardedFile(path)  # a failed write (disk full) becomes an error here, not a crash in HDF5
+        self.f = _h5py().File(self.sink, "w", track_order=True)
         _set_attr(self.f, "format", FORMAT_NAME)
         _set_attr(self.f, "format_version", FORMAT_VERSION)
         _set_attr(self.f, "vzero_version", __version__)
@@ -126,6 +129,7 @@ class AuditWriter:
         import time
 
         t0 = time.perf_counter()
+        self.sink.check()  # stop at the next plate once the disk is full, not at the end of the batch
         if raw.sha256 not in self._inputs:
             dsid = _dataset(self.inputs.id, f"{len(self._inputs):02d}", np.frombuffer(raw.data, dtype=np.uint8))
             for key, value in (("name", raw.name), ("key", raw.key), ("sha256", raw.sha256), ("size", len(raw.data))):
@@ -243,6 +247,8 @@ class AuditWriter:
         for name, table in tables.items():
             write_table(results, name, table, self.links)
         self.f.close()
+        self.sink.close()
+        self.sink.check()
         self.links = Links()
         self.seconds += time.perf_counter() - t0
 
@@ -250,3 +256,4 @@ class AuditWriter:
         """Close without finishing (after an error; the caller removes the temporary folder)."""
         if self.f.id.valid:
             self.f.close()
+        self.sink.close()

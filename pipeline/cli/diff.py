@@ -260,5 +260,7 @@ def run(args: argparse.Namespace) -> int:
     if not args.quiet:
         print(to_text(result, args.limit))
     if args.csv:
-        to_csv_frame(result).to_csv(args.csv, index=False)
+        from vzero.spreadsheet import inert_frame
+
+        inert_frame(to_csv_frame(result)).to_csv(args.csv, index=False)
     return 0

@@ -82,7 +82,8 @@ def summary(path: str | Path, *, max_wells: int = 50) -> str:
                 lines.append(f"  WARNING: local plugins changed since that run: {', '.join(d['changed_plugins'])}")
         lines.append("inputs:")
         for s in _inputs_meta(f):
-            lines.append(f"  {s[0]} ({s[1]} bytes, sha256 {s[2]}) plates {', '.join(s[3])}")
+            where = "  OUTSIDE the recipe's folder" if _outside(s[0]) else ""
+            lines.append(f"  {s[0]} ({s[1]} bytes, sha256 {s[2]}) plates {', '.join(s[3])}{where}")
         lines.append("steps:")
         step_labels = list(f["steps"])
         for label, g in f["steps"].items():
@@ -119,6 +120,12 @@ def summary(path: str | Path, *, max_wells: int = 50) -> str:
         lines.append(f"  [{'x' if ok else ' '}] {label}" + ("" if ok else f"  (missing: {where})"))
     lines.append("Results are for research use; check them against your lab's validated procedures.")
     return "\n".join(lines)
+
+
+def _outside(name: str) -> bool:
+    """Whether an input's stored name (its path as the recipe gave it) points outside the recipe's folder."""
+    parts = name.replace("\\", "/").split("/")
+    return name.startswith(("/", "\\")) or (len(name) > 1 and name[1] == ":") or ".." in parts
 
 
 def _inputs_meta(f: Any) -> list[tuple[str, int, str, list[str]]]:

@@ -63,6 +63,21 @@ def _cfg_run(p: argparse.ArgumentParser) -> None:
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run plates on the Dask cluster at ADDRESS (tcp://host:8786), or 'local' to start one "
                         "on this machine (needs: pip install 'vzero[dask]')")
+    p.add_argument("--max-input", type=_size, default=None, metavar="SIZE",
+                   help="read at most SIZE of input files (bytes, or with K, M, G: 8G); default 2G")
+
+
+def _size(text: str) -> int:
+    """``"8G"`` -> 8 * 1024**3 bytes (K, M, G, T; plain digits are bytes)."""
+    factors = {"K": 1024, "M": 1024**2, "G": 1024**3, "T": 1024**4}
+    body, unit = (text[:-1], text[-1].upper()) if text[-1:].upper() in factors else (text, "")
+    try:
+        value = float(body)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a size like 500M or 8G, got {text!r}") from None
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a positive size, got {text!r}")
+    return int(value * factors.get(unit, 1))
 
 
 def _positive(text: str) -> int:
@@ -80,8 +95,9 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
     shown = Progress(verbose=args.verbose, quiet=args.quiet)
     try:
+        limit = {"max_input_bytes": args.max_input} if args.max_input else {}
         result = run(args.recipe, args.out, force=args.force, progress=shown, jobs=args.jobs,
-                     scheduler=args.scheduler)
+                     scheduler=args.scheduler, **limit)
     finally:
         shown.finish()
     report_result(args, result)
@@ -90,14 +106,21 @@ def _cmd_run(args: argparse.Namespace) -> int:
 
 def _cfg_check(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipe", help="the recipe file (YAML)")
+    p.add_argument("--load-plugins", action="store_true",
+                   help="also import the plugins the recipe names and check their steps (runs their code)")
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
     from vzero.run.runner import check_recipe
 
-    rec = check_recipe(args.recipe)
-    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps: "
+    skipped: list[str] | None = None if args.load_plugins else []
+    rec = check_recipe(args.recipe, skipped=skipped)
+    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps checked: "
                + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ")")
+    if rec.plugin_entries and not args.load_plugins:
+        say(args, f"not checked: the recipe's plugins ({', '.join(rec.plugin_entries)}) were not imported, so "
+                  "their steps and settings are unchecked" + (": " + "; ".join(skipped) if skipped else "")
+                  + ". Pass --load-plugins to check them too (that runs their code).")
     return 0
 
 
@@ -224,6 +247,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BrokenPipeError:
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
+    except OSError as exc:  # the disk or the file system, not vzero: a full disk, a read-only folder, a file in the way
+        if debug:
+            raise
+        from vzero.errors import OutputWriteError
+
+        error = OutputWriteError.from_os(exc, action="use")
+        print(f"error: {error}", file=sys.stderr)
+        return error.exit_code
     except Exception as exc:  # a bug, not bad input: one line unless --debug
         if debug:
             raise

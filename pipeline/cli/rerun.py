@@ -8,7 +8,8 @@ from vzero.cli.say import report_result
 from vzero.run.rerun import rerun
 
 HELP = "Reprocess the raw inputs stored in an audit file with a new or the stored recipe."
-EXAMPLE = "vzero rerun runs/2024-03/run.h5 --recipe new-window.yaml --out runs/2024-03-rerun"
+EXAMPLE = ("vzero rerun runs/2024-03/run.h5 --recipe new-window.yaml --out runs/2024-03-rerun\n"
+           "  vzero rerun received/run.h5 --plugin my_rates.py --out runs/received-again")
 
 
 def configure(p: argparse.ArgumentParser) -> None:
@@ -16,16 +17,15 @@ def configure(p: argparse.ArgumentParser) -> None:
     p.add_argument("--recipe", help="the new recipe (default: the recipe stored in the old file)")
     p.add_argument("--out", "-o", required=True, help="folder for the new run.h5 and tables")
     p.add_argument("--force", action="store_true", help="replace an existing run in --out")
-    p.add_argument("--plugin-dir", help="where the local plugin files named by the recipe are")
+    p.add_argument("--plugin", action="append", default=[], metavar="FILE",
+                   help="a plugin file (or module name) the stored recipe uses; its code runs on this machine. "
+                        "Files are checked against the sha256 the old run recorded. Repeat for each plugin.")
     p.add_argument("--allow-changed-plugins", action="store_true",
-                   help="run local plugins whose code differs from the old run's (recorded in the new file)")
-    p.add_argument("--allow-stored-plugins", action="store_true",
-                   help="let the stored recipe load the plugins it names (their code runs on this machine)")
+                   help="run plugin files whose code differs from the old run's (recorded in the new file)")
 
 
 def run(args: argparse.Namespace) -> int:
-    result = rerun(args.old, args.out, recipe=args.recipe, plugin_dir=args.plugin_dir,
-                   allow_changed_plugins=args.allow_changed_plugins,
-                   allow_stored_plugins=args.allow_stored_plugins, force=args.force)
+    result = rerun(args.old, args.out, recipe=args.recipe, plugins=args.plugin,
+                   allow_changed_plugins=args.allow_changed_plugins, force=args.force)
     report_result(args, result)
     return int(result.exit_code)

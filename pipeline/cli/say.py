@@ -62,6 +62,10 @@ class Progress:
             self._drawn = False
 
 
+#: How the runner's warning about a file read from outside the recipe's folder begins.
+OUTSIDE = "read a file outside the recipe's folder"
+
+
 def report_result(args: argparse.Namespace, result: Any) -> None:
     rates = result.rates
     written = sorted(p.name + ("/" if p.is_dir() else "") for p in result.out_dir.iterdir())
@@ -69,10 +73,14 @@ def report_result(args: argparse.Namespace, result: Any) -> None:
     if len(rates):
         flagged = int((rates.get("flags", "").astype(str) != "").sum()) if "flags" in rates else 0
         say(args, f"{len(rates)} wells, {flagged} flagged")
-    for w in result.warnings[: 20 if args.verbose else 5]:
+    outside = [w for w in result.warnings if w.startswith(OUTSIDE)]
+    for w in outside:  # always every one: what a recipe took from elsewhere on this machine
+        print(f"note: {w}", file=sys.stderr)
+    others = [w for w in result.warnings if not w.startswith(OUTSIDE)]
+    for w in others[: 20 if args.verbose else 5]:
         say(args, f"warning: {w}")
-    if len(result.warnings) > 5 and not args.verbose:
-        say(args, f"... {len(result.warnings) - 5} more warnings (vzero inspect {result.audit_path})")
+    if len(others) > 5 and not args.verbose:
+        say(args, f"... {len(others) - 5} more warnings (vzero inspect {result.audit_path})")
     for plate, err in result.failed.items():
         print(f"plate {plate} failed: {err}", file=sys.stderr)
     if result.failed_items:

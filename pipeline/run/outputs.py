@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 from vzero.data import Table
 from vzero.run.executors import Executor
+from vzero.spreadsheet import inert, inert_frame
 
 #: Final tables with at least this many rows are written to CSV by worker processes when the run has a local
 #: process pool, split by rows into pieces of at least half as many rows, one piece per worker at most.
@@ -138,7 +139,7 @@ def write_csv(path: str, frame: pd.DataFrame, header: bool = True) -> None:
     column :func:`csv_text` does not handle is written by pandas in one go (pandas chooses some formats, such
     as dates with or without a time of day, from all the rows)."""
     if not handled(frame):
-        frame.to_csv(path, index=False, header=header)
+        inert_frame(frame).to_csv(path, index=False, header=header)
         return
     with open(path, "w", encoding="utf-8", newline="") as out:
         for start in range(0, max(len(frame), 1), CSV_BLOCK_ROWS):
@@ -195,6 +196,8 @@ def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
     pandas formats float64 through numpy's shortest round-trip text, which is Python's ``repr`` of the same
     float (checked over millions of bit patterns); ``repr`` on a list is much faster than numpy's
     ``astype(str)``. Missing values are empty fields; quoting is the csv module's minimal quoting, as pandas.
+    Text cells a spreadsheet would evaluate get a leading ``'`` (:mod:`vzero.spreadsheet`), so the text is
+    pandas' text of ``inert_frame(frame)``.
     Every row's text depends on that row alone, so a file split by rows joins into the same text.
     """
     import csv
@@ -216,10 +219,11 @@ def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
             text = list(map(str, values.tolist()))
         else:
             distinct, codes = text_codes(values_as(values, object))
+            distinct = [inert(t) for t in distinct]  # no cell a spreadsheet would run as a formula
             text = np.array(distinct, dtype=object)[codes].tolist()
             texts.append(distinct)
         columns.append(text)
-    names = [str(c) for c in frame.columns]
+    names = [inert(str(c)) for c in frame.columns]
     head = [names] if header else []
     if len(columns) > 1 and not any(_NEEDS_QUOTES.search("".join(col)) for col in [names, *texts]):
         # nothing to quote: plain joins (twice as fast as the csv module)

@@ -19,12 +19,13 @@ from typing import Any, Protocol
 
 import pandas as pd
 from vzero.data import Table, Traces
-from vzero.errors import InputFileError, OutputExistsError, StageError, VzeroError
+from vzero.errors import InputFileError, OutputExistsError, OutputWriteError, StageError, VzeroError
 from vzero.manager import Plugins, make_manager
 from vzero.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
 from vzero.run.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
 from vzero.run.outputs import CsvInWorkers, write_outputs
 from vzero.run.steps import PlateOutcome, StepRecord, process_plate, run_step, utc_now
+from vzero.run.swap import alive, exchange
 from vzero.stage import RawInput
 
 
@@ -38,20 +39,45 @@ class InputSource(Protocol):
     def expand(self, pattern: str) -> list[str]: ...
 
 
+#: How many bytes of input files a run reads at most unless told otherwise (``vzero run --max-input``).
+MAX_INPUT_BYTES = 2 * 1024**3
+
+
 @dataclass
 class DiskInputs:
-    """Input files on disk, relative to the recipe's folder."""
+    """Input files on disk, relative to the recipe's folder.
+
+    Files outside that folder (an absolute path, ``../``) are read when the recipe or its manifest names
+    them, and each one is recorded in ``outside`` (resolved path, size in bytes) so that the run lists them
+    on the console and in the audit file's warnings: a received recipe cannot take a file from elsewhere on
+    this machine into its audit file unseen. At most ``budget`` bytes are read in all."""
 
     base: Path
+    budget: int = MAX_INPUT_BYTES
+    used: int = 0
+    outside: dict[str, int] = field(default_factory=dict)
 
     def exists(self, rel: str) -> bool:
         return (self.base / rel).is_file()
 
     def read(self, rel: str) -> bytes:
+        path = self.base / rel
         try:
-            return (self.base / rel).read_bytes()
+            size = path.stat().st_size
+            if self.used + size > self.budget:
+                raise InputFileError(
+                    f"reading this file ({size} bytes) would take the run past its input budget of "
+                    f"{self.budget} bytes ({self.used} read so far)", path=rel,
+                    hint="Check that the recipe names the files you meant; pass --max-input (e.g. 8G) to "
+                         "allow more.")
+            data = path.read_bytes()
         except OSError as exc:
             raise InputFileError(f"cannot read the file: {exc.strerror}", path=rel) from None
+        self.used += len(data)
+        resolved = path.resolve()
+        if not resolved.is_relative_to(self.base.resolve()):
+            self.outside[str(resolved)] = len(data)
+        return data
 
     def expand(self, pattern: str) -> list[str]:
         import glob
@@ -88,11 +114,19 @@ class RunResult:
 
 
 def prepare(
-    recipe: str | Path | Recipe, *, inputs: InputSource | None = None, extra_plugins: Iterable[tuple[str, object]] = ()
+    recipe: str | Path | Recipe,
+    *,
+    inputs: InputSource | None = None,
+    extra_plugins: Iterable[tuple[str, object]] = (),
+    skipped: list[str] | None = None,
 ) -> tuple[Recipe, Plugins, InputSource]:
-    """Load the recipe, build the plugins it names, and validate it in full. Nothing is run or written."""
+    """Load the recipe, build the plugins it names, and validate it in full. Nothing is run or written.
+
+    With a ``skipped`` list the recipe's own plugins (local files, modules) are not imported: the steps
+    that need them are listed there unchecked (``vzero check`` runs no code a recipe names)."""
     rec = recipe if isinstance(recipe, Recipe) else load(recipe)
-    plugins = make_manager(rec.plugin_entries, base_dir=rec.base_dir, extra=extra_plugins)
+    local = rec.plugin_entries if skipped is None else []
+    plugins = make_manager(local, base_dir=rec.base_dir, extra=extra_plugins)
     source = inputs or DiskInputs(rec.base_dir)
 
     def plugin_checks(r: Recipe) -> list[str]:
@@ -100,7 +134,8 @@ def prepare(
         found = plugins.hook.vzero_check_recipe(recipe=r.data, where=r.where, plates=names)
         return [msg for msgs in found for msg in msgs or []]
 
-    check(rec, plugins.registry, exists=source.exists, expand=source.expand, extra_checks=plugin_checks)
+    check(rec, plugins.registry, exists=source.exists, expand=source.expand, extra_checks=plugin_checks,
+          skipped=skipped if rec.plugin_entries else None)
     return rec, plugins, source
 
 
@@ -135,6 +170,7 @@ def run(
     scheduler: str | None = None,
     executor: Executor | None = None,
     spill: bool | None = None,
+    max_input_bytes: int = MAX_INPUT_BYTES,
 ) -> RunResult:
     """Run ``recipe`` and write ``out``/run.h5 and one CSV per final table (rates.csv, fits.csv, ...).
 
@@ -151,6 +187,8 @@ def run(
     at ``out`` is replaced only with ``force=True``.
     """
     rec, plugins, source = prepare(recipe, inputs=inputs, extra_plugins=extra_plugins)
+    if isinstance(source, DiskInputs):
+        source.budget = max_input_bytes
     out_dir = Path(out)
     _check_output_folder(out_dir, force, rec)
     t_start = time.perf_counter()
@@ -189,6 +227,8 @@ def run(
                 progress(Progress(len(store.outcomes), total, outcome.plate, outcome.error,
                                   seconds=time.perf_counter() - t_start))
         outcomes = store.outcomes
+        outside = dict(getattr(source, "outside", {}))
+        warnings.extend(f"read a file outside the recipe's folder: {p} ({n} bytes)" for p, n in outside.items())
         failed = {o.plate: o.error for o in outcomes if o.error}
         ok = [o for o in outcomes if not o.error]
         for o in outcomes:
@@ -232,16 +272,31 @@ def run(
         _swap_into_place(tmp, out_dir, force)
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
                          audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds)
-    except BaseException:
+    except BaseException as exc:
         if writer is not None:
             writer.close()
         if csv_workers is not None:  # let workers finish writing into tmp before it is removed
             csv_workers.finish()
         shutil.rmtree(tmp, ignore_errors=True)
+        if isinstance(exc, OSError | OutputWriteError):
+            raise _at_target(exc, tmp, out_dir) from None
         raise
     finally:
         if own_executor and executor is not None:
             executor.close()
+
+
+def _at_target(exc: OSError | OutputWriteError, tmp: Path, out_dir: Path) -> OutputWriteError:
+    """The error of a failed write, naming the file at the target rather than in the temporary folder."""
+    cause = exc.__cause__ if isinstance(exc, OutputWriteError) else exc
+    path = getattr(exc, "path", None) or getattr(cause, "filename", None) or tmp
+    try:
+        shown = out_dir / Path(str(path)).relative_to(tmp)
+    except ValueError:
+        shown = Path(str(path))
+    if isinstance(cause, OSError):
+        return OutputWriteError.from_os(cause, shown)
+    return OutputWriteError(str(exc).replace(str(tmp), str(out_dir)))
 
 
 def _run_info(
@@ -351,7 +406,10 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
 
 def _check_output_folder(out_dir: Path, force: bool, rec: Recipe) -> None:
     """Refuse an output folder that would lose something: a file in its place, a folder with files (without
-    ``force``), and even with ``force`` a folder that is not a previous vzero run, or that holds the recipe."""
+    ``force``), and even with ``force`` a folder that is not a previous vzero run, or that holds the recipe.
+    What a killed run left beside the target is cleaned up (or put back) first."""
+    if out_dir.resolve().parent.is_dir():
+        _recover(out_dir, out_dir.resolve().parent)
     if not out_dir.exists():
         return
     if not out_dir.is_dir():
@@ -392,7 +450,10 @@ def _is_vzero_run(folder: Path) -> bool:
 def _parent(out_dir: Path) -> Path:
     """The folder that holds ``out_dir`` (created if missing): temporary files go there, on the same disk."""
     parent = out_dir.resolve().parent
-    parent.mkdir(parents=True, exist_ok=True)
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:  # a file where a folder should be, a read-only disk, no permission
+        raise OutputWriteError.from_os(exc, exc.filename or parent) from None
     return parent
 
 
@@ -401,29 +462,16 @@ def _temporary_folder(out_dir: Path) -> Path:
     permissions of a folder the user makes (mkdtemp makes it private).
 
     Its name carries this process's id. A run that was killed outright (SIGKILL, power loss) cannot remove
-    its folder; the next run into the same target removes the partial folders of processes that are gone.
+    its folder; the next run into the same target removes the partial folders of processes that are gone
+    (and puts back a previous run that a killed ``--force`` had moved aside: :func:`_recover`).
     """
     parent = _parent(out_dir)
-    for stale in parent.glob(f".{out_dir.name}.partial-*"):
-        pid = stale.name.removeprefix(f".{out_dir.name}.partial-").split("-", 1)[0]
-        if pid.isdigit() and not _alive(int(pid)):
-            shutil.rmtree(stale, ignore_errors=True)
+    _recover(out_dir, parent)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-{os.getpid()}-", dir=parent))
     umask = os.umask(0)
     os.umask(umask)
     os.chmod(tmp, 0o777 & ~umask)
     return tmp
-
-
-def _alive(pid: int) -> bool:
-    """Whether a process with this id exists (on this machine)."""
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True
 
 
 #: Modules the built-in pooled steps import on first use. With worker processes the driver mostly waits while
@@ -443,10 +491,19 @@ def _warm_imports() -> None:
 
 
 def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:
+    """Put the finished run at ``out_dir``. A previous run there (``force``) is swapped out in one atomic
+    step where the system can (Linux ``renameat2`` with ``RENAME_EXCHANGE``), so a kill at any moment leaves
+    either the old or the new run at the target; the old run then sits in the temporary folder, which the
+    next run removes. Elsewhere it is moved aside under a name that carries this process's id first: if the
+    process dies between the two renames, the next run into the same target moves it back (see
+    :func:`_recover`)."""
     if out_dir.exists():
         if not force and any(out_dir.iterdir()):
             raise OutputExistsError(f"output folder {str(out_dir)!r} already holds files", hint="Pass --force.")
-        old = out_dir.parent / f".{out_dir.name}.old-{uuid.uuid4().hex[:8]}"
+        if exchange(tmp, out_dir):
+            shutil.rmtree(tmp, ignore_errors=True)  # now the old run
+            return
+        old = out_dir.parent / f".{out_dir.name}.old-{os.getpid()}-{uuid.uuid4().hex[:8]}"
         os.replace(out_dir, old)
         os.replace(tmp, out_dir)
         shutil.rmtree(old, ignore_errors=True)
@@ -454,9 +511,24 @@ def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:
         os.replace(tmp, out_dir)
 
 
-def check_recipe(recipe: str | Path) -> Recipe:
-    """Validate a recipe without running it (``vzero check``)."""
-    rec, _, _ = prepare(recipe)
+def _recover(out_dir: Path, parent: Path) -> None:
+    """Clean up after runs into ``out_dir`` that were killed: their partial folders are removed, and a
+    previous run moved aside by a ``--force`` that died before its new run was in place is moved back (or
+    removed, when a run is at the target)."""
+    for stale in sorted(parent.glob(f".{out_dir.name}.partial-*")) + sorted(parent.glob(f".{out_dir.name}.old-*")):
+        rest = stale.name.removeprefix(f".{out_dir.name}.").split("-", 2)
+        if len(rest) < 2 or not rest[1].isdigit() or alive(int(rest[1])):
+            continue
+        if rest[0] == "old" and not out_dir.exists():
+            os.replace(stale, out_dir)  # the old run back where it was
+        else:
+            shutil.rmtree(stale, ignore_errors=True)
+
+
+def check_recipe(recipe: str | Path, *, skipped: list[str] | None = None) -> Recipe:
+    """Validate a recipe without running it (``vzero check``). With a ``skipped`` list, the recipe's own
+    plugins are not imported and the steps that need them are listed there (see :func:`prepare`)."""
+    rec, _, _ = prepare(recipe, skipped=skipped)
     return rec
 
 

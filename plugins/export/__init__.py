@@ -51,6 +51,10 @@ def export(audit: str | Path, fmt: str, out: str | Path | None = None, *, table:
 
             raise VzeroError(f"unknown export format {fmt!r}; choose csv, xlsx or enzymeml")
         os.replace(tmp, target)
+    except OSError as exc:  # a full disk, a read-only folder: one sentence naming the file
+        from vzero.errors import OutputWriteError
+
+        raise OutputWriteError.from_os(exc, target) from None
     finally:
         tmp.unlink(missing_ok=True)
     return target

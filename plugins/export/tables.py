@@ -15,6 +15,7 @@ from typing import Any
 
 import pandas as pd
 from vzero.errors import VzeroError
+from vzero.spreadsheet import inert, inert_frame
 
 RESEARCH_NOTE = ("Results are for research use only; check them against your laboratory's validated "
                  "procedures before relying on them.")
@@ -57,7 +58,7 @@ def write_csv(audit: str | Path, target: str | Path, table: str = "rates") -> No
     if table not in results:
         raise VzeroError(f"{audit} has no results table {table!r}; it has {', '.join(results) or 'none'}",
                          hint="Choose one with --table.")
-    table_with_context(head, results[table].frame).to_csv(target, index=False)
+    inert_frame(table_with_context(head, results[table].frame)).to_csv(target, index=False)
 
 
 def about_rows(head: Mapping[str, Any]) -> pd.DataFrame:
@@ -112,9 +113,13 @@ def write_xlsx(audit: str | Path, target: str | Path) -> None:
 
 def _no_formulas(book: Any) -> None:
     """Keep every cell as the value it is: text starting with ``=`` (a group named "=1+41", say) would
-    otherwise be stored as a live spreadsheet formula. vzero never writes formulas."""
+    otherwise be stored as a live spreadsheet formula. vzero never writes formulas. Text cells that a
+    spreadsheet would evaluate once edited get the same leading ``'`` as in CSV (:mod:`vzero.spreadsheet`)."""
     for sheet in book.worksheets:
         for row in sheet.iter_rows():
             for cell in row:
-                if cell.data_type == "f":
+                if cell.data_type in ("f", "s") and isinstance(cell.value, str):
+                    text = inert(cell.value)
+                    if text != cell.value:
+                        cell.value = text
                     cell.data_type = "s"

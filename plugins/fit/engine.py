@@ -190,6 +190,18 @@ def summarize(
     return out
 
 
+#: The budget of one :func:`fit`: at most this many model evaluations per algorithm, and this many seconds in
+#: all. Far above what a rate law on a plate's points needs (tens of evaluations, milliseconds); a data set
+#: that reaches it (one absurd read among ordinary ones, say) gets ``success=False`` and a message saying so,
+#: instead of holding up the run for minutes.
+FIT_MAX_NFEV = 5_000
+FIT_SECONDS = 2.0
+
+
+class _OverBudget(Exception):
+    """Raised inside the residual function when a fit has used up its time."""
+
+
 def fit(
     func: Func,
     jac: Jac,
@@ -205,8 +217,13 @@ def fit(
     units: Mapping[str, str] | None = None,
     method: str = "trf",
     tol: float = TOL,
+    max_nfev: int = FIT_MAX_NFEV,
+    seconds: float = FIT_SECONDS,
 ) -> FitResult:
     """Fit one data set by least squares; ``sigma`` gives per-point standard deviations (weights 1/σ).
+
+    The fit stops at its budget (``max_nfev`` evaluations per algorithm, ``seconds`` in all) with
+    ``success=False`` and a message naming the budget.
 
     Minimises Σ((f − y)/σ)². ``fixed`` holds parameters at given values; ``bounds`` maps a name to
     (low, high). A fit that converges to a point no better than a constant (R² ≤ 1e-9 while y varies) is
@@ -230,7 +247,15 @@ def fit(
         v[free] = q
         return v
 
+    import time
+
+    deadline = time.monotonic() + seconds
+    last = [start[free]]
+
     def res(q: np.ndarray) -> np.ndarray:
+        if time.monotonic() > deadline:
+            raise _OverBudget
+        last[0] = q
         return w * (func(list(full(q)), x) - y)
 
     def jj(q: np.ndarray) -> np.ndarray:
@@ -240,14 +265,21 @@ def fit(
         from scipy import optimize  # here, not at the top: a batched fit that needs no fallback never pays its
         # import
 
-        kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": 100_000}
+        kw: dict[str, Any] = {"method": meth, "ftol": tol, "xtol": tol, "gtol": tol, "max_nfev": max_nfev}
         if meth != "lm":
             kw["bounds"] = (lo[free], hi[free])
         with np.errstate(all="ignore"):
             try:
-                return optimize.least_squares(res, start[free], jac=jj, **kw)
+                sol = optimize.least_squares(res, start[free], jac=jj, **kw)
             except ValueError as exc:  # residuals not finite at the start, e.g. a parameter on a pole
                 return optimize.OptimizeResult(x=start[free], success=False, cost=np.inf, nfev=0, message=str(exc))
+            except _OverBudget:
+                return optimize.OptimizeResult(x=last[0], success=False, cost=np.inf, nfev=0,
+                                               message=f"stopped at the fit's time budget ({seconds:g} s)")
+        if sol.status == 0:  # scipy's code for "the number of function evaluations is exceeded"
+            sol.success = False
+            sol.message = f"stopped at the fit's budget of {max_nfev} model evaluations"
+        return sol
 
     boxed = np.any(np.isfinite(lo[free]) | np.isfinite(hi[free]))
     first = "trf" if boxed else method
@@ -369,6 +401,12 @@ PROFILE_ROOT = 30
 """Root-finding evaluations allowed per side once the limit is bracketed (the cost cap; a few suffice)."""
 
 
+#: The time budget of one profile-likelihood search (all groups of a batch, one parameter): this many
+#: seconds plus a little per group. Far above what ordinary data need (milliseconds per group).
+PROFILE_SECONDS = 1.0
+PROFILE_SECONDS_PER_GROUP = 0.05
+
+
 def profile_batch(
     func: Func,
     jac: Jac,
@@ -383,6 +421,7 @@ def profile_batch(
     confidence: float = 0.95,
     max_expand: int = PROFILE_EXPAND,
     max_root: int = PROFILE_ROOT,
+    seconds: float | None = None,
 ) -> list[tuple[float, float, str]]:
     """Profile-likelihood intervals of parameter ``name`` for many groups at once.
 
@@ -398,8 +437,15 @@ def profile_batch(
 
     Returns (low, high, note) per group. A side that never reaches the threshold before a bound or within
     2^(max_expand - 1) Wald half-widths is NaN (open interval); a limit still moving when the cap is hit is
-    returned with a note saying it is approximate.
+    returned with a note saying it is approximate. The search also stops after ``seconds`` (default
+    ``PROFILE_SECONDS`` plus ``PROFILE_SECONDS_PER_GROUP`` per group); the sides it had not finished then say
+    so in their note (a side without a bracket yet is NaN).
     """
+    import time
+
+    budget = seconds if seconds is not None else PROFILE_SECONDS + PROFILE_SECONDS_PER_GROUP * len(results)
+    deadline = time.monotonic() + budget
+    timed_out = False
     nan = float("nan")
     g = len(results)
     out: list[tuple[float, float, str]] = [
@@ -463,6 +509,9 @@ def profile_batch(
         rows = np.flatnonzero(searching)
         if rows.size == 0:
             break
+        if time.monotonic() > deadline:
+            timed_out = True
+            break
         t = best[grp[rows], j] + sign[rows] * step[rows]
         at_bound = np.where(sign[rows] < 0, t <= bound[rows], t >= bound[rows])
         t = np.where(at_bound, bound[rows], t)
@@ -479,6 +528,9 @@ def profile_batch(
     for _ in range(max_root):  # Illinois iteration inside the bracket
         rows = np.flatnonzero(active)
         if rows.size == 0:
+            break
+        if time.monotonic() > deadline:
+            timed_out = True
             break
         ar, br, far, fbr = a[rows], b[rows], fa[rows], fb[rows]
         with np.errstate(all="ignore"):
@@ -500,9 +552,12 @@ def profile_batch(
     notes: list[list[str]] = [[] for _ in sel]
     for q in range(2 * n):  # per group: the lower side's notes, then the upper side's
         side = "lower" if q < n else "upper"
-        if not np.isfinite(b[q]) and np.isnan(c[q]):
+        if timed_out and (searching[q] or active[q]):
+            notes[grp[q]].append(f"{side} limit {'approximate' if active[q] else 'not found'}: the search "
+                                 f"stopped at its time budget ({budget:g} s)")
+        elif not np.isfinite(b[q]) and np.isnan(c[q]):
             notes[grp[q]].append(f"{side} limit not reached (open interval)")
-        if active[q]:
+        elif active[q]:
             notes[grp[q]].append(f"{side} limit approximate: search stopped after {max_root} evaluations")
     for k, gi in enumerate(sel):
         out[gi] = (float(limits[k, 0]), float(limits[k, 1]), "; ".join(notes[k]))

@@ -94,6 +94,14 @@ class TableImport(ImportMethod):
         wells = layout.set_index("well").loc[block.wells].reset_index()
         signal = np.asarray(block.signal, dtype=float)
         saturated = np.asarray(block.saturated, dtype=bool)
+        check_time_axis(np.asarray(block.time_s, dtype=float), raw.name)
+        far = far_outside(signal)
+        if far.any():
+            saturated = saturated | far
+            for i in np.flatnonzero(far.any(axis=1)):
+                reads = ", ".join(f"{signal[i, j]:g}" for j in np.flatnonzero(far[i])[:3])
+                data.warn(f"well {block.wells[i]}: {int(far[i].sum())} read(s) far outside the plate's range "
+                          f"({reads}) masked and counted as saturated; check the data file")
         traces = Traces(
             plate=str(data.plate["name"]) if data.plate else "plate",
             time=np.asarray(block.time_s, dtype=float),
@@ -106,6 +114,54 @@ class TableImport(ImportMethod):
             temperature=block.temperature,
         )
         return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
+
+
+#: A read is "far outside" the plate when it lies further from the plate's median read than this many times
+#: the plate's spread (the 1st to 99th percentile of its reads, or the median itself if larger), or beyond
+#: ``ABSURD_READ`` in any unit. No reader's range comes near either: such a read is a typo, a transfer error
+#: or a probe, and fitting it costs the fit its convergence. (Thresholds chosen here; a rule of thumb.)
+FAR_FACTOR = 1000.0
+ABSURD_READ = 1e12
+
+
+def far_outside(signal: Any) -> Any:
+    """Boolean mask [n_wells, n_time] of reads far outside the plate's range (see ``FAR_FACTOR``)."""
+    import numpy as np
+
+    finite = np.isfinite(signal)
+    far = np.zeros(signal.shape, dtype=bool)
+    if not finite.any():
+        return far
+    values = signal[finite]
+    far[finite] = np.abs(values) > ABSURD_READ
+    usable = values[np.abs(values) <= ABSURD_READ]
+    if usable.size:
+        low, mid, high = np.percentile(usable, [1, 50, 99])
+        scale = max(high - low, abs(mid), 1e-9)
+        far[finite] |= np.abs(values - mid) > FAR_FACTOR * scale
+    return far
+
+
+#: The span of a plate's time axis that a kinetic read can have, in seconds (a millisecond to a year).
+TIME_SPAN_S = (1e-3, 3.2e7)
+
+
+def check_time_axis(time_s: Any, source: str) -> None:
+    """A time axis must be finite and span between ``TIME_SPAN_S`` (a unit mix-up or a scaled column
+    otherwise gives rates off by hundreds of orders of magnitude)."""
+    import numpy as np
+
+    if time_s.size == 0:
+        return
+    if not np.isfinite(time_s).all():
+        raise InputFileError("the time column holds a value that is not a finite number", path=source,
+                             column="time", hint="Fix the time column.")
+    span = float(time_s.max() - time_s.min())
+    low, high = TIME_SPAN_S
+    if time_s.size > 1 and not low <= span <= high:
+        raise InputFileError(
+            f"the reads span {span:g} s; a kinetic read spans between {low:g} s and {high:g} s", path=source,
+            column="time", hint="Check the time column and its unit (time_unit in the import step).")
 
 
 class RatesTableImport(ImportMethod):

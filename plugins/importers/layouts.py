@@ -68,11 +68,37 @@ def _finish(df: pd.DataFrame, units: dict[str, str], notes: list[str], source: s
             column="role",
             hint=f"Use one of {', '.join(ROLES)}.",
         )
+    _check_amounts(df, units, source)
     extras = [c for c in df.columns if c not in BASE_COLUMNS]
     out = df[list(BASE_COLUMNS) + extras].reset_index(drop=True)
     out.attrs["units"] = dict(units)
     out.attrs["assumptions"] = list(notes)
     return out
+
+
+#: The largest amount a layout may give, in the column's own unit: far above any real assay, low enough that
+#: the arithmetic downstream (rates per enzyme, fits) stays finite.
+MAX_AMOUNT = 1e12
+
+
+def _check_amounts(df: pd.DataFrame, units: dict[str, str], source: str | None) -> None:
+    """Substrate, enzyme and inhibitor amounts must be finite, not negative and at most ``MAX_AMOUNT``
+    (an empty cell is fine); a sample well needs some enzyme (a no-enzyme control is role blank). The error
+    names the well and the allowed range."""
+    for col in NUMERIC_COLUMNS:
+        values = pd.to_numeric(df[col], errors="coerce").to_numpy(dtype=float)
+        given = ~np.isnan(values)
+        wrong = given & ~(np.isfinite(values) & (values >= 0) & (values <= MAX_AMOUNT))
+        if col == "enzyme":
+            wrong |= given & (values == 0) & (df["role"].to_numpy() == "sample")
+        if wrong.any():
+            i = int(np.flatnonzero(wrong)[0])
+            unit = units.get(col, "")
+            zero = " (a sample needs enzyme; mark no-enzyme controls as role blank)" if values[i] == 0 else ""
+            raise LayoutError(
+                f"{col} {float(values[i]):g} {unit}".rstrip() + f" is not an amount an assay can have{zero}",
+                path=source, column=col, well=str(df["well"].iloc[i]),
+                hint=f"Give a number from 0 to {MAX_AMOUNT:g}{' ' + unit if unit else ''} (empty if not used).")
 
 
 def _to_float(values: list[str], decimal: str) -> np.ndarray | None:

@@ -183,11 +183,29 @@ def read_table(data: bytes, *, source: str, options: ReadOptions | None = None) 
     return blocks
 
 
+#: The longest cell text read (a number, a well name, a group name: a few dozen characters). A longer cell
+#: is a damaged or crafted file, and would cost memory out of all proportion downstream.
+MAX_CELL_CHARS = 10_000
+
+
 def load_grid(data: bytes, *, source: str, options: ReadOptions) -> TextGrid:
     """Decode ``data`` (delimited text or .xlsx) into rows of cell texts, detecting what options leave open.
 
-    Shared with the layout reader. Raises :class:`InputFileError` for empty, binary or damaged files.
+    Shared with the layout reader. Raises :class:`InputFileError` for empty, binary or damaged files, and
+    for a cell longer than ``MAX_CELL_CHARS``.
     """
+    grid = _load_grid(data, source=source, options=options)
+    for k, row in enumerate(grid.rows):
+        if row and max(map(len, row)) > MAX_CELL_CHARS:
+            j = max(range(len(row)), key=lambda i: len(row[i]))
+            raise InputFileError(f"a cell of {len(row[j])} characters; cells over {MAX_CELL_CHARS} are refused",
+                                 path=source, row=grid.lines[k] if grid.lines else k + 1, column=str(j + 1),
+                                 hint="Check the file: it looks damaged or is not a plate export.")
+    return grid
+
+
+def _load_grid(data: bytes, *, source: str, options: ReadOptions) -> TextGrid:
+    """:func:`load_grid` without the cell-size check."""
     if not data or not data.strip():
         raise InputFileError("the file is empty", path=source, hint="Check that the export finished.")
     if data[:4] == _XLSX_MAGIC:
@@ -302,11 +320,48 @@ def _detect_decimal(text: str, delimiter: str) -> tuple[str, str | None]:
     return ".", None
 
 
+#: Bounds on an .xlsx workbook, checked before it is unpacked: the sizes its zip directory declares, unpacked
+#: (a plate export is a few MB; a "zip bomb" of a few KB can unpack to GBs), and the rows read from a sheet.
+#: Environment variables ``VZERO_XLSX_MAX_BYTES`` and ``VZERO_XLSX_MAX_ROWS`` raise them.
+XLSX_MAX_BYTES = 200_000_000
+XLSX_MAX_ROWS = 200_000
+#: The most cells read from a sheet (rows times their width), whatever its rows look like.
+XLSX_MAX_CELLS = 20_000_000
+
+
+def _limit(name: str, default: int) -> int:
+    import os
+
+    text = os.environ.get(name, "")
+    return int(text) if text.isdigit() else default
+
+
+def _check_xlsx_size(data: bytes, source: str) -> None:
+    """Refuse a workbook whose parts declare more than ``XLSX_MAX_BYTES`` unpacked, or that is compressed
+    (the sizes its zip directory declares; Python's zipfile, which openpyxl reads through, stops unpacking a
+    part at its declared size, so a directory that understates them does not get past this)."""
+    import zipfile
+
+    limit = _limit("VZERO_XLSX_MAX_BYTES", XLSX_MAX_BYTES)
+    try:
+        with zipfile.ZipFile(io.BytesIO(data)) as z:
+            unpacked = sum(info.file_size for info in z.infolist())
+    except (zipfile.BadZipFile, OSError, ValueError) as exc:
+        raise InputFileError(f"cannot open the .xlsx workbook ({exc})", path=source,
+                             hint="Open and re-save it in a spreadsheet program, or export it as .csv.") from None
+    if unpacked > limit:
+        raise InputFileError(
+            f"the .xlsx workbook unpacks to {unpacked / 1e6:.0f} MB, more than the {limit / 1e6:.0f} MB allowed "
+            f"({len(data) / 1e6:.1f} MB packed)", path=source,
+            hint="Export the plate alone as .csv, or set VZERO_XLSX_MAX_BYTES (bytes) if the workbook is real.")
+
+
 def _xlsx_rows(data: bytes, source: str, sheet: str | int | None) -> list[list[str]]:
     try:
         import openpyxl
     except ImportError:  # pragma: no cover - openpyxl is a dependency
         raise InputFileError("reading .xlsx needs openpyxl", path=source, hint="pip install openpyxl") from None
+    _check_xlsx_size(data, source)
     try:
         wb = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
     except Exception as exc:  # zipfile, XML and openpyxl errors of many types on a damaged workbook
@@ -329,8 +384,22 @@ def _xlsx_rows(data: bytes, source: str, sheet: str | int | None) -> list[list[s
                 path=source,
                 hint=f"Its sheets are: {', '.join(map(repr, names)) or '(none)'}.",
             )
+        max_rows = _limit("VZERO_XLSX_MAX_ROWS", XLSX_MAX_ROWS)
+        rows: list[list[str]] = []
+        cells = 0
         try:
-            return [[_cell_text(v) for v in row] for row in wb[chosen].iter_rows(values_only=True)]
+            for row in wb[chosen].iter_rows(values_only=True):
+                cells += len(row)
+                if len(rows) >= max_rows or cells > XLSX_MAX_CELLS:
+                    raise InputFileError(
+                        f"sheet {chosen!r} has more than {max_rows} rows or {XLSX_MAX_CELLS} cells; a plate "
+                        "export has far fewer",
+                        path=source, row=len(rows) + 1,
+                        hint="Export the plate alone, or set VZERO_XLSX_MAX_ROWS if the sheet is real.")
+                rows.append([_cell_text(v) for v in row])
+            return rows
+        except InputFileError:
+            raise
         except Exception as exc:  # damaged sheet XML surfaces only while iterating
             raise InputFileError(f"sheet {chosen!r} is damaged ({type(exc).__name__}: {exc})", path=source) from None
     finally:

@@ -7,7 +7,6 @@ audit file unchanged; only the presentation is rebuilt. Files are written to a t
 from __future__ import annotations
 
 import argparse
-import os
 from pathlib import Path
 
 from vzero.errors import OutputExistsError, VzeroError
@@ -25,16 +24,14 @@ def configure(p: argparse.ArgumentParser) -> None:
 
 
 def write_files(out: Path, files: dict[str, bytes], force: bool) -> None:
-    """Write ``files`` under ``out``, each through a temporary name in the same folder."""
+    """Write ``files`` under ``out`` as one set (:func:`vzero.run.swap.replace_set`): a failure or a kill
+    while writing leaves the previous report whole, and no temporary file outlives the next call."""
+    from vzero.run.swap import replace_set
+
     target = out / "report.html"
     if target.exists() and not force:
         raise OutputExistsError(f"{target} already exists", hint="Pass --force to replace it, or choose --out.")
-    for rel, data in files.items():
-        path = out / rel
-        path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name(f".{path.name}.partial")
-        tmp.write_bytes(data)
-        os.replace(tmp, path)
+    replace_set(out, files, "report")
 
 
 def run(args: argparse.Namespace) -> int:

@@ -95,7 +95,6 @@ def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
 def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
     """The report input stored in an audit file: final tables from /results, the last traces stored per
     plate under /steps, the recipe text and provenance from the file's attributes."""
-    import yaml
     from vzero.audit import reader
 
     with reader.open_audit(path) as f:
@@ -125,9 +124,12 @@ def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
             "steps": steps, "inputs": inputs, "warnings": json.loads(a.get("warnings", "[]")),
             "failed_plates": json.loads(a.get("failed_plates", "{}")),
         }
-    try:
-        recipe = yaml.safe_load(text) or {}
-    except yaml.YAMLError:
+    from vzero.errors import RecipeError
+    from vzero.recipe import parse
+
+    try:  # the recipe's own parser: the same bounds on YAML aliases as for a recipe file
+        recipe = parse(text, "recipe").data if text.strip() else {}
+    except RecipeError:
         recipe = {}
     if not isinstance(recipe, Mapping):
         recipe = {}

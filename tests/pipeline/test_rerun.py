@@ -83,20 +83,27 @@ def _plugin_run(tmp_path: Path) -> tuple[Path, Path]:
     return recipe, run(recipe, tmp_path / "old").audit_path
 
 
-def test_changed_local_plugin_is_refused_unless_allowed(tmp_path: Path):
+def test_stored_recipe_plugins_run_only_when_passed_and_unchanged(tmp_path: Path):
     recipe, old = _plugin_run(tmp_path)
-    assert rerun(old, tmp_path / "same").exit_code == 0  # unchanged plugin beside the recorded recipe path
     plugin = recipe.parent / "lab_rates.py"
+    with pytest.raises(PluginError, match=r"lab_rates\.py.*--plugin lab_rates\.py"):
+        rerun(old, tmp_path / "unnamed")  # the file sits where the recipe said, but the user did not name it
+    assert not (tmp_path / "unnamed").exists()
+    same = rerun(old, tmp_path / "same", plugins=[str(plugin)])
+    assert same.exit_code == 0
+    assert rerun(same.audit_path, tmp_path / "again", plugins=[str(plugin)]).exit_code == 0  # a rerun of a rerun
     plugin.write_text(plugin.read_text("utf-8").replace('__version__ = "0.3"', '__version__ = "0.4"'), "utf-8")
-    with pytest.raises(PluginError, match="has changed since the old run"):
-        rerun(old, tmp_path / "changed")
+    with pytest.raises(PluginError, match="differs from the old run's"):
+        rerun(old, tmp_path / "changed", plugins=[str(plugin)])
     assert not (tmp_path / "changed").exists()
-    result = rerun(old, tmp_path / "changed", allow_changed_plugins=True)
+    result = rerun(old, tmp_path / "changed", plugins=[str(plugin)], allow_changed_plugins=True)
     with reader.open_audit(result.audit_path) as f:
         assert reader.header(f)["derived_from"]["changed_plugins"] == ["lab_rates.py"]
+    with pytest.raises(PluginError, match="names no such plugin"):
+        rerun(old, tmp_path / "extra", plugins=[str(plugin), str(DATA / "plugins" / "other.py")])
     plugin.unlink()
-    with pytest.raises(PluginError, match="not at"):
-        rerun(old, tmp_path / "missing")
+    with pytest.raises(PluginError, match="no such file"):
+        rerun(old, tmp_path / "missing", plugins=[str(plugin)])
 
 
 def test_rerun_command_line(tmp_path: Path, capsys):
@@ -109,7 +116,7 @@ def test_rerun_command_line(tmp_path: Path, capsys):
 
 def test_stored_recipe_does_not_import_modules_without_consent(tmp_path: Path):
     """An audit file may come from anywhere: a module its stored recipe names is not imported unless the user
-    says so, and a stored recipe that no longer matches its hash is refused."""
+    names it with --plugin, and a stored recipe that no longer matches its hash is refused."""
     import h5py
     from vzero.errors import AuditFileError
 
@@ -123,10 +130,10 @@ def test_stored_recipe_does_not_import_modules_without_consent(tmp_path: Path):
 
     with h5py.File(old, "r+") as f:
         f.attrs["recipe_sha256"] = hashlib.sha256(text.encode("utf-8")).hexdigest()
-    with pytest.raises(PluginError, match=r"imports plugin modules \(json\)"):
+    with pytest.raises(PluginError, match=r"uses plugins \(json\).*--plugin json"):
         rerun(old, tmp_path / "modules")
     assert not (tmp_path / "modules").exists()
-    assert rerun(old, tmp_path / "allowed", allow_stored_plugins=True).exit_code == 0
+    assert rerun(old, tmp_path / "allowed", plugins=["json"]).exit_code == 0
 
 
 def test_identical_inputs_under_two_names_rerun(tmp_path: Path):

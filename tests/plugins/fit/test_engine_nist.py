@@ -285,3 +285,13 @@ def test_profile_batch_cap_and_open_side_are_noted() -> None:
     lo2, hi2, note2 = engine.profile_batch(*args, bounds={"b2": (b2 - 0.1 * (b2 - lo), np.inf)})[0]
     assert np.isnan(lo2) and "lower limit not reached (open interval)" in note2
     np.testing.assert_allclose(hi2, hi, rtol=1e-9)
+
+
+def test_profile_batch_time_budget_is_noted() -> None:
+    # A search that has used up its time stops and says so; no limit is given for a side not yet bracketed.
+    x, y = _load("Misra1d")
+    res = engine.fit(misra1d, misra1d_jac, {"x": x}, y, [450, 3e-4], ["b1", "b2"])
+    args = (misra1d, misra1d_jac, {"x": x[None]}, y[None], np.ones((1, x.size), bool), [res], "b2")
+    lo, hi, note = engine.profile_batch(*args, seconds=0.0)[0]
+    assert np.isnan(lo) and np.isnan(hi)
+    assert note.count("not found: the search stopped at its time budget (0 s)") == 2
