@@ -56,13 +56,23 @@ class Commands:
 
 def _cfg_run(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipe", help="the recipe file (YAML)")
-    p.add_argument("--out", "-o", required=True, help="folder to write run.h5 and the tables into")
+    p.add_argument("--out", "-o", help="folder to write run.h5 and the tables into (default: a folder named "
+                                       "after the recipe, next to it: demo.yaml -> demo/)")
     p.add_argument("--force", action="store_true", help="replace an existing run in --out")
     p.add_argument("--jobs", "-j", type=_positive, default=1, metavar="N",
                    help="run plates in N local processes (default 1); with --scheduler local: N workers")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run plates on the Dask cluster at ADDRESS (tcp://host:8786), or 'local' to start one "
                         "on this machine (needs: pip install 'vzero[dask]')")
+
+
+def default_out(recipe: str) -> Any:
+    """The output folder when ``--out`` is not given: the recipe's name without its suffix, next to it
+    (``plates/assay.yaml`` -> ``plates/assay/``). An existing run there is replaced only with ``--force``."""
+    from pathlib import Path
+
+    path = Path(recipe)
+    return path.with_suffix("") if path.suffix else path.with_name(path.name + "-run")
 
 
 def _positive(text: str) -> int:
@@ -79,6 +89,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
     from vzero.run.runner import run
 
     shown = Progress(verbose=args.verbose, quiet=args.quiet)
+    if args.out is None:
+        args.out = str(default_out(args.recipe))
     try:
         result = run(args.recipe, args.out, force=args.force, progress=shown, jobs=args.jobs,
                      scheduler=args.scheduler)
@@ -93,11 +105,17 @@ def _cfg_check(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from vzero.run.runner import check_recipe
+    from vzero.errors import sentence
+    from vzero.run.runner import check_inputs
 
-    rec = check_recipe(args.recipe)
-    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps: "
-               + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ")")
+    found = check_inputs(args.recipe)
+    rec = found.recipe
+    for note in found.warnings:
+        print(f"warning: {sentence(note)}", file=sys.stderr)
+    for note in found.skipped:
+        say(args, f"not checked: {sentence(note)}")
+    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s) read and checked, {len(rec.steps)} steps: "
+               + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ").")
     return 0
 
 
@@ -149,7 +167,8 @@ def _cmd_inspect(args: argparse.Namespace) -> int:
 CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int], str]] = [
     ("run", "Run a recipe on its plates and write the audit file and tables.", _cfg_run, _cmd_run,
      "vzero run configs/demo.yaml --out runs/today\n  vzero run batch.yaml --out runs/batch --jobs 4"),
-    ("check", "Validate a recipe without running it.", _cfg_check, _cmd_check, "vzero check configs/demo.yaml"),
+    ("check", "Validate a recipe, its data and layout files without running it.", _cfg_check, _cmd_check,
+     "vzero check configs/demo.yaml"),
     ("plugins", "List every stage method and model, where it came from and its version.", _cfg_plugins,
      _cmd_plugins, "vzero plugins --params"),
     ("inspect", "Summarise an audit file: provenance, steps, warnings, flagged wells.", _cfg_inspect,

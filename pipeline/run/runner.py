@@ -455,9 +455,54 @@ def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:
 
 
 def check_recipe(recipe: str | Path) -> Recipe:
-    """Validate a recipe without running it (``vzero check``)."""
-    rec, _, _ = prepare(recipe)
-    return rec
+    """Validate a recipe and its input files without running it (``vzero check``); see :func:`check_inputs`."""
+    return check_inputs(recipe).recipe
+
+
+@dataclass
+class CheckResult:
+    """What ``vzero check`` found: the validated ``recipe``, the ``warnings`` a run would give at its start
+    (per plate) and the checks ``skipped`` (steps from recipe-named plugin files)."""
+
+    recipe: Recipe
+    warnings: list[str]
+    skipped: list[str]
+
+
+def check_inputs(recipe: str | Path | Recipe, *, inputs: InputSource | None = None) -> CheckResult:
+    """Validate the recipe, then read every plate's data and layout and run each plate step's preflight
+    (:meth:`vzero.stage.Stage.preflight`): everything a run would reject at its start, without running.
+
+    Every plate is checked and every problem is reported together (one :class:`VzeroError`, one line per
+    plate). Steps provided by plugin files the recipe names are not run here (their code is not executed
+    by a check); they are listed in ``skipped``.
+    """
+    from vzero.errors import join_sentences
+    from vzero.run.steps import preflight_plate
+
+    rec, plugins, source = prepare(recipe, inputs=inputs)
+    plate_steps = [s for s in rec.steps if _scope(plugins, s) == "plate"]
+
+    def local(spec: StepSpec) -> bool:
+        return bool(plugins.registry.get(spec.kind, spec.method).source.path)
+
+    skipped = [f"step {s.index} ({s.kind}: {s.method}) comes from the plugin file "
+               f"{plugins.registry.get(s.kind, s.method).source.path}; its input checks were not run"
+               for s in plate_steps if local(s)]
+    problems: list[str] = []
+    warnings: list[str] = []
+    for plate in rec.plates:
+        try:
+            raws = {key: _raw(source, key, rel) for key, rel in plate.files.items()}
+            found = preflight_plate(plate, raws, rec, plugins, plate_steps, skip=local)
+        except VzeroError as exc:
+            problems.append(f"{plate.name}: {join_sentences(str(exc), None)}")
+            continue
+        warnings.extend(f"{plate.name}: {w}" for w in found)
+    if problems:
+        head = "" if len(problems) == 1 else f"{len(problems)} plates would fail:\n"
+        raise InputFileError(head + "\n".join(problems), hint="Nothing was run.")
+    return CheckResult(rec, warnings, skipped)
 
 
 def parse_recipe_text(text: str, path: str) -> Recipe:

@@ -164,6 +164,23 @@ class StandardCurveConvert(Stage):
         "check_linearity": Param("bool", True, "drop top standards while the line bends significantly"),
     }
 
+    def preflight(self, data: StageInput) -> StageOutput | None:
+        """The layout must hold standard wells with concentrations in the ``column``, with a unit."""
+        wells = data.artifacts.get("layout")
+        if wells is None:  # the import step is a plugin's that did not say: nothing to check here
+            return None
+        col = self.settings["column"]
+        is_std = (wells["role"].astype(str) == "standard").to_numpy()
+        if not is_std.any() or col not in wells.columns:
+            raise StageError(f"standard-curve needs wells with role 'standard' and a layout column {col!r}; "
+                             f"the layout has {int(is_std.sum())} standard wells and the columns "
+                             f"{', '.join(map(str, wells.columns))}",
+                             hint="Add standards to the layout, or use another convert method.")
+        if not (data.artifacts.get("well_units") or {}).get(col) and not self.settings["unit"]:
+            raise StageError(f"the layout column {col!r} has no unit",
+                             hint=f'Write it like "{col} (uM)" in the header, or set unit in this step.')
+        return None
+
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
         import pandas as pd
