@@ -151,7 +151,7 @@ def _check_columns(layout: pd.DataFrame, source: str, recipe: Mapping[str, Any],
     unknown = [c for c in layout.columns if c not in used]
     if unknown:
         notes.append(f"{source}: no step uses the layout column(s) {', '.join(map(repr, unknown))}; they are kept "
-                     f"in the tables. Known columns: {', '.join(BASE_COLUMNS)} (units like "
+                     f"in the audit file's layout record. Known columns: {', '.join(BASE_COLUMNS)} (units like "
                      f"{', '.join(HEADER_FORMS)}).")
 
 
