@@ -123,6 +123,7 @@ def test_out_defaults_to_a_folder_named_after_the_recipe(tmp_path: Path, capsys)
 
 def test_fluorescence_reads_default_to_rfu(tmp_path: Path):
     recipe = linear_plate(tmp_path)
-    text = recipe.read_text("utf-8").replace("plates:", 'assay:\n  detection: "fluorescence, ex 360 / em 460 nm"\nplates:')
+    assay = 'assay:\n  detection: "fluorescence, ex 360 / em 460 nm"\nplates:'
+    text = recipe.read_text("utf-8").replace("plates:", assay)
     recipe.write_text(text, "utf-8")
     assert set(run(recipe, tmp_path / "out").rates["rate_unit"]) == {"RFU/s"}
