@@ -12,6 +12,7 @@ import os
 import sys
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from vzero.cli.say import Progress, report_result, say
@@ -69,8 +70,6 @@ def _cfg_run(p: argparse.ArgumentParser) -> None:
 def default_out(recipe: str) -> Any:
     """The output folder when ``--out`` is not given: the recipe's name without its suffix, next to it
     (``plates/assay.yaml`` -> ``plates/assay/``). An existing run there is replaced only with ``--force``."""
-    from pathlib import Path
-
     path = Path(recipe)
     return path.with_suffix("") if path.suffix else path.with_name(path.name + "-run")
 
@@ -221,6 +220,21 @@ def build_parser(with_plugins: bool = True) -> argparse.ArgumentParser:
     return parser
 
 
+def _quietly(args: argparse.Namespace) -> int:
+    """Run the command with Python's own warnings (numpy, pandas, ...) kept off the terminal: what a user
+    must know is said by vzero itself, in the run's warnings. ``--verbose`` or ``--debug`` shows them."""
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("default")
+        code = int(args._run(args))
+    if caught and (getattr(args, "verbose", False) or getattr(args, "debug", False)):
+        for w in caught:
+            print(f"python warning: {w.category.__name__}: {w.message} ({Path(w.filename).name}:{w.lineno})",
+                  file=sys.stderr)
+    return code
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in argv
@@ -231,7 +245,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         if not getattr(args, "_run", None):
             parser.print_help()
             return 2
-        return int(args._run(args))
+        return _quietly(args)
     except VzeroError as exc:
         if debug:
             raise

@@ -69,12 +69,15 @@ def report_result(args: argparse.Namespace, result: Any) -> None:
     if len(rates):
         flagged = int((rates.get("flags", "").astype(str) != "").sum()) if "flags" in rates else 0
         say(args, f"{len(rates)} wells, {flagged} flagged")
+    from vzero.errors import sentence
+
     for w in result.warnings[: 20 if args.verbose else 5]:
-        say(args, f"warning: {w}")
+        say(args, f"warning: {sentence(w)}")
     if len(result.warnings) > 5 and not args.verbose:
-        say(args, f"... {len(result.warnings) - 5} more warnings (vzero inspect {result.audit_path})")
+        say(args, f"... {len(result.warnings) - 5} more warnings (vzero inspect {result.audit_path}).")
     for plate, err in result.failed.items():
-        print(f"plate {plate} failed: {err}", file=sys.stderr)
+        print(f"plate {plate} failed: {sentence(err)}", file=sys.stderr)
     if result.failed_items:
         shown = ", ".join(result.failed_items[:10]) + (", ..." if len(result.failed_items) > 10 else "")
-        print(f"{len(result.failed_items)} well(s) without a result: {shown} (see rates.csv flags)", file=sys.stderr)
+        print(f"{len(result.failed_items)} well(s) without a result: {shown} (see the flags in rates.csv).",
+              file=sys.stderr)

@@ -200,8 +200,14 @@ class StandardCurveConvert(Stage):
         if not conc_unit:
             raise StageError(f"the layout column {col!r} has no unit; write it like \"{col} (uM)\" or set unit")
         y = traces.masked_signal()[is_std]
-        with np.errstate(invalid="ignore"):
-            level = np.nanmean(np.where(np.isfinite(y), y, np.nan), axis=1)
+        finite = np.isfinite(y)
+        count = finite.sum(axis=1)
+        # a standard whose every read is saturated has no level (NaN), said in words below, not as a warning
+        level = np.where(count > 0, np.where(finite, y, 0.0).sum(axis=1) / np.maximum(count, 1), np.nan)
+        if (count == 0).any():
+            lost = [str(w) for w, c in zip(wells["well"].to_numpy()[is_std], count, strict=True) if c == 0]
+            data.warn(f"{len(lost)} standard well(s) have no usable read (saturated or missing) and are left out "
+                      f"of the standard curve: {', '.join(lost[:10])}{', ...' if len(lost) > 10 else ''}.")
         conc = wells[col].to_numpy(dtype=float)[is_std]
         keep = np.isfinite(level) & np.isfinite(conc)
         curve = fit_standard_curve(conc[keep], level[keep], check_linearity=self.settings["check_linearity"])
