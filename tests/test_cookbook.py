@@ -77,3 +77,19 @@ def test_rerun_an_old_audit_file_with_a_new_recipe(tmp_path: Path, capsys):
     rates = pd.read_csv(new / "rates.csv")
     samples = rates[rates["role"] == "sample"]
     assert set(rates["method"]) == {"window"} and np.isfinite(samples["rate"]).all() and len(samples) == 36
+
+
+@pytest.mark.parametrize("name", RECIPES)
+def test_cookbook_recipes_use_only_documented_keys(name: str):
+    import yaml
+
+    page = (COOKBOOK.parents[1] / "docs" / "recipe-reference.md").read_text("utf-8")
+    sections = {s.split("\n", 1)[0].strip(): s for s in page.split("\n### ")[1:]}
+    recipe = yaml.safe_load((COOKBOOK / name).read_text("utf-8"))
+    missing = [k for k in recipe if f"| `{k}` |" not in page]
+    for step in recipe["steps"]:
+        for kind, body in step.items():
+            section = sections[f"{kind}: {body['method']}"]
+            missing += [f"{kind}.{k}" for k in body if k != "method" and f"| `{k}` |" not in section]
+    missing += [f"assay.{k}" for k in recipe.get("assay", {}) if f"| `{k}` |" not in page]
+    assert missing == [], f"{name} uses keys the reference does not document: {missing}"
