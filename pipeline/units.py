@@ -77,7 +77,8 @@ def quantity(text: Any, *, like: str | None = None, what: str = "value") -> Any:
             got = "no unit" if q.dimensionless else f"unit {q.units:~P} ({q.dimensionality})"
             if lacking:
                 number = str(text).strip().split(" ", 1)[0] if isinstance(text, str) else str(text)
-                raise UnitError(f"{what}: {text!r} {lacking}, e.g. \"{number} {like}\"")
+                raise UnitError(f"{what}: expected a quantity with a unit like {like!r}, but {text!r} {lacking}, "
+                                f"e.g. \"{number} {like}\"")
             raise UnitError(
                 f"{what}: expected a quantity with a unit like {like!r} ({target.dimensionality}), got {got} "
                 f"in {text!r}; write it like {_example(like)}"

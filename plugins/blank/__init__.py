@@ -27,6 +27,14 @@ class MeanBlank(Stage):
         "role": Param("str", "blank", "layout role that marks blank wells"),
     }
 
+    def preflight(self, data: StageInput) -> StageOutput | None:
+        """Say before the run, as the run will, when the layout has no blank wells."""
+        wells = data.artifacts.get("layout")
+        if wells is not None and not (wells["role"].astype(str) == self.settings["role"]).any():
+            data.warn(f"no wells with role {self.settings['role']!r} in the layout: the signal will be left "
+                      "uncorrected")
+        return None
+
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
 

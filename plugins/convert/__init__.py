@@ -81,6 +81,13 @@ class BeerLambert(Stage):
             return [("fill_volume", "fill_volume and plate_type go together")]
         return []
 
+    def preflight(self, data: StageInput) -> StageOutput | None:
+        """With ``water_peak`` on, the plate must name its pathcheck file."""
+        if self.settings["water_peak"] and data.inputs.get("pathcheck") is None:
+            raise InputFileError("water_peak is on but the plate names no pathcheck file",
+                                 hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
+        return None
+
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
         from vzero import units
