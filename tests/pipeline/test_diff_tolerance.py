@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import pandas as pd
+import pytest
 from vzero.cli.diff import compare_parameters, compare_wells, counts, to_text
 
 
@@ -38,3 +39,23 @@ def test_parameters_within_tolerance_are_not_counted_and_summary_counts():
     text = to_text({"recipe_diff": "", "wells": wells, "parameters": params, "n_wells": 2, "counts": n,
                     "rtol": 1e-9, "atol": 0.0})
     assert "summary: 2 of 2 wells changed (1 in rate, 1 in flags), 1 parameters changed" in text
+
+
+def test_diff_command_line_takes_tolerances(tmp_path, capsys):
+    from vzero.cli.main import main
+    from vzero.run.runner import run
+
+    from tests.conftest import linear_plate
+
+    recipe = linear_plate(tmp_path / "in", noise=1e-3, seed=2)
+    a = run(recipe, tmp_path / "a").audit_path
+    recipe.write_text(recipe.read_text("utf-8").replace('end: "300 s"', 'end: "285 s"'), "utf-8")
+    b = run(recipe, tmp_path / "b").audit_path
+    assert main(["diff", str(a), str(b)]) == 0
+    assert "summary: 96 of 96 wells changed" in capsys.readouterr().out
+    assert main(["diff", str(a), str(b), "--rtol", "10", "--atol", "1"]) == 0  # every change is inside these
+    out = capsys.readouterr().out
+    assert "summary: 0 of 96 wells changed (0 in rate, 0 in flags)" in out and "rtol 10 and atol 1" in out
+    with pytest.raises(SystemExit) as stop:
+        main(["diff", str(a), str(b), "--rtol", "-1"])
+    assert stop.value.code == 2 and "expected a tolerance of 0 or more" in capsys.readouterr().err

@@ -139,3 +139,17 @@ def test_water_peak_without_a_pathcheck_file_and_missing_blanks_are_caught_by_ch
                       "water_peak: true}\n", "utf-8")
     assert main(["check", str(recipe)]) == 2
     assert "water_peak is on but the plate names no pathcheck file" in _said(capsys)
+
+
+def test_check_skips_the_input_checks_of_recipe_named_plugin_files_and_says_so(tmp_path: Path, capsys):
+    from tests.conftest import DATA
+
+    recipe = linear_plate(tmp_path)
+    (tmp_path / "lab_rates.py").write_bytes((DATA / "plugins" / "lab_rates.py").read_bytes())
+    text = recipe.read_text("utf-8").replace("name: linear\n", "name: linear\nplugins: [lab_rates.py]\n")
+    recipe.write_text(text.replace('{method: window, start: "0 s", end: "300 s"}', "{method: first-reads, reads: 4}"))
+    found = check_inputs(recipe)
+    assert found.skipped == ["step 3 (rates: first-reads) comes from the plugin file lab_rates.py; its input "
+                             "checks were not run"]
+    assert main(["check", str(recipe)]) == 0
+    assert "not checked: step 3 (rates: first-reads)" in _said(capsys)
