@@ -8,7 +8,7 @@ from __future__ import annotations
 from typing import Any
 
 from vzero import hookimpl
-from vzero.errors import InputFileError
+from vzero.errors import InputFileError, LayoutError
 from vzero.params import Param
 from vzero.stage import Stage, StageInput, StageOutput
 
@@ -53,6 +53,22 @@ class TableImport(Stage):
         "inhibitor_unit": Param("unit", None, "unit of the layout's inhibitor column, if its header has none",
                                 like="M", nullable=True),
     }
+
+    @classmethod
+    def check_settings(cls, settings: dict[str, Any]) -> list[tuple[str, str]]:
+        """A layout declared in the recipe is checked with the recipe, so its problems carry the recipe's
+        file and line (on the largest plate: whether a well exists on the plate itself is checked with the
+        data, by the preflight)."""
+        declared = settings.get("layout")
+        if not declared:
+            return []
+        from vzero.plugins.importers.layouts import expand_declared_layout
+
+        try:
+            expand_declared_layout(declared, 1536)
+        except LayoutError as exc:
+            return [("layout", exc.message)]
+        return []
 
     def preflight(self, data: StageInput) -> StageOutput:
         """Read the data and the layout and check them against each other and the recipe, as :meth:`run`

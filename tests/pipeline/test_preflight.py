@@ -153,3 +153,14 @@ def test_check_skips_the_input_checks_of_recipe_named_plugin_files_and_says_so(t
                              "checks were not run"]
     assert main(["check", str(recipe)]) == 0
     assert "not checked: step 3 (rates: first-reads)" in _said(capsys)
+
+
+def test_a_declared_layout_problem_names_the_recipe_file_and_line(tmp_path: Path, capsys):
+    recipe = linear_plate(tmp_path)
+    text = recipe.read_text("utf-8").replace(
+        "  - import: {method: table}\n",
+        "  - import:\n      method: table\n      layout:\n        wells:\n          - {wells: A1:A3, role: blnk}\n")
+    recipe.write_text(text, "utf-8")
+    assert main(["check", str(recipe)]) == 2
+    said = _said(capsys)
+    assert "recipe.yaml:10 steps[0].import.layout: layout.wells[0].role" in said and "'blnk'" in said
