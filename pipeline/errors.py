@@ -8,15 +8,37 @@ command line prints the message alone (no traceback unless ``--debug``) and exit
 from __future__ import annotations
 
 
+def sentence(text: str, *, capital: bool = False) -> str:
+    """``text`` ending as a sentence: a closing full stop unless it already ends with ``.``, ``?``, ``!`` or
+    ``:``, and (with ``capital``) a capital first letter unless it starts with a name such as ``--out`` or a
+    file, so that a message and its hint never run together ("already exists Pass --force")."""
+    text = text.rstrip()
+    if not text:
+        return text
+    first = text.split(" ", 1)[0]
+    if capital and first.isalpha() and first.islower():
+        text = text[0].upper() + text[1:]
+    if text[-1] not in ".?!:":
+        text += "."
+    return text
+
+
+def join_sentences(message: str, hint: str | None) -> str:
+    """A message and its hint as sentences: ``"x already exists."`` + ``"Pass --force."``."""
+    return sentence(message) if not hint else f"{sentence(message)} {sentence(hint, capital=True)}"
+
+
 class VzeroError(Exception):
-    """Base of every error vzero raises on purpose. ``exit_code`` is what the CLI returns (2: bad input)."""
+    """Base of every error vzero raises on purpose. ``exit_code`` is what the CLI returns (2: bad input).
+
+    The text is the message and the hint, each a full sentence (:func:`join_sentences`)."""
 
     exit_code = 2
 
     def __init__(self, message: str, *, hint: str | None = None) -> None:
         self.message = message
         self.hint = hint
-        super().__init__(message if not hint else f"{message} {hint}")
+        super().__init__(join_sentences(message, hint))
 
 
 class RecipeError(VzeroError):

@@ -30,7 +30,9 @@ class Param:
 
     ``kind`` is one of ``str, int, float, bool, quantity, unit, choice, list, mapping, any``. ``like`` is the
     unit a quantity (or unit) must be convertible to. ``choices`` lists allowed values for ``choice`` (and for
-    the items of a ``list``). ``low``/``high`` bound numbers (inclusive).
+    the items of a ``list``). ``low``/``high`` bound numbers (inclusive). ``names`` says the value (text, or
+    each item of a list) names a registered component of that kind (``"model"``): the recipe check looks each
+    one up, so a misspelt name stops the run before it starts.
     """
 
     kind: str
@@ -42,6 +44,7 @@ class Param:
     high: float | None = None
     nullable: bool = False
     check: Callable[[Any], str | None] | None = field(default=None, compare=False)
+    names: str | None = None
 
     # Constructors that read well in a stage declaration.
     @classmethod

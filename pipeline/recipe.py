@@ -259,6 +259,22 @@ def load(path: str | Path) -> Recipe:
 #: Recipes longer than this are refused before parsing (a recipe is a page of text; batches use manifests).
 MAX_RECIPE_BYTES = 1_000_000
 
+def _unknown_names(params: Any, settings: Mapping[str, Any], registry: Registry) -> list[tuple[str, str]]:
+    """Parameters declared with ``names=KIND`` whose values are not registered components of that kind."""
+    out: list[tuple[str, str]] = []
+    for key, param in (params.items() if isinstance(params, Mapping) else []):
+        kind, value = getattr(param, "names", None), settings.get(key)
+        if not kind or value is None:
+            continue
+        known = registry.names(kind)
+        for i, name in enumerate(value if isinstance(value, list) else [value]):
+            if str(name) not in known:
+                hit = closest(str(name), known)
+                near = f" (did you mean {hit!r}?)" if hit else ""
+                where = f"{key}[{i}]" if isinstance(value, list) else key
+                out.append((where, f"no {kind} named {name!r}{near}; available: {', '.join(known)}"))
+    return out
+
 
 def check(
     recipe: Recipe,
@@ -504,6 +520,8 @@ def _check_steps(
         cross = getattr(entry.component, "check_settings", None)
         if cross is not None and not problems:
             problems.extend(cross(settings))
+        if not problems:
+            problems.extend(_unknown_names(entry.component.params, settings, registry))
         for key, msg in problems:
             bad((*path, kind, key) if key else (*path, kind), msg)
         scope = order[entry.component.scope]

@@ -108,6 +108,18 @@ class Stage:
         """
         return []
 
+    def preflight(self, data: StageInput) -> StageOutput | None:
+        """Check, before any stage runs, what :meth:`run` would reject at its start; no side effects.
+
+        Called once per plate for every plate-scoped step, in recipe order, by ``vzero check`` and by the
+        runner before a plate's first step. ``data.inputs`` holds the plate's raw files and
+        ``data.artifacts`` what the earlier steps' preflights returned (the import step returns
+        ``layout``, one row per analysed well, and ``well_units``). Raise a :class:`vzero.errors.VzeroError`
+        for what would stop the run, call ``data.warn`` for what it would warn about, and return artifacts
+        later checks need (or None). The default checks nothing.
+        """
+        return None
+
     def run(self, data: StageInput) -> StageOutput:  # pragma: no cover - abstract
         raise NotImplementedError
 

@@ -73,7 +73,12 @@ def quantity(text: Any, *, like: str | None = None, what: str = "value") -> Any:
     if like is not None:
         target = ureg.Quantity(1, like)
         if q.dimensionality != target.dimensionality:
+            lacking = missing_dimension(target.dimensionality, q.dimensionality)
             got = "no unit" if q.dimensionless else f"unit {q.units:~P} ({q.dimensionality})"
+            if lacking:
+                number = str(text).strip().split(" ", 1)[0] if isinstance(text, str) else str(text)
+                raise UnitError(f"{what}: expected a quantity with a unit like {like!r}, but {text!r} {lacking}, "
+                                f"e.g. \"{number} {like}\"")
             raise UnitError(
                 f"{what}: expected a quantity with a unit like {like!r} ({target.dimensionality}), got {got} "
                 f"in {text!r}; write it like {_example(like)}"
@@ -116,6 +121,27 @@ def implausible(q: Any, like: str | None) -> str | None:
     if not math.isfinite(si) or not low <= si <= high:
         return f"outside the range an assay can have (allowed: {span}; this is {si:g})"
     return None
+
+_DIMENSION_NAMES = (
+    ({"[substance]": 1, "[length]": -3}, "concentration"),
+    ({"[length]": 1}, "length"),
+    ({"[time]": 1}, "time"),
+    ({"[length]": 3}, "volume"),
+    ({"[substance]": 1}, "amount"),
+)
+
+
+def missing_dimension(wanted: Any, got: Any) -> str:
+    """What ``got`` lacks to have the dimension ``wanted``, in words ("has no concentration unit; a value per
+    concentration needs one"), or '' when the difference is not one named dimension."""
+    ratio = {k: v for k, v in dict(wanted / got).items() if v}
+    for dims, name in _DIMENSION_NAMES:
+        a = "an" if name[0] in "aeiou" else "a"
+        if ratio == dims:
+            return f"has no {name} unit; it needs {a} {name} unit"
+        if ratio == {k: -v for k, v in dims.items()}:
+            return f"has no {name} unit; a value per {name} needs {a} {name} unit below the line"
+    return ""
 
 
 def unit(text: str, *, like: str | None = None, what: str = "unit") -> Any:

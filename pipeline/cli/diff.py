@@ -6,7 +6,9 @@ change of the rate or estimate; a value that appears or disappears counts as inf
 writes the same comparison as one table (column ``kind`` is ``well`` or ``parameter``).
 
 A relative change is only computed when both runs give the quantity in the same unit; otherwise the row
-says the unit changed.
+says the unit changed. Two numbers count as the same when ``|b - a| <= atol + rtol * |a|`` (``--rtol``,
+default 1e-9, and ``--atol``, default 0, as in :func:`numpy.isclose`): a rerun on another machine or library
+version differs in the last digits, and that rounding noise is not a change.
 """
 
 from __future__ import annotations
@@ -24,6 +26,8 @@ HELP = "Compare two audit files: recipe differences and what they changed, per w
 EXAMPLE = "vzero diff runs/old/run.h5 runs/new/run.h5 --csv changes.csv"
 
 WELL_KEY = ["plate", "well"]
+RTOL = 1e-9
+"""Default relative tolerance: differences below it are rounding noise, not changes."""
 PARAM_KEY = ["group", "model", "parameter"]
 
 
@@ -48,14 +52,25 @@ def relative_change(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.where(np.isnan(a) & np.isnan(b), 0.0, rel)
 
 
+def same(a: np.ndarray, b: np.ndarray, rtol: float = RTOL, atol: float = 0.0) -> np.ndarray:
+    """Whether each pair is equal within ``atol + rtol * |a|`` (both missing counts as equal)."""
+    import numpy as np
+
+    a = np.asarray(a, dtype=float)
+    b = np.asarray(b, dtype=float)
+    return np.isclose(b, a, rtol=rtol, atol=atol, equal_nan=True)
+
+
 def _col(frame: pd.DataFrame, name: str, default: Any) -> pd.Series:
     import pandas as pd
 
     return frame[name] if name in frame.columns else pd.Series([default] * len(frame), index=frame.index)
 
 
-def compare_wells(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
-    """Per well: rate, flags and window in A and B, and the relative rate change; changed wells only, sorted."""
+def compare_wells(a: pd.DataFrame, b: pd.DataFrame, rtol: float = RTOL, atol: float = 0.0) -> pd.DataFrame:
+    """Per well: rate, flags and window in A and B, and the relative rate change; changed wells only, sorted.
+
+    Rates and windows equal within ``rtol``/``atol`` (see :func:`same`) do not count as changed."""
     import numpy as np
 
     cols = ["rate", "rate_unit", "flags", "window_start_s", "window_end_s", "note"]
@@ -82,7 +97,8 @@ def compare_wells(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
     m["change"] = np.where(same_unit, m["rate_b"] - m["rate_a"], np.nan)
     win_a = m[["window_start_s_a", "window_end_s_a"]].to_numpy()
     win_b = m[["window_start_s_b", "window_end_s_b"]].to_numpy()
-    window_changed = ~((win_a == win_b) | (np.isnan(win_a) & np.isnan(win_b))).all(axis=1)
+    window_changed = ~same(win_a, win_b, rtol, atol).all(axis=1)
+    rate_same = same(m["rate_a"].to_numpy(), m["rate_b"].to_numpy(), rtol, atol)
     what = []
     for i in range(len(m)):
         parts = []
@@ -90,7 +106,7 @@ def compare_wells(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
             parts.append("only in " + ("A" if m["_merge"].iat[i] == "left_only" else "B"))
         if not same_unit[i]:
             parts.append(f"unit {m['rate_unit_a'].iat[i]} -> {m['rate_unit_b'].iat[i]}")
-        elif rel[i] != 0:
+        elif not rate_same[i]:
             parts.append("rate")
         if m["flags_a"].iat[i] != m["flags_b"].iat[i]:
             parts.append("flags")
@@ -104,8 +120,10 @@ def compare_wells(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
     return _sort(m)
 
 
-def compare_parameters(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
-    """Per fitted parameter: estimate and interval in A and B and the relative change; changed ones, sorted."""
+def compare_parameters(a: pd.DataFrame, b: pd.DataFrame, rtol: float = RTOL, atol: float = 0.0) -> pd.DataFrame:
+    """Per fitted parameter: estimate and interval in A and B and the relative change; changed ones, sorted.
+
+    Values equal within ``rtol``/``atol`` (see :func:`same`) do not count as changed."""
     import numpy as np
     import pandas as pd
 
@@ -133,7 +151,7 @@ def compare_parameters(a: pd.DataFrame, b: pd.DataFrame) -> pd.DataFrame:
     changed = np.zeros(len(m), dtype=bool)
     for c in cols:
         x, y = m[f"{c}_a"].to_numpy(), m[f"{c}_b"].to_numpy()
-        changed |= ~((x == y) | (np.isnan(x) & np.isnan(y)))
+        changed |= ~same(x, y, rtol, atol)
     changed |= ~same_unit | (m["_merge"] != "both").to_numpy()
     m["changed"] = np.where(m["_merge"] == "left_only", "only in A",
                             np.where(m["_merge"] == "right_only", "only in B",
@@ -149,8 +167,9 @@ def _sort(m: pd.DataFrame) -> pd.DataFrame:
     return m.assign(_k=key).sort_values("_k", ascending=False, kind="stable").drop(columns="_k").reset_index(drop=True)
 
 
-def compare(path_a: str | Path, path_b: str | Path) -> dict[str, Any]:
-    """Read two audit files and compare them: ``recipe_diff`` (text), ``wells`` and ``parameters`` (tables)."""
+def compare(path_a: str | Path, path_b: str | Path, rtol: float = RTOL, atol: float = 0.0) -> dict[str, Any]:
+    """Read two audit files and compare them: ``recipe_diff`` (text), ``wells`` and ``parameters`` (tables),
+    with changes within ``rtol``/``atol`` left out, and ``counts`` of what changed."""
     import pandas as pd
     from vzero.audit import reader
 
@@ -167,13 +186,29 @@ def compare(path_a: str | Path, path_b: str | Path) -> dict[str, Any]:
         return t.frame if t is not None else pd.DataFrame()
 
     ra, rb = frame(a, "rates"), frame(b, "rates")
-    wells = compare_wells(ra, rb) if not ra.empty or not rb.empty else pd.DataFrame()
+    wells = compare_wells(ra, rb, rtol, atol) if not ra.empty or not rb.empty else pd.DataFrame()
+    parameters = compare_parameters(frame(a, "fits"), frame(b, "fits"), rtol, atol)
     return {
         "recipe_diff": recipe_diff(a["head"].get("recipe_text", ""), b["head"].get("recipe_text", ""),
                                    f"{path_a} (recipe)", f"{path_b} (recipe)"),
         "wells": wells,
-        "parameters": compare_parameters(frame(a, "fits"), frame(b, "fits")),
+        "parameters": parameters,
         "n_wells": max(len(ra), len(rb)),
+        "n_parameters": max(len(frame(a, "fits")), len(frame(b, "fits"))),
+        "counts": counts(wells, parameters),
+        "rtol": rtol,
+        "atol": atol,
+    }
+
+
+def counts(wells: pd.DataFrame, parameters: pd.DataFrame) -> dict[str, int]:
+    """How many wells changed (any way), whose rate changed, whose flags changed, and parameters changed."""
+    changed = wells["changed"].astype(str) if "changed" in wells.columns else None
+    return {
+        "wells": len(wells),
+        "rates": 0 if changed is None else int(changed.str.contains(r"\brate\b|unit|only in").sum()),
+        "flags": 0 if changed is None else int(changed.str.contains("flags").sum()),
+        "parameters": len(parameters),
     }
 
 
@@ -226,6 +261,10 @@ def to_text(result: dict[str, Any], limit: int = 30) -> str:
     lines = ["recipe changes:"]
     lines.append(result["recipe_diff"].rstrip("\n") if result["recipe_diff"] else "  (same recipe)")
     w = result["wells"]
+    n = result.get("counts") or counts(w, result["parameters"])
+    lines.append(f"summary: {n['wells']} of {result['n_wells']} wells changed ({n['rates']} in rate, "
+                 f"{n['flags']} in flags), {n['parameters']} parameters changed; differences within "
+                 f"rtol {result.get('rtol', RTOL):g} and atol {result.get('atol', 0.0):g} are not counted.")
     lines.append(f"wells changed: {len(w)} of {result['n_wells']}")
     for _, r in w.head(limit).iterrows():
         text = f"  {r['plate']} {r['well']}: rate {r['rate_a']:.6g} -> {r['rate_b']:.6g} {r['rate_unit_b'] or ''}"
@@ -253,10 +292,24 @@ def configure(p: argparse.ArgumentParser) -> None:
     p.add_argument("b", help="the second audit file, e.g. the rerun")
     p.add_argument("--csv", help="also write every change as a CSV table to this file")
     p.add_argument("--limit", type=int, default=30, help="rows of each list to print (default 30)")
+    p.add_argument("--rtol", type=_tolerance, default=RTOL,
+                   help=f"relative tolerance: smaller changes are rounding noise, not counted (default {RTOL:g})")
+    p.add_argument("--atol", type=_tolerance, default=0.0,
+                   help="absolute tolerance, in each quantity's own unit (default 0)")
+
+
+def _tolerance(text: str) -> float:
+    try:
+        x = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number like 1e-9, got {text!r}.") from None
+    if not x >= 0:
+        raise argparse.ArgumentTypeError(f"expected a tolerance of 0 or more, got {text}.")
+    return x
 
 
 def run(args: argparse.Namespace) -> int:
-    result = compare(args.a, args.b)
+    result = compare(args.a, args.b, rtol=args.rtol, atol=args.atol)
     if not args.quiet:
         print(to_text(result, args.limit))
     if args.csv:

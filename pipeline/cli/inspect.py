@@ -112,8 +112,7 @@ def summary(path: str | Path, *, max_wells: int = 50) -> str:
     if fits is not None and len(fits):
         lines.append("fitted parameters:")
         for _, row in fits.iterrows():
-            lines.append(f"  {row['group']} {row['model']} {row['parameter']} = {row['estimate']:.6g} "
-                         f"± {row['stderr']:.3g} {row['unit']}")
+            lines.append(f"  {row['group']} {row['model']} {row['parameter']} = {_value(row)}")
     lines.append("reporting items (STRENDA guidelines, short list from memory; add them under 'assay:' in the recipe):")
     for label, ok, where in strenda_check(head["assay"] or {}, list(rates.columns) if rates is not None else [],
                                           step_labels, fits):
@@ -126,6 +125,21 @@ def _outside(name: str) -> bool:
     """Whether an input's stored name (its path as the recipe gave it) points outside the recipe's folder."""
     parts = name.replace("\\", "/").split("/")
     return name.startswith(("/", "\\")) or (len(name) > 1 and name[1] == ":") or ".." in parts
+
+def _value(row: Any) -> str:
+    """A fitted parameter as printed: ``7.73 ± 0.259 uM/min``, or ``not determined (why)`` when the data do
+    not determine it (no estimate or no standard error), never a bare 1e107 or "± nan"."""
+    import math
+
+    est, se = float(row["estimate"]), float(row["stderr"])
+    note = str(row.get("note", "") or "")
+    note = "" if note == "nan" else note
+    if note.startswith("not determined") or not math.isfinite(est):
+        why = note.split(":", 1)[1].strip().split(";")[0] if ":" in note else "no estimate"
+        return f"not determined ({why})"
+    if not math.isfinite(se):
+        return f"{est:.6g} {row['unit']} (no standard error{': ' + note if note else ''})"
+    return f"{est:.6g} ± {se:.3g} {row['unit']}"
 
 
 def _inputs_meta(f: Any) -> list[tuple[str, int, str, list[str]]]:

@@ -12,6 +12,7 @@ import os
 import sys
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from vzero.cli.say import Progress, report_result, say
@@ -56,7 +57,8 @@ class Commands:
 
 def _cfg_run(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipe", help="the recipe file (YAML)")
-    p.add_argument("--out", "-o", required=True, help="folder to write run.h5 and the tables into")
+    p.add_argument("--out", "-o", help="folder to write run.h5 and the tables into (default: a folder named "
+                                       "after the recipe, next to it: demo.yaml -> demo/)")
     p.add_argument("--force", action="store_true", help="replace an existing run in --out")
     p.add_argument("--jobs", "-j", type=_positive, default=1, metavar="N",
                    help="run plates in N local processes (default 1); with --scheduler local: N workers")
@@ -80,6 +82,13 @@ def _size(text: str) -> int:
     return int(value * factors.get(unit, 1))
 
 
+def default_out(recipe: str) -> Any:
+    """The output folder when ``--out`` is not given: the recipe's name without its suffix, next to it
+    (``plates/assay.yaml`` -> ``plates/assay/``). An existing run there is replaced only with ``--force``."""
+    path = Path(recipe)
+    return path.with_suffix("") if path.suffix else path.with_name(path.name + "-run")
+
+
 def _positive(text: str) -> int:
     try:
         n = int(text)
@@ -94,6 +103,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
     from vzero.run.runner import run
 
     shown = Progress(verbose=args.verbose, quiet=args.quiet)
+    if args.out is None:
+        args.out = str(default_out(args.recipe))
     try:
         limit = {"max_input_bytes": args.max_input} if args.max_input else {}
         result = run(args.recipe, args.out, force=args.force, progress=shown, jobs=args.jobs,
@@ -111,16 +122,20 @@ def _cfg_check(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from vzero.run.runner import check_recipe
+    from vzero.errors import sentence
+    from vzero.run.runner import check_inputs
 
-    skipped: list[str] | None = None if args.load_plugins else []
-    rec = check_recipe(args.recipe, skipped=skipped)
-    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s), {len(rec.steps)} steps checked: "
-               + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ")")
+    found = check_inputs(args.recipe, load_plugins=args.load_plugins)
+    rec = found.recipe
+    for note in found.warnings:
+        print(f"warning: {sentence(note)}", file=sys.stderr)
+    for note in found.skipped:
+        say(args, f"not checked: {sentence(note)}")
+    say(args, f"{args.recipe}: OK ({len(rec.plates)} plate(s) read and checked, {len(rec.steps)} steps: "
+               + ", ".join(f"{s.kind}:{s.method}" for s in rec.steps) + ").")
     if rec.plugin_entries and not args.load_plugins:
-        say(args, f"not checked: the recipe's plugins ({', '.join(rec.plugin_entries)}) were not imported, so "
-                  "their steps and settings are unchecked" + (": " + "; ".join(skipped) if skipped else "")
-                  + ". Pass --load-plugins to check them too (that runs their code).")
+        say(args, f"The recipe's plugins ({', '.join(rec.plugin_entries)}) were not imported. Pass --load-plugins "
+                  "to check their steps too (that runs their code).")
     return 0
 
 
@@ -172,7 +187,8 @@ def _cmd_inspect(args: argparse.Namespace) -> int:
 CORE: list[tuple[str, str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int], str]] = [
     ("run", "Run a recipe on its plates and write the audit file and tables.", _cfg_run, _cmd_run,
      "vzero run configs/demo.yaml --out runs/today\n  vzero run batch.yaml --out runs/batch --jobs 4"),
-    ("check", "Validate a recipe without running it.", _cfg_check, _cmd_check, "vzero check configs/demo.yaml"),
+    ("check", "Validate a recipe, its data and layout files without running it.", _cfg_check, _cmd_check,
+     "vzero check configs/demo.yaml"),
     ("plugins", "List every stage method and model, where it came from and its version.", _cfg_plugins,
      _cmd_plugins, "vzero plugins --params"),
     ("inspect", "Summarise an audit file: provenance, steps, warnings, flagged wells.", _cfg_inspect,
@@ -225,6 +241,21 @@ def build_parser(with_plugins: bool = True) -> argparse.ArgumentParser:
     return parser
 
 
+def _quietly(args: argparse.Namespace) -> int:
+    """Run the command with Python's own warnings (numpy, pandas, ...) kept off the terminal: what a user
+    must know is said by vzero itself, in the run's warnings. ``--verbose`` or ``--debug`` shows them."""
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("default")
+        code = int(args._run(args))
+    if caught and (getattr(args, "verbose", False) or getattr(args, "debug", False)):
+        for w in caught:
+            print(f"python warning: {w.category.__name__}: {w.message} ({Path(w.filename).name}:{w.lineno})",
+                  file=sys.stderr)
+    return code
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in argv
@@ -235,7 +266,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         if not getattr(args, "_run", None):
             parser.print_help()
             return 2
-        return int(args._run(args))
+        return _quietly(args)
     except VzeroError as exc:
         if debug:
             raise

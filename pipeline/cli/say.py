@@ -73,16 +73,19 @@ def report_result(args: argparse.Namespace, result: Any) -> None:
     if len(rates):
         flagged = int((rates.get("flags", "").astype(str) != "").sum()) if "flags" in rates else 0
         say(args, f"{len(rates)} wells, {flagged} flagged")
+    from vzero.errors import sentence
+
     outside = [w for w in result.warnings if w.startswith(OUTSIDE)]
     for w in outside:  # always every one: what a recipe took from elsewhere on this machine
-        print(f"note: {w}", file=sys.stderr)
+        print(f"note: {sentence(w)}", file=sys.stderr)
     others = [w for w in result.warnings if not w.startswith(OUTSIDE)]
     for w in others[: 20 if args.verbose else 5]:
-        say(args, f"warning: {w}")
+        say(args, f"warning: {sentence(w)}")
     if len(others) > 5 and not args.verbose:
-        say(args, f"... {len(others) - 5} more warnings (vzero inspect {result.audit_path})")
+        say(args, f"... {len(others) - 5} more warnings (vzero inspect {result.audit_path}).")
     for plate, err in result.failed.items():
-        print(f"plate {plate} failed: {err}", file=sys.stderr)
+        print(f"plate {plate} failed: {sentence(err)}", file=sys.stderr)
     if result.failed_items:
         shown = ", ".join(result.failed_items[:10]) + (", ..." if len(result.failed_items) > 10 else "")
-        print(f"{len(result.failed_items)} well(s) without a result: {shown} (see rates.csv flags)", file=sys.stderr)
+        print(f"{len(result.failed_items)} well(s) without a result: {shown} (see the flags in rates.csv).",
+              file=sys.stderr)

@@ -525,11 +525,61 @@ def _recover(out_dir: Path, parent: Path) -> None:
             shutil.rmtree(stale, ignore_errors=True)
 
 
-def check_recipe(recipe: str | Path, *, skipped: list[str] | None = None) -> Recipe:
-    """Validate a recipe without running it (``vzero check``). With a ``skipped`` list, the recipe's own
-    plugins are not imported and the steps that need them are listed there (see :func:`prepare`)."""
-    rec, _, _ = prepare(recipe, skipped=skipped)
-    return rec
+def check_recipe(recipe: str | Path, *, load_plugins: bool = False) -> Recipe:
+    """Validate a recipe and its input files without running it (``vzero check``); see :func:`check_inputs`."""
+    return check_inputs(recipe, load_plugins=load_plugins).recipe
+
+
+@dataclass
+class CheckResult:
+    """What ``vzero check`` found: the validated ``recipe``, the ``warnings`` a run would give at its start
+    (per plate) and the checks ``skipped`` (steps from recipe-named plugin files)."""
+
+    recipe: Recipe
+    warnings: list[str]
+    skipped: list[str]
+
+
+def check_inputs(
+    recipe: str | Path | Recipe, *, inputs: InputSource | None = None, load_plugins: bool = False
+) -> CheckResult:
+    """Validate the recipe, then read every plate's data and layout and run each plate step's preflight
+    (:meth:`vzero.stage.Stage.preflight`): everything a run would reject at its start, without running.
+
+    Every plate is checked and every problem is reported together (one :class:`VzeroError`, one line per
+    plate). The plugins a recipe names (local files, modules) are not even imported unless ``load_plugins``
+    (a check runs no code a recipe names): the steps that need them are listed in ``skipped``. With
+    ``load_plugins``, their steps are validated but their input checks still do not run.
+    """
+    from vzero.errors import join_sentences
+    from vzero.run.steps import preflight_plate
+
+    unchecked: list[str] | None = None if load_plugins else []
+    rec, plugins, source = prepare(recipe, inputs=inputs, skipped=unchecked)
+    known = [s for s in rec.steps if (s.kind, s.method) in plugins.registry]
+    plate_steps = [s for s in known if _scope(plugins, s) == "plate"]
+
+    def local(spec: StepSpec) -> bool:
+        return bool(plugins.registry.get(spec.kind, spec.method).source.path)
+
+    skipped = [f"{where}: not validated, its plugin was not imported" for where in unchecked or []]
+    skipped += [f"step {s.index} ({s.kind}: {s.method}) comes from the plugin file "
+               f"{plugins.registry.get(s.kind, s.method).source.path}; its input checks were not run"
+               for s in plate_steps if local(s)]
+    problems: list[str] = []
+    warnings: list[str] = []
+    for plate in rec.plates:
+        try:
+            raws = {key: _raw(source, key, rel) for key, rel in plate.files.items()}
+            found = preflight_plate(plate, raws, rec, plugins, plate_steps, skip=local)
+        except VzeroError as exc:
+            problems.append(f"{plate.name}: {join_sentences(str(exc), None)}")
+            continue
+        warnings.extend(f"{plate.name}: {w}" for w in found)
+    if problems:
+        head = "" if len(problems) == 1 else f"{len(problems)} plates would fail:\n"
+        raise InputFileError(head + "\n".join(problems), hint="Nothing was run.")
+    return CheckResult(rec, warnings, skipped)
 
 
 def parse_recipe_text(text: str, path: str) -> Recipe:

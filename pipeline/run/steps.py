@@ -75,6 +75,12 @@ def process_plate(
     goes on with the other plates."""
     outcome = PlateOutcome(plate.name)
     artifacts: dict[str, Any] = {}
+    try:
+        preflight_plate(plate, raws, rec, plugins, steps)
+    except VzeroError as exc:
+        outcome.error = str(exc)
+        outcome.artifacts = {"exception": exc}
+        return outcome
     for spec in steps:
         try:
             output, record = run_step(spec, plugins, plate, artifacts, raws, rec, run_id)
@@ -87,6 +93,36 @@ def process_plate(
         outcome.warnings.extend(record.warnings)
     outcome.artifacts = artifacts
     return outcome
+
+
+def preflight_plate(
+    plate: PlateSpec,
+    raws: Mapping[str, RawInput],
+    rec: Recipe,
+    plugins: Plugins,
+    steps: list[StepSpec],
+    skip: Any = None,
+) -> list[str]:
+    """Run every plate-scoped step's :meth:`vzero.stage.Stage.preflight` on one plate, in recipe order, and
+    return their warnings; a :class:`VzeroError` names the step. Steps for which ``skip(spec)`` is true are
+    left out (``vzero check`` does not run code from recipe-named plugin files). Nothing is written."""
+    artifacts: dict[str, Any] = {}
+    warnings: list[str] = []
+    plate_info = {"name": plate.name, "files": dict(plate.files)}
+    for spec in steps:
+        if skip is not None and skip(spec):
+            continue
+        stage = plugins.registry.get(spec.kind, spec.method).component(**spec.settings)
+        data = StageInput(artifacts=dict(artifacts), plate=plate_info, inputs=dict(raws), recipe=rec.data,
+                          registry=plugins.registry, warn=warnings.append)
+        try:
+            found = stage.preflight(data)
+        except VzeroError as exc:
+            exc.args = (f"step {spec.index} ({spec.kind}: {spec.method}): {exc}",)
+            raise
+        if isinstance(found, StageOutput):
+            artifacts.update(found.artifacts)
+    return warnings
 
 
 def run_step(

@@ -7,6 +7,7 @@ from typing import Any
 from vzero import hookimpl
 from vzero.params import Param
 from vzero.plugins.kinetics.methods import BlankMethod
+from vzero.stage import StageInput, StageOutput
 
 
 class MeanBlank(BlankMethod):
@@ -25,6 +26,14 @@ class MeanBlank(BlankMethod):
         "match": Param.choice(("none", "group", "substrate"), "none", "which blank wells apply to a well"),
         "role": Param("str", "blank", "layout role that marks blank wells"),
     }
+
+    def preflight(self, data: StageInput) -> StageOutput | None:
+        """Say before the run, as the run will, when the layout has no blank wells."""
+        wells = data.artifacts.get("layout")
+        if wells is not None and not (wells["role"].astype(str) == self.settings["role"]).any():
+            data.warn(f"no wells with role {self.settings['role']!r} in the layout: the signal will be left "
+                      "uncorrected")
+        return None
 
     def correct(self, traces: Any, warn: Any) -> Any:
         import numpy as np

@@ -14,7 +14,7 @@ from vzero import hookimpl
 from vzero.errors import InputFileError, StageError
 from vzero.params import Param
 from vzero.plugins.kinetics.methods import Conversion, ConvertMethod
-from vzero.stage import StageInput
+from vzero.stage import StageInput, StageOutput
 
 OUTPUT_UNIT = Param("unit", "uM/min", "unit of the converted rates (e.g. uM/min, nM/s)", like="M/s")
 
@@ -59,6 +59,13 @@ class BeerLambert(ConvertMethod):
         if (settings.get("fill_volume") is None) != (settings.get("plate_type") is None):
             return [("fill_volume", "fill_volume and plate_type go together")]
         return []
+
+    def preflight(self, data: StageInput) -> StageOutput | None:
+        """With ``water_peak`` on, the plate must name its pathcheck file."""
+        if self.settings["water_peak"] and data.inputs.get("pathcheck") is None:
+            raise InputFileError("water_peak is on but the plate names no pathcheck file",
+                                 hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
+        return None
 
     def conversion(self, table: Any, data: StageInput) -> Conversion:
         import numpy as np
@@ -139,6 +146,23 @@ class StandardCurveConvert(ConvertMethod):
         "check_linearity": Param("bool", True, "drop top standards while the line bends significantly"),
     }
 
+    def preflight(self, data: StageInput) -> StageOutput | None:
+        """The layout must hold standard wells with concentrations in the ``column``, with a unit."""
+        wells = data.artifacts.get("layout")
+        if wells is None:  # the import step is a plugin's that did not say: nothing to check here
+            return None
+        col = self.settings["column"]
+        is_std = (wells["role"].astype(str) == "standard").to_numpy()
+        if not is_std.any() or col not in wells.columns:
+            raise StageError(f"standard-curve needs wells with role 'standard' and a layout column {col!r}; "
+                             f"the layout has {int(is_std.sum())} standard wells and the columns "
+                             f"{', '.join(map(str, wells.columns))}",
+                             hint="Add standards to the layout, or use another convert method.")
+        if not (data.artifacts.get("well_units") or {}).get(col) and not self.settings["unit"]:
+            raise StageError(f"the layout column {col!r} has no unit",
+                             hint=f'Write it like "{col} (uM)" in the header, or set unit in this step.')
+        return None
+
     def conversion(self, table: Any, data: StageInput) -> Conversion:
         import numpy as np
         import pandas as pd
@@ -157,8 +181,14 @@ class StandardCurveConvert(ConvertMethod):
         if not conc_unit:
             raise StageError(f"the layout column {col!r} has no unit; write it like \"{col} (uM)\" or set unit")
         y = traces.masked_signal()[is_std]
-        with np.errstate(invalid="ignore"):
-            level = np.nanmean(np.where(np.isfinite(y), y, np.nan), axis=1)
+        finite = np.isfinite(y)
+        count = finite.sum(axis=1)
+        # a standard whose every read is saturated has no level (NaN), said in words below, not as a warning
+        level = np.where(count > 0, np.where(finite, y, 0.0).sum(axis=1) / np.maximum(count, 1), np.nan)
+        if (count == 0).any():
+            lost = [str(w) for w, c in zip(wells["well"].to_numpy()[is_std], count, strict=True) if c == 0]
+            data.warn(f"{len(lost)} standard well(s) have no usable read (saturated or missing) and are left out "
+                      f"of the standard curve: {', '.join(lost[:10])}{', ...' if len(lost) > 10 else ''}.")
         conc = wells[col].to_numpy(dtype=float)[is_std]
         keep = np.isfinite(level) & np.isfinite(conc)
         curve = fit_standard_curve(conc[keep], level[keep], check_linearity=self.settings["check_linearity"])

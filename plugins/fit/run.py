@@ -20,9 +20,8 @@ from vzero.errors import FitError
 from vzero.params import closest
 from vzero.plugins.fit import compare, diagnostics, engine
 from vzero.plugins.fit.catalog import BY_NAME, Model
+from vzero.plugins.fit.determined import NOT_DETERMINED, settle
 from vzero.stage import StageInput, StageOutput
-
-NOT_DETERMINED = "not determined"
 
 
 def _models(names: list[str], registry: Any) -> list[Model]:
@@ -497,7 +496,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
     meta = {"research_use": "Research use only: check results against the lab's validated procedures.",
             "ki_mechanism": str(cfg["mechanism"])}
     out = {
-        "fits": Table(_with_comparison(pd.DataFrame(fit_rows, columns=fit_cols), comp_rows),
+        "fits": Table(_with_comparison(settle(pd.DataFrame(fit_rows, columns=fit_cols), by_name), comp_rows),
                       {"rss": rss_unit} if rss_unit else {}, meta),
         "model_comparison": Table(pd.DataFrame(comp_rows), {"rss": rss_unit} if rss_unit else {}, meta),
         "cooperativity": Table(pd.DataFrame(coop_rows, columns=[

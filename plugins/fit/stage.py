@@ -44,7 +44,7 @@ class FitStage(Stage):
                "model comparison, cooperativity verdict.")
     params: ClassVar[Mapping[str, Param]] = {
         "models": Param("list", ["michaelis-menten", "hill"],
-                        "rate laws to fit (names of registered models, see `vzero plugins`)"),
+                        "rate laws to fit (names of registered models, see `vzero plugins`)", names="model"),
         "x": Param("str", "substrate", "column of the rates table holding substrate concentration"),
         "inhibitor": Param("str", "inhibitor", "column holding inhibitor concentration"),
         "group_by": Param("str", "group", "column whose values define the groups fitted separately"),

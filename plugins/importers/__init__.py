@@ -13,15 +13,15 @@ from vzero.params import Param
 from vzero.plugins.kinetics.methods import ImportMethod
 from vzero.stage import StageInput, StageOutput
 
-LAYOUT_QUANTITIES = ("substrate", "enzyme", "inhibitor")
-
 
 class TableImport(ImportMethod):
     """Read a wide table (time column, then one column per well) or a long table (well, time, signal), in
     CSV, TSV, semicolon/decimal-comma text or xlsx, and join it with the plate layout.
 
-    Wells in the data but not in the layout (or the reverse) are an error naming them. Saturated reads
-    (overflow tokens, or reads at or above ``ceiling``) are kept in the audit file but masked.
+    Partial plates are normal: wells in the data but not in the layout are named in a warning and not
+    analysed; wells of the layout that the data lacks keep a row (flag ``excluded``, the reason in ``note``,
+    no rate). Saturated reads (overflow tokens, or reads at or above ``ceiling``) are kept in the audit file
+    but masked; single missing reads are named (well and file row) in a warning.
     """
 
     method = "table"
@@ -29,7 +29,8 @@ class TableImport(ImportMethod):
     summary = "wide or long plate-reader tables (CSV/TSV/xlsx) joined with a plate layout"
     params = {
         "shape": Param.choice(("auto", "wide", "long"), "auto", "table shape; auto detects it"),
-        "signal_unit": Param("unit", "AU", "unit of the reads (AU, RFU, RLU, ...)"),
+        "signal_unit": Param("unit", None, "unit of the reads (AU, RFU, RLU, ...); default RFU when the recipe's "
+                             "assay.detection says fluorescence, RLU for luminescence, else AU", nullable=True),
         "time_unit": Param.choice(("s", "min", "h"), None, "unit of a numeric time column (default: from the "
                                   "header, else seconds, stated in the run's warnings)", nullable=True),
         "time_column": Param("str", None, "name of the time column (default: detected)", nullable=True),
@@ -53,55 +54,56 @@ class TableImport(ImportMethod):
                                 like="M", nullable=True),
     }
 
+    @classmethod
+    def check_settings(cls, settings: dict[str, Any]) -> list[tuple[str, str]]:
+        """A layout declared in the recipe is checked with the recipe, so its problems carry the recipe's
+        file and line (on the largest plate: whether a well exists on the plate itself is checked with the
+        data, by the preflight)."""
+        declared = settings.get("layout")
+        if not declared:
+            return []
+        from vzero.plugins.importers.layouts import expand_declared_layout
+
+        try:
+            expand_declared_layout(declared, 1536)
+        except LayoutError as exc:
+            return [("layout", exc.message)]
+        return []
+
+    def preflight(self, data: StageInput) -> StageOutput:
+        """Read the data and the layout and check them against each other and the recipe, as :meth:`run`
+        does first; return the layout (``layout``, one row per analysed well) and its units (``well_units``)
+        for the later steps' checks. Warnings go to ``data.warn``; nothing is written."""
+        from vzero.plugins.importers.plate import read_plate
+
+        plate = read_plate(data, self.settings)
+        for note in plate.notes:
+            data.warn(note)
+        return StageOutput(artifacts={"layout": plate.wells, "well_units": dict(plate.units)})
+
     def read(self, data: StageInput) -> StageOutput:
         import numpy as np
         from vzero.data import Traces
-        from vzero.plugins.importers import layouts, readers
+        from vzero.plugins.importers.plate import read_plate
 
         s = self.settings
-        raw = data.inputs.get("data")
-        if raw is None:
-            raise InputFileError("the plate has no 'data' file in the recipe", hint="Add data: FILE to the plate.")
-        options = readers.ReadOptions(
-            shape=s["shape"], delimiter=s["delimiter"], decimal=s["decimal"], encoding=s["encoding"],
-            sheet=s["sheet"], skip_rows=s["skip_rows"], time_column=s["time_column"], time_unit=s["time_unit"],
-            temperature_column=s["temperature_column"], ceiling=s["ceiling"],
-            **({"overflow_tokens": tuple(s["overflow_tokens"])} if s["overflow_tokens"] else {}),
-        )
-        blocks = readers.read_table(raw.data, source=raw.name, options=options)
-        block = _pick_block(blocks, s["block"], raw.name)
-        for note in block.assumptions:
+        plate = read_plate(data, s)
+        for note in plate.notes:
             data.warn(note)
-
-        layout, layout_source = _layout(data, s, block.wells)
-        for note in layout.attrs.get("assumptions", []):
-            data.warn(f"{layout_source}: {note}")
-        roles = dict(zip(layout["well"], layout["role"].astype(str), strict=True))
-        used = [w for w, r in roles.items() if r != "empty"]
-        layouts.check_match([w for w in block.wells if roles.get(w) != "empty"], used, layout_source)
-        units = dict(layout.attrs.get("units", {}))
-        for q in LAYOUT_QUANTITIES:
-            given = s[f"{q}_unit"]
-            if q in layout.columns and layout[q].notna().any():
-                if given and units.get(q) and units[q] != given:
-                    data.warn(f"layout header gives {q} in {units[q]}, recipe says {given}; the header wins")
-                units.setdefault(q, given or "")
-                if not units[q]:
-                    raise LayoutError(
-                        f"the {q} column has no unit", path=layout_source, column=q,
-                        hint=f'Write the unit in the header, like "{q} (uM)", or set {q}_unit in the import step.',
-                    )
-        wells = layout.set_index("well").loc[block.wells].reset_index()
-        signal = np.asarray(block.signal, dtype=float)
-        saturated = np.asarray(block.saturated, dtype=bool)
-        check_time_axis(np.asarray(block.time_s, dtype=float), raw.name)
+        block, n_missing = plate.block, len(plate.not_read)
+        n_time = len(block.time_s)
+        signal = np.vstack([np.asarray(block.signal, dtype=float)[plate.rows], np.full((n_missing, n_time), np.nan)])
+        saturated = np.vstack([np.asarray(block.saturated, dtype=bool)[plate.rows],
+                               np.zeros((n_missing, n_time), dtype=bool)])
+        wells = plate.wells
+        check_time_axis(np.asarray(block.time_s, dtype=float), data.inputs["data"].name)
         far = far_outside(signal)
         if far.any():
             saturated = saturated | far
             for i in np.flatnonzero(far.any(axis=1)):
                 reads = ", ".join(f"{signal[i, j]:g}" for j in np.flatnonzero(far[i])[:3])
-                data.warn(f"well {block.wells[i]}: {int(far[i].sum())} read(s) far outside the plate's range "
-                          f"({reads}) masked and counted as saturated; check the data file")
+                data.warn(f"well {wells['well'].iloc[i]}: {int(far[i].sum())} read(s) far outside the plate's "
+                          f"range ({reads}) masked and counted as saturated; check the data file")
         traces = Traces(
             plate=str(data.plate["name"]) if data.plate else "plate",
             time=np.asarray(block.time_s, dtype=float),
@@ -109,11 +111,13 @@ class TableImport(ImportMethod):
             mask=np.isfinite(signal) & ~saturated,
             saturated=saturated,
             wells=wells,
-            signal_unit=s["signal_unit"],
-            well_units={k: v for k, v in units.items() if k in wells.columns and v},
-            temperature=block.temperature,
+            signal_unit=s["signal_unit"] or _default_signal_unit(data.recipe),
+            well_units={k: v for k, v in plate.units.items() if k in wells.columns and v},
+            temperature=None if block.temperature is None else np.asarray(block.temperature),
         )
-        return StageOutput(artifacts={"traces": traces}, record={"layout": wells})
+        if plate.not_read:
+            traces = _mark_not_read(traces, plate.not_read, plate.source)
+        return StageOutput(artifacts={"traces": traces}, record={"layout": traces.wells})
 
 
 #: A read is "far outside" the plate when it lies further from the plate's median read than this many times
@@ -258,38 +262,33 @@ def _split_unit(label: str) -> tuple[str, str]:
     return (m.group(1), m.group(2)) if m else (label.strip(), "")
 
 
-def _layout(data: StageInput, settings: dict[str, Any], wells: list[str]) -> tuple[Any, str]:
-    """The plate layout: from the plate's layout file, or declared in the import step (``layout:``)."""
-    from vzero.plugins.importers import layouts
-    from vzero.plugins.kinetics.wells import infer_plate_size
-
-    raw = data.inputs.get("layout")
-    declared = settings.get("layout")
-    if raw is not None and declared:
-        raise LayoutError("the plate has a layout file and the import step declares a layout; keep one")
-    if raw is not None:
-        return layouts.read_layout(raw.data, source=raw.name, plate_size=None), raw.name
-    if declared:
-        return layouts.expand_declared_layout(declared, infer_plate_size(wells)), "recipe layout"
-    raise InputFileError(
-        "the plate has no layout", hint="Add layout: FILE to the plate, or declare one with layout: in the import step."
-    )
+def _default_signal_unit(recipe: Any) -> str:
+    """The unit of the reads when the import step does not say: RFU for fluorescence, RLU for luminescence
+    (from the recipe's ``assay.detection``), else AU (absorbance)."""
+    assay = recipe.get("assay") if isinstance(recipe, dict) else None
+    detection = str(assay.get("detection", "")).lower() if isinstance(assay, dict) else ""
+    if "fluoresc" in detection:
+        return "RFU"
+    if "lumines" in detection:
+        return "RLU"
+    return "AU"
 
 
-def _pick_block(blocks: list[Any], which: Any, source: str) -> Any:
-    names = [b.name for b in blocks]
-    if which is None:
-        if len(blocks) > 1:
-            raise InputFileError(
-                f"the file holds {len(blocks)} blocks ({', '.join(names)})", path=source,
-                hint="Choose one with block: NAME in the import step, or give each block its own plate entry.",
-            )
-        return blocks[0]
-    if isinstance(which, int) and 0 <= which < len(blocks):
-        return blocks[which]
-    if which in names:
-        return blocks[names.index(which)]
-    raise InputFileError(f"no block {which!r}; the file holds {', '.join(map(str, names))}", path=source)
+def _mark_not_read(traces: Any, wells: list[str], source: str) -> Any:
+    """Mark layout wells without reads: ``excluded`` (so they get no rate and no failure) with the reason in
+    ``note``, which the rates table carries."""
+    import numpy as np
+
+    table = traces.wells.copy()
+    missing = table["well"].astype(str).isin(set(wells)).to_numpy()
+    excluded = table["excluded"].to_numpy(dtype=bool) if "excluded" in table.columns else np.zeros(len(table), bool)
+    notes = table["note"].astype(str).to_numpy(dtype=object) if "note" in table.columns else \
+        np.full(len(table), "", dtype=object)
+    reason = f"not read: in the layout {source} but not in the data file"
+    notes = np.where(missing, np.where(notes == "", reason, notes + "; " + reason), notes).astype(object)
+    table["excluded"] = excluded | missing
+    table["note"] = notes
+    return traces.evolve(wells=table)
 
 
 @hookimpl

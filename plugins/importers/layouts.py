@@ -39,18 +39,42 @@ BASE_COLUMNS: tuple[str, ...] = ("well", "role", *NUMERIC_COLUMNS, "group", "rep
 _GRID_COLS = {cols: rows for rows, cols in PLATE_SHAPES.values()}
 
 
+#: The header forms a layout column with a unit may take (shown when a needed column is not found).
+HEADER_FORMS: tuple[str, ...] = ("substrate (uM)", "substrate [uM]", "substrate_uM")
+
+
 def _column_name(label: str) -> tuple[str, str | None]:
-    """Header text -> (column name, unit): ``"Substrate (µM)"`` -> ("substrate", "µM")."""
+    """Header text -> (column name, unit): ``"Substrate (µM)"``, ``"substrate [µM]"`` and ``"substrate_uM"``
+    all give ("substrate", "µM"). The underscore form is taken only when what follows it is a concentration
+    unit (``replicate_id`` stays one name)."""
     name, unit = split_label(label)
     raw_unit = None
     if unit is not None:  # keep the unit as written (split_label lower-cases it)
         m = re.search(r"[\(\[]\s*([^\)\]]*?)\s*[\)\]]\s*$|/\s*([^/]+?)\s*$", label.strip())
         raw_unit = (m.group(1) or m.group(2)) if m else unit
+    else:
+        m = re.fullmatch(r"\s*(.*?[^_\s])_([A-Za-zµμ]{1,3})\s*", label)
+        if m and _is_concentration_unit(m.group(2)):
+            name, raw_unit = m.group(1).lower(), m.group(2)
     return re.sub(r"\s+", "_", name.strip()), raw_unit
 
 
-def _finish(df: pd.DataFrame, units: dict[str, str], notes: list[str], source: str | None) -> pd.DataFrame:
-    """Add missing base columns, check roles, order columns, attach units and assumptions."""
+def _is_concentration_unit(text: str) -> bool:
+    """Whether ``text`` is a molar concentration unit (``uM``, ``nM``, ``mM``, ``M``, ``µM``)."""
+    from vzero import units
+    from vzero.errors import UnitError
+
+    try:
+        units.unit(text, like="M")
+    except UnitError:
+        return False
+    return True
+
+
+def _finish(df: pd.DataFrame, units: dict[str, str], notes: list[str], source: str | None,
+            lines: list[int] | None = None) -> pd.DataFrame:
+    """Add missing base columns, check roles, order columns, attach units and assumptions. ``lines`` gives
+    the file line of each row, for messages."""
     for col in NUMERIC_COLUMNS:
         if col not in df:
             df[col] = np.nan
@@ -63,7 +87,8 @@ def _finish(df: pd.DataFrame, units: dict[str, str], notes: list[str], source: s
         i = int(np.flatnonzero(bad.to_numpy())[0])
         raise LayoutError(
             f"unknown role {df['role'].iloc[i]!r} for well {df['well'].iloc[i]}",
-            path=source,
+            path=source if source is not None else "recipe layout",
+            row=lines[i] if lines else None,
             well=str(df["well"].iloc[i]),
             column="role",
             hint=f"Use one of {', '.join(ROLES)}.",
@@ -73,6 +98,7 @@ def _finish(df: pd.DataFrame, units: dict[str, str], notes: list[str], source: s
     out = df[list(BASE_COLUMNS) + extras].reset_index(drop=True)
     out.attrs["units"] = dict(units)
     out.attrs["assumptions"] = list(notes)
+    out.attrs["lines"] = list(lines) if lines else []
     return out
 
 
@@ -214,7 +240,9 @@ def _read_long_layout(grid: TextGrid, h: int, source: str, plate_size: int | Non
             raise LayoutError(f"{values[k]!r} is not a number", path=source, row=lines[k], column=name, well=wells[k])
         keep_text = name not in NUMERIC_COLUMNS and (name in TEXT_COLUMNS or nums is None or not any(values))
         df[name] = values if keep_text else nums
-    return _finish(df, units, notes, source)
+    out = _finish(df, units, notes, source, lines)
+    out.attrs["header"] = [h for h in header if h]
+    return out
 
 
 def _grid_header(row: list[str]) -> int | None:

@@ -142,6 +142,8 @@ class Block:
     saturated: np.ndarray
     temperature: np.ndarray | None = None
     assumptions: list[str] = field(default_factory=list)
+    lines: list[int] | None = None
+    """The file line (or spreadsheet row) of each time point, where each time has one row (wide tables)."""
 
 
 @dataclass
@@ -826,7 +828,7 @@ def _read_wide(grid: TextGrid, h: int, end: int, name: str, source: str, opts: R
     temperature = _temperature(body, [header[j] for j in keep], None if temp_j is None else at[temp_j],
                                grid.decimal, opts, source, lines)
     saturated = over if opts.ceiling is None else over | (signal >= opts.ceiling)
-    return Block(name, time_s, wells, signal, saturated, temperature, notes + tnotes)
+    return Block(name, time_s, wells, signal, saturated, temperature, notes + tnotes, list(lines))
 
 
 def _align_cycles(times: np.ndarray, t_code: np.ndarray, t_row: np.ndarray, well_code: np.ndarray, n_wells: int,

@@ -115,7 +115,7 @@ def test_internal_error_exits_3_with_one_line(monkeypatch, tmp_path: Path, capsy
     def broken(*args, **kwargs):
         raise ZeroDivisionError("division by zero")
 
-    monkeypatch.setattr(vzero.run.runner, "check_recipe", broken)
+    monkeypatch.setattr(vzero.run.runner, "check_inputs", broken)
     assert main(["check", str(tmp_path / "r.yaml")]) == 3
     err = capsys.readouterr().err
     assert "internal error (ZeroDivisionError" in err and "--debug" in err and "Traceback" not in err
