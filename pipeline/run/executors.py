@@ -92,7 +92,7 @@ def _pack(outcome: Any) -> None:
     for record in outcome.records:
         if final is not None and any(v is final for v in record.outputs.values()):
             outcome.part_traces = record.spec.label
-    outcome.part = write_part(outcome.records)
+    outcome.part, outcome.part_digests = write_part(outcome.records)
     for record in outcome.records:
         record.outputs = {}
     outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
@@ -305,7 +305,7 @@ class PlateStore:
         """Keep ``outcome``: write its steps to the audit file (successful plates only) and let go of what the
         pooled steps do not need unless holding."""
         if not outcome.error and outcome.part is not None:  # written by a worker: copy it in
-            subs = self.writer.add_part(outcome.records, outcome.part)
+            subs = self.writer.add_part(outcome.records, outcome.part, outcome.part_digests)
             if outcome.part_traces in subs:
                 self._traces[outcome.plate] = f"{subs[outcome.part_traces]}/traces"
             outcome.part = None
