@@ -11,7 +11,7 @@ from typing import Any
 
 from vzero.audit import _fast
 from vzero.audit.codec import FORMAT_NAME, FORMAT_VERSION, Links, new_group, to_json, write_artifact, write_table
-from vzero.audit.digest import seal
+from vzero.audit.digest import DIGEST_ATTR, Recorder, seal
 from vzero.data import Table
 
 
@@ -50,14 +50,16 @@ def write_part(records: list[Any]) -> tuple[bytes, dict[str, str]]:
     try:
         groups = []
         for record in records:
-            g = new_group(f, record.spec.label)
+            g = Recorder(new_group(f, record.spec.label))
             g.attrs["started"] = record.started
             g.attrs["seconds"] = record.seconds
             for name, value in record.outputs.items():
                 write_artifact(g, name, value, links)
             groups.append((record.spec.label, g))
+        memo: dict[int, bytes] = {}  # objects the steps share are hashed once
         for label, g in groups:
-            digests[label] = seal(g).hex()
+            d = g.digest(memo)
+            g.h5.attrs[DIGEST_ATTR] = digests[label] = d.hex()
         f.flush()
         return bytes(f.id.get_file_image()), digests
     finally:

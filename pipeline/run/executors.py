@@ -64,8 +64,11 @@ def run_plate_task(task: PlateTask) -> Any:
 
     A problem with the recipe or plugins in the worker becomes the plate's error, like a bad input file.
     """
+    import time
+
     from vzero.run.steps import PlateOutcome, process_plate
 
+    cpu = time.process_time()
     try:
         rec, plugins, steps = _worker_setup(task.recipe_text, task.recipe_path)
     except VzeroError as exc:
@@ -79,6 +82,7 @@ def run_plate_task(task: PlateTask) -> Any:
             pickle.loads(pickle.dumps(exc))
         except Exception:  # an exception type that cannot cross processes: keep its message
             outcome.artifacts = {"exception": VzeroError(str(exc))}
+    outcome.cpu_seconds = time.process_time() - cpu
     return outcome
 
 

@@ -72,6 +72,10 @@ class RunResult:
     failed_items: list[str] = field(default_factory=list)
     csv_seconds: float = 0.0
     """Time this process spent formatting and writing the CSV exports (for the benchmarks)."""
+    cpu: dict[str, float] = field(default_factory=dict)
+    """Processor time in seconds (for the benchmarks): ``map`` this process (the driver) while plates ran,
+    ``run`` this process over the whole run, ``plates`` the worker processes on their plates (0 without
+    workers)."""
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -154,6 +158,7 @@ def run(
     out_dir = Path(out)
     _check_output_folder(out_dir, force, rec)
     t_start = time.perf_counter()
+    cpu_start = time.process_time()
     started = utc_now()
     run_id = uuid.uuid4().hex
     warnings: list[str] = []
@@ -189,6 +194,7 @@ def run(
                 progress(Progress(len(store.outcomes), total, outcome.plate, outcome.error,
                                   seconds=time.perf_counter() - t_start))
         outcomes = store.outcomes
+        cpu = {"map": time.process_time() - cpu_start, "plates": sum(o.cpu_seconds for o in outcomes)}
         failed = {o.plate: o.error for o in outcomes if o.error}
         ok = [o for o in outcomes if not o.error]
         for o in outcomes:
@@ -230,8 +236,9 @@ def run(
         writer.finish(final_tables, warnings, failed, derived_from)
         csv_seconds = write_outputs(tmp, final_tables, files, failed, csv_workers)
         _swap_into_place(tmp, out_dir, force)
+        cpu["run"] = time.process_time() - cpu_start
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
-                         audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds)
+                         audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds, cpu=cpu)
     except BaseException:
         if writer is not None:
             writer.close()

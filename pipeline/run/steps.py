@@ -61,6 +61,8 @@ class PlateOutcome:
     part: bytes | None = None
     part_traces: str | None = None
     part_digests: dict[str, str] = field(default_factory=dict)
+    cpu_seconds: float = 0.0
+    """Processor time the worker process spent on this plate (``time.process_time``; for the benchmarks)."""
 
 
 def process_plate(
