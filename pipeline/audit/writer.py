@@ -202,16 +202,17 @@ class AuditWriter:
 
         t0 = time.perf_counter()
         name = record.plate or "pooled"
-        sub = new_group(self._step(record), name)
+        sub = Recorder(new_group(self._step(record), name))  # its digest from the values written
         sub.attrs["started"] = record.started
         sub.attrs["seconds"] = record.seconds
         for key, value in record.outputs.items():
             if key == "traces" and isinstance(value, Mapping):
                 continue  # per-plate traces are already stored by the plate steps
             write_artifact(sub, key, value, self.links)
-        self._digests[record.spec.label][name] = seal(sub)
+        digest = self._digests[record.spec.label][name] = sub.digest()
+        sub.h5.attrs[DIGEST_ATTR] = digest.hex()
         self.seconds += time.perf_counter() - t0
-        return sub
+        return sub.h5
 
     def forget_plate(self) -> None:
         """Drop what links a plate's objects to later writes: call once a plate of a long batch is written.
@@ -255,11 +256,13 @@ class AuditWriter:
         self.f.attrs["failed_items"] = to_json(list(self.failed_items))
         if derived_from:
             self.f.attrs["derived_from"] = to_json(dict(derived_from))
-        results = self.f.create_group("results", track_order=True)
+        results = Recorder(self.f.create_group("results", track_order=True))
         for name, table in tables.items():
             write_table(results, name, table, self.links)
+        results_digest = results.digest()
+        results.h5.attrs[DIGEST_ATTR] = results_digest.hex()
         steps = {label: seal(g, self._digests[label]) for label, g in self._step_groups.items()}
-        top = {"steps": seal(self.steps, steps), "inputs": seal(self.inputs), "results": seal(results)}
+        top = {"steps": seal(self.steps, steps), "inputs": seal(self.inputs), "results": results_digest}
         seal(self.f, top)
         self.f.close()
         self.links = Links()
