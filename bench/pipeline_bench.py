@@ -155,7 +155,7 @@ def measure_batch(n_plates: int, jobs: int, folder: str | None = None) -> dict[s
         result = runner.run(recipe, work / "out", force=True, jobs=jobs)
         total = time.perf_counter() - t0
         return {"total": total, "plates": n_plates, "failed": len(result.failed),
-                "stages": _stage_seconds(result.audit_path)}
+                "stages": _stage_seconds(result.audit_path), "cpu": result.cpu}
     finally:
         shutil.rmtree(work, ignore_errors=True)
 

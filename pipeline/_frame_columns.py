@@ -1,7 +1,7 @@
 """Fast path of :func:`vzero.data.columns`: a DataFrame's columns without a Series per column.
 
 pandas builds a Series for each column that ``DataFrame.items()`` yields; a run hands a few hundred columns
-to its audit file and CSV exports, so that shows in the time of a small run (bench/RESULTS.md). pandas'
+to its audit file and CSV exports, so that shows in the time of a small run (bench/COSTS.md). pandas'
 ``DataFrame._get_column_array(i)`` returns the stored array of column ``i`` directly. It is private pandas
 API: used only when it exists and the column names are unique, and
 tests/pipeline/test_frame_columns.py pins that it gives exactly what the plain path

@@ -106,7 +106,7 @@ def make_manager(
 
 class _Manager(pluggy.PluginManager):
     """pluggy's manager, quicker at registering a module: pluggy looks up every name a plugin module holds
-    (its imports too) through ``inspect``, a cost paid for every run (figures in bench/RESULTS.md). A module's hook
+    (its imports too) through ``inspect``, a cost paid for every run (figures in bench/COSTS.md). A module's hook
     implementations are functions (or bound methods) in its namespace, the only kinds pluggy itself accepts
     there, so other names are passed over here first; the rest still go through pluggy's own check."""
 

@@ -15,7 +15,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from vzero.audit.codec import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces, table_sha256
+from vzero.audit.codec import FORMAT_NAME, FORMAT_VERSION, read_table, read_traces
+from vzero.audit.legacy import table_sha256
 from vzero.data import Table
 from vzero.errors import AuditFileError
 
@@ -86,7 +87,8 @@ def open_audit(path: str | Path) -> Iterator[Any]:
         version = str(f.attrs.get("format_version", "0"))
         if _major(version) > _major(FORMAT_VERSION):
             raise AuditFileError(
-                f"{path}: audit format {version} is newer than this vzero reads ({FORMAT_VERSION})",
+                f"{path}: audit format {version} is newer than this vzero reads (format {FORMAT_VERSION} and "
+                "older)",
                 hint="Install a newer vzero to read it.",
             )
         yield f

@@ -1,8 +1,10 @@
-"""``vzero verify``: recompute every hash stored in an audit file and report tampering or damage.
+"""``vzero verify``: recompute every digest and hash stored in an audit file and report tampering or damage.
 
 Checked: the recipe text against ``recipe_sha256``; each raw input's bytes against its ``sha256`` and
-``size``; each table's content against its ``sha256`` (tables written by format 1.1 and later); and every
-dataset is read once, so damage anywhere in the file shows. Exit 0 when all agree, 2 with what is wrong.
+``size``; from format 2.0 on, the digests (:mod:`vzero.audit.digest`) that cover every dataset and attribute:
+each step's plate groups, each step, /steps, /inputs, /results and the whole file; in 1.x files, each table's
+``sha256`` (1.1 and later). Every dataset is read once, so damage anywhere in the file shows. A file without
+/steps, /inputs or /results is reported. Exit 0 when all agree, 2 with what is wrong.
 
 A matching hash shows the file is unchanged since it was written, not that its numbers are right; anyone able
 to edit the file can also rewrite its hashes (the hashes guard against accidents and casual edits, they are
@@ -46,9 +48,51 @@ def verify(path: str | Path) -> Report:
     with reader.open_audit(path) as f:
         _check_recipe(f, report)
         _check_inputs(f, report)
-        _check_tables(f, report)
-        _read_everything(f, report)
+        if reader._major(str(f.attrs.get("format_version", "0"))) >= 2:
+            _check_digests(f, report)
+        else:
+            _check_tables(f, report)
+            _read_everything(f, report)
     return report
+
+
+def _check_digests(f: Any, report: Report) -> None:
+    """Recompute every digest of a format 2.x file; a missing group or a missing file digest is a problem."""
+    from vzero.audit.digest import DIGEST_ATTR, check
+
+    for group in ("inputs", "steps", "results"):
+        if group not in f and group != "inputs":  # /inputs is reported by _check_inputs
+            report.problems.append(f"group /{group} is missing")
+    if DIGEST_ATTR not in f.attrs:
+        report.problems.append("the file has no digest (root attribute vzero_digest): it was not finished, "
+                               "or the attribute was removed")
+    try:
+        check(f, "/", report.problems, report.checked)
+    except (KeyError, OSError, ValueError, RuntimeError, TypeError) as exc:
+        report.problems.append(f"unreadable content ({type(exc).__name__}: {exc})")
+
+
+def check_intact(path: str | Path, *, check: bool = True, say: Any = None) -> None:
+    """Check the digests of the audit file at ``path`` before a command reads it, and refuse a damaged or
+    changed file with :class:`AuditFileError` listing what does not match.
+
+    With ``check=False`` (the commands' ``--no-verify``) nothing is checked, and ``say`` (a function taking
+    one line of text, such as ``print``) is told so: output made from an unchecked file must say that it is."""
+    if not check:
+        if say is not None:
+            say(f"note: {path} was read without checking its digests (--no-verify); its numbers may have been "
+                "changed or damaged since it was written")
+        return
+    from vzero.errors import AuditFileError
+
+    report = verify(path)
+    if not report.ok:
+        problems = "\n".join(f"  {p}" for p in report.problems)
+        raise AuditFileError(
+            f"{path}: the audit file does not match its digests (damaged or changed since it was written):\n"
+            f"{problems}",
+            hint="Use a backup copy, or pass --no-verify to read it anyway (the output then says so).",
+        )
 
 
 def _check_recipe(f: Any, report: Report) -> None:
@@ -87,7 +131,8 @@ def _check_inputs(f: Any, report: Report) -> None:
 
 
 def _check_tables(f: Any, report: Report) -> None:
-    from vzero.audit.reader import table_sha256
+    """Format 1.x: each table's ``sha256``."""
+    from vzero.audit.legacy import table_sha256
 
     tables: list[tuple[str, Any]] = []
 

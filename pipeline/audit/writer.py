@@ -9,21 +9,9 @@ import functools
 from collections.abc import Mapping
 from typing import Any
 
-import numpy as np
-from vzero.audit.codec import (
-    FORMAT_NAME,
-    FORMAT_VERSION,
-    Links,
-    _dataset,
-    _h5py,
-    _link_name,
-    _new_attr,
-    _new_group,
-    _set_attr,
-    to_json,
-    write_artifact,
-    write_table,
-)
+from vzero.audit import _fast
+from vzero.audit.codec import FORMAT_NAME, FORMAT_VERSION, Links, new_group, to_json, write_artifact, write_table
+from vzero.audit.digest import DIGEST_ATTR, Recorder, seal
 from vzero.data import Table
 
 
@@ -46,27 +34,72 @@ def _package_versions() -> tuple[tuple[str, str], ...]:
     return tuple(out.items())
 
 
-def write_part(records: list[Any]) -> bytes:
+def write_part(records: list[Any]) -> tuple[bytes, dict[str, str]]:
     """One plate's step outputs as an in-memory HDF5 file (``/<step label>/<output>``), written where the
-    plate ran (a worker), for :meth:`AuditWriter.add_part` in the process that writes the audit file.
+    plate ran (a worker), for :meth:`AuditWriter.add_part` in the process that writes the audit file. Returns
+    the file's image and the digest (hex) of each step's group, computed here so that the process writing the
+    audit file neither encodes nor reads back the plate's arrays.
 
     HDF5's in-memory ("core") driver keeps the file in C memory; the image is taken once at the end (a
     Python file object as backing store would cost a Python call per block read or written)."""
     import uuid
 
     links = Links()
+    digests: dict[str, str] = {}
     f = _h5py().File(f"part-{uuid.uuid4().hex}.h5", "w", driver="core", backing_store=False, track_order=True)
     try:
+        groups = []
         for record in records:
-            g = _new_group(f, record.spec.label)
-            _set_attr(g, "started", record.started)
-            _set_attr(g, "seconds", record.seconds)
+            g = Recorder(new_group(f, record.spec.label))
+            g.attrs["started"] = record.started
+            g.attrs["seconds"] = record.seconds
             for name, value in record.outputs.items():
                 write_artifact(g, name, value, links)
+            groups.append((record.spec.label, g))
+        memo: dict[int, bytes] = {}  # objects the steps share are hashed once
+        for label, g in groups:
+            d = g.digest(memo)
+            g.h5.attrs[DIGEST_ATTR] = digests[label] = d.hex()
         f.flush()
-        return bytes(f.id.get_file_image())
+        return bytes(f.id.get_file_image()), digests
     finally:
+        links.clear()
         f.close()
+
+
+def _h5py() -> Any:
+    import h5py
+
+    return h5py
+
+
+def plain_input_dataset(group: Any, name: str, data: bytes, attrs: dict[str, str | int]) -> Any:
+    """A one-dimensional uint8 dataset ``group/name`` holding ``data``, with text or integer attributes."""
+    import numpy as np
+
+    ds = group.create_dataset(name, data=np.frombuffer(data, dtype=np.uint8))
+    for key, value in attrs.items():
+        ds.attrs[key] = value
+    return ds
+
+
+def plain_copy_part(f: Any, part: bytes, places: list[tuple[str, Any, str]]) -> None:
+    """Copy the in-memory HDF5 file ``part`` (one group per step label) into ``f`` and link each step's group
+    as ``step_group/name`` for every (label, step_group, name) of ``places``. The whole part is copied at once
+    (so data shared between its steps stays shared) into a staging group that is removed once its groups are
+    linked into place."""
+    import io
+
+    with _h5py().File(io.BytesIO(part), "r") as src:
+        f.copy(src["/"], "_part")
+    for label, step, name in places:
+        step[name] = f["_part"][label]
+    del f["_part"]
+
+
+#: Whether the writer uses the low-level twins in :mod:`vzero.audit._fast` for its per-plate work (they write
+#: the same objects; tests compare both).
+FAST = True
 
 
 class AuditWriter:
@@ -100,28 +133,28 @@ class AuditWriter:
 
         self.sink = GuardedFile(path)  # a failed write (disk full) becomes an error here, not a crash in HDF5
         self.f = _h5py().File(self.sink, "w", track_order=True)
-        _set_attr(self.f, "format", FORMAT_NAME)
-        _set_attr(self.f, "format_version", FORMAT_VERSION)
-        _set_attr(self.f, "vzero_version", __version__)
-        _set_attr(self.f, "created", dt.datetime.now(dt.UTC).isoformat(timespec="seconds"))
-        _set_attr(self.f, "run_id", run_id)
-        _set_attr(self.f, "recipe_name", str(rec.data.get("name", "")))
-        _set_attr(self.f, "recipe_path", str(getattr(rec, "path", "")))
-        _set_attr(self.f, "recipe_text", rec.text)
-        _set_attr(self.f, "recipe_sha256", hashlib.sha256(rec.text.encode("utf-8")).hexdigest())
-        _set_attr(self.f, "versions", to_json(_versions(plugins)))
-        _set_attr(self.f, "plugins", to_json(
-            {
-                name: {"distribution": s.distribution, "version": s.version, "module": s.module, "path": s.path,
-                       "sha256": s.sha256}
-                for name, s in plugins.sources.items()
-            }
-        ))
+        a = self.f.attrs
+        a["format"] = FORMAT_NAME
+        a["format_version"] = FORMAT_VERSION
+        a["vzero_version"] = __version__
+        a["created"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+        a["run_id"] = run_id
+        a["recipe_name"] = str(rec.data.get("name", ""))
+        a["recipe_path"] = str(getattr(rec, "path", ""))
+        a["recipe_text"] = rec.text
+        a["recipe_sha256"] = hashlib.sha256(rec.text.encode("utf-8")).hexdigest()
+        a["versions"] = to_json(_versions(plugins))
+        a["plugins"] = to_json({
+            name: {"distribution": s.distribution, "version": s.version, "module": s.module, "path": s.path,
+                   "sha256": s.sha256}
+            for name, s in plugins.sources.items()
+        })
         for key in ("assay", "exclusions", "overrides"):
-            _set_attr(self.f, key, to_json(rec.data.get(key) or ({} if key == "assay" else [])))
+            a[key] = to_json(rec.data.get(key) or ({} if key == "assay" else []))
         self.inputs = self.f.create_group("inputs", track_order=True)
         self.steps = self.f.create_group("steps", track_order=True)
         self._step_groups: dict[str, Any] = {}
+        self._digests: dict[str, dict[str, bytes]] = {}  # step label -> plate (or pooled) -> its digest
         self.seconds = time.perf_counter() - t0
 
     def add_input(self, raw: Any, plate: str) -> None:
@@ -131,10 +164,10 @@ class AuditWriter:
         t0 = time.perf_counter()
         self.sink.check()  # stop at the next plate once the disk is full, not at the end of the batch
         if raw.sha256 not in self._inputs:
-            dsid = _dataset(self.inputs.id, f"{len(self._inputs):02d}", np.frombuffer(raw.data, dtype=np.uint8))
-            for key, value in (("name", raw.name), ("key", raw.key), ("sha256", raw.sha256), ("size", len(raw.data))):
-                _new_attr(dsid, key, value)
-            self._inputs[raw.sha256] = _h5py().Dataset(dsid)
+            make = _fast.input_dataset if FAST else plain_input_dataset
+            self._inputs[raw.sha256] = make(
+                self.inputs, f"{len(self._inputs):02d}", raw.data,
+                {"name": raw.name, "key": raw.key, "sha256": raw.sha256, "size": len(raw.data)})
         self.input_plates.setdefault(raw.sha256, []).append(plate)
         names = self._names.setdefault(raw.sha256, [])
         if raw.name not in names:  # the same bytes under another name (a copied layout): keep every name
@@ -146,18 +179,19 @@ class AuditWriter:
         step's total time and warnings are added up here and written once, by :meth:`finish`."""
         spec = record.spec
         if spec.label not in self._step_groups:
-            g = self._step_groups[spec.label] = _new_group(self.steps, spec.label)
+            g = self._step_groups[spec.label] = new_group(self.steps, spec.label)
+            self._digests[spec.label] = {}
             entry = self.plugins.registry.get(spec.kind, spec.method)
-            _set_attr(g, "kind", spec.kind)
-            _set_attr(g, "method", spec.method)
-            _set_attr(g, "parameters", to_json(dict(spec.written)))
-            _set_attr(g, "settings", to_json({k: str(v) if not isinstance(v, bool | int | float | list | dict | None)
-                                              else v for k, v in spec.settings.items()}))
-            _set_attr(g, "plugin", entry.source.plugin)
-            _set_attr(g, "distribution", entry.source.distribution)
-            _set_attr(g, "version", str(getattr(entry.component, "version", entry.source.version)))
-            _set_attr(g, "recipe_line", spec.line)
-            _set_attr(g, "started", record.started)
+            g.attrs["kind"] = spec.kind
+            g.attrs["method"] = spec.method
+            g.attrs["parameters"] = to_json(dict(spec.written))
+            g.attrs["settings"] = to_json({k: str(v) if not isinstance(v, bool | int | float | list | dict | None)
+                                           else v for k, v in spec.settings.items()})
+            g.attrs["plugin"] = entry.source.plugin
+            g.attrs["distribution"] = entry.source.distribution
+            g.attrs["version"] = str(getattr(entry.component, "version", entry.source.version))
+            g.attrs["recipe_line"] = spec.line
+            g.attrs["started"] = record.started
             self._seconds[spec.label] = 0.0
             self._warnings[spec.label] = []
         self._seconds[spec.label] += record.seconds
@@ -166,86 +200,74 @@ class AuditWriter:
         return self._step_groups[spec.label]
 
     def add_record(self, record: Any) -> Any:
-        """Write one step's record (parameters and provenance once per step; outputs per plate or pooled).
-        Returns the group holding the outputs."""
+        """Write one step's record (parameters and provenance once per step; outputs per plate or pooled)
+        and its digest. Returns the group holding the outputs."""
         import time
 
         t0 = time.perf_counter()
-        sub = _new_group(self._step(record), record.plate or "pooled")
-        _set_attr(sub, "started", record.started)
-        _set_attr(sub, "seconds", record.seconds)
-        for name, value in record.outputs.items():
-            if name == "traces" and isinstance(value, Mapping):
+        name = record.plate or "pooled"
+        sub = Recorder(new_group(self._step(record), name))  # its digest from the values written
+        sub.attrs["started"] = record.started
+        sub.attrs["seconds"] = record.seconds
+        for key, value in record.outputs.items():
+            if key == "traces" and isinstance(value, Mapping):
                 continue  # per-plate traces are already stored by the plate steps
-            write_artifact(sub, name, value, self.links)
+            write_artifact(sub, key, value, self.links)
+        digest = self._digests[record.spec.label][name] = sub.digest()
+        sub.h5.attrs[DIGEST_ATTR] = digest.hex()
         self.seconds += time.perf_counter() - t0
-        return sub
+        return sub.h5
 
     def forget_plate(self) -> None:
         """Drop what links a plate's objects to later writes: call once a plate of a long batch is written.
         Its arrays and tables stay referenced otherwise (links are found by object identity), over 1 MB a
-        384-well plate, and every column's dataset stays open; a plate's objects are not written again by a
-        later plate or by the pooled steps (they stack new tables), so nothing is lost but cross-plate
-        sharing of equal columns, which a process pool's parts never had either."""
+        384-well plate, and their datasets stay open; a plate's objects are not written again by a later
+        plate or by the pooled steps (they stack new tables), so nothing is lost."""
         self.links.clear()
 
-    def add_part(self, records: list[Any], part: bytes) -> dict[str, str]:
-        """Add one plate's step records whose outputs a worker already wrote (:func:`write_part`): HDF5's own
-        object copy moves the part in whole, in one copy (so data the steps share stays shared), to a
-        staging group whose step groups are then linked into place. The driver re-encodes no array.
-        Returns label -> the path of the plate's group under that step.
-
-        Low-level calls throughout: this runs once per plate in the process that also feeds the workers,
-        and the high-level File object's close alone (which looks for open objects) cost a millisecond."""
+    def add_part(self, records: list[Any], part: bytes, digests: Mapping[str, str]) -> dict[str, str]:
+        """Add one plate's step records whose outputs a worker already wrote (:func:`write_part`), with the
+        digests the worker computed for each step's group. HDF5's own object copy moves the part in whole (so
+        data the steps share stays shared) and each step's group is linked into place; the driver neither
+        encodes nor reads back any array. Returns label -> the path of the plate's group under that step."""
         import time
 
-        h5py = _h5py()
         t0 = time.perf_counter()
-        out = {}
-        staging = b"_part"
-        src = h5py.h5f.open_file_image(part)
-        try:
-            h5py.h5o.copy(src, b"/", self.f.id, staging)
-        finally:
-            src.close()
+        places = []
         for record in records:
-            step = self._step(record)
             name = record.plate or "pooled"
-            obj = h5py.h5o.open(self.f.id, staging + b"/" + record.spec.label.encode())
-            try:
-                h5py.h5o.link(obj, step.id, *_link_name(name))
-            finally:
-                obj.close()
-            out[record.spec.label] = f"{step.name}/{name}"
-        root = h5py.h5g.open(self.f.id, b"/")
-        try:
-            root.unlink(staging)  # the step groups stay reachable through their new links
-        finally:
-            root.close()
+            places.append((record.spec.label, self._step(record), name))
+            self._digests[record.spec.label][name] = bytes.fromhex(digests[record.spec.label])
+        (_fast.copy_part if FAST else plain_copy_part)(self.f, part, places)
         self.seconds += time.perf_counter() - t0
-        return out
+        return {label: f"{step.name}/{name}" for label, step, name in places}
 
     def finish(self, tables: Mapping[str, Table], warnings: list[str], failed: Mapping[str, str],
                derived_from: Mapping[str, Any] | None) -> None:
-        """Write the final tables (hard-linked where a step already stored them) and the run's closing
-        attributes, and close the file."""
+        """Write the final tables (hard-linked where a step already stored them), the run's closing attributes
+        and the digests of each step, of /steps, /inputs, /results and of the whole file; close the file."""
         import time
 
         t0 = time.perf_counter()
         for sha, ds in self._inputs.items():
-            _set_attr(ds, "plates", to_json(self.input_plates.get(sha, [])))
-            _set_attr(ds, "names", to_json(self._names.get(sha, [])))
+            ds.attrs["plates"] = to_json(self.input_plates.get(sha, []))
+            ds.attrs["names"] = to_json(self._names.get(sha, []))
         for label, g in self._step_groups.items():
-            _set_attr(g, "seconds", self._seconds.get(label, 0.0))
-            _set_attr(g, "warnings", to_json(self._warnings.get(label, [])))
-        _set_attr(self.f, "warnings", to_json(list(warnings)))
-        _set_attr(self.f, "failed_plates", to_json(dict(failed)))
-        _set_attr(self.f, "failed_items", to_json(list(self.failed_items)))
+            g.attrs["seconds"] = self._seconds.get(label, 0.0)
+            g.attrs["warnings"] = to_json(self._warnings.get(label, []))
+        self.f.attrs["warnings"] = to_json(list(warnings))
+        self.f.attrs["failed_plates"] = to_json(dict(failed))
+        self.f.attrs["failed_items"] = to_json(list(self.failed_items))
         if derived_from:
-            _set_attr(self.f, "derived_from", to_json(dict(derived_from)))
-        results = self.f.create_group("results", track_order=True)
+            self.f.attrs["derived_from"] = to_json(dict(derived_from))
+        results = Recorder(self.f.create_group("results", track_order=True))
         for name, table in tables.items():
             write_table(results, name, table, self.links)
+        results_digest = results.digest()
+        results.h5.attrs[DIGEST_ATTR] = results_digest.hex()
+        steps = {label: seal(g, self._digests[label]) for label, g in self._step_groups.items()}
+        top = {"steps": seal(self.steps, steps), "inputs": seal(self.inputs), "results": results_digest}
+        seal(self.f, top)
         self.f.close()
         self.sink.close()
         self.sink.check()

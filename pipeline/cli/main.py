@@ -175,11 +175,15 @@ def _cmd_plugins(args: argparse.Namespace) -> int:
 
 def _cfg_inspect(p: argparse.ArgumentParser) -> None:
     p.add_argument("audit", help="an audit file (run.h5)")
+    p.add_argument("--no-verify", action="store_true",
+                   help="read the audit file without checking its digests first (the output says so)")
 
 
 def _cmd_inspect(args: argparse.Namespace) -> int:
+    from vzero.audit.verify import check_intact
     from vzero.cli.inspect import summary
 
+    check_intact(args.audit, check=not args.no_verify, say=print)
     print(summary(args.audit))
     return 0
 

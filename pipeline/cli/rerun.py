@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 
 from vzero.cli.say import report_result
 from vzero.run.rerun import rerun
@@ -22,10 +23,19 @@ def configure(p: argparse.ArgumentParser) -> None:
                         "Files are checked against the sha256 the old run recorded. Repeat for each plugin.")
     p.add_argument("--allow-changed-plugins", action="store_true",
                    help="run plugin files whose code differs from the old run's (recorded in the new file)")
+    p.add_argument("--no-verify", action="store_true",
+                   help="read the audit file without checking its digests first (the output says so)")
 
 
 def run(args: argparse.Namespace) -> int:
+    from vzero.audit.verify import check_intact
+
+    check_intact(args.old, check=not args.no_verify, say=_warn)
     result = rerun(args.old, args.out, recipe=args.recipe, plugins=args.plugin,
                    allow_changed_plugins=args.allow_changed_plugins, force=args.force)
     report_result(args, result)
     return int(result.exit_code)
+
+
+def _warn(text: str) -> None:
+    print(text, file=sys.stderr)

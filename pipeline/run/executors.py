@@ -64,8 +64,11 @@ def run_plate_task(task: PlateTask) -> Any:
 
     A problem with the recipe or plugins in the worker becomes the plate's error, like a bad input file.
     """
+    import time
+
     from vzero.run.steps import PlateOutcome, process_plate
 
+    cpu = time.process_time()
     try:
         rec, plugins, steps = _worker_setup(task.recipe_text, task.recipe_path)
     except VzeroError as exc:
@@ -79,6 +82,7 @@ def run_plate_task(task: PlateTask) -> Any:
             pickle.loads(pickle.dumps(raised))
         except Exception:  # an exception type that cannot cross processes: keep its message
             outcome.artifacts = {"exception": VzeroError(str(raised))}
+    outcome.cpu_seconds = time.process_time() - cpu
     return outcome
 
 
@@ -92,7 +96,7 @@ def _pack(outcome: Any) -> None:
     for record in outcome.records:
         if final is not None and any(v is final for v in record.outputs.values()):
             outcome.part_traces = record.spec.label
-    outcome.part = write_part(outcome.records)
+    outcome.part, outcome.part_digests = write_part(outcome.records)
     for record in outcome.records:
         record.outputs = {}
     outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
@@ -305,7 +309,7 @@ class PlateStore:
         """Keep ``outcome``: write its steps to the audit file (successful plates only) and let go of what the
         pooled steps do not need unless holding."""
         if not outcome.error and outcome.part is not None:  # written by a worker: copy it in
-            subs = self.writer.add_part(outcome.records, outcome.part)
+            subs = self.writer.add_part(outcome.records, outcome.part, outcome.part_digests)
             if outcome.part_traces in subs:
                 self._traces[outcome.plate] = f"{subs[outcome.part_traces]}/traces"
             outcome.part = None

@@ -98,6 +98,10 @@ class RunResult:
     failed_items: list[str] = field(default_factory=list)
     csv_seconds: float = 0.0
     """Time this process spent formatting and writing the CSV exports (for the benchmarks)."""
+    cpu: dict[str, float] = field(default_factory=dict)
+    """Processor time in seconds (for the benchmarks): ``map`` this process (the driver) while plates ran,
+    ``run`` this process over the whole run, ``plates`` the worker processes on their plates (0 without
+    workers)."""
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -192,6 +196,7 @@ def run(
     out_dir = Path(out)
     _check_output_folder(out_dir, force, rec)
     t_start = time.perf_counter()
+    cpu_start = time.process_time()
     started = utc_now()
     run_id = uuid.uuid4().hex
     warnings: list[str] = []
@@ -229,6 +234,7 @@ def run(
         outcomes = store.outcomes
         outside = dict(getattr(source, "outside", {}))
         warnings.extend(f"read a file outside the recipe's folder: {p} ({n} bytes)" for p, n in outside.items())
+        cpu = {"map": time.process_time() - cpu_start, "plates": sum(o.cpu_seconds for o in outcomes)}
         failed = {o.plate: o.error for o in outcomes if o.error}
         ok = [o for o in outcomes if not o.error]
         for o in outcomes:
@@ -270,8 +276,9 @@ def run(
         writer.finish(final_tables, warnings, failed, derived_from)
         csv_seconds = write_outputs(tmp, final_tables, files, failed, csv_workers)
         _swap_into_place(tmp, out_dir, force)
+        cpu["run"] = time.process_time() - cpu_start
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
-                         audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds)
+                         audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds, cpu=cpu)
     except BaseException as exc:
         if writer is not None:
             writer.close()

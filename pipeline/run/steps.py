@@ -51,7 +51,8 @@ class StepRecord:
 @dataclass
 class PlateOutcome:
     """One plate's result from the plate-scoped steps. A worker process sends the step outputs back already
-    written as an in-memory HDF5 file (``part``; ``part_traces`` names the step whose traces are final)
+    written as an in-memory HDF5 file (``part``, with the digest of each step's group in ``part_digests``;
+    ``part_traces`` names the step whose traces are final)
     and keeps in ``artifacts`` only the tables the pooled steps stack."""
 
     plate: str
@@ -61,6 +62,9 @@ class PlateOutcome:
     error: str | None = None
     part: bytes | None = None
     part_traces: str | None = None
+    part_digests: dict[str, str] = field(default_factory=dict)
+    cpu_seconds: float = 0.0
+    """Processor time the worker process spent on this plate (``time.process_time``; for the benchmarks)."""
 
 
 def process_plate(

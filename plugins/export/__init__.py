@@ -65,9 +65,16 @@ def configure(p: argparse.ArgumentParser) -> None:
     p.add_argument("--format", "-f", required=True, choices=sorted(SUFFIX), help="what to write")
     p.add_argument("--out", "-o", help="file to write (default: beside the audit file)")
     p.add_argument("--table", default="rates", help="for csv: which results table (default rates)")
+    p.add_argument("--no-verify", action="store_true",
+                   help="read the audit file without checking its digests first (the output says so)")
 
 
 def run(args: argparse.Namespace) -> int:
+    import sys
+
+    from vzero.audit.verify import check_intact
+
+    check_intact(args.audit, check=not args.no_verify, say=lambda text: print(text, file=sys.stderr))
     path = export(args.audit, args.format, args.out, table=args.table)
     if not args.quiet:
         print(f"wrote {path}")

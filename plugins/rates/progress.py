@@ -80,7 +80,7 @@ def wright_omega(x: np.ndarray | float) -> np.ndarray:
     """Wright omega function for real ``x``: the solution ``w > 0`` of ``w + ln w = x`` (``W(e^x)``).
 
     The same values as ``scipy.special.wrightomega`` (within a few 1e-15 relative; checked against it and
-    against ``scipy.special.lambertw`` in the tests) for less work on large arrays (bench/RESULTS.md): a start
+    against ``scipy.special.lambertw`` in the tests) for less work on large arrays (bench/COSTS.md): a start
     from Winitzki's approximation of Lambert W (2003, relative error below 2 %) applied to ``ln(1 + e^x)``,
     then three Newton steps ``w <- w (1 + x - ln w) / (1 + w)``, each squaring the relative error
     (2e-2 -> 1e-4 -> 1e-8 -> 1e-16). Every step works in place on whole arrays. Finite ``x`` expected.

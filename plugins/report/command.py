@@ -7,6 +7,7 @@ audit file unchanged; only the presentation is rebuilt. Files are written to a t
 from __future__ import annotations
 
 import argparse
+import sys
 from pathlib import Path
 
 from vzero.errors import OutputExistsError, VzeroError
@@ -21,6 +22,8 @@ def configure(p: argparse.ArgumentParser) -> None:
     p.add_argument("--max-panels", type=int, default=384,
                    help="most wells drawn per progress-curve figure (default 384)")
     p.add_argument("--force", action="store_true", help="replace an existing report.html in --out")
+    p.add_argument("--no-verify", action="store_true",
+                   help="read the audit file without checking its digests first (the output says so)")
 
 
 def write_files(out: Path, files: dict[str, bytes], force: bool) -> None:
@@ -35,6 +38,7 @@ def write_files(out: Path, files: dict[str, bytes], force: bool) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from vzero.audit.verify import check_intact
     from vzero.plugins.report.build import build
     from vzero.plugins.report.sources import from_audit
 
@@ -45,6 +49,7 @@ def run(args: argparse.Namespace) -> int:
     if (out / "report.html").exists() and not args.force:
         raise OutputExistsError(f"{out / 'report.html'} already exists",
                                 hint="Pass --force to replace it, or choose another --out.")
+    check_intact(audit, check=not args.no_verify, say=lambda text: print(text, file=sys.stderr))
     report_input = from_audit(audit, max_panels=args.max_panels)
     files = build(report_input)
     write_files(out, files, args.force)

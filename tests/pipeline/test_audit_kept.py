@@ -1,4 +1,5 @@
-"""The kept audit file (tests/data/audit/linear-v1.1.h5, format 1.1): every later vzero must read it.
+"""The kept audit files (tests/data/audit/linear-v1.1.h5 and linear-v1.2.h5, formats 1.1 and 1.2): every later
+vzero must read, verify and rerun them.
 
 Expected values come from how the invented plate was built (tests/conftest.py ``linear_plate``: straight lines
 with slopes ``linspace(1e-4, 1e-3, 96)`` AU/s plus a drift shared with the row-H blanks), not from vzero.
@@ -11,6 +12,7 @@ import shutil
 from pathlib import Path
 
 import numpy as np
+import pytest
 from numpy.testing import assert_allclose
 from vzero.audit import reader
 from vzero.audit.verify import verify
@@ -18,17 +20,20 @@ from vzero.run.rerun import rerun
 
 from tests.conftest import DATA
 
-KEPT = DATA / "audit" / "linear-v1.1.h5"
+KEPT_FILES = {"1.1": DATA / "audit" / "linear-v1.1.h5", "1.2": DATA / "audit" / "linear-v1.2.h5"}
+kept = pytest.mark.parametrize("version", sorted(KEPT_FILES))
 SLOPES = np.linspace(1e-4, 1e-3, 96)
 
 
-def test_kept_file_reads_with_known_rates():
+@kept
+def test_kept_file_reads_with_known_rates(version: str):
+    KEPT = KEPT_FILES[version]
     with reader.open_audit(KEPT) as f:
         head = reader.header(f)
         inputs = reader.read_inputs(f)
         rates = reader.read_results(f)["rates"]
         traces = reader.read_step_traces(f)["p1"]
-    assert head["format"] == "vzero-audit" and head["format_version"] == "1.1"
+    assert head["format"] == "vzero-audit" and head["format_version"] == version
     assert head["assay"]["pH"] == 7.5 and head["assay"]["temperature"] == "25 degC"
     assert [e["well"] for e in head["exclusions"]] == ["B7", "C3"]
     assert [i.name for i in inputs] == ["plate.csv", "layout.csv"]
@@ -46,13 +51,17 @@ def test_kept_file_reads_with_known_rates():
     assert_allclose(masked, [30.0, 45.0, 60.0])  # reads every 15 s; the excluded range is 30-60 s inclusive
 
 
-def test_kept_file_verifies():
+@kept
+def test_kept_file_verifies(version: str):
+    KEPT = KEPT_FILES[version]
     report = verify(KEPT)
     assert report.ok, report.text()
     assert len(report.checked) >= 4  # recipe, 2 inputs, results tables
 
 
-def test_kept_file_reruns_without_original_files(tmp_path: Path):
+@kept
+def test_kept_file_reruns_without_original_files(version: str, tmp_path: Path):
+    KEPT = KEPT_FILES[version]
     old = tmp_path / "old.h5"
     shutil.copy(KEPT, old)
     result = rerun(old, tmp_path / "again")

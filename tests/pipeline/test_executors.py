@@ -47,6 +47,33 @@ def test_dask_local_cluster_of_two_processes_matches_serial(tmp_path: Path):
     finally:
         executor.close()
     _same_run(serial, on_dask)
+    _same_csv_bytes(serial.out_dir, on_dask.out_dir)
+
+
+def _same_csv_bytes(a: Path, b: Path) -> None:
+    """Every CSV file of two runs, byte for byte."""
+    names = sorted(p.name for p in a.glob("*.csv"))
+    assert names == sorted(p.name for p in b.glob("*.csv")) and "rates.csv" in names and "fits.csv" in names
+    for name in names:
+        assert (a / name).read_bytes() == (b / name).read_bytes(), name
+
+
+@pytest.mark.slow
+def test_dask_run_of_two_worker_processes_writes_the_serial_csv_bytes(tmp_path: Path):
+    """``--scheduler local --jobs 2`` from the command line: a LocalCluster of two worker processes, whose
+    workers write their plates' parts of the audit file; the CSV files are the serial run's, byte for byte,
+    and the single run.h5 verifies."""
+    pytest.importorskip("distributed")
+    from vzero.audit.verify import verify
+    from vzero.cli.main import main
+
+    recipe = demo_batch(tmp_path / "in", 5)
+    assert main(["run", str(recipe), "--out", str(tmp_path / "serial"), "-q"]) == 0
+    assert main(["run", str(recipe), "--out", str(tmp_path / "dask"), "--scheduler", "local", "--jobs", "2",
+                 "-q"]) == 0
+    _same_csv_bytes(tmp_path / "serial", tmp_path / "dask")
+    assert verify(tmp_path / "dask" / "run.h5").ok
+    assert [p.name for p in (tmp_path / "dask").iterdir() if p.suffix == ".h5"] == ["run.h5"]
 
 
 class CountingExecutor:

@@ -1,0 +1,216 @@
+"""Digests that cover every value in an audit file (format 2.0 on): every dataset and every attribute.
+
+A digest is SHA-256 over an object's content in a fixed order:
+
+* a dataset: ``D``, then its value (below), then its attributes;
+* a group: ``G``, then each member in name order (its name, then its digest), then its attributes;
+* attributes: in name order, each its name and its value, leaving out the attribute ``vzero_digest`` itself
+  (where stored digests live).
+
+A value is its type tag and shape, then its bytes: numbers little-endian (bool as one byte), each text
+value as its UTF-8 length (8 bytes, little-endian) and bytes, a compound type field by field (the field's
+name, then the field's values as above). Names are hashed as UTF-8 with their length.
+
+The writer stores the digest of each step's plate (or pooled) group, of each step, of ``/steps``,
+``/inputs`` and ``/results``, and of the whole file (the root) in the attribute ``vzero_digest`` (hex);
+``vzero verify`` recomputes them all from what is stored. A matching digest shows the file is unchanged
+since it was written; it is not a signature (whoever can edit the file can rewrite the digests too).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+DIGEST_ATTR = "vzero_digest"
+
+
+def _name(h: Any, name: str) -> None:
+    b = name.encode("utf-8")
+    h.update(len(b).to_bytes(8, "little") + b)
+
+
+def _texts(h: Any, values: Any) -> None:
+    """Each text as its 8-byte length and UTF-8 bytes. Text columns repeat a few values over many rows, so
+    each distinct value is encoded once and rows only pick among them."""
+    arr = np.asarray(values, dtype=object).ravel() if not isinstance(values, np.ndarray) else values.ravel()
+    if arr.size == 0:
+        return
+    codes, distinct = pd.factorize(arr, use_na_sentinel=False)
+    encoded = [v if isinstance(v, bytes) else str(v).encode("utf-8") for v in distinct.tolist()]
+    prefixed = np.array([len(b).to_bytes(8, "little") + b for b in encoded], dtype=object)
+    h.update(b"".join(prefixed[codes].tolist()))
+
+
+def value_bytes(h: Any, value: Any) -> None:
+    """Feed one stored value (a dataset's or attribute's, as h5py reads it) into the hash ``h``."""
+    if isinstance(value, str | bytes):
+        b = value if isinstance(value, bytes) else value.encode("utf-8")
+        h.update(b"s" + len(b).to_bytes(8, "little") + b)
+        return
+    arr = np.asarray(value)
+    h.update(f"|{arr.shape}|".encode())
+    if arr.dtype.names:
+        h.update(b"c")
+        for field in arr.dtype.names:
+            _name(h, field)
+            value_bytes(h, arr[field])
+    elif arr.dtype.kind in "OSU":
+        h.update(b"t")
+        _texts(h, arr.ravel().tolist())
+    else:
+        little = arr.dtype.newbyteorder("<")
+        h.update(little.str.encode())
+        h.update(np.ascontiguousarray(arr, dtype=little).tobytes())
+
+
+def object_digest(obj: Any, known: Mapping[str, bytes] | None = None, memo: dict[Any, bytes] | None = None) -> bytes:
+    """The digest of an HDF5 group or dataset (see the module docstring). ``known`` gives, by member name,
+    digests of members already computed (by the process that wrote them), so that a parent's digest does not
+    read its members again; ``memo`` remembers digests by HDF5 object, so that an object reached under two
+    names (a hard link: steps share the time axis and the well table) is read once."""
+    import h5py
+
+    if memo is not None and obj.id in memo:
+        return memo[obj.id]
+    h = hashlib.sha256()
+    if isinstance(obj, h5py.Dataset):
+        h.update(b"D")
+        value_bytes(h, obj[()])
+    else:
+        h.update(b"G")
+        for name in sorted(obj):
+            _name(h, name)
+            h.update(known[name] if known is not None and name in known else object_digest(obj[name], memo=memo))
+    attrs_bytes(h, obj)
+    d = h.digest()
+    if memo is not None:
+        memo[obj.id] = d
+    return d
+
+
+def attrs_bytes(h: Any, obj: Any) -> None:
+    """Feed every attribute of ``obj`` but the stored digest into ``h``, in name order."""
+    attrs = obj.attrs
+    for name in sorted(attrs):
+        if name == DIGEST_ATTR:
+            continue
+        _name(h, name)
+        value_bytes(h, attrs[name])
+
+
+def seal(obj: Any, known: Mapping[str, bytes] | None = None, memo: dict[Any, bytes] | None = None) -> bytes:
+    """Compute ``obj``'s digest, store it (hex) as its ``vzero_digest`` attribute and return it. (Sealing
+    adds an attribute, so ``memo`` must not hold ``obj`` itself or a group above it.)"""
+    d = object_digest(obj, known, memo)
+    obj.attrs[DIGEST_ATTR] = d.hex()
+    return d
+
+
+def check(obj: Any, path: str, problems: list[str], checked: list[str], memo: dict[Any, bytes] | None = None) -> bytes:
+    """Recompute the digest of ``obj`` and of every member, comparing each with the digest stored there.
+
+    A mismatch is reported for the deepest stored digest that disagrees (a parent whose members all agree but
+    which itself disagrees has a changed attribute or a member added or removed). Returns the recomputed
+    digest."""
+    import h5py
+
+    memo = {} if memo is None else memo
+    if isinstance(obj, h5py.Dataset):
+        d = object_digest(obj, memo=memo)
+    else:
+        known = {}
+        n_before = len(problems)
+        for name in sorted(obj):
+            known[name] = check(obj[name], f"{path.rstrip('/')}/{name}", problems, checked, memo)
+        d = object_digest(obj, known)
+        if len(problems) > n_before:
+            return d  # the damage is already reported deeper down
+    stored = obj.attrs.get(DIGEST_ATTR)
+    if stored is not None:
+        if str(stored) != d.hex():
+            problems.append(f"{path}: content does not match its recorded digest (a value was changed or damaged)")
+        else:
+            checked.append(path)
+    return d
+
+
+class _Attrs:
+    """The ``attrs`` of a :class:`Recorder` object: sets the attribute in the file and remembers the value as
+    it reads back (a Python int as int64, a float as float64, a bool as numpy bool, text as text)."""
+
+    def __init__(self, node: Recorder) -> None:
+        self._node = node
+
+    def __setitem__(self, name: str, value: Any) -> None:
+        self._node.h5.attrs[name] = value
+        self._node.recorded[name] = value if isinstance(value, str | bytes | np.ndarray) else np.asarray(value)
+
+    def __getitem__(self, name: str) -> Any:
+        return self._node.h5.attrs[name]
+
+    def __contains__(self, name: object) -> bool:
+        return name in self._node.recorded
+
+
+class Recorder:
+    """A group or dataset being written that remembers what is written into it, so that its digest is computed
+    from the values in memory instead of reading the file back (a worker writes a plate's part this way).
+
+    It offers what :mod:`vzero.audit.codec` calls on a group (``create_group``, ``create_dataset``, ``attrs``,
+    linking an object already written under a new name) and gives the digest :func:`object_digest` computes
+    from the file; tests/pipeline/test_batch.py checks that the two agree for every digest a run stores."""
+
+    def __init__(self, h5: Any, value: Any = None) -> None:
+        self.h5 = h5
+        self.value = value  # a dataset's value as it reads back; None for a group
+        self.members: dict[str, Recorder] = {}
+        self.recorded: dict[str, Any] = {}
+        self.attrs = _Attrs(self)
+
+    def __getattr__(self, name: str) -> Any:  # anything else (name, id, ...) is the HDF5 object's
+        return getattr(self.h5, name)
+
+    def create_group(self, name: str, **kwargs: Any) -> Recorder:
+        node = self.members[name] = Recorder(self.h5.create_group(name, **kwargs))
+        return node
+
+    def create_dataset(self, name: str, data: Any, **kwargs: Any) -> Recorder:
+        arr = np.asarray(data)
+        node = Recorder(self.h5.create_dataset(name, data=data, **kwargs), arr.astype(object)
+                        if arr.dtype.kind in "OU" else arr)
+        self.members[name] = node
+        return node
+
+    def __getitem__(self, name: str) -> Recorder:
+        return self.members[name]
+
+    def __setitem__(self, name: str, node: Recorder) -> None:
+        """Link ``node`` (already written) under ``name`` too: an HDF5 hard link."""
+        self.h5[name] = node.h5
+        self.members[name] = node
+
+    def digest(self, memo: dict[int, bytes] | None = None) -> bytes:
+        """What :func:`object_digest` gives for this object once written."""
+        memo = {} if memo is None else memo
+        if id(self) in memo:
+            return memo[id(self)]
+        h = hashlib.sha256()
+        if self.value is not None:
+            h.update(b"D")
+            value_bytes(h, self.value)
+        else:
+            h.update(b"G")
+            for name in sorted(self.members):
+                _name(h, name)
+                h.update(self.members[name].digest(memo))
+        for name in sorted(self.recorded):
+            if name != DIGEST_ATTR:
+                _name(h, name)
+                value_bytes(h, self.recorded[name])
+        memo[id(self)] = d = h.digest()
+        return d
