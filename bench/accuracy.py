@@ -1,0 +1,209 @@
+"""Accuracy benchmark: every rate method and the reference analysis on realistic simulated plates.
+
+Run on demand (not a test): ``python -m bench.accuracy [--quick] [--draws N] [--write docs/rates.md]``.
+Plates come from :mod:`bench.plates` (ODE-integrated, with drift, blanks with their own background rate,
+noise, rounding, a ceiling, spikes); the reference is :mod:`bench.reference`. The methods get what the
+pipeline would give them: reads minus the per-read mean of the blanks of the same condition (the blank
+stage with ``match: substrate``; a read whose blanks are all saturated becomes missing), the substrate per
+well and the signal per concentration.
+
+Printed per scenario: median and 95th percentile of |v0/true - 1| by substrate level (a well without a
+rate counts as an infinite error, so a p95 of "-" means more than 5 % of wells got none), the ratio of
+each method's root-mean-square relative error to the reference's, and the parameters fitted from each
+draw's rates (scipy ``curve_fit``, unweighted, wells the default exclusions remove left out): median bias,
+robust spread (1.4826 x MAD) and the share of draws within 5 % of the truth. ``--write`` replaces the
+section between the markers ``<!-- accuracy:start -->`` and ``<!-- accuracy:end -->`` of the file.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import time  # noqa: E402
+import warnings  # noqa: E402
+from collections.abc import Callable  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+from scipy.optimize import OptimizeWarning, curve_fit  # noqa: E402
+from vzero.plugins.flags import Flag  # noqa: E402
+
+from bench.plates import Scenario, draw, integrate, law_rate, scenarios  # noqa: E402
+from bench.reference import reference_rates  # noqa: E402
+
+#: Flags the fit step leaves out by default (plugins/exclusions.py, docs/rates.md "Flags").
+DEFAULT_EXCLUDE = int(Flag.SATURATED | Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS
+                      | Flag.FIT_FAILED | Flag.EXCLUDED)
+
+Method = Callable[[np.ndarray, np.ndarray, np.ndarray, float], tuple[np.ndarray, np.ndarray]]
+
+
+def _kernel(name: str, **kw: object) -> Method:
+    def run(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float) -> tuple[np.ndarray, np.ndarray]:
+        import importlib
+
+        module, func = name.split(":")
+        res = getattr(importlib.import_module(module), func)(t, y, s0=s0, signal_per_conc=spc, **kw)
+        return res.v0, res.flags
+
+    return run
+
+
+METHODS: dict[str, Method] = {
+    "auto": _kernel("vzero.plugins.rates.auto:auto"),
+    "progress": _kernel("vzero.plugins.rates.progress:progress_curve"),
+    "progress-power": _kernel("vzero.plugins.rates.progress:progress_curve", model="power"),
+    "lag-decay": _kernel("vzero.plugins.rates.lagdecay:lag_decay"),
+}
+
+
+def blank_corrected(sample: np.ndarray, blank: np.ndarray) -> np.ndarray:
+    """Reads minus the per-read mean of the condition's blanks (NaN where every blank read is missing)."""
+    count = np.isfinite(blank).sum(axis=2)
+    mean = np.where(count > 0, np.nansum(blank, axis=2) / np.maximum(count, 1), np.nan)
+    return sample - mean
+
+
+def fit_params(sc: Scenario, v: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """Parameters (``sc.fit_names``) fitted to one draw's rates in mM/s; NaN when the fit fails."""
+    names = sc.fit_names
+    ok = keep & np.isfinite(v)
+    truth = np.array([sc.params[k] for k in names])
+    if ok.sum() <= len(names):
+        return np.full(len(names), np.nan)
+    s, i = sc.s0[ok], sc.inh[ok]
+
+    def model(x: np.ndarray, *q: float) -> np.ndarray:  # parameters as log(value / truth): well scaled
+        p = truth * np.exp(np.asarray(q))
+        return law_rate(sc.law, {**sc.params, **dict(zip(names, p, strict=True))}, s, i) / scale
+
+    scale = float(np.nanmax(np.abs(v[ok])))
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            q, _ = curve_fit(model, s, v[ok] / scale, p0=np.full(truth.size, 0.2), maxfev=4000)
+        return truth * np.exp(q)
+    except (RuntimeError, ValueError, OptimizeWarning):
+        return np.full(len(names), np.nan)
+
+
+def evaluate(sc: Scenario, n_draws: int, methods: dict[str, Method], seed: int = 1) -> dict:
+    """Rates and fitted parameters of every method (and the reference) on ``n_draws`` plates of ``sc``."""
+    truth = integrate(sc)
+    d = draw(sc, truth, n_draws, seed=seed)
+    t = sc.time
+    n_c = sc.s0.size
+    y = blank_corrected(d.sample, d.blank).reshape(n_draws * n_c, t.size)
+    s0 = np.tile(sc.s0, n_draws)
+    saturated = (~np.isfinite(d.sample)).any(axis=2).reshape(-1)
+    out: dict[str, dict] = {}
+    ref = np.stack([reference_rates(t, d.sample[k], d.blank[k], sc.s0, sc.inh, sc.spc) for k in range(n_draws)])
+    out["reference"] = {"v0": ref, "keep": np.isfinite(ref), "seconds": np.nan}
+    for name, fn in methods.items():
+        t0 = time.perf_counter()
+        v0, flags = fn(t, y, s0, sc.spc)
+        sec = time.perf_counter() - t0
+        flags = flags | np.where(saturated, int(Flag.SATURATED), 0)
+        keep = (flags & DEFAULT_EXCLUDE) == 0
+        out[name] = {"v0": v0.reshape(n_draws, n_c), "keep": keep.reshape(n_draws, n_c), "seconds": sec,
+                     "flags": flags.reshape(n_draws, n_c)}
+    for r in out.values():
+        r["err"] = r["v0"] / truth.v0[None, :] - 1.0
+        r["params"] = np.stack([fit_params(sc, r["v0"][k] / sc.spc, r["keep"][k]) for k in range(n_draws)])
+    return {"scenario": sc, "truth": truth, "results": out}
+
+
+def _pct(x: float) -> str:
+    if not np.isfinite(x):
+        return "-"
+    return f"{100 * x:.1f}" if abs(x) < 9.995 else f"{100 * x:.0f}"
+
+
+def level_label(sc: Scenario, i: int) -> str:
+    s = f"{sc.s0[i]:g}"
+    return s if sc.inhibitor is None else f"{s} / I {sc.inh[i]:g}"
+
+
+def tables(ev: dict) -> str:
+    """Markdown tables for one evaluated scenario."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # empty columns (a condition no method rated)
+        return _tables(ev)
+
+
+def _tables(ev: dict) -> str:
+    sc, res = ev["scenario"], ev["results"]
+    names = list(res)
+    ref_err = res["reference"]["err"]
+    lines = [f"#### {sc.name}: {sc.text}", "",
+             "v0 |error| % by condition (median / 95th percentile; RMSE ratio to the reference in brackets):", "",
+             "| S0 (mM) | " + " | ".join(names) + " |", "| --- |" + " --- |" * len(names)]
+    for i in range(sc.s0.size):
+        cells = []
+        ref_rmse = np.sqrt(np.nanmean(ref_err[:, i] ** 2))
+        for n in names:
+            e = np.abs(res[n]["err"][:, i])
+            e = np.where(np.isfinite(e), e, np.inf)
+            med, p95 = np.percentile(e, 50), np.percentile(e, 95)
+            rmse = np.sqrt(np.nanmean(res[n]["err"][:, i] ** 2))
+            ratio = "" if n == "reference" else f" ({rmse / ref_rmse:.2f})"
+            cells.append(f"{_pct(med)} / {_pct(p95)}{ratio}")
+        lines.append(f"| {level_label(sc, i)} | " + " | ".join(cells) + " |")
+    lines += ["", "Parameters fitted from the rates (bias % ± spread %, share of draws within 5 %):", "",
+              "| method | " + " | ".join(sc.fit_names) + " |", "| --- |" + " --- |" * len(sc.fit_names)]
+    truth = np.array([sc.params[k] for k in sc.fit_names])
+    for n in names:
+        rel = res[n]["params"] / truth - 1.0
+        cells = []
+        for j in range(truth.size):
+            r = rel[:, j]
+            fin = r[np.isfinite(r)]
+            if fin.size == 0:
+                cells.append("no fit")
+                continue
+            med = np.median(fin)
+            spread = 1.4826 * np.median(np.abs(fin - med))
+            within = np.mean(np.abs(np.where(np.isfinite(r), r, np.inf)) <= 0.05)
+            cells.append(f"{100 * med:+.1f} ± {100 * spread:.1f}, {100 * within:.0f} %")
+        lines.append(f"| {n} | " + " | ".join(cells) + " |")
+    return "\n".join(lines) + "\n"
+
+
+def write_section(path: Path, text: str) -> None:
+    """Replace the marked accuracy section of ``path`` with ``text``."""
+    start, end = "<!-- accuracy:start -->", "<!-- accuracy:end -->"
+    doc = path.read_text()
+    if start not in doc or end not in doc:
+        raise SystemExit(f"{path}: no {start} ... {end} markers to replace")
+    head, rest = doc.split(start, 1)
+    _, tail = rest.split(end, 1)
+    path.write_text(f"{head}{start}\n{text}{end}{tail}")
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="30 draws per scenario instead of 200")
+    ap.add_argument("--draws", type=int, default=None, help="noise draws per scenario")
+    ap.add_argument("--only", default=None, help="comma-separated scenario names")
+    ap.add_argument("--write", type=Path, default=None, help="markdown file whose accuracy section to replace")
+    args = ap.parse_args(argv)
+    n = args.draws or (30 if args.quick else 200)
+    chosen = [s for s in scenarios() if args.only is None or s.name in args.only.split(",")]
+    parts = [f"{n} noise draws per scenario (`python -m bench.accuracy --draws {n}`).\n"]
+    for sc in chosen:
+        t0 = time.perf_counter()
+        text = tables(evaluate(sc, n, METHODS))
+        print(text, flush=True)
+        print(f"({sc.name}: {time.perf_counter() - t0:.1f} s)\n", flush=True)
+        parts.append(text)
+    if args.write:
+        write_section(args.write, "\n".join(parts))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
