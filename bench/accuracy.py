@@ -54,6 +54,7 @@ def _kernel(name: str, **kw: object) -> Method:
 
 
 METHODS: dict[str, Method] = {
+    "model-choice": _kernel("vzero.plugins.rates.choice:model_choice"),
     "auto": _kernel("vzero.plugins.rates.auto:auto"),
     "progress": _kernel("vzero.plugins.rates.progress:progress_curve"),
     "progress-power": _kernel("vzero.plugins.rates.progress:progress_curve", model="power"),

@@ -29,6 +29,7 @@ class Flag(enum.IntFlag):
     FIT_FAILED = 1 << 9  # a nonlinear per-well fit did not converge or the model does not describe the curve
     EXCLUDED = 1 << 10  # excluded by the recipe (with a reason recorded)
     OVERRIDDEN = 1 << 11  # window fixed by the recipe (with a reason recorded)
+    SPIKE = 1 << 12  # a single-read outlier found by a robust test; that read is masked, the rest is used
 
 
 FLAG_NAMES: dict[str, Flag] = {f.name.lower(): f for f in Flag if f.name and f is not Flag.NONE}

@@ -14,7 +14,7 @@ from vzero.stage import Stage, StageInput, StageOutput
 DEFAULT_EXCLUDE = ["saturated", "all_missing", "no_signal", "too_few_points", "fit_failed", "excluded"]
 FLAG_CHOICES = (
     "saturated", "high_conversion", "curvature", "lag", "decay", "noisy", "too_few_points", "all_missing",
-    "no_signal", "fit_failed", "excluded", "overridden",
+    "no_signal", "fit_failed", "excluded", "overridden", "spike",
 )
 
 

@@ -125,6 +125,29 @@ class AutoRates(KernelRates):
     }
 
 
+class ModelChoiceRates(KernelRates):
+    """Per well, the rate model the well's own reads support: the integrated Michaelis–Menten or power-law
+    curve when it describes the reads within the noise (and, for the power law, agrees at t = 0 with a
+    model-free quadratic), else the slope at t = 0 of a quadratic through the reads up to 20 % conversion;
+    wells with a lag get the lag/decay model. Single-read spikes are masked first (docs/rates.md)."""
+
+    kind, method, version = "rates", "model-choice", "1.0"
+    summary = "per well: whole-curve model if it fits within the noise, else early quadratic; spikes masked"
+    kernel = "vzero.plugins.rates.choice:model_choice"
+    kernel_params = ("min_points", "lof_ratio", "agree_z", "window_conversion", "find_lag")
+    params = {
+        **CONVERSION_PARAMS,
+        "min_points": Param("int", 8, "reads needed for any estimate", low=4),
+        "lof_ratio": Param("float", 1.4, "residual RMS over read noise up to which a whole-curve model is "
+                           "taken to describe the well", low=1.0),
+        "agree_z": Param("float", 2.0, "standard errors within which a power-law curve's v0 must agree with "
+                         "the early quadratic's", low=0.5),
+        "window_conversion": Param("float", 0.20, "fraction of substrate converted up to which the fallback "
+                                   "quadratic is fitted", low=0.01, high=1.0),
+        "find_lag": Param("bool", True, "use the lag/decay model on wells with a detected lag"),
+    }
+
+
 class PolynomialRates(KernelRates):
     """A low-order polynomial over the early curve; v0 is its derivative at the window start."""
 
@@ -213,5 +236,5 @@ class WindowRates(Stage):
 
 @hookimpl
 def vzero_register(registry: Any) -> None:
-    for stage in (WindowRates, AutoRates, PolynomialRates, ProgressRates, LagDecayRates):
+    for stage in (WindowRates, AutoRates, ModelChoiceRates, PolynomialRates, ProgressRates, LagDecayRates):
         registry.add(stage)

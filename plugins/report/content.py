@@ -29,6 +29,7 @@ FLAG_TEXT: dict[str, str] = {
     "fit_failed": "the per-well curve fit did not converge or does not describe the curve",
     "excluded": "excluded in the recipe",
     "overridden": "window fixed by hand in the recipe",
+    "spike": "a single-read outlier, masked",
 }
 """Each quality flag in words, as the report prints it."""
 

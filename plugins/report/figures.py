@@ -36,7 +36,7 @@ per read makes a big, slow SVG and shows nothing more)."""
 FLAG_SHORT = {
     "saturated": "sat", "high_conversion": "conv", "curvature": "curv", "lag": "lag", "decay": "decay",
     "noisy": "noisy", "too_few_points": "few", "all_missing": "empty", "no_signal": "no sig",
-    "fit_failed": "fit", "excluded": "excl", "overridden": "fixed",
+    "fit_failed": "fit", "excluded": "excl", "overridden": "fixed", "spike": "spike",
 }
 
 
