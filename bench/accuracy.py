@@ -4,7 +4,7 @@ Run on demand (not a test): ``python -m bench.accuracy [--quick] [--draws N] [--
 Plates come from :mod:`bench.plates` (ODE-integrated, with drift, blanks with their own background rate,
 noise, rounding, a ceiling, spikes); the reference is :mod:`bench.reference`. The methods get what the
 pipeline would give them: reads minus the per-read mean of the blanks of the same condition (the blank
-stage with ``match: substrate``; a read whose blanks are all saturated becomes missing), the substrate per
+stage with ``match: substrate+inhibitor`` and its fallback for saturated blanks), the substrate per
 well and the signal per concentration.
 
 Printed per scenario: median and 95th percentile of |v0/true - 1| by substrate level (a well without a
@@ -29,15 +29,17 @@ from collections.abc import Callable  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
 from scipy.optimize import OptimizeWarning, curve_fit  # noqa: E402
-from vzero.plugins.flags import Flag  # noqa: E402
+from vzero.plugins.blank.matching import plan_blanks  # noqa: E402
+from vzero.plugins.fit.stage import DEFAULT_EXCLUDE as FIT_DEFAULT_EXCLUDE  # noqa: E402
+from vzero.plugins.flags import Flag, from_names  # noqa: E402
 
 from bench.plates import Scenario, draw, integrate, law_rate, scenarios  # noqa: E402
 from bench.reference import reference_rates  # noqa: E402
 
-#: Flags the fit step leaves out by default (plugins/exclusions.py, docs/rates.md "Flags").
-DEFAULT_EXCLUDE = int(Flag.SATURATED | Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS
-                      | Flag.FIT_FAILED | Flag.EXCLUDED)
+#: Flags the fit step leaves out by default (the fit stage's ``exclude_flags``).
+DEFAULT_EXCLUDE = from_names(";".join(FIT_DEFAULT_EXCLUDE))
 
 Method = Callable[[np.ndarray, np.ndarray, np.ndarray, float], tuple[np.ndarray, np.ndarray]]
 
@@ -62,11 +64,25 @@ METHODS: dict[str, Method] = {
 }
 
 
-def blank_corrected(sample: np.ndarray, blank: np.ndarray) -> np.ndarray:
-    """Reads minus the per-read mean of the condition's blanks (NaN where every blank read is missing)."""
-    count = np.isfinite(blank).sum(axis=2)
-    mean = np.where(count > 0, np.nansum(blank, axis=2) / np.maximum(count, 1), np.nan)
-    return sample - mean
+def blank_corrected(sc: Scenario, sample: np.ndarray, blank: np.ndarray) -> np.ndarray:
+    """Reads minus the per-read mean of the blanks the blank stage would use (``match: substrate+inhibitor``,
+    with its fallback for blanks without usable reads: :func:`vzero.plugins.blank.matching.plan_blanks`); NaN
+    where every blank read used is missing."""
+    n_d, n_c, n_b, n_t = blank.shape
+    wells = pd.DataFrame({"substrate": np.concatenate([sc.s0, np.repeat(sc.s0, n_b)]),
+                          "inhibitor": np.concatenate([sc.inh, np.repeat(sc.inh, n_b)])})
+    is_blank = np.arange(n_c * (1 + n_b)) >= n_c
+    out = np.empty_like(sample)
+    for k in range(n_d):
+        b = blank[k].reshape(n_c * n_b, n_t)
+        usable = np.concatenate([np.full(n_c, n_t), np.isfinite(b).sum(axis=1)])
+        plan = plan_blanks(wells, is_blank, usable, "substrate+inhibitor")
+        for i in range(n_c):
+            rows = b[plan.used[i] - n_c]
+            count = np.isfinite(rows).sum(axis=0)
+            mean = np.where(count > 0, np.nansum(rows, axis=0) / np.maximum(count, 1), np.nan)
+            out[k, i] = sample[k, i] - mean
+    return out
 
 
 def fit_params(sc: Scenario, v: np.ndarray, keep: np.ndarray) -> np.ndarray:
@@ -98,7 +114,7 @@ def evaluate(sc: Scenario, n_draws: int, methods: dict[str, Method], seed: int =
     d = draw(sc, truth, n_draws, seed=seed)
     t = sc.time
     n_c = sc.s0.size
-    y = blank_corrected(d.sample, d.blank).reshape(n_draws * n_c, t.size)
+    y = blank_corrected(sc, d.sample, d.blank).reshape(n_draws * n_c, t.size)
     s0 = np.tile(sc.s0, n_draws)
     saturated = (~np.isfinite(d.sample)).any(axis=2).reshape(-1)
     out: dict[str, dict] = {}

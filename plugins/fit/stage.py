@@ -11,7 +11,7 @@ from typing import Any, ClassVar
 from vzero.params import Param
 from vzero.stage import Stage, StageInput, StageOutput
 
-DEFAULT_EXCLUDE = ["saturated", "all_missing", "no_signal", "too_few_points", "fit_failed", "excluded"]
+DEFAULT_EXCLUDE = ["all_missing", "no_signal", "too_few_points", "fit_failed", "excluded"]
 FLAG_CHOICES = (
     "saturated", "high_conversion", "curvature", "lag", "decay", "noisy", "too_few_points", "all_missing",
     "no_signal", "fit_failed", "excluded", "overridden", "spike",
