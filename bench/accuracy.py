@@ -41,19 +41,22 @@ from bench.reference import reference_rates  # noqa: E402
 #: Flags the fit step leaves out by default (the fit stage's ``exclude_flags``).
 DEFAULT_EXCLUDE = from_names(";".join(FIT_DEFAULT_EXCLUDE))
 
-Method = Callable[[np.ndarray, np.ndarray, np.ndarray, float], tuple[np.ndarray, np.ndarray]]
+Method = Callable[[np.ndarray, np.ndarray, np.ndarray, float], tuple[np.ndarray, np.ndarray, np.ndarray]]
 
 
 def _kernel(name: str, **kw: object) -> Method:
-    def run(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float) -> tuple[np.ndarray, np.ndarray]:
+    def run(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         import importlib
 
         module, func = name.split(":")
         res = getattr(importlib.import_module(module), func)(t, y, s0=s0, signal_per_conc=spc, **kw)
-        return res.v0, res.flags
+        return res.v0, res.flags, res.stderr
 
     return run
 
+
+#: The method a recipe gets when it names none (the rates stage's default).
+DEFAULT = "model-choice"
 
 METHODS: dict[str, Method] = {
     "model-choice": _kernel("vzero.plugins.rates.choice:model_choice"),
@@ -85,10 +88,13 @@ def blank_corrected(sc: Scenario, sample: np.ndarray, blank: np.ndarray) -> np.n
     return out
 
 
-def fit_params(sc: Scenario, v: np.ndarray, keep: np.ndarray) -> np.ndarray:
-    """Parameters (``sc.fit_names``) fitted to one draw's rates in mM/s; NaN when the fit fails."""
+def fit_params(sc: Scenario, v: np.ndarray, keep: np.ndarray, se: np.ndarray | None = None) -> np.ndarray:
+    """Parameters (``sc.fit_names``) fitted to one draw's rates in mM/s (weighted by 1/se² when ``se`` is
+    given); NaN when the fit fails."""
     names = sc.fit_names
     ok = keep & np.isfinite(v)
+    if se is not None:
+        ok &= np.isfinite(se) & (se > 0)
     truth = np.array([sc.params[k] for k in names])
     if ok.sum() <= len(names):
         return np.full(len(names), np.nan)
@@ -102,7 +108,8 @@ def fit_params(sc: Scenario, v: np.ndarray, keep: np.ndarray) -> np.ndarray:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            q, _ = curve_fit(model, s, v[ok] / scale, p0=np.full(truth.size, 0.2), maxfev=4000)
+            sigma = None if se is None else se[ok] / scale
+            q, _ = curve_fit(model, s, v[ok] / scale, p0=np.full(truth.size, 0.2), sigma=sigma, maxfev=4000)
         return truth * np.exp(q)
     except (RuntimeError, ValueError, OptimizeWarning):
         return np.full(len(names), np.nan)
@@ -122,16 +129,43 @@ def evaluate(sc: Scenario, n_draws: int, methods: dict[str, Method], seed: int =
     out["reference"] = {"v0": ref, "keep": np.isfinite(ref), "seconds": np.nan}
     for name, fn in methods.items():
         t0 = time.perf_counter()
-        v0, flags = fn(t, y, s0, sc.spc)
+        v0, flags, se = fn(t, y, s0, sc.spc)
         sec = time.perf_counter() - t0
         flags = flags | np.where(saturated, int(Flag.SATURATED), 0)
         keep = (flags & DEFAULT_EXCLUDE) == 0
         out[name] = {"v0": v0.reshape(n_draws, n_c), "keep": keep.reshape(n_draws, n_c), "seconds": sec,
-                     "flags": flags.reshape(n_draws, n_c)}
+                     "flags": flags.reshape(n_draws, n_c), "se": se.reshape(n_draws, n_c)}
     for r in out.values():
         r["err"] = r["v0"] / truth.v0[None, :] - 1.0
         r["params"] = np.stack([fit_params(sc, r["v0"][k] / sc.spc, r["keep"][k]) for k in range(n_draws)])
     return {"scenario": sc, "truth": truth, "results": out}
+
+
+#: How the parameters are fitted from the rates, for the weighting comparison (docs/fitting.md).
+WEIGHTINGS = ("unweighted", "weighted by 1/SE²", "insignificant rates left out")
+
+
+def weighting_row(ev: dict, method: str) -> str:
+    """Share of draws within 5 % of the truth per parameter for each fitting choice, one method's rates."""
+    sc, r = ev["scenario"], ev["results"][method]
+    truth = np.array([sc.params[k] for k in sc.fit_names])
+    cells = []
+    for params in _weighted(sc, r).values():
+        rel = np.abs(np.nan_to_num(params / truth - 1.0, nan=np.inf))
+        cells.append(", ".join(f"{k} {100 * np.mean(rel[:, j] <= 0.05):.0f} %" for j, k in enumerate(sc.fit_names)))
+    return f"| {sc.name} | " + " | ".join(cells) + " |"
+
+
+def _weighted(sc: Scenario, r: dict) -> dict[str, np.ndarray]:
+    n = r["v0"].shape[0]
+    v, se, keep = r["v0"] / sc.spc, r["se"] / abs(sc.spc), r["keep"]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        significant = np.abs(v / se) >= 2.0
+    return {
+        WEIGHTINGS[0]: r["params"],
+        WEIGHTINGS[1]: np.stack([fit_params(sc, v[k], keep[k], se[k]) for k in range(n)]),
+        WEIGHTINGS[2]: np.stack([fit_params(sc, v[k], keep[k] & significant[k]) for k in range(n)]),
+    }
 
 
 def _pct(x: float) -> str:
@@ -211,12 +245,18 @@ def main(argv: list[str] | None = None) -> int:
     n = args.draws or (30 if args.quick else 200)
     chosen = [s for s in scenarios() if args.only is None or s.name in args.only.split(",")]
     parts = [f"{n} noise draws per scenario (`python -m bench.accuracy --draws {n}`).\n"]
+    weights = ["Fitting the default's rates: share of draws within 5 % of the truth (`" + DEFAULT + "`):", "",
+               "| scenario | " + " | ".join(WEIGHTINGS) + " |", "| --- |" + " --- |" * len(WEIGHTINGS)]
     for sc in chosen:
         t0 = time.perf_counter()
-        text = tables(evaluate(sc, n, METHODS))
+        ev = evaluate(sc, n, METHODS)
+        text = tables(ev)
         print(text, flush=True)
         print(f"({sc.name}: {time.perf_counter() - t0:.1f} s)\n", flush=True)
         parts.append(text)
+        weights.append(weighting_row(ev, DEFAULT))
+    print("\n".join(weights))
+    parts.append("\n".join(weights) + "\n")
     if args.write:
         write_section(args.write, "\n".join(parts))
     return 0

@@ -395,7 +395,7 @@ def _check_steps(
         if not isinstance(body, dict):
             bad((*path, kind), "expected a mapping with 'method' and the method's parameters")
             continue
-        method = body.get("method")
+        method = body.get("method", registry.default(kind))
         if not isinstance(method, str):
             bad((*path, kind), f"missing 'method'; available {kind} methods: {', '.join(registry.names(kind))}")
             continue

@@ -82,6 +82,8 @@ class Stage:
     scope: ClassVar[str] = "plate"
     summary: ClassVar[str] = ""
     params: ClassVar[Mapping[str, Param]] = {}
+    #: True for the one method of its kind that a recipe step without ``method`` gets.
+    default: ClassVar[bool] = False
 
     def __init__(self, **settings: Any) -> None:
         self.settings = dict(settings)

@@ -132,6 +132,7 @@ class ModelChoiceRates(KernelRates):
     wells with a lag get the lag/decay model. Single-read spikes are masked first (docs/rates.md)."""
 
     kind, method, version = "rates", "model-choice", "1.0"
+    default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = "per well: whole-curve model if it fits within the noise, else early quadratic; spikes masked"
     kernel = "vzero.plugins.rates.choice:model_choice"
     kernel_params = ("min_points", "lof_ratio", "agree_z", "window_conversion", "find_lag")
