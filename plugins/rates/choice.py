@@ -10,12 +10,19 @@ Every well gets the same candidates, each fitted to all wells at once:
 3. the chosen curve is kept when its residual RMS is at most ``lof_ratio`` times the read noise (it describes
    the curve within the noise); otherwise v0 is the slope at t = 0 of a quadratic through the reads up to
    ``window_conversion`` of the substrate (at least ``min_points`` reads), a model-free estimate;
-4. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) take the steady-state rate of the
-   lag/decay model (:func:`vzero.plugins.rates.lagdecay.lag_decay`), which also sets DECAY.
+4. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
+   Michaelis–Menten curve on the enzyme's active time (:mod:`vzero.plugins.rates.lagfit`): v0 is the rate
+   with fully active enzyme at t = 0 and ``lag_s`` the fitted lag time (without s0 and signal_per_conc:
+   :func:`vzero.plugins.rates.lagdecay.lag_decay`).
+
+Reads next to a block of missing reads at the start or end of a well (saturation) are masked first
+(``censored_reads``, see :data:`CENSORED_READS`).
 
 Needs ``s0`` and ``signal_per_conc``; without them the Michaelis–Menten curve is fitted in signal units and
 the quadratic window is the first third of the reads. ``extra['model']`` says which estimate each well got
-(0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag/decay).
+(0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag model); ``extra['rate_t']`` is
+v0 over its standard error. NOISY as for every method (relative SE above 10 %; includes every rate not
+significantly different from zero).
 """
 
 from __future__ import annotations
@@ -24,7 +31,8 @@ import numpy as np
 from vzero.plugins.flags import Flag
 from vzero.plugins.rates.auto import _inv3_sym
 from vzero.plugins.rates.lagdecay import detect_lag, lag_decay
-from vzero.plugins.rates.noise import conversion_scale, screen
+from vzero.plugins.rates.lagfit import lag_clock_fit
+from vzero.plugins.rates.noise import conversion_scale, flag_noisy, screen
 from vzero.plugins.rates.progress import progress_curve
 from vzero.plugins.rates.result import RateResult
 from vzero.plugins.rates.spikes import find_spikes
@@ -144,28 +152,33 @@ def model_choice(
     lag_s = np.where(sc.usable, 0.0, np.nan)
     w_start, w_end, n_pts = mm.window_start_s.copy(), mm.window_end_s.copy(), mm.n_points.copy()
     w_end[lof], n_pts[lof] = endq[lof], nq[lof]
-    extra = {"rmse_over_noise": ratio, "read_noise": sigma}
+    extra = {"rmse_over_noise": ratio, "read_noise": sigma, "k_decay": np.full(n_w, np.nan)}
     if find_lag:
         _, lag_all, has_lag = detect_lag(t, y, sc)
-        if has_lag.any():
-            rows = np.flatnonzero(has_lag)
-            s0_rows = None if s0 is None else np.broadcast_to(np.asarray(s0, float), (n_w,))[rows]
-            ld = lag_decay(t, y[rows], s0=s0_rows, signal_per_conc=signal_per_conc, min_points=min_points,
-                           fail_ratio=np.inf)
-            # the fit's v0 is the rate where the steady state starts; inactivation since the lag time (where
-            # the steady-state line meets the baseline) is undone through the fitted first-order decay
-            k = np.nan_to_num(ld.extra["k_decay"])
-            back = np.exp(np.clip(k * np.fmax(ld.window_start_s - np.nan_to_num(ld.lag_s), 0.0), -1.0, 1.0))
-            v0[rows], se[rows], code[rows] = ld.v0 * back, ld.stderr * back, 3.0
-            flags[rows] |= ld.flags & int(Flag.LAG | Flag.DECAY)
-            w_start[rows], w_end[rows], n_pts[rows] = ld.window_start_s, ld.window_end_s, ld.n_points
-            lag_s[rows] = ld.lag_s
-            extra["rmse_over_noise"][rows] = ld.extra["rmse_over_noise"]
         lag_s = np.where(has_lag, lag_all, lag_s)
+        flags[has_lag] |= int(Flag.LAG)
+        if has_lag.any() and known:
+            rows = np.flatnonzero(has_lag)
+            s0_rows = np.broadcast_to(np.asarray(s0, float), (n_w,))[rows]
+            lf = lag_clock_fit(t, y[rows], s0_rows, signal_per_conc, min_points=min_points)
+            ok = np.isfinite(lf["v0"])
+            r = rows[ok]
+            v0[r], se[r], code[r] = lf["v0"][ok], lf["stderr"][ok], 3.0
+            lag_s[r], extra["k_decay"][r] = lf["tau"][ok], lf["k"][ok]
+            extra["rmse_over_noise"][r] = lf["ratio"][ok]
+            w_start[r] = t[0]
+            flags[r[lf["k"][ok] > 0]] |= int(Flag.DECAY)
+        elif has_lag.any():
+            rows = np.flatnonzero(has_lag)
+            ld = lag_decay(t, y[rows], min_points=min_points, fail_ratio=np.inf)
+            v0[rows], se[rows], code[rows] = ld.v0, ld.stderr, 3.0
+            w_start[rows], w_end[rows], n_pts[rows] = ld.window_start_s, ld.window_end_s, ld.n_points
+            extra["rmse_over_noise"][rows] = ld.extra["rmse_over_noise"]
     failed = sc.usable & ~np.isfinite(v0)
     flags[failed] |= int(Flag.FIT_FAILED)
     bad = (flags & int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)) != 0
     v0[bad], se[bad] = np.nan, np.nan
+    flag_noisy(v0, se, flags)
     extra["model"] = code
     with np.errstate(invalid="ignore", divide="ignore"):
         extra["rate_t"] = v0 / se
