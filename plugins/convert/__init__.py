@@ -166,28 +166,15 @@ class StandardCurveConvert(Stage):
 
     def run(self, data: StageInput) -> StageOutput:
         import numpy as np
-        import pandas as pd
         from vzero import units
         from vzero.data import Table
-        from vzero.plugins.convert.standard_curve import fit_standard_curve
+        from vzero.plugins.convert.standard_curve import plate_standard_curve
 
         traces = data.artifacts["traces"]
         table = data.artifacts["rates"]
-        col = self.settings["column"]
-        wells = traces.wells
-        is_std = (wells["role"].astype(str) == "standard").to_numpy()
-        if not is_std.any() or col not in wells.columns:
-            raise StageError(f"standard-curve needs wells with role 'standard' and a layout column {col!r}",
-                             hint="Add standards to the layout, or use another convert method.")
-        conc_unit = traces.well_units.get(col) or self.settings["unit"]
-        if not conc_unit:
-            raise StageError(f"the layout column {col!r} has no unit; write it like \"{col} (uM)\" or set unit")
-        y = traces.masked_signal()[is_std]
-        with np.errstate(invalid="ignore"):
-            level = np.nanmean(np.where(np.isfinite(y), y, np.nan), axis=1)
-        conc = wells[col].to_numpy(dtype=float)[is_std]
-        keep = np.isfinite(level) & np.isfinite(conc)
-        curve = fit_standard_curve(conc[keep], level[keep], check_linearity=self.settings["check_linearity"])
+        cal = plate_standard_curve(traces, self.settings["column"], self.settings["unit"],
+                                   self.settings["check_linearity"])
+        curve, conc_unit, wells = cal.curve, cal.conc_unit, traces.wells
         out_unit = self.settings["output_unit"]
         signal_unit = traces.signal_unit
         to_out = units.factor(f"{conc_unit}/s", out_unit)
@@ -208,15 +195,10 @@ class StandardCurveConvert(Stage):
                       f"{', '.join(map(str, beyond[:10]))}{', ...' if len(beyond) > 10 else ''}; their rates "
                       "extrapolate the standard curve")
         out = _finish(table, frame, to_out / curve.slope, out_unit, signal_unit, data.warn, se * to_out)
-        calib = pd.DataFrame({"well": wells["well"].to_numpy()[is_std][keep], "concentration": conc[keep],
-                              "signal": level[keep], "used": np.asarray(curve.used, dtype=bool)})
-        summary = pd.DataFrame({"quantity": ["slope", "intercept", "r_squared", "range_low", "range_high"],
-                                "value": [curve.slope, curve.intercept, curve.r2, lo, hi],
-                                "stderr": [curve.slope_se, curve.intercept_se, np.nan, np.nan, np.nan]})
         return StageOutput(
             artifacts={"rates": out},
-            record={"calibration_points": Table(calib, {"concentration": conc_unit, "signal": signal_unit}),
-                    "calibration": Table(summary)},
+            record={"calibration_points": Table(cal.points, {"concentration": conc_unit, "signal": signal_unit}),
+                    "calibration": Table(cal.summary)},
         )
 
 

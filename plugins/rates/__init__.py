@@ -26,6 +26,9 @@ CONVERSION_PARAMS = {
     "pathlength": Param.quantity("cm", None, "optical pathlength (with epsilon)", nullable=True),
     "direction": Param.choice(("increase", "decrease"), "increase", "whether the signal rises or falls as "
                               "product forms"),
+    "standards": Param("str", None, "layout column of the product concentrations in the plate's standard wells: "
+                       "signal_per_conc from the plate's own standard curve, fitted before the rates",
+                       nullable=True),
 }
 MAX_CONVERSION = Param("float", 0.10, "largest fraction of substrate converted inside the rate window "
                        "(10 %: common practice)", low=0.001, high=1.0)
@@ -49,6 +52,33 @@ def conversion(traces: Any, settings: dict[str, Any], warn: Any) -> tuple[Any, f
     value = float(per.m_as(f"1/{sub_unit}"))
     sign = -1.0 if settings.get("direction") == "decrease" else 1.0
     return traces.wells["substrate"].to_numpy(dtype=float), sign * value if np.isfinite(value) else None
+
+
+def own_calibration(traces: Any, settings: dict[str, Any], warn: Any) -> tuple[dict[str, Any], dict[str, Any]]:
+    """With ``standards`` set (and no signal_per_conc, epsilon or pathlength): the plate's own standard curve
+    is fitted first and its slope becomes ``signal_per_conc``. Returns the settings to use and the
+    calibration tables for the audit file (empty when not used)."""
+    column = settings.get("standards")
+    if not column:
+        return settings, {}
+    if any(settings.get(k) is not None for k in ("signal_per_conc", "epsilon", "pathlength")):
+        raise StageError("give either standards or signal_per_conc (or epsilon and pathlength), not both")
+    from vzero import units
+    from vzero.data import Table
+    from vzero.plugins.convert.standard_curve import plate_standard_curve
+
+    cal = plate_standard_curve(traces, column, None, True)
+    curve = cal.curve
+    lo, hi = curve.conc_range
+    warn(f"standard curve (before the rates): slope {curve.slope:.5g} {traces.signal_unit}/{cal.conc_unit} "
+         f"± {curve.slope_se:.2g}, R² {curve.r2:.4f}, linear range {lo:g}-{hi:g} {cal.conc_unit}"
+         + (f"; dropped {', '.join(f'{d:g}' for d in curve.dropped_levels)}" if curve.dropped_levels else ""))
+    per = units.registry().Quantity(abs(curve.slope), f"1/{cal.conc_unit}")
+    direction = "decrease" if curve.slope < 0 else "increase"
+    record = {"standard_curve_points": Table(cal.points, {"concentration": cal.conc_unit,
+                                                          "signal": traces.signal_unit}),
+              "standard_curve": Table(cal.summary)}
+    return {**settings, "signal_per_conc": per, "direction": direction}, record
 
 
 def finish_table(traces: Any, result: Any, method: str, data: StageInput) -> StageOutput:
@@ -90,12 +120,16 @@ class KernelRates(Stage):
         import importlib
 
         traces = data.artifacts["traces"]
-        s0, per = conversion(traces, self.settings, data.warn)
+        settings, record = own_calibration(traces, self.settings, data.warn)
+        s0, per = conversion(traces, settings, data.warn)
         module, name = self.kernel.split(":")
         func = getattr(importlib.import_module(module), name)
         kwargs = {k: self._value(k) for k in self.kernel_params}
         result = func(traces.time, traces.masked_signal(), s0=s0, signal_per_conc=per, **kwargs)
-        return finish_table(traces, result, self.method, data)
+        out = finish_table(traces, result, self.method, data)
+        if record:
+            out = StageOutput(artifacts=out.artifacts, failed=out.failed, record=record)
+        return out
 
     def _value(self, key: str) -> Any:
         v = self.settings[key]

@@ -68,3 +68,34 @@ def test_late_saturated_reads_are_masked_and_the_rate_kept():
     assert p.saturated[:, -1].all()
     r = model_choice(T, p.signal, s0=s0, signal_per_conc=SPC)
     np.testing.assert_allclose(r.v0, p.v0_true, rtol=0.02)
+
+
+def test_rates_use_the_plates_own_standard_curve():
+    import pandas as pd
+    from vzero.data import Traces
+    from vzero.params import validate
+    from vzero.plugins.rates import ModelChoiceRates
+    from vzero.stage import StageInput
+
+    # invented fluorescence plate: 120 RFU per µM of product; standards of product at 0-10 µM, four samples
+    s0 = np.array([20.0, 50.0, 100.0, 200.0])  # µM substrate
+    p = simulate_plate(T, s0, 50.0, 0.05, signal_per_conc=120.0, baseline=40.0, noise=2.0, seed=8)
+    std = np.array([0.0, 1.0, 2.0, 5.0, 10.0])
+    rng = np.random.default_rng(9)
+    standards = 40.0 + 120.0 * std[:, None] + 2.0 * rng.standard_normal((std.size, T.size))
+    signal = np.vstack([p.signal, standards])
+    wells = pd.DataFrame({"well": [f"A{i + 1}" for i in range(9)], "role": ["sample"] * 4 + ["standard"] * 5,
+                          "substrate": np.concatenate([s0, np.full(5, np.nan)]),
+                          "product": np.concatenate([np.full(4, np.nan), std])})
+    traces = Traces("p", T, signal, np.isfinite(signal), np.zeros_like(signal, bool), wells, "RFU",
+                    {"substrate": "uM", "product": "uM"})
+    settings, problems = validate(ModelChoiceRates.params, {"standards": "product"})
+    assert not problems
+    warnings: list[str] = []
+    out = ModelChoiceRates(**settings).run(StageInput({"traces": traces}, {"name": "p"}, {}, {}, None,
+                                                      warnings.append))
+    summary = out.record["standard_curve"].frame.set_index("quantity")
+    assert summary.loc["slope", "value"] == pytest.approx(120.0, rel=0.01)
+    assert any("standard curve (before the rates)" in w for w in warnings)
+    rates = out.artifacts["rates"].frame["rate"].to_numpy()[:4]
+    np.testing.assert_allclose(rates, p.v0_true, rtol=0.03)  # conversion-aware rates in RFU/s
