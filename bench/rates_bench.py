@@ -26,6 +26,7 @@ from scipy.special import wrightomega  # noqa: E402
 from vzero.plugins.kinetics.flags import Flag  # noqa: E402
 from vzero.plugins.kinetics.simulate import simulate_plate  # noqa: E402
 from vzero.plugins.rates.auto import auto  # noqa: E402
+from vzero.plugins.rates.choice import model_choice  # noqa: E402
 from vzero.plugins.rates.polynomial import polynomial  # noqa: E402
 from vzero.plugins.rates.progress import progress_curve  # noqa: E402
 
@@ -142,6 +143,14 @@ def bench_plate(n_w: int, n_t: int) -> None:
     print(f"  progress-curve fit:          kernel {k_sec:8.4f}  curve_fit loop   {p_sec:8.3f}{note}  ratio "
           f"{p_sec / k_sec:7.1f}   v0 vs curve_fit: max rel {rel.max():.1e}, {np.mean(rel < 1e-3):.0%} "
           f"within 1e-3 ({both.sum()} wells with signal)")
+
+    c_sec, r_mc = timed(lambda: model_choice(t, y, s0=s0, signal_per_conc=SPC), 2)
+    a_sec, _ = timed(lambda: auto(t, y, s0=s0, signal_per_conc=SPC), 3)
+    g_sec, _, g_note = peer_timed(lambda idx: peer_growing_window(t, y[idx]), n_w, 96)
+    err_mc = np.nanmedian(np.abs(r_mc.v0[signal_wells] / v_true[signal_wells] - 1))
+    print(f"  model-choice (default):      kernel {c_sec:8.4f}  = {c_sec / a_sec:5.1f}x auto ({a_sec:.4f}); "
+          f"growing polyfit {g_sec / c_sec:6.1f}x slower{g_note}, curve_fit loop {p_sec / c_sec:6.1f}x slower; "
+          f"median |v0 error| {err_mc:.2%}")
 
     k_sec, r_pw = timed(lambda: progress_curve(t, y, s0=s0, signal_per_conc=SPC, model="power"), 2)
     err_pw = np.nanmedian(np.abs(r_pw.v0[signal_wells] / v_true[signal_wells] - 1))

@@ -507,6 +507,8 @@ def _check_steps(
         if not isinstance(body, dict):
             bad((*path, kind), "expected a mapping with 'method' and the method's parameters")
             continue
+        if method is None:  # a step that names no method gets its kind's default, if the kind has one
+            method = registry.default(kind)
         if not isinstance(method, str):
             bad((*path, kind), f"missing 'method'; available {kind} methods: {', '.join(registry.names(kind))}")
             continue

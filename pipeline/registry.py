@@ -100,6 +100,12 @@ class Registry:
     def names(self, kind: str) -> list[str]:
         return sorted(n for k, n in self._entries if k == kind)
 
+    def default(self, kind: str) -> str | None:
+        """The method of ``kind`` whose component declares ``default = True`` (None when no single one does)."""
+        hits = [n for (k, n), e in self._entries.items()
+                if k == kind and getattr(e.component, "default", False) is True]
+        return hits[0] if len(hits) == 1 else None
+
     def kinds(self) -> list[str]:
         return sorted({k for k, _ in self._entries})
 

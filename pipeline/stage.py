@@ -97,6 +97,9 @@ class Stage:
         if broken:
             raise PluginError(broken)
 
+    #: True for the one method of its kind that a recipe step without ``method`` gets.
+    default: ClassVar[bool] = False
+
     def __init__(self, **settings: Any) -> None:
         self.settings = dict(settings)
 

@@ -1,4 +1,4 @@
-"""Built-in blank stage: subtract the mean of the blank wells at each time point."""
+"""Built-in blank stage: subtract the mean of the matching blank wells at each time point."""
 
 from __future__ import annotations
 
@@ -9,22 +9,31 @@ from vzero.params import Param
 from vzero.plugins.kinetics.methods import BlankMethod
 from vzero.stage import StageInput, StageOutput
 
+#: The ``match`` settings (:func:`vzero.plugins.blank.matching.plan_blanks`).
+MATCH_CHOICES = ("none", "group", "substrate", "substrate+inhibitor")
+
 
 class MeanBlank(BlankMethod):
-    """Subtract, at each read, the mean of the blank wells (role ``blank``) from every well.
+    """Subtract, at each read, the mean of the blank wells (role ``blank``) that match a well.
 
-    ``match: none`` uses all blank wells; ``group`` uses the blanks of the same group; ``substrate`` those
-    with the same substrate concentration (a substrate-only blank per level, which also removes
-    non-enzymatic substrate turnover). A well with no matching blank falls back to all blanks, with a
-    warning. Blank wells are corrected too (they end near zero), which keeps them useful for noise checks.
+    ``match: none`` uses all blank wells; ``group`` the blanks of the same group; ``substrate`` those with
+    the same substrate concentration (a substrate-only blank per level, which also removes non-enzymatic
+    substrate turnover); ``substrate+inhibitor`` those with the same substrate and inhibitor levels. A blank
+    with fewer than ``min_reads`` usable reads (every read saturated, say) is skipped with a warning naming
+    it, and its wells fall back to the next matching blanks: same substrate, then the nearest substrate
+    level, then every usable blank on the plate (:mod:`vzero.plugins.blank.matching`), with a warning. The
+    well columns ``blanks`` (the blank wells used, joined by ``;``) and ``blank_match`` (``matched``, ``same
+    substrate``, ``nearest level``, ``plate``) go on to the rates table. Blank wells are corrected too (they
+    end near zero), which keeps them useful for noise checks.
     """
 
     method = "mean"
-    version = "1.0"
-    summary = "subtract the per-read mean of matching blank wells"
+    version = "1.1"
+    summary = "subtract the per-read mean of matching blank wells (fallback when a blank has no usable read)"
     params = {
-        "match": Param.choice(("none", "group", "substrate"), "none", "which blank wells apply to a well"),
+        "match": Param.choice(MATCH_CHOICES, "none", "which blank wells apply to a well"),
         "role": Param("str", "blank", "layout role that marks blank wells"),
+        "min_reads": Param("int", 1, "usable reads a blank needs; blanks with fewer are skipped", low=1),
     }
 
     def preflight(self, data: StageInput) -> StageOutput | None:
@@ -37,6 +46,7 @@ class MeanBlank(BlankMethod):
 
     def correct(self, traces: Any, warn: Any) -> Any:
         import numpy as np
+        from vzero.plugins.blank.matching import plan_blanks
 
         roles = traces.wells["role"].astype(str).to_numpy()
         is_blank = roles == self.settings["role"]
@@ -44,26 +54,38 @@ class MeanBlank(BlankMethod):
             warn("no blank wells in the layout: signal left uncorrected")
             return None
         y = traces.masked_signal()
+        names = np.asarray(traces.well_names, dtype=object)
         match = self.settings["match"]
-        if match == "none":
-            keys = np.zeros(len(roles), dtype=np.int64)
-        else:
-            column = traces.wells[match].to_numpy()
-            _, keys = np.unique(column.astype(str), return_inverse=True)
+        need = int(self.settings.get("min_reads", 1))
+        plan = plan_blanks(traces.wells, is_blank, np.isfinite(y).sum(axis=1), match, need)
+        if plan.skipped.size:
+            warn(f"blank well(s) {_listed(names[plan.skipped])} have fewer than {need} "
+                 "usable read(s) (saturated or missing): skipped; their wells use the next matching blanks")
         correction = np.full_like(y, np.nan)
         with np.errstate(invalid="ignore"):
-            overall = _nanmean_rows(y[is_blank])
-            for key in np.unique(keys):
-                members = keys == key
-                blanks = members & is_blank
-                correction[members] = _nanmean_rows(y[blanks]) if blanks.any() else overall
-            missing = [w for w, k in zip(traces.well_names, keys, strict=True) if not (is_blank & (keys == k)).any()]
-        if missing and match != "none":
-            warn(f"no blank with the same {match} for {len(missing)} well(s) ({', '.join(missing[:8])}"
-                      f"{', ...' if len(missing) > 8 else ''}); used the mean of all blanks")
+            keys: dict[tuple[int, ...], list[int]] = {}
+            for i, u in enumerate(plan.used):
+                keys.setdefault(tuple(u.tolist()), []).append(i)
+            for key, members in keys.items():
+                correction[members] = _nanmean_rows(y[list(key)]) if key else np.nan
+        level = np.asarray(plan.level, dtype=object)
+        for how in ("same substrate", "nearest level", "plate", "none"):
+            hit = (level == how) & ~is_blank
+            if hit.any() and not (how == "plate" and match == "none"):
+                what = "no usable blank on the plate: left without a rate" if how == "none" else \
+                    f"used the blanks of the {how}" if how != "plate" else "used the mean of all usable blanks"
+                warn(f"no usable blank with the same {match} for {hit.sum()} well(s) "
+                     f"({_listed(names[hit])}); {what}")
         # A read where the blank itself is missing cannot be corrected: it becomes missing (the base class
         # masks every read that is not finite).
-        return traces.signal - correction
+        columns = {"blanks": [";".join(names[u]) for u in plan.used], "blank_match": list(level)}
+        return traces.signal - correction, columns
+
+
+def _listed(names: Any, most: int = 8) -> str:
+    """``'A1, A2, ...'``: at most ``most`` names."""
+    names = list(names)
+    return ", ".join(names[:most]) + (", ..." if len(names) > most else "")
 
 
 def _nanmean_rows(block: Any) -> Any:

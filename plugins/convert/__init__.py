@@ -165,33 +165,20 @@ class StandardCurveConvert(ConvertMethod):
 
     def conversion(self, table: Any, data: StageInput) -> Conversion:
         import numpy as np
-        import pandas as pd
         from vzero import units
         from vzero.data import Table
-        from vzero.plugins.convert.standard_curve import fit_standard_curve
+        from vzero.plugins.convert.standard_curve import plate_standard_curve
 
         traces = data.artifacts["traces"]
-        col = self.settings["column"]
-        wells = traces.wells
-        is_std = (wells["role"].astype(str) == "standard").to_numpy()
-        if not is_std.any() or col not in wells.columns:
-            raise StageError(f"standard-curve needs wells with role 'standard' and a layout column {col!r}",
-                             hint="Add standards to the layout, or use another convert method.")
-        conc_unit = traces.well_units.get(col) or self.settings["unit"]
-        if not conc_unit:
-            raise StageError(f"the layout column {col!r} has no unit; write it like \"{col} (uM)\" or set unit")
-        y = traces.masked_signal()[is_std]
-        finite = np.isfinite(y)
-        count = finite.sum(axis=1)
-        # a standard whose every read is saturated has no level (NaN), said in words below, not as a warning
-        level = np.where(count > 0, np.where(finite, y, 0.0).sum(axis=1) / np.maximum(count, 1), np.nan)
-        if (count == 0).any():
-            lost = [str(w) for w, c in zip(wells["well"].to_numpy()[is_std], count, strict=True) if c == 0]
+        table = data.artifacts["rates"]
+        cal = plate_standard_curve(traces, self.settings["column"], self.settings["unit"],
+                                   self.settings["check_linearity"])
+        curve, conc_unit, wells = cal.curve, cal.conc_unit, traces.wells
+        lost = [str(n).split(":")[0] for q, n in zip(cal.summary["quantity"], cal.summary["note"], strict=True)
+                if q == "dropped_well"]
+        if lost:
             data.warn(f"{len(lost)} standard well(s) have no usable read (saturated or missing) and are left out "
                       f"of the standard curve: {', '.join(lost[:10])}{', ...' if len(lost) > 10 else ''}.")
-        conc = wells[col].to_numpy(dtype=float)[is_std]
-        keep = np.isfinite(level) & np.isfinite(conc)
-        curve = fit_standard_curve(conc[keep], level[keep], check_linearity=self.settings["check_linearity"])
         out_unit = self.settings["output_unit"]
         signal_unit = traces.signal_unit
         to_out = units.factor(f"{conc_unit}/s", out_unit)
@@ -211,14 +198,9 @@ class StandardCurveConvert(ConvertMethod):
             data.warn(f"{len(beyond)} sample well(s) read beyond the highest standard kept ({hi:g} {conc_unit}): "
                       f"{', '.join(map(str, beyond[:10]))}{', ...' if len(beyond) > 10 else ''}; their rates "
                       "extrapolate the standard curve")
-        calib = pd.DataFrame({"well": wells["well"].to_numpy()[is_std][keep], "concentration": conc[keep],
-                              "signal": level[keep], "used": np.asarray(curve.used, dtype=bool)})
-        summary = pd.DataFrame({"quantity": ["slope", "intercept", "r_squared", "range_low", "range_high"],
-                                "value": [curve.slope, curve.intercept, curve.r2, lo, hi],
-                                "stderr": [curve.slope_se, curve.intercept_se, np.nan, np.nan, np.nan]})
-        points = Table(calib, {"concentration": conc_unit, "signal": signal_unit})
+        points = Table(cal.points, {"concentration": conc_unit, "signal": signal_unit})
         return Conversion(to_out / curve.slope, out_unit, stderr=se * to_out,
-                          record={"calibration_points": points, "calibration": Table(summary)})
+                          record={"calibration_points": points, "calibration": Table(cal.summary)})
 
 
 @hookimpl

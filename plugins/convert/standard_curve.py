@@ -158,3 +158,58 @@ def fit_standard_curve(
         dropped_levels=tuple(dropped),
         curvature_p=p,
     )
+
+
+@dataclass(frozen=True)
+class PlateCalibration:
+    """A plate's own standard curve with what went into it: ``points`` (well, concentration, signal, used)
+    and ``summary`` (slope, intercept, R², range kept, each dropped level with the reason) as data frames,
+    and the concentration unit of the standards."""
+
+    curve: StandardCurve
+    conc_unit: str
+    points: object
+    summary: object
+
+
+def plate_standard_curve(traces: object, column: str, unit: str | None, check_linearity: bool) -> PlateCalibration:
+    """Fit the standard curve of the plate's ``standard`` wells (each well's mean usable read against its
+    concentration in the layout column ``column``). Raises :class:`~vzero.errors.StageError` naming what is
+    missing (no standards, no column, no unit)."""
+    import pandas as pd
+    from vzero.errors import StageError
+
+    wells = traces.wells  # type: ignore[attr-defined]
+    is_std = (wells["role"].astype(str) == "standard").to_numpy()
+    if not is_std.any() or column not in wells.columns:
+        raise StageError(f"a standard curve needs wells with role 'standard' and a layout column {column!r}",
+                         hint="Add standards to the layout, or give signal_per_conc instead.")
+    conc_unit = traces.well_units.get(column) or unit  # type: ignore[attr-defined]
+    if not conc_unit:
+        raise StageError(f"the layout column {column!r} has no unit; write it like \"{column} (uM)\" or set unit")
+    y = traces.masked_signal()[is_std]  # type: ignore[attr-defined]
+    with np.errstate(invalid="ignore"):
+        level = np.array([np.nanmean(r) if np.isfinite(r).any() else np.nan for r in y])
+    conc = wells[column].to_numpy(dtype=float)[is_std]
+    keep = np.isfinite(level) & np.isfinite(conc)
+    curve = fit_standard_curve(conc[keep], level[keep], check_linearity=check_linearity)
+    lo, hi = curve.conc_range
+    points = pd.DataFrame({"well": wells["well"].to_numpy()[is_std][keep], "concentration": conc[keep],
+                           "signal": level[keep], "used": np.asarray(curve.used, dtype=bool)})
+    names = ["slope", "intercept", "r_squared", "range_low", "range_high"]
+    values = [curve.slope, curve.intercept, curve.r2, lo, hi]
+    errors = [curve.slope_se, curve.intercept_se, np.nan, np.nan, np.nan]
+    notes = ["", "", "", "lowest standard kept", "highest standard kept"]
+    for d in curve.dropped_levels:
+        names.append("dropped_level")
+        values.append(d)
+        errors.append(np.nan)
+        notes.append("dropped: the line bends above it (quadratic term significant)")
+    no_read = ~np.isfinite(level)
+    for w, c in zip(wells["well"].to_numpy()[is_std][no_read], conc[no_read], strict=True):
+        names.append("dropped_well")
+        values.append(c)
+        errors.append(np.nan)
+        notes.append(f"{w}: no usable read")
+    summary = pd.DataFrame({"quantity": names, "value": values, "stderr": errors, "note": notes})
+    return PlateCalibration(curve, str(conc_unit), points, summary)

@@ -28,6 +28,7 @@ class Flag(enum.IntFlag):
     FIT_FAILED = 1 << 9  # a nonlinear per-well fit did not converge or the model does not describe the curve
     EXCLUDED = 1 << 10  # excluded by the recipe (with a reason recorded)
     OVERRIDDEN = 1 << 11  # window fixed by the recipe (with a reason recorded)
+    SPIKE = 1 << 12  # a single-read outlier found by a robust test; that read is masked, the rest is used
 
 
 FLAG_NAMES: dict[str, Flag] = {f.name.lower(): f for f in Flag if f.name and f is not Flag.NONE}
@@ -40,7 +41,7 @@ NAMES: tuple[str, ...] = tuple(FLAG_NAMES)
 FAILURE = Flag.FIT_FAILED | Flag.ALL_MISSING | Flag.TOO_FEW_POINTS
 
 #: Flags that keep a well out of the fit unless the recipe's ``fit.exclude_flags`` says otherwise.
-NOT_FITTED = Flag.SATURATED | Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS | Flag.FIT_FAILED | Flag.EXCLUDED
+NOT_FITTED = Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS | Flag.FIT_FAILED | Flag.EXCLUDED
 
 #: Each flag in words (as the report prints it) and as a short label (beside a well in a figure).
 DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
@@ -57,6 +58,7 @@ DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
     Flag.FIT_FAILED: ("the per-well curve fit did not converge or does not describe the curve", "fit"),
     Flag.EXCLUDED: ("excluded in the recipe", "excl"),
     Flag.OVERRIDDEN: ("window fixed by hand in the recipe", "fixed"),
+    Flag.SPIKE: ("a single-read outlier, masked; the rate uses the other reads", "spike"),
 }
 
 

@@ -37,13 +37,16 @@ from vzero.stage import Stage, StageInput, StageOutput
 class PlateView:
     """What a kernel may know about the plate besides its reads: the plate name, the well table (one row per
     signal row; columns ``well``, ``role`` and the layout's, such as ``substrate``), the units of those
-    columns, the unit of the signal, and ``warn`` to record a run warning."""
+    columns, the unit of the signal, and ``warn`` to record a run warning. A kernel that fits something the
+    audit file should keep (the plate's own standard curve, say) puts it in ``record`` (name -> table or
+    array), which the framework stores with the step."""
 
     name: str
     wells: Any
     well_units: Mapping[str, str]
     signal_unit: str
     warn: Callable[[str], None]
+    record: dict[str, Any] = dataclasses.field(default_factory=dict)
 
 
 def _traces(data: StageInput, kind: str) -> Any:
@@ -86,7 +89,9 @@ class BlankMethod(Stage):
 
     def correct(self, traces: Any, warn: Callable[[str], None]) -> Any:  # pragma: no cover - abstract
         """The corrected signal, shape ``[n_wells, n_time]`` like ``traces.signal`` (NaN where a read cannot
-        be corrected), or ``None`` to leave the traces as they are."""
+        be corrected), or ``None`` to leave the traces as they are. A method that wants to say per well which
+        blanks it used returns ``(signal, columns)``: ``columns`` maps new well-table column names to one value
+        per well (they travel on to the rates table); existing columns cannot be replaced."""
         raise NotImplementedError
 
     @final
@@ -94,15 +99,31 @@ class BlankMethod(Stage):
         import numpy as np
 
         traces = _traces(data, "blank")
-        corrected = self.correct(traces, data.warn)
-        if corrected is None:
+        result = self.correct(traces, data.warn)
+        if result is None:
             return StageOutput(artifacts={"traces": traces})
-        corrected = np.asarray(corrected, dtype=float)
+        columns: Mapping[str, Any] = {}
+        if isinstance(result, tuple):
+            result, columns = result
+        corrected = np.asarray(result, dtype=float)
         if corrected.shape != traces.signal.shape:
             raise StageError(f"blank method {self.method!r} returned a signal of shape {corrected.shape}, "
                              f"not {traces.signal.shape} like the plate's")
+        wells = traces.wells
+        if columns:
+            taken = sorted(set(columns) & set(wells.columns))
+            if taken:
+                raise StageError(f"blank method {self.method!r} tried to replace the well column(s) "
+                                 f"{', '.join(taken)}; a blank method may only add columns")
+            wells = wells.copy()
+            for name, values in columns.items():
+                values = list(values)
+                if len(values) != len(wells):
+                    raise StageError(f"blank method {self.method!r} gave {len(values)} values for the well column "
+                                     f"{name!r}, not one per well ({len(wells)})")
+                wells[name] = values
         mask = traces.mask & np.isfinite(corrected)  # a read masked before stays masked
-        return StageOutput(artifacts={"traces": traces.evolve(signal=corrected, mask=mask)})
+        return StageOutput(artifacts={"traces": traces.evolve(signal=corrected, mask=mask, wells=wells)})
 
 
 class RateMethod(Stage):
@@ -148,7 +169,7 @@ class RateMethod(Stage):
                              + "; ".join(problems))
         table = rates_table(traces, result, self.method)
         table = apply_overrides(traces, table, data.recipe.get("overrides") or [])
-        return StageOutput(artifacts={"rates": table}, failed=failed_wells(table.frame))
+        return StageOutput(artifacts={"rates": table}, failed=failed_wells(table.frame), record=dict(plate.record))
 
 
 @dataclass(frozen=True)

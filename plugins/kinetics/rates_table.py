@@ -10,7 +10,7 @@ from vzero.data import Table, Traces
 from vzero.plugins.kinetics.flags import Flag, names_array
 from vzero.plugins.kinetics.rate_result import RateResult
 
-WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor")
+WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor", "blanks", "blank_match")
 
 
 def saturation_flags(traces: Traces) -> np.ndarray:
@@ -53,7 +53,16 @@ def rates_table(traces: Traces, result: RateResult, method: str, extra_flags: np
     cols[result.goodness_name] = result.goodness.astype(float)
     for name, values in result.extra.items():
         cols[name] = np.asarray(values, dtype=float)
-    cols["flags"] = names_array(flags)
+    # flags (and every count of flagged wells) are about sample wells; blanks, standards and empty wells get
+    # their own status instead: the role, then what the rate method saw (e.g. "blank; saturated")
+    names = names_array(flags)
+    if "role" in w.columns:
+        role = w["role"].astype(str).to_numpy()
+        other = role != "sample"
+        status = np.where(names != "", np.char.add(np.char.add(role.astype(str), "; "), names.astype(str)), role)
+        cols["status"] = np.where(other, status, "").astype(object)
+        names = np.where(other, "", names).astype(object)
+    cols["flags"] = names
     frame = pd.DataFrame(cols)
     units.update(rate=rate_unit, rate_stderr=rate_unit, window_start_s="s", window_end_s="s", lag_s="s")
     return Table(frame, units, {"signal_unit": traces.signal_unit})

@@ -27,6 +27,9 @@ CONVERSION_PARAMS = {
     "pathlength": Param.quantity("cm", None, "optical pathlength (with epsilon)", nullable=True),
     "direction": Param.choice(("increase", "decrease"), "increase", "whether the signal rises or falls as "
                               "product forms"),
+    "standards": Param("str", None, "layout column of the product concentrations in the plate's standard wells: "
+                       "signal_per_conc from the plate's own standard curve, fitted before the rates",
+                       nullable=True),
 }
 MAX_CONVERSION = Param("float", 0.10, "largest fraction of substrate converted inside the rate window "
                        "(10 %: common practice)", low=0.001, high=1.0)
@@ -52,6 +55,36 @@ def conversion(traces: Any, settings: dict[str, Any], warn: Any) -> tuple[Any, f
     return traces.wells["substrate"].to_numpy(dtype=float), sign * value if np.isfinite(value) else None
 
 
+def own_calibration(plate: PlateView, signal: Any, settings: dict[str, Any]) -> dict[str, Any]:
+    """With ``standards`` set (and no signal_per_conc, epsilon or pathlength): the plate's own standard curve
+    is fitted first and its slope becomes ``signal_per_conc``; its tables go to the audit file through
+    ``plate.record``. Returns the settings to use."""
+    column = settings.get("standards")
+    if not column:
+        return settings
+    if any(settings.get(k) is not None for k in ("signal_per_conc", "epsilon", "pathlength")):
+        raise StageError("give either standards or signal_per_conc (or epsilon and pathlength), not both")
+    from types import SimpleNamespace
+
+    from vzero import units
+    from vzero.data import Table
+    from vzero.plugins.convert.standard_curve import plate_standard_curve
+
+    reads = SimpleNamespace(wells=plate.wells, well_units=plate.well_units, masked_signal=lambda: signal)
+    cal = plate_standard_curve(reads, column, None, True)
+    curve = cal.curve
+    lo, hi = curve.conc_range
+    plate.warn(f"standard curve (before the rates): slope {curve.slope:.5g} {plate.signal_unit}/{cal.conc_unit} "
+               f"± {curve.slope_se:.2g}, R² {curve.r2:.4f}, linear range {lo:g}-{hi:g} {cal.conc_unit}"
+               + (f"; dropped {', '.join(f'{d:g}' for d in curve.dropped_levels)}" if curve.dropped_levels else ""))
+    per = units.registry().Quantity(abs(curve.slope), f"1/{cal.conc_unit}")
+    direction = "decrease" if curve.slope < 0 else "increase"
+    plate.record["standard_curve_points"] = Table(cal.points, {"concentration": cal.conc_unit,
+                                                               "signal": plate.signal_unit})
+    plate.record["standard_curve"] = Table(cal.summary)
+    return {**settings, "signal_per_conc": per, "direction": direction}
+
+
 class KernelRates(RateMethod):
     """Shared kernel for methods that call a function ``f(time, signal, s0=, signal_per_conc=, **kw)`` named by
     ``function`` (``"module:name"``, imported on first use)."""
@@ -62,7 +95,8 @@ class KernelRates(RateMethod):
     def kernel(self, time: Any, signal: Any, plate: PlateView) -> Any:
         import importlib
 
-        s0, per = conversion(plate, self.settings, plate.warn)
+        settings = own_calibration(plate, signal, self.settings)
+        s0, per = conversion(plate, settings, plate.warn)
         module, name = self.function.split(":")
         func = getattr(importlib.import_module(module), name)
         kwargs = {k: self._value(k) for k in self.kernel_params}
@@ -93,6 +127,30 @@ class AutoRates(KernelRates):
         "estimate": Param.choice(("quadratic", "select"), "quadratic",
                                  "v0 from the window's quadratic (no low bias from curvature), or 'select': the "
                                  "straight line where curvature is not significant (smaller scatter on noisy wells)"),
+    }
+
+
+class ModelChoiceRates(KernelRates):
+    """Per well, the rate model the well's own reads support: the integrated Michaelis–Menten or power-law
+    curve when it describes the reads within the noise (and, for the power law, agrees at t = 0 with a
+    model-free quadratic), else the slope at t = 0 of a quadratic through the reads up to 20 % conversion;
+    wells with a lag get the lag/decay model. Single-read spikes are masked first (docs/rates.md)."""
+
+    method, version = "model-choice", "1.0"
+    default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
+    summary = "per well: whole-curve model if it fits within the noise, else early quadratic; spikes masked"
+    function = "vzero.plugins.rates.choice:model_choice"
+    kernel_params = ("min_points", "lof_ratio", "agree_z", "window_conversion", "find_lag")
+    params = {
+        **CONVERSION_PARAMS,
+        "min_points": Param("int", 8, "reads needed for any estimate", low=4),
+        "lof_ratio": Param("float", 1.4, "residual RMS over read noise up to which a whole-curve model is "
+                           "taken to describe the well", low=1.0),
+        "agree_z": Param("float", 2.0, "standard errors within which a power-law curve's v0 must agree with "
+                         "the early quadratic's", low=0.5),
+        "window_conversion": Param("float", 0.20, "fraction of substrate converted up to which the fallback "
+                                   "quadratic is fitted", low=0.01, high=1.0),
+        "find_lag": Param("bool", True, "use the lag/decay model on wells with a detected lag"),
     }
 
 
@@ -181,5 +239,5 @@ class WindowRates(RateMethod):
 
 @hookimpl
 def vzero_register(registry: Any) -> None:
-    for stage in (WindowRates, AutoRates, PolynomialRates, ProgressRates, LagDecayRates):
+    for stage in (WindowRates, AutoRates, ModelChoiceRates, PolynomialRates, ProgressRates, LagDecayRates):
         registry.add(stage)

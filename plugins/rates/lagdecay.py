@@ -205,6 +205,10 @@ def lag_decay(
         extra["k_decay"][todo], extra["k_decay_stderr"][todo] = k, se[:, 2]
         extra["rmse_over_noise"][todo] = ratio
         out["flags"][todo[failed]] |= int(Flag.FIT_FAILED)
+        # a decay constant significantly below zero is a rate that rises: a lag the detector missed
+        with np.errstate(invalid="ignore"):
+            rising = (k + z * se[:, 2] < 0) & ~failed
+        out["flags"][todo[rising]] |= int(Flag.LAG)
         full = conversion_scale(s0, signal_per_conc, n_w)
         if full is not None:
             span_t = t[-1] - ts[todo]

@@ -16,8 +16,10 @@ from vzero.plugins.kinetics.rate_result import RateResult
 
 #: Scale from the median absolute deviation to the standard deviation of a normal distribution.
 MAD_TO_SD = 1.4826
-#: Default multiple of the read noise below which a well's total change counts as no signal.
-NO_SIGNAL_FACTOR = 5.0
+#: |t| of the straight line through all of a well's reads (slope over its standard error from the read
+#: noise) at or below which the well has no signal: with white noise the chance that a well without change
+#: passes it is about 6e-5. A line 11 standard errors from zero (a small but real slope) always gets a rate.
+NO_SIGNAL_T = 4.0
 #: Default minimum |v0| / stderr(v0); below it a rate is flagged NOISY (a relative error above 10 %).
 NOISY_MIN_T = 10.0
 
@@ -114,7 +116,8 @@ class Screen:
     ``valid`` is ``[n_wells, n_time]`` (finite reads); ``sigma`` the read noise, at least 1e-7 times the
     largest |read| (below any real reader's resolution) so that noise-free simulations do not divide by
     zero; ``change`` the signed total change (mean of the last few reads minus mean of the first few);
-    ``usable`` the wells a kernel should work on.
+    ``usable`` the wells a kernel should work on; ``slope_t`` the t statistic of the straight line through
+    all finite reads (slope over its standard error from ``sigma``).
     """
 
     valid: np.ndarray
@@ -123,20 +126,24 @@ class Screen:
     change: np.ndarray
     flags: np.ndarray
     usable: np.ndarray
+    slope_t: np.ndarray
 
 
 def screen(
     signal: np.ndarray,
     *,
     min_points: int,
-    no_signal_factor: float = NO_SIGNAL_FACTOR,
+    no_signal_t: float = NO_SIGNAL_T,
     time: np.ndarray | None = None,
 ) -> Screen:
     """Flag wells with no determinable rate before any fitting.
 
-    ALL_MISSING: no finite read. TOO_FEW_POINTS: fewer than ``min_points`` finite reads. NO_SIGNAL: the
-    total change ``|mean(last m) - mean(first m)|`` (m = 3 reads, fewer if the well has few) is at most
-    ``no_signal_factor`` times the read noise (this includes constant wells).
+    ALL_MISSING: no finite read. TOO_FEW_POINTS: fewer than ``min_points`` finite reads. NO_SIGNAL: a
+    statistical decision, the slope of the straight line through every finite read is not distinguishable
+    from zero, ``|slope| / SE(slope) <= no_signal_t`` with ``SE = sigma / sqrt(sum (t - mean t)²)`` from the
+    read noise (this includes constant wells). A curve that rises and levels off, or starts after a lag,
+    still has a line slope many standard errors from zero. ``change`` (mean of the last m reads minus the
+    first m, m = 3 or fewer) gives the direction of the signal.
     """
     valid = np.isfinite(signal)
     n_valid = valid.sum(axis=1)
@@ -159,10 +166,27 @@ def screen(
             scale = np.nanmax(np.abs(np.where(valid, signal, np.nan)), axis=1, initial=0.0)
     sigma = read_noise(signal, time)
     sigma = np.fmax(np.nan_to_num(sigma, nan=0.0), 1e-7 * np.fmax(scale, 1e-300))
+    slope_t = line_t(signal, valid, time, sigma)
     small = n_valid >= min_points
-    no_sig = small & ~(np.abs(change) > no_signal_factor * sigma)
+    no_sig = small & ~(np.abs(slope_t) > no_signal_t)
     flags[no_sig] |= int(Flag.NO_SIGNAL)
-    return Screen(valid, n_valid, sigma, change, flags, flags == 0)
+    return Screen(valid, n_valid, sigma, change, flags, flags == 0, slope_t)
+
+
+def line_t(signal: np.ndarray, valid: np.ndarray, time: np.ndarray | None, sigma: np.ndarray) -> np.ndarray:
+    """t statistic of the least-squares slope through each well's finite reads, ``slope * sqrt(Sxx) / sigma``
+    (NaN for wells with fewer than two reads)."""
+    n_t = signal.shape[1]
+    t = np.arange(n_t, dtype=float) if time is None else np.asarray(time, dtype=float)
+    w = valid.astype(float)
+    yz = np.where(valid, signal, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        n = w.sum(axis=1)
+        tbar = (w @ t) / n
+        dt = (t[None, :] - tbar[:, None]) * w
+        sxx = (dt * dt).sum(axis=1)
+        slope = (dt * yz).sum(axis=1) / sxx
+        return slope * np.sqrt(sxx) / sigma
 
 
 def conversion_scale(

@@ -347,7 +347,9 @@ def pretty_unit(unit: str) -> str:
 def summary_counts(rates: pd.DataFrame, used: np.ndarray | None) -> dict[str, Any]:
     """Wells, samples, flagged wells, wells with a rate, wells used in the fit."""
     n = len(rates)
-    flagged = sum(1 for f in rates.get("flags", pd.Series([], dtype=object)) if flag_list(f))
+    is_sample = (rates["role"].astype(str) == "sample").to_numpy() if "role" in rates else np.ones(n, bool)
+    flags = rates.get("flags", pd.Series([""] * n, dtype=object, index=rates.index))
+    flagged = sum(1 for f, s in zip(flags, is_sample, strict=True) if s and flag_list(f))  # samples only
     rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce")
     samples = int((rates["role"].astype(str) == "sample").sum()) if "role" in rates else n
     return {"wells": n, "samples": samples, "flagged": flagged, "with_rate": int(np.isfinite(rate).sum()),

@@ -34,6 +34,20 @@ def test_good_recipe_validates(plugins):
     assert rec.plates[0].files == {"data": "plate.csv", "layout": "layout.csv"}
 
 
+def test_a_step_without_method_gets_the_kinds_default(plugins):
+    # the rates stage declares one default method (model-choice); import declares none, so it stays required
+    text = GOOD.replace("""  - rates:
+      method: window
+      start: "0 s"
+      end: "60 s"
+""", "  - rates: {}\n")
+    rec = _check(text, plugins)
+    assert [s.method for s in rec.steps] == ["table", "model-choice"]
+    with pytest.raises(RecipeError) as err:
+        _check(text.replace("  - import: {method: table}", "  - import: {}"), plugins)
+    assert "missing 'method'" in str(err.value)
+
+
 def test_misspelt_parameter_names_line_path_and_closest(plugins):
     text = GOOD.replace('      end: "60 s"', '      ennd: "60 s"')
     with pytest.raises(RecipeError) as err:

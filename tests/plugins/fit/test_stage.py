@@ -49,7 +49,7 @@ def _simulated() -> pd.DataFrame:
     low = np.array([1, 2, 4, 6, 8, 10.0])
     rows = (_rows("mm", s, mm) + _rows("coop", sh, hill) + _rows("few", [5, 5, 50, 50], [4, 4.1, 9, 9.1])
             + _rows("dead", low, -0.01 * low) + _rows("linear", low, 0.01 * low * (1 + 0.01 * np.sin(low))))
-    rows += [{**rows[0], "well": "H1", "rate": 1e6, "flags": "saturated"},
+    rows += [{**rows[0], "well": "H1", "rate": 1e6, "flags": "too_few_points"},
              {**rows[0], "well": "H2", "rate": 5e5, "role": "blank"}]
     return pd.DataFrame(rows)
 
@@ -82,7 +82,7 @@ def test_estimates_units_and_kcat(result) -> None:
     eff = _param(fits, "mm", "michaelis-menten", "kcat/Km")
     # kcat/Km in 1/(M s): (1/s) / (Km in M)
     assert eff.estimate == pytest.approx(kcat.estimate / (km.estimate * 1e-6), rel=1e-9)
-    # the flagged (saturated) well and the blank well were not fitted
+    # the flagged (too few points) well and the blank well were not fitted
     assert _param(fits, "mm", "michaelis-menten", "Km").n_points == 24
 
 

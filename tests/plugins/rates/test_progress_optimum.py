@@ -50,7 +50,11 @@ def test_noisy_wells_get_the_least_squares_optimum() -> None:
     plate = simulate_plate(t, s0, km, 0.04, signal_per_conc=SPC, baseline=0.05, noise=0.001, seed=11)
     res = progress_curve(t, plate.signal, s0=s0, signal_per_conc=SPC)
     checked = 0
-    for i in np.flatnonzero(np.isfinite(res.v0)):  # wells without signal have no rate, by another rule
+    # wells whose total change is within 5 read noise (0.005 AU) are left out: their cost surface is flat and the
+    # two solvers stop at different places (seen on the lowest well, S0 10 µM with Km 250 µM: t of the line
+    # through all reads about 10, so it gets a rate, but Km and the curvature are undetermined)
+    weak = np.abs(plate.signal[:, -3:].mean(axis=1) - plate.signal[:, :3].mean(axis=1)) < 0.005
+    for i in np.flatnonzero(np.isfinite(res.v0) & ~weak):
         v_ref, km_ref = _reference_v0(t, plate.signal[i], s0[i])
         if km_ref > 1e5 * s0[i]:
             continue  # the optimum is a straight line: nothing curved to miss
