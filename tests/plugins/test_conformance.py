@@ -30,6 +30,7 @@ SETTINGS = {
     ("rates", "polynomial"): {"window": "120 s"},
     ("rates", "progress"): {"epsilon": "6220 M^-1 cm^-1", "pathlength": "0.55 cm"},
     ("rates", "lag-decay"): {},
+    ("rates", "model-choice"): {"epsilon": "6220 M^-1 cm^-1", "pathlength": "0.55 cm"},
     ("convert", "beer-lambert"): {"epsilon": "6220 M^-1 cm^-1", "pathlength": "0.55 cm"},
     ("convert", "standard-curve"): {},
     ("fit", "nls"): {"profile": False},
