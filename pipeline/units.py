@@ -26,7 +26,7 @@ def registry() -> Any:
     from importlib import resources
 
     pint = _import_pint()
-    definitions = resources.files("pipeline").joinpath("units.txt")
+    definitions = resources.files("vzero").joinpath("units.txt")
     with resources.as_file(definitions) as path:
         ureg = pint.UnitRegistry(str(path), autoconvert_offset_to_baseunit=True, cache_folder=None)
     pint.set_application_registry(ureg)
