@@ -345,3 +345,18 @@ def test_replicate_weighting_uses_sample_sd_with_a_floor() -> None:
     np.testing.assert_allclose(sigma, want, rtol=1e-12)
     sigma, note = fit_run._sigma("replicate", y[:3], levels[:3])
     assert sigma is None and "two or more levels" in note
+
+
+def test_comparison_with_a_failed_nested_model() -> None:
+    # the Hill fit failed: no F-test, Michaelis-Menten preferred as the only model, the failed row kept
+    n = 20
+    mm = _stub(5.0, n, 2)
+    failed = engine.FitResult(("a", "b", "c"), {}, False, "did not converge", 0, np.nan, n - 3, n, np.nan, np.nan,
+                              np.full((3, 3), np.nan), np.full((3, 3), np.nan), False)
+    rows, preferred, reason = compare.compare_set({"michaelis-menten": mm, "hill": failed},
+                                                  {"hill": {"michaelis-menten": "h = 1"}})
+    assert preferred == "michaelis-menten" and reason == "lowest AICc (only model fitted)"
+    hill_row = next(r for r in rows if r["model"] == "hill")
+    assert np.isnan(hill_row["p"]) and np.isnan(hill_row["akaike_weight"]) and not hill_row["success"]
+    assert next(r for r in rows if r["model"] == "michaelis-menten")["akaike_weight"] == 1.0
+    assert compare.f_test(mm, failed, ("michaelis-menten", "hill")) is None
