@@ -36,6 +36,7 @@ from vzero.plugins.fit.catalog import BY_NAME
 from vzero.plugins.fit.stage import FitStage
 from vzero.registry import Registry
 from vzero.stage import StageInput
+from vzero.units import quantity
 
 DATA = Path(__file__).resolve().parents[2] / "data" / "reference"
 MM, HILL = BY_NAME["michaelis-menten"], BY_NAME["hill"]
@@ -360,3 +361,18 @@ def test_comparison_with_a_failed_nested_model() -> None:
     assert np.isnan(hill_row["p"]) and np.isnan(hill_row["akaike_weight"]) and not hill_row["success"]
     assert next(r for r in rows if r["model"] == "michaelis-menten")["akaike_weight"] == 1.0
     assert compare.f_test(mm, failed, ("michaelis-menten", "hill")) is None
+
+
+def test_ki_conversion_needs_one_substrate_concentration() -> None:
+    # Cheng-Prusoff needs the S of the titration: wells at 6 and 6.5 uM (within 1 uM of each other, but not
+    # the same) are refused; 6 uM everywhere is converted, Ki = IC50/(1 + S/Km) (Cheng & Prusoff 1973)
+    model = BY_NAME["logistic-4p"]
+    i = np.geomspace(0.05, 50, 12)
+    v = model.evaluate([10.0, 0.5, 2.0, 1.0], {"inhibitor": i})
+    res = engine.fit(model.evaluate, model.jacobian, {"inhibitor": i}, v, [9, 1, 1, 1], model.params,
+                     bounds=dict(model.bounds))
+    cfg = {"mechanism": "competitive", "x": "substrate", "km": quantity("2 uM"), "km_stderr": None}
+    same = fit_run._ki_rows(model, res, np.full(12, 6.0), cfg, "nM", "uM", 0.95)[0]
+    assert same["estimate"] == pytest.approx(2.0 / (1 + 6 / 2), rel=1e-6)
+    mixed = fit_run._ki_rows(model, res, np.r_[np.full(6, 6.0), np.full(6, 6.5)], cfg, "nM", "uM", 0.95)[0]
+    assert np.isnan(mixed["estimate"]) and "one positive substrate concentration" in mixed["note"]
