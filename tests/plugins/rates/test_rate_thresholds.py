@@ -157,3 +157,15 @@ def test_auto_needs_min_points_finite_reads_in_its_window() -> None:
     r = auto(T[:8], y, find_lag=False)
     assert not np.isfinite(r.v0[0]) and np.isfinite(r.v0[1])
     assert r.n_points[1] >= 6
+
+
+def test_window_flags_and_span_on_edge_wells() -> None:
+    # a clean well carries no flag; an empty well only ALL_MISSING with no window; a well with one read in
+    # the window has that read as its span but no rate
+    t = np.arange(10) * 10.0
+    y = np.vstack([0.1 + 1e-3 * t, np.full(10, np.nan), np.r_[0.1, np.full(9, np.nan)]])
+    r = window_slopes(t, y, 0.0, 90.0)
+    assert list(r.flags) == [0, int(Flag.ALL_MISSING) | int(Flag.TOO_FEW_POINTS), int(Flag.TOO_FEW_POINTS)]
+    assert np.isnan(r.window_start_s[1]) and np.isnan(r.window_end_s[1])
+    assert r.window_start_s[2] == 0.0 and r.window_end_s[2] == 0.0 and np.isnan(r.v0[2])
+    assert r.window_end_s[0] == 90.0 and r.v0[0] == pytest.approx(1e-3, rel=1e-9)
