@@ -169,3 +169,26 @@ def test_window_flags_and_span_on_edge_wells() -> None:
     assert np.isnan(r.window_start_s[1]) and np.isnan(r.window_end_s[1])
     assert r.window_start_s[2] == 0.0 and r.window_end_s[2] == 0.0 and np.isnan(r.v0[2])
     assert r.window_end_s[0] == 90.0 and r.v0[0] == pytest.approx(1e-3, rel=1e-9)
+
+
+def test_empty_well_has_no_window_in_polynomial() -> None:
+    y = np.vstack([0.1 + 1e-3 * T, np.full(T.size, np.nan)])
+    r = polynomial(T, y)
+    assert r.window_start_s[0] == 0.0 and np.isnan(r.window_start_s[1]) and np.isnan(r.window_end_s[1])
+    assert _has(r, Flag.ALL_MISSING)[1]
+
+
+def test_auto_select_uses_the_straight_line_where_curvature_is_not_significant() -> None:
+    # estimate="select": on straight wells the reported v0 and SE are those of the least-squares line over
+    # the chosen window (numpy.polyfit as the independent reference; SE = sigma / sqrt(Sxx))
+    rng = np.random.default_rng(12)
+    y = 0.1 + 2e-4 * T[None, :] + 0.002 * rng.standard_normal((8, T.size))
+    r = auto(T, y, find_lag=False, estimate="select")
+    straight = np.flatnonzero(~_has(r, Flag.CURVATURE))
+    assert straight.size >= 4
+    for i in straight:
+        inside = (T >= r.window_start_s[i]) & (T <= r.window_end_s[i])
+        slope = np.polyfit(T[inside], y[i, inside], 1)[0]
+        assert r.v0[i] == pytest.approx(slope, rel=1e-9)
+        sxx = np.sum((T[inside] - T[inside].mean()) ** 2)
+        assert r.stderr[i] == pytest.approx(r.extra["read_noise"][i] / np.sqrt(sxx), rel=1e-9)
