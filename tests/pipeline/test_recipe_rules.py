@@ -66,3 +66,15 @@ def test_verify_reports_a_missing_results_group(tmp_path: Path) -> None:
     report = verify(copy)
     assert not report.ok
     assert "group /results is missing" in report.problems
+
+
+def test_cross_parameter_rules_run_only_on_valid_parameters(plugins) -> None:
+    # a wrong epsilon is reported alone; the "exactly one pathlength source" rule waits until the parameters
+    # themselves are valid (else it would judge half-parsed settings)
+    step = '  - convert: {method: beer-lambert, epsilon: "6220 cm"}\n'
+    with pytest.raises(RecipeError) as err:
+        _check(GOOD.replace("  - fit: {method: nls}\n", step), plugins)
+    assert "steps[2].convert.epsilon" in str(err.value)
+    assert "pathlength" not in str(err.value)
+    with pytest.raises(RecipeError, match="pathlength"):
+        _check(GOOD.replace("  - fit: {method: nls}\n", step.replace("6220 cm", "6220 M^-1 cm^-1")), plugins)
