@@ -44,3 +44,17 @@ def test_sign_warning_only_when_most_sample_rates_are_negative(negative: int, wa
     rates = [-1e-3] * negative + [1e-3] * (4 - negative) + [-1e-3]  # the last is a blank: not counted
     _, warnings = _convert(rates, [1e-5] * 5, [np.nan] * 5, ["sample"] * 4 + ["blank"])
     assert any("negative after conversion" in w for w in warnings) == warned
+
+
+@pytest.mark.parametrize(("bend", "dropped"), [(0.0025, ()), (0.003, (5.0,))])
+def test_standard_curve_drops_the_top_level_only_below_p_of_five_percent(bend: float, dropped: tuple) -> None:
+    # invented standards 0-5 in duplicate with a slight downward bend: the quadratic term's F-test gives
+    # p = 0.076 (kept, straight enough at alpha 0.05) and p = 0.046 (top level dropped)
+    from vzero.plugins.convert.standard_curve import _curvature_p, _ols, fit_standard_curve
+
+    x = np.repeat(np.arange(6.0), 2)
+    y = x + np.array([0.01, -0.01, -0.02, 0.015, 0.01, -0.005, 0.0, 0.02, -0.015, 0.0, 0.01, -0.01])
+    y -= bend * (x - 2.5) ** 2
+    _, _, rss = _ols(x, y, 1)
+    assert (_curvature_p(x, y, rss) < 0.05) == bool(dropped)
+    assert fit_standard_curve(x, y).dropped_levels == dropped
