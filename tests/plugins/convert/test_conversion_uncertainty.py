@@ -10,6 +10,7 @@ import pytest
 from vzero.data import Table
 from vzero.params import validate
 from vzero.plugins.convert import BeerLambert
+from vzero.plugins.convert.standard_curve import _curvature_p, _ols, fit_standard_curve
 from vzero.stage import StageInput
 
 
@@ -50,8 +51,6 @@ def test_sign_warning_only_when_most_sample_rates_are_negative(negative: int, wa
 def test_standard_curve_drops_the_top_level_only_below_p_of_five_percent(bend: float, dropped: tuple) -> None:
     # invented standards 0-5 in duplicate with a slight downward bend: the quadratic term's F-test gives
     # p = 0.076 (kept, straight enough at alpha 0.05) and p = 0.046 (top level dropped)
-    from vzero.plugins.convert.standard_curve import _curvature_p, _ols, fit_standard_curve
-
     x = np.repeat(np.arange(6.0), 2)
     y = x + np.array([0.01, -0.01, -0.02, 0.015, 0.01, -0.005, 0.0, 0.02, -0.015, 0.0, 0.01, -0.01])
     y -= bend * (x - 2.5) ** 2
