@@ -10,7 +10,8 @@ made the code hang). Survivors are written with their place and change, for a pe
 "equivalent" (the change cannot alter a result) or "needs a test".
 
 Budget: the machine is shared; ``--sample N`` takes N mutants per module (a seeded draw, the same every
-time), ``--timeout`` bounds each mutant, and ``--jobs`` runs that many mutants at once (default 1).
+time), ``--timeout`` bounds each mutant (300 s by default: with a shorter limit a slow run of the tests on a busy
+machine is mistaken for a hang), and ``--jobs`` runs that many mutants at once (default 1).
 Results: a JSON file (``--out``) with every mutant and its outcome, and a summary on stdout.
 
 Examples::
@@ -256,7 +257,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--module", action="append", help="only this module (repeatable); default: all targets")
     ap.add_argument("--sample", type=int, default=25, help="mutants per module (seeded draw; 0 = all)")
     ap.add_argument("--seed", type=int, default=20261203)
-    ap.add_argument("--timeout", type=float, default=120.0, help="seconds per mutant")
+    ap.add_argument("--timeout", type=float, default=300.0, help="seconds per mutant (generous: on a busy machine a "
+                    "targeted run takes over a minute, and a timeout counts as killed)")
     ap.add_argument("--jobs", type=int, default=1)
     ap.add_argument("--out", default="mutants.json")
     ap.add_argument("--list", action="store_true", help="count the mutants per module and stop")

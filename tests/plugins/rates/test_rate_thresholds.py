@@ -192,3 +192,22 @@ def test_auto_select_uses_the_straight_line_where_curvature_is_not_significant()
         assert r.v0[i] == pytest.approx(slope, rel=1e-9)
         sxx = np.sum((T[inside] - T[inside].mean()) ** 2)
         assert r.stderr[i] == pytest.approx(r.extra["read_noise"][i] / np.sqrt(sxx), rel=1e-9)
+
+
+def test_read_noise_needs_five_reads() -> None:
+    # three second-difference triples (five reads) are the fewest the estimate uses (docstring of read_noise)
+    rng = np.random.default_rng(3)
+    y = 0.1 + 0.01 * rng.standard_normal((2, 5))
+    y[1, 0] = np.nan
+    sigma = noise.read_noise(y, np.arange(5.0))
+    assert np.isfinite(sigma[0]) and sigma[0] > 0 and np.isnan(sigma[1])
+
+
+def test_progress_goodness_is_r_squared_of_the_fit() -> None:
+    # R² = 1 − RSS/TSS with RSS = (rmse_over_noise × read_noise)² × (n − 3) (three parameters with known S0)
+    sim = simulate_plate(T, np.full(20, 1.0), 1.0, 1e-3, baseline=0.1, noise=0.002, seed=6)
+    r = progress_curve(T, sim.signal, s0=np.full(20, 1.0), signal_per_conc=1.0)
+    rss = (r.extra["rmse_over_noise"] * r.extra["read_noise"]) ** 2 * (T.size - 3)
+    tss = np.sum((sim.signal - sim.signal.mean(axis=1, keepdims=True)) ** 2, axis=1)
+    np.testing.assert_allclose(r.goodness, 1 - rss / tss, rtol=1e-9)
+    assert r.goodness_name == "r_squared"
