@@ -78,3 +78,15 @@ def test_cross_parameter_rules_run_only_on_valid_parameters(plugins) -> None:
     assert "pathlength" not in str(err.value)
     with pytest.raises(RecipeError, match="pathlength"):
         _check(GOOD.replace("  - fit: {method: nls}\n", step.replace("6220 cm", "6220 M^-1 cm^-1")), plugins)
+
+
+def test_plate_file_pattern_expanded_beside_the_recipe(plugins, tmp_path: Path) -> None:
+    # the default expander (no stand-in): one plate per matching file, named by its stem, in sorted order
+    (tmp_path / "plates").mkdir()
+    for name in ("run-2.csv", "run-1.csv", "other.csv", "layout.csv"):
+        (tmp_path / "plates" / name).write_text("x\n")
+    text = GOOD.replace("  - name: p\n    data: plate.csv\n    layout: layout.csv\n",
+                        '  - data: "plates/run-*.csv"\n    layout: plates/layout.csv\n')
+    rec = check(parse(text, str(tmp_path / "recipe.yaml")), plugins.registry)
+    assert [p.name for p in rec.plates] == ["run-1", "run-2"]
+    assert rec.plates[0].files["data"] == str(Path("plates") / "run-1.csv")
