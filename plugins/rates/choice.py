@@ -29,12 +29,12 @@ from __future__ import annotations
 
 import numpy as np
 from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.auto import _inv3_sym
 from vzero.plugins.rates.lagdecay import detect_lag, lag_decay
 from vzero.plugins.rates.lagfit import lag_clock_fit
 from vzero.plugins.rates.noise import conversion_scale, flag_noisy, screen
 from vzero.plugins.rates.progress import progress_curve
-from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.spikes import find_spikes
 
 MODEL_CODES = {"michaelis-menten": 0, "power": 1, "quadratic": 2, "lag-decay": 3}

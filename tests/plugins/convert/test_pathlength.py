@@ -47,7 +47,8 @@ def test_water_peak_formula() -> None:
     # REFERENCES.md 7.1: (A977 - A900) = 0.0990 with k = 0.18 -> l = 0.55 cm (rel 1e-12).
     assert_allclose(pathlength_from_water_peak(0.1390, 0.0400, 0.18), 0.55, rtol=1e-12)
     out = pathlength_from_water_peak(np.array([0.2, 0.05]), np.array([0.1, 0.06]), 0.18)
-    assert_allclose(out[0], 0.1 / 0.18) and np.isnan(out[1])
+    assert_allclose(out[0], 0.1 / 0.18)
+    assert np.isnan(out[1])  # A977 below A900: no pathlength
     with pytest.raises(RecipeError):
         pathlength_from_water_peak(0.2, 0.1, 0.0)
 

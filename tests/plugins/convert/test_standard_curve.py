@@ -63,7 +63,8 @@ def test_to_conc_propagation_against_monte_carlo() -> None:
 def test_signal_to_conc_inverts_line() -> None:
     cur = fit_standard_curve([0, 10, 20, 30, 40], [0.1, 0.3, 0.5, 0.7, 0.9])
     x, se = cur.signal_to_conc(np.array([0.4, 0.8]))
-    assert_allclose(x, [15.0, 35.0], atol=1e-9) and (se >= 0).all()
+    assert_allclose(x, [15.0, 35.0], atol=1e-9)
+    assert (se >= 0).all()
 
 
 def test_errors() -> None:

@@ -9,9 +9,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.choice import model_choice
 from vzero.plugins.rates.noise import screen
-from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.spikes import find_spikes
 
 T = np.arange(90) * 10.0

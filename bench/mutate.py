@@ -1,0 +1,294 @@
+"""``python -m bench.mutate``: mutation testing of the numerical core, on demand (not in CI).
+
+Each mutant is one small change to one module, made on its syntax tree: an arithmetic operator swapped
+(+ and −, × and ÷, ** to ×), a comparison loosened or tightened (< and <=, > and >=, == and !=), ``and``
+and ``or`` swapped, a ``not`` dropped, a unary minus dropped, or a number changed (an integer k to k + 1, a
+float x to 2x, 0.0 to 1.0). The mutant is written into a private copy of the source tree (the checkout is
+never touched) and the module's own targeted tests (:data:`TARGETS`, slow tests excluded) are run on it in a
+fresh process with a timeout: a failing test kills the mutant; a timeout counts as killed too (the change
+made the code hang). Survivors are written with their place and change, for a person to sort into
+"equivalent" (the change cannot alter a result) or "needs a test".
+
+Budget: the machine is shared; ``--sample N`` takes N mutants per module (a seeded draw, the same every
+time), ``--timeout`` bounds each mutant (300 s by default: with a shorter limit a slow run of the tests on a busy
+machine is mistaken for a hang), and ``--jobs`` runs that many mutants at once (default 1).
+Results: a JSON file (``--out``) with every mutant and its outcome, and a summary on stdout.
+
+Examples::
+
+    python -m bench.mutate --list                      # count mutants per module
+    python -m bench.mutate --sample 25 --out mut.json  # the run recorded in docs/testing.md
+    python -m bench.mutate --module plugins/fit/compare.py --sample 0
+"""
+
+from __future__ import annotations
+
+import argparse
+import ast
+import concurrent.futures as cf
+import json
+import os
+import random
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+STATS = "tests/plugins/fit/test_statistics.py"
+STAGE = "tests/plugins/fit/test_stage.py"
+RATES = ["tests/plugins/rates/test_rate_thresholds.py", "tests/plugins/rates/test_se_quick.py",
+         "tests/plugins/rates/test_rates_closed_form.py", "tests/plugins/rates/test_rates_kernels.py"]
+CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
+READERS = ["tests/plugins/importers/test_time_formats.py", "tests/plugins/importers/test_readers.py",
+           "tests/plugins/importers/test_plain_numbers.py"]
+
+#: module (path in the checkout) -> (functions to mutate, or () for the whole module; targeted tests, the
+#: quickest that exercise the module, fastest first)
+TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
+    "plugins/fit/compare.py": ((), [STATS]),
+    "plugins/fit/engine.py": ((), [STATS, "tests/plugins/fit/test_engine_nist.py"]),
+    "plugins/fit/run.py": (("_sigma", "_saturation_problem", "_derived_row", "_ki_rows", "_derived", "_group_enzyme"),
+                           [STATS, STAGE, "tests/plugins/fit/test_titration.py"]),
+    "plugins/fit/models.py": ((), ["tests/plugins/fit/test_models.py", STATS]),
+    "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"), [STAGE]),
+    "plugins/rates/noise.py": ((), RATES),
+    "plugins/rates/window.py": ((), RATES),
+    "plugins/rates/auto.py": ((), RATES),
+    "plugins/rates/polynomial.py": ((), RATES),
+    "plugins/rates/progress.py": ((), RATES),
+    "plugins/rates/lagdecay.py": ((), RATES),
+    "plugins/convert/__init__.py": ((), CONVERT),
+    "plugins/convert/pathlength.py": ((), CONVERT),
+    "plugins/convert/standard_curve.py": ((), CONVERT),
+    "plugins/blank/__init__.py": ((), ["tests/plugins/blank", "tests/plugins/test_builtin_stages.py",
+                                       "tests/properties/test_core_props.py"]),
+    "plugins/importers/readers.py": (("_cell_text", "_seconds_text", "_plain_numbers", "_numbers", "_times",
+                                      "_check_increasing", "_detect_decimal"), READERS),
+    "pipeline/recipe.py": (("_check", "_check_steps", "check"), ["tests/pipeline/test_recipe_rules.py",
+                                                                  "tests/pipeline/test_recipe.py"]),
+    "pipeline/audit/verify.py": ((), ["tests/pipeline/test_recipe_rules.py", "tests/pipeline/test_verify.py"]),
+}
+
+SWAP_BIN = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mult, ast.Pow: ast.Mult}
+SWAP_CMP = {ast.Lt: ast.LtE, ast.LtE: ast.Lt, ast.Gt: ast.GtE, ast.GtE: ast.Gt, ast.Eq: ast.NotEq, ast.NotEq: ast.Eq}
+
+
+@dataclass
+class Mutant:
+    module: str
+    line: int
+    col: int
+    change: str
+    index: int  # the n-th mutation site in the module, in walk order
+    outcome: str = ""
+    seconds: float = 0.0
+    detail: str = ""
+
+
+def _in_scope(tree: ast.Module, functions: tuple[str, ...]) -> list[ast.AST]:
+    """The nodes that may be mutated: the named functions' bodies (all module code when none are named),
+    without docstrings, annotations or decorators."""
+    roots: list[ast.AST] = [tree] if not functions else [
+        n for n in ast.walk(tree) if isinstance(n, ast.FunctionDef) and n.name in functions]
+    skip: set[int] = set()
+    for root in roots:
+        for n in ast.walk(root):
+            if isinstance(n, ast.FunctionDef | ast.AsyncFunctionDef | ast.ClassDef | ast.Module):
+                body = n.body
+                if body and isinstance(body[0], ast.Expr) and isinstance(body[0].value, ast.Constant):
+                    skip.update(id(x) for x in ast.walk(body[0]))
+                for d in getattr(n, "decorator_list", []):
+                    skip.update(id(x) for x in ast.walk(d))
+                if isinstance(n, ast.FunctionDef | ast.AsyncFunctionDef):
+                    if n.returns is not None:
+                        skip.update(id(x) for x in ast.walk(n.returns))
+                    for a in [*n.args.args, *n.args.kwonlyargs, *n.args.posonlyargs]:
+                        if a.annotation is not None:
+                            skip.update(id(x) for x in ast.walk(a.annotation))
+            if isinstance(n, ast.AnnAssign):
+                skip.update(id(x) for x in ast.walk(n.annotation))
+            if isinstance(n, ast.JoinedStr):  # text of messages
+                skip.update(id(x) for x in ast.walk(n))
+    seen: set[int] = set()
+    out = []
+    for root in roots:
+        for n in ast.walk(root):
+            if id(n) not in skip and id(n) not in seen:
+                seen.add(id(n))
+                out.append(n)
+    return out
+
+
+def _sites(node: ast.AST) -> list[str]:
+    """The mutations possible at one node, as short descriptions (applied by :func:`_apply`)."""
+    if isinstance(node, ast.BinOp) and type(node.op) in SWAP_BIN:
+        return [f"{type(node.op).__name__} -> {SWAP_BIN[type(node.op)].__name__}"]
+    if isinstance(node, ast.Compare) and len(node.ops) == 1 and type(node.ops[0]) in SWAP_CMP:
+        return [f"{type(node.ops[0]).__name__} -> {SWAP_CMP[type(node.ops[0])].__name__}"]
+    if isinstance(node, ast.BoolOp):
+        return ["And -> Or" if isinstance(node.op, ast.And) else "Or -> And"]
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.Not | ast.USub):
+        return [f"drop {type(node.op).__name__}"]
+    if isinstance(node, ast.Constant) and type(node.value) in (int, float):
+        v = node.value
+        new = v + 1 if isinstance(v, int) else (1.0 if v == 0 else 2 * v)
+        return [f"{v!r} -> {new!r}"]
+    return []
+
+
+def _apply(node: ast.AST, change: str) -> ast.AST:
+    """The mutated replacement for ``node``."""
+    if isinstance(node, ast.BinOp):
+        return ast.BinOp(node.left, SWAP_BIN[type(node.op)](), node.right)
+    if isinstance(node, ast.Compare):
+        return ast.Compare(node.left, [SWAP_CMP[type(node.ops[0])]()], node.comparators)
+    if isinstance(node, ast.BoolOp):
+        return ast.BoolOp(ast.Or() if isinstance(node.op, ast.And) else ast.And(), node.values)
+    if isinstance(node, ast.UnaryOp):
+        return node.operand
+    if isinstance(node, ast.Constant):
+        v = node.value
+        return ast.Constant(v + 1 if isinstance(v, int) else (1.0 if v == 0 else 2 * v))
+    raise ValueError(change)
+
+
+def mutants(module: str) -> list[Mutant]:
+    functions, _ = TARGETS[module]
+    tree = ast.parse((ROOT / module).read_text(encoding="utf-8"))
+    out = []
+    for node in _in_scope(tree, functions):
+        for change in _sites(node):
+            out.append(Mutant(module, getattr(node, "lineno", 0), getattr(node, "col_offset", 0), change, len(out)))
+    return out
+
+
+class _Swap(ast.NodeTransformer):
+    """Replaces one node (by identity) with another."""
+
+    def __init__(self, old: ast.AST, new: ast.AST) -> None:
+        self.old, self.new = old, new
+
+    def visit(self, node: ast.AST) -> ast.AST:
+        return self.new if node is self.old else super().visit(node)
+
+
+def mutated_source(m: Mutant) -> str:
+    functions, _ = TARGETS[m.module]
+    tree = ast.parse((ROOT / m.module).read_text(encoding="utf-8"))
+    k = 0
+    for node in _in_scope(tree, functions):
+        for change in _sites(node):
+            if k == m.index:
+                tree = ast.fix_missing_locations(_Swap(node, ast.copy_location(_apply(node, change), node)).visit(tree))
+                return ast.unparse(tree)
+            k += 1
+    raise IndexError(m.index)
+
+
+def _copy_tree(dest: Path) -> None:
+    """A private importable copy: dest/vzero (pipeline/) with dest/vzero/plugins (plugins/), and the tests."""
+    ignore = shutil.ignore_patterns("__pycache__", "*.pyc", ".ruff_cache")
+    shutil.copytree(ROOT / "pipeline", dest / "vzero", ignore=ignore)
+    shutil.copytree(ROOT / "plugins", dest / "vzero" / "plugins", ignore=ignore)
+    shutil.copytree(ROOT / "tests", dest / "tests", ignore=ignore)
+    for name in ("pyproject.toml", "configs", "docs"):
+        src = ROOT / name
+        (shutil.copytree(src, dest / name, ignore=ignore) if src.is_dir() else shutil.copy(src, dest / name))
+
+
+def _in_copy(module: str) -> str:
+    return "vzero/" + module.removeprefix("pipeline/") if module.startswith("pipeline/") else "vzero/" + module
+
+
+def _pytest(copy: Path, tests: list[str], timeout: float) -> tuple[str, str]:
+    env = {**os.environ, "PYTHONPATH": str(copy), "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1",
+           "PYTHONDONTWRITEBYTECODE": "1"}
+    cmd = [sys.executable, "-m", "pytest", "-x", "-q", "-p", "no:cacheprovider", "-m", "not slow and not browser",
+           "--no-header", *tests]
+    try:
+        proc = subprocess.run(cmd, cwd=copy, env=env, capture_output=True, text=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        return "killed (timeout)", ""
+    tail = proc.stdout.strip().splitlines()[-1:] or [""]
+    if proc.returncode == 0:
+        return "survived", tail[0]
+    if proc.returncode == 1:
+        return "killed", tail[0]
+    return f"error (exit {proc.returncode})", (proc.stdout + proc.stderr)[-400:]
+
+
+def run_one(m: Mutant, timeout: float) -> Mutant:
+    start = time.perf_counter()
+    with tempfile.TemporaryDirectory(prefix="vzero-mut-") as tmp:
+        copy = Path(tmp)
+        _copy_tree(copy)
+        try:
+            source = mutated_source(m)
+        except (SyntaxError, ValueError) as exc:  # a mutation that does not make valid Python
+            m.outcome, m.detail = "invalid", str(exc)
+            return m
+        (copy / _in_copy(m.module)).write_text(source, encoding="utf-8")
+        m.outcome, m.detail = _pytest(copy, TARGETS[m.module][1], timeout)
+    m.seconds = round(time.perf_counter() - start, 1)
+    return m
+
+
+def check_baseline(timeout: float) -> None:
+    """The targeted tests must pass on the unmutated copy (else every mutant looks killed)."""
+    with tempfile.TemporaryDirectory(prefix="vzero-mut-") as tmp:
+        copy = Path(tmp)
+        _copy_tree(copy)
+        probe = subprocess.run([sys.executable, "-c", "import vzero, vzero.plugins.fit; print(vzero.__file__)"],
+                               cwd=copy, env={**os.environ, "PYTHONPATH": str(copy)}, capture_output=True, text=True)
+        if not probe.stdout.strip().startswith(str(copy)):
+            raise SystemExit(f"the copy is not what gets imported ({probe.stdout.strip() or probe.stderr[-300:]})")
+        tests = sorted({t for _, ts in TARGETS.values() for t in ts})
+        outcome, detail = _pytest(copy, tests, timeout * 4)
+        if outcome != "survived":
+            raise SystemExit(f"targeted tests fail without any mutation: {outcome} {detail}")
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(prog="python -m bench.mutate", description=__doc__.splitlines()[0])
+    ap.add_argument("--module", action="append", help="only this module (repeatable); default: all targets")
+    ap.add_argument("--sample", type=int, default=25, help="mutants per module (seeded draw; 0 = all)")
+    ap.add_argument("--seed", type=int, default=20261203)
+    ap.add_argument("--timeout", type=float, default=300.0, help="seconds per mutant (generous: on a busy machine a "
+                    "targeted run takes over a minute, and a timeout counts as killed)")
+    ap.add_argument("--jobs", type=int, default=1)
+    ap.add_argument("--out", default="mutants.json")
+    ap.add_argument("--list", action="store_true", help="count the mutants per module and stop")
+    args = ap.parse_args(argv)
+    modules = args.module or list(TARGETS)
+    chosen: list[Mutant] = []
+    for mod in modules:
+        every = mutants(mod)
+        pick = every if args.sample <= 0 or args.sample >= len(every) else sorted(
+            random.Random(f"{args.seed}:{mod}").sample(every, args.sample), key=lambda m: m.index)
+        print(f"{mod}: {len(every)} mutants, {len(pick)} run")
+        chosen += pick
+    if args.list:
+        return 0
+    check_baseline(args.timeout)
+    results: list[Mutant] = []
+    with cf.ThreadPoolExecutor(args.jobs) as pool:
+        for m in pool.map(lambda m: run_one(m, args.timeout), chosen):
+            results.append(m)
+            print(f"{m.outcome:18s} {m.module}:{m.line} {m.change} ({m.seconds} s)", flush=True)
+            Path(args.out).write_text(json.dumps([asdict(r) for r in results], indent=1), encoding="utf-8")
+    killed = sum(r.outcome.startswith("killed") for r in results)
+    valid = sum(r.outcome != "invalid" and not r.outcome.startswith("error") for r in results)
+    print(f"\nkilled {killed} of {valid} mutants ({killed / max(valid, 1):.0%}); survivors:")
+    for r in results:
+        if r.outcome == "survived":
+            print(f"  {r.module}:{r.line}:{r.col} {r.change}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

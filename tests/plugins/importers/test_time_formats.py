@@ -1,0 +1,58 @@
+"""Times past one hour, in every time format the readers accept: text h:mm:ss, mm:ss / h:mm, numbers in
+s / min / h, and spreadsheet time and duration cells. Each expected value is the file's own text
+worked out by hand (1 h = 3600 s)."""
+
+from __future__ import annotations
+
+import datetime as dt
+import io
+
+import pytest
+from numpy.testing import assert_allclose
+from vzero.plugins.importers.readers import ReadOptions, read_table
+
+
+def _times(text: str, **kw: object) -> list[float]:
+    block = read_table(text.encode(), source="t.csv", options=ReadOptions(**kw))[0]  # type: ignore[arg-type]
+    return list(block.time_s)
+
+
+def test_hms_text_past_one_hour() -> None:
+    got = _times("Time,A1\n0:59:59,1\n1:00:00,2\n1:02:03.5,3\n25:00:01,4\n")
+    assert_allclose(got, [3599.0, 3600.0, 3723.5, 90001.0])
+
+
+def test_two_part_text_is_mm_ss_or_h_mm() -> None:
+    assert_allclose(_times("Time,A1\n59:30,1\n61:15,2\n"), [3570.0, 3675.0])  # mm:ss by default
+    assert_allclose(_times("Time,A1\n1:30,1\n2:05,2\n", time_unit="h"), [5400.0, 7500.0])  # h:mm
+
+
+@pytest.mark.parametrize(("label", "unit", "values", "seconds"), [
+    ("Time (h)", None, "1.5\n2.25", [5400.0, 8100.0]),
+    ("Time [min]", None, "61\n90", [3660.0, 5400.0]),
+    ("Time (s)", None, "3600\n7201", [3600.0, 7201.0]),
+    ("Time", "h", "1\n3", [3600.0, 10800.0]),
+    ("Time", "min", "75\n120", [4500.0, 7200.0]),
+])
+def test_numeric_times_in_each_unit(label: str, unit: str | None, values: str, seconds: list[float]) -> None:
+    rows = "".join(f"{v},{k}\n" for k, v in enumerate(values.split("\n")))
+    assert_allclose(_times(f"{label},A1\n{rows}", time_unit=unit), seconds)
+
+
+def test_decimal_comma_hms() -> None:
+    assert_allclose(_times("Time;A1\n1:00:00,5;1\n1:00:01,5;2\n", decimal=","), [3600.5, 3601.5])
+
+
+def test_spreadsheet_time_and_duration_cells() -> None:
+    import openpyxl
+
+    wb = openpyxl.Workbook(write_only=True)
+    ws = wb.create_sheet("Data")
+    ws.append(["Time", "A1"])
+    ws.append([dt.time(0, 30, 0), 1.0])
+    ws.append([dt.time(1, 2, 3), 2.0])
+    ws.append([dt.timedelta(hours=26, minutes=1), 3.0])
+    buf = io.BytesIO()
+    wb.save(buf)
+    block = read_table(buf.getvalue(), source="t.xlsx", options=ReadOptions())[0]
+    assert_allclose(block.time_s, [1800.0, 3723.0, 93660.0])
