@@ -94,7 +94,8 @@ SCHEMAS = (
             Column("errorbars", "bool", "whether stderr and limits could be computed"),
             Column("note", "text", "why a value or an uncertainty is missing"),
         ), "One row per group, model and parameter."),
-    }, "Rate laws fitted to the pooled rates, per group.", required=("fits",)),
+    }, "Rate laws fitted to the pooled rates, per group; several fit steps add up (a `step` column keeps them "
+       "apart).", required=("fits",), stacks=True),
     KindSchema("report", {}, "A report of the run, as files.", files=True),
 )
 

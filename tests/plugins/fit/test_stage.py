@@ -230,10 +230,13 @@ def test_unknown_flag_names_and_missing_groups_do_not_break_the_fit() -> None:
                           "flags": ["spike"] + [""] * (s.size - 1)})
     settings, problems = validate(FitStage.params, {"models": ["michaelis-menten"]})
     assert not problems
+    said: list[str] = []
     data = StageInput({"rates": Table(frame, {"rate": "uM/min", "substrate": "uM"})}, None, {}, {},
-                      make_manager(autoload=False).registry, lambda _: None)
+                      make_manager(autoload=False).registry, said.append)
     fits = FitStage(**settings).run(data).artifacts["fits"].frame
-    assert set(fits["group"]) == {"g", ""}
+    assert set(fits["group"]) == {"g"}  # the group "" (one well, no substrate series) is skipped, in one line
+    assert said == ["fit: not fitted where the model cannot apply: michaelis-menten on  (no substrate series "
+                    "without inhibitor)"]
     assert fits.loc[(fits["group"] == "g") & (fits["parameter"] == "Km"), "n_points"].iloc[0] == s.size - 1
 
 
