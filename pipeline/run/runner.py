@@ -194,7 +194,7 @@ def run(
     t_start = time.perf_counter()
     started = utc_now()
     run_id = uuid.uuid4().hex
-    warnings: list[str] = []
+    warnings: list[str] = list(rec.notices)  # notices of the check (old plate keys)
     plate_steps = [s for s in rec.steps if _scope(plugins, s) == "plate"]
     later_steps = [s for s in rec.steps if _scope(plugins, s) != "plate"]
 
@@ -570,7 +570,7 @@ def check_inputs(
                f"{plugins.registry.get(s.kind, s.method).source.path}; its input checks were not run"
                for s in plate_steps if local(s)]
     problems: list[str] = []
-    warnings: list[str] = []
+    warnings: list[str] = list(rec.notices)
     for plate in rec.plates:
         try:
             raws = {key: _raw(source, key, rel) for key, rel in plate.files.items()}

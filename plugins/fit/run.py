@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero import units as pu
+from vzero.audit.reader import OLD_PARAMETERS
 from vzero.data import Table
 from vzero.errors import FitError
 from vzero.params import closest
@@ -290,7 +291,9 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         starts = cfg["start"].get(model.name, {})
         for k in [*fixed, *bounds, *starts]:
             if k not in model.params:
-                raise FitError(f"fit: model {model.name} has no parameter {k!r}",
+                new = OLD_PARAMETERS.get(model.name, {}).get(k)
+                raise FitError(f"fit: model {model.name} has no parameter {k!r}"
+                               + (f" (it is now called {new!r})" if new else ""),
                                hint=f"Its parameters are {', '.join(model.params)}.")
         n_free = len(model.params) - len(fixed)
         todo: list[tuple[str, np.ndarray]] = []
@@ -440,20 +443,20 @@ def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray,
 
 def _with_comparison(fits: pd.DataFrame, comp_rows: list[dict[str, Any]]) -> pd.DataFrame:
     """The model comparison on every row of the fits table: the model's AICc difference from the best and
-    Akaike weight, the group's preferred model and whether this row's model is it (the full comparison, with
-    F-tests and reasons, is the model_comparison table)."""
+    Akaike weight, the group's selected model and whether this row's model is it (the full comparison, with
+    F-tests and the reason for the selection, is the model_comparison table)."""
     if not comp_rows or fits.empty:
-        return fits.assign(delta_aicc=np.nan, akaike_weight=np.nan, preferred_model="", preferred=False)
+        return fits.assign(delta_aicc=np.nan, akaike_weight=np.nan, selected_model="", selected=False)
     by_key: dict[tuple[str, str], dict[str, Any]] = {}
     for r in comp_rows:  # the first row of each (group, model), as the comparison lists them
         by_key.setdefault((str(r["group"]), str(r["model"])), r)
     found = [by_key.get(k, {}) for k in zip(fits["group"].astype(str), fits["model"].astype(str), strict=True)]
-    preferred = ["" if pd.isna(r.get("preferred")) else str(r.get("preferred")) for r in found]
+    chosen = ["" if pd.isna(r.get("selected_model")) else str(r.get("selected_model")) for r in found]
     return fits.assign(
         delta_aicc=np.array([r.get("delta_aicc", np.nan) for r in found], float),
         akaike_weight=np.array([r.get("akaike_weight", np.nan) for r in found], float),
-        preferred_model=preferred,
-        preferred=fits["model"].astype(str).to_numpy() == np.array(preferred, dtype=object),
+        selected_model=chosen,
+        selected=fits["model"].astype(str).to_numpy() == np.array(chosen, dtype=object),
     )
 
 

@@ -213,12 +213,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         block: dict[str, Any] = {"name": g, "figures": []}
         rows, sentence = content.comparison_rows(comparison, g, titles)
         block["comparison"], block["comparison_sentence"] = rows, sentence
-        preferred = next((r["model"] for r in rows if r["preferred"]), "")
-        pref_raw = ""
+        selected = next((r["model"] for r in rows if r["selected"]), "")
+        pick_raw = ""
         if not comparison.empty and "group" in comparison:
             sub = comparison[comparison["group"].astype(str) == g]
-            pref_raw = str(sub["preferred"].iloc[0]) if len(sub) else ""
-        block["preferred"] = preferred
+            pick_raw = str(sub["selected_model"].iloc[0]) if len(sub) else ""
+        block["selected"] = selected
         block["parameters"] = content.parameter_tables(fits, g, titles) if not fits.empty else []
         crow = coop[coop["group"].astype(str) == g] if "group" in coop else pd.DataFrame()
         block["verdict"] = content.verdict_sentence(crow.iloc[0], options["confidence"], titles) if len(crow) else ""
@@ -238,7 +238,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 columns=["model", "variable", "inhibitor", "x", "y", "lower", "upper"])
             unit = rate_units.get(col, "") or (str(pts[f"{col}_unit"].iloc[0]) if f"{col}_unit" in pts and len(pts)
                                                else "")
-            make = functools.partial(figures.rates_vs_x, g, pts, pused, cv, pref_raw, col, content.pretty_unit(unit),
+            make = functools.partial(figures.rates_vs_x, g, pts, pused, cv, pick_raw, col, content.pretty_unit(unit),
                                      content.pretty_unit(rate_unit) or "?", _evaluators(fits, g, var, inp.models),
                                      titles)
             conf = f"{options['confidence'] * 100:g} %"

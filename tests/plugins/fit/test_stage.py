@@ -89,8 +89,8 @@ def test_estimates_units_and_kcat(result) -> None:
 def test_comparison_and_cooperativity(result) -> None:
     out, _ = result
     comp = out["model_comparison"].frame
-    assert set(comp[comp.group == "mm"].preferred) == {"michaelis-menten"}
-    assert set(comp[comp.group == "coop"].preferred) == {"hill"}
+    assert set(comp[comp.group == "mm"].selected_model) == {"michaelis-menten"}
+    assert set(comp[comp.group == "coop"].selected_model) == {"hill"}
     hill_row = comp[(comp.group == "coop") & (comp.model == "hill")].iloc[0]
     assert hill_row.f_test_against == "michaelis-menten" and hill_row.p < 1e-6
     w = comp[comp.group == "mm"].akaike_weight
@@ -208,7 +208,7 @@ def test_inhibition_matrix_prefers_the_simulated_mechanism() -> None:
     frame["inhibitor"] = i
     out, _ = _run(frame, models=["competitive", "uncompetitive", "mixed", "noncompetitive"], profile=False)
     comp = out["model_comparison"].frame
-    assert set(comp.preferred) == {"competitive"}, comp[["model", "aicc", "p", "reason"]]
+    assert set(comp.selected_model) == {"competitive"}, comp[["model", "aicc", "p", "selection_reason"]]
     mixed = comp[comp.model == "mixed"]
     assert set(mixed.f_test_against) == {"competitive", "uncompetitive", "noncompetitive"}
     kic = _param(out["fits"].frame, "inh", "competitive", "Kic")
