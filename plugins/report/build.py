@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from vzero.data import Table, Traces
+from vzero.data import Table, Traces, steps_apart
 from vzero.plugins.report import content, figures, parallel
 
 RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
@@ -156,11 +156,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
     rates_t = tables.get("rates")
     rates = _frame(tables, "rates")
     rate_units = dict(rates_t.units) if isinstance(rates_t, Table) else {}
-    fits = _frame(tables, "fits")
-    comparison = _frame(tables, "model_comparison")
-    coop = _frame(tables, "cooperativity")
+    fits = steps_apart(_frame(tables, "fits"))  # a group fitted by several fit steps: its models per step
+    comparison = steps_apart(_frame(tables, "model_comparison"))
+    comparison = steps_apart(comparison, "selected_model") if "selected_model" in comparison else comparison
+    coop = steps_apart(_frame(tables, "cooperativity"))
     diag = _frame(tables, "diagnostics")
-    curves = _frame(tables, "curves")
+    curves = steps_apart(_frame(tables, "curves"))
     options = content.fit_options(inp.recipe)
     rate_unit = rate_units.get("rate", "") or (str(rates["rate_unit"].iloc[0]) if "rate_unit" in rates and len(rates)
                                                else "")

@@ -94,8 +94,11 @@ def step_settings(recipe: Mapping[str, Any], kind: str) -> dict[str, Any]:
 
 
 def fit_options(recipe: Mapping[str, Any]) -> dict[str, Any]:
-    """The fit step's options the report needs, with the fit stage's defaults where the recipe is silent."""
+    """The fit step's options the report needs, with the fit stage's defaults where the recipe is silent
+    (with several fit steps: the last one's, and the models of all of them)."""
     s = step_settings(recipe, "fit")
+    every = [dict(step["fit"]) for step in recipe.get("steps", []) or []
+             if isinstance(step, Mapping) and isinstance(step.get("fit"), Mapping)]
     return {
         "present": bool(s),
         "exclude_flags": [str(f) for f in s.get("exclude_flags", DEFAULT_EXCLUDE)],
@@ -103,7 +106,7 @@ def fit_options(recipe: Mapping[str, Any]) -> dict[str, Any]:
         "x": str(s.get("x", "substrate")),
         "inhibitor": str(s.get("inhibitor", "inhibitor")),
         "group_by": str(s.get("group_by", "group")),
-        "models": [str(m) for m in s.get("models", [])],
+        "models": list(dict.fromkeys(str(m) for f in every for m in f.get("models", []) or [])),
     }
 
 
