@@ -82,6 +82,8 @@ SCHEMAS = (
                keeps_rows={"rates": "rates"}, base=ConvertMethod),
     KindSchema("fit", {
         "fits": TableSchema((
+            Column("step", "text", "label of the fit step (added by the runner: several fit steps add up)",
+                   required=False),
             Column("group", "text", "group fitted"),
             Column("model", "text", "registered model name"),
             Column("parameter", "text", "parameter name"),

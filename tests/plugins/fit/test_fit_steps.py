@@ -111,3 +111,16 @@ def test_steps_apart_leaves_single_step_tables_alone():
                         "model": ["hill", "hill", "hill"]})
     assert list(steps_apart(two)["model"]) == ["hill (05-fit-nls)", "hill (06-fit-nls)", "hill"]
     assert np.array_equal(steps_apart(two)["group"], two["group"])
+
+
+def test_report_keeps_two_steps_on_one_group_apart(tmp_path: Path):
+    recipe = _recipe(tmp_path, "  - fit: {method: nls, models: [michaelis-menten], profile: false}\n"
+                               "  - fit: {method: nls, models: [michaelis-menten, hill], select: {groups: VZ-7}, "
+                               "profile: false}\n"
+                               "  - report: {method: html}\n")
+    result = run(recipe, tmp_path / "out")
+    assert result.exit_code == 0, result.failed_items
+    html = "\n".join(p.read_text("utf-8") for p in (tmp_path / "out").rglob("*.html"))
+    # VZ-7 was fitted by both steps: its Michaelis-Menten fits appear once per step, named with the step
+    assert "michaelis-menten (05-fit-nls)" in html and "michaelis-menten (06-fit-nls)" in html
+    assert "hill (06-fit-nls)" in html

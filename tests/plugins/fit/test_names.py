@@ -133,3 +133,17 @@ def test_a_fresh_run_writes_none_of_the_old_names(tmp_path: Path):
     sheets = pd.read_excel(tmp_path / "run.xlsx", sheet_name=None)
     fits = next(f for f in sheets.values() if {"model", "parameter"} <= set(f.columns))
     assert not set(OLD_PARAMETERS) & set(fits.loc[fits["model"] == "logistic-4p", "parameter"])
+
+
+def test_old_manifest_column_is_read_with_a_notice(tmp_path: Path):
+    two_question_plate(tmp_path)
+    (tmp_path / "plates.csv").write_text("name,data,layout,pathcheck\n"
+                                         "p1,two-question-plate.csv,two-question-layout.csv,two-question-water.csv\n",
+                                         "utf-8")
+    text = COOKBOOK.read_text("utf-8")
+    start, end = text.index("plates:\n"), text.index("steps:\n")
+    recipe = tmp_path / "m.yaml"
+    recipe.write_text(text[:start] + "plates:\n  - manifest: plates.csv\n" + text[end:], "utf-8")
+    found = check_inputs(recipe)
+    assert found.recipe.plates[0].files["water_peak_reads"] == "two-question-water.csv"
+    assert any("plates.csv row 1: the column 'pathcheck' is now 'water_peak_reads'" in w for w in found.warnings)
