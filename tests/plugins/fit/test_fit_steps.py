@@ -8,6 +8,7 @@ inhibitor, an inhibitor titration VZ-7 + VZI-4 at one substrate level).
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -37,6 +38,11 @@ def _recipe(folder: Path, fits: str) -> Path:
     path = folder / "r.yaml"
     path.write_text(HEAD + fits, "utf-8")
     return path
+
+
+def _run(folder: Path, *steps: str) -> Any:
+    """Run the plate with these later steps (each ``kind: {...}``), as one recipe."""
+    return run(_recipe(folder, "".join(f"  - {s}\n" for s in steps)), folder / "out")
 
 
 def test_one_models_list_on_every_group_skips_what_cannot_apply_in_one_line(tmp_path: Path):
@@ -77,11 +83,9 @@ def test_two_fit_steps_add_up_and_stay_apart_by_step(tmp_path: Path):
 
 
 def test_select_by_inhibitor_series_and_pattern(tmp_path: Path):
-    recipe = _recipe(tmp_path, "  - fit: {method: nls, models: [michaelis-menten], select: {inhibitor: false}}\n"
-                               "  - fit: {method: nls, models: [logistic-4p], select: {groups: 'VZ-7 +*', "
-                               "inhibitor: true}}\n"
-                               "  - fit: {method: nls, models: [hill], select: {groups: 'nothing-*'}}\n")
-    result = run(recipe, tmp_path / "out")
+    result = _run(tmp_path, "fit: {method: nls, models: [michaelis-menten], select: {inhibitor: false}}",
+                  "fit: {method: nls, models: [logistic-4p], select: {groups: 'VZ-7 +*', inhibitor: true}}",
+                  "fit: {method: nls, models: [hill], select: {groups: 'nothing-*'}}")
     fits = result.fits
     got = fits.groupby("step")["group"].agg(lambda g: sorted(set(g))).to_dict()
     assert got == {"05-fit-nls": ["VZ-7"], "06-fit-nls": ["VZ-7 + VZI-4"]}
@@ -114,11 +118,9 @@ def test_steps_apart_leaves_single_step_tables_alone():
 
 
 def test_report_keeps_two_steps_on_one_group_apart(tmp_path: Path):
-    recipe = _recipe(tmp_path, "  - fit: {method: nls, models: [michaelis-menten], profile: false}\n"
-                               "  - fit: {method: nls, models: [michaelis-menten, hill], select: {groups: VZ-7}, "
-                               "profile: false}\n"
-                               "  - report: {method: html}\n")
-    result = run(recipe, tmp_path / "out")
+    result = _run(tmp_path, "fit: {method: nls, models: [michaelis-menten], profile: false}",
+                  "fit: {method: nls, models: [michaelis-menten, hill], select: {groups: VZ-7}, profile: false}",
+                  "report: {method: html}")
     assert result.exit_code == 0, result.failed_items
     html = "\n".join(p.read_text("utf-8") for p in (tmp_path / "out").rglob("*.html"))
     # VZ-7 was fitted by both steps: its Michaelis-Menten fits appear once per step, named with the step
