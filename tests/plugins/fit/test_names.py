@@ -147,3 +147,11 @@ def test_old_manifest_column_is_read_with_a_notice(tmp_path: Path):
     found = check_inputs(recipe)
     assert found.recipe.plates[0].files["water_peak_reads"] == "two-question-water.csv"
     assert any("plates.csv row 1: the column 'pathcheck' is now 'water_peak_reads'" in w for w in found.warnings)
+
+
+def test_report_input_from_an_old_audit_file_has_the_new_names():
+    from vzero.plugins.report.sources import from_audit
+
+    tables = from_audit(KEPT).tables
+    assert "selected_model" in tables["model_comparison"].frame.columns
+    assert "v_residual" in set(tables["fits"].frame["parameter"])
