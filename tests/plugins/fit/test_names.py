@@ -155,3 +155,12 @@ def test_report_input_from_an_old_audit_file_has_the_new_names():
     tables = from_audit(KEPT).tables
     assert "selected_model" in tables["model_comparison"].frame.columns
     assert "v_residual" in set(tables["fits"].frame["parameter"])
+
+
+def test_exports_of_an_old_audit_file_use_the_new_names(tmp_path: Path):
+    from vzero.plugins.export.tables import write_xlsx
+
+    write_xlsx(KEPT, tmp_path / "old.xlsx")
+    sheets = pd.read_excel(tmp_path / "old.xlsx", sheet_name=None)
+    headers = {str(c) for f in sheets.values() for c in f.columns}
+    assert "selected_model" in headers and not {"preferred", "preferred_model"} & headers
