@@ -212,7 +212,8 @@ def stack_step_tables(pooled: Mapping[str, Any], artifacts: Mapping[str, Any], s
         if name in stacked and isinstance(before, Table):
             units = {k: u for k, u in before.units.items() if value.units.get(k, u) == u}
             units |= {k: u for k, u in value.units.items() if k not in before.units}
-            frame = pd.concat([before.frame, value.frame], ignore_index=True)
+            frames = [f for f in (before.frame, value.frame) if len(f)]  # a step that fitted nothing adds nothing
+            frame = pd.concat(frames, ignore_index=True) if len(frames) == 2 else (frames or [value.frame])[0]
             out[name] = Table(frame, units, {**before.meta, **value.meta})
         stacked.add(name)
     return out
