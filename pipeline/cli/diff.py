@@ -97,7 +97,7 @@ def compare_wells(a: pd.DataFrame, b: pd.DataFrame, rtol: float = RTOL, atol: fl
     m["change"] = np.where(same_unit, m["rate_b"] - m["rate_a"], np.nan)
     win_a = m[["window_start_s_a", "window_end_s_a"]].to_numpy()
     win_b = m[["window_start_s_b", "window_end_s_b"]].to_numpy()
-    window_changed = ~same(win_a, win_b, rtol, atol).all(axis=1)
+    window_changed = np.asarray(~same(win_a, win_b, rtol, atol).all(axis=1), dtype=bool)
     rate_same = same(m["rate_a"].to_numpy(), m["rate_b"].to_numpy(), rtol, atol)
     what = []
     for i in range(len(m)):

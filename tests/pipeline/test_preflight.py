@@ -132,7 +132,7 @@ def test_fluorescence_reads_default_to_rfu(tmp_path: Path):
 def test_water_peak_without_a_water_peak_reads_file_and_missing_blanks_are_caught_by_check(tmp_path: Path, capsys):
     recipe = linear_plate(tmp_path)
     layout = pd.read_csv(tmp_path / "layout.csv")
-    layout.loc[layout["role"] == "blank", "role"] = "sample"
+    layout.loc[layout["role"] == "blank", ["role", "enzyme (nM)"]] = ["sample", 2.0]  # a sample needs enzyme
     layout.to_csv(tmp_path / "layout.csv", index=False)
     assert any("no wells with role 'blank'" in w for w in check_inputs(recipe).warnings)
     recipe.write_text(recipe.read_text("utf-8") + "  - convert: {method: beer-lambert, epsilon: \"6220 M^-1 cm^-1\", "
