@@ -358,13 +358,13 @@ def _new_plate_keys(plates: Any, bad: Callable[[tuple[Any, ...], str], None],
             for old, new in OLD_PLATE_KEYS.items():
                 if old not in entry:
                     continue
+                value = entry.pop(old)
                 if new in entry:
                     bad(("plates", i, old), f"the plate names both {old!r} (the old name) and {new!r}; keep {new!r}")
-                else:
-                    note(("plates", i, old), f"the plate key {old!r} is now {new!r}; it was read as {new!r} "
-                                             f"(rename it: the old name may be refused by a later vzero)")
-                entry[new] = entry.pop(old) if new not in entry else entry[new]
-                entry.pop(old, None)
+                    continue
+                note(("plates", i, old), f"the plate key {old!r} is now {new!r}; it was read as {new!r} "
+                                         f"(rename it: the old name may be refused by a later vzero)")
+                entry[new] = value
         out.append(entry)
     return out
 
