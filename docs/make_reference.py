@@ -73,8 +73,10 @@ def render() -> str:
         "",
         "Each entry of `plates` takes the keys " + ", ".join(f"`{k}`" for k in sorted(PLATE_KEYS)) + ":",
         "`data` (the reader's export, or a glob such as `plates/*.csv` for a batch), `layout` (the layout file),",
-        "`pathcheck` (water-peak reads for the pathlength: columns well, a977, a900), `name` (default: the data",
-        "file's name) and `manifest` (a CSV table with columns name, data, layout, pathcheck: one row per plate).",
+        "`water_peak_reads` (water-peak absorbance reads for the pathlength: columns well, a977, a900), `name`",
+        "(default: the data file's name) and `manifest` (a CSV table with columns name, data, layout,",
+        "water_peak_reads: one row per plate). The key `pathcheck` of earlier versions is read as",
+        "`water_peak_reads`, with a notice asking to rename it.",
         "",
         "## assay",
         "",
@@ -94,10 +96,16 @@ def render() -> str:
         "",
         "Each step is `- KIND: {method: METHOD, key: value, ...}`; the keys of each method follow.",
         "",
+        "Several `fit` steps add up: each fits the groups its `select` picks (by name or glob pattern, and/or by",
+        "whether the group has an inhibitor series) with its own `models`, and fits.csv and the other fit tables",
+        "keep the steps apart in a first column `step` (the step's label, such as `05-fit-nls`). A model that",
+        "cannot apply to a group (an inhibition model on a group without an inhibitor series, a substrate model",
+        "on a group without a substrate series) is not fitted there, said in one line per step.",
+        "",
     ]
     kinds = sorted(registry.kinds(), key=lambda k: (KIND_ORDER.index(k) if k in KIND_ORDER else 99, k))
     for kind in kinds:
-        if kind == "model":
+        if kind in ("model", "schema"):  # models are listed below; schemas are docs/schemas.md
             continue
         for name in registry.names(kind):
             component = registry.get(kind, name).component

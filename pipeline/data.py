@@ -152,3 +152,19 @@ class Traces:
     def evolve(self, **changes: Any) -> Traces:
         """A copy with some fields replaced (the validation in ``__post_init__`` runs again)."""
         return replace(self, **changes)
+
+
+def steps_apart(frame: pd.DataFrame, column: str = "model") -> pd.DataFrame:
+    """``frame`` with its ``column`` values followed by the step label in brackets (``hill (06-fit-nls)``) on
+    the rows of groups that several steps of a stacking kind produced (tables with a ``step`` column, such as
+    the fit tables when a recipe has several fit steps); unchanged otherwise. For readers that key on group
+    and model (report, diff, exports), so that two steps' fits of one group never merge."""
+    if "step" not in frame.columns or column not in frame.columns or "group" not in frame.columns:
+        return frame
+    steps = frame["step"].astype(str)
+    several = steps.groupby(frame["group"].astype(str)).transform("nunique") > 1
+    if not several.any():
+        return frame
+    out = frame.copy()
+    out[column] = out[column].astype(str).where(~several, out[column].astype(str) + " (" + steps + ")")
+    return out

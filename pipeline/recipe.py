@@ -53,10 +53,12 @@ TOP_LEVEL: dict[str, Param] = {
     "exclusions": Param("list", [], "wells or reads excluded, each with a reason"),
     "overrides": Param("list", [], "per-well settings fixed by hand, each with a reason"),
 }
-PLATE_KEYS = {"name", "data", "layout", "pathcheck", "manifest"}
-#: Plate keys that name input files (stored byte for byte in the audit file). ``pathcheck``: per-well water-peak
-#: reads for the pathlength (columns well, a977, a900).
-FILE_KEYS = ("data", "layout", "pathcheck")
+PLATE_KEYS = {"name", "data", "layout", "water_peak_reads", "manifest"}
+#: Plate keys that name input files (stored byte for byte in the audit file). ``water_peak_reads``: per-well
+#: water-peak absorbance reads for the pathlength (columns well, a977, a900).
+FILE_KEYS = ("data", "layout", "water_peak_reads")
+#: Plate keys (and manifest columns) of earlier vzero versions, read as their new names with a notice.
+OLD_PLATE_KEYS = {"pathcheck": "water_peak_reads"}
 #: Columns of a plate manifest (a CSV table, one row per plate); only ``data`` must be filled in.
 MANIFEST_COLUMNS = ("name", *FILE_KEYS)
 
@@ -101,6 +103,8 @@ class Recipe:
     #: the plugins to load instead of the recipe's own list: set by ``vzero rerun`` to the files the user
     #: passed with ``--plugin`` (an audit file's stored recipe never chooses code by itself).
     plugin_override: list[str] | None = None
+    #: notices of the check that are not errors (an old plate key read under its new name), each with file:line.
+    notices: list[str] = field(default_factory=list)
 
     @property
     def sha256(self) -> str:
@@ -326,13 +330,43 @@ def check(
 
     if plates:
         recipe.manifests = []
-        recipe.plates = _check_plates(data.get("plates"), bad, exists, expand, read, recipe.manifests)
+        recipe.notices = []
+
+        def note(path: tuple[Any, ...], msg: str) -> None:
+            recipe.notices.append(f"{recipe.where(path)}: {msg}")
+
+        recipe.plates = _check_plates(_new_plate_keys(data.get("plates"), bad, note), bad, exists, expand, read,
+                                      recipe.manifests, note)
     recipe.steps = _check_steps(recipe, data.get("steps"), registry, bad, skipped)
     if extra_checks is not None:
         problems.extend(extra_checks(recipe))
     if problems:
         raise RecipeError(problems, hint="Nothing was run.")
     return recipe
+
+
+def _new_plate_keys(plates: Any, bad: Callable[[tuple[Any, ...], str], None],
+                    note: Callable[[tuple[Any, ...], str], None]) -> Any:
+    """The plate entries with the keys of earlier versions (:data:`OLD_PLATE_KEYS`) under their new names,
+    each said once in a notice (the recipe mapping itself, stored in the audit file, is left as written)."""
+    if not isinstance(plates, list):
+        return plates
+    out = []
+    for i, entry in enumerate(plates):
+        if isinstance(entry, dict) and set(entry) & set(OLD_PLATE_KEYS):
+            entry = dict(entry)
+            for old, new in OLD_PLATE_KEYS.items():
+                if old not in entry:
+                    continue
+                value = entry.pop(old)
+                if new in entry:
+                    bad(("plates", i, old), f"the plate names both {old!r} (the old name) and {new!r}; keep {new!r}")
+                    continue
+                note(("plates", i, old), f"the plate key {old!r} is now {new!r}; it was read as {new!r} "
+                                         f"(rename it: the old name may be refused by a later vzero)")
+                entry[new] = value
+        out.append(entry)
+    return out
 
 
 def _check_plates(
@@ -342,6 +376,7 @@ def _check_plates(
     expand: Callable[[str], list[str]],
     read: Callable[[str], bytes],
     manifests: list[str],
+    note: Callable[[tuple[Any, ...], str], None],
 ) -> list[PlateSpec]:
     out: list[PlateSpec] = []
     if not isinstance(plates, list):
@@ -358,7 +393,7 @@ def _check_plates(
                 near = f" (did you mean {hit!r}?)" if hit else ""
                 bad((*path, key), f"unknown key{near}; valid: {', '.join(sorted(PLATE_KEYS))}")
         if "manifest" in entry:
-            out.extend(_manifest_plates(entry, path, bad, exists, read, manifests))
+            out.extend(_manifest_plates(entry, path, bad, exists, read, manifests, note))
             continue
         data_entry = entry.get("data")
         if not isinstance(data_entry, str):
@@ -418,6 +453,7 @@ def _manifest_plates(
     exists: Callable[[str], bool],
     read: Callable[[str], bytes],
     manifests: list[str],
+    note: Callable[[tuple[Any, ...], str], None],
 ) -> list[PlateSpec]:
     """The plates listed in a manifest CSV (columns name, data, layout; paths relative to the manifest)."""
     import csv
@@ -442,6 +478,11 @@ def _manifest_plates(
         return []
     rows = list(csv.reader(io.StringIO(text)))
     header = [h.strip() for h in rows[0]] if rows else []
+    for k, h in enumerate(header):
+        if h in OLD_PLATE_KEYS and OLD_PLATE_KEYS[h] not in header:
+            header[k] = OLD_PLATE_KEYS[h]
+            note(where, f"{rel} row 1: the column {h!r} is now {header[k]!r}; it was read as {header[k]!r} "
+                        f"(rename it: the old name may be refused by a later vzero)")
     unknown = [h for h in header if h not in MANIFEST_COLUMNS]
     for h in unknown:
         hit = closest(h, MANIFEST_COLUMNS)

@@ -122,7 +122,10 @@ class KindSchema:
     ``required`` lists artifacts every such step must return, ``any_of`` artifacts of which it must return
     at least one; ``keeps_rows`` maps an output artifact to the input artifact whose rows (wells) it must
     keep, in order; ``files``: the step must return files. ``base``: the framework-owned class every stage
-    method of this kind derives from (the registry refuses one that does not).
+    method of this kind derives from (the registry refuses one that does not). ``stacks``: several pooled
+    steps of this kind add up instead of the last one replacing the others: every table such a step returns
+    gets a first column ``step`` (the step's label, ``05-fit-nls``) and is stacked under the same table of
+    the earlier steps of the kind (:func:`vzero.run.steps.stack_step_tables`).
     """
 
     name: str
@@ -133,6 +136,7 @@ class KindSchema:
     keeps_rows: Mapping[str, str] = field(default_factory=dict)
     files: bool = False
     base: type | None = None
+    stacks: bool = False
     kind: str = "schema"
 
 

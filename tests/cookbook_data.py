@@ -167,6 +167,28 @@ def batch_plates(folder: Path) -> None:
         product_plate(folder, seed=20 + i, data=f"batch/plate-{i}.csv", layout=False)
 
 
+def two_question_plate(folder: Path) -> None:
+    """Rows A-B: substrate series 0-640 uM without inhibitor (group VZ-7); rows C-D: inhibitor VZI-4 at
+    0-1000 uM with 50 uM substrate (group VZ-7 + VZI-4, competitive, Kic 20 uM); row H blanks; water-peak
+    reads for a 0.5 cm pathlength in every well."""
+    rng = np.random.default_rng(21)
+    sub = np.array([0, 10, 20, 40, 80, 160, 320, 640.0])
+    inh = np.array([0, 1, 3, 10, 30, 100, 300, 1000.0])
+    wells = [f"{r}{c}" for r in "ABCDH" for c in range(1, 9)]
+    s0 = np.array([sub[int(w[1:]) - 1] if w[0] in "AB" else 50.0 for w in wells])
+    i0 = np.array([inh[int(w[1:]) - 1] if w[0] in "CD" else 0.0 for w in wells])
+    e = np.array([0.0 if w[0] == "H" else 2.0 for w in wells])
+    t = np.arange(0.0, 301.0, 20.0)
+    a = 0.05 + EPS_L_405 * product_um(s0, e, t, inhibitor=i0, kic=20.0) + rng.normal(0, 1e-3, (len(wells), t.size))
+    _wide(t, wells, a).to_csv(folder / "two-question-plate.csv", index=False)
+    group = {"A": "VZ-7", "B": "VZ-7", "C": "VZ-7 + VZI-4", "D": "VZ-7 + VZI-4", "H": "blank"}
+    pd.DataFrame({"well": wells, "role": ["blank" if w[0] == "H" else "sample" for w in wells],
+                  "substrate (uM)": s0, "inhibitor (uM)": i0, "enzyme (nM)": e,
+                  "group": [group[w[0]] for w in wells]}).to_csv(folder / "two-question-layout.csv", index=False)
+    pd.DataFrame({"well": wells, "a977": 0.5 * 0.18 + 0.04, "a900": 0.04}).to_csv(
+        folder / "two-question-water.csv", index=False)
+
+
 WRITERS: dict[str, Callable[[Path], None]] = {
     "absorbance-product.yaml": product_plate,
     "absorbance-product-rerun.yaml": product_plate,
@@ -176,5 +198,6 @@ WRITERS: dict[str, Callable[[Path], None]] = {
     "declared-layout.yaml": declared_plate,
     "lag-inactivation.yaml": lag_plate,
     "batch.yaml": batch_plates,
+    "models-per-group.yaml": two_question_plate,
 }
 """For each cookbook recipe, the writer of the invented files it names."""

@@ -52,10 +52,10 @@ def test_demo_recovers_true_parameters(tmp_path: Path, capsys):
         mid = (row["ci_high"] + row["ci_low"]) / 2
         assert abs(mid - true) <= half, (parameter, row["ci_low"], row["ci_high"], true)
     assert _estimate(fits, wt.group, "hill", "Vmax")["unit"] == "uM/min"
-    # the model comparison is on every row of fits.csv: Hill preferred for the cooperative wild type
+    # the model comparison is on every row of fits.csv: Hill selected for the cooperative wild type
     wt_rows = fits[fits["group"] == wt.group]
-    assert set(wt_rows["preferred_model"]) == {"hill"}
-    assert wt_rows.loc[wt_rows["model"] == "hill", "preferred"].all()
+    assert set(wt_rows["selected_model"]) == {"hill"}
+    assert wt_rows.loc[wt_rows["model"] == "hill", "selected"].all()
     assert (wt_rows.loc[wt_rows["model"] == "michaelis-menten", "delta_aicc"] > 10).all()
     mm = TRUTH[1]
     row = _estimate(fits, mm.group, "michaelis-menten", "Km")

@@ -61,6 +61,16 @@ def test_cookbook_recipe_checks_and_runs_quietly(name: str, tmp_path: Path):
         assert _param(fits, "competitive", "Kic") == pytest.approx(15.0, rel=0.3)
     if name == "batch.yaml":
         assert set(result.rates["plate"]) == {"plate-1", "plate-2", "plate-3"}
+    if name == "models-per-group.yaml":  # two fit steps, each on the groups its select picks
+        by_step = fits.groupby("step")[["group", "model"]].apply(lambda f: sorted(set(map(tuple, f.values))))
+        assert by_step.to_dict() == {"05-fit-nls": [("VZ-7", "hill"), ("VZ-7", "michaelis-menten")],
+                                     "06-fit-nls": [("VZ-7 + VZI-4", "logistic-4p")]}
+        assert not any("cannot apply" in w for w in result.warnings)  # select left no model where it cannot apply
+        assert _param(fits, "michaelis-menten", "Km") == pytest.approx(KM, rel=0.25)
+        # competitive: IC50 = Kic(1 + S/Km) = 20 uM x 2 at S = Km (Cheng & Prusoff 1973), Ki back to Kic 20 uM
+        assert _param(fits, "logistic-4p", "IC50") == pytest.approx(40.0, rel=0.35)
+        assert _param(fits, "logistic-4p", "Ki") == pytest.approx(20.0, rel=0.35)
+        assert set(result.tables["model_comparison"].frame["step"]) == {"05-fit-nls", "06-fit-nls"}
 
 
 def test_rerun_an_old_audit_file_with_a_new_recipe(tmp_path: Path, capsys):

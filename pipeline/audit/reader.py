@@ -138,15 +138,55 @@ def read_inputs(f: Any) -> list[StoredInput]:
     return out
 
 
+#: Column names earlier vzero versions wrote into final tables, read under today's names: table -> old -> new.
+OLD_COLUMNS: dict[str, dict[str, str]] = {
+    "fits": {"preferred_model": "selected_model", "preferred": "selected"},
+    "model_comparison": {"preferred": "selected_model", "reason": "selection_reason"},
+}
+#: Parameter names earlier vzero versions gave a model's parameters, read under today's: model -> old -> new
+#: (in the ``parameter`` column of ``fits`` and ``parameter_a``/``parameter_b`` of ``correlations``).
+OLD_PARAMETERS: dict[str, dict[str, str]] = {
+    "logistic-4p": {"top": "v_uninhibited", "bottom": "v_residual", "slope": "n"},
+}
+
+
+def with_current_names(name: str, table: Table) -> Table:
+    """A final table of an older audit file with today's column and parameter names (:data:`OLD_COLUMNS`,
+    :data:`OLD_PARAMETERS`); a table already in today's names is returned as it is. The stored bytes are
+    untouched (``vzero verify`` checks them as written)."""
+    frame = table.frame
+    renames = {old: new for old, new in OLD_COLUMNS.get(name, {}).items() if old in frame.columns
+               and new not in frame.columns}
+    cols = [c for c in ("parameter", "parameter_a", "parameter_b") if c in frame.columns]
+    old_params = "model" in frame.columns and cols and any(
+        frame[c].astype(str).isin(list(old)).any() and frame["model"].astype(str).eq(m).any()
+        for m, old in OLD_PARAMETERS.items() for c in cols)
+    if not renames and not old_params:
+        return table
+    frame = frame.rename(columns=renames)
+    if name == "model_comparison" and "selected" not in frame.columns and "selected_model" in frame.columns:
+        frame.insert(frame.columns.get_loc("selected_model") + 1, "selected",
+                     frame["selected_model"].astype(str) == frame["model"].astype(str))
+    if old_params:
+        frame = frame.copy()
+        for model, old in OLD_PARAMETERS.items():
+            rows = frame["model"].astype(str) == model
+            for c in cols:
+                frame.loc[rows, c] = frame.loc[rows, c].astype(str).replace(old)
+    units = {renames.get(k, k): v for k, v in table.units.items()}
+    return Table(frame, units, dict(table.meta))
+
+
 def read_results(f: Any) -> dict[str, Table]:
-    """The final tables (``rates``, ``fits``, ...) by name."""
-    return {name: read_table(g) for name, g in f["results"].items()}
+    """The final tables (``rates``, ``fits``, ...) by name, in today's names (:func:`with_current_names`)."""
+    return {name: with_current_names(name, read_table(g)) for name, g in f["results"].items()}
 
 
 def read_result(path: str | Path, name: str) -> Table | None:
-    """One final table of the audit file at ``path`` (``None`` when the run has no such table)."""
+    """One final table of the audit file at ``path`` (``None`` when the run has no such table), in today's
+    names."""
     with open_audit(path) as f:
-        return read_table(f["results"][name]) if name in f["results"] else None
+        return with_current_names(name, read_table(f["results"][name])) if name in f["results"] else None
 
 
 def read_step_traces(f: Any, kind: str = "import") -> dict[str, Any]:

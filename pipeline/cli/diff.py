@@ -126,12 +126,14 @@ def compare_parameters(a: pd.DataFrame, b: pd.DataFrame, rtol: float = RTOL, ato
     Values equal within ``rtol``/``atol`` (see :func:`same`) do not count as changed."""
     import numpy as np
     import pandas as pd
+    from vzero.data import steps_apart
 
     cols = ["estimate", "stderr", "ci_low", "ci_high"]
 
     def prep(t: pd.DataFrame) -> pd.DataFrame:
         if t.empty or not set(PARAM_KEY) <= set(t.columns):
             return pd.DataFrame({c: pd.Series(dtype=object) for c in [*PARAM_KEY, *cols, "unit"]})
+        t = steps_apart(t)  # a group fitted by several fit steps: its models per step
         out = t[PARAM_KEY].astype(str)
         for c in cols:
             out[c] = _col(t, c, np.nan).astype(float)

@@ -59,6 +59,7 @@ def strenda_check(assay: Mapping[str, Any], rates_columns: list[str], steps: lis
 def summary(path: str | Path, *, max_wells: int = 50) -> str:
     """Provenance, inputs, steps with timings and warnings, exclusions, flagged wells and parameters, as text."""
     from vzero.audit import reader
+    from vzero.data import steps_apart
 
     with reader.open_audit(path) as f:
         head = reader.header(f)
@@ -100,7 +101,7 @@ def summary(path: str | Path, *, max_wells: int = 50) -> str:
                 lines.append(f"{title}: {item.get('plate')} {item.get('well')}{what}: {item.get('reason')}")
         results = reader.read_results(f)
     rates = results["rates"].frame if "rates" in results else None
-    fits = results["fits"].frame if "fits" in results else None
+    fits = steps_apart(results["fits"].frame) if "fits" in results else None
     if rates is not None and "flags" in rates:
         flagged = rates[rates["flags"].astype(str) != ""]
         lines.append(f"flagged wells: {len(flagged)} of {len(rates)}")

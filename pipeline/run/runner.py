@@ -24,7 +24,7 @@ from vzero.manager import Plugins, make_manager
 from vzero.recipe import PlateSpec, Recipe, StepSpec, check, load, parse
 from vzero.run.executors import Executor, PlateStore, PlateTask, make_executor, ordered, run_plate_task
 from vzero.run.outputs import CsvInWorkers, write_outputs
-from vzero.run.steps import PlateOutcome, StepRecord, process_plate, run_step, utc_now
+from vzero.run.steps import PlateOutcome, StepRecord, process_plate, run_step, stack_step_tables, utc_now
 from vzero.run.swap import alive, exchange
 from vzero.stage import RawInput
 
@@ -199,7 +199,7 @@ def run(
     cpu_start = time.process_time()
     started = utc_now()
     run_id = uuid.uuid4().hex
-    warnings: list[str] = []
+    warnings: list[str] = list(rec.notices)  # notices of the check (old plate keys)
     plate_steps = [s for s in rec.steps if _scope(plugins, s) == "plate"]
     later_steps = [s for s in rec.steps if _scope(plugins, s) != "plate"]
 
@@ -250,6 +250,7 @@ def run(
         csv_workers.start(pooled)
         records: list[StepRecord] = [r for o in ok for r in o.records]
         files: dict[str, bytes] = {}
+        stacked: set[str] = set()  # tables of stacking steps (several fit steps add up)
         for spec in later_steps:
             if own_executor and executor is not None and _scope(plugins, spec) == "final" \
                     and getattr(executor, "shares_disk", False):
@@ -264,7 +265,9 @@ def run(
             info = _run_info(rec, plugins, run_id, started, store, records, warnings, failed)
             output, record = run_step(spec, plugins, None, pooled, {}, rec, run_id, info)
             warnings.extend(record.warnings)
-            pooled.update(output.artifacts)
+            schema = plugins.registry.schema(spec.kind)
+            pooled.update(stack_step_tables(pooled, output.artifacts, stacked) if schema is not None
+                          and schema.stacks else output.artifacts)
             files.update(output.files)
             records.append(record)
             writer.add_record(record)
@@ -574,7 +577,7 @@ def check_inputs(
                f"{plugins.registry.get(s.kind, s.method).source.path}; its input checks were not run"
                for s in plate_steps if local(s)]
     problems: list[str] = []
-    warnings: list[str] = []
+    warnings: list[str] = list(rec.notices)
     for plate in rec.plates:
         try:
             raws = {key: _raw(source, key, rel) for key, rel in plate.files.items()}

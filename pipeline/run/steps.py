@@ -174,6 +174,9 @@ def run_step(
             f"{type(output).__name__}, not a StageOutput; fix the plugin"
         )
     _check_schema(spec, entry, plugins, plate, output, artifacts)
+    schema = plugins.registry.schema(spec.kind)
+    if plate is None and schema is not None and schema.stacks:
+        output.artifacts = tag_step(spec.label, output.artifacts)
     seconds = time.perf_counter() - t0
     event.seconds, event.output = seconds, output
     plugins.hook.vzero_after_step(event=event)
@@ -181,6 +184,43 @@ def run_step(
     prefix = f"{plate.name} " if plate else ""
     return output, StepRecord(spec, plate.name if plate else None, started, seconds, step_warnings, outputs,
                               [prefix + str(item) for item in output.failed])
+
+
+def tag_step(label: str, artifacts: Mapping[str, Any]) -> dict[str, Any]:
+    """The artifacts with a first column ``step`` (the step's label) in every table, for a kind whose steps
+    stack (:attr:`vzero.schema.KindSchema.stacks`)."""
+    from vzero.data import Table
+
+    out = dict(artifacts)
+    for name, value in artifacts.items():
+        if isinstance(value, Table):
+            frame = value.frame.drop(columns="step", errors="ignore")
+            frame.insert(0, "step", label)
+            out[name] = value.with_frame(frame)
+    return out
+
+
+def stack_step_tables(pooled: Mapping[str, Any], artifacts: Mapping[str, Any], stacked: set[str]) -> dict[str, Any]:
+    """The tables of a stacking step (already tagged by :func:`tag_step`) under those of the earlier steps of
+    its kind: ``stacked`` names the tables such steps returned so far (updated in place). Units agreeing
+    between the steps are kept; a column given in different units by two steps keeps none (its values are
+    per step, in the unit that step's own audit record names)."""
+    import pandas as pd
+    from vzero.data import Table
+
+    out = dict(artifacts)
+    for name, value in artifacts.items():
+        if not isinstance(value, Table):
+            continue
+        before = pooled.get(name)
+        if name in stacked and isinstance(before, Table):
+            units = {k: u for k, u in before.units.items() if value.units.get(k, u) == u}
+            units |= {k: u for k, u in value.units.items() if k not in before.units}
+            frames = [f for f in (before.frame, value.frame) if len(f)]  # a step that fitted nothing adds nothing
+            frame = pd.concat(frames, ignore_index=True) if len(frames) == 2 else (frames or [value.frame])[0]
+            out[name] = Table(frame, units, {**before.meta, **value.meta})
+        stacked.add(name)
+    return out
 
 
 def _check_schema(spec: StepSpec, entry: Entry, plugins: Plugins, plate: PlateSpec | None, output: StageOutput,

@@ -24,7 +24,7 @@ class BeerLambert(ConvertMethod):
 
     The pathlength ``l`` comes from exactly one of: ``pathlength`` (given); ``fill_volume`` and
     ``plate_type`` (liquid height in a well of that geometry, flat meniscus assumed); ``water_peak: true``
-    (per well, from the plate's ``pathcheck`` file of A977 and A900 reads: (A977 − A900) / ``water_k``, with
+    (per well, from the plate's ``water_peak_reads`` file of A977 and A900 reads: (A977 − A900) / ``water_k``, with
     0.18 per cm as the usual factor, common practice). ``direction: decrease`` when a consumed species absorbs
     (for example NADH at 340 nm), so that rates are positive. Given a per-well enzyme concentration, the
     turnover rate (rate / [E], 1/s) is added.
@@ -40,7 +40,7 @@ class BeerLambert(ConvertMethod):
                                       nullable=True),
         "plate_type": Param.choice(("96-flat", "96-half-area", "384-flat", "1536-flat"), None,
                                    "well geometry for fill_volume (see plugins/convert/pathlength.py)", nullable=True),
-        "water_peak": Param("bool", False, "measure the pathlength per well from the plate's pathcheck file"),
+        "water_peak": Param("bool", False, "measure the pathlength per well from the plate's water_peak_reads file"),
         "water_k": Param.quantity("1/cm", "0.18 1/cm", "A977 − A900 of 1 cm of water (common practice)"),
         "direction": Param.choice(("increase", "decrease"), "increase",
                                   "whether the absorbance rises (product absorbs) or falls (substrate absorbs)"),
@@ -61,10 +61,10 @@ class BeerLambert(ConvertMethod):
         return []
 
     def preflight(self, data: StageInput) -> StageOutput | None:
-        """With ``water_peak`` on, the plate must name its pathcheck file."""
-        if self.settings["water_peak"] and data.inputs.get("pathcheck") is None:
-            raise InputFileError("water_peak is on but the plate names no pathcheck file",
-                                 hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
+        """With ``water_peak`` on, the plate must name its water_peak_reads file."""
+        if self.settings["water_peak"] and data.inputs.get("water_peak_reads") is None:
+            raise InputFileError("water_peak is on but the plate names no water_peak_reads file",
+                                 hint="Add water_peak_reads: FILE (columns well, a977, a900) to the plate.")
         return None
 
     def conversion(self, table: Any, data: StageInput) -> Conversion:
@@ -96,10 +96,10 @@ class BeerLambert(ConvertMethod):
             data.warn(f"pathlength {cm:.3f} cm computed from {s['fill_volume']:~P} in a {s['plate_type']} well "
                       "(flat meniscus assumed)")
             return cm, {}
-        raw = data.inputs.get("pathcheck")
+        raw = data.inputs.get("water_peak_reads")
         if raw is None:
-            raise InputFileError("water_peak is on but the plate names no pathcheck file",
-                                 hint="Add pathcheck: FILE (columns well, a977, a900) to the plate.")
+            raise InputFileError("water_peak is on but the plate names no water_peak_reads file",
+                                 hint="Add water_peak_reads: FILE (columns well, a977, a900) to the plate.")
         import io
 
         from vzero.plugins.kinetics.wells import normalise_well

@@ -62,13 +62,14 @@ def compare(fits: Any, truth: Any) -> str:
 
 
 def verdicts(tables: dict[str, Any]) -> str:
-    """One line per group: the preferred model and the cooperativity verdict, in words."""
+    """One line per group: the selected model and the cooperativity verdict, in words."""
     lines = []
     comparison = tables.get("model_comparison")
     coop = tables.get("cooperativity")
     if comparison is not None:
         for group, rows in comparison.frame.groupby("group", sort=True):
-            lines.append(f"{group}: preferred model {rows['preferred'].iloc[0]} ({rows['reason'].iloc[0]})")
+            lines.append(f"{group}: selected model {rows['selected_model'].iloc[0]} "
+                         f"({rows['selection_reason'].iloc[0]})")
     if coop is not None:
         for _, row in coop.frame.iterrows():
             lines.append(f"{row['group']}: cooperativity {row['verdict']} (h = {row['h']:.3g}, 95% interval "

@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from vzero.data import steps_apart
 from vzero.plugins.export.tables import RESEARCH_NOTE
 
 SIGNAL_TYPES = {"AU": "absorbance", "mAU": "absorbance", "absorbance_unit": "absorbance", "RFU": "fluorescence"}
@@ -126,7 +127,7 @@ def build_document(head: Mapping[str, Any], results: Mapping[str, Any], traces: 
     substrate = dict(assay.get("substrate") or {})
     product = dict(assay.get("product") or {})
     rates = results["rates"].frame if "rates" in results else None
-    fits = results["fits"].frame if "fits" in results else None
+    fits = steps_apart(results["fits"].frame) if "fits" in results else None
     measured = str(assay.get("measured", "product"))
 
     volume_text = assay.get("volume")
@@ -269,7 +270,7 @@ def _fits(fits: Any, measured: str) -> tuple[list[dict[str, Any]], list[dict[str
                     p[key] = v
             p["constant"] = True
             parameters.append(p)
-        text = texts.get(str(model), "")
+        text = texts.get(str(model).split(" (")[0], "")  # "hill (06-fit-nls)": a model of one of several fit steps
         if text:
             equations.append({"species_id": measured, "equation": _equation(text, {**ids, **SYMBOLS}),
                               "equation_type": "rateLaw",

@@ -156,8 +156,10 @@ MODELS: tuple[Model, ...] = (
        "v = v0·(1 − ((E + I + Ki_app) − √((E + I + Ki_app)² − 4EI))/(2E))",
        "Morrison tight-binding inhibition (enzyme converted to the inhibitor's unit)", {"Ki_app": POS}, "Ki_app",
        ki_from="Ki_app", ki_conversion="Morrison Ki_app"),
-    _m("logistic-4p", "top bottom IC50 slope", "rate rate inhibitor -", "inhibitor", "logistic", "logistic",
-       "v = bottom + (top − bottom)/(1 + (I/IC50)^slope)", "four-parameter logistic dose-response",
+    _m("logistic-4p", "v_uninhibited v_residual IC50 n", "rate rate inhibitor -", "inhibitor", "logistic",
+       "logistic", "v = v_residual + (v_uninhibited − v_residual)/(1 + (I/IC50)^n)",
+       "four-parameter logistic dose-response (v_uninhibited: rate without inhibitor; v_residual: rate left at "
+       "saturating inhibitor; n: steepness)",
        {"IC50": POS}, "IC50", ki_from="IC50", ki_conversion="Cheng-Prusoff",
        ki_assumes="assumes enzyme well below IC50 (no tight binding; fit morrison otherwise)"),
 )

@@ -1,16 +1,16 @@
 """Model comparison (AICc, Akaike weights, extra-sum-of-squares F-test) and the cooperativity verdict.
 
 Only fits to the same points are compared (a model that needs an inhibitor column is fitted to different
-points than one that does not). Within such a set the preferred model is the one with the lowest AICc,
+points than one that does not). Within such a set the selected model is the one with the lowest AICc,
 unless it contains a simpler fitted model as a special case (``Model.nests``) and the F-test does not
-support the extra parameters at level ``alpha``: then the simpler model is preferred (parsimony).
+support the extra parameters at level ``alpha``: then the simpler model is selected (parsimony).
 
 Cooperativity verdict (from the fit of a model that declares a cooperativity coefficient, the Hill equation's
 h among the built-ins, and its comparison with the nested model where that coefficient is 1), in this order:
 
 1. no usable Hill fit or no interval for h                          -> "not resolved by these data"
 2. interval of h excludes 1 and the F-test agrees (p < alpha)       -> "positive" (h > 1) / "negative" (h < 1)
-3. interval of h contains 1, the F-test does not prefer Hill, and the interval lies within
+3. interval of h contains 1, the F-test does not support Hill, and the interval lies within
    [1/1.25, 1.25] (an equivalence margin of our own choosing, in the spirit of the 80-125 % rule used in
    equivalence testing; common practice there, a convention here)  -> "none"
 4. anything else (wide interval, or interval and F-test disagree)   -> "not resolved by these data"
@@ -58,7 +58,10 @@ def f_test(simple: FitResult, complex_: FitResult, names: tuple[str, str]) -> FT
 def compare_set(
     fits: Mapping[str, FitResult], nests: Mapping[str, Mapping[str, str]], alpha: float = 0.05
 ) -> tuple[list[dict[str, Any]], str, str]:
-    """Compare models fitted to the same points. Returns (rows, preferred model, reason)."""
+    """Compare models fitted to the same points. Returns (rows, selected model, reason for the selection).
+
+    Each row carries ``selected_model`` (the set's selected model), ``selected`` (whether it is this row's
+    model) and ``selection_reason``."""
     ok = {m: f for m, f in fits.items() if f.success and np.isfinite(f.rss)}
     aicc = {m: f.aicc for m, f in ok.items() if np.isfinite(f.aicc)}
     best_aicc = min(aicc.values()) if aicc else np.nan
@@ -73,37 +76,38 @@ def compare_set(
                 if t is not None:
                     tests[(simple, cplx)] = t
 
-    preferred, reason = "", "no model could be fitted"
+    chosen, reason = "", "no model could be fitted"
     if aicc:
-        preferred = min(aicc, key=lambda m: aicc[m])
-        others = sorted(d for m, d in delta.items() if m != preferred)
+        chosen = min(aicc, key=lambda m: aicc[m])
+        others = sorted(d for m, d in delta.items() if m != chosen)
         reason = f"lowest AICc (next best {others[0]:.2g} higher)" if others else "lowest AICc (only model fitted)"
     elif ok:
-        preferred = min(ok, key=lambda m: len(ok[m].names))
+        chosen = min(ok, key=lambda m: len(ok[m].names))
         reason = "too few points for AICc; simplest model that could be fitted"
     seen = set()
-    while preferred and preferred not in seen:
-        seen.add(preferred)
+    while chosen and chosen not in seen:
+        seen.add(chosen)
         for (simple, cplx), t in tests.items():
-            if cplx == preferred and t.p >= alpha:
+            if cplx == chosen and t.p >= alpha:
                 reason = (f"{simple}: the extra parameter(s) of {cplx} are not supported "
                           f"(F = {t.f:.3g}, p = {t.p:.3g} ≥ {alpha:g})")
-                preferred = simple
+                chosen = simple
                 break
-            if cplx == preferred and t.p < alpha:
+            if cplx == chosen and t.p < alpha:
                 reason += f"; F-test against {simple}: p = {t.p:.3g}"
     rows = []
     for m, f in fits.items():
         base = {
             "model": m, "success": bool(f.success), "n_points": f.n_points, "n_params": int(f.free.sum()),
             "rss": f.rss, "dof": f.dof, "aicc": aicc.get(m, np.nan), "delta_aicc": delta.get(m, np.nan),
-            "akaike_weight": weight.get(m, np.nan), "preferred": preferred, "reason": reason,
+            "akaike_weight": weight.get(m, np.nan), "selected_model": chosen, "selected": m == chosen,
+            "selection_reason": reason,
         }
         against: list[FTest | None] = [t for (_, c), t in tests.items() if c == m]
         for t in against or [None]:
             rows.append({**base, "f_test_against": t.simple if t else "", "F": t.f if t else np.nan,
                          "p": t.p if t else np.nan})
-    return rows, preferred, reason
+    return rows, chosen, reason
 
 
 def cooperativity(
@@ -129,10 +133,10 @@ def cooperativity(
         side = "positive" if low > 1 else "negative"
         if f_known and p_vs_reference >= alpha:
             return "not resolved by these data", (f"the {method} interval of {h} excludes 1 but the {f_txt} "
-                                                  f"does not prefer {title}")
+                                                  f"does not support {title}")
         return side, f"{method} interval of {h} [{low:.3g}, {high:.3g}] excludes 1; {f_txt}"
     if f_known and p_vs_reference < alpha:
-        return "not resolved by these data", f"interval of {h} contains 1 but the {f_txt} prefers {title}"
+        return "not resolved by these data", f"interval of {h} contains 1 but the {f_txt} supports {title}"
     if EQUIVALENCE[0] <= low and high <= EQUIVALENCE[1]:
         return "none", (f"{method} interval of {h} [{low:.3g}, {high:.3g}] contains 1 and lies within "
                         f"[{EQUIVALENCE[0]:g}, {EQUIVALENCE[1]:g}]; {f_txt}")

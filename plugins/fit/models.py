@@ -16,7 +16,7 @@ Equations (textbook forms; see docs/fitting.md for sources):
 * noncompetitive: v = Vmax·S/((Km + S)(1 + I/Ki))
 * morrison: v = v0·(1 − 2I/(B + √(B² − 4·E·I))), B = E + I + Ki_app (the tight-binding quadratic, in the
   cancellation-free form of ((B − √(B² − 4EI))/(2E)) = 2I/(B + √(B² − 4EI)))
-* logistic-4p: v = bottom + (top − bottom)/(1 + (I/IC50)^slope)
+* logistic-4p: v = v_residual + (v_uninhibited − v_residual)/(1 + (I/IC50)^n)
 """
 
 from __future__ import annotations
@@ -232,19 +232,19 @@ def _logistic_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
     u, li = _logistic_u(p, x["inhibitor"])
     d = (1 + u) ** 2
     span = p[0] - p[1]
-    dslope = np.where(u > 0, -span * u * np.where(np.isfinite(li), li, 0.0) / d, 0.0)
-    return [1 / (1 + u), u / (1 + u), span * u * p[3] / (p[2] * d), dslope]
+    dn = np.where(u > 0, -span * u * np.where(np.isfinite(li), li, 0.0) / d, 0.0)
+    return [1 / (1 + u), u / (1 + u), span * u * p[3] / (p[2] * d), dn]
 
 
 def _logistic_guess(x: X, y: np.ndarray) -> list[float]:
     i = np.asarray(x["inhibitor"], float)
     pos = i[i > 0]
     mid = float(np.exp(np.median(np.log(pos)))) if pos.size else 1.0
-    top, bottom = float(np.nanmax(y)), float(np.nanmin(y))
+    high, low = float(np.nanmax(y)), float(np.nanmin(y))
     order = np.argsort(i)
-    # a falling curve (inhibition) gets a positive slope; a rising one a negative slope
+    # a falling curve (inhibition) gets a positive steepness n; a rising one a negative n
     rising = np.nanmean(y[order][-3:]) > np.nanmean(y[order][:3])
-    return [bottom, top, mid, -1.0] if rising else [top, bottom, mid, 1.0]
+    return [low, high, mid, -1.0] if rising else [high, low, mid, 1.0]
 
 
 def _mm_guess(x: X, y: np.ndarray) -> list[float]:

@@ -7,6 +7,7 @@ only a set-up problem (no rates table, a missing column, an unknown model) raise
 
 from __future__ import annotations
 
+import fnmatch
 import functools
 from collections.abc import Mapping
 from dataclasses import replace
@@ -15,6 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero import units as pu
+from vzero.audit.reader import OLD_PARAMETERS
 from vzero.data import Table
 from vzero.errors import FitError
 from vzero.params import closest
@@ -262,7 +264,8 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     plate = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
     well = frame["well"].astype(str).to_numpy() if "well" in frame.columns else np.full(len(frame), "")
     no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
-    group_names = sorted(set(groups[use]))
+    group_names = _selected_groups(sorted(set(groups[use])), groups, use, var["inhibitor"], cfg["select"], data.warn)
+    skipped: dict[str, list[str]] = {}  # reason -> "model on group" that cannot apply
     conf = float(cfg["confidence"])
 
     fits: dict[tuple[str, str], engine.FitResult] = {}
@@ -288,13 +291,19 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         starts = cfg["start"].get(model.name, {})
         for k in [*fixed, *bounds, *starts]:
             if k not in model.params:
-                raise FitError(f"fit: model {model.name} has no parameter {k!r}",
+                new = OLD_PARAMETERS.get(model.name, {}).get(k)
+                raise FitError(f"fit: model {model.name} has no parameter {k!r}"
+                               + (f" (it is now called {new!r})" if new else ""),
                                hint=f"Its parameters are {', '.join(model.params)}.")
         n_free = len(model.params) - len(fixed)
         todo: list[tuple[str, np.ndarray]] = []
         for g in group_names:
             idx = np.flatnonzero(ok & (groups == g))
             key = (g, model.name)
+            why = _cannot_apply(model, xv, idx, var["inhibitor"][use & (groups == g)])
+            if why:
+                skipped.setdefault(why, []).append(f"{model.name} on {g}")
+                continue
             point_sets[key] = tuple(idx)
             y = rate[idx]
             levels = np.unique(np.stack([xv[v][idx] for v in model.variables], axis=1), axis=0) if idx.size else []
@@ -352,10 +361,52 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
                 extra_notes[key] = problem
             fits[key] = res
 
+    if skipped:  # one line for the step, not a table of NaN per model and group
+        data.warn("fit: not fitted where the model cannot apply: " + "; ".join(
+            f"{', '.join(pairs)} ({why})" for why, pairs in skipped.items()))
     output = _tables(models, fits, point_sets, extra_notes, cfg, xvars, var, rate, groups, plate, well, use,
                    no_inhibitor, role_unit)
     _note_left_out(output, frame, groups, use, plate, well)
     return output
+
+
+def _selected_groups(names: list[str], groups: np.ndarray, use: np.ndarray, inhibitor: np.ndarray,
+                     select: Mapping[str, Any], warn: Any) -> list[str]:
+    """The groups this fit step fits (``select``: ``groups`` names or glob patterns, ``inhibitor`` whether the
+    group must have an inhibitor series); a selection that matches no group is said in one warning."""
+    if not select:
+        return names
+    out = list(names)
+    pats = select.get("groups")
+    if pats is not None:
+        pats = [pats] if isinstance(pats, str) else list(pats)
+        out = [g for g in out if any(fnmatch.fnmatchcase(g, p) for p in pats)]
+    if "inhibitor" in select:
+        want = bool(select["inhibitor"])
+        out = [g for g in out if _has_series(inhibitor[use & (groups == g)]) == want]
+    if not out:
+        warn(f"fit: select {dict(select)} matches none of the groups ({', '.join(names) or 'none'}); "
+             f"this fit step fits nothing")
+    return out
+
+
+def _has_series(values: np.ndarray) -> bool:
+    """Whether a group's wells hold at least two distinct finite levels (a titration series, zero included)."""
+    return np.unique(values[np.isfinite(values)]).size >= 2
+
+
+def _cannot_apply(model: Model, xv: Mapping[str, np.ndarray], idx: np.ndarray, inhibitor: np.ndarray) -> str:
+    """Why ``model`` cannot apply to a group at all (no series of a variable it needs), or ''.
+
+    ``idx`` are the wells the model would use (a model without inhibitor uses the wells without inhibitor),
+    ``inhibitor`` the group's inhibitor levels. Too few levels of a series the group does have is not this:
+    that stays a failed fit with its reason.
+    """
+    if "inhibitor" in model.variables and not _has_series(inhibitor):
+        return "no inhibitor series"
+    if "substrate" in model.variables and not _has_series(xv["substrate"][idx]):
+        return "no substrate series" + ("" if "inhibitor" in model.variables else " without inhibitor")
+    return ""
 
 
 def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray, use: np.ndarray,
@@ -392,20 +443,20 @@ def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray,
 
 def _with_comparison(fits: pd.DataFrame, comp_rows: list[dict[str, Any]]) -> pd.DataFrame:
     """The model comparison on every row of the fits table: the model's AICc difference from the best and
-    Akaike weight, the group's preferred model and whether this row's model is it (the full comparison, with
-    F-tests and reasons, is the model_comparison table)."""
+    Akaike weight, the group's selected model and whether this row's model is it (the full comparison, with
+    F-tests and the reason for the selection, is the model_comparison table)."""
     if not comp_rows or fits.empty:
-        return fits.assign(delta_aicc=np.nan, akaike_weight=np.nan, preferred_model="", preferred=False)
+        return fits.assign(delta_aicc=np.nan, akaike_weight=np.nan, selected_model="", selected=False)
     by_key: dict[tuple[str, str], dict[str, Any]] = {}
     for r in comp_rows:  # the first row of each (group, model), as the comparison lists them
         by_key.setdefault((str(r["group"]), str(r["model"])), r)
     found = [by_key.get(k, {}) for k in zip(fits["group"].astype(str), fits["model"].astype(str), strict=True)]
-    preferred = ["" if pd.isna(r.get("preferred")) else str(r.get("preferred")) for r in found]
+    chosen = ["" if pd.isna(r.get("selected_model")) else str(r.get("selected_model")) for r in found]
     return fits.assign(
         delta_aicc=np.array([r.get("delta_aicc", np.nan) for r in found], float),
         akaike_weight=np.array([r.get("akaike_weight", np.nan) for r in found], float),
-        preferred_model=preferred,
-        preferred=fits["model"].astype(str).to_numpy() == np.array(preferred, dtype=object),
+        selected_model=chosen,
+        selected=fits["model"].astype(str).to_numpy() == np.array(chosen, dtype=object),
     )
 
 

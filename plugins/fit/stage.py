@@ -32,6 +32,28 @@ def _numbers_by_model(value: Any) -> str | None:
     return None
 
 
+SELECT_KEYS = ("groups", "inhibitor")
+
+
+def _check_select(value: Any) -> str | None:
+    """Check ``select``: ``groups`` a name or glob pattern (or a list of them), ``inhibitor`` true or false."""
+    from vzero.params import closest
+
+    for key in value:
+        if key not in SELECT_KEYS:
+            hit = closest(str(key), SELECT_KEYS)
+            return (f"unknown key {key!r}" + (f" (did you mean {hit!r}?)" if hit else "")
+                    + f"; valid: {', '.join(SELECT_KEYS)}")
+    groups = value.get("groups")
+    if groups is not None:
+        items = [groups] if isinstance(groups, str) else groups
+        if not isinstance(items, list) or not items or not all(isinstance(g, str) and g for g in items):
+            return f"groups: expected a group name or pattern (VZ-*) or a list of them, got {groups!r}"
+    if "inhibitor" in value and not isinstance(value["inhibitor"], bool):
+        return f"inhibitor: expected true (groups with an inhibitor series) or false, got {value['inhibitor']!r}"
+    return None
+
+
 class FitStage(Stage):
     """Pooled nonlinear least-squares fit of rate laws to initial rates, one fit per group and model."""
 
@@ -45,6 +67,10 @@ class FitStage(Stage):
     params: ClassVar[Mapping[str, Param]] = {
         "models": Param("list", ["michaelis-menten", "hill"],
                         "rate laws to fit (names of registered models, see `vzero plugins`)", names="model"),
+        "select": Param("mapping", {}, "which groups this step fits: groups (a name or glob pattern such as "
+                        "VZ-*, or a list of them) and/or inhibitor (true: only groups with an inhibitor series, "
+                        "false: only groups without); empty: every group. Several fit steps add up",
+                        check=_check_select),
         "x": Param("str", "substrate", "column of the rates table holding substrate concentration"),
         "inhibitor": Param("str", "inhibitor", "column holding inhibitor concentration"),
         "group_by": Param("str", "group", "column whose values define the groups fitted separately"),

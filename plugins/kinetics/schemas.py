@@ -82,6 +82,8 @@ SCHEMAS = (
                keeps_rows={"rates": "rates"}, base=ConvertMethod),
     KindSchema("fit", {
         "fits": TableSchema((
+            Column("step", "text", "label of the fit step (added by the runner: several fit steps add up)",
+                   required=False),
             Column("group", "text", "group fitted"),
             Column("model", "text", "registered model name"),
             Column("parameter", "text", "parameter name"),
@@ -94,7 +96,8 @@ SCHEMAS = (
             Column("errorbars", "bool", "whether stderr and limits could be computed"),
             Column("note", "text", "why a value or an uncertainty is missing"),
         ), "One row per group, model and parameter."),
-    }, "Rate laws fitted to the pooled rates, per group.", required=("fits",)),
+    }, "Rate laws fitted to the pooled rates, per group; several fit steps add up (a `step` column keeps them "
+       "apart).", required=("fits",), stacks=True),
     KindSchema("report", {}, "A report of the run, as files.", files=True),
 )
 

@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from vzero.data import Table, Traces
+from vzero.data import Table, Traces, steps_apart
 from vzero.plugins.report import content, figures, parallel
 
 RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
@@ -156,11 +156,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
     rates_t = tables.get("rates")
     rates = _frame(tables, "rates")
     rate_units = dict(rates_t.units) if isinstance(rates_t, Table) else {}
-    fits = _frame(tables, "fits")
-    comparison = _frame(tables, "model_comparison")
-    coop = _frame(tables, "cooperativity")
+    fits = steps_apart(_frame(tables, "fits"))  # a group fitted by several fit steps: its models per step
+    comparison = steps_apart(_frame(tables, "model_comparison"))
+    comparison = steps_apart(comparison, "selected_model") if "selected_model" in comparison else comparison
+    coop = steps_apart(_frame(tables, "cooperativity"))
     diag = _frame(tables, "diagnostics")
-    curves = _frame(tables, "curves")
+    curves = steps_apart(_frame(tables, "curves"))
     options = content.fit_options(inp.recipe)
     rate_unit = rate_units.get("rate", "") or (str(rates["rate_unit"].iloc[0]) if "rate_unit" in rates and len(rates)
                                                else "")
@@ -213,12 +214,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         block: dict[str, Any] = {"name": g, "figures": []}
         rows, sentence = content.comparison_rows(comparison, g, titles)
         block["comparison"], block["comparison_sentence"] = rows, sentence
-        preferred = next((r["model"] for r in rows if r["preferred"]), "")
-        pref_raw = ""
+        selected = next((r["model"] for r in rows if r["selected"]), "")
+        pick_raw = ""
         if not comparison.empty and "group" in comparison:
             sub = comparison[comparison["group"].astype(str) == g]
-            pref_raw = str(sub["preferred"].iloc[0]) if len(sub) else ""
-        block["preferred"] = preferred
+            pick_raw = str(sub["selected_model"].iloc[0]) if len(sub) else ""
+        block["selected"] = selected
         block["parameters"] = content.parameter_tables(fits, g, titles) if not fits.empty else []
         crow = coop[coop["group"].astype(str) == g] if "group" in coop else pd.DataFrame()
         block["verdict"] = content.verdict_sentence(crow.iloc[0], options["confidence"], titles) if len(crow) else ""
@@ -238,7 +239,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 columns=["model", "variable", "inhibitor", "x", "y", "lower", "upper"])
             unit = rate_units.get(col, "") or (str(pts[f"{col}_unit"].iloc[0]) if f"{col}_unit" in pts and len(pts)
                                                else "")
-            make = functools.partial(figures.rates_vs_x, g, pts, pused, cv, pref_raw, col, content.pretty_unit(unit),
+            make = functools.partial(figures.rates_vs_x, g, pts, pused, cv, pick_raw, col, content.pretty_unit(unit),
                                      content.pretty_unit(rate_unit) or "?", _evaluators(fits, g, var, inp.models),
                                      titles)
             conf = f"{options['confidence'] * 100:g} %"

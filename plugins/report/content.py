@@ -94,8 +94,11 @@ def step_settings(recipe: Mapping[str, Any], kind: str) -> dict[str, Any]:
 
 
 def fit_options(recipe: Mapping[str, Any]) -> dict[str, Any]:
-    """The fit step's options the report needs, with the fit stage's defaults where the recipe is silent."""
+    """The fit step's options the report needs, with the fit stage's defaults where the recipe is silent
+    (with several fit steps: the last one's, and the models of all of them)."""
     s = step_settings(recipe, "fit")
+    every = [dict(step["fit"]) for step in recipe.get("steps", []) or []
+             if isinstance(step, Mapping) and isinstance(step.get("fit"), Mapping)]
     return {
         "present": bool(s),
         "exclude_flags": [str(f) for f in s.get("exclude_flags", DEFAULT_EXCLUDE)],
@@ -103,7 +106,7 @@ def fit_options(recipe: Mapping[str, Any]) -> dict[str, Any]:
         "x": str(s.get("x", "substrate")),
         "inhibitor": str(s.get("inhibitor", "inhibitor")),
         "group_by": str(s.get("group_by", "group")),
-        "models": [str(m) for m in s.get("models", [])],
+        "models": list(dict.fromkeys(str(m) for f in every for m in f.get("models", []) or [])),
     }
 
 
@@ -280,7 +283,7 @@ def parameter_tables(fits: pd.DataFrame, group: str, titles: Mapping[str, str] |
 
 def comparison_rows(comparison: pd.DataFrame, group: str,
                     titles: Mapping[str, str] | None = None) -> tuple[list[dict[str, Any]], str]:
-    """Model-comparison rows of one group and a sentence saying which model is preferred and why."""
+    """Model-comparison rows of one group and a sentence naming the selected model and the reason."""
     if comparison.empty or "group" not in comparison:
         return [], ""
     sub = comparison[comparison["group"].astype(str) == group]
@@ -294,15 +297,15 @@ def comparison_rows(comparison: pd.DataFrame, group: str,
             "f_test": (f"against {model_title(str(r['f_test_against']), titles)}: F = {num(r['F'], 3)}, "
                        f"p = {num(r['p'], 3)}"
                        if str(r.get("f_test_against", "") or "") else ""),
-            "preferred": str(r.get("preferred", "")) == str(r["model"]),
+            "selected": str(r.get("selected_model", "")) == str(r["model"]),
         })
-    for (_, first) in sub.drop_duplicates("preferred").iterrows():
-        pref = str(first.get("preferred", ""))
-        if pref:
-            reason = str(first.get("reason", ""))
-            if reason.startswith(f"{pref}: "):
-                reason = reason[len(pref) + 2:]
-            sentences.append(f"{model_title(pref, titles)} is preferred: {plain_models(reason, titles)}.")
+    for (_, first) in sub.drop_duplicates("selected_model").iterrows():
+        pick = str(first.get("selected_model", ""))
+        if pick:
+            reason = str(first.get("selection_reason", ""))
+            if reason.startswith(f"{pick}: "):
+                reason = reason[len(pick) + 2:]
+            sentences.append(f"Selected model: {model_title(pick, titles)} ({plain_models(reason, titles)}).")
     return rows, " ".join(sentences)
 
 

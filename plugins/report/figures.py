@@ -430,7 +430,7 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
 
 
 def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.DataFrame,
-               preferred: str, x_col: str, x_unit: str, rate_unit: str,
+               selected: str, x_col: str, x_unit: str, rate_unit: str,
                evaluate: Mapping[str, Any] | None = None, titles: Mapping[str, str] | None = None) -> Any:
     """Rates of one group against ``x_col`` with each model's curve and confidence band (top) and residuals
     of the fitted points (bottom). ``evaluate`` maps model -> callable(x array) -> fitted rate, for exact
@@ -461,7 +461,7 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
             for j, level in enumerate(distinct):
                 part = cm[np.isnan(levels)] if np.isnan(level) else cm[levels == level]
                 cx = part["x"].to_numpy(float)
-                label = model_title(model, titles) + (" (preferred)" if model == preferred else "")
+                label = model_title(model, titles) + (" (selected)" if model == selected else "")
                 if not np.isnan(level) and part["variable"].iloc[0] != "inhibitor":
                     label += f", inhibitor {level:g}"
                 ax.plot(cx, part["y"].to_numpy(float), color=st.color, ls=st.linestyle, lw=1.8 if j == 0 else 1.2,

@@ -99,7 +99,7 @@ def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
 
     with reader.open_audit(path) as f:
         a = f.attrs
-        tables = {name: reader.read_table(g) for name, g in f["results"].items()}
+        tables = reader.read_results(f)  # under today's names (an older file's old names read as new)
         traces: dict[str, Traces] = {}
         steps = []
         for label, g in f["steps"].items():

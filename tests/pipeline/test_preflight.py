@@ -129,7 +129,7 @@ def test_fluorescence_reads_default_to_rfu(tmp_path: Path):
     assert set(run(recipe, tmp_path / "out").rates["rate_unit"]) == {"RFU/s"}
 
 
-def test_water_peak_without_a_pathcheck_file_and_missing_blanks_are_caught_by_check(tmp_path: Path, capsys):
+def test_water_peak_without_a_water_peak_reads_file_and_missing_blanks_are_caught_by_check(tmp_path: Path, capsys):
     recipe = linear_plate(tmp_path)
     layout = pd.read_csv(tmp_path / "layout.csv")
     layout.loc[layout["role"] == "blank", "role"] = "empty"
@@ -138,7 +138,7 @@ def test_water_peak_without_a_pathcheck_file_and_missing_blanks_are_caught_by_ch
     recipe.write_text(recipe.read_text("utf-8") + "  - convert: {method: beer-lambert, epsilon: \"6220 M^-1 cm^-1\", "
                       "water_peak: true}\n", "utf-8")
     assert main(["check", str(recipe)]) == 2
-    assert "water_peak is on but the plate names no pathcheck file" in _said(capsys)
+    assert "water_peak is on but the plate names no water_peak_reads file" in _said(capsys)
 
 
 def test_check_skips_the_input_checks_of_recipe_named_plugin_files_and_says_so(tmp_path: Path, capsys):

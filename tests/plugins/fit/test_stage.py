@@ -89,8 +89,8 @@ def test_estimates_units_and_kcat(result) -> None:
 def test_comparison_and_cooperativity(result) -> None:
     out, _ = result
     comp = out["model_comparison"].frame
-    assert set(comp[comp.group == "mm"].preferred) == {"michaelis-menten"}
-    assert set(comp[comp.group == "coop"].preferred) == {"hill"}
+    assert set(comp[comp.group == "mm"].selected_model) == {"michaelis-menten"}
+    assert set(comp[comp.group == "coop"].selected_model) == {"hill"}
     hill_row = comp[(comp.group == "coop") & (comp.model == "hill")].iloc[0]
     assert hill_row.f_test_against == "michaelis-menten" and hill_row.p < 1e-6
     w = comp[comp.group == "mm"].akaike_weight
@@ -208,7 +208,7 @@ def test_inhibition_matrix_prefers_the_simulated_mechanism() -> None:
     frame["inhibitor"] = i
     out, _ = _run(frame, models=["competitive", "uncompetitive", "mixed", "noncompetitive"], profile=False)
     comp = out["model_comparison"].frame
-    assert set(comp.preferred) == {"competitive"}, comp[["model", "aicc", "p", "reason"]]
+    assert set(comp.selected_model) == {"competitive"}, comp[["model", "aicc", "p", "selection_reason"]]
     mixed = comp[comp.model == "mixed"]
     assert set(mixed.f_test_against) == {"competitive", "uncompetitive", "noncompetitive"}
     kic = _param(out["fits"].frame, "inh", "competitive", "Kic")
@@ -230,10 +230,13 @@ def test_unknown_flag_names_and_missing_groups_do_not_break_the_fit() -> None:
                           "flags": ["spike"] + [""] * (s.size - 1)})
     settings, problems = validate(FitStage.params, {"models": ["michaelis-menten"]})
     assert not problems
+    said: list[str] = []
     data = StageInput({"rates": Table(frame, {"rate": "uM/min", "substrate": "uM"})}, None, {}, {},
-                      make_manager(autoload=False).registry, lambda _: None)
+                      make_manager(autoload=False).registry, said.append)
     fits = FitStage(**settings).run(data).artifacts["fits"].frame
-    assert set(fits["group"]) == {"g", ""}
+    assert set(fits["group"]) == {"g"}  # the group "" (one well, no substrate series) is skipped, in one line
+    assert said == ["fit: not fitted where the model cannot apply: michaelis-menten on  (no substrate series "
+                    "without inhibitor)"]
     assert fits.loc[(fits["group"] == "g") & (fits["parameter"] == "Km"), "n_points"].iloc[0] == s.size - 1
 
 

@@ -121,13 +121,14 @@ def test_morrison_recovers_simulated_tight_binding_ki() -> None:
 def test_ryegrass_log_logistic_reproduces_published_fit() -> None:
     # Inderjit et al. (2002) data; estimates published by Ritz et al. (2015) PLoS ONE 10:e0146021 (reference
     # pack section 8). Their model f = c + (d - c)/(1 + exp(b(ln x - ln e))) equals ours,
-    # bottom + (top - bottom)/(1 + (I/IC50)^slope), with top = d, bottom = c, IC50 = e, slope = b: no mapping
+    # v_residual + (v_uninhibited - v_residual)/(1 + (I/IC50)^n), with v_uninhibited = d, v_residual = c,
+    # IC50 = e, n = b: no mapping
     # beyond renaming. f(0) = d: the six controls enter at inhibitor 0.
     raw = pd.read_csv(DATA / "ryegrass.csv")
     frame = pd.DataFrame(_titration("rye", raw.conc.to_numpy(), raw.rootl.to_numpy()))
     out, _ = _run(frame, {"rate": "cm", "substrate": "uM", "inhibitor": "mM"}, models=["logistic-4p"])
     fits = out["fits"].frame
-    names = ["slope", "bottom", "top", "IC50"]
+    names = ["n", "v_residual", "v_uninhibited", "IC50"]
     est = [_row(fits, "rye", "logistic-4p", n).estimate for n in names]
     se = [_row(fits, "rye", "logistic-4p", n).stderr for n in names]
     # published estimates b, c, d, e (pack section 8; the pack's values from memory, reproduced by its scipy fit)
@@ -138,5 +139,5 @@ def test_ryegrass_log_logistic_reproduces_published_fit() -> None:
     rye = _row(fits, "rye", "logistic-4p", "IC50")
     np.testing.assert_allclose(rye.rss, 5.400215, rtol=1e-6)  # pack section 8 (computed)
     np.testing.assert_allclose(np.sqrt(rye.rss / rye.dof), 0.51963, rtol=1e-4)
-    assert rye.dof == 20 and rye.unit == "mM" and _row(fits, "rye", "logistic-4p", "top").unit == "cm"
+    assert rye.dof == 20 and rye.unit == "mM" and _row(fits, "rye", "logistic-4p", "v_uninhibited").unit == "cm"
     assert rye.ci_method == "profile" and rye.ci_low < 3.05795 < rye.ci_high

@@ -61,9 +61,9 @@ def fit_tables(rates: pd.DataFrame) -> dict[str, Table]:
                            "upper": curve * 1.02, "x_unit": "uM"})
     comparison = pd.DataFrame([{"group": GROUP, "comparison_set": 1, "model": "michaelis-menten", "success": True,
                                 "n_points": 70, "n_params": 2, "rss": 0.0, "dof": 68, "aicc": -900.0,
-                                "delta_aicc": 0.0, "akaike_weight": 1.0, "preferred": "michaelis-menten",
-                                "reason": "lowest AICc (only model fitted)", "f_test_against": "", "F": np.nan,
-                                "p": np.nan}])
+                                "delta_aicc": 0.0, "akaike_weight": 1.0, "selected_model": "michaelis-menten",
+                                "selected": True, "selection_reason": "lowest AICc (only model fitted)",
+                                "f_test_against": "", "F": np.nan, "p": np.nan}])
     use = (rates["role"] == "sample") & np.isfinite(rates["rate"]) & (rates["substrate"] > 0)
     s, v = rates.loc[use, "substrate"].to_numpy(), rates.loc[use, "rate"].to_numpy()
     diag = pd.DataFrame({"group": GROUP, "plot": "lineweaver-burk", "quantity": "point", "x": 1 / s, "y": 1 / v,

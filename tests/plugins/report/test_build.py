@@ -52,7 +52,7 @@ def test_report_says_what_a_reader_must_know(built):
     assert ("C5 " + GROUP + " flag excluded: excluded in the recipe (excluded: bubble seen by eye)") in text
     # parameters with units, errors and intervals (Km = 100 ± 2 µM, profile interval [96, 104])
     assert "100.0 ± 2.0" in text and "[96.00, 104.0]" in text and "µM" in text
-    assert "Michaelis–Menten is preferred: lowest AICc (only model fitted)." in text
+    assert "Selected model: Michaelis–Menten (lowest AICc (only model fitted))." in text
     # blanks are not fitted, and the report says so
     assert "24 wells with role “blank” are not fitted" in text
 
