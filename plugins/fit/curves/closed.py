@@ -32,15 +32,28 @@ NEWTON_TOL = 1e-14
 NEWTON_MAX = 60
 
 
-def _q(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """q(x) = (1 − e^−x)/x and its derivative q'(x) = (e^−x·(1 + x) − 1)/x², by series near 0."""
+def _q(x: np.ndarray, derivative: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
+    """q(x) = (1 − e^−x)/x and (when asked) q'(x) = (e^−x·(1 + x) − 1)/x², by a series for |x| < 1e-3."""
     small = np.abs(x) < 1e-3
     xs = np.where(small, 1.0, x)
     with np.errstate(over="ignore", invalid="ignore"):
-        q = np.where(small, 1 - x / 2 + x**2 / 6 - x**3 / 24 + x**4 / 120, -np.expm1(-xs) / xs)
-        dq = np.where(small, -0.5 + x / 3 - x**2 / 8 + x**3 / 30 - x**4 / 144,
-                      (np.exp(-xs) * (1 + xs) - 1) / xs**2)
+        e = np.exp(-xs)
+        q = (1 - e) / xs
+        dq = (e * (1 + xs) - 1) / xs**2 if derivative else None
+    if small.any():
+        z = x[small]
+        q[small] = 1 - z / 2 + z**2 / 6 - z**3 / 24 + z**4 / 120
+        if dq is not None:
+            dq[small] = -0.5 + z / 3 - z**2 / 8 + z**3 / 30 - z**4 / 144
     return q, dq
+
+
+def _mm_start(vm: np.ndarray, km: np.ndarray, s0: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """Start values for Newton: the Michaelis-Menten curve with the same V and half-saturation constant."""
+    with np.errstate(all="ignore"):
+        y = np.log(np.where(s0 > 0, s0, 1.0) / km) + (s0 - vm * tau) / km
+        s = km * special.wrightomega(y)
+    return np.where(np.isfinite(s) & (s > 0), np.minimum(s, s0), 0.5 * s0)
 
 
 def _newton(g: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.ndarray, tau: np.ndarray,
@@ -63,23 +76,26 @@ def _newton(g: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.nda
     u = np.log(np.clip(np.where(todo, start, s0), s0 * 1e-300, s0).clip(1e-320))
     u = np.where(todo, np.minimum(u, hi), hi)
     active = todo.copy()
+    prev = np.full(u.shape, np.inf)
     with np.errstate(all="ignore"):
         for _ in range(NEWTON_MAX):
             if not active.any():
                 break
-            ia = np.flatnonzero(active)
-            s = np.exp(u[ia])
-            gv, v = g(s, ia)
-            f = gv - tau[ia]
-            lo[ia] = np.where(f > 0, u[ia], lo[ia])
-            hi[ia] = np.where(f <= 0, u[ia], hi[ia])
-            step = f * v / s  # f / (dG/du)  with dG/du = −S/v:  u_new = u + f·v/S
-            un = u[ia] + step
-            bad = ~np.isfinite(un) | (un <= lo[ia]) | (un >= hi[ia])
-            un = np.where(bad, 0.5 * (lo[ia] + hi[ia]), un)
-            done = (np.abs(un - u[ia]) <= NEWTON_TOL * np.maximum(1.0, np.abs(u[ia]))) | (hi[ia] - lo[ia] < 1e-15)
-            u[ia] = un
-            active[ia[done]] = False
+            s = np.exp(u)
+            gv, v = g(s)
+            f = gv - tau
+            lo = np.where(active & (f > 0), u, lo)
+            hi = np.where(active & (f <= 0), u, hi)
+            step = f * v / s  # Newton: f / (dG/du), with dG/du = −S/v
+            un = u + step
+            size = np.abs(step)
+            # converged: a step below the tolerance, or a small step that no longer shrinks (Newton has reached
+            # the rounding level of G itself, which for deep conversion lies above NEWTON_TOL)
+            small = (size <= NEWTON_TOL * np.maximum(1.0, np.abs(u))) | ((size < 1e-9) & (size >= 0.5 * prev))
+            prev = size
+            bad = ~np.isfinite(un) | (un < lo) | (un > hi)
+            u = np.where(active, np.where(bad, 0.5 * (lo + hi), un), u)
+            active &= ~(small | (hi - lo < 1e-15))
     out[todo] = np.exp(u[todo])
     return out
 
@@ -94,8 +110,8 @@ def michaelis_menten_family(vp: Arr, kp: Arr, s0: np.ndarray, tau: np.ndarray
         s = kp * special.wrightomega(y)
         s = np.where((s0 > 0) & np.isfinite(s), np.clip(s, 0.0, s0), np.where(s0 > 0, np.nan, 0.0))
 
-        def g(sv: np.ndarray, ia: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-            k, v, s00 = kf[ia], vf[ia], s0f[ia]
+        def g(sv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            k, v, s00 = kf, vf, s0f
             return (k * np.log(s00 / sv) + s00 - sv) / v, v * sv / (k + sv)
 
         flat = _newton(g, s0f, tau.ravel(), s.ravel())
@@ -112,13 +128,12 @@ def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> t
     vm, km, ksi = (np.broadcast_to(np.asarray(a, float), tau.shape).ravel() for a in p)
     s0f = np.broadcast_to(s0, tau.shape).ravel()
 
-    def g(s: np.ndarray, ia: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        v, k, ki, a = vm[ia], km[ia], ksi[ia], s0f[ia]
+    def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        v, k, ki, a = vm, km, ksi, s0f
         return (k * np.log(a / s) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
 
     with np.errstate(all="ignore"):
-        start = s0f - vm * s0f / (km + s0f + s0f**2 / ksi) * tau.ravel()
-        s = _newton(g, s0f, tau.ravel(), np.where(start > 0, start, 0.5 * s0f))
+        s = _newton(g, s0f, tau.ravel(), _mm_start(vm, km, s0f, tau.ravel()))
         pos = s > 0
         v = vm * s / (km + s + s * s / ksi)
         lg = np.where(pos, np.log(s0f / np.where(pos, s, 1.0)), 0.0)
@@ -126,6 +141,20 @@ def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> t
         d = [-v * gv / vm, v * lg / vm, -v * (s0f**2 - s**2) / (2 * ksi**2 * vm)]
     shape = tau.shape
     return s.reshape(shape), [np.where(pos, di, 0.0).reshape(shape) for di in d]
+
+
+def _hill_start(vm: np.ndarray, kh: np.ndarray, h: np.ndarray, s0: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """A lower bound of S(τ) for the Hill law, tight at both ends: the larger of the zero-order solution
+    S0 − Vτ (rate V, an upper bound of the Hill rate) and the power-law solution of dS/dτ = −(V/K^h)·S^h
+    (also an upper bound of the rate); Newton from below then needs a few steps only."""
+    with np.errstate(all="ignore"):
+        zero = s0 - vm * tau
+        hm1 = h - 1
+        z = hm1 * vm * tau / s0 * np.exp(h * np.log(s0 / kh))
+        power = np.where(np.abs(hm1) > 1e-12, s0 * np.exp(-np.log1p(np.maximum(z, -1.0)) / np.where(
+            np.abs(hm1) > 1e-12, hm1, 1.0)), s0 * np.exp(-vm * tau / kh))
+        start = np.maximum(np.where(np.isfinite(power), power, 0.0), zero)
+    return np.where(start > 0, np.minimum(start, s0), 0.5 * s0 * np.exp(-1.0))
 
 
 def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
@@ -141,25 +170,22 @@ def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray,
         lsk = np.log(s0f / kh)
         e1 = kh * np.exp((1 - h) * lsk)  # K·(S0/K)^{1−h} = K^h·S0^{1−h}
 
-    def hh(s: np.ndarray, ia: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        lg = np.log(s0f[ia] / s)
-        q, dq = _q((1 - h[ia]) * lg)
-        return e1[ia] * lg * q, lg, dq
+    def hh(s: np.ndarray, derivative: bool = False) -> tuple[np.ndarray, np.ndarray, Any]:
+        lg = np.log(s0f / s)
+        q, dq = _q((1 - h) * lg, derivative)
+        return e1 * lg * q, lg, dq
 
-    def g(s: np.ndarray, ia: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        term, _, _ = hh(s, ia)
-        u = np.exp(h[ia] * np.log(s / kh[ia]))
-        return (term + s0f[ia] - s) / vm[ia], vm[ia] * u / (1 + u)
+    def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        term, _, _ = hh(s)
+        u = np.exp(h * np.log(s / kh))
+        return (term + s0f - s) / vm, vm * u / (1 + u)
 
     with np.errstate(all="ignore"):
         floor = np.where(h < 1, (e1 / (1 - h) + s0f) / vm, np.inf)
-        u0 = np.exp(h * np.log(s0f / kh))
-        start = s0f - vm * u0 / (1 + u0) * tau.ravel()
-        s = _newton(g, s0f, tau.ravel(), np.where(start > 0, start, 0.5 * s0f), floor)
+        s = _newton(g, s0f, tau.ravel(), _hill_start(vm, kh, h, s0f, tau.ravel()), floor)
         pos = s > 0
-        ia = np.arange(s.size)
         sp = np.where(pos, s, 1.0)
-        term, lg, dq = hh(sp, ia)
+        term, lg, dq = hh(sp, True)
         u = np.exp(h * np.log(sp / kh))
         v = vm * u / (1 + u)
         gv = (term + s0f - sp) / vm
