@@ -18,7 +18,7 @@ from vzero import units as pu
 from vzero.data import Table
 from vzero.errors import FitError
 from vzero.params import closest
-from vzero.plugins.fit import compare, diagnostics, engine
+from vzero.plugins.fit import compare, diagnostics, engine, routes
 from vzero.plugins.fit.catalog import BY_NAME, Model
 from vzero.stage import StageInput, StageOutput
 
@@ -358,6 +358,7 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     output = _tables(models, fits, point_sets, extra_notes, cfg, xvars, var, rate, groups, plate, well, use,
                    no_inhibitor, role_unit)
     _note_left_out(output, frame, groups, use, plate, well)
+    output.artifacts = routes.merge(data.artifacts, output.artifacts, "rates")
     return output
 
 
