@@ -99,7 +99,7 @@ def test_sensitivities_against_central_differences() -> None:
     model, theta = BY_NAME["substrate-inhibition"], CASES["substrate-inhibition"]
     _, grads = curve.progress(model, theta, _wells(), kinact=2e-4, route="closed")
     for j in range(4):
-        up, down = list(theta) + [2e-4], list(theta) + [2e-4]
+        up, down = [*theta, 2e-4], [*theta, 2e-4]
         h = 1e-6 * up[j]
         up[j] += h
         down[j] -= h
