@@ -254,12 +254,19 @@ def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapp
 # -- fits ---------------------------------------------------------------------------------------------------
 
 
+ROUTE_WORDS = {"rates": "from initial rates", "curves": "from the progress curves"}
+"""How the report names the two fit routes (the ``route`` column of the fit tables)."""
+
+
 def parameter_tables(fits: pd.DataFrame, group: str) -> list[dict[str, Any]]:
     """For one group, one block per model: fit statistics and its parameter rows, formatted."""
     blocks = []
     sub = fits[fits["group"].astype(str) == group]
-    for model in dict.fromkeys(sub["model"].astype(str)):
-        m = sub[sub["model"].astype(str) == model]
+    routes = sub["route"].astype(str) if "route" in sub else pd.Series("", index=sub.index)
+    both = routes.nunique() > 1
+    # with both routes, each model's two blocks follow each other: the parameters side by side
+    for model, route in dict.fromkeys(zip(sub["model"].astype(str), routes, strict=True)):
+        m = sub[(sub["model"].astype(str) == model) & (routes == route)]
         first = m.iloc[0]
         rows = []
         for _, r in m.iterrows():
@@ -270,7 +277,8 @@ def parameter_tables(fits: pd.DataFrame, group: str) -> list[dict[str, Any]]:
                 "fixed": bool(r.get("fixed", False)), "note": plain_models(str(r.get("note", "") or "")),
             })
         blocks.append({
-            "model": model, "title": model_title(model), "success": bool(first.get("success", True)),
+            "model": model, "title": model_title(model) + (f" ({ROUTE_WORDS.get(route, route)})" if both else ""),
+            "success": bool(first.get("success", True)),
             "message": plain_models(str(first.get("message", ""))), "n_points": first.get("n_points", ""),
             "r_squared": num(first.get("r_squared"), 4), "aicc": num(first.get("aicc"), 4),
             "rss": num(first.get("rss"), 4), "dof": first.get("dof", ""), "rows": rows,
@@ -283,23 +291,26 @@ def comparison_rows(comparison: pd.DataFrame, group: str) -> tuple[list[dict[str
     if comparison.empty or "group" not in comparison:
         return [], ""
     sub = comparison[comparison["group"].astype(str) == group]
+    both = "route" in sub and sub["route"].astype(str).nunique() > 1
     rows, sentences = [], []
     for _, r in sub.iterrows():
         rows.append({
-            "model": model_title(str(r["model"])), "n_params": r.get("n_params", ""), "rss": num(r.get("rss")),
+            "model": model_title(str(r["model"])) + (f" ({ROUTE_WORDS.get(str(r['route']), '')})" if both else ""),
+            "n_params": r.get("n_params", ""), "rss": num(r.get("rss")),
             "aicc": num(r.get("aicc")), "delta_aicc": num(r.get("delta_aicc"), 3),
             "weight": num(r.get("akaike_weight"), 3),
             "f_test": (f"against {model_title(str(r['f_test_against']))}: F = {num(r['F'], 3)}, p = {num(r['p'], 3)}"
                        if str(r.get("f_test_against", "") or "") else ""),
             "preferred": str(r.get("preferred", "")) == str(r["model"]),
         })
-    for (_, first) in sub.drop_duplicates("preferred").iterrows():
+    for (_, first) in sub.drop_duplicates(["route", "preferred"] if both else "preferred").iterrows():
         pref = str(first.get("preferred", ""))
         if pref:
             reason = str(first.get("reason", ""))
             if reason.startswith(f"{pref}: "):
                 reason = reason[len(pref) + 2:]
-            sentences.append(f"{model_title(pref)} is preferred: {plain_models(reason)}.")
+            where = f" {ROUTE_WORDS.get(str(first['route']), '')}" if both else ""
+            sentences.append(f"{model_title(pref)} is preferred{where}: {plain_models(reason)}.")
     return rows, " ".join(sentences)
 
 

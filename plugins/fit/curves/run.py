@@ -210,8 +210,8 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
                           "activity during the assay")
         if sel_rows:
             out["selwyn"] = Table(pd.DataFrame(sel_rows), {}, {})
-            record["selwyn_points"] = Table(pd.DataFrame(sel_points), {"enzyme_time": f"({eu})*s" if eu else "s",
-                                                                       "product": su})
+            out["selwyn_points"] = Table(pd.DataFrame(sel_points), {"enzyme_time": f"({eu})*s" if eu else "s",
+                                                                    "product": su})
     if flags and "fits" in out:
         table = out["fits"].frame.copy()
         extra = table["group"].astype(str).map(lambda g: "enzyme unstable (Selwyn's test)" if g in flags else "")
