@@ -265,7 +265,9 @@ def parameter_tables(fits: pd.DataFrame, group: str) -> list[dict[str, Any]]:
     routes = sub["route"].astype(str) if "route" in sub else pd.Series("", index=sub.index)
     both = routes.nunique() > 1
     # with both routes, each model's two blocks follow each other: the parameters side by side
-    for model, route in dict.fromkeys(zip(sub["model"].astype(str), routes, strict=True)):
+    pairs = list(dict.fromkeys(zip(sub["model"].astype(str), routes, strict=True)))
+    order = {m: i for i, (m, _) in reversed(list(enumerate(pairs)))}
+    for model, route in sorted(pairs, key=lambda mr: (order[mr[0]], mr[1] == "curves")):
         m = sub[(sub["model"].astype(str) == model) & (routes == route)]
         first = m.iloc[0]
         rows = []
