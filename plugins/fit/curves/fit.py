@@ -93,10 +93,7 @@ class _Problem:
         self.model, self.a, self.kinact, self.route = model, arrays, kinact, route
         self.shape = arrays["y"].shape
         self.count = np.maximum(arrays["used"].sum(axis=2, keepdims=True), 1)
-        g = self.shape[0]
-        self._params = np.full((g, 0), np.nan)  # the parameters each group's stored curve belongs to
-        self._value = np.zeros((g, self.shape[1] * self.shape[2]))
-        self._grads: np.ndarray | None = None
+        self._store: dict[tuple[int, bytes], tuple[np.ndarray, np.ndarray]] = {}
 
     def curves(self, params: Sequence[np.ndarray], rows: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
         """Uncentred P [k, W, T] and ∂P/∂θ for the groups ``rows``."""
@@ -111,26 +108,26 @@ class _Problem:
         return p.reshape(g, nw, nt), [d.reshape(g, nw, nt) for d in grads]
 
     def _eval(self, params: Sequence[np.ndarray], x: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
-        """Centred curves [k, n] and Jacobian [k, n, p] for the groups in ``x``; groups whose parameters
-        have not changed since their last evaluation are taken from the store (the solver asks for the
-        Jacobian at the point whose residuals it has just computed)."""
+        """Centred curves [k, n] and Jacobian [k, n, p] for the groups in ``x``. Each (group, parameters) pair
+        computed is remembered (the solver asks for the Jacobian at the point whose residuals it has just
+        computed); a call may name a group twice with different parameters (a profile searches both sides of
+        an interval at once)."""
         rows = np.asarray(x["group"][:, 0], int)
         pv = np.stack([np.asarray(p, float).reshape(len(rows)) for p in params], axis=1)
-        if self._params.shape[1] != pv.shape[1]:
-            self._params = np.full((self.shape[0], pv.shape[1]), np.nan)
-            self._grads = np.zeros((self.shape[0], self.shape[1] * self.shape[2], pv.shape[1]))
-        assert self._grads is not None
-        stale = ~np.all(self._params[rows] == pv, axis=1)
-        if stale.any():
-            todo = rows[stale]
-            p, grads = self.curves(list(pv[stale].T), todo)
-            used, count = self.a["used"][todo], self.count[todo]
+        keys = [(int(r), pv[i].tobytes()) for i, r in enumerate(rows)]
+        if len(self._store) > 8 * self.shape[0]:
+            self._store.clear()  # bounded memory: the pairs of the last few iterations are all that recur
+        todo = [i for i, k in enumerate(keys) if k not in self._store]
+        if todo:
+            sel = np.array(todo)
+            p, grads = self.curves(list(pv[sel].T), rows[sel])
+            used, count = self.a["used"][rows[sel]], self.count[rows[sel]]
             with np.errstate(all="ignore"):
-                self._value[todo] = _centre(p, used, count).reshape(len(todo), -1)
-                self._grads[todo] = np.stack([_centre(d, used, count).reshape(len(todo), -1) for d in grads],
-                                             axis=-1)
-            self._params[todo] = pv[stale]
-        return self._value[rows], self._grads[rows]
+                val = _centre(p, used, count).reshape(len(sel), -1)
+                jac = np.stack([_centre(d, used, count).reshape(len(sel), -1) for d in grads], axis=-1)
+            for j, i in enumerate(todo):
+                self._store[keys[i]] = (val[j], jac[j])
+        return (np.stack([self._store[k][0] for k in keys]), np.stack([self._store[k][1] for k in keys]))
 
     def func(self, params: Sequence[np.ndarray], x: Mapping[str, np.ndarray]) -> np.ndarray:
         return self._eval(params, x)[0]

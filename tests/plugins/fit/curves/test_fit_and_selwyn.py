@@ -87,3 +87,15 @@ def test_selwyn_passes_a_stable_enzyme_and_fails_an_unstable_one() -> None:
 def test_selwyn_needs_two_enzyme_levels() -> None:
     res = selwyn.test(_simulate("michaelis-menten", [5.0, 20.0], S0[:4], np.full(4, 10.0)), alpha=0.05)
     assert res.rows == [] and not res.failed
+
+
+def test_a_group_gets_the_same_fit_alone_and_in_a_batch() -> None:
+    # the batch shares one solver run (and profiles search both sides of every group at once): a group's
+    # estimates and profile intervals must not depend on the other groups
+    groups = [_simulate("hill", [5.0, 20.0, 2.2], S0[::2], np.full(S0.size // 2, 10.0), seed=k, name=f"g{k}")
+              for k in range(3)]
+    alone = fit_groups(BY_NAME["hill"], groups[:1])[0].result
+    batch = fit_groups(BY_NAME["hill"], groups)[0].result
+    for name in ("Vmax", "K0.5", "h"):
+        a, b = alone.params[name], batch.params[name]
+        np.testing.assert_allclose([b.value, b.ci_low, b.ci_high], [a.value, a.ci_low, a.ci_high], rtol=1e-6)
