@@ -132,15 +132,22 @@ def compare_parameters(a: pd.DataFrame, b: pd.DataFrame, rtol: float = RTOL, ato
 
     def prep(t: pd.DataFrame) -> pd.DataFrame:
         if t.empty or not set(PARAM_KEY) <= set(t.columns):
-            return pd.DataFrame({c: pd.Series(dtype=object) for c in [*PARAM_KEY, *cols, "unit"]})
+            return pd.DataFrame({c: pd.Series(dtype=object) for c in [*PARAM_KEY, *cols, "unit", "route"]})
         t = steps_apart(t)  # a group fitted by several fit steps: its models per step
         out = t[PARAM_KEY].astype(str)
         for c in cols:
             out[c] = _col(t, c, np.nan).astype(float)
         out["unit"] = _col(t, "unit", "").fillna("").astype(str)
+        out["route"] = _col(t, "route", "rates").fillna("rates").astype(str)  # fit route: rates or curves
         return out
 
-    m = prep(a).merge(prep(b), on=PARAM_KEY, how="outer", suffixes=("_a", "_b"), indicator=True)
+    pa, pb = prep(a), prep(b)
+    # one fit route per run: the same parameter of the two runs side by side, whichever route each used (a
+    # rates run against a curves run compares the routes); a run with both routes is matched route by route
+    key = [*PARAM_KEY, "route"] if max(pa["route"].nunique(), pb["route"].nunique()) > 1 else PARAM_KEY
+    m = pa.merge(pb, on=key, how="outer", suffixes=("_a", "_b"), indicator=True)
+    if "route" in m.columns:
+        m["route_a"] = m["route_b"] = m.pop("route")
     for c in cols:
         m[f"{c}_a"] = m[f"{c}_a"].astype(float)
         m[f"{c}_b"] = m[f"{c}_b"].astype(float)
@@ -281,7 +288,9 @@ def to_text(result: dict[str, Any], limit: int = 30) -> str:
     p = result["parameters"]
     lines.append(f"parameters changed: {len(p)}")
     for _, r in p.head(limit).iterrows():
-        lines.append(f"  {r['group']} {r['model']} {r['parameter']}: {r['estimate_a']:.6g} -> {r['estimate_b']:.6g} "
+        routes = f" [{r['route_a']}]" if r["route_a"] == r["route_b"] else f" [{r['route_a']} -> {r['route_b']}]"
+        lines.append(f"  {r['group']} {r['model']}{routes if routes != ' [rates]' else ''} {r['parameter']}: "
+                     f"{r['estimate_a']:.6g} -> {r['estimate_b']:.6g} "
                      f"{r['unit_b']} ({_pct(r['relative_change'])}); interval {_interval(r, 'a') or 'none'} -> "
                      f"{_interval(r, 'b') or 'none'}")
     if len(p) > limit:

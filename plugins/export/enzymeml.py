@@ -259,10 +259,15 @@ def _fits(fits: Any, measured: str) -> tuple[list[dict[str, Any]], list[dict[str
         return [], []
     texts = _model_equations()
     equations, parameters = [], []
-    for (group, model), block in fits.groupby(["group", "model"], sort=False):
-        ids = {str(p): _ident(f"{p}_{model}_{group}") for p in block["parameter"]}
+    fits = fits if "route" in fits.columns else fits.assign(route="rates")
+    for (group, model, route), block in fits.groupby(["group", "model", "route"], sort=False):
+        # the two fit routes of one run: the progress-curve route's parameters get ids of their own
+        tag = "" if route == "rates" else f"_{route}"
+        where = "" if route == "rates" else ", from the progress curves"
+        ids = {str(p): _ident(f"{p}_{model}_{group}{tag}") for p in block["parameter"]}
         for _, r in block.iterrows():
-            p: dict[str, Any] = {"id": ids[str(r["parameter"])], "name": f"{r['parameter']} ({model}, {group})",
+            p: dict[str, Any] = {"id": ids[str(r["parameter"])],
+                                 "name": f"{r['parameter']} ({model}, {group}{where})",
                                  "symbol": ids[str(r["parameter"])], "unit": unit_definition(str(r.get("unit", "")))}
             for key, col in (("value", "estimate"), ("stderr", "stderr")):
                 v = _num(r.get(col))

@@ -10,11 +10,13 @@ from typing import Any
 
 from vzero import hookimpl
 from vzero.plugins.fit.catalog import MODELS
+from vzero.plugins.fit.curves.stage import CurveFitStage
 from vzero.plugins.fit.stage import FitStage
 
 
 @hookimpl
 def vzero_register(registry: Any) -> None:
     registry.add(FitStage)
+    registry.add(CurveFitStage)
     for model in MODELS:
         registry.add(model)

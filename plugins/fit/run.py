@@ -20,7 +20,7 @@ from vzero.audit.reader import OLD_PARAMETERS
 from vzero.data import Table
 from vzero.errors import FitError
 from vzero.params import closest
-from vzero.plugins.fit import compare, diagnostics, engine
+from vzero.plugins.fit import compare, diagnostics, engine, routes
 from vzero.plugins.fit.catalog import BY_NAME, Model
 from vzero.plugins.fit.determined import NOT_DETERMINED, settle
 from vzero.stage import StageInput, StageOutput
@@ -367,6 +367,7 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     output = _tables(models, fits, point_sets, extra_notes, cfg, xvars, var, rate, groups, plate, well, use,
                    no_inhibitor, role_unit)
     _note_left_out(output, frame, groups, use, plate, well)
+    output.artifacts = routes.merge(data.artifacts, output.artifacts, "rates")
     return output
 
 
@@ -441,6 +442,29 @@ def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray,
         output.artifacts["fits"] = fits.with_frame(table)
 
 
+def cooperativity_rows(group: str, models: list[Model], fits: Mapping[tuple[str, str], engine.FitResult],
+                       by_name: Mapping[str, Model], alpha: float) -> list[dict[str, Any]]:
+    """The cooperativity table's rows for one group: one per fitted model that declares a cooperativity
+    coefficient, tested against the nested model where that coefficient is 1 (shared by both fit routes)."""
+    rows: list[dict[str, Any]] = []
+    for model in models:
+        coop = fits.get((group, model.name))
+        if not model.cooperativity or coop is None:
+            continue
+        ref_name = model.cooperativity_reference()
+        ref = fits.get((group, ref_name)) if ref_name else None
+        t = compare.f_test(ref, coop, (ref_name, model.name)) if ref is not None else None
+        h = coop.params[model.cooperativity]
+        ci = (h.ci_low, h.ci_high, h.ci_method) if coop.success else (np.nan, np.nan, "")
+        ref_title = by_name[ref_name].display if ref_name in by_name else ref_name or "the simpler model"
+        verdict, reason = compare.cooperativity(coop, ci, t.p if t else np.nan, alpha,
+                                                names=(model.display, ref_title, model.cooperativity))
+        rows.append({"group": group, "model": model.name, "h": h.value, "stderr": h.stderr, "ci_low": ci[0],
+                     "ci_high": ci[1], "ci_method": ci[2], "F": t.f if t else np.nan,
+                     "p_vs_michaelis_menten": t.p if t else np.nan, "verdict": verdict, "reason": reason})
+    return rows
+
+
 def _with_comparison(fits: pd.DataFrame, comp_rows: list[dict[str, Any]]) -> pd.DataFrame:
     """The model comparison on every row of the fits table: the model's AICc difference from the best and
     Akaike weight, the group's selected model and whether this row's model is it (the full comparison, with
@@ -511,21 +535,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
         for k, (_, members) in enumerate(sorted(sets.items(), key=lambda kv: sorted(kv[1]))):
             rows, _, _ = compare.compare_set(members, nests, float(cfg["alpha"]))
             comp_rows += [{"group": g, "comparison_set": k + 1, **r} for r in rows]
-        for model in models:  # every model that declares a cooperativity coefficient forms the test
-            coop = fits.get((g, model.name))
-            if not model.cooperativity or coop is None:
-                continue
-            ref_name = model.cooperativity_reference()
-            ref = fits.get((g, ref_name)) if ref_name else None
-            t = compare.f_test(ref, coop, (ref_name, model.name)) if ref is not None else None
-            h = coop.params[model.cooperativity]
-            ci = (h.ci_low, h.ci_high, h.ci_method) if coop.success else (np.nan, np.nan, "")
-            ref_title = by_name[ref_name].display if ref_name in by_name else ref_name or "the simpler model"
-            verdict, reason = compare.cooperativity(coop, ci, t.p if t else np.nan, float(cfg["alpha"]),
-                                                    names=(model.display, ref_title, model.cooperativity))
-            coop_rows.append({"group": g, "model": model.name, "h": h.value, "stderr": h.stderr, "ci_low": ci[0],
-                              "ci_high": ci[1], "ci_method": ci[2], "F": t.f if t else np.nan,
-                              "p_vs_michaelis_menten": t.p if t else np.nan, "verdict": verdict, "reason": reason})
+        coop_rows += cooperativity_rows(g, models, fits, by_name, float(cfg["alpha"]))
 
     diag_blocks: list[dict[str, np.ndarray]] = []
     for g in sorted(set(groups[use])):

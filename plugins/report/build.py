@@ -259,6 +259,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 "Each transform's straight line and the estimates it implies are shown for inspection only: "
                 "transforms distort the errors, so the reported parameters come from the nonlinear fit. Hill plot "
                 "points outside 10–90 % of Vmax are hollow and not used for its line.", b"", b"", "groups")))
+        _curve_figures(block, g, tables, comparison, drawing, taken)
         groups.append(block)
     drawing.flush()
     figs += [f for b in groups for f in b["figures"]]
@@ -290,6 +291,41 @@ def build(inp: ReportInput) -> dict[str, bytes]:
     })
     files["report.html"] = html.encode("utf-8")
     return files
+
+
+def _curve_figures(block: dict[str, Any], g: str, tables: Mapping[str, Table], comparison: pd.DataFrame,
+                   drawing: _Drawing, taken: set[str]) -> None:
+    """The curve route's figures of group ``g`` (when a ``curves`` fit ran): the fitted curves over the reads,
+    for the model the curve route prefers, and Selwyn's test where the group has two enzyme levels."""
+    from vzero.plugins.report import curve_figures
+
+    pc_t = tables.get("progress_curves")
+    pc = _frame(tables, "progress_curves")
+    if len(pc) and "group" in pc:
+        pc = pc[pc["group"].astype(str) == g]
+    if len(pc):
+        model = str(pc["model"].iloc[0])
+        if "route" in comparison and "group" in comparison:
+            pref = comparison[(comparison["route"].astype(str) == "curves") & (comparison["group"].astype(str) == g)]
+            model = str(pref["preferred"].iloc[0]) if len(pref) and str(pref["preferred"].iloc[0]) else model
+        unit = content.pretty_unit(dict(pc_t.units).get("observed", "")) if isinstance(pc_t, Table) else ""
+        make = functools.partial(curve_figures.curve_fits, g, pc, model, unit or "?")
+        block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["progress_grid"], Figure(
+            _unique(f"curve-fit_{figures.slug(g)}", taken), f"{g}: fitted progress curves",
+            f"Route 'curves': {content.model_title(model)} fitted to every read of the group's wells at once (one "
+            "baseline per well). Grey points: reads in concentration; lines: the integrated rate law; below each "
+            "panel: residuals. One panel per substrate (and inhibitor) level.", b"", b"", "groups")))
+    sp = _frame(tables, "selwyn_points")
+    if len(sp) and "group" in sp:
+        sp = sp[sp["group"].astype(str) == g]
+    if len(sp):
+        su = content.pretty_unit(dict(tables["selwyn_points"].units).get("product", ""))
+        make = functools.partial(curve_figures.selwyn_plot, g, sp, su or "?", "")
+        block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["rates_vs_x"], Figure(
+            _unique(f"selwyn_{figures.slug(g)}", taken), f"{g}: Selwyn's test of enzyme stability",
+            "Product against enzyme concentration × time, one colour per enzyme level, offsets removed. If the "
+            "enzyme keeps its activity, the curves superimpose; the verdict is in the selwyn table.", b"", b"",
+            "groups")))
 
 
 def render_html(context: Mapping[str, Any]) -> str:

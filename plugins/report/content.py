@@ -257,12 +257,21 @@ def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapp
 # -- fits ---------------------------------------------------------------------------------------------------
 
 
+ROUTE_WORDS = {"rates": "from initial rates", "curves": "from the progress curves"}
+"""How the report names the two fit routes (the ``route`` column of the fit tables)."""
+
+
 def parameter_tables(fits: pd.DataFrame, group: str, titles: Mapping[str, str] | None = None) -> list[dict[str, Any]]:
     """For one group, one block per model: fit statistics and its parameter rows, formatted."""
     blocks = []
     sub = fits[fits["group"].astype(str) == group]
-    for model in dict.fromkeys(sub["model"].astype(str)):
-        m = sub[sub["model"].astype(str) == model]
+    routes = sub["route"].astype(str) if "route" in sub else pd.Series("", index=sub.index)
+    both = routes.nunique() > 1
+    # with both routes, each model's two blocks follow each other: the parameters side by side
+    pairs = list(dict.fromkeys(zip(sub["model"].astype(str), routes, strict=True)))
+    order = {m: i for i, (m, _) in reversed(list(enumerate(pairs)))}
+    for model, route in sorted(pairs, key=lambda mr: (order[mr[0]], mr[1] == "curves")):
+        m = sub[(sub["model"].astype(str) == model) & (routes == route)]
         first = m.iloc[0]
         rows = []
         for _, r in m.iterrows():
@@ -273,7 +282,9 @@ def parameter_tables(fits: pd.DataFrame, group: str, titles: Mapping[str, str] |
                 "fixed": bool(r.get("fixed", False)), "note": plain_models(str(r.get("note", "") or ""), titles),
             })
         blocks.append({
-            "model": model, "title": model_title(model, titles), "success": bool(first.get("success", True)),
+            "model": model,
+            "title": model_title(model, titles) + (f" ({ROUTE_WORDS.get(route, route)})" if both else ""),
+            "success": bool(first.get("success", True)),
             "message": plain_models(str(first.get("message", "")), titles), "n_points": first.get("n_points", ""),
             "r_squared": num(first.get("r_squared"), 4), "aicc": num(first.get("aicc"), 4),
             "rss": num(first.get("rss"), 4), "dof": first.get("dof", ""), "rows": rows,
@@ -287,11 +298,13 @@ def comparison_rows(comparison: pd.DataFrame, group: str,
     if comparison.empty or "group" not in comparison:
         return [], ""
     sub = comparison[comparison["group"].astype(str) == group]
+    both = "route" in sub and sub["route"].astype(str).nunique() > 1
     rows, sentences = [], []
     for _, r in sub.iterrows():
         rows.append({
-            "model": model_title(str(r["model"]), titles), "n_params": r.get("n_params", ""),
-            "rss": num(r.get("rss")),
+            "model": model_title(str(r["model"]), titles)
+            + (f" ({ROUTE_WORDS.get(str(r['route']), '')})" if both else ""),
+            "n_params": r.get("n_params", ""), "rss": num(r.get("rss")),
             "aicc": num(r.get("aicc")), "delta_aicc": num(r.get("delta_aicc"), 3),
             "weight": num(r.get("akaike_weight"), 3),
             "f_test": (f"against {model_title(str(r['f_test_against']), titles)}: F = {num(r['F'], 3)}, "
@@ -299,13 +312,14 @@ def comparison_rows(comparison: pd.DataFrame, group: str,
                        if str(r.get("f_test_against", "") or "") else ""),
             "selected": str(r.get("selected_model", "")) == str(r["model"]),
         })
-    for (_, first) in sub.drop_duplicates("selected_model").iterrows():
+    for (_, first) in sub.drop_duplicates(["route", "selected_model"] if both else "selected_model").iterrows():
         pick = str(first.get("selected_model", ""))
         if pick:
             reason = str(first.get("selection_reason", ""))
             if reason.startswith(f"{pick}: "):
                 reason = reason[len(pick) + 2:]
-            sentences.append(f"Selected model: {model_title(pick, titles)} ({plain_models(reason, titles)}).")
+            where = f" {ROUTE_WORDS.get(str(first['route']), '')}" if both else ""
+            sentences.append(f"Selected model{where}: {model_title(pick, titles)} ({plain_models(reason, titles)}).")
     return rows, " ".join(sentences)
 
 

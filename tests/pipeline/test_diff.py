@@ -43,6 +43,21 @@ def test_parameters_sorted_by_size_of_change_and_units_respected():
     assert out["changed"].iloc[0] == "unit"
 
 
+def test_parameters_of_the_two_fit_routes_side_by_side():
+    a = pd.DataFrame({"group": ["g", "g"], "model": ["mm", "mm"], "parameter": ["Vmax", "Km"],
+                      "estimate": [10.0, 100.0], "stderr": [1.0, 10.0], "ci_low": [8.0, 80.0],
+                      "ci_high": [12.0, 120.0], "unit": ["uM/min", "uM"]})  # an older run: no route column
+    b = a.assign(route="curves", estimate=[10.5, 90.0])
+    out = compare_parameters(a, b).set_index("parameter")
+    # one route per run: matched by group, model and parameter, the routes named on each side
+    assert_allclose(out.loc[["Vmax", "Km"], "relative_change"], [0.05, 0.1])
+    assert list(out["route_a"]) == ["rates", "rates"] and list(out["route_b"]) == ["curves", "curves"]
+    both = pd.concat([a.assign(route="rates"), b], ignore_index=True)
+    out = compare_parameters(both, both.assign(estimate=both["estimate"] * 1.01))
+    # a run with both routes is matched route by route: four changes, none across routes
+    assert len(out) == 4 and bool((out["route_a"] == out["route_b"]).all())
+
+
 def test_wells_diff_after_a_window_change(tmp_path: Path):
     recipe = linear_plate(tmp_path / "in", noise=2e-3, seed=3)
     a = run(recipe, tmp_path / "a").audit_path

@@ -1,0 +1,294 @@
+"""The work of the ``curves`` fit stage: progress curves in concentration, grouped, fitted, tabulated.
+
+Reads come from the per-plate traces after the plate steps (blank-subtracted signal); the rates table
+(after the convert step) supplies each well's substrate, inhibitor and enzyme concentrations, group, flags,
+initial rate (start values only) and the conversion from signal to concentration: the convert step turns a
+signal rate into a concentration rate by a factor per well, rate / signal_rate, and the same factor turns
+signal into concentration (times the time unit of the rate). Wells whose own rate is zero or missing take
+their plate's median factor.
+
+The outputs have the shapes of the ``nls`` route's tables, each row marked ``route: curves``; a run with both
+routes keeps both (see :mod:`vzero.plugins.fit.routes`). The integrated curves and residuals of every read
+are the step's record (``curve_fits`` in run.h5), and the ``progress_curves`` table feeds the report.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from vzero import units as pu
+from vzero.data import Table
+from vzero.errors import FitError
+from vzero.plugins.fit import compare, diagnostics, routes
+from vzero.plugins.fit import run as rates_run
+from vzero.plugins.fit.catalog import Model
+from vzero.plugins.fit.curves import selwyn
+from vzero.plugins.fit.curves.curve import Wells
+from vzero.plugins.fit.curves.fit import KINACT, CurveFit, CurveGroup, fit_groups
+from vzero.stage import StageInput, StageOutput
+
+FIT_COLUMNS = ["group", "model", "parameter", "estimate", "stderr", "ci_low", "ci_high", "ci_method", "unit",
+               "fixed", "n_points", "rss", "dof", "r_squared", "aicc", "success", "message", "errorbars", "note"]
+CURVE_COLUMNS = ["group", "model", "plate", "well", "substrate", "inhibitor", "enzyme", "time", "observed",
+                 "fitted", "residual", "used"]
+
+
+def _conversion(frame: pd.DataFrame) -> np.ndarray:
+    """Per row of the rates table: concentration-rate per signal-rate (rate / signal_rate), the plate's
+    median where a well's own ratio is not usable."""
+    if "signal_rate" not in frame.columns:
+        raise FitError("the curve fit needs concentrations, but the rates table has no conversion "
+                       "(no column 'signal_rate')",
+                       hint="Put a convert step (beer-lambert or standard-curve) before the fit step.")
+    with np.errstate(all="ignore"):
+        ratio = frame["rate"].to_numpy(float) / frame["signal_rate"].to_numpy(float)
+    ratio = np.where(np.isfinite(ratio) & (ratio != 0), ratio, np.nan)
+    plate = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
+    out = ratio.copy()
+    for p in np.unique(plate):
+        rows = plate == p
+        good = ratio[rows][np.isfinite(ratio[rows])]
+        med = float(np.median(good)) if good.size else np.nan
+        out[rows] = np.where(np.isfinite(ratio[rows]), ratio[rows], med)
+    return out
+
+
+def _selected(frame: pd.DataFrame, cfg: Mapping[str, Any]) -> np.ndarray:
+    use = np.ones(len(frame), bool)
+    if "role" in frame.columns:
+        use &= frame["role"].astype(str).to_numpy() == "sample"
+    if "flags" in frame.columns:
+        excluded = set(cfg["exclude_flags"])
+        use &= ~np.array([bool(excluded & set(filter(None, str(f).split(";"))))
+                          for f in frame["flags"].fillna("").astype(str)], bool)
+    return use
+
+
+def _build_group(name: str, rows: np.ndarray, frame: pd.DataFrame, traces: Mapping[str, Any],
+                 conc: np.ndarray, scale: float, var: dict[str, np.ndarray], model: Model) -> CurveGroup | None:
+    """One group's wells as a :class:`CurveGroup` (None when no well has reads)."""
+    plates = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
+    wells = frame["well"].astype(str).to_numpy()
+    ys, useds, times, keep = [], [], [], []
+    for r in rows:
+        tr = traces.get(plates[r]) if plates[r] in traces else (next(iter(traces.values())) if len(traces) == 1
+                                                                  else None)
+        if tr is None:
+            continue
+        hit = np.flatnonzero(tr.wells["well"].astype(str).to_numpy() == wells[r])
+        if hit.size != 1 or not np.isfinite(conc[r]):
+            continue
+        k = int(hit[0])
+        times.append(np.asarray(tr.time, float))
+        ys.append(np.asarray(tr.signal[k], float) * conc[r])
+        useds.append(np.asarray(tr.mask[k], bool) & np.isfinite(tr.signal[k]))
+        keep.append(r)
+    if not keep:
+        return None
+    nt = max(len(t) for t in times)
+    y = np.full((len(keep), nt), np.nan)
+    used = np.zeros((len(keep), nt), bool)
+    time = np.zeros((len(keep), nt))
+    for i, (t, yy, u) in enumerate(zip(times, ys, useds, strict=True)):
+        y[i, :len(t)], used[i, :len(t)], time[i, :len(t)] = yy, u, t
+        time[i, len(t):] = t[-1]
+    idx = np.array(keep)
+    e = var["enzyme"][idx]
+    e_ok = np.all(np.isfinite(e) & (e > 0))
+    scale_e = np.ones(len(idx))
+    e_ref = rates_run._group_enzyme(e)
+    if "enzyme" not in model.variables and e_ok and not np.allclose(e, e[0], rtol=1e-9, atol=0):
+        e_ref = float(np.median(e))
+        scale_e = e / e_ref  # a well with twice the enzyme runs twice as fast: Vmax refers to e_ref
+    inh = var["inhibitor"][idx]
+    w = Wells(var["substrate"][idx], np.where(np.isfinite(inh), inh, 0.0), np.where(np.isfinite(e), e, 0.0),
+              np.maximum(time, 0.0), scale * scale_e)
+    return CurveGroup(name, w, y, used, var["rate"][idx], [(plates[r], wells[r]) for r in idx], e_ref)
+
+
+def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
+    """The ``curves`` step's work; ``settings`` are the stage's parameters with every default filled in."""
+    cfg = dict(settings)
+    rates = data.artifacts.get("rates")
+    traces = data.artifacts.get("traces")
+    if rates is None or not hasattr(rates, "frame") or not traces:
+        raise FitError("the curve fit found no rates table or no traces",
+                       hint="Put import, rates and convert steps before the fit step in the recipe.")
+    frame: pd.DataFrame = rates.frame
+    units = dict(rates.units)
+    models = rates_run._models(list(cfg["models"]), data.registry)
+    xcol, icol, gcol = cfg["x"], cfg["inhibitor"], cfg["group_by"]
+    columns = {"substrate": xcol, "inhibitor": icol, "enzyme": "enzyme"}
+    ru, su, iu, eu = (units.get(c, "") for c in ("rate", xcol, icol, "enzyme"))
+    if xcol not in frame.columns or not su:
+        raise FitError(f"the curve fit needs each well's substrate concentration (column {xcol!r} with a unit)",
+                       hint="Add the substrate column to the plate layout, e.g. 'substrate (uM)'.")
+    try:
+        scale = float(pu.factor(ru, f"({su})/s"))  # effective time per second: rate unit -> substrate unit/s
+        to_conc = float(pu.factor(f"({ru})*s", su))
+    except Exception as exc:
+        raise FitError(f"the rate unit {ru!r} is not a concentration per time in the substrate's unit {su!r} ({exc})",
+                       hint="Convert rates to concentration per time (convert step) before the curve fit.") from None
+    conc = _conversion(frame) * to_conc
+    role_unit = {"rate": ru, "substrate": su, "inhibitor": iu, "enzyme": eu, "": ""}
+    var = {v: frame[c].to_numpy(float) if c in frame.columns else np.full(len(frame), np.nan)
+           for v, c in columns.items()}
+    var["rate"] = frame["rate"].to_numpy(float)
+    use = _selected(frame, cfg) & np.isfinite(var["substrate"])
+    groups = frame[gcol].fillna("").astype(str).to_numpy() if gcol in frame.columns else np.full(len(frame), "all")
+    no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
+    conf = float(cfg["confidence"])
+    kin = bool(cfg["inactivation"])
+
+    fits: dict[tuple[str, str], Any] = {}
+    fitted: dict[tuple[str, str], tuple[CurveGroup, CurveFit]] = {}
+    point_sets: dict[tuple[str, str], tuple[int, ...]] = {}
+    built: dict[tuple[str, str], CurveGroup] = {}
+    for model in models:
+        ok = use.copy()
+        if "inhibitor" not in model.variables:
+            ok &= no_inhibitor
+        fixed = {k: float(v) for k, v in cfg["fixed"].get(model.name, {}).items()}
+        bounds = {k: (float(v[0]), float(v[1])) for k, v in cfg["bounds"].get(model.name, {}).items()}
+        starts = cfg["start"].get(model.name, {})
+        names = (*model.params, *((KINACT,) if kin else ()))
+        for k in [*fixed, *bounds, *starts]:
+            if k not in names:
+                raise FitError(f"fit: model {model.name} has no parameter {k!r}",
+                               hint=f"Its parameters are {', '.join(names)}.")
+        todo: list[CurveGroup] = []
+        for g in sorted(set(groups[ok])):
+            rows = np.flatnonzero(ok & (groups == g))
+            cg = _build_group(g, rows, frame, traces, conc, scale, var, model)
+            n_free = len(names) - len(fixed)
+            reason = ""
+            if cg is None:
+                reason = "no well of the group has reads in the traces"
+            elif int(cg.used.sum()) <= n_free + len(cg.y) + 1:
+                reason = f"too few reads for {n_free} shared parameters and {len(cg.y)} baselines"
+            elif "inhibitor" in model.variables and np.unique(cg.wells.inhibitor).size < 2:
+                reason = "needs at least two inhibitor concentrations"
+            if reason:
+                fits[(g, model.name)] = rates_run._failed(model, 0, reason)
+                data.warn(f"fit (curves): group {g}, {model.name}: {reason}")
+                continue
+            assert cg is not None
+            built[(g, model.name)] = cg
+            point_sets[(g, model.name)] = tuple(rows)
+            todo.append(cg)
+        if not todo:
+            continue
+        punits = {k: role_unit.get(r, "") for k, r in model.units.items()} | {KINACT: "1/s"}
+        results = fit_groups(model, todo, kinact=kin, fixed=fixed, bounds=bounds, starts=starts, confidence=conf,
+                             profile=bool(cfg["profile"]), units=punits, route=str(cfg["route"]))
+        for cg, cf in zip(todo, results, strict=True):
+            key = (cg.name, model.name)
+            fits[key] = cf.result
+            fitted[key] = (cg, cf)
+            if not cf.result.success:
+                data.warn(f"fit (curves): group {cg.name}, {model.name}: did not converge ({cf.result.message})")
+
+    out = _tables(models, fits, fitted, cfg, role_unit, kin)
+    record: dict[str, Any] = {"curve_fits": out.pop("_curve_fits")}
+    flags: dict[str, str] = {}
+    if cfg["selwyn"]:
+        sel_rows, sel_points = [], []
+        for g in sorted(set(groups[use])):
+            rows = np.flatnonzero(use & (groups == g))
+            cg = _build_group(g, rows, frame, traces, conc, scale, var, models[0])
+            if cg is None:
+                continue
+            res = selwyn.test(cg, float(cfg["alpha"]))
+            sel_rows += res.rows
+            sel_points += res.points
+            if res.failed:
+                flags[g] = "enzyme_unstable"
+                data.warn(f"fit (curves): group {g}: Selwyn's test fails ({res.summary}); the enzyme may lose "
+                          "activity during the assay")
+        if sel_rows:
+            out["selwyn"] = Table(pd.DataFrame(sel_rows), {}, {})
+            out["selwyn_points"] = Table(pd.DataFrame(sel_points), {"enzyme_time": f"({eu})*s" if eu else "s",
+                                                                    "product": su})
+    if flags and "fits" in out:
+        table = out["fits"].frame.copy()
+        extra = table["group"].astype(str).map(lambda g: "enzyme unstable (Selwyn's test)" if g in flags else "")
+        table["note"] = ["; ".join(filter(None, [str(a), b])) for a, b in zip(table["note"].fillna(""), extra,
+                                                                              strict=True)]
+        out["fits"] = out["fits"].with_frame(table)
+    merged = routes.merge(data.artifacts, out, "curves")
+    return StageOutput(artifacts=merged, record=record)
+
+
+def _tables(models: list[Model], fits: dict[tuple[str, str], Any],
+            fitted: dict[tuple[str, str], tuple[CurveGroup, CurveFit]], cfg: Mapping[str, Any],
+            role_unit: dict[str, str], kin: bool) -> dict[str, Any]:
+    conf = float(cfg["confidence"])
+    ru, su, iu, eu = (role_unit[k] for k in ("rate", "substrate", "inhibitor", "enzyme"))
+    by_name = {m.name: m for m in models}
+    fit_rows: list[dict[str, Any]] = []
+    corr_rows: list[dict[str, Any]] = []
+    curve_blocks: list[dict[str, np.ndarray]] = []
+    for (g, mname), res in fits.items():
+        model = by_name[mname]
+        common = {"group": g, "model": mname, "n_points": res.n_points, "rss": res.rss, "dof": res.dof,
+                  "r_squared": res.r_squared, "aicc": res.aicc, "success": res.success, "message": res.message,
+                  "errorbars": res.errorbars}
+        for name in res.names:
+            p = res.params[name]
+            fit_rows.append({**common, "parameter": name, "estimate": p.value, "stderr": p.stderr,
+                             "ci_low": p.ci_low, "ci_high": p.ci_high, "ci_method": p.ci_method, "unit": p.unit,
+                             "fixed": p.fixed, "note": p.note})
+        pair = fitted.get((g, mname))
+        if pair is None or not res.success:
+            continue
+        cg, cf = pair
+        if cfg["enzyme"]:
+            for row in rates_run._derived(model, res, cg.enzyme_ref, eu, ru, su, conf):
+                fit_rows.append({**common, **row})
+        corr_rows += diagnostics.correlations(g, mname, res)
+        n, nt = cg.y.shape
+        curve_blocks.append({
+            "group": np.full(n * nt, g, dtype=object), "model": np.full(n * nt, mname, dtype=object),
+            "plate": np.repeat([i[0] for i in cg.ids], nt).astype(object),
+            "well": np.repeat([i[1] for i in cg.ids], nt).astype(object),
+            "substrate": np.repeat(cg.wells.s0, nt), "inhibitor": np.repeat(cg.wells.inhibitor, nt),
+            "enzyme": np.repeat(cg.wells.enzyme, nt), "time": cg.wells.time.ravel(), "observed": cg.y.ravel(),
+            "fitted": cf.fitted.ravel(), "residual": (cg.y - cf.fitted).ravel(), "used": cg.used.ravel()})
+
+    comp_rows: list[dict[str, Any]] = []
+    coop_rows: list[dict[str, Any]] = []
+    nests = {m.name: m.nests for m in models}
+    for g in sorted({k[0] for k in fits}):
+        sets: dict[tuple[int, ...], dict[str, Any]] = {}
+        for (gg, mname), res in fits.items():
+            if gg == g:
+                cg = fitted.get((gg, mname))
+                key = tuple(sorted(cg[0].ids)) if cg else ()
+                sets.setdefault(key, {})[mname] = res  # type: ignore[arg-type]
+        for k, (_, members) in enumerate(sorted(sets.items(), key=lambda kv: sorted(kv[1]))):
+            rows, _, _ = compare.compare_set(members, nests, float(cfg["alpha"]))
+            comp_rows += [{"group": g, "comparison_set": k + 1, **r} for r in rows]
+        coop_rows += rates_run.cooperativity_rows(g, models, fits, {m.name: m for m in models},  # type: ignore[arg-type]
+                                                  float(cfg["alpha"]))
+
+    rss_unit = f"({su})^2" if su else ""
+    meta = {"research_use": "Research use only: check results against the lab's validated procedures.",
+            "route": "curves"}
+    curves = diagnostics.stack(curve_blocks, CURVE_COLUMNS)
+    cunits = {"substrate": su, "inhibitor": iu, "enzyme": eu, "time": "s", "observed": su, "fitted": su,
+              "residual": su}
+    return {
+        "fits": Table(rates_run._with_comparison(pd.DataFrame(fit_rows, columns=FIT_COLUMNS), comp_rows),
+                      {"rss": rss_unit} if rss_unit else {}, meta),
+        "model_comparison": Table(pd.DataFrame(comp_rows), {"rss": rss_unit} if rss_unit else {}, meta),
+        "cooperativity": Table(pd.DataFrame(coop_rows, columns=[
+            "group", "model", "h", "stderr", "ci_low", "ci_high", "ci_method", "F", "p_vs_michaelis_menten", "verdict",
+            "reason"]), {}, meta),
+        "correlations": Table(pd.DataFrame(corr_rows, columns=["group", "model", "parameter_a", "parameter_b", "r"]),
+                              {}, meta),
+        "progress_curves": Table(curves, {k: v for k, v in cunits.items() if v}, meta),
+        "_curve_fits": Table(curves, {k: v for k, v in cunits.items() if v}, meta),
+    }
