@@ -1,19 +1,21 @@
 """Both fit routes in one run: the rows of each route's tables say where they came from (``route``:
-``rates`` for the two-step route through initial rates, ``curves`` for the joint progress-curve fit), and a
-fit step keeps the rows an earlier step of the other route produced, so fits.csv holds both side by side."""
+``rates`` for the two-step route through initial rates, ``curves`` for the joint progress-curve fit).
+
+A recipe that runs both has two fit steps; the runner stacks their tables under one another with a ``step``
+column (the fit kind's schema says its tables stack), so fits.csv holds both routes side by side and each
+step returns only its own rows.
+"""
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from typing import Any
 
 ROUTE_TABLES = ("fits", "model_comparison", "cooperativity", "correlations")
-"""Tables that carry a ``route`` column and are merged across the routes."""
+"""Tables that carry a ``route`` column."""
 
 
-def merge(earlier: Mapping[str, Any], new: dict[str, Any], route: str) -> dict[str, Any]:
-    """``new`` tables with a ``route`` column, preceded by the rows of the other routes in ``earlier``."""
-    import pandas as pd
+def with_route(new: dict[str, Any], route: str) -> dict[str, Any]:
+    """``new`` tables, those of :data:`ROUTE_TABLES` with a first column ``route``."""
     from vzero.data import Table
 
     out = dict(new)
@@ -23,12 +25,5 @@ def merge(earlier: Mapping[str, Any], new: dict[str, Any], route: str) -> dict[s
             continue
         frame = table.frame.copy()
         frame.insert(0, "route", route)
-        before = earlier.get(name)
-        if isinstance(before, Table) and len(before.frame):
-            old = before.frame
-            old = old if "route" in old.columns else old.assign(route="rates")[["route", *old.columns]]
-            old = old[old["route"].astype(str) != route]
-            if len(old):
-                frame = pd.concat([old, frame], ignore_index=True)
-        out[name] = Table(frame, {**dict(getattr(before, "units", {}) or {}), **dict(table.units)}, dict(table.meta))
+        out[name] = Table(frame, dict(table.units), dict(table.meta))
     return out

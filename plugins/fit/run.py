@@ -367,7 +367,7 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     output = _tables(models, fits, point_sets, extra_notes, cfg, xvars, var, rate, groups, plate, well, use,
                    no_inhibitor, role_unit)
     _note_left_out(output, frame, groups, use, plate, well)
-    output.artifacts = routes.merge(data.artifacts, output.artifacts, "rates")
+    output.artifacts = routes.with_route(output.artifacts, "rates")
     return output
 
 

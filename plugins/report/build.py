@@ -307,7 +307,7 @@ def _curve_figures(block: dict[str, Any], g: str, tables: Mapping[str, Table], c
         model = str(pc["model"].iloc[0])
         if "route" in comparison and "group" in comparison:
             pref = comparison[(comparison["route"].astype(str) == "curves") & (comparison["group"].astype(str) == g)]
-            model = str(pref["preferred"].iloc[0]) if len(pref) and str(pref["preferred"].iloc[0]) else model
+            model = str(pref["selected_model"].iloc[0]) if len(pref) and str(pref["selected_model"].iloc[0]) else model
         unit = content.pretty_unit(dict(pc_t.units).get("observed", "")) if isinstance(pc_t, Table) else ""
         make = functools.partial(curve_figures.curve_fits, g, pc, model, unit or "?")
         block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["progress_grid"], Figure(

@@ -218,7 +218,7 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         table["note"] = ["; ".join(filter(None, [str(a), b])) for a, b in zip(table["note"].fillna(""), extra,
                                                                               strict=True)]
         out["fits"] = out["fits"].with_frame(table)
-    merged = routes.merge(data.artifacts, out, "curves")
+    merged = routes.with_route(out, "curves")
     return StageOutput(artifacts=merged, record=record)
 
 

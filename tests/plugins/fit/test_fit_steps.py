@@ -65,7 +65,7 @@ def test_two_fit_steps_add_up_and_stay_apart_by_step(tmp_path: Path):
                                "  - fit: {method: nls, models: [hill], select: {groups: [VZ-7]}, profile: false}\n")
     result = run(recipe, tmp_path / "out")
     fits = pd.read_csv(tmp_path / "out" / "fits.csv")
-    assert list(fits.columns[:3]) == ["step", "group", "model"]
+    assert list(fits.columns[:4]) == ["step", "route", "group", "model"]  # the route: rates or curves
     assert set(zip(fits["step"], fits["model"], strict=True)) == {("05-fit-nls", "michaelis-menten"),
                                                                    ("06-fit-nls", "hill")}
     for name in ("model_comparison", "cooperativity", "curves", "correlations"):

@@ -181,7 +181,7 @@ def test_f_test_overrules_the_lowest_aicc_only_when_p_is_at_least_alpha(p_value:
     rows, preferred, reason = compare.compare_set({"michaelis-menten": mm, "hill": hill},
                                                   {"hill": {"michaelis-menten": "h = 1"}}, alpha=0.05)
     assert preferred == expected, reason
-    assert {r["preferred"] for r in rows} == {expected}
+    assert {r["selected_model"] for r in rows} == {expected}
     hill_row = next(r for r in rows if r["model"] == "hill")
     assert hill_row["p"] == pytest.approx(p_value, rel=1e-6)
     assert hill_row["delta_aicc"] == 0.0

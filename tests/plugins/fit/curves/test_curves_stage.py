@@ -50,7 +50,7 @@ def test_both_routes_side_by_side_and_curves_recover_truth(both: Path) -> None:
     coop = pd.read_csv(both / "cooperativity.csv")
     assert coop.set_index(["route", "group"]).loc[("curves", wt.group), "verdict"] == "positive"
     comp = pd.read_csv(both / "model_comparison.csv")
-    assert set(comp.loc[(comp.route == "curves") & (comp.group == wt.group), "preferred"]) == {"hill"}
+    assert set(comp.loc[(comp.route == "curves") & (comp.group == wt.group), "selected_model"]) == {"hill"}
 
 
 def test_integrated_curves_and_residuals_are_kept(both: Path) -> None:
