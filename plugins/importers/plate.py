@@ -62,7 +62,7 @@ _KEPT: dict[tuple[str, ...], PlateRead] = {}
 
 def _read_plate(data: StageInput, s: Mapping[str, Any]) -> PlateRead:
     from vzero.plugins.importers import readers
-    from vzero.plugins.importers.wells import infer_plate_size, well_index
+    from vzero.plugins.kinetics.wells import infer_plate_size, well_index
 
     raw = data.inputs["data"]
     options = readers.ReadOptions(
@@ -208,7 +208,7 @@ def _missing_reads(block: Any, rows: np.ndarray, name: str) -> list[str]:
 def _layout(data: StageInput, settings: Mapping[str, Any], wells: list[str]) -> tuple[pd.DataFrame, str]:
     """The plate layout: from the plate's layout file, or declared in the import step (``layout:``)."""
     from vzero.plugins.importers import layouts
-    from vzero.plugins.importers.wells import infer_plate_size
+    from vzero.plugins.kinetics.wells import infer_plate_size
 
     raw = data.inputs.get("layout")
     declared = settings.get("layout")
