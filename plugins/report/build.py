@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Table, Traces
-from vzero.plugins.report import content, figures, parallel
+from vzero.plugins.report import content, figures, panels, parallel
 
 RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
                  "lab's validated procedures before relying on them, and do not use them for diagnosis or "
@@ -150,6 +150,21 @@ def _job(make: Callable[[], Any], dpi: int) -> parallel.Job:
     return job
 
 
+def _transform_wells(kind: str, selected: str, titles: Mapping[str, str]) -> str:
+    """Which model and wells the transforms figure stands on, in words (for its caption)."""
+    name = content.model_title(selected, titles) if selected else "the selected model"
+    if kind == "cooperativity":
+        return (f"The Hill plot uses the Vmax of the Hill fit; its points outside 10–90 % of that Vmax are hollow and "
+                f"not used for its line. The group's selected fit is {name}.")
+    if kind == "inhibition":
+        return (f"Drawn from the wells without inhibitor only: the group's selected fit ({name}) uses every "
+                "inhibitor level, so these lines check the uninhibited enzyme alone. No Hill plot: this group's "
+                "question is the inhibition mechanism, not cooperativity.")
+    return (f"The straight lines assume a Michaelis–Menten law, which the selected fit ({name}) does not: at high "
+            "substrate the points bend away from them. No Hill plot: this group's question is substrate "
+            "inhibition, not cooperativity.")
+
+
 def build(inp: ReportInput) -> dict[str, bytes]:
     """Draw every figure and render the HTML. Returns ``{relative path: bytes}``."""
     tables = inp.tables
@@ -213,13 +228,11 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         block: dict[str, Any] = {"name": g, "figures": []}
         rows, sentence = content.comparison_rows(comparison, g, titles)
         block["comparison"], block["comparison_sentence"] = rows, sentence
-        preferred = next((r["model"] for r in rows if r["preferred"]), "")
-        pref_raw = ""
-        if not comparison.empty and "group" in comparison:
-            sub = comparison[comparison["group"].astype(str) == g]
-            pref_raw = str(sub["preferred"].iloc[0]) if len(sub) else ""
-        block["preferred"] = preferred
+        pref_raw = content.selected_model(comparison, g)
+        block["preferred"] = content.model_title(pref_raw, titles) if pref_raw else ""
         block["parameters"] = content.parameter_tables(fits, g, titles) if not fits.empty else []
+        lead = content.group_lead(fits, g, pref_raw, inp.models, titles, options["confidence"])
+        block["lead"] = lead
         crow = coop[coop["group"].astype(str) == g] if "group" in coop else pd.DataFrame()
         block["verdict"] = content.verdict_sentence(crow.iloc[0], options["confidence"], titles) if len(crow) else ""
         block["verdict_key"] = str(crow.iloc[0]["verdict"]) if len(crow) else ""
@@ -248,16 +261,20 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 f"shaded: the {conf} pointwise confidence band of each curve. Hollow points were not fitted. Below: "
                 "residuals (observed − fitted) of the fitted wells.", b"", b"", "groups")))
         gd = diag[diag["group"].astype(str) == g] if "group" in diag else pd.DataFrame()
+        if len(gd) and lead["kind"] != "cooperativity":  # the Hill plot answers the cooperativity question only
+            gd = gd[gd["plot"].astype(str) != "hill"]
         if len(gd):
             x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
                                                     and len(rates) else "")
             make = functools.partial(figures.transforms, g, gd, content.pretty_unit(rate_unit),
                                      content.pretty_unit(x_unit))
             block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["transforms"], Figure(
-                _unique(f"transforms_{figures.slug(g)}", taken), f"{g}: Hill plot and linear transforms",
+                _unique(f"transforms_{figures.slug(g)}", taken),
+                f"{g}: " + ("Hill plot and linear transforms" if lead["kind"] == "cooperativity" else
+                            "linear transforms"),
                 "Each transform's straight line and the estimates it implies are shown for inspection only: "
-                "transforms distort the errors, so the reported parameters come from the nonlinear fit. Hill plot "
-                "points outside 10–90 % of Vmax are hollow and not used for its line.", b"", b"", "groups")))
+                "transforms distort the errors, so the reported parameters come from the nonlinear fit. "
+                + _transform_wells(lead["kind"], pref_raw, titles), b"", b"", "groups")))
         groups.append(block)
     drawing.flush()
     figs += [f for b in groups for f in b["figures"]]
@@ -266,7 +283,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
     for f in figs:
         files[f"figures/{f.name}.png"] = f.png
         files[f"figures/{f.name}.svg"] = f.svg
-    flagged = content.flagged_rows(rates) if not rates.empty else []
+    reasons = content.fit_use(rates, options, inp.models)[1] if used is not None else None
+    records = panels.well_records(rates, inp.traces, used, reasons, inp.recipe, content.pretty_unit(rate_unit),
+                                  rate_units)
+    for rec in records:
+        rec["svg"] = panels.sparkline_svg(rec)
+    flagged = panels.flag_groups(records)
     exclusions = content.exclusion_rows(rates, options, inp.recipe, inp.models)
     html = render_html({
         "title": inp.title or f"vzero report: {inp.recipe.get('name', 'run')}",
@@ -278,6 +300,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         "plate_figures": [f for f in figs if f.section == "plates"],
         "groups": groups,
         "flagged": flagged,
+        "well_panels": records,
         "flag_text": content.FLAG_TEXT,
         "exclusions": exclusions,
         "options": options,

@@ -27,6 +27,15 @@ NO_VALUE = "#d6d6d6"
 WINDOW = "#c25a1c"
 """The rate line in progress-curve panels: a burnt orange, clearly darker than the grey reads around it."""
 
+FLAGGED_CELL = "#f0dcc0"
+"""Background of a flagged sample well's cell (with a heavy near-black frame, so it does not depend on hue)."""
+
+QUIET_CELL = "#eeeeec"
+"""Background of a cell or well that is not a sample (blank, standard, empty): quiet, no flag marks."""
+
+QUIET_READS = "#b8bcc2"
+"""Reads of wells that are not samples: lighter than sample reads."""
+
 RAMP = ("#fbf5e4", "#f1d48e", "#dc9b4f", "#ad5839", "#603049", "#1e1a34")
 """Sequential map for rates, pale cream to deep ink, lightness falling monotonically."""
 

@@ -13,6 +13,7 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
+from vzero.audit.codec import to_json
 from vzero.data import Table, Traces
 from vzero.plugins.report.build import ReportInput
 from vzero.registry import Registry
@@ -53,9 +54,25 @@ def _steps_from_recipe(recipe: Mapping[str, Any], registry: Any) -> list[dict[st
                 plugin = ""
         params = {k: v for k, v in body.items() if k != "method"}
         steps.append({"label": f"{i:02d}-{kind}-{method}", "kind": kind, "method": method, "plugin": plugin,
-                      "version": version, "seconds": "", "parameters": json.dumps(params, default=str,
-                                                                                  ensure_ascii=False)})
+                      "version": version, "seconds": "", "parameters": to_json(params)})
     return steps
+
+
+def _steps_of_run(done: list[Mapping[str, Any]], planned: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The step rows of a running pipeline, in the form :func:`from_audit` reads them from the audit file
+    (``plugin (distribution)``, parameters as written, in JSON): the steps done so far with their timings,
+    then the recipe's steps still to come (this report among them) without."""
+    rows = []
+    for st in done:
+        label = str(st["label"])
+        parts = label.split("-", 2)
+        rows.append({"label": label, "kind": parts[1] if len(parts) > 1 else "",
+                     "method": parts[2] if len(parts) > 2 else "",
+                     "plugin": f"{st.get('plugin', '')} ({st.get('distribution', '')})",
+                     "version": str(st.get("version", "")), "seconds": f"{float(st.get('seconds', 0.0)):.3f}",
+                     "parameters": str(st.get("parameters", ""))})
+    labels = {r["label"] for r in rows}
+    return rows + [p for p in planned if p["label"] not in labels] if rows else planned
 
 
 def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
@@ -75,11 +92,7 @@ def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
     run = data.run or {}
     inputs = [{"name": str(i["name"]), "plates": ", ".join(i.get("plates", [])), "size": i.get("size", ""),
                "sha256": str(i["sha256"])} for i in run.get("inputs", [])]
-    steps = [{"label": st["label"], "kind": st["label"].split("-")[1] if "-" in st["label"] else "",
-              "method": st["label"].split("-", 2)[2] if st["label"].count("-") >= 2 else "",
-              "plugin": st.get("plugin", ""), "version": st.get("version", ""),
-              "seconds": f"{float(st.get('seconds', 0.0)):.3f}", "parameters": ""}
-             for st in run.get("steps", [])] or _steps_from_recipe(recipe, data.registry)
+    steps = _steps_of_run(run.get("steps", []), _steps_from_recipe(recipe, data.registry))
     provenance = {
         "source": "this run (run.h5 beside this report holds the raw inputs and every step)",
         "recipe_name": str(recipe.get("name", "")), "recipe_sha256": str(run.get("recipe_sha256", "")),
