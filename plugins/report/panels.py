@@ -134,7 +134,7 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
             "fit": "in the fit" if used is not None and used[i] else (
                 (reasons[i] if reasons is not None and reasons[i] else "not in the fit") if used is not None
                 else "no fit step"),
-            "rate": _f(r.get("rate")), "rate_text": content.estimate_text(r.get("rate"), r.get("rate_stderr"))["value"],
+            "rate": _f(r.get("rate")), "rate_text": (content.estimate_text(r.get("rate"), r.get("rate_stderr"))["value"] + f" {rate_unit}").rstrip(),
             "note": str(r.get("note", "") or "") if "note" in rates and isinstance(r.get("note"), str) else "",
             "t": t, "y": y, "signal_unit": unit, "line": line,
         })
@@ -167,7 +167,8 @@ def sparkline_svg(rec: Mapping[str, Any], width: int = 220, height: int = 96) ->
              f'viewBox="0 0 {width} {height}" role="img" aria-label="reads of well {html.escape(rec["well"])}">',
              f'<rect x="0" y="0" width="{width}" height="{height}" fill="{palette.PAPER}" stroke="#d9d6cc"/>']
     if ok.sum() >= 2:
-        left, right, top, bottom = 46, 6, 8, 16
+        scale = max(1.0, height / 96)
+        left, right, top, bottom = round(46 * scale), 6, round(8 * scale), round(16 * scale)
         vals = list(y[ok])
         if rec.get("line"):
             vals += [rec["line"][1], rec["line"][3]]
@@ -191,8 +192,9 @@ def sparkline_svg(rec: Mapping[str, Any], width: int = 220, height: int = 96) ->
             parts.append(f'<line x1="{px(ts):.1f}" y1="{py(ya):.1f}" x2="{px(te):.1f}" y2="{py(yb):.1f}" '
                          f'stroke="{palette.WINDOW}" stroke-width="2.2"/>')
         unit = html.escape(str(rec.get("signal_unit", "")))
-        parts.append(f'<g font-size="8" fill="{palette.INK}" font-family="sans-serif">'
-                     f'<text x="2" y="{top + 8}">{hi:.3g}</text>'
+        font = max(8, round(height / 22))
+        parts.append(f'<g font-size="{font}" fill="{palette.INK}" font-family="sans-serif">'
+                     f'<text x="2" y="{top + font}">{hi:.3g}</text>'
                      f'<text x="2" y="{height - bottom}">{lo:.3g}</text>'
                      f'<text x="2" y="{(height - bottom + top) / 2 + 3:.0f}">{unit}</text>'
                      f'<text x="{left}" y="{height - 4}">{t0:g} s</text>'
