@@ -134,7 +134,8 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
             "fit": "in the fit" if used is not None and used[i] else (
                 (reasons[i] if reasons is not None and reasons[i] else "not in the fit") if used is not None
                 else "no fit step"),
-            "rate": _f(r.get("rate")), "rate_text": (content.estimate_text(r.get("rate"), r.get("rate_stderr"))["value"] + f" {rate_unit}").rstrip(),
+            "rate": _f(r.get("rate")),
+            "rate_text": f"{content.estimate_text(r.get('rate'), r.get('rate_stderr'))['value']} {rate_unit}".rstrip(),
             "note": str(r.get("note", "") or "") if "note" in rates and isinstance(r.get("note"), str) else "",
             "t": t, "y": y, "signal_unit": unit, "line": line,
         })

@@ -63,7 +63,8 @@ def test_data_cannot_end_the_script_element():
     out = render({"run": "r", "recipe": "x", "source": "", "existing": [], "wells": [{
         "id": "well-p-a1", "plate": "p", "well": "A1", "group": "</script><script>alert(1)</script>",
         "conc": {}, "flags": ["noisy"], "short": ["noisy"], "words": ["w"], "measured": [], "blank": "",
-        "fit": "", "rate": 1.0, "rate_text": "1", "note": "", "signal_unit": "AU", "line": None, "svg": "<svg></svg>"}]})
+        "fit": "", "rate": 1.0, "rate_text": "1", "note": "", "signal_unit": "AU", "line": None,
+        "svg": "<svg></svg>"}]})
     assert "<script>alert(1)" not in out
 
 
