@@ -95,6 +95,31 @@ def _evaluators(fits: pd.DataFrame, group: str, x_col: str,
     return out
 
 
+def _evaluator_si(fits: pd.DataFrame, group: str, name: str,
+                  models: Mapping[str, Any]) -> Callable[[np.ndarray, np.ndarray], np.ndarray] | None:
+    """The fitted rate of ``group``'s model ``name`` as a function of substrate and inhibitor, when the model
+    is known, takes exactly those two variables and every parameter was determined; else None."""
+    model = models.get(name)
+    if fits.empty or model is None or set(model.variables) != {"substrate", "inhibitor"}:
+        return None
+    sub = fits[(fits["group"].astype(str) == group) & (fits["model"].astype(str) == name)]
+    rows = sub.set_index("parameter")["estimate"]
+    try:
+        p = [float(rows[k]) for k in model.params]
+    except (KeyError, TypeError, ValueError):
+        return None
+    if not np.all(np.isfinite(p)):
+        return None
+    return lambda s, i: np.asarray(model.evaluate(p, {"substrate": np.asarray(s, float),
+                                                      "inhibitor": np.asarray(i, float)}), float)
+
+
+def _unit_of(rates: pd.DataFrame, units: Mapping[str, str], col: str) -> str:
+    """The unit of a concentration column of the rates table ('' when unknown)."""
+    return units.get(col, "") or (str(rates[f"{col}_unit"].dropna().iloc[0]) if f"{col}_unit" in rates
+                                  and rates[f"{col}_unit"].notna().any() else "")
+
+
 def _signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: str) -> np.ndarray | None:
     """Each well's rate in signal units per second (what the progress-curve panels draw), or None."""
     if "signal_rate" in rates:
@@ -239,6 +264,25 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         in_group = (rates[group_col].astype(str) == g).to_numpy() if group_col in rates else np.zeros(len(rates), bool)
         gc = curves[curves["group"].astype(str) == g] if "group" in curves else pd.DataFrame()
         variables = list(dict.fromkeys(gc["variable"].astype(str))) if len(gc) else ([x_col] if x_col in rates else [])
+        both = _evaluator_si(fits, g, pref_raw, inp.models) if lead["kind"] == "inhibition" else None
+        i_col = options.get("inhibitor", "inhibitor")
+        if both is not None and x_col in rates:
+            pts_mask = in_group & np.isfinite(pd.to_numeric(rates[x_col], errors="coerce").to_numpy(float))
+            pts = rates[pts_mask]
+            pused = used[pts_mask] if used is not None else np.ones(len(pts), bool)
+            make = functools.partial(figures.inhibition, g, pts, pused, x_col, i_col,
+                                     content.pretty_unit(_unit_of(rates, rate_units, x_col)),
+                                     content.pretty_unit(_unit_of(rates, rate_units, i_col)),
+                                     content.pretty_unit(rate_unit) or "?", content.model_title(pref_raw, titles),
+                                     both)
+            block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["transforms"], Figure(
+                _unique(f"inhibition_{figures.slug(g)}", taken), f"{g}: rates by inhibitor level",
+                f"Every panel uses the group's selected fit ({content.model_title(pref_raw, titles)}), fitted to all "
+                "inhibitor levels at once. Colour (pale to dark) and marker tell the levels apart; hollow points "
+                "were not fitted. The double-reciprocal panel shows the fitted curves transformed, for inspection "
+                "only: its lines are not fitted to the transformed points. Residuals are of that model, for the "
+                "wells it was fitted to.", b"", b"", "groups")))
+            variables = []
         for var in variables:
             col = x_col if var == "substrate" else options.get("inhibitor", var)
             col = col if col in rates else var

@@ -507,6 +507,8 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
             distinct = [*np.unique(levels[np.isfinite(levels)]).tolist(), *([np.nan] if np.isnan(levels).any() else [])]
             for j, level in enumerate(distinct):
                 part = cm[np.isnan(levels)] if np.isnan(level) else cm[levels == level]
+                if np.isfinite(x).any():  # drawn over the measured range only (the fit stage's grid runs further)
+                    part = part[part["x"].to_numpy(float) <= 1.04 * float(np.nanmax(x))]
                 cx = part["x"].to_numpy(float)
                 label = model_title(model, titles) + (" (preferred)" if model == preferred else "")
                 if not np.isnan(level) and part["variable"].iloc[0] != "inhibitor":
@@ -570,6 +572,8 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
     transform's own straight line, with the estimates that line implies in the panel title."""
     import matplotlib
 
+    from matplotlib.ticker import MaxNLocator
+
     plots = [p for p in TRANSFORM_TITLES if p in set(diag["plot"].astype(str))]
     plots += [p for p in dict.fromkeys(diag["plot"].astype(str)) if p not in plots]
     n = len(plots)
@@ -602,6 +606,7 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
             words = ", ".join(f"{k} = {num(v, 3)} {unit_of.get(k, '')}".rstrip() for k, v in est.items()
                               if k not in ("slope", "intercept"))
             titles.append(f"{TRANSFORM_TITLES.get(plot, plot)}" + (f"\nline gives {words}" if words else ""))
+            ax.xaxis.set_major_locator(MaxNLocator(4))  # long tick labels (Eadie–Hofstee) must not overlap
             if len(pts):
                 ax.set_xlabel(pretty_unit(str(pts["x_label"].iloc[0])))
                 ax.set_ylabel(pretty_unit(str(pts["y_label"].iloc[0])))
@@ -637,3 +642,87 @@ def _arrange_panels(fig: Any, axes: np.ndarray, titles: list[str]) -> None:
                 top=EDGE + _lines(1, 10) + 4 * PT + row_head[0], bottom=EDGE + x_decor,
                 wgap=max(0.15, overhang[0] + 0.1) + (col_room[1] if cols > 1 else 0.0),
                 hgap=x_decor + 0.12 + max(row_head[1:], default=0.0))
+
+
+# -- inhibition --------------------------------------------------------------------------------------------
+
+
+def inhibition(group: str, points: pd.DataFrame, used: np.ndarray, x_col: str, i_col: str, x_unit: str,
+               i_unit: str, rate_unit: str, model_title_: str, evaluate: Any) -> Any:
+    """One inhibition group read four ways, all from the group's selected model (``evaluate(S, I)`` -> v):
+
+    * rates against substrate coloured by inhibitor level (a sequential palette, pale to dark, with a marker
+      per level so greyscale keeps them apart), one fitted line per level;
+    * the residuals of that model against substrate, for the wells it was fitted to;
+    * the double-reciprocal plot, 1/v against 1/S, one line per level (the model's curve transformed, not a
+      straight-line fit), for inspection only;
+    * rates against inhibitor at each substrate level, with the model's line.
+    """
+    import matplotlib
+    import matplotlib.ticker
+
+    s = pd.to_numeric(points[x_col], errors="coerce").to_numpy(float)
+    i = pd.to_numeric(points[i_col], errors="coerce").to_numpy(float) if i_col in points else np.zeros(len(points))
+    i = np.where(np.isfinite(i), i, 0.0)
+    v = pd.to_numeric(points["rate"], errors="coerce").to_numpy(float)
+    levels = np.unique(i[np.isfinite(v)])
+    colours = palette.levels(len(levels))
+    s_max = float(np.nanmax(s)) if np.isfinite(s).any() else 1.0
+    grid = np.linspace(0.0, s_max * 1.04, 120)
+    with matplotlib.rc_context(palette.STYLE):
+        fig = _new_figure(9.6, 7.4)
+        axes = fig.subplots(2, 2, squeeze=False)
+        a_v, a_res, a_lb, a_i = axes[0, 0], axes[1, 0], axes[0, 1], axes[1, 1]
+        for k, level in enumerate(levels):
+            at = (i == level) & np.isfinite(v) & np.isfinite(s)
+            mk = palette.LEVEL_MARKERS[k % len(palette.LEVEL_MARKERS)]
+            col = colours[k]
+            label = f"{level:g} {i_unit}".rstrip()
+            a_v.plot(s[at & used], v[at & used], mk, ms=5, color=col, mec=palette.INK, mew=0.5, label=label)
+            if (at & ~used).any():
+                a_v.plot(s[at & ~used], v[at & ~used], mk, ms=5, mfc="white", mec=col, mew=1.0)
+            a_v.plot(grid, evaluate(grid, np.full_like(grid, level)), color=col, lw=1.5)
+            fu = at & used
+            if fu.any():
+                a_res.plot(s[fu], v[fu] - evaluate(s[fu], i[fu]), mk, ms=5, color=col, mec=palette.INK, mew=0.5)
+            pos = at & (s > 0) & (v > 0)
+            a_lb.plot(1 / s[pos & used], 1 / v[pos & used], mk, ms=5, color=col, mec=palette.INK, mew=0.5)
+            sg = np.linspace(s[pos].min() if pos.any() else s_max / 20, s_max, 60)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                a_lb.plot(1 / sg, 1 / evaluate(sg, np.full_like(sg, level)), color=col, lw=1.2)
+        s_levels = np.unique(s[np.isfinite(s) & (s > 0)])
+        s_cols = palette.levels(len(s_levels))
+        ig = np.linspace(0.0, float(levels.max()) * 1.04 if levels.size else 1.0, 80)
+        for k, sl in enumerate(s_levels):
+            at = (s == sl) & np.isfinite(v)
+            mk = palette.LEVEL_MARKERS[k % len(palette.LEVEL_MARKERS)]
+            a_i.plot(i[at & used], v[at & used], mk, ms=4.5, color=s_cols[k], mec=palette.INK, mew=0.5,
+                     label=f"{sl:g} {x_unit}".rstrip())
+            a_i.plot(ig, evaluate(np.full_like(ig, sl), ig), color=s_cols[k], lw=1.1)
+        a_res.axhline(0, color=palette.INK, lw=0.7)
+        a_v.set_xlim(left=0)
+        a_v.set_ylim(bottom=min(0.0, float(np.nanmin(v))) if np.isfinite(v).any() else 0.0)
+        a_i.set_xlim(left=0)
+        a_v.set_xlabel(f"{x_col} ({x_unit})" if x_unit else x_col)
+        a_res.set_xlabel(f"{x_col} ({x_unit})" if x_unit else x_col)
+        a_lb.set_xlabel(f"1/{x_col} (1/{x_unit})" if x_unit else f"1/{x_col}")
+        a_i.set_xlabel(f"{i_col} ({i_unit})" if i_unit else i_col)
+        a_v.set_ylabel(f"v0 ({rate_unit})")
+        a_res.set_ylabel(f"residual ({rate_unit})")
+        a_lb.set_ylabel(f"1/v0 (1/({rate_unit}))")
+        a_i.set_ylabel(f"v0 ({rate_unit})")
+        for ax in axes.ravel():
+            ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(5))
+        few = len(levels) <= 10
+        a_v.legend(title=f"{i_col} level", fontsize=7, title_fontsize=7, loc="lower right",
+                   ncol=1 if few else 2, handlelength=1.0)
+        if len(s_levels) <= 10:
+            a_i.legend(title=f"{x_col} level", fontsize=7, title_fontsize=7, loc="best", ncol=2,
+                       handlelength=1.0)
+        w, h = fig.get_size_inches()
+        fig.suptitle(f"{group}: {model_title_}, fitted to every inhibitor level", x=EDGE / w, y=1 - EDGE / h,
+                     ha="left", va="top", fontsize=10)
+        titles = [f"v0 against {x_col}, one line per {i_col} level", "double reciprocal, for inspection only",
+                  f"residuals of {model_title_} (fitted wells)", f"v0 against {i_col} at each {x_col} level"]
+        _arrange_panels(fig, axes, titles)
+    return fig

@@ -63,6 +63,22 @@ def series(i: int) -> Series:
     return SERIES[i % len(SERIES)]
 
 
+LEVEL_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "h", "<", ">")
+"""A marker per level of a series of concentrations, so that levels stay apart without colour."""
+
+
+def levels(n: int) -> list[str]:
+    """``n`` colours for ordered levels (inhibitor or substrate concentrations), lightest for the lowest:
+    evenly spaced along :data:`RAMP` from its second stop (the first is too pale to see on paper), so that
+    their order survives greyscale."""
+    from matplotlib.colors import to_hex
+
+    cmap = rate_cmap()
+    if n <= 1:
+        return [to_hex(cmap(0.65))]
+    return [to_hex(cmap(0.22 + 0.78 * k / (n - 1))) for k in range(n)]
+
+
 def rate_cmap() -> Any:
     """The sequential colour map for rates (a matplotlib colormap built from :data:`RAMP`)."""
     from matplotlib.colors import LinearSegmentedColormap
