@@ -571,7 +571,6 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
     """The linear transforms of one group: points (hollow where the transform is unstable) and each
     transform's own straight line, with the estimates that line implies in the panel title."""
     import matplotlib
-
     from matplotlib.ticker import MaxNLocator
 
     plots = [p for p in TRANSFORM_TITLES if p in set(diag["plot"].astype(str))]
