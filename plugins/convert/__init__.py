@@ -168,7 +168,7 @@ class StandardCurveConvert(ConvertMethod):
         import pandas as pd
         from vzero import units
         from vzero.data import Table
-        from vzero.plugins.convert.standard_curve import fit_standard_curve
+        from vzero.plugins.convert.standard_curve import fit_standard_curve, standard_levels
 
         traces = data.artifacts["traces"]
         col = self.settings["column"]
@@ -180,16 +180,11 @@ class StandardCurveConvert(ConvertMethod):
         conc_unit = traces.well_units.get(col) or self.settings["unit"]
         if not conc_unit:
             raise StageError(f"the layout column {col!r} has no unit; write it like \"{col} (uM)\" or set unit")
-        y = traces.masked_signal()[is_std]
-        finite = np.isfinite(y)
-        count = finite.sum(axis=1)
         # a standard whose every read is saturated has no level (NaN), said in words below, not as a warning
-        level = np.where(count > 0, np.where(finite, y, 0.0).sum(axis=1) / np.maximum(count, 1), np.nan)
-        if (count == 0).any():
-            lost = [str(w) for w, c in zip(wells["well"].to_numpy()[is_std], count, strict=True) if c == 0]
+        _, conc, level, lost = standard_levels(traces, col)
+        if lost:
             data.warn(f"{len(lost)} standard well(s) have no usable read (saturated or missing) and are left out "
                       f"of the standard curve: {', '.join(lost[:10])}{', ...' if len(lost) > 10 else ''}.")
-        conc = wells[col].to_numpy(dtype=float)[is_std]
         keep = np.isfinite(level) & np.isfinite(conc)
         curve = fit_standard_curve(conc[keep], level[keep], check_linearity=self.settings["check_linearity"])
         out_unit = self.settings["output_unit"]

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Table, Traces
-from vzero.plugins.report import content, figures, panels, parallel
+from vzero.plugins.report import calibration, content, figures, panels, parallel
 
 RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
                  "lab's validated procedures before relying on them, and do not use them for diagnosis or "
@@ -212,6 +212,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
     figs: list[Figure] = []
     drawing = _Drawing()
     notes = list(inp.notes)
+    calibrations: list[dict[str, Any]] = []
 
     # plate maps and progress curves, per plate
     plates = list(dict.fromkeys(list(inp.traces) + (rates["plate"].astype(str).tolist() if "plate" in rates else [])))
@@ -227,6 +228,19 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 "a flagged well, a cross a sample well left out of the fit (reasons under Flagged wells and "
                 "Exclusions).", b"", b"", "plates")))
         traces = inp.traces.get(plate)
+        std = calibration.curve_of(traces, inp.recipe) if traces is not None else None
+        if std is not None and "error" in std:
+            notes.append(f"plate {plate}: no standard curve ({std['error']})")
+        elif std is not None:
+            calibrations.append({"plate": plate, "rows": calibration.table_rows(std)})
+            figs.append(drawing.add(_job(functools.partial(calibration.figure, std), 130), WEIGHTS["rates_vs_x"],
+                                    Figure(_unique(f"standard-curve_{figures.slug(plate)}", taken),
+                                           f"Standard curve: {plate}",
+                                           "The curve the rates were converted with (the convert step's own "
+                                           "computation): each standard's mean usable read against its "
+                                           "concentration; the line over the range kept; standards above it "
+                                           "are dropped where adding curvature improves the fit significantly. "
+                                           "Below: residuals.", b"", b"", "plates")))
         if traces is not None:
             slope = None
             if len(pr) and {"window_start_s", "window_end_s", "well"} <= set(pr.columns):
@@ -345,6 +359,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         "groups": groups,
         "flagged": flagged,
         "well_panels": records,
+        "calibrations": calibrations,
         "flag_text": content.FLAG_TEXT,
         "exclusions": exclusions,
         "options": options,
