@@ -70,7 +70,6 @@ def figure(c: Mapping[str, Any]) -> Any:
     """Signal against concentration: standards in the line (filled), dropped (hollow, marked), the line over
     the range kept and its extension dashed, residuals below."""
     import matplotlib
-
     from vzero.plugins.report import figures, palette
 
     x, y, used = np.asarray(c["conc"], float), np.asarray(c["signal"], float), np.asarray(c["used"], bool)
