@@ -79,8 +79,8 @@ def test_template_autoescape_is_on():
     out = render_html({"title": "<i>t</i>", "recipe": {"name": "<i>r</i>"}, "provenance": {
         "vzero_version": "0", "recipe_name": "", "source": "", "versions": {}, "steps": [], "inputs": [],
         "warnings": [], "failed_plates": {}, "recipe_sha256": "", "created": "", "run_id": "", "recipe_text": ""},
-        "research_note": "", "counts": None, "plates": [], "plate_figures": [], "groups": [], "flagged": [], "calibrations": [],
-        "well_panels": [],
+        "research_note": "", "counts": None, "plates": [], "plate_figures": [], "groups": [], "flagged": [],
+        "well_panels": [], "calibrations": [],
         "flag_text": {}, "exclusions": {"wells": [], "roles": [], "recipe": []},
         "options": {"present": False, "confidence": 0.95, "exclude_flags": []}, "rate_unit": "", "missing": [],
         "notes": [], "built": ""})
