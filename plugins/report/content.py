@@ -412,7 +412,7 @@ def group_lead(fits: pd.DataFrame, group: str, selected: str, models: Mapping[st
         peak = math.sqrt(km * ksi) if km > 0 and ksi > 0 else math.nan
         where = (f"the rate peaks near S* = √(Km·Ksi) = {num(peak, 2)} {unit}".rstrip()
                  if math.isfinite(peak) else "the substrate level of the peak rate is not determined")
-        out["sentence"] = (f"{group}: substrate inhibition ({title}); {where}, and falls at higher substrate "
+        out["sentence"] = (f"{group}: substrate inhibition (model {title}); {where}, and falls at higher substrate "
                            f"(constants with {pct} intervals below).")
     return out
 

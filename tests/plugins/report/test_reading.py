@@ -6,40 +6,25 @@ Data: the invented cookbook plates (tests/cookbook_data.py) and hand-made tables
 
 from __future__ import annotations
 
-import shutil
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 from vzero.audit import reader
-from vzero.cli.main import main
 from vzero.plugins.report import content
 
-from tests.cookbook_data import WRITERS
-
-COOKBOOK = Path(__file__).parents[3] / "configs" / "cookbook"
-
-
-def _run(name: str, folder: Path) -> Path:
-    from vzero.run.runner import run
-
-    (folder / "in").mkdir(parents=True)
-    WRITERS[f"{name}.yaml"](folder / "in")
-    shutil.copy(COOKBOOK / f"{name}.yaml", folder / "in" / "recipe.yaml")
-    out = run(folder / "in" / "recipe.yaml", folder / "run").out_dir
-    assert main(["report", str(out / "run.h5"), "--out", str(out / "report")]) == 0
-    return out
+from .conftest import cookbook_run
 
 
 @pytest.fixture(scope="module")
 def matrix(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    return _run("inhibitor-matrix", tmp_path_factory.mktemp("matrix"))
+    return cookbook_run("inhibitor-matrix", tmp_path_factory.mktemp("matrix"))
 
 
 @pytest.fixture(scope="module")
 def fluor(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    return _run("fluorescence-standard-curve", tmp_path_factory.mktemp("fluor"))
+    return cookbook_run("fluorescence-standard-curve", tmp_path_factory.mktemp("fluor"))
 
 
 def test_estimates_and_intervals_are_rounded_together():

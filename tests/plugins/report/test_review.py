@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import json
 import re
-import shutil
 from pathlib import Path
 
 import h5py
@@ -19,23 +18,15 @@ import pytest
 import yaml
 from vzero.cli.main import main
 
-from tests.cookbook_data import WRITERS
-
 from .chromium import check_page, find_browser
+from .conftest import COOKBOOK, cookbook_run
 
 BROWSER = find_browser()
-COOKBOOK = Path(__file__).parents[3] / "configs" / "cookbook"
 
 
 @pytest.fixture(scope="module")
 def matrix_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    from vzero.run.runner import run
-
-    folder = tmp_path_factory.mktemp("review")
-    (folder / "in").mkdir()
-    WRITERS["inhibitor-matrix.yaml"](folder / "in")
-    shutil.copy(COOKBOOK / "inhibitor-matrix.yaml", folder / "in" / "recipe.yaml")
-    return run(folder / "in" / "recipe.yaml", folder / "run").out_dir
+    return cookbook_run("inhibitor-matrix", tmp_path_factory.mktemp("review"), report=False)
 
 
 def _page(matrix_run: Path) -> Path:
