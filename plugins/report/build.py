@@ -120,15 +120,6 @@ def _unit_of(rates: pd.DataFrame, units: Mapping[str, str], col: str) -> str:
                                   and rates[f"{col}_unit"].notna().any() else "")
 
 
-def _signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: str) -> np.ndarray | None:
-    """Each well's rate in signal units per second (what the progress-curve panels draw), or None."""
-    if "signal_rate" in rates:
-        return pd.to_numeric(rates["signal_rate"], errors="coerce").to_numpy(float)
-    if "rate" in rates and units.get("rate", "") in (f"{signal_unit}/s", ""):
-        return pd.to_numeric(rates["rate"], errors="coerce").to_numpy(float)
-    return None
-
-
 WEIGHTS = {"plate_map": 1.0, "progress_grid": 1.4, "rates_vs_x": 0.9, "transforms": 1.6}
 """Relative cost of making each kind of figure and saving it as PNG and SVG (measured on the demo), to share
 them out."""
@@ -244,7 +235,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         if traces is not None:
             slope = None
             if len(pr) and {"window_start_s", "window_end_s", "well"} <= set(pr.columns):
-                slope = _signal_slope(pr, rate_units, traces.signal_unit)
+                slope = figures.signal_slope(pr, rate_units, traces.signal_unit)
                 if slope is None:
                     notes.append(f"plate {plate}: rate lines not drawn (the rates are not in {traces.signal_unit}/s "
                                  "and there is no signal_rate column)")
@@ -294,7 +285,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 f"Every panel uses the group's selected fit ({content.model_title(pref_raw, titles)}), fitted to all "
                 "inhibitor levels at once. Colour (pale to dark) and marker tell the levels apart; hollow points "
                 "were not fitted. The double-reciprocal panel shows the fitted curves transformed, for inspection "
-                "only: its lines are not fitted to the transformed points. Residuals are of that model, for the "
+                "only: its lines are not fitted to the transformed points (it replaces the straight-line "
+                "transforms, which would use the uninhibited wells only). Residuals are of that model, for the "
                 "wells it was fitted to.", b"", b"", "groups")))
             variables = []
         for var in variables:
@@ -320,7 +312,9 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 "residuals (observed − fitted) of the fitted wells.", b"", b"", "groups")))
         gd = diag[diag["group"].astype(str) == g] if "group" in diag else pd.DataFrame()
         if len(gd) and lead["kind"] != "cooperativity":  # the Hill plot answers the cooperativity question only
-            gd = gd[gd["plot"].astype(str) != "hill"]
+            gd = gd[gd["plot"].astype(str) != figures.HILL_PLOT]
+        if both is not None:  # the inhibition figure's double-reciprocal panel shows the selected fit on every
+            gd = gd.iloc[0:0]  # well; the stage's transforms of the uninhibited wells alone would say less
         if len(gd):
             x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
                                                     and len(rates) else "")

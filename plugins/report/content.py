@@ -368,21 +368,21 @@ def comparison_rows(comparison: pd.DataFrame, group: str,
 
 def group_kind(model: Any) -> str:
     """The question a group's selected model answers: ``inhibition`` (a model of the inhibitor),
-    ``substrate-inhibition`` (a model with a substrate-inhibition constant Ksi) or ``cooperativity``
+    ``substrate_inhibition`` (a model with a substrate-inhibition constant Ksi) or ``cooperativity``
     (everything else, where the cooperativity verdict is the finding)."""
     if model is None:
         return "cooperativity"
     if "inhibitor" in tuple(getattr(model, "variables", ())):
         return "inhibition"
     if "Ksi" in tuple(getattr(model, "params", ())):
-        return "substrate-inhibition"
+        return "substrate_inhibition"
     return "cooperativity"
 
 
 def group_lead(fits: pd.DataFrame, group: str, selected: str, models: Mapping[str, Any],
                titles: Mapping[str, str] | None, confidence: float) -> dict[str, Any]:
     """What a group's first lines say, by the question its selected model answers: for an inhibition group
-    the mechanism the data support and its constants with intervals; for a substrate-inhibition group Km,
+    the mechanism the data support and its constants with intervals; for a substrate inhibition group Km,
     Ksi and the substrate level of the peak rate (S* = √(Km·Ksi), where dv/dS = 0 for the Haldane law); for
     a cooperativity group nothing here (the verdict leads). Returns ``kind``, ``sentence`` and ``items``
     (name, value with error, interval, unit)."""

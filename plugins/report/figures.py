@@ -310,6 +310,15 @@ def window_lines(traces: Traces, rates: pd.DataFrame, slope: np.ndarray) -> tupl
     return np.where(bad, np.nan, start), np.where(bad, np.nan, end)
 
 
+def signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: str) -> np.ndarray | None:
+    """Each well's rate in signal units per second (what the progress-curve panels draw), or None."""
+    if "signal_rate" in rates:
+        return pd.to_numeric(rates["signal_rate"], errors="coerce").to_numpy(float)
+    if "rate" in rates and units.get("rate", "") in (f"{signal_unit}/s", ""):
+        return pd.to_numeric(rates["rate"], errors="coerce").to_numpy(float)
+    return None
+
+
 def _choose(n: int, priority: np.ndarray, limit: int) -> np.ndarray:
     """Indices of at most ``limit`` wells: every priority well first (up to the limit), then evenly spaced."""
     if n <= limit:
@@ -558,6 +567,9 @@ def _fitted(model: str, x: np.ndarray, curve: pd.DataFrame, evaluate: Mapping[st
 
 
 # -- linear transforms -------------------------------------------------------------------------------------
+
+HILL_PLOT = "hill"
+"""The Hill plot's name in the diagnostics table (shown only for groups whose question is cooperativity)."""
 
 TRANSFORM_TITLES = {
     "hill": "Hill plot",

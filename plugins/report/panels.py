@@ -79,8 +79,7 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
     step saw (after blanking); ``line`` holds the window's start and end time and signal. ``rate_unit`` is
     the rate's unit as printed; ``rate_units`` the rates table's units by column (to tell whether ``rate`` is
     in signal per second when there is no ``signal_rate`` column)."""
-    from vzero.plugins.report.build import _signal_slope
-    from vzero.plugins.report.figures import window_lines
+    from vzero.plugins.report.figures import signal_slope, window_lines
 
     if rates.empty or "well" not in rates:
         return []
@@ -96,7 +95,7 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
         sel = plates == plate
         pr = rates[sel]
         if tr is not None and {"window_start_s", "window_end_s"} <= set(pr.columns):
-            slope = _signal_slope(pr, rate_units or {"rate": "?"}, tr.signal_unit)
+            slope = signal_slope(pr, rate_units or {"rate": "?"}, tr.signal_unit)
             if slope is not None:
                 lines[plate] = window_lines(tr, pr, slope)
     position = {p: np.flatnonzero(plates == p) for p in dict.fromkeys(plates)}
@@ -185,8 +184,9 @@ def sparkline_svg(rec: Mapping[str, Any], width: int = 220, height: int = 96) ->
         def py(yy: float) -> float:
             return top + (hi - yy) / (hi - lo) * (height - top - bottom)
 
-        dots = "".join(f'<circle cx="{px(a):.1f}" cy="{py(b):.1f}" r="1.6"/>' for a, b in zip(t[ok], y[ok],
-                                                                                            strict=True))
+        r = 1.6 * scale
+        dots = "".join(f'<circle cx="{px(a):.1f}" cy="{py(b):.1f}" r="{r:.1f}"/>'
+                       for a, b in zip(t[ok], y[ok], strict=True))
         parts.append(f'<g fill="{palette.MUTED}">{dots}</g>')
         if rec.get("line"):
             ts, ya, te, yb = rec["line"]
