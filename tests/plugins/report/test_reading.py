@@ -77,3 +77,19 @@ def test_the_standard_curve_is_shown_as_the_convert_step_made_it(fluor: Path):
     slope = cal.set_index("quantity").loc["slope"]
     assert content.estimate_text(slope["value"], slope["stderr"])["value"] in html
     assert "Standard curve of plate vz9-plate" in html
+
+
+def test_flagged_wells_are_grouped_by_flag_and_each_has_a_panel(report_input):
+    from vzero.plugins.report import panels
+
+    rates = report_input.tables["rates"].frame
+    records = panels.well_records(rates, report_input.traces, None, None, report_input.recipe, "AU/s",
+                                  dict(report_input.tables["rates"].units))
+    flagged_samples = rates[(rates["role"] == "sample") & rates["flags"].astype(str).ne("")]
+    assert [r["well"] for r in records] == flagged_samples["well"].tolist()  # blanks are never listed
+    groups = panels.flag_groups(records)
+    assert sum(g["count"] for g in groups) >= len(records) and len(groups) <= len(panels.FLAG_SHORT)
+    a2 = next(r for r in records if r["well"] == "A2")
+    assert "no usable read at all" in a2["words"] and "no rate" in a2["measured"]
+    svg = panels.sparkline_svg(next(r for r in records if r["y"] and any(v is not None for v in r["y"])))
+    assert svg.startswith("<svg") and " s</text>" in svg  # drawn, with its time scale printed
