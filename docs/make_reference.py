@@ -49,8 +49,8 @@ def _first_paragraph(doc: str | None) -> str:
 def render() -> str:
     """The page's text."""
     from vzero.manager import make_manager
-    from vzero.plugins.kinetics.exclusions import EXCLUSION_KEYS, OVERRIDE_KEYS
     from vzero.plugins.export.assay import ASSAY, MOLECULE_KEYS
+    from vzero.plugins.kinetics.exclusions import EXCLUSION_KEYS, OVERRIDE_KEYS
     from vzero.recipe import PLATE_KEYS, TOP_LEVEL
 
     registry = make_manager(autoload=False).registry
