@@ -215,9 +215,10 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             make = functools.partial(figures.plate_map, plate, pr, pused, content.pretty_unit(rate_unit) or "?")
             figs.append(drawing.add(_job(make, 130), WEIGHTS["plate_map"], Figure(
                 _unique(f"plate-map_{figures.slug(plate)}", taken), f"Plate map of v0: {plate}",
-                "Each circle is a well, darker for a faster initial rate. Hatched grey: no rate. A heavy ring marks "
-                "a flagged well, a cross a sample well left out of the fit (reasons under Flagged wells and "
-                "Exclusions).", b"", b"", "plates")))
+                "Each circle is a sample well, darker for a faster initial rate. Hatched grey: no rate. A heavy "
+                "ring marks a flagged sample well, a cross a sample well left out of the fit (reasons under Flagged "
+                "wells and Exclusions). Small pale squares: blanks, standards and other wells that are not "
+                "fitted.", b"", b"", "plates")))
         traces = inp.traces.get(plate)
         std = calibration.curve_of(traces, inp.recipe) if traces is not None else None
         if std is not None and "error" in std:
@@ -240,9 +241,11 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                     notes.append(f"plate {plate}: rate lines not drawn (the rates are not in {traces.signal_unit}/s "
                                  "and there is no signal_rate column)")
             make = functools.partial(figures.progress_grid, traces, pr if len(pr) else None, slope, inp.max_panels)
-            cap = ("Every well's reads (grey) in plate geometry, all cells on the same time and signal scale. The "
-                   "orange line has the slope reported as the well's rate and spans the reads it came from. "
-                   "Flagged wells have a dashed frame and their flags in short.")
+            cap = ("Every well's reads (grey) in plate geometry, all cells on the same time scale and each on its "
+                   "own signal scale, so that slow wells can be judged (the span Δ of each scale is printed in the "
+                   "cell where there is room). The orange line has the slope reported as the well's rate and spans "
+                   "the reads it came from. Flagged sample wells have a heavy frame and a tinted cell; blanks, "
+                   "standards and other wells are pale.")
             figs.append(drawing.add(_job(make, 150), WEIGHTS["progress_grid"], Figure(
                 _unique(f"progress-curves_{figures.slug(plate)}", taken), f"Progress curves: {plate}",
                 cap, b"", b"", "plates")))
