@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any, Protocol
 
 import pandas as pd
+from vzero.audit.codec import to_json
 from vzero.data import Table, Traces
 from vzero.errors import InputFileError, OutputExistsError, OutputWriteError, StageError, VzeroError
 from vzero.manager import Plugins, make_manager
@@ -324,8 +325,9 @@ def _run_info(
     for r in records:
         entry = plugins.registry.get(r.spec.kind, r.spec.method)
         item = steps.setdefault(r.spec.label, {"label": r.spec.label, "plugin": entry.source.plugin,
+                                               "distribution": entry.source.distribution,
                                                "version": str(getattr(entry.component, "version", "")),
-                                               "seconds": 0.0})
+                                               "seconds": 0.0, "parameters": to_json(dict(r.spec.written))})
         item["seconds"] += r.seconds
     inputs = [{"name": raw.name, "key": raw.key, "sha256": sha, "size": raw.size,
                "plates": list(store.input_plates.get(sha, []))} for sha, raw in store.raws.items()]

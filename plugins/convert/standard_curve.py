@@ -12,6 +12,7 @@ Results are for research use; defer to the lab's validated calibration procedure
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import special  # t and F quantiles: what scipy.stats uses, without its import cost
@@ -73,6 +74,22 @@ class StandardCurve:
             self.slope**2
         )
         return x, np.sqrt(np.maximum(var, 0.0))
+
+
+def standard_levels(traces: Any, column: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[str]]:
+    """The standard wells of a plate as the curve sees them: (well names, concentration from the layout
+    ``column``, level = mean of the well's usable reads in signal units, NaN without any) and the names of
+    the standards without a usable read. Used by the convert stage and by the report, so both see the same
+    points."""
+    wells = traces.wells
+    is_std = (wells["role"].astype(str) == "standard").to_numpy()
+    y = traces.masked_signal()[is_std]
+    finite = np.isfinite(y)
+    count = finite.sum(axis=1)
+    level = np.where(count > 0, np.where(finite, y, 0.0).sum(axis=1) / np.maximum(count, 1), np.nan)
+    names = wells["well"].astype(str).to_numpy()[is_std]
+    conc = wells[column].to_numpy(dtype=float)[is_std] if column in wells.columns else np.full(names.size, np.nan)
+    return names, conc, level, [str(w) for w, c in zip(names, count, strict=True) if c == 0]
 
 
 def _ols(x: np.ndarray, y: np.ndarray, degree: int) -> tuple[np.ndarray, np.ndarray, float]:

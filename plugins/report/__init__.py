@@ -1,4 +1,5 @@
-"""Built-in report stage (``report: {method: html}``) and the ``vzero report RUN.h5`` command.
+"""Built-in report stage (``report: {method: html}``) and the ``vzero report RUN.h5`` and ``vzero review
+RUN.h5`` commands.
 
 The stage runs last (scope ``final``) and returns ``report.html``, one self-contained file with every
 figure inline, plus each figure as PNG and SVG under ``figures/``. This module stays light at import:
@@ -45,6 +46,7 @@ def vzero_register(registry: Any) -> None:
 
 @hookimpl
 def vzero_commands(commands: Any) -> None:
-    from vzero.plugins.report import command
+    from vzero.plugins.report import command, review
 
     commands.add("report", command.HELP, command.configure, command.run, command.EXAMPLE)
+    commands.add("review", review.HELP, review.configure, review.run, review.EXAMPLE)

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Table, Traces, steps_apart
-from vzero.plugins.report import content, figures, parallel
+from vzero.plugins.report import calibration, content, figures, panels, parallel
 
 RESEARCH_NOTE = ("These results come from an automated analysis; check them against your "
                  "lab's validated procedures before relying on them, and do not use them for diagnosis or "
@@ -95,13 +95,29 @@ def _evaluators(fits: pd.DataFrame, group: str, x_col: str,
     return out
 
 
-def _signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: str) -> np.ndarray | None:
-    """Each well's rate in signal units per second (what the progress-curve panels draw), or None."""
-    if "signal_rate" in rates:
-        return pd.to_numeric(rates["signal_rate"], errors="coerce").to_numpy(float)
-    if "rate" in rates and units.get("rate", "") in (f"{signal_unit}/s", ""):
-        return pd.to_numeric(rates["rate"], errors="coerce").to_numpy(float)
-    return None
+def _evaluator_si(fits: pd.DataFrame, group: str, name: str,
+                  models: Mapping[str, Any]) -> Callable[[np.ndarray, np.ndarray], np.ndarray] | None:
+    """The fitted rate of ``group``'s model ``name`` as a function of substrate and inhibitor, when the model
+    is known, takes exactly those two variables and every parameter was determined; else None."""
+    model = models.get(name)
+    if fits.empty or model is None or set(model.variables) != {"substrate", "inhibitor"}:
+        return None
+    sub = fits[(fits["group"].astype(str) == group) & (fits["model"].astype(str) == name)]
+    rows = sub.set_index("parameter")["estimate"]
+    try:
+        p = [float(rows[k]) for k in model.params]
+    except (KeyError, TypeError, ValueError):
+        return None
+    if not np.all(np.isfinite(p)):
+        return None
+    return lambda s, i: np.asarray(model.evaluate(p, {"substrate": np.asarray(s, float),
+                                                      "inhibitor": np.asarray(i, float)}), float)
+
+
+def _unit_of(rates: pd.DataFrame, units: Mapping[str, str], col: str) -> str:
+    """The unit of a concentration column of the rates table ('' when unknown)."""
+    return units.get(col, "") or (str(rates[f"{col}_unit"].dropna().iloc[0]) if f"{col}_unit" in rates
+                                  and rates[f"{col}_unit"].notna().any() else "")
 
 
 WEIGHTS = {"plate_map": 1.0, "progress_grid": 1.4, "rates_vs_x": 0.9, "transforms": 1.6}
@@ -150,6 +166,21 @@ def _job(make: Callable[[], Any], dpi: int) -> parallel.Job:
     return job
 
 
+def _transform_wells(kind: str, selected: str, titles: Mapping[str, str]) -> str:
+    """Which model and wells the transforms figure stands on, in words (for its caption)."""
+    name = content.model_title(selected, titles) if selected else "the selected model"
+    if kind == "cooperativity":
+        return (f"The Hill plot uses the Vmax of the Hill fit; its points outside 10–90 % of that Vmax are hollow and "
+                f"not used for its line. The group's selected fit is {name}.")
+    if kind == "inhibition":
+        return (f"Drawn from the wells without inhibitor only: the group's selected fit ({name}) uses every "
+                "inhibitor level, so these lines check the uninhibited enzyme alone. No Hill plot: this group's "
+                "question is the inhibition mechanism, not cooperativity.")
+    return (f"The straight lines assume a Michaelis–Menten law, which the selected fit ({name}) does not: at high "
+            "substrate the points bend away from them. No Hill plot: this group's question is substrate "
+            "inhibition, not cooperativity.")
+
+
 def build(inp: ReportInput) -> dict[str, bytes]:
     """Draw every figure and render the HTML. Returns ``{relative path: bytes}``."""
     tables = inp.tables
@@ -173,6 +204,7 @@ def build(inp: ReportInput) -> dict[str, bytes]:
     figs: list[Figure] = []
     drawing = _Drawing()
     notes = list(inp.notes)
+    calibrations: list[dict[str, Any]] = []
 
     # plate maps and progress curves, per plate
     plates = list(dict.fromkeys(list(inp.traces) + (rates["plate"].astype(str).tolist() if "plate" in rates else [])))
@@ -184,21 +216,37 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             make = functools.partial(figures.plate_map, plate, pr, pused, content.pretty_unit(rate_unit) or "?")
             figs.append(drawing.add(_job(make, 130), WEIGHTS["plate_map"], Figure(
                 _unique(f"plate-map_{figures.slug(plate)}", taken), f"Plate map of v0: {plate}",
-                "Each circle is a well, darker for a faster initial rate. Hatched grey: no rate. A heavy ring marks "
-                "a flagged well, a cross a sample well left out of the fit (reasons under Flagged wells and "
-                "Exclusions).", b"", b"", "plates")))
+                "Each circle is a sample well, darker for a faster initial rate. Hatched grey: no rate. A heavy "
+                "ring marks a flagged sample well, a cross a sample well left out of the fit (reasons under Flagged "
+                "wells and Exclusions). Small pale squares: blanks, standards and other wells that are not "
+                "fitted.", b"", b"", "plates")))
         traces = inp.traces.get(plate)
+        std = calibration.curve_of(traces, inp.recipe) if traces is not None else None
+        if std is not None and "error" in std:
+            notes.append(f"plate {plate}: no standard curve ({std['error']})")
+        elif std is not None:
+            calibrations.append({"plate": plate, "rows": calibration.table_rows(std)})
+            figs.append(drawing.add(_job(functools.partial(calibration.figure, std), 130), WEIGHTS["rates_vs_x"],
+                                    Figure(_unique(f"standard-curve_{figures.slug(plate)}", taken),
+                                           f"Standard curve: {plate}",
+                                           "The curve the rates were converted with (the convert step's own "
+                                           "computation): each standard's mean usable read against its "
+                                           "concentration; the line over the range kept; standards above it "
+                                           "are dropped where adding curvature improves the fit significantly. "
+                                           "Below: residuals.", b"", b"", "plates")))
         if traces is not None:
             slope = None
             if len(pr) and {"window_start_s", "window_end_s", "well"} <= set(pr.columns):
-                slope = _signal_slope(pr, rate_units, traces.signal_unit)
+                slope = figures.signal_slope(pr, rate_units, traces.signal_unit)
                 if slope is None:
                     notes.append(f"plate {plate}: rate lines not drawn (the rates are not in {traces.signal_unit}/s "
                                  "and there is no signal_rate column)")
             make = functools.partial(figures.progress_grid, traces, pr if len(pr) else None, slope, inp.max_panels)
-            cap = ("Every well's reads (grey) in plate geometry, all cells on the same time and signal scale. The "
-                   "orange line has the slope reported as the well's rate and spans the reads it came from. "
-                   "Flagged wells have a dashed frame and their flags in short.")
+            cap = ("Every well's reads (grey) in plate geometry, all cells on the same time scale and each on its "
+                   "own signal scale, so that slow wells can be judged (the span Δ of each scale is printed in the "
+                   "cell where there is room). The orange line has the slope reported as the well's rate and spans "
+                   "the reads it came from. Flagged sample wells have a heavy frame and a tinted cell; blanks, "
+                   "standards and other wells are pale.")
             figs.append(drawing.add(_job(make, 150), WEIGHTS["progress_grid"], Figure(
                 _unique(f"progress-curves_{figures.slug(plate)}", taken), f"Progress curves: {plate}",
                 cap, b"", b"", "plates")))
@@ -214,19 +262,37 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         block: dict[str, Any] = {"name": g, "figures": []}
         rows, sentence = content.comparison_rows(comparison, g, titles)
         block["comparison"], block["comparison_sentence"] = rows, sentence
-        selected = next((r["model"] for r in rows if r["selected"]), "")
-        pick_raw = ""
-        if not comparison.empty and "group" in comparison:
-            sub = comparison[comparison["group"].astype(str) == g]
-            pick_raw = str(sub["selected_model"].iloc[0]) if len(sub) else ""
-        block["selected"] = selected
+        pick_raw = content.selected_model(comparison, g)
+        block["selected"] = content.model_title(pick_raw, titles) if pick_raw else ""
         block["parameters"] = content.parameter_tables(fits, g, titles) if not fits.empty else []
+        lead = content.group_lead(fits, g, pick_raw, inp.models, titles, options["confidence"])
+        block["lead"] = lead
         crow = coop[coop["group"].astype(str) == g] if "group" in coop else pd.DataFrame()
         block["verdict"] = content.verdict_sentence(crow.iloc[0], options["confidence"], titles) if len(crow) else ""
         block["verdict_key"] = str(crow.iloc[0]["verdict"]) if len(crow) else ""
         in_group = (rates[group_col].astype(str) == g).to_numpy() if group_col in rates else np.zeros(len(rates), bool)
         gc = curves[curves["group"].astype(str) == g] if "group" in curves else pd.DataFrame()
         variables = list(dict.fromkeys(gc["variable"].astype(str))) if len(gc) else ([x_col] if x_col in rates else [])
+        both = _evaluator_si(fits, g, pick_raw, inp.models) if lead["kind"] == "inhibition" else None
+        i_col = options.get("inhibitor", "inhibitor")
+        if both is not None and x_col in rates:
+            pts_mask = in_group & np.isfinite(pd.to_numeric(rates[x_col], errors="coerce").to_numpy(float))
+            pts = rates[pts_mask]
+            pused = used[pts_mask] if used is not None else np.ones(len(pts), bool)
+            make = functools.partial(figures.inhibition, g, pts, pused, x_col, i_col,
+                                     content.pretty_unit(_unit_of(rates, rate_units, x_col)),
+                                     content.pretty_unit(_unit_of(rates, rate_units, i_col)),
+                                     content.pretty_unit(rate_unit) or "?", content.model_title(pick_raw, titles),
+                                     both)
+            block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["transforms"], Figure(
+                _unique(f"inhibition_{figures.slug(g)}", taken), f"{g}: rates by inhibitor level",
+                f"Every panel uses the group's selected fit ({content.model_title(pick_raw, titles)}), fitted to all "
+                "inhibitor levels at once. Colour (pale to dark) and marker tell the levels apart; hollow points "
+                "were not fitted. The double-reciprocal panel shows the fitted curves transformed, for inspection "
+                "only: its lines are not fitted to the transformed points (it replaces the straight-line "
+                "transforms, which would use the uninhibited wells only). Residuals are of that model, for the "
+                "wells it was fitted to.", b"", b"", "groups")))
+            variables = []
         for var in variables:
             col = x_col if var == "substrate" else options.get("inhibitor", var)
             col = col if col in rates else var
@@ -249,16 +315,22 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 f"shaded: the {conf} pointwise confidence band of each curve. Hollow points were not fitted. Below: "
                 "residuals (observed − fitted) of the fitted wells.", b"", b"", "groups")))
         gd = diag[diag["group"].astype(str) == g] if "group" in diag else pd.DataFrame()
+        if len(gd) and lead["kind"] != "cooperativity":  # the Hill plot answers the cooperativity question only
+            gd = gd[gd["plot"].astype(str) != figures.HILL_PLOT]
+        if both is not None:  # the inhibition figure's double-reciprocal panel shows the selected fit on every
+            gd = gd.iloc[0:0]  # well; the stage's transforms of the uninhibited wells alone would say less
         if len(gd):
             x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
                                                     and len(rates) else "")
             make = functools.partial(figures.transforms, g, gd, content.pretty_unit(rate_unit),
                                      content.pretty_unit(x_unit))
             block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["transforms"], Figure(
-                _unique(f"transforms_{figures.slug(g)}", taken), f"{g}: Hill plot and linear transforms",
+                _unique(f"transforms_{figures.slug(g)}", taken),
+                f"{g}: " + ("Hill plot and linear transforms" if lead["kind"] == "cooperativity" else
+                            "linear transforms"),
                 "Each transform's straight line and the estimates it implies are shown for inspection only: "
-                "transforms distort the errors, so the reported parameters come from the nonlinear fit. Hill plot "
-                "points outside 10–90 % of Vmax are hollow and not used for its line.", b"", b"", "groups")))
+                "transforms distort the errors, so the reported parameters come from the nonlinear fit. "
+                + _transform_wells(lead["kind"], pick_raw, titles), b"", b"", "groups")))
         _curve_figures(block, g, tables, comparison, drawing, taken)
         groups.append(block)
     drawing.flush()
@@ -268,7 +340,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
     for f in figs:
         files[f"figures/{f.name}.png"] = f.png
         files[f"figures/{f.name}.svg"] = f.svg
-    flagged = content.flagged_rows(rates) if not rates.empty else []
+    reasons = content.fit_use(rates, options, inp.models)[1] if used is not None else None
+    records = panels.well_records(rates, inp.traces, used, reasons, inp.recipe, content.pretty_unit(rate_unit),
+                                  rate_units)
+    for rec in records:
+        rec["svg"] = panels.sparkline_svg(rec)
+    flagged = panels.flag_groups(records)
     exclusions = content.exclusion_rows(rates, options, inp.recipe, inp.models)
     html = render_html({
         "title": inp.title or f"vzero report: {inp.recipe.get('name', 'run')}",
@@ -280,6 +357,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
         "plate_figures": [f for f in figs if f.section == "plates"],
         "groups": groups,
         "flagged": flagged,
+        "well_panels": records,
+        "calibrations": calibrations,
         "flag_text": content.FLAG_TEXT,
         "exclusions": exclusions,
         "options": options,

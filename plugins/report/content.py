@@ -23,6 +23,22 @@ FLAG_TEXT: dict[str, str] = flags.text_by_name()
 DEFAULT_EXCLUDE = flags.names_of(flags.NOT_FITTED)
 """Flags that keep a well out of the fit when the recipe does not say otherwise (the fit stage's default)."""
 
+SELECTED_COLUMN = "selected_model"
+"""The column of the model-comparison table naming each group's selected model (read only through
+:func:`selected_model`, so that a rename of the column touches one place)."""
+
+
+def selected_model(comparison: pd.DataFrame, group: str) -> str:
+    """The model the fit stage selected for ``group`` ('' when the comparison table does not say)."""
+    if comparison.empty or "group" not in comparison or SELECTED_COLUMN not in comparison:
+        return ""
+    sub = comparison[comparison["group"].astype(str) == group]
+    if not len(sub):
+        return ""
+    value = sub[SELECTED_COLUMN].iloc[0]
+    return "" if value is None or (isinstance(value, float) and math.isnan(value)) else str(value)
+
+
 def model_titles(models: Mapping[str, Any]) -> dict[str, str]:
     """Each known model's name as printed, from the model objects (their ``title``; a model without one,
     or an object without the attribute, keeps its name)."""
@@ -79,6 +95,49 @@ def interval(low: Any, high: Any) -> str:
     if not (_finite(low) and _finite(high)):
         return "—"
     return f"[{num(low)}, {num(high)}]"
+
+
+NOT_DETERMINED = "not determined"
+
+
+def _decimals(stderr: float) -> int:
+    """Decimal places that show a standard error to two significant figures (negative: round to tens...)."""
+    return 1 - math.floor(math.log10(stderr))
+
+
+def _fixed(v: float, decimals: int) -> str:
+    if decimals >= 0:
+        return f"{v:.{decimals}f}"
+    return f"{round(v, decimals):.0f}"
+
+
+def estimate_text(value: Any, stderr: Any, low: Any = None, high: Any = None) -> dict[str, str]:
+    """An estimate, its standard error and its interval rounded together, as a scientist writes them: the
+    standard error to two significant figures and the estimate and both interval ends to the same decimal
+    place (what the error supports). Values far from 1 share one power of ten. Returns ``value`` (``v ± se``),
+    ``interval`` (``[lo, hi]``, '' when either end is missing) and ``estimate`` (``v`` alone); a missing
+    estimate is "not determined"; an estimate without a usable error keeps three significant figures."""
+    if not _finite(value):
+        return {"value": NOT_DETERMINED, "interval": "", "estimate": NOT_DETERMINED}
+    v = float(value)
+    ends = (float(low), float(high)) if _finite(low) and _finite(high) else None
+    if not _finite(stderr) or float(stderr) <= 0:
+        text = num(v, 3)
+        return {"value": text, "estimate": text,
+                "interval": f"[{num(ends[0], 3)}, {num(ends[1], 3)}]" if ends else ""}
+    s = float(stderr)
+    e = math.floor(math.log10(abs(v))) if v else math.floor(math.log10(s))
+    scale, power = 1.0, ""
+    if not -3 <= e < 5:
+        scale, power = 10.0**e, f" × 10{str(e).translate(_SUPERSCRIPT)}"
+    d = max(_decimals(s / scale), -12)
+    est = _fixed(v / scale, d)
+    body = f"{est} ± {_fixed(s / scale, d)}"
+    value_text = f"({body}){power}" if power else body
+    iv = ""
+    if ends:
+        iv = f"[{_fixed(ends[0] / scale, d)}, {_fixed(ends[1] / scale, d)}]" + (power if power else "")
+    return {"value": value_text, "interval": iv, "estimate": est + power}
 
 
 # -- recipe -------------------------------------------------------------------------------------------------
@@ -275,9 +334,10 @@ def parameter_tables(fits: pd.DataFrame, group: str, titles: Mapping[str, str] |
         first = m.iloc[0]
         rows = []
         for _, r in m.iterrows():
+            text = estimate_text(r["estimate"], r["stderr"], r["ci_low"], r["ci_high"])
             rows.append({
-                "parameter": str(r["parameter"]), "estimate": num(r["estimate"]), "stderr": num(r["stderr"], 2),
-                "value": with_error(r["estimate"], r["stderr"]), "interval": interval(r["ci_low"], r["ci_high"]),
+                "parameter": str(r["parameter"]), "estimate": text["estimate"], "stderr": num(r["stderr"], 2),
+                "value": text["value"], "interval": text["interval"] or "—",
                 "method": str(r.get("ci_method", "") or ""), "unit": pretty_unit(str(r.get("unit", "") or "")),
                 "fixed": bool(r.get("fixed", False)), "note": plain_models(str(r.get("note", "") or ""), titles),
             })
@@ -323,6 +383,57 @@ def comparison_rows(comparison: pd.DataFrame, group: str,
     return rows, " ".join(sentences)
 
 
+def group_kind(model: Any) -> str:
+    """The question a group's selected model answers: ``inhibition`` (a model of the inhibitor),
+    ``substrate_inhibition`` (a model with a substrate-inhibition constant Ksi) or ``cooperativity``
+    (everything else, where the cooperativity verdict is the finding)."""
+    if model is None:
+        return "cooperativity"
+    if "inhibitor" in tuple(getattr(model, "variables", ())):
+        return "inhibition"
+    if "Ksi" in tuple(getattr(model, "params", ())):
+        return "substrate_inhibition"
+    return "cooperativity"
+
+
+def group_lead(fits: pd.DataFrame, group: str, selected: str, models: Mapping[str, Any],
+               titles: Mapping[str, str] | None, confidence: float) -> dict[str, Any]:
+    """What a group's first lines say, by the question its selected model answers: for an inhibition group
+    the mechanism the data support and its constants with intervals; for a substrate inhibition group Km,
+    Ksi and the substrate level of the peak rate (S* = √(Km·Ksi), where dv/dS = 0 for the Haldane law); for
+    a cooperativity group nothing here (the verdict leads). Returns ``kind``, ``sentence`` and ``items``
+    (name, value with error, interval, unit)."""
+    model = models.get(selected)
+    kind = group_kind(model)
+    out: dict[str, Any] = {"kind": kind, "sentence": "", "items": []}
+    if not selected or fits.empty or kind == "cooperativity":
+        return out
+    sub = fits[(fits["group"].astype(str) == group) & (fits["model"].astype(str) == selected)]
+    pct = f"{confidence * 100:g} %"
+    est: dict[str, float] = {}
+    for _, r in sub.iterrows():
+        text = estimate_text(r["estimate"], r["stderr"], r["ci_low"], r["ci_high"])
+        est[str(r["parameter"])] = float(r["estimate"]) if _finite(r["estimate"]) else math.nan
+        wanted = (str(r["parameter"]) != getattr(model, "limiting_rate", "") or kind != "inhibition")
+        if wanted:
+            out["items"].append({"name": str(r["parameter"]), "value": text["value"],
+                                 "interval": text["interval"], "unit": pretty_unit(str(r.get("unit", "") or ""))})
+    title = model_title(selected, titles)
+    if kind == "inhibition":
+        mechanism = re.sub(r"\s*\(.*\)$", "", str(getattr(model, "summary", "") or title))
+        out["sentence"] = (f"{group}: of the models fitted, the data support {mechanism} best (model {title}; "
+                           f"its constants with {pct} intervals below).")
+    else:
+        km, ksi = est.get("Km", math.nan), est.get("Ksi", math.nan)
+        unit = next((i["unit"] for i in out["items"] if i["name"] == "Km"), "")
+        peak = math.sqrt(km * ksi) if km > 0 and ksi > 0 else math.nan
+        where = (f"the rate peaks near S* = √(Km·Ksi) = {num(peak, 2)} {unit}".rstrip()
+                 if math.isfinite(peak) else "the substrate level of the peak rate is not determined")
+        out["sentence"] = (f"{group}: substrate inhibition (model {title}); {where}, and falls at higher substrate "
+                           f"(constants with {pct} intervals below).")
+    return out
+
+
 VERDICT_WORDS = {
     "positive": "positive cooperativity (h > 1)",
     "negative": "negative cooperativity (h < 1)",
@@ -331,17 +442,23 @@ VERDICT_WORDS = {
 
 
 def verdict_sentence(row: Mapping[str, Any], confidence: float, titles: Mapping[str, str] | None = None) -> str:
-    """The cooperativity verdict of one group in words, with h, its interval and the basis of the call."""
+    """The cooperativity verdict of one group in words, with h and its interval (stated once, rounded with
+    h) and the basis of the call."""
     verdict = str(row.get("verdict", ""))
     what = VERDICT_WORDS.get(verdict, "cooperativity is not resolved by these data (neither shown nor ruled out)")
-    h = with_error(row.get("h"), row.get("stderr"))
-    ci = interval(row.get("ci_low"), row.get("ci_high"))
+    text = estimate_text(row.get("h"), row.get("stderr"), row.get("ci_low"), row.get("ci_high"))
     method = str(row.get("ci_method", "") or "")
     pct = f"{confidence * 100:g} %"
     model = str(row.get("model", "") or "")  # absent in audit files written before the column existed
     coefficient = f"{model_title(model, titles)} coefficient" if model else "cooperativity coefficient"
-    return (f"{row.get('group', '')}: {what}. {coefficient} h = {h}, {pct} {method} interval {ci}. "
-            f"Basis: {plain_models(str(row.get('reason', '')), titles)}.")
+    iv = f", {pct} {method} interval {text['interval']}".replace("  ", " ") if text["interval"] else ""
+    basis = _without_interval(plain_models(str(row.get("reason", "")), titles))
+    return f"{row.get('group', '')}: {what}. {coefficient} h = {text['value']}{iv}. Basis: {basis}."
+
+
+def _without_interval(reason: str) -> str:
+    """The fit stage's reason with the interval it quotes dropped (the sentence states it once, rounded)."""
+    return re.sub(r"\s*\[[^\]]*\]", "", reason)
 
 
 def plain_models(text: str, titles: Mapping[str, str] | None = None) -> str:
@@ -357,17 +474,21 @@ _SUPERSCRIPT = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
 
 
 def pretty_unit(unit: str) -> str:
-    """A unit as printed: ``uM/min`` -> ``µM/min`` (the text form keeps the ASCII ``u``)."""
-    return re.sub(r"(?<![A-Za-z])u(?=(M|mol|L|l|g|m|s)\b)", "µ", str(unit))
+    """A unit as printed: ``uM/min`` -> ``µM/min`` (the text form keeps the ASCII ``u``), and a quotient of a
+    unit by the unit it is divided by simplified: ``(uM/min)/uM`` -> ``1/min``."""
+    text = str(unit)
+    text = re.sub(r"\((\w+)/(\w+)\)/\1(?![\w/^])", r"1/\2", text)
+    return re.sub(r"(?<![A-Za-z])u(?=(M|mol|L|l|g|m|s)\b)", "µ", text)
 
 
 def summary_counts(rates: pd.DataFrame, used: np.ndarray | None) -> dict[str, Any]:
-    """Wells, samples, flagged wells, wells with a rate, wells used in the fit."""
+    """Wells, sample wells, flagged sample wells, sample wells with a rate, wells used in the fit. Flags count
+    on sample wells only: a blank, standard or empty well is not a well to review."""
     n = len(rates)
-    is_sample = (rates["role"].astype(str) == "sample").to_numpy() if "role" in rates else np.ones(n, bool)
-    flags = rates.get("flags", pd.Series([""] * n, dtype=object, index=rates.index))
-    flagged = sum(1 for f, s in zip(flags, is_sample, strict=True) if s and flag_list(f))  # samples only
-    rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce")
-    samples = int((rates["role"].astype(str) == "sample").sum()) if "role" in rates else n
-    return {"wells": n, "samples": samples, "flagged": flagged, "with_rate": int(np.isfinite(rate).sum()),
-            "used": int(used.sum()) if used is not None else None}
+    sample = (rates["role"].astype(str) == "sample").to_numpy() if "role" in rates else np.ones(n, bool)
+    flags_col = rates["flags"].tolist() if "flags" in rates else [""] * n
+    flagged = sum(1 for f, s in zip(flags_col, sample, strict=True) if s and flag_list(f))
+    rate = pd.to_numeric(rates.get("rate", pd.Series(np.nan, index=rates.index)), errors="coerce").to_numpy(float)
+    return {"wells": n, "samples": int(sample.sum()), "flagged": flagged,
+            "with_rate": int((np.isfinite(rate) & sample).sum()),
+            "other": int(n - sample.sum()), "used": int(used.sum()) if used is not None else None}

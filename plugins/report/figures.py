@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import io
 import re
+import warnings
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -200,8 +201,9 @@ def _plate_axes(ax: Any, n_rows: int, n_cols: int, labels: list[str]) -> None:
 
 
 def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_unit: str) -> Any:
-    """v0 per well in plate geometry: a pale-to-dark ramp, hatched grey for no rate, a heavy ring around
-    flagged wells and a cross on sample wells kept out of the fit."""
+    """v0 per sample well in plate geometry: a pale-to-dark ramp, hatched grey for no rate, a heavy ring
+    around flagged sample wells and a cross on sample wells kept out of the fit. Blanks, standards and other
+    non-sample wells are small pale squares with no flag marks (they are not wells to review)."""
     import matplotlib
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
@@ -209,9 +211,11 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
     wells = rates["well"].astype(str).tolist()
     n_rows, n_cols, r, c, labels = _plate_geometry(wells)
     v = pd.to_numeric(rates["rate"], errors="coerce").to_numpy(float)
-    flagged = np.array([bool(flag_list(f)) for f in rates.get("flags", [""] * len(rates))])
     is_sample = (rates["role"].astype(str) == "sample").to_numpy() if "role" in rates else np.ones(len(v), bool)
+    flagged = np.array([bool(flag_list(f)) for f in rates.get("flags", [""] * len(rates))]) & is_sample
     left_out = (~used & is_sample) if used is not None else np.zeros(len(v), bool)
+    quiet = ~is_sample
+    v = np.where(quiet, np.nan, v)  # the colour ramp is for sample wells only
 
     with matplotlib.rc_context(palette.STYLE):
         cell = 0.5 if n_cols <= 24 else 0.25  # inches per well
@@ -226,10 +230,13 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
             hi = lo + 1.0
         sc = ax.scatter(c[ok], r[ok], c=v[ok], s=size, cmap=palette.rate_cmap(), vmin=lo, vmax=hi,
                         edgecolors=palette.MUTED, linewidths=0.4, zorder=2)
-        ax.scatter(c[~ok], r[~ok], s=size, facecolors=palette.NO_VALUE, edgecolors=palette.MUTED, hatch="/////",
+        none = ~ok & ~quiet
+        ax.scatter(c[none], r[none], s=size, facecolors=palette.NO_VALUE, edgecolors=palette.MUTED, hatch="/////",
                    linewidths=0.4, zorder=2)
-        ax.scatter(c[flagged], r[flagged], s=size * 1.45, facecolors="none", edgecolors=palette.INK,
-                   linewidths=1.6 if n_cols <= 24 else 0.8, zorder=3)
+        ax.scatter(c[quiet], r[quiet], s=size * 0.5, marker="s", facecolors=palette.QUIET_CELL,
+                   edgecolors=palette.QUIET_READS, linewidths=0.4, zorder=2)
+        ax.scatter(c[flagged], r[flagged], s=size * 1.6, facecolors="none", edgecolors=palette.INK,
+                   linewidths=2.2 if n_cols <= 12 else (1.6 if n_cols <= 24 else 1.0), zorder=3)
         ax.scatter(c[left_out], r[left_out], s=size * 0.45, marker="x", color=palette.INK,
                    linewidths=1.3 if n_cols <= 24 else 0.6, zorder=4)
         _plate_axes(ax, n_rows, n_cols, labels)
@@ -238,10 +245,12 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
         bar.set_label(f"v0 ({rate_unit})")
         handles = [
             Patch(facecolor=palette.NO_VALUE, edgecolor=palette.MUTED, hatch="/////", label="no rate"),
-            Line2D([], [], marker="o", ls="", mfc="none", mec=palette.INK, mew=1.6, ms=10, label="flagged"),
+            Line2D([], [], marker="o", ls="", mfc="none", mec=palette.INK, mew=2.0, ms=10, label="flagged sample"),
             Line2D([], [], marker="x", ls="", color=palette.INK, mew=1.3, ms=7, label="sample not fitted"),
+            Line2D([], [], marker="s", ls="", mfc=palette.QUIET_CELL, mec=palette.QUIET_READS, ms=6,
+                   label="blank, standard or other"),
         ]
-        ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.01), ncol=3, fontsize=8)
+        ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.01), ncol=4, fontsize=8)
         col_labels = _lines(1, 9) + PLATE_TICK_PAD
         _title(ax, f"Initial rates, plate {plate}", 10, (col_labels + TITLE_PAD) / PT)
 
@@ -301,6 +310,15 @@ def window_lines(traces: Traces, rates: pd.DataFrame, slope: np.ndarray) -> tupl
     return np.where(bad, np.nan, start), np.where(bad, np.nan, end)
 
 
+def signal_slope(rates: pd.DataFrame, units: Mapping[str, str], signal_unit: str) -> np.ndarray | None:
+    """Each well's rate in signal units per second (what the progress-curve panels draw), or None."""
+    if "signal_rate" in rates:
+        return pd.to_numeric(rates["signal_rate"], errors="coerce").to_numpy(float)
+    if "rate" in rates and units.get("rate", "") in (f"{signal_unit}/s", ""):
+        return pd.to_numeric(rates["rate"], errors="coerce").to_numpy(float)
+    return None
+
+
 def _choose(n: int, priority: np.ndarray, limit: int) -> np.ndarray:
     """Indices of at most ``limit`` wells: every priority well first (up to the limit), then evenly spaced."""
     if n <= limit:
@@ -312,12 +330,32 @@ def _choose(n: int, priority: np.ndarray, limit: int) -> np.ndarray:
     return np.sort(np.concatenate([first, picked]))
 
 
+def _cell_scales(y: np.ndarray, line_ends: tuple[np.ndarray, np.ndarray] | None) -> tuple[np.ndarray, np.ndarray]:
+    """Each well's own signal scale, [n] low and high: its lowest and highest read (and rate-line end), padded
+    by 6 % of the span; a well without a span gets ±0.5 around its value, a well without reads 0 to 1."""
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows: handled below
+        stacks = [y]
+        if line_ends is not None:
+            stacks += [line_ends[0][:, None], line_ends[1][:, None]]
+        both = np.concatenate(stacks, axis=1)
+        lo, hi = np.nanmin(both, axis=1), np.nanmax(both, axis=1)
+    lo = np.where(np.isfinite(lo), lo, 0.0)
+    hi = np.where(np.isfinite(hi), hi, 1.0)
+    span = hi - lo
+    pad = np.where(span > 0, 0.06 * span, 0.5)
+    return lo - pad, hi + pad
+
+
 def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray | None,
                   max_panels: int = MAX_PANELS) -> tuple[Any, str]:
     """Every well's reads as a small multiple in plate geometry, with its rate line over its window.
 
-    All cells share one time axis and one signal axis (stated in the figure), so curves can be compared at
-    a glance. Returns the figure and a note ('' or what was left out).
+    All cells share one time axis; each cell has its own signal scale (from the well's lowest to its
+    highest read), so that a low-substrate well's curve can be judged as well as a fast one (the span of each
+    scale is printed in the cell where cells are large enough). Flagged sample wells get a heavy frame and a
+    tinted cell; blanks, standards and other non-sample wells are drawn quietly (pale, no flag marks).
+    Returns the figure and a note ('' or what was left out).
     """
     import matplotlib
     from matplotlib.collections import LineCollection, PolyCollection
@@ -326,15 +364,19 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
     y = traces.masked_signal().astype(float)
     t = traces.time.astype(float)
     flags = [""] * len(names)
+    roles = np.full(len(names), "sample", dtype=object)
     lines = None
     if rates is not None and len(rates):
         by_well = rates.set_index(rates["well"].astype(str))
         rates = by_well.reindex(names).reset_index(drop=True)
         flags = [";".join(flag_list(f)) for f in rates.get("flags", pd.Series([""] * len(names)))]
+        if "role" in rates:
+            roles = rates["role"].astype(str).replace("nan", "").to_numpy()
         if slope is not None:
             slope = pd.Series(slope, index=by_well.index).reindex(names).to_numpy(float)
             lines = window_lines(traces, rates, slope)
-    flagged = np.array([bool(f) for f in flags])
+    sample = np.array([str(r) == "sample" for r in roles])
+    flagged = np.array([bool(f) for f in flags]) & sample
     pick = _choose(len(names), flagged, max_panels)
     note = ""
     if pick.size < len(names):
@@ -349,10 +391,7 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
         n_rows, n_cols, r_all, c_all, labels = _plate_geometry(names)
         rr, cc = r_all[pick], c_all[pick]
         geometric = True
-    finite = y[pick][np.isfinite(y[pick])]
-    lo, hi = (np.percentile(finite, [0.5, 99.5]) if finite.size else (0.0, 1.0))
-    pad_y = 0.06 * (hi - lo) if hi > lo else 0.5
-    lo, hi = lo - pad_y, hi + pad_y
+    lo, hi = _cell_scales(y[pick], None if lines is None else (lines[0][pick], lines[1][pick]))
     t0, t1 = float(np.nanmin(t)), float(np.nanmax(t))
     span_t = t1 - t0 if t1 > t0 else 1.0
     m = 0.1  # margin inside each cell
@@ -360,8 +399,8 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
     def xpos(tt: np.ndarray, col: np.ndarray) -> np.ndarray:
         return col[:, None] - 0.5 + m + (tt - t0) / span_t * (1 - 2 * m)
 
-    def ypos(yy: np.ndarray, row: np.ndarray) -> np.ndarray:
-        frac = np.clip((yy - lo) / (hi - lo), -0.02, 1.02)
+    def ypos(yy: np.ndarray, row: np.ndarray, k: np.ndarray | slice = slice(None)) -> np.ndarray:
+        frac = np.clip((yy - lo[k, None]) / (hi[k, None] - lo[k, None]), -0.02, 1.02)
         return row[:, None] + 0.5 - m - frac * (1 - 2 * m)
 
     xs = xpos(np.broadcast_to(t, (pick.size, t.size)), cc)
@@ -374,13 +413,24 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
         ax.set_facecolor("white")
         g = 0.47  # half the side of a cell frame
         boxes = [[(c - g, r - g), (c + g, r - g), (c + g, r + g), (c - g, r + g)] for r, c in zip(rr, cc, strict=True)]
-        face = np.where(flagged[pick], "#efe9dc", palette.PAPER)
-        edge = np.where(flagged[pick], palette.INK, "#d9d6cc")
+        quiet = ~sample[pick]
+        face = np.where(flagged[pick], palette.FLAGGED_CELL, np.where(quiet, palette.QUIET_CELL, palette.PAPER))
+        edge = np.where(flagged[pick], palette.INK, np.where(quiet, palette.QUIET_CELL, "#d9d6cc"))
+        heavy = 1.8 if n_cols <= 12 else (1.3 if n_cols <= 24 else 0.8)
         ax.add_collection(PolyCollection(boxes, facecolors=face, edgecolors=edge,
-                                         linewidths=np.where(flagged[pick], 0.9, 0.4),
-                                         linestyles=["--" if f else "-" for f in flagged[pick]], zorder=1))
-        ax.add_collection(LineCollection(list(np.stack([xs, ys], axis=-1)), colors=palette.MUTED,
+                                         linewidths=np.where(flagged[pick], heavy, 0.4), zorder=1))
+        ax.add_collection(LineCollection(list(np.stack([xs, ys], axis=-1)),
+                                         colors=[palette.QUIET_READS if q else palette.MUTED for q in quiet],
                                          linewidths=0.6 if n_cols <= 12 else 0.4, zorder=2, rasterized=dense))
+        if n_cols <= 24:  # the span of each cell's own signal scale, and the role of non-sample wells
+            size = 5.5 if n_cols <= 12 else 3.6
+            for k in range(pick.size):
+                if np.isfinite(hi[k] - lo[k]):
+                    ax.text(cc[k] + 0.45, rr[k] + 0.45, f"Δ{num(hi[k] - lo[k], 2)}", ha="right", va="bottom",
+                            fontsize=size, color=palette.MUTED, zorder=5)
+                if quiet[k]:
+                    ax.text(cc[k] - 0.45, rr[k] + 0.45, str(roles[pick[k]]) or "empty", ha="left", va="bottom",
+                            fontsize=size, color=palette.MUTED, style="italic", zorder=5)
         if n_cols <= 12:  # a dot per read: thousands of marks, a bitmap in the SVG
             ax.scatter(xs.ravel(), ys.ravel(), s=1.0, color=palette.MUTED, linewidths=0, zorder=3,
                        rasterized=True)
@@ -392,13 +442,17 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
             ok = np.isfinite(ya) & np.isfinite(yb) & np.isfinite(ts) & np.isfinite(te)
             if ok.any():
                 px = np.stack([xpos(ts[ok][:, None], cc[ok])[:, 0], xpos(te[ok][:, None], cc[ok])[:, 0]], axis=1)
-                py = np.stack([ypos(ya[ok][:, None], rr[ok])[:, 0], ypos(yb[ok][:, None], rr[ok])[:, 0]], axis=1)
-                ax.add_collection(LineCollection(list(np.stack([px, py], axis=-1)), colors=palette.WINDOW,
+                k_ok = np.flatnonzero(ok)
+                py = np.stack([ypos(ya[ok][:, None], rr[ok], k_ok)[:, 0], ypos(yb[ok][:, None], rr[ok], k_ok)[:, 0]],
+                              axis=1)
+                ax.add_collection(LineCollection(list(np.stack([px, py], axis=-1)),
+                                                 colors=[palette.QUIET_READS if q else palette.WINDOW
+                                                         for q in quiet[ok]],
                                                  linewidths=2.4 if n_cols <= 12 else 1.1, zorder=4))
                 drawn_lines = int(ok.sum())
         if n_cols <= 12:
             for k in np.flatnonzero(flagged[pick]):
-                short = ", ".join(FLAG_SHORT.get(f, f) for f in flags[pick[k]].split(";"))
+                short = ", ".join(FLAG_SHORT.get(f, f) for f in flags[pick[k]].split(";") if f)
                 ax.text(cc[k], rr[k] - 0.5 + 0.07, short, ha="center", va="top", fontsize=6,
                         color=palette.INK, zorder=5)
         if geometric:
@@ -413,14 +467,16 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
                 ax.text(cc[k] - 0.45, rr[k] - 0.45, names[i], fontsize=3, va="top", color=palette.MUTED)
         unit = traces.signal_unit
         ax.set_xlabel(f"within each cell: time {t0:g}–{t1:g} s left to right", fontsize=8)
-        ax.set_ylabel(f"within each cell: signal {lo:.3g} to {hi:.3g} {unit} bottom to top", fontsize=8)
+        ax.set_ylabel(f"within each cell: signal ({unit}) on the well's own scale" + (
+            ", span Δ at bottom right" if n_cols <= 24 else ""), fontsize=8)
         legend = "grey: reads" + ("; orange line: the rate (its slope) over the window it came from"
-                                  if drawn_lines else "") + "; dashed frame: flagged well"
+                                  if drawn_lines else "") + "\nheavy frame, tinted: flagged sample well; pale: " \
+            "not a sample well (blank, standard, ...)"
         col_labels = _lines(1, 9) + PLATE_TICK_PAD if geometric else 0.0
         _title(ax, f"Progress curves, plate {traces.plate}\n{legend}", 9, (col_labels + TITLE_PAD) / PT)
         row_labels = max((_text_width(s, 9) for s in labels), default=0.0) + PLATE_TICK_PAD if geometric else 0.0
         left = EDGE + _lines(1, 8) + LABEL_PAD + row_labels
-        top = EDGE + _lines(2, 9) + TITLE_PAD + col_labels
+        top = EDGE + _lines(3, 9) + TITLE_PAD + col_labels
         bottom = EDGE + _lines(1, 8) + LABEL_PAD
         _place_grid(fig, [[ax]], left=left, right=EDGE + 0.12, top=top, bottom=bottom)
     return fig, note
@@ -460,6 +516,8 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
             distinct = [*np.unique(levels[np.isfinite(levels)]).tolist(), *([np.nan] if np.isnan(levels).any() else [])]
             for j, level in enumerate(distinct):
                 part = cm[np.isnan(levels)] if np.isnan(level) else cm[levels == level]
+                if np.isfinite(x).any():  # drawn over the measured range only (the fit stage's grid runs further)
+                    part = part[part["x"].to_numpy(float) <= 1.04 * float(np.nanmax(x))]
                 cx = part["x"].to_numpy(float)
                 label = model_title(model, titles) + (" (selected)" if model == selected else "")
                 if not np.isnan(level) and part["variable"].iloc[0] != "inhibitor":
@@ -510,6 +568,9 @@ def _fitted(model: str, x: np.ndarray, curve: pd.DataFrame, evaluate: Mapping[st
 
 # -- linear transforms -------------------------------------------------------------------------------------
 
+HILL_PLOT = "hill"
+"""The Hill plot's name in the diagnostics table (shown only for groups whose question is cooperativity)."""
+
 TRANSFORM_TITLES = {
     "hill": "Hill plot",
     "lineweaver-burk": "Lineweaver–Burk",
@@ -522,6 +583,7 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
     """The linear transforms of one group: points (hollow where the transform is unstable) and each
     transform's own straight line, with the estimates that line implies in the panel title."""
     import matplotlib
+    from matplotlib.ticker import MaxNLocator
 
     plots = [p for p in TRANSFORM_TITLES if p in set(diag["plot"].astype(str))]
     plots += [p for p in dict.fromkeys(diag["plot"].astype(str)) if p not in plots]
@@ -555,6 +617,7 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
             words = ", ".join(f"{k} = {num(v, 3)} {unit_of.get(k, '')}".rstrip() for k, v in est.items()
                               if k not in ("slope", "intercept"))
             titles.append(f"{TRANSFORM_TITLES.get(plot, plot)}" + (f"\nline gives {words}" if words else ""))
+            ax.xaxis.set_major_locator(MaxNLocator(4))  # long tick labels (Eadie–Hofstee) must not overlap
             if len(pts):
                 ax.set_xlabel(pretty_unit(str(pts["x_label"].iloc[0])))
                 ax.set_ylabel(pretty_unit(str(pts["y_label"].iloc[0])))
@@ -590,3 +653,87 @@ def _arrange_panels(fig: Any, axes: np.ndarray, titles: list[str]) -> None:
                 top=EDGE + _lines(1, 10) + 4 * PT + row_head[0], bottom=EDGE + x_decor,
                 wgap=max(0.15, overhang[0] + 0.1) + (col_room[1] if cols > 1 else 0.0),
                 hgap=x_decor + 0.12 + max(row_head[1:], default=0.0))
+
+
+# -- inhibition --------------------------------------------------------------------------------------------
+
+
+def inhibition(group: str, points: pd.DataFrame, used: np.ndarray, x_col: str, i_col: str, x_unit: str,
+               i_unit: str, rate_unit: str, model_title_: str, evaluate: Any) -> Any:
+    """One inhibition group read four ways, all from the group's selected model (``evaluate(S, I)`` -> v):
+
+    * rates against substrate coloured by inhibitor level (a sequential palette, pale to dark, with a marker
+      per level so greyscale keeps them apart), one fitted line per level;
+    * the residuals of that model against substrate, for the wells it was fitted to;
+    * the double-reciprocal plot, 1/v against 1/S, one line per level (the model's curve transformed, not a
+      straight-line fit), for inspection only;
+    * rates against inhibitor at each substrate level, with the model's line.
+    """
+    import matplotlib
+    import matplotlib.ticker
+
+    s = pd.to_numeric(points[x_col], errors="coerce").to_numpy(float)
+    i = pd.to_numeric(points[i_col], errors="coerce").to_numpy(float) if i_col in points else np.zeros(len(points))
+    i = np.where(np.isfinite(i), i, 0.0)
+    v = pd.to_numeric(points["rate"], errors="coerce").to_numpy(float)
+    levels = np.unique(i[np.isfinite(v)])
+    colours = palette.levels(len(levels))
+    s_max = float(np.nanmax(s)) if np.isfinite(s).any() else 1.0
+    grid = np.linspace(0.0, s_max * 1.04, 120)
+    with matplotlib.rc_context(palette.STYLE):
+        fig = _new_figure(9.6, 7.4)
+        axes = fig.subplots(2, 2, squeeze=False)
+        a_v, a_res, a_lb, a_i = axes[0, 0], axes[1, 0], axes[0, 1], axes[1, 1]
+        for k, level in enumerate(levels):
+            at = (i == level) & np.isfinite(v) & np.isfinite(s)
+            mk = palette.LEVEL_MARKERS[k % len(palette.LEVEL_MARKERS)]
+            col = colours[k]
+            label = f"{level:g} {i_unit}".rstrip()
+            a_v.plot(s[at & used], v[at & used], mk, ms=5, color=col, mec=palette.INK, mew=0.5, label=label)
+            if (at & ~used).any():
+                a_v.plot(s[at & ~used], v[at & ~used], mk, ms=5, mfc="white", mec=col, mew=1.0)
+            a_v.plot(grid, evaluate(grid, np.full_like(grid, level)), color=col, lw=1.5)
+            fu = at & used
+            if fu.any():
+                a_res.plot(s[fu], v[fu] - evaluate(s[fu], i[fu]), mk, ms=5, color=col, mec=palette.INK, mew=0.5)
+            pos = at & (s > 0) & (v > 0)
+            a_lb.plot(1 / s[pos & used], 1 / v[pos & used], mk, ms=5, color=col, mec=palette.INK, mew=0.5)
+            sg = np.linspace(s[pos].min() if pos.any() else s_max / 20, s_max, 60)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                a_lb.plot(1 / sg, 1 / evaluate(sg, np.full_like(sg, level)), color=col, lw=1.2)
+        s_levels = np.unique(s[np.isfinite(s) & (s > 0)])
+        s_cols = palette.levels(len(s_levels))
+        ig = np.linspace(0.0, float(levels.max()) * 1.04 if levels.size else 1.0, 80)
+        for k, sl in enumerate(s_levels):
+            at = (s == sl) & np.isfinite(v)
+            mk = palette.LEVEL_MARKERS[k % len(palette.LEVEL_MARKERS)]
+            a_i.plot(i[at & used], v[at & used], mk, ms=4.5, color=s_cols[k], mec=palette.INK, mew=0.5,
+                     label=f"{sl:g} {x_unit}".rstrip())
+            a_i.plot(ig, evaluate(np.full_like(ig, sl), ig), color=s_cols[k], lw=1.1)
+        a_res.axhline(0, color=palette.INK, lw=0.7)
+        a_v.set_xlim(left=0)
+        a_v.set_ylim(bottom=min(0.0, float(np.nanmin(v))) if np.isfinite(v).any() else 0.0)
+        a_i.set_xlim(left=0)
+        a_v.set_xlabel(f"{x_col} ({x_unit})" if x_unit else x_col)
+        a_res.set_xlabel(f"{x_col} ({x_unit})" if x_unit else x_col)
+        a_lb.set_xlabel(f"1/{x_col} (1/{x_unit})" if x_unit else f"1/{x_col}")
+        a_i.set_xlabel(f"{i_col} ({i_unit})" if i_unit else i_col)
+        a_v.set_ylabel(f"v0 ({rate_unit})")
+        a_res.set_ylabel(f"residual ({rate_unit})")
+        a_lb.set_ylabel(f"1/v0 (1/({rate_unit}))")
+        a_i.set_ylabel(f"v0 ({rate_unit})")
+        for ax in axes.ravel():
+            ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(5))
+        few = len(levels) <= 10
+        a_v.legend(title=f"{i_col} level", fontsize=7, title_fontsize=7, loc="lower right",
+                   ncol=1 if few else 2, handlelength=1.0)
+        if len(s_levels) <= 10:
+            a_i.legend(title=f"{x_col} level", fontsize=7, title_fontsize=7, loc="best", ncol=2,
+                       handlelength=1.0)
+        w, h = fig.get_size_inches()
+        fig.suptitle(f"{group}: {model_title_}, fitted to every inhibitor level", x=EDGE / w, y=1 - EDGE / h,
+                     ha="left", va="top", fontsize=10)
+        titles = [f"v0 against {x_col}, one line per {i_col} level", "double reciprocal, for inspection only",
+                  f"residuals of {model_title_} (fitted wells)", f"v0 against {i_col} at each {x_col} level"]
+        _arrange_panels(fig, axes, titles)
+    return fig

@@ -27,6 +27,15 @@ NO_VALUE = "#d6d6d6"
 WINDOW = "#c25a1c"
 """The rate line in progress-curve panels: a burnt orange, clearly darker than the grey reads around it."""
 
+FLAGGED_CELL = "#f0dcc0"
+"""Background of a flagged sample well's cell (with a heavy near-black frame, so it does not depend on hue)."""
+
+QUIET_CELL = "#eeeeec"
+"""Background of a cell or well that is not a sample (blank, standard, empty): quiet, no flag marks."""
+
+QUIET_READS = "#b8bcc2"
+"""Reads of wells that are not samples: lighter than sample reads."""
+
 RAMP = ("#fbf5e4", "#f1d48e", "#dc9b4f", "#ad5839", "#603049", "#1e1a34")
 """Sequential map for rates, pale cream to deep ink, lightness falling monotonically."""
 
@@ -52,6 +61,22 @@ SERIES: tuple[Series, ...] = (
 def series(i: int) -> Series:
     """The ``i``-th series style (cycling)."""
     return SERIES[i % len(SERIES)]
+
+
+LEVEL_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "h", "<", ">")
+"""A marker per level of a series of concentrations, so that levels stay apart without colour."""
+
+
+def levels(n: int) -> list[str]:
+    """``n`` colours for ordered levels (inhibitor or substrate concentrations), lightest for the lowest:
+    evenly spaced along :data:`RAMP` from its second stop (the first is too pale to see on paper), so that
+    their order survives greyscale."""
+    from matplotlib.colors import to_hex
+
+    cmap = rate_cmap()
+    if n <= 1:
+        return [to_hex(cmap(0.65))]
+    return [to_hex(cmap(0.22 + 0.78 * k / (n - 1))) for k in range(n)]
 
 
 def rate_cmap() -> Any:

@@ -9,30 +9,49 @@ sha256), ``warnings`` and ``failed_plates``.
 from __future__ import annotations
 
 import json
+import re
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
+from vzero.audit.codec import to_json
 from vzero.data import Table, Traces
 from vzero.plugins.report.build import ReportInput
 from vzero.registry import Registry
 from vzero.stage import StageInput
 
-VERSION_DISTS = ("numpy", "scipy", "pandas", "h5py", "matplotlib", "jinja2", "pluggy", "pint")
+REPORT_DISTS = ("matplotlib", "jinja2")
+"""The libraries that draw and write the report (the run's own libraries are those its audit file names)."""
 
 
-def software_versions() -> dict[str, str]:
-    """Python and the main libraries, as installed now."""
-    import platform
+def software_versions(run_versions: Mapping[str, str] | None = None) -> dict[str, str]:
+    """The run's software (the versions its audit file records: :func:`vzero.audit.writer._package_versions`
+    for a running pipeline) and the report's drawing libraries as installed now, sorted by name, so that the
+    report of a run and the one ``vzero report`` rebuilds from its audit file list the same."""
     from importlib import metadata
 
-    out = {"python": platform.python_version()}
-    for dist in VERSION_DISTS:
+    out = dict(run_versions or {})
+    if run_versions is None:
+        from vzero.audit.writer import _package_versions
+
+        out = dict(_package_versions())
+    for dist in REPORT_DISTS:
         try:
             out[dist] = metadata.version(dist)
         except metadata.PackageNotFoundError:
             out[dist] = "not installed"
-    return out
+    return dict(sorted(out.items(), key=lambda kv: kv[0].lower()))
+
+
+def _seconds_of(kind: str, seconds: Any) -> str:
+    """A step's time as printed; the report step's own time is not known while it runs, so it is left out
+    in every report (the audit file keeps it)."""
+    return "" if kind == "report" else f"{float(seconds or 0.0):.3f}"
+
+
+def _second_precision(stamp: str) -> str:
+    """An ISO time stamp to the second (the audit file stores the run's start so)."""
+    return re.sub(r"\.\d+(?=[+-]\d\d:\d\d$|Z$|$)", "", stamp)
 
 
 def _steps_from_recipe(recipe: Mapping[str, Any], registry: Any) -> list[dict[str, Any]]:
@@ -53,9 +72,26 @@ def _steps_from_recipe(recipe: Mapping[str, Any], registry: Any) -> list[dict[st
                 plugin = ""
         params = {k: v for k, v in body.items() if k != "method"}
         steps.append({"label": f"{i:02d}-{kind}-{method}", "kind": kind, "method": method, "plugin": plugin,
-                      "version": version, "seconds": "", "parameters": json.dumps(params, default=str,
-                                                                                  ensure_ascii=False)})
+                      "version": version, "seconds": "", "parameters": to_json(params)})
     return steps
+
+
+def _steps_of_run(done: list[Mapping[str, Any]], planned: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The step rows of a running pipeline, in the form :func:`from_audit` reads them from the audit file
+    (``plugin (distribution)``, parameters as written, in JSON): the steps done so far with their timings,
+    then the recipe's steps still to come (this report among them) without."""
+    rows = []
+    for st in done:
+        label = str(st["label"])
+        parts = label.split("-", 2)
+        rows.append({"label": label, "kind": parts[1] if len(parts) > 1 else "",
+                     "method": parts[2] if len(parts) > 2 else "",
+                     "plugin": f"{st.get('plugin', '')} ({st.get('distribution', '')})",
+                     "version": str(st.get("version", "")),
+                     "seconds": _seconds_of(parts[1] if len(parts) > 1 else "", st.get("seconds", 0.0)),
+                     "parameters": str(st.get("parameters", ""))})
+    labels = {r["label"] for r in rows}
+    return rows + [p for p in planned if p["label"] not in labels] if rows else planned
 
 
 def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
@@ -75,15 +111,11 @@ def from_stage(data: StageInput, settings: Mapping[str, Any]) -> ReportInput:
     run = data.run or {}
     inputs = [{"name": str(i["name"]), "plates": ", ".join(i.get("plates", [])), "size": i.get("size", ""),
                "sha256": str(i["sha256"])} for i in run.get("inputs", [])]
-    steps = [{"label": st["label"], "kind": st["label"].split("-")[1] if "-" in st["label"] else "",
-              "method": st["label"].split("-", 2)[2] if st["label"].count("-") >= 2 else "",
-              "plugin": st.get("plugin", ""), "version": st.get("version", ""),
-              "seconds": f"{float(st.get('seconds', 0.0)):.3f}", "parameters": ""}
-             for st in run.get("steps", [])] or _steps_from_recipe(recipe, data.registry)
+    steps = _steps_of_run(run.get("steps", []), _steps_from_recipe(recipe, data.registry))
     provenance = {
         "source": "this run (run.h5 beside this report holds the raw inputs and every step)",
         "recipe_name": str(recipe.get("name", "")), "recipe_sha256": str(run.get("recipe_sha256", "")),
-        "recipe_text": str(run.get("recipe_text", "")), "created": str(run.get("started", "")),
+        "recipe_text": str(run.get("recipe_text", "")), "created": _second_precision(str(run.get("started", ""))),
         "run_id": str(run.get("run_id", "")), "vzero_version": __version__, "versions": software_versions(),
         "steps": steps, "inputs": inputs, "warnings": list(run.get("warnings", [])),
         "failed_plates": dict(run.get("failed", {})),
@@ -110,7 +142,7 @@ def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
                           "method": str(g.attrs.get("method", "")),
                           "plugin": f"{g.attrs.get('plugin', '')} ({g.attrs.get('distribution', '')})",
                           "version": str(g.attrs.get("version", "")),
-                          "seconds": f"{float(g.attrs.get('seconds', 0.0)):.3f}",
+                          "seconds": _seconds_of(str(g.attrs.get("kind", "")), g.attrs.get("seconds", 0.0)),
                           "parameters": str(g.attrs.get("parameters", ""))})
         inputs = [{"name": str(ds.attrs.get("name", "")), "plates": ", ".join(json.loads(ds.attrs.get("plates", "[]"))),
                    "size": int(ds.attrs.get("size", 0)), "sha256": str(ds.attrs.get("sha256", ""))}
@@ -120,7 +152,8 @@ def from_audit(path: str | Path, max_panels: int = 384) -> ReportInput:
             "source": f"the audit file {Path(path).name}", "recipe_name": str(a.get("recipe_name", "")),
             "recipe_sha256": str(a.get("recipe_sha256", "")), "recipe_text": text,
             "created": str(a.get("created", "")), "run_id": str(a.get("run_id", "")),
-            "vzero_version": str(a.get("vzero_version", "")), "versions": json.loads(a.get("versions", "{}")),
+            "vzero_version": str(a.get("vzero_version", "")),
+            "versions": software_versions(json.loads(a.get("versions", "{}"))),
             "steps": steps, "inputs": inputs, "warnings": json.loads(a.get("warnings", "[]")),
             "failed_plates": json.loads(a.get("failed_plates", "{}")),
         }

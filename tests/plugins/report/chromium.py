@@ -52,6 +52,7 @@ class PageCheck:
     height: int
     external: list[str] = field(default_factory=list)
     screenshot: bytes = b""
+    result: Any = None
 
 
 def find_browser() -> str | None:
@@ -121,9 +122,12 @@ def _high(fd: int) -> int:
     return new
 
 
-def check_page(html: Path, browser: str, width: int = 1280, height: int = 1800, timeout: float = 60.0) -> PageCheck:
+def check_page(html: Path, browser: str, width: int = 1280, height: int = 1800, timeout: float = 60.0,
+               script: str = "") -> PageCheck:
     """Load ``html`` (a file) in headless ``browser``; return what it saw and a PNG screenshot of the top
-    ``width`` x ``height`` CSS pixels."""
+    ``width`` x ``height`` CSS pixels. ``script``, when given, is a JavaScript expression run after the
+    page has loaded (a promise is awaited) before the screenshot, as a reader's clicks and keys would; its
+    value (JSON-serialisable) is in :attr:`PageCheck.result` and the screenshot shows the view it leaves."""
     cmd_r, cmd_w = (_high(fd) for fd in os.pipe())
     out_r, out_w = (_high(fd) for fd in os.pipe())
     profile = tempfile.mkdtemp(prefix="vzero-chromium-")
@@ -151,6 +155,13 @@ def check_page(html: Path, browser: str, width: int = 1280, height: int = 1800, 
         result = pipe.send("Runtime.evaluate", {"expression": IMAGE_CHECK, "returnByValue": True,
                                                 "awaitPromise": False}, session=session)
         seen = json.loads(result["result"]["value"])
+        value: Any = None
+        if script:
+            done = pipe.send("Runtime.evaluate", {"expression": script, "returnByValue": True, "awaitPromise": True},
+                             session=session, timeout=timeout)
+            if "exceptionDetails" in done:
+                raise RuntimeError(f"the page script failed: {done['exceptionDetails']}")
+            value = done.get("result", {}).get("value")
         shot = pipe.send("Page.captureScreenshot", {"format": "png"}, session=session, timeout=timeout)
         errors = []
         for ev in pipe.events:
@@ -175,4 +186,4 @@ def check_page(html: Path, browser: str, width: int = 1280, height: int = 1800, 
             proc.wait()
         shutil.rmtree(profile, ignore_errors=True)
     return PageCheck(seen["total"], seen["loaded"], seen["broken"], errors, seen["title"], int(seen["height"]),
-                     seen["external"], base64.b64decode(shot["data"]))
+                     seen["external"], base64.b64decode(shot["data"]), value)

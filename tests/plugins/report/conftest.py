@@ -134,3 +134,25 @@ def finished_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
     layout.write_text(re.sub(r",g[A-G]$", ",g", layout.read_text("utf-8"), flags=re.M), "utf-8")
     recipe.write_text(recipe.read_text("utf-8") + "  - report: {method: html}\n", "utf-8")
     return run(recipe, folder / "run").out_dir
+
+
+COOKBOOK = Path(__file__).parents[3] / "configs" / "cookbook"
+
+
+def cookbook_run(name: str, folder: Path, report: bool = True) -> Path:
+    """Run the cookbook recipe ``name`` on its invented data (tests/cookbook_data.py) in ``folder``; with
+    ``report``, rebuild its report into ``<run>/report/`` with ``vzero report``. Returns the run folder."""
+    import shutil
+
+    from vzero.cli.main import main
+    from vzero.run.runner import run
+
+    from tests.cookbook_data import WRITERS
+
+    (folder / "in").mkdir(parents=True)
+    WRITERS[f"{name}.yaml"](folder / "in")
+    shutil.copy(COOKBOOK / f"{name}.yaml", folder / "in" / "recipe.yaml")
+    out = run(folder / "in" / "recipe.yaml", folder / "run").out_dir
+    if report:
+        assert main(["report", str(out / "run.h5"), "--out", str(out / "report")]) == 0
+    return out

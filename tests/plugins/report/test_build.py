@@ -51,7 +51,7 @@ def test_report_says_what_a_reader_must_know(built):
     assert "p-1 C5 (whole well): bubble seen by eye" in text
     assert ("C5 " + GROUP + " flag excluded: excluded in the recipe (excluded: bubble seen by eye)") in text
     # parameters with units, errors and intervals (Km = 100 ± 2 µM, profile interval [96, 104])
-    assert "100.0 ± 2.0" in text and "[96.00, 104.0]" in text and "µM" in text
+    assert "100.0 ± 2.0" in text and "[96.0, 104.0]" in text and "µM" in text  # rounded together
     assert "Selected model: Michaelis–Menten (lowest AICc (only model fitted))." in text
     # blanks are not fitted, and the report says so
     assert "24 wells with role “blank” are not fitted" in text
@@ -80,6 +80,7 @@ def test_template_autoescape_is_on():
         "vzero_version": "0", "recipe_name": "", "source": "", "versions": {}, "steps": [], "inputs": [],
         "warnings": [], "failed_plates": {}, "recipe_sha256": "", "created": "", "run_id": "", "recipe_text": ""},
         "research_note": "", "counts": None, "plates": [], "plate_figures": [], "groups": [], "flagged": [],
+        "well_panels": [], "calibrations": [],
         "flag_text": {}, "exclusions": {"wells": [], "roles": [], "recipe": []},
         "options": {"present": False, "confidence": 0.95, "exclude_flags": []}, "rate_unit": "", "missing": [],
         "notes": [], "built": ""})

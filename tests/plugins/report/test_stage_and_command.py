@@ -38,3 +38,19 @@ def test_command_rebuilds_the_report_from_the_audit_file(finished_run: Path, tmp
 def test_command_names_a_missing_audit_file(tmp_path: Path, capsys):
     assert main(["report", str(tmp_path / "nope.h5")]) == 2
     assert "nope.h5" in capsys.readouterr().err
+
+
+def test_the_run_and_the_command_write_the_same_report(finished_run: Path, tmp_path: Path):
+    """Everything but the line saying when and from what the report was made is the same, byte for byte,
+    figures included: the parameters as written, the step plugins, the software, the run's start."""
+    import re
+
+    out = tmp_path / "same"
+    assert main(["report", str(finished_run / "run.h5"), "--out", str(out)]) == 0
+    made = re.compile(r"<dt>report made</dt><dd>[^<]*</dd>")
+    during = (finished_run / "report.html").read_text("utf-8")
+    after = (out / "report.html").read_text("utf-8")
+    assert len(made.findall(during)) == 1 and len(made.findall(after)) == 1
+    assert made.sub("", during) == made.sub("", after)
+    # the parameters as written, during the run too
+    assert "<code>{&#34;end&#34;: &#34;300 s&#34;, &#34;start&#34;: &#34;0 s&#34;}</code>" in during

@@ -1,0 +1,112 @@
+"""``vzero review``: the page a scientist uses to decide about flagged wells, driven in headless Chromium.
+
+The browser test clicks and types through three wells as a person would (exclude with a reason of their
+own, keep, exclude with the suggested reason), saves the decisions, pastes the fragment into the recipe,
+reruns, and checks that exactly the two excluded wells are out, with their reasons, and that the keep
+decision is recorded in the stored recipe. Data: the invented inhibitor-matrix cookbook plate.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import h5py
+import pandas as pd
+import pytest
+import yaml
+from vzero.cli.main import main
+
+from .chromium import check_page, find_browser
+from .conftest import COOKBOOK, cookbook_run
+
+BROWSER = find_browser()
+
+
+@pytest.fixture(scope="module")
+def matrix_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    return cookbook_run("inhibitor-matrix", tmp_path_factory.mktemp("review"), report=False)
+
+
+def _page(matrix_run: Path) -> Path:
+    page = matrix_run / "review.html"
+    if not page.exists():
+        assert main(["review", str(matrix_run / "run.h5"), "--out", str(page)]) == 0
+    return page
+
+
+def test_review_page_lists_flagged_sample_wells_only_and_stands_alone(matrix_run: Path):
+    page = _page(matrix_run).read_text("utf-8")
+    rates = pd.read_csv(matrix_run / "rates.csv")
+    flagged = rates[(rates["role"] == "sample") & rates["flags"].fillna("").astype(str).ne("")]
+    blanks_flagged = rates[(rates["role"] != "sample") & rates["flags"].fillna("").astype(str).ne("")]
+    assert len(blanks_flagged) > 0  # the plate's blanks carry flags too, and must not be offered for review
+    data = json.loads(page.split('<script type="application/json" id="data">')[1].split("</script>")[0])
+    assert [w["well"] for w in data["wells"]] == flagged["well"].tolist()
+    assert not re.search(r'(src|href)="(https?:)?//', page) and "<link" not in page  # works offline
+    assert main(["review", str(matrix_run / "run.h5"), "--out", str(matrix_run / "review.html")]) != 0  # no clobber
+
+
+def test_data_cannot_end_the_script_element():
+    from vzero.plugins.report.review import render
+
+    out = render({"run": "r", "recipe": "x", "source": "", "existing": [], "wells": [{
+        "id": "well-p-a1", "plate": "p", "well": "A1", "group": "</script><script>alert(1)</script>",
+        "conc": {}, "flags": ["noisy"], "short": ["noisy"], "words": ["w"], "measured": [], "blank": "",
+        "fit": "", "rate": 1.0, "rate_text": "1", "note": "", "signal_unit": "AU", "line": None,
+        "svg": "<svg></svg>"}]})
+    assert "<script>alert(1)" not in out
+
+
+@pytest.mark.browser
+@pytest.mark.skipif(BROWSER is None, reason="no Chromium on PATH: install the Debian package chromium")
+def test_three_decisions_in_the_browser_become_exclusions_after_rerun(matrix_run: Path, tmp_path: Path):
+    from vzero.run.rerun import rerun
+
+    assert BROWSER is not None
+    page = _page(matrix_run)
+    # a reader's session: click the first well in the list, exclude it with a typed reason; step on with the
+    # keyboard and keep the second; step on with the button and exclude the third with the suggested reason
+    script = """(async () => {
+      const key = k => document.dispatchEvent(new KeyboardEvent('keydown', {key: k, bubbles: true}));
+      const pause = () => new Promise(r => setTimeout(r, 20));
+      document.querySelectorAll('button.pick')[0].click(); await pause();
+      const reason = document.getElementById('reason');
+      reason.value = 'bubble seen in the well'; reason.dispatchEvent(new Event('input'));
+      document.getElementById('exclude').click(); await pause();
+      key('ArrowRight'); await pause(); key('k'); await pause();
+      document.getElementById('next').click(); await pause(); key('x'); await pause();
+      document.getElementById('save').click(); await pause();
+      const link = document.getElementById('download');
+      return {fragment: document.getElementById('fragment').value, blob: link.href.startsWith('blob:'),
+              hidden: link.hidden, marks: Array.from(document.querySelectorAll('button.pick'))
+                .slice(0, 3).map(b => b.className)};
+    })()"""
+    seen = check_page(page, BROWSER, width=1280, height=900, script=script)
+    assert seen.errors == []
+    out = seen.result
+    assert out["blob"] and not out["hidden"]  # offered as a download
+    assert "exclude" in out["marks"][0] and "keep" in out["marks"][1] and "exclude" in out["marks"][2]
+    (tmp_path / "review-shot.png").write_bytes(seen.screenshot)
+    fragment = yaml.safe_load(out["fragment"])
+    wells = [w["well"] for w in json.loads(page.read_text("utf-8").split('id="data">')[1].split("</script>")[0])
+             ["wells"][:3]]
+    assert fragment["exclusions"] == [
+        {"plate": "vz11-plate", "well": wells[0], "reason": "bubble seen in the well"},
+        {"plate": "vz11-plate", "well": wells[2], "reason": "excluded on review: noisy"},
+    ]
+    assert f"#   vz11-plate {wells[1]}: kept on review: noisy" in out["fragment"]
+
+    # the fragment included in the recipe (its exclusions block, plus the comments that record the keep)
+    recipe = (COOKBOOK / "inhibitor-matrix.yaml").read_text("utf-8") + "\n" + out["fragment"]
+    (tmp_path / "recipe.yaml").write_text(recipe, "utf-8")
+    result = rerun(matrix_run / "run.h5", tmp_path / "again", recipe=tmp_path / "recipe.yaml")
+    assert result.exit_code == 0
+    rates = pd.read_csv(tmp_path / "again" / "rates.csv").set_index("well")
+    for well, why in ((wells[0], "bubble seen in the well"), (wells[2], "excluded on review: noisy")):
+        assert "excluded" in str(rates.loc[well, "flags"]) and why in str(rates.loc[well, "note"])
+        assert pd.isna(rates.loc[well, "rate"])
+    assert "excluded" not in str(rates.loc[wells[1], "flags"])
+    with h5py.File(tmp_path / "again" / "run.h5") as f:  # the audit keeps the recipe, keep decision included
+        assert f"{wells[1]}: kept on review" in str(f.attrs["recipe_text"])
