@@ -34,6 +34,7 @@ SETTINGS = {
     ("convert", "beer-lambert"): {"epsilon": "6220 M^-1 cm^-1", "pathlength": "0.55 cm"},
     ("convert", "standard-curve"): {},
     ("fit", "nls"): {"profile": False},
+    ("fit", "curves"): {"profile": False, "models": ["michaelis-menten"]},
     ("report", "html"): {"max_panels": 24},
 }
 
