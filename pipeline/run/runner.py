@@ -368,7 +368,20 @@ def _map_plates(
             raws = read(plate)
             yield raws if isinstance(raws, PlateOutcome) else PlateTask(rec.text, rec.path, plate, raws, run_id)
 
-    yield from ordered(executor, run_plate_task, tasks(), window=2 * executor.workers)
+    chunk = plates_per_task(len(rec.plates), executor.workers)
+    yield from ordered(executor, run_plate_task, tasks(), window=2 * executor.workers * chunk, chunk=chunk)
+
+
+#: At most this many plates go to a worker in one task. Each task costs the driver a round trip through the
+#: executor (the task and its result sent, queued and woken up for), which is most of its work per plate
+#: after the audit file; a few plates per task divide that, while the last tasks of a batch stay short.
+MAX_PLATES_PER_TASK = 8
+
+
+def plates_per_task(n_plates: int, workers: int) -> int:
+    """How many plates to send a worker at once: up to :data:`MAX_PLATES_PER_TASK`, and few enough that
+    every worker gets at least eight tasks (so the batch still ends with all workers busy)."""
+    return max(1, min(MAX_PLATES_PER_TASK, n_plates // (8 * max(1, workers))))
 
 
 def _reraise(outcome: PlateOutcome) -> BaseException:
