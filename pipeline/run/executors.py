@@ -88,9 +88,11 @@ def run_plate_task(task: PlateTask) -> Any:
 
 def _pack(outcome: Any) -> None:
     """Write the plate's step outputs into an in-memory HDF5 part here, in the worker, and keep only the
-    tables: encoding the arrays is most of the audit file's cost, and this way it runs in parallel."""
+    tables, as plain column arrays (:mod:`vzero.run.packed`): encoding the arrays is most of the audit file's
+    cost, and this way it runs in parallel."""
     from vzero.audit.writer import write_part
     from vzero.data import Table
+    from vzero.run.packed import pack
 
     final = outcome.artifacts.get("traces")
     for record in outcome.records:
@@ -99,7 +101,7 @@ def _pack(outcome: Any) -> None:
     outcome.part, outcome.part_digests = write_part(outcome.records)
     for record in outcome.records:
         record.outputs = {}
-    outcome.artifacts = {k: v for k, v in outcome.artifacts.items() if isinstance(v, Table)}
+    outcome.artifacts = {k: pack(v) for k, v in outcome.artifacts.items() if isinstance(v, Table)}
 
 
 @functools.lru_cache(maxsize=4)

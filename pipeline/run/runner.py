@@ -6,6 +6,7 @@ Use :func:`run` from Python (it returns the tables as DataFrames) or ``vzero run
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import os
 import shutil
@@ -57,6 +58,11 @@ class DiskInputs:
     used: int = 0
     outside: dict[str, int] = field(default_factory=dict)
 
+    @functools.cached_property
+    def _root(self) -> Path:
+        """The recipe's folder, resolved once (a batch reads two files a plate)."""
+        return self.base.resolve()
+
     def exists(self, rel: str) -> bool:
         return (self.base / rel).is_file()
 
@@ -75,7 +81,7 @@ class DiskInputs:
             raise InputFileError(f"cannot read the file: {exc.strerror}", path=rel) from None
         self.used += len(data)
         resolved = path.resolve()
-        if not resolved.is_relative_to(self.base.resolve()):
+        if not resolved.is_relative_to(self._root):
             self.outside[str(resolved)] = len(data)
         return data
 
@@ -402,12 +408,24 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
     """Stack each plate's tables and keep traces per plate. Every row names its plate as the recipe does: a
     table without a ``plate`` column gets one first; one whose ``plate`` column says otherwise (a plugin that
     named its traces differently) is given the recipe's name."""
+    from vzero.run.packed import PackedTable, stack
+
     pooled: dict[str, Any] = {}
-    names = {k for o in outcomes for k, v in o.artifacts.items() if isinstance(v, Table)}
+    names = {k for o in outcomes for k, v in o.artifacts.items() if isinstance(v, Table | PackedTable)}
     for name in sorted(names):
+        found = [(o.plate, o.artifacts.get(name)) for o in outcomes]
+        packed = [t for _, t in found if isinstance(t, PackedTable)]
+        if len(packed) == len(found) and "plate" in packed[0].names \
+                and all(bool((t.column("plate") == plate).all()) for plate, t in found):  # type: ignore[union-attr]
+            stacked = stack(packed)  # a worker's tables, already naming the recipe's plates: stacked at once
+            if stacked is not None:
+                pooled[name] = stacked
+                continue
         tables = []
         for o in outcomes:
             t = o.artifacts.get(name)
+            if isinstance(t, PackedTable):
+                t = t.unpack()
             if isinstance(t, Table):
                 frame = t.frame
                 if "plate" in frame.columns and bool((frame["plate"].astype(str) == o.plate).all()):
