@@ -12,11 +12,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.optimize import brentq
+from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.auto import auto
 from vzero.plugins.rates.lagdecay import lag_decay
 from vzero.plugins.rates.polynomial import polynomial
 from vzero.plugins.rates.progress import integrated_mm, progress_curve
-from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.window import window_slopes
 
 T = np.arange(60) * 10.0
