@@ -215,7 +215,7 @@ def test_lowest_aicc_wins_without_a_nesting_relation() -> None:
 ])
 def test_cooperativity_verdict_boundaries(ci: tuple[float, float], p: float, verdict: str) -> None:
     hill = _stub(1.0, 20, 3)
-    got, reason = compare.cooperativity(hill, (*ci, "profile"), p, alpha=0.05)
+    got, reason = compare.cooperativity(hill, (*ci, "profile"), p, alpha=0.05, names=("Hill", "Michaelis–Menten", "h"))
     assert got == verdict, reason
     assert compare.EQUIVALENCE == (0.8, 1.25)
 
