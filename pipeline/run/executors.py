@@ -4,7 +4,8 @@ The plugin manager cannot be pickled (plugins are modules), so a worker receives
 :class:`PlateTask` (the recipe's text and path, the plate's entry and its raw input bytes), rebuilds the
 plugins from the recipe once per process and runs the plate-scoped steps there. Outcomes come back to the
 driver, which alone writes the audit file. The same function runs the plate whatever the executor, so the
-numbers are the same to the bit.
+numbers are the same to the bit. A long batch sends a worker several plates per task (:func:`ordered`), so
+that the driver's traffic with the executor is paid once for the lot.
 
 * :class:`PoolExecutor`: ``--jobs N``, a :class:`concurrent.futures.ProcessPoolExecutor` of N processes.
 * :class:`DaskExecutor`: ``--scheduler ADDRESS`` (``tcp://host:8786``) on a running Dask distributed
