@@ -1,14 +1,13 @@
 """A plate's tables on their way from a worker to the driver: plain column arrays, stacked once.
 
 A worker returns each plate's tables (the rates the pooled steps stack) to the process that writes the audit
-file. Sent as DataFrames, every plate costs that process a DataFrame rebuilt from its pickle (about half a
-millisecond for a 96-well rates table, the largest single cost of receiving a plate after the audit file
-itself), and the stacking at the end builds them all once more. :class:`PackedTable` carries the columns
-as plain numpy arrays instead (text as object arrays), and :func:`stack` concatenates the arrays of every
-plate and builds one DataFrame for the batch. The stacked table equals what :meth:`vzero.data.Table.concat`
-gives on the unpacked tables (tests/pipeline/test_packed.py); tables that do not fit the simple case (an
-index other than 0..n-1, repeated or non-text column names, other dtypes, differing columns or units
-between plates) travel and stack as before.
+file. Sent as DataFrames, every plate costs that process a DataFrame rebuilt from its pickle (most of the
+cost of receiving a plate, bench/COSTS.md), and the stacking at the end builds them all once more.
+:class:`PackedTable` carries the columns as plain numpy arrays instead (text as object arrays), and
+:func:`stack` concatenates the arrays of every plate and builds one DataFrame for the batch. The stacked
+table equals what :meth:`vzero.data.Table.concat` gives on the unpacked tables (tests/pipeline/test_packed.py);
+tables that do not fit the simple case (an index other than 0..n-1, repeated or non-text column names, other
+dtypes, differing columns or units between plates) travel and stack as before.
 """
 
 from __future__ import annotations
