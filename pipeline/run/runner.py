@@ -6,6 +6,7 @@ Use :func:`run` from Python (it returns the tables as DataFrames) or ``vzero run
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import os
 import shutil
@@ -58,6 +59,11 @@ class DiskInputs:
     used: int = 0
     outside: dict[str, int] = field(default_factory=dict)
 
+    @functools.cached_property
+    def _root(self) -> Path:
+        """The recipe's folder, resolved once (a batch reads two files a plate)."""
+        return self.base.resolve()
+
     def exists(self, rel: str) -> bool:
         return (self.base / rel).is_file()
 
@@ -76,7 +82,7 @@ class DiskInputs:
             raise InputFileError(f"cannot read the file: {exc.strerror}", path=rel) from None
         self.used += len(data)
         resolved = path.resolve()
-        if not resolved.is_relative_to(self.base.resolve()):
+        if not resolved.is_relative_to(self._root):
             self.outside[str(resolved)] = len(data)
         return data
 
@@ -101,8 +107,9 @@ class RunResult:
     """Time this process spent formatting and writing the CSV exports (for the benchmarks)."""
     cpu: dict[str, float] = field(default_factory=dict)
     """Processor time in seconds (for the benchmarks): ``map`` this process (the driver) while plates ran,
-    ``run`` this process over the whole run, ``plates`` the worker processes on their plates (0 without
-    workers)."""
+    ``imports`` the part of ``map`` spent importing, in a thread, modules the pooled steps need later (a
+    one-off; 0 if not finished by the map's end), ``run`` this process over the whole run, ``plates`` the
+    worker processes on their plates (0 without workers)."""
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -214,10 +221,11 @@ def run(
     start_workers = getattr(executor, "start", None)
     if start_workers is not None:
         start_workers(rec.text, rec.path)
+    warm: dict[str, float] = {}
     if executor is not None and later_steps:
         import threading
 
-        threading.Thread(target=_warm_imports, daemon=True).start()
+        threading.Thread(target=_warm_imports, args=(warm,), daemon=True).start()
     from vzero.audit.writer import AuditWriter
 
     tmp = _temporary_folder(out_dir)
@@ -235,7 +243,8 @@ def run(
         outcomes = store.outcomes
         outside = dict(getattr(source, "outside", {}))
         warnings.extend(f"read a file outside the recipe's folder: {p} ({n} bytes)" for p, n in outside.items())
-        cpu = {"map": time.process_time() - cpu_start, "plates": sum(o.cpu_seconds for o in outcomes)}
+        cpu = {"map": time.process_time() - cpu_start, "plates": sum(o.cpu_seconds for o in outcomes),
+               "imports": warm.get("cpu", 0.0)}
         failed = {o.plate: o.error for o in outcomes if o.error}
         ok = [o for o in outcomes if not o.error]
         for o in outcomes:
@@ -373,7 +382,20 @@ def _map_plates(
             raws = read(plate)
             yield raws if isinstance(raws, PlateOutcome) else PlateTask(rec.text, rec.path, plate, raws, run_id)
 
-    yield from ordered(executor, run_plate_task, tasks(), window=2 * executor.workers)
+    chunk = plates_per_task(len(rec.plates), executor.workers)
+    yield from ordered(executor, run_plate_task, tasks(), window=2 * executor.workers * chunk, chunk=chunk)
+
+
+#: At most this many plates go to a worker in one task. Each task costs the driver a round trip through the
+#: executor (the task and its result sent, queued and woken up for), which is most of its work per plate
+#: after the audit file; a few plates per task divide that, while the last tasks of a batch stay short.
+MAX_PLATES_PER_TASK = 8
+
+
+def plates_per_task(n_plates: int, workers: int) -> int:
+    """How many plates to send a worker at once: up to :data:`MAX_PLATES_PER_TASK`, and few enough that
+    every worker gets at least eight tasks (so the batch still ends with all workers busy)."""
+    return max(1, min(MAX_PLATES_PER_TASK, n_plates // (8 * max(1, workers))))
 
 
 def _reraise(outcome: PlateOutcome) -> BaseException:
@@ -394,12 +416,24 @@ def _pool(outcomes: list[PlateOutcome], traces: Mapping[str, Traces]) -> dict[st
     """Stack each plate's tables and keep traces per plate. Every row names its plate as the recipe does: a
     table without a ``plate`` column gets one first; one whose ``plate`` column says otherwise (a plugin that
     named its traces differently) is given the recipe's name."""
+    from vzero.run.packed import PackedTable, stack
+
     pooled: dict[str, Any] = {}
-    names = {k for o in outcomes for k, v in o.artifacts.items() if isinstance(v, Table)}
+    names = {k for o in outcomes for k, v in o.artifacts.items() if isinstance(v, Table | PackedTable)}
     for name in sorted(names):
+        found = [(o.plate, o.artifacts.get(name)) for o in outcomes]
+        packed = [t for _, t in found if isinstance(t, PackedTable)]
+        if len(packed) == len(found) and "plate" in packed[0].names \
+                and all(bool((t.column("plate") == plate).all()) for plate, t in found):  # type: ignore[union-attr]
+            stacked = stack(packed)  # a worker's tables, already naming the recipe's plates: stacked at once
+            if stacked is not None:
+                pooled[name] = stacked
+                continue
         tables = []
         for o in outcomes:
             t = o.artifacts.get(name)
+            if isinstance(t, PackedTable):
+                t = t.unpack()
             if isinstance(t, Table):
                 frame = t.frame
                 if "plate" in frame.columns and bool((frame["plate"].astype(str) == o.plate).all()):
@@ -492,14 +526,19 @@ def _temporary_folder(out_dir: Path) -> Path:
 WARM_IMPORTS = ("scipy.special",)
 
 
-def _warm_imports() -> None:
+def _warm_imports(done: dict[str, float]) -> None:
+    """Import :data:`WARM_IMPORTS`; record in ``done["cpu"]`` the processor time it took (a one-off cost of
+    the pooled steps, paid while plates run: the benchmarks report it apart from the driver's work per
+    plate)."""
     import importlib
 
+    t0 = time.thread_time()
     for name in WARM_IMPORTS:
         try:
             importlib.import_module(name)
         except ImportError:  # pragma: no cover - then the step that needs it says so
             pass
+    done["cpu"] = time.thread_time() - t0
 
 
 def _swap_into_place(tmp: Path, out_dir: Path, force: bool) -> None:

@@ -53,7 +53,8 @@ class PlateOutcome:
     """One plate's result from the plate-scoped steps. A worker process sends the step outputs back already
     written as an in-memory HDF5 file (``part``, with the digest of each step's group in ``part_digests``;
     ``part_traces`` names the step whose traces are final)
-    and keeps in ``artifacts`` only the tables the pooled steps stack."""
+    and keeps in ``artifacts`` only the tables the pooled steps stack, as plain column arrays where it can
+    (:class:`vzero.run.packed.PackedTable`)."""
 
     plate: str
     artifacts: dict[str, Any] = field(default_factory=dict)

@@ -33,6 +33,22 @@ def test_process_pool_matches_serial_to_the_bit(tmp_path: Path):
     _same_run(serial, pooled)
 
 
+def test_process_pool_with_plates_in_chunks_matches_serial(tmp_path: Path, monkeypatch: pytest.MonkeyPatch):
+    """Several plates per worker task (a failed plate among them), tables sent back as column arrays: the
+    same tables, audit file and CSV bytes as a serial run, and the run.h5 verifies."""
+    from vzero.audit.verify import verify
+    from vzero.run import runner
+
+    monkeypatch.setattr(runner, "plates_per_task", lambda n_plates, workers: 2)
+    recipe = demo_batch(tmp_path / "in", 5, broken=(1,))
+    serial = run(recipe, tmp_path / "serial")
+    pooled = run(recipe, tmp_path / "pool", jobs=2)
+    assert list(pooled.failed) == ["plate-01"]
+    _same_run(serial, pooled)
+    _same_csv_bytes(serial.out_dir, pooled.out_dir)
+    assert verify(pooled.audit_path).ok
+
+
 @pytest.mark.slow
 def test_dask_local_cluster_of_two_processes_matches_serial(tmp_path: Path):
     pytest.importorskip("distributed")
@@ -77,7 +93,8 @@ def test_dask_run_of_two_worker_processes_writes_the_serial_csv_bytes(tmp_path: 
 
 
 class CountingExecutor:
-    """Threads standing in for workers; records the most tasks ever in flight."""
+    """Threads standing in for workers; records the most plates ever in flight (a list of tasks is a chunk
+    of plates) and how many times something was submitted."""
 
     name = "counting"
 
@@ -87,19 +104,22 @@ class CountingExecutor:
         self._lock = threading.Lock()
         self.in_flight = 0
         self.most = 0
+        self.submitted = 0
 
     def submit(self, fn: Any, task: Any) -> Future:
+        n = len(task) if isinstance(task, list) else 1
         with self._lock:
-            self.in_flight += 1
+            self.in_flight += n
             self.most = max(self.most, self.in_flight)
-        return self._pool.submit(self._run, fn, task)
+            self.submitted += 1
+        return self._pool.submit(self._run, fn, task, n)
 
-    def _run(self, fn: Any, task: Any) -> Any:
+    def _run(self, fn: Any, task: Any, n: int) -> Any:
         try:
             return fn(task)
         finally:
             with self._lock:
-                self.in_flight -= 1
+                self.in_flight -= n
 
     def close(self) -> None:
         self._pool.shutdown()
@@ -125,6 +145,41 @@ def test_ordered_keeps_order_and_bounds_plates_in_flight():
     executor.close()
     assert out == [str(i) if i % 7 else f"failed-{i}" for i in range(40)]
     assert executor.most <= 4
+
+
+def test_ordered_in_chunks_keeps_order_and_bounds_plates_in_flight():
+    executor = CountingExecutor(2)
+    drawn: list[int] = []
+    calls: list[int] = []
+
+    def items():
+        for i in range(45):
+            drawn.append(i)
+            yield PlateTask("", "", None, {}, str(i)) if i % 11 else f"failed-{i}"  # type: ignore[arg-type]
+
+    def echo(task: PlateTask) -> str:
+        calls.append(int(task.run_id))
+        threading.Event().wait(0.001 * (int(task.run_id) % 3))
+        return task.run_id
+
+    out = []
+    for result in ordered(executor, echo, items(), window=8, chunk=3):
+        out.append(result)
+        assert len(drawn) - len(out) <= 8  # never more plates read ahead than the window
+    executor.close()
+    assert out == [str(i) if i % 11 else f"failed-{i}" for i in range(45)]
+    assert sorted(calls) == [i for i in range(45) if i % 11]
+    assert executor.most <= 8
+    assert executor.submitted < len(calls)  # plates went in groups
+
+
+def test_plates_per_task_leaves_every_worker_enough_tasks():
+    from vzero.run.runner import MAX_PLATES_PER_TASK, plates_per_task
+
+    assert plates_per_task(1, 2) == 1
+    assert plates_per_task(40, 2) == 2  # 20 tasks: at least 8 for each worker
+    assert plates_per_task(200, 2) == MAX_PLATES_PER_TASK
+    assert plates_per_task(200, 16) == 1
 
 
 def test_batch_through_the_executor_interface_in_threads(tmp_path: Path):
