@@ -518,6 +518,8 @@ def rates_vs_x(group: str, points: pd.DataFrame, used: np.ndarray, curves: pd.Da
                 part = cm[np.isnan(levels)] if np.isnan(level) else cm[levels == level]
                 if np.isfinite(x).any():  # drawn over the measured range only (the fit stage's grid runs further)
                     part = part[part["x"].to_numpy(float) <= 1.04 * float(np.nanmax(x))]
+                if part.empty:  # a curve that lies wholly beyond the measured range
+                    continue
                 cx = part["x"].to_numpy(float)
                 label = model_title(model, titles) + (" (selected)" if model == selected else "")
                 if not np.isnan(level) and part["variable"].iloc[0] != "inhibitor":
