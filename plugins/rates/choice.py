@@ -27,13 +27,15 @@ significantly different from zero).
 
 from __future__ import annotations
 
+from dataclasses import fields
+
 import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.auto import _inv3_sym
 from vzero.plugins.rates.lagdecay import detect_lag, lag_decay
 from vzero.plugins.rates.lagfit import lag_clock_fit
-from vzero.plugins.rates.noise import conversion_scale, flag_noisy, screen
+from vzero.plugins.rates.noise import Screen, conversion_scale, flag_noisy, screen
 from vzero.plugins.rates.progress import progress_curve
 from vzero.plugins.rates.spikes import find_spikes
 
@@ -128,9 +130,10 @@ def model_choice(
     spikes = find_spikes(t, y, sc0.sigma)
     y[spikes] = np.nan
     known = s0 is not None and signal_per_conc is not None
-    mm = progress_curve(t, y, s0=s0, signal_per_conc=signal_per_conc, min_points=min_points, fail_ratio=np.inf)
     n_w = y.shape[0]
-    sc = screen(y, min_points=min_points, time=t)
+    sc = screen(y, min_points=min_points, time=t) if spikes.any() else sc0  # the same reads: the same screen
+    mm = progress_curve(t, y, s0=s0, signal_per_conc=signal_per_conc, min_points=min_points, fail_ratio=np.inf,
+                        screened=sc)
     sigma = sc.sigma
     r_mm = mm.extra["rmse_over_noise"]
     v0, se = mm.v0.copy(), mm.stderr.copy()
@@ -142,7 +145,8 @@ def model_choice(
     if known and rows.size:
         s0_rows = np.broadcast_to(np.asarray(s0, float), (n_w,))[rows]
         pw = progress_curve(t, y[rows], s0=s0_rows, signal_per_conc=signal_per_conc, min_points=min_points,
-                            fail_ratio=np.inf, model="power")
+                            fail_ratio=np.inf, model="power",
+                            screened=Screen(*(np.asarray(getattr(sc, f.name))[rows] for f in fields(sc))))
         r_pw = pw.extra["rmse_over_noise"]
         with np.errstate(invalid="ignore"):
             win = np.isfinite(pw.v0) & (~np.isfinite(r_mm[rows]) | (r_pw < r_mm[rows] - tie))
