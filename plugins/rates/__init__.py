@@ -81,7 +81,10 @@ def own_calibration(plate: PlateView, signal: Any, settings: dict[str, Any]) -> 
     direction = "decrease" if curve.slope < 0 else "increase"
     plate.record["standard_curve_points"] = Table(cal.points, {"concentration": cal.conc_unit,
                                                                "signal": plate.signal_unit})
-    plate.record["standard_curve"] = Table(cal.summary)
+    units_of = {"slope": f"{plate.signal_unit}/{cal.conc_unit}", "intercept": plate.signal_unit, "r_squared": ""}
+    summary = cal.summary.copy()
+    summary.insert(2, "unit", [units_of.get(q, cal.conc_unit) for q in summary["quantity"]])
+    plate.record["standard_curve"] = plate.outputs["standard_curve"] = Table(summary)  # standard_curve.csv
     return {**settings, "signal_per_conc": per, "direction": direction}
 
 
