@@ -34,10 +34,10 @@ from dataclasses import fields
 import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
-from vzero.plugins.rates.auto import _inv3_sym
 from vzero.plugins.rates.lagdecay import detect_lag, lag_decay
 from vzero.plugins.rates.lagfit import lag_clock_fit
 from vzero.plugins.rates.noise import Screen, conversion_scale, flag_noisy, screen
+from vzero.plugins.rates.polynomial import inv3_hankel
 from vzero.plugins.rates.progress import progress_curve
 from vzero.plugins.rates.spikes import find_spikes
 
@@ -95,7 +95,7 @@ def early_quadratic(
     pw = u[:, None] ** np.arange(5)[None, :]
     m = w @ pw
     xy = (w * yz) @ pw[:, :3]
-    inv = _inv3_sym(m)
+    inv = inv3_hankel(m)
     coef = np.einsum("npq,nq->np", inv, xy)
     n_in = w.sum(axis=1)
     with np.errstate(invalid="ignore"):

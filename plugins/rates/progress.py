@@ -24,6 +24,7 @@ from vzero.plugins.kinetics import lsq
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import Screen, blank_result, check_inputs, finish, flag_noisy, screen
+from vzero.plugins.rates.polynomial import inv3_hankel
 
 
 @dataclass(frozen=True)
@@ -412,12 +413,10 @@ def start_quadratic(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
     the shared scaled time, in [0, 1]), from the moment sums (two matrix products and a closed-form 3x3
     inverse): start values, where :func:`vzero.plugins.rates.polynomial.masked_polyfit`'s centring and
     residuals are not needed. NaN for wells with fewer than four reads."""
-    from vzero.plugins.rates.auto import _inv3_sym  # here: auto imports lagdecay, which imports this module
-
     pw = u[:, None] ** np.arange(5)[None, :]
     m = w @ pw
     xy = (w * np.where(w > 0, y, 0.0)) @ pw[:, :3]
-    coef = np.einsum("npq,nq->np", _inv3_sym(m), xy)
+    coef = np.einsum("npq,nq->np", inv3_hankel(m), xy)
     coef[w.sum(axis=1) < 4] = np.nan
     return coef
 
