@@ -16,12 +16,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates import noise
 from vzero.plugins.rates.auto import auto
 from vzero.plugins.rates.lagdecay import lag_decay
 from vzero.plugins.rates.polynomial import polynomial
 from vzero.plugins.rates.progress import progress_curve
-from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.window import window_slopes
 
 T = np.arange(60) * 10.0  # 60 reads every 10 s
