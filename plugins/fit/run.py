@@ -430,7 +430,13 @@ def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray,
         if by_recipe:
             parts.append(f"{len(by_recipe)} excluded by the recipe ({', '.join(by_recipe[:12])}"
                          f"{', ...' if len(by_recipe) > 12 else ''})")
-        others = len(out) - len(by_recipe)
+        unmodelled = [w for w, i in zip(where, out, strict=True)
+                      if "unmodelled" in flags[i].split(";") and "excluded" not in flags[i].split(";")]
+        if unmodelled:
+            parts.append(f"{len(unmodelled)} with a lag or decay the rate method does not model "
+                         f"({', '.join(unmodelled[:12])}{', ...' if len(unmodelled) > 12 else ''}; "
+                         "use the model-choice or lag-decay rates method to analyse them)")
+        others = len(out) - len(by_recipe) - len(unmodelled)
         if others:
             parts.append(f"{others} flagged or without a rate (see rates.csv)")
         notes[str(g)] = "wells left out: " + "; ".join(parts)

@@ -29,6 +29,7 @@ class Flag(enum.IntFlag):
     EXCLUDED = 1 << 10  # excluded by the recipe (with a reason recorded)
     OVERRIDDEN = 1 << 11  # window fixed by the recipe (with a reason recorded)
     SPIKE = 1 << 12  # a single-read outlier found by a robust test; that read is masked, the rest is used
+    UNMODELLED = 1 << 13  # a lag (or decay) the rate method does not model: left out of fits by default
 
 
 FLAG_NAMES: dict[str, Flag] = {f.name.lower(): f for f in Flag if f.name and f is not Flag.NONE}
@@ -41,7 +42,8 @@ NAMES: tuple[str, ...] = tuple(FLAG_NAMES)
 FAILURE = Flag.FIT_FAILED | Flag.ALL_MISSING | Flag.TOO_FEW_POINTS
 
 #: Flags that keep a well out of the fit unless the recipe's ``fit.exclude_flags`` says otherwise.
-NOT_FITTED = Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS | Flag.FIT_FAILED | Flag.EXCLUDED
+NOT_FITTED = (Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS | Flag.FIT_FAILED | Flag.EXCLUDED
+              | Flag.UNMODELLED)
 
 #: Each flag in words (as the report prints it) and as a short label (beside a well in a figure).
 DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
@@ -59,6 +61,8 @@ DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
     Flag.EXCLUDED: ("excluded in the recipe", "excl"),
     Flag.OVERRIDDEN: ("window fixed by hand in the recipe", "fixed"),
     Flag.SPIKE: ("a single-read outlier, masked; the rate uses the other reads", "spike"),
+    Flag.UNMODELLED: ("a lag or decay that the rate method does not model: its rate is not the initial rate, "
+                      "so the well is left out of fits by default", "unmod"),
 }
 
 

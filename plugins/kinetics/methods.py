@@ -38,8 +38,10 @@ class PlateView:
     """What a kernel may know about the plate besides its reads: the plate name, the well table (one row per
     signal row; columns ``well``, ``role`` and the layout's, such as ``substrate``), the units of those
     columns, the unit of the signal, and ``warn`` to record a run warning. A kernel that fits something the
-    audit file should keep (the plate's own standard curve, say) puts it in ``record`` (name -> table or
-    array), which the framework stores with the step."""
+    audit file should keep puts it in ``record`` (name -> table or array), which the framework stores with the
+    step; a table the run's output folder should hold as well (the plate's own standard curve, say) goes in
+    ``outputs`` (name -> Table): it joins the step's artifacts, so it is stored with the step, stacked over
+    the plates and written as ``<name>.csv`` beside rates.csv."""
 
     name: str
     wells: Any
@@ -47,6 +49,7 @@ class PlateView:
     signal_unit: str
     warn: Callable[[str], None]
     record: dict[str, Any] = dataclasses.field(default_factory=dict)
+    outputs: dict[str, Any] = dataclasses.field(default_factory=dict)
 
 
 def _traces(data: StageInput, kind: str) -> Any:
@@ -169,7 +172,8 @@ class RateMethod(Stage):
                              + "; ".join(problems))
         table = rates_table(traces, result, self.method)
         table = apply_overrides(traces, table, data.recipe.get("overrides") or [])
-        return StageOutput(artifacts={"rates": table}, failed=failed_wells(table.frame), record=dict(plate.record))
+        return StageOutput(artifacts={**plate.outputs, "rates": table}, failed=failed_wells(table.frame),
+                           record=dict(plate.record))
 
 
 @dataclass(frozen=True)

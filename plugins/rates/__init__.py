@@ -81,7 +81,10 @@ def own_calibration(plate: PlateView, signal: Any, settings: dict[str, Any]) -> 
     direction = "decrease" if curve.slope < 0 else "increase"
     plate.record["standard_curve_points"] = Table(cal.points, {"concentration": cal.conc_unit,
                                                                "signal": plate.signal_unit})
-    plate.record["standard_curve"] = Table(cal.summary)
+    units_of = {"slope": f"{plate.signal_unit}/{cal.conc_unit}", "intercept": plate.signal_unit, "r_squared": ""}
+    summary = cal.summary.copy()
+    summary.insert(2, "unit", [units_of.get(q, cal.conc_unit) for q in summary["quantity"]])
+    plate.record["standard_curve"] = plate.outputs["standard_curve"] = Table(summary)  # standard_curve.csv
     return {**settings, "signal_per_conc": per, "direction": direction}
 
 
@@ -100,7 +103,17 @@ class KernelRates(RateMethod):
         module, name = self.function.split(":")
         func = getattr(importlib.import_module(module), name)
         kwargs = {k: self._value(k) for k in self.kernel_params}
-        return func(time, signal, s0=s0, signal_per_conc=per, **kwargs)
+        result = func(time, signal, s0=s0, signal_per_conc=per, **kwargs)
+        from vzero.plugins.rates.lagdecay import mark_lags
+
+        if self.finds_lags():
+            return result
+        return mark_lags(time, signal, result, modelled=False, min_points=int(self.settings.get("min_points", 8)))
+
+    def finds_lags(self) -> bool:
+        """Whether the kernel looks for lags itself and models the wells that have one (then it sets LAG; else
+        :func:`vzero.plugins.rates.lagdecay.mark_lags` flags them LAG and UNMODELLED after the kernel)."""
+        return False
 
     def _value(self, key: str) -> Any:
         v = self.settings[key]
@@ -129,6 +142,10 @@ class AutoRates(KernelRates):
                                  "straight line where curvature is not significant (smaller scatter on noisy wells)"),
     }
 
+    def finds_lags(self) -> bool:
+        """The window starts after a detected lag (LAG) unless ``find_lag`` is off."""
+        return bool(self.settings["find_lag"])
+
 
 class ModelChoiceRates(KernelRates):
     """Per well, the rate model the well's own reads support: the integrated Michaelis–Menten or power-law
@@ -152,6 +169,10 @@ class ModelChoiceRates(KernelRates):
                                    "quadratic is fitted", low=0.01, high=1.0),
         "find_lag": Param("bool", True, "use the lag/decay model on wells with a detected lag"),
     }
+
+    def finds_lags(self) -> bool:
+        """Wells with a detected lag get the lag model (LAG) unless ``find_lag`` is off."""
+        return bool(self.settings["find_lag"])
 
 
 class PolynomialRates(KernelRates):
@@ -212,6 +233,10 @@ class LagDecayRates(KernelRates):
         "fail_ratio": Param("float", 3.0, "residual RMS over read noise above which the fit is refused", low=1.0),
     }
 
+    def finds_lags(self) -> bool:
+        """The rate is taken after any detected lag (LAG): always."""
+        return True
+
 
 class WindowRates(RateMethod):
     """Least-squares slope over a fixed time window given in the recipe, with its standard error and R².
@@ -234,7 +259,9 @@ class WindowRates(RateMethod):
         start, end = self.settings["start"].m_as("s"), self.settings["end"].m_as("s")
         if end <= start:
             raise StageError(f"rates window ends ({end} s) before it starts ({start} s); fix start and end")
-        return window_slopes(time, signal, start, end)
+        from vzero.plugins.rates.lagdecay import mark_lags
+
+        return mark_lags(time, signal, window_slopes(time, signal, start, end), modelled=False)
 
 
 @hookimpl

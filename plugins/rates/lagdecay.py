@@ -17,6 +17,8 @@ bound. Without them decay and depletion cannot be told apart from one curve and 
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
@@ -129,6 +131,29 @@ def detect_lag(
         lag = tbar[rows, jmax] - (ybar[rows, jmax] - base) / slope[rows, jmax]
     lag_s = np.where(has, lag, lag_s)
     return start, lag_s, has
+
+
+def mark_lags(time: np.ndarray, signal: np.ndarray, result: RateResult, *, modelled: bool,
+              min_points: int = 8) -> RateResult:
+    """The lag check every built-in rates method applies to its result: LAG where :func:`detect_lag` finds a
+    lag (whether or not the method looked for one), and UNMODELLED as well where the method does not model
+    it (``modelled`` False: its rate is then an average over the lag and the steady state, not the initial
+    rate; the fit stage leaves such wells out by default and says so in fits.csv). Returns a new result;
+    ``lag_s`` is filled where the method left it empty."""
+    t = np.asarray(time, dtype=float)
+    y = np.array(signal, dtype=float, ndmin=2)
+    sc = screen(y, min_points=min_points, time=t)
+    _, lag, has = detect_lag(t, y, sc)
+    if not has.any():
+        return result
+    flags = np.asarray(result.flags, dtype=np.int64).copy()
+    flags[has] |= int(Flag.LAG)
+    if not modelled:
+        flags[has] |= int(Flag.UNMODELLED)
+    lag_s = np.asarray(result.lag_s, dtype=float).copy()
+    fill = has & ~(lag_s > 0)
+    lag_s[fill] = lag[fill]
+    return dataclasses.replace(result, flags=flags, lag_s=lag_s)
 
 
 def _selwyn(params: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

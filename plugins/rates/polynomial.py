@@ -16,6 +16,26 @@ from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import blank_result, check_inputs, conversion_scale, finish, flag_noisy, screen
 
 
+def inv3_hankel(m: np.ndarray) -> np.ndarray:
+    """Inverse of the symmetric Hankel matrices ``[[m0, m1, m2], [m1, m2, m3], [m2, m3, m4]]`` by cofactors.
+
+    ``m`` is ``[..., 5]``; returns ``[..., 3, 3]`` (NaN/inf where singular). Closed-form cofactors avoid the
+    per-matrix overhead of ``numpy.linalg.inv`` on many 3x3 systems.
+    """
+    m0, m1, m2, m3, m4 = np.moveaxis(m, -1, 0)
+    cof = np.empty((*m.shape[:-1], 3, 3))
+    cof[..., 0, 0] = m2 * m4 - m3 * m3
+    cof[..., 0, 1] = cof[..., 1, 0] = m2 * m3 - m1 * m4
+    cof[..., 0, 2] = cof[..., 2, 0] = m1 * m3 - m2 * m2
+    cof[..., 1, 1] = m0 * m4 - m2 * m2
+    cof[..., 1, 2] = cof[..., 2, 1] = m1 * m2 - m0 * m3
+    cof[..., 2, 2] = m0 * m2 - m1 * m1
+    with np.errstate(all="ignore"):
+        det = m0 * cof[..., 0, 0] + m1 * cof[..., 0, 1] + m2 * cof[..., 0, 2]
+        cof /= det[..., None, None]
+    return cof
+
+
 @dataclass(frozen=True)
 class PolyFit:
     """Batched polynomial fit in scaled time; arrays over wells.

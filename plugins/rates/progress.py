@@ -15,6 +15,7 @@ The fit is the shared batched Levenberg–Marquardt solver (:mod:`vzero.plugins.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -22,8 +23,8 @@ from vzero.errors import StageError
 from vzero.plugins.kinetics import lsq
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
-from vzero.plugins.rates.noise import blank_result, check_inputs, finish, flag_noisy, screen
-from vzero.plugins.rates.polynomial import masked_polyfit
+from vzero.plugins.rates.noise import Screen, blank_result, check_inputs, finish, flag_noisy, screen
+from vzero.plugins.rates.polynomial import inv3_hankel
 
 
 @dataclass(frozen=True)
@@ -53,6 +54,7 @@ def fit_wells(
     lower: np.ndarray | None = None,
     upper: np.ndarray | None = None,
     max_iter: int = 60,
+    lam0: float = 1e-3,
 ) -> LMFit:
     """Fit one curve per well with the shared batched solver (:func:`vzero.plugins.kinetics.lsq.solve`: its
     bound handling and convergence rules) and :data:`WELL_TOLERANCES`.
@@ -60,9 +62,10 @@ def fit_wells(
     ``fun(params[m, p], rows[m]) -> (model [m, t], jacobian [m, p, t])`` evaluates the wells ``rows``;
     ``y`` ``[n, t]`` (NaN allowed where ``w == 0``); ``w`` 0/1 weights. A well whose damping grew without a
     step lowering its cost (stalled) sits at a stationary point: it counts as converged here, and the
-    caller judges the fit by its residuals against the read noise.
+    caller judges the fit by its residuals against the read noise. ``lam0``: the initial damping (small for
+    a start next to the solution).
     """
-    sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, **WELL_TOLERANCES)
+    sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, lam0=lam0, **WELL_TOLERANCES)
     y0 = np.where(w > 0, y, 0.0)
     nw = np.fmax(w.sum(axis=1), 1.0)
     mean = (y0 * w).sum(axis=1) / nw
@@ -173,6 +176,81 @@ def _mm_curve(
 Model = lsq.Model
 
 
+def _times(t: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """The time grid of the wells ``rows``: ``t [n]`` shared by every well (``[1, n]``), or ``t [wells, n]``
+    one grid per well (block means, :func:`block_means`)."""
+    return t[None, :] if t.ndim == 1 else t[rows]
+
+
+COARSE_BLOCKS = 40
+"""Blocks of consecutive reads the whole-curve fits iterate on (:func:`fit_coarse_to_fine`); curves with
+fewer than twice as many reads are fitted read by read."""
+
+
+def block_means(
+    t: np.ndarray, y: np.ndarray, w: np.ndarray, k: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Means of each well's counted reads (``w`` 0/1) in blocks of ``k`` consecutive reads.
+
+    Returns block times ``[wells, blocks]`` (the mean time of the reads counted in each block, so a missing
+    read moves the block's time rather than biasing its value), block means and their least-squares
+    weights ``sqrt(reads counted)`` (the mean of m reads has 1/m of the read variance; 0 for an empty
+    block). A smooth curve's mean over a block equals its value at the block's mean time up to the curvature
+    times the spread of the times, ``f'' var(t)/2``, which is tiny for a few reads.
+    """
+    n_w, n_t = y.shape
+    n_b = -(-n_t // k)
+    pad = n_b * k - n_t
+    tp = np.pad(t, (0, pad), mode="edge")
+    wp = np.pad(w, ((0, 0), (0, pad))).reshape(n_w, n_b, k)
+    yp = np.pad(np.where(w > 0, y, 0.0), ((0, 0), (0, pad))).reshape(n_w, n_b, k)
+    cnt = wp.sum(axis=2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tb = np.where(cnt > 0, (wp * tp.reshape(n_b, k)).sum(axis=2) / cnt, tp.reshape(n_b, k).mean(axis=1))
+        yb = np.where(cnt > 0, (wp * yp).sum(axis=2) / cnt, 0.0)
+    return tb, yb, np.sqrt(cnt)
+
+
+def fit_coarse_to_fine(
+    make: Callable[[np.ndarray], Model],
+    t: np.ndarray,
+    p0: np.ndarray,
+    y: np.ndarray,
+    w: np.ndarray,
+    *,
+    lower: np.ndarray,
+    upper: np.ndarray,
+    max_iter: int,
+    refit: Callable[[Model, LMFit, np.ndarray, np.ndarray], LMFit] | None = None,
+) -> LMFit:
+    """:func:`fit_wells` of the model ``make(t)`` iterated on block means of about :data:`COARSE_BLOCKS`
+    blocks, then judged read by read.
+
+    The iterations (four to six model evaluations) run on the block means of ``k = n_reads //
+    COARSE_BLOCKS`` reads each, a k-th of the work; from the block fit's parameters one Gauss–Newton step
+    is taken on every read (two evaluations), and the residual sum of squares, the covariance and the total
+    sum of squares are those of every read, so that the residual RMS, the lack-of-fit decisions and the
+    standard errors mean what they meant read by read. The block fit lies next to the read-by-read optimum
+    (the block means follow the same smooth curve), so one step reaches it: within a twentieth of v0's
+    standard error of scipy's least_squares in tests/plugins/rates/test_progress_optimum.py. Two whole
+    evaluations and the block iterations cost about half of the read-by-read fit's five or six evaluations
+    (bench/rates_bench.py). ``refit(model, fit, y, w)``: a second pass on the block means (plateau restarts).
+    """
+    k = t.size // COARSE_BLOCKS
+    if k < 2:
+        fit = fit_wells(make(t), p0, y, w, lower=lower, upper=upper, max_iter=max_iter)
+        return refit(make(t), fit, y, w) if refit else fit
+    tb, yb, wb = block_means(t, y, w, k)
+    coarse_model = make(tb)
+    fit = fit_wells(coarse_model, p0, yb, wb, lower=lower, upper=upper, max_iter=max_iter)
+    if refit:
+        fit = refit(coarse_model, fit, yb, wb)
+    # one nearly undamped (Gauss-Newton) step read by read from there, kept where it lowers the cost
+    fine = fit_wells(make(t), fit.params, y, w, lower=lower, upper=upper, max_iter=1, lam0=1e-9)
+    return LMFit(fine.params, fine.rss, fine.tss, fine.cov_unit, fit.converged & np.isfinite(fine.rss),
+                 fit.n_iter + 1)
+
+
 def _concentration_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
     """``baseline + spc * P(t)`` for the wells' known ``s0`` (``[n, 1]``), as a :func:`fit_wells` model.
 
@@ -186,15 +264,14 @@ def _concentration_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
     loses digits when u is small; ``ln(S/S0)`` from S itself, which stays finite when a curve has run to
     completion).
     """
-    tt = t[None, :]
-
     def model(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        tt = _times(t, rows)
         u = p[:, 2:3]
         stay = 1.0 - u
         sub = s0[rows]
         prod, q, vt, left = _mm_terms_with_s(tt, sub, sub * u / stay, np.exp(p[:, 1:2]) / stay)
         q *= spc
-        jac = np.empty((rows.size, 3, t.size))
+        jac = np.empty((rows.size, 3, t.shape[-1]))
         jac[:, 0] = 1.0
         np.multiply(vt, q, out=jac[:, 1])
         col = np.divide(left, sub, out=jac[:, 2])
@@ -223,15 +300,14 @@ def _signal_model(t: np.ndarray, d: np.ndarray) -> Model:
     the columns are 1, ``d Vmax t q``, ``-d (A - q (A + Km + Vmax t - P))`` and
     ``-d (r A - q (r (A + Km) + 2 r Vmax t - (1 + r) P))``. ``d`` is the direction (+1 or -1) per well.
     """
-    tt = t[None, :]
-
     def model(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        tt = _times(t, rows)
         dd = d[rows, None]
         r = 1.0 / (1.0 + np.exp(-p[:, 3:4]))
         a = (1.0 - r) / np.exp(p[:, 2:3])
         km = a * (1.0 - r) / r
         prod, q, vt = _mm_terms(tt, a, km, np.exp(p[:, 1:2]) / r)
-        jac = np.empty((rows.size, 4, t.size))
+        jac = np.empty((rows.size, 4, t.shape[-1]))
         jac[:, 0] = 1.0
         np.multiply(vt, q, out=jac[:, 1])
         jac[:, 1] *= dd
@@ -280,12 +356,11 @@ def _power_model(t: np.ndarray, s0: np.ndarray, spc: float) -> Model:
 
     Parameters (baseline, ln v0, m) with v0 in concentration per second and the order ``n = 1 + m``.
     """
-    tt = t[None, :]
-
     def model(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        tt = _times(t, rows)
         amp = spc * s0[rows]
         x, dx_lk, dx_m = power_conversion(tt * (np.exp(p[:, 1:2]) / s0[rows]), p[:, 2:3])
-        jac = np.empty((rows.size, 3, t.size))
+        jac = np.empty((rows.size, 3, t.shape[-1]))
         jac[:, 0] = 1.0
         np.multiply(amp, dx_lk, out=jac[:, 1])
         np.multiply(amp, dx_m, out=jac[:, 2])
@@ -333,6 +408,19 @@ def _restart_plateaus(fun: Model, fit: LMFit,
     return LMFit(params, rss, fit.tss, cov, converged, max(fit.n_iter, again.n_iter))
 
 
+def start_quadratic(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Coefficients ``[wells, 3]`` of ``y ≈ c0 + c1 u + c2 u²`` per well over the reads with ``w`` 1 (``u``
+    the shared scaled time, in [0, 1]), from the moment sums (two matrix products and a closed-form 3x3
+    inverse): start values, where :func:`vzero.plugins.rates.polynomial.masked_polyfit`'s centring and
+    residuals are not needed. NaN for wells with fewer than four reads."""
+    pw = u[:, None] ** np.arange(5)[None, :]
+    m = w @ pw
+    xy = (w * np.where(w > 0, y, 0.0)) @ pw[:, :3]
+    coef = np.einsum("npq,nq->np", inv3_hankel(m), xy)
+    coef[w.sum(axis=1) < 4] = np.nan
+    return coef
+
+
 def progress_curve(
     time: np.ndarray,
     signal: np.ndarray,
@@ -343,6 +431,7 @@ def progress_curve(
     fail_ratio: float = 3.0,
     max_iter: int = 80,
     model: str = "michaelis-menten",
+    screened: Screen | None = None,
 ) -> RateResult:
     """Initial rate from a fit of the integrated Michaelis–Menten equation to the whole curve.
 
@@ -367,12 +456,15 @@ def progress_curve(
     above it (n -> 0), and for Hill kinetics far below K0.5 (n = h); elsewhere the local order drifts as the
     substrate falls and v0 is slightly high (a few percent at S0 = K0.5 over 40 % conversion, measured).
     For cooperative enzymes at low signal it gives much steadier rates than any early window (docs/rates.md).
+
+    ``screened``: the :func:`vzero.plugins.rates.noise.screen` of these reads with this ``min_points`` and
+    time, when the caller has it already (it is not computed again).
     """
     if model not in ("michaelis-menten", "power"):
         raise StageError(f"progress curve: unknown model {model!r}; use 'michaelis-menten' or 'power'.")
     t, y = check_inputs(time, signal)
     n_w = y.shape[0]
-    sc = screen(y, min_points=min_points, time=t)
+    sc = screen(y, min_points=min_points, time=t) if screened is None else screened
     out = blank_result(n_w, sc.flags)
     power = model == "power"
     names = ("s0_fit", "rmse_over_noise", "order") if power else ("km", "vmax", "s0_fit", "rmse_over_noise")
@@ -400,10 +492,10 @@ def progress_curve(
     # start values: slope and curvature at the first read from a quadratic over the first half of the reads
     first_half = ww * (np.arange(t.size) < max(t.size // 2, min_points))[None, :]
     span = t[-1] - t[0]
-    q = masked_polyfit(np.broadcast_to((t - t[0]) / span, yy.shape), yy, first_half, 2)
-    v_init = np.fmax(d * q.coef[:, 1] / span, 1e-6 * np.abs(sc.change[todo]) / span)
-    base0 = q.coef[:, 0]
-    c_init = -2.0 * d * q.coef[:, 2] / span**2 / v_init**2  # -(dv/dP)/v0 at the start, 1/signal
+    q = start_quadratic((t - t[0]) / span, yy, first_half)
+    v_init = np.fmax(d * q[:, 1] / span, 1e-6 * np.abs(sc.change[todo]) / span)
+    base0 = q[:, 0]
+    c_init = -2.0 * d * q[:, 2] / span**2 / v_init**2  # -(dv/dP)/v0 at the start, 1/signal
     c_floor = 1e-3 / np.abs(sc.change[todo])
     c_init = np.where(np.isfinite(c_init), np.fmax(c_init, c_floor), c_floor)
     free = np.full(todo.size, np.inf)
@@ -422,9 +514,11 @@ def progress_curve(
             n0 = np.clip(c_init * abs(spc) * s0w[:, 0], 0.0, 6.0)
             p0 = np.stack([base0, np.log(vc), n0 - 1.0], axis=1)
             lo[:, 2], hi[:, 2] = -1.5, 9.0
-            fun = _power_model(t, s0w, spc)
+            def make(tg: np.ndarray) -> Model:
+                return _power_model(tg, s0w, spc)
         else:
-            fun = _concentration_model(t, s0w, spc)
+            def make(tg: np.ndarray) -> Model:
+                return _concentration_model(tg, s0w, spc)
     else:
         # parameters: baseline, ln v0 (signal/s), ln c1 with c1 = -(dv/dP)/v0 = Km/(A (Km + A)), logit r
         # with r = A/(Km + A); then A = (1 - r)/c1, Km = A (1 - r)/r, Vmax = v0/r. Both v0 and c1 stay
@@ -433,11 +527,14 @@ def progress_curve(
         lo = np.stack([-free, np.log(v_init) - 12, np.log(c_floor) - 30, np.full(todo.size, -30.0)], axis=1)
         hi = np.stack([free, np.log(v_init) + 12, np.log(c_floor) + 20, np.full(todo.size, 30.0)], axis=1)
 
-        fun = _signal_model(t, d)
+        def make(tg: np.ndarray) -> Model:
+            return _signal_model(tg, d)
 
-    fit = fit_wells(fun, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter)
-    if not known:
-        fit = _restart_plateaus(fun, fit, yy, ww, lo, hi, max_iter)
+    def restart(fun: Model, first: LMFit, yr: np.ndarray, wr: np.ndarray) -> LMFit:
+        return _restart_plateaus(fun, first, yr, wr, lo, hi, max_iter)
+
+    fit = fit_coarse_to_fine(make, t, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter,
+                             refit=None if known else restart)
     n_par = p0.shape[1]
     dof = np.fmax(ww.sum(axis=1) - n_par, 1.0)
     rmse = np.sqrt(fit.rss / dof)

@@ -28,6 +28,14 @@ def find_spikes(
     if n_t < 5:
         return out
     valid = np.isfinite(y)
+    if valid.all():  # the common case: each read's neighbours are the reads beside it, plain slices
+        r = np.full(y.shape, np.nan)
+        a = (t[2:] - t[1:-1]) / (t[2:] - t[:-2])
+        b = 1.0 - a
+        r[:, 1:-1] = (y[:, 1:-1] - a * y[:, :-2] - b * y[:, 2:]) / np.sqrt(1.0 + a * a + b * b)
+        r_prev = np.concatenate([np.full((n_w, 1), np.nan), r[:, :-1]], axis=1)
+        r_next = np.concatenate([r[:, 1:], np.full((n_w, 1), np.nan)], axis=1)
+        return _spike_test(r, r_prev, r_next, sigma, z, neighbour_max) & np.isfinite(r)
     idx = np.broadcast_to(np.arange(n_t), y.shape)
     # nearest finite read before and after each read (-1 / n_t where there is none)
     before = np.maximum.accumulate(np.where(valid, idx, -1), axis=1)
@@ -43,10 +51,16 @@ def find_spikes(
         b = (t[None, :] - t0) / (t2 - t0)
         r = (y - a * y[rows, pi] - b * y[rows, ni]) / np.sqrt(1.0 + a * a + b * b)
     r = np.where(inner, r, np.nan)
-    r_prev, r_next = r[rows, pi], r[rows, ni]
+    out[:] = inner & _spike_test(r, r[rows, pi], r[rows, ni], sigma, z, neighbour_max)
+    return out
+
+
+def _spike_test(
+    r: np.ndarray, r_prev: np.ndarray, r_next: np.ndarray, sigma: np.ndarray, z: float, neighbour_max: float
+) -> np.ndarray:
+    """The test of the module text on each read's statistic ``r`` and its neighbours' (NaN: no spike)."""
     with np.errstate(invalid="ignore"):
         big = np.abs(r) > z * np.asarray(sigma, dtype=float)[:, None]
         opposite = (np.sign(r_prev) == -np.sign(r)) & (np.sign(r_next) == -np.sign(r))
         small = np.fmax(np.abs(r_prev), np.abs(r_next)) <= neighbour_max * np.abs(r)
-    out[:] = inner & big & opposite & small
-    return out
+    return big & opposite & small

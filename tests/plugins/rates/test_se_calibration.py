@@ -28,6 +28,7 @@ from scipy import stats
 from scipy.optimize import brentq
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.auto import auto
+from vzero.plugins.rates.choice import model_choice
 from vzero.plugins.rates.lagdecay import lag_decay
 from vzero.plugins.rates.polynomial import polynomial
 from vzero.plugins.rates.progress import integrated_mm, progress_curve
@@ -65,6 +66,7 @@ METHODS = {
     "polynomial": lambda y, s0: polynomial(T, y),
     "progress": lambda y, s0: progress_curve(T, y, s0=np.full(len(y), s0), signal_per_conc=SPC),
     "lag-decay": lambda y, s0: lag_decay(T, y),
+    "model-choice": lambda y, s0: model_choice(T, y, s0=np.full(len(y), s0), signal_per_conc=SPC),
 }
 
 
@@ -104,6 +106,9 @@ CASES = [
     ("lag-decay", "near-linear"),
     ("lag-decay", "curving"),
     ("lag-decay", "inactivating"),
+    ("model-choice", "near-linear"),
+    ("model-choice", "curving"),
+    ("model-choice", "inactivating"),
 ]
 
 

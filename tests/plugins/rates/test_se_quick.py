@@ -14,6 +14,7 @@ import pytest
 from scipy.optimize import brentq
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.auto import auto
+from vzero.plugins.rates.choice import model_choice
 from vzero.plugins.rates.lagdecay import lag_decay
 from vzero.plugins.rates.polynomial import polynomial
 from vzero.plugins.rates.progress import integrated_mm, progress_curve
@@ -28,14 +29,16 @@ def _curve(s0: float, fraction: float) -> tuple[np.ndarray, float]:
     return sim.signal[0], float(sim.v0_true[0])
 
 
-@pytest.mark.parametrize("method", ["window", "auto", "polynomial", "progress", "lag-decay"])
+@pytest.mark.parametrize("method", ["window", "auto", "polynomial", "progress", "lag-decay", "model-choice"])
 def test_standard_error_matches_the_scatter(method: str) -> None:
-    s0 = 1.0 if method == "progress" else 10.0
-    clean, truth = _curve(s0, 0.30 if method == "progress" else 0.05)
+    whole = method in ("progress", "model-choice")  # methods meant for whole curves get a curving one
+    s0 = 1.0 if whole else 10.0
+    clean, truth = _curve(s0, 0.30 if whole else 0.05)
     y = clean[None, :] + 0.002 * np.random.default_rng(8).standard_normal((400, T.size))
     r = {"window": lambda: window_slopes(T, y, 0.0, 120.0), "auto": lambda: auto(T, y),
          "polynomial": lambda: polynomial(T, y), "lag-decay": lambda: lag_decay(T, y),
-         "progress": lambda: progress_curve(T, y, s0=np.full(400, s0), signal_per_conc=1.0)}[method]()
+         "progress": lambda: progress_curve(T, y, s0=np.full(400, s0), signal_per_conc=1.0),
+         "model-choice": lambda: model_choice(T, y, s0=np.full(400, s0), signal_per_conc=1.0)}[method]()
     assert np.all(np.isfinite(r.v0)) and np.all(r.stderr > 0)
     z = (r.v0 - truth) / r.stderr
     assert 0.8 <= np.std(z, ddof=1) <= 1.25, np.std(z, ddof=1)
