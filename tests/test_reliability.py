@@ -266,7 +266,7 @@ def test_non_utf8_recipe_names_its_line(tmp_path: Path):
 
 def test_formula_like_text_is_inert_and_numbers_stay_numbers():
     import pandas as pd
-    from vzero.run.outputs import csv_text
+    from vzero.run._csv_fast import csv_text
     from vzero.spreadsheet import inert
 
     # the usual prefix rule (OWASP, "CSV Injection"): a leading ' before =, +, -, @, tab and CR

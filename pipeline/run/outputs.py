@@ -1,7 +1,9 @@
 """The files a run writes beside its audit file: one CSV per final table, the files final steps returned and
 the list of failed plates, every one flushed to disk before the run folder is renamed into place.
 
-CSV text is pandas' ``to_csv`` text, character for character, made several times faster (:func:`csv_text`).
+CSV text is pandas' ``to_csv`` text (the plain path, :func:`plain_csv_text`); the tables vzero writes most
+are formatted by a private twin that gives the same characters several times faster
+(:mod:`vzero.run._csv_fast`, compared with pandas in tests/pipeline/test_csv_text.py).
 With a local process pool, large tables are written by the workers, each table split by rows over all of
 them, and a table already final when the pooled steps start (the stacked rates) is begun then, while the
 driver fits; the pieces are joined into one file at the end (:class:`CsvInWorkers`).
@@ -11,7 +13,6 @@ from __future__ import annotations
 
 import functools
 import os
-import re
 import shutil
 import time
 import uuid
@@ -23,8 +24,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Table
+from vzero.run._csv_fast import handled
 from vzero.run.executors import Executor
-from vzero.spreadsheet import inert, inert_frame
+from vzero.spreadsheet import inert_frame
 
 #: Final tables with at least this many rows are written to CSV by worker processes when the run has a local
 #: process pool, split by rows into pieces of at least half as many rows, one piece per worker at most.
@@ -133,11 +135,20 @@ class CsvInWorkers:
 CSV_BLOCK_ROWS = 20_000
 
 
+def plain_csv_text(frame: pd.DataFrame, header: bool = True) -> str:
+    """The plain path: pandas' CSV text of ``frame`` without its index, with text cells a spreadsheet would
+    evaluate made inert (:mod:`vzero.spreadsheet`)."""
+    return str(inert_frame(frame).to_csv(index=False, header=header, lineterminator=os.linesep))
+
+
 def write_csv(path: str, frame: pd.DataFrame, header: bool = True) -> None:
-    """Write ``frame`` to ``path`` as :func:`csv_text` (pandas' text), a block of rows at a time; also run in
-    worker processes. Without ``header`` only the rows (a piece of a file split by rows). A table with a
-    column :func:`csv_text` does not handle is written by pandas in one go (pandas chooses some formats, such
-    as dates with or without a time of day, from all the rows)."""
+    """Write ``frame`` to ``path`` as pandas' CSV text (:func:`plain_csv_text`), a block of rows at a time;
+    also run in worker processes. Without ``header`` only the rows (a piece of a file split by rows). Tables
+    of the column types :func:`vzero.run._csv_fast.csv_text` handles are formatted by it (the same text,
+    faster); others are written by pandas in one go (pandas chooses some formats, such as dates with or
+    without a time of day, from all the rows)."""
+    from vzero.run._csv_fast import csv_text
+
     if not handled(frame):
         inert_frame(frame).to_csv(path, index=False, header=header)
         return
@@ -187,86 +198,6 @@ def write_outputs(tmp: Path, tables: Mapping[str, Table], files: Mapping[str, by
         for sync in syncs:
             sync.result()
     return csv_seconds
-
-
-def csv_text(frame: pd.DataFrame, header: bool = True) -> str | None:
-    """``frame.to_csv(index=False, header=header)``'s text, character for character, about four times faster;
-    ``None`` when a column has a type this does not handle (the caller then uses pandas).
-
-    pandas formats float64 through numpy's shortest round-trip text, which is Python's ``repr`` of the same
-    float (checked over millions of bit patterns); ``repr`` on a list is much faster than numpy's
-    ``astype(str)``. Missing values are empty fields; quoting is the csv module's minimal quoting, as pandas.
-    Text cells a spreadsheet would evaluate get a leading ``'`` (:mod:`vzero.spreadsheet`), so the text is
-    pandas' text of ``inert_frame(frame)``.
-    Every row's text depends on that row alone, so a file split by rows joins into the same text.
-    """
-    import csv
-    import io
-
-    from vzero.audit.codec import text_codes
-    from vzero.data import columns as data_columns
-    from vzero.data import values_as
-
-    if not handled(frame):
-        return None
-    columns: list[list[str]] = []
-    texts: list[list[str]] = []  # the distinct values of the columns that may need quoting
-    for dtype, values in data_columns(frame):
-        kind = _kind(dtype)
-        if kind == "float":
-            text = _float_texts(values_as(values, np.float64))
-        elif kind == "int":
-            text = list(map(str, values.tolist()))
-        else:
-            distinct, codes = text_codes(values_as(values, object))
-            distinct = [inert(t) for t in distinct]  # no cell a spreadsheet would run as a formula
-            text = np.array(distinct, dtype=object)[codes].tolist()
-            texts.append(distinct)
-        columns.append(text)
-    names = [inert(str(c)) for c in frame.columns]
-    head = [names] if header else []
-    if len(columns) > 1 and not any(_NEEDS_QUOTES.search("".join(col)) for col in [names, *texts]):
-        # nothing to quote: plain joins (twice as fast as the csv module)
-        lines = [*head, *zip(*columns, strict=True)]
-        return os.linesep.join(map(",".join, lines)) + os.linesep if lines else ""
-    out = io.StringIO()
-    writer = csv.writer(out, lineterminator=os.linesep)
-    writer.writerows(head)
-    writer.writerows(zip(*columns, strict=True))
-    return out.getvalue()
-
-
-def handled(frame: pd.DataFrame) -> bool:
-    """Whether :func:`csv_text` writes ``frame`` (float64, numpy integer and bool, and text columns, one level
-    of column names, at least one column); other tables are left to pandas."""
-    return frame.columns.nlevels == 1 and frame.shape[1] > 0 and all(_kind(d) is not None for d in frame.dtypes)
-
-
-def _kind(dtype: Any) -> str | None:
-    if dtype == "float64":
-        return "float"
-    if isinstance(dtype, np.dtype) and dtype.kind in "biu":
-        return "int"
-    if (isinstance(dtype, np.dtype) and dtype.kind == "O") or isinstance(dtype, pd.StringDtype):
-        return "text"
-    return None
-
-
-def _float_texts(values: np.ndarray) -> list[str]:
-    """Each float's shortest round-trip text (``repr``), NaN as an empty field. A column with many repeats
-    (concentrations, levels, a constant) formats each distinct bit pattern once (so -0.0 stays "-0.0")."""
-    bits, codes = np.unique(values.view(np.int64), return_inverse=True)
-    if 2 * bits.size <= values.size:
-        distinct = ["" if t == "nan" else t for t in map(repr, bits.view(np.float64).tolist())]
-        return np.array(distinct, dtype=object)[codes].tolist()  # type: ignore[no-any-return]
-    text = list(map(repr, values.tolist()))
-    for i in np.flatnonzero(np.isnan(values)).tolist():
-        text[i] = ""
-    return text
-
-
-_NEEDS_QUOTES = re.compile('[,"\r\n]')
-"""Characters that make the csv module quote a field (delimiter, quote character, line breaks)."""
 
 
 def _fsync(path: Path) -> None:

@@ -6,7 +6,8 @@ import numpy as np
 import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from vzero.run.outputs import csv_text
+from vzero.run._csv_fast import csv_text
+from vzero.run.outputs import plain_csv_text
 from vzero.spreadsheet import inert_frame
 
 
@@ -116,3 +117,13 @@ def test_large_tables_are_written_a_block_of_rows_at_a_time(tmp_path, monkeypatc
     for i, frame in enumerate(frames):
         outputs.write_csv(str(tmp_path / f"{i}.csv"), frame)
         assert (tmp_path / f"{i}.csv").read_text("utf-8") == frame.to_csv(index=False)
+
+
+def test_the_fast_twin_gives_the_plain_path_s_bytes():
+    """vzero.run._csv_fast.csv_text against vzero.run.outputs.plain_csv_text (pandas), formula-like cells and
+    quoting included: the two paths must write the same file."""
+    frame = pd.DataFrame({"group": ["=1+1", "+x", "-y", "@z", "plain", "a,b"],
+                          "rate": [1.5, -2.0, np.nan, 0.0, 1e-12, 3.0], "n": [1, 2, 3, 4, 5, 6],
+                          "ok": [True, False] * 3})
+    assert csv_text(frame) == plain_csv_text(frame)
+    assert csv_text(frame, header=False) == plain_csv_text(frame, header=False)
