@@ -448,6 +448,28 @@ def _note_left_out(output: StageOutput, frame: pd.DataFrame, groups: np.ndarray,
         output.artifacts["fits"] = fits.with_frame(table)
 
 
+def comparison_rows(models: list[Model], fits: Mapping[tuple[str, str], engine.FitResult],
+                    point_sets: Mapping[tuple[str, str], tuple[Any, ...]], by_name: Mapping[str, Model],
+                    alpha: float) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
+    """The model-comparison and cooperativity tables' rows of every group (shared by both fit routes).
+
+    Models are compared only with models fitted to the same points: ``point_sets`` names each fit's points
+    (well rows, or well ids for the curve route); each distinct set is a numbered comparison set."""
+    comp_rows: list[dict[str, Any]] = []
+    coop_rows: list[dict[str, Any]] = []
+    nests = {m.name: m.nests for m in models}
+    for g in sorted({k[0] for k in fits}):
+        sets: dict[tuple[Any, ...], dict[str, engine.FitResult]] = {}
+        for (gg, mname), res in fits.items():
+            if gg == g:
+                sets.setdefault(point_sets.get((gg, mname), ()), {})[mname] = res
+        for k, (_, members) in enumerate(sorted(sets.items(), key=lambda kv: sorted(kv[1]))):
+            rows, _, _ = compare.compare_set(members, nests, alpha)
+            comp_rows += [{"group": g, "comparison_set": k + 1, **r} for r in rows]
+        coop_rows += cooperativity_rows(g, models, fits, by_name, alpha)
+    return comp_rows, coop_rows
+
+
 def cooperativity_rows(group: str, models: list[Model], fits: Mapping[tuple[str, str], engine.FitResult],
                        by_name: Mapping[str, Model], alpha: float) -> list[dict[str, Any]]:
     """The cooperativity table's rows for one group: one per fitted model that declares a cooperativity
@@ -530,18 +552,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
             idx = np.array(point_sets[(g, mname)], int)
             curve_blocks += _curves(model, res, {**var, **xvars[mname]}, idx, g, conf, role_unit)
 
-    comp_rows: list[dict[str, Any]] = []
-    coop_rows: list[dict[str, Any]] = []
-    nests = {m.name: m.nests for m in models}
-    for g in sorted({k[0] for k in fits}):
-        sets: dict[tuple[int, ...], dict[str, engine.FitResult]] = {}
-        for (gg, mname), res in fits.items():
-            if gg == g:
-                sets.setdefault(point_sets[(gg, mname)], {})[mname] = res
-        for k, (_, members) in enumerate(sorted(sets.items(), key=lambda kv: sorted(kv[1]))):
-            rows, _, _ = compare.compare_set(members, nests, float(cfg["alpha"]))
-            comp_rows += [{"group": g, "comparison_set": k + 1, **r} for r in rows]
-        coop_rows += cooperativity_rows(g, models, fits, by_name, float(cfg["alpha"]))
+    comp_rows, coop_rows = comparison_rows(models, fits, point_sets, by_name, float(cfg["alpha"]))
 
     diag_blocks: list[dict[str, np.ndarray]] = []
     for g in sorted(set(groups[use])):

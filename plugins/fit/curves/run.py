@@ -22,7 +22,7 @@ import pandas as pd
 from vzero import units as pu
 from vzero.data import Table
 from vzero.errors import FitError
-from vzero.plugins.fit import compare, diagnostics, routes
+from vzero.plugins.fit import diagnostics, routes
 from vzero.plugins.fit import run as rates_run
 from vzero.plugins.fit.catalog import Model
 from vzero.plugins.fit.curves import selwyn
@@ -258,21 +258,9 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], Any],
             "enzyme": np.repeat(cg.wells.enzyme, nt), "time": cg.wells.time.ravel(), "observed": cg.y.ravel(),
             "fitted": cf.fitted.ravel(), "residual": (cg.y - cf.fitted).ravel(), "used": cg.used.ravel()})
 
-    comp_rows: list[dict[str, Any]] = []
-    coop_rows: list[dict[str, Any]] = []
-    nests = {m.name: m.nests for m in models}
-    for g in sorted({k[0] for k in fits}):
-        sets: dict[tuple[int, ...], dict[str, Any]] = {}
-        for (gg, mname), res in fits.items():
-            if gg == g:
-                cg = fitted.get((gg, mname))
-                key = tuple(sorted(cg[0].ids)) if cg else ()
-                sets.setdefault(key, {})[mname] = res  # type: ignore[arg-type]
-        for k, (_, members) in enumerate(sorted(sets.items(), key=lambda kv: sorted(kv[1]))):
-            rows, _, _ = compare.compare_set(members, nests, float(cfg["alpha"]))
-            comp_rows += [{"group": g, "comparison_set": k + 1, **r} for r in rows]
-        coop_rows += rates_run.cooperativity_rows(g, models, fits, {m.name: m for m in models},  # type: ignore[arg-type]
-                                                  float(cfg["alpha"]))
+    point_sets = {key: tuple(sorted(pair[0].ids)) for key, pair in fitted.items()}
+    comp_rows, coop_rows = rates_run.comparison_rows(models, fits, point_sets, by_name,  # type: ignore[arg-type]
+                                                     float(cfg["alpha"]))
 
     rss_unit = f"({su})^2" if su else ""
     meta = {"research_use": "Research use only: check results against the lab's validated procedures.",
