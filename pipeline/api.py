@@ -46,10 +46,18 @@ def check(recipe: str | Path) -> Recipe:
     return check_recipe(recipe)
 
 
-def read_table(audit: str | Path, name: str) -> pd.DataFrame:
+def read_table(audit: str | Path, name: str, *, verify: bool = True) -> pd.DataFrame:
     """One final table (``"rates"``, ``"fits"``, ...) of the audit file ``audit`` as a DataFrame, with each
-    column's unit in ``frame.attrs["units"]``. Raises :class:`KeyError` when the run has no such table."""
+    column's unit in ``frame.attrs["units"]``. Raises :class:`KeyError` when the run has no such table.
+
+    The file's digests are checked first, as the commands do: a damaged or changed file raises
+    :class:`vzero.errors.AuditFileError`. ``verify=False`` skips the check (and warns that it did)."""
+    import warnings
+
     from vzero.audit.reader import read_result
+    from vzero.audit.verify import check_intact
+
+    check_intact(audit, check=verify, say=lambda text: warnings.warn(text, stacklevel=3))
 
     table = read_result(audit, name)
     if table is None:

@@ -307,6 +307,8 @@ def configure(p: argparse.ArgumentParser) -> None:
                    help=f"relative tolerance: smaller changes are rounding noise, not counted (default {RTOL:g})")
     p.add_argument("--atol", type=_tolerance, default=0.0,
                    help="absolute tolerance, in each quantity's own unit (default 0)")
+    p.add_argument("--no-verify", action="store_true",
+                   help="compare without checking the two files' digests first (the output says so)")
 
 
 def _tolerance(text: str) -> float:
@@ -320,6 +322,12 @@ def _tolerance(text: str) -> float:
 
 
 def run(args: argparse.Namespace) -> int:
+    import sys
+
+    from vzero.audit.verify import check_intact
+
+    for path in (args.a, args.b):  # a received file is checked before any number of it is compared
+        check_intact(path, check=not args.no_verify, say=lambda text: print(text, file=sys.stderr))
     result = compare(args.a, args.b, rtol=args.rtol, atol=args.atol)
     if not args.quiet:
         print(to_text(result, args.limit))

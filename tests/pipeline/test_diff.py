@@ -87,3 +87,30 @@ def test_diff_command_line_writes_csv(tmp_path: Path, capsys):
     table = pd.read_csv(tmp_path / "d.csv")
     assert set(table["kind"]) == {"well"} and len(table) == 96
     assert set(table["window_b"]) == {"60-300 s"}
+
+
+def test_diff_and_read_table_refuse_a_changed_file(tmp_path: Path, capsys):
+    """A received audit file is checked against its digests before its numbers are compared or read."""
+    import h5py
+    import pytest
+    import vzero
+    from vzero.errors import AuditFileError
+
+    recipe = linear_plate(tmp_path / "in")
+    a = run(recipe, tmp_path / "a").audit_path
+    b = tmp_path / "b.h5"
+    shutil.copy(a, b)
+    with h5py.File(b, "r+") as f:  # one changed attribute, no changed number: still refused
+        f.attrs["recipe_text"] = str(f.attrs["recipe_text"]).replace("300 s", "301 s")
+    assert main(["diff", str(a), str(b)]) != 0
+    refused = capsys.readouterr()
+    assert "does not match its digests" in refused.err and "recipe changes:" not in refused.out
+    with pytest.raises(AuditFileError, match="does not match its digests"):
+        vzero.read_table(b, "rates")
+    capsys.readouterr()
+    assert main(["diff", str(a), str(b), "--no-verify"]) == 0
+    captured = capsys.readouterr()
+    assert "without checking its digests" in captured.err and "recipe changes:" in captured.out
+    with pytest.warns(UserWarning, match="without checking its digests"):
+        assert len(vzero.read_table(b, "rates", verify=False)) == 96
+    assert len(vzero.read_table(a, "rates")) == 96
