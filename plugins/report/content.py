@@ -282,9 +282,15 @@ def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapp
     """Wells kept out of the fit, with reasons.
 
     Sample wells are listed one by one; wells of other roles (blanks, controls) are summarised per role.
-    Exclusions written in the recipe (``exclusions:``) are listed as written, with their reason.
+    Exclusions written in the recipe (``exclusions:``) are listed as written, with their reason; so are the
+    decisions made on review (``review:``, keep or exclude, from the recipe or a fragment it includes).
     """
-    out: dict[str, Any] = {"wells": [], "roles": [], "recipe": []}
+    out: dict[str, Any] = {"wells": [], "roles": [], "recipe": [], "review": []}
+    for item in recipe.get("review", []) or []:
+        if isinstance(item, Mapping):
+            out["review"].append({"what": " ".join(str(item.get(k, "?")) for k in ("plate", "well")),
+                                  "decision": str(item.get("decision", "?")),
+                                  "reason": str(item.get("reason", "(no reason given)"))})
     for item in recipe.get("exclusions", []) or []:
         if isinstance(item, Mapping):
             what = " ".join(str(item[k]) for k in ("plate", "well") if k in item)

@@ -4,12 +4,13 @@ The page is one self-contained HTML file (no server, no network, works from a fi
 through the flagged sample wells of a run (keyboard or mouse), shows each well's reads with its rate line on
 the well's own scale, its rate, its flags in words with the measured values behind them and whether the fit
 used it, and records a decision per well, keep or exclude, with a reason. The decisions are saved as a
-recipe fragment: YAML ``exclusions:`` entries in the recipe's own format
-(:mod:`vzero.plugins.kinetics.exclusions`: ``{plate, well, reason}``), offered as a download and shown as
-text to copy. Wells kept are written as comments with their reasons, so that the recipe (stored whole in the
-next run's audit file) records every decision. Pasting the entries under the recipe's ``exclusions:`` and
-running ``vzero rerun RUN.h5 --recipe RECIPE --out DIR`` applies them; each excluded well then carries the
-flag ``excluded`` and its reason in the rates table's ``note`` column.
+recipe fragment ``review-decisions.yaml``: one ``review:`` item per decided well, ``{plate, well, decision,
+reason}`` (:mod:`vzero.plugins.kinetics.exclusions`), offered as a download and shown as text to copy.
+Included in the recipe (``include: [review-decisions.yaml]``, or ``vzero rerun RUN.h5 --recipe RECIPE
+--recipe review-decisions.yaml --out DIR``; see :mod:`vzero.includes`) it is applied: each excluded well
+carries the flag ``excluded``, and every decided well its decision and reason in the rates table's ``note``
+column; the audit file stores the decisions (root attribute ``review``) and the fragment's text with the
+recipe.
 """
 
 from __future__ import annotations
@@ -21,7 +22,7 @@ from typing import Any
 
 from vzero.errors import OutputExistsError, VzeroError
 
-HELP = "Write a page for deciding, well by well, about a run's flagged wells (saves recipe exclusions)."
+HELP = "Write a page for deciding, well by well, about a run's flagged wells (saves a recipe fragment)."
 EXAMPLE = "vzero review runs/today/run.h5"
 
 
@@ -53,8 +54,7 @@ def page_data(inp: Any) -> dict[str, Any]:
         rec["svg"] = panels.sparkline_svg(rec, width=560, height=260)
         rec.pop("t"), rec.pop("y")  # drawn already: the page needs no raw reads
     return {"run": str(inp.provenance.get("run_id", "")), "recipe": str(inp.recipe.get("name", "")),
-            "source": str(inp.provenance.get("source", "")), "wells": records,
-            "existing": [dict(e) for e in inp.recipe.get("exclusions", []) or [] if isinstance(e, dict)]}
+            "source": str(inp.provenance.get("source", "")), "wells": records}
 
 
 def render(data: dict[str, Any]) -> str:
