@@ -207,7 +207,7 @@ def parse(text: str, path: str) -> Recipe:
     lines: dict[tuple[Any, ...], int] = {}
     dupes: list[str] = []
     _walk(nodes[0], (), lines, dupes, place)
-    if parts:
+    if parts or "include" in data:  # an include: key with nothing attached would silently drop its data
         data = _merge_fragments(data, nodes[1:], docs[1:], parts, lines, dupes, place)
     if dupes:
         raise RecipeError(dupes)
