@@ -11,6 +11,7 @@ from __future__ import annotations
 import base64
 import datetime as _dt
 import functools
+import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -35,6 +36,11 @@ class Figure:
     png: bytes
     svg: bytes
     section: str
+    areas: list[tuple[str, float, float, float, float]] = field(default_factory=list)
+    """Where flagged wells' cells lie in the image: (well, left, top, right, bottom), fractions of its size."""
+    links: list[dict[str, Any]] = field(default_factory=list)
+    """The links drawn over the image (to each flagged well's panel): id, title, x, y, w, h in percent."""
+    plate: str = ""
 
     @property
     def png_b64(self) -> str:
@@ -147,8 +153,9 @@ class _Drawing:
             return
         figures.load_matplotlib()  # once, here, so that forked children inherit it
         done = parallel.run_all([job for job, _, _ in self.pending], [w for _, w, _ in self.pending])
-        for (_, _, entry), (png, svg, note) in zip(self.pending, done, strict=True):
+        for (_, _, entry), (png, svg, note, areas) in zip(self.pending, done, strict=True):
             entry.png, entry.svg = png, svg
+            entry.areas = [tuple(a) for a in json.loads(areas.decode("utf-8"))]
             if note:
                 entry.caption += " " + note.decode("utf-8")
         self.pending.clear()
@@ -157,11 +164,11 @@ class _Drawing:
 def _job(make: Callable[[], Any], dpi: int) -> parallel.Job:
     """The job for one figure: ``make()`` returns the figure, or (figure, caption note)."""
 
-    def job() -> tuple[bytes, bytes, bytes]:
+    def job() -> tuple[bytes, bytes, bytes, bytes]:
         made = make()
         fig, note = made if isinstance(made, tuple) else (made, "")
         png, svg = figures.render(fig, dpi=dpi)
-        return png, svg, note.encode("utf-8")
+        return png, svg, note.encode("utf-8"), json.dumps(figures.cell_areas(fig)).encode("utf-8")
 
     return job
 
@@ -219,7 +226,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 "Each circle is a sample well, darker for a faster initial rate. Hatched grey: no rate. A heavy "
                 "ring marks a flagged sample well, a cross a sample well left out of the fit (reasons under Flagged "
                 "wells and Exclusions). Small pale squares: blanks, standards and other wells that are not "
-                "fitted.", b"", b"", "plates")))
+                "fitted. Click a ringed well to open its panel under Flagged wells.", b"", b"", "plates",
+                plate=plate)))
         traces = inp.traces.get(plate)
         std = calibration.curve_of(traces, inp.recipe) if traces is not None else None
         if std is not None and "error" in std:
@@ -245,11 +253,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             cap = ("Every well's reads (grey) in plate geometry, all cells on the same time scale and each on its "
                    "own signal scale, so that slow wells can be judged (the span Δ of each scale is printed in the "
                    "cell where there is room). The orange line has the slope reported as the well's rate and spans "
-                   "the reads it came from. Flagged sample wells have a heavy frame and a tinted cell; blanks, "
+                   "the reads it came from. Flagged sample wells have a heavy frame, a tinted cell and their flags "
+                   "as two-letter codes (legend above the plate; click the cell to open the well's panel); blanks, "
                    "standards and other wells are pale.")
             figs.append(drawing.add(_job(make, 150), WEIGHTS["progress_grid"], Figure(
                 _unique(f"progress-curves_{figures.slug(plate)}", taken), f"Progress curves: {plate}",
-                cap, b"", b"", "plates")))
+                cap, b"", b"", "plates", plate=plate)))
 
     # per group: rates against concentration, transforms, tables
     groups: list[dict[str, Any]] = []
@@ -345,6 +354,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                                   rate_units)
     for rec in records:
         rec["svg"] = panels.sparkline_svg(rec)
+    for f in figs:
+        f.links = panels.figure_links(f.areas, f.plate, records)
     flagged = panels.flag_groups(records)
     exclusions = content.exclusion_rows(rates, options, inp.recipe, inp.models)
     html = render_html({

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 from vzero.data import Traces
 from vzero.plugins.kinetics import flags as flag_vocab
-from vzero.plugins.report import content
+from vzero.plugins.report import content, marks
 
 FLAG_SHORT = flag_vocab.short_by_name()
 
@@ -141,13 +141,32 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
     return out
 
 
+def figure_links(areas: Sequence[Sequence[Any]], plate: str,
+                 records: Sequence[Mapping[str, Any]]) -> list[dict[str, Any]]:
+    """Links to draw over a plate figure: one per flagged sample well that has a panel, placed on its cell
+    (``areas`` from :func:`vzero.plugins.report.figures.cell_areas`), in percent of the image, with a title
+    naming the well and its flags in words (a tooltip, and the link's accessible name)."""
+    by_well = {str(r["well"]): r for r in records if str(r["plate"]) == plate}
+    out = []
+    for well, x0, y0, x1, y1 in areas:
+        rec = by_well.get(str(well))
+        if rec is None:
+            continue
+        flags = ", ".join(f"{marks.code(f)} {f.replace('_', ' ')}" for f in rec["flags"])
+        out.append({"id": rec["id"], "title": f"{plate} {well}: {flags} (open its panel)",
+                    "x": round(100 * float(x0), 3), "y": round(100 * float(y0), 3),
+                    "w": round(100 * (float(x1) - float(x0)), 3), "h": round(100 * (float(y1) - float(y0)), 3)})
+    return out
+
+
 def flag_groups(records: Sequence[Mapping[str, Any]]) -> list[dict[str, Any]]:
     """The flagged sample wells grouped by flag, most frequent first: flag, its words, count and wells."""
     by: dict[str, list[Mapping[str, Any]]] = {}
     for rec in records:
         for f in rec["flags"]:
             by.setdefault(f, []).append(rec)
-    rows = [{"flag": f.replace("_", " "), "short": FLAG_SHORT.get(f, f), "meaning": content.FLAG_TEXT.get(f, f),
+    rows = [{"flag": f.replace("_", " "), "short": FLAG_SHORT.get(f, f), "code": marks.code(f),
+             "meaning": content.FLAG_TEXT.get(f, f),
              "count": len(recs), "wells": [{"id": r["id"], "label": f"{r['well']}" if len({x['plate'] for x in
                                                                                        records}) == 1
                                             else f"{r['plate']} {r['well']}"} for r in recs]}
