@@ -188,6 +188,45 @@ def _transform_wells(kind: str, selected: str, titles: Mapping[str, str]) -> str
             "inhibition, not cooperativity.")
 
 
+def _selected_transforms(g: str, rates: pd.DataFrame, fits: pd.DataFrame, in_group: np.ndarray,
+                         used: np.ndarray | None, options: Mapping[str, Any], pick: str, kind: str,
+                         models: Mapping[str, Any], titles: Mapping[str, str], x_unit: str,
+                         rate_unit: str) -> tuple[pd.DataFrame, dict[str, Any], str] | None:
+    """The transforms of group ``g`` drawn from its selected fit (:mod:`vzero.plugins.report.transform_figures`):
+    the table of the wells that fit used, the selected model's curve per transform, and the caption's words.
+    None when the selected model cannot be evaluated here (not installed, or a parameter not determined)."""
+    from vzero.plugins.report import transform_figures as tf
+
+    x_col = str(options["x"])
+    rate_of = _evaluators(fits, g, "substrate", models).get(pick) if pick else None
+    if rate_of is None or x_col not in rates or "rate" not in rates:
+        return None
+    mask = tf.selected_points(rates, in_group, used, x_col, str(options.get("inhibitor", "inhibitor")))
+    if not mask.any():
+        return None
+    hill = kind == "cooperativity"
+    vmax = tf.limiting_rate(fits, g, pick, models) if hill else float("nan")
+    table = tf.table(g, rates, mask, x_col, vmax, hill, x_unit, rate_unit)
+    plots = list(dict.fromkeys(table["plot"].astype(str)))
+    s = pd.to_numeric(rates.loc[mask, x_col], errors="coerce").to_numpy(float)
+    curves = tf.model_curves(rate_of, s, vmax, plots)
+    name = content.model_title(pick, titles)
+    rows = fits[(fits["group"].astype(str) == g) & (fits["model"].astype(str) == pick)] if len(fits) else fits
+    n_fit = pd.to_numeric(rows["n_points"], errors="coerce").dropna() if "n_points" in rows else pd.Series([])
+    count = int(mask.sum())
+    agree = "" if n_fit.empty or int(n_fit.iloc[0]) == count else (
+        f" (the fit reports {int(n_fit.iloc[0])} points; the report re-applies its rule and finds {count})")
+    words = (f"Drawn from the {count} wells the group's selected fit ({name}) used{agree}; the solid curve in each "
+             f"panel is that fit carried into the transform's coordinates, the dashed line the transform's own "
+             f"straight line through the points, which assumes Michaelis–Menten kinetics.")
+    if hill:
+        words += (f" The Hill plot uses the Vmax of the selected fit ({name}); its points outside 10–90 % of that "
+                  "Vmax are hollow and not used for its line.")
+    else:
+        words += " No Hill plot: this group's question is not cooperativity."
+    return table, curves, words
+
+
 def build(inp: ReportInput) -> dict[str, bytes]:
     """Draw every figure and render the HTML. Returns ``{relative path: bytes}``."""
     tables = inp.tables
@@ -328,18 +367,25 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             gd = gd[gd["plot"].astype(str) != figures.HILL_PLOT]
         if both is not None:  # the inhibition figure's double-reciprocal panel shows the selected fit on every
             gd = gd.iloc[0:0]  # well; the stage's transforms of the uninhibited wells alone would say less
+        x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
+                                                and len(rates) else "")
+        selected = _selected_transforms(g, rates, fits, in_group, used, options, pick_raw, lead["kind"], inp.models,
+                                        titles, x_unit, rate_unit) if both is None and len(gd) else None
+        if selected is not None:
+            gd, curves_t, why = selected
+        else:
+            curves_t, why = {}, _transform_wells(lead["kind"], pick_raw, titles)
         if len(gd):
-            x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
-                                                    and len(rates) else "")
             make = functools.partial(figures.transforms, g, gd, content.pretty_unit(rate_unit),
-                                     content.pretty_unit(x_unit))
+                                     content.pretty_unit(x_unit), curves=curves_t,
+                                     curve_label=content.model_title(pick_raw, titles) if curves_t else "")
             block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["transforms"], Figure(
                 _unique(f"transforms_{figures.slug(g)}", taken),
                 f"{g}: " + ("Hill plot and linear transforms" if lead["kind"] == "cooperativity" else
                             "linear transforms"),
                 "Each transform's straight line and the estimates it implies are shown for inspection only: "
                 "transforms distort the errors, so the reported parameters come from the nonlinear fit. "
-                + _transform_wells(lead["kind"], pick_raw, titles), b"", b"", "groups")))
+                + why, b"", b"", "groups")))
         _curve_figures(block, g, tables, comparison, drawing, taken)
         groups.append(block)
     drawing.flush()

@@ -613,9 +613,12 @@ TRANSFORM_TITLES = {
 }
 
 
-def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str = "") -> Any:
+def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str = "", *,
+               curves: Mapping[str, tuple[np.ndarray, np.ndarray]] | None = None, curve_label: str = "") -> Any:
     """The linear transforms of one group: points (hollow where the transform is unstable) and each
-    transform's own straight line, with the estimates that line implies in the panel title."""
+    transform's own straight line, with the estimates that line implies in the panel title. ``curves`` (by
+    plot: x, y) add the selected model's fitted curve carried into each transform's coordinates, labelled
+    ``curve_label``."""
     import matplotlib
     from matplotlib.ticker import MaxNLocator
 
@@ -647,6 +650,11 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
                 gx = np.linspace(np.min(x[good]), np.max(x[good]), 20)
                 st = palette.series(1)
                 ax.plot(gx, icpt + slope * gx, color=st.color, ls=st.linestyle, lw=1.4, label="straight line")
+            cx, cy = (curves or {}).get(plot, (np.array([]), np.array([])))
+            if len(cx) > 1:
+                st = palette.series(0)
+                ax.plot(cx, cy, color=st.color, ls=st.linestyle, lw=1.6, zorder=1,
+                        label=f"selected fit: {curve_label}" if curve_label else "selected fit")
             unit_of = {"Vmax": rate_unit, "Km": x_unit, "K0.5": x_unit}
             words = ", ".join(f"{k} = {num(v, 3)} {unit_of.get(k, '')}".rstrip() for k, v in est.items()
                               if k not in ("slope", "intercept"))

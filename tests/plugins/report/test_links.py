@@ -106,11 +106,9 @@ CLICKS = """(async () => {
 
 @pytestmark_browser
 @pytest.mark.browser
-def test_clicking_a_flagged_well_on_a_384_well_plate_opens_its_panel(tmp_path: Path):
-    from .conftest import cookbook_run
-
+def test_clicking_a_flagged_well_on_a_384_well_plate_opens_its_panel(fluor_run: Path):
     assert BROWSER is not None
-    run_dir = cookbook_run("fluorescence-standard-curve", tmp_path / "fluor")
+    run_dir = fluor_run
     page = run_dir / "report" / "report.html"
     html = page.read_text("utf-8")
     assert not re.search(r'(src|href)="(https?:)?//', html)  # still offline: links are to anchors in the page
