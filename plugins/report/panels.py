@@ -47,19 +47,20 @@ def measured(row: Mapping[str, Any], rate_unit: str) -> list[str]:
         text = content.estimate_text(v, se)["value"]
         out.append(f"v0 = {text} {rate_unit}".rstrip())
         if math.isfinite(se) and se > 0:
-            out.append(f"signal-to-noise |v0|/SE = {abs(v) / se:.1f} (NOISY below 10)")
+            out.append(f"signal-to-noise |v0|/SE = {content.plain(abs(v) / se, 2)} (NOISY below 10)")
     else:
         out.append("no rate")
     r2 = _f(row.get("r_squared"))
     if math.isfinite(r2):
-        out.append(f"r² of the line over the window = {r2:.3f}")
+        out.append(f"r² of the line over the window = {content.plain(r2, 3)}")
     n, ts, te = _f(row.get("n_points")), _f(row.get("window_start_s")), _f(row.get("window_end_s"))
     if math.isfinite(n):
-        window = f" from {ts:g} s to {te:g} s" if math.isfinite(ts) and math.isfinite(te) else ""
+        window = (f" from {content.plain(ts, 4)} s to {content.plain(te, 4)} s" if math.isfinite(ts)
+                  and math.isfinite(te) else "")
         out.append(f"{int(n)} reads used{window}")
     lag = _f(row.get("lag_s"))
     if math.isfinite(lag):
-        out.append(f"lag ≈ {lag:.0f} s")
+        out.append(f"lag ≈ {content.plain(lag, 2)} s")
     return out
 
 
