@@ -126,7 +126,7 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
         conc = {c: _f(r.get(c)) for c in ("substrate", "inhibitor") if c in rates}
         out.append({
             "id": anchor(plate, well), "plate": plate, "well": well, "group": str(r.get("group", "")),
-            "conc": {k: (f"{v:g} {content.pretty_unit(str(r.get(f'{k}_unit', '') or ''))}".rstrip())
+            "conc": {k: (f"{content.plain(v, 3)} {content.pretty_unit(str(r.get(f'{k}_unit', '') or ''))}".rstrip())
                      for k, v in conc.items() if math.isfinite(v)},
             "flags": names, "short": [FLAG_SHORT.get(f, f) for f in names],
             "words": [content.FLAG_TEXT.get(f, f) for f in names],
