@@ -54,7 +54,25 @@ def page_data(inp: Any) -> dict[str, Any]:
         rec["svg"] = panels.sparkline_svg(rec, width=560, height=260)
         rec.pop("t"), rec.pop("y")  # drawn already: the page needs no raw reads
     return {"run": str(inp.provenance.get("run_id", "")), "recipe": str(inp.recipe.get("name", "")),
-            "source": str(inp.provenance.get("source", "")), "wells": records}
+            "source": str(inp.provenance.get("source", "")), "wells": records,
+            "previous": previous_decisions(inp.recipe, records)}
+
+
+def previous_decisions(recipe: Any, records: list[dict[str, Any]]) -> dict[str, dict[str, str]]:
+    """The decisions the run's recipe already holds (its ``review:`` list, from an included fragment), by the
+    panel id of each well on the page: the page starts from them, so that a second review extends the first
+    and the saved fragment (same file name) replaces the old one with every decision in it."""
+    from vzero.plugins.kinetics.wells import is_well, normalise_well
+
+    ids = {(str(r["plate"]), normalise_well(str(r["well"]))): str(r["id"]) for r in records if is_well(str(r["well"]))}
+    out: dict[str, dict[str, str]] = {}
+    for item in recipe.get("review", []) or []:
+        if not isinstance(item, dict) or not is_well(str(item.get("well", ""))):
+            continue
+        key = ids.get((str(item.get("plate", "")), normalise_well(str(item["well"]))))
+        if key and item.get("decision") in ("keep", "exclude"):
+            out[key] = {"choice": str(item["decision"]), "reason": str(item.get("reason", ""))}
+    return out
 
 
 def render(data: dict[str, Any]) -> str:

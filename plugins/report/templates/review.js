@@ -8,7 +8,11 @@
   var cards = Array.prototype.slice.call(document.querySelectorAll("article.card"));
   var picks = Array.prototype.slice.call(document.querySelectorAll("button.pick"));
   var reason = document.getElementById("reason");
-  var decisions = wells.map(function () { return { choice: "", reason: "" }; });
+  var previous = data.previous || {};  // decisions the run's recipe already holds: a second review extends them
+  var decisions = wells.map(function (w) {
+    var p = previous[w.id];
+    return p ? { choice: p.choice, reason: p.reason } : { choice: "", reason: "" };
+  });
   var current = 0;
   var FILE = "review-decisions.yaml";
 
@@ -100,6 +104,7 @@
     else { return; }
     ev.preventDefault();
   });
+  picks.forEach(function (p, k) { if (decisions[k].choice) { p.classList.add(decisions[k].choice); } });
   window.vzeroReview = { show: show, decide: decide, save: save, fragment: fragment };
   show(0);
 })();

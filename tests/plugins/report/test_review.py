@@ -124,3 +124,18 @@ def test_three_decisions_in_the_browser_become_exclusions_after_rerun(matrix_run
         stored = stored.map(lambda v: v.decode() if isinstance(v, bytes) else v).set_index("well")
         for d in decided:
             assert d["reason"] in stored.loc[d["well"], "note"]
+    # reviewing the new run starts from these decisions (the saved fragment then holds them all again)
+    assert main(["review", str(tmp_path / "included" / "run.h5"), "--out", str(tmp_path / "again.html")]) == 0
+    again = json.loads((tmp_path / "again.html").read_text("utf-8").split('id="data">')[1].split("</script>")[0])
+    assert sorted(v["choice"] for v in again["previous"].values()) == ["exclude", "exclude", "keep"]
+
+
+def test_a_second_review_starts_from_the_decisions_the_recipe_holds():
+    from vzero.plugins.report.review import previous_decisions
+
+    records = [{"plate": "p", "well": "A1", "id": "well-p-a1"}, {"plate": "p", "well": "B02", "id": "well-p-b02"}]
+    recipe = {"review": [{"plate": "p", "well": "a1", "decision": "exclude", "reason": "bubble"},
+                         {"plate": "p", "well": "B2", "decision": "keep", "reason": "fine"},
+                         {"plate": "q", "well": "A1", "decision": "keep", "reason": "other plate"}]}
+    assert previous_decisions(recipe, records) == {"well-p-a1": {"choice": "exclude", "reason": "bubble"},
+                                                   "well-p-b02": {"choice": "keep", "reason": "fine"}}
