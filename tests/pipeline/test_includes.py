@@ -3,6 +3,7 @@ line, bounded, cycles refused, and the composed text self-contained (what worker
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import pytest
@@ -105,3 +106,32 @@ def test_a_fragment_given_after_the_recipe_and_a_text_missing_its_fragment(tmp_p
         parse(BASE, "recipe.yaml")  # an include: key with nothing attached: read it with load()
     with pytest.raises(RecipeError, match="a recipe is one YAML document"):
         parse(BASE.replace("include: [review.yaml]\n", "") + "---\nname: other\n", "recipe.yaml")
+
+
+def test_a_run_with_a_fragment_and_a_rerun_of_its_stored_recipe(tmp_path: Path):
+    """The stored recipe carries its fragment: rerunning it (workers, no fragment file anywhere) gives the
+    same exclusions and notes, and the audit file records the decisions."""
+    import json
+
+    import h5py
+    import pandas as pd
+    from vzero.run.rerun import rerun
+    from vzero.run.runner import run
+
+    from tests.conftest import linear_plate
+
+    recipe = linear_plate(tmp_path / "in")
+    plate = re.search(r"name: (\S+)", recipe.read_text("utf-8").split("plates:")[1]).group(1)
+    (tmp_path / "in" / "review-decisions.yaml").write_text(
+        f"review:\n  - {{plate: {plate}, well: B3, decision: exclude, reason: cracked well}}\n"
+        f"  - {{plate: {plate}, well: C4, decision: keep, reason: flagged noisy}}\n", "utf-8")
+    recipe.write_text(recipe.read_text("utf-8") + "include: [review-decisions.yaml]\n", "utf-8")
+    first = run(recipe, tmp_path / "one").out_dir
+    (tmp_path / "in" / "review-decisions.yaml").unlink()  # the stored recipe must not need it
+    second = rerun(first / "run.h5", tmp_path / "two").out_dir
+    for out in (first, second):
+        rates = pd.read_csv(out / "rates.csv").set_index("well")
+        assert "excluded" in rates.loc["B3", "flags"] and rates.loc["B3", "note"] == "excluded on review: cracked well"
+        assert rates.loc["C4", "note"] == "kept on review: flagged noisy" and pd.notna(rates.loc["C4", "rate"])
+        with h5py.File(out / "run.h5") as f:
+            assert [d["decision"] for d in json.loads(f.attrs["review"])] == ["exclude", "keep"]
