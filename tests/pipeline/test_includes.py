@@ -126,7 +126,7 @@ def test_a_run_with_a_fragment_and_a_rerun_of_its_stored_recipe(tmp_path: Path):
         f"review:\n  - {{plate: {plate}, well: B3, decision: exclude, reason: cracked well}}\n"
         f"  - {{plate: {plate}, well: C4, decision: keep, reason: flagged noisy}}\n", "utf-8")
     recipe.write_text(recipe.read_text("utf-8") + "include: [review-decisions.yaml]\n", "utf-8")
-    first = run(recipe, tmp_path / "one").out_dir
+    first = run(recipe, tmp_path / "one", jobs=2).out_dir  # worker processes parse the stored text
     (tmp_path / "in" / "review-decisions.yaml").unlink()  # the stored recipe must not need it
     second = rerun(first / "run.h5", tmp_path / "two").out_dir
     for out in (first, second):
