@@ -155,7 +155,7 @@ def compose(path: Path, text: str, given: Sequence[str | Path], read_text: Calla
     seen: dict[Path, str] = {path.resolve(): path.name}
     count = 0
 
-    def add(target: Path, rel: str, mark: str, chain: list[str], depth: int) -> None:
+    def add(target: Path, rel: str, mark: str, chain: list[str], depth: int, keys: list[Path]) -> None:
         nonlocal count
         count += 1
         if count > MAX_INCLUDES:
@@ -165,10 +165,10 @@ def compose(path: Path, text: str, given: Sequence[str | Path], read_text: Calla
             raise RecipeError(f"{' -> '.join([*chain, rel])}: fragments nested more than {MAX_DEPTH} deep",
                               hint="Include the inner fragments from the recipe itself.")
         key = target.resolve()
+        if key in keys:
+            raise RecipeError(f"include cycle: {' -> '.join([*chain, rel])}",
+                              hint=f"Remove the include of {rel} from {chain[-1]}.")
         if key in seen:
-            if rel in chain or seen[key] in chain:
-                raise RecipeError(f"include cycle: {' -> '.join([*chain, rel])}",
-                                  hint=f"Remove the include of {rel} from {chain[-1]}.")
             raise RecipeError(f"{chain[-1]}: {rel} is included twice (also by {seen[key]})",
                               hint="Include each fragment once.")
         seen[key] = chain[-1]
@@ -179,15 +179,16 @@ def compose(path: Path, text: str, given: Sequence[str | Path], read_text: Calla
         chunks.append(f"--- {mark} {rel}\n" + (body if body.endswith("\n") or not body else body + "\n"))
         for entry in entries(_quick_data(body, rel), rel, _line_of_include(body)):
             child = resolve(rel, entry)
-            add(base_dir / child, child, MARK, [*chain, rel], depth + 1)
+            add(base_dir / child, child, MARK, [*chain, rel], depth + 1, [*keys, key])
 
+    root = [path.resolve()]
     if not attached(text):
         for entry in entries(_quick_data(text, path.name), path.name, _line_of_include(text)):
-            add(base_dir / resolve("", entry), resolve("", entry), MARK, [path.name], 1)
+            add(base_dir / resolve("", entry), resolve("", entry), MARK, [path.name], 1, root)
     for g in given:
         target = Path(g).resolve()
         rel = Path(os.path.relpath(target, base_dir)).as_posix()
-        add(target, rel, MARK_GIVEN, [path.name], 1)
+        add(target, rel, MARK_GIVEN, [path.name], 1, root)
     out = "".join(chunks)
     if len(out.encode("utf-8")) > limit:
         raise RecipeError(f"{path.name}: the recipe with its fragments is over {limit} bytes",

@@ -80,6 +80,10 @@ def test_cycles_repeats_and_bad_paths_are_refused(tmp_path: Path):
     files["a.yaml"] = "include: [recipe.yaml]\n"
     with pytest.raises(RecipeError, match=r"include cycle: recipe.yaml -> review.yaml -> a.yaml -> recipe.yaml"):
         load(_write(tmp_path, files))
+    files = {"recipe.yaml": BASE.replace("[review.yaml]", "[review.yaml, b.yaml]"), "review.yaml": "review: []\n",
+             "b.yaml": "include: [review.yaml]\n"}
+    with pytest.raises(RecipeError, match=r"b.yaml: review.yaml is included twice \(also by recipe.yaml\)"):
+        load(_write(tmp_path, files))  # twice, not a cycle
     for bad, why in (("/etc/x.yaml", "absolute path"), ("code.py", "not a YAML file"), ("gone.yaml", "not found")):
         with pytest.raises(RecipeError, match=why):
             load(_write(tmp_path, {"recipe.yaml": BASE.replace("[review.yaml]", f"[{bad!r}]")}))
