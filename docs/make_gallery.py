@@ -83,6 +83,16 @@ REVIEW_CLICKS = """(async () => {
   document.getElementById('save').click(); return 1; })()"""
 """A reader's first decisions on the review page (exclude, keep, exclude), saved, before the screenshot."""
 
+LINK_CLICK = """(async () => {
+  const link = document.querySelector('figure[id^="fig-progress-curves"] a.well-link');
+  if (!link) { return null; }
+  const box = link.querySelector('rect').getBoundingClientRect();
+  link.dispatchEvent(new MouseEvent('click', {bubbles: true, cancelable: true, view: window}));
+  await new Promise(r => setTimeout(r, 50));
+  return {hash: location.hash, title: link.querySelector('title').textContent, width: box.width};
+})()"""
+"""A reader clicks the first flagged cell of the progress-curve figure; the screenshot shows where it leads."""
+
 
 def _module(path: Path, name: str) -> Any:
     import importlib.util
@@ -171,6 +181,16 @@ def write_gallery(runs: list[tuple[str, str, Path]], gallery: Path, screenshot: 
             written.append(shot)
             lines += [f"The top of its `report.html` in headless Chromium (1280 × 1600 CSS pixels; the whole page "
                       f"is {seen.height} px tall):", "", f"![The top of the report: {name}]({shot})", ""]
+        if browser is not None and check_page is not None and name == "fluorescence-standard-curve":
+            seen = check_page(run_dir / "report.html", browser, width=1280, height=900, script=LINK_CLICK)
+            if seen.errors or not seen.result or not str(seen.result.get("hash", "")).startswith("#well-"):
+                raise SystemExit(f"a well link of {name} did not lead to its panel: {seen.result} {seen.errors}")
+            shot = f"link-followed_{name}.png"
+            (gallery / shot).write_bytes(seen.screenshot)
+            written.append(shot)
+            lines += [f"Every flagged sample well on the plate map and on the progress curves is a link to its "
+                      f"panel (the tooltip names its flags: {seen.result['title']}). After a click on the first "
+                      "flagged cell of the progress curves:", "", f"![A followed well link: {name}]({shot})", ""]
         parser = _Figures()
         parser.feed((run_dir / "report.html").read_text("utf-8"))
         for png in sorted((run_dir / "figures").glob("*.png")):
@@ -191,8 +211,10 @@ def write_gallery(runs: list[tuple[str, str, Path]], gallery: Path, screenshot: 
             written.append(shot)
             lines += ["### The review page", "",
                       "`vzero review run.h5` writes `review.html`: step through the flagged sample wells with the "
-                      "keyboard or the mouse, keep or exclude each with a reason, and save the decisions as recipe "
-                      "`exclusions:` entries. Here after three decisions:", "",
+                      "keyboard or the mouse, keep or exclude each with a reason, and save every decision as a "
+                      "recipe fragment (`review-decisions.yaml`, a `review:` list) that the recipe includes "
+                      "(`include: [review-decisions.yaml]`) or `vzero rerun` takes as a second `--recipe`. Here "
+                      "after three decisions:", "",
                       f"![The review page: {name}]({shot})", ""]
     (gallery / "README.md").write_text("\n".join(lines), "utf-8")
     return [*written, "README.md"]

@@ -48,10 +48,11 @@ def _first_paragraph(doc: str | None) -> str:
 
 def render() -> str:
     """The page's text."""
+    from vzero import includes
     from vzero.manager import make_manager
     from vzero.plugins.export.assay import ASSAY, MOLECULE_KEYS
-    from vzero.plugins.kinetics.exclusions import EXCLUSION_KEYS, OVERRIDE_KEYS
-    from vzero.recipe import PLATE_KEYS, TOP_LEVEL
+    from vzero.plugins.kinetics.exclusions import DECISIONS, EXCLUSION_KEYS, OVERRIDE_KEYS, REVIEW_KEYS
+    from vzero.recipe import MAX_RECIPE_BYTES, PLATE_KEYS, TOP_LEVEL
 
     registry = make_manager(autoload=False).registry
     out = [
@@ -91,6 +92,31 @@ def render() -> str:
         + " (a whole well, or its reads at `time`: one time or a `[start, end]` range); `overrides` entries take "
         + ", ".join(f"`{k}`" for k in sorted(OVERRIDE_KEYS)) + " (fix a well's rate window by hand). Every entry"
         " needs a `reason`.",
+        "",
+        "## review",
+        "",
+        "`review` entries record the decisions made about flagged wells (`vzero review RUN.h5` writes them):"
+        " each takes " + ", ".join(f"`{k}`" for k in sorted(REVIEW_KEYS)) + ", with `decision` one of "
+        + ", ".join(f"`{d}`" for d in DECISIONS) + ". `exclude` leaves the whole well out (flag `excluded`, no"
+        " rate); `keep` leaves the well as the run has it (the fit step's `exclude_flags` still apply). Either"
+        " way the reason goes into the rates table's `note` column (`excluded on review: ...`, `kept on review:"
+        " ...`) and the audit file keeps every decision (root attribute `review`). A well decided twice, or kept"
+        " here but excluded whole under `exclusions`, is an error.",
+        "",
+        "## include",
+        "",
+        "`include` names recipe fragments, YAML files of data merged into the recipe before it is checked:"
+        " `include: [review-decisions.yaml]`. Paths are relative to the file that names them (no absolute"
+        " paths; `.yaml` or `.yml` only). A fragment may hold only "
+        + ", ".join(f"`{k}`" for k in includes.FRAGMENT_KEYS) + ": never plugins, steps or plates."
+        " Its `exclusions`, `overrides` and `review` items come after the recipe's own, in the order the"
+        " fragments are named; its `assay` keys are added, and a key given twice is an error naming both"
+        f" files. At most {includes.MAX_INCLUDES} fragments, nested at most {includes.MAX_DEPTH} deep, the whole"
+        f" under {MAX_RECIPE_BYTES:,} bytes; an include cycle is refused with the chain of files. `vzero rerun"
+        " RUN.h5 --recipe recipe.yaml --recipe fragment.yaml` merges a fragment named on the command line the"
+        " same way. The run stores the recipe with each fragment's text attached (after a line `--- # vzero"
+        " include: FILE`), so the audit file and a later rerun need no fragment file; a message about a"
+        " fragment's item names the fragment file and its line.",
         "",
         "## steps",
         "",

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import glob
 import hashlib
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -52,6 +52,8 @@ TOP_LEVEL: dict[str, Param] = {
     "assay": Param("mapping", {}, "assay conditions: temperature, pH, buffer, enzyme (flows into exports)"),
     "exclusions": Param("list", [], "wells or reads excluded, each with a reason"),
     "overrides": Param("list", [], "per-well settings fixed by hand, each with a reason"),
+    "review": Param("list", [], "decisions made on review, one per well: keep or exclude, each with a reason"),
+    "include": Param("list", [], "recipe fragments (YAML data files, relative to the recipe) merged into it"),
 }
 PLATE_KEYS = {"name", "data", "layout", "water_peak_reads", "manifest"}
 #: Plate keys that name input files (stored byte for byte in the audit file). ``water_peak_reads``: per-well
@@ -105,6 +107,8 @@ class Recipe:
     plugin_override: list[str] | None = None
     #: notices of the check that are not errors (an old plate key read under its new name), each with file:line.
     notices: list[str] = field(default_factory=list)
+    #: where each attached fragment starts: (line offset in the text, file name); the recipe itself is (0, name).
+    segments: list[tuple[int, str]] = field(default_factory=list)
 
     @property
     def sha256(self) -> str:
@@ -129,8 +133,17 @@ class Recipe:
             path = path[:-1]
         return self.lines.get((), 0)
 
+    def locate(self, line: int) -> tuple[str, int]:
+        """The file (recipe or included fragment) and the line within it of ``line`` of the recipe text."""
+        offset, name = 0, Path(self.path).name
+        for start, file in self.segments[1:]:
+            if start < line:
+                offset, name = start, file
+        return name, line - offset
+
     def where(self, path: tuple[Any, ...]) -> str:
-        return f"{Path(self.path).name}:{self.line_of(path)} {format_path(path)}"
+        name, line = self.locate(self.line_of(path))
+        return f"{name}:{line} {format_path(path)}"
 
 
 def format_path(path: tuple[Any, ...]) -> str:
@@ -153,31 +166,121 @@ _LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 def parse(text: str, path: str) -> Recipe:
     """Parse YAML ``text`` (from ``path``, used in messages) into a :class:`Recipe` with line numbers.
 
-    Raises :class:`RecipeError` for YAML syntax errors and duplicated keys.
+    A text with fragments attached (see :mod:`vzero.includes`) is one recipe document followed by one
+    document per fragment; the fragments' data are merged into the recipe's and every line is reported in
+    the file it came from. Raises :class:`RecipeError` for YAML syntax errors, duplicated keys and fragments
+    that do not fit.
     """
+    from vzero import includes
+
     name = Path(path).name
+    parts = includes.attached(text)
+    segments = [(0, name)] + [(a.line, a.path) for a in parts]
+
+    def place(line: int) -> str:
+        offset, file = max((s for s in segments if s[0] < line or s[0] == 0), key=lambda s: s[0])
+        return f"{file}:{line - offset}"
+
+    nodes: list[Any] = []
     try:
         loader = _LOADER(text)  # the safe loader; libyaml's C version where PyYAML has it
         try:
-            node = loader.get_single_node()
-            if node is not None:
-                _check_size(node, text, name)
-            data = loader.construct_document(node) if node is not None else None
+            while loader.check_node():
+                node = loader.get_node()
+                _check_size(node, text, place(node.start_mark.line + 1).split(":")[0])
+                nodes.append(node)
+            docs = [loader.construct_document(n) for n in nodes]
         finally:
             loader.dispose()
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = mark.line + 1 if mark is not None else 0
         problem = getattr(exc, "problem", None) or str(exc)
-        raise RecipeError(f"{name}:{line} is not valid YAML: {problem}") from None
+        raise RecipeError(f"{place(line) if line else name + ':0'} is not valid YAML: {problem}") from None
+    if len(nodes) > 1 + len(parts):
+        raise RecipeError(f"{place(nodes[1 + len(parts)].start_mark.line + 1)} a recipe is one YAML document; "
+                          "this text holds another one (a '---' line)",
+                          hint="Remove the extra '---' line, or name other files under include:.")
+    data = docs[0] if nodes else None
     if not isinstance(data, dict):
         raise RecipeError(f"{name}:1 a recipe must be a mapping of keys (vzero, name, plates, steps, ...)")
     lines: dict[tuple[Any, ...], int] = {}
     dupes: list[str] = []
-    _walk(node, (), lines, dupes, name)
+    _walk(nodes[0], (), lines, dupes, place)
+    if parts or "include" in data:  # an include: key with nothing attached would silently drop its data
+        data = _merge_fragments(data, nodes[1:], docs[1:], parts, lines, dupes, place)
     if dupes:
         raise RecipeError(dupes)
-    return Recipe(path=str(path), text=text, data=data, lines=lines)
+    return Recipe(path=str(path), text=text, data=data, lines=lines, segments=segments)
+
+
+def _merge_fragments(data: dict[str, Any], nodes: list[Any], docs: list[Any], parts: list[Any],
+                     lines: dict[tuple[Any, ...], int], problems: list[str],
+                     place: Callable[[int], str]) -> dict[str, Any]:
+    """The recipe's data with the attached fragments' merged in (see :mod:`vzero.includes`); problems are
+    added to ``problems``, each naming the fragment file and line."""
+    from vzero import includes
+
+    if len(nodes) < len(parts):
+        missing = parts[len(nodes)]
+        raise RecipeError(f"{place(missing.line + 1)} the fragment {missing.path} is empty; a fragment is a mapping "
+                          "of exclusions, overrides, review or assay")
+    by_path: dict[str, Any] = {"": data}
+    include_line = {"": lines.get(("include",), 1)}
+    for part, doc, node in zip(parts, docs, nodes, strict=True):
+        by_path[part.path] = doc
+        keys = node.value if isinstance(node, yaml.MappingNode) else []
+        include_line[part.path] = next((k.start_mark.line + 1 for k, _ in keys
+                                        if getattr(k, "value", None) == "include"), part.line + 1)
+    want = includes.expected(by_path, [p.path for p in parts if p.given], include_line)
+    got = [p.path for p in parts]
+    if want != got:
+        raise RecipeError(f"{place(1)} the recipe names the fragments {want or 'none'} but carries {got}",
+                          hint="Read the recipe from its file (its include: files beside it) so that vzero attaches "
+                               "them, or restore the text as the audit file stored it.")
+    out = dict(data)
+    assay_from: dict[str, str] = {}
+    for doc, node in zip(docs, nodes, strict=True):
+        where = place(node.start_mark.line + 1)
+        if doc is None:
+            continue
+        if not isinstance(doc, dict) or not isinstance(node, yaml.MappingNode):
+            problems.append(f"{where} a fragment must be a mapping of keys ({', '.join(includes.FRAGMENT_KEYS)})")
+            continue
+        for key_node, value_node in node.value:
+            key, at = key_node.value, place(key_node.start_mark.line + 1)
+            value = doc.get(key)
+            if key not in includes.FRAGMENT_KEYS:
+                problems.append(f"{at} {key}: not allowed in a fragment; fragments hold data only "
+                                f"({', '.join(k for k in includes.FRAGMENT_KEYS if k != 'include')}): write "
+                                f"{key!r} in the recipe itself")
+            elif key in includes.LIST_KEYS:
+                if not isinstance(value, list) or not isinstance(value_node, yaml.SequenceNode):
+                    problems.append(f"{at} {key}: expected a list of items")
+                    continue
+                start = len(out.get(key) or [])
+                out[key] = [*(out.get(key) or []), *value]
+                lines.setdefault((key,), key_node.start_mark.line + 1)
+                for i, item in enumerate(value_node.value):
+                    _walk(item, (key, start + i), lines, problems, place)
+            elif key == "assay":
+                if not isinstance(value, dict) or not isinstance(value_node, yaml.MappingNode):
+                    problems.append(f"{at} assay: expected a mapping of assay conditions")
+                    continue
+                merged = dict(out.get("assay") or {})
+                for k_node, v_node in value_node.value:
+                    k = k_node.value
+                    if k in merged:
+                        first = assay_from.get(k) or place(lines.get(("assay", k), 1))
+                        problems.append(f"{place(k_node.start_mark.line + 1)} assay.{k}: already given ({first}); "
+                                        "keep one")
+                        continue
+                    merged[k] = value[k]
+                    assay_from[k] = place(k_node.start_mark.line + 1)
+                    _walk(v_node, ("assay", k), lines, problems, place)
+                    lines[("assay", k)] = k_node.start_mark.line + 1
+                out["assay"] = merged
+    return out
 
 
 def _check_size(root: Any, text: str, name: str) -> None:
@@ -216,7 +319,8 @@ def _check_size(root: Any, text: str, name: str) -> None:
         size(root)
 
 
-def _walk(node: Any, path: tuple[Any, ...], lines: dict[tuple[Any, ...], int], dupes: list[str], name: str) -> None:
+def _walk(node: Any, path: tuple[Any, ...], lines: dict[tuple[Any, ...], int], dupes: list[str],
+          place: Callable[[int], str]) -> None:
     lines.setdefault(path, node.start_mark.line + 1)
     if isinstance(node, yaml.MappingNode):
         seen: dict[Any, int] = {}
@@ -224,28 +328,40 @@ def _walk(node: Any, path: tuple[Any, ...], lines: dict[tuple[Any, ...], int], d
             key = key_node.value
             if key in seen:
                 dupes.append(
-                    f"{name}:{key_node.start_mark.line + 1} {format_path((*path, key))}: key given twice "
-                    f"(first on line {seen[key]}); keep one"
+                    f"{place(key_node.start_mark.line + 1)} {format_path((*path, key))}: key given twice "
+                    f"(first on line {place(seen[key]).rsplit(':', 1)[1]}); keep one"
                 )
             seen[key] = key_node.start_mark.line + 1
             lines[(*path, key)] = key_node.start_mark.line + 1
-            _walk(value_node, (*path, key), lines, dupes, name)
+            _walk(value_node, (*path, key), lines, dupes, place)
     elif isinstance(node, yaml.SequenceNode):
         for i, item in enumerate(node.value):
-            _walk(item, (*path, i), lines, dupes, name)
+            _walk(item, (*path, i), lines, dupes, place)
 
 
-def load(path: str | Path) -> Recipe:
-    """Read and parse a recipe file; a missing or unreadable file is a :class:`RecipeError`."""
-    p = Path(path)
+def load(path: str | Path, fragments: Sequence[str | Path] = ()) -> Recipe:
+    """Read and parse a recipe file with the fragments it includes (``include:``, read from beside it) and
+    the ``fragments`` given on the command line, attached to its text (:mod:`vzero.includes`); a missing or
+    unreadable file is a :class:`RecipeError`."""
+    from vzero import includes
+
+    text = _read_text(Path(path), "recipe")
+    text = includes.compose(Path(path), text, fragments, lambda p: _read_text(p, "fragment"), MAX_RECIPE_BYTES)
+    return parse(text, str(path))
+
+
+def _read_text(p: Path, what: str) -> str:
+    """The text of a recipe or fragment file, checked: present, within the size limit, UTF-8, no NUL."""
+    path = str(p)
     try:
         raw = p.read_bytes()
     except FileNotFoundError:
-        raise RecipeError(f"recipe file {str(path)!r} not found", hint="Check the path.") from None
+        raise RecipeError(f"{what} file {str(path)!r} not found",
+                          hint="Check the path (a fragment's path is relative to the file that includes it).") from None
     except OSError as exc:
-        raise RecipeError(f"recipe file {str(path)!r} cannot be read: {exc.strerror}") from None
+        raise RecipeError(f"{what} file {str(path)!r} cannot be read: {exc.strerror}") from None
     if len(raw) > MAX_RECIPE_BYTES:
-        raise RecipeError(f"{p.name}:1 the recipe is {len(raw)} bytes; recipes over {MAX_RECIPE_BYTES} bytes are "
+        raise RecipeError(f"{p.name}:1 the {what} is {len(raw)} bytes; recipes over {MAX_RECIPE_BYTES} bytes are "
                           "refused", hint="List many plates in a manifest CSV (plates: [{manifest: plates.csv}]).")
     try:
         text = raw.decode("utf-8-sig")
@@ -257,7 +373,7 @@ def load(path: str | Path) -> Recipe:
         line = text[: text.index("\x00")].count("\n") + 1
         raise RecipeError(f"{p.name}:{line} holds a NUL character; a recipe is plain text",
                           hint="Save the recipe as plain UTF-8 text.")
-    return parse(text, str(path))
+    return text
 
 
 #: Recipes longer than this are refused before parsing (a recipe is a page of text; batches use manifests).

@@ -120,7 +120,8 @@ def header(f: Any) -> dict[str, Any]:
         "format", "format_version", "vzero_version", "created", "run_id", "recipe_name", "recipe_path",
         "recipe_text", "recipe_sha256") if k in a}
     for key, default in (("versions", {}), ("plugins", {}), ("warnings", []), ("failed_plates", {}),
-                         ("assay", {}), ("exclusions", []), ("overrides", []), ("derived_from", None)):
+                         ("assay", {}), ("exclusions", []), ("overrides", []), ("review", []),
+                         ("derived_from", None)):
         out[key] = json_attr(f, key, default)
     return out
 

@@ -149,7 +149,7 @@ class AuditWriter:
                    "sha256": s.sha256}
             for name, s in plugins.sources.items()
         })
-        for key in ("assay", "exclusions", "overrides"):
+        for key in ("assay", "exclusions", "overrides", "review"):
             a[key] = to_json(rec.data.get(key) or ({} if key == "assay" else []))
         self.inputs = self.f.create_group("inputs", track_order=True)
         self.steps = self.f.create_group("steps", track_order=True)

@@ -181,6 +181,7 @@ def rerun(
     out: str | Path,
     *,
     recipe: str | Path | None = None,
+    fragments: Sequence[str | Path] = (),
     plugins: Sequence[str] = (),
     allow_changed_plugins: bool = False,
     force: bool = False,
@@ -189,7 +190,8 @@ def rerun(
 
     ``plugins`` are the plugin files (or module names) the user hands over for the stored recipe's
     ``plugins`` entries (see the module docstring); with a recipe of the user's own they are refused (name
-    them in that recipe).
+    them in that recipe). ``fragments`` are recipe fragments merged into ``recipe`` (as if its ``include:``
+    named them; see :mod:`vzero.includes`).
     """
     from vzero.audit import reader
     from vzero.errors import AuditFileError, PluginError, RecipeError
@@ -200,6 +202,9 @@ def rerun(
         head = reader.header(f)
     source = StoredInputs.from_audit(old)
     stored_plugins = head.get("plugins") or {}
+    if recipe is None and fragments:
+        raise RecipeError("a fragment was given without a recipe to merge it into",
+                          hint="Give the recipe first: --recipe recipe.yaml --recipe fragment.yaml.")
     if recipe is None:
         text = str(head["recipe_text"])
         if hashlib.sha256(text.encode("utf-8")).hexdigest() != str(head.get("recipe_sha256", "")):
@@ -213,7 +218,7 @@ def rerun(
         if plugins:
             raise PluginError("--plugin is for the recipe stored in the audit file",
                               hint="Name the plugins in your own recipe's 'plugins' list instead.")
-        rec = load(recipe)
+        rec = load(recipe, fragments)
         changed = check_plugins(rec.plugin_entries, rec.base_dir, stored_plugins, allow_changed_plugins)
     derived = {
         "path": str(Path(old).resolve()),

@@ -35,6 +35,9 @@ from vzero.plugins.kinetics.flags import Flag, names_array
 
 EXCLUSION_KEYS = {"plate", "well", "time", "reason"}
 OVERRIDE_KEYS = {"plate", "well", "start", "end", "reason"}
+REVIEW_KEYS = {"plate", "well", "decision", "reason"}
+DECISIONS = ("keep", "exclude")
+"""What a reviewer may decide about a flagged well: keep it as the run left it, or exclude it."""
 READ_TOLERANCE_S = 0.5
 
 
@@ -59,7 +62,8 @@ def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str]
 
     place = where or format_path
     problems: list[str] = []
-    for top, keys, times in (("exclusions", EXCLUSION_KEYS, ("time",)), ("overrides", OVERRIDE_KEYS, ("start", "end"))):
+    for top, keys, times in (("exclusions", EXCLUSION_KEYS, ("time",)), ("overrides", OVERRIDE_KEYS, ("start", "end")),
+                             ("review", REVIEW_KEYS, ())):
         items = data.get(top) or []
         if not isinstance(items, list):
             problems.append(f"{place((top,))}: expected a list of items like {{plate, well, reason}}")
@@ -73,7 +77,8 @@ def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str]
             for key in item:
                 if key not in keys:
                     problems.append(f"{place((*path, key))}: unknown key; valid keys: {', '.join(sorted(keys))}")
-            required = ["plate", "well", "reason", *([t for t in times] if top == "overrides" else [])]
+            required = ["plate", "well", "reason", *([t for t in times] if top == "overrides" else []),
+                        *(["decision"] if top == "review" else [])]
             for key in required:
                 if key not in item:
                     problems.append(f"{place(path)}: missing {key!r}" + (" (say why; it is kept with the results)"
@@ -89,14 +94,48 @@ def check_items(data: Mapping[str, Any], where: Callable[[tuple[Any, ...]], str]
                                 f"plates: {', '.join(plates)}")
             if "well" in item and not (isinstance(item["well"], str) and is_well(item["well"])):
                 problems.append(f"{place((*path, 'well'))}: expected a well name like 'B7', got {item['well']!r}")
-            problems += _check_times(item, top, path, place)
-            if top == "overrides" and isinstance(item.get("well"), str) and isinstance(item.get("plate"), str):
+            if top == "review" and "decision" in item and item["decision"] not in DECISIONS:
+                problems.append(f"{place((*path, 'decision'))}: expected keep or exclude, got {item['decision']!r}")
+            if top != "review":
+                problems += _check_times(item, top, path, place)
+            if top in ("overrides", "review") and isinstance(item.get("well"), str) and isinstance(
+                    item.get("plate"), str):
                 k = (item["plate"], normalise_well(item["well"]) if is_well(item["well"]) else item["well"])
                 if k in seen:
-                    problems.append(f"{place(path)}: well {k[1]} of plate {k[0]} is overridden twice "
+                    twice = "overridden" if top == "overrides" else "decided"
+                    problems.append(f"{place(path)}: well {k[1]} of plate {k[0]} is {twice} twice "
                                     f"(also item {seen[k]}); keep one")
                 seen[k] = i
+    problems += _kept_but_excluded(data, place)
     return problems
+
+
+def _kept_but_excluded(data: Mapping[str, Any], place: Callable[[tuple[Any, ...]], str]) -> list[str]:
+    """A well that a review decided to keep while ``exclusions`` leaves it out whole: a contradiction."""
+    from vzero.plugins.kinetics.wells import is_well, normalise_well
+
+    def key(item: Any) -> tuple[str, str] | None:
+        if not isinstance(item, dict) or not isinstance(item.get("plate"), str) or not isinstance(
+                item.get("well"), str) or not is_well(item["well"]):
+            return None
+        return item["plate"], normalise_well(item["well"])
+
+    excluded = {key(e): i for i, e in enumerate(data.get("exclusions") or [] if isinstance(
+        data.get("exclusions"), list) else []) if key(e) and "time" not in e}
+    out = []
+    for i, item in enumerate(data.get("review") or [] if isinstance(data.get("review"), list) else []):
+        k = key(item)
+        if k in excluded and item.get("decision") == "keep":
+            out.append(f"{place(('review', i))}: well {k[1]} of plate {k[0]} is kept on review but excluded by "
+                       f"{place(('exclusions', excluded[k]))}; remove one of the two")
+    return out
+
+
+def review_items(recipe: Mapping[str, Any]) -> tuple[list[Mapping[str, Any]], list[Mapping[str, Any]]]:
+    """The recipe's review decisions as (exclusions, kept wells): each ``exclude`` decision acts as an
+    exclusion of the whole well; each ``keep`` decision only records its reason with the well."""
+    items = [r for r in recipe.get("review") or [] if isinstance(r, Mapping)]
+    return ([r for r in items if r.get("decision") == "exclude"], [r for r in items if r.get("decision") == "keep"])
 
 
 def _check_times(item: Mapping[str, Any], top: str, path: tuple[Any, ...], place: Callable[..., str]) -> list[str]:
@@ -157,7 +196,10 @@ def apply_exclusions(traces: Traces, recipe: Mapping[str, Any]) -> Traces:
     _raise_if_bad(recipe)
     items = _rows(traces, recipe.get("exclusions") or [], "exclusions")
     notes = _rows(traces, recipe.get("overrides") or [], "overrides")
-    if not items and not notes:
+    review_out, review_kept = review_items(recipe)
+    dropped = _rows(traces, review_out, "review decisions")
+    kept = _rows(traces, review_kept, "review decisions")
+    if not items and not notes and not dropped and not kept:
         return traces
     n = len(traces.wells)
     mask = traces.mask.copy()
@@ -180,6 +222,12 @@ def apply_exclusions(traces: Traces, recipe: Mapping[str, Any]) -> Traces:
         hit = (traces.time >= lo) & (traces.time <= hi)
         mask[row, hit] = False
         note[row].append(f"reads at {label} excluded ({int(hit.sum())}): {reason}")
+    for row, item in dropped:
+        excluded[row] = True
+        mask[row, :] = False
+        note[row].append(f"excluded on review: {str(item['reason']).strip()}")
+    for row, item in kept:
+        note[row].append(f"kept on review: {str(item['reason']).strip()}")
     for row, item in notes:
         note[row].append(f"window fixed to {_seconds(item['start']):g}-{_seconds(item['end']):g} s: "
                          f"{str(item['reason']).strip()}")

@@ -11,6 +11,7 @@ from __future__ import annotations
 import base64
 import datetime as _dt
 import functools
+import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -35,6 +36,11 @@ class Figure:
     png: bytes
     svg: bytes
     section: str
+    areas: list[tuple[str, float, float, float, float]] = field(default_factory=list)
+    """Where flagged wells' cells lie in the image: (well, left, top, right, bottom), fractions of its size."""
+    links: list[dict[str, Any]] = field(default_factory=list)
+    """The links drawn over the image (to each flagged well's panel): id, title, x, y, w, h in percent."""
+    plate: str = ""
 
     @property
     def png_b64(self) -> str:
@@ -147,8 +153,9 @@ class _Drawing:
             return
         figures.load_matplotlib()  # once, here, so that forked children inherit it
         done = parallel.run_all([job for job, _, _ in self.pending], [w for _, w, _ in self.pending])
-        for (_, _, entry), (png, svg, note) in zip(self.pending, done, strict=True):
+        for (_, _, entry), (png, svg, note, areas) in zip(self.pending, done, strict=True):
             entry.png, entry.svg = png, svg
+            entry.areas = [tuple(a) for a in json.loads(areas.decode("utf-8"))]
             if note:
                 entry.caption += " " + note.decode("utf-8")
         self.pending.clear()
@@ -157,11 +164,11 @@ class _Drawing:
 def _job(make: Callable[[], Any], dpi: int) -> parallel.Job:
     """The job for one figure: ``make()`` returns the figure, or (figure, caption note)."""
 
-    def job() -> tuple[bytes, bytes, bytes]:
+    def job() -> tuple[bytes, bytes, bytes, bytes]:
         made = make()
         fig, note = made if isinstance(made, tuple) else (made, "")
         png, svg = figures.render(fig, dpi=dpi)
-        return png, svg, note.encode("utf-8")
+        return png, svg, note.encode("utf-8"), json.dumps(figures.cell_areas(fig)).encode("utf-8")
 
     return job
 
@@ -179,6 +186,45 @@ def _transform_wells(kind: str, selected: str, titles: Mapping[str, str]) -> str
     return (f"The straight lines assume a Michaelis–Menten law, which the selected fit ({name}) does not: at high "
             "substrate the points bend away from them. No Hill plot: this group's question is substrate "
             "inhibition, not cooperativity.")
+
+
+def _selected_transforms(g: str, rates: pd.DataFrame, fits: pd.DataFrame, in_group: np.ndarray,
+                         used: np.ndarray | None, options: Mapping[str, Any], pick: str, kind: str,
+                         models: Mapping[str, Any], titles: Mapping[str, str], x_unit: str,
+                         rate_unit: str) -> tuple[pd.DataFrame, dict[str, Any], str] | None:
+    """The transforms of group ``g`` drawn from its selected fit (:mod:`vzero.plugins.report.transform_figures`):
+    the table of the wells that fit used, the selected model's curve per transform, and the caption's words.
+    None when the selected model cannot be evaluated here (not installed, or a parameter not determined)."""
+    from vzero.plugins.report import transform_figures as tf
+
+    x_col = str(options["x"])
+    rate_of = _evaluators(fits, g, "substrate", models).get(pick) if pick else None
+    if rate_of is None or x_col not in rates or "rate" not in rates:
+        return None
+    mask = tf.selected_points(rates, in_group, used, x_col, str(options.get("inhibitor", "inhibitor")))
+    if not mask.any():
+        return None
+    hill = kind == "cooperativity"
+    vmax = tf.limiting_rate(fits, g, pick, models) if hill else float("nan")
+    table = tf.table(g, rates, mask, x_col, vmax, hill, x_unit, rate_unit)
+    plots = list(dict.fromkeys(table["plot"].astype(str)))
+    s = pd.to_numeric(rates.loc[mask, x_col], errors="coerce").to_numpy(float)
+    curves = tf.model_curves(rate_of, s, vmax, plots)
+    name = content.model_title(pick, titles)
+    rows = fits[(fits["group"].astype(str) == g) & (fits["model"].astype(str) == pick)] if len(fits) else fits
+    n_fit = pd.to_numeric(rows["n_points"], errors="coerce").dropna() if "n_points" in rows else pd.Series([])
+    count = int(mask.sum())
+    agree = "" if n_fit.empty or int(n_fit.iloc[0]) == count else (
+        f" (the fit reports {int(n_fit.iloc[0])} points; the report re-applies its rule and finds {count})")
+    words = (f"Drawn from the {count} wells the group's selected fit ({name}) used{agree}; the solid curve in each "
+             f"panel is that fit carried into the transform's coordinates, the dashed line the transform's own "
+             f"straight line through the points, which assumes Michaelis–Menten kinetics.")
+    if hill:
+        words += (f" The Hill plot uses the Vmax of the selected fit ({name}); its points outside 10–90 % of that "
+                  "Vmax are hollow and not used for its line.")
+    else:
+        words += " No Hill plot: this group's question is not cooperativity."
+    return table, curves, words
 
 
 def build(inp: ReportInput) -> dict[str, bytes]:
@@ -219,7 +265,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                 "Each circle is a sample well, darker for a faster initial rate. Hatched grey: no rate. A heavy "
                 "ring marks a flagged sample well, a cross a sample well left out of the fit (reasons under Flagged "
                 "wells and Exclusions). Small pale squares: blanks, standards and other wells that are not "
-                "fitted.", b"", b"", "plates")))
+                "fitted. Click a ringed well to open its panel under Flagged wells.", b"", b"", "plates",
+                plate=plate)))
         traces = inp.traces.get(plate)
         std = calibration.curve_of(traces, inp.recipe) if traces is not None else None
         if std is not None and "error" in std:
@@ -245,11 +292,12 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             cap = ("Every well's reads (grey) in plate geometry, all cells on the same time scale and each on its "
                    "own signal scale, so that slow wells can be judged (the span Δ of each scale is printed in the "
                    "cell where there is room). The orange line has the slope reported as the well's rate and spans "
-                   "the reads it came from. Flagged sample wells have a heavy frame and a tinted cell; blanks, "
+                   "the reads it came from. Flagged sample wells have a heavy frame, a tinted cell and their flags "
+                   "as two-letter codes (legend above the plate; click the cell to open the well's panel); blanks, "
                    "standards and other wells are pale.")
             figs.append(drawing.add(_job(make, 150), WEIGHTS["progress_grid"], Figure(
                 _unique(f"progress-curves_{figures.slug(plate)}", taken), f"Progress curves: {plate}",
-                cap, b"", b"", "plates")))
+                cap, b"", b"", "plates", plate=plate)))
 
     # per group: rates against concentration, transforms, tables
     groups: list[dict[str, Any]] = []
@@ -319,18 +367,25 @@ def build(inp: ReportInput) -> dict[str, bytes]:
             gd = gd[gd["plot"].astype(str) != figures.HILL_PLOT]
         if both is not None:  # the inhibition figure's double-reciprocal panel shows the selected fit on every
             gd = gd.iloc[0:0]  # well; the stage's transforms of the uninhibited wells alone would say less
+        x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
+                                                and len(rates) else "")
+        selected = _selected_transforms(g, rates, fits, in_group, used, options, pick_raw, lead["kind"], inp.models,
+                                        titles, x_unit, rate_unit) if both is None and len(gd) else None
+        if selected is not None:
+            gd, curves_t, why = selected
+        else:
+            curves_t, why = {}, _transform_wells(lead["kind"], pick_raw, titles)
         if len(gd):
-            x_unit = rate_units.get(x_col, "") or (str(rates[f"{x_col}_unit"].iloc[0]) if f"{x_col}_unit" in rates
-                                                    and len(rates) else "")
             make = functools.partial(figures.transforms, g, gd, content.pretty_unit(rate_unit),
-                                     content.pretty_unit(x_unit))
+                                     content.pretty_unit(x_unit), curves=curves_t,
+                                     curve_label=content.model_title(pick_raw, titles) if curves_t else "")
             block["figures"].append(drawing.add(_job(make, 130), WEIGHTS["transforms"], Figure(
                 _unique(f"transforms_{figures.slug(g)}", taken),
                 f"{g}: " + ("Hill plot and linear transforms" if lead["kind"] == "cooperativity" else
                             "linear transforms"),
                 "Each transform's straight line and the estimates it implies are shown for inspection only: "
                 "transforms distort the errors, so the reported parameters come from the nonlinear fit. "
-                + _transform_wells(lead["kind"], pick_raw, titles), b"", b"", "groups")))
+                + why, b"", b"", "groups")))
         _curve_figures(block, g, tables, comparison, drawing, taken)
         groups.append(block)
     drawing.flush()
@@ -345,6 +400,8 @@ def build(inp: ReportInput) -> dict[str, bytes]:
                                   rate_units)
     for rec in records:
         rec["svg"] = panels.sparkline_svg(rec)
+    for f in figs:
+        f.links = panels.figure_links(f.areas, f.plate, records)
     flagged = panels.flag_groups(records)
     exclusions = content.exclusion_rows(rates, options, inp.recipe, inp.models)
     html = render_html({

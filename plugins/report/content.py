@@ -75,6 +75,51 @@ def num(x: Any, sig: int = 4) -> str:
     return f"{v / 10**e:.{sig - 1}f} × 10{str(e).translate(_SUPERSCRIPT)}"
 
 
+def plain(x: Any, sig: int = 3) -> str:
+    """A number in running text: ``sig`` significant figures without trailing zeros (``0.05``, ``12.5``,
+    ``1200``), a power of ten outside 0.001 to 100 000 (``3.2 × 10⁻⁵``); "not determined" when missing. The
+    one formatter for numbers in the report's sentences, beside :func:`p_text` for p-values and
+    :func:`estimate_text` for estimates with their error and interval."""
+    if not _finite(x):
+        return NOT_DETERMINED
+    v = float(x)
+    if v == 0:
+        return "0"
+    e = math.floor(math.log10(abs(v)))
+    if -3 <= e < 5:
+        if e >= sig:  # 20381 to three figures: 20400
+            return f"{round(v, sig - 1 - e):.0f}"
+        text = f"{v:.{max(sig - 1 - e, 0)}f}"
+        return text.rstrip("0").rstrip(".") if "." in text else text
+    mantissa = f"{v / 10**e:.{sig - 1}f}".rstrip("0").rstrip(".")
+    return f"{mantissa} × 10{str(e).translate(_SUPERSCRIPT)}"
+
+
+P_FLOOR = 0.001
+"""p-values below this are written "p < 0.001" (common practice in reporting)."""
+
+
+def p_text(p: Any) -> str:
+    """A p-value as a scientist writes it: ``p = 0.03``, ``p = 0.24``, ``p < 0.001`` (two significant
+    figures above :data:`P_FLOOR`); "p not determined" when missing."""
+    if not _finite(p):
+        return "p not determined"
+    v = float(p)
+    return f"p < {P_FLOOR:g}" if v < P_FLOOR else f"p = {plain(v, 2)}"
+
+
+_P_IN_TEXT = re.compile(r"\bp\s*=\s*([-+]?\d+(?:\.\d+)?(?:[eE][-+]?\d+)?)")
+_NUMBER_IN_TEXT = re.compile(r"(?<![\w.\-])([-+]?\d+\.\d+(?:[eE][-+]?\d+)?|\d+[eE][-+]?\d+)(?![\w.])")
+
+
+def prose(text: str) -> str:
+    """A sentence from a stage (a selection reason, a verdict's basis) with its numbers rewritten by the
+    report's formatters: each ``p = x`` by :func:`p_text`, every other decimal number by :func:`plain`
+    (integers stay as written)."""
+    out = _P_IN_TEXT.sub(lambda m: p_text(m.group(1)), str(text))
+    return _NUMBER_IN_TEXT.sub(lambda m: plain(m.group(1)), out)
+
+
 def with_error(value: Any, stderr: Any) -> str:
     """``value ± stderr`` with the error to two significant figures and the value to the same decimal place."""
     if not _finite(value):
@@ -282,9 +327,15 @@ def exclusion_rows(rates: pd.DataFrame, options: Mapping[str, Any], recipe: Mapp
     """Wells kept out of the fit, with reasons.
 
     Sample wells are listed one by one; wells of other roles (blanks, controls) are summarised per role.
-    Exclusions written in the recipe (``exclusions:``) are listed as written, with their reason.
+    Exclusions written in the recipe (``exclusions:``) are listed as written, with their reason; so are the
+    decisions made on review (``review:``, keep or exclude, from the recipe or a fragment it includes).
     """
-    out: dict[str, Any] = {"wells": [], "roles": [], "recipe": []}
+    out: dict[str, Any] = {"wells": [], "roles": [], "recipe": [], "review": []}
+    for item in recipe.get("review", []) or []:
+        if isinstance(item, Mapping):
+            out["review"].append({"what": " ".join(str(item.get(k, "?")) for k in ("plate", "well")),
+                                  "decision": str(item.get("decision", "?")),
+                                  "reason": str(item.get("reason", "(no reason given)"))})
     for item in recipe.get("exclusions", []) or []:
         if isinstance(item, Mapping):
             what = " ".join(str(item[k]) for k in ("plate", "well") if k in item)
@@ -367,8 +418,8 @@ def comparison_rows(comparison: pd.DataFrame, group: str,
             "n_params": r.get("n_params", ""), "rss": num(r.get("rss")),
             "aicc": num(r.get("aicc")), "delta_aicc": num(r.get("delta_aicc"), 3),
             "weight": num(r.get("akaike_weight"), 3),
-            "f_test": (f"against {model_title(str(r['f_test_against']), titles)}: F = {num(r['F'], 3)}, "
-                       f"p = {num(r['p'], 3)}"
+            "f_test": (f"against {model_title(str(r['f_test_against']), titles)}: F = {plain(r['F'])}, "
+                       f"{p_text(r['p'])}"
                        if str(r.get("f_test_against", "") or "") else ""),
             "selected": str(r.get("selected_model", "")) == str(r["model"]),
         })
@@ -379,7 +430,8 @@ def comparison_rows(comparison: pd.DataFrame, group: str,
             if reason.startswith(f"{pick}: "):
                 reason = reason[len(pick) + 2:]
             where = f" {ROUTE_WORDS.get(str(first['route']), '')}" if both else ""
-            sentences.append(f"Selected model{where}: {model_title(pick, titles)} ({plain_models(reason, titles)}).")
+            sentences.append(f"Selected model{where}: {model_title(pick, titles)} "
+                             f"({prose(plain_models(reason, titles))}).")
     return rows, " ".join(sentences)
 
 
@@ -427,7 +479,7 @@ def group_lead(fits: pd.DataFrame, group: str, selected: str, models: Mapping[st
         km, ksi = est.get("Km", math.nan), est.get("Ksi", math.nan)
         unit = next((i["unit"] for i in out["items"] if i["name"] == "Km"), "")
         peak = math.sqrt(km * ksi) if km > 0 and ksi > 0 else math.nan
-        where = (f"the rate peaks near S* = √(Km·Ksi) = {num(peak, 2)} {unit}".rstrip()
+        where = (f"the rate peaks near S* = √(Km·Ksi) = {plain(peak, 2)} {unit}".rstrip()
                  if math.isfinite(peak) else "the substrate level of the peak rate is not determined")
         out["sentence"] = (f"{group}: substrate inhibition (model {title}); {where}, and falls at higher substrate "
                            f"(constants with {pct} intervals below).")
@@ -452,7 +504,7 @@ def verdict_sentence(row: Mapping[str, Any], confidence: float, titles: Mapping[
     model = str(row.get("model", "") or "")  # absent in audit files written before the column existed
     coefficient = f"{model_title(model, titles)} coefficient" if model else "cooperativity coefficient"
     iv = f", {pct} {method} interval {text['interval']}".replace("  ", " ") if text["interval"] else ""
-    basis = _without_interval(plain_models(str(row.get("reason", "")), titles))
+    basis = prose(_without_interval(plain_models(str(row.get("reason", "")), titles)))
     return f"{row.get('group', '')}: {what}. {coefficient} h = {text['value']}{iv}. Basis: {basis}."
 
 

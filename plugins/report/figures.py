@@ -24,8 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from vzero.data import Traces
-from vzero.plugins.kinetics import flags
-from vzero.plugins.report import palette
+from vzero.plugins.report import marks, palette
 from vzero.plugins.report.content import flag_list, model_title, num, pretty_unit
 
 MAX_PANELS = 384
@@ -35,7 +34,31 @@ DENSE_POINTS = 20_000
 """Reads per progress-curve figure above which the grey read lines go into the SVG as a bitmap (a vector path
 per read makes a big, slow SVG and shows nothing more)."""
 
-FLAG_SHORT = flags.short_by_name()
+
+
+def _remember_cells(fig: Any, ax: Any, wells: Sequence[str], x: np.ndarray, y: np.ndarray, half: float) -> None:
+    """Note where the cells of ``wells`` are (centres ``x``, ``y`` in data units of ``ax``, ``half`` the cell
+    side), so that :func:`cell_areas` can say where they land in the saved image (for links to the wells)."""
+    fig.vzero_cells = (ax, list(wells), np.asarray(x, float), np.asarray(y, float), float(half))
+
+
+def cell_areas(fig: Any) -> list[tuple[str, float, float, float, float]]:
+    """Where each remembered cell lies in the saved image, as (well, left, top, right, bottom) in fractions
+    of the image's width and height (0 to 1 from the top left, whatever the dpi). Call after the layout is
+    fixed (the figures here fix it when they are made). Empty for a figure without remembered cells."""
+    cells = getattr(fig, "vzero_cells", None)
+    if not cells:
+        return []
+    ax, wells, x, y, half = cells
+    w, h = fig.bbox.width, fig.bbox.height
+    a = ax.transData.transform(np.column_stack([x - half, y - half]))
+    b = ax.transData.transform(np.column_stack([x + half, y + half]))
+    out = []
+    for k, well in enumerate(wells):
+        x0, x1 = sorted((a[k, 0] / w, b[k, 0] / w))
+        y0, y1 = sorted((1 - a[k, 1] / h, 1 - b[k, 1] / h))
+        out.append((well, round(x0, 5), round(y0, 5), round(x1, 5), round(y1, 5)))
+    return out
 
 
 def slug(text: str) -> str:
@@ -235,6 +258,7 @@ def plate_map(plate: str, rates: pd.DataFrame, used: np.ndarray | None, rate_uni
                    linewidths=0.4, zorder=2)
         ax.scatter(c[quiet], r[quiet], s=size * 0.5, marker="s", facecolors=palette.QUIET_CELL,
                    edgecolors=palette.QUIET_READS, linewidths=0.4, zorder=2)
+        _remember_cells(fig, ax, [wells[i] for i in np.flatnonzero(flagged)], c[flagged], r[flagged], 0.5)
         ax.scatter(c[flagged], r[flagged], s=size * 1.6, facecolors="none", edgecolors=palette.INK,
                    linewidths=2.2 if n_cols <= 12 else (1.6 if n_cols <= 24 else 1.0), zorder=3)
         ax.scatter(c[left_out], r[left_out], s=size * 0.45, marker="x", color=palette.INK,
@@ -450,11 +474,15 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
                                                          for q in quiet[ok]],
                                                  linewidths=2.4 if n_cols <= 12 else 1.1, zorder=4))
                 drawn_lines = int(ok.sum())
-        if n_cols <= 12:
+        used_flags: set[str] = set()
+        if geometric:  # each flagged cell's flags as two-letter codes (a legend below says what they mean)
+            code_size = 6.0 if n_cols <= 12 else 4.6
             for k in np.flatnonzero(flagged[pick]):
-                short = ", ".join(FLAG_SHORT.get(f, f) for f in flags[pick[k]].split(";") if f)
-                ax.text(cc[k], rr[k] - 0.5 + 0.07, short, ha="center", va="top", fontsize=6,
-                        color=palette.INK, zorder=5)
+                names_k = [f for f in flags[pick[k]].split(";") if f]
+                used_flags.update(names_k)
+                ax.text(cc[k] - g + 0.04, rr[k] - g + 0.03, marks.cell_label(names_k), ha="left", va="top",
+                        fontsize=code_size, fontweight="bold", color=palette.INK, zorder=5)
+        _remember_cells(fig, ax, [names[i] for i in pick[flagged[pick]]], cc[flagged[pick]], rr[flagged[pick]], g)
         if geometric:
             _plate_axes(ax, n_rows, n_cols, labels)
             ax.set_aspect("auto")
@@ -472,11 +500,15 @@ def progress_grid(traces: Traces, rates: pd.DataFrame | None, slope: np.ndarray 
         legend = "grey: reads" + ("; orange line: the rate (its slope) over the window it came from"
                                   if drawn_lines else "") + "\nheavy frame, tinted: flagged sample well; pale: " \
             "not a sample well (blank, standard, ...)"
+        title_lines = 3
+        if used_flags:
+            legend += "\nflag codes: " + marks.legend(used_flags)
+            title_lines = 4
         col_labels = _lines(1, 9) + PLATE_TICK_PAD if geometric else 0.0
         _title(ax, f"Progress curves, plate {traces.plate}\n{legend}", 9, (col_labels + TITLE_PAD) / PT)
         row_labels = max((_text_width(s, 9) for s in labels), default=0.0) + PLATE_TICK_PAD if geometric else 0.0
         left = EDGE + _lines(1, 8) + LABEL_PAD + row_labels
-        top = EDGE + _lines(3, 9) + TITLE_PAD + col_labels
+        top = EDGE + _lines(title_lines, 9) + TITLE_PAD + col_labels
         bottom = EDGE + _lines(1, 8) + LABEL_PAD
         _place_grid(fig, [[ax]], left=left, right=EDGE + 0.12, top=top, bottom=bottom)
     return fig, note
@@ -581,9 +613,12 @@ TRANSFORM_TITLES = {
 }
 
 
-def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str = "") -> Any:
+def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str = "", *,
+               curves: Mapping[str, tuple[np.ndarray, np.ndarray]] | None = None, curve_label: str = "") -> Any:
     """The linear transforms of one group: points (hollow where the transform is unstable) and each
-    transform's own straight line, with the estimates that line implies in the panel title."""
+    transform's own straight line, with the estimates that line implies in the panel title. ``curves`` (by
+    plot: x, y) add the selected model's fitted curve carried into each transform's coordinates, labelled
+    ``curve_label``."""
     import matplotlib
     from matplotlib.ticker import MaxNLocator
 
@@ -615,6 +650,11 @@ def transforms(group: str, diag: pd.DataFrame, rate_unit: str = "", x_unit: str 
                 gx = np.linspace(np.min(x[good]), np.max(x[good]), 20)
                 st = palette.series(1)
                 ax.plot(gx, icpt + slope * gx, color=st.color, ls=st.linestyle, lw=1.4, label="straight line")
+            cx, cy = (curves or {}).get(plot, (np.array([]), np.array([])))
+            if len(cx) > 1:
+                st = palette.series(0)
+                ax.plot(cx, cy, color=st.color, ls=st.linestyle, lw=1.6, zorder=1,
+                        label=f"selected fit: {curve_label}" if curve_label else "selected fit")
             unit_of = {"Vmax": rate_unit, "Km": x_unit, "K0.5": x_unit}
             words = ", ".join(f"{k} = {num(v, 3)} {unit_of.get(k, '')}".rstrip() for k, v in est.items()
                               if k not in ("slope", "intercept"))

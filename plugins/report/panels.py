@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 from vzero.data import Traces
 from vzero.plugins.kinetics import flags as flag_vocab
-from vzero.plugins.report import content
+from vzero.plugins.report import content, marks
 
 FLAG_SHORT = flag_vocab.short_by_name()
 
@@ -47,19 +47,20 @@ def measured(row: Mapping[str, Any], rate_unit: str) -> list[str]:
         text = content.estimate_text(v, se)["value"]
         out.append(f"v0 = {text} {rate_unit}".rstrip())
         if math.isfinite(se) and se > 0:
-            out.append(f"signal-to-noise |v0|/SE = {abs(v) / se:.1f} (NOISY below 10)")
+            out.append(f"signal-to-noise |v0|/SE = {content.plain(abs(v) / se, 2)} (NOISY below 10)")
     else:
         out.append("no rate")
     r2 = _f(row.get("r_squared"))
     if math.isfinite(r2):
-        out.append(f"r² of the line over the window = {r2:.3f}")
+        out.append(f"r² of the line over the window = {content.plain(r2, 3)}")
     n, ts, te = _f(row.get("n_points")), _f(row.get("window_start_s")), _f(row.get("window_end_s"))
     if math.isfinite(n):
-        window = f" from {ts:g} s to {te:g} s" if math.isfinite(ts) and math.isfinite(te) else ""
+        window = (f" from {content.plain(ts, 4)} s to {content.plain(te, 4)} s" if math.isfinite(ts)
+                  and math.isfinite(te) else "")
         out.append(f"{int(n)} reads used{window}")
     lag = _f(row.get("lag_s"))
     if math.isfinite(lag):
-        out.append(f"lag ≈ {lag:.0f} s")
+        out.append(f"lag ≈ {content.plain(lag, 2)} s")
     return out
 
 
@@ -125,7 +126,7 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
         conc = {c: _f(r.get(c)) for c in ("substrate", "inhibitor") if c in rates}
         out.append({
             "id": anchor(plate, well), "plate": plate, "well": well, "group": str(r.get("group", "")),
-            "conc": {k: (f"{v:g} {content.pretty_unit(str(r.get(f'{k}_unit', '') or ''))}".rstrip())
+            "conc": {k: (f"{content.plain(v, 3)} {content.pretty_unit(str(r.get(f'{k}_unit', '') or ''))}".rstrip())
                      for k, v in conc.items() if math.isfinite(v)},
             "flags": names, "short": [FLAG_SHORT.get(f, f) for f in names],
             "words": [content.FLAG_TEXT.get(f, f) for f in names],
@@ -141,13 +142,32 @@ def well_records(rates: pd.DataFrame, traces: Mapping[str, Traces], used: np.nda
     return out
 
 
+def figure_links(areas: Sequence[Sequence[Any]], plate: str,
+                 records: Sequence[Mapping[str, Any]]) -> list[dict[str, Any]]:
+    """Links to draw over a plate figure: one per flagged sample well that has a panel, placed on its cell
+    (``areas`` from :func:`vzero.plugins.report.figures.cell_areas`), in percent of the image, with a title
+    naming the well and its flags in words (a tooltip, and the link's accessible name)."""
+    by_well = {str(r["well"]): r for r in records if str(r["plate"]) == plate}
+    out = []
+    for well, x0, y0, x1, y1 in areas:
+        rec = by_well.get(str(well))
+        if rec is None:
+            continue
+        flags = ", ".join(f"{marks.code(f)} {f.replace('_', ' ')}" for f in rec["flags"])
+        out.append({"id": rec["id"], "title": f"{plate} {well}: {flags} (open its panel)",
+                    "x": round(100 * float(x0), 3), "y": round(100 * float(y0), 3),
+                    "w": round(100 * (float(x1) - float(x0)), 3), "h": round(100 * (float(y1) - float(y0)), 3)})
+    return out
+
+
 def flag_groups(records: Sequence[Mapping[str, Any]]) -> list[dict[str, Any]]:
     """The flagged sample wells grouped by flag, most frequent first: flag, its words, count and wells."""
     by: dict[str, list[Mapping[str, Any]]] = {}
     for rec in records:
         for f in rec["flags"]:
             by.setdefault(f, []).append(rec)
-    rows = [{"flag": f.replace("_", " "), "short": FLAG_SHORT.get(f, f), "meaning": content.FLAG_TEXT.get(f, f),
+    rows = [{"flag": f.replace("_", " "), "short": FLAG_SHORT.get(f, f), "code": marks.code(f),
+             "meaning": content.FLAG_TEXT.get(f, f),
              "count": len(recs), "wells": [{"id": r["id"], "label": f"{r['well']}" if len({x['plate'] for x in
                                                                                        records}) == 1
                                             else f"{r['plate']} {r['well']}"} for r in recs]}

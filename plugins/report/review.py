@@ -4,12 +4,13 @@ The page is one self-contained HTML file (no server, no network, works from a fi
 through the flagged sample wells of a run (keyboard or mouse), shows each well's reads with its rate line on
 the well's own scale, its rate, its flags in words with the measured values behind them and whether the fit
 used it, and records a decision per well, keep or exclude, with a reason. The decisions are saved as a
-recipe fragment: YAML ``exclusions:`` entries in the recipe's own format
-(:mod:`vzero.plugins.kinetics.exclusions`: ``{plate, well, reason}``), offered as a download and shown as
-text to copy. Wells kept are written as comments with their reasons, so that the recipe (stored whole in the
-next run's audit file) records every decision. Pasting the entries under the recipe's ``exclusions:`` and
-running ``vzero rerun RUN.h5 --recipe RECIPE --out DIR`` applies them; each excluded well then carries the
-flag ``excluded`` and its reason in the rates table's ``note`` column.
+recipe fragment ``review-decisions.yaml``: one ``review:`` item per decided well, ``{plate, well, decision,
+reason}`` (:mod:`vzero.plugins.kinetics.exclusions`), offered as a download and shown as text to copy.
+Included in the recipe (``include: [review-decisions.yaml]``, or ``vzero rerun RUN.h5 --recipe RECIPE
+--recipe review-decisions.yaml --out DIR``; see :mod:`vzero.includes`) it is applied: each excluded well
+carries the flag ``excluded``, and every decided well its decision and reason in the rates table's ``note``
+column; the audit file stores the decisions (root attribute ``review``) and the fragment's text with the
+recipe.
 """
 
 from __future__ import annotations
@@ -21,7 +22,7 @@ from typing import Any
 
 from vzero.errors import OutputExistsError, VzeroError
 
-HELP = "Write a page for deciding, well by well, about a run's flagged wells (saves recipe exclusions)."
+HELP = "Write a page for deciding, well by well, about a run's flagged wells (saves a recipe fragment)."
 EXAMPLE = "vzero review runs/today/run.h5"
 
 
@@ -54,7 +55,24 @@ def page_data(inp: Any) -> dict[str, Any]:
         rec.pop("t"), rec.pop("y")  # drawn already: the page needs no raw reads
     return {"run": str(inp.provenance.get("run_id", "")), "recipe": str(inp.recipe.get("name", "")),
             "source": str(inp.provenance.get("source", "")), "wells": records,
-            "existing": [dict(e) for e in inp.recipe.get("exclusions", []) or [] if isinstance(e, dict)]}
+            "previous": previous_decisions(inp.recipe, records)}
+
+
+def previous_decisions(recipe: Any, records: list[dict[str, Any]]) -> dict[str, dict[str, str]]:
+    """The decisions the run's recipe already holds (its ``review:`` list, from an included fragment), by the
+    panel id of each well on the page: the page starts from them, so that a second review extends the first
+    and the saved fragment (same file name) replaces the old one with every decision in it."""
+    from vzero.plugins.kinetics.wells import is_well, normalise_well
+
+    ids = {(str(r["plate"]), normalise_well(str(r["well"]))): str(r["id"]) for r in records if is_well(str(r["well"]))}
+    out: dict[str, dict[str, str]] = {}
+    for item in recipe.get("review", []) or []:
+        if not isinstance(item, dict) or not is_well(str(item.get("well", ""))):
+            continue
+        key = ids.get((str(item.get("plate", "")), normalise_well(str(item["well"]))))
+        if key and item.get("decision") in ("keep", "exclude"):
+            out[key] = {"choice": str(item["decision"]), "reason": str(item.get("reason", ""))}
+    return out
 
 
 def render(data: dict[str, Any]) -> str:

@@ -1,5 +1,5 @@
 // vzero well review: step through the flagged wells, decide keep or exclude with a reason, save the
-// decisions as recipe exclusions. No network, no storage: everything stays in this page until saved.
+// decisions as a recipe fragment. No network, no storage: everything stays in this page until saved.
 (function () {
   "use strict";
   var data = JSON.parse(document.getElementById("data").textContent);
@@ -8,8 +8,13 @@
   var cards = Array.prototype.slice.call(document.querySelectorAll("article.card"));
   var picks = Array.prototype.slice.call(document.querySelectorAll("button.pick"));
   var reason = document.getElementById("reason");
-  var decisions = wells.map(function () { return { choice: "", reason: "" }; });
+  var previous = data.previous || {};  // decisions the run's recipe already holds: a second review extends them
+  var decisions = wells.map(function (w) {
+    var p = previous[w.id];
+    return p ? { choice: p.choice, reason: p.reason } : { choice: "", reason: "" };
+  });
   var current = 0;
+  var FILE = "review-decisions.yaml";
 
   function flagWords(w) { return w.flags.map(function (f) { return f.replace(/_/g, " "); }).join(", "); }
 
@@ -33,7 +38,7 @@
     var w = wells[current];
     d.choice = choice;
     if (!reason.value.trim()) {
-      reason.value = (choice === "exclude" ? "excluded on review: " : "kept on review: ") + flagWords(w);
+      reason.value = "flagged " + flagWords(w);  // the run adds "kept on review" or "excluded on review"
     }
     d.reason = reason.value.trim();
     picks[current].classList.remove("keep", "exclude");
@@ -44,26 +49,22 @@
   function q(text) { return JSON.stringify(String(text)); }  // a JSON string is a YAML double-quoted scalar
 
   function fragment() {
+    // Every decision as data under review: (keep and exclude alike, each with its reason); the recipe includes
+    // this file, so the next run applies the exclusions and its audit file records every decision.
     var lines = ["# vzero review of run " + (data.run || "?") + " (recipe " + (data.recipe || "?") + "), " +
                  new Date().toISOString().slice(0, 19) + "Z",
-                 "# This block replaces the recipe's exclusions: (those already there are repeated first).",
-                 "exclusions:"];
+                 "# Add it to the recipe with   include: [" + FILE + "]",
+                 "# or give it after the recipe: vzero rerun run.h5 --recipe RECIPE --recipe " + FILE + " --out DIR",
+                 "review:"];
     var n = 0;
-    data.existing.forEach(function (e) {
-      var parts = Object.keys(e).map(function (k) { return k + ": " + JSON.stringify(e[k]); });
-      lines.push("  - {" + parts.join(", ") + "}"); n += 1;
-    });
-    var kept = [];
     wells.forEach(function (w, i) {
       var d = decisions[i];
-      if (d.choice === "exclude") {
-        lines.push("  - {plate: " + q(w.plate) + ", well: " + q(w.well) + ", reason: " + q(d.reason) + "}"); n += 1;
-      } else if (d.choice === "keep") {
-        kept.push("#   " + w.plate + " " + w.well + ": " + d.reason.replace(/[\r\n]+/g, " "));
-      }
+      if (d.choice !== "keep" && d.choice !== "exclude") { return; }
+      lines.push("  - {plate: " + q(w.plate) + ", well: " + q(w.well) + ", decision: " + d.choice +
+                 ", reason: " + q(d.reason.replace(/[\r\n]+/g, " ")) + "}");
+      n += 1;
     });
-    if (!n) { lines[lines.length - 1] = "exclusions: []"; }
-    if (kept.length) { lines.push("# kept after review (not excluded):"); lines = lines.concat(kept); }
+    if (!n) { lines[lines.length - 1] = "review: []"; }
     return lines.join("\n") + "\n";
   }
 
@@ -103,6 +104,7 @@
     else { return; }
     ev.preventDefault();
   });
+  picks.forEach(function (p, k) { if (decisions[k].choice) { p.classList.add(decisions[k].choice); } });
   window.vzeroReview = { show: show, decide: decide, save: save, fragment: fragment };
   show(0);
 })();

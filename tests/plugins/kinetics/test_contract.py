@@ -175,7 +175,7 @@ def test_a_kernel_result_of_the_wrong_shape_names_the_method(tmp_path: Path):
 def test_flag_name_lists_come_from_the_flag_type():
     from vzero.plugins.fit.stage import DEFAULT_EXCLUDE, FLAG_CHOICES
     from vzero.plugins.report.content import FLAG_TEXT
-    from vzero.plugins.report.figures import FLAG_SHORT
+    from vzero.plugins.report.panels import FLAG_SHORT
 
     names = [f.name.lower() for f in flags.Flag if f.name and f is not flags.Flag.NONE]
     assert list(FLAG_CHOICES) == names == list(FLAG_TEXT) == list(FLAG_SHORT)

@@ -139,6 +139,13 @@ def finished_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
 COOKBOOK = Path(__file__).parents[3] / "configs" / "cookbook"
 
 
+@pytest.fixture(scope="session")
+def fluor_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The invented 384-well fluorescence cookbook plate (standards, blanks, a substrate-inhibition group),
+    run once for every test that reads its report (the report in ``<run>/report/``)."""
+    return cookbook_run("fluorescence-standard-curve", tmp_path_factory.mktemp("fluor"))
+
+
 def cookbook_run(name: str, folder: Path, report: bool = True) -> Path:
     """Run the cookbook recipe ``name`` on its invented data (tests/cookbook_data.py) in ``folder``; with
     ``report``, rebuild its report into ``<run>/report/`` with ``vzero report``. Returns the run folder."""

@@ -51,15 +51,12 @@ def test_a_broken_image_is_caught(tmp_path: Path):
     assert any("deliberate" in e for e in seen.errors)
 
 
-def test_the_report_of_a_384_well_plate_stays_readable_and_short(tmp_path: Path):
+def test_the_report_of_a_384_well_plate_stays_readable_and_short(fluor_run: Path, tmp_path: Path):
     """A 384-well plate with standards, blanks and a substrate-inhibition group: every figure decodes, no
     error, and the page stays within a sensible height (the flagged wells are grouped by flag and their
     panels scroll in a box; before, a 384-well report ran past 30,000 px)."""
-    from .conftest import cookbook_run
-
     assert BROWSER is not None
-    run_dir = cookbook_run("fluorescence-standard-curve", tmp_path / "fluor")
-    page = run_dir / "report" / "report.html"
+    page = fluor_run / "report" / "report.html"
     seen = check_page(page, BROWSER, width=1280, height=1400)
     assert seen.loaded_images == seen.total_images and seen.total_images >= 5, seen.broken
     assert seen.errors == []

@@ -1,9 +1,11 @@
 """``vzero review``: the page a scientist uses to decide about flagged wells, driven in headless Chromium.
 
 The browser test clicks and types through three wells as a person would (exclude with a reason of their
-own, keep, exclude with the suggested reason), saves the decisions, pastes the fragment into the recipe,
-reruns, and checks that exactly the two excluded wells are out, with their reasons, and that the keep
-decision is recorded in the stored recipe. Data: the invented inhibitor-matrix cookbook plate.
+own, keep, exclude with the suggested reason), saves the decisions as a fragment file, includes it in the
+recipe (the recipe's include: key, and again as a second --recipe), reruns, and checks that exactly the two
+excluded wells are out, with their reasons, that the new audit file records all three decisions and reasons
+(its review attribute, the rates table's note column, the stored recipe text), and that the page logged no
+console error. Data: the invented inhibitor-matrix cookbook plate.
 """
 
 from __future__ import annotations
@@ -51,7 +53,7 @@ def test_review_page_lists_flagged_sample_wells_only_and_stands_alone(matrix_run
 def test_data_cannot_end_the_script_element():
     from vzero.plugins.report.review import render
 
-    out = render({"run": "r", "recipe": "x", "source": "", "existing": [], "wells": [{
+    out = render({"run": "r", "recipe": "x", "source": "", "wells": [{
         "id": "well-p-a1", "plate": "p", "well": "A1", "group": "</script><script>alert(1)</script>",
         "conc": {}, "flags": ["noisy"], "short": ["noisy"], "words": ["w"], "measured": [], "blank": "",
         "fit": "", "rate": 1.0, "rate_text": "1", "note": "", "signal_unit": "AU", "line": None,
@@ -92,21 +94,48 @@ def test_three_decisions_in_the_browser_become_exclusions_after_rerun(matrix_run
     fragment = yaml.safe_load(out["fragment"])
     wells = [w["well"] for w in json.loads(page.read_text("utf-8").split('id="data">')[1].split("</script>")[0])
              ["wells"][:3]]
-    assert fragment["exclusions"] == [
-        {"plate": "vz11-plate", "well": wells[0], "reason": "bubble seen in the well"},
-        {"plate": "vz11-plate", "well": wells[2], "reason": "excluded on review: noisy"},
+    decided = [
+        {"plate": "vz11-plate", "well": wells[0], "decision": "exclude", "reason": "bubble seen in the well"},
+        {"plate": "vz11-plate", "well": wells[1], "decision": "keep", "reason": "flagged noisy"},
+        {"plate": "vz11-plate", "well": wells[2], "decision": "exclude", "reason": "flagged noisy"},
     ]
-    assert f"#   vz11-plate {wells[1]}: kept on review: noisy" in out["fragment"]
+    assert fragment == {"review": decided}
 
-    # the fragment included in the recipe (its exclusions block, plus the comments that record the keep)
-    recipe = (COOKBOOK / "inhibitor-matrix.yaml").read_text("utf-8") + "\n" + out["fragment"]
-    (tmp_path / "recipe.yaml").write_text(recipe, "utf-8")
-    result = rerun(matrix_run / "run.h5", tmp_path / "again", recipe=tmp_path / "recipe.yaml")
-    assert result.exit_code == 0
-    rates = pd.read_csv(tmp_path / "again" / "rates.csv").set_index("well")
-    for well, why in ((wells[0], "bubble seen in the well"), (wells[2], "excluded on review: noisy")):
-        assert "excluded" in str(rates.loc[well, "flags"]) and why in str(rates.loc[well, "note"])
-        assert pd.isna(rates.loc[well, "rate"])
-    assert "excluded" not in str(rates.loc[wells[1], "flags"])
-    with h5py.File(tmp_path / "again" / "run.h5") as f:  # the audit keeps the recipe, keep decision included
-        assert f"{wells[1]}: kept on review" in str(f.attrs["recipe_text"])
+    # the fragment saved beside the recipe and included by it; the recipe itself is left as it was
+    (tmp_path / "review-decisions.yaml").write_text(out["fragment"], "utf-8")
+    base = (COOKBOOK / "inhibitor-matrix.yaml").read_text("utf-8")
+    (tmp_path / "recipe.yaml").write_text(base + "\ninclude: [review-decisions.yaml]\n", "utf-8")
+    (tmp_path / "plain.yaml").write_text(base, "utf-8")
+    for name, recipe, fragments in (("included", "recipe.yaml", ()),
+                                    ("given", "plain.yaml", (tmp_path / "review-decisions.yaml",))):
+        result = rerun(matrix_run / "run.h5", tmp_path / name, recipe=tmp_path / recipe, fragments=fragments)
+        assert result.exit_code == 0
+        rates = pd.read_csv(tmp_path / name / "rates.csv").set_index("well")
+        for well, why in ((wells[0], "bubble seen in the well"), (wells[2], "flagged noisy")):
+            assert "excluded" in str(rates.loc[well, "flags"]) and f"excluded on review: {why}" in str(
+                rates.loc[well, "note"])
+            assert pd.isna(rates.loc[well, "rate"])
+        assert "excluded" not in str(rates.loc[wells[1], "flags"]) and pd.notna(rates.loc[wells[1], "rate"])
+        assert "kept on review: flagged noisy" in str(rates.loc[wells[1], "note"])
+        with h5py.File(tmp_path / name / "run.h5") as f:  # the audit file records every decision and reason
+            assert json.loads(f.attrs["review"]) == decided
+            assert "decision: keep" in str(f.attrs["recipe_text"])
+            stored = pd.DataFrame({k: f["results/rates"][k][()] for k in ("well", "note")})
+        stored = stored.map(lambda v: v.decode() if isinstance(v, bytes) else v).set_index("well")
+        for d in decided:
+            assert d["reason"] in stored.loc[d["well"], "note"]
+    # reviewing the new run starts from these decisions (the saved fragment then holds them all again)
+    assert main(["review", str(tmp_path / "included" / "run.h5"), "--out", str(tmp_path / "again.html")]) == 0
+    again = json.loads((tmp_path / "again.html").read_text("utf-8").split('id="data">')[1].split("</script>")[0])
+    assert sorted(v["choice"] for v in again["previous"].values()) == ["exclude", "exclude", "keep"]
+
+
+def test_a_second_review_starts_from_the_decisions_the_recipe_holds():
+    from vzero.plugins.report.review import previous_decisions
+
+    records = [{"plate": "p", "well": "A1", "id": "well-p-a1"}, {"plate": "p", "well": "B02", "id": "well-p-b02"}]
+    recipe = {"review": [{"plate": "p", "well": "a1", "decision": "exclude", "reason": "bubble"},
+                         {"plate": "p", "well": "B2", "decision": "keep", "reason": "fine"},
+                         {"plate": "q", "well": "A1", "decision": "keep", "reason": "other plate"}]}
+    assert previous_decisions(recipe, records) == {"well-p-a1": {"choice": "exclude", "reason": "bubble"},
+                                                   "well-p-b02": {"choice": "keep", "reason": "fine"}}
