@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 from pathlib import Path
 from typing import Any
 
@@ -30,6 +31,8 @@ def configure(p: argparse.ArgumentParser) -> None:
     p.add_argument("audit", help="the audit file of a run (run.h5)")
     p.add_argument("--out", "-o", help="the page to write (default: review.html beside the audit file)")
     p.add_argument("--force", action="store_true", help="replace an existing page")
+    p.add_argument("--no-verify", action="store_true",
+                   help="read the audit file without checking its digests first (the output says so)")
 
 
 def page_data(inp: Any) -> dict[str, Any]:
@@ -98,6 +101,10 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out) if args.out else audit.parent / "review.html"
     if out.exists() and not args.force:
         raise OutputExistsError(f"{out} already exists", hint="Pass --force to replace it, or choose --out.")
+    from vzero.audit.verify import check_intact
+
+    check_intact(audit, check=not getattr(args, "no_verify", False),
+                 say=lambda text: print(text, file=sys.stderr))
     data = page_data(from_audit(audit))
     replace_set(out.parent, {out.name: render(data).encode("utf-8")}, "review")  # whole or not at all
     if not getattr(args, "quiet", False):

@@ -50,6 +50,20 @@ def test_review_page_lists_flagged_sample_wells_only_and_stands_alone(matrix_run
     assert main(["review", str(matrix_run / "run.h5"), "--out", str(matrix_run / "review.html")]) != 0  # no clobber
 
 
+
+def test_review_refuses_a_changed_audit_file(matrix_run: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]):
+    """A received audit file is checked against its digests before its wells are put on a page."""
+    import shutil
+
+    changed = tmp_path / "run.h5"
+    shutil.copy(matrix_run / "run.h5", changed)
+    with h5py.File(changed, "r+") as f:
+        f.attrs["recipe_text"] = str(f.attrs["recipe_text"]) + "\n# edited"
+    assert main(["review", str(changed), "--out", str(tmp_path / "page.html")]) != 0
+    assert "does not match its digests" in capsys.readouterr().err and not (tmp_path / "page.html").exists()
+    assert main(["review", str(changed), "--out", str(tmp_path / "page.html"), "--no-verify"]) == 0
+    assert "without checking its digests" in capsys.readouterr().err
+
 def test_data_cannot_end_the_script_element():
     from vzero.plugins.report.review import render
 
