@@ -1,18 +1,25 @@
 """Model choice per well by evidence: the whole-curve model that describes the curve, else an early quadratic.
 
-Every well gets the same candidates, each fitted to all wells at once:
+Per well, all wells at once:
 
 1. single-read spikes are found by a robust test and masked (:mod:`vzero.plugins.rates.spikes`; SPIKE);
-2. the integrated Michaelis–Menten curve and the power-law curve ``v = v0 (1 - x)^n`` are fitted to all
-   usable reads (:func:`vzero.plugins.rates.progress.progress_curve`; both have three parameters, so the one
-   with the smaller residual sum of squares is the better description; Michaelis–Menten wins ties, within
-   ``tie`` of the residual RMS);
-3. the chosen curve is kept when its residual RMS is at most ``lof_ratio`` times the read noise (it describes
-   the curve within the noise); otherwise v0 is the slope at t = 0 of a quadratic through the reads up to
-   ``window_conversion`` of the substrate (at least ``min_points`` reads), a model-free estimate;
-4. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
+2. the model-free estimate: the slope at t = 0 of a quadratic through the reads up to ``window_conversion``
+   of the substrate (at least ``min_points`` reads; :func:`early_quadratic`);
+3. wells where no whole-curve model can improve on it are left with it, unfitted (:func:`_skippable`: the
+   window already holds every usable read, so a three-parameter curve would use the same reads, and the
+   quadratic's third-order bias, predicted from its own curvature, is below 0.3 of its standard error);
+4. the other wells get the integrated Michaelis–Menten curve fitted to all usable reads
+   (:func:`vzero.plugins.rates.progress.progress_curve`), kept when its residual RMS is at most
+   ``lof_ratio`` times the read noise (it describes the curve within the noise);
+5. where it is not kept, or its order ``u = Km/(Km + S0)`` ends within :data:`U_EDGE` of 0 or 1 (the curve
+   may need an order Michaelis–Menten cannot take), or its v0 differs from the quadratic's by more than
+   ``agree_z`` standard errors of the difference, the power-law curve ``v = v0 (1 - x)^n`` is fitted too;
+   it replaces Michaelis–Menten when its residual RMS is smaller by more than ``tie``, within
+   ``lof_ratio``, and its v0 agrees with the quadratic's within ``agree_z`` of the quadratic's standard
+   errors; a well neither curve describes keeps the quadratic;
+6. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
    :func:`vzero.plugins.rates.lagdecay.lag_decay`) get the first-order decay model when it describes them;
-5. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
+7. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
    Michaelis–Menten curve on the enzyme's active time (:mod:`vzero.plugins.rates.lagfit`): v0 is the rate
    with fully active enzyme at t = 0 and ``lag_s`` the fitted lag time (without s0 and signal_per_conc:
    :func:`vzero.plugins.rates.lagdecay.lag_decay`).
@@ -172,6 +179,12 @@ def _decay_model(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, code:
 #: Standard errors of the early quadratic's v0 within which a power-law curve's v0 must agree with it.
 AGREE_Z = 2.0
 
+#: Least standard error of the difference between a whole-curve v0 and the quadratic's, as a share of the
+#: quadratic's: where the curve is no more precise (the window holds nearly every read), the two still
+#: differ by the curve's own third-order terms and its block-mean fit, so a zero would call every well
+#: into doubt.
+DIFF_FLOOR = 0.3
+
 #: Michaelis–Menten fits whose ``u = Km/(Km + S0)`` (the order of the rate in the substrate at t = 0) ends
 #: within this of 0 or 1 are fitted with the power-law curve too: there the curve may need an order outside
 #: the range Michaelis–Menten allows (below 0 under substrate inhibition, above 1 for a cooperative enzyme
@@ -265,9 +278,17 @@ def model_choice(
         with np.errstate(invalid="ignore"):
             ok_mm = np.isfinite(mm.v0) & (r_mm <= lof_ratio)
             u = mm.extra["km"] / (mm.extra["km"] + s0_all[fit_rows])
-            # the power law can win only where Michaelis–Menten leaves more than the noise or sits at the edge
-            # of the orders it can take
-            try_pw = ~ok_mm | ~(u > U_EDGE) | ~(u < 1.0 - U_EDGE)
+            # the power law can win only where Michaelis–Menten leaves more than the noise, sits at the edge
+            # of the orders it can take, or its v0 disagrees with the model-free quadratic's beyond
+            # agree_z standard errors of their difference (sqrt(SE_q² - SE²) when both are unbiased, the
+            # curve using the same reads and more: Hausman 1978, Econometrica 46:1251), allowing for the
+            # quadratic's own third-order bias under this curve (n (3n - 2) x²/10 of v0, :func:`_skippable`,
+            # with n = u and x the conversion over the quadratic's window)
+            room = np.sqrt(np.fmax(q.se[fit_rows] ** 2 - mm.stderr**2, (DIFF_FLOOR * q.se[fit_rows]) ** 2))
+            x_w = np.abs(mm.v0) * (q.end_s[fit_rows] - t[0]) / (np.abs(spc) * s0_all[fit_rows]) if known else 0.0
+            q_bias = 0.1 * np.abs(u * (3 * u - 2)) * x_w**2 * np.abs(mm.v0)
+            doubt = np.abs(mm.v0 - q.v0[fit_rows]) > agree_z * room + q_bias
+            try_pw = ~ok_mm | ~(u > U_EDGE) | ~(u < 1.0 - U_EDGE) | doubt
         take(fit_rows, mm, 0.0, ok_mm)
         rows = fit_rows[try_pw]
         if known and rows.size:
