@@ -30,7 +30,8 @@ from vzero.plugins.rates.polynomial import inv3_hankel
 @dataclass(frozen=True)
 class LMFit:
     """Result of :func:`fit_wells`, arrays over wells: ``params [n, p]``, ``rss``, ``tss`` (about the
-    weighted mean), ``cov_unit = (J' W J)^-1`` at the solution, ``converged``, ``n_iter`` (plate-wide)."""
+    weighted mean), ``cov_unit = (J' W J)^-1`` at the solution, ``converged``, ``n_iter`` (plate-wide),
+    ``fitted`` the model's values at the points counted (NaN elsewhere; None where not kept)."""
 
     params: np.ndarray
     rss: np.ndarray
@@ -38,6 +39,7 @@ class LMFit:
     cov_unit: np.ndarray
     converged: np.ndarray
     n_iter: int
+    fitted: np.ndarray | None = None
 
 
 WELL_TOLERANCES = {"ftol": 1e-6, "xtol": 1e-9, "gtol": 1e-12}
@@ -55,6 +57,7 @@ def fit_wells(
     upper: np.ndarray | None = None,
     max_iter: int = 60,
     lam0: float = 1e-3,
+    ftol: float | None = None,
 ) -> LMFit:
     """Fit one curve per well with the shared batched solver (:func:`vzero.plugins.kinetics.lsq.solve`: its
     bound handling and convergence rules) and :data:`WELL_TOLERANCES`.
@@ -63,11 +66,14 @@ def fit_wells(
     ``y`` ``[n, t]`` (NaN allowed where ``w == 0``); ``w`` 0/1 weights. A well whose damping grew without a
     step lowering its cost (stalled) sits at a stationary point: it counts as converged here, and the
     caller judges the fit by its residuals against the read noise. ``lam0``: the initial damping (small for
-    a start next to the solution).
+    a start next to the solution); ``ftol`` replaces the relative cost change of :data:`WELL_TOLERANCES`.
     """
-    sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, lam0=lam0, **WELL_TOLERANCES)
+    tol = WELL_TOLERANCES if ftol is None else {**WELL_TOLERANCES, "ftol": ftol}
+    sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, lam0=lam0, **tol)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        fitted = np.where(w > 0, sol.resid / w + np.where(w > 0, y, 0.0), np.nan)
     return LMFit(sol.params, sol.cost, fit_wells_tss(y, w), lsq.unit_covariance(sol.jac),
-                 (sol.converged | sol.stalled) & np.isfinite(sol.cost), sol.n_iter)
+                 (sol.converged | sol.stalled) & np.isfinite(sol.cost), sol.n_iter, fitted)
 
 
 #: Below this argument Wright omega is exp(x) to double precision (relative error e^x); the iteration would
@@ -183,6 +189,27 @@ COARSE_BLOCKS = 40
 fewer than twice as many reads are fitted read by read."""
 
 
+QUICK_BLOCKS = 20
+"""Blocks of the ``quick`` fits (:func:`progress_curve`), which end on the block means."""
+
+QUICK_FTOL = 1e-4
+"""Relative change of cost at which the ``quick`` fits stop: on about :data:`QUICK_BLOCKS` block means, whose
+cost is about that many read variances, a change of 1e-4 of it is a change of chi² near 0.002, which moves the
+parameters by a few hundredths of a standard error."""
+
+
+def _blocked(t: np.ndarray, y: np.ndarray, w: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Times ``[blocks, k]``, weights and reads (0 where not counted) ``[wells, blocks, k]`` in blocks of ``k``
+    consecutive reads (the last block padded with uncounted reads)."""
+    n_w, n_t = y.shape
+    n_b = -(-n_t // k)
+    pad = n_b * k - n_t
+    yz = np.where(w > 0, y, 0.0)
+    if pad:
+        t, w, yz = np.pad(t, (0, pad), mode="edge"), np.pad(w, ((0, 0), (0, pad))), np.pad(yz, ((0, 0), (0, pad)))
+    return t.reshape(n_b, k), w.reshape(n_w, n_b, k), yz.reshape(n_w, n_b, k)
+
+
 def block_means(
     t: np.ndarray, y: np.ndarray, w: np.ndarray, k: int
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -194,15 +221,14 @@ def block_means(
     block). A smooth curve's mean over a block equals its value at the block's mean time up to the curvature
     times the spread of the times, ``f'' var(t)/2``, which is tiny for a few reads.
     """
-    n_w, n_t = y.shape
-    n_b = -(-n_t // k)
-    pad = n_b * k - n_t
-    tp = np.pad(t, (0, pad), mode="edge")
-    wp = np.pad(w, ((0, 0), (0, pad))).reshape(n_w, n_b, k)
-    yp = np.pad(np.where(w > 0, y, 0.0), ((0, 0), (0, pad))).reshape(n_w, n_b, k)
+    return _block_means(*_blocked(t, y, w, k))
+
+
+def _block_means(tp: np.ndarray, wp: np.ndarray, yp: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`block_means` of the blocks of :func:`_blocked`."""
     cnt = wp.sum(axis=2)
     with np.errstate(invalid="ignore", divide="ignore"):
-        tb = np.where(cnt > 0, (wp * tp.reshape(n_b, k)).sum(axis=2) / cnt, tp.reshape(n_b, k).mean(axis=1))
+        tb = np.where(cnt > 0, (wp * tp).sum(axis=2) / cnt, tp.mean(axis=1))
         yb = np.where(cnt > 0, (wp * yp).sum(axis=2) / cnt, 0.0)
     return tb, yb, np.sqrt(cnt)
 
@@ -214,29 +240,26 @@ def fit_wells_tss(y: np.ndarray, w: np.ndarray) -> np.ndarray:
     return (((y0 - mean[:, None]) * w) ** 2).sum(axis=1)
 
 
-def read_rss(t: np.ndarray, y: np.ndarray, w: np.ndarray, k: int, tb: np.ndarray, f_blocks: np.ndarray,
-             block_rss: np.ndarray) -> np.ndarray:
-    """Residual sum of squares over every counted read of a curve fitted to block means of ``k`` reads.
+def read_rss(blocks: tuple[np.ndarray, np.ndarray, np.ndarray], tb: np.ndarray, yb: np.ndarray,
+             f_blocks: np.ndarray, block_rss: np.ndarray) -> np.ndarray:
+    """Residual sum of squares over every counted read of a curve fitted to block means.
 
-    Within a block the curve is taken as a straight line through its value ``f_b`` at the block time with
-    the curve's local slope ``s_b`` (central differences of ``f_blocks`` over the block times ``tb``), so
-    ``sum (y - f)^2 = m (ybar - f_b)^2 + sum (y - ybar - s_b (t - tbar))^2`` per block: the block fit's
-    weighted residual (``block_rss``, weights ``sqrt(m)``) plus the scatter of the reads about that line,
-    which needs no evaluation of the model. The neglected curvature within a block of a few reads changes
-    the sum by ``f'' var(t)`` per read, far below the read noise for a smooth progress curve.
+    ``blocks`` from :func:`_blocked`; ``tb``, ``yb`` the block times and means; ``f_blocks`` the curve at the
+    block times. Within a block the curve is taken as a straight line through its value ``f_b`` with the
+    curve's local slope ``s_b`` (central differences of ``f_blocks`` over ``tb``), so ``sum (y - f)^2 =
+    m (ybar - f_b)^2 + sum (y - ybar - s_b (t - tbar))^2`` per block: the block fit's weighted residual
+    (``block_rss``, weights ``sqrt(m)``) plus the scatter of the reads about that line, which needs no
+    evaluation of the model. The neglected curvature within a block of a few reads changes the sum by about
+    ``f'' var(t)`` per read, far below the read noise for a smooth progress curve.
     """
-    n_w, n_t = y.shape
+    tp, wp, yp = blocks
     n_b = tb.shape[1]
-    pad = n_b * k - n_t
-    tp = np.broadcast_to(np.pad(t, (0, pad), mode="edge").reshape(1, n_b, k), (n_w, n_b, k))
-    wp = np.pad(w, ((0, 0), (0, pad))).reshape(n_w, n_b, k)
-    yp = np.pad(np.where(w > 0, y, 0.0), ((0, 0), (0, pad))).reshape(n_w, n_b, k)
-    cnt = np.fmax(wp.sum(axis=2), 1.0)
-    dy = yp - ((wp * yp).sum(axis=2) / cnt)[:, :, None]
-    dt = tp - tb[:, :, None]
-    slope = np.gradient(f_blocks, axis=1) / np.gradient(tb, axis=1) if n_b > 1 else np.zeros((n_w, 1))
-    within = ((dy - slope[:, :, None] * dt) ** 2 * wp).sum(axis=(1, 2))
-    return block_rss + within
+    dy = yp - yb[:, :, None]
+    dy -= (np.gradient(f_blocks, axis=1) / np.gradient(tb, axis=1))[:, :, None] * (tp[None] - tb[:, :, None]) \
+        if n_b > 1 else 0.0
+    dy *= dy
+    dy *= wp
+    return block_rss + dy.sum(axis=(1, 2))
 
 
 def fit_coarse_to_fine(
@@ -251,6 +274,8 @@ def fit_coarse_to_fine(
     max_iter: int,
     refit: Callable[[Model, LMFit, np.ndarray, np.ndarray], LMFit] | None = None,
     refine: bool = True,
+    blocks: int = COARSE_BLOCKS,
+    ftol: float | None = None,
 ) -> LMFit:
     """:func:`fit_wells` of the model ``make(t)`` iterated on block means of about :data:`COARSE_BLOCKS`
     blocks, then judged read by read.
@@ -271,18 +296,21 @@ def fit_coarse_to_fine(
     is unbiased; it lies within a fraction of a standard error of the read-by-read optimum (measured in
     tests/plugins/rates/test_progress_optimum.py).
     """
-    k = t.size // COARSE_BLOCKS
+    k = t.size // blocks
     if k < 2:
-        fit = fit_wells(make(t), p0, y, w, lower=lower, upper=upper, max_iter=max_iter)
+        fit = fit_wells(make(t), p0, y, w, lower=lower, upper=upper, max_iter=max_iter, ftol=ftol)
         return refit(make(t), fit, y, w) if refit else fit
-    tb, yb, wb = block_means(t, y, w, k)
+    blocks = _blocked(t, y, w, k)
+    tb, yb, wb = _block_means(*blocks)
     coarse_model = make(tb)
-    fit = fit_wells(coarse_model, p0, yb, wb, lower=lower, upper=upper, max_iter=max_iter)
+    fit = fit_wells(coarse_model, p0, yb, wb, lower=lower, upper=upper, max_iter=max_iter, ftol=ftol)
     if refit:
         fit = refit(coarse_model, fit, yb, wb)
     if not refine:
-        f_blocks, _ = coarse_model(fit.params, np.arange(y.shape[0]))
-        rss = read_rss(t, y, w, k, tb, f_blocks, fit.rss)
+        f_blocks = fit.fitted
+        if f_blocks is None or not np.all(np.isfinite(f_blocks)):  # an empty block: no fitted value kept
+            f_blocks, _ = coarse_model(fit.params, np.arange(y.shape[0]))
+        rss = read_rss(blocks, tb, yb, f_blocks, fit.rss)
         tss = fit_wells_tss(y, w)
         return LMFit(fit.params, rss, tss, fit.cov_unit, fit.converged & np.isfinite(rss), fit.n_iter)
     # one nearly undamped (Gauss-Newton) step read by read from there, kept where it lowers the cost
@@ -582,7 +610,8 @@ def progress_curve(
         return _restart_plateaus(fun, first, yr, wr, lo, hi, max_iter)
 
     fit = fit_coarse_to_fine(make, t, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter,
-                             refit=None if known else restart, refine=not quick)
+                             refit=None if known else restart, refine=not quick,
+                             blocks=QUICK_BLOCKS if quick else COARSE_BLOCKS, ftol=QUICK_FTOL if quick else None)
     n_par = p0.shape[1]
     dof = np.fmax(ww.sum(axis=1) - n_par, 1.0)
     rmse = np.sqrt(fit.rss / dof)
