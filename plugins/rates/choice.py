@@ -14,9 +14,9 @@ Per well, all wells at once:
 5. where it is not kept, or its order ``u = Km/(Km + S0)`` ends within :data:`U_EDGE` of 0 or 1 (the curve
    may need an order Michaelis–Menten cannot take), or its v0 differs from the quadratic's by more than
    ``agree_z`` standard errors of the difference, the power-law curve ``v = v0 (1 - x)^n`` is fitted too;
-   it replaces Michaelis–Menten when its residual RMS is smaller by more than ``tie``, within
-   ``lof_ratio``, and its v0 agrees with the quadratic's within ``agree_z`` of the quadratic's standard
-   errors; a well neither curve describes keeps the quadratic;
+   where its residual RMS is smaller by more than ``tie`` it is the better description, and it is kept when
+   within ``lof_ratio`` and its v0 agrees with the quadratic's within ``agree_z`` of the quadratic's
+   standard errors, else the well keeps the quadratic (as it does when neither curve describes it);
 6. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
    :func:`vzero.plugins.rates.lagdecay.lag_decay`) get the first-order decay model when it describes them;
 7. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
@@ -203,10 +203,11 @@ def _skippable(q: EarlyQuadratic, sc: Screen, s0: np.ndarray, spc: float, bias_s
     The quadratic holds every usable read (the run stays within the conversion window), so a three-parameter
     curve would use the same reads as the three-parameter quadratic and could gain only by removing the
     quadratic's third-order bias: the least-squares quadratic over ``[0, T]`` of a curve with third
-    derivative ``d3`` has a slope at 0 off by ``d3 T²/10`` (the cubic's shifted Legendre remainder). For a
+    derivative ``d3`` has a slope at 0 off by ``-d3 T²/10`` (the cubic's shifted Legendre remainder). For a
     rate that falls with local order ``n`` (``v ∝ (1 - x)^n``; ``n = -P'' S0 / v0²`` from the quadratic's own
-    curvature), that is ``n (2n - 1) x²/10`` of v0 with a constant order and ``n (3n - 2) x²/10`` under
-    Michaelis–Menten kinetics (``x`` the conversion over the run). A well is skipped where the larger of the
+    curvature), that is ``-n (2n - 1) x²/10`` of v0 with a constant order and ``-n (3n - 2) x²/10`` under
+    Michaelis–Menten kinetics (``x`` the conversion over the run; checked against numpy.polyfit in
+    tests/plugins/rates/test_model_choice.py). A well is skipped where the larger of the
     two is at most ``bias_share`` of the quadratic's standard error and ``0 <= n <= 1.5`` (depletion explains
     the fall; a faster or rising rate is fitted, so that cooperative, inhibited or decaying wells still reach
     their models).
@@ -282,7 +283,7 @@ def model_choice(
             # of the orders it can take, or its v0 disagrees with the model-free quadratic's beyond
             # agree_z standard errors of their difference (sqrt(SE_q² - SE²) when both are unbiased, the
             # curve using the same reads and more: Hausman 1978, Econometrica 46:1251), allowing for the
-            # quadratic's own third-order bias under this curve (n (3n - 2) x²/10 of v0, :func:`_skippable`,
+            # quadratic's own third-order bias under this curve (|n (3n - 2)| x²/10 of v0, :func:`_skippable`,
             # with n = u and x the conversion over the quadratic's window)
             room = np.sqrt(np.fmax(q.se[fit_rows] ** 2 - mm.stderr**2, (DIFF_FLOOR * q.se[fit_rows]) ** 2))
             x_w = np.abs(mm.v0) * (q.end_s[fit_rows] - t[0]) / (np.abs(spc) * s0_all[fit_rows]) if known else 0.0
@@ -297,13 +298,14 @@ def model_choice(
             order[rows] = pw.extra["order"]
             r_pw, r_old = pw.extra["rmse_over_noise"], r_mm[try_pw]
             with np.errstate(invalid="ignore"):
-                # a power-law curve must also agree at t = 0 with the model-free quadratic within agree_z of
-                # its standard errors: the power law's order drifts with conversion for cooperative enzymes,
-                # a bias the residuals barely show
-                win = (np.isfinite(pw.v0) & (~np.isfinite(r_old) | (r_pw < r_old - tie)) & (r_pw <= lof_ratio)
-                       & ~(np.abs(pw.v0 - q.v0[rows]) > agree_z * q.se[rows]))
+                better = np.isfinite(pw.v0) & (~np.isfinite(r_old) | (r_pw < r_old - tie))
+                # the better description is kept when it fits within the noise and, for the power law, its v0
+                # agrees at t = 0 with the model-free quadratic within agree_z of its standard errors: the
+                # power law's order drifts with conversion for cooperative enzymes, a bias the residuals
+                # barely show
+                win = better & (r_pw <= lof_ratio) & ~(np.abs(pw.v0 - q.v0[rows]) > agree_z * q.se[rows])
             take(rows, pw, 1.0, win)
-            lost = rows[~win & ~ok_mm[try_pw]]  # neither curve: back to the quadratic
+            lost = rows[(better & ~win) | (~better & ~ok_mm[try_pw])]  # back to the quadratic
             v0[lost], se[lost], code[lost] = q.v0[lost], q.se[lost], 2.0
             ratio[lost], goodness[lost] = q.rmse_over_noise[lost], q.goodness[lost]
             w_start[lost], w_end[lost], n_pts[lost] = t[first[lost]], q.end_s[lost], q.n[lost]
