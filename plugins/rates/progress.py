@@ -529,9 +529,10 @@ def progress_curve(
     ``screened``: the :func:`vzero.plugins.rates.noise.screen` of these reads with this ``min_points`` and
     time, when the caller has it already (it is not computed again).
 
-    ``quick``: the fit ends on the block means (``refine=False`` of :func:`fit_coarse_to_fine`) and, with
+    ``quick``: the fit iterates on :data:`QUICK_BLOCKS` block means, stops at :data:`QUICK_FTOL` and ends
+    there (``refine=False`` of :func:`fit_coarse_to_fine`); with
     known S0, the Michaelis–Menten fit starts from the curvature of the early reads (``u`` from
-    ``-(dv/dP)/v0 = u/S0``) instead of ``u = 1/2``: about a third of the work, for
+    ``-(dv/dP)/v0 = u/S0``) instead of ``u = 1/2``: about half the work (bench/rates_bench.py), for
     :func:`vzero.plugins.rates.choice.model_choice`, which checks each whole-curve v0 against a model-free
     estimate anyway.
     """
