@@ -151,6 +151,7 @@ class ModelChoiceRates(KernelRates):
     """Per well, the rate model the well's own reads support: the integrated Michaelis–Menten or power-law
     curve when it describes the reads within the noise (and, for the power law, agrees at t = 0 with a
     model-free quadratic), else the slope at t = 0 of a quadratic through the reads up to 20 % conversion;
+    no curve is fitted where the quadratic already holds every read and its third-order bias is negligible;
     wells with a lag get the lag/decay model. Single-read spikes are masked first (docs/rates.md)."""
 
     method, version = "model-choice", "1.0"
@@ -163,8 +164,9 @@ class ModelChoiceRates(KernelRates):
         "min_points": Param("int", 8, "reads needed for any estimate", low=4),
         "lof_ratio": Param("float", 1.4, "residual RMS over read noise up to which a whole-curve model is "
                            "taken to describe the well", low=1.0),
-        "agree_z": Param("float", 2.0, "standard errors within which a power-law curve's v0 must agree with "
-                         "the early quadratic's", low=0.5),
+        "agree_z": Param("float", 2.0, "standard errors within which a whole-curve v0 must agree with the early "
+                         "quadratic's (a power-law curve is kept only then; a Michaelis-Menten curve beyond it is "
+                         "checked against the power law)", low=0.5),
         "window_conversion": Param("float", 0.20, "fraction of substrate converted up to which the fallback "
                                    "quadratic is fitted", low=0.01, high=1.0),
         "find_lag": Param("bool", True, "use the lag/decay model on wells with a detected lag"),

@@ -1,18 +1,25 @@
 """Model choice per well by evidence: the whole-curve model that describes the curve, else an early quadratic.
 
-Every well gets the same candidates, each fitted to all wells at once:
+Per well, all wells at once:
 
 1. single-read spikes are found by a robust test and masked (:mod:`vzero.plugins.rates.spikes`; SPIKE);
-2. the integrated Michaelis–Menten curve and the power-law curve ``v = v0 (1 - x)^n`` are fitted to all
-   usable reads (:func:`vzero.plugins.rates.progress.progress_curve`; both have three parameters, so the one
-   with the smaller residual sum of squares is the better description; Michaelis–Menten wins ties, within
-   ``tie`` of the residual RMS);
-3. the chosen curve is kept when its residual RMS is at most ``lof_ratio`` times the read noise (it describes
-   the curve within the noise); otherwise v0 is the slope at t = 0 of a quadratic through the reads up to
-   ``window_conversion`` of the substrate (at least ``min_points`` reads), a model-free estimate;
-4. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
+2. the model-free estimate: the slope at t = 0 of a quadratic through the reads up to ``window_conversion``
+   of the substrate (at least ``min_points`` reads; :func:`early_quadratic`);
+3. wells where no whole-curve model can improve on it are left with it, unfitted (:func:`_skippable`: the
+   window already holds every usable read, so a three-parameter curve would use the same reads, and the
+   quadratic's third-order bias, predicted from its own curvature, is below 0.3 of its standard error);
+4. the other wells get the integrated Michaelis–Menten curve fitted to all usable reads
+   (:func:`vzero.plugins.rates.progress.progress_curve`), kept when its residual RMS is at most
+   ``lof_ratio`` times the read noise (it describes the curve within the noise);
+5. where it is not kept, or its order ``u = Km/(Km + S0)`` ends within :data:`U_EDGE` of 0 or 1 (the curve
+   may need an order Michaelis–Menten cannot take), or its v0 differs from the quadratic's by more than
+   ``agree_z`` standard errors of the difference, the power-law curve ``v = v0 (1 - x)^n`` is fitted too;
+   where its residual RMS is smaller by more than ``tie`` it is the better description, and it is kept when
+   within ``lof_ratio`` and its v0 agrees with the quadratic's within ``agree_z`` of the quadratic's
+   standard errors, else the well keeps the quadratic (as it does when neither curve describes it);
+6. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
    :func:`vzero.plugins.rates.lagdecay.lag_decay`) get the first-order decay model when it describes them;
-5. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
+7. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
    Michaelis–Menten curve on the enzyme's active time (:mod:`vzero.plugins.rates.lagfit`): v0 is the rate
    with fully active enzyme at t = 0 and ``lag_s`` the fitted lag time (without s0 and signal_per_conc:
    :func:`vzero.plugins.rates.lagdecay.lag_decay`).
@@ -29,7 +36,8 @@ significantly different from zero).
 
 from __future__ import annotations
 
-from dataclasses import fields
+from dataclasses import dataclass, fields
+from typing import Any
 
 import numpy as np
 from vzero.plugins.kinetics.flags import Flag
@@ -68,12 +76,28 @@ def trim_censored(y: np.ndarray, k: int) -> np.ndarray:
     return y
 
 
+@dataclass(frozen=True)
+class EarlyQuadratic:
+    """:func:`early_quadratic` per well: ``v0`` (signal/s) and ``se`` its standard error from the read noise;
+    ``curvature`` the quadratic's second derivative at ``t[0]`` (signal/s²); ``end_s`` the time of the last
+    read used (s); ``n`` reads used; ``rmse_over_noise`` the residual RMS over the read noise; ``goodness``
+    R² over the reads used."""
+
+    v0: np.ndarray
+    se: np.ndarray
+    curvature: np.ndarray
+    end_s: np.ndarray
+    n: np.ndarray
+    rmse_over_noise: np.ndarray
+    goodness: np.ndarray
+
+
 def early_quadratic(
     t: np.ndarray, y: np.ndarray, full: np.ndarray | None, *, frac: float, min_points: int, sigma: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+) -> EarlyQuadratic:
     """Slope at ``t[0]`` of a quadratic through each well's reads up to ``frac`` of ``full`` (the signal
     change at full conversion; the first third of the reads when None), at least ``min_points`` reads.
-    Returns ``(v0, stderr, window_end_s, n_points)``; SE from the read noise ``sigma``."""
+    SE from the read noise ``sigma``."""
     n_t = y.shape[1]
     valid = np.isfinite(y)
     rank = np.cumsum(valid, axis=1)
@@ -94,15 +118,23 @@ def early_quadratic(
     u = (t - t[0]) / span
     pw = u[:, None] ** np.arange(5)[None, :]
     m = w @ pw
-    xy = (w * yz) @ pw[:, :3]
+    wy = w * yz
+    xy = wy @ pw[:, :3]
     inv = inv3_hankel(m)
     coef = np.einsum("npq,nq->np", inv, xy)
     n_in = w.sum(axis=1)
-    with np.errstate(invalid="ignore"):
-        v0 = np.where(n_in >= 4, coef[:, 1] / span, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ok = n_in >= 4
+        v0 = np.where(ok, coef[:, 1] / span, np.nan)
         se = sigma * np.sqrt(np.abs(inv[:, 1, 1])) / span
+        curv = np.where(ok, 2.0 * coef[:, 2] / span**2, np.nan)
+        yy = (wy * yz).sum(axis=1)
+        rss = np.fmax(yy - np.einsum("np,np->n", coef, xy), 0.0)
+        tss = yy - xy[:, 0] ** 2 / np.fmax(n_in, 1.0)
+        ratio = np.where(n_in > 3, np.sqrt(rss / np.fmax(n_in - 3, 1.0)) / sigma, np.nan)
+        good = np.where(ok, 1.0 - rss / tss, np.nan)
     last = n_t - 1 - np.argmax(w[:, ::-1] > 0, axis=1)
-    return v0, se, t[last], n_in.astype(np.int64)
+    return EarlyQuadratic(v0, se, curv, t[last], n_in.astype(np.int64), ratio, good)
 
 
 #: Order of the power-law curve ``v0 (1 - x)^n`` from which a falling rate is taken for loss of activity
@@ -144,6 +176,55 @@ def _decay_model(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, code:
     w_start[r] = ld.window_start_s[take]
 
 
+#: Standard errors of the early quadratic's v0 within which a power-law curve's v0 must agree with it.
+AGREE_Z = 2.0
+
+#: Least standard error of the difference between a whole-curve v0 and the quadratic's, as a share of the
+#: quadratic's: where the curve is no more precise (the window holds nearly every read), the two still
+#: differ by the curve's own third-order terms and its block-mean fit, so a zero would call every well
+#: into doubt.
+DIFF_FLOOR = 0.3
+
+#: Michaelis–Menten fits whose ``u = Km/(Km + S0)`` (the order of the rate in the substrate at t = 0) ends
+#: within this of 0 or 1 are fitted with the power-law curve too: there the curve may need an order outside
+#: the range Michaelis–Menten allows (below 0 under substrate inhibition, above 1 for a cooperative enzyme
+#: far below K0.5 or a decaying one).
+U_EDGE = 0.1
+
+
+def _rows(obj: Any, rows: np.ndarray) -> Any:
+    """The same per-well dataclass (:class:`Screen`, :class:`EarlyQuadratic`) for the wells ``rows``."""
+    return type(obj)(*(np.asarray(getattr(obj, f.name))[rows] for f in fields(obj)))
+
+
+def _skippable(q: EarlyQuadratic, sc: Screen, s0: np.ndarray, spc: float, bias_share: float) -> np.ndarray:
+    """Wells for which neither whole-curve model can improve on the early quadratic, so none is fitted.
+
+    The quadratic holds every usable read (the run stays within the conversion window), so a three-parameter
+    curve would use the same reads as the three-parameter quadratic and could gain only by removing the
+    quadratic's third-order bias: the least-squares quadratic over ``[0, T]`` of a curve with third
+    derivative ``d3`` has a slope at 0 off by ``-d3 T²/10`` (the cubic's shifted Legendre remainder). For a
+    rate that falls with local order ``n`` (``v ∝ (1 - x)^n``; ``n = -P'' S0 / v0²`` from the quadratic's own
+    curvature), that is ``-n (2n - 1) x²/10`` of v0 with a constant order and ``-n (3n - 2) x²/10`` under
+    Michaelis–Menten kinetics (``x`` the conversion over the run; checked against numpy.polyfit in
+    tests/plugins/rates/test_model_choice.py). A well is skipped where the larger of the
+    two is at most ``bias_share`` of the quadratic's standard error and ``0 <= n <= 1.5`` (depletion explains
+    the fall; a faster or rising rate is fitted, so that cooperative, inhibited or decaying wells still reach
+    their models).
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        n = -q.curvature * s0 * spc / q.v0**2
+        x = np.abs(sc.change) / (np.abs(spc) * s0)
+        bias = 0.1 * np.fmax(np.abs(n * (2 * n - 1)), np.abs(n * (3 * n - 2))) * x**2
+        return (sc.usable & (q.n >= sc.n_valid) & (n >= 0.0) & (n <= 1.5)
+                & (bias * np.abs(q.v0) <= bias_share * q.se))
+
+
+#: Share of the early quadratic's standard error up to which its third-order bias counts as negligible
+#: (:func:`_skippable`): a bias of 0.3 SE adds at most 4.4 % to the root-mean-square error.
+BIAS_SHARE = 0.3
+
+
 def model_choice(
     time: np.ndarray,
     signal: np.ndarray,
@@ -153,18 +234,12 @@ def model_choice(
     min_points: int = 8,
     lof_ratio: float = 1.4,
     tie: float = 0.01,
-    power_from: float = 0.0,
     window_conversion: float = 0.20,
-    agree_z: float = 2.0,
+    agree_z: float = AGREE_Z,
     censored_reads: int = CENSORED_READS,
     find_lag: bool = True,
 ) -> RateResult:
-    """Initial rate (signal/s) per well by the model the well's own reads support; see the module text.
-
-    ``power_from``: the power-law curve is fitted only to wells whose Michaelis–Menten residual RMS exceeds
-    this many read noises (0: every well). Raising it to 1 saves a third of the time on clean plates, but on
-    the benchmark it doubled the error at some substrate-inhibition and Hill levels, so the default is 0.
-    """
+    """Initial rate (signal/s) per well by the model the well's own reads support; see the module text."""
     t = np.asarray(time, dtype=float)
     y = trim_censored(np.array(signal, dtype=float, ndmin=2), censored_reads)
     sc0 = screen(y, min_points=min_points, time=t)
@@ -173,43 +248,70 @@ def model_choice(
     known = s0 is not None and signal_per_conc is not None
     n_w = y.shape[0]
     sc = screen(y, min_points=min_points, time=t) if spikes.any() else sc0  # the same reads: the same screen
-    mm = progress_curve(t, y, s0=s0, signal_per_conc=signal_per_conc, min_points=min_points, fail_ratio=np.inf,
-                        screened=sc)
     sigma = sc.sigma
-    r_mm = mm.extra["rmse_over_noise"]
-    v0, se = mm.v0.copy(), mm.stderr.copy()
-    code = np.where(np.isfinite(v0), 0.0, np.nan)
-    ratio = r_mm.copy()
-    with np.errstate(invalid="ignore"):
-        # the power law can only win where Michaelis–Menten leaves more than the noise (and the tie margin)
-        rows = np.flatnonzero(sc0.usable & ~(r_mm <= power_from))
-    order = np.full(n_w, np.nan)  # of the power-law curve, where fitted
-    if known and rows.size:
-        s0_rows = np.broadcast_to(np.asarray(s0, float), (n_w,))[rows]
-        pw = progress_curve(t, y[rows], s0=s0_rows, signal_per_conc=signal_per_conc, min_points=min_points,
-                            fail_ratio=np.inf, model="power",
-                            screened=Screen(*(np.asarray(getattr(sc, f.name))[rows] for f in fields(sc))))
-        r_pw = pw.extra["rmse_over_noise"]
-        with np.errstate(invalid="ignore"):
-            win = np.isfinite(pw.v0) & (~np.isfinite(r_mm[rows]) | (r_pw < r_mm[rows] - tie))
-        order[rows] = pw.extra["order"]
-        use_pw = rows[win]
-        v0[use_pw], se[use_pw] = pw.v0[win], pw.stderr[win]
-        code[use_pw], ratio[use_pw] = 1.0, r_pw[win]
     full = conversion_scale(s0, signal_per_conc, n_w) if known else None
-    vq, sq, endq, nq = early_quadratic(t, y, full, frac=window_conversion, min_points=min_points, sigma=sigma)
-    with np.errstate(invalid="ignore"):
-        lof = sc.usable & np.isfinite(vq) & ~(ratio <= lof_ratio)
-        # a power-law curve (chosen because Michaelis–Menten does not describe the well) must also agree at
-        # t = 0 with the model-free quadratic within agree_z of its standard errors: the power law's order
-        # drifts with conversion for cooperative enzymes, a bias the residuals barely show
-        lof |= sc.usable & np.isfinite(vq) & (code == 1) & (np.abs(v0 - vq) > agree_z * sq)
-    v0[lof], se[lof], code[lof] = vq[lof], sq[lof], 2.0
-    flags = np.asarray(mm.flags, dtype=np.int64) & ~np.int64(int(Flag.FIT_FAILED | Flag.NOISY))
+    q = early_quadratic(t, y, full, frac=window_conversion, min_points=min_points, sigma=sigma)
+    v0, se = np.where(sc.usable, q.v0, np.nan), np.where(sc.usable, q.se, np.nan)
+    code = np.where(np.isfinite(v0), 2.0, np.nan)
+    ratio, goodness = q.rmse_over_noise.copy(), q.goodness.copy()
+    first = np.argmax(sc.valid, axis=1)
+    w_start = np.where(sc.usable, t[first], np.nan)
+    w_end, n_pts = np.where(sc.usable, q.end_s, np.nan), np.where(sc.usable, q.n, 0)
+    order = np.full(n_w, np.nan)  # of the power-law curve, where fitted
+    s0_all = np.broadcast_to(np.asarray(s0 if known else np.nan, float), (n_w,))
+    spc = float(signal_per_conc) if known else np.nan  # type: ignore[arg-type]
+    skip = _skippable(q, sc, s0_all, spc, BIAS_SHARE) if known else np.zeros(n_w, bool)
+    fit_rows = np.flatnonzero(sc.usable & ~skip)
+    fit_flags = np.zeros(n_w, np.int64)
+
+    def take(rows: np.ndarray, res: RateResult, code_value: float, sel: np.ndarray) -> None:
+        r = rows[sel]
+        v0[r], se[r], code[r] = res.v0[sel], res.stderr[sel], code_value
+        ratio[r], goodness[r] = res.extra["rmse_over_noise"][sel], res.goodness[sel]
+        w_start[r], w_end[r], n_pts[r] = res.window_start_s[sel], res.window_end_s[sel], res.n_points[sel]
+
+    if fit_rows.size:
+        mm = progress_curve(t, y[fit_rows], s0=s0_all[fit_rows] if known else None,
+                            signal_per_conc=signal_per_conc, min_points=min_points, fail_ratio=np.inf,
+                            screened=_rows(sc, fit_rows), quick=True)
+        fit_flags[fit_rows] = mm.flags
+        r_mm = mm.extra["rmse_over_noise"]
+        with np.errstate(invalid="ignore"):
+            ok_mm = np.isfinite(mm.v0) & (r_mm <= lof_ratio)
+            u = mm.extra["km"] / (mm.extra["km"] + s0_all[fit_rows])
+            # the power law can win only where Michaelis–Menten leaves more than the noise, sits at the edge
+            # of the orders it can take, or its v0 disagrees with the model-free quadratic's beyond
+            # agree_z standard errors of their difference (sqrt(SE_q² - SE²) when both are unbiased, the
+            # curve using the same reads and more: Hausman 1978, Econometrica 46:1251), allowing for the
+            # quadratic's own third-order bias under this curve (|n (3n - 2)| x²/10 of v0, :func:`_skippable`,
+            # with n = u and x the conversion over the quadratic's window)
+            room = np.sqrt(np.fmax(q.se[fit_rows] ** 2 - mm.stderr**2, (DIFF_FLOOR * q.se[fit_rows]) ** 2))
+            x_w = np.abs(mm.v0) * (q.end_s[fit_rows] - t[0]) / (np.abs(spc) * s0_all[fit_rows]) if known else 0.0
+            q_bias = 0.1 * np.abs(u * (3 * u - 2)) * x_w**2 * np.abs(mm.v0)
+            doubt = np.abs(mm.v0 - q.v0[fit_rows]) > agree_z * room + q_bias
+            try_pw = ~ok_mm | ~(u > U_EDGE) | ~(u < 1.0 - U_EDGE) | doubt
+        take(fit_rows, mm, 0.0, ok_mm)
+        rows = fit_rows[try_pw]
+        if known and rows.size:
+            pw = progress_curve(t, y[rows], s0=s0_all[rows], signal_per_conc=spc, min_points=min_points,
+                                fail_ratio=np.inf, model="power", screened=_rows(sc, rows), quick=True)
+            order[rows] = pw.extra["order"]
+            r_pw, r_old = pw.extra["rmse_over_noise"], r_mm[try_pw]
+            with np.errstate(invalid="ignore"):
+                better = np.isfinite(pw.v0) & (~np.isfinite(r_old) | (r_pw < r_old - tie))
+                # the better description is kept when it fits within the noise and, for the power law, its v0
+                # agrees at t = 0 with the model-free quadratic within agree_z of its standard errors: the
+                # power law's order drifts with conversion for cooperative enzymes, a bias the residuals
+                # barely show
+                win = better & (r_pw <= lof_ratio) & ~(np.abs(pw.v0 - q.v0[rows]) > agree_z * q.se[rows])
+            take(rows, pw, 1.0, win)
+            lost = rows[(better & ~win) | (~better & ~ok_mm[try_pw])]  # back to the quadratic
+            v0[lost], se[lost], code[lost] = q.v0[lost], q.se[lost], 2.0
+            ratio[lost], goodness[lost] = q.rmse_over_noise[lost], q.goodness[lost]
+            w_start[lost], w_end[lost], n_pts[lost] = t[first[lost]], q.end_s[lost], q.n[lost]
+    flags = np.asarray(sc.flags, dtype=np.int64) | (fit_flags & ~np.int64(int(Flag.FIT_FAILED | Flag.NOISY)))
     flags[spikes.any(axis=1)] |= int(Flag.SPIKE)
     lag_s = np.where(sc.usable, 0.0, np.nan)
-    w_start, w_end, n_pts = mm.window_start_s.copy(), mm.window_end_s.copy(), mm.n_points.copy()
-    w_end[lof], n_pts[lof] = endq[lof], nq[lof]
     extra = {"rmse_over_noise": ratio, "read_noise": sigma, "k_decay": np.full(n_w, np.nan)}
     if find_lag:
         _, lag_all, has_lag = detect_lag(t, y, sc)
@@ -217,8 +319,7 @@ def model_choice(
         flags[has_lag] |= int(Flag.LAG)
         if has_lag.any() and known:
             rows = np.flatnonzero(has_lag)
-            s0_rows = np.broadcast_to(np.asarray(s0, float), (n_w,))[rows]
-            lf = lag_clock_fit(t, y[rows], s0_rows, signal_per_conc, min_points=min_points)
+            lf = lag_clock_fit(t, y[rows], s0_all[rows], spc, min_points=min_points)
             ok = np.isfinite(lf["v0"])
             r = rows[ok]
             v0[r], se[r], code[r] = lf["v0"][ok], lf["stderr"][ok], 3.0
@@ -233,7 +334,7 @@ def model_choice(
             w_start[rows], w_end[rows], n_pts[rows] = ld.window_start_s, ld.window_end_s, ld.n_points
             extra["rmse_over_noise"][rows] = ld.extra["rmse_over_noise"]
     if known:
-        _decay_model(t, y, s0, float(signal_per_conc), code, v0, se, flags, extra, w_start, order,
+        _decay_model(t, y, s0_all, spc, code, v0, se, flags, extra, w_start, order,
                      lof_ratio=lof_ratio, min_points=min_points)
     failed = sc.usable & ~np.isfinite(v0)
     flags[failed] |= int(Flag.FIT_FAILED)
@@ -244,5 +345,5 @@ def model_choice(
     with np.errstate(invalid="ignore", divide="ignore"):
         extra["rate_t"] = v0 / se
     return RateResult(v0=v0, stderr=se, window_start_s=w_start, window_end_s=w_end,
-                      goodness=mm.goodness, flags=flags, n_points=n_pts, lag_s=lag_s,
-                      goodness_name=mm.goodness_name, extra=extra)
+                      goodness=goodness, flags=flags, n_points=n_pts, lag_s=lag_s,
+                      goodness_name="r_squared", extra=extra)

@@ -30,7 +30,8 @@ from vzero.plugins.rates.polynomial import inv3_hankel
 @dataclass(frozen=True)
 class LMFit:
     """Result of :func:`fit_wells`, arrays over wells: ``params [n, p]``, ``rss``, ``tss`` (about the
-    weighted mean), ``cov_unit = (J' W J)^-1`` at the solution, ``converged``, ``n_iter`` (plate-wide)."""
+    weighted mean), ``cov_unit = (J' W J)^-1`` at the solution, ``converged``, ``n_iter`` (plate-wide),
+    ``fitted`` the model's values at the points counted (NaN elsewhere; None where not kept)."""
 
     params: np.ndarray
     rss: np.ndarray
@@ -38,6 +39,7 @@ class LMFit:
     cov_unit: np.ndarray
     converged: np.ndarray
     n_iter: int
+    fitted: np.ndarray | None = None
 
 
 WELL_TOLERANCES = {"ftol": 1e-6, "xtol": 1e-9, "gtol": 1e-12}
@@ -55,6 +57,7 @@ def fit_wells(
     upper: np.ndarray | None = None,
     max_iter: int = 60,
     lam0: float = 1e-3,
+    ftol: float | None = None,
 ) -> LMFit:
     """Fit one curve per well with the shared batched solver (:func:`vzero.plugins.kinetics.lsq.solve`: its
     bound handling and convergence rules) and :data:`WELL_TOLERANCES`.
@@ -63,15 +66,14 @@ def fit_wells(
     ``y`` ``[n, t]`` (NaN allowed where ``w == 0``); ``w`` 0/1 weights. A well whose damping grew without a
     step lowering its cost (stalled) sits at a stationary point: it counts as converged here, and the
     caller judges the fit by its residuals against the read noise. ``lam0``: the initial damping (small for
-    a start next to the solution).
+    a start next to the solution); ``ftol`` replaces the relative cost change of :data:`WELL_TOLERANCES`.
     """
-    sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, lam0=lam0, **WELL_TOLERANCES)
-    y0 = np.where(w > 0, y, 0.0)
-    nw = np.fmax(w.sum(axis=1), 1.0)
-    mean = (y0 * w).sum(axis=1) / nw
-    tss = (((y0 - mean[:, None]) * w) ** 2).sum(axis=1)
-    return LMFit(sol.params, sol.cost, tss, lsq.unit_covariance(sol.jac),
-                 (sol.converged | sol.stalled) & np.isfinite(sol.cost), sol.n_iter)
+    tol = WELL_TOLERANCES if ftol is None else {**WELL_TOLERANCES, "ftol": ftol}
+    sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, lam0=lam0, **tol)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        fitted = np.where(w > 0, sol.resid / w + np.where(w > 0, y, 0.0), np.nan)
+    return LMFit(sol.params, sol.cost, fit_wells_tss(y, w), lsq.unit_covariance(sol.jac),
+                 (sol.converged | sol.stalled) & np.isfinite(sol.cost), sol.n_iter, fitted)
 
 
 #: Below this argument Wright omega is exp(x) to double precision (relative error e^x); the iteration would
@@ -187,6 +189,27 @@ COARSE_BLOCKS = 40
 fewer than twice as many reads are fitted read by read."""
 
 
+QUICK_BLOCKS = 20
+"""Blocks of the ``quick`` fits (:func:`progress_curve`), which end on the block means."""
+
+QUICK_FTOL = 1e-4
+"""Relative change of cost at which the ``quick`` fits stop: on about :data:`QUICK_BLOCKS` block means, whose
+cost is about that many read variances, a change of 1e-4 of it is a change of chi² near 0.002, which moves the
+parameters by a few hundredths of a standard error."""
+
+
+def _blocked(t: np.ndarray, y: np.ndarray, w: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Times ``[blocks, k]``, weights and reads (0 where not counted) ``[wells, blocks, k]`` in blocks of ``k``
+    consecutive reads (the last block padded with uncounted reads)."""
+    n_w, n_t = y.shape
+    n_b = -(-n_t // k)
+    pad = n_b * k - n_t
+    yz = np.where(w > 0, y, 0.0)
+    if pad:
+        t, w, yz = np.pad(t, (0, pad), mode="edge"), np.pad(w, ((0, 0), (0, pad))), np.pad(yz, ((0, 0), (0, pad)))
+    return t.reshape(n_b, k), w.reshape(n_w, n_b, k), yz.reshape(n_w, n_b, k)
+
+
 def block_means(
     t: np.ndarray, y: np.ndarray, w: np.ndarray, k: int
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -198,17 +221,45 @@ def block_means(
     block). A smooth curve's mean over a block equals its value at the block's mean time up to the curvature
     times the spread of the times, ``f'' var(t)/2``, which is tiny for a few reads.
     """
-    n_w, n_t = y.shape
-    n_b = -(-n_t // k)
-    pad = n_b * k - n_t
-    tp = np.pad(t, (0, pad), mode="edge")
-    wp = np.pad(w, ((0, 0), (0, pad))).reshape(n_w, n_b, k)
-    yp = np.pad(np.where(w > 0, y, 0.0), ((0, 0), (0, pad))).reshape(n_w, n_b, k)
+    return _block_means(*_blocked(t, y, w, k))
+
+
+def _block_means(tp: np.ndarray, wp: np.ndarray, yp: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`block_means` of the blocks of :func:`_blocked`."""
     cnt = wp.sum(axis=2)
     with np.errstate(invalid="ignore", divide="ignore"):
-        tb = np.where(cnt > 0, (wp * tp.reshape(n_b, k)).sum(axis=2) / cnt, tp.reshape(n_b, k).mean(axis=1))
+        tb = np.where(cnt > 0, (wp * tp).sum(axis=2) / cnt, tp.mean(axis=1))
         yb = np.where(cnt > 0, (wp * yp).sum(axis=2) / cnt, 0.0)
     return tb, yb, np.sqrt(cnt)
+
+
+def fit_wells_tss(y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Sum of squares of each well's counted reads (``w`` 0/1) about their mean."""
+    y0 = np.where(w > 0, y, 0.0)
+    mean = (y0 * w).sum(axis=1) / np.fmax(w.sum(axis=1), 1.0)
+    return (((y0 - mean[:, None]) * w) ** 2).sum(axis=1)
+
+
+def read_rss(blocks: tuple[np.ndarray, np.ndarray, np.ndarray], tb: np.ndarray, yb: np.ndarray,
+             f_blocks: np.ndarray, block_rss: np.ndarray) -> np.ndarray:
+    """Residual sum of squares over every counted read of a curve fitted to block means.
+
+    ``blocks`` from :func:`_blocked`; ``tb``, ``yb`` the block times and means; ``f_blocks`` the curve at the
+    block times. Within a block the curve is taken as a straight line through its value ``f_b`` with the
+    curve's local slope ``s_b`` (central differences of ``f_blocks`` over ``tb``), so ``sum (y - f)^2 =
+    m (ybar - f_b)^2 + sum (y - ybar - s_b (t - tbar))^2`` per block: the block fit's weighted residual
+    (``block_rss``, weights ``sqrt(m)``) plus the scatter of the reads about that line, which needs no
+    evaluation of the model. The neglected curvature within a block of a few reads changes the sum by about
+    ``f'' var(t)`` per read, far below the read noise for a smooth progress curve.
+    """
+    tp, wp, yp = blocks
+    n_b = tb.shape[1]
+    dy = yp - yb[:, :, None]
+    dy -= (np.gradient(f_blocks, axis=1) / np.gradient(tb, axis=1))[:, :, None] * (tp[None] - tb[:, :, None]) \
+        if n_b > 1 else 0.0
+    dy *= dy
+    dy *= wp
+    return block_rss + dy.sum(axis=(1, 2))
 
 
 def fit_coarse_to_fine(
@@ -222,6 +273,9 @@ def fit_coarse_to_fine(
     upper: np.ndarray,
     max_iter: int,
     refit: Callable[[Model, LMFit, np.ndarray, np.ndarray], LMFit] | None = None,
+    refine: bool = True,
+    blocks: int = COARSE_BLOCKS,
+    ftol: float | None = None,
 ) -> LMFit:
     """:func:`fit_wells` of the model ``make(t)`` iterated on block means of about :data:`COARSE_BLOCKS`
     blocks, then judged read by read.
@@ -235,16 +289,30 @@ def fit_coarse_to_fine(
     standard error of scipy's least_squares in tests/plugins/rates/test_progress_optimum.py. Two whole
     evaluations and the block iterations cost about half of the read-by-read fit's five or six evaluations
     (bench/rates_bench.py). ``refit(model, fit, y, w)``: a second pass on the block means (plateau restarts).
+
+    ``refine=False`` skips the read-by-read step: the parameters and covariance are the block fit's, and the
+    residual sum of squares is that of every read, taken from the block fit without evaluating the model
+    read by read (:func:`read_rss`). The block means are a linear compression of the reads, so the block fit
+    is unbiased; it lies within a fraction of a standard error of the read-by-read optimum (measured in
+    tests/plugins/rates/test_progress_optimum.py).
     """
-    k = t.size // COARSE_BLOCKS
+    k = t.size // blocks
     if k < 2:
-        fit = fit_wells(make(t), p0, y, w, lower=lower, upper=upper, max_iter=max_iter)
+        fit = fit_wells(make(t), p0, y, w, lower=lower, upper=upper, max_iter=max_iter, ftol=ftol)
         return refit(make(t), fit, y, w) if refit else fit
-    tb, yb, wb = block_means(t, y, w, k)
+    blocks = _blocked(t, y, w, k)
+    tb, yb, wb = _block_means(*blocks)
     coarse_model = make(tb)
-    fit = fit_wells(coarse_model, p0, yb, wb, lower=lower, upper=upper, max_iter=max_iter)
+    fit = fit_wells(coarse_model, p0, yb, wb, lower=lower, upper=upper, max_iter=max_iter, ftol=ftol)
     if refit:
         fit = refit(coarse_model, fit, yb, wb)
+    if not refine:
+        f_blocks = fit.fitted
+        if f_blocks is None or not np.all(np.isfinite(f_blocks)):  # an empty block: no fitted value kept
+            f_blocks, _ = coarse_model(fit.params, np.arange(y.shape[0]))
+        rss = read_rss(blocks, tb, yb, f_blocks, fit.rss)
+        tss = fit_wells_tss(y, w)
+        return LMFit(fit.params, rss, tss, fit.cov_unit, fit.converged & np.isfinite(rss), fit.n_iter)
     # one nearly undamped (Gauss-Newton) step read by read from there, kept where it lowers the cost
     fine = fit_wells(make(t), fit.params, y, w, lower=lower, upper=upper, max_iter=1, lam0=1e-9)
     return LMFit(fine.params, fine.rss, fine.tss, fine.cov_unit, fit.converged & np.isfinite(fine.rss),
@@ -432,6 +500,7 @@ def progress_curve(
     max_iter: int = 80,
     model: str = "michaelis-menten",
     screened: Screen | None = None,
+    quick: bool = False,
 ) -> RateResult:
     """Initial rate from a fit of the integrated Michaelis–Menten equation to the whole curve.
 
@@ -459,6 +528,13 @@ def progress_curve(
 
     ``screened``: the :func:`vzero.plugins.rates.noise.screen` of these reads with this ``min_points`` and
     time, when the caller has it already (it is not computed again).
+
+    ``quick``: the fit iterates on :data:`QUICK_BLOCKS` block means, stops at :data:`QUICK_FTOL` and ends
+    there (``refine=False`` of :func:`fit_coarse_to_fine`); with
+    known S0, the Michaelis–Menten fit starts from the curvature of the early reads (``u`` from
+    ``-(dv/dP)/v0 = u/S0``) instead of ``u = 1/2``: about half the work (bench/rates_bench.py), for
+    :func:`vzero.plugins.rates.choice.model_choice`, which checks each whole-curve v0 against a model-free
+    estimate anyway.
     """
     if model not in ("michaelis-menten", "power"):
         raise StageError(f"progress curve: unknown model {model!r}; use 'michaelis-menten' or 'power'.")
@@ -504,8 +580,9 @@ def progress_curve(
         spc = float(signal_per_conc)  # type: ignore[arg-type]
         s0w = s0_arr[todo][:, None]
         vc = v_init / abs(spc)
-        # u = Km/(Km + S0) starts at 1/2 (S0 = Km), mid-range
-        p0 = np.stack([base0, np.log(vc), np.full(todo.size, 0.5)], axis=1)
+        # u = Km/(Km + S0) starts at 1/2 (S0 = Km), mid-range, or (quick) at the early curvature
+        u0 = np.clip(c_init * abs(spc) * s0w[:, 0], 0.05, 0.95) if quick else np.full(todo.size, 0.5)
+        p0 = np.stack([base0, np.log(vc), u0], axis=1)
         lo = np.stack([-free, np.log(vc) - 12, np.full(todo.size, U_BOUNDS[0])], axis=1)
         hi = np.stack([free, np.log(vc) + 12, np.full(todo.size, U_BOUNDS[1])], axis=1)
 
@@ -534,7 +611,8 @@ def progress_curve(
         return _restart_plateaus(fun, first, yr, wr, lo, hi, max_iter)
 
     fit = fit_coarse_to_fine(make, t, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter,
-                             refit=None if known else restart)
+                             refit=None if known else restart, refine=not quick,
+                             blocks=QUICK_BLOCKS if quick else COARSE_BLOCKS, ftol=QUICK_FTOL if quick else None)
     n_par = p0.shape[1]
     dof = np.fmax(ww.sum(axis=1) - n_par, 1.0)
     rmse = np.sqrt(fit.rss / dof)
