@@ -9,6 +9,8 @@ returns ``(S, dS/dθ per parameter)`` at every point.
   (Schnell & Mendoza 1997, J. Theor. Biol. 187:207). It is evaluated as K'·ω(ln(S0/K') + (S0 − V'τ)/K')
   with ω Wright's omega function (ω(y) = W(eʸ), scipy.special.wrightomega, accurate to a few units in the
   last place), which does not overflow when S0 ≫ K'.
+* the same family with competitive product inhibition, v = V'·S/(K'·(1 + P/Kp) + S): Lambert W again,
+  polished by Newton (:func:`michaelis_menten_product`);
 * Hill and substrate inhibition (Haldane): the time to fall from S0 to S, τ = G(S) = ∫_S^S0 ds/v(s), has a
   closed form, G(S) = [Km·ln(S0/S) + (S0 − S) + (S0² − S²)/(2Ksi)]/V and
   G(S) = [K0.5^h·∫_S^S0 s^−h ds + (S0 − S)]/V; S(τ) is its root, found by safeguarded Newton iteration in
