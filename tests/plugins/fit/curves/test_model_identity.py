@@ -11,9 +11,11 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+import pytest
 from scipy.integrate import solve_ivp
 from vzero.plugins.fit.catalog import BY_NAME, Model
 from vzero.plugins.fit.curves import curve
+from vzero.testing import check_model
 
 T = np.linspace(0.0, 1800.0, 60)
 S0 = np.array([2.0, 20.0, 200.0])
@@ -79,3 +81,19 @@ def test_a_declared_closed_form_is_used() -> None:
         np.testing.assert_allclose(pc, po, rtol=0, atol=1e-9 * np.max(po))
         for a, b in zip(gc, go, strict=True):
             np.testing.assert_allclose(a, b, rtol=0, atol=3e-7 * np.max(np.abs(b)))
+
+
+def test_conformance_kit_checks_what_a_model_declares() -> None:
+    # a declaration that contradicts the model's own rate law is caught before it can bend a curve fit
+    x = {"substrate": np.array([1.0, 5.0, 20.0, 80.0]), "inhibitor": np.array([0.0, 1.0, 2.0, 4.0])}
+    y = np.array([3.0, 10.0, 20.0, 25.0])
+    good = Model("activator", ("Vmax", "Km", "Ka"), {"Vmax": "rate", "Km": "substrate", "Ka": "inhibitor"},
+                 ("substrate", "inhibitor"), _activator, _activator_jac, lambda x, y: [30.0, 8.0, 1.5],
+                 "v = Vmax·S/(Km/(1 + I/Ka) + S)", half_saturation="Km", apparent=_apparent)
+    check_model(good, x, y)
+    wrong_slope = Model(**{**good.__dict__, "rate_slope": lambda p, x: np.ones_like(x["substrate"])})
+    with pytest.raises(AssertionError, match="rate_slope differs"):
+        check_model(wrong_slope, x, y)
+    wrong_apparent = Model(**{**good.__dict__, "apparent": lambda p, x: (p[0], p[1], [], [])})
+    with pytest.raises(AssertionError, match="apparent constants"):
+        check_model(wrong_apparent, x, y)
