@@ -180,6 +180,9 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     if lot_labels is not None:
         use &= lot_labels != ""
     reference = str(cfg["reference_lot"]) if cfg["reference_lot"] not in (None, "") else None
+    if reference is not None and lot_labels is not None and reference not in set(lot_labels[use]):
+        data.warn(f"fit (curves): reference_lot {reference!r} is not the lot of any fitted well; each group's "
+                  "first lot in layout order is its reference instead (the fit rows' note names it)")
 
     fits: dict[tuple[str, str], Any] = {}
     fitted: dict[tuple[str, str], tuple[CurveGroup, CurveFit]] = {}
