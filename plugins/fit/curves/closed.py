@@ -170,13 +170,13 @@ def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> t
 
     def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         v, k, ki, a = vm, km, ksi, s0f
-        return (k * np.log(a / s) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
+        return (k * (np.log(a) - np.log(s)) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
 
     with np.errstate(all="ignore"):
         s = _newton(g, s0f, tau.ravel(), _mm_start(vm, km, s0f, tau.ravel()))
         pos = s > 0
         v = vm * s / (km + s + s * s / ksi)
-        lg = np.where(pos, np.log(s0f / np.where(pos, s, 1.0)), 0.0)
+        lg = np.where(pos, np.log(s0f) - np.log(np.where(pos, s, 1.0)), 0.0)
         gv = (km * lg + (s0f - s) + (s0f**2 - s**2) / (2 * ksi)) / vm
         d = [-v * gv / vm, v * lg / vm, -v * (s0f**2 - s**2) / (2 * ksi**2 * vm)]
     shape = tau.shape
@@ -211,7 +211,7 @@ def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray,
         e1 = kh * np.exp((1 - h) * lsk)  # K·(S0/K)^{1−h} = K^h·S0^{1−h}
 
     def hh(s: np.ndarray, derivative: bool = False) -> tuple[np.ndarray, np.ndarray, Any]:
-        lg = np.log(s0f / s)
+        lg = np.log(s0f) - np.log(s)  # not log(S0/S): the ratio overflows where S has fallen below 1e-308·S0
         q, dq = _q((1 - h) * lg, derivative)
         return e1 * lg * q, lg, dq
 

@@ -125,3 +125,20 @@ def test_product_inhibition_slows_the_curve() -> None:
 def test_law_without_half_saturation_is_refused() -> None:
     with pytest.raises(FitError, match="cannot take product inhibition"):
         curve.progress(BY_NAME["logistic-4p"], [1.0, 0.1, 2.0, 1.0], _wells(), kprod=3.0)
+
+
+@pytest.mark.parametrize("name, theta", [("michaelis-menten", THETA["michaelis-menten"]), ("hill", THETA["hill"]),
+                                         ("hill", [30.0, 8.0, 1.0]),
+                                         ("substrate-inhibition", THETA["substrate-inhibition"])])
+def test_sensitivities_stay_finite_past_underflow(name: str, theta: list[float]) -> None:
+    # assays long enough that the substrate left falls below the smallest double (S0·e^-745): the closed
+    # forms must give S = 0 or a tiny S with finite derivatives, or one well poisons a whole group's Jacobian
+    model = BY_NAME[name]
+    n = 3
+    wells = curve.Wells(np.array([0.5, 0.05, 5.0]), np.zeros(n), np.zeros(n),
+                        np.tile(np.linspace(0.0, 3 * 86400.0, 40), (n, 1)), np.full(n, 1 / 60))
+    for kprod in ((None, 40.0) if name == "michaelis-menten" else (None,)):
+        p, grads = curve.progress(model, theta, wells, route="closed", kprod=kprod)
+        assert np.all(np.isfinite(p)) and all(np.all(np.isfinite(g)) for g in grads)
+        if name != "hill" or theta[2] <= 1:  # with h > 1 the rate falls as S^h: the substrate lasts
+            np.testing.assert_allclose(p[:, -1], wells.s0, rtol=1e-12)  # ran to completion
