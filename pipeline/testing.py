@@ -109,8 +109,38 @@ def check_model(model: Any, x: Mapping[str, np.ndarray], y: np.ndarray, *, rtol:
                             f"(largest gap {np.max(np.abs(d - numeric)):.3g})")
     if digest(x) != frozen:
         problems.append("the model changed the points it was given")
+    problems += _declared_curve_parts(model, p, x, v, rtol)
     _fail(name, problems)
     return p
+
+
+def _declared_curve_parts(model: Any, p: list[float], x: Mapping[str, np.ndarray], v: np.ndarray,
+                          rtol: float) -> list[str]:
+    """What a model declares for progress-curve fitting must match its own rate law: ``rate_slope`` against
+    a central difference in the substrate, ``apparent`` constants V', K' against v = V'·S/(K' + S)."""
+    declared = getattr(model, "declared", None)
+    if declared is None or "substrate" not in x or v.shape != np.shape(x["substrate"]):
+        return []
+    problems = []
+    s = x["substrate"]
+    slope = declared("rate_slope")
+    if slope is not None:
+        h = 1e-6 * np.maximum(np.abs(s), 1e-6)
+        up = np.asarray(model.evaluate(p, {**x, "substrate": s + h}), float)
+        down = np.asarray(model.evaluate(p, {**x, "substrate": s - h}), float)
+        numeric = (up - down) / (2 * h)
+        got = np.broadcast_to(np.asarray(slope(p, x), float), s.shape)
+        scale = np.max(np.abs(numeric)) + 1e-300
+        if not np.allclose(got, numeric, rtol=rtol, atol=rtol * scale):
+            problems.append(f"rate_slope differs from a central difference of evaluate in the substrate "
+                            f"(largest gap {np.max(np.abs(got - numeric)):.3g})")
+    apparent = declared("apparent")
+    if apparent is not None:
+        vp, kp, _, _ = apparent(p, x)
+        mm = np.asarray(vp * s / (kp + s), float)
+        if not np.allclose(mm, v, rtol=rtol, atol=rtol * (np.max(np.abs(v)) + 1e-300)):
+            problems.append("the apparent constants V', K' do not reproduce evaluate as V'·S/(K' + S)")
+    return problems
 
 
 def digest(value: Any) -> str:

@@ -12,7 +12,14 @@ What goes where (the EnzymeML v2 JSON schema; docs/exports.md has the full mappi
   reads only) on the species named by ``assay.measured`` (default ``product``), ``data_type`` absorbance or
   fluorescence from the signal unit.
 * ``equations`` and ``parameters``: each fitted model of each group as a rate law, with parameter values,
-  standard errors and units. Confidence intervals have no place in the schema; they stay in the CSV/xlsx.
+  standard errors and units (a curve fit with product inhibition writes its law with the half-saturation
+  constant times (1 + P/Kp), P the product). Confidence intervals have no place in the schema; they stay in
+  the CSV/xlsx.
+* the integrated curves of a ``curves`` fit (the ``progress_curves`` table): one more measurement per well
+  and fitted model, its product data the fitted curve at every read time, in concentration, on the scale of
+  the reads converted to concentration (the well's fitted baseline included), marked ``is_simulated`` and
+  ``data_type: concentration``, with the well's initial amounts. The schema has no field for residuals:
+  they stay in run.h5 (the step's ``curve_fits``) and progress_curves.csv.
 """
 
 from __future__ import annotations
@@ -29,7 +36,7 @@ from vzero.data import steps_apart
 from vzero.plugins.export.tables import RESEARCH_NOTE
 
 SIGNAL_TYPES = {"AU": "absorbance", "mAU": "absorbance", "absorbance_unit": "absorbance", "RFU": "fluorescence"}
-SYMBOLS = {"S": "substrate", "I": "inhibitor", "E": "enzyme"}
+SYMBOLS = {"S": "substrate", "I": "inhibitor", "E": "enzyme", "P": "product"}
 BASE_KINDS = (("[substance]", "mole", None), ("[mass]", "gram", "g"), ("[time]", "second", "s"),
               ("[temperature]", "kelvin", "K"))
 
@@ -101,15 +108,24 @@ def _equation(text: str, ids: Mapping[str, str]) -> str:
     return re.sub(r"\)(\w)", r")*\1", rhs)
 
 
-def _model_equations() -> dict[str, str]:
-    """Equation text of every registered fit model, by name (empty when the fit plugin is unavailable)."""
+def _model_equations() -> dict[str, tuple[str, str]]:
+    """Equation text and half-saturation constant of every registered fit model, by name (empty when the fit
+    plugin is unavailable)."""
     try:
         from vzero.manager import make_manager
 
         registry = make_manager(autoload=False).registry
-        return {e.name: str(getattr(e.component, "equation", "")) for e in registry if e.kind == "model"}
+        return {e.name: (str(getattr(e.component, "equation", "")), str(getattr(e.component, "half_saturation", "")))
+                for e in registry if e.kind == "model"}
     except Exception:  # an export must not fail because a plugin does
         return {}
+
+
+def _with_product(text: str, half_saturation: str) -> str:
+    """A rate law's text with competitive product inhibition: the half-saturation constant times (1 + P/Kp)."""
+    if not half_saturation:
+        return text
+    return re.sub(rf"(?<![\w.]){re.escape(half_saturation)}(?![\w.])", f"{half_saturation}(1 + P/Kp)", text)
 
 
 def _num(x: Any) -> float | None:
@@ -185,6 +201,13 @@ def build_document(head: Mapping[str, Any], results: Mapping[str, Any], traces: 
         "reactions": [reaction],
         "measurements": _measurements(assay, rates, traces, measured, has_inhibitor),
     }
+    curves = results.get("progress_curves")
+    if curves is not None and len(curves.frame):
+        if not any(m["id"] == "product" for m in molecules):
+            molecules.append({"id": "product", "name": str(product.get("name", "product")), "constant": False,
+                              "vessel_id": "well"})
+            reaction["products"] = [{"species_id": "product", "stoichiometry": 1.0}]
+        doc["measurements"] += _simulated(curves, has_inhibitor)
     equations, parameters = _fits(fits, measured)
     doc["equations"] = equations
     doc["parameters"] = parameters
@@ -275,13 +298,50 @@ def _fits(fits: Any, measured: str) -> tuple[list[dict[str, Any]], list[dict[str
                     p[key] = v
             p["constant"] = True
             parameters.append(p)
-        text = texts.get(str(model).split(" (")[0], "")  # "hill (06-fit-nls)": a model of one of several fit steps
+        text, half = texts.get(str(model).split(" (")[0], ("", ""))  # "hill (06-fit-nls)": one of several steps
+        if text and "Kp" in set(block["parameter"].astype(str)):
+            text = _with_product(text, half)
         if text:
             equations.append({"species_id": measured, "equation": _equation(text, {**ids, **SYMBOLS}),
                               "equation_type": "rateLaw",
                               "variables": [{"id": v, "name": v, "symbol": v} for v in SYMBOLS.values()
                                             if re.search(rf"\b{v}\b", _equation(text, {**ids, **SYMBOLS}))]})
     return equations, parameters
+
+
+def _simulated(curves: Any, has_inhibitor: bool) -> list[dict[str, Any]]:
+    """The fitted progress curves (``progress_curves`` table) as simulated measurements, one per well and
+    model."""
+    frame = steps_apart(curves.frame)
+    units = dict(curves.units)
+    conc = unit_definition(units.get("fitted", ""))
+    route = frame["route"].astype(str) if "route" in frame.columns else None
+    keys = ["group", "model", "plate", "well"]
+    out = []
+    for (group, model, plate, well), block in frame.groupby(keys, sort=False):
+        block = block.sort_values("time", kind="stable")
+        keep = np.isfinite(block["time"].to_numpy(float)) & np.isfinite(block["fitted"].to_numpy(float))
+        data = [float(v) for v in block["fitted"].to_numpy(float)[keep]]
+        tag = "" if route is None else f"_{route[block.index[0]]}"
+        m: dict[str, Any] = {"id": _ident(f"m_{plate}_{well}_{model}{tag}"),
+                             "name": f"{plate} {well}: {model} fitted to the progress curves of group {group} "
+                                     "(simulated; concentration on the scale of the reads, baseline included)",
+                             "group_id": str(group), "species_data": []}
+        first = block.iloc[0]
+        for species in ("substrate", "enzyme", *(("inhibitor",) if has_inhibitor else ())):
+            value = _num(first.get(species))
+            if value is not None:
+                m["species_data"].append({"species_id": species, "prepared": value, "initial": value,
+                                          "data_unit": unit_definition(units.get(species, ""))})
+        time = [float(v) for v in block["time"].to_numpy(float)[keep]]
+        course: dict[str, Any] = {"species_id": "product", "time": time, "time_unit": unit_definition("s"),
+                                  "data": data, "data_unit": conc, "data_type": "concentration",
+                                  "is_simulated": True}
+        if data:
+            course["initial"] = data[0]
+        m["species_data"].append(course)
+        out.append(m)
+    return out
 
 
 def write_enzymeml(audit: str | Path, target: str | Path) -> None:

@@ -59,6 +59,19 @@ class Model:
     * ``ki_from``: the fitted constant (IC50, Ki_app) that converts to an inhibition constant Ki once the
       mechanism is known, by the published conversion named in ``ki_conversion``; ``ki_assumes`` states
       what that conversion takes for granted, in words.
+
+    Three optional callables (or ``"module:name"`` strings) serve the progress-curve fit
+    (:mod:`vzero.plugins.fit.curves`); the curve fit asks the model for them and never looks at its name, so
+    a plugin that declares one gets the matching treatment and one that merely reuses a built-in's name
+    does not:
+
+    * ``apparent(params, x) -> (V', K', [dV'/dp ...], [dK'/dp ...])``: the law is Michaelis–Menten with
+      apparent constants, v = V'·S/(K' + S), K' proportional to ``half_saturation`` (the integrated curve
+      then has a closed form through Lambert's W, with or without competitive product inhibition);
+    * ``integrated(params, s0, tau) -> (S, [dS/dp ...])``: another closed-form progress curve (substrate
+      left after effective time ``tau``, in the rate's time unit), with its exact parameter sensitivities;
+    * ``rate_slope(params, x) -> dv/dS``: the analytic derivative of the rate in the substrate (a central
+      difference is used otherwise).
     """
 
     name: str
@@ -81,6 +94,9 @@ class Model:
     ki_from: str = ""
     ki_conversion: str = ""
     ki_assumes: str = ""
+    apparent: Callable[..., Any] | str = ""
+    integrated: Callable[..., Any] | str = ""
+    rate_slope: Callable[..., Any] | str = ""
     kind: str = "model"
 
     @property
@@ -101,6 +117,12 @@ class Model:
     def jacobian(self, params: Sequence[Any], x: Mapping[str, Any]) -> list[Any]:
         """Partial derivatives of the rate with respect to each parameter, in ``params`` order."""
         return list(_resolve(self.jac)(params, x))
+
+    def declared(self, part: str) -> Callable[..., Any] | None:
+        """The callable the model declares as ``part`` (``"apparent"``, ``"integrated"``, ``"rate_slope"``),
+        or None when it declares none."""
+        value = getattr(self, part)
+        return _resolve(value) if value else None
 
     def start(self, x: Mapping[str, Any], y: Any) -> list[float]:
         """Start values estimated from one group's data."""
@@ -129,29 +151,41 @@ def _m(name: str, params: str, roles: str, variables: str, impl: str, guess: str
 _MICHAELIS = {"limiting_rate": "Vmax", "michaelis_constant": "Km", "half_saturation": "Km"}
 """The meaning of Vmax and Km in every Michaelis–Menten-type rate law."""
 
+
+def _family(stem: str) -> dict[str, str]:
+    """Curve-fit declarations of a Michaelis–Menten-type law: its apparent constants and dv/dS."""
+    return {"apparent": f"vzero.plugins.fit.curves.laws:apparent_{stem}",
+            "rate_slope": f"vzero.plugins.fit.curves.laws:slope_{stem}"}
+
+
+def _closed(stem: str) -> dict[str, str]:
+    """Curve-fit declarations of a law with its own closed-form progress curve, and its dv/dS."""
+    return {"integrated": f"vzero.plugins.fit.curves.closed:{stem.replace('-', '_')}",
+            "rate_slope": f"vzero.plugins.fit.curves.laws:slope_{stem.replace('-', '_')}"}
+
 MODELS: tuple[Model, ...] = (
     _m("michaelis-menten", "Vmax Km", "rate substrate", "substrate", "mm", "mm", "v = Vmax·S/(Km + S)",
        "Michaelis-Menten rate law", {"Km": POS}, "Km", title="Michaelis–Menten",
-       **_MICHAELIS),
+       **_MICHAELIS, **_family("mm")),
     _m("hill", "Vmax K0.5 h", "rate substrate -", "substrate", "hill", "hill", "v = Vmax·S^h/(K0.5^h + S^h)",
        "Hill equation (cooperativity)", {"K0.5": POS, "h": (0.05, 20.0)}, "K0.5 h", {"michaelis-menten": "h = 1"},
-       title="Hill", limiting_rate="Vmax", half_saturation="K0.5", cooperativity="h"),
+       title="Hill", limiting_rate="Vmax", half_saturation="K0.5", cooperativity="h", **_closed("hill")),
     _m("substrate-inhibition", "Vmax Km Ksi", "rate substrate substrate", "substrate", "si", "si",
        "v = Vmax·S/(Km + S + S²/Ksi)", "Haldane substrate inhibition", {"Km": POS, "Ksi": POS}, "Km Ksi",
-       {"michaelis-menten": "Ksi → ∞"}, **_MICHAELIS),
+       {"michaelis-menten": "Ksi → ∞"}, **_MICHAELIS, **_closed("substrate-inhibition")),
     _m("competitive", "Vmax Km Kic", "rate substrate inhibitor", "substrate inhibitor", "competitive", "inhib1",
        "v = Vmax·S/(Km(1 + I/Kic) + S)", "competitive inhibition", {"Km": POS, "Kic": POS}, "Km Kic",
-       **_MICHAELIS),
+       **_MICHAELIS, **_family("competitive")),
     _m("uncompetitive", "Vmax Km Kiu", "rate substrate inhibitor", "substrate inhibitor", "uncompetitive",
        "inhib1", "v = Vmax·S/(Km + S(1 + I/Kiu))", "uncompetitive inhibition", {"Km": POS, "Kiu": POS}, "Km Kiu",
-       **_MICHAELIS),
+       **_MICHAELIS, **_family("uncompetitive")),
     _m("mixed", "Vmax Km Kic Kiu", "rate substrate inhibitor inhibitor", "substrate inhibitor", "mixed", "inhib2",
        "v = Vmax·S/(Km(1 + I/Kic) + S(1 + I/Kiu))", "mixed inhibition", {"Km": POS, "Kic": POS, "Kiu": POS},
        "Km Kic Kiu", {"competitive": "Kiu → ∞", "uncompetitive": "Kic → ∞", "noncompetitive": "Kic = Kiu"},
-       **_MICHAELIS),
+       **_MICHAELIS, **_family("mixed")),
     _m("noncompetitive", "Vmax Km Ki", "rate substrate inhibitor", "substrate inhibitor", "noncompetitive",
        "inhib1", "v = Vmax·S/((Km + S)(1 + I/Ki))", "pure noncompetitive inhibition", {"Km": POS, "Ki": POS},
-       "Km Ki", **_MICHAELIS),
+       "Km Ki", **_MICHAELIS, **_family("noncompetitive")),
     _m("morrison", "v0 Ki_app", "rate inhibitor", "inhibitor enzyme", "morrison", "morrison",
        "v = v0·(1 − ((E + I + Ki_app) − √((E + I + Ki_app)² − 4EI))/(2E))",
        "Morrison tight-binding inhibition (enzyme converted to the inhibitor's unit)", {"Ki_app": POS}, "Ki_app",

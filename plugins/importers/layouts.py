@@ -34,7 +34,9 @@ from vzero.plugins.kinetics.wells import (
 
 ROLES: tuple[str, ...] = ("sample", "blank", "standard", "empty")
 NUMERIC_COLUMNS: tuple[str, ...] = ("substrate", "enzyme", "inhibitor")
-TEXT_COLUMNS: tuple[str, ...] = ("role", "group", "replicate")
+TEXT_COLUMNS: tuple[str, ...] = ("role", "group", "replicate", "lot")
+"""Layout columns kept as text even when their entries look like numbers (``lot``: the enzyme lot of each
+well, optional; the curve fit can give each lot an activity factor of its own)."""
 BASE_COLUMNS: tuple[str, ...] = ("well", "role", *NUMERIC_COLUMNS, "group", "replicate")
 _GRID_COLS = {cols: rows for rows, cols in PLATE_SHAPES.values()}
 
@@ -346,8 +348,9 @@ def _read_grid_layout(grid: TextGrid, source: str, plate_size: int | None) -> pd
 # ---------------------------------------------------------------------------------------------------------
 # declared in the recipe
 
-_SERIES_KEYS = {"variable", "start", "factor", "direction", "steps", "lines", "group", "role", "set", "zero_last"}
-_WELLS_KEYS = {"wells", "role", "group", "replicate", "set"}
+_SERIES_KEYS = {"variable", "start", "factor", "direction", "steps", "lines", "group", "role", "set", "zero_last",
+                "lot"}
+_WELLS_KEYS = {"wells", "role", "group", "replicate", "set", "lot"}
 
 
 def _fail(where: str, what: str) -> LayoutError:
@@ -484,6 +487,8 @@ def expand_declared_layout(spec: dict, plate_size: int) -> pd.DataFrame:
             for step, amount in zip(steps, amounts, strict=True):
                 r, c = (line, step) if direction == "columns" else (step, line)
                 rec = {"role": role, "group": group, "replicate": str(rep), **const, variable: float(amount)}
+                if "lot" in s:
+                    rec["lot"] = str(s["lot"])
                 put(f"{ROW_LABELS[r]}{c + 1}", where, rec)
     for w_i, e in enumerate(spec.get("wells") or []):
         where = f"wells[{w_i}]"
@@ -494,6 +499,8 @@ def expand_declared_layout(spec: dict, plate_size: int) -> pd.DataFrame:
         if role not in ROLES:
             raise _fail(f"{where}.role", f"expected one of {', '.join(ROLES)}, got {role!r}")
         rec = {"role": role, "group": str(e.get("group", role)), "replicate": str(e.get("replicate", ""))}
+        if "lot" in e:
+            rec["lot"] = str(e["lot"])
         rec.update(_set_values(e, where))
         for w in _well_list(e["wells"], plate_size, f"{where}.wells"):
             put(w, where, dict(rec))
@@ -509,6 +516,8 @@ def expand_declared_layout(spec: dict, plate_size: int) -> pd.DataFrame:
             df[col] = pd.to_numeric(df[col], errors="coerce")
     df["group"] = df["group"].fillna("").astype(str)
     df["replicate"] = df["replicate"].fillna("").astype(str)
+    if "lot" in df.columns:
+        df["lot"] = df["lot"].fillna("").astype(str)
     return _finish(df, dict(units), [], None)
 
 

@@ -134,7 +134,8 @@ def _check_columns(layout: pd.DataFrame, source: str, recipe: Mapping[str, Any],
         given = values.notna().to_numpy() if values.dtype.kind == "f" else values.astype(str).str.strip().ne("")
         if samples.any() and not np.asarray(given)[samples].any():
             found = ", ".join(repr(h) for h in header) if header else ", ".join(map(repr, layout.columns))
-            forms = ", ".join(f.replace("substrate", column) for f in HEADER_FORMS)
+            forms = (", ".join(f.replace("substrate", column) for f in HEADER_FORMS) if column in LAYOUT_QUANTITIES
+                     else repr(column))
             raise LayoutError(
                 f"the layout has no {column} column (or no {column} values for its sample wells), which the fit "
                 f"step needs; its columns are {found}", path=source, column=column,
@@ -147,7 +148,7 @@ def _check_columns(layout: pd.DataFrame, source: str, recipe: Mapping[str, Any],
                          "it gets a rate but is left out of the fit.")
         if len(empty) > SHOWN:
             notes.append(f"{source}: {len(empty) - SHOWN} more sample wells have no {column} value.")
-    used = set(BASE_COLUMNS) | {"note", "excluded"} | _used_columns(recipe)
+    used = set(BASE_COLUMNS) | {"note", "excluded"} | _used_columns(recipe) | set(_needs(recipe))
     unknown = [c for c in layout.columns if c not in used]
     if unknown:
         notes.append(f"{source}: no step uses the layout column(s) {', '.join(map(repr, unknown))}; they are kept "
@@ -172,6 +173,8 @@ def _needs(recipe: Mapping[str, Any]) -> tuple[str, ...]:
             x = body.get("x", "substrate")
             if isinstance(x, str) and x in LAYOUT_QUANTITIES:
                 need.append(x)
+        if kind == "fit" and body.get("method") == "curves" and body.get("lots") is True:
+            need.append("lot")  # one activity factor per enzyme lot: the lot of every sample well
     return tuple(dict.fromkeys(need))
 
 

@@ -10,7 +10,9 @@ from vzero.data import Table, Traces
 from vzero.plugins.kinetics.flags import Flag, names_array
 from vzero.plugins.kinetics.rate_result import RateResult
 
-WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor", "blanks", "blank_match")
+WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor", "blanks", "blank_match",
+                "lot")
+"""Layout columns a rates table carries when the layout has them (``lot``: the well's enzyme lot, optional)."""
 
 
 def saturation_flags(traces: Traces) -> np.ndarray:

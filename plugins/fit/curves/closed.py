@@ -4,11 +4,13 @@ Each function takes the parameters (a sequence of arrays broadcastable to the po
 substrate ``s0``, inhibitor ``i`` and effective time ``tau`` (arrays of one shape, one entry per read), and
 returns ``(S, dS/dθ per parameter)`` at every point.
 
-* Michaelis-Menten family (apparent V', K', :data:`.laws.APPARENT`): the integrated rate law
+* Michaelis-Menten family (apparent V', K', a model's ``apparent``): the integrated rate law
   K'·ln(S0/S) + (S0 − S) = V'·τ solves to S = K'·W((S0/K')·exp((S0 − V'τ)/K')) with W Lambert's function
   (Schnell & Mendoza 1997, J. Theor. Biol. 187:207). It is evaluated as K'·ω(ln(S0/K') + (S0 − V'τ)/K')
   with ω Wright's omega function (ω(y) = W(eʸ), scipy.special.wrightomega, accurate to a few units in the
   last place), which does not overflow when S0 ≫ K'.
+* the same family with competitive product inhibition, v = V'·S/(K'·(1 + P/Kp) + S): Lambert W again,
+  polished by Newton (:func:`michaelis_menten_product`);
 * Hill and substrate inhibition (Haldane): the time to fall from S0 to S, τ = G(S) = ∫_S^S0 ds/v(s), has a
   closed form, G(S) = [Km·ln(S0/S) + (S0 − S) + (S0² − S²)/(2Ksi)]/V and
   G(S) = [K0.5^h·∫_S^S0 s^−h ds + (S0 − S)]/V; S(τ) is its root, found by safeguarded Newton iteration in
@@ -109,10 +111,56 @@ def michaelis_menten_family(vp: Arr, kp: Arr, s0: np.ndarray, tau: np.ndarray
         s = kp * special.wrightomega(y)
         s = np.where(s0 > 0, np.clip(s, 0.0, s0), 0.0)
         v = vp * s / (kp + s)
-        lg = np.where(s > 0, np.log(np.where(s > 0, s0 / np.where(s > 0, s, 1.0), 1.0)), 0.0)
+        lg = np.where(s > 0, np.log(np.where(s0 > 0, s0, 1.0)) - np.log(np.where(s > 0, s, 1.0)), 0.0)
         ds_dv = np.where(s > 0, -v * tau / vp, 0.0)  # v·∂G/∂V' with ∂G/∂V' = −G/V' = −τ/V'
         ds_dk = np.where(s > 0, v * lg / vp, 0.0)
     return s, ds_dv, ds_dk
+
+
+def michaelis_menten_product(vp: Arr, kp: Arr, kprod: Arr, s0: np.ndarray, tau: np.ndarray
+                             ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """S(τ) for v = V'·S/(K'·(1 + P/Kp) + S), P = S0 − S (competitive inhibition by the product), and
+    ∂S/∂(V', K', Kp).
+
+    With A = K'·(1 + S0/Kp) and α = 1 − K'/Kp the law is v = V'·S/(A + α·S), whose integrated form
+    G(S) = [A·ln(S0/S) + α·(S0 − S)]/V' = τ is solved by Lambert's W: with u = α·S/A,
+    u·e^u = (α·S0/A)·exp((α·S0 − V'τ)/A). For α > 0 (Kp > K') u = ω(ln(α·S0/A) + (α·S0 − V'τ)/A) (Wright
+    omega, no overflow); for α < 0 the right side lies in (−1/e, 0) (|α·S0/A| < 1 always) and u is on the
+    principal branch W₀; for α = 0 the curve is exponential, S = S0·exp(−V'τ/A). Near W's branch point the
+    principal branch loses digits, so the value is polished by the safeguarded Newton iteration on G (one or
+    two steps). Sensitivities as for the other closed forms, ∂S/∂θ = v(S)·∂G/∂θ:
+    ∂G/∂V' = −τ/V', ∂G/∂K' = [(1 + S0/Kp)·L − (S0 − S)/Kp]/V', ∂G/∂Kp = K'·[(S0 − S) − S0·L]/(Kp²·V'),
+    L = ln(S0/S).
+    """
+    vp, kp, kq, s0b = (np.broadcast_to(np.asarray(a, float), tau.shape).ravel() for a in (vp, kp, kprod, s0))
+    t = tau.ravel()
+    with np.errstate(all="ignore"):
+        big_a = kp * (1 + s0b / kq)
+        alpha = 1 - kp / kq
+        pos = s0b > 0
+        ratio = np.where(pos, alpha * s0b / big_a, 0.0)
+        expo = (alpha * s0b - vp * t) / big_a
+        up = special.wrightomega(np.log(np.where(ratio > 0, ratio, 1.0)) + expo)
+        un = special.lambertw(np.where(ratio < 0, ratio * np.exp(expo), -0.1), 0).real
+        safe_alpha = np.where(alpha != 0, alpha, 1.0)
+        s = np.where(alpha > 0, big_a * up / safe_alpha, np.where(alpha < 0, big_a * un / safe_alpha,
+                                                                  s0b * np.exp(-vp * t / big_a)))
+        start = np.where(np.isfinite(s) & (s > 0), np.minimum(s, s0b), 0.5 * s0b)
+
+        def g(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            return (big_a * np.log(s0b / x) + alpha * (s0b - x)) / vp, vp * x / (big_a + alpha * x)
+
+        # where the Lambert value has underflowed to 0 the substrate is gone to rounding: keep 0 there
+        gone = np.where(np.isfinite(s) & (s == 0) & pos, t, np.inf)
+        s = _newton(g, s0b, t, start, gone)
+        s = np.where(pos, np.clip(s, 0.0, s0b), 0.0)
+        ok = s > 0
+        v = vp * s / (big_a + alpha * s)
+        lg = np.where(ok, np.log(np.where(pos, s0b, 1.0)) - np.log(np.where(ok, s, 1.0)), 0.0)
+        d = [-v * t / vp, v * ((1 + s0b / kq) * lg - (s0b - s) / kq) / vp,
+             v * kp * ((s0b - s) - s0b * lg) / (kq**2 * vp)]
+    shape = tau.shape
+    return s.reshape(shape), [np.where(ok, di, 0.0).reshape(shape) for di in d]
 
 
 def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
@@ -122,13 +170,13 @@ def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> t
 
     def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         v, k, ki, a = vm, km, ksi, s0f
-        return (k * np.log(a / s) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
+        return (k * (np.log(a) - np.log(s)) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
 
     with np.errstate(all="ignore"):
         s = _newton(g, s0f, tau.ravel(), _mm_start(vm, km, s0f, tau.ravel()))
         pos = s > 0
         v = vm * s / (km + s + s * s / ksi)
-        lg = np.where(pos, np.log(s0f / np.where(pos, s, 1.0)), 0.0)
+        lg = np.where(pos, np.log(s0f) - np.log(np.where(pos, s, 1.0)), 0.0)
         gv = (km * lg + (s0f - s) + (s0f**2 - s**2) / (2 * ksi)) / vm
         d = [-v * gv / vm, v * lg / vm, -v * (s0f**2 - s**2) / (2 * ksi**2 * vm)]
     shape = tau.shape
@@ -163,7 +211,7 @@ def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray,
         e1 = kh * np.exp((1 - h) * lsk)  # K·(S0/K)^{1−h} = K^h·S0^{1−h}
 
     def hh(s: np.ndarray, derivative: bool = False) -> tuple[np.ndarray, np.ndarray, Any]:
-        lg = np.log(s0f / s)
+        lg = np.log(s0f) - np.log(s)  # not log(S0/S): the ratio overflows where S has fallen below 1e-308·S0
         q, dq = _q((1 - h) * lg, derivative)
         return e1 * lg * q, lg, dq
 

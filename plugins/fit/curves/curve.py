@@ -7,11 +7,15 @@ enzyme concentration themselves) and k an optional first-order inactivation cons
 the effective time τ = c·r·(1 − e^{−kt})/k (τ = c·r·t when k = 0) leaves dS/dτ = −v(S), which every route
 solves:
 
-* ``"closed"``: the Michaelis-Menten family and Hill / substrate inhibition (:mod:`.closed`);
+* ``"closed"``: a model that declares its apparent Michaelis-Menten constants (``apparent``: the
+  Michaelis-Menten family, with or without competitive product inhibition, :mod:`.product`) or a closed-form
+  curve of its own (``integrated``: Hill, substrate inhibition; :mod:`.closed`);
 * ``"ode"``: any rate law, by the batched Dormand-Prince integrator (:mod:`.ode`).
 
-``route="auto"`` takes the closed form where one exists and the integrator otherwise; a plugin model is
-always integrated numerically, so it gets curve fitting without writing anything more than its rate law.
+``route="auto"`` takes the closed form where the model declares one and the integrator otherwise. The
+choice goes by what the model declares, never by its name: a plugin model gets curve fitting from its rate
+law alone (numerically), or a closed form by declaring one; a model that copies a built-in's name gets
+nothing it does not declare.
 """
 
 from __future__ import annotations
@@ -21,7 +25,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from vzero.plugins.fit.curves import closed, laws, ode
+from vzero.plugins.fit.curves import closed, laws, ode, product
 
 Arr = Any
 
@@ -57,9 +61,12 @@ def effective_time(wells: Wells, kinact: Arr | None) -> tuple[np.ndarray, np.nda
     return c * t * q, c * t * t * dq
 
 
-def route_of(model: Any) -> str:
-    """``closed`` for a built-in with a closed form, ``ode`` otherwise."""
-    if laws._is_builtin(model) and (model.name in laws.APPARENT or model.name in ("hill", "substrate-inhibition")):
+def route_of(model: Any, product: bool = False) -> str:
+    """``closed`` when the model declares a closed-form curve (with product inhibition: only the apparent
+    Michaelis-Menten constants serve), ``ode`` otherwise."""
+    if model.declared("apparent") is not None:
+        return "closed"
+    if not product and model.declared("integrated") is not None:
         return "closed"
     return "ode"
 
@@ -69,52 +76,79 @@ def _per_point(theta: Sequence[Arr], shape: tuple[int, ...]) -> list[np.ndarray]
                             if np.ndim(p) else np.asarray(p, float), shape) for p in theta]
 
 
-def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, route: str = "auto"
-              ) -> tuple[np.ndarray, list[np.ndarray]]:
-    """S and ∂S/∂θ (one array [n, n_time] per model parameter) at effective times ``tau``.
-
-    ``theta``: one scalar or array [n] per model parameter."""
-    route = route_of(model) if route == "auto" else route
+def _closed(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, kprod: Arr | None
+            ) -> tuple[np.ndarray, list[np.ndarray]]:
     shape = tau.shape
-    if route == "closed":
-        p = _per_point(theta, shape)
-        s0 = np.broadcast_to(wells.s0[:, None], shape)
-        if model.name in laws.APPARENT:
-            vp, kp, dv, dk = laws.APPARENT[model.name](p, wells.x(s0))
+    p = _per_point(theta, shape)
+    s0 = np.broadcast_to(wells.s0[:, None], shape)
+    apparent = model.declared("apparent")
+    if apparent is not None:
+        vp, kp, dv, dk = apparent(p, wells.x(s0))
+        if kprod is None:
             s, ds_dv, ds_dk = closed.michaelis_menten_family(vp, kp, s0, tau)
             return s, [ds_dv * a + ds_dk * b for a, b in zip(dv, dk, strict=True)]
-        if model.name == "hill":
-            return closed.hill(p, s0, tau)
-        if model.name == "substrate-inhibition":
-            return closed.substrate_inhibition(p, s0, tau)
-        raise ValueError(f"no closed form for model {model.name!r}")
-    n = shape[0]
+        kq = _per_point([kprod], shape)[0]
+        s, (ds_dv, ds_dk, ds_dq) = closed.michaelis_menten_product(vp, kp, kq, s0, tau)
+        return s, [*(ds_dv * a + ds_dk * b for a, b in zip(dv, dk, strict=True)), ds_dq]
+    integrated = model.declared("integrated")
+    if integrated is None or kprod is not None:
+        raise ValueError(f"model {model.name!r} declares no closed-form progress curve"
+                         + (" with product inhibition" if kprod is not None else ""))
+    s, grads = integrated(p, s0, tau)
+    return s, list(grads)
+
+
+def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, route: str = "auto",
+              kprod: Arr | None = None) -> tuple[np.ndarray, list[np.ndarray]]:
+    """S and ∂S/∂θ (one array [n, n_time] per model parameter, then ∂S/∂Kp with product inhibition) at
+    effective times ``tau``.
+
+    ``theta``: one scalar or array [n] per model parameter; ``kprod``: the product's inhibition constant
+    (scalar or [n], substrate's unit) or None for no product inhibition."""
+    route = route_of(model, kprod is not None) if route == "auto" else route
+    if route == "closed":
+        return _closed(model, theta, wells, tau, kprod)
+    n = tau.shape[0]
     per_well = [np.broadcast_to(np.asarray(q, float), (n,)) for q in theta]
-    npar = len(per_well)
+    if kprod is not None:
+        product.scaled_parameter(model)  # refuse a law without a half-saturation constant before integrating
+        kq = np.broadcast_to(np.asarray(kprod, float), (n,))
+    npar = len(per_well) + (kprod is not None)
 
     def rhs(s: np.ndarray, z: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         p = [q[rows] for q in per_well]
         x = {"substrate": s, "inhibitor": wells.inhibitor[rows], "enzyme": wells.enzyme[rows]}
         with np.errstate(all="ignore"):
-            v = np.broadcast_to(np.asarray(model.evaluate(p, x), float), s.shape)
-            dvs = np.broadcast_to(laws.dv_ds(model, p, x), s.shape)
-            dvp = np.stack([np.broadcast_to(np.asarray(d, float), s.shape) for d in model.jacobian(p, x)], axis=1)
+            if kprod is None:
+                v = np.broadcast_to(np.asarray(model.evaluate(p, x), float), s.shape)
+                dvs = np.broadcast_to(laws.dv_ds(model, p, x), s.shape)
+                dps = [np.broadcast_to(np.asarray(d, float), s.shape) for d in model.jacobian(p, x)]
+            else:
+                v, dvs, dps = product.rate_terms(model, p, x, wells.s0[rows], kq[rows])
+            dvp = np.stack(dps, axis=1)
         return -v, -(dvs[:, None] * z + dvp)
 
     s, z = ode.integrate(rhs, wells.s0, npar, tau)
     return s, [z[:, :, j] for j in range(npar)]
 
 
-def progress(model: Any, theta: Sequence[Arr], wells: Wells, kinact: Arr | None = None, route: str = "auto"
-             ) -> tuple[np.ndarray, list[np.ndarray]]:
-    """Product P = S0 − S [n, n_time] and ∂P/∂θ for each model parameter (then ∂P/∂k when ``kinact`` is
-    given): the curve a fit compares with the reads."""
+def progress(model: Any, theta: Sequence[Arr], wells: Wells, kinact: Arr | None = None, route: str = "auto",
+             kprod: Arr | None = None, scale_grad: bool = False) -> tuple[np.ndarray, list[np.ndarray]]:
+    """Product P = S0 − S [n, n_time] and its derivatives: ∂P/∂θ for each model parameter, then ∂P/∂Kp
+    (when ``kprod`` is given), ∂P/∂k (when ``kinact`` is given) and ∂P/∂ln c = v·τ, the derivative in the
+    logarithm of the well's rate scale (when ``scale_grad``: an activity factor f of the well's enzyme
+    multiplies c, so ∂P/∂f = v·τ/f): the curve a fit compares with the reads."""
     tau, dtau = effective_time(wells, kinact)
-    s, ds = substrate(model, theta, wells, tau, route)
+    s, ds = substrate(model, theta, wells, tau, route, kprod)
     p = wells.s0[:, None] - s
     grads = [-d for d in ds]
-    if dtau is not None:
+    if dtau is not None or scale_grad:
         with np.errstate(all="ignore"):
-            v = np.asarray(model.evaluate(_per_point(theta, s.shape), wells.x(s)), float)
-        grads.append(np.where(np.isfinite(v), v, 0.0) * dtau)
+            kq = None if kprod is None else _per_point([kprod], s.shape)[0]
+            v = product.rate(model, _per_point(theta, s.shape), wells.x(s), wells.s0[:, None], kq)
+            v = np.where(np.isfinite(v), v, 0.0)
+        if dtau is not None:
+            grads.append(v * dtau)
+        if scale_grad:
+            grads.append(v * tau)
     return p, grads

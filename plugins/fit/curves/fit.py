@@ -2,7 +2,10 @@
 
 Each group's reads y_wj (concentration, after calibration and conversion) are modelled as
 y_wj = b_w + P_w(t_j; θ) with P from :func:`.curve.progress`: θ (the model's parameters, optionally the
-inactivation constant ``kinact``) is shared by the group's wells, the baselines b_w are one per well. The
+inactivation constant ``kinact`` and the product's inhibition constant ``Kp``) is shared by the group's
+wells, the baselines b_w are one per well. With enzyme lots, a well of lot L runs f_L times as fast as the
+reference lot's (f of the reference lot fixed to 1; the limiting rate refers to that lot): the activity
+factors f_L are shared parameters too, entering through the well's rate scale. The
 baselines enter linearly, so they are projected out (variable projection, Golub & Pereyra 1973): for given θ
 the best b_w is the mean of y − P over the well's used reads, and the least-squares problem in θ alone has
 residuals and Jacobian centred per well. Standard errors of θ from the projected problem are those of the
@@ -23,16 +26,24 @@ import numpy as np
 from scipy import special
 from vzero.plugins.fit.curves import solver
 from vzero.plugins.fit.curves.curve import Wells, progress
+from vzero.plugins.fit.curves.product import KP
 
 KINACT = "kinact"
 """Name of the first-order inactivation constant (1/s) when the recipe asks for it."""
+
+
+def activity_name(lot: str) -> str:
+    """Name of the relative activity factor of enzyme lot ``lot`` (dimensionless)."""
+    return f"activity[{lot}]"
 
 
 @dataclass(frozen=True)
 class CurveGroup:
     """One group's wells: ``wells`` (see :class:`.curve.Wells`), reads ``y`` [n_wells, n_time] in the
     substrate's unit, ``used`` [n_wells, n_time] the reads to fit, ``rates`` [n_wells] initial rates (start
-    values only), ``ids`` (plate, well) per row, ``enzyme_ref`` the enzyme level Vmax refers to."""
+    values only), ``ids`` (plate, well) per row, ``enzyme_ref`` the enzyme level Vmax refers to; ``lots``
+    the enzyme lots of the group, reference first (empty: lots not modelled), ``lot`` [n_wells] each well's
+    index into ``lots``."""
 
     name: str
     wells: Wells
@@ -41,6 +52,8 @@ class CurveGroup:
     rates: np.ndarray
     ids: list[tuple[str, str]]
     enzyme_ref: float = float("nan")
+    lots: tuple[str, ...] = ()
+    lot: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -62,7 +75,10 @@ def _pad(groups: Sequence[CurveGroup]) -> dict[str, np.ndarray]:
     out["time"] = np.zeros((g, nw, nt))
     out["y"] = np.zeros((g, nw, nt))
     out["used"] = np.zeros((g, nw, nt), bool)
+    out["lot"] = np.zeros((g, nw), int)
     for r, c in enumerate(groups):
+        if c.lot is not None:
+            out["lot"][r, :len(c.lot)] = c.lot
         w, t = c.y.shape
         out["s0"][r, :w], out["inhibitor"][r, :w] = c.wells.s0, c.wells.inhibitor
         out["enzyme"][r, :w], out["scale"][r, :w] = c.wells.enzyme, c.wells.rate_scale
@@ -89,8 +105,10 @@ class _Problem:
     which groups a call is about (the solver hands over subsets). The last curve and its sensitivities are
     kept, so that the Jacobian at an accepted step costs no second integration."""
 
-    def __init__(self, model: Any, arrays: dict[str, np.ndarray], kinact: bool, route: str) -> None:
+    def __init__(self, model: Any, arrays: dict[str, np.ndarray], kinact: bool, route: str, product: bool = False,
+                 n_lots: int = 1) -> None:
         self.model, self.a, self.kinact, self.route = model, arrays, kinact, route
+        self.product, self.n_lots = product, n_lots
         self.shape = arrays["y"].shape
         self.count = np.maximum(arrays["used"].sum(axis=2, keepdims=True), 1)
         self._store: dict[tuple[int, bytes], tuple[np.ndarray, np.ndarray]] = {}
@@ -99,12 +117,22 @@ class _Problem:
         """Uncentred P [k, W, T] and ∂P/∂θ for the groups ``rows``."""
         g, nw, nt = len(rows), self.shape[1], self.shape[2]
         a = self.a
-        wells = Wells(a["s0"][rows].ravel(), a["inhibitor"][rows].ravel(), a["enzyme"][rows].ravel(),
-                      a["time"][rows].reshape(g * nw, nt), a["scale"][rows].ravel())
         flat = [np.repeat(np.asarray(p, float).reshape(g), nw) for p in params]
         n_model = len(self.model.params)
-        kin = flat[n_model] if self.kinact else None
-        p, grads = progress(self.model, flat[:n_model], wells, kin, self.route)
+        kq = flat[n_model] if self.product else None
+        kin = flat[n_model + self.product] if self.kinact else None
+        first = n_model + self.product + self.kinact  # the activity factors of the lots after the reference
+        lot = a["lot"][rows].ravel()
+        factor = np.ones(g * nw)
+        for j in range(1, self.n_lots):
+            factor = np.where(lot == j, flat[first + j - 1], factor)
+        wells = Wells(a["s0"][rows].ravel(), a["inhibitor"][rows].ravel(), a["enzyme"][rows].ravel(),
+                      a["time"][rows].reshape(g * nw, nt), a["scale"][rows].ravel() * factor)
+        p, grads = progress(self.model, flat[:n_model], wells, kin, self.route, kq, scale_grad=self.n_lots > 1)
+        if self.n_lots > 1:
+            vtau = grads.pop()  # ∂P/∂ln(rate scale); ∂P/∂f_L = v·τ/f_L on the wells of lot L
+            with np.errstate(all="ignore"):
+                grads += [np.where((lot == j)[:, None], vtau / factor[:, None], 0.0) for j in range(1, self.n_lots)]
         return p.reshape(g, nw, nt), [d.reshape(g, nw, nt) for d in grads]
 
     def _eval(self, params: Sequence[np.ndarray], x: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
@@ -165,21 +193,37 @@ def _count_baselines(results: list[solver.FitResult], n_wells: np.ndarray, confi
     return out
 
 
-def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False,
+def parameter_names(model: Any, *, product: bool = False, kinact: bool = False, lots: Sequence[str] = ()
+                    ) -> tuple[str, ...]:
+    """The fitted parameters, in order: the model's, ``Kp``, ``kinact``, then one activity factor per lot
+    after the first (the reference)."""
+    return (*model.params, *((KP,) if product else ()), *((KINACT,) if kinact else ()),
+            *(activity_name(lot) for lot in lots[1:]))
+
+
+def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False, product: bool = False,
                fixed: Mapping[str, float] | None = None, bounds: Mapping[str, tuple[float, float]] | None = None,
                starts: Mapping[str, float] | None = None, confidence: float = 0.95, profile: bool = True,
                units: Mapping[str, str] | None = None, route: str = "auto", max_iter: int = 200) -> list[CurveFit]:
-    """Fit ``model`` to the curves of every group at once; one :class:`CurveFit` per group, in order."""
-    names = (*model.params, *((KINACT,) if kinact else ()))
+    """Fit ``model`` to the curves of every group at once; one :class:`CurveFit` per group, in order.
+
+    ``product``: fit competitive inhibition by the product (constant ``Kp``, the substrate's unit); the
+    groups' ``lots`` (all groups of one call must have the same) add one activity factor per lot after the
+    reference."""
+    lots = groups[0].lots
+    if any(c.lots != lots for c in groups):
+        raise ValueError("groups fitted together must have the same enzyme lots, reference first")
+    names = parameter_names(model, product=product, kinact=kinact, lots=lots)
     arrays = _pad(groups)
     g, nw, nt = arrays["y"].shape
-    problem = _Problem(model, arrays, kinact, route)
+    problem = _Problem(model, arrays, kinact, route, product, max(len(lots), 1))
     used = arrays["used"]
     count = problem.count
     y = _centre(arrays["y"], used, count).reshape(g, -1)
     w = used.reshape(g, -1).astype(float)
     x = {"group": np.broadcast_to(np.arange(g, dtype=float)[:, None], (g, nw * nt)).copy()}
-    all_bounds = {**model.bounds, KINACT: (0.0, np.inf), **(bounds or {})}
+    all_bounds = {**model.bounds, KINACT: (0.0, np.inf), KP: (0.0, np.inf),
+                  **{activity_name(lot): (0.0, np.inf) for lot in lots[1:]}, **(bounds or {})}
     lo = np.array([all_bounds.get(n, (-np.inf, np.inf))[0] for n in names], float)
     hi = np.array([all_bounds.get(n, (-np.inf, np.inf))[1] for n in names], float)
     free = np.array([n not in (fixed or {}) for n in names], bool)
@@ -189,6 +233,9 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
         ok = np.isfinite(c.rates)
         guess = model.start({k: v[ok] for k, v in xv.items() if k in model.variables}, c.rates[ok]) \
             if ok.sum() else [1.0] * len(model.params)
+        # Kp starts at the largest substrate level (inhibition felt, not dominant); kinact at 0; factors at 1
+        guess = [*guess[:len(model.params)], *((float(np.max(c.wells.s0)),) if product else ()),
+                 *((0.0,) if kinact else ()), *([1.0] * (len(lots) - 1))]
         p0[r] = [(fixed or {}).get(n, (starts or {}).get(n, guess[j] if j < len(guess) else 0.0))
                  for j, n in enumerate(names)]
     p0 = np.clip(p0, lo, hi)
@@ -199,7 +246,7 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
     n_wells = used.any(axis=2).sum(axis=1)
     results = _count_baselines(results, n_wells, confidence)
     if profile:
-        for name in [*getattr(model, "profile", ()), *((KINACT,) if kinact else ())]:
+        for name in [*getattr(model, "profile", ()), *((KP,) if product else ()), *((KINACT,) if kinact else ())]:
             if name not in names or not free[names.index(name)]:
                 continue
             limits = solver.profile(problem.func, problem.jac, x, y, w, results, name, all_bounds, confidence)

@@ -25,9 +25,9 @@ from vzero.errors import FitError
 from vzero.plugins.fit import diagnostics, routes
 from vzero.plugins.fit import run as rates_run
 from vzero.plugins.fit.catalog import Model
-from vzero.plugins.fit.curves import selwyn
+from vzero.plugins.fit.curves import product, selwyn
 from vzero.plugins.fit.curves.curve import Wells
-from vzero.plugins.fit.curves.fit import KINACT, CurveFit, CurveGroup, fit_groups
+from vzero.plugins.fit.curves.fit import KINACT, CurveFit, CurveGroup, activity_name, fit_groups, parameter_names
 from vzero.stage import StageInput, StageOutput
 
 FIT_COLUMNS = ["group", "model", "parameter", "estimate", "stderr", "ci_low", "ci_high", "ci_method", "unit",
@@ -67,9 +67,38 @@ def _selected(frame: pd.DataFrame, cfg: Mapping[str, Any]) -> np.ndarray:
     return use
 
 
+def _lots(labels: np.ndarray, reference: str | None) -> tuple[tuple[str, ...], np.ndarray]:
+    """The lots of one group's wells, reference first (``reference`` when the group has it, else the first
+    lot in layout order), and each well's index into them."""
+    order = list(dict.fromkeys(str(v) for v in labels))
+    ref = reference if reference in order else order[0]
+    lots = (ref, *(v for v in order if v != ref))
+    return lots, np.array([lots.index(str(v)) for v in labels], int)
+
+
+def _lot_labels(frame: pd.DataFrame, use: np.ndarray, data: StageInput) -> np.ndarray:
+    """Each row's enzyme lot (text; '' when not given). Refused when the rates table has no ``lot`` column;
+    sample wells without a lot are left out of the fit with a warning naming them."""
+    if "lot" not in frame.columns:
+        raise FitError("fit (curves): lots is on, but the plate layout has no 'lot' column naming each well's "
+                       "enzyme lot", hint="Add a column 'lot' to the layout (any text, e.g. A, B), or set lots: false.")
+    labels = frame["lot"].fillna("").astype(str).str.strip().to_numpy()
+    labels = np.where(np.isin(labels, ("nan", "None")), "", labels)
+    missing = np.flatnonzero(use & (labels == ""))
+    if missing.size:
+        plates = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
+        named = ", ".join(f"{plates[r]} {frame['well'].iloc[r]}".strip() for r in missing[:8])
+        more = f" and {missing.size - 8} more" if missing.size > 8 else ""
+        data.warn(f"fit (curves): {missing.size} sample well(s) have no enzyme lot in the layout's 'lot' column "
+                  f"({named}{more}); they are left out of the curve fit")
+    return labels
+
+
 def _build_group(name: str, rows: np.ndarray, frame: pd.DataFrame, traces: Mapping[str, Any],
-                 conc: np.ndarray, scale: float, var: dict[str, np.ndarray], model: Model) -> CurveGroup | None:
-    """One group's wells as a :class:`CurveGroup` (None when no well has reads)."""
+                 conc: np.ndarray, scale: float, var: dict[str, np.ndarray], model: Model,
+                 lot_labels: np.ndarray | None = None, reference: str | None = None) -> CurveGroup | None:
+    """One group's wells as a :class:`CurveGroup` (None when no well has reads); with ``lot_labels`` (one
+    per row of the rates table) the group's enzyme lots, see :func:`_lots`."""
     plates = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
     wells = frame["well"].astype(str).to_numpy()
     ys, useds, times, keep = [], [], [], []
@@ -106,7 +135,11 @@ def _build_group(name: str, rows: np.ndarray, frame: pd.DataFrame, traces: Mappi
     inh = var["inhibitor"][idx]
     w = Wells(var["substrate"][idx], np.where(np.isfinite(inh), inh, 0.0), np.where(np.isfinite(e), e, 0.0),
               np.maximum(time, 0.0), scale * scale_e)
-    return CurveGroup(name, w, y, used, var["rate"][idx], [(plates[r], wells[r]) for r in idx], e_ref)
+    lots: tuple[str, ...] = ()
+    lot = None
+    if lot_labels is not None:
+        lots, lot = _lots(lot_labels[idx], reference)
+    return CurveGroup(name, w, y, used, var["rate"][idx], [(plates[r], wells[r]) for r in idx], e_ref, lots, lot)
 
 
 def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
@@ -142,6 +175,14 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
     conf = float(cfg["confidence"])
     kin = bool(cfg["inactivation"])
+    prod = bool(cfg["product_inhibition"])
+    lot_labels = _lot_labels(frame, use, data) if cfg["lots"] else None
+    if lot_labels is not None:
+        use &= lot_labels != ""
+    reference = str(cfg["reference_lot"]) if cfg["reference_lot"] not in (None, "") else None
+    if reference is not None and lot_labels is not None and reference not in set(lot_labels[use]):
+        data.warn(f"fit (curves): reference_lot {reference!r} is not the lot of any fitted well; each group's "
+                  "first lot in layout order is its reference instead (the fit rows' note names it)")
 
     fits: dict[tuple[str, str], Any] = {}
     fitted: dict[tuple[str, str], tuple[CurveGroup, CurveFit]] = {}
@@ -154,16 +195,19 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         fixed = {k: float(v) for k, v in cfg["fixed"].get(model.name, {}).items()}
         bounds = {k: (float(v[0]), float(v[1])) for k, v in cfg["bounds"].get(model.name, {}).items()}
         starts = cfg["start"].get(model.name, {})
-        names = (*model.params, *((KINACT,) if kin else ()))
+        if prod:
+            product.scaled_parameter(model)  # a law without a half-saturation constant is refused here
+        names = parameter_names(model, product=prod, kinact=kin)
         for k in [*fixed, *bounds, *starts]:
-            if k not in names:
+            if k not in names and not (lot_labels is not None and k.startswith(activity_name("")[:-1])):
                 raise FitError(f"fit: model {model.name} has no parameter {k!r}",
-                               hint=f"Its parameters are {', '.join(names)}.")
+                               hint=f"Its parameters are {', '.join(names)}"
+                               + (", and activity[LOT] per enzyme lot." if lot_labels is not None else "."))
         todo: list[CurveGroup] = []
         for g in sorted(set(groups[ok])):
             rows = np.flatnonzero(ok & (groups == g))
-            cg = _build_group(g, rows, frame, traces, conc, scale, var, model)
-            n_free = len(names) - len(fixed)
+            cg = _build_group(g, rows, frame, traces, conc, scale, var, model, lot_labels, reference)
+            n_free = len(names) + (max(len(cg.lots), 1) - 1 if cg is not None else 0) - len(fixed)
             reason = ""
             if cg is None:
                 reason = "no well of the group has reads in the traces"
@@ -181,9 +225,17 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
             todo.append(cg)
         if not todo:
             continue
-        punits = {k: role_unit.get(r, "") for k, r in model.units.items()} | {KINACT: "1/s"}
-        results = fit_groups(model, todo, kinact=kin, fixed=fixed, bounds=bounds, starts=starts, confidence=conf,
-                             profile=bool(cfg["profile"]), units=punits, route=str(cfg["route"]))
+        punits = {k: role_unit.get(r, "") for k, r in model.units.items()} | {KINACT: "1/s", product.KP: su}
+        results: list[CurveFit] = []
+        batches: dict[tuple[str, ...], list[int]] = {}
+        for i, cg in enumerate(todo):  # groups with the same lots share one batched fit
+            batches.setdefault(cg.lots, []).append(i)
+        order = [i for members in batches.values() for i in members]
+        for members in batches.values():
+            results += fit_groups(model, [todo[i] for i in members], kinact=kin, product=prod, fixed=fixed,
+                                  bounds=bounds, starts=starts, confidence=conf, profile=bool(cfg["profile"]),
+                                  units=punits, route=str(cfg["route"]))
+        todo = [todo[i] for i in order]
         for cg, cf in zip(todo, results, strict=True):
             key = (cg.name, model.name)
             fits[key] = cf.result
@@ -236,12 +288,15 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], Any],
         common = {"group": g, "model": mname, "n_points": res.n_points, "rss": res.rss, "dof": res.dof,
                   "r_squared": res.r_squared, "aicc": res.aicc, "success": res.success, "message": res.message,
                   "errorbars": res.errorbars}
+        pair = fitted.get((g, mname))
+        lots = pair[0].lots if pair is not None else ()
+        lot_note = (f"activity factors relative to enzyme lot {lots[0]}, which the limiting rate refers to"
+                    if len(lots) > 1 else f"one enzyme lot ({lots[0]})" if lots else "")
         for name in res.names:
             p = res.params[name]
             fit_rows.append({**common, "parameter": name, "estimate": p.value, "stderr": p.stderr,
                              "ci_low": p.ci_low, "ci_high": p.ci_high, "ci_method": p.ci_method, "unit": p.unit,
-                             "fixed": p.fixed, "note": p.note})
-        pair = fitted.get((g, mname))
+                             "fixed": p.fixed, "note": "; ".join(filter(None, [p.note, lot_note]))})
         if pair is None or not res.success:
             continue
         cg, cf = pair

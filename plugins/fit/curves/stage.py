@@ -25,17 +25,25 @@ class CurveFitStage(Stage):
 
     kind = "fit"
     method = "curves"
-    version = "1.0"
+    version = "1.1"
     scope = "pooled"
     summary = ("Rate laws integrated and fitted to all progress curves of a group at once: shared kinetic "
-               "parameters, a baseline per well, optional enzyme inactivation; standard errors, profile "
-               "intervals, AICc and F-tests, cooperativity verdict, Selwyn's test of enzyme stability.")
+               "parameters, a baseline per well, optional enzyme inactivation, product inhibition and activity "
+               "factors per enzyme lot; standard errors, profile intervals, AICc and F-tests, cooperativity "
+               "verdict, Selwyn's test of enzyme stability.")
     params: ClassVar[Mapping[str, Param]] = {
         **{k: FitStage.params[k] for k in _SHARED},
         "exclude_flags": Param("list", list(CURVE_EXCLUDE), "wells carrying any of these flags are not fitted",
                                choices=FLAG_CHOICES),
         "inactivation": Param("bool", False, "fit a first-order enzyme inactivation constant kinact (1/s) shared "
                               "by the group's wells"),
+        "product_inhibition": Param("bool", False, "fit competitive inhibition by the reaction's product: the "
+                                    "half-saturation constant (Km, K0.5) grows by 1 + P/Kp as product P accumulates; "
+                                    "Kp in the substrate's unit"),
+        "lots": Param("bool", False, "fit one relative activity factor per enzyme lot (layout column 'lot'); the "
+                      "reference lot's factor is 1 and the limiting rate refers to it"),
+        "reference_lot": Param("str", None, "the lot whose activity factor is 1 (default: each group's first lot in "
+                               "layout order; a group without this lot uses its own first)"),
         "route": Param.choice(("auto", "closed", "ode"), "auto",
                               "auto: closed forms where they exist, numerical integration otherwise; ode: always "
                               "integrate numerically"),
