@@ -180,7 +180,8 @@ def test_empty_well_has_no_window_in_polynomial() -> None:
 
 def test_auto_select_uses_the_straight_line_where_curvature_is_not_significant() -> None:
     # estimate="select": on straight wells the reported v0 and SE are those of the least-squares line over
-    # the chosen window (numpy.polyfit as the independent reference; SE = sigma / sqrt(Sxx))
+    # the chosen window (numpy.polyfit as the independent reference; SE = s / sqrt(Sxx) with s the larger of
+    # the read noise and the line's residual RMS over the window, n - 2 degrees of freedom)
     rng = np.random.default_rng(12)
     y = 0.1 + 2e-4 * T[None, :] + 0.002 * rng.standard_normal((8, T.size))
     r = auto(T, y, find_lag=False, estimate="select")
@@ -191,7 +192,13 @@ def test_auto_select_uses_the_straight_line_where_curvature_is_not_significant()
         slope = np.polyfit(T[inside], y[i, inside], 1)[0]
         assert r.v0[i] == pytest.approx(slope, rel=1e-9)
         sxx = np.sum((T[inside] - T[inside].mean()) ** 2)
-        assert r.stderr[i] == pytest.approx(r.extra["read_noise"][i] / np.sqrt(sxx), rel=1e-9)
+        rss = np.polyfit(T[inside], y[i, inside], 1, full=True)[1]
+        rmse = np.sqrt(rss[0] / (inside.sum() - 2))
+        assert r.extra["rmse_over_noise"][i] == pytest.approx(rmse / r.extra["read_noise"][i], rel=1e-6)
+        s = max(r.extra["read_noise"][i], rmse)
+        assert r.stderr[i] == pytest.approx(s / np.sqrt(sxx), rel=1e-9)
+    # the residual RMS counts where it is the larger (the read noise alone would give a narrower interval)
+    assert any(r.extra["rmse_over_noise"][i] > 1.0 for i in straight)
 
 
 def test_read_noise_needs_five_reads() -> None:
