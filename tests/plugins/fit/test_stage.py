@@ -246,3 +246,17 @@ def test_reversed_bounds_are_a_recipe_error() -> None:
 
     _, problems = validate(FitStage.params, {"bounds": {"michaelis-menten": {"Km": [200, 100]}}})
     assert problems and "low < high" in problems[0][1]
+
+
+def test_plotting_grid_spans_every_observed_concentration() -> None:
+    # a fitted curve drawn on the grid must reach past the highest and lowest point it is drawn with: linear
+    # from 0 when the concentrations span at most 30-fold, log-spaced beyond that
+    from vzero.plugins.fit.diagnostics import grid
+
+    narrow = np.array([2.0, 5.0, 10.0, 20.0, np.nan])
+    g = grid(narrow)
+    assert g[0] == 0.0 and g[-1] > 20.0 and np.all(np.diff(g) > 0)
+    wide = np.array([0.01, 0.1, 1.0, 10.0, 0.0])
+    g = grid(wide)
+    assert 0 < g[0] < 0.01 and g[-1] > 10.0
+    assert np.allclose(np.diff(np.log(g)), np.log(g[1] / g[0]))  # evenly spaced in log

@@ -141,6 +141,7 @@ def test_f_test_and_akaike_weights_by_hand(puromycin_fits) -> None:
     df1, df2 = 1, n - 3
     f = ((mm.rss - hill.rss) / df1) / (hill.rss / df2)
     assert (t.df1, t.df2) == (df1, df2)
+    assert (t.simple, t.complex) == ("michaelis-menten", "hill")  # the pair is named simpler model first
     assert t.f == pytest.approx(f, rel=1e-10)
     assert t.p == pytest.approx(stats.f.sf(f, df1, df2), rel=1e-8)  # scipy.stats.f, independent of special.fdtrc
     rows, preferred, _ = compare.compare_set({"michaelis-menten": mm, "hill": hill}, {"hill": {"michaelis-menten": ""}})

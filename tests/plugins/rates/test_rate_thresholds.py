@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from vzero.errors import StageError
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates import noise
@@ -218,3 +219,46 @@ def test_progress_goodness_is_r_squared_of_the_fit() -> None:
     tss = np.sum((sim.signal - sim.signal.mean(axis=1, keepdims=True)) ** 2, axis=1)
     np.testing.assert_allclose(r.goodness, 1 - rss / tss, rtol=1e-9)
     assert r.goodness_name == "r_squared"
+
+
+def test_conversion_scale_needs_both_substrate_and_signal_per_conc() -> None:
+    # percent conversion needs S0 and the signal per unit product; with either missing there is no scale,
+    # and auto runs without the conversion check (no HIGH_CONVERSION, conversion NaN)
+    assert noise.conversion_scale(np.array([1.0, 2.0]), None, 2) is None
+    assert noise.conversion_scale(None, 2.5, 2) is None
+    np.testing.assert_allclose(noise.conversion_scale(np.array([1.0, 0.0]), -2.5, 2), [2.5, np.nan])
+    y = 0.1 + 5e-3 * T[None, :] + np.zeros((2, 1))  # 3 signal units by the end: far past 10 % of S0 = 1
+    r = auto(T, y, s0=np.ones(2), find_lag=False)
+    assert not _has(r, Flag.HIGH_CONVERSION).any() and np.isnan(r.extra["conversion"]).all()
+    r = auto(T, y, s0=np.ones(2), signal_per_conc=1.0, find_lag=False)
+    assert _has(r, Flag.HIGH_CONVERSION).all()
+
+
+def test_auto_goodness_is_r_squared_of_the_window_quadratic() -> None:
+    # goodness = 1 - RSS/TSS of the reported quadratic over the chosen window; numpy.polyfit over the same
+    # reads is the independent reference (TSS about the window's mean)
+    sim = simulate_plate(T, np.array([0.5, 1.0, 3.0]), 1.0, 4e-3, signal_per_conc=1.0, baseline=0.1)
+    rng = np.random.default_rng(21)
+    y = sim.signal + 0.002 * rng.standard_normal(sim.signal.shape)
+    r = auto(T, y, find_lag=False)
+    for i in range(y.shape[0]):
+        inside = (T >= r.window_start_s[i]) & (T <= r.window_end_s[i])
+        yi = y[i, inside]
+        fitted = np.polyval(np.polyfit(T[inside], yi, 2), T[inside])
+        r2 = 1.0 - np.sum((yi - fitted) ** 2) / np.sum((yi - yi.mean()) ** 2)
+        assert r.goodness[i] == pytest.approx(r2, abs=1e-9)
+        assert 0.5 < r2 < 1.0
+
+
+def test_progress_power_model_needs_the_substrate_and_recovers_first_order() -> None:
+    # far below Km the rate falls in proportion to the substrate left (first order, n = 1):
+    # P = S0 (1 - exp(-k t)), v0 = k S0 (closed form of first-order kinetics)
+    s0, k = 2.0, 1.5e-3
+    rng = np.random.default_rng(5)
+    y = 0.05 + s0 * -np.expm1(-k * T)[None, :] + 0.002 * rng.standard_normal((6, T.size))
+    r = progress_curve(T, y, s0=np.full(6, s0), signal_per_conc=1.0, model="power")
+    np.testing.assert_allclose(r.v0, k * s0, rtol=0.02)
+    np.testing.assert_allclose(r.extra["order"], 1.0, atol=0.1)
+    assert np.all(np.abs(r.v0 - k * s0) < 4 * r.stderr)
+    with pytest.raises(StageError, match="power"):
+        progress_curve(T, y, model="power")
