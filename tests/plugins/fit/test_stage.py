@@ -169,6 +169,9 @@ def test_hill_plot_slope_on_exact_hill_data() -> None:
     slope = d[(d["plot"] == "hill") & (d.quantity == "slope")].y.iloc[0]
     icpt = d[(d["plot"] == "hill") & (d.quantity == "intercept")].y.iloc[0]
     np.testing.assert_allclose([slope, icpt], [2.5, -2.5 * np.log10(3)], rtol=1e-6)
+    # K0.5 = 10^(-intercept/slope) from the same line: 3
+    k05 = d[(d["plot"] == "hill") & (d.quantity == "K0.5")].y.iloc[0]
+    np.testing.assert_allclose(k05, 3.0, rtol=1e-6)
 
 
 def test_setup_errors_raise_fit_error() -> None:

@@ -262,3 +262,39 @@ def test_progress_power_model_needs_the_substrate_and_recovers_first_order() -> 
     assert np.all(np.abs(r.v0 - k * s0) < 4 * r.stderr)
     with pytest.raises(StageError, match="power"):
         progress_curve(T, y, model="power")
+
+
+def test_no_signal_straddles_t_of_four() -> None:
+    # NO_SIGNAL when the straight line through every read is within 4 standard errors of flat (its own
+    # slope_t); for white noise the two-sided chance of |t| > 4 is 2 * scipy.stats.norm.sf(4) = 6.3e-5,
+    # the figure documented beside NO_SIGNAL_T
+    from scipy import stats
+
+    assert 2 * stats.norm.sf(noise.NO_SIGNAL_T) == pytest.approx(6.3e-5, rel=0.02)
+    rng = np.random.default_rng(8)
+    sxx = np.sum((T - T.mean()) ** 2)
+    slopes = np.linspace(0.0, 8.0, 200) * 0.002 / np.sqrt(sxx)  # slope_t from 0 to about 8
+    y = 0.1 + slopes[:, None] * T[None, :] + 0.002 * rng.standard_normal((slopes.size, T.size))
+    sc = noise.screen(y, min_points=6, time=T)
+    flagged = (sc.flags & int(Flag.NO_SIGNAL)) != 0
+    np.testing.assert_array_equal(flagged, np.abs(sc.slope_t) <= 4.0)
+    _both_sides(flagged, at_least=30)
+
+
+def test_direction_from_the_first_and_last_three_finite_reads() -> None:
+    # `change` = mean of the last three finite reads minus the mean of the first three (docstring of
+    # screen), with or without missing reads; on y = t² the count of reads averaged shows in the value
+    y = (T / 100.0)[None, :] ** 2 + np.zeros((2, 1))
+    y[1, 1] = np.nan  # second read missing: the first three finite reads are 0, 2 and 3
+    sc = noise.screen(y, min_points=6, time=T)
+    u = T / 100.0
+    assert sc.change[0] == pytest.approx(np.mean(u[-3:] ** 2) - np.mean(u[:3] ** 2), rel=1e-12)
+    assert sc.change[1] == pytest.approx(np.mean(u[-3:] ** 2) - np.mean(u[[0, 2, 3]] ** 2), rel=1e-12)
+
+
+def test_window_gives_a_constant_well_no_signal_and_no_rate() -> None:
+    # a well whose reads are all equal has no change to measure: NO_SIGNAL, no rate, no R²
+    y = np.vstack([np.full(10, 0.25), 0.1 + 1e-3 * np.arange(10.0)])
+    r = window_slopes(np.arange(10) * 10.0, y, 0.0, 90.0)
+    assert _has(r, Flag.NO_SIGNAL).tolist() == [True, False]
+    assert np.isnan(r.v0[0]) and np.isnan(r.goodness[0]) and r.v0[1] == pytest.approx(1e-4, rel=1e-9)
