@@ -129,6 +129,12 @@ def test_beer_lambert_needs_exactly_one_pathlength_source():
     settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "fill_volume": "200 uL",
                                                 "plate_type": "96-flat"})
     assert BeerLambert.check_settings(settings) == []
+    # a plate type or a fill volume alone is one (incomplete) source: said as such, not as a missing source
+    settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "fill_volume": "200 uL"})
+    assert [f for f, _ in BeerLambert.check_settings(settings)] == ["fill_volume"]
+    settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "pathlength": "1 cm",
+                                                "plate_type": "96-flat"})
+    assert [f for f, _ in BeerLambert.check_settings(settings)] == ["pathlength"]
 
 
 def test_beer_lambert_pathlength_from_fill_volume():
@@ -207,6 +213,11 @@ def test_standard_curve_unit_from_the_header_or_the_step():
     assert _stage(StandardCurveConvert, unit="uM").preflight(bare) is None
     with pytest.raises(StageError, match="'product' has no unit"):
         _stage(StandardCurveConvert).preflight(bare)
+    samples_only = wells.assign(role="sample")
+    with pytest.raises(StageError, match="needs wells with role 'standard'.*has 0 standard wells"):
+        _stage(StandardCurveConvert).preflight(_input({"layout": samples_only, "well_units": {"product": "uM"}}))
+    with pytest.raises(StageError, match="layout column 'substrate'"):
+        _stage(StandardCurveConvert, column="substrate").preflight(header)
 
 
 def test_standard_curve_names_the_standard_wells_it_leaves_out():

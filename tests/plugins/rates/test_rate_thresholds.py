@@ -298,3 +298,18 @@ def test_window_gives_a_constant_well_no_signal_and_no_rate() -> None:
     r = window_slopes(np.arange(10) * 10.0, y, 0.0, 90.0)
     assert _has(r, Flag.NO_SIGNAL).tolist() == [True, False]
     assert np.isnan(r.v0[0]) and np.isnan(r.goodness[0]) and r.v0[1] == pytest.approx(1e-4, rel=1e-9)
+
+
+def test_windows_that_start_and_end_inside_the_curve_report_their_own_span() -> None:
+    # window 30-90 s of a 600-s curve: the span is the first and last read inside it, and the slope is the
+    # least-squares line (numpy.polyfit) or the quadratic's slope at the window start over exactly those reads
+    rng = np.random.default_rng(4)
+    y = 0.1 + 2e-4 * T + 1e-7 * T**2 + 0.002 * rng.standard_normal((3, T.size))
+    inside = (T >= 30.0) & (T <= 90.0)
+    r = window_slopes(T, y, 30.0, 90.0)
+    assert np.all(r.window_start_s == 30.0) and np.all(r.window_end_s == 90.0)
+    np.testing.assert_allclose(r.v0, [np.polyfit(T[inside], yi[inside], 1)[0] for yi in y], rtol=1e-9)
+    p = polynomial(T, y, window_s=120.0)  # from the first read: 0-120 s
+    assert np.all(p.window_start_s == 0.0) and np.all(p.window_end_s == 120.0)
+    first = T <= 120.0
+    np.testing.assert_allclose(p.v0, [np.polyfit(T[first], yi[first], 2)[1] for yi in y], rtol=1e-6)
