@@ -214,7 +214,7 @@ def test_standard_curve_unit_from_the_header_or_the_step():
     with pytest.raises(StageError, match="'product' has no unit"):
         _stage(StandardCurveConvert).preflight(bare)
     samples_only = wells.assign(role="sample")
-    with pytest.raises(StageError, match="needs wells with role 'standard'.*has 0 standard wells"):
+    with pytest.raises(StageError, match=r"needs wells with role 'standard'.*has 0 standard wells"):
         _stage(StandardCurveConvert).preflight(_input({"layout": samples_only, "well_units": {"product": "uM"}}))
     with pytest.raises(StageError, match="layout column 'substrate'"):
         _stage(StandardCurveConvert, column="substrate").preflight(header)
