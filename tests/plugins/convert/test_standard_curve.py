@@ -100,3 +100,20 @@ def test_three_points_at_two_levels_are_enough_for_a_line_with_errors() -> None:
     assert_allclose(cur.slope, (0.91 - 0.11) / 4.0, rtol=1e-12)  # the line through the mean at 0 and the point at 4
     with pytest.raises(FitError, match="2 usable points"):
         fit_standard_curve([0.0, 4.0, np.nan], [0.1, 0.9, 0.5])
+
+
+def test_a_standard_level_is_the_mean_of_its_usable_reads() -> None:
+    # a standard with one usable read has that read as its level; one with none has no level and is named
+    import pandas as pd
+    from vzero.data import Traces
+    from vzero.plugins.convert.standard_curve import standard_levels
+
+    t = np.arange(4) * 10.0
+    signal = np.array([[1.0, 2.0, 3.0, 6.0], [np.nan, 5.0, np.nan, np.nan], [np.nan] * 4, [9.0] * 4])
+    wells = pd.DataFrame({"well": ["A1", "A2", "A3", "B1"], "role": ["standard"] * 3 + ["sample"],
+                          "product": [1.0, 2.0, 4.0, np.nan]})
+    traces = Traces("p", t, signal, np.isfinite(signal), np.zeros_like(signal, bool), wells, "RFU", {"product": "uM"})
+    names, conc, level, empty = standard_levels(traces, "product")
+    assert list(names) == ["A1", "A2", "A3"] and empty == ["A3"]
+    assert_allclose(conc, [1.0, 2.0, 4.0])
+    assert_allclose(level, [3.0, 5.0, np.nan])
