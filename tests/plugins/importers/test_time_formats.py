@@ -68,3 +68,11 @@ def test_times_out_of_order_are_named_with_their_row(text: str, message: str, li
     with pytest.raises(InputFileError) as err:
         _times(text)
     assert str(err.value).startswith(f"t.csv, row {line}, column 'Time': {message}")
+
+
+@pytest.mark.parametrize("text", ["Time,A1\n:30,1\n1:00,2\n", "Time,A1\n0:30,1\n:59,2\n"])
+def test_a_time_with_nothing_before_its_colon_is_refused_as_a_time(text: str) -> None:
+    from vzero.errors import InputFileError
+
+    with pytest.raises(InputFileError, match=r"time ':\d\d' is not a number or h:mm:ss / mm:ss"):
+        _times(text)
