@@ -439,3 +439,20 @@ def test_kcat_needs_a_finite_positive_enzyme_concentration(puromycin_fits, e: fl
         rows = fit_run._derived(MM, mm, e, "nM", "uM/min", "uM", 0.95)
     assert [r["parameter"] for r in rows] == ["kcat"]
     assert np.isnan(rows[0]["estimate"]) and np.isnan(rows[0]["stderr"]) and why in rows[0]["note"]
+
+
+def test_weighted_batched_fit_matches_scipy_curve_fit() -> None:
+    # weights 1/sigma²: estimates and the weighted RSS sum(((v - f)/sigma)²) against scipy.optimize.curve_fit
+    # with the same sigma (independent solver); AICc from that RSS (Burnham & Anderson 2002, eq. 2.14)
+    from scipy.optimize import curve_fit
+    s, v = _puromycin("treated")
+    sigma = 2.0 + 0.05 * v  # invented per-point SDs, growing with the rate
+    x = {"substrate": s[None, :]}
+    p0 = np.array([MM.start({"substrate": s}, v)])
+    res = engine.fit_batch(MM.evaluate, MM.jacobian, x, v[None, :], np.ones((1, s.size), bool), p0, MM.params,
+                           sigma=sigma[None, :], bounds=dict(MM.bounds))[0]
+    popt, _ = curve_fit(lambda c, vm, km: vm * c / (km + c), s, v, p0=[200.0, 0.1], sigma=sigma)
+    np.testing.assert_allclose([res.value("Vmax"), res.value("Km")], popt, rtol=1e-5)
+    rss = float(np.sum(((v - popt[0] * s / (popt[1] + s)) / sigma) ** 2))
+    assert res.rss == pytest.approx(rss, rel=1e-6)
+    assert res.aicc == pytest.approx(_aicc(rss, s.size, 2), rel=1e-6)
