@@ -46,6 +46,9 @@ RATES = ["tests/plugins/rates/test_rate_thresholds.py", "tests/plugins/rates/tes
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
 READERS = ["tests/plugins/importers/test_time_formats.py", "tests/plugins/importers/test_readers.py",
            "tests/plugins/importers/test_plain_numbers.py"]
+#: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
+DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
+           "tests/pipeline/test_verify_digests.py::test_a_missing_results_group_is_reported"]
 
 #: module (path in the checkout) -> (functions to mutate, or () for the whole module; targeted tests, the
 #: quickest that exercise the module, fastest first)
@@ -71,7 +74,8 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
                                       "_check_increasing", "_detect_decimal"), READERS),
     "pipeline/recipe.py": (("_check", "_check_steps", "check"), ["tests/pipeline/test_recipe_rules.py",
                                                                   "tests/pipeline/test_recipe.py"]),
-    "pipeline/audit/verify.py": ((), ["tests/pipeline/test_recipe_rules.py", "tests/pipeline/test_verify.py"]),
+    "pipeline/audit/verify.py": ((), ["tests/pipeline/test_recipe_rules.py", "tests/pipeline/test_verify.py",
+                                      *DIGESTS]),
 }
 
 SWAP_BIN = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mult, ast.Pow: ast.Mult}

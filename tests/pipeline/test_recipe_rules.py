@@ -90,3 +90,15 @@ def test_plate_file_pattern_expanded_beside_the_recipe(plugins, tmp_path: Path) 
     rec = check(parse(text, str(tmp_path / "recipe.yaml")), plugins.registry)
     assert [p.name for p in rec.plates] == ["run-1", "run-2"]
     assert rec.plates[0].files["data"] == str(Path("plates") / "run-1.csv")
+
+
+def test_manifest_read_from_beside_the_recipe(plugins, tmp_path: Path) -> None:
+    # the default reader (no stand-in) opens the manifest relative to the recipe's folder
+    (tmp_path / "plates").mkdir()
+    for name in ("a.csv", "b.csv", "layout.csv"):
+        (tmp_path / "plates" / name).write_text("x\n")
+    (tmp_path / "plates" / "list.csv").write_text("name,data,layout\nfirst,a.csv,layout.csv\nsecond,b.csv,layout.csv\n")
+    text = GOOD.replace("  - name: p\n    data: plate.csv\n    layout: layout.csv\n", "  - manifest: plates/list.csv\n")
+    rec = check(parse(text, str(tmp_path / "recipe.yaml")), plugins.registry)
+    assert [p.name for p in rec.plates] == ["first", "second"]
+    assert rec.plates[1].files["data"] == "plates/b.csv"

@@ -67,3 +67,15 @@ def test_hash_matches_an_independent_computation(copy: Path):
     with h5py.File(copy, "r") as f:
         ds = f["inputs/00"]
         assert hashlib.sha256(ds[()].tobytes()).hexdigest() == ds.attrs["sha256"]
+
+
+def test_commands_refuse_a_changed_file_before_reading_it(copy: Path):
+    from vzero.audit.verify import check_intact
+    from vzero.errors import AuditFileError
+
+    check_intact(copy)  # untouched: no complaint
+    with h5py.File(copy, "a") as f:
+        f.attrs["recipe_text"] = str(f.attrs["recipe_text"]).replace("300 s", "301 s")
+    with pytest.raises(AuditFileError, match="does not match its digests"):
+        check_intact(copy)
+    check_intact(copy, check=False)  # --no-verify: not checked

@@ -129,6 +129,12 @@ def test_beer_lambert_needs_exactly_one_pathlength_source():
     settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "fill_volume": "200 uL",
                                                 "plate_type": "96-flat"})
     assert BeerLambert.check_settings(settings) == []
+    # a plate type or a fill volume alone is one (incomplete) source: said as such, not as a missing source
+    settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "fill_volume": "200 uL"})
+    assert [f for f, _ in BeerLambert.check_settings(settings)] == ["fill_volume"]
+    settings, _ = validate(BeerLambert.params, {"epsilon": "6220 M^-1 cm^-1", "pathlength": "1 cm",
+                                                "plate_type": "96-flat"})
+    assert [f for f, _ in BeerLambert.check_settings(settings)] == ["pathlength"]
 
 
 def test_beer_lambert_pathlength_from_fill_volume():
@@ -191,3 +197,44 @@ def test_window_flags_noisy_slopes_but_keeps_them():
     res = window_slopes(t, y, 0.0, 100.0)
     assert not res.flags[0] & 32 and res.flags[1] & 32  # Flag.NOISY
     assert np.isfinite(res.v0).all()
+
+
+def test_standard_curve_unit_from_the_header_or_the_step():
+    # the standards' concentration unit may come from the layout header or from the step's `unit`; with
+    # neither, the step refuses before any work, naming the column
+    from vzero.errors import StageError
+    from vzero.plugins.convert import StandardCurveConvert
+
+    wells = pd.DataFrame({"well": ["A1", "A2", "B1"], "role": ["standard", "standard", "sample"],
+                          "product": [0.0, 2.0, np.nan]})
+    header = _input({"layout": wells, "well_units": {"product": "uM"}})
+    bare = _input({"layout": wells, "well_units": {}})
+    assert _stage(StandardCurveConvert).preflight(header) is None
+    assert _stage(StandardCurveConvert, unit="uM").preflight(bare) is None
+    with pytest.raises(StageError, match="'product' has no unit"):
+        _stage(StandardCurveConvert).preflight(bare)
+    samples_only = wells.assign(role="sample")
+    with pytest.raises(StageError, match=r"needs wells with role 'standard'.*has 0 standard wells"):
+        _stage(StandardCurveConvert).preflight(_input({"layout": samples_only, "well_units": {"product": "uM"}}))
+    with pytest.raises(StageError, match="layout column 'substrate'"):
+        _stage(StandardCurveConvert, column="substrate").preflight(header)
+
+
+def test_standard_curve_names_the_standard_wells_it_leaves_out():
+    from vzero.plugins.convert import StandardCurveConvert
+
+    t = np.arange(0.0, 60.0, 10.0)
+    levels = np.array([0.0, 1.0, 2.0, 4.0, 8.0])
+    signal = 50.0 + 120.0 * levels[:, None] + 0.0 * t
+    signal[2] = np.nan  # A3 has no usable read
+    signal = np.vstack([signal, 50.0 + 2.4 * t])
+    wells = pd.DataFrame({"well": ["A1", "A2", "A3", "A4", "A5", "B1"], "role": ["standard"] * 5 + ["sample"],
+                          "product": [*levels, np.nan]})
+    traces = Traces("p", t, signal, np.isfinite(signal), np.zeros_like(signal, bool), wells, "RFU",
+                    {"product": "uM"})
+    frame = pd.DataFrame({"well": ["B1"], "role": ["sample"], "rate": [2.4], "rate_stderr": [0.0]})
+    warnings: list[str] = []
+    out = _stage(StandardCurveConvert, output_unit="uM/min").run(
+        _input({"traces": traces, "rates": Table(frame, {"rate": "RFU/s"}, {"signal_unit": "RFU"})}, warnings))
+    assert any(w.startswith("1 standard well(s) have no usable read") and w.endswith("curve: A3.") for w in warnings)
+    assert_allclose(out.artifacts["rates"].frame["rate"].iloc[0], 2.4 / 120.0 * 60.0, rtol=1e-9)

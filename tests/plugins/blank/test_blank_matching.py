@@ -27,3 +27,13 @@ def test_wells_without_a_matching_blank_are_named_and_get_the_overall_mean() -> 
     assert_allclose(out.signal[0], 0.1 + 0.1 * t, atol=1e-12)  # its own blanks: mean 0.4
     assert_allclose(out.signal[1], 0.5 + 0.1 * t, atol=1e-12)  # no blank at 7 uM: overall mean 0.4
     assert len(warnings) == 1 and "for 1 well(s) (A2)" in warnings[0]
+
+
+def test_preflight_warns_only_when_the_layout_has_no_blank_wells() -> None:
+    settings, problems = validate(MeanBlank.params, {})
+    assert not problems
+    for roles, warned in ((["sample", "blank"], False), (["sample", "sample"], True)):
+        warnings: list[str] = []
+        layout = pd.DataFrame({"well": ["A1", "A2"], "role": roles})
+        MeanBlank(**settings).preflight(StageInput({"layout": layout}, {"name": "p"}, {}, {}, None, warnings.append))
+        assert bool(warnings) == warned and all("no wells with role 'blank'" in w for w in warnings)

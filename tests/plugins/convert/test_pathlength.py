@@ -66,3 +66,13 @@ def test_water_k_factor_from_segelstein_1981() -> None:
     k_factor = np.interp(977.0, lam_um * 1000, a) - np.interp(900.0, lam_um * 1000, a)
     assert_allclose(k_factor, 0.163, atol=0.0015)
     assert_allclose(pathlength_from_water_peak(0.163 * 0.55, 0.0, k_factor), 0.55, rtol=0.01)
+
+
+def test_capacity_is_the_frustum_volume_for_round_and_square_wells() -> None:
+    # volume of a frustum of height h between parallel faces of areas A1 and A2: h/3 (A1 + A2 + sqrt(A1 A2))
+    # (solid geometry); A = s² for a square well of side s, pi d²/4 for a round one of diameter d
+    for g in PLATE_GEOMETRIES.values():
+        a1, a2 = (s**2 if g.shape == "square" else np.pi * s**2 / 4 for s in (g.bottom_mm, g.top_mm))
+        assert g.capacity_ul == pytest.approx(g.depth_mm / 3 * (a1 + a2 + np.sqrt(a1 * a2)), rel=1e-12)
+    prism = WellGeometry("prism", "square", 5.0, 5.0, 10.0, "test shape")  # 25 mm² floor: 100 µL stand 4 mm
+    assert_allclose(pathlength_from_volume(100.0, prism), 0.4, rtol=1e-12)

@@ -72,3 +72,48 @@ def test_errors() -> None:
         fit_standard_curve([1, 1, 1], [0.1, 0.2, 0.3])
     with pytest.raises(FitError, match="not distinguishable"):
         fit_standard_curve([0, 1, 2, 3], [1, 0, 1, 0])
+
+
+def test_signal_to_conc_standard_error_is_the_classical_calibration_formula() -> None:
+    # inverse prediction of one new read y0: x0 = (y0 - b)/m with SE = (s/|m|) sqrt(1 + 1/n + (x0 - x̄)²/Sxx)
+    # (the classical calibration interval of a straight line, e.g. Draper & Smith, Applied Regression
+    # Analysis, section on inverse prediction); s, m and b from scipy.stats.linregress
+    rng = np.random.default_rng(17)
+    conc = np.repeat([0.0, 10, 20, 30, 40], 2)
+    sig = 0.1 + 0.02 * conc + rng.normal(0, 0.01, conc.size)
+    cur = fit_standard_curve(conc, sig, check_linearity=False)
+    ref = stats.linregress(conc, sig)
+    s = np.sqrt(np.sum((sig - ref.intercept - ref.slope * conc) ** 2) / (conc.size - 2))
+    y0 = np.array([0.15, 0.5, 0.95])
+    x0 = (y0 - ref.intercept) / ref.slope
+    sxx = np.sum((conc - conc.mean()) ** 2)
+    expected = s / abs(ref.slope) * np.sqrt(1 + 1 / conc.size + (x0 - conc.mean()) ** 2 / sxx)
+    x, se = cur.signal_to_conc(y0)
+    assert_allclose(x, x0, rtol=1e-10)
+    assert_allclose(se, expected, rtol=1e-8)
+
+
+def test_three_points_at_two_levels_are_enough_for_a_line_with_errors() -> None:
+    # the documented minimum: 3 usable standard wells at 2 or more concentrations (one residual degree of freedom)
+    cur = fit_standard_curve([0.0, 0.0, 4.0], [0.10, 0.12, 0.91])
+    assert cur.dof == 1 and cur.n_points == 3 and np.isfinite(cur.slope_se) and cur.slope_se > 0
+    assert_allclose(cur.slope, (0.91 - 0.11) / 4.0, rtol=1e-12)  # the line through the mean at 0 and the point at 4
+    with pytest.raises(FitError, match="2 usable points"):
+        fit_standard_curve([0.0, 4.0, np.nan], [0.1, 0.9, 0.5])
+
+
+def test_a_standard_level_is_the_mean_of_its_usable_reads() -> None:
+    # a standard with one usable read has that read as its level; one with none has no level and is named
+    import pandas as pd
+    from vzero.data import Traces
+    from vzero.plugins.convert.standard_curve import standard_levels
+
+    t = np.arange(4) * 10.0
+    signal = np.array([[1.0, 2.0, 3.0, 6.0], [np.nan, 5.0, np.nan, np.nan], [np.nan] * 4, [9.0] * 4])
+    wells = pd.DataFrame({"well": ["A1", "A2", "A3", "B1"], "role": ["standard"] * 3 + ["sample"],
+                          "product": [1.0, 2.0, 4.0, np.nan]})
+    traces = Traces("p", t, signal, np.isfinite(signal), np.zeros_like(signal, bool), wells, "RFU", {"product": "uM"})
+    names, conc, level, empty = standard_levels(traces, "product")
+    assert list(names) == ["A1", "A2", "A3"] and empty == ["A3"]
+    assert_allclose(conc, [1.0, 2.0, 4.0])
+    assert_allclose(level, [3.0, 5.0, np.nan])

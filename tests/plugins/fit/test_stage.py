@@ -169,6 +169,9 @@ def test_hill_plot_slope_on_exact_hill_data() -> None:
     slope = d[(d["plot"] == "hill") & (d.quantity == "slope")].y.iloc[0]
     icpt = d[(d["plot"] == "hill") & (d.quantity == "intercept")].y.iloc[0]
     np.testing.assert_allclose([slope, icpt], [2.5, -2.5 * np.log10(3)], rtol=1e-6)
+    # K0.5 = 10^(-intercept/slope) from the same line: 3
+    k05 = d[(d["plot"] == "hill") & (d.quantity == "K0.5")].y.iloc[0]
+    np.testing.assert_allclose(k05, 3.0, rtol=1e-6)
 
 
 def test_setup_errors_raise_fit_error() -> None:
@@ -246,3 +249,17 @@ def test_reversed_bounds_are_a_recipe_error() -> None:
 
     _, problems = validate(FitStage.params, {"bounds": {"michaelis-menten": {"Km": [200, 100]}}})
     assert problems and "low < high" in problems[0][1]
+
+
+def test_plotting_grid_spans_every_observed_concentration() -> None:
+    # a fitted curve drawn on the grid must reach past the highest and lowest point it is drawn with: linear
+    # from 0 when the concentrations span at most 30-fold, log-spaced beyond that
+    from vzero.plugins.fit.diagnostics import grid
+
+    narrow = np.array([2.0, 5.0, 10.0, 20.0, np.nan])
+    g = grid(narrow)
+    assert g[0] == 0.0 and g[-1] > 20.0 and np.all(np.diff(g) > 0)
+    wide = np.array([0.01, 0.1, 1.0, 10.0, 0.0])
+    g = grid(wide)
+    assert 0 < g[0] < 0.01 and g[-1] > 10.0
+    assert np.allclose(np.diff(np.log(g)), np.log(g[1] / g[0]))  # evenly spaced in log

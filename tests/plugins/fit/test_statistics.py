@@ -141,6 +141,7 @@ def test_f_test_and_akaike_weights_by_hand(puromycin_fits) -> None:
     df1, df2 = 1, n - 3
     f = ((mm.rss - hill.rss) / df1) / (hill.rss / df2)
     assert (t.df1, t.df2) == (df1, df2)
+    assert (t.simple, t.complex) == ("michaelis-menten", "hill")  # the pair is named simpler model first
     assert t.f == pytest.approx(f, rel=1e-10)
     assert t.p == pytest.approx(stats.f.sf(f, df1, df2), rel=1e-8)  # scipy.stats.f, independent of special.fdtrc
     rows, preferred, _ = compare.compare_set({"michaelis-menten": mm, "hill": hill}, {"hill": {"michaelis-menten": ""}})
@@ -211,6 +212,8 @@ def test_lowest_aicc_wins_without_a_nesting_relation() -> None:
     ((0.85, 1.26), 0.4, "not resolved by these data"),  # upper end just outside
     ((0.7, 1.4), 0.4, "not resolved by these data"),  # between the margins: too wide
     ((0.9, 1.1), 0.01, "not resolved by these data"),  # contains 1 but the F-test prefers Hill
+    ((1.3, 2.1), 0.05, "not resolved by these data"),  # p exactly alpha is not significant (p < alpha is)
+    ((0.85, 1.2), 0.05, "none"),
     ((np.nan, 1.1), 0.4, "not resolved by these data"),
 ])
 def test_cooperativity_verdict_boundaries(ci: tuple[float, float], p: float, verdict: str) -> None:
@@ -376,3 +379,80 @@ def test_ki_conversion_needs_one_substrate_concentration() -> None:
     assert same["estimate"] == pytest.approx(2.0 / (1 + 6 / 2), rel=1e-6)
     mixed = fit_run._ki_rows(model, res, np.r_[np.full(6, 6.0), np.full(6, 6.5)], cfg, "nM", "uM", 0.95)[0]
     assert np.isnan(mixed["estimate"]) and "one positive substrate concentration" in mixed["note"]
+
+
+def test_f_test_needs_a_nested_pair_with_residual_degrees_of_freedom() -> None:
+    # F = ((RSS1 - RSS2)/df1) / (RSS2/df2) is defined only for df1 > 0, df2 > 0 and RSS2 > 0 (extra sum of
+    # squares test, e.g. Motulsky & Christopoulos 2004, ch. 22); otherwise there is no test
+    n = 10
+    assert compare.f_test(_stub(2.0, n, 2), _stub(1.0, n, 3), ("a", "b")) is not None
+    assert compare.f_test(_stub(2.0, n, 3), _stub(1.0, n, 3), ("a", "b")) is None  # df1 = 0
+    assert compare.f_test(_stub(2.0, n, 9), _stub(1e-3, n, 10), ("a", "b")) is None  # df2 = 0
+    with np.errstate(divide="ignore"):  # the stub's AICc of an exact fit is -inf
+        exact = _stub(0.0, n, 3)
+    assert compare.f_test(_stub(2.0, n, 2), exact, ("a", "b")) is None  # exact fit: RSS2 = 0
+
+
+def test_a_bounded_fit_that_fails_stays_inside_its_bounds() -> None:
+    # falling rates cannot be described by Michaelis-Menten with Km >= 0: the fit may fail, but whatever it
+    # reports must respect the bound (an unbounded retry would find a negative Km)
+    s = np.array([1, 2, 4, 8, 16, 32.0])
+    v = np.array([5, 4.6, 4.1, 3.9, 3.5, 3.2])
+    res = _fit(MM, s, v)
+    assert res.value("Km") >= 0.0
+    # scipy's unbounded least squares does find a lower cost at a negative Km here: the bound is binding
+    from scipy.optimize import least_squares
+    free = least_squares(lambda q: q[0] * s / (q[1] + s) - v, [5.0, -0.5], method="lm")
+    assert free.x[1] < 0 and 2 * free.cost < res.rss
+
+
+def test_batched_fit_matches_scipy_curve_fit_and_the_single_fit() -> None:
+    # both Puromycin groups (Bates & Watts 1988) in one batched fit: estimates and standard errors against
+    # scipy.optimize.curve_fit (independent solver; its pcov is scaled by RSS/dof like ours), RSS by hand
+    from scipy.optimize import curve_fit
+    groups = [_puromycin("treated"), _puromycin("untreated")]
+    n = max(g[0].size for g in groups)
+    s = np.zeros((2, n))
+    v = np.zeros((2, n))
+    mask = np.zeros((2, n), bool)
+    for i, (si, vi) in enumerate(groups):
+        s[i, :si.size], v[i, :si.size], mask[i, :si.size] = si, vi, True
+    x = {"substrate": s}
+    p0 = np.array([MM.start({"substrate": si}, vi) for si, vi in groups])
+    batch = engine.fit_batch(MM.evaluate, MM.jacobian, x, v, mask, p0, MM.params, bounds=dict(MM.bounds))
+    for (si, vi), res in zip(groups, batch, strict=True):
+        popt, pcov = curve_fit(lambda c, vm, km: vm * c / (km + c), si, vi, p0=[200.0, 0.1])
+        np.testing.assert_allclose([res.value("Vmax"), res.value("Km")], popt, rtol=1e-5)
+        np.testing.assert_allclose([res.params["Vmax"].stderr, res.params["Km"].stderr], np.sqrt(np.diag(pcov)),
+                                   rtol=1e-4)
+        rss = float(np.sum((vi - popt[0] * si / (popt[1] + si)) ** 2))
+        assert res.rss == pytest.approx(rss, rel=1e-6)
+        assert res.aicc == pytest.approx(_aicc(rss, si.size, 2), rel=1e-6)
+
+
+@pytest.mark.parametrize(("e", "why"), [(0.0, "not positive"), (-2.5, "not positive"), (np.nan, "unknown"),
+                                        (np.inf, "unknown")])
+def test_kcat_needs_a_finite_positive_enzyme_concentration(puromycin_fits, e: float, why: str) -> None:
+    # kcat = Vmax/[E] is defined only for a finite [E] > 0: otherwise one row, no number, and the reason
+    _, _, mm, _ = puromycin_fits
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rows = fit_run._derived(MM, mm, e, "nM", "uM/min", "uM", 0.95)
+    assert [r["parameter"] for r in rows] == ["kcat"]
+    assert np.isnan(rows[0]["estimate"]) and np.isnan(rows[0]["stderr"]) and why in rows[0]["note"]
+
+
+def test_weighted_batched_fit_matches_scipy_curve_fit() -> None:
+    # weights 1/sigma²: estimates and the weighted RSS sum(((v - f)/sigma)²) against scipy.optimize.curve_fit
+    # with the same sigma (independent solver); AICc from that RSS (Burnham & Anderson 2002, eq. 2.14)
+    from scipy.optimize import curve_fit
+    s, v = _puromycin("treated")
+    sigma = 2.0 + 0.05 * v  # invented per-point SDs, growing with the rate
+    x = {"substrate": s[None, :]}
+    p0 = np.array([MM.start({"substrate": s}, v)])
+    res = engine.fit_batch(MM.evaluate, MM.jacobian, x, v[None, :], np.ones((1, s.size), bool), p0, MM.params,
+                           sigma=sigma[None, :], bounds=dict(MM.bounds))[0]
+    popt, _ = curve_fit(lambda c, vm, km: vm * c / (km + c), s, v, p0=[200.0, 0.1], sigma=sigma)
+    np.testing.assert_allclose([res.value("Vmax"), res.value("Km")], popt, rtol=1e-5)
+    rss = float(np.sum(((v - popt[0] * s / (popt[1] + s)) / sigma) ** 2))
+    assert res.rss == pytest.approx(rss, rel=1e-6)
+    assert res.aicc == pytest.approx(_aicc(rss, s.size, 2), rel=1e-6)

@@ -56,3 +56,23 @@ def test_spreadsheet_time_and_duration_cells() -> None:
     wb.save(buf)
     block = read_table(buf.getvalue(), source="t.xlsx", options=ReadOptions())[0]
     assert_allclose(block.time_s, [1800.0, 3723.0, 93660.0])
+
+
+@pytest.mark.parametrize(("text", "message", "line"), [
+    ("Time,A1\n0,1\n10,2\n20,3\n20,4\n", "time 20 s repeats the previous time (20 s)", 5),
+    ("Time,A1\n0,1\n10,2\n20,3\n15,4\n", "time 15 s goes back in time (20 s)", 5),
+])
+def test_times_out_of_order_are_named_with_their_row(text: str, message: str, line: int) -> None:
+    from vzero.errors import InputFileError
+
+    with pytest.raises(InputFileError) as err:
+        _times(text)
+    assert str(err.value).startswith(f"t.csv, row {line}, column 'Time': {message}")
+
+
+@pytest.mark.parametrize("text", ["Time,A1\n:30,1\n1:00,2\n", "Time,A1\n0:30,1\n:59,2\n"])
+def test_a_time_with_nothing_before_its_colon_is_refused_as_a_time(text: str) -> None:
+    from vzero.errors import InputFileError
+
+    with pytest.raises(InputFileError, match=r"time ':\d\d' is not a number or h:mm:ss / mm:ss"):
+        _times(text)

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from vzero.errors import StageError
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates import noise
@@ -180,7 +181,8 @@ def test_empty_well_has_no_window_in_polynomial() -> None:
 
 def test_auto_select_uses_the_straight_line_where_curvature_is_not_significant() -> None:
     # estimate="select": on straight wells the reported v0 and SE are those of the least-squares line over
-    # the chosen window (numpy.polyfit as the independent reference; SE = sigma / sqrt(Sxx))
+    # the chosen window (numpy.polyfit as the independent reference; SE = s / sqrt(Sxx) with s the larger of
+    # the read noise and the line's residual RMS over the window, n - 2 degrees of freedom)
     rng = np.random.default_rng(12)
     y = 0.1 + 2e-4 * T[None, :] + 0.002 * rng.standard_normal((8, T.size))
     r = auto(T, y, find_lag=False, estimate="select")
@@ -191,7 +193,13 @@ def test_auto_select_uses_the_straight_line_where_curvature_is_not_significant()
         slope = np.polyfit(T[inside], y[i, inside], 1)[0]
         assert r.v0[i] == pytest.approx(slope, rel=1e-9)
         sxx = np.sum((T[inside] - T[inside].mean()) ** 2)
-        assert r.stderr[i] == pytest.approx(r.extra["read_noise"][i] / np.sqrt(sxx), rel=1e-9)
+        rss = np.polyfit(T[inside], y[i, inside], 1, full=True)[1]
+        rmse = np.sqrt(rss[0] / (inside.sum() - 2))
+        assert r.extra["rmse_over_noise"][i] == pytest.approx(rmse / r.extra["read_noise"][i], rel=1e-6)
+        s = max(r.extra["read_noise"][i], rmse)
+        assert r.stderr[i] == pytest.approx(s / np.sqrt(sxx), rel=1e-9)
+    # the residual RMS counts where it is the larger (the read noise alone would give a narrower interval)
+    assert any(r.extra["rmse_over_noise"][i] > 1.0 for i in straight)
 
 
 def test_read_noise_needs_five_reads() -> None:
@@ -211,3 +219,97 @@ def test_progress_goodness_is_r_squared_of_the_fit() -> None:
     tss = np.sum((sim.signal - sim.signal.mean(axis=1, keepdims=True)) ** 2, axis=1)
     np.testing.assert_allclose(r.goodness, 1 - rss / tss, rtol=1e-9)
     assert r.goodness_name == "r_squared"
+
+
+def test_conversion_scale_needs_both_substrate_and_signal_per_conc() -> None:
+    # percent conversion needs S0 and the signal per unit product; with either missing there is no scale,
+    # and auto runs without the conversion check (no HIGH_CONVERSION, conversion NaN)
+    assert noise.conversion_scale(np.array([1.0, 2.0]), None, 2) is None
+    assert noise.conversion_scale(None, 2.5, 2) is None
+    np.testing.assert_allclose(noise.conversion_scale(np.array([1.0, 0.0]), -2.5, 2), [2.5, np.nan])
+    y = 0.1 + 5e-3 * T[None, :] + np.zeros((2, 1))  # 3 signal units by the end: far past 10 % of S0 = 1
+    r = auto(T, y, s0=np.ones(2), find_lag=False)
+    assert not _has(r, Flag.HIGH_CONVERSION).any() and np.isnan(r.extra["conversion"]).all()
+    r = auto(T, y, s0=np.ones(2), signal_per_conc=1.0, find_lag=False)
+    assert _has(r, Flag.HIGH_CONVERSION).all()
+
+
+def test_auto_goodness_is_r_squared_of_the_window_quadratic() -> None:
+    # goodness = 1 - RSS/TSS of the reported quadratic over the chosen window; numpy.polyfit over the same
+    # reads is the independent reference (TSS about the window's mean)
+    sim = simulate_plate(T, np.array([0.5, 1.0, 3.0]), 1.0, 4e-3, signal_per_conc=1.0, baseline=0.1)
+    rng = np.random.default_rng(21)
+    y = sim.signal + 0.002 * rng.standard_normal(sim.signal.shape)
+    r = auto(T, y, find_lag=False)
+    for i in range(y.shape[0]):
+        inside = (T >= r.window_start_s[i]) & (T <= r.window_end_s[i])
+        yi = y[i, inside]
+        fitted = np.polyval(np.polyfit(T[inside], yi, 2), T[inside])
+        r2 = 1.0 - np.sum((yi - fitted) ** 2) / np.sum((yi - yi.mean()) ** 2)
+        assert r.goodness[i] == pytest.approx(r2, abs=1e-9)
+        assert 0.5 < r2 < 1.0
+
+
+def test_progress_power_model_needs_the_substrate_and_recovers_first_order() -> None:
+    # far below Km the rate falls in proportion to the substrate left (first order, n = 1):
+    # P = S0 (1 - exp(-k t)), v0 = k S0 (closed form of first-order kinetics)
+    s0, k = 2.0, 1.5e-3
+    rng = np.random.default_rng(5)
+    y = 0.05 + s0 * -np.expm1(-k * T)[None, :] + 0.002 * rng.standard_normal((6, T.size))
+    r = progress_curve(T, y, s0=np.full(6, s0), signal_per_conc=1.0, model="power")
+    np.testing.assert_allclose(r.v0, k * s0, rtol=0.02)
+    np.testing.assert_allclose(r.extra["order"], 1.0, atol=0.1)
+    assert np.all(np.abs(r.v0 - k * s0) < 4 * r.stderr)
+    with pytest.raises(StageError, match="power"):
+        progress_curve(T, y, model="power")
+
+
+def test_no_signal_straddles_t_of_four() -> None:
+    # NO_SIGNAL when the straight line through every read is within 4 standard errors of flat (its own
+    # slope_t); for white noise the two-sided chance of |t| > 4 is 2 * scipy.stats.norm.sf(4) = 6.3e-5,
+    # the figure documented beside NO_SIGNAL_T
+    from scipy import stats
+
+    assert 2 * stats.norm.sf(noise.NO_SIGNAL_T) == pytest.approx(6.3e-5, rel=0.02)
+    rng = np.random.default_rng(8)
+    sxx = np.sum((T - T.mean()) ** 2)
+    slopes = np.linspace(0.0, 8.0, 200) * 0.002 / np.sqrt(sxx)  # slope_t from 0 to about 8
+    y = 0.1 + slopes[:, None] * T[None, :] + 0.002 * rng.standard_normal((slopes.size, T.size))
+    sc = noise.screen(y, min_points=6, time=T)
+    flagged = (sc.flags & int(Flag.NO_SIGNAL)) != 0
+    np.testing.assert_array_equal(flagged, np.abs(sc.slope_t) <= 4.0)
+    _both_sides(flagged, at_least=30)
+
+
+def test_direction_from_the_first_and_last_three_finite_reads() -> None:
+    # `change` = mean of the last three finite reads minus the mean of the first three (docstring of
+    # screen), with or without missing reads; on y = t² the count of reads averaged shows in the value
+    y = (T / 100.0)[None, :] ** 2 + np.zeros((2, 1))
+    y[1, 1] = np.nan  # second read missing: the first three finite reads are 0, 2 and 3
+    sc = noise.screen(y, min_points=6, time=T)
+    u = T / 100.0
+    assert sc.change[0] == pytest.approx(np.mean(u[-3:] ** 2) - np.mean(u[:3] ** 2), rel=1e-12)
+    assert sc.change[1] == pytest.approx(np.mean(u[-3:] ** 2) - np.mean(u[[0, 2, 3]] ** 2), rel=1e-12)
+
+
+def test_window_gives_a_constant_well_no_signal_and_no_rate() -> None:
+    # a well whose reads are all equal has no change to measure: NO_SIGNAL, no rate, no R²
+    y = np.vstack([np.full(10, 0.25), 0.1 + 1e-3 * np.arange(10.0)])
+    r = window_slopes(np.arange(10) * 10.0, y, 0.0, 90.0)
+    assert _has(r, Flag.NO_SIGNAL).tolist() == [True, False]
+    assert np.isnan(r.v0[0]) and np.isnan(r.goodness[0]) and r.v0[1] == pytest.approx(1e-4, rel=1e-9)
+
+
+def test_windows_that_start_and_end_inside_the_curve_report_their_own_span() -> None:
+    # window 30-90 s of a 600-s curve: the span is the first and last read inside it, and the slope is the
+    # least-squares line (numpy.polyfit) or the quadratic's slope at the window start over exactly those reads
+    rng = np.random.default_rng(4)
+    y = 0.1 + 2e-4 * T + 1e-7 * T**2 + 0.002 * rng.standard_normal((3, T.size))
+    inside = (T >= 30.0) & (T <= 90.0)
+    r = window_slopes(T, y, 30.0, 90.0)
+    assert np.all(r.window_start_s == 30.0) and np.all(r.window_end_s == 90.0)
+    np.testing.assert_allclose(r.v0, [np.polyfit(T[inside], yi[inside], 1)[0] for yi in y], rtol=1e-9)
+    p = polynomial(T, y, window_s=120.0)  # from the first read: 0-120 s
+    assert np.all(p.window_start_s == 0.0) and np.all(p.window_end_s == 120.0)
+    first = T <= 120.0
+    np.testing.assert_allclose(p.v0, [np.polyfit(T[first], yi[first], 2)[1] for yi in y], rtol=1e-6)
