@@ -56,13 +56,15 @@ def _mm_start(vm: np.ndarray, km: np.ndarray, s0: np.ndarray, tau: np.ndarray) -
     return np.where(np.isfinite(s) & (s > 0), np.minimum(s, s0), 0.5 * s0)
 
 
-def _newton(g: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.ndarray, tau: np.ndarray,
-            start: np.ndarray, g_floor: np.ndarray | None = None) -> np.ndarray:
-    """Root S in (0, S0] of G(S) = tau, G decreasing from G(S0) = 0; ``g(S)`` returns (G, v(S)).
+def _newton(g: Callable[[np.ndarray, np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.ndarray,
+            tau: np.ndarray, start: np.ndarray, g_floor: np.ndarray | None = None) -> np.ndarray:
+    """Root S in (0, S0] of G(S) = tau, G decreasing from G(S0) = 0; ``g(S, ln S, idx)`` returns (G, v(S)) at
+    the points ``idx`` (flat indices into ``s0``) only.
 
     Newton's method in u = ln S (dG/du = −S/v) inside a bracket [lo, hi] that shrinks with every
     evaluation; a step leaving the bracket is replaced by bisection. ``g_floor`` is G(0+) when finite (the
-    substrate runs out in finite time): S = 0 where tau reaches it.
+    substrate runs out in finite time): S = 0 where tau reaches it. Each iteration works on the points still
+    iterating only (most converge in a few steps, a few deep-conversion points take more).
     """
     s0 = np.asarray(s0, float)
     out = np.array(s0, float, copy=True)
@@ -71,21 +73,23 @@ def _newton(g: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.nda
         gone = todo & (tau >= g_floor)
         out[gone] = 0.0
         todo &= ~gone
-    hi = np.log(np.where(s0 > 0, s0, 1.0))
+    idx = np.flatnonzero(todo)
+    a0 = s0[idx]
+    hi = np.log(a0)
     lo = hi - 745.0  # below the smallest positive double relative to S0
-    u = np.log(np.clip(np.where(todo, start, s0), s0 * 1e-300, s0).clip(1e-320))
-    u = np.where(todo, np.minimum(u, hi), hi)
-    active = todo.copy()
+    u = np.minimum(np.log(np.clip(start[idx], a0 * 1e-300, a0).clip(1e-320)), hi)
+    ta = tau[idx]
     prev = np.full(u.shape, np.inf)
     with np.errstate(all="ignore"):
         for _ in range(NEWTON_MAX):
-            if not active.any():
+            if idx.size == 0:
                 break
             s = np.exp(u)
-            gv, v = g(s)
-            f = gv - tau
-            lo = np.where(active & (f > 0), u, lo)
-            hi = np.where(active & (f <= 0), u, hi)
+            gv, v = g(s, u, idx)
+            f = gv - ta
+            up = f > 0
+            lo = np.where(up, u, lo)
+            hi = np.where(up, hi, u)
             step = f * v / s  # Newton: f / (dG/du), with dG/du = −S/v
             un = u + step
             size = np.abs(step)
@@ -94,9 +98,13 @@ def _newton(g: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.nda
             small = (size <= NEWTON_TOL * np.maximum(1.0, np.abs(u))) | ((size < 1e-9) & (size >= 0.5 * prev))
             prev = size
             bad = ~np.isfinite(un) | (un < lo) | (un > hi)
-            u = np.where(active, np.where(bad, 0.5 * (lo + hi), un), u)
-            active &= ~(small | (hi - lo < 1e-15))
-    out[todo] = np.exp(u[todo])
+            u = np.where(bad, 0.5 * (lo + hi), un)
+            fin = small | (hi - lo < 1e-15)
+            if fin.any():
+                out[idx[fin]] = np.exp(u[fin])
+                keep = ~fin
+                idx, u, lo, hi, prev, ta = idx[keep], u[keep], lo[keep], hi[keep], prev[keep], ta[keep]
+        out[idx] = np.exp(u)  # still moving at the iteration cap: the last iterate
     return out
 
 
@@ -120,9 +128,11 @@ def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> t
     vm, km, ksi = (np.broadcast_to(np.asarray(a, float), tau.shape).ravel() for a in p)
     s0f = np.broadcast_to(s0, tau.shape).ravel()
 
-    def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        v, k, ki, a = vm, km, ksi, s0f
-        return (k * np.log(a / s) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
+    ls0 = np.log(np.where(s0f > 0, s0f, 1.0))
+
+    def g(s: np.ndarray, u: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        v, k, ki, a = vm[i], km[i], ksi[i], s0f[i]
+        return (k * (ls0[i] - u) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
 
     with np.errstate(all="ignore"):
         s = _newton(g, s0f, tau.ravel(), _mm_start(vm, km, s0f, tau.ravel()))
@@ -162,15 +172,18 @@ def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray,
         lsk = np.log(s0f / kh)
         e1 = kh * np.exp((1 - h) * lsk)  # K·(S0/K)^{1−h} = K^h·S0^{1−h}
 
+        ls0, lkh = np.log(np.where(s0f > 0, s0f, 1.0)), np.log(kh)
+
     def hh(s: np.ndarray, derivative: bool = False) -> tuple[np.ndarray, np.ndarray, Any]:
         lg = np.log(s0f / s)
         q, dq = _q((1 - h) * lg, derivative)
         return e1 * lg * q, lg, dq
 
-    def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        term, _, _ = hh(s)
-        u = np.exp(h * np.log(s / kh))
-        return (term + s0f - s) / vm, vm * u / (1 + u)
+    def g(s: np.ndarray, lns: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        lg, hi = ls0[i] - lns, h[i]
+        q, _ = _q((1 - hi) * lg, False)
+        u = np.exp(hi * (lns - lkh[i]))
+        return (e1[i] * lg * q + s0f[i] - s) / vm[i], vm[i] * u / (1 + u)
 
     with np.errstate(all="ignore"):
         floor = np.where(h < 1, (e1 / (1 - h) + s0f) / vm, np.inf)

@@ -23,6 +23,7 @@ import numpy as np
 from scipy import special
 from vzero.plugins.fit.curves import solver
 from vzero.plugins.fit.curves.curve import Wells, progress
+from vzero.plugins.fit.curves.profile import intervals as profile_intervals
 
 KINACT = "kinact"
 """Name of the first-order inactivation constant (1/s) when the recipe asks for it."""
@@ -199,17 +200,8 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
     n_wells = used.any(axis=2).sum(axis=1)
     results = _count_baselines(results, n_wells, confidence)
     if profile:
-        for name in [*getattr(model, "profile", ()), *((KINACT,) if kinact else ())]:
-            if name not in names or not free[names.index(name)]:
-                continue
-            limits = solver.profile(problem.func, problem.jac, x, y, w, results, name, all_bounds, confidence)
-            for r, (low, high, note) in enumerate(limits):
-                if not (results[r].success and results[r].errorbars):
-                    continue
-                params = dict(results[r].params)
-                params[name] = replace(params[name], ci_low=low, ci_high=high, ci_method="profile",
-                                       note="; ".join(filter(None, [params[name].note, note])))
-                results[r] = replace(results[r], params=params)
+        results = _profiles(problem, x, y, w, results, [*getattr(model, "profile", ()), *((KINACT,) if kinact else ())],
+                            names, free, all_bounds, lo, hi, confidence)
     with np.errstate(all="ignore"):
         p, _ = problem.curves([vals[:, j] for j in range(len(names))], np.arange(g))
         base = np.sum(np.where(used, arrays["y"] - p, 0.0), axis=2) / count[:, :, 0]
@@ -218,6 +210,36 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
         w_, t_ = c.y.shape
         out.append(CurveFit(results[r], p[r, :w_, :t_] + base[r, :w_, None], base[r, :w_]))
     return out
+
+
+def _profiles(problem: _Problem, x: dict[str, np.ndarray], y: np.ndarray, w: np.ndarray,
+              results: list[solver.FitResult], wanted: Sequence[str], names: Sequence[str], free: np.ndarray,
+              all_bounds: Mapping[str, tuple[float, float]], lo: np.ndarray, hi: np.ndarray, confidence: float
+              ) -> list[solver.FitResult]:
+    """``results`` with profile-likelihood intervals (:mod:`.profile`) for the free parameters in ``wanted``."""
+    profiled = [n for n in dict.fromkeys(wanted) if n in names and free[list(names).index(n)]]
+    if not profiled:
+        return results
+
+    def evaluate(v: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return problem._eval([v[:, j] for j in range(v.shape[1])], {"group": rows[:, None].astype(float)})
+
+    def general(name: str, rows: np.ndarray) -> list[tuple[float, float, str]]:
+        sub = {k: a[rows] for k, a in x.items()}
+        return solver.profile(problem.func, problem.jac, sub, y[rows], w[rows], [results[r] for r in rows], name,
+                              all_bounds, confidence)
+
+    limits = profile_intervals(evaluate, general, y, w, results, profiled, lo, hi, confidence)
+    results = list(results)
+    for name in profiled:
+        for r, (low, high, note) in enumerate(limits[name]):
+            if not (results[r].success and results[r].errorbars):
+                continue
+            params = dict(results[r].params)
+            params[name] = replace(params[name], ci_low=low, ci_high=high, ci_method="profile",
+                                   note="; ".join(filter(None, [params[name].note, note])))
+            results[r] = replace(results[r], params=params)
+    return results
 
 
 def f_quantile(confidence: float, dfn: int, dfd: int) -> float:
