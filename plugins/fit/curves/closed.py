@@ -123,8 +123,10 @@ def michaelis_menten_family(vp: Arr, kp: Arr, s0: np.ndarray, tau: np.ndarray
     return s, ds_dv, ds_dk
 
 
-def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
-    """S(τ) for v = V·S/(Km + S + S²/Ksi) and ∂S/∂(V, Km, Ksi)."""
+def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray, start: np.ndarray | None = None
+                         ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """S(τ) for v = V·S/(Km + S + S²/Ksi) and ∂S/∂(V, Km, Ksi); ``start`` (shape of ``tau``) a guess of S
+    for the Newton iteration, such as the curve at nearby parameters (default: the Michaelis-Menten curve)."""
     vm, km, ksi = (np.broadcast_to(np.asarray(a, float), tau.shape).ravel() for a in p)
     s0f = np.broadcast_to(s0, tau.shape).ravel()
 
@@ -135,7 +137,8 @@ def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> t
         return (k * (ls0[i] - u) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
 
     with np.errstate(all="ignore"):
-        s = _newton(g, s0f, tau.ravel(), _mm_start(vm, km, s0f, tau.ravel()))
+        guess = _mm_start(vm, km, s0f, tau.ravel()) if start is None else np.asarray(start, float).ravel()
+        s = _newton(g, s0f, tau.ravel(), guess)
         pos = s > 0
         v = vm * s / (km + s + s * s / ksi)
         lg = np.where(pos, np.log(s0f / np.where(pos, s, 1.0)), 0.0)
@@ -159,8 +162,10 @@ def _hill_start(vm: np.ndarray, kh: np.ndarray, h: np.ndarray, s0: np.ndarray, t
     return np.where(start > 0, np.minimum(start, s0), 0.5 * s0 * np.exp(-1.0))
 
 
-def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
-    """S(τ) for v = V·S^h/(K^h + S^h) and ∂S/∂(V, K0.5, h).
+def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray, start: np.ndarray | None = None
+         ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """S(τ) for v = V·S^h/(K^h + S^h) and ∂S/∂(V, K0.5, h); ``start`` (shape of ``tau``) a guess of S for the
+    Newton iteration, such as the curve at nearby parameters (default: a lower bound, see :func:`_hill_start`).
 
     With L = ln(S0/S) and x = (1 − h)·L, K^h·∫_S^S0 s^−h ds = K·e^{(1−h)ln(S0/K)}·L·q(x), q(x) = (1 − e^−x)/x,
     a form without overflow or cancellation at h = 1. For h < 1 the substrate runs out at the finite time
@@ -187,7 +192,8 @@ def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray,
 
     with np.errstate(all="ignore"):
         floor = np.where(h < 1, (e1 / (1 - h) + s0f) / vm, np.inf)
-        s = _newton(g, s0f, tau.ravel(), _hill_start(vm, kh, h, s0f, tau.ravel()), floor)
+        guess = _hill_start(vm, kh, h, s0f, tau.ravel()) if start is None else np.asarray(start, float).ravel()
+        s = _newton(g, s0f, tau.ravel(), guess, floor)
         pos = s > 0
         sp = np.where(pos, s, 1.0)
         term, lg, dq = hh(sp, True)

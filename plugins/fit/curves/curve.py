@@ -69,11 +69,13 @@ def _per_point(theta: Sequence[Arr], shape: tuple[int, ...]) -> list[np.ndarray]
                             if np.ndim(p) else np.asarray(p, float), shape) for p in theta]
 
 
-def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, route: str = "auto"
-              ) -> tuple[np.ndarray, list[np.ndarray]]:
+def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, route: str = "auto",
+              start: np.ndarray | None = None) -> tuple[np.ndarray, list[np.ndarray]]:
     """S and ∂S/∂θ (one array [n, n_time] per model parameter) at effective times ``tau``.
 
-    ``theta``: one scalar or array [n] per model parameter."""
+    ``theta``: one scalar or array [n] per model parameter; ``start`` [n, n_time] an optional guess of S for
+    the closed forms solved by iteration (Hill, substrate inhibition): the result does not depend on it
+    beyond rounding, only the number of iterations."""
     route = route_of(model) if route == "auto" else route
     shape = tau.shape
     if route == "closed":
@@ -84,9 +86,9 @@ def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, r
             s, ds_dv, ds_dk = closed.michaelis_menten_family(vp, kp, s0, tau)
             return s, [ds_dv * a + ds_dk * b for a, b in zip(dv, dk, strict=True)]
         if model.name == "hill":
-            return closed.hill(p, s0, tau)
+            return closed.hill(p, s0, tau, start)
         if model.name == "substrate-inhibition":
-            return closed.substrate_inhibition(p, s0, tau)
+            return closed.substrate_inhibition(p, s0, tau, start)
         raise ValueError(f"no closed form for model {model.name!r}")
     n = shape[0]
     per_well = [np.broadcast_to(np.asarray(q, float), (n,)) for q in theta]
@@ -105,12 +107,14 @@ def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, r
     return s, [z[:, :, j] for j in range(npar)]
 
 
-def progress(model: Any, theta: Sequence[Arr], wells: Wells, kinact: Arr | None = None, route: str = "auto"
-             ) -> tuple[np.ndarray, list[np.ndarray]]:
+def progress(model: Any, theta: Sequence[Arr], wells: Wells, kinact: Arr | None = None, route: str = "auto",
+             start: np.ndarray | None = None) -> tuple[np.ndarray, list[np.ndarray]]:
     """Product P = S0 − S [n, n_time] and ∂P/∂θ for each model parameter (then ∂P/∂k when ``kinact`` is
-    given): the curve a fit compares with the reads."""
+    given): the curve a fit compares with the reads. ``start``: an optional guess of P (see :func:`substrate`)."""
     tau, dtau = effective_time(wells, kinact)
-    s, ds = substrate(model, theta, wells, tau, route)
+    guess = None if start is None else np.clip(np.where(np.isfinite(start), wells.s0[:, None] - start, 0.0),
+                                               1e-6 * wells.s0[:, None], wells.s0[:, None])
+    s, ds = substrate(model, theta, wells, tau, route, guess)
     p = wells.s0[:, None] - s
     grads = [-d for d in ds]
     if dtau is not None:
