@@ -18,8 +18,9 @@ As the search converges the step Δt and the inner step δ both go to zero, and 
 where the inner problem is solved (remaining Gauss-Newton decrease below :data:`INNER_TOL` of the rise) and
 the Newton correction is below :data:`STEP_TOL` of the distance from the estimate. Steps are safeguarded
 by a bracket (bisection when a Newton step leaves it, at most a four-fold widening before a crossing is
-seen) and by the bounds (open: a step never lands on one). A side that stays below the level up to a bound,
-or beyond 2¹¹ Wald half-widths, is open (NaN). A search that does not converge within :data:`MAX_STEPS`
+seen) and by the bounds (open: a step never lands on one). A side that stays below the level up to a bound
+(to :data:`NEAR_BOUND` of the way), or beyond 2¹¹ Wald half-widths, is open (NaN); so is the side of an
+estimate that sits on its bound. A search that does not converge within :data:`MAX_STEPS`
 points is handed to the general profile search (:func:`.solver.profile`, an inner Levenberg-Marquardt run per
 point), so the result never depends on the shortcut having worked.
 """
@@ -48,6 +49,12 @@ INNER_TOL = 1e-8
 TO_BOUND = 0.9
 """Fraction of the way to a bound that a step crossing it moves instead (bounds are open)."""
 
+NEAR_BOUND = 1e-12
+"""A side still below the level this close to its bound (as a fraction of the estimate's distance from it),
+with the next step beyond the bound, is open. Each step there goes TO_BOUND of the way, so the distance
+shrinks tenfold per step: a parameter that spans decades (Km from 1e11 down to 200, where a poorly saturated
+design puts its profile) is followed down that far, in about a dozen steps."""
+
 FAR = 2.0**11
 """Wald half-widths beyond which a side still below the level is taken as open."""
 
@@ -68,7 +75,6 @@ def intervals(evaluate: Evaluate, general: Callable[[str, np.ndarray], list[tupl
     if g == 0:
         return out
     names = results[0].names
-    p = len(names)
     best = np.array([r.values for r in results], float)
     free = np.array([r.free for r in results], bool)
     dof = np.array([r.dof for r in results], float)
@@ -101,10 +107,10 @@ def intervals(evaluate: Evaluate, general: Callable[[str, np.ndarray], list[tupl
     theta = best[grp_a].copy()
     inside_d, outside_d = np.zeros(q_n), np.full(q_n, np.inf)
     limit = np.full(q_n, nan)
-    state = np.zeros(q_n, int)  # 0 searching, 1 converged, 2 open, 3 handed on
+    state = np.where(room > 0, 0, 2)  # 0 searching, 1 converged, 2 open (an estimate on its bound), 3 handed on
+    fresh = np.ones(q_n, bool)  # not evaluated yet: the first evaluation is at the estimate itself
     hold = ~free[grp_a]
     hold[np.arange(q_n), par_a] = True
-    eye = np.eye(p)
     with np.errstate(all="ignore"):
         for _ in range(MAX_STEPS + 1):
             rows = np.flatnonzero(state == 0)
@@ -116,24 +122,30 @@ def intervals(evaluate: Evaluate, general: Callable[[str, np.ndarray], list[tupl
             res = wr * (vals - y[gr])
             jw = np.where(np.isfinite(jac), jac, 0.0) * wr[:, :, None]
             jj = jw[np.arange(rows.size), :, par_a[rows]]  # [m, n]
-            jo = jw * ~hold[rows][:, None, :]
-            a = np.einsum("mnp,mnq->mpq", jo, jo) + hold[rows][:, :, None] * eye
-            rhs = np.stack([np.einsum("mnp,mn->mp", jo, res), np.einsum("mnp,mn->mp", jo, jj)], axis=2)
-            ok = np.all(np.isfinite(a), axis=(1, 2)) & np.all(np.isfinite(rhs), axis=(1, 2))
-            a[~ok], rhs[~ok] = eye, 0.0
-            try:
-                sol = -np.linalg.solve(a, rhs)
-            except np.linalg.LinAlgError:
-                sol = np.full(rhs.shape, nan)
-            delta, slope = sol[:, :, 0], sol[:, :, 1]
+            held = hold[rows]
+            delta, slope, gain, ok = _inner(jw, res, jj, held)
+            # an inner parameter whose step would cross its bound moves TO_BOUND of the way to it and is held
+            # there; the others take the Gauss-Newton step for what remains (the rule of the batched solver)
+            th = theta[rows]
+            blocked = ~held & ((th + delta <= lo) | (th + delta >= hi)) & ok[:, None]
+            if blocked.any():
+                again = blocked.any(axis=1)
+                held = held | blocked
+                move = np.where(blocked, np.where(th + delta <= lo, lo - th, hi - th) * TO_BOUND, 0.0)[again]
+                moved = res[again] + np.einsum("mnp,mp->mn", jw[again], move)
+                d2, s2, g2, ok2 = _inner(jw[again], moved, jj[again], held[again])
+                delta[again], slope[again], ok[again] = d2 + move, s2, ok2
+                gain[again] = np.einsum("mn,mn->m", res[again], res[again]) - (
+                    np.einsum("mn,mn->m", moved, moved) - g2)
+            sol = np.stack([delta, slope], axis=2)
             rss0 = np.einsum("mn,mn->m", res, res)
-            gain = -np.einsum("mp,mp->m", rhs[:, :, 0], delta)  # Gauss-Newton decrease, >= 0
-            rss = rss0 - gain
-            lin = res + np.einsum("mnp,mp->mn", jo, delta)
+            rss = rss0 - gain  # the Gauss-Newton estimate of the profile RSS
+            lin = res + np.einsum("mnp,mp->mn", jw, delta)  # δ is 0 for the profiled and fixed parameters
             d_rss = 2 * np.einsum("mn,mn->m", jj, lin) * sgn_a[rows]  # along the side's direction
             excess = np.sqrt(np.maximum(rss - rss_min[gr], 0.0))
             d_now = dist[rows]
-            first = d_now == 0
+            first = fresh[rows]
+            fresh[rows] = False
             good = ok & np.isfinite(rss) & np.isfinite(d_rss) & np.all(np.isfinite(sol), axis=(1, 2))
             # the bracket takes a point only where its side is certain: the true profile RSS lies between the
             # Gauss-Newton estimate and the start's RSS, up to the estimate's error (at most about the gain)
@@ -145,10 +157,14 @@ def intervals(evaluate: Evaluate, general: Callable[[str, np.ndarray], list[tupl
             lo_b, hi_b = inside_d[rows], outside_d[rows]
             step = (s_target[rows] - excess) * 2 * excess / d_rss  # Newton on s: ds/dd = d_rss / (2 s)
             newton = d_now + step
-            converged = good & ~first & (np.abs(step) <= STEP_TOL * d_now) & (gain <= INNER_TOL * rise[gr]) \
-                & (newton >= lo_b - STEP_TOL * d_now) & (newton <= hi_b + STEP_TOL * d_now)
+            # the scale of the limit: its distance from the estimate, or from the bound where that is smaller
+            scale = np.minimum(d_now, room[rows] - d_now)
+            converged = good & ~first & (np.abs(step) <= STEP_TOL * scale) & (gain <= INNER_TOL * rise[gr]) \
+                & (np.abs(excess - s_target[rows]) <= 1e-3 * s_target[rows]) \
+                & (newton >= lo_b - STEP_TOL * scale) & (newton <= hi_b + STEP_TOL * scale)
             # the bracket itself has closed on the limit
-            tight = ~converged & ~first & np.isfinite(hi_b) & (hi_b - lo_b <= STEP_TOL * hi_b)
+            tight = ~converged & ~first & np.isfinite(hi_b) \
+                & (hi_b - lo_b <= STEP_TOL * np.minimum(hi_b, room[rows] - lo_b))
             newton = np.where(tight, 0.5 * (lo_b + hi_b), newton)
             converged |= tight
             bracketed = np.isfinite(hi_b)
@@ -159,7 +175,7 @@ def intervals(evaluate: Evaluate, general: Callable[[str, np.ndarray], list[tupl
             # bounds are open: a step reaching one goes TO_BOUND of the way from the last point inside
             beyond = d_new >= room[rows]
             d_new = np.where(beyond, lo_b + TO_BOUND * (room[rows] - lo_b), d_new)
-            is_open = (~bracketed & ~first & beyond & (room[rows] - lo_b <= 1e-9 * room[rows])) \
+            is_open = (~bracketed & ~first & beyond & (room[rows] - lo_b <= NEAR_BOUND * room[rows])) \
                 | (~bracketed & (d_new > FAR * wald[rows]))
             failed = ~good  # the curves or the linear algebra not finite here: the general search takes over
             limit[rows[converged]] = (centre[rows] + sgn_a[rows] * newton)[converged]
@@ -173,7 +189,7 @@ def intervals(evaluate: Evaluate, general: Callable[[str, np.ndarray], list[tupl
             floor = np.where(np.isfinite(lo), lo + (1 - TO_BOUND) * (theta[rows] - lo), -np.inf)
             ceiling = np.where(np.isfinite(hi), hi - (1 - TO_BOUND) * (hi - theta[rows]), np.inf)
             nxt = np.clip(nxt, floor, ceiling)
-            nxt = np.where(hold[rows], theta[rows], nxt)
+            nxt = np.where(hold[rows], theta[rows], nxt)  # fixed parameters stay; blocked ones took their move
             nxt[np.arange(rows.size), par_a[rows]] = centre[rows] + sgn_a[rows] * d_new
             theta[rows[moving]], dist[rows[moving]] = nxt[moving], d_new[moving]
     state[state == 0] = 3
@@ -194,3 +210,25 @@ def intervals(evaluate: Evaluate, general: Callable[[str, np.ndarray], list[tupl
                     notes.append(f"{label} limit not reached (open interval)")
             out[name][r] = (float(low_high[0]), float(low_high[1]), "; ".join(notes))
     return out
+
+
+def _inner(jw: np.ndarray, res: np.ndarray, jj: np.ndarray, held: np.ndarray
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The Gauss-Newton step of the inner problem at each point: δ = −A⁻¹Joᵀr, the conditional slope
+    D = −A⁻¹JoᵀJj and the decrease rᵀJo·A⁻¹·Joᵀr (A = JoᵀJo over the parameters not ``held``), and whether
+    the system was finite. ``jw`` [m, n, p] weighted Jacobian, ``res`` [m, n] weighted residuals, ``jj``
+    [m, n] the profiled parameter's column."""
+    p = jw.shape[2]
+    eye = np.eye(p)
+    jo = jw * ~held[:, None, :]
+    a = np.einsum("mnp,mnq->mpq", jo, jo) + held[:, :, None] * eye
+    rhs = np.stack([np.einsum("mnp,mn->mp", jo, res), np.einsum("mnp,mn->mp", jo, jj)], axis=2)
+    ok = np.all(np.isfinite(a), axis=(1, 2)) & np.all(np.isfinite(rhs), axis=(1, 2))
+    a[~ok], rhs[~ok] = eye, 0.0
+    try:
+        sol = -np.linalg.solve(a, rhs)
+    except np.linalg.LinAlgError:
+        sol = np.full(rhs.shape, np.nan)
+    delta, slope = sol[:, :, 0], sol[:, :, 1]
+    gain = -np.einsum("mp,mp->m", rhs[:, :, 0], delta)
+    return delta, slope, gain, ok & np.all(np.isfinite(sol), axis=(1, 2))

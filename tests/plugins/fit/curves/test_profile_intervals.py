@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from scipy import special
 from scipy.integrate import solve_ivp
-from scipy.optimize import least_squares
+from scipy.optimize import least_squares, minimize_scalar
 from vzero.plugins.fit.catalog import BY_NAME
 from vzero.plugins.fit.curves.curve import Wells
 from vzero.plugins.fit.curves.fit import CurveGroup, fit_groups
@@ -34,13 +34,13 @@ def _curves(model: str, theta: np.ndarray, s0: np.ndarray) -> np.ndarray:
     return sol.y
 
 
-def _group(model: str, theta: list[float], seed: int) -> CurveGroup:
+def _group(model: str, theta: list[float], seed: int, s0: np.ndarray = S0) -> CurveGroup:
     rng = np.random.default_rng(seed)
-    y = _curves(model, np.array(theta), S0) + rng.uniform(0.0, 2.0, (S0.size, 1))
+    y = _curves(model, np.array(theta), s0) + rng.uniform(0.0, 2.0, (s0.size, 1))
     y += 0.4 * rng.standard_normal(y.shape)
-    n = S0.size
-    wells = Wells(S0, np.zeros(n), np.ones(n), np.tile(T, (n, 1)), np.full(n, 1 / 60))
-    rates = BY_NAME[model].evaluate(theta, {"substrate": S0})
+    n = s0.size
+    wells = Wells(s0, np.zeros(n), np.ones(n), np.tile(T, (n, 1)), np.full(n, 1 / 60))
+    rates = BY_NAME[model].evaluate(theta, {"substrate": s0})
     return CurveGroup("g", wells, y, np.ones(y.shape, bool), rates, [("P1", f"A{k + 1}") for k in range(n)])
 
 
@@ -81,3 +81,32 @@ def test_limits_lie_where_the_independent_profile_reaches_the_level(model: str, 
             # of the half-width moves the RSS by 2e-4 of the rise (the Wald limits here miss by 1-9 %)
             rss = _profile_rss(model, res.values, j, limit, g.y)
             assert rss == pytest.approx(level, abs=1e-4 * rise), (name, limit, (rss - level) / rise)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seed", [1, 3])
+def test_a_poorly_saturated_design_leaves_the_upper_km_limit_open(seed: int) -> None:
+    # substrate at most 1 % of Km: the curves fix Vmax/Km but not Km. The profile of Km stays below the level
+    # however large Km gets (open upper side); its lower limit still lies on the level. With Km held, the
+    # inner problem is one-dimensional (Vmax), minimised by scipy's minimize_scalar (Brent) here.
+    s0 = np.geomspace(1.0, 20.0, 6)
+    g = _group("michaelis-menten", [60.0, 2000.0], seed, s0)
+    res = fit_groups(BY_NAME["michaelis-menten"], [g])[0].result
+    km = res.params["Km"]
+    level = res.rss * (1 + special.fdtri(1, res.dof, 0.95) / res.dof)
+    rise = level - res.rss
+    ratio = res.values[0] / res.values[1]  # Vmax/Km, what these data determine
+
+    def profile(k: float) -> float:
+        def rss(log_v: float) -> float:
+            r = g.y - _curves("michaelis-menten", np.array([np.exp(log_v), k]), s0)
+            return float(np.sum((r - r.mean(axis=1, keepdims=True)) ** 2))
+
+        c = np.log(ratio * (k + s0.mean()))
+        return float(minimize_scalar(rss, bracket=(c - 0.5, c, c + 0.5), tol=1e-12).fun)
+
+    assert np.isnan(km.ci_high) and "upper limit not reached (open interval)" in km.note
+    assert profile(1e3 * km.value) < level
+    assert np.isfinite(km.ci_low) and km.ci_low < km.value
+    assert profile(km.ci_low) == pytest.approx(level, abs=1e-3 * rise)
+    assert profile(0.9 * km.ci_low) > level > profile(1.1 * km.ci_low)
