@@ -110,3 +110,25 @@ def test_a_poorly_saturated_design_leaves_the_upper_km_limit_open(seed: int) -> 
     assert np.isfinite(km.ci_low) and km.ci_low < km.value
     assert profile(km.ci_low) == pytest.approx(level, abs=1e-3 * rise)
     assert profile(0.9 * km.ci_low) > level > profile(1.1 * km.ci_low)
+
+
+def test_the_fast_search_gives_the_limits_of_the_general_one(monkeypatch: pytest.MonkeyPatch) -> None:
+    # the curve fit's own profile search (one evaluation per point) against the search the rate fits use (an
+    # inner Levenberg-Marquardt run per point), on three groups at once: the same limits to 1e-6 of the
+    # half-width, the same notes; the general search without its time budget (a busy machine must not decide)
+    from vzero.plugins.fit import engine
+    from vzero.plugins.fit.curves import fit as curve_fit
+
+    groups = [_group("hill", [6.0, 60.0, 1.8], seed=k) for k in range(3)]
+    fast = fit_groups(BY_NAME["hill"], groups)
+    monkeypatch.setattr(engine, "PROFILE_SECONDS", 1e6)
+    monkeypatch.setattr(curve_fit, "profile_intervals",
+                        lambda evaluate, general, y, w, results, profiled, *rest: {
+                            n: general(n, np.arange(len(results))) for n in profiled})
+    slow = fit_groups(BY_NAME["hill"], groups)
+    for a, b in zip(fast, slow, strict=True):
+        for name in BY_NAME["hill"].profile:
+            p, q = a.result.params[name], b.result.params[name]
+            half = q.ci_high - q.ci_low
+            assert p.note == q.note
+            np.testing.assert_allclose([p.ci_low, p.ci_high], [q.ci_low, q.ci_high], rtol=0, atol=1e-6 * half)
