@@ -30,6 +30,9 @@ Arr = Any
 NEWTON_TOL = 1e-14
 """Step in ln S at which the Newton iteration stops (relative change of S)."""
 NEWTON_MAX = 60
+QUADRATIC = 1e-8
+"""A Newton step in ln S below this, after one at least a thousand times larger, ends the iteration: the
+remaining error is about its square (1e-16)."""
 
 
 def _q(x: np.ndarray, derivative: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
@@ -93,9 +96,12 @@ def _newton(g: Callable[[np.ndarray, np.ndarray, np.ndarray], tuple[np.ndarray, 
             step = f * v / s  # Newton: f / (dG/du), with dG/du = −S/v
             un = u + step
             size = np.abs(step)
-            # converged: a step below the tolerance, or a small step that no longer shrinks (Newton has reached
-            # the rounding level of G itself, which for deep conversion lies above NEWTON_TOL)
-            small = (size <= NEWTON_TOL * np.maximum(1.0, np.abs(u))) | ((size < 1e-9) & (size >= 0.5 * prev))
+            # converged: a step below the tolerance; or a Newton step below QUADRATIC, after which the error is
+            # of the order of its square (Newton converges quadratically there), far below NEWTON_TOL; or a
+            # small step that no longer shrinks (the rounding level of G itself, which for deep conversion lies
+            # above NEWTON_TOL)
+            small = (size <= NEWTON_TOL * np.maximum(1.0, np.abs(u))) | ((size < 1e-9) & (size >= 0.5 * prev)) \
+                | ((size < QUADRATIC) & (size < 1e-3 * prev))
             prev = size
             bad = ~np.isfinite(un) | (un < lo) | (un > hi)
             u = np.where(bad, 0.5 * (lo + hi), un)

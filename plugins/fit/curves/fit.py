@@ -125,7 +125,8 @@ class _Problem:
         keys = [(int(r), pv[i].tobytes()) for i, r in enumerate(rows)]
         if len(self._store) > 8 * self.shape[0]:
             self._store.clear()  # bounded memory: the pairs of the last few iterations are all that recur
-        todo = [i for i, k in enumerate(keys) if k not in self._store]
+        first = {k: i for i, k in reversed(list(enumerate(keys)))}  # a pair asked for twice is computed once
+        todo = [i for k, i in first.items() if k not in self._store]
         if todo:
             sel = np.array(todo)
             p, grads = self.curves(list(pv[sel].T), rows[sel])
