@@ -15,14 +15,15 @@ evaluation instead of one inner least-squares run:
   D = −A⁻¹JoᵀJj (the path of the conditional optimum), so the Gauss-Newton step at the next point is small.
 
 As the search converges the step Δt and the inner step δ both go to zero, and the accepted limit is a point
-where the inner problem is solved (remaining Gauss-Newton decrease below :data:`INNER_TOL` of the rise) and
-the Newton correction is below :data:`STEP_TOL` of the distance from the estimate. Steps are safeguarded
-by a bracket (bisection when a Newton step leaves it, at most a four-fold widening before a crossing is
-seen) and by the bounds (open: a step never lands on one). A side that stays below the level up to a bound
-(to :data:`NEAR_BOUND` of the way), or beyond 2¹¹ Wald half-widths, is open (NaN); so is the side of an
-estimate that sits on its bound. A search that does not converge within :data:`MAX_STEPS`
-points is handed to the general profile search (:func:`.solver.profile`, an inner Levenberg-Marquardt run per
-point), so the result never depends on the shortcut having worked.
+at the level where the inner problem is solved (remaining Gauss-Newton decrease below :data:`INNER_TOL` of
+the rise) and the Newton correction is below :data:`STEP_TOL` of the limit's distance from the estimate (or
+from the bound, where that is smaller). Steps are safeguarded by a bracket (bisection when a Newton step
+leaves it, at most a four-fold widening before a crossing is seen) and by the bounds (open: a step never
+lands on one). A side that stays below the level up to a bound (to within :data:`NEAR_BOUND` of the
+estimate's distance from it), or beyond 2¹¹ Wald half-widths, is open (NaN); so is the side of an estimate
+that sits on its bound. A search that does not converge within :data:`MAX_STEPS` points is handed to the
+general profile search (:func:`.solver.profile`, an inner Levenberg-Marquardt run per point), so the result
+never depends on the shortcut having worked.
 """
 
 from __future__ import annotations
@@ -41,7 +42,8 @@ MAX_STEPS = 30
 """Profile points per side before the search is handed to the general profile search."""
 
 STEP_TOL = 1e-7
-"""A limit is accepted when the Newton correction is below this fraction of its distance from the estimate."""
+"""A limit is accepted when the Newton correction is below this fraction of its distance from the estimate
+(or from the bound, where that is smaller)..."""
 
 INNER_TOL = 1e-8
 """... and the inner Gauss-Newton step would lower the RSS by less than this fraction of target − RSS_min."""
@@ -52,8 +54,8 @@ TO_BOUND = 0.9
 NEAR_BOUND = 1e-12
 """A side still below the level this close to its bound (as a fraction of the estimate's distance from it),
 with the next step beyond the bound, is open. Each step there goes TO_BOUND of the way, so the distance
-shrinks tenfold per step: a parameter that spans decades (Km from 1e11 down to 200, where a poorly saturated
-design puts its profile) is followed down that far, in about a dozen steps."""
+shrinks tenfold per step: a parameter that spans decades (Km from 1e11 down to about 100, where a poorly
+saturated design puts its profile) is followed down that far, in about a dozen steps."""
 
 FAR = 2.0**11
 """Wald half-widths beyond which a side still below the level is taken as open."""
