@@ -32,6 +32,9 @@ Arr = Any
 NEWTON_TOL = 1e-14
 """Step in ln S at which the Newton iteration stops (relative change of S)."""
 NEWTON_MAX = 60
+QUADRATIC = 1e-8
+"""A Newton step in ln S below this, after one at least a thousand times larger, ends the iteration: the
+remaining error is about its square (1e-16)."""
 
 
 def _q(x: np.ndarray, derivative: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
@@ -58,13 +61,15 @@ def _mm_start(vm: np.ndarray, km: np.ndarray, s0: np.ndarray, tau: np.ndarray) -
     return np.where(np.isfinite(s) & (s > 0), np.minimum(s, s0), 0.5 * s0)
 
 
-def _newton(g: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.ndarray, tau: np.ndarray,
-            start: np.ndarray, g_floor: np.ndarray | None = None) -> np.ndarray:
-    """Root S in (0, S0] of G(S) = tau, G decreasing from G(S0) = 0; ``g(S)`` returns (G, v(S)).
+def _newton(g: Callable[[np.ndarray, np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.ndarray,
+            tau: np.ndarray, start: np.ndarray, g_floor: np.ndarray | None = None) -> np.ndarray:
+    """Root S in (0, S0] of G(S) = tau, G decreasing from G(S0) = 0; ``g(S, ln S, idx)`` returns (G, v(S)) at
+    the points ``idx`` (flat indices into ``s0``) only.
 
     Newton's method in u = ln S (dG/du = −S/v) inside a bracket [lo, hi] that shrinks with every
     evaluation; a step leaving the bracket is replaced by bisection. ``g_floor`` is G(0+) when finite (the
-    substrate runs out in finite time): S = 0 where tau reaches it.
+    substrate runs out in finite time): S = 0 where tau reaches it. Each iteration works on the points still
+    iterating only (most converge in a few steps, a few deep-conversion points take more).
     """
     s0 = np.asarray(s0, float)
     out = np.array(s0, float, copy=True)
@@ -73,32 +78,41 @@ def _newton(g: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], s0: np.nda
         gone = todo & (tau >= g_floor)
         out[gone] = 0.0
         todo &= ~gone
-    hi = np.log(np.where(s0 > 0, s0, 1.0))
+    idx = np.flatnonzero(todo)
+    a0 = s0[idx]
+    hi = np.log(a0)
     lo = hi - 745.0  # below the smallest positive double relative to S0
-    u = np.log(np.clip(np.where(todo, start, s0), s0 * 1e-300, s0).clip(1e-320))
-    u = np.where(todo, np.minimum(u, hi), hi)
-    active = todo.copy()
+    u = np.minimum(np.log(np.clip(start[idx], a0 * 1e-300, a0).clip(1e-320)), hi)
+    ta = tau[idx]
     prev = np.full(u.shape, np.inf)
     with np.errstate(all="ignore"):
         for _ in range(NEWTON_MAX):
-            if not active.any():
+            if idx.size == 0:
                 break
             s = np.exp(u)
-            gv, v = g(s)
-            f = gv - tau
-            lo = np.where(active & (f > 0), u, lo)
-            hi = np.where(active & (f <= 0), u, hi)
+            gv, v = g(s, u, idx)
+            f = gv - ta
+            up = f > 0
+            lo = np.where(up, u, lo)
+            hi = np.where(up, hi, u)
             step = f * v / s  # Newton: f / (dG/du), with dG/du = −S/v
             un = u + step
             size = np.abs(step)
-            # converged: a step below the tolerance, or a small step that no longer shrinks (Newton has reached
-            # the rounding level of G itself, which for deep conversion lies above NEWTON_TOL)
-            small = (size <= NEWTON_TOL * np.maximum(1.0, np.abs(u))) | ((size < 1e-9) & (size >= 0.5 * prev))
+            # converged: a step below the tolerance; or a Newton step below QUADRATIC, after which the error is
+            # of the order of its square (Newton converges quadratically there), far below NEWTON_TOL; or a
+            # small step that no longer shrinks (the rounding level of G itself, which for deep conversion lies
+            # above NEWTON_TOL)
+            small = (size <= NEWTON_TOL * np.maximum(1.0, np.abs(u))) | ((size < 1e-9) & (size >= 0.5 * prev)) \
+                | ((size < QUADRATIC) & (size < 1e-3 * prev))
             prev = size
             bad = ~np.isfinite(un) | (un < lo) | (un > hi)
-            u = np.where(active, np.where(bad, 0.5 * (lo + hi), un), u)
-            active &= ~(small | (hi - lo < 1e-15))
-    out[todo] = np.exp(u[todo])
+            u = np.where(bad, 0.5 * (lo + hi), un)
+            fin = small | (hi - lo < 1e-15)
+            if fin.any():
+                out[idx[fin]] = np.exp(u[fin])
+                keep = ~fin
+                idx, u, lo, hi, prev, ta = idx[keep], u[keep], lo[keep], hi[keep], prev[keep], ta[keep]
+        out[idx] = np.exp(u)  # still moving at the iteration cap: the last iterate
     return out
 
 
@@ -147,8 +161,11 @@ def michaelis_menten_product(vp: Arr, kp: Arr, kprod: Arr, s0: np.ndarray, tau: 
                                                                   s0b * np.exp(-vp * t / big_a)))
         start = np.where(np.isfinite(s) & (s > 0), np.minimum(s, s0b), 0.5 * s0b)
 
-        def g(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-            return (big_a * np.log(s0b / x) + alpha * (s0b - x)) / vp, vp * x / (big_a + alpha * x)
+        ls0 = np.log(np.where(pos, s0b, 1.0))
+
+        def g(x: np.ndarray, u: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            a, al, v = big_a[i], alpha[i], vp[i]
+            return (a * (ls0[i] - u) + al * (s0b[i] - x)) / v, v * x / (a + al * x)
 
         # where the Lambert value has underflowed to 0 the substrate is gone to rounding: keep 0 there
         gone = np.where(np.isfinite(s) & (s == 0) & pos, t, np.inf)
@@ -163,17 +180,22 @@ def michaelis_menten_product(vp: Arr, kp: Arr, kprod: Arr, s0: np.ndarray, tau: 
     return s.reshape(shape), [np.where(ok, di, 0.0).reshape(shape) for di in d]
 
 
-def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
-    """S(τ) for v = V·S/(Km + S + S²/Ksi) and ∂S/∂(V, Km, Ksi)."""
+def substrate_inhibition(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray, start: np.ndarray | None = None
+                         ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """S(τ) for v = V·S/(Km + S + S²/Ksi) and ∂S/∂(V, Km, Ksi); ``start`` (shape of ``tau``) a guess of S
+    for the Newton iteration, such as the curve at nearby parameters (default: the Michaelis-Menten curve)."""
     vm, km, ksi = (np.broadcast_to(np.asarray(a, float), tau.shape).ravel() for a in p)
     s0f = np.broadcast_to(s0, tau.shape).ravel()
 
-    def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        v, k, ki, a = vm, km, ksi, s0f
-        return (k * (np.log(a) - np.log(s)) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
+    ls0 = np.log(np.where(s0f > 0, s0f, 1.0))
+
+    def g(s: np.ndarray, u: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        v, k, ki, a = vm[i], km[i], ksi[i], s0f[i]
+        return (k * (ls0[i] - u) + (a - s) + (a * a - s * s) / (2 * ki)) / v, v * s / (k + s + s * s / ki)
 
     with np.errstate(all="ignore"):
-        s = _newton(g, s0f, tau.ravel(), _mm_start(vm, km, s0f, tau.ravel()))
+        guess = _mm_start(vm, km, s0f, tau.ravel()) if start is None else np.asarray(start, float).ravel()
+        s = _newton(g, s0f, tau.ravel(), guess)
         pos = s > 0
         v = vm * s / (km + s + s * s / ksi)
         lg = np.where(pos, np.log(s0f) - np.log(np.where(pos, s, 1.0)), 0.0)
@@ -197,8 +219,10 @@ def _hill_start(vm: np.ndarray, kh: np.ndarray, h: np.ndarray, s0: np.ndarray, t
     return np.where(start > 0, np.minimum(start, s0), 0.5 * s0 * np.exp(-1.0))
 
 
-def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
-    """S(τ) for v = V·S^h/(K^h + S^h) and ∂S/∂(V, K0.5, h).
+def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray, start: np.ndarray | None = None
+         ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """S(τ) for v = V·S^h/(K^h + S^h) and ∂S/∂(V, K0.5, h); ``start`` (shape of ``tau``) a guess of S for the
+    Newton iteration, such as the curve at nearby parameters (default: a lower bound, see :func:`_hill_start`).
 
     With L = ln(S0/S) and x = (1 − h)·L, K^h·∫_S^S0 s^−h ds = K·e^{(1−h)ln(S0/K)}·L·q(x), q(x) = (1 − e^−x)/x,
     a form without overflow or cancellation at h = 1. For h < 1 the substrate runs out at the finite time
@@ -210,19 +234,23 @@ def hill(p: Sequence[Arr], s0: np.ndarray, tau: np.ndarray) -> tuple[np.ndarray,
         lsk = np.log(s0f / kh)
         e1 = kh * np.exp((1 - h) * lsk)  # K·(S0/K)^{1−h} = K^h·S0^{1−h}
 
+        ls0, lkh = np.log(np.where(s0f > 0, s0f, 1.0)), np.log(kh)
+
     def hh(s: np.ndarray, derivative: bool = False) -> tuple[np.ndarray, np.ndarray, Any]:
         lg = np.log(s0f) - np.log(s)  # not log(S0/S): the ratio overflows where S has fallen below 1e-308·S0
         q, dq = _q((1 - h) * lg, derivative)
         return e1 * lg * q, lg, dq
 
-    def g(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        term, _, _ = hh(s)
-        u = np.exp(h * np.log(s / kh))
-        return (term + s0f - s) / vm, vm * u / (1 + u)
+    def g(s: np.ndarray, lns: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        lg, hi = ls0[i] - lns, h[i]
+        q, _ = _q((1 - hi) * lg, False)
+        u = np.exp(hi * (lns - lkh[i]))
+        return (e1[i] * lg * q + s0f[i] - s) / vm[i], vm[i] * u / (1 + u)
 
     with np.errstate(all="ignore"):
         floor = np.where(h < 1, (e1 / (1 - h) + s0f) / vm, np.inf)
-        s = _newton(g, s0f, tau.ravel(), _hill_start(vm, kh, h, s0f, tau.ravel()), floor)
+        guess = _hill_start(vm, kh, h, s0f, tau.ravel()) if start is None else np.asarray(start, float).ravel()
+        s = _newton(g, s0f, tau.ravel(), guess, floor)
         pos = s > 0
         sp = np.where(pos, s, 1.0)
         term, lg, dq = hh(sp, True)

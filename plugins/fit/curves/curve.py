@@ -20,6 +20,8 @@ nothing it does not declare.
 
 from __future__ import annotations
 
+import functools
+import inspect
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -76,8 +78,8 @@ def _per_point(theta: Sequence[Arr], shape: tuple[int, ...]) -> list[np.ndarray]
                             if np.ndim(p) else np.asarray(p, float), shape) for p in theta]
 
 
-def _closed(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, kprod: Arr | None
-            ) -> tuple[np.ndarray, list[np.ndarray]]:
+def _closed(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, kprod: Arr | None,
+            start: np.ndarray | None = None) -> tuple[np.ndarray, list[np.ndarray]]:
     shape = tau.shape
     p = _per_point(theta, shape)
     s0 = np.broadcast_to(wells.s0[:, None], shape)
@@ -94,20 +96,33 @@ def _closed(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, kpr
     if integrated is None or kprod is not None:
         raise ValueError(f"model {model.name!r} declares no closed-form progress curve"
                          + (" with product inhibition" if kprod is not None else ""))
-    s, grads = integrated(p, s0, tau)
+    s, grads = integrated(p, s0, tau) if start is None or not _takes_start(integrated) else \
+        integrated(p, s0, tau, start)
     return s, list(grads)
 
 
+@functools.lru_cache(maxsize=64)
+def _takes_start(fn: Any) -> bool:
+    """Whether a declared closed form accepts ``start``, a guess of S for its Newton iteration (the built-in
+    Hill and substrate-inhibition forms do; a plugin's need not)."""
+    try:
+        return "start" in inspect.signature(fn).parameters
+    except (TypeError, ValueError):
+        return False
+
+
 def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, route: str = "auto",
-              kprod: Arr | None = None) -> tuple[np.ndarray, list[np.ndarray]]:
+              kprod: Arr | None = None, start: np.ndarray | None = None) -> tuple[np.ndarray, list[np.ndarray]]:
     """S and ∂S/∂θ (one array [n, n_time] per model parameter, then ∂S/∂Kp with product inhibition) at
     effective times ``tau``.
 
     ``theta``: one scalar or array [n] per model parameter; ``kprod``: the product's inhibition constant
-    (scalar or [n], substrate's unit) or None for no product inhibition."""
+    (scalar or [n], substrate's unit) or None for no product inhibition; ``start`` [n, n_time] an optional
+    guess of S for the closed forms solved by iteration (Hill, substrate inhibition): the result does not
+    depend on it beyond rounding, only the number of iterations."""
     route = route_of(model, kprod is not None) if route == "auto" else route
     if route == "closed":
-        return _closed(model, theta, wells, tau, kprod)
+        return _closed(model, theta, wells, tau, kprod, start)
     n = tau.shape[0]
     per_well = [np.broadcast_to(np.asarray(q, float), (n,)) for q in theta]
     if kprod is not None:
@@ -133,13 +148,17 @@ def substrate(model: Any, theta: Sequence[Arr], wells: Wells, tau: np.ndarray, r
 
 
 def progress(model: Any, theta: Sequence[Arr], wells: Wells, kinact: Arr | None = None, route: str = "auto",
-             kprod: Arr | None = None, scale_grad: bool = False) -> tuple[np.ndarray, list[np.ndarray]]:
+             kprod: Arr | None = None, scale_grad: bool = False, start: np.ndarray | None = None
+             ) -> tuple[np.ndarray, list[np.ndarray]]:
     """Product P = S0 − S [n, n_time] and its derivatives: ∂P/∂θ for each model parameter, then ∂P/∂Kp
     (when ``kprod`` is given), ∂P/∂k (when ``kinact`` is given) and ∂P/∂ln c = v·τ, the derivative in the
     logarithm of the well's rate scale (when ``scale_grad``: an activity factor f of the well's enzyme
-    multiplies c, so ∂P/∂f = v·τ/f): the curve a fit compares with the reads."""
+    multiplies c, so ∂P/∂f = v·τ/f): the curve a fit compares with the reads. ``start``: an optional guess
+    of P (see :func:`substrate`)."""
     tau, dtau = effective_time(wells, kinact)
-    s, ds = substrate(model, theta, wells, tau, route, kprod)
+    guess = None if start is None else np.clip(np.where(np.isfinite(start), wells.s0[:, None] - start, 0.0),
+                                               1e-6 * wells.s0[:, None], wells.s0[:, None])
+    s, ds = substrate(model, theta, wells, tau, route, kprod, guess)
     p = wells.s0[:, None] - s
     grads = [-d for d in ds]
     if dtau is not None or scale_grad:

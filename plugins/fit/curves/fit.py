@@ -24,9 +24,10 @@ from typing import Any
 
 import numpy as np
 from scipy import special
-from vzero.plugins.fit.curves import solver
+from vzero.plugins.fit.curves import solver, start
 from vzero.plugins.fit.curves.curve import Wells, progress
 from vzero.plugins.fit.curves.product import KP
+from vzero.plugins.fit.curves.profile import intervals as profile_intervals
 
 KINACT = "kinact"
 """Name of the first-order inactivation constant (1/s) when the recipe asks for it."""
@@ -112,6 +113,8 @@ class _Problem:
         self.shape = arrays["y"].shape
         self.count = np.maximum(arrays["used"].sum(axis=2, keepdims=True), 1)
         self._store: dict[tuple[int, bytes], tuple[np.ndarray, np.ndarray]] = {}
+        self._last = np.zeros(self.shape)  # each group's latest curve: the next integration's first guess
+        self._seen = np.zeros(self.shape[0], bool)
 
     def curves(self, params: Sequence[np.ndarray], rows: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
         """Uncentred P [k, W, T] and ∂P/∂θ for the groups ``rows``."""
@@ -128,12 +131,18 @@ class _Problem:
             factor = np.where(lot == j, flat[first + j - 1], factor)
         wells = Wells(a["s0"][rows].ravel(), a["inhibitor"][rows].ravel(), a["enzyme"][rows].ravel(),
                       a["time"][rows].reshape(g * nw, nt), a["scale"][rows].ravel() * factor)
-        p, grads = progress(self.model, flat[:n_model], wells, kin, self.route, kq, scale_grad=self.n_lots > 1)
+        # the curves at the group's last parameters start the closed forms' Newton iteration (nearby
+        # parameters, nearby curves: fewer iterations; the result is the same to rounding)
+        guess = self._last[rows].reshape(g * nw, nt) if self._seen[rows].all() else None
+        p, grads = progress(self.model, flat[:n_model], wells, kin, self.route, kq, scale_grad=self.n_lots > 1,
+                            start=guess)
         if self.n_lots > 1:
             vtau = grads.pop()  # ∂P/∂ln(rate scale); ∂P/∂f_L = v·τ/f_L on the wells of lot L
             with np.errstate(all="ignore"):
                 grads += [np.where((lot == j)[:, None], vtau / factor[:, None], 0.0) for j in range(1, self.n_lots)]
-        return p.reshape(g, nw, nt), [d.reshape(g, nw, nt) for d in grads]
+        p = p.reshape(g, nw, nt)
+        self._last[rows], self._seen[rows] = p, True
+        return p, [d.reshape(g, nw, nt) for d in grads]
 
     def _eval(self, params: Sequence[np.ndarray], x: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
         """Centred curves [k, n] and Jacobian [k, n, p] for the groups in ``x``. Each (group, parameters) pair
@@ -145,7 +154,8 @@ class _Problem:
         keys = [(int(r), pv[i].tobytes()) for i, r in enumerate(rows)]
         if len(self._store) > 8 * self.shape[0]:
             self._store.clear()  # bounded memory: the pairs of the last few iterations are all that recur
-        todo = [i for i, k in enumerate(keys) if k not in self._store]
+        first = {k: i for i, k in reversed(list(enumerate(keys)))}  # a pair asked for twice is computed once
+        todo = [i for k, i in first.items() if k not in self._store]
         if todo:
             sel = np.array(todo)
             p, grads = self.curves(list(pv[sel].T), rows[sel])
@@ -239,6 +249,8 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
         p0[r] = [(fixed or {}).get(n, (starts or {}).get(n, guess[j] if j < len(guess) else 0.0))
                  for j, n in enumerate(names)]
     p0 = np.clip(p0, lo, hi)
+    if not starts:  # start values the recipe gives are taken as they are
+        p0 = start.from_rates(model, groups, p0, free, lo, hi)
     vals, resid, jm, converged, nfev = solver.levenberg_marquardt(problem.func, problem.jac, x, y, w, p0, free,
                                                                   (lo, hi), max_iter)
     role = {n: (units or {}).get(n, "") for n in names}
@@ -246,17 +258,8 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
     n_wells = used.any(axis=2).sum(axis=1)
     results = _count_baselines(results, n_wells, confidence)
     if profile:
-        for name in [*getattr(model, "profile", ()), *((KP,) if product else ()), *((KINACT,) if kinact else ())]:
-            if name not in names or not free[names.index(name)]:
-                continue
-            limits = solver.profile(problem.func, problem.jac, x, y, w, results, name, all_bounds, confidence)
-            for r, (low, high, note) in enumerate(limits):
-                if not (results[r].success and results[r].errorbars):
-                    continue
-                params = dict(results[r].params)
-                params[name] = replace(params[name], ci_low=low, ci_high=high, ci_method="profile",
-                                       note="; ".join(filter(None, [params[name].note, note])))
-                results[r] = replace(results[r], params=params)
+        wanted = [*getattr(model, "profile", ()), *((KP,) if product else ()), *((KINACT,) if kinact else ())]
+        results = _profiles(problem, x, y, w, results, wanted, names, free, all_bounds, lo, hi, confidence)
     with np.errstate(all="ignore"):
         p, _ = problem.curves([vals[:, j] for j in range(len(names))], np.arange(g))
         base = np.sum(np.where(used, arrays["y"] - p, 0.0), axis=2) / count[:, :, 0]
@@ -265,6 +268,36 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
         w_, t_ = c.y.shape
         out.append(CurveFit(results[r], p[r, :w_, :t_] + base[r, :w_, None], base[r, :w_]))
     return out
+
+
+def _profiles(problem: _Problem, x: dict[str, np.ndarray], y: np.ndarray, w: np.ndarray,
+              results: list[solver.FitResult], wanted: Sequence[str], names: Sequence[str], free: np.ndarray,
+              all_bounds: Mapping[str, tuple[float, float]], lo: np.ndarray, hi: np.ndarray, confidence: float
+              ) -> list[solver.FitResult]:
+    """``results`` with profile-likelihood intervals (:mod:`.profile`) for the free parameters in ``wanted``."""
+    profiled = [n for n in dict.fromkeys(wanted) if n in names and free[list(names).index(n)]]
+    if not profiled:
+        return results
+
+    def evaluate(v: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return problem._eval([v[:, j] for j in range(v.shape[1])], {"group": rows[:, None].astype(float)})
+
+    def general(name: str, rows: np.ndarray) -> list[tuple[float, float, str]]:
+        sub = {k: a[rows] for k, a in x.items()}
+        return solver.profile(problem.func, problem.jac, sub, y[rows], w[rows], [results[r] for r in rows], name,
+                              all_bounds, confidence)
+
+    limits = profile_intervals(evaluate, general, y, w, results, profiled, lo, hi, confidence)
+    results = list(results)
+    for name in profiled:
+        for r, (low, high, note) in enumerate(limits[name]):
+            if not (results[r].success and results[r].errorbars):
+                continue
+            params = dict(results[r].params)
+            params[name] = replace(params[name], ci_low=low, ci_high=high, ci_method="profile",
+                                   note="; ".join(filter(None, [params[name].note, note])))
+            results[r] = replace(results[r], params=params)
+    return results
 
 
 def f_quantile(confidence: float, dfn: int, dfd: int) -> float:

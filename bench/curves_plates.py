@@ -1,0 +1,121 @@
+"""Benchmark: curve fits against the two-step route on the rates benchmark's realistic plates.
+
+Run on demand (never part of the tests):  python -m bench.curves_plates [--draws N] [--only a,b]
+
+The plates are those of :mod:`bench.accuracy` (:mod:`bench.plates`: Radau-integrated curves, plate drift,
+enzyme-free background, blanks per condition, read noise, spikes, rounding, a detector ceiling, a lag and
+inactivation where the scenario has them). Both routes get what the pipeline would give them: reads minus
+the mean of the blanks of the same condition (:func:`bench.accuracy.blank_corrected`), the substrate and
+inhibitor per well and the signal per concentration.
+
+* two-step: the default rate method (``model-choice``) per well, the wells the fit stage leaves out by
+  default removed, then the scenario's rate law fitted to each draw's rates (:func:`bench.accuracy.fit_params`,
+  as the rates benchmark does);
+* curves: :func:`vzero.plugins.fit.curves.fit.fit_groups` on each draw's blank-corrected reads converted to
+  concentration (reads at the ceiling are missing and left out; wells the curve stage excludes by default,
+  by the rate method's flags, are left out), without profile intervals, the recipe's defaults otherwise (no
+  inactivation, no lag: the curve model knows neither).
+
+Printed: the RMSE of each parameter relative to its truth (%) for both routes, their ratio, and the share of
+draws with the parameter within 5 % of the truth. Invented data for benchmarking only.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+from vzero.plugins.fit.catalog import BY_NAME  # noqa: E402
+from vzero.plugins.fit.curves.curve import Wells  # noqa: E402
+from vzero.plugins.fit.curves.fit import CurveGroup, fit_groups  # noqa: E402
+from vzero.plugins.fit.curves.stage import CURVE_EXCLUDE  # noqa: E402
+from vzero.plugins.kinetics.flags import from_names  # noqa: E402
+
+from bench.accuracy import DEFAULT, DEFAULT_EXCLUDE, METHODS, blank_corrected, fit_params  # noqa: E402
+from bench.plates import Scenario, draw, integrate, scenarios  # noqa: E402
+
+MODEL = {"mm": "michaelis-menten", "hill": "hill", "si": "substrate-inhibition", "competitive": "competitive"}
+"""The catalog model of each simulator rate law; parameters in the simulator's order (vmax, km, h or ki)."""
+
+CURVE_EXCLUDED = from_names(";".join(CURVE_EXCLUDE))
+
+
+def evaluate(sc: Scenario, n_draws: int, seed: int = 1) -> dict[str, np.ndarray]:
+    """Parameters [n_draws, n_params] of both routes on ``n_draws`` plates of ``sc`` (NaN where a fit failed)."""
+    truth = integrate(sc)
+    d = draw(sc, truth, n_draws, seed=seed)
+    t = sc.time
+    n_c = sc.s0.size
+    y = blank_corrected(sc, d.sample, d.blank)  # [n_draws, n_c, n_time]
+    v0, flags, _ = METHODS[DEFAULT](t, y.reshape(n_draws * n_c, t.size), np.tile(sc.s0, n_draws), sc.spc)
+    saturated = (~np.isfinite(d.sample)).any(axis=2)
+    v0, flags = v0.reshape(n_draws, n_c) / sc.spc, flags.reshape(n_draws, n_c)
+    keep = (flags & DEFAULT_EXCLUDE) == 0
+    two = np.stack([fit_params(sc, v0[k], keep[k] & ~saturated[k]) for k in range(n_draws)])
+    model = BY_NAME[MODEL[sc.law]]
+    conc = y / sc.spc  # mM of product, baseline left to the fit
+    groups = []
+    wells = Wells(sc.s0, sc.inh, np.ones(n_c), np.tile(t, (n_c, 1)), np.ones(n_c))  # rates in mM/s
+    for k in range(n_draws):
+        use = ((flags[k] & CURVE_EXCLUDED) == 0)[:, None] & np.isfinite(conc[k])
+        rates = np.where(keep[k], v0[k], np.nan)
+        groups.append(CurveGroup(f"d{k}", wells, conc[k], use, rates, [("P", f"W{i}") for i in range(n_c)]))
+    out = {"two-step": two}
+    for label, kinact in (("curves", False), ("curves, inactivation: true", True)):
+        if kinact and sc.k_inact == 0:
+            continue
+        fits = fit_groups(model, groups, profile=False, kinact=kinact)
+        out[label] = np.array([f.result.values[:len(model.params)] if f.result.success
+                               else np.full(len(model.params), np.nan) for f in fits])
+    return out
+
+
+def _cell(rel: np.ndarray) -> tuple[float, str]:
+    """RMSE of relative errors ``rel`` and its table cell: RMSE %, share within 5 %, failed fits."""
+    failed = int(np.sum(~np.isfinite(rel)))
+    rmse = float(np.sqrt(np.nanmean(rel**2)))
+    within = float(np.mean(np.abs(np.nan_to_num(rel, nan=np.inf)) <= 0.05))
+    return rmse, f"{100 * rmse:.3g} ({100 * within:.0f} %{f', {failed} failed' if failed else ''})"
+
+
+def rows(sc: Scenario, est: dict[str, np.ndarray]) -> list[str]:
+    """Markdown rows: per parameter, RMSE (%) of the two-step route and of each curve variant, the ratio and
+    the share of draws within 5 %."""
+    truth = np.array([sc.params[k] for k in sc.fit_names])
+    model = BY_NAME[MODEL[sc.law]]
+    out = []
+    for route in [r for r in est if r != "two-step"]:
+        label = sc.name if route == "curves" else f"{sc.name} ({route.split(', ')[1]})"
+        for j, name in enumerate(model.params):
+            r2, c2 = _cell(est["two-step"][:, j] / truth[j] - 1.0)
+            rc, cc = _cell(est[route][:, j] / truth[j] - 1.0)
+            out.append(f"| {label} | {name} | {truth[j]:g} | {c2} | {cc} | {r2 / rc:.2g}x |")
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--draws", type=int, default=200, help="noise draws per scenario")
+    ap.add_argument("--only", default=None, help="comma-separated scenario names")
+    args = ap.parse_args(argv)
+    print(f"{args.draws} noise draws per scenario (`python -m bench.curves_plates --draws {args.draws}`)\n")
+    print("| scenario | parameter | truth | RMSE two-step (%) (within 5 %) | RMSE curves (%) (within 5 %) "
+          "| two-step / curves |\n|---|---|---|---|---|---|", flush=True)
+    for sc in scenarios():
+        if args.only and sc.name not in args.only.split(","):
+            continue
+        t0 = time.perf_counter()
+        est = evaluate(sc, args.draws)
+        print("\n".join(rows(sc, est)), flush=True)
+        print(f"<!-- {sc.name}: {time.perf_counter() - t0:.0f} s -->", flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
