@@ -76,9 +76,10 @@ class FitStage(Stage):
         "group_by": Param("str", "group", "column whose values define the groups fitted separately"),
         "exclude_flags": Param("list", list(DEFAULT_EXCLUDE), "wells carrying any of these flags are not fitted",
                                choices=FLAG_CHOICES),
-        "weighting": Param.choice(("none", "relative", "replicate"), "none",
+        "weighting": Param.choice(("none", "relative", "replicate", "rate-error"), "none",
                                   "none: equal weights; relative: sigma proportional to the rate; replicate: "
-                                  "sigma from the scatter of replicate wells at each level"),
+                                  "sigma from the scatter of replicate wells at each level; rate-error: sigma from "
+                                  "each rate's own standard error combined with 3 % of the rate"),
         "fixed": Param("mapping", {}, "model -> parameter -> value held fixed", check=_numbers_by_model),
         "bounds": Param("mapping", {}, "model -> parameter -> [low, high]", check=_numbers_by_model),
         "start": Param("mapping", {}, "model -> parameter -> start value (default: estimated from the data)",

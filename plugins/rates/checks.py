@@ -34,12 +34,13 @@ def mark_decay(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: 
                signal_per_conc: float | None, modelled: bool, min_points: int = 8,
                depletion_order: float = DEPLETION_ORDER) -> RateResult:
     """DECAY where the rate falls faster than depletion explains (module text), and UNMODELLED as well where
-    the method does not model decay (``modelled`` False). Wells without a rate are not checked. Returns a new
+    the method does not model decay (``modelled`` False). Wells without a rate are not checked, except those whose
+    fit failed (a decay is then the likely reason). Returns a new
     result (the same one when nothing is found or s0/signal_per_conc are unknown)."""
     if s0 is None or signal_per_conc is None:
         return result
     v0 = np.asarray(result.v0, dtype=float)
-    rows = np.flatnonzero(np.isfinite(v0))
+    rows = np.flatnonzero(np.isfinite(v0) | ((np.asarray(result.flags) & int(Flag.FIT_FAILED)) != 0))
     if rows.size == 0:
         return result
     y = np.array(signal, dtype=float, ndmin=2)[rows]

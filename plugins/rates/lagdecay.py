@@ -97,12 +97,14 @@ def detect_lag(
 
     A lag is called when the first block's slope is below ``(1 - min_rise)`` times the steepest block's and
     the difference exceeds ``z`` standard errors, or when the first reads lie significantly below the
-    steady-rate line (:func:`vzero.plugins.rates.earlylag.early_lag`, for lags shorter than a block; single-read
-    spikes are masked for that test); ``early`` False leaves that test out. ``start_index`` is the middle read of the first block whose
-    slope is within ``max(settle * steepest, 2 SE)`` of the steepest (where the steady state begins; 0 when
-    no lag; at most ``n_time - 2 * width`` so that a window remains). ``lag_s`` is where the steepest
-    block's line meets the baseline (the first block's line at the first read); 0 without lag, NaN for
-    unusable wells.
+    steady-rate line (:func:`vzero.plugins.rates.earlylag.early_lag`, for lags shorter than a block;
+    single-read spikes are masked for that test); ``early`` False leaves that test out.
+
+    ``start_index`` is the middle read of the first block whose slope is within ``max(settle * steepest,
+    2 SE)`` of the steepest (where the steady state begins; 0 when no lag; at most ``n_time - 2 * width`` so
+    that a window remains); for a lag only the early test finds, the knee's read. ``lag_s`` is where the
+    steepest block's line meets the baseline (the first block's line at the first read), or for a short lag
+    where the steady line meets the starting level; 0 without lag, NaN for unusable wells.
     """
     n_w, n_t = y.shape
     start = np.zeros(n_w, dtype=np.int64)
