@@ -51,10 +51,11 @@ def _failed(model: Model, n: int, reason: str) -> engine.FitResult:
                             np.full((p, p), nan), False, reason, np.full(p, nan), np.ones(p, bool))
 
 
-#: Proportional term of ``rate-error`` weighting: each rate's sigma is ``sqrt(SE² + (share · |rate|)²)``, so
-#: that a rate measured to 0.1 % by a whole-curve fit still carries the few-percent errors that read noise
-#: does not show (pipetting, enzyme dilution; our choice, measured in docs/fitting.md "Weighting").
-RATE_ERROR_SHARE = 0.03
+#: Default proportional term of ``rate-error`` weighting (recipe: ``rate_error_share``): each rate's sigma is
+#: ``sqrt(SE² + (share · |rate|)²)``, so that a rate measured to 0.1 % by a whole-curve fit still carries errors
+#: that read noise does not show (pipetting, enzyme dilution). 1 % was the best of 0-10 % on the benchmark
+#: (docs/fitting.md, "Weighting"); a lab that knows its pipetting CV should give that.
+RATE_ERROR_SHARE = 0.01
 
 
 def rate_error_sigma(y: np.ndarray, stderr: np.ndarray, share: float = RATE_ERROR_SHARE) -> tuple[np.ndarray, str]:
@@ -72,11 +73,11 @@ def rate_error_sigma(y: np.ndarray, stderr: np.ndarray, share: float = RATE_ERRO
     return np.sqrt(se**2 + (share * np.abs(y)) ** 2), note
 
 
-def _sigma(weighting: str, y: np.ndarray, levels: np.ndarray,
-           stderr: np.ndarray | None = None) -> tuple[np.ndarray | None, str]:
+def _sigma(weighting: str, y: np.ndarray, levels: np.ndarray, stderr: np.ndarray | None = None,
+           share: float = RATE_ERROR_SHARE) -> tuple[np.ndarray | None, str]:
     """Per-point standard deviations for one group (None: equal weights) and a note when falling back."""
     if weighting == "rate-error":
-        sig, note = rate_error_sigma(y, np.full(y.shape, np.nan) if stderr is None else stderr)
+        sig, note = rate_error_sigma(y, np.full(y.shape, np.nan) if stderr is None else stderr, share)
         return (None if not np.all(np.isfinite(sig)) else sig), note
     if weighting == "relative":
         # sigma proportional to the rate; floored at 5 % of the largest |rate| so near-zero rates do not
@@ -349,7 +350,7 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
                 continue
             sig, note = _sigma(cfg["weighting"], y, np.unique(
                 np.stack([xv[v][idx] for v in model.variables], axis=1), axis=0, return_inverse=True)[1],
-                rate_se[idx])
+                rate_se[idx], float(cfg["rate_error_share"]))
             if note:
                 extra_notes[key] = note
                 data.warn(f"fit: group {g}, {model.name}: {note}")
