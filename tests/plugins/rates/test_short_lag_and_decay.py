@@ -126,3 +126,20 @@ def test_depletion_alone_is_not_decay() -> None:
     p = simulate_plate(T, s0, 0.5, 2e-3, signal_per_conc=SPC, baseline=0.05, noise=0.001, seed=9)
     for method in (rates.WindowRates, rates.AutoRates, rates.PolynomialRates, rates.ProgressRates):
         assert not _has(run_stage(method, p.signal, s0), "decay").any(), method.method
+
+
+def test_the_decay_prescreen_changes_no_flag(monkeypatch: pytest.MonkeyPatch) -> None:
+    # the quick pre-screen only spares wells the decay fit would not flag: the same flags without it, on
+    # decaying, clean and strongly depleting wells (k from 0 to 3e-3 /s, S0 from 0.2 to 20 mM)
+    from vzero.plugins.kinetics.rate_result import RateResult
+    from vzero.plugins.rates import checks
+
+    s0 = np.tile([0.2, 0.5, 2.0, 20.0], 5)
+    k = np.repeat([0.0, 5e-4, 1e-3, 2e-3, 3e-3], 4)
+    p = simulate_plate(T, s0, 0.5, 4e-4, k_inact=k, signal_per_conc=SPC, baseline=0.05, noise=0.001, seed=12)
+    bare = RateResult(v0=np.ones(s0.size))
+    with_screen = checks.mark_decay(T, p.signal, bare, s0=s0, signal_per_conc=SPC, modelled=False)
+    monkeypatch.setattr(checks, "_falling", lambda t, y, *a: np.ones(y.shape[0], dtype=bool))
+    without = checks.mark_decay(T, p.signal, bare, s0=s0, signal_per_conc=SPC, modelled=False)
+    np.testing.assert_array_equal(with_screen.flags, without.flags)
+    assert (np.asarray(without.flags)[k >= 2e-3] != 0).any()  # the comparison is not empty
