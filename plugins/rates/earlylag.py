@@ -24,9 +24,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-#: One-sided threshold of the largest hinge t over the knees. Chosen on the benchmark's clean plates (seven
-#: scenarios without a lag, 200 noise draws each, every method's input): it fires on 0.3 % of those wells
-#: (docs/rates.md, "Flags: measured"); with white noise and one knee a t above 3.5 has a chance of 2e-4.
+#: One-sided threshold of the largest hinge t over the knees (our choice), measured on the benchmark's clean
+#: plates (seven scenarios without a lag, 200 noise draws each, blank-corrected reads, ``python -m bench.flags
+#: --lags``): the lag detection fires on 0.1 % of those wells (docs/rates.md, "Flags: measured"); with white noise and
+#: one knee a t above 3.5 has a chance of 2e-4.
 EARLY_LAG_Z = 3.5
 
 

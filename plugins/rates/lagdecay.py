@@ -22,7 +22,7 @@ import dataclasses
 import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
-from vzero.plugins.rates.earlylag import EarlyLag, early_lag
+from vzero.plugins.rates.earlylag import early_lag
 from vzero.plugins.rates.noise import (
     Screen,
     blank_result,
@@ -97,8 +97,8 @@ def detect_lag(
 
     A lag is called when the first block's slope is below ``(1 - min_rise)`` times the steepest block's and
     the difference exceeds ``z`` standard errors, or when the first reads lie significantly below the
-    steady-rate line (:func:`vzero.plugins.rates.earlylag.early_lag`, for lags shorter than a block;
-    single-read spikes are masked for that test); ``early`` False leaves that test out.
+    steady-rate line (:func:`vzero.plugins.rates.earlylag.early_lag`, for lags shorter than a block);
+    ``early`` False leaves that test out. Single-read spikes are masked for both tests.
 
     ``start_index`` is the middle read of the first block whose slope is within ``max(settle * steepest,
     2 SE)`` of the steepest (where the steady state begins; 0 when no lag; at most ``n_time - 2 * width`` so
@@ -113,7 +113,11 @@ def detect_lag(
     width = max(4, n_t // 8)
     if n_t < 3 * width:
         return start, lag_s, has
-    short = _early(t, y, sc) if early else None
+    spikes = find_spikes(t, y, sc.sigma)
+    if spikes.any():  # a lone outlier early on would look like a slow (or fast) first block
+        y = np.where(spikes, np.nan, y)
+        sc = dataclasses.replace(sc, valid=sc.valid & ~spikes)
+    short = early_lag(t, y, sc.sigma, sc.change, sc.usable) if early else None
     slope, ybar, tbar, inv_sxx = _block_lines(t, y, sc.valid, width)
     d = np.sign(sc.change)[:, None]
     so = d * slope
@@ -144,13 +148,6 @@ def detect_lag(
         lag_s[only] = short.lag_s[only]
         has = has | short.has
     return start, lag_s, has
-
-
-def _early(t: np.ndarray, y: np.ndarray, sc: Screen) -> EarlyLag:
-    """:func:`vzero.plugins.rates.earlylag.early_lag` on the reads with single-read spikes masked."""
-    spikes = find_spikes(t, y, sc.sigma)
-    reads = np.where(spikes, np.nan, y) if spikes.any() else y
-    return early_lag(t, reads, sc.sigma, sc.change, sc.usable)
 
 
 def mark_lags(time: np.ndarray, signal: np.ndarray, result: RateResult, *, modelled: bool,
