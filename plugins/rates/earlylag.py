@@ -5,13 +5,14 @@ The block comparison of :func:`vzero.plugins.rates.lagdecay.detect_lag` needs a 
 later reads follow. Over the first ``W`` reads (:func:`window_reads`) each well is fitted with a line plus a
 hinge at read ``k``::
 
-    y = a + b t + c min(t - t_k, 0)        for k = 2 .. K
+    y = a + b t + c min(t - t_k, 0)        for k = 3 .. K
 
 so the rate is ``b + c`` before read ``k`` and ``b`` after it (``c`` < 0 for a rising signal: a lag). The
 statistic is the hinge's t value, ``-sign(change) c / SE(c)``, with SE from the robust read noise of
 :func:`vzero.plugins.rates.noise.screen`; a lag is called when its largest value over ``k`` exceeds
-:data:`EARLY_LAG_Z`. Substrate depletion bends the curve the other way (early reads above the line), so it
-never raises the statistic; it only hides a lag in a well that depletes fast.
+:data:`EARLY_LAG_Z` in a well whose steady change per read is at least :data:`MIN_STEP` read noises.
+Substrate depletion bends the curve the other way (early reads above the line), so it never raises the
+statistic; it only hides a lag in a well that depletes fast.
 
 All wells and knees are solved at once: with every read finite the design is the same for every well, so each
 ``c`` is one row of a pseudo-inverse applied to the reads; wells with missing reads get their own 3 x 3 normal
@@ -24,11 +25,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-#: One-sided threshold of the largest hinge t over the knees (our choice), measured on the benchmark's clean
-#: plates (seven scenarios without a lag, 200 noise draws each, blank-corrected reads, ``python -m bench.flags
-#: --lags``): the lag detection fires on 0.1 % of those wells (docs/rates.md, "Flags: measured"); with white noise and
-#: one knee a t above 3.5 has a chance of 2e-4.
-EARLY_LAG_Z = 3.5
+#: One-sided threshold of the largest hinge t over the knees (our choice; 3.5 flagged a chance run of low
+#: first reads in one of the demo's 324 sample wells). On white noise it fires on 0.06-0.08 % of clean wells
+#: (61-120 reads); on the benchmark's clean plates (seven scenarios without a lag, 200 noise draws each,
+#: blank-corrected reads) see ``python -m bench.flags --lags`` and docs/rates.md, "Flags: measured".
+EARLY_LAG_Z = 4.0
+
+
+#: Steady change per read, in read noises, below which a well is not tested: there even a lag at half the
+#: steady rate for three reads is found in under a third of wells (docs/rates.md, "Flags: measured"), so the
+#: test would add mostly false alarms (our choice).
+MIN_STEP = 2.0
 
 
 def window_reads(n_time: int) -> int:
@@ -67,7 +74,7 @@ def early_lag(
     usable: np.ndarray,
     *,
     z: float = EARLY_LAG_Z,
-    first_knee: int = 2,
+    first_knee: int = 3,
 ) -> EarlyLag:
     """Test the first reads of every well against the steady-rate line (module text).
 
@@ -116,7 +123,8 @@ def early_lag(
         zmax = tstat[rows, best]
         b = coef[rows, best, 1]
         c = coef[rows, best, 2]
-        has = usable & (zmax > z) & (d[:, 0] * b > 0)
+        step = d[:, 0] * b * float(np.median(np.diff(t[:w])))  # steady change per read
+        has = usable & (zmax > z) & (step >= MIN_STEP * sigma)
         ratio = (b + c) / b
         tk = t[knees[best]] - t[0]
         lag = np.where(has, -c * tk / b, np.where(usable, 0.0, np.nan))
