@@ -32,6 +32,7 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 from scipy.optimize import OptimizeWarning, curve_fit  # noqa: E402
 from vzero.plugins.blank.matching import plan_blanks  # noqa: E402
+from vzero.plugins.fit.run import RATE_ERROR_SHARE, rate_error_sigma  # noqa: E402
 from vzero.plugins.fit.stage import DEFAULT_EXCLUDE as FIT_DEFAULT_EXCLUDE  # noqa: E402
 from vzero.plugins.kinetics.flags import Flag, from_names  # noqa: E402
 
@@ -89,8 +90,8 @@ def blank_corrected(sc: Scenario, sample: np.ndarray, blank: np.ndarray) -> np.n
 
 
 def fit_params(sc: Scenario, v: np.ndarray, keep: np.ndarray, se: np.ndarray | None = None) -> np.ndarray:
-    """Parameters (``sc.fit_names``) fitted to one draw's rates in mM/s (weighted by 1/se² when ``se`` is
-    given); NaN when the fit fails."""
+    """Parameters (``sc.fit_names``) fitted to one draw's rates in mM/s (weighted by 1/se² when ``se``, the
+    rates' sigmas, is given); NaN when the fit fails."""
     names = sc.fit_names
     ok = keep & np.isfinite(v)
     if se is not None:
@@ -141,8 +142,14 @@ def evaluate(sc: Scenario, n_draws: int, methods: dict[str, Method], seed: int =
     return {"scenario": sc, "truth": truth, "results": out}
 
 
+#: Shares of the rate combined with its SE in ``rate-error`` weighting that the comparison tries: the fit
+#: stage's default (:data:`vzero.plugins.fit.run.RATE_ERROR_SHARE`) and 3 %; the environment variable
+#: ``BENCH_RATE_ERROR_SHARES`` (comma-separated fractions) tries others.
+SHARES = tuple(float(x) for x in os.environ.get("BENCH_RATE_ERROR_SHARES", f"{RATE_ERROR_SHARE},0.03").split(","))
+
 #: How the parameters are fitted from the rates, for the weighting comparison (docs/fitting.md).
-WEIGHTINGS = ("unweighted", "weighted by 1/SE²", "insignificant rates left out")
+WEIGHTINGS = ("unweighted", "weighted by 1/SE²", *(f"rate-error, {100 * f:g} %" for f in SHARES),
+              "insignificant rates left out")
 
 
 def weighting_row(ev: dict, method: str) -> str:
@@ -161,11 +168,15 @@ def _weighted(sc: Scenario, r: dict) -> dict[str, np.ndarray]:
     v, se, keep = r["v0"] / sc.spc, r["se"] / abs(sc.spc), r["keep"]
     with np.errstate(invalid="ignore", divide="ignore"):
         significant = np.abs(v / se) >= 2.0
-    return {
+    out = {
         WEIGHTINGS[0]: r["params"],
         WEIGHTINGS[1]: np.stack([fit_params(sc, v[k], keep[k], se[k]) for k in range(n)]),
-        WEIGHTINGS[2]: np.stack([fit_params(sc, v[k], keep[k] & significant[k]) for k in range(n)]),
     }
+    for j, share in enumerate(SHARES):
+        sig = np.stack([rate_error_sigma(v[k], se[k], share)[0] for k in range(n)])
+        out[WEIGHTINGS[2 + j]] = np.stack([fit_params(sc, v[k], keep[k], sig[k]) for k in range(n)])
+    out[WEIGHTINGS[-1]] = np.stack([fit_params(sc, v[k], keep[k] & significant[k]) for k in range(n)])
+    return out
 
 
 def _pct(x: float) -> str:
@@ -224,9 +235,9 @@ def _tables(ev: dict) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_section(path: Path, text: str) -> None:
-    """Replace the marked accuracy section of ``path`` with ``text``."""
-    start, end = "<!-- accuracy:start -->", "<!-- accuracy:end -->"
+def write_section(path: Path, text: str, name: str = "accuracy") -> None:
+    """Replace the section of ``path`` marked ``<!-- name:start -->`` ... ``<!-- name:end -->`` with ``text``."""
+    start, end = f"<!-- {name}:start -->", f"<!-- {name}:end -->"
     doc = path.read_text()
     if start not in doc or end not in doc:
         raise SystemExit(f"{path}: no {start} ... {end} markers to replace")

@@ -76,9 +76,13 @@ class FitStage(Stage):
         "group_by": Param("str", "group", "column whose values define the groups fitted separately"),
         "exclude_flags": Param("list", list(DEFAULT_EXCLUDE), "wells carrying any of these flags are not fitted",
                                choices=FLAG_CHOICES),
-        "weighting": Param.choice(("none", "relative", "replicate"), "none",
+        "weighting": Param.choice(("none", "relative", "replicate", "rate-error"), "none",
                                   "none: equal weights; relative: sigma proportional to the rate; replicate: "
-                                  "sigma from the scatter of replicate wells at each level"),
+                                  "sigma from the scatter of replicate wells at each level; rate-error: sigma from "
+                                  "each rate's own standard error combined with rate_error_share of the rate"),
+        "rate_error_share": Param("float", 0.01, "with weighting: rate-error, the share of each rate added (in "
+                                  "quadrature) to its standard error: errors the read noise does not show, such as "
+                                  "pipetting (0: weights 1/SE²)", low=0.0, high=1.0),
         "fixed": Param("mapping", {}, "model -> parameter -> value held fixed", check=_numbers_by_model),
         "bounds": Param("mapping", {}, "model -> parameter -> [low, high]", check=_numbers_by_model),
         "start": Param("mapping", {}, "model -> parameter -> start value (default: estimated from the data)",

@@ -104,15 +104,19 @@ class KernelRates(RateMethod):
         func = getattr(importlib.import_module(module), name)
         kwargs = {k: self._value(k) for k in self.kernel_params}
         result = func(time, signal, s0=s0, signal_per_conc=per, **kwargs)
-        from vzero.plugins.rates.lagdecay import mark_lags
+        from vzero.plugins.rates.checks import shared_checks
 
-        if self.finds_lags():
-            return result
-        return mark_lags(time, signal, result, modelled=False, min_points=int(self.settings.get("min_points", 8)))
+        return shared_checks(time, signal, result, s0=s0, signal_per_conc=per, finds_lags=self.finds_lags(),
+                             models_decay=self.models_decay(), min_points=int(self.settings.get("min_points", 8)))
 
     def finds_lags(self) -> bool:
         """Whether the kernel looks for lags itself and models the wells that have one (then it sets LAG; else
         :func:`vzero.plugins.rates.lagdecay.mark_lags` flags them LAG and UNMODELLED after the kernel)."""
+        return False
+
+    def models_decay(self) -> bool:
+        """Whether the kernel models a loss of activity itself (then it sets DECAY; else
+        :func:`vzero.plugins.rates.checks.mark_decay` flags such wells DECAY and UNMODELLED after the kernel)."""
         return False
 
     def _value(self, key: str) -> Any:
@@ -175,6 +179,10 @@ class ModelChoiceRates(KernelRates):
     def finds_lags(self) -> bool:
         """Wells with a detected lag get the lag model (LAG) unless ``find_lag`` is off."""
         return bool(self.settings["find_lag"])
+
+    def models_decay(self) -> bool:
+        """Wells whose rate falls faster than depletion explains get the first-order decay model (DECAY)."""
+        return True
 
 
 class PolynomialRates(KernelRates):
@@ -239,18 +247,24 @@ class LagDecayRates(KernelRates):
         """The rate is taken after any detected lag (LAG): always."""
         return True
 
+    def models_decay(self) -> bool:
+        """v0 is extrapolated back through first-order decay (DECAY): always."""
+        return True
+
 
 class WindowRates(RateMethod):
     """Least-squares slope over a fixed time window given in the recipe, with its standard error and R².
 
     Simple and transparent, but a straight line through a curving progress curve underestimates v0: use it
-    when the window is known to be within the linear, low-conversion part of every curve.
+    when the window is known to be within the linear, low-conversion part of every curve. With the substrate
+    and ``signal_per_conc`` (or ``standards``) a loss of activity is checked as for every method (DECAY).
     """
 
     method = "window"
     version = "1.0"
     summary = "least-squares slope over a fixed window"
     params = {
+        **CONVERSION_PARAMS,
         "start": Param.quantity("s", "0 s", "window start"),
         "end": Param.quantity("s", "120 s", "window end"),
     }
@@ -261,9 +275,15 @@ class WindowRates(RateMethod):
         start, end = self.settings["start"].m_as("s"), self.settings["end"].m_as("s")
         if end <= start:
             raise StageError(f"rates window ends ({end} s) before it starts ({start} s); fix start and end")
-        from vzero.plugins.rates.lagdecay import mark_lags
+        from vzero.plugins.rates.checks import shared_checks
 
-        return mark_lags(time, signal, window_slopes(time, signal, start, end), modelled=False)
+        settings = own_calibration(plate, signal, self.settings)
+        s0, per = conversion(plate, settings, lambda _m: None)
+        if per is None:
+            plate.warn("window: no signal_per_conc (or epsilon and pathlength) given: a loss of activity "
+                       "(decay) is not checked")
+        return shared_checks(time, signal, window_slopes(time, signal, start, end), s0=s0, signal_per_conc=per,
+                             finds_lags=False, models_decay=False)
 
 
 @hookimpl

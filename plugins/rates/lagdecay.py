@@ -22,6 +22,7 @@ import dataclasses
 import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
+from vzero.plugins.rates.earlylag import early_lag
 from vzero.plugins.rates.noise import (
     Screen,
     blank_result,
@@ -33,6 +34,7 @@ from vzero.plugins.rates.noise import (
 )
 from vzero.plugins.rates.polynomial import masked_polyfit
 from vzero.plugins.rates.progress import fit_wells
+from vzero.plugins.rates.spikes import find_spikes
 
 
 def _block_lines(
@@ -89,15 +91,20 @@ def detect_lag(
     min_rise: float = 0.2,
     z: float = 6.0,
     settle: float = 0.02,
+    early: bool = True,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Find lag phases. Returns ``(start_index, lag_s, has_lag)`` per well.
 
     A lag is called when the first block's slope is below ``(1 - min_rise)`` times the steepest block's and
-    the difference exceeds ``z`` standard errors. ``start_index`` is the middle read of the first block whose
-    slope is within ``max(settle * steepest, 2 SE)`` of the steepest (where the steady state begins; 0 when
-    no lag; at most ``n_time - 2 * width`` so that a window remains). ``lag_s`` is where the steepest
-    block's line meets the baseline (the first block's line at the first read); 0 without lag, NaN for
-    unusable wells.
+    the difference exceeds ``z`` standard errors, or when the first reads lie significantly below the
+    steady-rate line (:func:`vzero.plugins.rates.earlylag.early_lag`, for lags shorter than a block);
+    ``early`` False leaves that test out. Single-read spikes are masked for both tests.
+
+    ``start_index`` is the middle read of the first block whose slope is within ``max(settle * steepest,
+    2 SE)`` of the steepest (where the steady state begins; 0 when no lag; at most ``n_time - 2 * width`` so
+    that a window remains); for a lag only the early test finds, the knee's read. ``lag_s`` is where the
+    steepest block's line meets the baseline (the first block's line at the first read), or for a short lag
+    where the steady line meets the starting level; 0 without lag, NaN for unusable wells.
     """
     n_w, n_t = y.shape
     start = np.zeros(n_w, dtype=np.int64)
@@ -106,6 +113,11 @@ def detect_lag(
     width = max(4, n_t // 8)
     if n_t < 3 * width:
         return start, lag_s, has
+    spikes = find_spikes(t, y, sc.sigma)
+    if spikes.any():  # a lone outlier early on would look like a slow (or fast) first block
+        y = np.where(spikes, np.nan, y)
+        sc = dataclasses.replace(sc, valid=sc.valid & ~spikes)
+    short = early_lag(t, y, sc.sigma, sc.change, sc.usable) if early else None
     slope, ybar, tbar, inv_sxx = _block_lines(t, y, sc.valid, width)
     d = np.sign(sc.change)[:, None]
     so = d * slope
@@ -130,6 +142,11 @@ def detect_lag(
     with np.errstate(invalid="ignore", divide="ignore"):
         lag = tbar[rows, jmax] - (ybar[rows, jmax] - base) / slope[rows, jmax]
     lag_s = np.where(has, lag, lag_s)
+    if short is not None:
+        only = short.has & ~has
+        start[only] = np.minimum(short.knee[only], n_t - 2 * width)
+        lag_s[only] = short.lag_s[only]
+        has = has | short.has
     return start, lag_s, has
 
 
@@ -180,6 +197,7 @@ def lag_decay(
     z: float = 3.0,
     fail_ratio: float = 3.0,
     max_iter: int = 60,
+    depletion_order: float = 1.0,
 ) -> RateResult:
     """Steady-state rate after any lag, extrapolated back through any first-order decay.
 
@@ -187,7 +205,8 @@ def lag_decay(
     is none), in signal/s, from the first-order-decay fit over all later reads. Flags: LAG (with ``lag_s``);
     DECAY (see module text; needs s0 and signal_per_conc); FIT_FAILED when the fit does not converge or its
     residual RMS exceeds ``fail_ratio`` times the read noise. ``extra``: ``k_decay`` (1/s),
-    ``k_decay_stderr``, ``rmse_over_noise``.
+    ``k_decay_stderr``, ``rmse_over_noise``. ``depletion_order`` n: the fastest fall that depletion is allowed
+    to explain is ``(1 - x)^n`` (1: Michaelis–Menten; a Hill enzyme's rate falls up to ``(1 - x)^h``).
     """
     t, y = check_inputs(time, signal)
     n_w = y.shape[0]
@@ -241,7 +260,7 @@ def lag_decay(
             x_end = np.abs(f_end[:, 0] - fit.params[:, 0]) / full[todo]
             k_low = k - z * se[:, 2]
             with np.errstate(invalid="ignore", over="ignore"):
-                decay = (k_low > 0) & (np.exp(-k_low * span_t) < 1.0 - x_end)
+                decay = (k_low > 0) & (np.exp(-k_low * span_t) < (1.0 - np.fmin(x_end, 1.0)) ** depletion_order)
             out["flags"][todo[decay & ~failed]] |= int(Flag.DECAY)
         out["window_start_s"][todo] = ts[todo]
         last = t.size - 1 - np.argmax(ww[:, ::-1] > 0, axis=1)
