@@ -36,7 +36,12 @@ def fixed_texts(h: Any, arr: np.ndarray) -> None:
     text; a value is its bytes up to the last non-NUL one, as numpy reads it back) is encoded without the
     plain twin's search for distinct values: a column holding one text throughout (a plate, a unit, a
     method) is that text repeated; a short one is encoded value by value; any other is gathered at once
-    from its stored bytes. Other arrays go to the plain twin."""
+    from its stored bytes. A short array of text objects (an attribute's list) is encoded value by value too;
+    other arrays go to the plain twin."""
+    if arr.dtype.kind == "O" and 0 < arr.size < 64:  # a short list of text (an attribute): no search either
+        h.update(b"".join([len(e).to_bytes(8, "little") + e for e in
+                           (v if isinstance(v, bytes) else str(v).encode("utf-8") for v in arr.ravel().tolist())]))
+        return
     if arr.dtype.kind != "S" or arr.size == 0:
         plain_texts(h, arr)
         return

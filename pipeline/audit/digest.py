@@ -72,7 +72,7 @@ def value_bytes(h: Any, value: Any, texts: Callable[[Any, np.ndarray], None] = p
     else:
         little = arr.dtype.newbyteorder("<")
         h.update(little.str.encode())
-        h.update(np.ascontiguousarray(arr, dtype=little).tobytes())
+        h.update(np.ascontiguousarray(arr, dtype=little).reshape(-1).view(np.uint8))
 
 
 def object_digest(obj: Any, known: Mapping[str, bytes] | None = None, memo: dict[Any, bytes] | None = None) -> bytes:
@@ -148,6 +148,8 @@ class _Attrs:
     def __setitem__(self, name: str, value: Any) -> None:
         self._node.set_attr(name, value)
         self._node.recorded[name] = value if isinstance(value, str | bytes | np.ndarray) else np.asarray(value)
+        if name != DIGEST_ATTR:  # (the stored digest is not itself hashed)
+            self._node.dataset_digest = None
 
     def __getitem__(self, name: str) -> Any:
         return self._node.h5.attrs[name]
@@ -180,6 +182,7 @@ class Recorder:
         self.known: dict[str, bytes] = {}
         self.recorded: dict[str, Any] = {}
         self.hashed: Any = None  # a dataset's hash so far ("D" and its value), once settled
+        self.dataset_digest: bytes | None = None  # a dataset's digest once computed, until an attribute changes
         self.attrs = _Attrs(self)
 
     def __getattr__(self, name: str) -> Any:  # anything else (name, id, ...) is the HDF5 object's
@@ -230,6 +233,8 @@ class Recorder:
 
     def digest(self, memo: dict[int, bytes] | None = None) -> bytes:
         """What :func:`object_digest` gives for this object once written."""
+        if self.dataset_digest is not None:  # a dataset reached again (a hard link: the final tables)
+            return self.dataset_digest
         memo = {} if memo is None else memo
         if id(self) in memo:
             return memo[id(self)]
@@ -249,4 +254,6 @@ class Recorder:
                 _name(h, name)
                 value_bytes(h, self.recorded[name], self.texts)
         memo[id(self)] = d = h.digest()
+        if self.value is not None or self.hashed is not None:
+            self.dataset_digest = d
         return d

@@ -151,6 +151,7 @@ TEXTS = {
     "no values": np.array([], dtype="S3"),
     "two dimensions": np.array([[b"x", b"yy"], [b"zzz", b"x"]] * 40, dtype="S3"),
     "text objects (plain twin)": np.array(["a", "b", "ä"] * 30, dtype=object),
+    "a short list of text objects": np.array(["uM", "", "µM/min", b"raw", 3], dtype=object),
 }
 
 
