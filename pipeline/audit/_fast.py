@@ -22,6 +22,7 @@ from typing import Any
 
 import numpy as np
 from vzero.audit.digest import Recorder, plain_texts
+from vzero.audit.digest import value_bytes as digest_value_bytes
 
 
 def _h5py() -> Any:
@@ -70,13 +71,52 @@ def _length_prefixed(flat: np.ndarray) -> bytes:
     return rows[picks].tobytes()
 
 
+def value_bytes(h: Any, value: Any) -> None:
+    """Feed one value into ``h`` exactly as :func:`vzero.audit.digest.value_bytes` does, with text through
+    :func:`fixed_texts`; a stored table (a compound array of numbers and fixed-length text) has the bytes
+    that come before each field's values (its name, the shape, the type) worked out once per type."""
+    if isinstance(value, np.ndarray) and value.dtype.names:
+        layout = _field_layout(value.dtype)
+        if layout is not None:
+            shape = f"|{value.shape}|".encode()
+            h.update(shape + b"c")
+            for field, name, kind, little in layout:
+                h.update(name + shape + kind)
+                if little is None:
+                    fixed_texts(h, value[field])
+                else:
+                    h.update(np.ascontiguousarray(value[field], dtype=little).reshape(-1).view(np.uint8))
+            return
+    digest_value_bytes(h, value, fixed_texts)
+
+
+@functools.lru_cache(maxsize=256)
+def _field_layout(dtype: np.dtype) -> tuple[tuple[str, bytes, bytes, np.dtype | None], ...] | None:
+    """For each field of a compound type: its name, its name as hashed (length and UTF-8), its type tag as
+    hashed (``t`` for text, else the little-endian type code) and the little-endian type to hash its numbers
+    in (None for text); None when a field is anything else (nested, an array, variable-length)."""
+    out = []
+    for field in dtype.names or ():
+        sub = dtype.fields[field][0]
+        encoded = field.encode("utf-8")
+        name = len(encoded).to_bytes(8, "little") + encoded
+        if sub.kind == "S" and sub.subdtype is None:
+            out.append((field, name, b"t", None))
+        elif sub.kind in "biuf" and sub.subdtype is None and not sub.names:
+            little = sub.newbyteorder("<")
+            out.append((field, name, little.str.encode(), little))
+        else:
+            return None
+    return tuple(out)
+
+
 class FastRecorder(Recorder):
     """A :class:`~vzero.audit.digest.Recorder` that writes through h5py's low-level calls.
 
     It wraps only objects it created itself (or a new, empty file's root), so an attribute exists exactly when
     it has been recorded here; that replaces HDF5's own existence check before each attribute."""
 
-    texts = staticmethod(fixed_texts)
+    hash_value = staticmethod(value_bytes)
 
     def set_attr(self, name: str, value: Any) -> None:
         if not write_attr(self.h5.id, name, value, exists=name in self.recorded):

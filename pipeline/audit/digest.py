@@ -172,8 +172,8 @@ class Recorder:
     ``known``; a dataset whose value has been hashed (:meth:`settle_value`) holds that hash instead of the
     value, so that a long run does not keep every raw input in memory."""
 
-    #: Feeds an array of text values into a hash (see :func:`value_bytes`).
-    texts: Callable[[Any, np.ndarray], None] = staticmethod(plain_texts)
+    #: Feeds one value into a hash (:func:`value_bytes`; the fast twin has its own).
+    hash_value: Callable[[Any, Any], None] = staticmethod(value_bytes)
 
     def __init__(self, h5: Any, value: Any = None) -> None:
         self.h5 = h5
@@ -228,7 +228,7 @@ class Recorder:
     def settle_value(self) -> None:
         """Hash this dataset's value now and let go of it (its attributes may still change)."""
         h = hashlib.sha256(b"D")
-        value_bytes(h, self.value, self.texts)
+        self.hash_value(h, self.value)
         self.hashed, self.value = h, None
 
     def digest(self, memo: dict[int, bytes] | None = None) -> bytes:
@@ -242,7 +242,7 @@ class Recorder:
             h = self.hashed.copy()
         elif self.value is not None:
             h = hashlib.sha256(b"D")
-            value_bytes(h, self.value, self.texts)
+            self.hash_value(h, self.value)
         else:
             h = hashlib.sha256(b"G")
             members = {**self.known, **{name: node.digest(memo) for name, node in self.members.items()}}
@@ -252,7 +252,7 @@ class Recorder:
         for name in sorted(self.recorded):
             if name != DIGEST_ATTR:
                 _name(h, name)
-                value_bytes(h, self.recorded[name], self.texts)
+                self.hash_value(h, self.recorded[name])
         memo[id(self)] = d = h.digest()
         if self.value is not None or self.hashed is not None:
             self.dataset_digest = d

@@ -194,3 +194,35 @@ def test_attributes_are_stored_as_h5py_stores_them(tmp_path: Path):
         plain.attrs["a0"] = 12
         assert list(fast.attrs) == list(plain.attrs)
         assert _attrs(fast, set()) == _attrs(plain, set())
+
+
+def _table(n: int, extra: list[tuple[Any, ...]] | None = None) -> np.ndarray:
+    rows = np.zeros(n, dtype=[("well", h5py.string_dtype("utf-8", 4)), ("rate", "<f8"), ("n", "<i8"),
+                              ("ok", "?"), ("big", ">f4"), *(extra or [])])
+    rows["well"] = [f"A{i}".encode() for i in range(n)]
+    rows["rate"] = np.linspace(-1.0, 2.0, n)
+    rows["n"] = np.arange(n)
+    rows["ok"] = np.arange(n) % 3 == 0
+    rows["big"] = np.arange(n) / 7
+    return rows
+
+
+VALUES = {
+    "a table": _table(300),
+    "a table without rows": _table(0),
+    "a table of two dimensions": _table(12).reshape(3, 4),
+    "a table with an array field (plain twin)": _table(5, [("xyz", "<f8", (3,))]),
+    "a table with a nested field (plain twin)": _table(5, [("inner", [("a", "<i4")])]),
+    "text": "Glühen", "bytes": b"raw", "a number": np.float64(2.5), "a flag": np.bool_(True),
+    "an array": np.arange(12, dtype=">i4").reshape(3, 4), "a list of text": texts_attr(["uM", "", "µM/min"]),
+}
+
+
+@pytest.mark.parametrize("name", list(VALUES))
+def test_value_bytes_feeds_what_the_plain_twin_feeds(name: str):
+    from vzero.audit.digest import value_bytes
+
+    a, b = hashlib.sha256(), hashlib.sha256()
+    _fast.value_bytes(a, VALUES[name])
+    value_bytes(b, VALUES[name])
+    assert a.digest() == b.digest()
