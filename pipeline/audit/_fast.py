@@ -95,9 +95,9 @@ def _field_layout(dtype: np.dtype) -> tuple[tuple[str, bytes, bytes, np.dtype | 
     """For each field of a compound type: its name, its name as hashed (length and UTF-8), its type tag as
     hashed (``t`` for text, else the little-endian type code) and the little-endian type to hash its numbers
     in (None for text); None when a field is anything else (nested, an array, variable-length)."""
-    out = []
+    out: list[tuple[str, bytes, bytes, np.dtype | None]] = []
     for field in dtype.names or ():
-        sub = dtype.fields[field][0]
+        sub = dtype[field]
         encoded = field.encode("utf-8")
         name = len(encoded).to_bytes(8, "little") + encoded
         if sub.kind == "S" and sub.subdtype is None:
@@ -196,7 +196,7 @@ def _plain_type(dtype: np.dtype) -> bool:
     """Whether arrays of ``dtype`` take the fast path: bool and numbers, and compound types whose fields are
     those or fixed-length text (a stored table)."""
     if dtype.names:
-        return all(_plain_type(dtype.fields[f][0]) or dtype.fields[f][0].kind == "S" for f in dtype.names)
+        return all(_plain_type(dtype[f]) or dtype[f].kind == "S" for f in dtype.names)
     return dtype.kind in "biuf" and dtype.metadata is None and dtype.subdtype is None
 
 
@@ -204,7 +204,7 @@ def _file_type(dtype: np.dtype) -> Any:
     """The HDF5 type h5py stores ``dtype`` as (bool as h5py's enum, text fields marked with their h5py
     encoding), made once per type. numpy compares types without their metadata (where h5py keeps a text
     field's encoding), so the metadata is part of the key."""
-    key = (dtype, tuple(str(dtype.fields[f][0].metadata) for f in dtype.names)) if dtype.names else (dtype, ())
+    key = (dtype, tuple(str(dtype[f].metadata) for f in dtype.names)) if dtype.names else (dtype, ())
     tid = _TYPES.get(key)
     if tid is None:
         if len(_TYPES) >= 512:  # text widths vary from plate to plate: keep the cache small over a long batch
