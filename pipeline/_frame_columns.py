@@ -24,8 +24,9 @@ def columns(frame: pd.DataFrame) -> list[tuple[Any, Any]] | None:
     if get is None or not frame.columns.is_unique:
         return None
     out = []
-    for i, dtype in enumerate(frame.dtypes):
+    for i in range(frame.shape[1]):
         values = get(i)
+        dtype = values.dtype  # the column's dtype (frame.dtypes would build a Series first)
         if isinstance(dtype, np.dtype) and not isinstance(values, np.ndarray):  # datetimes come back wrapped
             values = values.to_numpy()
         out.append((dtype, values))

@@ -20,7 +20,7 @@ since it was written; it is not a signature (whoever can edit the file can rewri
 from __future__ import annotations
 
 import hashlib
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from typing import Any
 
 import numpy as np
@@ -46,8 +46,15 @@ def _texts(h: Any, values: Any) -> None:
     h.update(b"".join(prefixed[codes].tolist()))
 
 
-def value_bytes(h: Any, value: Any) -> None:
-    """Feed one stored value (a dataset's or attribute's, as h5py reads it) into the hash ``h``."""
+def plain_texts(h: Any, arr: np.ndarray) -> None:
+    """Feed the text values of ``arr`` (any shape; str, bytes or objects) into ``h`` as :func:`_texts` does."""
+    _texts(h, arr.ravel().tolist())
+
+
+def value_bytes(h: Any, value: Any, texts: Callable[[Any, np.ndarray], None] = plain_texts) -> None:
+    """Feed one stored value (a dataset's or attribute's, as h5py reads it) into the hash ``h``. ``texts``
+    feeds an array of text values (the writer's fast twin passes one that encodes fixed-length text at once;
+    every reader uses the default)."""
     if isinstance(value, str | bytes):
         b = value if isinstance(value, bytes) else value.encode("utf-8")
         h.update(b"s" + len(b).to_bytes(8, "little") + b)
@@ -58,14 +65,14 @@ def value_bytes(h: Any, value: Any) -> None:
         h.update(b"c")
         for field in arr.dtype.names:
             _name(h, field)
-            value_bytes(h, arr[field])
+            value_bytes(h, arr[field], texts)
     elif arr.dtype.kind in "OSU":
         h.update(b"t")
-        _texts(h, arr.ravel().tolist())
+        texts(h, arr)
     else:
         little = arr.dtype.newbyteorder("<")
         h.update(little.str.encode())
-        h.update(np.ascontiguousarray(arr, dtype=little).tobytes())
+        h.update(np.ascontiguousarray(arr, dtype=little).reshape(-1).view(np.uint8))
 
 
 def object_digest(obj: Any, known: Mapping[str, bytes] | None = None, memo: dict[Any, bytes] | None = None) -> bytes:
@@ -101,14 +108,6 @@ def attrs_bytes(h: Any, obj: Any) -> None:
             continue
         _name(h, name)
         value_bytes(h, attrs[name])
-
-
-def seal(obj: Any, known: Mapping[str, bytes] | None = None, memo: dict[Any, bytes] | None = None) -> bytes:
-    """Compute ``obj``'s digest, store it (hex) as its ``vzero_digest`` attribute and return it. (Sealing
-    adds an attribute, so ``memo`` must not hold ``obj`` itself or a group above it.)"""
-    d = object_digest(obj, known, memo)
-    obj.attrs[DIGEST_ATTR] = d.hex()
-    return d
 
 
 def check(obj: Any, path: str, problems: list[str], checked: list[str], memo: dict[Any, bytes] | None = None) -> bytes:
@@ -147,8 +146,10 @@ class _Attrs:
         self._node = node
 
     def __setitem__(self, name: str, value: Any) -> None:
-        self._node.h5.attrs[name] = value
+        self._node.set_attr(name, value)
         self._node.recorded[name] = value if isinstance(value, str | bytes | np.ndarray) else np.asarray(value)
+        if name != DIGEST_ATTR:  # (the stored digest is not itself hashed)
+            self._node.dataset_digest = None
 
     def __getitem__(self, name: str) -> Any:
         return self._node.h5.attrs[name]
@@ -159,30 +160,55 @@ class _Attrs:
 
 class Recorder:
     """A group or dataset being written that remembers what is written into it, so that its digest is computed
-    from the values in memory instead of reading the file back (a worker writes a plate's part this way).
+    from the values in memory instead of reading the file back.
 
     It offers what :mod:`vzero.audit.codec` calls on a group (``create_group``, ``create_dataset``, ``attrs``,
     linking an object already written under a new name) and gives the digest :func:`object_digest` computes
-    from the file; tests/pipeline/test_batch.py checks that the two agree for every digest a run stores."""
+    from the file; tests/pipeline/test_batch.py checks that the two agree for every digest a run stores. The
+    writes themselves go through h5py's high-level objects here; :class:`vzero.audit._fast.FastRecorder` is the
+    low-level twin (tests/pipeline/test_audit_fast.py checks that both store the same objects and digests).
+
+    A group may also hold members written elsewhere (copied in from a worker's part) whose digests are
+    ``known``; a dataset whose value has been hashed (:meth:`settle_value`) holds that hash instead of the
+    value, so that a long run does not keep every raw input in memory."""
+
+    #: Feeds one value into a hash (:func:`value_bytes`; the fast twin has its own).
+    hash_value: Callable[[Any, Any], None] = staticmethod(value_bytes)
 
     def __init__(self, h5: Any, value: Any = None) -> None:
         self.h5 = h5
         self.value = value  # a dataset's value as it reads back; None for a group
         self.members: dict[str, Recorder] = {}
+        self.known: dict[str, bytes] = {}
         self.recorded: dict[str, Any] = {}
+        self.hashed: Any = None  # a dataset's hash so far ("D" and its value), once settled
+        self.dataset_digest: bytes | None = None  # a dataset's digest once computed, until an attribute changes
         self.attrs = _Attrs(self)
 
     def __getattr__(self, name: str) -> Any:  # anything else (name, id, ...) is the HDF5 object's
         return getattr(self.h5, name)
 
+    # the writes (the fast twin replaces these four)
+    def set_attr(self, name: str, value: Any) -> None:
+        self.h5.attrs[name] = value
+
+    def new_group(self, name: str, **kwargs: Any) -> Any:
+        return self.h5.create_group(name, **kwargs)
+
+    def new_dataset(self, name: str, data: Any, **kwargs: Any) -> Any:
+        return self.h5.create_dataset(name, data=data, **kwargs)
+
+    def link(self, name: str, node: Recorder) -> None:
+        self.h5[name] = node.h5
+
     def create_group(self, name: str, **kwargs: Any) -> Recorder:
-        node = self.members[name] = Recorder(self.h5.create_group(name, **kwargs))
+        node = self.members[name] = type(self)(self.new_group(name, **kwargs))
         return node
 
     def create_dataset(self, name: str, data: Any, **kwargs: Any) -> Recorder:
         arr = np.asarray(data)
-        node = Recorder(self.h5.create_dataset(name, data=data, **kwargs), arr.astype(object)
-                        if arr.dtype.kind in "OU" else arr)
+        node = type(self)(self.new_dataset(name, data, **kwargs), arr.astype(object)
+                          if arr.dtype.kind in "OU" else arr)
         self.members[name] = node
         return node
 
@@ -191,26 +217,43 @@ class Recorder:
 
     def __setitem__(self, name: str, node: Recorder) -> None:
         """Link ``node`` (already written) under ``name`` too: an HDF5 hard link."""
-        self.h5[name] = node.h5
+        self.link(name, node)
         self.members[name] = node
+
+    def forget(self, name: str, digest: bytes) -> None:
+        """Keep only the digest of member ``name`` (its values need not stay in memory)."""
+        self.members.pop(name, None)
+        self.known[name] = digest
+
+    def settle_value(self) -> None:
+        """Hash this dataset's value now and let go of it (its attributes may still change)."""
+        h = hashlib.sha256(b"D")
+        self.hash_value(h, self.value)
+        self.hashed, self.value = h, None
 
     def digest(self, memo: dict[int, bytes] | None = None) -> bytes:
         """What :func:`object_digest` gives for this object once written."""
+        if self.dataset_digest is not None:  # a dataset reached again (a hard link: the final tables)
+            return self.dataset_digest
         memo = {} if memo is None else memo
         if id(self) in memo:
             return memo[id(self)]
-        h = hashlib.sha256()
-        if self.value is not None:
-            h.update(b"D")
-            value_bytes(h, self.value)
+        if self.hashed is not None:
+            h = self.hashed.copy()
+        elif self.value is not None:
+            h = hashlib.sha256(b"D")
+            self.hash_value(h, self.value)
         else:
-            h.update(b"G")
-            for name in sorted(self.members):
+            h = hashlib.sha256(b"G")
+            members = {**self.known, **{name: node.digest(memo) for name, node in self.members.items()}}
+            for name in sorted(members):
                 _name(h, name)
-                h.update(self.members[name].digest(memo))
+                h.update(members[name])
         for name in sorted(self.recorded):
             if name != DIGEST_ATTR:
                 _name(h, name)
-                value_bytes(h, self.recorded[name])
+                self.hash_value(h, self.recorded[name])
         memo[id(self)] = d = h.digest()
+        if self.value is not None or self.hashed is not None:
+            self.dataset_digest = d
         return d

@@ -11,7 +11,7 @@ from typing import Any
 
 from vzero.audit import _fast
 from vzero.audit.codec import FORMAT_NAME, FORMAT_VERSION, Links, new_group, to_json, write_artifact, write_table
-from vzero.audit.digest import DIGEST_ATTR, Recorder, seal
+from vzero.audit.digest import DIGEST_ATTR, Recorder
 from vzero.data import Table
 
 
@@ -48,9 +48,10 @@ def write_part(records: list[Any]) -> tuple[bytes, dict[str, str]]:
     digests: dict[str, str] = {}
     f = _h5py().File(f"part-{uuid.uuid4().hex}.h5", "w", driver="core", backing_store=False, track_order=True)
     try:
+        root = _recorder()(f)
         groups = []
         for record in records:
-            g = Recorder(new_group(f, record.spec.label))
+            g = new_group(root, record.spec.label)
             g.attrs["started"] = record.started
             g.attrs["seconds"] = record.seconds
             for name, value in record.outputs.items():
@@ -59,7 +60,7 @@ def write_part(records: list[Any]) -> tuple[bytes, dict[str, str]]:
         memo: dict[int, bytes] = {}  # objects the steps share are hashed once
         for label, g in groups:
             d = g.digest(memo)
-            g.h5.attrs[DIGEST_ATTR] = digests[label] = d.hex()
+            g.attrs[DIGEST_ATTR] = digests[label] = d.hex()
         f.flush()
         return bytes(f.id.get_file_image()), digests
     finally:
@@ -73,14 +74,11 @@ def _h5py() -> Any:
     return h5py
 
 
-def plain_input_dataset(group: Any, name: str, data: bytes, attrs: dict[str, str | int]) -> Any:
-    """A one-dimensional uint8 dataset ``group/name`` holding ``data``, with text or integer attributes."""
-    import numpy as np
+def _created() -> str:
+    """The file's creation time: now, UTC, ISO 8601 to the second."""
+    import datetime as dt
 
-    ds = group.create_dataset(name, data=np.frombuffer(data, dtype=np.uint8))
-    for key, value in attrs.items():
-        ds.attrs[key] = value
-    return ds
+    return dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
 
 
 def plain_copy_part(f: Any, part: bytes, places: list[tuple[str, Any, str]]) -> None:
@@ -97,9 +95,15 @@ def plain_copy_part(f: Any, part: bytes, places: list[tuple[str, Any, str]]) -> 
     del f["_part"]
 
 
-#: Whether the writer uses the low-level twins in :mod:`vzero.audit._fast` for its per-plate work (they write
-#: the same objects; tests compare both).
+#: Whether the writer uses the low-level twins in :mod:`vzero.audit._fast` (they write the same objects and
+#: digests; tests/pipeline/test_audit_fast.py compares both).
 FAST = True
+
+
+def _recorder() -> type[Recorder]:
+    """The kind of :class:`~vzero.audit.digest.Recorder` that writes: the low-level twin unless :data:`FAST` is
+    off."""
+    return _fast.FastRecorder if FAST else Recorder
 
 
 class AuditWriter:
@@ -109,17 +113,17 @@ class AuditWriter:
     Plates are written as they arrive, so a long batch never holds every plate's intermediate results in
     memory, and the file is the same whether plates ran here, in a process pool or on a cluster. The caller
     writes into a temporary folder and renames it into place only after :meth:`finish` (a killed run leaves
-    no file at the target). ``seconds`` accumulates the time spent writing (for the benchmarks).
+    no file at the target). ``seconds`` accumulates the time spent writing, ``cpu_seconds`` this process's
+    processor time for it (for the benchmarks).
     """
 
     def __init__(self, path: Any, rec: Any, plugins: Any, run_id: str) -> None:
-        import datetime as dt
         import hashlib
         import time
 
         from vzero.meta import __version__
 
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         self.path = path
         self.plugins = plugins
         self.links = Links()
@@ -133,11 +137,12 @@ class AuditWriter:
 
         self.sink = GuardedFile(path)  # a failed write (disk full) becomes an error here, not a crash in HDF5
         self.f = _h5py().File(self.sink, "w", track_order=True)
-        a = self.f.attrs
+        self.root = _recorder()(self.f)  # every group above the plates' records their attributes and members
+        a = self.root.attrs
         a["format"] = FORMAT_NAME
         a["format_version"] = FORMAT_VERSION
         a["vzero_version"] = __version__
-        a["created"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+        a["created"] = _created()
         a["run_id"] = run_id
         a["recipe_name"] = str(rec.data.get("name", ""))
         a["recipe_path"] = str(getattr(rec, "path", ""))
@@ -151,28 +156,33 @@ class AuditWriter:
         })
         for key in ("assay", "exclusions", "overrides", "review"):
             a[key] = to_json(rec.data.get(key) or ({} if key == "assay" else []))
-        self.inputs = self.f.create_group("inputs", track_order=True)
-        self.steps = self.f.create_group("steps", track_order=True)
-        self._step_groups: dict[str, Any] = {}
-        self._digests: dict[str, dict[str, bytes]] = {}  # step label -> plate (or pooled) -> its digest
+        self.inputs = new_group(self.root, "inputs")
+        self.steps = new_group(self.root, "steps")
+        self._step_groups: dict[str, Recorder] = {}
         self.seconds = time.perf_counter() - t0
+        self.cpu_seconds = time.process_time() - c0
 
     def add_input(self, raw: Any, plate: str) -> None:
         """Store a raw input file byte for byte (once per distinct content) and note which plate used it."""
         import time
 
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         self.sink.check()  # stop at the next plate once the disk is full, not at the end of the batch
         if raw.sha256 not in self._inputs:
-            make = _fast.input_dataset if FAST else plain_input_dataset
-            self._inputs[raw.sha256] = make(
-                self.inputs, f"{len(self._inputs):02d}", raw.data,
-                {"name": raw.name, "key": raw.key, "sha256": raw.sha256, "size": len(raw.data)})
+            import numpy as np
+
+            ds = self._inputs[raw.sha256] = self.inputs.create_dataset(
+                f"{len(self._inputs):02d}", data=np.frombuffer(raw.data, dtype=np.uint8))
+            for key, value in (("name", raw.name), ("key", raw.key), ("sha256", raw.sha256),
+                               ("size", len(raw.data))):
+                ds.attrs[key] = value
+            ds.settle_value()  # its "plates" and "names" follow at the end; its bytes need not stay here
         self.input_plates.setdefault(raw.sha256, []).append(plate)
         names = self._names.setdefault(raw.sha256, [])
         if raw.name not in names:  # the same bytes under another name (a copied layout): keep every name
             names.append(raw.name)
         self.seconds += time.perf_counter() - t0
+        self.cpu_seconds += time.process_time() - c0
 
     def _step(self, record: Any) -> Any:
         """The group of ``record``'s step, created with its parameters and provenance the first time. The
@@ -180,7 +190,6 @@ class AuditWriter:
         spec = record.spec
         if spec.label not in self._step_groups:
             g = self._step_groups[spec.label] = new_group(self.steps, spec.label)
-            self._digests[spec.label] = {}
             entry = self.plugins.registry.get(spec.kind, spec.method)
             g.attrs["kind"] = spec.kind
             g.attrs["method"] = spec.method
@@ -204,18 +213,21 @@ class AuditWriter:
         and its digest. Returns the group holding the outputs."""
         import time
 
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         name = record.plate or "pooled"
-        sub = Recorder(new_group(self._step(record), name))  # its digest from the values written
+        step = self._step(record)
+        sub = new_group(step, name)  # its digest from the values written
         sub.attrs["started"] = record.started
         sub.attrs["seconds"] = record.seconds
         for key, value in record.outputs.items():
             if key == "traces" and isinstance(value, Mapping):
                 continue  # per-plate traces are already stored by the plate steps
             write_artifact(sub, key, value, self.links)
-        digest = self._digests[record.spec.label][name] = sub.digest()
-        sub.h5.attrs[DIGEST_ATTR] = digest.hex()
+        digest = sub.digest()
+        sub.attrs[DIGEST_ATTR] = digest.hex()
+        step.forget(name, digest)  # the step keeps the plate's digest, not its values
         self.seconds += time.perf_counter() - t0
+        self.cpu_seconds += time.process_time() - c0
         return sub.h5
 
     def forget_plate(self) -> None:
@@ -232,14 +244,16 @@ class AuditWriter:
         encodes nor reads back any array. Returns label -> the path of the plate's group under that step."""
         import time
 
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         places = []
         for record in records:
             name = record.plate or "pooled"
-            places.append((record.spec.label, self._step(record), name))
-            self._digests[record.spec.label][name] = bytes.fromhex(digests[record.spec.label])
+            step = self._step(record)
+            places.append((record.spec.label, step.h5, name))
+            step.forget(name, bytes.fromhex(digests[record.spec.label]))
         (_fast.copy_part if FAST else plain_copy_part)(self.f, part, places)
         self.seconds += time.perf_counter() - t0
+        self.cpu_seconds += time.process_time() - c0
         return {label: f"{step.name}/{name}" for label, step, name in places}
 
     def finish(self, tables: Mapping[str, Table], warnings: list[str], failed: Mapping[str, str],
@@ -248,31 +262,33 @@ class AuditWriter:
         and the digests of each step, of /steps, /inputs, /results and of the whole file; close the file."""
         import time
 
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         for sha, ds in self._inputs.items():
             ds.attrs["plates"] = to_json(self.input_plates.get(sha, []))
             ds.attrs["names"] = to_json(self._names.get(sha, []))
         for label, g in self._step_groups.items():
             g.attrs["seconds"] = self._seconds.get(label, 0.0)
             g.attrs["warnings"] = to_json(self._warnings.get(label, []))
-        self.f.attrs["warnings"] = to_json(list(warnings))
-        self.f.attrs["failed_plates"] = to_json(dict(failed))
-        self.f.attrs["failed_items"] = to_json(list(self.failed_items))
+        a = self.root.attrs
+        a["warnings"] = to_json(list(warnings))
+        a["failed_plates"] = to_json(dict(failed))
+        a["failed_items"] = to_json(list(self.failed_items))
         if derived_from:
-            self.f.attrs["derived_from"] = to_json(dict(derived_from))
-        results = Recorder(self.f.create_group("results", track_order=True))
+            a["derived_from"] = to_json(dict(derived_from))
+        results = new_group(self.root, "results")
         for name, table in tables.items():
             write_table(results, name, table, self.links)
-        results_digest = results.digest()
-        results.h5.attrs[DIGEST_ATTR] = results_digest.hex()
-        steps = {label: seal(g, self._digests[label]) for label, g in self._step_groups.items()}
-        top = {"steps": seal(self.steps, steps), "inputs": seal(self.inputs), "results": results_digest}
-        seal(self.f, top)
+        # every digest from the values in memory (the one file-wide memo: the results' tables may be hard
+        # links to tables a step stored); a stored digest is not itself hashed, so storing one changes none
+        memo: dict[int, bytes] = {}
+        for g in [*self._step_groups.values(), self.steps, self.inputs, results, self.root]:
+            g.attrs[DIGEST_ATTR] = g.digest(memo).hex()
         self.f.close()
         self.sink.close()
         self.sink.check()
         self.links = Links()
         self.seconds += time.perf_counter() - t0
+        self.cpu_seconds += time.process_time() - c0
 
     def close(self) -> None:
         """Close without finishing (after an error; the caller removes the temporary folder)."""

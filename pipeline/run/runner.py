@@ -109,7 +109,7 @@ class RunResult:
     """Processor time in seconds (for the benchmarks): ``map`` this process (the driver) while plates ran,
     ``imports`` the part of ``map`` spent importing, in a thread, modules the pooled steps need later (a
     one-off; 0 if not finished by the map's end), ``run`` this process over the whole run, ``plates`` the
-    worker processes on their plates (0 without workers)."""
+    worker processes on their plates (0 without workers), ``audit`` this process writing the audit file."""
 
     @property
     def rates(self) -> pd.DataFrame:
@@ -290,6 +290,7 @@ def run(
         csv_seconds = write_outputs(tmp, final_tables, files, failed, csv_workers)
         _swap_into_place(tmp, out_dir, force)
         cpu["run"] = time.process_time() - cpu_start
+        cpu["audit"] = writer.cpu_seconds
         return RunResult(out_dir, out_dir / "run.h5", dict(final_tables), warnings, dict(failed),
                          audit_seconds=writer.seconds, failed_items=failed_items, csv_seconds=csv_seconds, cpu=cpu)
     except BaseException as exc:

@@ -15,6 +15,8 @@ def _frame() -> pd.DataFrame:
         "rate": [1.5, np.nan, -2e-300], "n": np.array([1, 2, 3], np.int64), "ok": [True, False, True],
         "flag": pd.array([1, None, 3], dtype="Int64"), "when": pd.to_datetime(["2026-01-01", None, "2026-01-03"]),
         "kind": pd.Categorical(["a", "b", "a"]),
+        "zoned": pd.to_datetime(["2026-01-01", None, "2026-01-03"]).tz_localize("UTC"),
+        "span": pd.to_timedelta([1.0, None, 3.0], unit="s"), "small": np.array([1, 2, 3], np.int8),
     })
 
 
