@@ -14,7 +14,8 @@ inhibitor per well and the signal per concentration.
 * curves: :func:`vzero.plugins.fit.curves.fit.fit_groups` on each draw's blank-corrected reads converted to
   concentration (reads at the ceiling are missing and left out; wells the curve stage excludes by default,
   by the rate method's flags, are left out), without profile intervals, the recipe's defaults otherwise (no
-  inactivation, no lag: the curve model knows neither).
+  inactivation, no lag); on plates with inactivation also with ``inactivation: true``, on plates with a lag
+  also with ``lag: true`` and with both.
 
 Printed: the RMSE of each parameter relative to its truth (%) for both routes, their ratio, and the share of
 draws with the parameter within 5 % of the truth. Invented data for benchmarking only.
@@ -67,10 +68,12 @@ def evaluate(sc: Scenario, n_draws: int, seed: int = 1) -> dict[str, np.ndarray]
         rates = np.where(keep[k], v0[k], np.nan)
         groups.append(CurveGroup(f"d{k}", wells, conc[k], use, rates, [("P", f"W{i}") for i in range(n_c)]))
     out = {"two-step": two}
-    for label, kinact in (("curves", False), ("curves, inactivation: true", True)):
-        if kinact and sc.k_inact == 0:
+    variants = (("curves", False, False), ("curves, inactivation: true", True, False),
+                ("curves, lag: true", False, True), ("curves, lag: true, inactivation: true", True, True))
+    for label, kinact, lag in variants:
+        if (kinact and sc.k_inact == 0) or (lag and sc.lag_tau == 0):
             continue
-        fits = fit_groups(model, groups, profile=False, kinact=kinact)
+        fits = fit_groups(model, groups, profile=False, kinact=kinact, lag=lag)
         out[label] = np.array([f.result.values[:len(model.params)] if f.result.success
                                else np.full(len(model.params), np.nan) for f in fits])
     return out
@@ -91,7 +94,7 @@ def rows(sc: Scenario, est: dict[str, np.ndarray]) -> list[str]:
     model = BY_NAME[MODEL[sc.law]]
     out = []
     for route in [r for r in est if r != "two-step"]:
-        label = sc.name if route == "curves" else f"{sc.name} ({route.split(', ')[1]})"
+        label = sc.name if route == "curves" else f"{sc.name} ({route.split(', ', 1)[1]})"
         for j, name in enumerate(model.params):
             r2, c2 = _cell(est["two-step"][:, j] / truth[j] - 1.0)
             rc, cc = _cell(est[route][:, j] / truth[j] - 1.0)

@@ -32,6 +32,10 @@ from vzero.plugins.fit.curves.profile import intervals as profile_intervals
 KINACT = "kinact"
 """Name of the first-order inactivation constant (1/s) when the recipe asks for it."""
 
+LAG = "lag_time"
+"""Name of the hysteretic lag's time constant λ (s) when the recipe asks for it: the active fraction of the
+enzyme rises as 1 − e^{−t/λ} from the reaction start."""
+
 
 def activity_name(lot: str) -> str:
     """Name of the relative activity factor of enzyme lot ``lot`` (dimensionless)."""
@@ -107,8 +111,8 @@ class _Problem:
     kept, so that the Jacobian at an accepted step costs no second integration."""
 
     def __init__(self, model: Any, arrays: dict[str, np.ndarray], kinact: bool, route: str, product: bool = False,
-                 n_lots: int = 1) -> None:
-        self.model, self.a, self.kinact, self.route = model, arrays, kinact, route
+                 n_lots: int = 1, lag: bool = False) -> None:
+        self.model, self.a, self.kinact, self.route, self.lag = model, arrays, kinact, route, lag
         self.product, self.n_lots = product, n_lots
         self.shape = arrays["y"].shape
         self.count = np.maximum(arrays["used"].sum(axis=2, keepdims=True), 1)
@@ -124,7 +128,8 @@ class _Problem:
         n_model = len(self.model.params)
         kq = flat[n_model] if self.product else None
         kin = flat[n_model + self.product] if self.kinact else None
-        first = n_model + self.product + self.kinact  # the activity factors of the lots after the reference
+        lag = flat[n_model + self.product + self.kinact] if self.lag else None
+        first = n_model + self.product + self.kinact + self.lag  # the lots' activity factors after the reference
         lot = a["lot"][rows].ravel()
         factor = np.ones(g * nw)
         for j in range(1, self.n_lots):
@@ -135,7 +140,7 @@ class _Problem:
         # parameters, nearby curves: fewer iterations; the result is the same to rounding)
         guess = self._last[rows].reshape(g * nw, nt) if self._seen[rows].all() else None
         p, grads = progress(self.model, flat[:n_model], wells, kin, self.route, kq, scale_grad=self.n_lots > 1,
-                            start=guess)
+                            start=guess, lag=lag)
         if self.n_lots > 1:
             vtau = grads.pop()  # ∂P/∂ln(rate scale); ∂P/∂f_L = v·τ/f_L on the wells of lot L
             with np.errstate(all="ignore"):
@@ -203,36 +208,38 @@ def _count_baselines(results: list[solver.FitResult], n_wells: np.ndarray, confi
     return out
 
 
-def parameter_names(model: Any, *, product: bool = False, kinact: bool = False, lots: Sequence[str] = ()
-                    ) -> tuple[str, ...]:
-    """The fitted parameters, in order: the model's, ``Kp``, ``kinact``, then one activity factor per lot
-    after the first (the reference)."""
-    return (*model.params, *((KP,) if product else ()), *((KINACT,) if kinact else ()),
+def parameter_names(model: Any, *, product: bool = False, kinact: bool = False, lots: Sequence[str] = (),
+                    lag: bool = False) -> tuple[str, ...]:
+    """The fitted parameters, in order: the model's, ``Kp``, ``kinact``, ``lag_time``, then one activity
+    factor per lot after the first (the reference)."""
+    return (*model.params, *((KP,) if product else ()), *((KINACT,) if kinact else ()), *((LAG,) if lag else ()),
             *(activity_name(lot) for lot in lots[1:]))
 
 
 def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False, product: bool = False,
                fixed: Mapping[str, float] | None = None, bounds: Mapping[str, tuple[float, float]] | None = None,
                starts: Mapping[str, float] | None = None, confidence: float = 0.95, profile: bool = True,
-               units: Mapping[str, str] | None = None, route: str = "auto", max_iter: int = 200) -> list[CurveFit]:
+               units: Mapping[str, str] | None = None, route: str = "auto", max_iter: int = 200, lag: bool = False
+               ) -> list[CurveFit]:
     """Fit ``model`` to the curves of every group at once; one :class:`CurveFit` per group, in order.
 
-    ``product``: fit competitive inhibition by the product (constant ``Kp``, the substrate's unit); the
+    ``product``: fit competitive inhibition by the product (constant ``Kp``, the substrate's unit); ``lag``:
+    fit a hysteretic lag, the time constant ``lag_time`` (s, ≥ 0; 0 is no lag) shared by the group; the
     groups' ``lots`` (all groups of one call must have the same) add one activity factor per lot after the
     reference."""
     lots = groups[0].lots
     if any(c.lots != lots for c in groups):
         raise ValueError("groups fitted together must have the same enzyme lots, reference first")
-    names = parameter_names(model, product=product, kinact=kinact, lots=lots)
+    names = parameter_names(model, product=product, kinact=kinact, lots=lots, lag=lag)
     arrays = _pad(groups)
     g, nw, nt = arrays["y"].shape
-    problem = _Problem(model, arrays, kinact, route, product, max(len(lots), 1))
+    problem = _Problem(model, arrays, kinact, route, product, max(len(lots), 1), lag)
     used = arrays["used"]
     count = problem.count
     y = _centre(arrays["y"], used, count).reshape(g, -1)
     w = used.reshape(g, -1).astype(float)
     x = {"group": np.broadcast_to(np.arange(g, dtype=float)[:, None], (g, nw * nt)).copy()}
-    all_bounds = {**model.bounds, KINACT: (0.0, np.inf), KP: (0.0, np.inf),
+    all_bounds = {**model.bounds, KINACT: (0.0, np.inf), KP: (0.0, np.inf), LAG: (0.0, np.inf),
                   **{activity_name(lot): (0.0, np.inf) for lot in lots[1:]}, **(bounds or {})}
     lo = np.array([all_bounds.get(n, (-np.inf, np.inf))[0] for n in names], float)
     hi = np.array([all_bounds.get(n, (-np.inf, np.inf))[1] for n in names], float)
@@ -243,9 +250,10 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
         ok = np.isfinite(c.rates)
         guess = model.start({k: v[ok] for k, v in xv.items() if k in model.variables}, c.rates[ok]) \
             if ok.sum() else [1.0] * len(model.params)
-        # Kp starts at the largest substrate level (inhibition felt, not dominant); kinact at 0; factors at 1
+        # Kp starts at the largest substrate level (inhibition felt, not dominant); kinact at 0; the lag at
+        # one read interval (inside its bound, where the fit can move either way); factors at 1
         guess = [*guess[:len(model.params)], *((float(np.max(c.wells.s0)),) if product else ()),
-                 *((0.0,) if kinact else ()), *([1.0] * (len(lots) - 1))]
+                 *((0.0,) if kinact else ()), *((_read_interval(c),) if lag else ()), *([1.0] * (len(lots) - 1))]
         p0[r] = [(fixed or {}).get(n, (starts or {}).get(n, guess[j] if j < len(guess) else 0.0))
                  for j, n in enumerate(names)]
     p0 = np.clip(p0, lo, hi)
@@ -258,7 +266,8 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
     n_wells = used.any(axis=2).sum(axis=1)
     results = _count_baselines(results, n_wells, confidence)
     if profile:
-        wanted = [*getattr(model, "profile", ()), *((KP,) if product else ()), *((KINACT,) if kinact else ())]
+        wanted = [*getattr(model, "profile", ()), *((KP,) if product else ()), *((KINACT,) if kinact else ()),
+                  *((LAG,) if lag else ())]
         results = _profiles(problem, x, y, w, results, wanted, names, free, all_bounds, lo, hi, confidence)
     with np.errstate(all="ignore"):
         p, _ = problem.curves([vals[:, j] for j in range(len(names))], np.arange(g))
@@ -268,6 +277,13 @@ def fit_groups(model: Any, groups: Sequence[CurveGroup], *, kinact: bool = False
         w_, t_ = c.y.shape
         out.append(CurveFit(results[r], p[r, :w_, :t_] + base[r, :w_, None], base[r, :w_]))
     return out
+
+
+def _read_interval(group: CurveGroup) -> float:
+    """The median interval between a group's reads (s), 1 s when it has none: the lag's start value."""
+    dt = np.diff(group.wells.time, axis=1)
+    dt = dt[np.isfinite(dt) & (dt > 0)]
+    return float(np.median(dt)) if dt.size else 1.0
 
 
 def _profiles(problem: _Problem, x: dict[str, np.ndarray], y: np.ndarray, w: np.ndarray,

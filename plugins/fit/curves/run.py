@@ -27,7 +27,15 @@ from vzero.plugins.fit import run as rates_run
 from vzero.plugins.fit.catalog import Model
 from vzero.plugins.fit.curves import product, selwyn
 from vzero.plugins.fit.curves.curve import Wells
-from vzero.plugins.fit.curves.fit import KINACT, CurveFit, CurveGroup, activity_name, fit_groups, parameter_names
+from vzero.plugins.fit.curves.fit import (
+    KINACT,
+    LAG,
+    CurveFit,
+    CurveGroup,
+    activity_name,
+    fit_groups,
+    parameter_names,
+)
 from vzero.stage import StageInput, StageOutput
 
 FIT_COLUMNS = ["group", "model", "parameter", "estimate", "stderr", "ci_low", "ci_high", "ci_method", "unit",
@@ -176,6 +184,7 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     conf = float(cfg["confidence"])
     kin = bool(cfg["inactivation"])
     prod = bool(cfg["product_inhibition"])
+    lag = bool(cfg["lag"])
     lot_labels = _lot_labels(frame, use, data) if cfg["lots"] else None
     if lot_labels is not None:
         use &= lot_labels != ""
@@ -197,7 +206,7 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         starts = cfg["start"].get(model.name, {})
         if prod:
             product.scaled_parameter(model)  # a law without a half-saturation constant is refused here
-        names = parameter_names(model, product=prod, kinact=kin)
+        names = parameter_names(model, product=prod, kinact=kin, lag=lag)
         for k in [*fixed, *bounds, *starts]:
             if k not in names and not (lot_labels is not None and k.startswith(activity_name("")[:-1])):
                 raise FitError(f"fit: model {model.name} has no parameter {k!r}",
@@ -225,7 +234,7 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
             todo.append(cg)
         if not todo:
             continue
-        punits = {k: role_unit.get(r, "") for k, r in model.units.items()} | {KINACT: "1/s", product.KP: su}
+        punits = {k: role_unit.get(r, "") for k, r in model.units.items()} | {KINACT: "1/s", LAG: "s", product.KP: su}
         results: list[CurveFit] = []
         batches: dict[tuple[str, ...], list[int]] = {}
         for i, cg in enumerate(todo):  # groups with the same lots share one batched fit
@@ -234,7 +243,7 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         for members in batches.values():
             results += fit_groups(model, [todo[i] for i in members], kinact=kin, product=prod, fixed=fixed,
                                   bounds=bounds, starts=starts, confidence=conf, profile=bool(cfg["profile"]),
-                                  units=punits, route=str(cfg["route"]))
+                                  units=punits, route=str(cfg["route"]), lag=lag)
         todo = [todo[i] for i in order]
         for cg, cf in zip(todo, results, strict=True):
             key = (cg.name, model.name)

@@ -28,7 +28,8 @@ class CurveFitStage(Stage):
     version = "1.1"
     scope = "pooled"
     summary = ("Rate laws integrated and fitted to all progress curves of a group at once: shared kinetic "
-               "parameters, a baseline per well, optional enzyme inactivation, product inhibition and activity "
+               "parameters, a baseline per well, optional enzyme inactivation, a hysteretic lag, product inhibition "
+               "and activity "
                "factors per enzyme lot; standard errors, profile intervals, AICc and F-tests, cooperativity "
                "verdict, Selwyn's test of enzyme stability.")
     params: ClassVar[Mapping[str, Param]] = {
@@ -37,6 +38,8 @@ class CurveFitStage(Stage):
                                choices=FLAG_CHOICES),
         "inactivation": Param("bool", False, "fit a first-order enzyme inactivation constant kinact (1/s) shared "
                               "by the group's wells"),
+        "lag": Param("bool", False, "fit a hysteretic lag shared by the group's wells: the enzyme's active fraction "
+                     "rises as 1 - exp(-t/lag_time) from the reaction start; lag_time in s (0: no lag)"),
         "product_inhibition": Param("bool", False, "fit competitive inhibition by the reaction's product: the "
                                     "half-saturation constant (Km, K0.5) grows by 1 + P/Kp as product P accumulates; "
                                     "Kp in the substrate's unit"),
