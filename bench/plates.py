@@ -5,7 +5,12 @@ integrated numerically, once per distinct well, with a stiff ODE solver (``scipy
 method Radau), never through the closed forms the rate methods use::
 
     dS/dt = -a(t) * v(S, I)                      (Michaelis–Menten, Hill, substrate inhibition, competitive)
-    da/dt = (1 - a) / lag_tau - k_inact * a      (active enzyme fraction; a(0) = 0 with a lag, else 1)
+    dp/dt = -p / lag_tau                         (enzyme not yet active: p(0) = 1 with a lag, else 0)
+    da/dt = p / lag_tau - k_inact * a            (active enzyme fraction; a(0) = 0 with a lag, else 1)
+
+The lag is a hysteretic activation (the enzyme turns active with time constant ``lag_tau``) and the
+inactivation is first-order and irreversible (active enzyme is lost at ``k_inact``, whatever the lag): with
+both, the activity rises, peaks and then decays, and no fraction of it is ever regained.
 
 Every noise draw then adds what a real reader adds: a plate drift common to all wells (warming optics:
 ``drift * (1 - exp(-t / 300 s))`` with ``drift`` drawn per plate), the enzyme-free background rate of the
@@ -80,7 +85,8 @@ def law_rate(law: str, p: dict[str, float], s: np.ndarray, i: np.ndarray) -> np.
 @dataclass(frozen=True)
 class Truth:
     """The noise-free part of a scenario: product ``[n_cond, n_time]`` (mM) and the true v0 in AU/s
-    (rate at t = 0 with fully active enzyme: after a lag, the steady rate it leads to)."""
+    (rate at t = 0 with fully active enzyme: after a lag, the rate of the enzyme once active, before any is
+    lost to inactivation)."""
 
     product: np.ndarray
     v0: np.ndarray
@@ -95,10 +101,11 @@ def integrate(sc: Scenario) -> Truth:
     a0 = 0.0 if sc.lag_tau > 0 else 1.0
 
     def rhs(_t: float, z: np.ndarray) -> np.ndarray:
-        s, a = z[:n], z[n:]
-        return np.concatenate([-a * law_rate(sc.law, sc.params, s, inh), (1.0 - a) * inv_tau - sc.k_inact * a])
+        s, p, a = z[:n], z[n:2 * n], z[2 * n:]
+        return np.concatenate([-a * law_rate(sc.law, sc.params, s, inh), -p * inv_tau,
+                               p * inv_tau - sc.k_inact * a])
 
-    z0 = np.concatenate([sc.s0, np.full(n, a0)])
+    z0 = np.concatenate([sc.s0, np.full(n, 1.0 - a0), np.full(n, a0)])
     sol = solve_ivp(rhs, (0.0, float(t[-1])), z0, method="Radau", t_eval=t, rtol=1e-9,
                     atol=1e-13 * max(float(sc.s0.max()), 1.0))
     if not sol.success:
@@ -165,8 +172,8 @@ def scenarios() -> list[Scenario]:
                  "at the start: its blanks are saturated throughout",
                  np.array([0.1, 0.2, 0.35, 0.5, 0.75, 1.0, 2.0, 3.0, 4.0, 5.0]), "mm", mm, spc=-0.6, sub_abs=0.6,
                  base=0.1, ceiling=3.0),
-        Scenario("lag-decay", "Michaelis–Menten with a 60-s hysteretic lag (6 read intervals) and first-order "
-                 "inactivation (k = 8e-4 /s)", levels, "mm", mm, lag_tau=60.0, k_inact=8e-4),
+        Scenario("lag-decay", "Michaelis–Menten with a 60-s hysteretic lag (6 read intervals) and irreversible "
+                 "first-order inactivation (k = 8e-4 /s)", levels, "mm", mm, lag_tau=60.0, k_inact=8e-4),
         Scenario("spikes-saturation", "Michaelis–Menten, one single-read spike per well, top levels reach "
                  "the ceiling late", levels, "mm", {"vmax": 1.2e-3, "km": 0.5}, ceiling=2.5, spikes=True),
     ]
