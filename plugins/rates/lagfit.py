@@ -2,12 +2,15 @@
 
 When the active enzyme fraction ``a(t)`` changes but the rate law does not, ``dS/dt = -a(t) f(S)`` and the
 substrate follows the ordinary progress curve in the active time ``theta(t) = integral of a from 0 to t``:
-``S(t) = S_MM(theta(t))``. For a hysteretic lag with first-order inactivation (``da/dt = (1 - a)/tau - k a``,
-``a(0) = 0``), ``a = (1 - exp(-(1/tau + k) t)) / (1 + k tau)`` and
+``S(t) = S_MM(theta(t))``. For a hysteretic lag followed by irreversible first-order inactivation of the
+active enzyme (an inactive form p turns active, ``dp/dt = -p/tau``, ``p(0) = 1``; the active form is lost,
+``da/dt = p/tau - k a``, ``a(0) = 0``), ``a = (exp(-k t) - exp(-t/tau)) / (1 - k tau)`` and
 
-    theta(t) = (t - (1 - exp(-r t)) / r) / (1 + k tau),   r = 1/tau + k
+    theta(t) = ((1 - exp(-k t))/k - tau (1 - exp(-t/tau))) / (1 - k tau)
 
-(``theta = (1 - exp(-k t))/k`` without a lag, ``t`` with neither). Each well's curve is fitted with
+(``theta = tau (1 - exp(-t/tau) (1 + t/tau))`` at ``k tau = 1``, ``t - tau (1 - exp(-t/tau))`` without
+inactivation, ``(1 - exp(-k t))/k`` without a lag, ``t`` with neither). The inactive form is taken as stable:
+only the active enzyme is lost, as in first-order inactivation without a lag. Each well's curve is fitted with
 :func:`vzero.plugins.rates.progress.progress_curve` on the time axis ``theta`` for every ``(tau, k)`` of a
 small grid, and the pair with the smallest residual sum of squares is kept (the parabola through the three
 best lag times refines ``tau``). v0 is then the rate at t = 0 with fully active enzyme, and ``tau`` is the lag
@@ -33,8 +36,14 @@ def active_time(t: np.ndarray, tau: float, k: float) -> np.ndarray:
     t = np.asarray(t, dtype=float)
     if tau <= 0:
         return t if k <= 0 else -np.expm1(-k * t) / k
-    r = 1.0 / tau + k
-    return (t + np.expm1(-r * t) / r) / (1.0 + k * tau)
+    lagged = -tau * np.expm1(-t / tau)  # tau (1 - exp(-t/tau)): the active time the lag takes away
+    if k <= 0:
+        return t - lagged
+    gap = 1.0 - k * tau
+    if abs(gap) < 1e-6:  # k tau = 1: the limit of the general form (which loses digits next to it)
+        x = t / tau
+        return -tau * (np.expm1(-x) + x * np.exp(-x))
+    return (-np.expm1(-k * t) / k - lagged) / gap
 
 
 def _fit(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, tau: np.ndarray, k: np.ndarray,
