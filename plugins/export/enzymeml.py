@@ -267,14 +267,14 @@ def _course(found: Any) -> dict[str, Any]:
     t, i = found
     keep = t.mask[i] & np.isfinite(t.signal[i])
     data = [float(v) for v in t.signal[i][keep]]
-    course: dict[str, Any] = {"time": [float(v) for v in t.time[keep]], "time_unit": unit_definition("s"),
+    series: dict[str, Any] = {"time": [float(v) for v in t.time[keep]], "time_unit": unit_definition("s"),
                               "data": data, "data_unit": unit_definition(t.signal_unit), "is_simulated": False}
     if data:
-        course["initial"] = data[0]
+        series["initial"] = data[0]
     kind = SIGNAL_TYPES.get(t.signal_unit)
     if kind:
-        course["data_type"] = kind
-    return course
+        series["data_type"] = kind
+    return series
 
 
 def _fits(fits: Any, measured: str) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
@@ -334,12 +334,12 @@ def _simulated(curves: Any, has_inhibitor: bool) -> list[dict[str, Any]]:
                 m["species_data"].append({"species_id": species, "prepared": value, "initial": value,
                                           "data_unit": unit_definition(units.get(species, ""))})
         time = [float(v) for v in block["time"].to_numpy(float)[keep]]
-        course: dict[str, Any] = {"species_id": "product", "time": time, "time_unit": unit_definition("s"),
+        series: dict[str, Any] = {"species_id": "product", "time": time, "time_unit": unit_definition("s"),
                                   "data": data, "data_unit": conc, "data_type": "concentration",
                                   "is_simulated": True}
         if data:
-            course["initial"] = data[0]
-        m["species_data"].append(course)
+            series["initial"] = data[0]
+        m["species_data"].append(series)
         out.append(m)
     return out
 

@@ -94,11 +94,11 @@ def test_enzymeml_carries_the_fitted_curves(audit: Path, tmp_path: Path) -> None
     curves = pd.read_csv(audit.parent / "progress_curves.csv")
     one = curves[(curves.well == "E4") & (curves.model == "michaelis-menten")].sort_values("time")
     m = next(x for x in simulated if x["name"].startswith("p1 E4: michaelis-menten"))
-    course = next(d for d in m["species_data"] if d["species_id"] == "product")
-    assert course["data_type"] == "concentration" and course["is_simulated"] is True
-    np.testing.assert_allclose(course["time"], one["time"])
-    np.testing.assert_allclose(course["data"], one["fitted"], rtol=1e-12)
-    assert course["data_unit"]["base_units"][0]["scale"] == -6.0  # uM
+    series = next(d for d in m["species_data"] if d["species_id"] == "product")
+    assert series["data_type"] == "concentration" and series["is_simulated"] is True
+    np.testing.assert_allclose(series["time"], one["time"])
+    np.testing.assert_allclose(series["data"], one["fitted"], rtol=1e-12)
+    assert series["data_unit"]["base_units"][0]["scale"] == -6.0  # uM
     law = next(e for e in doc["equations"] if "_curves" in e["equation"])
     assert "product" in law["equation"] and "Kp_" in law["equation"]
 
