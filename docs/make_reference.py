@@ -106,8 +106,9 @@ def render() -> str:
         "## include",
         "",
         "`include` names recipe fragments, YAML files of data merged into the recipe before it is checked:"
-        " `include: [review-decisions.yaml]`. Paths are relative to the file that names them (no absolute"
-        " paths; `.yaml` or `.yml` only). A fragment may hold only "
+        " `include: [review-decisions.yaml]`. Paths are relative to the file that names them and stay in the"
+        " recipe's folder or below it (no absolute paths, no way out with `..`: a received recipe cannot pull"
+        " other files of your disk into its audit file; `.yaml` or `.yml` only). A fragment may hold only "
         + ", ".join(f"`{k}`" for k in includes.FRAGMENT_KEYS) + ": never plugins, steps or plates."
         " Its `exclusions`, `overrides` and `review` items come after the recipe's own, in the order the"
         " fragments are named; its `assay` keys are added, and a key given twice is an error naming both"

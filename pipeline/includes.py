@@ -165,6 +165,11 @@ def compose(path: Path, text: str, given: Sequence[str | Path], read_text: Calla
             raise RecipeError(f"{' -> '.join([*chain, rel])}: fragments nested more than {MAX_DEPTH} deep",
                               hint="Include the inner fragments from the recipe itself.")
         key = target.resolve()
+        if mark == MARK and not key.is_relative_to(base_dir):
+            # a received recipe must not pull files from elsewhere on the disk into the audit file
+            raise RecipeError(f"{chain[-1]}: include {rel!r} leaves the recipe's folder",
+                              hint="Put the fragment beside the recipe (or in a folder below it), or name it "
+                                   "on the command line with a second --recipe.")
         if key in keys:
             raise RecipeError(f"include cycle: {' -> '.join([*chain, rel])}",
                               hint=f"Remove the include of {rel} from {chain[-1]}.")

@@ -89,6 +89,18 @@ def test_cycles_repeats_and_bad_paths_are_refused(tmp_path: Path):
             load(_write(tmp_path, {"recipe.yaml": BASE.replace("[review.yaml]", f"[{bad!r}]")}))
 
 
+
+def test_a_recipe_cannot_include_files_outside_its_folder(tmp_path: Path):
+    """A received recipe must not pull a YAML file from elsewhere on the disk into the audit file."""
+    (tmp_path / "elsewhere.yaml").write_text("review: []\n", "utf-8")
+    inner = tmp_path / "recipes"
+    inner.mkdir()
+    with pytest.raises(RecipeError, match="leaves the recipe's folder"):
+        load(_write(inner, {"recipe.yaml": BASE.replace("[review.yaml]", "['../elsewhere.yaml']")}))
+    (inner / "sub").mkdir()
+    (inner / "sub" / "r.yaml").write_text("review: []\n", "utf-8")  # below the recipe: accepted
+    assert load(_write(inner, {"recipe.yaml": BASE.replace("[review.yaml]", "[sub/r.yaml]")})).data["review"] == []
+
 def test_nesting_is_bounded(tmp_path: Path):
     files = {"recipe.yaml": BASE.replace("review.yaml", "f1.yaml")}
     for k in range(1, includes.MAX_DEPTH + 2):
