@@ -75,6 +75,21 @@ def _selected(frame: pd.DataFrame, cfg: Mapping[str, Any]) -> np.ndarray:
     return use
 
 
+def unmodelled_shapes(flags: pd.Series, *, lag: bool, inactivation: bool) -> list[str]:
+    """Warnings for fitted wells whose rates step saw a shape the curve model is not asked to describe: a lag
+    (flag ``lag``) without ``lag: true``, a falling rate (flag ``decay``) without ``inactivation: true``.
+    A curve model without them is biased on such wells (docs/fitting.md, the lag-decay rows), and the
+    curve fit cannot see it from the reads alone as the rates step did."""
+    sets = [set(filter(None, str(f).split(";"))) for f in flags.fillna("").astype(str)]
+    out = []
+    for name, option, on in (("lag", "lag", lag), ("decay", "inactivation", inactivation)):
+        n = sum(name in s for s in sets)
+        if n and not on:
+            out.append(f"fit (curves): {n} fitted well(s) carry the rates step's '{name}' flag but the curve "
+                       f"model has no {name}; consider '{option}: true' (check the residual panels)")
+    return out
+
+
 def _lots(labels: np.ndarray, reference: str | None) -> tuple[tuple[str, ...], np.ndarray]:
     """The lots of one group's wells, reference first (``reference`` when the group has it, else the first
     lot in layout order), and each well's index into them."""
@@ -185,6 +200,9 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     kin = bool(cfg["inactivation"])
     prod = bool(cfg["product_inhibition"])
     lag = bool(cfg["lag"])
+    if "flags" in frame.columns:
+        for text in unmodelled_shapes(frame.loc[use, "flags"], lag=lag, inactivation=kin):
+            data.warn(text)
     lot_labels = _lot_labels(frame, use, data) if cfg["lots"] else None
     if lot_labels is not None:
         use &= lot_labels != ""

@@ -175,3 +175,16 @@ def test_recipe_option_lag_reaches_the_fits_table(tmp_path: Path) -> None:
     curves = pd.read_csv(tmp_path / "run" / "progress_curves.csv")
     span = float(curves["time"].max())
     assert np.all((rows.estimate >= 0) & (rows.estimate < 0.05 * span)), rows.estimate.tolist()
+
+
+def test_wells_with_a_lag_or_decay_flag_ask_for_the_options():
+    """The rates step's lag and decay flags on fitted wells prompt a warning when the curve model lacks them."""
+    import pandas as pd
+    from vzero.plugins.fit.curves.run import unmodelled_shapes
+
+    flags = pd.Series(["lag", "lag;decay", "", None, "noisy"])
+    texts = unmodelled_shapes(flags, lag=False, inactivation=False)
+    assert len(texts) == 2 and "2 fitted well(s)" in texts[0] and "'lag: true'" in texts[0]
+    assert "1 fitted well(s)" in texts[1] and "'inactivation: true'" in texts[1]
+    assert unmodelled_shapes(flags, lag=True, inactivation=True) == []
+    assert unmodelled_shapes(pd.Series(["noisy", ""]), lag=False, inactivation=False) == []
