@@ -540,6 +540,13 @@ def _with_comparison(fits: pd.DataFrame, comp_rows: list[dict[str, Any]]) -> pd.
     )
 
 
+def fit_row_head(group: str, model: str, res: Any) -> dict[str, Any]:
+    """The columns every fits-table row of one (group, model) fit shares, whichever route fitted it."""
+    return {"group": group, "model": model, "n_points": res.n_points, "rss": res.rss, "dof": res.dof,
+            "r_squared": res.r_squared, "aicc": res.aicc, "success": res.success, "message": res.message,
+            "errorbars": res.errorbars}
+
+
 def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
             point_sets: dict[tuple[str, str], tuple[int, ...]], extra_notes: dict[tuple[str, str], str],
             cfg: Mapping[str, Any], xvars: dict[str, dict[str, np.ndarray]], var: dict[str, np.ndarray],
@@ -554,9 +561,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], engine.FitResult],
     curve_blocks: list[dict[str, np.ndarray]] = []
     for (g, mname), res in fits.items():
         model = by_name[mname]
-        common = {"group": g, "model": mname, "n_points": res.n_points, "rss": res.rss, "dof": res.dof,
-                  "r_squared": res.r_squared, "aicc": res.aicc, "success": res.success, "message": res.message,
-                  "errorbars": res.errorbars}
+        common = fit_row_head(g, mname, res)
         problem = extra_notes.get((g, mname), "")
         saturation = problem.startswith("the highest substrate level")
         for name in model.params:

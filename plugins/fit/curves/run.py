@@ -312,9 +312,7 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], Any],
     curve_blocks: list[dict[str, np.ndarray]] = []
     for (g, mname), res in fits.items():
         model = by_name[mname]
-        common = {"group": g, "model": mname, "n_points": res.n_points, "rss": res.rss, "dof": res.dof,
-                  "r_squared": res.r_squared, "aicc": res.aicc, "success": res.success, "message": res.message,
-                  "errorbars": res.errorbars}
+        common = rates_run.fit_row_head(g, mname, res)
         pair = fitted.get((g, mname))
         lots = pair[0].lots if pair is not None else ()
         lot_note = (f"activity factors relative to enzyme lot {lots[0]}, which the limiting rate refers to"
