@@ -109,6 +109,10 @@ class Recipe:
     notices: list[str] = field(default_factory=list)
     #: where each attached fragment starts: (line offset in the text, file name); the recipe itself is (0, name).
     segments: list[tuple[int, str]] = field(default_factory=list)
+    #: set by ``vzero rerun`` with the stored recipe: the old run's steps by position, ``{index: (kind,
+    #: method, settings)}``. A method or parameter the recipe leaves to its default keeps the value the old run
+    #: used where that default has changed since, so a rerun repeats the old analysis (with a notice).
+    previous: dict[int, tuple[str, str, dict[str, Any]]] = field(default_factory=dict)
 
     @property
     def sha256(self) -> str:
@@ -631,6 +635,36 @@ def _manifest_plates(
     return out
 
 
+def _notice(recipe: Recipe, path: tuple[Any, ...], msg: str) -> None:
+    text = f"{recipe.where(path)}: {msg}"
+    if text not in recipe.notices:
+        recipe.notices.append(text)
+
+
+def _plain(value: Any) -> Any:
+    """A setting as the audit file stores it (``settings`` attribute): JSON scalars, lists and mappings as
+    they are, anything else as text."""
+    return value if isinstance(value, bool | int | float | list | dict | None) else str(value)
+
+
+def _keep_old_defaults(recipe: Recipe, path: tuple[Any, ...], declared: Mapping[str, Param],
+                       written: Mapping[str, Any], settings: dict[str, Any], old: Mapping[str, Any]) -> dict[str, Any]:
+    """``settings`` with every parameter the recipe does not write set to the old run's value where the
+    default has changed since (a rerun of a stored recipe repeats the old analysis), each with a notice.
+    A stored value that the parameter no longer accepts is left to the new default."""
+    for key in declared:
+        if key in written or key not in old or _plain(settings[key]) == old[key]:
+            continue
+        kept, problems = validate(declared, {**written, key: old[key]})
+        if problems:
+            continue
+        _notice(recipe, path, f"{key!r} not named; the old run used {old[key]!r}, then the default (now "
+                f"{_plain(settings[key])!r}): kept, so the rerun repeats it; name {key!r} in a recipe of your own "
+                "to change it")
+        settings[key] = kept[key]
+    return settings
+
+
 def _check_steps(
     recipe: Recipe,
     steps: Any,
@@ -664,8 +698,15 @@ def _check_steps(
         if not isinstance(body, dict):
             bad((*path, kind), "expected a mapping with 'method' and the method's parameters")
             continue
+        prev = recipe.previous.get(i + 1)
+        if prev is not None and prev[0] != kind:
+            prev = None
         if method is None:  # a step that names no method gets its kind's default, if the kind has one
             method = registry.default(kind)
+            if prev is not None and prev[1] != method and prev[1] in registry.names(kind):
+                _notice(recipe, (*path, kind), f"no method named; the old run used {prev[1]!r}, then the "
+                        f"default (now {method!r}): kept, so the rerun repeats it")
+                method = prev[1]
         if not isinstance(method, str):
             bad((*path, kind), f"missing 'method'; available {kind} methods: {', '.join(registry.names(kind))}")
             continue
@@ -676,6 +717,8 @@ def _check_steps(
             continue
         written = {k: v for k, v in body.items() if k != "method"}
         settings, problems = validate(entry.component.params, written)
+        if prev is not None and prev[1] == method and not problems:
+            settings = _keep_old_defaults(recipe, (*path, kind), entry.component.params, written, settings, prev[2])
         cross = getattr(entry.component, "check_settings", None)
         if cross is not None and not problems:
             problems.extend(cross(settings))

@@ -126,6 +126,23 @@ def header(f: Any) -> dict[str, Any]:
     return out
 
 
+def read_step_settings(f: Any) -> dict[int, tuple[str, str, dict[str, Any]]]:
+    """The steps of the run that wrote ``f`` by position (the ``NN`` of ``/steps/NN-kind-method``): ``{index:
+    (kind, method, settings)}``, settings as stored (after defaults). Groups not named that way are skipped."""
+    out: dict[int, tuple[str, str, dict[str, Any]]] = {}
+    steps = f.get("steps")
+    if steps is None:
+        return out
+    for label in steps:
+        head = label.split("-", 1)[0]
+        g = steps[label]
+        settings = json_attr(g, "settings", None)
+        if not head.isdigit() or not isinstance(settings, dict):
+            continue
+        out[int(head)] = (str(g.attrs.get("kind", "")), str(g.attrs.get("method", "")), settings)
+    return out
+
+
 def read_inputs(f: Any) -> list[StoredInput]:
     """Every raw input kept in the file, in stored order, with its bytes."""
     out = []

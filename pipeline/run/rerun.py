@@ -200,6 +200,7 @@ def rerun(
 
     with reader.open_audit(old) as f:
         head = reader.header(f)
+        previous = reader.read_step_settings(f)
     source = StoredInputs.from_audit(old)
     stored_plugins = head.get("plugins") or {}
     if recipe is None and fragments:
@@ -212,6 +213,7 @@ def rerun(
                                  hint="Run vzero verify on it; give a recipe of your own with --recipe.")
         original = Path(head.get("recipe_path") or "recipe.yaml")
         rec = parse(text, str(original))
+        rec.previous = previous
         rec.plugin_override, changed = match_given_plugins(
             rec.plugin_entries, plugins, stored_plugins, allow_changed_plugins, str(old))
     else:
