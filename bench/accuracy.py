@@ -10,7 +10,8 @@ well and the signal per concentration.
 Printed per scenario: median and 95th percentile of |v0/true - 1| by substrate level (a well without a
 rate counts as an infinite error, so a p95 of "-" means more than 5 % of wells got none), the ratio of
 each method's root-mean-square relative error to the reference's, and the parameters fitted from each
-draw's rates (scipy ``curve_fit``, unweighted, wells the default exclusions remove left out): median bias,
+draw's rates (scipy ``curve_fit`` weighted as the fit stage's default, ``rate-error`` with a 1 % share; the
+reference, which has no standard errors, unweighted; wells the default exclusions remove left out): median bias,
 robust spread (1.4826 x MAD) and the share of draws within 5 % of the truth. ``--write`` replaces the
 section between the markers ``<!-- accuracy:start -->`` and ``<!-- accuracy:end -->`` of the file.
 """
@@ -116,6 +117,16 @@ def fit_params(sc: Scenario, v: np.ndarray, keep: np.ndarray, se: np.ndarray | N
         return np.full(len(names), np.nan)
 
 
+def default_sigma(r: dict, sc: Scenario, k: int) -> np.ndarray | None:
+    """The fit stage's default sigma for draw ``k`` of a method's rates (``rate-error`` weighting with
+    :data:`RATE_ERROR_SHARE`, in mM/s), or None (unweighted) where the rates carry no standard error: the
+    reference analysis, or a draw without any usable SE (the fit stage then fits unweighted too)."""
+    if "se" not in r:
+        return None
+    sig = rate_error_sigma(r["v0"][k] / sc.spc, r["se"][k] / abs(sc.spc), RATE_ERROR_SHARE)[0]
+    return sig if np.all(np.isfinite(sig)) else None
+
+
 def evaluate(sc: Scenario, n_draws: int, methods: dict[str, Method], seed: int = 1) -> dict:
     """Rates and fitted parameters of every method (and the reference) on ``n_draws`` plates of ``sc``."""
     truth = integrate(sc)
@@ -138,7 +149,8 @@ def evaluate(sc: Scenario, n_draws: int, methods: dict[str, Method], seed: int =
                      "flags": flags.reshape(n_draws, n_c), "se": se.reshape(n_draws, n_c)}
     for r in out.values():
         r["err"] = r["v0"] / truth.v0[None, :] - 1.0
-        r["params"] = np.stack([fit_params(sc, r["v0"][k] / sc.spc, r["keep"][k]) for k in range(n_draws)])
+        r["params"] = np.stack([fit_params(sc, r["v0"][k] / sc.spc, r["keep"][k], default_sigma(r, sc, k))
+                                for k in range(n_draws)])
     return {"scenario": sc, "truth": truth, "results": out}
 
 
@@ -169,7 +181,7 @@ def _weighted(sc: Scenario, r: dict) -> dict[str, np.ndarray]:
     with np.errstate(invalid="ignore", divide="ignore"):
         significant = np.abs(v / se) >= 2.0
     out = {
-        WEIGHTINGS[0]: r["params"],
+        WEIGHTINGS[0]: np.stack([fit_params(sc, v[k], keep[k]) for k in range(n)]),
         WEIGHTINGS[1]: np.stack([fit_params(sc, v[k], keep[k], se[k]) for k in range(n)]),
     }
     for j, share in enumerate(SHARES):
