@@ -68,11 +68,11 @@ def test_readme_error_example_is_what_vzero_prints(tmp_path: Path, capsys):
     import shutil
 
     readme = (ROOT / "README.md").read_text("utf-8")
-    shown = re.search(r"^\s*(error: demo\.yaml:\d+ steps\[2\]\.rates\.end: .*)$", readme, re.M)
+    shown = re.search(r"^\s*(error: demo\.yaml:\d+ steps\[2\]\.rates\.pathlength: .*)$", readme, re.M)
     assert shown, "README lost its error example"
     for name in ("demo.yaml", "demo_plate.csv", "demo_layout.csv"):
         shutil.copy(ROOT / "configs" / name, tmp_path / name)
     recipe = tmp_path / "demo.yaml"
-    recipe.write_text(recipe.read_text("utf-8").replace('end: "90 s"', "end: 90"), "utf-8")
+    recipe.write_text(recipe.read_text("utf-8").replace('pathlength: "0.55 cm"', "pathlength: 0.55", 1), "utf-8")
     assert main(["check", str(recipe)]) == 2
     assert shown.group(1).strip() in capsys.readouterr().err
