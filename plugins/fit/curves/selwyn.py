@@ -3,7 +3,9 @@
 If the enzyme keeps its activity during the assay and the rate is proportional to its concentration, the
 product formed depends on enzyme and time only through their product E·t: curves run at different enzyme
 concentrations, plotted against E·t, superimpose. Where a group holds the same reaction (same substrate and
-inhibitor level) at two or more enzyme concentrations, each such set is tested:
+inhibitor level, and with enzyme lots modelled the same lot: lots differ in specific activity, so their
+curves need not superimpose however stable the enzyme) at two or more enzyme concentrations, each such set
+is tested:
 
 * shared model: one cubic through the origin in E·t, a·(Et) + b·(Et)² + c·(Et)³, plus an offset per well;
 * separate model: one such cubic per enzyme level (offsets per well as before);
@@ -48,12 +50,14 @@ def _design(x: np.ndarray, well: np.ndarray, level: np.ndarray | None, n_levels:
 
 
 def test(group: Any, alpha: float = 0.05) -> SelwynResult:
-    """Selwyn's test on every (substrate, inhibitor) set of ``group`` (a :class:`.fit.CurveGroup`) that has
-    two or more enzyme levels."""
+    """Selwyn's test on every (substrate, inhibitor, lot) set of ``group`` (a :class:`.fit.CurveGroup`) that
+    has two or more enzyme levels (the lot only where the group models lots)."""
     out = SelwynResult()
     w = group.wells
     e = w.enzyme
-    keys = np.stack([w.s0, w.inhibitor], axis=1)
+    lots = group.lot is not None and len(group.lots) > 1
+    lot = np.asarray(group.lot, float) if lots else np.zeros(e.size)
+    keys = np.stack([w.s0, w.inhibitor, lot], axis=1)
     fails = []
     for key in np.unique(keys, axis=0):
         members = np.flatnonzero(np.all(keys == key, axis=1) & np.isfinite(e) & (e > 0))
@@ -91,9 +95,11 @@ def test(group: Any, alpha: float = 0.05) -> SelwynResult:
         dev = max(float(np.max(np.abs(c_sp[3 * j] * grid + c_sp[3 * j + 1] * grid**2 + c_sp[3 * j + 2] * grid**3
                                       - shared))) for j in range(levels.size)) / span
         failed = bool(p < alpha and dev > PRACTICAL)
+        lot_text = f", lot {group.lots[int(key[2])]}" if lots else ""
         if failed:
-            fails.append(f"S0 {key[0]:g}, I {key[1]:g}: p = {p:.2g}, curves differ by {100 * dev:.1f} %")
+            fails.append(f"S0 {key[0]:g}, I {key[1]:g}{lot_text}: p = {p:.2g}, curves differ by {100 * dev:.1f} %")
         out.rows.append({"group": group.name, "substrate": float(key[0]), "inhibitor": float(key[1]),
+                         **({"lot": group.lots[int(key[2])]} if lots else {}),
                          "enzyme_levels": ", ".join(f"{v:g}" for v in levels), "n_wells": len(members),
                          "F": f, "p": p, "max_difference": dev, "superimpose": not failed,
                          "verdict": "fails: enzyme may be unstable" if failed else "passes"})

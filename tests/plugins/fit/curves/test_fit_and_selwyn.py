@@ -84,6 +84,23 @@ def test_selwyn_passes_a_stable_enzyme_and_fails_an_unstable_one() -> None:
     assert {pt["enzyme"] for pt in unstable.points} == {5.0, 10.0}
 
 
+def test_selwyn_compares_wells_of_one_enzyme_lot() -> None:
+    # a stable enzyme from two lots, lot B at 60 % of lot A's activity: A at 5 and 10 nM, B at 10 and 20 nM.
+    # Within a lot the curves superimpose on E·t; pooled, the 10-nM level mixes the lots and they do not,
+    # which says nothing about stability
+    import dataclasses
+
+    s0 = np.full(4, 100.0)
+    nominal = np.array([5.0, 10.0, 10.0, 20.0])
+    g = _simulate("michaelis-menten", [5.0, 20.0], s0, nominal * np.array([1, 1, 0.6, 0.6]), seed=2)
+    g = dataclasses.replace(g, wells=dataclasses.replace(g.wells, enzyme=nominal))
+    mixed = selwyn.test(g, alpha=0.05)  # lots not modelled: one set of four wells
+    assert len(mixed.rows) == 1 and mixed.failed
+    by_lot = selwyn.test(dataclasses.replace(g, lots=("A", "B"), lot=np.array([0, 0, 1, 1])), alpha=0.05)
+    assert [r["lot"] for r in by_lot.rows] == ["A", "B"] and not by_lot.failed
+    assert all(r["superimpose"] and r["n_wells"] == 2 for r in by_lot.rows)
+
+
 def test_selwyn_needs_two_enzyme_levels() -> None:
     res = selwyn.test(_simulate("michaelis-menten", [5.0, 20.0], S0[:4], np.full(4, 10.0)), alpha=0.05)
     assert res.rows == [] and not res.failed
