@@ -295,7 +295,7 @@ class WindowRates(RateMethod):
         s0, per = conversion(plate, settings, lambda _m: None)
         if per is None:
             plate.warn("window: no signal_per_conc (or epsilon and pathlength) given: a loss of activity "
-                       "(decay) is not checked")
+                       "(decay) and agreement with the model-free estimate (disagrees) are not checked")
         return shared_checks(time, signal, window_slopes(time, signal, start, end), s0=s0, signal_per_conc=per,
                              finds_lags=False, models_decay=False)
 

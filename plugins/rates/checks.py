@@ -150,7 +150,7 @@ def model_free_gap(time: np.ndarray, signal: np.ndarray, v0: np.ndarray, stderr:
     differ through their different weights, so ``SE_d`` is at least
     :data:`vzero.plugins.rates.choice.DIFF_FLOOR` of the larger SE.
     """
-    from vzero.plugins.rates.choice import CENSORED_READS, DIFF_FLOOR, early_quadratic, quadratic_bias, trim_censored
+    from vzero.plugins.rates.choice import CENSORED_READS, early_quadratic, quadratic_bias, trim_censored
     from vzero.plugins.rates.noise import conversion_scale, screen
     from vzero.plugins.rates.spikes import find_spikes
 
@@ -169,9 +169,20 @@ def model_free_gap(time: np.ndarray, signal: np.ndarray, v0: np.ndarray, stderr:
     v = np.asarray(v0, dtype=float)
     se = np.asarray(stderr, dtype=float)
     with np.errstate(invalid="ignore"):
-        se_d = np.sqrt(np.fmax(np.abs(q.se**2 - se**2), (DIFF_FLOOR * np.fmax(q.se, se)) ** 2))
-        gap = (np.abs(v - q.v0) - np.nan_to_num(bias, nan=0.0) * np.abs(q.v0)) / se_d
+        gap = (np.abs(v - q.v0) - np.nan_to_num(bias, nan=0.0) * np.abs(q.v0)) / difference_se(q.se, se)
     return np.where(sc.usable, gap, np.nan)
+
+
+def difference_se(se_a: np.ndarray, se_b: np.ndarray) -> np.ndarray:
+    """Standard error of the difference of two estimates of one quantity from overlapping reads, the more
+    precise of them efficient: ``sqrt(|SE_a² - SE_b²|)`` (Hausman 1978), at least
+    :data:`vzero.plugins.rates.choice.DIFF_FLOOR` of the larger SE (see :func:`model_free_gap`). Same unit
+    as the SEs."""
+    from vzero.plugins.rates.choice import DIFF_FLOOR
+
+    a, b = np.asarray(se_a, dtype=float), np.asarray(se_b, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.sqrt(np.fmax(np.abs(a**2 - b**2), (DIFF_FLOOR * np.fmax(a, b)) ** 2))
 
 
 def mark_disagreement(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: np.ndarray | None,
