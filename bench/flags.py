@@ -11,7 +11,9 @@ well's condition (the issue's definition); a rate is *in tolerance* when ``|v0/t
 
 Printed (and written between ``<!-- flags:start -->`` and ``<!-- flags:end -->``): per method and flag, the
 share of in-tolerance and of bad wells that carry it, summed over every scenario; the same for the union of
-the flags the fit stage excludes by default; and the median signed error of the wells carrying each flag.
+the flags the fit stage excludes by default; the median signed error of the wells carrying each flag; and
+two threshold sweeps, of |v0|/SE for NOISY and of the model-free gap for DISAGREES
+(:func:`vzero.plugins.rates.checks.model_free_gap`, measured on every method's rates, ``model-choice``'s too).
 Invented plates for benchmarking only.
 """
 
