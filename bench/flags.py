@@ -11,7 +11,9 @@ well's condition (the issue's definition); a rate is *in tolerance* when ``|v0/t
 
 Printed (and written between ``<!-- flags:start -->`` and ``<!-- flags:end -->``): per method and flag, the
 share of in-tolerance and of bad wells that carry it, summed over every scenario; the same for the union of
-the flags the fit stage excludes by default; and the median signed error of the wells carrying each flag.
+the flags the fit stage excludes by default; the median signed error of the wells carrying each flag; and
+two threshold sweeps, of |v0|/SE for NOISY and of the model-free gap for DISAGREES
+(:func:`vzero.plugins.rates.checks.model_free_gap`, measured on every method's rates, ``model-choice``'s too).
 Invented plates for benchmarking only.
 """
 
@@ -33,6 +35,7 @@ from vzero.params import validate  # noqa: E402
 from vzero.plugins import rates  # noqa: E402
 from vzero.plugins.kinetics.flags import FLAG_NAMES, Flag  # noqa: E402
 from vzero.plugins.kinetics.methods import PlateView  # noqa: E402
+from vzero.plugins.rates.checks import model_free_gap  # noqa: E402
 
 from bench.accuracy import DEFAULT_EXCLUDE, blank_corrected, write_section  # noqa: E402
 from bench.plates import Scenario, draw, integrate, scenarios  # noqa: E402
@@ -50,13 +53,19 @@ STAGES: dict[str, tuple[type, dict[str, object]]] = {
 }
 
 #: Flags a rate method sets on a sample well that has a rate (the others mean no rate, or come from the recipe).
-RATE_FLAGS = ("saturated", "high_conversion", "curvature", "lag", "decay", "noisy", "spike", "unmodelled")
+RATE_FLAGS = ("saturated", "high_conversion", "curvature", "lag", "decay", "noisy", "spike", "unmodelled",
+              "disagrees")
 
 
 Runner = Callable[[Scenario, np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray]]
 
 #: Thresholds of |v0| / SE tried for NOISY (the rates methods use :data:`vzero.plugins.rates.noise.NOISY_MIN_T`).
 NOISY_SWEEP = (3.0, 5.0, 10.0, 20.0)
+
+#: Thresholds tried for DISAGREES: the model-free gap of :func:`vzero.plugins.rates.checks.model_free_gap`
+#: (standard errors of the difference beyond the quadratic's bias; the check uses
+#: :data:`vzero.plugins.rates.checks.DISAGREE_Z`).
+DISAGREE_SWEEP = (2.0, 3.0, 4.0, 5.0, 7.0, 10.0)
 
 
 def stage_runner(name: str) -> Runner:
@@ -94,8 +103,10 @@ class Tally:
     errors: dict[str, list[np.ndarray]] = field(default_factory=dict)
     snr_good: list[np.ndarray] = field(default_factory=list)
     snr_bad: list[np.ndarray] = field(default_factory=list)
+    gap_good: list[np.ndarray] = field(default_factory=list)
+    gap_bad: list[np.ndarray] = field(default_factory=list)
 
-    def add(self, err: np.ndarray, tol: np.ndarray, flags: np.ndarray, snr: np.ndarray) -> None:
+    def add(self, err: np.ndarray, tol: np.ndarray, flags: np.ndarray, snr: np.ndarray, gap: np.ndarray) -> None:
         has = np.isfinite(err)
         good = has & (np.abs(err) <= tol)
         bad = has & (np.abs(err) > 2.0 * tol)
@@ -104,9 +115,14 @@ class Tally:
         self.no_rate += int((~has).sum())
         self.snr_good.append(snr[good])
         self.snr_bad.append(snr[bad])
+        # wells flagged LAG are not compared (module text of vzero.plugins.rates.checks): NaN, never flagged
+        gap = np.where((flags & int(Flag.LAG)) != 0, np.nan, gap)
+        self.gap_good.append(gap[good])
+        self.gap_bad.append(gap[bad])
         marks = {name: (flags & int(FLAG_NAMES[name])) != 0 for name in RATE_FLAGS}
         marks["default exclusions"] = (flags & DEFAULT_EXCLUDE) != 0
         marks["noisy or unmodelled"] = marks["noisy"] | marks["unmodelled"]
+        marks["noisy or disagrees"] = marks["noisy"] | marks["disagrees"]
         marks["any flag above"] = np.logical_or.reduce([marks[n] for n in RATE_FLAGS])
         for name, m in marks.items():
             self.on_good[name] = self.on_good.get(name, 0) + int((m & good).sum())
@@ -133,8 +149,9 @@ def measure(chosen: list[Scenario], n_draws: int, methods: list[str]) -> dict[st
             v0, flags, se = runners[m](sc, t, y)
             flags = flags | np.where(saturated, int(Flag.SATURATED), 0)
             err = v0 / np.tile(truth.v0, n_draws) - 1.0
+            gap = model_free_gap(t, y, v0, se, s0=np.tile(sc.s0, n_draws), signal_per_conc=abs(sc.spc))
             with np.errstate(invalid="ignore", divide="ignore"):
-                out[m].add(err, tol, flags, np.abs(v0 / se))
+                out[m].add(err, tol, flags, np.abs(v0 / se), gap)
         print(f"({sc.name} done)", flush=True)
     return out
 
@@ -150,7 +167,8 @@ def table(tallies: dict[str, Tally]) -> str:
     for m, tl in tallies.items():
         lines.append(f"| **{m}** | (wells: {tl.good} in tolerance, {tl.bad} bad, {tl.no_rate} without a rate) "
                      "| | | |")
-        for name in (*RATE_FLAGS, "noisy or unmodelled", "default exclusions", "any flag above"):
+        for name in (*RATE_FLAGS, "noisy or unmodelled", "noisy or disagrees", "default exclusions",
+                     "any flag above"):
             errs = np.concatenate(tl.errors.get(name, [np.empty(0)]))
             if errs.size == 0 and name in RATE_FLAGS:
                 continue
@@ -170,6 +188,20 @@ def noisy_sweep(tallies: dict[str, Tally]) -> str:
         good, bad = np.concatenate(tl.snr_good), np.concatenate(tl.snr_bad)
         cells = [f"{_share(int((good < t).sum()), good.size)} / {_share(int((bad < t).sum()), bad.size)}"
                  for t in NOISY_SWEEP]
+        lines.append(f"| {m} | " + " | ".join(cells) + " |")
+    return "\n".join(lines) + "\n"
+
+
+def disagree_sweep(tallies: dict[str, Tally]) -> str:
+    """Markdown: for each method, the share of in-tolerance and of bad rates whose model-free gap exceeds each
+    threshold of :data:`DISAGREE_SWEEP` (wells flagged LAG are not compared; ``model-choice`` is measured
+    here although the stage skips the check after it)."""
+    head = " | ".join(f"gap > {z:g}" for z in DISAGREE_SWEEP)
+    lines = [f"| method | {head} |", "| --- |" + " --- |" * len(DISAGREE_SWEEP)]
+    for m, tl in tallies.items():
+        good, bad = np.concatenate(tl.gap_good), np.concatenate(tl.gap_bad)
+        cells = [f"{_share(int((good > z).sum()), good.size)} / {_share(int((bad > z).sum()), bad.size)}"
+                 for z in DISAGREE_SWEEP]
         lines.append(f"| {m} | " + " | ".join(cells) + " |")
     return "\n".join(lines) + "\n"
 
@@ -223,7 +255,9 @@ def main(argv: list[str] | None = None) -> int:
     text = (f"{args.draws} noise draws of each of {len(chosen)} scenarios (`python -m bench.flags --draws "
             f"{args.draws}`); tolerance per condition: the larger of 5 % and twice the reference's RMSE.\n\n"
             + table(tallies) + "\nNOISY threshold sweep: share of in-tolerance / of bad rates whose |v0|/SE is "
-            "below each threshold:\n\n" + noisy_sweep(tallies))
+            "below each threshold:\n\n" + noisy_sweep(tallies)
+            + "\nDISAGREES threshold sweep: share of in-tolerance / of bad rates whose model-free gap exceeds each "
+            "threshold:\n\n" + disagree_sweep(tallies))
     print(text)
     if args.write:
         write_section(args.write, text, "flags")

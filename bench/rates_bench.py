@@ -28,6 +28,7 @@ from scipy.special import wrightomega  # noqa: E402
 from vzero.plugins.kinetics.flags import Flag  # noqa: E402
 from vzero.plugins.kinetics.simulate import simulate_plate  # noqa: E402
 from vzero.plugins.rates.auto import auto  # noqa: E402
+from vzero.plugins.rates.checks import mark_disagreement  # noqa: E402
 from vzero.plugins.rates.choice import model_choice  # noqa: E402
 from vzero.plugins.rates.polynomial import polynomial  # noqa: E402
 from vzero.plugins.rates.progress import progress_curve  # noqa: E402
@@ -165,6 +166,11 @@ def bench_plate(n_w: int, n_t: int) -> None:
     print(f"  model-choice (default):      kernel {c_sec:8.4f}  = {c_sec / a_sec:5.2f}x auto ({a_sec:.4f}; "
           f"target at most 3x); curve_fit loop {p_sec / c_sec:6.1f}x slower{note} (target at least 50x), "
           f"growing polyfit {g_sec / c_sec:6.1f}x slower{g_note}; median |v0 error| {err_mc:.2%}")
+
+    r_auto_s = auto(t, y, s0=s0, signal_per_conc=SPC)
+    d_sec, _ = timed(lambda: mark_disagreement(t, y, r_auto_s, s0=s0, signal_per_conc=SPC), 3)
+    print(f"  shared model-free check (DISAGREES) after auto: {d_sec:8.4f}  = {d_sec / a_sec:5.2f}x auto's kernel "
+          "(not run after model-choice, which makes the comparison itself)")
 
     k_sec, r_pw = timed(lambda: progress_curve(t, y, s0=s0, signal_per_conc=SPC, model="power"), 2)
     err_pw = np.nanmedian(np.abs(r_pw.v0[signal_wells] / v_true[signal_wells] - 1))

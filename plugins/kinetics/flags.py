@@ -30,6 +30,7 @@ class Flag(enum.IntFlag):
     OVERRIDDEN = 1 << 11  # window fixed by the recipe (with a reason recorded)
     SPIKE = 1 << 12  # a single-read outlier found by a robust test; that read is masked, the rest is used
     UNMODELLED = 1 << 13  # a lag (or decay) the rate method does not model: left out of fits by default
+    DISAGREES = 1 << 14  # v0 differs from the model-free early quadratic's beyond its standard errors
 
 
 FLAG_NAMES: dict[str, Flag] = {f.name.lower(): f for f in Flag if f.name and f is not Flag.NONE}
@@ -63,6 +64,8 @@ DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
     Flag.SPIKE: ("a single-read outlier, masked; the rate uses the other reads", "spike"),
     Flag.UNMODELLED: ("a lag or decay that the rate method does not model: its rate is not the initial rate, "
                       "so the well is left out of fits by default", "unmod"),
+    Flag.DISAGREES: ("the rate differs from the model-free estimate (a quadratic over the early reads) by more "
+                     "than the noise allows: the method's model may not fit this curve", "disagr"),
 }
 
 

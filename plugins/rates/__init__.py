@@ -107,7 +107,8 @@ class KernelRates(RateMethod):
         from vzero.plugins.rates.checks import shared_checks
 
         return shared_checks(time, signal, result, s0=s0, signal_per_conc=per, finds_lags=self.finds_lags(),
-                             models_decay=self.models_decay(), min_points=int(self.settings.get("min_points", 8)))
+                             models_decay=self.models_decay(), min_points=int(self.settings.get("min_points", 8)),
+                             compares_model_free=self.compares_model_free())
 
     def finds_lags(self) -> bool:
         """Whether the kernel looks for lags itself and models the wells that have one (then it sets LAG; else
@@ -117,6 +118,11 @@ class KernelRates(RateMethod):
     def models_decay(self) -> bool:
         """Whether the kernel models a loss of activity itself (then it sets DECAY; else
         :func:`vzero.plugins.rates.checks.mark_decay` flags such wells DECAY and UNMODELLED after the kernel)."""
+        return False
+
+    def compares_model_free(self) -> bool:
+        """Whether the kernel compares its v0 with the model-free early quadratic itself (else
+        :func:`vzero.plugins.rates.checks.mark_disagreement` flags the wells where they disagree)."""
         return False
 
     def _value(self, key: str) -> Any:
@@ -185,6 +191,11 @@ class ModelChoiceRates(KernelRates):
 
     def models_decay(self) -> bool:
         """Wells whose rate falls faster than depletion explains get the first-order decay model (DECAY)."""
+        return True
+
+    def compares_model_free(self) -> bool:
+        """The model choice starts from the model-free quadratic and keeps a curve only where it agrees with
+        it (or describes the reads within the noise), so the shared comparison would repeat that work."""
         return True
 
 
@@ -284,7 +295,7 @@ class WindowRates(RateMethod):
         s0, per = conversion(plate, settings, lambda _m: None)
         if per is None:
             plate.warn("window: no signal_per_conc (or epsilon and pathlength) given: a loss of activity "
-                       "(decay) is not checked")
+                       "(decay) and agreement with the model-free estimate (disagrees) are not checked")
         return shared_checks(time, signal, window_slopes(time, signal, start, end), s0=s0, signal_per_conc=per,
                              finds_lags=False, models_decay=False)
 

@@ -12,6 +12,14 @@ same reads, so the flags mean the same on every method:
 
 A method that does not model what was found adds UNMODELLED: its rate is not the initial rate, and the fit
 stage leaves the well out by default, with the reason in fits.csv.
+
+* DISAGREES, from :func:`mark_disagreement`: the method's v0 differs from the model-free estimate (the slope
+  at t = 0 of a quadratic through the reads up to 20 % conversion, :func:`vzero.plugins.rates.choice.
+  early_quadratic`, the estimate ``model-choice`` starts from) by more than :data:`DISAGREE_Z` standard errors
+  of the difference plus the quadratic's own third-order bias. It sees biased rates (curvature, depletion, a
+  curve of the wrong shape) that NOISY, a precision flag, cannot. Needs s0 and signal_per_conc (the window is
+  set in conversion); skipped quietly without them, and after ``model-choice``, which makes the same
+  comparison while choosing its model.
 """
 
 from __future__ import annotations
@@ -96,12 +104,106 @@ def _falling(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, order: fl
 
 def shared_checks(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: np.ndarray | None,
                   signal_per_conc: float | None, finds_lags: bool, models_decay: bool,
-                  min_points: int = 8) -> RateResult:
-    """Both checks of the module text on a kernel's ``result``: the lag check where the kernel did not look
-    for lags itself (``finds_lags`` False), the decay check where it does not model decay."""
+                  min_points: int = 8, compares_model_free: bool = False) -> RateResult:
+    """The checks of the module text on a kernel's ``result``: the lag check where the kernel did not look
+    for lags itself (``finds_lags`` False), the decay check where it does not model decay, and the agreement
+    with the model-free estimate where the kernel did not make that comparison itself
+    (``compares_model_free`` False)."""
     if not finds_lags:
         result = mark_lags(time, signal, result, modelled=False, min_points=min_points)
     if not models_decay:
         result = mark_decay(time, signal, result, s0=s0, signal_per_conc=signal_per_conc, modelled=False,
                             min_points=min_points)
+    if not compares_model_free:
+        result = mark_disagreement(time, signal, result, s0=s0, signal_per_conc=signal_per_conc,
+                                   min_points=min_points)
     return result
+
+
+#: Standard errors of the difference (plus the quadratic's third-order bias) beyond which a method's v0 and
+#: the model-free estimate disagree (DISAGREES). Chosen by a sweep on the benchmark (docs/rates.md, "Flags:
+#: measured"): the flag should fire on fewer than 10 % of rates within tolerance and more than 80 % of bad ones.
+DISAGREE_Z = 4.0
+
+#: Conversion up to which the model-free quadratic is fitted (as ``model-choice``'s ``window_conversion``).
+MODEL_FREE_CONVERSION = 0.20
+
+
+def model_free_gap(time: np.ndarray, signal: np.ndarray, v0: np.ndarray, stderr: np.ndarray, *,
+                   s0: np.ndarray, signal_per_conc: float, min_points: int = 8,
+                   window_conversion: float = MODEL_FREE_CONVERSION) -> np.ndarray:
+    """Per well, how far ``v0`` (signal/s, SE ``stderr``) lies from the model-free estimate, in standard errors
+    of the difference after the quadratic's own bias is allowed for: ``(|v0 - v_q| - b |v_q|) / SE_d``
+    (NaN where either is missing). Dimensionless.
+
+    ``v_q`` is the slope at t = 0 of the quadratic through the reads up to ``window_conversion`` of the
+    substrate (at least ``min_points`` reads; single-read spikes and the reads beside saturated blocks masked
+    first), exactly as ``model-choice`` computes it. Its standard error ``SE_q`` comes from the read noise.
+    ``b`` is the share of v0 by which the quadratic's slope may be off from the curve's third-order terms,
+    predicted from its own curvature (:func:`vzero.plugins.rates.choice.quadratic_bias`).
+
+    The two estimates use overlapping reads, so they are correlated and the variance of their difference is
+    not the sum of the variances. Where one estimate is efficient (the smallest variance of the unbiased
+    estimates from those reads) its covariance with any other unbiased one equals its own variance, so
+    ``Var(d) = |SE_q² - SE²|`` (Hausman 1978, Econometrica 46:1251; the form ``model-choice`` uses). The
+    more precise of the two is taken to be efficient; where the two are about equally precise they still
+    differ through their different weights, so ``SE_d`` is at least
+    :data:`vzero.plugins.rates.choice.DIFF_FLOOR` of the larger SE.
+    """
+    from vzero.plugins.rates.choice import CENSORED_READS, early_quadratic, quadratic_bias, trim_censored
+    from vzero.plugins.rates.noise import conversion_scale, screen
+    from vzero.plugins.rates.spikes import find_spikes
+
+    t = np.asarray(time, dtype=float)
+    y = trim_censored(np.array(signal, dtype=float, ndmin=2), CENSORED_READS)
+    sc = screen(y, min_points=min_points, time=t)
+    spikes = find_spikes(t, y, sc.sigma)
+    if spikes.any():
+        y[spikes] = np.nan
+        sc = screen(y, min_points=min_points, time=t)
+    n_w = y.shape[0]
+    s = np.broadcast_to(np.asarray(s0, dtype=float), (n_w,))
+    q = early_quadratic(t, y, conversion_scale(s, signal_per_conc, n_w), frac=window_conversion,
+                        min_points=min_points, sigma=sc.sigma)
+    _, bias = quadratic_bias(q, np.abs(sc.change), s, float(signal_per_conc))
+    v = np.asarray(v0, dtype=float)
+    se = np.asarray(stderr, dtype=float)
+    with np.errstate(invalid="ignore"):
+        gap = (np.abs(v - q.v0) - np.nan_to_num(bias, nan=0.0) * np.abs(q.v0)) / difference_se(q.se, se)
+    return np.where(sc.usable, gap, np.nan)
+
+
+def difference_se(se_a: np.ndarray, se_b: np.ndarray) -> np.ndarray:
+    """Standard error of the difference of two estimates of one quantity from overlapping reads, the more
+    precise of them efficient: ``sqrt(|SE_a² - SE_b²|)`` (Hausman 1978), at least
+    :data:`vzero.plugins.rates.choice.DIFF_FLOOR` of the larger SE (see :func:`model_free_gap`). Same unit
+    as the SEs."""
+    from vzero.plugins.rates.choice import DIFF_FLOOR
+
+    a, b = np.asarray(se_a, dtype=float), np.asarray(se_b, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.sqrt(np.fmax(np.abs(a**2 - b**2), (DIFF_FLOOR * np.fmax(a, b)) ** 2))
+
+
+def mark_disagreement(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: np.ndarray | None,
+                      signal_per_conc: float | None, min_points: int = 8, z: float = DISAGREE_Z) -> RateResult:
+    """DISAGREES where :func:`model_free_gap` exceeds ``z`` on a well with a rate and without a LAG flag (a
+    lag puts the quadratic from t = 0 off, and LAG already says so). Returns a new result (the same one when
+    nothing is found or s0/signal_per_conc are unknown)."""
+    if s0 is None or signal_per_conc is None:
+        return result
+    flags = np.asarray(result.flags, dtype=np.int64)
+    rows = np.flatnonzero(np.isfinite(np.asarray(result.v0, dtype=float)) & ((flags & int(Flag.LAG)) == 0))
+    if rows.size == 0:
+        return result
+    y = np.array(signal, dtype=float, ndmin=2)[rows]
+    s = np.broadcast_to(np.asarray(s0, dtype=float), flags.shape)[rows]
+    gap = model_free_gap(time, y, np.asarray(result.v0, float)[rows], np.asarray(result.stderr, float)[rows],
+                         s0=s, signal_per_conc=signal_per_conc, min_points=min_points)
+    with np.errstate(invalid="ignore"):
+        hit = gap > z
+    if not hit.any():
+        return result
+    flags = flags.copy()
+    flags[rows[hit]] |= int(Flag.DISAGREES)
+    return dataclasses.replace(result, flags=flags)

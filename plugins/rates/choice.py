@@ -218,12 +218,22 @@ def _skippable(q: EarlyQuadratic, sc: Screen, s0: np.ndarray, spc: float, bias_s
     the fall; a faster or rising rate is fitted, so that cooperative, inhibited or decaying wells still reach
     their models).
     """
-    with np.errstate(invalid="ignore", divide="ignore"):
-        n = -q.curvature * s0 * spc / q.v0**2
-        x = np.abs(sc.change) / (np.abs(spc) * s0)
-        bias = 0.1 * np.fmax(np.abs(n * (2 * n - 1)), np.abs(n * (3 * n - 2))) * x**2
+    n, bias = quadratic_bias(q, np.abs(sc.change), s0, spc)
+    with np.errstate(invalid="ignore"):
         return (sc.usable & (q.n >= sc.n_valid) & (n >= 0.0) & (n <= 1.5)
                 & (bias * np.abs(q.v0) <= bias_share * q.se))
+
+
+def quadratic_bias(q: EarlyQuadratic, change: np.ndarray, s0: np.ndarray,
+                   spc: float) -> tuple[np.ndarray, np.ndarray]:
+    """The early quadratic's local order ``n = -P'' S0 / v0²`` (from its own curvature) and the share of v0 by
+    which its slope at t = 0 may be off from third-order terms, the larger of ``|n (2n - 1)| x²/10`` (constant
+    order) and ``|n (3n - 2)| x²/10`` (Michaelis–Menten kinetics), ``x`` = ``change`` (signal) over the signal
+    at full conversion (see :func:`_skippable`)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        n = -q.curvature * s0 * spc / q.v0**2
+        x = change / (np.abs(spc) * s0)
+        return n, 0.1 * np.fmax(np.abs(n * (2 * n - 1)), np.abs(n * (3 * n - 2))) * x**2
 
 
 #: Share of the early quadratic's standard error up to which its third-order bias counts as negligible

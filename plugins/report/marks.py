@@ -24,6 +24,7 @@ FLAG_CODES: dict[str, str] = {
     "overridden": "OV",
     "spike": "SP",
     "unmodelled": "UM",
+    "disagrees": "DS",
 }
 """Flag name (as in the rates table) -> its code. A flag without an entry gets its first two letters."""
 
