@@ -28,29 +28,44 @@ S = np.repeat([0.5, 1, 2, 5, 10, 20, 50, 100], 3).astype(float)  # uM, invented 
 S_LOW = np.repeat([0.5, 1, 2, 3, 4, 6, 8, 10], 3).astype(float)  # up to 2 Km only: Km less well determined
 
 # case -> (model, true parameters, noise SD (rate units, or relative when proportional), substrate levels,
-#          proportional noise fitted with the fit stage's "relative" weights)
+#          noise kind and the fit stage's weighting for it: "none" constant SD, unweighted; "relative"
+#          proportional noise, relative weights; "rate-error" each rate with its own SD (0.1 + noise SD x rate,
+#          plus 1 % of the rate, as the default weighting assumes), reported with a standard error estimated
+#          on 20 degrees of freedom, fitted with the default rate-error weights)
 CASES = {
-    "michaelis-menten": ("michaelis-menten", {"Vmax": 10.0, "Km": 5.0}, 0.3, S, False),
-    "hill": ("hill", {"Vmax": 10.0, "K0.5": 5.0, "h": 1.5}, 0.3, S, False),
-    "mm-unsaturated": ("michaelis-menten", {"Vmax": 10.0, "Km": 5.0}, 0.8, S_LOW, False),
-    "mm-relative": ("michaelis-menten", {"Vmax": 10.0, "Km": 5.0}, 0.05, S, True),
+    "michaelis-menten": ("michaelis-menten", {"Vmax": 10.0, "Km": 5.0}, 0.3, S, "none"),
+    "hill": ("hill", {"Vmax": 10.0, "K0.5": 5.0, "h": 1.5}, 0.3, S, "none"),
+    "mm-unsaturated": ("michaelis-menten", {"Vmax": 10.0, "Km": 5.0}, 0.8, S_LOW, "none"),
+    "mm-relative": ("michaelis-menten", {"Vmax": 10.0, "Km": 5.0}, 0.05, S, "relative"),
+    "mm-rate-error": ("michaelis-menten", {"Vmax": 10.0, "Km": 5.0}, 0.03, S, "rate-error"),
+    "hill-rate-error": ("hill", {"Vmax": 10.0, "K0.5": 5.0, "h": 1.5}, 0.03, S, "rate-error"),
 }
 
 
 @functools.cache
 def coverage(case: str) -> dict[tuple[str, str], dict[str, float]]:
     """(parameter, interval kind) -> se_ratio and coverage over the simulated plates."""
-    name, truth, sd, s, relative = CASES[case]
+    name, truth, sd, s, noise = CASES[case]
     model = BY_NAME[name]
     p_true = [truth[p] for p in model.params]
     rng = np.random.default_rng(sorted(CASES).index(case))
     xs = {"substrate": np.broadcast_to(s, (N_PLATES, s.size)).copy()}
     v = model.evaluate(p_true, {"substrate": s})[None, :]
-    y = v + sd * (v if relative else 1.0) * rng.standard_normal((N_PLATES, s.size))
+    shape = (N_PLATES, s.size)
+    sigma = None
+    if noise == "rate-error":
+        read_sd = np.broadcast_to(0.1 + sd * v, shape)  # what each rate's own standard error estimates
+        y = v + np.sqrt(read_sd**2 + (fit_run.RATE_ERROR_SHARE * v) ** 2) * rng.standard_normal(shape)
+        se = read_sd * np.sqrt(rng.chisquare(20, shape) / 20)  # estimated from the reads, 20 degrees of freedom
+        sigma = np.array([fit_run._sigma("rate-error", row, np.arange(s.size), err)[0] for row, err in
+                          zip(y, se, strict=True)])
+    else:
+        y = v + sd * (v if noise == "relative" else 1.0) * rng.standard_normal(shape)
+        if noise == "relative":
+            sigma = np.array([fit_run._sigma("relative", row, np.arange(s.size))[0] for row in y])
     mask = np.ones(y.shape, bool)
     p0 = np.array([model.start({"substrate": s}, row) for row in y])
     bounds = dict(model.bounds)
-    sigma = np.array([fit_run._sigma("relative", row, np.arange(s.size))[0] for row in y]) if relative else None
     fits = engine.fit_batch(model.evaluate, model.jacobian, xs, y, mask, p0, model.params, bounds=bounds,
                             sigma=sigma)
     ok = np.array([f.success and f.errorbars for f in fits])
@@ -84,6 +99,9 @@ PARAMS = [
     ("hill", "h", "profile"),
     ("mm-unsaturated", "Vmax", "wald"), ("mm-unsaturated", "Km", "wald"), ("mm-unsaturated", "Km", "profile"),
     ("mm-relative", "Vmax", "wald"), ("mm-relative", "Km", "wald"), ("mm-relative", "Km", "profile"),
+    ("mm-rate-error", "Vmax", "wald"), ("mm-rate-error", "Km", "wald"), ("mm-rate-error", "Km", "profile"),
+    ("hill-rate-error", "Vmax", "wald"), ("hill-rate-error", "K0.5", "wald"), ("hill-rate-error", "K0.5", "profile"),
+    ("hill-rate-error", "h", "wald"), ("hill-rate-error", "h", "profile"),
 ]
 
 
