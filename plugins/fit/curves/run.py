@@ -75,8 +75,9 @@ def _selected(frame: pd.DataFrame, cfg: Mapping[str, Any]) -> np.ndarray:
 
 
 def unmodelled_shapes(flags: pd.Series, *, lag: bool, inactivation: bool) -> list[str]:
-    """Warnings for fitted wells whose rates step saw a shape the curve model is not asked to describe: a lag
-    (flag ``lag``) without ``lag: true``, a falling rate (flag ``decay``) without ``inactivation: true``.
+    """Warnings for fitted wells whose rates step saw a shape the curve model is told not to describe: a lag
+    (flag ``lag``) with ``lag: false``, a falling rate (flag ``decay``) with ``inactivation: false`` (on
+    ``auto`` the shape is tried, :mod:`.terms`; ``lag`` / ``inactivation`` here say whether it may be).
     A curve model without them is biased on such wells (docs/fitting.md, the lag-decay rows), and the
     curve fit cannot see it from the reads alone as the rates step did."""
     sets = [set(filter(None, str(f).split(";"))) for f in flags.fillna("").astype(str)]
@@ -85,7 +86,8 @@ def unmodelled_shapes(flags: pd.Series, *, lag: bool, inactivation: bool) -> lis
         n = sum(name in s for s in sets)
         if n and not on:
             out.append(f"fit (curves): {n} fitted well(s) carry the rates step's '{name}' flag but the curve "
-                       f"model has no {name}; consider '{option}: true' (check the residual panels)")
+                       f"model has no {name}; consider '{option}: auto' or '{option}: true' (check the residual "
+                       "panels)")
     return out
 
 
@@ -367,7 +369,8 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], Any],
         cg, cf = pair
         if cfg["enzyme"]:
             for row in rates_run._derived(model, res, cg.enzyme_ref, eu, ru, su, conf):
-                fit_rows.append({**common, **row})
+                fit_rows.append({**common, **row, "note": "; ".join(filter(None, [str(row.get("note") or ""),
+                                                                                  term_notes.get((g, mname), "")]))})
         corr_rows += diagnostics.correlations(g, mname, res)
         n, nt = cg.y.shape
         curve_blocks.append({
