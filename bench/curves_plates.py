@@ -13,12 +13,15 @@ inhibitor per well and the signal per concentration.
   as the rates benchmark does);
 * curves: :func:`vzero.plugins.fit.curves.fit.fit_groups` on each draw's blank-corrected reads converted to
   concentration (reads at the ceiling are missing and left out; wells the curve stage excludes by default,
-  by the rate method's flags, are left out), without profile intervals, the recipe's defaults otherwise (no
-  inactivation, no lag); on plates with inactivation also with ``inactivation: true``, on plates with a lag
-  also with ``lag: true`` and with both.
+  by the rate method's flags, are left out), without profile intervals, the recipe's defaults otherwise
+  (``lag: auto``, ``inactivation: auto``: each term a candidate where the rate method flagged its shape on a
+  fitted well, kept on the AICc evidence, :mod:`vzero.plugins.fit.curves.terms`); on plates with
+  inactivation also with ``inactivation: true``, on plates with a lag also with ``lag: true`` and with both
+  (the other term off).
 
 Printed: the RMSE of each parameter relative to its truth (%) for both routes, their ratio, and the share of
-draws with the parameter within 5 % of the truth. Invented data for benchmarking only.
+draws with the parameter within 5 % of the truth; after each scenario, how often the defaults fitted each
+combination of terms. Invented data for benchmarking only.
 """
 
 from __future__ import annotations
@@ -34,9 +37,10 @@ import time  # noqa: E402
 import numpy as np  # noqa: E402
 from vzero.plugins.fit.catalog import BY_NAME  # noqa: E402
 from vzero.plugins.fit.curves.curve import Wells  # noqa: E402
-from vzero.plugins.fit.curves.fit import CurveGroup, fit_groups  # noqa: E402
+from vzero.plugins.fit.curves.fit import CurveGroup  # noqa: E402
 from vzero.plugins.fit.curves.stage import CURVE_EXCLUDE  # noqa: E402
-from vzero.plugins.kinetics.flags import from_names  # noqa: E402
+from vzero.plugins.fit.curves.terms import AUTO, Marks, fit_with_terms  # noqa: E402
+from vzero.plugins.kinetics.flags import Flag, from_names  # noqa: E402
 
 from bench.accuracy import DEFAULT, DEFAULT_EXCLUDE, METHODS, blank_corrected, fit_params  # noqa: E402
 from bench.plates import Scenario, draw, integrate, scenarios  # noqa: E402
@@ -61,21 +65,26 @@ def evaluate(sc: Scenario, n_draws: int, seed: int = 1) -> dict[str, np.ndarray]
     two = np.stack([fit_params(sc, v0[k], keep[k] & ~saturated[k]) for k in range(n_draws)])
     model = BY_NAME[MODEL[sc.law]]
     conc = y / sc.spc  # mM of product, baseline left to the fit
-    groups = []
+    groups, marks = [], []
     wells = Wells(sc.s0, sc.inh, np.ones(n_c), np.tile(t, (n_c, 1)), np.ones(n_c))  # rates in mM/s
     for k in range(n_draws):
-        use = ((flags[k] & CURVE_EXCLUDED) == 0)[:, None] & np.isfinite(conc[k])
+        fitted = (flags[k] & CURVE_EXCLUDED) == 0
+        use = fitted[:, None] & np.isfinite(conc[k])
         rates = np.where(keep[k], v0[k], np.nan)
         groups.append(CurveGroup(f"d{k}", wells, conc[k], use, rates, [("P", f"W{i}") for i in range(n_c)]))
-    out = {"two-step": two}
-    variants = (("curves", False, False), ("curves, inactivation: true", True, False),
-                ("curves, lag: true", False, True), ("curves, lag: true, inactivation: true", True, True))
-    for label, kinact, lag in variants:
-        if (kinact and sc.k_inact == 0) or (lag and sc.lag_tau == 0):
+        marks.append(Marks(int(fitted.sum()), int(np.sum(fitted & ((flags[k] & Flag.LAG) != 0))),
+                           int(np.sum(fitted & ((flags[k] & Flag.DECAY) != 0)))))
+    out: dict[str, np.ndarray] = {"two-step": two}
+    variants = (("curves", AUTO, AUTO), ("curves, inactivation: true", False, True),
+                ("curves, lag: true", True, False), ("curves, lag: true, inactivation: true", True, True))
+    for label, lag, kinact in variants:
+        if (kinact is True and sc.k_inact == 0) or (lag is True and sc.lag_tau == 0):
             continue
-        fits = fit_groups(model, groups, profile=False, kinact=kinact, lag=lag)
+        pairs = fit_with_terms(model, groups, marks, [(lag, kinact)] * n_draws, profile=False)
         out[label] = np.array([f.result.values[:len(model.params)] if f.result.success
-                               else np.full(len(model.params), np.nan) for f in fits])
+                               else np.full(len(model.params), np.nan) for f, _ in pairs])
+        if label == "curves":
+            out["terms"] = np.array([2 * c.lag + c.inactivation for _, c in pairs])
     return out
 
 
@@ -93,7 +102,7 @@ def rows(sc: Scenario, est: dict[str, np.ndarray]) -> list[str]:
     truth = np.array([sc.params[k] for k in sc.fit_names])
     model = BY_NAME[MODEL[sc.law]]
     out = []
-    for route in [r for r in est if r != "two-step"]:
+    for route in [r for r in est if r not in ("two-step", "terms")]:
         label = sc.name if route == "curves" else f"{sc.name} ({route.split(', ', 1)[1]})"
         for j, name in enumerate(model.params):
             r2, c2 = _cell(est["two-step"][:, j] / truth[j] - 1.0)
@@ -116,6 +125,9 @@ def main(argv: list[str] | None = None) -> int:
         t0 = time.perf_counter()
         est = evaluate(sc, args.draws)
         print("\n".join(rows(sc, est)), flush=True)
+        counts = np.bincount(est["terms"], minlength=4)
+        print(f"<!-- {sc.name} defaults fitted: neither {counts[0]}, inactivation {counts[1]}, lag {counts[2]}, "
+              f"both {counts[3]} of {args.draws} draws -->", flush=True)
         print(f"<!-- {sc.name}: {time.perf_counter() - t0:.0f} s -->", flush=True)
     return 0
 

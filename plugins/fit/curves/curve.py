@@ -1,12 +1,13 @@
 """Progress curves P(t) of any fit model, with their sensitivities: the one entry point of the integrators.
 
-A well starts with substrate S0, inhibitor I and enzyme E; its product follows dP/dt = c·r·e^{−k·t}·v(S0 − P)
+A well starts with substrate S0, inhibitor I and enzyme E; its product follows dP/dt = c·r·a(t)·v(S0 − P)
 with v the model's rate law (in the unit of rates), c the factor from the rate's unit to concentration per
 second, r = E/E_ref the well's enzyme level relative to the group's reference (1 for models that take the
-enzyme concentration themselves) and k an optional first-order inactivation constant (1/s); an optional
-hysteretic lag (time constant λ, s) multiplies the rate by 1 − e^{−t/λ} as well. Substituting the effective
-time τ = c·r·∫₀ᵗ (1 − e^{−u/λ})·e^{−ku} du (τ = c·r·(1 − e^{−kt})/k without a lag, c·r·t when k = 0 too;
-:func:`effective_time`) leaves dS/dτ = −v(S), which every route solves:
+enzyme concentration themselves) and a(t) the active fraction of the enzyme: 1, or e^{−k·t} with an optional
+first-order inactivation constant k (1/s); with an optional hysteretic lag (time constant λ, s) the enzyme
+turns active at rate 1/λ and only its active form is lost, a(t) = (e^{−kt} − e^{−t/λ})/(1 − kλ).
+Substituting the effective time τ = c·r·∫₀ᵗ a(u) du (τ = c·r·(1 − e^{−kt})/k without a lag, c·r·t when
+k = 0 too; :func:`effective_time`) leaves dS/dτ = −v(S), which every route solves:
 
 * ``"closed"``: a model that declares its apparent Michaelis-Menten constants (``apparent``: the
   Michaelis-Menten family, with or without competitive product inhibition, :mod:`.product`) or a closed-form
@@ -58,54 +59,108 @@ def effective_time(wells: Wells, kinact: Arr | None, lag: Arr | None = None
     """τ [n, n_time] (s of fully active enzyme, times c·r), ∂τ/∂k (None without inactivation) and ∂τ/∂λ
     (None without a lag).
 
-    The active fraction of the enzyme is a(t) = e^{−kt} (k = ``kinact``, 1/s) or, with a hysteretic lag of
-    time constant λ (``lag``, s), a(t) = (1 − e^{−t/λ})·e^{−kt}; τ = c·r·∫₀ᵗ a dt. In closed form, with
-    q(x) = (1 − e^{−x})/x and z = (k + 1/λ)·t: τ = c·r·t·(q(kt) − q(z)), ∂τ/∂k = c·r·t²·(q'(kt) − q'(z)) and
-    ∂τ/∂λ = −c·r·(1 − (1 + z)·e^{−z})/(1 + kλ)². At λ = 0 (z = ∞) the lag terms vanish and ∂τ/∂λ = −c·r:
-    the limit is taken exactly, not approached."""
+    Without a lag the active fraction of the enzyme is a(t) = e^{−kt} (k = ``kinact``, 1/s). With a
+    hysteretic lag of time constant λ (``lag``, s) the enzyme starts in an inactive form that turns active
+    at rate 1/λ, and only the active form is lost (at k; the inactive precursor is stable): the sequential
+    scheme dp/dt = −p/λ, da/dt = p/λ − k·a, p(0) = 1, a(0) = 0, whose active fraction is
+    a(t) = (e^{−kt} − e^{−t/λ})/(1 − kλ) (Bateman's solution for two first-order steps in series).
+    τ = c·r·∫₀ᵗ a dt: c·r·t·q(kt) without a lag, q(x) = (1 − e^{−x})/x, and with one see
+    :func:`_sequential`. At λ = 0 the lag terms vanish and ∂τ/∂λ = −c·r·e^{−kt}: the limit is taken exactly,
+    not approached."""
     t = wells.time
     c = wells.rate_scale[:, None]
     if kinact is None and lag is None:
         return c * t, None, None
     n = len(t)
     k = np.zeros((n, 1)) if kinact is None else np.broadcast_to(np.asarray(kinact, float), (n,))[:, None]
-    q, dq = closed._q(k * t)
     if lag is None:
+        q, dq = closed._q(k * t)
         return c * t * q, c * t * t * dq, None
     lam = np.broadcast_to(np.asarray(lag, float), (n,))[:, None]
-    mean, tdq_lag, r_lag = _lag_terms(t, k, lam)
-    tau = c * t * mean
-    d_lag = -c * r_lag / (1 + k * lam) ** 2
-    return tau, (None if kinact is None else c * (t * t * dq - tdq_lag)), d_lag
+    mean, dk, dlag = _sequential(t, k, lam)
+    return c * t * mean, (None if kinact is None else c * dk), c * dlag
 
 
-def _lag_terms(t: np.ndarray, k: np.ndarray, lam: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """With x = kt, m = t/λ and z = x + m: the mean active fraction over [0, t], q(x) − q(z); t²·q'(z); and
-    1 − (1 + z)·e^{−z}; finite for every λ ≥ 0 and t ≥ 0 (m = ∞ at λ = 0, t > 0; m = 0 at t = 0).
+_HUGE = 1e300
+"""Stands in for t/λ at λ = 0: q(1e300) = 1e-300 is q(∞) = 0 to double precision, and no ∞·0 arises."""
 
-    q(x) − q(z) is taken as m·(q(x) − e^{−x}·q(m))/z, which has no cancellation when m ≪ x (a long lag
-    after strong inactivation), by a series for z < 1e-3 (as :func:`.closed._q`), and as q(x) − 1/z where
-    e^{−m} underflows (m > 700: q(z) = 1/z to double precision, 0 at λ = 0)."""
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+_SERIES_BELOW = 1e-3
+"""Where both x = kt and m = t/λ are below this, :func:`_sequential` takes its series (error < 1e-15)."""
+
+
+def _sequential(t: np.ndarray, k: np.ndarray, lam: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The lag-then-inactivation clock (see :func:`effective_time`): T = τ/(c·r·t), the mean active
+    fraction over [0, t]; t²·∂T/∂x (= ∂τ/∂k over c·r); and −m²·∂T/∂m (= ∂τ/∂λ over c·r), with x = kt and
+    m = t/λ; finite for every k ≥ 0, λ ≥ 0, t ≥ 0 (m = ∞ at λ = 0, t > 0; m = 0 at t = 0).
+
+    T = m·(q(x) − q(m))/(m − x) has a removable singularity at x = m (kλ = 1). Written with the smaller
+    of the two rates, lo = min(x, m), and their gap g = |m − x| it has none: T = D(x, g) when m ≥ x and
+    T = (m/x)·D(m, g) when m < x, with D(lo, g) = q(lo) − e^{−lo}·q(g) smooth through g = 0 (at kλ = 1,
+    T = q(x) − e^{−x}). Where both x and m are small, D loses digits to cancellation and the series
+    T = m·Σₙ (−1)ⁿ·hₙ(x, m)/(n + 2)! is taken (hₙ: the sum of the monomials xʲ·mⁿ⁻ʲ, j = 0..n; T is m
+    times the divided difference −q′[x, m])."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
         x = k * t
-        m = np.where(t > 0, t / lam, 0.0)
-        z = x + m
-        big = m > 700.0
-        small = z < 1e-3
-        zs = np.where(big | small, 1.0, z)
-        ms = np.where(big | small, 1.0, m)
-        qx, _ = closed._q(x, False)
-        qm, _ = closed._q(ms, False)
-        mean = m * (qx - np.exp(-x) * qm) / zs
-        series = m * (0.5 - (z + x) / 6 + (z * z + z * x + x * x) / 24 - (z + x) * (z * z + x * x) / 120)
-        mean = np.where(small, series, np.where(big, qx - 1 / z, mean))
-        _, dqz = closed._q(zs)
-        # where z is large, t/z = λ/(1 + kλ) keeps t²·q'(z) = −(t/z)² finite as λ → 0
-        span = lam / (1 + k * lam)
-        tdq = np.where(big, -(span**2), np.where(small, t * t * (-0.5 + z / 3 - z * z / 8), t * t * dqz))
-        r = np.where(small, z * z * (0.5 - z / 3 + z * z / 8 - z**3 / 30), -np.expm1(-zs) - zs * np.exp(-zs))
-        r = np.where(big, 1.0, r)
-    return mean, tdq, r
+        m = np.where(t > 0, np.minimum(t / lam, _HUGE), 0.0)
+        m = np.where(np.isnan(m), _HUGE, m)
+        ahead = m >= x  # activation outpaces inactivation (the usual case)
+        lo = np.where(ahead, x, m)
+        g = np.where(ahead, m, x) - lo
+        q_lo, dq_lo = closed._q(lo)
+        q_g, dq_g = closed._q(g)
+        e_lo = np.exp(-lo)
+        d = q_lo - e_lo * q_g
+        d_lo = dq_lo + e_lo * q_g  # ∂D/∂lo
+        d_g = -e_lo * dq_g  # ∂D/∂g
+        # m ≥ x: T = D(x, m − x); −m²·∂T/∂m = m²·e^{−x}·q′(g), taken as −e^{−x}·(m/g)²·(1 − (1 + g)·e^{−g})
+        # once g ≥ 1 (m may be 1e300 there; m/g = 1/(1 − x/m))
+        m_over_g = 1.0 / (1.0 - x / np.where(m > 0, m, 1.0))
+        r_g = -np.expm1(-g) - g * np.exp(-g)
+        dlag_a = np.where(g >= 1.0, -e_lo * m_over_g**2 * r_g, e_lo * m * m * dq_g)
+        # m < x (so x > 0): T = (m/x)·D(m, x − m)
+        xs = np.where(ahead, 1.0, x)
+        mean = np.where(ahead, d, m / xs * d)
+        dk = np.where(ahead, t * t * (d_lo - d_g), m * (t / xs) ** 2 * (xs * d_g - d))
+        # −m²·∂T/∂m = −m²·(D + m·(∂D/∂lo − ∂D/∂g))/x there, which is −m²·e^{−m}·(g − 1 + e^{−g})/g² without
+        # the cancellation of the first form (m·q(m) has the derivative e^{−m}, and g + m = x)
+        dlag = np.where(ahead, dlag_a, -m * m * np.exp(-m) * _p2(g))
+        small = np.maximum(x, m) < _SERIES_BELOW
+        if small.any():
+            xs_, ms_ = x[small], m[small]
+            s_mean, s_dx, s_dm = _sequential_series(xs_, ms_)
+            tt = np.broadcast_to(t, x.shape)[small]
+            mean[small], dk[small], dlag[small] = s_mean, tt * tt * s_dx, -ms_ * ms_ * s_dm
+    return mean, dk, dlag
+
+
+def _p2(g: np.ndarray) -> np.ndarray:
+    """(g − 1 + e^{−g})/g² (1/2 at g = 0), by its series Σₙ (−g)ⁿ/(n + 2)! below g = 0.1."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        gs = np.where(g < 0.1, 1.0, g)
+        out = (gs + np.expm1(-gs)) / gs**2
+        series = np.zeros_like(g)
+        term = np.full_like(g, 0.5)
+        for n in range(12):
+            series += term
+            term = term * -g / (n + 3)
+    return np.where(g < 0.1, series, out)
+
+
+def _sequential_series(x: np.ndarray, m: np.ndarray, terms: int = 6) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """T = m·Σₙ (−1)ⁿ·hₙ(x, m)/(n + 2)! and its partial derivatives in x and m (see :func:`_sequential`),
+    for small x and m (the first omitted term is below 1e-18 of T for x, m < 1e-3)."""
+    total, d_x, d_m = np.zeros_like(x), np.zeros_like(x), np.zeros_like(x)
+    fact = 2.0
+    for n in range(terms):
+        h = sum(x**j * m ** (n - j) for j in range(n + 1))
+        hx = sum(j * x ** (j - 1) * m ** (n - j) for j in range(1, n + 1)) if n else 0.0 * x
+        hm = sum((n - j) * x**j * m ** (n - j - 1) for j in range(n)) if n else 0.0 * x
+        sign = (-1.0) ** n / fact
+        total += sign * h
+        d_x += sign * hx
+        d_m += sign * hm
+        fact *= n + 3
+    return m * total, m * d_x, total + m * d_m
 
 
 def route_of(model: Any, product: bool = False) -> str:

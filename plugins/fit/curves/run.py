@@ -25,7 +25,7 @@ from vzero.errors import FitError
 from vzero.plugins.fit import diagnostics, routes
 from vzero.plugins.fit import run as rates_run
 from vzero.plugins.fit.catalog import Model
-from vzero.plugins.fit.curves import product, selwyn
+from vzero.plugins.fit.curves import product, selwyn, terms
 from vzero.plugins.fit.curves.curve import Wells
 from vzero.plugins.fit.curves.fit import (
     KINACT,
@@ -33,7 +33,6 @@ from vzero.plugins.fit.curves.fit import (
     CurveFit,
     CurveGroup,
     activity_name,
-    fit_groups,
     parameter_names,
 )
 from vzero.stage import StageInput, StageOutput
@@ -76,8 +75,9 @@ def _selected(frame: pd.DataFrame, cfg: Mapping[str, Any]) -> np.ndarray:
 
 
 def unmodelled_shapes(flags: pd.Series, *, lag: bool, inactivation: bool) -> list[str]:
-    """Warnings for fitted wells whose rates step saw a shape the curve model is not asked to describe: a lag
-    (flag ``lag``) without ``lag: true``, a falling rate (flag ``decay``) without ``inactivation: true``.
+    """Warnings for fitted wells whose rates step saw a shape the curve model is told not to describe: a lag
+    (flag ``lag``) with ``lag: false``, a falling rate (flag ``decay``) with ``inactivation: false`` (on
+    ``auto`` the shape is tried, :mod:`.terms`; ``lag`` / ``inactivation`` here say whether it may be).
     A curve model without them is biased on such wells (docs/fitting.md, the lag-decay rows), and the
     curve fit cannot see it from the reads alone as the rates step did."""
     sets = [set(filter(None, str(f).split(";"))) for f in flags.fillna("").astype(str)]
@@ -86,8 +86,27 @@ def unmodelled_shapes(flags: pd.Series, *, lag: bool, inactivation: bool) -> lis
         n = sum(name in s for s in sets)
         if n and not on:
             out.append(f"fit (curves): {n} fitted well(s) carry the rates step's '{name}' flag but the curve "
-                       f"model has no {name}; consider '{option}: true' (check the residual panels)")
+                       f"model has no {name}; consider '{option}: auto' or '{option}: true' (check the residual "
+                       "panels)")
     return out
+
+
+def _setting(value: Any) -> Any:
+    """A recipe's ``lag`` / ``inactivation``: True, False or :data:`.terms.AUTO`."""
+    return terms.AUTO if value == terms.AUTO else bool(value)
+
+
+def _warn_unused_terms(data: StageInput, group: str, model: str, choice: terms.Choice, mk: terms.Marks,
+                       lag: Any, inactivation: Any) -> None:
+    """Warn when ``auto`` left a term out of a group although the rates step flagged its shape on at least
+    half the group's fitted wells: the curves gave no evidence for it, and the residual panels should say
+    why (a different shape, a model that misfits elsewhere)."""
+    for name, option, setting, on, n in (("lag", "lag", lag, choice.lag, mk.lag),
+                                         ("decay", "inactivation", inactivation, choice.inactivation, mk.decay)):
+        if setting == terms.AUTO and not on and n and 2 * n >= mk.wells:
+            data.warn(f"fit (curves): group {group}, {model}: the rates step flagged {name} on {n} of {mk.wells} "
+                      f"fitted wells, but the curves gave no evidence for {option} (the fits note gives the "
+                      "AICc); check the residual panels")
 
 
 def _lots(labels: np.ndarray, reference: str | None) -> tuple[tuple[str, ...], np.ndarray]:
@@ -197,9 +216,10 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     groups = frame[gcol].fillna("").astype(str).to_numpy() if gcol in frame.columns else np.full(len(frame), "all")
     no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
     conf = float(cfg["confidence"])
-    kin = bool(cfg["inactivation"])
+    kin_setting, lag_setting = _setting(cfg["inactivation"]), _setting(cfg["lag"])
+    kin, lag = kin_setting is not False, lag_setting is not False  # the terms a group may get
     prod = bool(cfg["product_inhibition"])
-    lag = bool(cfg["lag"])
+    flag_text = frame["flags"].to_numpy(object) if "flags" in frame.columns else np.full(len(frame), "", object)
     if "flags" in frame.columns:
         for text in unmodelled_shapes(frame.loc[use, "flags"], lag=lag, inactivation=kin):
             data.warn(text)
@@ -215,6 +235,9 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     fitted: dict[tuple[str, str], tuple[CurveGroup, CurveFit]] = {}
     point_sets: dict[tuple[str, str], tuple[int, ...]] = {}
     built: dict[tuple[str, str], CurveGroup] = {}
+    decided: dict[str, tuple[terms.Choice, str]] = {}  # per group: the terms and the model that chose them
+    choices: dict[tuple[str, str], str] = {}  # per (group, model): the note on its terms
+    record_terms: list[dict[str, Any]] = []
     for model in models:
         ok = use.copy()
         if "inhibitor" not in model.variables:
@@ -258,20 +281,38 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         for i, cg in enumerate(todo):  # groups with the same lots share one batched fit
             batches.setdefault(cg.lots, []).append(i)
         order = [i for members in batches.values() for i in members]
+        group_marks = [terms.marks(flag_text[list(point_sets[(cg.name, model.name)])]) for cg in todo]
+        settings = [(decided[cg.name][0].lag, decided[cg.name][0].inactivation) if cg.name in decided
+                    else (lag_setting, kin_setting) for cg in todo]
+        picked: list[terms.Choice] = []
         for members in batches.values():
-            results += fit_groups(model, [todo[i] for i in members], kinact=kin, product=prod, fixed=fixed,
-                                  bounds=bounds, starts=starts, confidence=conf, profile=bool(cfg["profile"]),
-                                  units=punits, route=str(cfg["route"]), lag=lag)
+            for cf, choice in terms.fit_with_terms(
+                    model, [todo[i] for i in members], [group_marks[i] for i in members],
+                    [settings[i] for i in members], product=prod, fixed=fixed, bounds=bounds, starts=starts,
+                    confidence=conf, profile=bool(cfg["profile"]), units=punits, route=str(cfg["route"])):
+                results.append(cf)
+                picked.append(choice)
         todo = [todo[i] for i in order]
-        for cg, cf in zip(todo, results, strict=True):
+        group_marks = [group_marks[i] for i in order]
+        for cg, cf, choice, mk in zip(todo, results, picked, group_marks, strict=True):
             key = (cg.name, model.name)
             fits[key] = cf.result
             fitted[key] = (cg, cf)
+            if cg.name not in decided:
+                decided[cg.name] = (choice, model.name)
+                _warn_unused_terms(data, cg.name, model.name, choice, mk, lag_setting, kin_setting)
+            first, by = decided[cg.name]
+            choices[key] = first.note if by == model.name or not first.note else f"{first.note} (decided on {by})"
+            record_terms.append({"group": cg.name, "model": model.name, "lag": choice.lag,
+                                 "inactivation": choice.inactivation, "decided_on": by, "wells": mk.wells,
+                                 "lag_flagged": mk.lag, "decay_flagged": mk.decay, "note": choices[key]})
             if not cf.result.success:
                 data.warn(f"fit (curves): group {cg.name}, {model.name}: did not converge ({cf.result.message})")
 
-    out = _tables(models, fits, fitted, cfg, role_unit, kin)
+    out = _tables(models, fits, fitted, cfg, role_unit, choices)
     record: dict[str, Any] = {"curve_fits": out.pop("_curve_fits")}
+    if record_terms:
+        record["curve_terms"] = Table(pd.DataFrame(record_terms), {}, {})
     flags: dict[str, str] = {}
     if cfg["selwyn"]:
         sel_rows, sel_points = [], []
@@ -303,7 +344,7 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
 
 def _tables(models: list[Model], fits: dict[tuple[str, str], Any],
             fitted: dict[tuple[str, str], tuple[CurveGroup, CurveFit]], cfg: Mapping[str, Any],
-            role_unit: dict[str, str], kin: bool) -> dict[str, Any]:
+            role_unit: dict[str, str], term_notes: Mapping[tuple[str, str], str]) -> dict[str, Any]:
     conf = float(cfg["confidence"])
     ru, su, iu, eu = (role_unit[k] for k in ("rate", "substrate", "inhibitor", "enzyme"))
     by_name = {m.name: m for m in models}
@@ -321,13 +362,15 @@ def _tables(models: list[Model], fits: dict[tuple[str, str], Any],
             p = res.params[name]
             fit_rows.append({**common, "parameter": name, "estimate": p.value, "stderr": p.stderr,
                              "ci_low": p.ci_low, "ci_high": p.ci_high, "ci_method": p.ci_method, "unit": p.unit,
-                             "fixed": p.fixed, "note": "; ".join(filter(None, [p.note, lot_note]))})
+                             "fixed": p.fixed,
+                             "note": "; ".join(filter(None, [p.note, lot_note, term_notes.get((g, mname), "")]))})
         if pair is None or not res.success:
             continue
         cg, cf = pair
         if cfg["enzyme"]:
             for row in rates_run._derived(model, res, cg.enzyme_ref, eu, ru, su, conf):
-                fit_rows.append({**common, **row})
+                fit_rows.append({**common, **row, "note": "; ".join(filter(None, [str(row.get("note") or ""),
+                                                                                  term_notes.get((g, mname), "")]))})
         corr_rows += diagnostics.correlations(g, mname, res)
         n, nt = cg.y.shape
         curve_blocks.append({

@@ -25,7 +25,7 @@ class CurveFitStage(Stage):
 
     kind = "fit"
     method = "curves"
-    version = "1.1"
+    version = "1.2"
     scope = "pooled"
     summary = ("Rate laws integrated and fitted to all progress curves of a group at once: shared kinetic "
                "parameters, a baseline per well, optional enzyme inactivation, a hysteretic lag, product inhibition "
@@ -36,10 +36,14 @@ class CurveFitStage(Stage):
         **{k: FitStage.params[k] for k in _SHARED},
         "exclude_flags": Param("list", list(CURVE_EXCLUDE), "wells carrying any of these flags are not fitted",
                                choices=FLAG_CHOICES),
-        "inactivation": Param("bool", False, "fit a first-order enzyme inactivation constant kinact (1/s) shared "
-                              "by the group's wells"),
-        "lag": Param("bool", False, "fit a hysteretic lag shared by the group's wells: the enzyme's active fraction "
-                     "rises as 1 - exp(-t/lag_time) from the reaction start; lag_time in s (0: no lag)"),
+        "inactivation": Param.choice(("auto", True, False), "auto",
+                                     "fit a first-order enzyme inactivation constant kinact (1/s) shared by the "
+                                     "group's wells; auto: only where the rates step flagged decay on a fitted well "
+                                     "and the curves bear it out (AICc lower by more than 10)"),
+        "lag": Param.choice(("auto", True, False), "auto",
+                            "fit a hysteretic lag shared by the group's wells: the enzyme turns active with time "
+                            "constant lag_time (s; 0: no lag), and with inactivation only its active form is lost; "
+                            "auto: only where the rates step flagged lag on a fitted well and the curves bear it out"),
         "product_inhibition": Param("bool", False, "fit competitive inhibition by the reaction's product: the "
                                     "half-saturation constant (Km, K0.5) grows by 1 + P/Kp as product P accumulates; "
                                     "Kp in the substrate's unit"),

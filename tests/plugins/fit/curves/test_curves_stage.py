@@ -60,3 +60,8 @@ def test_integrated_curves_and_residuals_are_kept(both: Path) -> None:
     with h5py.File(both / "run.h5", "r") as f:
         steps = [k for k in f["steps"] if k.endswith("fit-curves")]
         assert len(steps) == 1 and "curve_fits" in f["steps"][steps[0]]["pooled"]
+        # lag and inactivation are on auto by default: what each group got, and why, is kept
+        assert "curve_terms" in f["steps"][steps[0]]["pooled"]
+    fits = pd.read_csv(both / "fits.csv")
+    notes = fits.loc[fits.route == "curves", "note"].fillna("")
+    assert notes.str.contains("curve terms (lag, inactivation: auto)", regex=False).all()

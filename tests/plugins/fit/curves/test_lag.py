@@ -1,8 +1,11 @@
 """The hysteretic lag of the curve fit (``lag: true``): effective time, its derivatives, whole curves, a fit.
 
-Independent references: scipy.integrate.quad for the effective time τ = c·∫₀ᵗ (1 − e^{−u/λ})·e^{−ku} du,
-central finite differences for ∂τ/∂λ and ∂τ/∂k, scipy's solve_ivp (Radau, rtol 1e-10) for whole progress
-curves. Parameters and data are invented.
+Independent references: scipy.integrate.quad for the effective time τ = c·∫₀ᵗ a(u) du, with a(u) the active
+fraction of the sequential scheme (inactive precursor → active enzyme at 1/λ → lost at k; the precursor
+stable), a(u) = (e^{−ku} − e^{−u/λ})/(1 − kλ); scipy's solve_ivp (Radau, rtol 1e-10) on the scheme's
+own differential equations and their forward sensitivities for τ, ∂τ/∂k and ∂τ/∂λ, through kλ = 1; central
+finite differences for ∂τ/∂λ and ∂τ/∂k; solve_ivp (Radau, rtol 1e-10) for whole progress curves. Parameters
+and data are invented.
 """
 
 from __future__ import annotations
@@ -33,7 +36,10 @@ def _tau_quad(t: float, k: float, lam: float) -> float:
         return 0.0
 
     def active(u: float) -> float:
-        return (-np.expm1(-u / lam) if lam > 0 else 1.0) * np.exp(-k * u)
+        # the Bateman form (e^{−ku} − e^{−u/λ})/(1 − kλ), written as e^{−ku}·(1 − e^{−(1/λ − k)u})/(1 − kλ)
+        if lam == 0:
+            return float(np.exp(-k * u))
+        return float(np.exp(-k * u) * -np.expm1(-(1 / lam - k) * u) / (1 - k * lam))
 
     # two pieces, split where the rise is over (50 λ), so that quad sees the steep start of a short lag
     cut = min(50 * lam, t)
@@ -60,20 +66,24 @@ def test_lag_derivatives_match_finite_differences(k: float | None, lam: float) -
     h = 1e-4 * lam
     up, _, _ = curve.effective_time(w, k, lam + h)
     down, _, _ = curve.effective_time(w, k, lam - h)
-    # reference: central finite differences, error O(h²) relative to τ's scale
-    np.testing.assert_allclose(dlag, (up - down) / (2 * h), rtol=1e-6, atol=1e-9 * SCALE)
+    # reference: central finite differences, error O(h²) relative to τ's scale; their own rounding, about
+    # 1e-15·τ/h, bounds what they can check
+    np.testing.assert_allclose(dlag, (up - down) / (2 * h), rtol=1e-6,
+                               atol=max(1e-9 * SCALE, 1e-15 * np.max(np.abs(up)) / h))
     if k is not None:
         hk = 1e-5 * k
         up, _, _ = curve.effective_time(w, k + hk, lam)
         down, _, _ = curve.effective_time(w, k - hk, lam)
-        scale = np.max(np.abs(dk))
-        np.testing.assert_allclose(dk, (up - down) / (2 * hk), rtol=1e-6, atol=1e-8 * scale)
+        # the difference quotient's own rounding, about 1e-15·τ/hk, bounds what it can check
+        scale = max(1e-8 * np.max(np.abs(dk)), 1e-15 * np.max(np.abs(up)) / hk)
+        np.testing.assert_allclose(dk, (up - down) / (2 * hk), rtol=1e-6, atol=scale)
 
 
 @pytest.mark.parametrize("k", [None, 8e-4])
 def test_zero_lag_is_no_lag(k: float | None) -> None:
-    """λ = 0 is the model without a lag; its one-sided derivative is the limit −c·(1 + kλ)⁻² = −c, which a
-    forward difference from λ = 0 approaches (τ is smooth in λ ≥ 0 up to O(λ²) terms)."""
+    """λ = 0 is the model without a lag; its one-sided derivative is the limit −c·e^{−kt} (for small λ,
+    τ/c = ((1 − e^{−kt})/k − λ·(1 − e^{−t/λ}))/(1 − kλ), whose λ-derivative at 0 is 1 − e^{−kt} − 1), which
+    a forward difference from λ = 0 approaches (τ is smooth in λ ≥ 0 up to O(λ²) terms)."""
     w = _wells([1.0])
     plain, dk_plain, _ = curve.effective_time(w, k, None)
     tau, dk, dlag = curve.effective_time(w, k, 0.0)
@@ -84,8 +94,57 @@ def test_zero_lag_is_no_lag(k: float | None) -> None:
     forward = (curve.effective_time(w, k, h)[0] - tau) / h
     late = T > 1.0  # where e^{−t/h} is 0: the forward difference is exact up to O(k·h)
     np.testing.assert_allclose(dlag[0, late], forward[0, late], rtol=1e-5)
-    np.testing.assert_allclose(dlag[0, late], -SCALE, rtol=1e-12)
+    np.testing.assert_allclose(dlag[0, late], -SCALE * np.exp(-(k or 0.0) * T[late]), rtol=1e-12)
     assert dlag[0, 0] == 0.0  # at t = 0 nothing has been integrated, whatever λ
+
+
+def _scheme_radau(k: float, lam: float, time: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """τ/c, ∂τ/∂k/c and ∂τ/∂λ/c by scipy's solve_ivp (Radau, rtol 1e-10) on the scheme's equations
+    dp/dt = −p/λ, da/dt = p/λ − k·a, dτ/dt = a and their forward sensitivities in λ and k."""
+
+    # state: p, a, τ, ∂p/∂λ, ∂a/∂λ, ∂τ/∂λ, ∂a/∂k, ∂τ/∂k; the system is linear, z′ = J·z
+    u = 1 / lam
+    jac = np.zeros((8, 8))
+    jac[0, 0], jac[1, 0], jac[1, 1], jac[2, 1] = -u, u, -k, 1.0
+    jac[3, 0], jac[3, 3] = u * u, -u
+    jac[4, 0], jac[4, 3], jac[4, 4], jac[5, 4] = -u * u, u, -k, 1.0
+    jac[6, 1], jac[6, 6], jac[7, 6] = -1.0, -k, 1.0
+
+    sol = solve_ivp(lambda _t, z: jac @ z, (0.0, time[-1]), [1.0, 0, 0, 0, 0, 0, 0, 0], method="Radau",
+                    rtol=1e-10, atol=1e-14, t_eval=time, jac=jac)
+    assert sol.success
+    return sol.y[2], sol.y[7], sol.y[5]
+
+
+@pytest.mark.parametrize(("k", "lam"), [(8e-4, 60.0), (1 / 60, 60.0), (1 / 60 * (1 + 1e-9), 60.0),
+                                        (0.05, 60.0), (0.0, 60.0), (0.05, 5e3), (2e-3, 500.0)])
+def test_sequential_clock_and_its_derivatives_match_radau(k: float, lam: float) -> None:
+    """τ, ∂τ/∂k and ∂τ/∂λ of the lag-then-inactivation clock, including kλ = 1 (where the closed form's
+    1/(1 − kλ) is a removable singularity) and next to it."""
+    tau, dk, dlag = curve.effective_time(_wells([1.0]), k, lam)
+    assert dk is not None and dlag is not None
+    ref = _scheme_radau(k, lam, T)
+    # reference: scipy solve_ivp Radau rtol 1e-10 on the scheme and its sensitivity equations
+    for got, want in zip((tau[0], dk[0], dlag[0]), ref, strict=True):
+        np.testing.assert_allclose(got / SCALE, want, rtol=1e-8, atol=1e-10 * np.max(np.abs(want)))
+
+
+def test_sequential_clock_is_smooth_through_k_lambda_one() -> None:
+    """On either side of kλ = 1 (1e-12 to 1e-3 away) τ and its derivatives move smoothly: a form that
+    divided by 1 − kλ would lose up to all its digits here."""
+    lam = 60.0
+    ks = (1 + np.array([-1e-3, -1e-6, -1e-9, -1e-12, 0.0, 1e-12, 1e-9, 1e-6, 1e-3])) / lam
+    out = [curve.effective_time(_wells([1.0]), k, lam) for k in ks]
+    tau = np.array([o[0][0, -1] for o in out])
+    dk = np.array([o[1][0, -1] for o in out])
+    dlag = np.array([o[2][0, -1] for o in out])
+    # reference: a first-order Taylor step from kλ = 1 with the derivative at kλ = 1 (exact to O(Δk²): 1e-12
+    # of τ up to 1e-6 away, 1e-6 at 1e-3)
+    np.testing.assert_allclose(tau[1:8], tau[4] + dk[4] * (ks[1:8] - ks[4]), rtol=1e-10)
+    np.testing.assert_allclose(tau, tau[4] + dk[4] * (ks - ks[4]), rtol=3e-6)
+    assert np.all(np.isfinite(dk)) and np.all(np.isfinite(dlag))
+    np.testing.assert_allclose(dk[3:6], dk[4], rtol=1e-9)
+    np.testing.assert_allclose(dlag[3:6], dlag[4], rtol=1e-9)
 
 
 def _radau(model: str, theta: list[float], s0: float, k: float, lam: float, time: np.ndarray) -> np.ndarray:
@@ -94,7 +153,8 @@ def _radau(model: str, theta: list[float], s0: float, k: float, lam: float, time
 
     def rhs(t: float, y: np.ndarray) -> list[float]:
         v = float(m.evaluate(theta, {"substrate": np.array([max(s0 - y[0], 0.0)])})[0])
-        return [v * SCALE * -np.expm1(-t / lam) * np.exp(-k * t)]
+        # the sequential scheme's active fraction (Bateman), e^{−kt}·(1 − e^{−(1/λ − k)t})/(1 − kλ)
+        return [v * SCALE * np.exp(-k * t) * -np.expm1(-(1 / lam - k) * t) / (1 - k * lam)]
 
     sol = solve_ivp(rhs, (0.0, time[-1]), [0.0], method="Radau", rtol=1e-10, atol=1e-14 * s0, t_eval=time)
     assert sol.success
