@@ -9,8 +9,8 @@ the mean of the blanks of the same condition (:func:`bench.accuracy.blank_correc
 inhibitor per well and the signal per concentration.
 
 * two-step: the default rate method (``model-choice``) per well, the wells the fit stage leaves out by
-  default removed, then the scenario's rate law fitted to each draw's rates (:func:`bench.accuracy.fit_params`,
-  as the rates benchmark does);
+  default removed, then the scenario's rate law fitted to each draw's rates (:func:`bench.accuracy.fit_params`
+  with the fit stage's default ``rate-error`` weights, as the rates benchmark does);
 * curves: :func:`vzero.plugins.fit.curves.fit.fit_groups` on each draw's blank-corrected reads converted to
   concentration (reads at the ceiling are missing and left out; wells the curve stage excludes by default,
   by the rate method's flags, are left out), without profile intervals, the recipe's defaults otherwise
@@ -42,7 +42,14 @@ from vzero.plugins.fit.curves.stage import CURVE_EXCLUDE  # noqa: E402
 from vzero.plugins.fit.curves.terms import AUTO, Marks, fit_with_terms  # noqa: E402
 from vzero.plugins.kinetics.flags import Flag, from_names  # noqa: E402
 
-from bench.accuracy import DEFAULT, DEFAULT_EXCLUDE, METHODS, blank_corrected, fit_params  # noqa: E402
+from bench.accuracy import (  # noqa: E402
+    DEFAULT,
+    DEFAULT_EXCLUDE,
+    METHODS,
+    blank_corrected,
+    default_sigma,
+    fit_params,
+)
 from bench.plates import Scenario, draw, integrate, scenarios  # noqa: E402
 
 MODEL = {"mm": "michaelis-menten", "hill": "hill", "si": "substrate-inhibition", "competitive": "competitive"}
@@ -58,11 +65,13 @@ def evaluate(sc: Scenario, n_draws: int, seed: int = 1) -> dict[str, np.ndarray]
     t = sc.time
     n_c = sc.s0.size
     y = blank_corrected(sc, d.sample, d.blank)  # [n_draws, n_c, n_time]
-    v0, flags, _ = METHODS[DEFAULT](t, y.reshape(n_draws * n_c, t.size), np.tile(sc.s0, n_draws), sc.spc)
+    v0, flags, se = METHODS[DEFAULT](t, y.reshape(n_draws * n_c, t.size), np.tile(sc.s0, n_draws), sc.spc)
     saturated = (~np.isfinite(d.sample)).any(axis=2)
     v0, flags = v0.reshape(n_draws, n_c) / sc.spc, flags.reshape(n_draws, n_c)
     keep = (flags & DEFAULT_EXCLUDE) == 0
-    two = np.stack([fit_params(sc, v0[k], keep[k] & ~saturated[k]) for k in range(n_draws)])
+    rated = {"v0": v0 * sc.spc, "se": se.reshape(n_draws, n_c)}
+    two = np.stack([fit_params(sc, v0[k], keep[k] & ~saturated[k], default_sigma(rated, sc, k))
+                    for k in range(n_draws)])
     model = BY_NAME[MODEL[sc.law]]
     conc = y / sc.spc  # mM of product, baseline left to the fit
     groups, marks = [], []
