@@ -22,6 +22,7 @@ import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.lagdecay import lag_decay, mark_lags
+from vzero.plugins.rates.lagfit import decay_after_lag
 
 #: Order of the fastest fall of the rate, ``(1 - x)^n`` at conversion x, that substrate depletion is allowed
 #: to explain before a falling rate is called decay. Michaelis–Menten gives at most n = 1 and a Hill enzyme
@@ -44,20 +45,26 @@ def mark_decay(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: 
     y_all = np.array(signal, dtype=float, ndmin=2)
     s_all = np.broadcast_to(np.asarray(s0, dtype=float), v0.shape)
     rated = np.isfinite(v0) | ((np.asarray(result.flags) & int(Flag.FIT_FAILED)) != 0)
-    rows = np.flatnonzero(rated & _falling(t, y_all, s_all, float(signal_per_conc), depletion_order, min_points))
-    if rows.size == 0:
-        return result
-    y = y_all[rows]
-    s = s_all[rows]
-    ld = lag_decay(time, y, s0=s, signal_per_conc=signal_per_conc, min_points=min_points, fail_ratio=np.inf,
-                   depletion_order=depletion_order)
-    hit = (np.asarray(ld.flags) & int(Flag.DECAY)) != 0
-    if not hit.any():
+    # after a lag the rate first rises: those wells are judged on the lag clock (lagfit.decay_after_lag)
+    lagged = rated & ((np.asarray(result.flags) & int(Flag.LAG)) != 0)
+    rows = np.flatnonzero(rated & ~lagged & _falling(t, y_all, s_all, float(signal_per_conc), depletion_order,
+                                                     min_points))
+    hit_rows = np.zeros(0, np.int64)
+    if rows.size:
+        ld = lag_decay(time, y_all[rows], s0=s_all[rows], signal_per_conc=signal_per_conc, min_points=min_points,
+                       fail_ratio=np.inf, depletion_order=depletion_order)
+        hit_rows = rows[(np.asarray(ld.flags) & int(Flag.DECAY)) != 0]
+    lag_rows = np.flatnonzero(lagged)
+    if lag_rows.size:
+        late = decay_after_lag(t, y_all[lag_rows], s_all[lag_rows], float(signal_per_conc), order=depletion_order,
+                               min_points=min_points)
+        hit_rows = np.concatenate([hit_rows, lag_rows[late]])
+    if hit_rows.size == 0:
         return result
     flags = np.asarray(result.flags, dtype=np.int64).copy()
-    flags[rows[hit]] |= int(Flag.DECAY)
+    flags[hit_rows] |= int(Flag.DECAY)
     if not modelled:
-        flags[rows[hit]] |= int(Flag.UNMODELLED)
+        flags[hit_rows] |= int(Flag.UNMODELLED)
     return dataclasses.replace(result, flags=flags)
 
 
