@@ -8,7 +8,9 @@ same reads, so the flags mean the same on every method:
 * DECAY, from the first-order-decay fit of :func:`vzero.plugins.rates.lagdecay.lag_decay`: the fitted rate at
   the last read is below what substrate depletion can explain, ``(1 - x)^n`` with ``n`` =
   :data:`DEPLETION_ORDER` (needs s0 and signal_per_conc; without them decay and depletion cannot be told
-  apart from one curve and DECAY is not assessed).
+  apart from one curve and DECAY is not assessed); on wells flagged LAG, from the lag clock instead
+  (:func:`vzero.plugins.rates.lagfit.decay_after_lag`: a first-order decay fitted from the lag's end takes the
+  still rising activity for a steady one and missed the decay after a lag).
 
 A method that does not model what was found adds UNMODELLED: its rate is not the initial rate, and the fit
 stage leaves the well out by default, with the reason in fits.csv.
@@ -56,8 +58,7 @@ def mark_decay(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: 
         hit_rows = rows[(np.asarray(ld.flags) & int(Flag.DECAY)) != 0]
     lag_rows = np.flatnonzero(lagged)
     if lag_rows.size:
-        late = decay_after_lag(t, y_all[lag_rows], s_all[lag_rows], float(signal_per_conc), order=depletion_order,
-                               min_points=min_points)
+        late = decay_after_lag(t, y_all[lag_rows], s_all[lag_rows], float(signal_per_conc), min_points=min_points)
         hit_rows = np.concatenate([hit_rows, lag_rows[late]])
     if hit_rows.size == 0:
         return result

@@ -168,3 +168,20 @@ def test_the_plate_lag_is_not_carried_from_one_well():
     others = np.arange(s0.size) != 4
     assert np.all(r.lag_s[others] == 0) and not np.any(r.extra["model"][others] == 3)
     np.testing.assert_allclose(r.v0[others], v0[others], rtol=0.03)
+
+
+def test_the_shared_decay_check_sees_decay_after_a_lag():
+    # DECAY after a lag, checked on the lag clock: flagged (with UNMODELLED) for a method that models neither;
+    # the same plate without decay gets no DECAY
+    from vzero.plugins.kinetics.rate_result import RateResult
+    from vzero.plugins.rates.checks import shared_checks
+
+    s0 = LEVELS[LEVELS >= 0.5]
+    for k, expect in ((8e-4, True), (0.0, False)):
+        y, _ = _curves(s0, 60.0, k, 0.002, seed=13)
+        r = shared_checks(READS, y, RateResult(v0=np.ones(s0.size)), s0=s0, signal_per_conc=SPC, finds_lags=False,
+                          models_decay=False)
+        flags = np.asarray(r.flags)
+        assert np.all(flags & Flag.LAG)
+        assert np.all((flags & Flag.DECAY) != 0) == expect and np.any((flags & Flag.DECAY) != 0) == expect
+        assert np.all(flags & Flag.UNMODELLED)  # the lag alone is unmodelled here
