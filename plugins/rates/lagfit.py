@@ -22,13 +22,15 @@ The fit (:func:`lag_clock_fit`), all wells at once:
    be fitted together: the fit with ``k = 0`` takes a decaying curve for a shorter lag (on the benchmark's
    lag plate 8-18 s instead of 60 s), and any ``k`` tried at that lag time then stays 10 % low;
 3. the decay constant is shared by the wells of one plate (they hold one enzyme), so a plate value
-   ``k_plate`` is pooled from the wells' own estimates (inverse-variance mean) and every well is fitted again
-   with ``k`` held there (four parameters). From one well alone, inactivation and depletion bend the curve
-   alike where the substrate is low (S0 near or below Km: a larger Km absorbs part of the decay), and its own
-   ``k`` scatters widely; the wells at high substrate pin it. A well keeps its own ``k`` only where it
-   differs from the plate's by more than :data:`K_SPLIT_Z` standard errors of the difference (a well that
-   really decays otherwise, e.g. an enzyme that the substrate protects). ``k_plate`` is 0 unless the pooled
-   estimate is at least :data:`K_PLATE_Z` of its standard errors above zero.
+   ``k_plate`` is taken where the plate's chi-square, every well fitted again with ``k`` held (four
+   parameters), is least (:func:`_profile_decay`), and every well is fitted with ``k`` held there. From one
+   well alone inactivation and depletion bend the curve alike (at low conversion a smaller or larger Km
+   absorbs the decay), so a well's own ``k`` runs along a ridge with its Km and scatters widely. A well
+   keeps its own ``k`` only where it differs from the plate's by more than :data:`K_SPLIT_Z` standard errors
+   of the difference (a well that really decays otherwise, e.g. an enzyme that the substrate protects).
+   ``k_plate`` is 0 unless it is at least :data:`K_PLATE_Z` of its standard errors above zero;
+4. (:func:`plate_clock`) wells of the same plate where the lag detector saw no lag (low signal) get the
+   plate's lag time and decay constant when enough wells show the lag and the reads do not reject it.
 
 v0 is then the rate at t = 0 with fully active enzyme, and ``tau`` is the lag time in the usual sense (where
 the steady-state line meets the baseline, depletion and inactivation aside).
