@@ -141,7 +141,10 @@ def evaluate(sc: Scenario, n_draws: int, methods: dict[str, Method], seed: int =
     out["reference"] = {"v0": ref, "keep": np.isfinite(ref), "seconds": np.nan}
     for name, fn in methods.items():
         t0 = time.perf_counter()
-        v0, flags, se = fn(t, y, s0, sc.spc)
+        # one plate (draw) per call, as the rates stage calls a method: a method may pool the wells of a
+        # plate (model-choice's plate decay constant after a lag), never those of other plates
+        parts = [fn(t, y[k * n_c:(k + 1) * n_c], s0[k * n_c:(k + 1) * n_c], sc.spc) for k in range(n_draws)]
+        v0, flags, se = (np.concatenate(x) for x in zip(*parts, strict=True))
         sec = time.perf_counter() - t0
         flags = flags | np.where(saturated, int(Flag.SATURATED), 0)
         keep = (flags & DEFAULT_EXCLUDE) == 0

@@ -81,11 +81,13 @@ def stage_runner(name: str) -> Runner:
         if problems:
             raise SystemExit(f"bench.flags: {name}: {problems}")
         n_rep = y.shape[0] // n_c
-        wells = pd.DataFrame({"well": [f"W{i}" for i in range(y.shape[0])], "role": "sample",
-                              "substrate": np.tile(sc.s0, n_rep)})
+        wells = pd.DataFrame({"well": [f"W{i}" for i in range(n_c)], "role": "sample", "substrate": sc.s0})
         plate = PlateView(sc.name, wells, {"substrate": "mM"}, "AU", lambda _m: None)
-        res = cls(**settings).kernel(t.copy(), y.copy(), plate)
-        return np.asarray(res.v0, float), np.asarray(res.flags, np.int64), np.asarray(res.stderr, float)
+        # one plate (draw) per call, as the rates stage runs a method (a method may pool a plate's wells)
+        res = [cls(**settings).kernel(t.copy(), y[k * n_c:(k + 1) * n_c].copy(), plate) for k in range(n_rep)]
+        return (np.concatenate([np.asarray(r.v0, float) for r in res]),
+                np.concatenate([np.asarray(r.flags, np.int64) for r in res]),
+                np.concatenate([np.asarray(r.stderr, float) for r in res]))
 
     return run
 

@@ -8,7 +8,9 @@ same reads, so the flags mean the same on every method:
 * DECAY, from the first-order-decay fit of :func:`vzero.plugins.rates.lagdecay.lag_decay`: the fitted rate at
   the last read is below what substrate depletion can explain, ``(1 - x)^n`` with ``n`` =
   :data:`DEPLETION_ORDER` (needs s0 and signal_per_conc; without them decay and depletion cannot be told
-  apart from one curve and DECAY is not assessed).
+  apart from one curve and DECAY is not assessed); on wells flagged LAG, from the lag clock instead
+  (:func:`vzero.plugins.rates.lagfit.decay_after_lag`: a first-order decay fitted from the lag's end takes the
+  still rising activity for a steady one and missed the decay after a lag).
 
 A method that does not model what was found adds UNMODELLED: its rate is not the initial rate, and the fit
 stage leaves the well out by default, with the reason in fits.csv.
@@ -30,6 +32,7 @@ import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.lagdecay import lag_decay, mark_lags
+from vzero.plugins.rates.lagfit import decay_after_lag
 
 #: Order of the fastest fall of the rate, ``(1 - x)^n`` at conversion x, that substrate depletion is allowed
 #: to explain before a falling rate is called decay. Michaelis–Menten gives at most n = 1 and a Hill enzyme
@@ -52,20 +55,25 @@ def mark_decay(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: 
     y_all = np.array(signal, dtype=float, ndmin=2)
     s_all = np.broadcast_to(np.asarray(s0, dtype=float), v0.shape)
     rated = np.isfinite(v0) | ((np.asarray(result.flags) & int(Flag.FIT_FAILED)) != 0)
-    rows = np.flatnonzero(rated & _falling(t, y_all, s_all, float(signal_per_conc), depletion_order, min_points))
-    if rows.size == 0:
-        return result
-    y = y_all[rows]
-    s = s_all[rows]
-    ld = lag_decay(time, y, s0=s, signal_per_conc=signal_per_conc, min_points=min_points, fail_ratio=np.inf,
-                   depletion_order=depletion_order)
-    hit = (np.asarray(ld.flags) & int(Flag.DECAY)) != 0
-    if not hit.any():
+    # after a lag the rate first rises: those wells are judged on the lag clock (lagfit.decay_after_lag)
+    lagged = rated & ((np.asarray(result.flags) & int(Flag.LAG)) != 0)
+    rows = np.flatnonzero(rated & ~lagged & _falling(t, y_all, s_all, float(signal_per_conc), depletion_order,
+                                                     min_points))
+    hit_rows = np.zeros(0, np.int64)
+    if rows.size:
+        ld = lag_decay(time, y_all[rows], s0=s_all[rows], signal_per_conc=signal_per_conc, min_points=min_points,
+                       fail_ratio=np.inf, depletion_order=depletion_order)
+        hit_rows = rows[(np.asarray(ld.flags) & int(Flag.DECAY)) != 0]
+    lag_rows = np.flatnonzero(lagged)
+    if lag_rows.size:
+        late = decay_after_lag(t, y_all[lag_rows], s_all[lag_rows], float(signal_per_conc), min_points=min_points)
+        hit_rows = np.concatenate([hit_rows, lag_rows[late]])
+    if hit_rows.size == 0:
         return result
     flags = np.asarray(result.flags, dtype=np.int64).copy()
-    flags[rows[hit]] |= int(Flag.DECAY)
+    flags[hit_rows] |= int(Flag.DECAY)
     if not modelled:
-        flags[rows[hit]] |= int(Flag.UNMODELLED)
+        flags[hit_rows] |= int(Flag.UNMODELLED)
     return dataclasses.replace(result, flags=flags)
 
 

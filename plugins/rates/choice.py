@@ -49,7 +49,7 @@ import numpy as np
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.lagdecay import detect_lag, lag_decay
-from vzero.plugins.rates.lagfit import lag_clock_fit
+from vzero.plugins.rates.lagfit import lag_clock_fit, plate_clock
 from vzero.plugins.rates.noise import Screen, conversion_scale, flag_noisy, screen
 from vzero.plugins.rates.polynomial import inv3_hankel
 from vzero.plugins.rates.progress import progress_curve
@@ -411,7 +411,7 @@ def model_choice(
         flags[has_lag] |= int(Flag.LAG)
         if has_lag.any() and known:
             rows = np.flatnonzero(has_lag)
-            lf = lag_clock_fit(t, y[rows], s0_all[rows], spc, min_points=min_points)
+            lf = lag_clock_fit(t, y[rows], s0_all[rows], spc, min_points=min_points, sigma=sigma[rows])
             ok = np.isfinite(lf["v0"])
             r = rows[ok]
             v0[r], se[r], code[r] = lf["v0"][ok], lf["stderr"][ok], 3.0
@@ -419,6 +419,16 @@ def model_choice(
             extra["rmse_over_noise"][r] = lf["ratio"][ok]
             w_start[r] = t[0]
             flags[r[lf["k"][ok] > 0]] |= int(Flag.DECAY)
+            # the plate's lag and decay for its wells where the detector saw no lag (too little signal)
+            others = np.flatnonzero(sc.usable & ~has_lag)
+            pc = plate_clock(t, y[others], s0_all[others], spc, lf, int(sc.usable.sum()), sigma=sigma[others],
+                             min_points=min_points)
+            r = others[pc["take"]]
+            v0[r], se[r], code[r] = pc["v0"][pc["take"]], pc["stderr"][pc["take"]], 3.0
+            lag_s[r], extra["k_decay"][r] = pc["tau"][pc["take"]], pc["k"][pc["take"]]
+            extra["rmse_over_noise"][r], w_start[r] = pc["ratio"][pc["take"]], t[0]
+            flags[r] |= int(Flag.LAG)
+            flags[r[pc["k"][pc["take"]] > 0]] |= int(Flag.DECAY)
         elif has_lag.any():
             rows = np.flatnonzero(has_lag)
             ld = lag_decay(t, y[rows], min_points=min_points, fail_ratio=np.inf)
