@@ -22,6 +22,10 @@ Per well, all wells at once:
    four parameters, nesting both curves) is fitted too and kept by an extra-sum-of-squares F-test against
    the best three-parameter curve (:func:`_hill_step`): the order of a cooperative enzyme's rate rises as
    the substrate falls, which neither three-parameter curve can follow;
+6c. where the kept Michaelis–Menten or power-law curve leaves a smooth misfit in its residuals (the part a
+   cubic in time explains, :func:`smooth_misfit`, above :data:`MISFIT_TRY`), the Hill curve is fitted from
+   the Michaelis–Menten solution and replaces the kept curve where its v0 differs from it significantly
+   (:func:`_shape_step`): a curve of the wrong shape can fit within the noise and still be off at t = 0;
 7. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
    :func:`vzero.plugins.rates.lagdecay.lag_decay`) get the first-order decay model when it describes them;
 8. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
@@ -36,12 +40,14 @@ Needs ``s0`` and ``signal_per_conc``; without them the Michaelis–Menten curve 
 the quadratic window is the first third of the reads. ``extra['model']`` says which estimate each well got
 (0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag model, 4 Hill curve);
 ``extra['rate_t']`` is
-v0 over its standard error. NOISY as for every method (relative SE above 10 %; includes every rate not
+v0 over its standard error; ``extra['misfit']`` the smooth misfit statistic of step 6c (read variances, NaN
+where no kept curve was tested). NOISY as for every method (relative SE above 10 %; includes every rate not
 significantly different from zero).
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, fields
 from typing import Any
 
@@ -52,7 +58,7 @@ from vzero.plugins.rates.lagdecay import detect_lag, lag_decay
 from vzero.plugins.rates.lagfit import lag_clock_fit, plate_clock
 from vzero.plugins.rates.noise import Screen, conversion_scale, flag_noisy, screen
 from vzero.plugins.rates.polynomial import inv3_hankel
-from vzero.plugins.rates.progress import progress_curve
+from vzero.plugins.rates.progress import QUICK_BLOCKS, block_means, integrated_mm, power_conversion, progress_curve
 from vzero.plugins.rates.spikes import find_spikes
 
 MODEL_CODES = {"michaelis-menten": 0, "power": 1, "quadratic": 2, "lag-decay": 3, "hill": 4}
@@ -259,6 +265,49 @@ HILL_ALPHA_CURVE = 0.05
 HILL_ITER = 30
 
 
+@dataclass(frozen=True)
+class _Estimates:
+    """The per-well arrays :func:`model_choice` fills (the same arrays, changed in place): ``v0`` and ``se``
+    (signal/s), the model ``code``, ``ratio`` (residual RMS over the read noise), ``goodness``, the window
+    ``w_start`` and ``w_end`` (s) and ``n_pts`` reads used."""
+
+    v0: np.ndarray
+    se: np.ndarray
+    code: np.ndarray
+    ratio: np.ndarray
+    goodness: np.ndarray
+    w_start: np.ndarray
+    w_end: np.ndarray
+    n_pts: np.ndarray
+
+
+def _use_quadratic(t: np.ndarray, q: EarlyQuadratic, rows: np.ndarray, out: _Estimates, first: np.ndarray) -> None:
+    """The wells ``rows`` go back to the early quadratic (code 2); in place."""
+    out.v0[rows], out.se[rows], out.code[rows] = q.v0[rows], q.se[rows], 2.0
+    out.ratio[rows], out.goodness[rows] = q.rmse_over_noise[rows], q.goodness[rows]
+    out.w_start[rows], out.w_end[rows], out.n_pts[rows] = t[first[rows]], q.end_s[rows], q.n[rows]
+
+
+def _keep_hill(t: np.ndarray, sc: Screen, rows: np.ndarray, hf: dict[str, np.ndarray], keep: np.ndarray,
+               out: _Estimates, first: np.ndarray) -> None:
+    """The wells ``rows[keep]`` take the Hill curve's fit ``hf``
+    (:func:`vzero.plugins.rates.hillcurve.fit_hill_curve`, code 4); in place."""
+    r = rows[keep]
+    out.v0[r], out.se[r], out.code[r], out.ratio[r] = hf["v0"][keep], hf["se"][keep], 4.0, hf["ratio"][keep]
+    out.goodness[r] = np.nan
+    last = t.size - 1 - np.argmax(sc.valid[r][:, ::-1], axis=1)
+    out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
+
+
+def _start_baseline(t: np.ndarray, y: np.ndarray, valid: np.ndarray, v0: np.ndarray) -> np.ndarray:
+    """Baseline at t = t[0] (signal) from the mean of each well's first three counted reads and its rate
+    ``v0`` (signal/s): a start for the whole-curve fits."""
+    yz = np.where(valid, y, 0.0)
+    first3 = valid & (np.cumsum(valid, axis=1) <= 3)
+    t3 = (first3 * t[None, :]).sum(axis=1) / first3.sum(axis=1)
+    return (yz * first3).sum(axis=1) / first3.sum(axis=1) - v0 * (t3 - t[0])
+
+
 def _hill_step(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, rows: np.ndarray, pw_v0: np.ndarray,
                pw_order: np.ndarray, r_best: np.ndarray, mm_kept: np.ndarray, s0_all: np.ndarray, spc: float,
                v0: np.ndarray, se: np.ndarray, code: np.ndarray, ratio: np.ndarray, goodness: np.ndarray,
@@ -287,10 +336,7 @@ def _hill_step(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, rows
     if rows.size == 0:
         return
     valid = sc.valid[rows]
-    yz = np.where(valid, y[rows], 0.0)
-    first3 = valid & (np.cumsum(valid, axis=1) <= 3)
-    t3 = (first3 * t[None, :]).sum(axis=1) / first3.sum(axis=1)
-    b0 = (yz * first3).sum(axis=1) / first3.sum(axis=1) - pw_v0[sel] * (t3 - t[0])
+    b0 = _start_baseline(t, y[rows], valid, pw_v0[sel])
     # start at the power law: u = 0.95 (K0.5 well above S0), n0 = the power law's order
     n0 = np.clip(pw_order[sel], 1e-2, 7.5)
     start = np.stack([b0, np.log(pw_v0[sel] / spc), n0, np.full(rows.size, np.log(0.95 / 0.05))], axis=1)
@@ -302,11 +348,138 @@ def _hill_step(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, rows
         evidence = f_stat > f_dist.ppf(1.0 - np.where(mm_kept, HILL_ALPHA, HILL_ALPHA_CURVE), 1, n - 4.0)
         keep = (hf["converged"] & np.isfinite(hf["v0"]) & evidence & (hf["ratio"] <= lof_ratio)
                 & (np.abs(hf["v0"] - q.v0[rows]) <= agree_z * q.se[rows]))
-    r = rows[keep]
-    v0[r], se[r], code[r], ratio[r] = hf["v0"][keep], hf["se"][keep], 4.0, hf["ratio"][keep]
-    goodness[r] = np.nan
-    last = t.size - 1 - np.argmax(sc.valid[r][:, ::-1], axis=1)
-    w_start[r], w_end[r], n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
+    _keep_hill(t, sc, rows, hf, keep, _Estimates(v0, se, code, ratio, goodness, w_start, w_end, n_pts), first)
+
+
+#: Degree of the Legendre polynomial in time onto which :func:`smooth_misfit` projects a kept curve's
+#: residuals. A curve of the wrong shape (a Michaelis–Menten curve through a cooperative enzyme's reads)
+#: leaves a smooth residual that a low-degree polynomial catches, while the read noise spreads over every
+#: read: a cubic holds most of such a misfit with three degrees of freedom (the fitted curve takes up about
+#: two of them), so the test is far more sensitive than the residual RMS over all reads.
+MISFIT_DEGREE = 3
+
+#: The smooth lack-of-fit statistic above which a kept Michaelis–Menten or power-law curve may have the wrong
+#: shape, so the Hill curve is fitted too (:func:`_shape_step`): the 95th percentile of chi² with one degree
+#: of freedom, which the statistic follows for a curve of the right shape (measured on the benchmark's
+#: Michaelis–Menten plates: median 0.5, docs/rates.md, step 6c).
+MISFIT_TRY = 3.84
+
+#: Standard errors of their difference by which the Hill curve's v0 must differ from the kept curve's to
+#: replace it (:func:`_shape_step`).
+SHAPE_Z = 2.0
+
+#: Largest Hill coefficient with which the Hill curve may replace a kept curve (:func:`_shape_step`): Hill
+#: coefficients above 4 are rare (common practice), and on Michaelis–Menten wells whose noise happened to
+#: leave a smooth misfit the Hill fit ran to h = 5-12 with a v0 1-7 % low (measured on the benchmark).
+SHAPE_H_MAX = 4.0
+
+#: Iterations of the Hill fit of :func:`_shape_step`, from :data:`SHAPE_H_START`: on the benchmark's Hill plate
+#: at 0.6 mM, 8 gave the same rates as 12 (6: most fits not yet converged; from h = 1, 12 were needed).
+SHAPE_HILL_ITER = 8
+
+#: Hill coefficient at which the fit of :func:`_shape_step` starts, with the order at t = 0 of the
+#: Michaelis–Menten fit (``n0 = h u``) and its v0: a smooth misfit of a Michaelis–Menten curve points to an
+#: order that changes faster than Michaelis–Menten allows, so the fit starts away from h = 1, where the
+#: misfit's direction is flat.
+SHAPE_H_START = 2.0
+
+#: Screen of :func:`_shape_step`: one Gauss–Newton step of the Hill curve from its start must move v0 by more
+#: than this many of its standard errors for the full fit to run (its cost is mostly fixed per call, so the
+#: screen keeps it off plates whose curves have the right shape). Measured: on the Michaelis–Menten speed
+#: plate (384 wells) 3 of the 19 wells above :data:`MISFIT_TRY` moved more than 0.7 SE (at most 0.96); on the
+#: benchmark's Hill plate at 0.6 mM a screen at 1.0 kept a third of the wells from the Hill curve (RMS error
+#: ratio 1.22 against 0.82 at 0.5 and 0.7, 60 draws).
+SHAPE_SCREEN = 0.7
+
+
+def smooth_misfit(t: np.ndarray, y: np.ndarray, valid: np.ndarray, curve: Callable[[np.ndarray], np.ndarray],
+                  sigma: np.ndarray) -> np.ndarray:
+    """Per well, the squared norm (in read variances) of the part of the residuals ``y - curve`` that a
+    polynomial of degree :data:`MISFIT_DEGREE` in time explains beyond a constant.
+
+    Computed on the means of :data:`vzero.plugins.rates.progress.QUICK_BLOCKS` blocks of consecutive reads
+    (each weighted by its read count, so the statistic is the one of every read for any residual that is
+    smooth within a block). ``curve(tb)`` gives the fitted curve at block times ``tb [wells, blocks]`` up to
+    an additive constant (the baseline drops out). For a curve of the right shape fitted to the reads, about
+    chi² with one degree of freedom; ``y``, ``valid`` ``[wells, reads]``, ``sigma`` the read noise.
+    """
+    k = max(t.size // QUICK_BLOCKS, 1)
+    tb, yb, wb = block_means(t, y, valid.astype(float), k)
+    m = wb**2
+    e = np.where(m > 0, yb - curve(tb), 0.0)
+    span = max(float(t[-1] - t[0]), 1e-300)
+    basis = np.polynomial.legendre.legvander(2.0 * (tb - t[0]) / span - 1.0, MISFIT_DEGREE)
+    gram = np.einsum("wb,wbi,wbj->wij", m, basis, basis)
+    proj = np.einsum("wb,wb,wbi->wi", m, e, basis)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        coef = np.linalg.solve(gram + 1e-12 * np.eye(MISFIT_DEGREE + 1) * np.trace(gram, axis1=1, axis2=2)[:, None,
+                               None], proj[..., None])[..., 0]
+        explained = np.einsum("wi,wi->w", coef, proj) - (m * e).sum(axis=1) ** 2 / m.sum(axis=1)
+        return explained / sigma**2
+
+
+def _shape_step(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_all: np.ndarray, spc: float,
+                mm_fit: dict[str, np.ndarray], pw_v0: np.ndarray, order: np.ndarray, out: _Estimates, first: np.ndarray,
+                *, lof_ratio: float, agree_z: float) -> np.ndarray:
+    """Wells that kept the Michaelis–Menten (code 0) or the power-law curve (code 1) although the curve may
+    have the wrong shape: their residuals hold a smooth misfit (:func:`smooth_misfit` above
+    :data:`MISFIT_TRY`). Such a curve can fit within the read noise and still be a few percent off at
+    t = 0: a cooperative enzyme near K0.5, whose order in the substrate rises as the substrate falls, read
+    as a Michaelis–Menten curve (2.6 % high at S0 = 2 K0.5, h = 2.5, on the benchmark). These wells get the
+    integrated Hill curve, started from the Michaelis–Menten fit (``h = 1``, which it nests). It replaces
+    the kept curve where it describes the reads within ``lof_ratio`` read noises, its Hill coefficient is at
+    most :data:`SHAPE_H_MAX`, its v0 agrees with the early quadratic's within ``agree_z`` of the
+    quadratic's standard errors, and its v0 differs from the kept curve's by more than :data:`SHAPE_Z`
+    standard errors of their difference (the nested curve is unbiased under both, the kept one more precise
+    if it is right: Hausman 1978, Econometrica 46:1251). ``mm_fit``: per well ``v0`` (signal/s), ``km`` and
+    ``vmax`` (concentration, per second) of the Michaelis–Menten fit; ``pw_v0`` (signal/s) and ``order`` of
+    the power-law fit (NaN where not fitted). In place; returns the misfit statistic per well (NaN where not
+    tested)."""
+    from vzero.plugins.rates.hillcurve import fit_hill_curve
+
+    misfit = np.full(y.shape[0], np.nan)
+    s0c = s0_all[:, None]
+    rows = np.flatnonzero((out.code == 0.0) & np.isfinite(mm_fit["km"]))
+    if rows.size:
+        km, vm, s = mm_fit["km"][rows, None], mm_fit["vmax"][rows, None], s0c[rows]
+        misfit[rows] = smooth_misfit(t, y[rows], sc.valid[rows], lambda tb: -spc * integrated_mm(tb, s, km, vm),
+                                     sc.sigma[rows])
+    rows = np.flatnonzero((out.code == 1.0) & np.isfinite(order))
+    if rows.size:
+        k, m, amp = (pw_v0[rows] / spc)[:, None] / s0c[rows], order[rows, None] - 1.0, spc * s0c[rows]
+        misfit[rows] = smooth_misfit(t, y[rows], sc.valid[rows], lambda tb: amp * power_conversion(tb * k, m)[0],
+                                     sc.sigma[rows])
+    with np.errstate(invalid="ignore"):
+        bad = np.flatnonzero(misfit > MISFIT_TRY)
+    if bad.size == 0:
+        return misfit
+    with np.errstate(invalid="ignore", divide="ignore"):
+        start_ok = np.isfinite(mm_fit["km"][bad]) & (mm_fit["v0"][bad] / spc > 0)
+    hill_rows = bad[start_ok]
+    if hill_rows.size:
+        u = np.clip(mm_fit["km"][hill_rows] / (mm_fit["km"][hill_rows] + s0_all[hill_rows]), 1e-3, 1.0 - 1e-3)
+        start = np.stack([_start_baseline(t, y[hill_rows], sc.valid[hill_rows], mm_fit["v0"][hill_rows]),
+                          np.log(mm_fit["v0"][hill_rows] / spc), u, np.log(u / (SHAPE_H_START - u))], axis=1)
+        one = fit_hill_curve(t, y[hill_rows], sc.valid[hill_rows], s0_all[hill_rows], spc, sc.sigma[hill_rows],
+                             start, max_iter=1, restart=False)
+        with np.errstate(invalid="ignore"):
+            moves = np.abs(one["v0"] - mm_fit["v0"][hill_rows]) > SHAPE_SCREEN * one["se"]
+        hill_rows, start = hill_rows[moves], start[moves]
+    if hill_rows.size:
+        hf = fit_hill_curve(t, y[hill_rows], sc.valid[hill_rows], s0_all[hill_rows], spc, sc.sigma[hill_rows],
+                            start, max_iter=SHAPE_HILL_ITER, restart=False)
+        with np.errstate(invalid="ignore"):
+            describes = (hf["converged"] & np.isfinite(hf["v0"]) & (hf["ratio"] <= lof_ratio)
+                         & (hf["h"] <= SHAPE_H_MAX)
+                         & (np.abs(hf["v0"] - q.v0[hill_rows]) <= agree_z * q.se[hill_rows]))
+            # the Hill curve nests the kept one, so both estimate v0 alike where the kept curve is right: it
+            # replaces it only where the two differ by more than SHAPE_Z standard errors of their difference
+            # (Hausman 1978, as in model_choice); elsewhere the kept curve's more precise v0 stands
+            cur_v0, cur_se = out.v0[hill_rows], out.se[hill_rows]
+            room = np.sqrt(np.fmax(hf["se"] ** 2 - cur_se**2, (DIFF_FLOOR * hf["se"]) ** 2))
+            keep = describes & (np.abs(hf["v0"] - cur_v0) > SHAPE_Z * room)
+        _keep_hill(t, sc, hill_rows, hf, keep, out, first)
+    return misfit
 
 
 def model_choice(
@@ -341,7 +514,9 @@ def model_choice(
     first = np.argmax(sc.valid, axis=1)
     w_start = np.where(sc.usable, t[first], np.nan)
     w_end, n_pts = np.where(sc.usable, q.end_s, np.nan), np.where(sc.usable, q.n, 0)
-    order = np.full(n_w, np.nan)  # of the power-law curve, where fitted
+    order, pw_v0 = np.full(n_w, np.nan), np.full(n_w, np.nan)  # of the power-law curve, where fitted
+    misfit = np.full(n_w, np.nan)
+    est = _Estimates(v0, se, code, ratio, goodness, w_start, w_end, n_pts)
     s0_all = np.broadcast_to(np.asarray(s0 if known else np.nan, float), (n_w,))
     spc = float(signal_per_conc) if known else np.nan  # type: ignore[arg-type]
     skip = _skippable(q, sc, s0_all, spc, BIAS_SHARE) if known else np.zeros(n_w, bool)
@@ -389,10 +564,9 @@ def model_choice(
                 # barely show
                 win = better & (r_pw <= lof_ratio) & ~(np.abs(pw.v0 - q.v0[rows]) > agree_z * q.se[rows])
             take(rows, pw, 1.0, win)
+            pw_v0[rows] = pw.v0
             lost = rows[(better & ~win) | (~better & ~ok_mm[try_pw])]  # back to the quadratic
-            v0[lost], se[lost], code[lost] = q.v0[lost], q.se[lost], 2.0
-            ratio[lost], goodness[lost] = q.rmse_over_noise[lost], q.goodness[lost]
-            w_start[lost], w_end[lost], n_pts[lost] = t[first[lost]], q.end_s[lost], q.n[lost]
+            _use_quadratic(t, q, lost, est, first)
             if HILL_ORDER is not None:
                 with np.errstate(invalid="ignore"):
                     r_best = np.fmin(np.where(np.isfinite(r_old), r_old, np.inf),
@@ -401,6 +575,12 @@ def model_choice(
                 _hill_step(t, y, sc, q, rows[rising], pw.v0[rising], pw.extra["order"][rising], r_best[rising],
                            ok_mm[try_pw][rising] & (code[rows[rising]] == 0.0), s0_all, spc, v0, se, code, ratio,
                            goodness, w_start, w_end, n_pts, first, lof_ratio=lof_ratio, agree_z=agree_z)
+        if known:
+            mm_fit = {"v0": np.full(n_w, np.nan), "km": np.full(n_w, np.nan), "vmax": np.full(n_w, np.nan)}
+            mm_fit["v0"][fit_rows], mm_fit["km"][fit_rows] = mm.v0, mm.extra["km"]
+            mm_fit["vmax"][fit_rows] = mm.extra["vmax"]
+            misfit = _shape_step(t, y, sc, q, s0_all, spc, mm_fit, pw_v0, order, est, first, lof_ratio=lof_ratio,
+                                 agree_z=agree_z)
     flags = np.asarray(sc.flags, dtype=np.int64) | (fit_flags & ~np.int64(int(Flag.FIT_FAILED | Flag.NOISY)))
     flags[spikes.any(axis=1)] |= int(Flag.SPIKE)
     lag_s = np.where(sc.usable, 0.0, np.nan)
@@ -443,7 +623,7 @@ def model_choice(
     bad = (flags & int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)) != 0
     v0[bad], se[bad] = np.nan, np.nan
     flag_noisy(v0, se, flags)
-    extra["model"] = code
+    extra["model"], extra["misfit"] = code, misfit
     with np.errstate(invalid="ignore", divide="ignore"):
         extra["rate_t"] = v0 / se
     return RateResult(v0=v0, stderr=se, window_start_s=w_start, window_end_s=w_end,

@@ -131,11 +131,15 @@ def hill_model(t: np.ndarray, s0: np.ndarray, spc: float) -> lsq.Model:
 
 
 def fit_hill_curve(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, spc: float,
-                   sigma: np.ndarray, start: np.ndarray, *, max_iter: int = 80) -> dict[str, np.ndarray]:
+                   sigma: np.ndarray, start: np.ndarray, *, max_iter: int = 80,
+                   restart: bool = True) -> dict[str, np.ndarray]:
     """Fit the integrated Hill curve to each well's reads ``y [n, n_t]`` (signal; ``valid`` the reads
     counted) with known ``s0 [n]`` (concentration) and ``spc`` (signal per concentration), from ``start
     [n, 4]`` (baseline, ln v0, n0, logit u; :func:`hill_model`), on block means as the quick whole-curve fits are
     (:func:`vzero.plugins.rates.progress.fit_coarse_to_fine`, ``refine=False``).
+
+    ``restart``: fits that end outside :data:`H_RANGE` or unconverged are started again once from ``u = 1/2``
+    (False: they are returned unconverged, for callers that would not keep them anyway).
 
     Returns per well ``v0`` (signal/s), ``se`` (its standard error by the delta method, the covariance scaled
     by the larger of the residual variance and ``sigma²``), ``rss`` (over every counted read, signal²),
@@ -162,7 +166,7 @@ def fit_hill_curve(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarr
     params, rss, cov, conv = fit.params.copy(), fit.rss.copy(), fit.cov_unit.copy(), fit.converged.copy()
     # a fit that ran to a Hill coefficient outside H_RANGE (where the model holds h at H_CLIP, a flat valley)
     # or did not converge starts again halfway: u = 1/2 (K0.5 = S0), half the order; the lower cost is kept
-    again = np.flatnonzero(~_plausible(params) | ~conv)
+    again = np.flatnonzero(~_plausible(params) | ~conv) if restart else np.zeros(0, np.int64)
     if again.size:
         p1 = p0[again].copy()
         p1[:, 2], p1[:, 3] = np.clip(p1[:, 2] / 2.0, *N0_BOUNDS), 0.0

@@ -12,8 +12,9 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.special import lambertw
+from scipy.stats import chi2
 from vzero.plugins.kinetics.simulate import simulate_plate
-from vzero.plugins.rates.choice import model_choice
+from vzero.plugins.rates.choice import model_choice, smooth_misfit
 from vzero.plugins.rates.hillcurve import fit_hill_curve, hill_left, hill_model
 from vzero.plugins.rates.progress import progress_curve
 
@@ -88,10 +89,61 @@ def test_default_takes_the_hill_curve_where_the_power_law_runs_high() -> None:
     assert np.sqrt(np.mean(err_mc**2)) < 0.6 * np.sqrt(np.mean(err_pw**2))
 
 
-def test_michaelis_menten_wells_never_reach_the_hill_curve() -> None:
-    # the Hill curve is tried only where the power law needs an order above 1.1, which depletion under
-    # Michaelis-Menten kinetics never gives (order Km/(Km + S) <= 1)
-    s0 = np.repeat([0.1, 0.25, 0.5, 1.0, 2.5], 16)
+def test_michaelis_menten_wells_seldom_reach_the_hill_curve() -> None:
+    # the Hill curve replaces a kept Michaelis-Menten curve only where the curve leaves a smooth misfit (a test
+    # at the 5 % level) and the Hill curve's v0 differs from it by more than 2 standard errors of their
+    # difference; on Michaelis-Menten wells both happen together by chance only
+    s0 = np.repeat([0.1, 0.25, 0.5, 1.0, 2.5], 40)
     p = simulate_plate(T, s0, 0.5, 6e-4, signal_per_conc=SPC, baseline=0.05, noise=0.002, seed=11)
     mc = model_choice(T, p.signal, s0=s0, signal_per_conc=SPC)
-    assert not np.any(mc.extra["model"] == 4)
+    assert np.mean(mc.extra["model"] == 4) <= 0.05
+    # the misfit statistic follows chi² with about one degree of freedom there (median 0.45, scipy.stats.chi2)
+    assert np.nanmedian(mc.extra["misfit"]) == pytest.approx(chi2.median(1), abs=0.25)
+    assert np.nanmean(mc.extra["misfit"] > chi2.ppf(0.95, 1)) <= 0.10
+
+
+def test_smooth_misfit_is_the_cubic_projection_of_the_residuals() -> None:
+    # reference: numpy.linalg.lstsq of the residuals on a cubic in time, minus their mean's share; 30 reads,
+    # so every block holds one read and the statistic is the read-by-read one
+    rng = np.random.default_rng(4)
+    t = np.arange(30) * 10.0
+    y = rng.standard_normal((5, t.size)) + 0.05 * t
+    valid = np.ones_like(y, bool)
+    valid[2, [3, 17]] = False
+    curve = 0.04 * t
+    got = smooth_misfit(t, y, valid, lambda tb: np.broadcast_to(0.04 * tb, tb.shape), np.full(5, 0.5))
+    for i in range(5):
+        tt, r = t[valid[i]], (y[i] - curve)[valid[i]]
+        design = np.vander(tt, 4)
+        fitted = design @ np.linalg.lstsq(design, r, rcond=None)[0]
+        want = (fitted @ fitted - r.size * r.mean() ** 2) / 0.25
+        assert got[i] == pytest.approx(want, rel=1e-8)
+
+
+def test_smooth_misfit_of_the_true_curve_is_chi2_with_three_degrees_of_freedom() -> None:
+    # residuals of the true curve are read noise only: their projection on a cubic beyond a constant has three
+    # degrees of freedom (reference: scipy.stats.chi2), also on block means of four or five reads
+    rng = np.random.default_rng(8)
+    sigma = 0.002
+    y = 0.3 * (1 - np.exp(-T / 400.0)) + sigma * rng.standard_normal((4000, T.size))
+    stat = smooth_misfit(T, y, np.ones_like(y, bool), lambda tb: 0.3 * (1 - np.exp(-tb / 400.0)),
+                         np.full(4000, sigma))
+    assert np.mean(stat) == pytest.approx(chi2.mean(3), abs=0.2)
+    assert np.mean(stat > chi2.ppf(0.95, 3)) == pytest.approx(0.05, abs=0.012)
+
+
+def test_default_replaces_a_michaelis_menten_curve_that_fits_a_cooperative_well_within_the_noise() -> None:
+    # at S0 = 2 K0.5 (h = 2.5) the order of the rate rises from 0.4 to 2.5 as the substrate falls; the
+    # Michaelis-Menten curve, whose order cannot rise that fast, still fits within the noise but runs about
+    # 2.5 % high (docs/rates.md); the smooth misfit sends the wells to the Hill curve. Truth: the ODE
+    # integration of simulate_plate (scipy.integrate.solve_ivp)
+    y, v_true = hill_plate(0.6, 48, seed=5)
+    s0 = np.full(48, 0.6)
+    mc = model_choice(T, y, s0=s0, signal_per_conc=SPC)
+    mm = progress_curve(T, y, s0=s0, signal_per_conc=SPC)
+    err_mc, err_mm = mc.v0 / v_true - 1.0, mm.v0 / v_true - 1.0
+    assert np.median(mm.extra["rmse_over_noise"]) < 1.4  # the curve describes the reads within the noise
+    assert np.mean(err_mm) > 0.015  # its bias, which this step removes
+    assert np.mean(mc.extra["model"] == 4) >= 0.8
+    assert abs(np.mean(err_mc)) < 0.005
+    assert np.sqrt(np.mean(err_mc**2)) < 0.5 * np.sqrt(np.mean(err_mm**2))
