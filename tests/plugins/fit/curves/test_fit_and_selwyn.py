@@ -116,3 +116,21 @@ def test_a_group_gets_the_same_fit_alone_and_in_a_batch() -> None:
     for name in ("Vmax", "K0.5", "h"):
         a, b = alone.params[name], batch.params[name]
         np.testing.assert_allclose([b.value, b.ci_low, b.ci_high], [a.value, a.ci_low, a.ci_high], rtol=1e-6)
+
+
+def test_a_stalled_curve_fit_counts_as_converged_only_at_a_stationary_point() -> None:
+    # residuals orthogonal to the Jacobian's columns (a least-squares minimum) pass; a residual with a
+    # component along a column (cosine 1e-3) does not; a zero column (fixed parameter) is ignored
+    from vzero.plugins.fit.curves.solver import CURVE_GTOL, stationary
+
+    rng = np.random.default_rng(4)
+    j = rng.standard_normal((2, 50, 3))
+    j[:, :, 2] = 0.0
+    r = rng.standard_normal((2, 50))
+    q, _ = np.linalg.qr(j[0, :, :2])
+    r[0] -= q @ (q.T @ r[0])  # projected off the columns: cosine at rounding level
+    along = j[1, :, 0] / np.linalg.norm(j[1, :, 0])
+    r[1] -= np.linalg.qr(j[1, :, :2])[0] @ (np.linalg.qr(j[1, :, :2])[0].T @ r[1])
+    r[1] += 1e-3 * np.linalg.norm(r[1]) * along
+    assert CURVE_GTOL == 1e-6
+    assert stationary(r, j).tolist() == [True, False]
