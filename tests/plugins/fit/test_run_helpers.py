@@ -7,7 +7,6 @@ the saturation check (highest substrate below the fitted Km)."""
 from __future__ import annotations
 
 import numpy as np
-import pytest
 from vzero.plugins.fit import run as fit_run
 
 from tests.plugins.fit.test_statistics import MM, _fit, _puromycin
