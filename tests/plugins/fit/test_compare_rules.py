@@ -3,6 +3,9 @@ default significance level of 0.05 (common practice) when the caller gives none.
 
 from __future__ import annotations
 
+import dataclasses
+
+import numpy as np
 import pytest
 from scipy import stats
 from vzero.plugins.fit import compare
@@ -23,3 +26,16 @@ def test_default_alpha_is_five_percent(p_value: float, expected: str) -> None:
     mm, hill = _stub(_rss_for_p(p_value, 10.0, n), n, 2), _stub(10.0, n, 3)
     _, preferred, _ = compare.compare_set({"michaelis-menten": mm, "hill": hill}, {"hill": {"michaelis-menten": ""}})
     assert preferred == expected
+
+
+def test_a_failed_fit_with_a_finite_rss_is_left_out_of_the_comparison() -> None:
+    # a solver that stops at its iteration cap still reports the RSS where it stopped: that fit (here with
+    # the lowest AICc) must not take part, and the Akaike weights are over the successful fits only
+    n = 20
+    good, other = _stub(5.0, n, 2), _stub(5.5, n, 2)
+    failed = dataclasses.replace(_stub(1.0, n, 2), success=False, message="iteration limit")
+    rows, preferred, _ = compare.compare_set({"competitive": good, "uncompetitive": other, "mixed": failed}, {})
+    assert preferred == "competitive"
+    weights = {r["model"]: r["akaike_weight"] for r in rows}
+    assert np.isnan(weights["mixed"])
+    assert weights["competitive"] + weights["uncompetitive"] == pytest.approx(1.0)
