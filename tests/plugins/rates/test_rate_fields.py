@@ -235,3 +235,22 @@ def test_flag_noisy_and_finish_leave_no_rate_wells_alone() -> None:
     assert list(np.isnan(res.v0)) == [False, True, True, False, False, False]
     assert list(np.isnan(res.stderr)) == [False, True, True, False, False, False]
     assert list(res.extra) == ["k"]
+
+
+def test_polynomial_goodness_is_r_squared_of_the_window_fit() -> None:
+    # R² = 1 − RSS/TSS of numpy.polyfit's quadratic on the same window (its definition); one poor fit
+    from vzero.plugins.rates.polynomial import polynomial
+
+    rng = np.random.default_rng(6)
+    t = np.arange(40) * 5.0
+    y = 0.2 + 3e-3 * t - 4e-6 * t**2 + rng.normal(0, 0.002, (4, t.size))
+    y[3] = 0.2 + 2e-4 * t + rng.normal(0, 0.01, t.size)
+    r = polynomial(t, y, degree=2, window_s=120.0)
+    sel = t <= 120.0
+    assert r.goodness_name == "r_squared"
+    for i in range(4):
+        c = np.polyfit(t[sel], y[i, sel], 2)
+        rss = float(((y[i, sel] - np.polyval(c, t[sel])) ** 2).sum())
+        tss = float(((y[i, sel] - y[i, sel].mean()) ** 2).sum())
+        assert r.goodness[i] == pytest.approx(1 - rss / tss, rel=1e-9)
+    assert r.goodness[3] < 0.9
