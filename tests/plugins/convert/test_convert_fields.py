@@ -95,3 +95,14 @@ def test_water_peak_file_checks() -> None:
             name="wp.csv", data=b"well,peak\nA1,0.1\n")}))
     # a given pathlength needs no file
     assert _stage(BeerLambert, epsilon="6220 M^-1 cm^-1", pathlength="1 cm").preflight(_input({})) is None
+
+
+def test_straight_walled_well_holds_area_times_height() -> None:
+    # V = A·h for a cylinder or a square prism (no taper): 1 cm² = 100 mm² holds 100 µL per mm of height
+    from vzero.plugins.convert.pathlength import WellGeometry, volume_to_height_inverse
+
+    cyl = WellGeometry("cyl", "round", np.sqrt(400 / np.pi), np.sqrt(400 / np.pi), 20.0, "test shape")
+    box = WellGeometry("box", "square", 10.0, 10.0, 20.0, "test shape")
+    for g in (cyl, box):
+        assert_allclose(volume_to_height_inverse(g, np.array([1.0, 2.5])), [100.0, 250.0], rtol=1e-12)
+        assert g.capacity_ul == pytest.approx(2000.0, rel=1e-12)
