@@ -41,10 +41,13 @@ ROOT = Path(__file__).resolve().parents[1]
 
 STATS = "tests/plugins/fit/test_statistics.py"
 STAGE = "tests/plugins/fit/test_stage.py"
-RATES = ["tests/plugins/rates/test_rate_thresholds.py", "tests/plugins/rates/test_se_quick.py",
+RATES = ["tests/plugins/rates/test_rate_fields.py", "tests/plugins/rates/test_lag_fields.py",
+         "tests/plugins/rates/test_rate_thresholds.py",
+         "tests/plugins/rates/test_se_quick.py",
          "tests/plugins/rates/test_rates_closed_form.py", "tests/plugins/rates/test_rates_kernels.py"]
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
-READERS = ["tests/plugins/importers/test_time_formats.py", "tests/plugins/importers/test_readers.py",
+READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importers/test_time_formats.py",
+           "tests/plugins/importers/test_readers.py",
            "tests/plugins/importers/test_plain_numbers.py"]
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
@@ -53,12 +56,14 @@ DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with
 #: module (path in the checkout) -> (functions to mutate, or () for the whole module; targeted tests, the
 #: quickest that exercise the module, fastest first)
 TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
-    "plugins/fit/compare.py": ((), [STATS]),
+    "plugins/fit/compare.py": ((), [STATS, "tests/plugins/fit/test_compare_rules.py"]),
     "plugins/fit/engine.py": ((), [STATS, "tests/plugins/fit/test_engine_nist.py"]),
     "plugins/fit/run.py": (("_sigma", "_saturation_problem", "_derived_row", "_ki_rows", "_derived", "_group_enzyme"),
-                           [STATS, STAGE, "tests/plugins/fit/test_titration.py"]),
+                           ["tests/plugins/fit/test_run_helpers.py", STATS, STAGE,
+                            "tests/plugins/fit/test_titration.py"]),
     "plugins/fit/models.py": ((), ["tests/plugins/fit/test_models.py", STATS]),
-    "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"), [STAGE]),
+    "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"),
+                                   ["tests/plugins/fit/test_diagnostics_fields.py", STAGE]),
     "plugins/rates/noise.py": ((), RATES),
     "plugins/rates/window.py": ((), RATES),
     "plugins/rates/auto.py": ((), RATES),
@@ -73,6 +78,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/importers/readers.py": (("_cell_text", "_seconds_text", "_plain_numbers", "_numbers", "_times",
                                       "_check_increasing", "_detect_decimal"), READERS),
     "pipeline/recipe.py": (("_check", "_check_steps", "check"), ["tests/pipeline/test_recipe_rules.py",
+                                                                  "tests/pipeline/test_recipe_steps.py",
                                                                   "tests/pipeline/test_recipe.py"]),
     "pipeline/audit/verify.py": ((), ["tests/pipeline/test_recipe_rules.py", "tests/pipeline/test_verify.py",
                                       *DIGESTS]),

@@ -1,0 +1,93 @@
+"""The diagnostics' numbers against hand calculations: each linear transform's points and the estimates
+its line implies on exact Michaelis–Menten data (Vmax = 10, Km = 2: every transform returns them exactly),
+the usable range of the Hill plot, the confidence band by the delta method with scipy.stats.t and a
+finite-difference gradient, and the plotting grid's rule."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+from scipy import stats
+from vzero.plugins.fit import diagnostics as dg
+
+from tests.plugins.fit.test_statistics import MM, _fit, _puromycin
+
+S = np.array([0.0, 0.1, 0.5, 1.0, 2.0, 4.0, 8.0, 50.0])
+V = 10.0 * S / (2.0 + S)
+
+
+def _rows(table: dict, plot: str) -> tuple[dict, dict]:
+    sel = table["plot"] == plot
+    q, x, y, bad = table["quantity"][sel], table["x"][sel], table["y"][sel], table["unstable"][sel]
+    points = {"x": x[q == "point"], "y": y[q == "point"], "unstable": bad[q == "point"]}
+    return points, {str(k): float(v) for k, v in zip(q[q != "point"], y[q != "point"], strict=True)}
+
+
+def test_each_transform_returns_vmax_and_km_of_exact_data() -> None:
+    ids = [("p", f"A{i + 1}") for i in range(S.size)]
+    table = dg.transforms("g", S, V, 10.0, ids, "uM", "uM/s")
+    assert list(table) == dg.TRANSFORM_COLUMNS
+    for plot in ("lineweaver-burk", "eadie-hofstee", "hanes-woolf"):
+        _, est = _rows(table, plot)
+        assert est["Vmax"] == pytest.approx(10.0, rel=1e-9) and est["Km"] == pytest.approx(2.0, rel=1e-9), plot
+    pts, est = _rows(table, "lineweaver-burk")
+    np.testing.assert_allclose(pts["x"][1:], 1 / S[1:])
+    np.testing.assert_allclose(pts["y"][1:], 1 / V[1:])
+    assert est["slope"] == pytest.approx(0.2) and est["intercept"] == pytest.approx(0.1)  # Km/Vmax, 1/Vmax
+    assert list(pts["unstable"]) == [True] + [False] * 7  # S = 0 has no reciprocal
+    pts, est = _rows(table, "eadie-hofstee")
+    np.testing.assert_allclose(pts["x"][1:], V[1:] / S[1:])
+    assert est["slope"] == pytest.approx(-2.0) and est["intercept"] == pytest.approx(10.0)
+    pts, est = _rows(table, "hanes-woolf")
+    np.testing.assert_allclose(pts["y"][1:], S[1:] / V[1:])
+    assert est["slope"] == pytest.approx(0.1) and est["intercept"] == pytest.approx(0.2)
+    # Hill plot: log10(v/(Vmax − v)) = log10(S) − log10(Km) for h = 1; usable only for 0.1 < v/Vmax < 0.9
+    pts, est = _rows(table, "hill")
+    frac = V / 10.0
+    assert list(pts["unstable"]) == list(~((frac > 0.1) & (frac < 0.9)))
+    np.testing.assert_allclose(pts["y"][1:-1], np.log10(S[1:-1] / 2.0), rtol=1e-9)
+    assert est["h"] == pytest.approx(1.0) and est["K0.5"] == pytest.approx(2.0)
+    assert list(table["well"][: S.size]) == [i[1] for i in ids]
+
+
+def test_no_hill_plot_without_a_positive_vmax_and_no_line_through_one_x() -> None:
+    ids = [("p", "A1")] * S.size
+    for vmax in (np.nan, 0.0, -1.0):
+        assert "hill" not in set(dg.transforms("g", S, V, vmax, ids, "uM", "uM/s")["plot"])
+    assert np.isnan(dg._ols(np.array([1.0, 1.0, np.nan]), np.array([1.0, 2.0, 3.0]))).all()
+    ref = stats.linregress([1.0, 2.0, 4.0], [3.0, 2.0, 7.0])
+    assert dg._ols(np.array([1.0, 2.0, 4.0, np.nan]), np.array([3.0, 2.0, 7.0, 1.0])) == pytest.approx(
+        (ref.slope, ref.intercept))
+
+
+def test_band_is_the_delta_method_with_students_t() -> None:
+    s, v = _puromycin()
+    res = _fit(MM, s, v)
+    x = {"substrate": np.array([0.02, 0.2, 1.0])}
+    y, lo, hi = dg.band(MM, res, x, 0.90)
+    p = np.array(res.values, float)
+    grad = np.empty((3, p.size))
+    for k in range(p.size):
+        h = 1e-6 * abs(p[k])
+        up, dn = p.copy(), p.copy()
+        up[k] += h
+        dn[k] -= h
+        grad[:, k] = (MM.evaluate(list(up), x) - MM.evaluate(list(dn), x)) / (2 * h)
+    half = stats.t.ppf(0.95, res.dof) * np.sqrt(np.einsum("ni,ij,nj->n", grad, res.covariance, grad))
+    np.testing.assert_allclose(y, MM.evaluate(list(p), x), rtol=1e-12)
+    np.testing.assert_allclose(hi - y, half, rtol=1e-5)
+    np.testing.assert_allclose(y - lo, half, rtol=1e-5)
+    y2, lo2, hi2 = dg.band(MM, dataclasses.replace(res, errorbars=False), x, 0.90)
+    np.testing.assert_allclose(y2, y)
+    assert np.isnan(lo2).all() and np.isnan(hi2).all()
+
+
+@pytest.mark.parametrize(("values", "log"), [([1.0, 30.0], False), ([1.0, 30.5], True), ([0.5, 2.0], False)])
+def test_grid_is_log_spaced_only_beyond_a_thirty_fold_span(values: list[float], log: bool) -> None:
+    g = dg.grid(np.array([np.nan, -1.0, *values]), n=5)
+    lo, hi = min(values), max(values)
+    want = np.geomspace(lo / 2, hi * 1.5, 5) if log else np.linspace(0.0, hi * 1.1, 5)
+    np.testing.assert_allclose(g, want)
+    np.testing.assert_allclose(dg.grid(np.array([0.0, -2.0])), np.linspace(0.0, 1.0, 101))
