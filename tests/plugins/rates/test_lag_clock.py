@@ -185,3 +185,22 @@ def test_the_shared_decay_check_sees_decay_after_a_lag():
         assert np.all(flags & Flag.LAG)
         assert np.all((flags & Flag.DECAY) != 0) == expect and np.any((flags & Flag.DECAY) != 0) == expect
         assert np.all(flags & Flag.UNMODELLED)  # the lag alone is unmodelled here
+
+
+def test_peak_activity_matches_the_sequential_scheme_and_guards_extrapolation() -> None:
+    # active fraction of the sequential scheme (precursor -> active, lag tau; active lost at rate k):
+    # a(t) = (exp(-k t) - exp(-t/tau)) / (1 - k tau), the textbook consecutive first-order reactions
+    # (closed form written out here, independent of the module's clock)
+    from vzero.plugins.rates.lagfit import MIN_PEAK_ACTIVITY, peak_activity
+
+    t = np.arange(0.0, 901.0, 10.0)
+    for tau, k in ((60.0, 8e-4), (120.0, 2e-3), (400.0, 5e-3)):
+        fine = np.linspace(0.0, 900.0, 90001)
+        a = (np.exp(-k * fine) - np.exp(-fine / tau)) / (1.0 - k * tau)
+        got = peak_activity(t, np.array([tau]), np.array([k]))[0]
+        assert got == pytest.approx(a.max(), rel=2e-3)
+    # the benchmark's lag plate (60 s, 8e-4 /s) peaks near 0.86: far above the bound; a long lag with fast
+    # loss (400 s, 5e-3 /s) never shows half the enzyme active: its v0 would be an extrapolation
+    assert peak_activity(t, np.array([60.0]), np.array([8e-4]))[0] > 0.8 > MIN_PEAK_ACTIVITY
+    assert peak_activity(t, np.array([400.0]), np.array([5e-3]))[0] < MIN_PEAK_ACTIVITY
+    assert np.isnan(peak_activity(t, np.array([np.nan]), np.array([0.0]))[0])
