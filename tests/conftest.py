@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Generator
 from pathlib import Path
 
 import numpy as np
@@ -101,9 +102,15 @@ def _is_ours(func: object) -> bool:
     return code is not None and Path(code.co_filename).resolve().is_relative_to(TESTS.resolve())
 
 
-@pytest.hookimpl(tryfirst=True)  # before xdist reads the marks
-def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+@pytest.hookimpl(wrapper=True)  # a wrapper runs before every plain implementation, so before xdist reads the marks
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> Generator[None, None, None]:
     """Give every set of tests linked by a shared fixture or cache one ``xdist_group`` (union of linked sets)."""
+    group_shared(items)
+    return (yield)
+
+
+def group_shared(items: list[pytest.Item]) -> None:
+    """Add the ``xdist_group`` marks (see :func:`pytest_collection_modifyitems`)."""
     parent: dict[str, str] = {}
 
     def find(key: str) -> str:

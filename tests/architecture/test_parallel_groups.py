@@ -54,7 +54,7 @@ class FakeItem:
 
 
 def _grouped(items: list[FakeItem]) -> list[str | None]:
-    conftest.pytest_collection_modifyitems(None, items)  # type: ignore[arg-type]
+    conftest.group_shared(items)  # type: ignore[arg-type]
     return [item.group() for item in items]
 
 
