@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Generator
 from pathlib import Path
 
 import numpy as np
@@ -66,3 +67,67 @@ def linear_plate(folder: Path, *, slopes: np.ndarray | None = None, noise: float
 @pytest.fixture
 def plate_folder(tmp_path: Path) -> Path:
     return linear_plate(tmp_path / "in")
+
+
+# --- Running the suite in parallel (pytest-xdist, `-n 2` in the README's test command) ---------------------------
+# pyproject.toml sets `--dist loadgroup`: tests share a worker only when they carry the same `xdist_group` mark.
+# A fixture wider than one test (module or session scope) is built once per worker process, so tests that
+# share one are put in one group here, and the expensive result is computed once, as in a serial run.
+# Modules whose tests share a cached simulation (functools.cache) rather than a fixture are named by hand.
+SHARED_CACHE_MODULES = (
+    "tests/plugins/rates/test_se_calibration.py",  # calibration(method, condition) over 2 000 wells
+    "tests/plugins/fit/test_interval_coverage.py",  # coverage(case) over 2 000 simulated plates
+)
+
+
+def _shared_fixtures(item: pytest.Item) -> list[str]:
+    """Names for the suite's own fixtures of module, package or session scope that ``item`` uses: a module's
+    fixture is named with its module's node id (each module builds its own), a session's by itself."""
+    info = getattr(item, "_fixtureinfo", None)
+    if info is None:
+        return []
+    keys = []
+    for name in info.names_closure:
+        for fixturedef in info.name2fixturedefs.get(name, ()):
+            if fixturedef.scope == "function" or not _is_ours(fixturedef.func):
+                continue
+            owner = item.nodeid.split("::")[0] if fixturedef.scope in ("module", "class") else ""
+            keys.append(f"{fixturedef.scope}:{owner}:{name}")
+    return keys
+
+
+def _is_ours(func: object) -> bool:
+    """True for a fixture defined in the suite's own files (not by pytest or a plugin, like tmp_path_factory)."""
+    code = getattr(func, "__code__", None)
+    return code is not None and Path(code.co_filename).resolve().is_relative_to(TESTS.resolve())
+
+
+@pytest.hookimpl(wrapper=True)  # a wrapper runs before every plain implementation, so before xdist reads the marks
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> Generator[None, None, None]:
+    """Give every set of tests linked by a shared fixture or cache one ``xdist_group`` (union of linked sets)."""
+    group_shared(items)
+    return (yield)
+
+
+def group_shared(items: list[pytest.Item]) -> None:
+    """Add the ``xdist_group`` marks (see :func:`pytest_collection_modifyitems`)."""
+    parent: dict[str, str] = {}
+
+    def find(key: str) -> str:
+        while parent.setdefault(key, key) != key:
+            parent[key] = parent[parent[key]]
+            key = parent[key]
+        return key
+
+    links: dict[int, list[str]] = {}
+    for i, item in enumerate(items):
+        if item.get_closest_marker("xdist_group"):
+            continue
+        module = item.nodeid.split("::")[0]
+        keys = _shared_fixtures(item) + ([f"cache:{module}"] if module in SHARED_CACHE_MODULES else [])
+        if keys:
+            links[i] = keys
+            for key in keys[1:]:
+                parent[find(key)] = find(keys[0])
+    for i, keys in links.items():
+        items[i].add_marker(pytest.mark.xdist_group(find(keys[0])))

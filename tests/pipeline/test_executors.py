@@ -3,7 +3,9 @@ bit, as a serial run; streaming keeps a bounded number of plates in flight."""
 
 from __future__ import annotations
 
+import fcntl
 import threading
+from collections.abc import Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
@@ -15,6 +17,19 @@ from vzero.run.executors import PlateTask, make_executor, ordered
 from vzero.run.runner import run
 
 from tests.pipeline.test_batch import assert_same_h5, demo_batch
+
+
+# A LocalCluster's scheduler serves HTTP on Dask's default port 8787 even without a dashboard; a second cluster
+# at the same time gets a warning (an error here) and leaks a socket. The Dask tests take a lock file shared by
+# the parallel workers (`-n 2`: their temporary folders have one parent), so the suite never starts two at once.
+@pytest.fixture
+def one_cluster_at_a_time(tmp_path_factory: pytest.TempPathFactory) -> Iterator[None]:
+    with open(tmp_path_factory.getbasetemp().parent / "vzero-dask-cluster.lock", "a") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        try:
+            yield
+        finally:
+            fcntl.flock(lock, fcntl.LOCK_UN)
 
 
 def _same_run(a: Any, b: Any) -> None:
@@ -50,6 +65,7 @@ def test_process_pool_with_plates_in_chunks_matches_serial(tmp_path: Path, monke
 
 
 @pytest.mark.slow
+@pytest.mark.usefixtures("one_cluster_at_a_time")
 def test_dask_local_cluster_of_two_processes_matches_serial(tmp_path: Path):
     pytest.importorskip("distributed")
     from vzero.run.executors import DaskExecutor
@@ -75,6 +91,7 @@ def _same_csv_bytes(a: Path, b: Path) -> None:
 
 
 @pytest.mark.slow
+@pytest.mark.usefixtures("one_cluster_at_a_time")
 def test_dask_run_of_two_worker_processes_writes_the_serial_csv_bytes(tmp_path: Path):
     """``--scheduler local --jobs 2`` from the command line: a LocalCluster of two worker processes, whose
     workers write their plates' parts of the audit file; the CSV files are the serial run's, byte for byte,

@@ -66,11 +66,11 @@ def _radau(name: str, theta: list[float], kp: float, s0: float) -> np.ndarray:
 def test_both_routes_match_radau(name: str, kp: str) -> None:
     model, theta = BY_NAME[name], THETA[name]
     routes = ["ode", "closed"] if curve.route_of(model, product=True) == "closed" else ["ode"]
+    refs = [_radau(name, theta, KP_LEVELS[kp], s0) for s0 in S0]  # integrated once, compared with every route
     for route in routes:
         p, grads = curve.progress(model, theta, _wells(), route=route, kprod=KP_LEVELS[kp])
         assert len(grads) == len(theta) + 1
-        for i, s0 in enumerate(S0):
-            ref = _radau(name, theta, KP_LEVELS[kp], s0)
+        for i, ref in enumerate(refs):
             # scipy solve_ivp Radau rtol 1e-10: agreement to 1e-7 of the curve's range, every read
             np.testing.assert_allclose(p[i], ref, rtol=0, atol=1e-7 * np.max(np.abs(ref)), err_msg=route)
 
