@@ -217,6 +217,12 @@ def run_curves(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
     conf = float(cfg["confidence"])
     kin_setting, lag_setting = _setting(cfg["inactivation"]), _setting(cfg["lag"])
+    named = {k for key in ("fixed", "bounds", "start") for per_model in cfg[key].values() for k in per_model}
+    for term, name in ((KINACT, "inactivation"), (LAG, "lag")):
+        if term in named and _setting(cfg[name]) == terms.AUTO:  # the recipe gives the term's parameter
+            data.warn(f"fit (curves): the recipe gives {term!r} (fixed, bounds or start) while {name} is auto: "
+                      f"{name} is fitted in every group (write {name}: true to say so, or drop {term!r})")
+            kin_setting, lag_setting = (True, lag_setting) if term == KINACT else (kin_setting, True)
     kin, lag = kin_setting is not False, lag_setting is not False  # the terms a group may get
     prod = bool(cfg["product_inhibition"])
     flag_text = frame["flags"].to_numpy(object) if "flags" in frame.columns else np.full(len(frame), "", object)

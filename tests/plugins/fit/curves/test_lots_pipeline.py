@@ -116,3 +116,16 @@ def test_rates_table_without_lots_is_refused_by_the_fit() -> None:
     frame = pd.DataFrame({"plate": ["p1"], "well": ["A1"], "rate": [1.0]})
     with pytest.raises(FitError, match="no 'lot' column"):
         _lot_labels(frame, np.ones(1, bool), None)  # type: ignore[arg-type]
+
+
+def test_a_fixed_inactivation_constant_turns_the_auto_term_on(tmp_path: Path) -> None:
+    # the recipe gives kinact (held at 0) while inactivation is auto: the term is fitted, held, with a warning,
+    # instead of the value being dropped because no well was flagged for decay
+    recipe = _plate(tmp_path / "in", with_lots=False)
+    text = recipe.read_text("utf-8").replace(
+        "product_inhibition: true, lots: true, ", "fixed: {michaelis-menten: {kinact: 0.0}}, ")
+    recipe.write_text(text, "utf-8")
+    result = run(recipe, tmp_path / "out")
+    assert any("gives 'kinact'" in w and "inactivation is auto" in w for w in result.warnings)
+    row = result.fits[(result.fits["route"] == "curves") & (result.fits["parameter"] == "kinact")]
+    assert len(row) == 1 and row["estimate"].iloc[0] == 0.0 and bool(row["fixed"].iloc[0])
