@@ -181,31 +181,34 @@ def table(tallies: dict[str, Tally]) -> str:
     return "\n".join(lines) + "\n"
 
 
+def _sweep(tallies: dict[str, Tally], thresholds: tuple[float, ...], label: str, values: str,
+           below: bool) -> str:
+    """Markdown: for each method, the share of in-tolerance and of bad rates whose ``values`` (the tally's
+    ``<values>_good`` and ``<values>_bad`` lists) lie below (``below``) or above each threshold."""
+    head = " | ".join(f"{label} {'<' if below else '>'} {x:g}" for x in thresholds)
+    lines = [f"| method | {head} |", "| --- |" + " --- |" * len(thresholds)]
+    for m, tl in tallies.items():
+        good = np.concatenate(getattr(tl, f"{values}_good"))
+        bad = np.concatenate(getattr(tl, f"{values}_bad"))
+        cells = []
+        for x in thresholds:
+            g, b = (good < x, bad < x) if below else (good > x, bad > x)
+            cells.append(f"{_share(int(g.sum()), good.size)} / {_share(int(b.sum()), bad.size)}")
+        lines.append(f"| {m} | " + " | ".join(cells) + " |")
+    return "\n".join(lines) + "\n"
+
+
 def noisy_sweep(tallies: dict[str, Tally]) -> str:
     """Markdown: for each method, the share of in-tolerance and of bad rates with |v0|/SE below each
     threshold of :data:`NOISY_SWEEP`."""
-    head = " | ".join(f"t < {t:g}" for t in NOISY_SWEEP)
-    lines = [f"| method | {head} |", "| --- |" + " --- |" * len(NOISY_SWEEP)]
-    for m, tl in tallies.items():
-        good, bad = np.concatenate(tl.snr_good), np.concatenate(tl.snr_bad)
-        cells = [f"{_share(int((good < t).sum()), good.size)} / {_share(int((bad < t).sum()), bad.size)}"
-                 for t in NOISY_SWEEP]
-        lines.append(f"| {m} | " + " | ".join(cells) + " |")
-    return "\n".join(lines) + "\n"
+    return _sweep(tallies, NOISY_SWEEP, "t", "snr", below=True)
 
 
 def disagree_sweep(tallies: dict[str, Tally]) -> str:
     """Markdown: for each method, the share of in-tolerance and of bad rates whose model-free gap exceeds each
     threshold of :data:`DISAGREE_SWEEP` (wells flagged LAG are not compared; ``model-choice`` is measured
     here although the stage skips the check after it)."""
-    head = " | ".join(f"gap > {z:g}" for z in DISAGREE_SWEEP)
-    lines = [f"| method | {head} |", "| --- |" + " --- |" * len(DISAGREE_SWEEP)]
-    for m, tl in tallies.items():
-        good, bad = np.concatenate(tl.gap_good), np.concatenate(tl.gap_bad)
-        cells = [f"{_share(int((good > z).sum()), good.size)} / {_share(int((bad > z).sum()), bad.size)}"
-                 for z in DISAGREE_SWEEP]
-        lines.append(f"| {m} | " + " | ".join(cells) + " |")
-    return "\n".join(lines) + "\n"
+    return _sweep(tallies, DISAGREE_SWEEP, "gap", "gap", below=False)
 
 
 def lag_power(n_wells: int = 2000, seed: int = 3) -> str:
