@@ -16,6 +16,8 @@ from vzero.manager import make_manager
 settings.register_profile("vzero", deadline=None, max_examples=60)
 settings.load_profile("vzero")
 
+pytest_plugins = ["pytester"]  # tests/architecture/test_parallel_groups.py runs a probe suite
+
 TESTS = Path(__file__).parent
 DATA = TESTS / "data"
 
@@ -104,9 +106,36 @@ def _is_ours(func: object) -> bool:
 
 @pytest.hookimpl(wrapper=True)  # a wrapper runs before every plain implementation, so before xdist reads the marks
 def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> Generator[None, None, None]:
-    """Give every set of tests linked by a shared fixture or cache one ``xdist_group`` (union of linked sets)."""
+    """Give every set of tests linked by a shared fixture or cache one ``xdist_group`` (union of linked sets);
+    after the other implementations (pytest-xdist's among them), :func:`suffix_groups` on a worker."""
     group_shared(items)
-    return (yield)
+    result = yield
+    if getattr(config.option, "loadgroup", False):  # set on xdist workers under `--dist loadgroup`
+        suffix_groups(items)
+    return result
+
+
+def suffix_groups(items: list[pytest.Item]) -> None:
+    """Make each grouped test's node id end in ``@<group>``, the suffix xdist's scheduler groups by.
+
+    pytest-xdist 3.8 writes the suffix to ``item._nodeid``, which pytest 9 no longer reads (the id lives in
+    ``item._id``), so the marks were ignored and a module fixture was built on both workers. Where xdist's
+    own renaming took effect (the id already ends in the suffix, as with pytest 8) nothing changes.
+    """
+    try:
+        from _pytest.nodeid import NodeId  # pytest >= 9
+    except ImportError:  # pragma: no cover - older pytest: xdist's own renaming works
+        return
+    for item in items:
+        names = sorted({str(m.args[0] if m.args else m.kwargs.get("name", "default"))
+                        for m in item.iter_markers("xdist_group")})
+        suffix = "@" + "_".join(names)
+        nid = getattr(item, "_id", None)
+        if names and isinstance(nid, NodeId) and nid.names and not item.nodeid.endswith(suffix):
+            # the suffix joins the last name (with any parameters), so the id's string stays the same however
+            # pytest rebuilds it from its parts
+            last = nid.names[-1] + ("" if nid.params is None else f"[{nid.params}]") + suffix
+            item._id = NodeId(path=nid.path, names=(*nid.names[:-1], last))
 
 
 def group_shared(items: list[pytest.Item]) -> None:

@@ -181,8 +181,11 @@ class DaskExecutor:
         self._cluster = None
         try:
             if address == "local":
+                # No dashboard; the scheduler's HTTP routes still need a port, and Dask's default (8787) would
+                # clash with any other cluster on the machine, so the system picks a free one.
                 self._cluster = LocalCluster(
-                    n_workers=jobs or 2, threads_per_worker=1, processes=processes, dashboard_address=None
+                    n_workers=jobs or 2, threads_per_worker=1, processes=processes, dashboard_address=None,
+                    scheduler_kwargs={"dashboard_address": ":0"},
                 )
                 self._client = Client(self._cluster)
             else:

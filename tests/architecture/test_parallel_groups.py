@@ -3,6 +3,7 @@ fixture of the suite's own, or by a module's cached simulation, land in one ``xd
 
 from __future__ import annotations
 
+import inspect
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -81,3 +82,46 @@ def test_modules_with_a_shared_cache_are_one_group_and_a_given_group_is_kept():
     given = FakeItem("tests/f.py::one", {"run": "module"}, [pytest.mark.xdist_group("mine").mark])
     first, second, kept = _grouped([FakeItem(f"{cached}::one[x]", {}), FakeItem(f"{cached}::two[y]", {}), given])
     assert first is not None and first == second and kept == "mine"
+
+
+
+PROBE = """
+import os
+from pathlib import Path
+import pytest
+
+@pytest.mark.xdist_group("together")
+@pytest.mark.parametrize("i", range(6))
+def test_grouped(i):
+    Path(os.environ["PROBE_OUT"], f"{i}.txt").write_text(os.environ["PYTEST_XDIST_WORKER"])
+
+@pytest.mark.parametrize("i", range(6))
+def test_free(i):
+    pass
+"""
+
+PROBE_CONFTEST = """
+import pytest
+
+@pytest.hookimpl(wrapper=True)
+def pytest_collection_modifyitems(config, items):
+    result = yield
+    if getattr(config.option, "loadgroup", False):
+        suffix_groups(items)
+    return result
+
+"""
+
+
+def test_a_group_runs_on_one_worker(pytester: pytest.Pytester, monkeypatch: pytest.MonkeyPatch):
+    """End to end with pytest-xdist: the six grouped tests of a probe suite all run on one worker.
+
+    Before ``conftest.suffix_groups`` they did not (pytest 9 with pytest-xdist 3.8 ignored the marks)."""
+    pytester.makeconftest(PROBE_CONFTEST + inspect.getsource(conftest.suffix_groups))
+    pytester.makepyfile(test_probe=PROBE)
+    out = pytester.mkdir("out")
+    monkeypatch.setenv("PROBE_OUT", str(out))
+    result = pytester.runpytest_subprocess("-n", "2", "--dist=loadgroup", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=12)
+    workers = {f.read_text() for f in out.glob("*.txt")}
+    assert len(list(out.glob("*.txt"))) == 6 and len(workers) == 1, workers

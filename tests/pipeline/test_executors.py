@@ -19,9 +19,9 @@ from vzero.run.runner import run
 from tests.pipeline.test_batch import assert_same_h5, demo_batch
 
 
-# A LocalCluster's scheduler serves HTTP on Dask's default port 8787 even without a dashboard; a second cluster
-# at the same time gets a warning (an error here) and leaks a socket. The Dask tests take a lock file shared by
-# the parallel workers (`-n 2`: their temporary folders have one parent), so the suite never starts two at once.
+# Two LocalClusters of two worker processes each at once would oversubscribe the 2-core machine (and, before
+# the executor asked for a free port for the scheduler's HTTP routes, clashed on Dask's default 8787). The Dask
+# tests take a lock file shared by the parallel workers (`-n 2`: their temporary folders have one parent).
 @pytest.fixture
 def one_cluster_at_a_time(tmp_path_factory: pytest.TempPathFactory) -> Iterator[None]:
     with open(tmp_path_factory.getbasetemp().parent / "vzero-dask-cluster.lock", "a") as lock:
@@ -75,6 +75,8 @@ def test_dask_local_cluster_of_two_processes_matches_serial(tmp_path: Path):
     executor = DaskExecutor("local", 2, processes=True)
     try:
         assert executor.workers == 2
+        # the scheduler's HTTP routes on a port the system chose, not Dask's default 8787 (another cluster's)
+        assert executor._cluster.scheduler.http_server.port != 8787
         on_dask = run(recipe, tmp_path / "dask", executor=executor)
     finally:
         executor.close()
