@@ -594,9 +594,10 @@ def progress_curve(
     never fitted. ``extra``: ``km``, ``vmax`` (per second), ``s0_fit`` (A in signal units when s0 is unknown),
     ``rmse_over_noise``. Km and Vmax are weakly determined when the curve is far from completion; v0 is
     a fitted parameter itself, so its value stays sound there. With known S0 its standard error allows for
-    the curvature's bounds (:func:`bounded_ln_v0_var`); near zero order it still errs on the large side
-    (1.34x the scatter at S0 = 10 Km, 5 % converted; 95 % intervals held the truth 97-99 % of the time on
-    curves far from completion, 2000 wells per condition, docs/rates.md).
+    the curvature's bounds (:func:`bounded_ln_v0_var`): SE 1.00-1.19x the scatter and 95 % intervals
+    holding the truth 94-97 % of the time on curves far from completion (2000 wells per condition), except
+    S0 = Km with 12 % converted (98.5 %; docs/rates.md). Without S0 the standard error can be far too small
+    on curves far from completion (docs/rates.md, "Do the standard errors mean what they say?").
 
     ``model="power"`` fits instead a rate that falls as a power of the substrate left, ``v = v0 (1 -
     x)^n`` (:func:`power_conversion`; needs ``s0`` and ``signal_per_conc``), with fitted baseline, v0 and
