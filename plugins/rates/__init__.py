@@ -231,7 +231,7 @@ class ProgressRates(KernelRates):
     empirical order that follows cooperative enzymes, whose rate falls faster than Michaelis–Menten allows
     (measurements in docs/rates.md)."""
 
-    method, version = "progress", "1.0"
+    method, version = "progress", "1.1"
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
     function = "vzero.plugins.rates.progress:progress_curve"
     kernel_params = ("min_points", "fail_ratio", "model")

@@ -476,65 +476,135 @@ def _restart_plateaus(fun: Model, fit: LMFit,
     return LMFit(params, rss, fit.tss, cov, converged, max(fit.n_iter, again.n_iter))
 
 
-def clipped_mid_var(sd: np.ndarray) -> np.ndarray:
-    """Variance of ``clip(X, 0, 1)`` for ``X ~ N(1/2, sd²)``: the largest variance an estimate confined to
-    [0, 1] with standard error ``sd`` can have (its true value mid-range; nearer a bound the clipped
-    estimate scatters less). ``sd²`` when ``sd`` is small, 1/4 when it is large (the estimate then sits on
-    one bound or the other). With ``h = 1/(2 sd)`` and ``Phi``, ``phi`` the standard normal cdf and pdf:
-    ``sd² (2 Phi(h) - 1 - 2 h phi(h) + 2 h² Phi(-h))``, the normal's second moment within ``±h`` plus the
-    clipped tails' ``h²`` each.
+def truncated_mse(u_free: np.ndarray, sd: np.ndarray, u_hat: np.ndarray) -> np.ndarray:
+    """Mean squared distance ``E[(U - u_hat)²]`` of ``U ~ N(u_free, sd²)`` truncated to [0, 1] from
+    ``u_hat``: the truncated normal's variance plus the square of its mean's distance from ``u_hat``.
+
+    With ``a = -u_free/sd``, ``b = (1 - u_free)/sd``, ``Z = Phi(b) - Phi(a)`` and ``Phi``, ``phi`` the
+    standard normal cdf and pdf: mean ``u_free + sd (phi(a) - phi(b))/Z``, variance
+    ``sd² (1 + (a phi(a) - b phi(b))/Z - ((phi(a) - phi(b))/Z)²)`` (the moments of the truncated normal;
+    checked against ``scipy.stats.truncnorm`` in the tests). Evaluated on the side of 1/2 where ``u_free``
+    lies mirrored to the lower half (the distance is unchanged by ``u -> 1 - u``), with ``Z`` in logarithms,
+    so that it stays finite when ``u_free`` lies many ``sd`` outside [0, 1]. NaN where ``sd`` is not
+    positive and finite.
     """
-    from scipy.special import ndtr  # here: scipy stays out of the import of the rates plugins
+    from scipy.special import log_ndtr  # here: scipy stays out of the import of the rates plugins
 
-    sd = np.asarray(sd, dtype=float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        h = 0.5 / sd
-        phi = np.exp(-0.5 * h * h) / np.sqrt(2.0 * np.pi)
-        out = sd * sd * (2.0 * ndtr(h) - 1.0 - 2.0 * h * phi + 2.0 * h * h * ndtr(-h))
-    return np.where(sd > 0, out, 0.0)
-
-
-def clipped_worst_mse(sd: np.ndarray) -> np.ndarray:
-    """Largest mean squared error ``E[(clip(X, 0, 1) - m)²]`` for ``X ~ N(m, sd²)`` over true values ``m`` in
-    [0, 1]: how far an estimate confined to [0, 1] with standard error ``sd`` can be from the truth,
-    whatever the truth. The maximum lies mid-range (:func:`clipped_mid_var`: ``sd²`` for small ``sd``) or on
-    a bound, where clipping also biases the estimate (``m = 0``: ``sd² (Phi(k) - 1/2 - k phi(k)) +
-    Phi(-k)`` with ``k = 1/sd``; 1/2 for large ``sd``, the estimate then on either bound); the larger of
-    the two (checked against a grid of true values by numerical integration in the tests).
-    """
-    from scipy.special import ndtr  # here: scipy stays out of the import of the rates plugins
-
+    upper = np.asarray(u_free, dtype=float) > 0.5
+    m = np.where(upper, 1.0 - np.asarray(u_free, dtype=float), u_free)
+    est = np.where(upper, 1.0 - np.asarray(u_hat, dtype=float), u_hat)
     sd = np.asarray(sd, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        k = 1.0 / sd
-        phi = np.exp(-0.5 * k * k) / np.sqrt(2.0 * np.pi)
-        at_bound = sd * sd * (ndtr(k) - 0.5 - k * phi) + ndtr(-k)
-    return np.where(sd > 0, np.fmax(clipped_mid_var(sd), at_bound), 0.0)
+        a, b = -m / sd, (1.0 - m) / sd  # b > a, b >= 1/(2 sd) > 0
+        la, lb = log_ndtr(-a), log_ndtr(-b)  # Phi(b) - Phi(a) = Phi(-a) - Phi(-b)
+        log_z = la + np.log(-np.expm1(lb - la))
+        log_phi_a, log_phi_b = -0.5 * a * a - 0.5 * np.log(2 * np.pi), -0.5 * b * b - 0.5 * np.log(2 * np.pi)
+        ra, rb = np.exp(log_phi_a - log_z), np.exp(log_phi_b - log_z)
+        mean = m + sd * (ra - rb)
+        var = sd * sd * (1.0 + a * ra - b * rb - (ra - rb) ** 2)
+        out = np.fmax(var, 0.0) + (mean - est) ** 2
+    return np.where((sd > 0) & np.isfinite(sd), out, np.nan)
 
 
-def bounded_ln_v0_var(cov: np.ndarray) -> np.ndarray:
+def bounded_ln_v0_var(cov: np.ndarray, u_hat: np.ndarray, u_free: np.ndarray) -> np.ndarray:
     """Variance of ln v0 from the Michaelis–Menten fit with known S0 when its curvature ``u = Km/(Km + S0)``
     is confined to (0, 1): ``cov`` ``[wells, 3, 3]`` over (baseline, ln v0, u), already scaled by the
-    residual variance.
+    residual variance; ``u_hat`` the fitted u (within its bounds), ``u_free`` the optimum without bounds
+    (:func:`free_curvature`; the same as ``u_hat`` where no bound is active).
 
     The delta-method variance ``C_ll`` splits into the part with ``u`` held, ``C_ll - C_lu²/C_uu``, and the
-    part carried through ``u``, ``b² C_uu`` with ``b = C_lu/C_uu``. On a curve far from completion ``u`` is
-    barely determined (its standard error ``sd_u = sqrt(C_uu)`` can exceed the whole range), and the fit
-    returns ``u`` within its bounds, so the second part is taken as ``b²`` times :func:`clipped_worst_mse`
-    of ``sd_u``: the largest mean squared error a bounded ``u`` can have, whatever the true curvature (so
-    the SE does not turn narrow when a well happens to land on a bound, and it allows for the bias clipping
-    gives). Where ``sd_u`` is small (a curve that bends clearly) this is ``C_uu`` and nothing changes. Where
-    it is large the plain delta-method variance described an unbounded estimate and overstated v0's scatter
-    up to 3.4x (S0 = Km, 5 % converted; docs/rates.md). Local (linear) approximation in ``u``; never above
-    ``C_ll``; non-finite terms fall back to ``C_ll``.
+    part carried through ``u``, ``b² C_uu`` with ``b = C_lu/C_uu``: to first order ``ln v0`` moves by ``b``
+    per unit of ``u`` with the other parameters re-fitted. On a curve far from completion ``u`` is barely
+    determined (its standard error ``sd_u = sqrt(C_uu)`` can exceed the whole range, and the true curvature
+    may lie within a fraction of ``sd_u`` of a bound), so ``C_uu``, which describes an unbounded estimate,
+    overstated v0's scatter (up to 3.4x, docs/rates.md). Here ``C_uu`` is replaced by how far the true
+    ``u`` may be from the reported one, given the curve: the likelihood of ``u`` is ``N(u_free, sd_u²)``
+    in the linear approximation; with every curvature in (0, 1) equally likely beforehand (nothing else is
+    known of Km) the true u follows that normal truncated to [0, 1], and :func:`truncated_mse` is its mean
+    squared distance from ``u_hat`` (the posterior mean squared error of the reported curvature). For a
+    clearly bending curve the truncation removes nothing and this is ``C_uu``. Never above ``C_ll``;
+    non-finite terms fall back to ``C_ll``.
     """
     cll, clu, cuu = cov[:, 1, 1], cov[:, 1, 2], cov[:, 2, 2]
     with np.errstate(divide="ignore", invalid="ignore"):
         b = clu / cuu
         held = cll - clu * b
-        out = held + b * b * clipped_worst_mse(np.sqrt(cuu))
+        out = held + b * b * truncated_mse(u_free, np.sqrt(cuu), u_hat)
     good = np.isfinite(out) & (cuu > 0) & (held >= 0)
     return np.where(good, np.minimum(out, cll), cll)
+
+
+def free_curvature(model: Model, params: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """The last parameter (the curvature u) at the fit's optimum without bounds: one Gauss–Newton step from
+    ``params`` (``[wells, p]``) on the reads ``y`` with 0/1 weights ``w``. Where no bound is active the fit
+    sits at a stationary point and the step is nil; where u stopped on a bound the step goes to where the
+    sum of squares, quadratic in the linear approximation, is least. NaN where the normal equations are
+    singular."""
+    fitted, jac = model(params, np.arange(params.shape[0]))
+    resid = np.where(w > 0, y - fitted, 0.0) * w
+    jw = jac * w[:, None, :]
+    a = jw @ jw.transpose(0, 2, 1)
+    g = np.einsum("wpt,wt->wp", jw, resid)
+    ok = np.all(np.isfinite(a), axis=(1, 2)) & np.all(np.isfinite(g), axis=1)
+    ok[ok] &= np.abs(np.linalg.det(a[ok])) > 0
+    step = np.full(params.shape, np.nan)
+    if ok.any():
+        step[ok] = np.linalg.solve(a[ok], g[ok][..., None])[..., 0]
+    return params[:, -1] + step[:, -1]
+
+
+def _rate_drop_terms(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``k(x) = (x/(1 - x) + ln(1 - x))/x²`` and ``m(x) = 1 + 2 ln(1 - x)/x + 1/(1 - x)`` for ``0 <= x < 1``
+    (:func:`signal_ln_v0_var`), by their series ``sum (1 - 1/n) x^(n-2)`` and ``sum (n - 1)/(n + 1) x^n``
+    (n >= 2) below 1e-3, where the closed forms lose digits (there the series, cut after four terms, are
+    exact to 1e-12 relative)."""
+    small = x < 1e-3
+    xs = np.where(small, 0.5, x)
+    lg = np.log1p(-xs)
+    k = np.where(small, 0.5 + x * (2 / 3 + x * (0.75 + 0.8 * x)), (xs / (1.0 - xs) + lg) / (xs * xs))
+    m = np.where(small, x * x * (1 / 3 + x * (0.5 + x * (0.6 + x * 2 / 3))), 1.0 + 2.0 * lg / xs + 1.0 / (1.0 - xs))
+    return k, m
+
+
+def signal_ln_v0_var(t: np.ndarray, params: np.ndarray, fitted: np.ndarray, w: np.ndarray, d: np.ndarray,
+                     scale2: np.ndarray) -> np.ndarray:
+    """Delta-method variance of ln v0 from the Michaelis–Menten fit in signal units (:func:`_signal_model`):
+    ``params`` ``[wells, 4]`` (baseline, ln v0, ln c1, logit r), ``fitted`` the model at the reads
+    ``[wells, t]``, ``w`` the 0/1 weights of the reads, ``d`` the direction, ``scale2`` the residual
+    variance per well.
+
+    Not taken from the fit's own coordinates: on a curve far from completion the best curvature ``c1 =
+    -(dv/dP)/v0`` is often zero (a straight line; a quarter to half of such wells), where ``ln c1`` runs to
+    its bound with ``r -> 0``. There the Jacobian columns of ``ln c1`` and ``logit r`` vanish (and are
+    differences of numbers of order ``1/c1``), so the inverse held the curvature at zero: a straight line's
+    standard error for a v0 that carries a straight line's bias, and 95 % intervals that held the truth 5-58
+    % of the time on those wells (docs/rates.md). Here the columns are those of (baseline, ln v0, c1, r), by
+    implicit differentiation of the integrated rate law ``v0 t = r P + (1 - r) (-ln(1 - a P))/a`` with
+    ``a = 1/A = c1/(1 - r)`` (A the amplitude, ``r = A/(Km + A)``): with ``x = a P`` and ``v/v0 = (1 -
+    x)/(1 - r x)``, ``dP/d ln v0 = v t``, ``dP/dc1 = -P² k(x) v/v0``, ``dP/dr = -P m(x) v/v0``
+    (:func:`_rate_drop_terms`). Each column is scaled to unit length before the inverse, so that where the
+    curve is straight (``m(x) ~ x²/3``, r's column of order ``x²``) its direction (``P³``, the cubic term)
+    still counts: the curvature and the shape stay estimated, as they are. NaN where the normal equations
+    are singular or not finite.
+    """
+    n = params.shape[0]
+    v0, c1 = np.exp(params[:, 1:2]), np.exp(params[:, 2:3])
+    r = 1.0 / (1.0 + np.exp(-params[:, 3:4]))
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        prod = np.fmax(np.where(w > 0, d[:, None] * (fitted - params[:, 0:1]), 0.0), 0.0)
+        x = np.clip(c1 / (1.0 - r) * prod, 0.0, 1.0 - 1e-12)
+        k, m = _rate_drop_terms(x)
+        ratio = (1.0 - x) / (1.0 - r * x)
+        jac = np.empty((n, 4, t.size))
+        jac[:, 0] = 1.0
+        jac[:, 1] = v0 * t[None, :] * ratio
+        jac[:, 2] = -prod * prod * k * ratio
+        jac[:, 3] = -prod * m * ratio
+        jac *= w[:, None, :]  # the direction d multiplies every column but the baseline's: no change to Var
+        norm = np.sqrt(np.einsum("wpt,wpt->wp", jac, jac))
+        jac /= norm[:, :, None]
+        cov = lsq.unit_covariance(jac)
+        return cov[:, 1, 1] / norm[:, 1] ** 2 * scale2
 
 
 def start_quadratic(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -578,9 +648,11 @@ def progress_curve(
     never fitted. ``extra``: ``km``, ``vmax`` (per second), ``s0_fit`` (A in signal units when s0 is unknown),
     ``rmse_over_noise``. Km and Vmax are weakly determined when the curve is far from completion; v0 is
     a fitted parameter itself, so its value stays sound there. With known S0 its standard error allows for
-    the curvature's bounds (:func:`bounded_ln_v0_var`); near zero order it still errs on the large side
-    (1.34x the scatter at S0 = 10 Km, 5 % converted; 95 % intervals held the truth 97-99 % of the time on
-    curves far from completion, 2000 wells per condition, docs/rates.md).
+    the curvature's bounds (:func:`bounded_ln_v0_var`): SE 1.00-1.19x the scatter and 95 % intervals
+    holding the truth 94-97 % of the time on curves far from completion (2000 wells per condition), except
+    S0 = Km with 12 % converted (98.5 %; docs/rates.md). Without S0 the standard error is that of four
+    parameters (:func:`signal_ln_v0_var`), two of them barely determined far from completion: it errs on the
+    large side there (1.4-3.1x the scatter; docs/rates.md, "Do the standard errors mean what they say?").
 
     ``model="power"`` fits instead a rate that falls as a power of the substrate left, ``v = v0 (1 -
     x)^n`` (:func:`power_conversion`; needs ``s0`` and ``signal_per_conc``), with fitted baseline, v0 and
@@ -698,7 +770,11 @@ def progress_curve(
     grad[:, 1] = v0
     var = np.einsum("wp,wpq,wq->w", grad, fit.cov_unit, grad) * scale2
     if known and not power and not quick:
-        var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None])
+        u_free = free_curvature(make(t), fit.params, yy, ww)
+        var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
+    elif not known:
+        fitted, _ = make(t)(fit.params, np.arange(todo.size))
+        var = v0**2 * signal_ln_v0_var(t, fit.params, fitted, ww, d, scale2)
     failed = ~fit.converged | ~(ratio <= fail_ratio) | ~np.isfinite(v0)
     out["v0"][todo], out["stderr"][todo] = v0, np.sqrt(np.abs(var))
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -1,12 +1,13 @@
 """The `progress` rate's standard error when the curvature u = Km/(Km + S0) is confined to (0, 1).
 
-The variance and mean squared error of a clipped normal are checked against scipy's numerical integration
-(``scipy.integrate.quad`` over ``scipy.stats.norm``), an independent computation of the same integrals, the
-worst case over true values against a grid of them; the split of the delta-method
-variance against the 3x3 covariance algebra written out here; and the standard error itself against the
-scatter of 400 simulated replicate wells (``simulate_plate``: the rate law integrated by ``solve_ivp``, not
-the closed form the fit uses) on a curve far from completion, where the unbounded delta-method SE was 3.4x
-the scatter (docs/rates.md). Invented data.
+The mean squared distance of a truncated normal from a point is checked against ``scipy.stats.truncnorm``'s
+mean and variance (an independent implementation of the same distribution) and, far outside the range,
+against numerical integration with ``scipy.integrate.quad``; the split of the delta-method variance against
+the 3x3 covariance algebra written out here; the unbounded optimum of the curvature against scipy's
+``least_squares`` without bounds; and the standard error itself against the scatter of 400 simulated
+replicate wells (``simulate_plate``: the rate law integrated by ``solve_ivp``, not the closed form the fit
+uses) on a curve far from completion, where the unbounded delta-method SE was 3.4x the scatter
+(docs/rates.md). Invented data.
 """
 
 from __future__ import annotations
@@ -14,72 +15,100 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import integrate, stats
-from scipy.optimize import brentq
+from scipy.optimize import brentq, least_squares
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.progress import (
+    _concentration_model,
     bounded_ln_v0_var,
-    clipped_mid_var,
-    clipped_worst_mse,
+    free_curvature,
     integrated_mm,
     progress_curve,
+    truncated_mse,
 )
 
 
-def _clipped_var_by_quadrature(sd: float) -> float:
-    """Var(clip(X, 0, 1)) for X ~ N(1/2, sd²) by numerical integration (scipy), independent of the closed
-    form: the mass beyond each bound sits on the bound."""
-    h = min(0.5 / sd, 40.0)  # the bounds in standard units of X about its mean 1/2 (no mass past 40)
-    inner, _ = integrate.quad(lambda z: (sd * z) ** 2 * stats.norm.pdf(z), -h, h, epsabs=1e-16)
-    dist = stats.norm(0.5, sd)
-    return inner + 0.25 * (dist.cdf(0.0) + dist.sf(1.0))  # mean 1/2 by symmetry; each bound is 1/2 away
+def _truncnorm_mse(m: float, sd: float, est: float) -> float:
+    """E[(U - est)²] for U ~ N(m, sd²) truncated to [0, 1], from scipy's truncated normal."""
+    dist = stats.truncnorm(-m / sd, (1.0 - m) / sd, loc=m, scale=sd)
+    return float(dist.var() + (dist.mean() - est) ** 2)
 
 
-@pytest.mark.parametrize("sd", [0.01, 0.1, 0.3, 0.5, 1.0, 3.0, 30.0])
-def test_clipped_variance_matches_numerical_integration(sd: float) -> None:
-    assert clipped_mid_var(np.array([sd]))[0] == pytest.approx(_clipped_var_by_quadrature(sd), rel=1e-7)
+@pytest.mark.parametrize(("m", "sd", "est"), [
+    (0.5, 0.01, 0.5),  # well inside: the plain variance sd²
+    (0.09, 0.27, 0.09),  # near the lower bound, as at S0 = 10 Km, 5 % converted
+    (-0.2, 0.27, 0.0),  # the optimum past the bound, the estimate on it
+    (1.3, 0.4, 1.0),  # past the upper bound (mirrored in the closed form)
+    (0.5, 2.7, 0.5),  # far wider than the range: nearly uniform
+    (-3.0, 1.7, 0.0),
+    (0.3, 30.0, 0.3),
+])
+def test_truncated_mse_matches_scipy(m: float, sd: float, est: float) -> None:
+    got = truncated_mse(np.array([m]), np.array([sd]), np.array([est]))[0]
+    assert got == pytest.approx(_truncnorm_mse(m, sd, est), rel=1e-6)
 
 
-def _clipped_mse_by_quadrature(m: float, sd: float) -> float:
-    """E[(clip(X, 0, 1) - m)²] for X ~ N(m, sd²) by numerical integration (scipy): the reads of X within
-    (0, 1) in standard units, plus the mass on each bound at its distance from m."""
-    lo, hi = max(-m / sd, -40.0), min((1.0 - m) / sd, 40.0)
-    inner, _ = integrate.quad(lambda z: (sd * z) ** 2 * stats.norm.pdf(z), lo, hi, epsabs=1e-16)
-    return inner + m * m * stats.norm.cdf(-m / sd) + (1.0 - m) ** 2 * stats.norm.sf((1.0 - m) / sd)
-
-
-@pytest.mark.parametrize("sd", [0.01, 0.2, 0.4, 0.6, 1.0, 2.0, 10.0])
-def test_worst_mse_is_the_largest_over_true_values(sd: float) -> None:
-    # the closed form takes the larger of the mid-range and on-the-bound values; a grid of true values
-    # (by quadrature) must not find a larger one
-    grid = max(_clipped_mse_by_quadrature(m, sd) for m in np.linspace(0.0, 1.0, 101))
-    assert clipped_worst_mse(np.array([sd]))[0] == pytest.approx(grid, rel=2e-3)
-
-
-def test_clipped_variance_limits() -> None:
-    # a well-determined u is not clipped (sd²); a hopeless one sits on either bound (variance 1/4)
-    v = clipped_mid_var(np.array([1e-3, 1e4, 0.0]))
-    assert v[0] == pytest.approx(1e-6, rel=1e-9)
-    assert v[1] == pytest.approx(0.25, rel=1e-3)
-    assert v[2] == 0.0
-    w = clipped_worst_mse(np.array([1e-3, 1e4]))
-    assert w[0] == pytest.approx(1e-6, rel=1e-9)
-    assert w[1] == pytest.approx(0.5, rel=1e-3)  # truth on a bound, the estimate on either bound
+def test_truncated_mse_far_outside_the_range() -> None:
+    # 40 sd below the bound: Z = Phi(b) - Phi(a) underflows in plain arithmetic; by quadrature of the
+    # density exp(-(u - m)²/(2 sd²)) on [0, 1] (scipy), scaled at u = 0 so that it stays finite
+    m, sd = -0.4, 0.01
+    dens = lambda u: np.exp(-((u - m) ** 2 - m * m) / (2 * sd * sd))  # noqa: E731
+    mass, _ = integrate.quad(dens, 0.0, 1.0, points=[0.0, 1e-3], epsabs=0, epsrel=1e-12)
+    second, _ = integrate.quad(lambda u: u * u * dens(u), 0.0, 1.0, points=[0.0, 1e-3], epsabs=0, epsrel=1e-12)
+    got = truncated_mse(np.array([m]), np.array([sd]), np.array([0.0]))[0]
+    assert got == pytest.approx(second / mass, rel=1e-6)
+    assert got < (sd * sd / abs(m)) ** 2 * 2.01  # an exponential tail: mean and SD sd²/|m|
+    assert np.isnan(truncated_mse(np.array([0.5]), np.array([0.0]), np.array([0.5]))[0])
 
 
 def test_bounded_variance_splits_the_covariance() -> None:
-    # (baseline, ln v0, u): the part of Var(ln v0) with u held plus the part through u, its variance capped
+    # (baseline, ln v0, u): the part of Var(ln v0) with u held plus b² times the truncated normal's mean
+    # squared distance from the fitted u
     corr = np.array([[1.0, 0.3, -0.2], [0.3, 1.0, 0.95], [-0.2, 0.95, 1.0]])
     sd_u = np.array([1e-4, 0.3, 1.0, 30.0])  # from well determined to far past its range
     sds = np.stack([np.full(4, 0.5), np.full(4, 0.01), sd_u], axis=1)
     cov = sds[:, :, None] * corr[None] * sds[:, None, :]
+    u_free = np.array([0.4, -0.1, 0.5, 2.0])
+    u_hat = np.clip(u_free, 0.0, 1.0)
     cll, clu, cuu = cov[:, 1, 1], cov[:, 1, 2], cov[:, 2, 2]
     b = clu / cuu
-    worst = [max(_clipped_mse_by_quadrature(m, s) for m in (0.0, 0.5)) for s in np.sqrt(cuu)]
-    expected = cll - b * clu + b * b * np.array(worst)
-    got = bounded_ln_v0_var(cov)
+    mse = [_truncnorm_mse(m, s, e) for m, s, e in zip(u_free, np.sqrt(cuu), u_hat, strict=True)]
+    expected = np.minimum(cll - b * clu + b * b * np.array(mse), cll)
+    got = bounded_ln_v0_var(cov, u_hat, u_free)
     np.testing.assert_allclose(got, expected, rtol=1e-6)
     assert np.all(got <= cll * (1 + 1e-12))
     np.testing.assert_allclose(got[0], cll[0], rtol=1e-6)  # u well determined: the plain delta method
+
+
+def test_free_curvature_is_the_unbounded_optimum() -> None:
+    # near-linear curves (S0 = 10 Km, 5 % converted) whose noise pulls the best curvature below 0: the fit
+    # stops on the bound u = 0, and the Gauss-Newton step goes to the least of the sum of squares in the
+    # linear approximation. Independent check: the profile sum of squares over u in [0, 0.2] (baseline and
+    # ln v0 re-fitted at each u by scipy least_squares) is a parabola there; the vertex extrapolated from it
+    # must agree within a tenth of u's standard error (about 0.27 here)
+    t = np.arange(60) * 10.0
+    vmax = brentq(lambda v: 1 - integrated_mm(t[-1], 10.0, 1.0, v) / 10.0 - 0.05, 1e-9, 10.0)
+    sim = simulate_plate(t, np.array([10.0]), 1.0, vmax, baseline=0.1)
+    y = sim.signal + 0.002 * np.random.default_rng(5).standard_normal((60, t.size))
+    r = progress_curve(t, y, s0=np.full(60, 10.0), signal_per_conc=1.0)
+    u_fit = r.extra["km"] / (r.extra["km"] + 10.0)
+    rows = np.flatnonzero(u_fit < 1e-6)[:6]
+    assert rows.size >= 4  # the case this is about (about a third of such wells)
+    model = _concentration_model(t, np.full((rows.size, 1), 10.0), 1.0)
+    grid = np.linspace(1e-9, 0.2, 6)
+    vertex, params = [], []
+    for k, i in enumerate(rows):
+        def res(p: np.ndarray, u: float, k: int = k, i: int = i) -> np.ndarray:
+            return model(np.array([[p[0], p[1], u]]), np.array([k]))[0][0] - y[i]
+
+        start = np.array([y[i, 0], np.log(r.v0[i])])
+        fits = [least_squares(res, start, args=(u,), xtol=1e-14, ftol=1e-14, gtol=1e-14) for u in grid]
+        cost = [2 * f.cost for f in fits]
+        c2, c1, _ = np.polyfit(grid, cost, 2)
+        vertex.append(-c1 / (2 * c2))
+        params.append([*fits[0].x, grid[0]])
+    got = free_curvature(model, np.array(params), y[rows], np.ones((rows.size, t.size)))
+    assert np.all(got < 0) and np.all(np.array(vertex) < 0)
+    np.testing.assert_allclose(got, vertex, atol=0.027)
 
 
 def test_se_follows_the_scatter_far_from_completion() -> None:
