@@ -28,7 +28,8 @@ Per well, all wells at once:
    (:func:`_shape_step`): a curve of the wrong shape can fit within the noise and still be off at t = 0;
 6d. where the quadratic's window holds every read, a kept power-law curve of order above 1 goes back to the
    quadratic unless its variance is below the quadratic's variance plus its squared third-order bias
-   (:func:`_same_reads_step`): with the same reads and as many parameters, it can gain only by that bias;
+   (predicted from its own curvature, :func:`_same_reads_step`): with the same reads and as many
+   parameters, the curve can gain only by that bias;
 7. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
    :func:`vzero.plugins.rates.lagdecay.lag_decay`) get the first-order decay model when it describes them;
 8. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
@@ -503,23 +504,25 @@ def _same_reads_step(t: np.ndarray, q: EarlyQuadratic, sc: Screen, s0_all: np.nd
 
     Both then use the same reads with three parameters, so the curve can gain only by removing the quadratic's
     third-order bias (:func:`_skippable`). Its expected squared error is taken as its variance (it is fitted
-    to its own shape), the quadratic's as its variance plus the square of that bias under the curve's constant
-    order ``n`` (``|n (2n - 1)| x²/10`` of v0, ``x`` the conversion over the reads): the curve is kept only
-    where ``SE_curve² < SE_q² + bias²``. Without this, the well's choice between the two turned on noise
-    that moves both: on the benchmark's Hill plate at S0 = K0.5/3 (every read within 20 % conversion) the
-    wells that step 5 left unfitted, because their curvature looked low, ran 8.8 % low, the others 1.6 % high,
-    with the power law's SE above the quadratic's on every well (docs/rates.md, step 6d).
+    to its own shape), the quadratic's as its variance plus the square of that bias as step 5 predicts it
+    from the quadratic's own curvature (:func:`quadratic_bias`): the curve is kept only where
+    ``SE_curve² < SE_q² + bias²``. Without this, the well's choice between the two turned on noise that moves
+    both: on the benchmark's Hill plate at S0 = K0.5/3 (every read within 20 % conversion) the wells that
+    step 5 left unfitted, because their curvature looked low, ran 8.8 % low, the others 1.6 % high, with the
+    power law's SE above the quadratic's on every well (docs/rates.md, step 6d). The bias is not taken from
+    the curve's own order: the wells whose power law ran to orders of 4-5 there kept it through the large
+    bias that order predicts, and were 14 % high (5 wells in 200).
     """
     with np.errstate(invalid="ignore"):
         rows = np.flatnonzero((out.code == 1.0) & (q.n >= sc.n_valid) & (order > 1.0 + SAME_READS_ORDER)
                               & (order < DECAY_ORDER))
     if rows.size == 0:
         return
-    n = order[rows]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        x = np.abs(sc.change[rows]) / (np.abs(spc) * s0_all[rows])
-        bias = 0.1 * np.abs(n * (2.0 * n - 1.0)) * x**2 * np.abs(q.v0[rows])
-        back = ~(out.se[rows] ** 2 < q.se[rows] ** 2 + bias**2) & np.isfinite(q.v0[rows])
+    qr = _rows(q, rows)
+    _, share = quadratic_bias(qr, np.abs(sc.change[rows]), s0_all[rows], spc)
+    with np.errstate(invalid="ignore"):
+        bias = share * np.abs(qr.v0)
+        back = ~(out.se[rows] ** 2 < qr.se**2 + bias**2) & np.isfinite(qr.v0)
     _use_quadratic(t, q, rows[back], out, first)
 
 

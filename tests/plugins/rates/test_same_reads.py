@@ -45,11 +45,14 @@ def test_power_law_wells_within_the_quadratic_window_take_the_quadratic() -> Non
     assert abs(np.mean(r.v0[quad]) / v_true - 1) < 0.06
 
 
-def _inputs(pw_se: float, q_se: float, order: float, change: float) -> tuple:
-    """One well that kept the power law (code 1) with every read in the quadratic's window."""
-    q = EarlyQuadratic(np.array([1e-3]), np.array([q_se]), np.array([-1e-7]), np.array([T[-1]]),
-                       np.array([T.size]), np.array([1.0]), np.array([0.99]))
-    sc = Screen(np.ones((1, T.size), bool), np.array([T.size]), np.array([0.002]), np.array([change]),
+def _inputs(pw_se: float, q_se: float, n_q: float) -> tuple:
+    """One well that kept the power law (code 1) with every read in the quadratic's window: the quadratic's
+    v0 1e-3 AU/s with a curvature that gives it the local order ``n_q = -P'' S0 / v0²`` (step 5), 20 %
+    conversion over the reads."""
+    v0 = 1e-3
+    q = EarlyQuadratic(np.array([v0]), np.array([q_se]), np.array([-n_q * v0**2 / (S0 * SPC)]),
+                       np.array([T[-1]]), np.array([T.size]), np.array([1.0]), np.array([0.99]))
+    sc = Screen(np.ones((1, T.size), bool), np.array([T.size]), np.array([0.002]), np.array([0.2 * SPC * S0]),
                 np.zeros(1, np.int64), np.ones(1, bool), np.array([50.0]))
     est = _Estimates(np.array([1.1e-3]), np.array([pw_se]), np.array([1.0]), np.array([1.0]), np.array([0.99]),
                      np.array([0.0]), np.array([T[-1]]), np.array([T.size]))
@@ -57,23 +60,24 @@ def _inputs(pw_se: float, q_se: float, order: float, change: float) -> tuple:
 
 
 def test_the_curve_is_kept_only_where_its_error_is_below_the_quadratics() -> None:
-    # x = change / (SPC * S0) = 0.2 and n = 2: the quadratic's third-order bias is n (2n - 1) x²/10 = 2.4 %
-    # of v0 (2.4e-5 AU/s), 0.6 of its SE of 4e-5 AU/s
-    for pw_se, q_se, order, kept in [(3e-5, 4e-5, 2.0, True),     # more precise: kept
-                                      (4.5e-5, 4e-5, 2.0, True),   # less precise, but the bias makes up
-                                      (5e-5, 4e-5, 2.0, False),    # sqrt(4² + 2.4²) = 4.66 < 5: quadratic
-                                      # order 1.2: bias 0.67 % (6.7e-6), sqrt(4² + 0.67²) = 4.06 < 4.5
-                                      (4.5e-5, 4e-5, 1.2, False),
-                                      # order within Michaelis–Menten's range: not this step's wells
-                                      (5e-5, 4e-5, 0.5, True),
-                                      # order 8: no substrate-driven law (step 8's decay threshold)
-                                      (5e-5, 4e-5, 8.0, True)]:
-        q, sc, est = _inputs(pw_se, q_se, order, change=0.2 * SPC * S0)
+    # x = 0.2 and the quadratic's local order n_q = 2: its third-order bias is the larger of n (2n - 1) and
+    # n (3n - 2), times x²/10: 3.2 % of v0 (3.2e-5 AU/s), so its expected error sqrt(4² + 3.2²) = 5.12e-5
+    for pw_se, q_se, n_q, order, kept in [(3e-5, 4e-5, 2.0, 2.0, True),     # more precise: kept
+                                           (5e-5, 4e-5, 2.0, 2.0, True),     # less precise; the bias makes up
+                                           (5.5e-5, 4e-5, 2.0, 2.0, False),  # 5.5 > 5.12: the quadratic
+                                           # n_q 1.2: bias 0.77 % (7.7e-6), sqrt(4² + 0.77²) = 4.07 < 4.5
+                                           (4.5e-5, 4e-5, 1.2, 4.0, False),
+                                           # the curve's order within Michaelis–Menten's range: not this
+                                           # step's wells
+                                           (5.5e-5, 4e-5, 2.0, 0.5, True),
+                                           # order 8: no substrate-driven law (step 8's decay threshold)
+                                           (5.5e-5, 4e-5, 2.0, 8.0, True)]:
+        q, sc, est = _inputs(pw_se, q_se, n_q)
         _same_reads_step(T, q, sc, np.array([S0]), SPC, np.array([order]), est, np.zeros(1, np.int64))
-        assert bool(est.code[0] == 1.0) is kept, (pw_se, q_se, order)
+        assert bool(est.code[0] == 1.0) is kept, (pw_se, q_se, n_q, order)
         assert est.v0[0] == (1.1e-3 if kept else 1e-3)
     # a window that ends before the last read: the curve uses more reads, and this step does not apply
-    q, sc, est = _inputs(5e-5, 4e-5, 2.0, change=0.2 * SPC * S0)
+    q, sc, est = _inputs(5.5e-5, 4e-5, 2.0)
     q = EarlyQuadratic(q.v0, q.se, q.curvature, q.end_s, np.array([40]), q.rmse_over_noise, q.goodness)
     _same_reads_step(T, q, sc, np.array([S0]), SPC, np.array([2.0]), est, np.zeros(1, np.int64))
     assert est.code[0] == 1.0
