@@ -30,6 +30,11 @@ Per well, all wells at once:
    quadratic unless its variance is below the quadratic's variance plus its squared third-order bias
    (predicted from its own curvature, :func:`_same_reads_step`): with the same reads and as many
    parameters, the curve can gain only by that bias;
+6e. (run right after 6b) where the power law's order is below
+   :data:`vzero.plugins.rates.sicurve.SI_ORDER` (near or below zero, as under substrate inhibition), the
+   integrated substrate-inhibition curve (four parameters, nesting Michaelis–Menten) is fitted and kept by
+   an extra-sum-of-squares F-test against the Michaelis–Menten curve (:func:`_inhibition_hook`): a constant
+   order cannot follow an inhibited rate's, which passes through zero as the substrate falls;
 7. wells that no whole-curve model describes and whose rate falls faster than depletion explains (DECAY,
    :func:`vzero.plugins.rates.lagdecay.lag_decay`) get the first-order decay model when it describes them;
 8. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
@@ -42,7 +47,8 @@ Reads next to a block of missing reads at the start or end of a well (saturation
 
 Needs ``s0`` and ``signal_per_conc``; without them the Michaelis–Menten curve is fitted in signal units and
 the quadratic window is the first third of the reads. ``extra['model']`` says which estimate each well got
-(0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag model, 4 Hill curve);
+(0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag model, 4 Hill curve, 5
+substrate-inhibition curve);
 ``extra['rate_t']`` is
 v0 over its standard error; ``extra['misfit']`` the smooth misfit statistic of step 6c (read variances, NaN
 where no kept curve was tested). NOISY as for every method (relative SE above 10 %; includes every rate not
@@ -65,7 +71,8 @@ from vzero.plugins.rates.polynomial import inv3_hankel
 from vzero.plugins.rates.progress import QUICK_BLOCKS, block_means, integrated_mm, power_conversion, progress_curve
 from vzero.plugins.rates.spikes import find_spikes
 
-MODEL_CODES = {"michaelis-menten": 0, "power": 1, "quadratic": 2, "lag-decay": 3, "hill": 4}
+MODEL_CODES = {"michaelis-menten": 0, "power": 1, "quadratic": 2, "lag-decay": 3, "hill": 4,
+               "substrate-inhibition": 5}
 
 
 #: Reads masked next to a block of missing reads at the start or the end of a well (saturated reads: the
@@ -526,6 +533,35 @@ def _same_reads_step(t: np.ndarray, q: EarlyQuadratic, sc: Screen, s0_all: np.nd
     _use_quadratic(t, q, rows[back], out, first)
 
 
+#: Step 6e: the integrated substrate-inhibition curve (:mod:`vzero.plugins.rates.sicurve`) for wells whose
+#: power-law order is low (:func:`_inhibition_hook`; docs/rates.md, model-choice step 6e). False: never tried.
+SI_STEP = True
+
+
+def _inhibition_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, rows: np.ndarray, pw: RateResult,
+                     r_mm: np.ndarray, s0_all: np.ndarray, spc: float, out: _Estimates,
+                     first: np.ndarray, *, lof_ratio: float, agree_z: float) -> None:
+    """The wells ``rows`` (power law ``pw`` fitted; ``r_mm``, ``ok_mm`` the Michaelis–Menten fit's residual
+    RMS and whether it was kept) that are not on the Hill curve take the substrate-inhibition curve where
+    :func:`vzero.plugins.rates.sicurve.inhibition_step` keeps it (code 5); in place."""
+    from vzero.plugins.rates.sicurve import inhibition_step
+
+    sub = out.code[rows] != 4.0
+    rows, r_mm = rows[sub], r_mm[sub]
+    if rows.size == 0:
+        return
+    pw_v0 = pw.v0[sub]
+    keep, fit = inhibition_step(t, y[rows], sc.valid[rows], s0_all[rows], spc, sc.sigma[rows],
+                                _start_baseline(t, y[rows], sc.valid[rows], pw_v0), pw_v0, pw.extra["order"][sub],
+                                r_mm, q.v0[rows], q.se[rows],
+                                lof_ratio=lof_ratio, agree_z=agree_z)
+    r = rows[keep]
+    out.v0[r], out.se[r], out.code[r], out.ratio[r] = fit["v0"][keep], fit["se"][keep], 5.0, fit["ratio"][keep]
+    out.goodness[r] = np.nan
+    last = t.size - 1 - np.argmax(sc.valid[r][:, ::-1], axis=1)
+    out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
+
+
 def model_choice(
     time: np.ndarray,
     signal: np.ndarray,
@@ -619,6 +655,9 @@ def model_choice(
                 _hill_step(t, y, sc, q, rows[rising], pw.v0[rising], pw.extra["order"][rising], r_best[rising],
                            ok_mm[try_pw][rising] & (code[rows[rising]] == 0.0), s0_all, spc, v0, se, code, ratio,
                            goodness, w_start, w_end, n_pts, first, lof_ratio=lof_ratio, agree_z=agree_z)
+            if SI_STEP:
+                _inhibition_hook(t, y, sc, q, rows, pw, r_old, s0_all, spc, est, first,
+                                 lof_ratio=lof_ratio, agree_z=agree_z)
         if known:
             mm_fit = {"v0": np.full(n_w, np.nan), "km": np.full(n_w, np.nan), "vmax": np.full(n_w, np.nan)}
             mm_fit["v0"][fit_rows], mm_fit["km"][fit_rows] = mm.v0, mm.extra["km"]

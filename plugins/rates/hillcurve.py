@@ -70,26 +70,50 @@ def hill_left(tau: np.ndarray, kappa: np.ndarray, h: np.ndarray, start: np.ndarr
     nearby parameters saves most of the Newton steps)."""
     tau, kappa, h = np.broadcast_arrays(np.asarray(tau, float), np.asarray(kappa, float), np.asarray(h, float))
     tau = np.fmax(tau, 0.0)
-    lo = np.full(tau.shape, LN_Z_FLOOR)
-    hi = np.zeros(tau.shape)
+
+    def g_and_slope(w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        z = np.exp(w)
+        return (1.0 - z) + kappa * _f(w, h) - tau, -z - kappa * np.exp((1.0 - h) * w)  # G - tau, dG/d ln z
+
     # start: the initial slope dz/dtau = -1/(1 + kappa), at most half the substrate used
     w = np.log1p(-np.fmin(tau / (1.0 + kappa), 0.5)) if start is None else np.clip(start, LN_Z_FLOOR, 0.0)
+    return newton_ln_left(g_and_slope, w)
+
+
+def newton_ln_left(g_and_slope: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]],
+                   w: np.ndarray) -> np.ndarray:
+    """Root in ``w = ln z`` of an integrated rate law ``g(w) = G(e^w) - tau``, decreasing in ``w``, from the
+    start ``w`` (every element within [:data:`LN_Z_FLOOR`, 0]): Newton's method kept inside the bracket the
+    iterates have established (bisection where a step leaves it or is not finite), at most
+    :data:`_NEWTON_STEPS` steps, stopping when no element moves by more than 1e-13 relatively.
+    ``g_and_slope(w)`` returns ``g`` and ``dg/dw``. Shared by the Hill and substrate-inhibition curves."""
+    lo = np.full(w.shape, LN_Z_FLOOR)
+    hi = np.zeros(w.shape)
     with np.errstate(over="ignore", invalid="ignore"):
         for _ in range(_NEWTON_STEPS):
-            z = np.exp(w)
-            g = (1.0 - z) + kappa * _f(w, h) - tau  # decreasing in w
+            g, dg = g_and_slope(w)
             pos = g > 0.0
             lo = np.where(pos, w, lo)
             hi = np.where(pos, hi, w)
-            dg = -z - kappa * np.exp((1.0 - h) * w)  # dG/d ln z
-            step = -g / dg
-            nxt = w + step
+            nxt = w - g / dg
             out = ~((nxt >= lo) & (nxt <= hi)) | ~np.isfinite(nxt)
             nxt = np.where(out, 0.5 * (lo + hi), nxt)
             if np.all(np.abs(nxt - w) <= 1e-13 * (1.0 + np.abs(w))):
-                w = nxt
-                break
+                return nxt
             w = nxt
+    return w
+
+
+def warm_solve(last: dict[str, np.ndarray], rows: np.ndarray, n_wells: int, tau: np.ndarray,
+               solve: Callable[[np.ndarray | None], np.ndarray]) -> np.ndarray:
+    """``ln z`` of the wells ``rows`` at scaled times ``tau`` by ``solve(start)``, started from the latest
+    solution of those wells kept in ``last`` (no start until they all have one; a model's successive
+    evaluations move the parameters little, so this saves most of the Newton steps); keeps the result."""
+    if "w" not in last:
+        last["w"] = np.full((n_wells, tau.shape[-1]), np.nan)
+    guess = last["w"][rows]
+    w = solve(None if np.isnan(guess).any() else guess)
+    last["w"][rows] = w
     return w
 
 
@@ -107,11 +131,7 @@ def hill_model(t: np.ndarray, s0: np.ndarray, spc: float) -> lsq.Model:
         h = np.clip(p[:, 2:3] / u, *H_CLIP)
         kappa = u / (1.0 - u)
         tau = np.exp(p[:, 1:2]) / (1.0 - u) * tt / sub
-        if "w" not in last:
-            last["w"] = np.full((s0.shape[0], tau.shape[-1]), np.nan)
-        guess = last["w"][rows]
-        w = hill_left(tau, kappa, h, None if np.isnan(guess).any() else guess)
-        last["w"][rows] = w
+        w = warm_solve(last, rows, s0.shape[0], tau, lambda start: hill_left(tau, kappa, h, start))
         z = np.exp(w)
         f = _f(w, h)
         dg_dz = -1.0 - kappa * np.exp(-h * w)
