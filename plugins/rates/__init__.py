@@ -161,15 +161,19 @@ class ModelChoiceRates(KernelRates):
     """Per well, the rate model the well's own reads support: the integrated Michaelis–Menten or power-law
     curve when it describes the reads within the noise (and, for the power law, agrees at t = 0 with a
     model-free quadratic), the integrated Hill curve where the power law's order exceeds 1 and an F-test
-    supports the extra parameter, else the slope at t = 0 of a quadratic through the reads up to 20 %
-    conversion; no curve is fitted where the quadratic already holds every read and its third-order bias is
-    negligible; wells with a lag get the lag/decay model. Single-read spikes are masked first
-    (docs/rates.md)."""
+    supports the extra parameter, the integrated substrate-inhibition curve where the power law's order is
+    near or below zero and an F-test against Michaelis–Menten supports it, else the slope at t = 0 of a
+    quadratic through the reads up to 20 % conversion; no curve is fitted where the quadratic already holds
+    every read and its third-order bias is negligible, and a power-law curve on the quadratic's own reads
+    gives way to the quadratic unless its expected error is the smaller; wells with a lag get the lag/decay
+    model. Single-read spikes are masked first (docs/rates.md)."""
 
-    method, version = "model-choice", "1.1"
+    #: 1.2: steps 6d (power law on the quadratic's own reads) and 6e (substrate-inhibition curve); without
+    #: s0 its curves' standard errors follow `progress` 1.1
+    method, version = "model-choice", "1.2"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
-    summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill) if it fits within the noise, "
-               "else early quadratic; spikes masked")
+    summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
+               "within the noise, else early quadratic; spikes masked")
     function = "vzero.plugins.rates.choice:model_choice"
     kernel_params = ("min_points", "lof_ratio", "agree_z", "window_conversion", "find_lag")
     params = {
