@@ -51,7 +51,8 @@ READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importe
            "tests/plugins/importers/test_plain_numbers.py"]
 #: the default rate method (model-choice) and the shared checks, with their helpers' field tests
 HELPERS = "tests/plugins/rates/test_rate_helper_fields.py"
-CHOICE = [HELPERS, "tests/plugins/rates/test_model_choice.py", "tests/plugins/rates/test_hillcurve.py",
+CHOICE = [HELPERS, "tests/plugins/rates/test_choice_fields.py", "tests/plugins/rates/test_model_choice.py",
+          "tests/plugins/rates/test_hillcurve.py",
           "tests/plugins/rates/test_disagrees.py"]
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
@@ -77,7 +78,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/lagdecay.py": ((), RATES),
     "plugins/rates/choice.py": ((), CHOICE),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py"]),
-    "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_model_choice.py"]),
+    "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
                                      "tests/plugins/rates/test_short_lag_and_decay.py",
                                      "tests/plugins/rates/test_lag_clock.py"]),

@@ -16,6 +16,8 @@ import numpy as np
 import pytest
 from vzero.plugins.fit.catalog import BY_NAME
 
+MM = "michaelis-menten"
+
 
 def _start(name: str, y: list[float], **x: list[float]) -> list[float]:
     return BY_NAME[name].start({k: np.asarray(v, float) for k, v in x.items()}, np.asarray(y, float))
@@ -23,28 +25,28 @@ def _start(name: str, y: list[float], **x: list[float]) -> list[float]:
 
 def test_michaelis_menten_start_at_the_geometric_midpoint_around_half_vmax() -> None:
     # Vmax = 3.5; half 1.75 first reached at S = 2 (v = 2), the level below is S = 1: Km = sqrt(2 * 1)
-    assert _start("michaelis-menten", [0, 1, 2, 3, 3.5], substrate=[0, 1, 2, 4, 8]) == pytest.approx([3.5, math.sqrt(2)])
+    assert _start(MM, [0, 1, 2, 3, 3.5], substrate=[0, 1, 2, 4, 8]) == pytest.approx([3.5, math.sqrt(2)])
     # the same data in another order (the rule sorts by substrate)
-    assert _start("michaelis-menten", [3, 1, 3.5, 0, 2], substrate=[4, 1, 8, 0, 2]) == pytest.approx([3.5, math.sqrt(2)])
+    assert _start(MM, [3, 1, 3.5, 0, 2], substrate=[4, 1, 8, 0, 2]) == pytest.approx([3.5, math.sqrt(2)])
     # half reached exactly (v = Vmax/2 counts as reached): S = 4, level below 2 -> sqrt(8)
-    assert _start("michaelis-menten", [1, 1.5, 2, 4], substrate=[1, 2, 4, 8]) == pytest.approx([4.0, math.sqrt(8)])
+    assert _start(MM, [1, 1.5, 2, 4], substrate=[1, 2, 4, 8]) == pytest.approx([4.0, math.sqrt(8)])
 
 
 def test_michaelis_menten_start_edges() -> None:
     # half reached at the lowest level already: Km = that level
-    assert _start("michaelis-menten", [3, 3.2, 3.3], substrate=[1, 2, 4]) == pytest.approx([3.3, 1.0])
+    assert _start(MM, [3, 3.2, 3.3], substrate=[1, 2, 4]) == pytest.approx([3.3, 1.0])
     # half first reached at S = 2, the level below is a zero-substrate control: Km = 2 itself
-    assert _start("michaelis-menten", [0, 2, 3, 3.5], substrate=[0, 2, 4, 8]) == pytest.approx([3.5, 2.0])
+    assert _start(MM, [0, 2, 3, 3.5], substrate=[0, 2, 4, 8]) == pytest.approx([3.5, 2.0])
     # half reached at the zero-substrate level: the median positive level, median(1, 2, 5) = 2
-    assert _start("michaelis-menten", [2, 3, 3.1, 3.2], substrate=[0, 1, 2, 5]) == pytest.approx([3.2, 2.0])
+    assert _start(MM, [2, 3, 3.1, 3.2], substrate=[0, 1, 2, 5]) == pytest.approx([3.2, 2.0])
     # no positive rate: Vmax 1, half 0.5 never reached, Km = median positive level, median(1, 3) = 2
-    assert _start("michaelis-menten", [-1, -2, -0.5], substrate=[0, 1, 3]) == pytest.approx([1.0, 2.0])
+    assert _start(MM, [-1, -2, -0.5], substrate=[0, 1, 3]) == pytest.approx([1.0, 2.0])
     # a zero top rate is not a Vmax either
-    assert _start("michaelis-menten", [0, 0, 0], substrate=[1, 2, 4])[0] == 1.0
+    assert _start(MM, [0, 0, 0], substrate=[1, 2, 4])[0] == 1.0
     # no positive substrate level: Km = 1
-    assert _start("michaelis-menten", [1, 2], substrate=[0, 0]) == pytest.approx([2.0, 1.0])
+    assert _start(MM, [1, 2], substrate=[0, 0]) == pytest.approx([2.0, 1.0])
     # every rate missing: Vmax = 1
-    assert _start("michaelis-menten", [np.nan, np.nan], substrate=[1, 2])[0] == 1.0
+    assert _start(MM, [np.nan, np.nan], substrate=[1, 2])[0] == 1.0
 
 
 def test_hill_and_substrate_inhibition_starts() -> None:

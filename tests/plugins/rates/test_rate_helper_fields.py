@@ -268,21 +268,24 @@ def test_plausible_hill_coefficient_on_both_sides_of_the_range() -> None:
 # ---------------------------------------------------------------------------------------------- lag clock
 
 
-def _theta_by_quad(t: float, tau: float, k: float) -> float:
-    """Reference: the active time as scipy.integrate.quad of the active fraction a(s) of the module text,
-    solved from dp/dt = -p/tau, da/dt = p/tau - k a by scipy.integrate.solve_ivp."""
+def _theta_by_ode(t: np.ndarray, tau: float, k: float) -> np.ndarray:
+    """Reference: the active time, the integral of the active fraction a(s) of the module text, solved with
+    dp/dt = -p/tau, da/dt = p/tau - k a (p(0) = 1, a(0) = 0) by scipy.integrate.solve_ivp at the times ``t``
+    (sorted, from 0); scipy.integrate.quad of exp(-k s) without a lag."""
+    t = np.asarray(t, float)
     if tau <= 0:
-        return integrate.quad(lambda s: math.exp(-k * s), 0, t, epsabs=1e-13, epsrel=1e-12)[0]
-    sol = integrate.solve_ivp(lambda s, u: [-u[0] / tau, u[0] / tau - k * u[1], u[1]], (0, t), [1.0, 0.0, 0.0],
-                              rtol=1e-11, atol=1e-13)
-    return float(sol.y[2, -1])
+        return np.array([integrate.quad(lambda s: math.exp(-k * s), 0, x, epsabs=1e-13, epsrel=1e-12)[0]
+                         for x in t])
+    sol = integrate.solve_ivp(lambda s, u: [-u[0] / tau, u[0] / tau - k * u[1], u[1]], (0, t[-1]),
+                              [1.0, 0.0, 0.0], t_eval=t, rtol=1e-11, atol=1e-13)
+    return sol.y[2]
 
 
 @pytest.mark.parametrize(("tau", "k"), [(60.0, 8e-4), (30.0, 0.0), (0.0, 2e-3), (0.0, 0.0), (50.0, 0.02),
                                         (40.0, 1.0 / 40.0), (20.0, -5e-4)])
 def test_active_time_and_clock_against_the_integral_of_the_active_fraction(tau: float, k: float) -> None:
     t = np.array([0.0, 5.0, 45.0, 300.0, 900.0])
-    want = np.array([_theta_by_quad(x, tau, k) if x > 0 else 0.0 for x in t])
+    want = _theta_by_ode(t, tau, k)
     if k >= 0:  # active_time is written for k >= 0 (a negative k is taken as none); clock takes any sign
         np.testing.assert_allclose(lagfit.active_time(t, tau, k), want, rtol=1e-7, atol=1e-9)
     theta, d_tau, d_k = lagfit.clock(t[None, :], np.array([[tau]]), np.array([[k]]))
@@ -301,7 +304,7 @@ def test_clock_next_to_k_tau_one_interpolates_within_its_gap() -> None:
     tau = 40.0
     for k_tau in (1.0 - 5e-4, 1.0 + 2e-4, 1.0 - 2e-3):
         theta = lagfit.clock(t, np.array([[tau]]), np.array([[k_tau / tau]]))[0][0]
-        want = [_theta_by_quad(x, tau, k_tau / tau) for x in t[0]]
+        want = _theta_by_ode(t[0], tau, k_tau / tau)
         np.testing.assert_allclose(theta, want, rtol=1e-6)
 
 
@@ -324,7 +327,7 @@ def test_peak_activity_is_the_largest_mean_active_fraction_between_reads() -> No
     tau, k = np.array([60.0, 0.0, np.nan]), np.array([8e-4, 1e-3, 0.0])
     got = lagfit.peak_activity(t, tau, k)
     for w in range(2):
-        theta = np.array([_theta_by_quad(x, tau[w], k[w]) if x > 0 else 0.0 for x in t])
+        theta = _theta_by_ode(t, tau[w], k[w])
         assert got[w] == pytest.approx(np.max(np.diff(theta) / 5.0), rel=1e-6)
     assert math.isnan(got[2])
     # the closed form's peak, a = (exp(-k t) - exp(-t/tau))/(1 - k tau) at t* = ln(1/(k tau)) tau/(1 - k tau)
@@ -346,7 +349,7 @@ def _hinge_by_lstsq(t: np.ndarray, y: np.ndarray, knee: int, sigma: float, direc
     keep = np.isfinite(y)
     tc = t - t[0]
     x = np.column_stack([np.ones_like(tc), tc, np.minimum(tc - tc[knee], 0.0)])[keep]
-    (a, b, c), *_ = np.linalg.lstsq(x, y[keep], rcond=None)
+    (_, b, c), *_ = np.linalg.lstsq(x, y[keep], rcond=None)
     var_c = np.linalg.inv(x.T @ x)[2, 2]
     return -direction * c / (sigma * math.sqrt(var_c)), b, c
 
