@@ -1,7 +1,7 @@
 """Every returned figure of the small helpers behind the default rate method (``model-choice``) and the shared
 checks, against an independent calculation: the spike test, the censored-read trim, the early quadratic, its
-bias bound, the difference SE, the Hill curve's substrate left, the lag clock, the short-lag hinge test and
-the read-window rule (invented data throughout).
+bias bound, the difference SE and where DISAGREES is judged, the Hill curve's substrate left, the lag clock,
+the short-lag hinge test and the read-window rule (invented data throughout).
 
 Outside references, named beside each check: numpy.polyfit and numpy.linalg.lstsq (least squares),
 scipy.optimize.brentq (the implicit integrated Hill law), scipy.integrate.quad (the active time as the
@@ -15,8 +15,11 @@ import math
 import numpy as np
 import pytest
 from scipy import integrate, optimize
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
+from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates import earlylag, hillcurve, lagfit
-from vzero.plugins.rates.checks import difference_se
+from vzero.plugins.rates.checks import difference_se, mark_decay, mark_disagreement, shared_checks
 from vzero.plugins.rates.choice import DIFF_FLOOR, EarlyQuadratic, early_quadratic, quadratic_bias, trim_censored
 from vzero.plugins.rates.spikes import SPIKE_Z, find_spikes
 
@@ -406,3 +409,32 @@ def test_early_lag_on_both_sides_of_its_thresholds() -> None:
         assert bool(got.has[0]) == want
     untested = earlylag.early_lag(t, shape[None, :], sigma, np.ones(1), np.zeros(1, bool))
     assert not untested.has[0] and math.isnan(untested.z[0]) and math.isnan(untested.lag_s[0])
+
+
+# ---------------------------------------------------------------------------------------------- shared checks
+
+
+def test_disagreement_is_judged_only_on_rated_wells_without_a_lag() -> None:
+    # three copies of one Michaelis-Menten well (scipy solve_ivp), each given a v0 three times the true one
+    # (far beyond DISAGREE_Z): the one with a rate and no LAG is flagged; a LAG well and a well without a
+    # rate are left alone; without s0 or signal_per_conc nothing is judged (the same result object back)
+    t = np.arange(120) * 5.0
+    p = simulate_plate(t, np.full(3, 0.5), 1.0, 4e-4, signal_per_conc=5.0, baseline=0.05, noise=0.002, seed=3)
+    v = 3.0 * p.v0_true
+    v[2] = np.nan
+    res = RateResult(v0=v, stderr=np.full(3, 1e-7), window_start_s=np.zeros(3), window_end_s=np.full(3, 595.0),
+                     goodness=np.ones(3), flags=np.array([0, int(Flag.LAG), 0]), n_points=np.full(3, 120),
+                     lag_s=np.zeros(3))
+    got = mark_disagreement(t, p.signal, res, s0=np.full(3, 0.5), signal_per_conc=5.0)
+    assert ((got.flags & Flag.DISAGREES) != 0).tolist() == [True, False, False]
+    assert (got.flags & ~int(Flag.DISAGREES)).tolist() == res.flags.tolist()
+    for s0, spc in ((None, 5.0), (np.full(3, 0.5), None)):
+        assert mark_disagreement(t, p.signal, res, s0=s0, signal_per_conc=spc) is res
+        assert mark_decay(t, p.signal, res, s0=s0, signal_per_conc=spc, modelled=False) is res
+    # a method that compares with the model-free estimate itself is not judged again
+    quiet = shared_checks(t, p.signal, res, s0=np.full(3, 0.5), signal_per_conc=5.0, finds_lags=True,
+                          models_decay=True, compares_model_free=True)
+    assert not (quiet.flags & Flag.DISAGREES).any()
+    loud = shared_checks(t, p.signal, res, s0=np.full(3, 0.5), signal_per_conc=5.0, finds_lags=True,
+                         models_decay=True)
+    assert (loud.flags & Flag.DISAGREES).tolist() == (got.flags & Flag.DISAGREES).tolist()
