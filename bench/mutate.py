@@ -44,6 +44,7 @@ STAGE = "tests/plugins/fit/test_stage.py"
 RATES = ["tests/plugins/rates/test_rate_fields.py", "tests/plugins/rates/test_lag_fields.py",
          "tests/plugins/rates/test_rate_thresholds.py",
          "tests/plugins/rates/test_se_quick.py", "tests/plugins/rates/test_rate_edges.py",
+         "tests/plugins/rates/test_rate_parts.py",
          "tests/plugins/rates/test_rates_closed_form.py", "tests/plugins/rates/test_rates_kernels.py"]
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
 READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importers/test_time_formats.py",
