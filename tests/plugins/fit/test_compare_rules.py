@@ -79,3 +79,28 @@ def test_without_aicc_the_simplest_fitted_model_is_taken() -> None:
     assert all(np.isnan(r["aicc"]) and np.isnan(r["akaike_weight"]) for r in rows)
     _, only, why = compare.compare_set({"hill": _stub(0.1, 30, 3)}, {})
     assert only == "hill" and why == "lowest AICc (only model fitted)"
+
+
+@pytest.mark.parametrize(("ci", "verdict"), [
+    ((1.0, 1.2), "none"),  # an interval that ends at 1 contains 1 (closed interval)
+    ((0.85, 1.0), "none"),
+    ((0.8, 1.25), "none"),  # the margin's own ends count as inside
+    ((1.0 + 1e-12, 1.2), "positive"),
+    ((0.85, 1.0 - 1e-12), "negative"),
+])
+def test_cooperativity_at_the_ends_of_the_interval(ci: tuple[float, float], verdict: str) -> None:
+    got, reason = compare.cooperativity(_stub(1.0, 20, 3), (*ci, "profile"), 0.001 if verdict != "none" else 0.4,
+                                        names=("Hill", "Michaelis–Menten", "h"))
+    assert got == verdict, reason
+
+
+def test_parsimony_keeps_the_simpler_model_when_p_equals_alpha() -> None:
+    # the extra parameter is supported only when p < alpha (common practice); alpha set to the pair's own
+    # p value (from compare.f_test, checked against scipy.stats.f above) puts the rule on its boundary
+    n = 30
+    simple, cplx = _stub(_rss_for_p(0.03, 10.0, n), n, 2), _stub(10.0, n, 3)
+    p = compare.f_test(simple, cplx, ("michaelis-menten", "hill")).p
+    nests = {"hill": {"michaelis-menten": ""}}
+    fits = {"michaelis-menten": simple, "hill": cplx}
+    assert compare.compare_set(fits, nests, alpha=p)[1] == "michaelis-menten"
+    assert compare.compare_set(fits, nests, alpha=p * (1 + 1e-9))[1] == "hill"

@@ -28,3 +28,30 @@ def test_high_conversion_allows_one_part_in_ten_thousand() -> None:
         assert bool(r.flags[0] & Flag.HIGH_CONVERSION) == flagged, limit
         if limit < conv:  # the shortest window either way: the same conversion
             assert r.extra["conversion"][0] == conv and r.window_end_s[0] == T[5]
+
+
+def test_auto_default_rate_drop_is_ten_percent() -> None:
+    # the same decaying wells with the default and with max_rate_drop given as 0.10 (common practice, the
+    # documented default) agree exactly; 0.20 gives longer windows on some of them, so the default matters
+    k = np.linspace(2e-4, 4e-3, 40)
+    rng = np.random.default_rng(9)
+    y = 0.1 + 5e-4 * (1 - np.exp(-k[:, None] * T)) / k[:, None] + 2e-4 * rng.standard_normal((k.size, T.size))
+    default = auto(T, y, find_lag=False)
+    given = auto(T, y, find_lag=False, max_rate_drop=0.10)
+    wider = auto(T, y, find_lag=False, max_rate_drop=0.20)
+    np.testing.assert_array_equal(default.window_end_s, given.window_end_s)
+    np.testing.assert_array_equal(default.v0, given.v0)
+    assert (wider.window_end_s > default.window_end_s).sum() >= 5
+
+
+def test_auto_windows_end_on_the_documented_geometric_grid() -> None:
+    # candidate window ends: read offsets round(geomspace(min_points - 1, n_t - 1, n_candidates)) after the
+    # start (module text, step 2; numpy.geomspace as the reference); every well's window ends on one of them
+    k = np.geomspace(5e-5, 5e-3, 60)
+    rng = np.random.default_rng(10)
+    y = 0.1 + 5e-4 * (1 - np.exp(-k[:, None] * T)) / k[:, None] + 1e-4 * rng.standard_normal((k.size, T.size))
+    r = auto(T, y, find_lag=False)
+    offs = set(np.round(np.geomspace(5, 59, 16)).astype(int).tolist())
+    end_idx = np.round(r.window_end_s / 10.0).astype(int)
+    assert set(end_idx.tolist()) <= offs
+    assert len(set(end_idx.tolist())) >= 5  # windows of many lengths

@@ -193,6 +193,16 @@ def test_early_quadratic_without_a_scale_takes_a_third_of_the_reads_or_min_point
     _assert_matches(q20, 1, _quadratic_by_polyfit(t, y[1], 20, 0.002))  # min_points is larger
 
 
+def test_early_quadratic_measures_conversion_from_the_mean_of_the_first_three_reads() -> None:
+    # reads 0, 0, 0, then rising by 0.041 per read: the level is 0 (mean of the first three reads; with a
+    # fourth read it would be 0.01025). Read 7 sits at 0.205, beyond 20 % of a full change of 1 from 0 but not
+    # from 0.01025, so the window stops there (reads 0-6 used, hand calculation)
+    t = np.arange(20) * 5.0
+    y = np.where(np.arange(20) < 3, 0.0, 0.041 * (np.arange(20) - 2.0))[None, :]
+    q = early_quadratic(t, y, np.array([1.0]), frac=0.2, min_points=4, sigma=np.array([0.01]))
+    assert q.n[0] == 7 and q.end_s[0] == 30.0
+
+
 def test_early_quadratic_needs_four_reads() -> None:
     t = np.arange(10) * 2.0
     y = np.full((2, 10), np.nan)
