@@ -18,9 +18,10 @@ from scipy import integrate, optimize
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.kinetics.simulate import simulate_plate
-from vzero.plugins.rates import earlylag, hillcurve, lagfit
+from vzero.plugins.rates import checks, earlylag, hillcurve, lagfit
 from vzero.plugins.rates.checks import difference_se, mark_decay, mark_disagreement, shared_checks
 from vzero.plugins.rates.choice import DIFF_FLOOR, EarlyQuadratic, early_quadratic, quadratic_bias, trim_censored
+from vzero.plugins.rates.noise import conversion_scale, screen
 from vzero.plugins.rates.spikes import SPIKE_Z, find_spikes
 
 # ---------------------------------------------------------------------------------------------- spikes
@@ -448,3 +449,84 @@ def test_disagreement_is_judged_only_on_rated_wells_without_a_lag() -> None:
     loud = shared_checks(t, p.signal, res, s0=np.full(3, 0.5), signal_per_conc=5.0, finds_lags=True,
                          models_decay=True)
     assert (loud.flags & Flag.DISAGREES).tolist() == (got.flags & Flag.DISAGREES).tolist()
+
+
+def test_clock_derivative_in_k_without_decay_is_the_closed_form() -> None:
+    # theta = ((1 - exp(-k t))/k - L)/(1 - k tau) with L = tau (1 - exp(-t/tau)) (module text); to first order
+    # in k, (t - k t²/2 - L)(1 + k tau), so d theta/dk at k = 0 is -t²/2 + tau (t - L) (hand expansion); the
+    # clock uses its series there (|k t| < 1e-6)
+    t = np.array([[0.0, 5.0, 60.0, 300.0, 900.0]])
+    tau = 45.0
+    _, _, d_k = lagfit.clock(t, np.array([[tau]]), np.array([[0.0]]))
+    x = t[0] / tau
+    want = -t[0] ** 2 / 2 + tau * (t[0] + tau * np.expm1(-x))
+    np.testing.assert_allclose(d_k[0], want, rtol=1e-9, atol=1e-9)
+
+
+def test_early_lag_time_is_measured_from_the_first_read() -> None:
+    # the same reads with the clock started 30 s earlier: the same lag time (it is counted from the first read,
+    # EarlyLag's text), knee and statistic
+    t = np.arange(60) * 5.0
+    y = np.where(t < 20.0, 0.01 * t, 0.05 * t - 0.8) + np.random.default_rng(5).normal(0.0, 0.02, 60)
+    args = (np.array([0.02]), np.ones(1), np.ones(1, bool))
+    a = earlylag.early_lag(t, y[None, :], *args)
+    b = earlylag.early_lag(t + 30.0, y[None, :], *args)
+    assert a.has[0] and b.has[0] and a.knee[0] == b.knee[0]
+    assert b.lag_s[0] == pytest.approx(a.lag_s[0], rel=1e-9) and b.z[0] == pytest.approx(a.z[0], rel=1e-9)
+
+
+def test_early_lag_needs_eight_reads() -> None:
+    # eight reads, flat for four and then steep: tested (knees 3 and 4 of window_reads(8) = 8); seven: not
+    t = np.arange(8) * 5.0
+    y = np.where(np.arange(8) < 4, 0.0, 1.0 * (np.arange(8) - 3.0)) + np.array([0, 1, -1, 0, 1, -1, 0, 1]) * 1e-3
+    args = (np.array([0.01]), np.ones(1), np.ones(1, bool))
+    assert earlylag.early_lag(t, y[None, :], *args).has[0]
+    assert not earlylag.early_lag(t[:7], y[None, :7], *args).has[0]
+
+
+def test_decay_is_not_judged_where_depletion_leaves_no_rate_to_compare(monkeypatch: pytest.MonkeyPatch) -> None:
+    # module text of checks._falling: near full conversion the slowest end rate depletion explains,
+    # first rate x (1 - x_end)^3, is within three standard errors of zero, and decay and depletion cannot be
+    # told apart "whatever the fit would say". Wells of an inactivating enzyme (k = 6e-3 /s, scipy solve_ivp)
+    # that run to about 90 % conversion: the decay fit alone would flag them; the rule leaves them unflagged
+    t = np.arange(120) * 5.0
+    s0 = np.array([0.05, 0.1, 0.2])
+    p = simulate_plate(t, s0, 0.5, 8e-3, k_inact=6e-3, signal_per_conc=5.0, baseline=0.05, noise=0.001, seed=12)
+    bare = RateResult(v0=np.ones(3))
+    assert (mark_decay(t, p.signal, bare, s0=s0, signal_per_conc=5.0, modelled=False).flags == 0).all()
+    monkeypatch.setattr(checks, "_falling", lambda t, y, *a: np.ones(y.shape[0], dtype=bool))
+    fit_alone = mark_decay(t, p.signal, bare, s0=s0, signal_per_conc=5.0, modelled=False)
+    assert ((np.asarray(fit_alone.flags) & Flag.DECAY) != 0).all()
+
+
+def test_model_free_gap_allows_for_the_quadratics_own_bias() -> None:
+    # (|v0 - v_q| - b |v_q|) / SE_d (module text of checks.model_free_gap), composed by hand from the parts
+    # checked above (the early quadratic against numpy.polyfit, its bias bound, the difference SE) on a
+    # strongly curving Michaelis-Menten well (S0 = 0.2 Km, scipy solve_ivp) where b is not negligible
+    t = np.arange(120) * 5.0
+    s0 = np.array([0.1, 0.1])
+    p = simulate_plate(t, s0, 0.5, 4e-4, signal_per_conc=5.0, baseline=0.05, noise=0.0005, seed=4)
+    v = np.array([1.5, 0.7]) * p.v0_true
+    se = np.array([2e-5, 1e-5])
+    gap = checks.model_free_gap(t, p.signal, v, se, s0=s0, signal_per_conc=5.0)
+    y = trim_censored(p.signal.copy(), 1)
+    sc = screen(y, min_points=8, time=t)
+    q = early_quadratic(t, y, conversion_scale(s0, 5.0, 2), frac=0.2, min_points=8, sigma=sc.sigma)
+    _, b = quadratic_bias(q, np.abs(sc.change), s0, 5.0)
+    assert (b * np.abs(q.v0) > 0.05 * difference_se(q.se, se)).all()  # the allowance is visible
+    want = (np.abs(v - q.v0) - b * np.abs(q.v0)) / difference_se(q.se, se)
+    np.testing.assert_allclose(gap, want, rtol=1e-9)
+
+
+def test_shared_checks_read_eight_reads_by_default() -> None:
+    # the window method calls the shared checks without min_points: eight reads are then enough to judge a
+    # rate three times the true one (DISAGREES); with nine required the well is not judged
+    t = np.arange(8) * 20.0
+    s0 = np.array([0.5])
+    p = simulate_plate(t, s0, 0.5, 4e-4, signal_per_conc=5.0, baseline=0.05, noise=0.0005, seed=6)
+    res = RateResult(v0=3.0 * p.v0_true, stderr=np.full(1, 1e-6), window_start_s=np.zeros(1),
+                     window_end_s=np.full(1, 140.0), goodness=np.ones(1), flags=np.zeros(1, np.int64),
+                     n_points=np.full(1, 8), lag_s=np.zeros(1))
+    kw = {"s0": s0, "signal_per_conc": 5.0, "finds_lags": True, "models_decay": True}
+    assert shared_checks(t, p.signal, res, **kw).flags[0] & Flag.DISAGREES
+    assert not shared_checks(t, p.signal, res, min_points=9, **kw).flags[0] & Flag.DISAGREES
