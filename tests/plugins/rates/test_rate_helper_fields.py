@@ -530,3 +530,23 @@ def test_shared_checks_read_eight_reads_by_default() -> None:
     kw = {"s0": s0, "signal_per_conc": 5.0, "finds_lags": True, "models_decay": True}
     assert shared_checks(t, p.signal, res, **kw).flags[0] & Flag.DISAGREES
     assert not shared_checks(t, p.signal, res, min_points=9, **kw).flags[0] & Flag.DISAGREES
+
+
+def test_the_decay_prescreen_margin_keeps_every_well_the_fit_would_flag(monkeypatch: pytest.MonkeyPatch) -> None:
+    # a dense range of inactivation constants at low read noise (scipy solve_ivp), so that some wells' last
+    # block rate lies within the pre-screen's 10 % margin of the depletion bound: the flags are the same with
+    # the pre-screen (margin 1.1) and without it, and a pre-screen without the margin would lose some
+    t = np.arange(120) * 5.0
+    k = np.geomspace(1e-4, 3e-3, 40)
+    s0 = np.full(40, 1.0)
+    p = simulate_plate(t, s0, 0.5, 4e-4, k_inact=k, signal_per_conc=5.0, baseline=0.05, noise=2e-4, seed=21)
+    bare = RateResult(v0=np.ones(40))
+    kw = {"s0": s0, "signal_per_conc": 5.0, "modelled": False}
+    with_screen = mark_decay(t, p.signal, bare, **kw).flags
+    monkeypatch.setattr(checks, "PRESCREEN_MARGIN", 1.0 / 1.1)
+    tight = mark_decay(t, p.signal, bare, **kw).flags
+    monkeypatch.setattr(checks, "_falling", lambda t, y, *a: np.ones(y.shape[0], dtype=bool))
+    without = mark_decay(t, p.signal, bare, **kw).flags
+    np.testing.assert_array_equal(with_screen, without)
+    assert (np.asarray(without) != 0).sum() >= 5
+    assert (np.asarray(tight) != np.asarray(without)).any()
