@@ -43,12 +43,18 @@ STATS = "tests/plugins/fit/test_statistics.py"
 STAGE = "tests/plugins/fit/test_stage.py"
 RATES = ["tests/plugins/rates/test_rate_fields.py", "tests/plugins/rates/test_lag_fields.py",
          "tests/plugins/rates/test_rate_thresholds.py",
-         "tests/plugins/rates/test_se_quick.py",
+         "tests/plugins/rates/test_se_quick.py", "tests/plugins/rates/test_rate_edges.py",
+         "tests/plugins/rates/test_rate_parts.py",
          "tests/plugins/rates/test_rates_closed_form.py", "tests/plugins/rates/test_rates_kernels.py"]
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
 READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importers/test_time_formats.py",
            "tests/plugins/importers/test_readers.py",
            "tests/plugins/importers/test_plain_numbers.py"]
+#: the default rate method (model-choice) and the shared checks, with their helpers' field tests
+HELPERS = "tests/plugins/rates/test_rate_helper_fields.py"
+CHOICE = [HELPERS, "tests/plugins/rates/test_choice_fields.py", "tests/plugins/rates/test_model_choice.py",
+          "tests/plugins/rates/test_hillcurve.py",
+          "tests/plugins/rates/test_disagrees.py"]
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
            "tests/pipeline/test_verify_digests.py::test_a_missing_results_group_is_reported"]
@@ -57,11 +63,13 @@ DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with
 #: quickest that exercise the module, fastest first)
 TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/fit/compare.py": ((), [STATS, "tests/plugins/fit/test_compare_rules.py"]),
-    "plugins/fit/engine.py": ((), [STATS, "tests/plugins/fit/test_engine_nist.py"]),
+    "plugins/fit/engine.py": ((), [STATS, "tests/plugins/fit/test_engine_edges.py",
+                                   "tests/plugins/fit/test_engine_nist.py"]),
     "plugins/fit/run.py": (("_sigma", "_saturation_problem", "_derived_row", "_ki_rows", "_derived", "_group_enzyme"),
                            ["tests/plugins/fit/test_run_helpers.py", STATS, STAGE,
                             "tests/plugins/fit/test_titration.py"]),
-    "plugins/fit/models.py": ((), ["tests/plugins/fit/test_models.py", STATS]),
+    "plugins/fit/models.py": ((), ["tests/plugins/fit/test_start_values.py", "tests/plugins/fit/test_models.py",
+                                   STATS]),
     "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"),
                                    ["tests/plugins/fit/test_diagnostics_fields.py", STAGE]),
     "plugins/rates/noise.py": ((), RATES),
@@ -70,6 +78,14 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/polynomial.py": ((), RATES),
     "plugins/rates/progress.py": ((), RATES),
     "plugins/rates/lagdecay.py": ((), RATES),
+    "plugins/rates/choice.py": ((), CHOICE),
+    "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py"]),
+    "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
+    "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
+                                     "tests/plugins/rates/test_short_lag_and_decay.py",
+                                     "tests/plugins/rates/test_lag_clock.py"]),
+    "plugins/rates/lagfit.py": ((), [HELPERS, "tests/plugins/rates/test_lag_clock.py"]),
+    "plugins/rates/earlylag.py": ((), [HELPERS, "tests/plugins/rates/test_short_lag_and_decay.py"]),
     "plugins/convert/__init__.py": ((), CONVERT),
     "plugins/convert/pathlength.py": ((), CONVERT),
     "plugins/convert/standard_curve.py": ((), CONVERT),
