@@ -17,7 +17,7 @@ Results: a JSON file (``--out``) with every mutant and its outcome, and a summar
 Examples::
 
     python -m bench.mutate --list                      # count mutants per module
-    python -m bench.mutate --sample 25 --out mut.json  # the run recorded in docs/testing.md
+    python -m bench.mutate --sample 3 --seed 6607 --jobs 2  # the last run recorded in docs/testing.md
     python -m bench.mutate --module plugins/fit/compare.py --sample 0
 """
 
@@ -53,8 +53,8 @@ READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importe
 #: the default rate method (model-choice) and the shared checks, with their helpers' field tests
 HELPERS = "tests/plugins/rates/test_rate_helper_fields.py"
 CHOICE = [HELPERS, "tests/plugins/rates/test_choice_fields.py", "tests/plugins/rates/test_model_choice.py",
-          "tests/plugins/rates/test_hillcurve.py",
-          "tests/plugins/rates/test_disagrees.py"]
+          "tests/plugins/rates/test_hillcurve.py", "tests/plugins/rates/test_same_reads.py",
+          "tests/plugins/rates/test_sicurve.py", "tests/plugins/rates/test_disagrees.py"]
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
            "tests/pipeline/test_verify_digests.py::test_a_missing_results_group_is_reported"]
@@ -80,6 +80,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/lagdecay.py": ((), RATES),
     "plugins/rates/choice.py": ((), CHOICE),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py"]),
+    "plugins/rates/sicurve.py": ((), ["tests/plugins/rates/test_sicurve.py", *CHOICE[1:3]]),
     "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
                                      "tests/plugins/rates/test_short_lag_and_decay.py",
