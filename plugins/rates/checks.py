@@ -130,12 +130,22 @@ def shared_checks(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s
     if not models_decay:
         result = mark_decay(time, signal, result, s0=s0, signal_per_conc=signal_per_conc, modelled=False,
                             min_points=min_points)
-    if compares_model_free or s0 is None or signal_per_conc is None:
+    if compares_model_free:
+        return result
+    return compare_model_free(time, signal, result, s0=s0, signal_per_conc=signal_per_conc, min_points=min_points,
+                              samples=samples)
+
+
+def compare_model_free(time: np.ndarray, signal: np.ndarray, result: RateResult, *, s0: np.ndarray | None,
+                       signal_per_conc: float | None, min_points: int = 8,
+                       samples: np.ndarray | None = None) -> RateResult:
+    """DISAGREES and IMPRECISE on ``result`` from one model-free estimate of the wells of :func:`compared_rows`
+    (computing it is most of the two checks' cost). Skipped quietly without s0 or signal_per_conc."""
+    if s0 is None or signal_per_conc is None:
         return result
     rows = compared_rows(result)
     if rows.size == 0:
         return result
-    # one model-free estimate for both comparisons (it is most of their cost)
     ref = model_free(time, np.array(signal, dtype=float, ndmin=2)[rows],
                      s0=np.broadcast_to(np.asarray(s0, dtype=float), np.shape(result.v0))[rows],
                      signal_per_conc=signal_per_conc, min_points=min_points)
