@@ -43,9 +43,11 @@ NAMES: tuple[str, ...] = tuple(FLAG_NAMES)
 #: with exit code 1). NO_SIGNAL is not among them: a well without change is a measurement, not a failure.
 FAILURE = Flag.FIT_FAILED | Flag.ALL_MISSING | Flag.TOO_FEW_POINTS
 
-#: Flags that keep a well out of the fit unless the recipe's ``fit.exclude_flags`` says otherwise.
+#: Flags that keep a well out of the fit unless the recipe's ``fit.exclude_flags`` says otherwise: the wells
+#: without a rate, and the flags whose rates are off by more than 5 % nearly always on the benchmark
+#: (UNMODELLED, IMPRECISE; docs/rates.md, "Flags: measured").
 NOT_FITTED = (Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS | Flag.FIT_FAILED | Flag.EXCLUDED
-              | Flag.UNMODELLED)
+              | Flag.UNMODELLED | Flag.IMPRECISE)
 
 #: Each flag in words (as the report prints it) and as a short label (beside a well in a figure).
 DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
