@@ -140,3 +140,33 @@ def test_blanks_standards_and_empty_wells_never_carry_it() -> None:
     assert _has(frame, "flags", "imprecise")[sample].any()  # the same reads are marked on sample wells
     assert not _has(frame, "flags", "imprecise")[~sample].any()
     assert not frame.loc[~sample, "status"].str.contains("imprecise").any()
+
+
+def test_the_fit_leaves_imprecise_rates_out_by_default_and_keeps_them_on_request() -> None:
+    # invented Michaelis–Menten rates (Vmax 10, Km 5); two wells marked imprecise with rates far off
+    from vzero.data import Table
+    from vzero.manager import make_manager
+    from vzero.plugins.fit.stage import FitStage
+
+    s = np.repeat([1.0, 2.0, 5.0, 10.0, 20.0, 50.0], 2)
+    rate = 10.0 * s / (5.0 + s)
+    rate[[0, 5]] *= (0.3, 1.8)
+    flags = [""] * s.size
+    flags[0], flags[5] = "noisy;imprecise", "imprecise"
+    frame = pd.DataFrame({"well": [f"A{i + 1}" for i in range(s.size)], "group": "g", "role": "sample",
+                          "substrate": s, "rate": rate, "rate_stderr": 0.1, "flags": flags})
+
+    def km_row(given: dict[str, object]) -> pd.Series:
+        settings, problems = validate(FitStage.params, {"models": ["michaelis-menten"], **given})
+        assert not problems
+        data = StageInput({"rates": Table(frame, {"rate": "uM/min", "substrate": "uM"})}, None, {}, {},
+                          make_manager(autoload=False).registry, lambda _: None)
+        fits = FitStage(**settings).run(data).artifacts["fits"].frame
+        return fits[fits["parameter"] == "Km"].iloc[0]
+
+    row = km_row({})
+    assert row["n_points"] == 10
+    assert row["estimate"] == pytest.approx(5.0, rel=1e-6)  # the ten exact rates give Km back
+    kept = km_row({"exclude_flags": ["all_missing", "no_signal", "too_few_points", "fit_failed", "excluded"]})
+    assert kept["n_points"] == 12
+    assert abs(kept["estimate"] / 5.0 - 1.0) > 0.05
