@@ -70,7 +70,7 @@ DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
     Flag.DISAGREES: ("the rate differs from the model-free estimate (a quadratic over the early reads) by more "
                      "than the noise allows: the method's model may not fit this curve", "disagr"),
     Flag.IMPRECISE: ("the rate is less precise than the model-free estimate from the same reads and lies "
-                     "further from it than that estimate's tolerance: a doubtful rate (imprecise, not biased)",
+                     "further from it than that estimate's tolerance: a doubtful rate, left out of fits by default",
                      "impr"),
 }
 

@@ -25,8 +25,9 @@ stage leaves the well out by default, with the reason in fits.csv.
 * IMPRECISE, from :func:`mark_imprecision`: the method's rate is less precise than the model-free estimate of
   the same reads (its SE above :data:`IMPRECISE_SE_SHARE` of that estimate's tolerance, the larger of 5 % of
   v0 and twice SE_q: a careful analysis by hand gets within it) and lies further from that estimate than
-  :data:`IMPRECISE_K` tolerances: a doubtful rate, imprecise rather than biased,
-  where a careful analysis of the same reads does better. Sample wells only (blanks, standards and empty
+  :data:`IMPRECISE_K` tolerances: a doubtful rate, off through the method's imprecision rather than a wrong
+  model, where a careful analysis of the same reads does better (on the benchmark such rates are off by more
+  than 5 % nearly always and run low as a group, so the fit leaves them out by default). Sample wells only (blanks, standards and empty
   wells never carry it); same conditions and exceptions as DISAGREES, with which it shares the estimate.
 """
 
