@@ -27,8 +27,9 @@ stage leaves the well out by default, with the reason in fits.csv.
   v0 and twice SE_q: a careful analysis by hand gets within it) and lies further from that estimate than
   :data:`IMPRECISE_K` tolerances: a doubtful rate, off through the method's imprecision rather than a wrong
   model, where a careful analysis of the same reads does better (on the benchmark such rates are off by more
-  than 5 % nearly always and run low as a group, so the fit leaves them out by default). Sample wells only (blanks, standards and empty
-  wells never carry it); same conditions and exceptions as DISAGREES, with which it shares the estimate.
+  than 5 % nearly always and run low as a group, so the fit leaves them out by default). Sample wells only
+  (blanks, standards and empty wells never carry it); same conditions and exceptions as DISAGREES, with
+  which it shares the estimate.
 """
 
 from __future__ import annotations
