@@ -12,8 +12,10 @@ well's condition (the issue's definition); a rate is *in tolerance* when ``|v0/t
 Printed (and written between ``<!-- flags:start -->`` and ``<!-- flags:end -->``): per method and flag, the
 share of in-tolerance and of bad wells that carry it, summed over every scenario; the same for the union of
 the flags the fit stage excludes by default; the median signed error of the wells carrying each flag; and
-two threshold sweeps, of |v0|/SE for NOISY and of the model-free gap for DISAGREES
-(:func:`vzero.plugins.rates.checks.model_free_gap`, measured on every method's rates, ``model-choice``'s too).
+three threshold sweeps, of |v0|/SE for NOISY, of the model-free gap for DISAGREES
+(:func:`vzero.plugins.rates.checks.model_free_gap`) and of the distance from the model-free estimate in
+model-free tolerances for IMPRECISE (:func:`vzero.plugins.rates.checks.imprecision`), the last two measured
+on every method's rates, ``model-choice``'s too.
 Invented plates for benchmarking only.
 """
 
@@ -35,7 +37,7 @@ from vzero.params import validate  # noqa: E402
 from vzero.plugins import rates  # noqa: E402
 from vzero.plugins.kinetics.flags import FLAG_NAMES, Flag  # noqa: E402
 from vzero.plugins.kinetics.methods import PlateView  # noqa: E402
-from vzero.plugins.rates.checks import model_free_gap  # noqa: E402
+from vzero.plugins.rates.checks import IMPRECISE_SE_SHARE, imprecision, model_free, model_free_gap  # noqa: E402
 
 from bench.accuracy import DEFAULT_EXCLUDE, blank_corrected, write_section  # noqa: E402
 from bench.plates import Scenario, draw, integrate, scenarios  # noqa: E402
@@ -54,7 +56,7 @@ STAGES: dict[str, tuple[type, dict[str, object]]] = {
 
 #: Flags a rate method sets on a sample well that has a rate (the others mean no rate, or come from the recipe).
 RATE_FLAGS = ("saturated", "high_conversion", "curvature", "lag", "decay", "noisy", "spike", "unmodelled",
-              "disagrees")
+              "disagrees", "imprecise")
 
 
 Runner = Callable[[Scenario, np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray]]
@@ -66,6 +68,12 @@ NOISY_SWEEP = (3.0, 5.0, 10.0, 20.0)
 #: (standard errors of the difference beyond the quadratic's bias; the check uses
 #: :data:`vzero.plugins.rates.checks.DISAGREE_Z`).
 DISAGREE_SWEEP = (2.0, 3.0, 4.0, 5.0, 7.0, 10.0)
+
+#: Thresholds tried for IMPRECISE: the distance from the model-free estimate in model-free tolerances (the
+#: check uses :data:`vzero.plugins.rates.checks.IMPRECISE_K`), each with the SE shares of :data:`SE_SHARES`
+#: (the check uses :data:`vzero.plugins.rates.checks.IMPRECISE_SE_SHARE`; 0: distance alone).
+IMPRECISE_SWEEP = (1.0, 1.25, 1.5, 2.0, 3.0)
+SE_SHARES = (0.0, IMPRECISE_SE_SHARE, 1.0)
 
 
 def stage_runner(name: str) -> Runner:
@@ -107,8 +115,13 @@ class Tally:
     snr_bad: list[np.ndarray] = field(default_factory=list)
     gap_good: list[np.ndarray] = field(default_factory=list)
     gap_bad: list[np.ndarray] = field(default_factory=list)
+    share_good: list[np.ndarray] = field(default_factory=list)
+    share_bad: list[np.ndarray] = field(default_factory=list)
+    far_good: list[np.ndarray] = field(default_factory=list)
+    far_bad: list[np.ndarray] = field(default_factory=list)
 
-    def add(self, err: np.ndarray, tol: np.ndarray, flags: np.ndarray, snr: np.ndarray, gap: np.ndarray) -> None:
+    def add(self, err: np.ndarray, tol: np.ndarray, flags: np.ndarray, snr: np.ndarray, gap: np.ndarray,
+            share: np.ndarray, far: np.ndarray) -> None:
         has = np.isfinite(err)
         good = has & (np.abs(err) <= tol)
         bad = has & (np.abs(err) > 2.0 * tol)
@@ -118,13 +131,19 @@ class Tally:
         self.snr_good.append(snr[good])
         self.snr_bad.append(snr[bad])
         # wells flagged LAG are not compared (module text of vzero.plugins.rates.checks): NaN, never flagged
-        gap = np.where((flags & int(Flag.LAG)) != 0, np.nan, gap)
+        lag = (flags & int(Flag.LAG)) != 0
+        gap, far = np.where(lag, np.nan, gap), np.where(lag, np.nan, far)
         self.gap_good.append(gap[good])
         self.gap_bad.append(gap[bad])
+        self.share_good.append(share[good])
+        self.share_bad.append(share[bad])
+        self.far_good.append(far[good])
+        self.far_bad.append(far[bad])
         marks = {name: (flags & int(FLAG_NAMES[name])) != 0 for name in RATE_FLAGS}
         marks["default exclusions"] = (flags & DEFAULT_EXCLUDE) != 0
         marks["noisy or unmodelled"] = marks["noisy"] | marks["unmodelled"]
         marks["noisy or disagrees"] = marks["noisy"] | marks["disagrees"]
+        marks["disagrees or imprecise"] = marks["disagrees"] | marks["imprecise"]
         marks["any flag above"] = np.logical_or.reduce([marks[n] for n in RATE_FLAGS])
         for name, m in marks.items():
             self.on_good[name] = self.on_good.get(name, 0) + int((m & good).sum())
@@ -147,13 +166,14 @@ def measure(chosen: list[Scenario], n_draws: int, methods: list[str]) -> dict[st
         tol = np.tile(np.fmax(0.05, 2.0 * np.nan_to_num(ref_rmse, nan=np.inf)), n_draws)
         y = blank_corrected(sc, d.sample, d.blank).reshape(n_draws * n_c, t.size)
         saturated = (~np.isfinite(d.sample)).any(axis=2).reshape(-1)
+        ref = model_free(t, y, s0=np.tile(sc.s0, n_draws), signal_per_conc=abs(sc.spc))
         for m in methods:
             v0, flags, se = runners[m](sc, t, y)
             flags = flags | np.where(saturated, int(Flag.SATURATED), 0)
             err = v0 / np.tile(truth.v0, n_draws) - 1.0
-            gap = model_free_gap(t, y, v0, se, s0=np.tile(sc.s0, n_draws), signal_per_conc=abs(sc.spc))
+            gap = model_free_gap(t, y, v0, se, s0=np.tile(sc.s0, n_draws), signal_per_conc=abs(sc.spc), ref=ref)
             with np.errstate(invalid="ignore", divide="ignore"):
-                out[m].add(err, tol, flags, np.abs(v0 / se), gap)
+                out[m].add(err, tol, flags, np.abs(v0 / se), gap, *imprecision(v0, se, ref))
         print(f"({sc.name} done)", flush=True)
     return out
 
@@ -169,8 +189,8 @@ def table(tallies: dict[str, Tally]) -> str:
     for m, tl in tallies.items():
         lines.append(f"| **{m}** | (wells: {tl.good} in tolerance, {tl.bad} bad, {tl.no_rate} without a rate) "
                      "| | | |")
-        for name in (*RATE_FLAGS, "noisy or unmodelled", "noisy or disagrees", "default exclusions",
-                     "any flag above"):
+        for name in (*RATE_FLAGS, "noisy or unmodelled", "noisy or disagrees", "disagrees or imprecise",
+                     "default exclusions", "any flag above"):
             errs = np.concatenate(tl.errors.get(name, [np.empty(0)]))
             if errs.size == 0 and name in RATE_FLAGS:
                 continue
@@ -209,6 +229,25 @@ def disagree_sweep(tallies: dict[str, Tally]) -> str:
     threshold of :data:`DISAGREE_SWEEP` (wells flagged LAG are not compared; ``model-choice`` is measured
     here although the stage skips the check after it)."""
     return _sweep(tallies, DISAGREE_SWEEP, "gap", "gap", below=False)
+
+
+def imprecise_sweep(tallies: dict[str, Tally]) -> str:
+    """Markdown: for each method and SE share of :data:`SE_SHARES`, the share of in-tolerance and of bad rates
+    whose SE exceeds that share of the model-free tolerance and whose distance from the model-free estimate
+    exceeds each threshold of :data:`IMPRECISE_SWEEP` (wells flagged LAG are not compared)."""
+    head = " | ".join(f"distance > {x:g}" for x in IMPRECISE_SWEEP)
+    lines = [f"| method | SE share above | {head} |", "| --- | --- |" + " --- |" * len(IMPRECISE_SWEEP)]
+    for m, tl in tallies.items():
+        groups = [(np.concatenate(getattr(tl, f"share_{g}")), np.concatenate(getattr(tl, f"far_{g}")))
+                  for g in ("good", "bad")]
+        for c in SE_SHARES:
+            cells = []
+            for x in IMPRECISE_SWEEP:
+                with np.errstate(invalid="ignore"):
+                    hits = [int(((share > c) & (far > x)).sum()) for share, far in groups]
+                cells.append(f"{_share(hits[0], groups[0][0].size)} / {_share(hits[1], groups[1][0].size)}")
+            lines.append(f"| {m} | {c:g} | " + " | ".join(cells) + " |")
+    return "\n".join(lines) + "\n"
 
 
 def lag_power(n_wells: int = 2000, seed: int = 3) -> str:
@@ -262,7 +301,10 @@ def main(argv: list[str] | None = None) -> int:
             + table(tallies) + "\nNOISY threshold sweep: share of in-tolerance / of bad rates whose |v0|/SE is "
             "below each threshold:\n\n" + noisy_sweep(tallies)
             + "\nDISAGREES threshold sweep: share of in-tolerance / of bad rates whose model-free gap exceeds each "
-            "threshold:\n\n" + disagree_sweep(tallies))
+            "threshold:\n\n" + disagree_sweep(tallies)
+            + "\nIMPRECISE threshold sweep: share of in-tolerance / of bad rates whose SE exceeds the given share of "
+            "the model-free tolerance and whose distance from the model-free estimate exceeds each threshold (in "
+            "model-free tolerances):\n\n" + imprecise_sweep(tallies))
     print(text)
     if args.write:
         write_section(args.write, text, "flags")

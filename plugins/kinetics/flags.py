@@ -31,6 +31,7 @@ class Flag(enum.IntFlag):
     SPIKE = 1 << 12  # a single-read outlier found by a robust test; that read is masked, the rest is used
     UNMODELLED = 1 << 13  # a lag (or decay) the rate method does not model: left out of fits by default
     DISAGREES = 1 << 14  # v0 differs from the model-free early quadratic's beyond its standard errors
+    IMPRECISE = 1 << 15  # less precise than the model-free early quadratic and off it by more than its tolerance
 
 
 FLAG_NAMES: dict[str, Flag] = {f.name.lower(): f for f in Flag if f.name and f is not Flag.NONE}
@@ -42,9 +43,11 @@ NAMES: tuple[str, ...] = tuple(FLAG_NAMES)
 #: with exit code 1). NO_SIGNAL is not among them: a well without change is a measurement, not a failure.
 FAILURE = Flag.FIT_FAILED | Flag.ALL_MISSING | Flag.TOO_FEW_POINTS
 
-#: Flags that keep a well out of the fit unless the recipe's ``fit.exclude_flags`` says otherwise.
+#: Flags that keep a well out of the fit unless the recipe's ``fit.exclude_flags`` says otherwise: the wells
+#: without a rate, and the flags whose rates are off by more than 5 % nearly always on the benchmark
+#: (UNMODELLED, IMPRECISE; docs/rates.md, "Flags: measured").
 NOT_FITTED = (Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.TOO_FEW_POINTS | Flag.FIT_FAILED | Flag.EXCLUDED
-              | Flag.UNMODELLED)
+              | Flag.UNMODELLED | Flag.IMPRECISE)
 
 #: Each flag in words (as the report prints it) and as a short label (beside a well in a figure).
 DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
@@ -66,6 +69,9 @@ DESCRIPTIONS: dict[Flag, tuple[str, str]] = {
                       "so the well is left out of fits by default", "unmod"),
     Flag.DISAGREES: ("the rate differs from the model-free estimate (a quadratic over the early reads) by more "
                      "than the noise allows: the method's model may not fit this curve", "disagr"),
+    Flag.IMPRECISE: ("the rate is less precise than the model-free estimate from the same reads and lies "
+                     "further from it than that estimate's tolerance: a doubtful rate, left out of fits by default",
+                     "impr"),
 }
 
 

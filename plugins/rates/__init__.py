@@ -88,6 +88,14 @@ def own_calibration(plate: PlateView, signal: Any, settings: dict[str, Any]) -> 
     return {**settings, "signal_per_conc": per, "direction": direction}
 
 
+def sample_wells(plate: PlateView) -> Any:
+    """Bool per signal row: the plate's sample wells (its well table's ``role``; every well when the table has
+    no role column). Flags that judge a rate (IMPRECISE) are set on these only."""
+    if "role" not in plate.wells.columns:
+        return None
+    return (plate.wells["role"].astype(str) == "sample").to_numpy()
+
+
 class KernelRates(RateMethod):
     """Shared kernel for methods that call a function ``f(time, signal, s0=, signal_per_conc=, **kw)`` named by
     ``function`` (``"module:name"``, imported on first use)."""
@@ -108,7 +116,7 @@ class KernelRates(RateMethod):
 
         return shared_checks(time, signal, result, s0=s0, signal_per_conc=per, finds_lags=self.finds_lags(),
                              models_decay=self.models_decay(), min_points=int(self.settings.get("min_points", 8)),
-                             compares_model_free=self.compares_model_free())
+                             compares_model_free=self.compares_model_free(), samples=sample_wells(plate))
 
     def finds_lags(self) -> bool:
         """Whether the kernel looks for lags itself and models the wells that have one (then it sets LAG; else
@@ -301,7 +309,7 @@ class WindowRates(RateMethod):
             plate.warn("window: no signal_per_conc (or epsilon and pathlength) given: a loss of activity "
                        "(decay) and agreement with the model-free estimate (disagrees) are not checked")
         return shared_checks(time, signal, window_slopes(time, signal, start, end), s0=s0, signal_per_conc=per,
-                             finds_lags=False, models_decay=False)
+                             finds_lags=False, models_decay=False, samples=sample_wells(plate))
 
 
 @hookimpl

@@ -25,6 +25,7 @@ FLAG_CODES: dict[str, str] = {
     "spike": "SP",
     "unmodelled": "UM",
     "disagrees": "DS",
+    "imprecise": "IP",
 }
 """Flag name (as in the rates table) -> its code. A flag without an entry gets its first two letters."""
 
