@@ -59,7 +59,7 @@ class FitStage(Stage):
 
     kind = "fit"
     method = "nls"
-    version = "1.1"  # 1.1: default weighting rate-error (was none)
+    version = "1.2"  # 1.1: default weighting rate-error (was none); 1.2: imprecise among the default exclusions
     scope = "pooled"
     summary = ("Nonlinear least squares of rate laws (Michaelis-Menten, Hill, inhibition, ...) on untransformed "
                "initial rates, per group; standard errors, t and profile-likelihood intervals, AICc and F-test "
