@@ -96,7 +96,7 @@ def test_flag_fires_just_outside_the_threshold_and_not_just_inside() -> None:
 def test_a_straight_line_through_a_curving_well_is_flagged_and_a_straight_well_is_not() -> None:
     # truth: solve_ivp's integration of Michaelis–Menten kinetics (simulate_plate); a line over all 600 s of a
     # well converting ~50 % of its substrate runs far below v0, over a well converting ~1 % it does not
-    s0 = np.repeat([0.2, 20.0], 8)
+    s0 = np.repeat([0.2, 20.0], [8, 60])
     p = simulate_plate(T, s0, KM, 1.2e-3, signal_per_conc=SPC, baseline=0.05, noise=0.002, seed=8)
     frame = _stage(rates.WindowRates, p.signal, s0, {"signal_per_conc": f"{SPC} 1/mM", "start": "0 s",
                                                       "end": "600 s"})
@@ -104,7 +104,9 @@ def test_a_straight_line_through_a_curving_well_is_flagged_and_a_straight_well_i
     curved = s0 < 1.0
     assert (err[curved] < -0.15).all() and (np.abs(err[~curved]) < 0.02).all()
     assert _has(frame, "disagrees")[curved].all()
-    assert not _has(frame, "disagrees")[~curved].any()
+    # at the threshold of 3 a straight well's gap passes it by chance now and then (the benchmark: 3.3 % of
+    # `window`'s rates within tolerance); point 8 of the flags' rule allows fewer than 10 %
+    assert _has(frame, "disagrees")[~curved].mean() < 0.10
     # the same rates without signal_per_conc: not assessed, no flag
     frame = _stage(rates.WindowRates, p.signal, s0, {"start": "0 s", "end": "600 s"})
     assert not _has(frame, "disagrees").any()
