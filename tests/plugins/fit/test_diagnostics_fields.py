@@ -62,8 +62,12 @@ def test_no_hill_plot_without_a_positive_vmax_and_no_line_through_one_x() -> Non
         (ref.slope, ref.intercept))
 
 
-def test_band_is_the_delta_method_with_students_t() -> None:
+@pytest.mark.parametrize("scale", [1.0, 1e-3])
+def test_band_is_the_delta_method_with_students_t(scale: float) -> None:
+    # scale 1e-3: rates in thousandths, so the band's variance is far below 1 (the clip at zero must not
+    # become a floor)
     s, v = _puromycin()
+    v = v * scale
     res = _fit(MM, s, v)
     x = {"substrate": np.array([0.02, 0.2, 1.0])}
     y, lo, hi = dg.band(MM, res, x, 0.90)

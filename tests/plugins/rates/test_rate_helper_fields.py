@@ -550,3 +550,21 @@ def test_the_decay_prescreen_margin_keeps_every_well_the_fit_would_flag(monkeypa
     np.testing.assert_array_equal(with_screen, without)
     assert (np.asarray(without) != 0).sum() >= 5
     assert (np.asarray(tight) != np.asarray(without)).any()
+
+
+@pytest.mark.parametrize(("n_t", "screened"), [(11, False), (12, True), (15, True), (16, True)])
+def test_decay_prescreen_needs_three_blocks_of_reads(n_t: int, screened: bool) -> None:
+    # module text of checks._falling: blocks of max(4, n_t // 8) reads; with fewer than three blocks' worth
+    # of reads every well goes to the decay fit, from three blocks on the pre-screen judges. Two wells whose
+    # signal approaches 25 as 25 (1 - exp(-t/20)): at S0 = 5 uM (5 signal/uM, full conversion 25) depletion
+    # explains the fall and the bound first*(1 - x_end)^3 is within noise, so a screened plate spares it
+    # the fit; at S0 = 100 uM (conversion under 25 %) the fall is not depletion, and it goes to the fit
+    t = np.arange(n_t) * 5.0
+    y = 25.0 * (1.0 - np.exp(-t / 20.0)) + np.tile([1e-3, -1e-3], n_t)[:n_t]
+    out = checks._falling(t, np.vstack([y, y]), np.array([5.0, 100.0]), 5.0, 3.0, 8)
+    assert out.tolist() == ([False, True] if screened else [True, True])
+
+
+def test_decay_after_lag_of_no_wells_is_an_empty_mask() -> None:
+    out = lagfit.decay_after_lag(np.arange(20) * 5.0, np.zeros((0, 20)), np.zeros(0), 5.0)
+    assert out.shape == (0,) and out.dtype == bool
