@@ -5,6 +5,8 @@ straight rise: the lag is the break, by hand)."""
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 from scipy import stats
@@ -75,3 +77,21 @@ def test_lag_time_and_steady_start_of_a_broken_line() -> None:
     # a straight line from the first read has no lag
     _, lag0, has0 = detect_lag(t, 0.1 + v * t[None, :], screen(0.1 + v * t[None, :], min_points=8, time=t))
     assert not has0.any() and lag0[0] == 0.0
+
+
+@pytest.mark.parametrize(("rise", "lags"), [(0.9, [True, False]), (1.1, [True, True])])
+def test_lag_rise_is_judged_with_the_first_blocks_own_standard_error(rise: float, lags: list[bool]) -> None:
+    # module text of detect_lag: a lag where the steepest block's slope exceeds the first block's by z = 6
+    # standard errors of the difference, hypot(SE first, SE steepest), SE = sigma / sqrt(Sxx) per block. A
+    # well flat over its first block (4 reads, 5 s apart) and then rising at `rise` read noises per second;
+    # in the second well the first read is missing, so the first block's Sxx falls from 125 to 50 s^2 and the
+    # threshold rises from 6 sqrt(2/125) = 0.76 to 6 sqrt(1/50 + 1/125) = 1.004 read noises per s (by
+    # hand): 0.9 is a lag only where the whole first block was read, 1.1 in both
+    t = np.arange(32) * 5.0
+    sigma = 0.01
+    y = np.where(t < 20.0, 0.0, rise * sigma * (t - 17.5))
+    y = np.vstack([y, y])
+    y[1, 0] = np.nan
+    sc = screen(y, min_points=8, time=t)
+    sc = dataclasses.replace(sc, sigma=np.full(2, sigma))
+    assert detect_lag(t, y, sc, early=False)[2].tolist() == lags
