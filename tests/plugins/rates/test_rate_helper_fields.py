@@ -568,3 +568,22 @@ def test_decay_prescreen_needs_three_blocks_of_reads(n_t: int, screened: bool) -
 def test_decay_after_lag_of_no_wells_is_an_empty_mask() -> None:
     out = lagfit.decay_after_lag(np.arange(20) * 5.0, np.zeros((0, 20)), np.zeros(0), 5.0)
     assert out.shape == (0,) and out.dtype == bool
+
+
+@pytest.mark.parametrize(("z", "kept"), [(2.9, False), (3.1, True)])
+def test_plate_decay_counts_from_three_standard_errors(z: float, kept: bool) -> None:
+    # module text of lagfit.plate_decay: 0 where the pooled value is less than K_PLATE_Z (3) standard errors
+    # above zero; one well pools to its own value and SE
+    k, se = lagfit.plate_decay(np.array([z * 1e-3]), np.array([1e-3]))
+    assert lagfit.K_PLATE_Z == 3.0
+    assert se == pytest.approx(1e-3) and k == (pytest.approx(z * 1e-3) if kept else 0.0)
+
+
+
+def test_model_free_allows_no_bias_where_the_substrate_is_unknown() -> None:
+    # checks.model_free: the bias share is predicted from S0; a well without S0 gets no allowance (0, not
+    # NaN and not a share of its own), so the gap there is the plain difference in standard errors
+    t = np.arange(60) * 10.0
+    p = simulate_plate(t, np.array([0.5, 0.5]), 0.5, 4e-4, signal_per_conc=2.5, noise=0.0005, seed=3)
+    ref = checks.model_free(t, p.signal, s0=np.array([0.5, np.nan]), signal_per_conc=2.5)
+    assert ref.bias[1] == 0.0 and 0.0 < ref.bias[0] < 0.01 and ref.usable.all()

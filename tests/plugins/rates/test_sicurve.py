@@ -176,3 +176,33 @@ def test_inhibition_step_keeps_the_curve_only_where_every_clause_holds(monkeypat
     np.testing.assert_allclose(start[:, 1], np.log(pw_v0[tried] / spc))
     np.testing.assert_allclose(start[:, 2] - start[:, 3], np.clip(order[tried], -0.9, 0.9), atol=1e-12)
     np.testing.assert_allclose(np.fmin(start[:, 2], start[:, 3]), 0.05)
+
+
+@pytest.mark.parametrize(("share_sum", "physical"), [(0.998, True), (0.999, False), (1.5, False)])
+def test_a_fit_is_physical_only_below_the_share_sum_limit(monkeypatch: pytest.MonkeyPatch, share_sum: float,
+                                                           physical: bool) -> None:
+    # module text of fit_si_curve: Km = S0 p D and Ki = S0/(q D), D = 1/(1 - p - q), are positive and finite
+    # only for p + q < 1; MAX_SHARE_SUM (0.999) is the limit, on both sides. The fit is replaced by fixed
+    # figures (a converged fit at p = 0.6, q = share_sum - 0.6); Km and Ki by hand
+    import types
+
+    from vzero.plugins.rates import sicurve
+
+    p, q = 0.6, share_sum - 0.6
+    params = np.array([[0.05, np.log(2e-4), p, q]])
+
+    def stand_in(*a: object, **k: object) -> types.SimpleNamespace:
+        return types.SimpleNamespace(params=params, rss=np.array([1e-4]), tss=np.array([1.0]),
+                                     cov_unit=np.eye(4)[None], converged=np.array([True]))
+
+    monkeypatch.setattr(sicurve, "fit_coarse_to_fine", stand_in)
+    t = np.arange(20) * 10.0
+    fit = fit_si_curve(t, np.zeros((1, 20)), np.ones((1, 20), bool), np.array([0.5]), SPC, np.array([0.002]),
+                       params.copy())
+    assert sicurve.MAX_SHARE_SUM == 0.999 and bool(fit["converged"][0]) is physical
+    if physical:
+        d = 1.0 / (1.0 - share_sum)
+        assert fit["km"][0] == pytest.approx(0.5 * p * d) and fit["ki"][0] == pytest.approx(0.5 / (q * d))
+    else:
+        assert np.isnan(fit["km"][0]) and np.isnan(fit["ki"][0])
+    assert fit["order"][0] == pytest.approx(p - q)
