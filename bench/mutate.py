@@ -96,7 +96,8 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
                                       "_check_increasing", "_detect_decimal"), READERS),
     "pipeline/recipe.py": (("_check", "_check_steps", "check"), ["tests/pipeline/test_recipe_rules.py",
                                                                   "tests/pipeline/test_recipe_steps.py",
-                                                                  "tests/pipeline/test_recipe.py"]),
+                                                                  "tests/pipeline/test_recipe.py",
+                                                                  "tests/pipeline/test_rerun_defaults.py"]),
     "pipeline/audit/verify.py": ((), ["tests/pipeline/test_recipe_rules.py", "tests/pipeline/test_verify.py",
                                       *DIGESTS]),
 }

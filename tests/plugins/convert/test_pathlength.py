@@ -76,3 +76,10 @@ def test_capacity_is_the_frustum_volume_for_round_and_square_wells() -> None:
         assert g.capacity_ul == pytest.approx(g.depth_mm / 3 * (a1 + a2 + np.sqrt(a1 * a2)), rel=1e-12)
     prism = WellGeometry("prism", "square", 5.0, 5.0, 10.0, "test shape")  # 25 mm² floor: 100 µL stand 4 mm
     assert_allclose(pathlength_from_volume(100.0, prism), 0.4, rtol=1e-12)
+
+
+def test_water_peak_equal_to_its_reference_gives_no_pathlength() -> None:
+    # module text: wells whose difference is not positive get NaN; a difference of zero is not positive
+    from vzero.plugins.convert.pathlength import pathlength_from_water_peak
+    out = pathlength_from_water_peak(np.array([0.25, 0.25, 0.26]), np.array([0.25, 0.26, 0.25]), 0.2)
+    assert np.isnan(out[0]) and np.isnan(out[1]) and out[2] == pytest.approx(0.01 / 0.2)

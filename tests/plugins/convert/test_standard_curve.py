@@ -117,3 +117,29 @@ def test_a_standard_level_is_the_mean_of_its_usable_reads() -> None:
     assert list(names) == ["A1", "A2", "A3"] and empty == ["A3"]
     assert_allclose(conc, [1.0, 2.0, 4.0])
     assert_allclose(level, [3.0, 5.0, np.nan])
+
+
+def test_a_slope_of_exactly_one_is_a_valid_standard_line() -> None:
+    # signal already in concentration units: residuals 0.25 (1, -1, -1, 1) are orthogonal to 1 and to x, so
+    # the least-squares slope is 1 and the intercept 0 (normal equations by hand); such a line
+    # must be accepted, not taken for a zero slope
+    c = np.array([0.0, 1.0, 2.0, 3.0])
+    curve = fit_standard_curve(c, c + 0.25 * np.array([1.0, -1.0, -1.0, 1.0]), check_linearity=False)
+    ref = stats.linregress(c, c + 0.25 * np.array([1.0, -1.0, -1.0, 1.0]))
+    assert curve.slope == pytest.approx(1.0, abs=1e-12) and curve.slope == pytest.approx(ref.slope, abs=1e-12)
+    assert curve.intercept == pytest.approx(0.0, abs=1e-12)
+
+
+def test_a_zero_slope_is_refused() -> None:
+    with pytest.raises(FitError, match="not distinguishable from zero"):
+        fit_standard_curve(np.array([0.0, 1.0, 2.0]), np.array([3.0, 3.0, 3.0]))
+
+
+def test_two_points_left_after_the_linearity_test_have_no_residual_sd() -> None:
+    # min_levels 2: the top level (two replicates, clearly curved) is dropped, leaving one point at each of
+    # 0 and 1 uM: a line through two points has no residual degrees of freedom, so no residual SD (NaN),
+    # and no slope SE
+    curve = fit_standard_curve(np.array([0.0, 1.0, 2.0, 2.0]), np.array([0.0, 1.0, 4.0, 4.01]), min_levels=2)
+    assert curve.dropped_levels == (2.0,) and curve.dof == 0 and curve.n_points == 2
+    assert np.isnan(curve.residual_sd) and np.isnan(curve.slope_se)
+    assert curve.slope == pytest.approx(1.0) and curve.r2 == pytest.approx(1.0)

@@ -62,8 +62,12 @@ def test_no_hill_plot_without_a_positive_vmax_and_no_line_through_one_x() -> Non
         (ref.slope, ref.intercept))
 
 
-def test_band_is_the_delta_method_with_students_t() -> None:
+@pytest.mark.parametrize("scale", [1.0, 1e-3])
+def test_band_is_the_delta_method_with_students_t(scale: float) -> None:
+    # scale 1e-3: rates in thousandths, so the band's variance is far below 1 (the clip at zero must not
+    # become a floor)
     s, v = _puromycin()
+    v = v * scale
     res = _fit(MM, s, v)
     x = {"substrate": np.array([0.02, 0.2, 1.0])}
     y, lo, hi = dg.band(MM, res, x, 0.90)
@@ -91,3 +95,19 @@ def test_grid_is_log_spaced_only_beyond_a_thirty_fold_span(values: list[float], 
     want = np.geomspace(lo / 2, hi * 1.5, 5) if log else np.linspace(0.0, hi * 1.1, 5)
     np.testing.assert_allclose(g, want)
     np.testing.assert_allclose(dg.grid(np.array([0.0, -2.0])), np.linspace(0.0, 1.0, 101))
+
+
+def test_a_point_at_zero_substrate_is_left_out_of_the_reciprocal_plots() -> None:
+    # 1/S and S/v need S > 0: a well at S = 0 (v > 0 from a background rate) is marked unstable in the
+    # Lineweaver-Burk and Hanes-Woolf plots and left out of their lines; the Hanes-Woolf line is then the
+    # least-squares line of the other points (scipy.stats.linregress)
+    s = np.array([0.0, 0.5, 1.0, 2.0, 4.0, 8.0])
+    v = np.array([0.3, 3.4, 5.1, 6.6, 8.1, 8.9])
+    out = dg.transforms("g", s, v, np.nan, [("P1", f"A{i + 1}") for i in range(6)], "uM", "uM/s")
+    for plot in ("lineweaver-burk", "hanes-woolf"):
+        pts = (out["plot"] == plot) & (out["quantity"] == "point")
+        assert out["unstable"][pts].tolist() == [True] + [False] * 5
+    ref = stats.linregress(s[1:], s[1:] / v[1:])
+    hw = out["plot"] == "hanes-woolf"
+    assert out["y"][hw & (out["quantity"] == "slope")][0] == pytest.approx(ref.slope, rel=1e-10)
+    assert out["y"][hw & (out["quantity"] == "intercept")][0] == pytest.approx(ref.intercept, rel=1e-10)

@@ -20,6 +20,7 @@ Data: the puromycin data of Treloar (1974) as printed in Bates & Watts (1988), A
 
 from __future__ import annotations
 
+import math
 import statistics
 from pathlib import Path
 
@@ -379,6 +380,25 @@ def test_ki_conversion_needs_one_substrate_concentration() -> None:
     assert same["estimate"] == pytest.approx(2.0 / (1 + 6 / 2), rel=1e-6)
     mixed = fit_run._ki_rows(model, res, np.r_[np.full(6, 6.0), np.full(6, 6.5)], cfg, "nM", "uM", 0.95)[0]
     assert np.isnan(mixed["estimate"]) and "one positive substrate concentration" in mixed["note"]
+
+
+@pytest.mark.parametrize("mech", ["competitive", "uncompetitive"])
+def test_ki_standard_error_carries_the_km_uncertainty(mech: str) -> None:
+    # Cheng & Prusoff (1973): Ki = IC50/f with f = 1 + S/Km (competitive) or 1 + Km/S (uncompetitive); its
+    # SE by first-order error propagation, by hand: sqrt((se_IC50/f)^2 + (Ki/f * df/dKm * se_Km)^2), with
+    # df/dKm = -S/Km^2 or 1/S
+    model = BY_NAME["logistic-4p"]
+    i = np.geomspace(0.05, 50, 12)
+    v = model.evaluate([10.0, 0.5, 2.0, 1.0], {"inhibitor": i}) + np.random.default_rng(3).normal(0, 0.05, 12)
+    res = engine.fit(model.evaluate, model.jacobian, {"inhibitor": i}, v, [9, 1, 1, 1], model.params,
+                     bounds=dict(model.bounds))
+    cfg = {"mechanism": mech, "x": "substrate", "km": quantity("2 uM"), "km_stderr": quantity("0.5 uM")}
+    row = fit_run._ki_rows(model, res, np.full(12, 6.0), cfg, "nM", "uM", 0.95)[0]
+    k, k_se = res.params[model.ki_from].value, res.params[model.ki_from].stderr
+    assert k_se > 0
+    f, dfdkm = (1 + 6.0 / 2.0, -6.0 / 4.0) if mech == "competitive" else (1 + 2.0 / 6.0, 1 / 6.0)
+    assert row["estimate"] == pytest.approx(k / f, rel=1e-9)
+    assert row["stderr"] == pytest.approx(math.sqrt((k_se / f) ** 2 + (k / f / f * dfdkm * 0.5) ** 2), rel=1e-9)
 
 
 def test_f_test_needs_a_nested_pair_with_residual_degrees_of_freedom() -> None:

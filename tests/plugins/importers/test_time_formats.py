@@ -7,6 +7,7 @@ from __future__ import annotations
 import datetime as dt
 import io
 
+import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 from vzero.plugins.importers.readers import ReadOptions, read_table
@@ -76,3 +77,13 @@ def test_a_time_with_nothing_before_its_colon_is_refused_as_a_time(text: str) ->
 
     with pytest.raises(InputFileError, match=r"time ':\d\d' is not a number or h:mm:ss / mm:ss"):
         _times(text)
+
+
+@pytest.mark.parametrize(("cells", "row"), [(["0", "", "10"], 3), (["0", "", "", "15"], 3)])
+def test_a_blank_time_cell_is_named_by_its_row(cells: list[str], row: int) -> None:
+    # a blank cell of the time column is an error naming the file, the first blank's row and the column
+    from vzero.errors import InputFileError
+    from vzero.plugins.importers import readers
+    with pytest.raises(InputFileError) as err:
+        readers._times(np.array(cells), "Time", ".", readers.ReadOptions(), "plate.csv", list(range(2, 2 + len(cells))))
+    assert err.value.row == row and "plate.csv" in str(err.value) and "'Time'" in str(err.value)

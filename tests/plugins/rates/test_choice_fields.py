@@ -10,7 +10,9 @@ with nothing to fit gets no rate. Plates simulated by ODE integration (scipy.int
 
 from __future__ import annotations
 
+import dataclasses
 import math
+from typing import Any
 
 import numpy as np
 import pytest
@@ -99,3 +101,48 @@ def test_wells_without_a_usable_signal_get_no_rate() -> None:
     assert r.flags[0] & Flag.ALL_MISSING and r.flags[1] & Flag.NO_SIGNAL and r.flags[2] & Flag.TOO_FEW_POINTS
     assert np.isnan(r.v0[:3]).all() and np.isnan(r.stderr[:3]).all() and np.isnan(r.extra["rate_t"][:3]).all()
     assert np.isfinite(r.v0[3]) and not r.flags[3] & (Flag.ALL_MISSING | Flag.NO_SIGNAL | Flag.FIT_FAILED)
+
+
+def test_power_law_is_tried_where_the_curve_and_quadratic_disagree_beyond_room_and_bias(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    # model-choice's step after the Michaelis-Menten curve (module comment there): the power law is tried
+    # where |v0_curve - v0_quadratic| > agree_z * room + bias, room = sqrt(max(SE_q^2 - SE^2, (DIFF_FLOOR
+    # SE_q)^2)), bias = |u (3u - 2)| x^2 / 10 of v0 with u = Km/(Km + S0) and x = v0 (window end - t0) /
+    # (spc S0). Eight wells at S0 = Km (u about 1/2); the curve's v0 is moved to 0.8 and 1.25 times that
+    # threshold from the quadratic's (the formula evaluated here, by hand): only the second kind goes on to
+    # the power law
+    from vzero.plugins.rates import choice
+
+    s0 = np.full(8, 0.5)
+    y = simulate_plate(T, s0, KM, 4e-4, signal_per_conc=SPC, noise=0.0005, seed=3).signal
+    real_fit, real_quadratic = choice.progress_curve, choice.early_quadratic
+    seen: dict[str, Any] = {"power": []}
+
+    def quadratic(*a: Any, **k: Any) -> Any:
+        seen["q"] = real_quadratic(*a, **k)
+        return seen["q"]
+
+    def fit(t: np.ndarray, yy: np.ndarray, **k: Any) -> Any:
+        res = real_fit(t, yy, **k)
+        if k.get("model") == "power":
+            seen["power"] += [int(np.flatnonzero((y == row).all(axis=1))[0]) for row in yy]
+            return res
+        if "moved" in seen:
+            return res
+        q, rows = seen["q"], np.array([int(np.flatnonzero((y == row).all(axis=1))[0]) for row in yy])
+        u = res.extra["km"] / (res.extra["km"] + s0[rows])
+        assert ((u > choice.U_EDGE) & (u < 1 - choice.U_EDGE)).all() and (res.extra["rmse_over_noise"] < 1.4).all()
+        room = np.sqrt(np.fmax(q.se[rows] ** 2 - res.stderr**2, (choice.DIFF_FLOOR * q.se[rows]) ** 2))
+        factor = np.where(rows % 2 == 1, 1.25, 0.8)
+        v = res.v0.copy()
+        for _ in range(50):  # the bias depends on the curve's own v0: a fixed point, reached in a few steps
+            x = np.abs(v) * (q.end_s[rows] - t[0]) / (SPC * s0[rows])
+            v = q.v0[rows] + factor * (choice.AGREE_Z * room + 0.1 * np.abs(u * (3 * u - 2)) * x**2 * np.abs(v))
+        seen["moved"] = rows
+        return dataclasses.replace(res, v0=v)
+
+    monkeypatch.setattr(choice, "early_quadratic", quadratic)
+    monkeypatch.setattr(choice, "progress_curve", fit)
+    choice.model_choice(T, y, s0=s0, signal_per_conc=SPC)
+    assert seen["moved"].tolist() == list(range(8))
+    assert sorted(seen["power"]) == [1, 3, 5, 7]

@@ -142,3 +142,41 @@ def test_default_replaces_a_michaelis_menten_curve_that_fits_a_cooperative_well_
     assert np.mean(mc.extra["model"] == 4) >= 0.8
     assert abs(np.mean(err_mc)) < 0.005
     assert np.sqrt(np.mean(err_mc**2)) < 0.5 * np.sqrt(np.mean(err_mm**2))
+
+
+def test_restart_is_only_made_when_asked() -> None:
+    # the noise-free curves above from a poor start (order 0.2 at K0.5 well above S0): the first well's fit
+    # ends unconverged; with restart=False it is returned so (the docstring's contract: callers that would
+    # not keep it anyway are spared the second fit), with restart=True the start at u = 1/2 recovers it
+    s0 = np.array([0.2, 0.3, 0.4, 0.6])
+    p = simulate_plate(T, s0, K, VMAX, hill=H, signal_per_conc=SPC, baseline=0.05, noise=0.0, seed=None)
+    start = np.stack([np.full(4, 0.05), np.log(p.v0_true / SPC * 0.9), np.full(4, 0.2),
+                      np.full(4, np.log(0.95 / 0.05))], axis=1)
+    args = (T, p.signal, np.ones_like(p.signal, bool), s0, SPC, np.full(4, 0.002), start)
+    once, again = fit_hill_curve(*args, restart=False), fit_hill_curve(*args, restart=True)
+    assert not once["converged"][0] and again["converged"][0]
+    assert again["v0"][0] == pytest.approx(p.v0_true[0], rel=2e-3)
+
+
+@pytest.mark.parametrize("n_reads", [5, 6, 20])
+def test_misfit_ratio_uses_reads_less_four_degrees_of_freedom_at_least_one(monkeypatch: pytest.MonkeyPatch,
+                                                                           n_reads: int) -> None:
+    # module text of fit_hill_curve: ratio = residual RMS over sigma with four parameters, the degrees of
+    # freedom max(n - 4, 1) (by hand); the fit is replaced by fixed figures (a converged, plausible fit:
+    # h = n0/u = 2 at u = 1/2)
+    import types
+
+    from vzero.plugins.rates import hillcurve
+
+    params = np.array([[0.05, np.log(1e-4), 1.0, 0.0]])
+
+    def stand_in(*a: object, **k: object) -> types.SimpleNamespace:
+        return types.SimpleNamespace(params=params, rss=np.array([4e-6]), tss=np.array([1.0]),
+                                     cov_unit=np.eye(4)[None], converged=np.array([True]))
+
+    monkeypatch.setattr(hillcurve, "fit_coarse_to_fine", stand_in)
+    t = np.arange(20) * 10.0
+    valid = (np.arange(20) < n_reads)[None, :]
+    fit = fit_hill_curve(t, np.zeros((1, 20)), valid, np.array([0.5]), SPC, np.array([0.001]), params.copy())
+    assert fit["converged"][0] and fit["h"][0] == pytest.approx(2.0)
+    assert fit["ratio"][0] == pytest.approx(np.sqrt(4e-6 / max(n_reads - 4, 1)) / 0.001)

@@ -5,10 +5,14 @@ straight rise: the lag is the break, by hand)."""
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 from scipy import stats
-from vzero.plugins.rates.lagdecay import _block_lines, _selwyn, detect_lag
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.kinetics.rate_result import RateResult
+from vzero.plugins.rates.lagdecay import _block_lines, _selwyn, detect_lag, mark_lags
 from vzero.plugins.rates.noise import screen
 
 T = np.arange(30) * 10.0 + 5.0
@@ -75,3 +79,49 @@ def test_lag_time_and_steady_start_of_a_broken_line() -> None:
     # a straight line from the first read has no lag
     _, lag0, has0 = detect_lag(t, 0.1 + v * t[None, :], screen(0.1 + v * t[None, :], min_points=8, time=t))
     assert not has0.any() and lag0[0] == 0.0
+
+
+@pytest.mark.parametrize(("rise", "lags"), [(0.9, [True, False]), (1.1, [True, True])])
+def test_lag_rise_is_judged_with_the_first_blocks_own_standard_error(rise: float, lags: list[bool]) -> None:
+    # module text of detect_lag: a lag where the steepest block's slope exceeds the first block's by z = 6
+    # standard errors of the difference, hypot(SE first, SE steepest), SE = sigma / sqrt(Sxx) per block. A
+    # well flat over its first block (4 reads, 5 s apart) and then rising at `rise` read noises per second;
+    # in the second well the first read is missing, so the first block's Sxx falls from 125 to 50 s^2 and the
+    # threshold rises from 6 sqrt(2/125) = 0.76 to 6 sqrt(1/50 + 1/125) = 1.004 read noises per s (by
+    # hand): 0.9 is a lag only where the whole first block was read, 1.1 in both
+    t = np.arange(32) * 5.0
+    sigma = 0.01
+    y = np.where(t < 20.0, 0.0, rise * sigma * (t - 17.5))
+    y = np.vstack([y, y])
+    y[1, 0] = np.nan
+    sc = screen(y, min_points=8, time=t)
+    sc = dataclasses.replace(sc, sigma=np.full(2, sigma))
+    assert detect_lag(t, y, sc, early=False)[2].tolist() == lags
+
+
+def test_lag_check_marks_a_lag_well_and_leaves_a_straight_one() -> None:
+    # lagdecay.mark_lags: LAG (and UNMODELLED where the method does not model it) on a well flat for 20 s
+    # and then rising at 0.01/s, nothing on a straight line; without any lag the result is returned as is
+    t = np.arange(40) * 5.0
+    wiggle = np.tile([1e-4, -1e-4], 20)
+    lagged = np.where(t < 20.0, 0.0, 0.01 * (t - 17.5)) + wiggle
+    out = mark_lags(t, np.vstack([lagged, 0.01 * t + wiggle]), RateResult(v0=np.ones(2)), modelled=False)
+    flags = np.asarray(out.flags)
+    assert flags[0] & Flag.LAG and flags[0] & Flag.UNMODELLED and flags[1] == 0
+    plain = RateResult(v0=np.ones(1))
+    assert mark_lags(t, (0.01 * t + wiggle)[None, :], plain, modelled=False) is plain
+
+
+def test_lag_decay_goodness_is_one_less_the_residual_share_of_the_total() -> None:
+    # R² = 1 - RSS/TSS of the lag-decay fit. Wells of an inactivating enzyme (scipy solve_ivp through
+    # simulate_plate, read noise 0.002): a fit that describes them leaves RSS of about n sigma², so
+    # 1 - R² must be within a factor 2 of n sigma² / TSS, TSS about each well's mean by hand
+    from vzero.plugins.kinetics.simulate import simulate_plate
+    from vzero.plugins.rates.lagdecay import lag_decay
+    t = np.arange(120) * 5.0
+    s0 = np.array([1.0, 2.0])
+    p = simulate_plate(t, s0, 0.5, 8e-4, k_inact=3e-3, signal_per_conc=5.0, baseline=0.05, noise=0.002, seed=4)
+    r = lag_decay(t, p.signal, s0=s0, signal_per_conc=5.0)
+    tss = ((p.signal - p.signal.mean(axis=1, keepdims=True)) ** 2).sum(axis=1)
+    share = (1.0 - np.asarray(r.goodness)) / (t.size * 0.002**2 / tss)
+    assert ((share > 0.5) & (share < 2.0)).all()

@@ -254,3 +254,19 @@ def test_polynomial_goodness_is_r_squared_of_the_window_fit() -> None:
         tss = float(((y[i, sel] - y[i, sel].mean()) ** 2).sum())
         assert r.goodness[i] == pytest.approx(1 - rss / tss, rel=1e-9)
     assert r.goodness[3] < 0.9
+
+
+@pytest.mark.parametrize(("t0", "start_s"), [(0.0, 40.0), (100.0, None), (100.0, 130.0)])
+def test_polynomial_slope_is_taken_at_the_window_start(t0: float, start_s: float | None) -> None:
+    # a quadratic in time from the window start s: y = 0.2 + 0.03 (t - s) - 4e-5 (t - s)^2 has slope 0.03
+    # at s; numpy.polyfit on the window's reads gives the same slope (independent least squares). The
+    # window starts at the first read when start_s is None, and reads need not start at t = 0
+    from vzero.plugins.rates.polynomial import polynomial
+    t = t0 + np.arange(60) * 5.0
+    s = t[0] if start_s is None else start_s
+    y = 0.2 + 0.03 * (t - s) - 4e-5 * (t - s) ** 2 + np.tile([1e-4, -1e-4, 0.0], 20)
+    res = polynomial(t, y[None, :], degree=2, start_s=start_s)
+    w = t >= s
+    ref = np.polyfit(t[w] - s, y[w], 2)[1]
+    assert res.v0[0] == pytest.approx(ref, rel=1e-6)
+    assert res.v0[0] == pytest.approx(0.03, rel=1e-2)

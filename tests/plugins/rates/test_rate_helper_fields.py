@@ -550,3 +550,40 @@ def test_the_decay_prescreen_margin_keeps_every_well_the_fit_would_flag(monkeypa
     np.testing.assert_array_equal(with_screen, without)
     assert (np.asarray(without) != 0).sum() >= 5
     assert (np.asarray(tight) != np.asarray(without)).any()
+
+
+@pytest.mark.parametrize(("n_t", "screened"), [(11, False), (12, True), (15, True), (16, True)])
+def test_decay_prescreen_needs_three_blocks_of_reads(n_t: int, screened: bool) -> None:
+    # module text of checks._falling: blocks of max(4, n_t // 8) reads; with fewer than three blocks' worth
+    # of reads every well goes to the decay fit, from three blocks on the pre-screen judges. Two wells whose
+    # signal approaches 25 as 25 (1 - exp(-t/20)): at S0 = 5 uM (5 signal/uM, full conversion 25) depletion
+    # explains the fall and the bound first*(1 - x_end)^3 is within noise, so a screened plate spares it
+    # the fit; at S0 = 100 uM (conversion under 25 %) the fall is not depletion, and it goes to the fit
+    t = np.arange(n_t) * 5.0
+    y = 25.0 * (1.0 - np.exp(-t / 20.0)) + np.tile([1e-3, -1e-3], n_t)[:n_t]
+    out = checks._falling(t, np.vstack([y, y]), np.array([5.0, 100.0]), 5.0, 3.0, 8)
+    assert out.tolist() == ([False, True] if screened else [True, True])
+
+
+def test_decay_after_lag_of_no_wells_is_an_empty_mask() -> None:
+    out = lagfit.decay_after_lag(np.arange(20) * 5.0, np.zeros((0, 20)), np.zeros(0), 5.0)
+    assert out.shape == (0,) and out.dtype == bool
+
+
+@pytest.mark.parametrize(("z", "kept"), [(2.9, False), (3.1, True)])
+def test_plate_decay_counts_from_three_standard_errors(z: float, kept: bool) -> None:
+    # module text of lagfit.plate_decay: 0 where the pooled value is less than K_PLATE_Z (3) standard errors
+    # above zero; one well pools to its own value and SE
+    k, se = lagfit.plate_decay(np.array([z * 1e-3]), np.array([1e-3]))
+    assert lagfit.K_PLATE_Z == 3.0
+    assert se == pytest.approx(1e-3) and k == (pytest.approx(z * 1e-3) if kept else 0.0)
+
+
+
+def test_model_free_allows_no_bias_where_the_substrate_is_unknown() -> None:
+    # checks.model_free: the bias share is predicted from S0; a well without S0 gets no allowance (0, not
+    # NaN and not a share of its own), so the gap there is the plain difference in standard errors
+    t = np.arange(60) * 10.0
+    p = simulate_plate(t, np.array([0.5, 0.5]), 0.5, 4e-4, signal_per_conc=2.5, noise=0.0005, seed=3)
+    ref = checks.model_free(t, p.signal, s0=np.array([0.5, np.nan]), signal_per_conc=2.5)
+    assert ref.bias[1] == 0.0 and 0.0 < ref.bias[0] < 0.01 and ref.usable.all()
