@@ -45,7 +45,8 @@ RATES = ["tests/plugins/rates/test_rate_fields.py", "tests/plugins/rates/test_la
          "tests/plugins/rates/test_rate_thresholds.py",
          "tests/plugins/rates/test_se_quick.py", "tests/plugins/rates/test_rate_edges.py",
          "tests/plugins/rates/test_rate_parts.py",
-         "tests/plugins/rates/test_rates_closed_form.py", "tests/plugins/rates/test_rates_kernels.py"]
+         "tests/plugins/rates/test_rates_closed_form.py", "tests/plugins/rates/test_rates_kernels.py",
+         "tests/plugins/rates/test_progress_signal_se.py"]
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
 READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importers/test_time_formats.py",
            "tests/plugins/importers/test_readers.py",
@@ -83,6 +84,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/sicurve.py": ((), ["tests/plugins/rates/test_sicurve.py", *CHOICE[1:3]]),
     "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
+                                     "tests/plugins/rates/test_imprecise.py",
                                      "tests/plugins/rates/test_short_lag_and_decay.py",
                                      "tests/plugins/rates/test_lag_clock.py"]),
     "plugins/rates/lagfit.py": ((), [HELPERS, "tests/plugins/rates/test_lag_clock.py"]),

@@ -60,6 +60,8 @@ def test_no_hill_plot_without_a_positive_vmax_and_no_line_through_one_x() -> Non
     ref = stats.linregress([1.0, 2.0, 4.0], [3.0, 2.0, 7.0])
     assert dg._ols(np.array([1.0, 2.0, 4.0, np.nan]), np.array([3.0, 2.0, 7.0, 1.0])) == pytest.approx(
         (ref.slope, ref.intercept))
+    # two distinct x (each twice) is enough for a line: slope 2 and intercept -1 by hand
+    assert dg._ols(np.array([1.0, 1.0, 2.0, 2.0]), np.array([0.9, 1.1, 2.9, 3.1])) == pytest.approx((2.0, -1.0))
 
 
 @pytest.mark.parametrize("scale", [1.0, 1e-3])
