@@ -541,9 +541,10 @@ SI_STEP = True
 def _inhibition_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, rows: np.ndarray, pw: RateResult,
                      r_mm: np.ndarray, s0_all: np.ndarray, spc: float, out: _Estimates,
                      first: np.ndarray, *, lof_ratio: float, agree_z: float) -> None:
-    """The wells ``rows`` (power law ``pw`` fitted; ``r_mm``, ``ok_mm`` the Michaelis–Menten fit's residual
-    RMS and whether it was kept) that are not on the Hill curve take the substrate-inhibition curve where
-    :func:`vzero.plugins.rates.sicurve.inhibition_step` keeps it (code 5); in place."""
+    """The wells ``rows`` (power law ``pw`` fitted; ``r_mm`` the Michaelis–Menten fit's residual RMS over the
+    read noise) that are not on the Hill curve take the substrate-inhibition curve where
+    :func:`vzero.plugins.rates.sicurve.inhibition_step` keeps it (code 5; it tries only wells whose power-law
+    order is below :data:`vzero.plugins.rates.sicurve.SI_ORDER`); in place."""
     from vzero.plugins.rates.sicurve import inhibition_step
 
     sub = out.code[rows] != 4.0
