@@ -143,7 +143,7 @@ class AutoRates(KernelRates):
     (curvature judged by the t statistic of a quadratic term), starting after any lag and ending before
     ``max_conversion``; v0 is the slope at the window start (curvature-aware)."""
 
-    method, version = "auto", "1.0"
+    method, version = "auto", "1.1"  # 1.1: the shared checks add IMPRECISE and judge DISAGREES at 3 SE (was 4)
     summary = "automatic early window, curvature judged against read noise; slope at the window start"
     function = "vzero.plugins.rates.auto:auto"
     kernel_params = ("max_conversion", "max_rate_drop", "t_crit", "min_points", "find_lag", "estimate")
@@ -214,7 +214,7 @@ class ModelChoiceRates(KernelRates):
 class PolynomialRates(KernelRates):
     """A low-order polynomial over the early curve; v0 is its derivative at the window start."""
 
-    method, version = "polynomial", "1.0"
+    method, version = "polynomial", "1.1"  # 1.1: the shared checks add IMPRECISE and judge DISAGREES at 3 SE (was 4)
     summary = "low-order polynomial over the early curve; derivative at the start"
     function = "vzero.plugins.rates.polynomial:polynomial"
     kernel_params = ("degree", "window_s", "min_points", "max_conversion")
@@ -243,7 +243,7 @@ class ProgressRates(KernelRates):
     empirical order that follows cooperative enzymes, whose rate falls faster than Michaelis–Menten allows
     (measurements in docs/rates.md)."""
 
-    method, version = "progress", "1.1"
+    method, version = "progress", "1.1"  # 1.1: bounded-curvature and signal-unit SEs; IMPRECISE, DISAGREES at 3 SE
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
     function = "vzero.plugins.rates.progress:progress_curve"
     kernel_params = ("min_points", "fail_ratio", "model")
@@ -259,7 +259,7 @@ class ProgressRates(KernelRates):
 class LagDecayRates(KernelRates):
     """Steady-state rate after a lag phase, extrapolated to its start through first-order inactivation."""
 
-    method, version = "lag-decay", "1.0"
+    method, version = "lag-decay", "1.1"  # 1.1: the shared checks add IMPRECISE and judge DISAGREES at 3 SE (was 4)
     summary = "rate after a lag, extrapolated back through first-order inactivation"
     function = "vzero.plugins.rates.lagdecay:lag_decay"
     kernel_params = ("min_points", "fail_ratio")
@@ -287,7 +287,7 @@ class WindowRates(RateMethod):
     """
 
     method = "window"
-    version = "1.0"
+    version = "1.1"  # 1.1: the shared checks add IMPRECISE and judge DISAGREES at 3 SE (was 4)
     summary = "least-squares slope over a fixed window"
     params = {
         **CONVERSION_PARAMS,
