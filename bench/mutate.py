@@ -77,7 +77,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/window.py": ((), RATES),
     "plugins/rates/auto.py": ((), RATES),
     "plugins/rates/polynomial.py": ((), RATES),
-    "plugins/rates/progress.py": ((), RATES),
+    "plugins/rates/progress.py": ((), [*RATES, "tests/plugins/rates/test_power_order_bounds.py"]),
     "plugins/rates/lagdecay.py": ((), RATES),
     "plugins/rates/choice.py": ((), CHOICE),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py"]),
