@@ -87,3 +87,32 @@ def test_held_decay_standard_errors_match_an_independent_linearisation(k_se: flo
     if k_se > 0:
         held = lagfit._joint(READS, y, S0, SPC, p0, np.full(2, SIGMA), 10.0, READS[-1], k_se=0.0)
         assert (out["stderr"] > 1.05 * held["stderr"]).all()
+
+
+def test_grid_fit_start_values_and_residuals_at_the_true_lag() -> None:
+    # step 1 of the module text on reads made without decay (k = 0): at the true lag time the start values are
+    # the curve's own baseline, ln v0 (mM/s) and u = Km/(Km + S0), and the residual sum is the noise's;
+    # at no lag the fit is far worse. The residual sum by hand from the model written above.
+    n = S0.size
+
+    def rhs(_t: float, z: np.ndarray) -> np.ndarray:
+        s, p, a = z[:n], z[n:2 * n], z[2 * n:]
+        return np.concatenate([-a * VMAX * s / (KM + s), -p / TAU, p / TAU])
+
+    sol = solve_ivp(rhs, (0.0, READS[-1]), np.concatenate([S0, np.ones(n), np.zeros(n)]), method="Radau",
+                    t_eval=READS, rtol=1e-10, atol=1e-14)
+    rng = np.random.default_rng(62)
+    y = 0.05 + SPC * (S0[:, None] - sol.y[:n]) + 2e-4 * rng.standard_normal((n, READS.size))
+    at_lag = lagfit._grid_fit(READS, y, S0, SPC, TAU, 8)
+    no_lag = lagfit._grid_fit(READS, y, S0, SPC, 0.0, 8)
+    assert at_lag["ok"].all()
+    np.testing.assert_allclose(at_lag["start"][:, 0], 0.05, atol=3e-4)
+    np.testing.assert_allclose(at_lag["start"][:, 1], np.log(VMAX * S0 / (KM + S0)), atol=0.01)
+    np.testing.assert_allclose(at_lag["start"][:, 2], KM / (KM + S0), rtol=0.05)
+    for i in range(n):
+        base, ln_v0, u = at_lag["start"][i]
+        # the k = 0 clock, by the hand-written model with a vanishing decay constant
+        resid = y[i] - _curve(np.array([base, ln_v0, u, TAU, 1e-12]), S0[i])
+        assert at_lag["rss"][i] == pytest.approx(resid @ resid, rel=0.02)
+    assert (at_lag["rss"] < 2.0 * READS.size * 2e-4**2).all()  # of the order of the noise: n sigma²
+    assert (no_lag["rss"] > 10.0 * at_lag["rss"]).all()
