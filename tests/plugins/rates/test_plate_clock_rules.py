@@ -188,3 +188,15 @@ def test_decay_after_lag_compares_the_activity_left_with_the_substrate_left(monk
     # a higher order lets depletion explain more: (1 - x)^2 = 0.36
     k = -math.log(0.6) / t_run * 1.01
     assert not _decay_after_lag(monkeypatch, k, 1e-12, 60.0, y, order=2.0)
+
+
+def test_peak_activity_from_two_reads_and_none_from_one() -> None:
+    # two reads: the mean active fraction between them, theta(t1) - theta(t0) over t1 - t0 (clock by hand);
+    # a single read has no interval: NaN
+    t = np.array([0.0, 120.0])
+    got = lagfit.peak_activity(t, np.array([60.0, 0.0]), np.array([8e-4, 0.0]))
+    want = (_theta(t, 60.0, 8e-4)[1] - _theta(t, 60.0, 8e-4)[0]) / 120.0
+    assert got[0] == pytest.approx(want, rel=1e-9)
+    assert got[1] == pytest.approx(1.0)  # no lag, no decay: always fully active
+    assert np.isnan(lagfit.peak_activity(t[:1], np.array([60.0]), np.array([8e-4]))).all()
+    assert np.isnan(lagfit.peak_activity(t, np.array([np.nan]), np.array([8e-4]))).all()
