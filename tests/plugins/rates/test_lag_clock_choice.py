@@ -35,6 +35,7 @@ def _run(monkeypatch: pytest.MonkeyPatch, own_k: np.ndarray, shared_v0: np.ndarr
 
     def grid(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, tau_try: float,
              min_points: int) -> dict[str, np.ndarray]:
+        seen.append(np.array([min_points]))
         ok = np.array([True] * n + [False])
         return {"rss": np.full(n + 1, abs(tau_try - 50.0)), "start": np.tile([0.05, -7.0, 0.3], (n + 1, 1)),
                 "ok": ok}
@@ -70,10 +71,14 @@ def test_a_well_keeps_its_own_decay_beyond_three_standard_errors_of_the_differen
     np.testing.assert_allclose(out["k_se"][:4], [SE_PLATE, OWN_SE, SE_PLATE, OWN_SE])
     np.testing.assert_allclose(out["stderr"][:4], [0.02, 0.01, 0.02, 0.01])
     assert float(out["k_plate"]) == K_PLATE
+    # every grid fit asks for eight reads (the default), one per lag time of the grid
+    grids = [int(x[0]) for x in seen if x.shape == (1,)]
+    assert grids == [8] * len(lagfit.TAU_GRID)
+    fits = [x for x in seen if x.shape != (1,)]
     # the shared fit starts from the plate's constant; the own fit from k = 0 at the grid's best lag time
     # (50 s: 5 read intervals)
-    np.testing.assert_allclose(seen[0][:, 3:], [[50.0, 0.0]] * 4)
-    np.testing.assert_allclose(seen[1][:, 4], K_PLATE)
+    np.testing.assert_allclose(fits[0][:, 3:], [[50.0, 0.0]] * 4)
+    np.testing.assert_allclose(fits[1][:, 4], K_PLATE)
     # the well the grid could not fit has no figures
     assert np.isnan(out["v0"][4]) and np.isnan(out["tau"][4]) and not out["own_k"][4]
 
