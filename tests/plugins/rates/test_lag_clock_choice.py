@@ -100,3 +100,9 @@ def test_v0_is_withheld_where_the_enzyme_is_never_half_active(monkeypatch: pytes
     assert np.isnan(out["v0"][1]) and np.isnan(out["stderr"][1])
     np.testing.assert_allclose(out["tau"][:2], taus)
     np.testing.assert_allclose(out["k"][:2], K_PLATE)
+
+
+def test_a_plate_with_a_single_fitted_well_gets_its_figures(monkeypatch: pytest.MonkeyPatch) -> None:
+    out, _ = _run(monkeypatch, np.array([K_PLATE]), np.array([1.1]), np.array([60.0]))
+    np.testing.assert_allclose(out["v0"][:1], 1.1)
+    assert np.isnan(out["v0"][1])
