@@ -36,6 +36,7 @@ def _run(monkeypatch: pytest.MonkeyPatch, own_k: np.ndarray, shared_v0: np.ndarr
     def grid(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, tau_try: float,
              min_points: int) -> dict[str, np.ndarray]:
         seen.append(np.array([min_points]))
+        seen.append(np.array([tau_try, 0.0]))
         ok = np.array([True] * n + [False])
         return {"rss": np.full(n + 1, abs(tau_try - 50.0)), "start": np.tile([0.05, -7.0, 0.3], (n + 1, 1)),
                 "ok": ok}
@@ -43,6 +44,7 @@ def _run(monkeypatch: pytest.MonkeyPatch, own_k: np.ndarray, shared_v0: np.ndarr
     def joint(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, p0: np.ndarray, sigma: np.ndarray,
               dt: float, span: float, k_se: float | None = None) -> dict[str, np.ndarray]:
         seen.append(p0.copy())
+        seen.append(np.array([dt, span, 0.0]))
         own = k_se is None
         k = own_k if own else p0[:, 4]
         params = p0.copy()
@@ -74,7 +76,11 @@ def test_a_well_keeps_its_own_decay_beyond_three_standard_errors_of_the_differen
     # every grid fit asks for eight reads (the default), one per lag time of the grid
     grids = [int(x[0]) for x in seen if x.shape == (1,)]
     assert grids == [8] * len(lagfit.TAU_GRID)
-    fits = [x for x in seen if x.shape != (1,)]
+    # lag times tried: the grid in read intervals of 10 s; the fits get the read interval and the run length
+    tried = [float(x[0]) for x in seen if x.shape == (2,)]
+    np.testing.assert_allclose(tried, np.array(lagfit.TAU_GRID) * 10.0)
+    assert all(x.tolist() == [10.0, 890.0, 0.0] for x in seen if x.shape == (3,))
+    fits = [x for x in seen if x.ndim == 2]
     # the shared fit starts from the plate's constant; the own fit from k = 0 at the grid's best lag time
     # (50 s: 5 read intervals)
     np.testing.assert_allclose(fits[0][:, 3:], [[50.0, 0.0]] * 4)
