@@ -13,6 +13,8 @@ residual variance and the read noise squared. Reads integrated by scipy's solve_
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
@@ -25,6 +27,7 @@ S0 = np.array([0.5, 2.0])
 SIGMA = 0.002
 
 
+@functools.cache
 def _reads() -> np.ndarray:
     n = S0.size
 
