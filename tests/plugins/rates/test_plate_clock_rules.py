@@ -200,3 +200,24 @@ def test_peak_activity_from_two_reads_and_none_from_one() -> None:
     assert got[1] == pytest.approx(1.0)  # no lag, no decay: always fully active
     assert np.isnan(lagfit.peak_activity(t[:1], np.array([60.0]), np.array([8e-4]))).all()
     assert np.isnan(lagfit.peak_activity(t, np.array([np.nan]), np.array([8e-4]))).all()
+
+
+def test_decay_after_lag_takes_the_first_and_last_three_finite_reads(monkeypatch: pytest.MonkeyPatch) -> None:
+    # missing reads at both ends: the conversion is measured between the means of the first three finite reads
+    # (-0.3, 0.15, 0.15 of 1 mM at 3.4 AU/mM about 0.05 AU: mean 0.05 AU) and of the last three finite reads
+    # (0.5, 0.5, 0.2: mean 0.4 above it), x = 0.4; the last finite read alone would give 0.2 and the last
+    # three positions (two of them missing) the same
+    y = np.full(READS.size, 0.05)
+    y[:1] = np.nan  # one missing at the start, two at the end: the positions do not mirror each other
+    y[1] = 0.05 - 0.3 * SPC
+    y[2:4] = 0.05 + 0.15 * SPC
+    y[-5:-2] = 0.05 + SPC * np.array([0.5, 0.5, 0.2])
+    y[-2:] = np.nan
+    first = np.mean(y[1:4])
+    last = np.mean(y[-5:-2])
+    x = abs(last - first) / SPC
+    assert x == pytest.approx(0.4)
+    t_run = READS[-1] - 60.0
+    for factor, want in ((1.01, True), (0.99, False)):
+        k = -math.log(1.0 - x) / t_run * factor
+        assert _decay_after_lag(monkeypatch, k, 1e-12, 60.0, y) == want
