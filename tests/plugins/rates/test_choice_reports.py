@@ -55,3 +55,21 @@ def test_substrate_or_signal_scale_alone_is_as_good_as_neither() -> None:
         np.testing.assert_array_equal(alone.extra["model"], neither.extra["model"])
     both = model_choice(T, y, s0=s0, signal_per_conc=SPC)
     assert not np.array_equal(both.v0, neither.v0)  # knowing both changes the estimate (the window, the curves)
+
+
+def test_lag_wells_without_the_substrate_report_the_lag_decay_fit() -> None:
+    # without S0 and the signal scale the lag clock cannot be fitted in concentration: the lag wells take
+    # lag_decay's fit (docs/rates.md), every figure as lag_decay gives it for those wells (its own figures are
+    # checked in the lag-decay tests); the LAG flag and code 3
+    from vzero.plugins.rates.lagdecay import lag_decay
+
+    s0 = np.array([0.5, 1.0, 2.0, 5.0])
+    p = simulate_plate(T, s0, 0.5, 6e-4, lag_tau=60.0, signal_per_conc=SPC, noise=0.001, seed=4)
+    r = model_choice(T, p.signal)
+    assert (r.flags & Flag.LAG).all() and (r.extra["model"] == MODEL_CODES["lag-decay"]).all()
+    ld = lag_decay(T, p.signal, min_points=8, fail_ratio=np.inf)
+    for name in ("v0", "stderr", "window_start_s", "window_end_s", "n_points"):
+        np.testing.assert_array_equal(getattr(r, name), getattr(ld, name), err_msg=name)
+    np.testing.assert_array_equal(r.extra["rmse_over_noise"], ld.extra["rmse_over_noise"])
+    # the lag time there is the detector's (a rougher estimate than the lag clock's: 46-56 s here)
+    assert ((r.lag_s > 30.0) & (r.lag_s < 70.0)).all()
