@@ -160,3 +160,50 @@ def test_the_hill_fits_start_from_the_michaelis_menten_fit(monkeypatch: pytest.M
         want = [base, math.log(V_KEPT / SPC), u, math.log(u / (SHAPE_H_START - u))]
         np.testing.assert_allclose(start1[k], want, rtol=1e-12)
     np.testing.assert_array_equal(start2, start1[np.isin(w1, w2)])
+
+
+def _misfit_by_polyfit(t: np.ndarray, resid: np.ndarray, sigma: float) -> float:
+    """The smooth misfit's definition, independently: on means of equal blocks of QUICK_BLOCKS = 20 (reads
+    per block t.size // 20), the squared norm of the weighted least-squares cubic (numpy Polynomial.fit)
+    beyond the constant, weighted by the reads per block, in read variances."""
+    k = max(t.size // 20, 1)
+    tb, eb = t.reshape(-1, k).mean(axis=1), resid.reshape(-1, k).mean(axis=1)
+    fit = np.polynomial.Polynomial.fit(tb, eb, 3)
+    return float(k * ((fit(tb) - eb.mean()) ** 2).sum() / sigma**2)
+
+
+def test_the_misfit_is_taken_from_each_kept_curves_own_shape(monkeypatch: pytest.MonkeyPatch) -> None:
+    # step 6c's statistic for a kept Michaelis-Menten curve (code 0) and a kept power law (code 1), each from its
+    # own fitted curve: the Michaelis-Menten substrate by scipy.special.lambertw (S = Km W((S0/Km) e^((S0 - Vmax
+    # t)/Km))), the power law's conversion by its closed form x = 1 - (1 + m k t)^(-1/m), m = n - 1, k = v0/S0
+    # (standard chemical kinetics); the same invented reads for both wells
+    from scipy.special import lambertw
+
+    t = np.arange(40) * 10.0
+    km, vmax, v_pw, order, sigma = 0.4, 5e-4, 1.1e-3, 0.6, 2e-3
+    rng = np.random.default_rng(12)
+    reads = 0.05 + 1.0e-3 * t - 6e-7 * t**2 + 2e-10 * t**3 + sigma * rng.standard_normal(t.size)
+    y = np.vstack([reads, reads])
+    sc = Screen(np.ones_like(y, bool), np.full(2, t.size), np.full(2, sigma), np.full(2, 0.3), np.zeros(2, np.int64),
+                np.ones(2, bool), np.full(2, 50.0))
+    q = EarlyQuadratic(np.full(2, 1e-3), np.full(2, 1e-5), np.full(2, -1e-7), np.full(2, t[-1]), np.full(2, t.size),
+                       np.ones(2), np.ones(2))
+    mm = {"v0": np.full(2, SPC * vmax * S0 / (km + S0)), "km": np.array([km, np.nan]), "vmax": np.array([vmax, np.nan])}
+    out = _Estimates(np.full(2, 1e-3), np.full(2, 1e-5), np.array([0.0, 1.0]), np.ones(2), np.ones(2), np.zeros(2),
+                     np.full(2, t[-1]), np.full(2, t.size))
+
+    def still(_t: Any, yy: np.ndarray, *_a: Any, **_k: Any) -> dict[str, np.ndarray]:  # a step that moves nothing
+        n = yy.shape[0]
+        return {"v0": mm["v0"][:n], "se": np.ones(n)}
+
+    monkeypatch.setattr(hillcurve, "fit_hill_curve", still)
+    stat = _shape_step(t, y, sc, q, np.full(2, S0), SPC, mm, np.array([np.nan, v_pw]), np.array([np.nan, order]),
+                       out, np.zeros(2, np.int64), lof_ratio=LOF, agree_z=AGREE)
+    substrate = km * lambertw((S0 / km) * np.exp((S0 - vmax * t) / km)).real
+    m, k = order - 1.0, v_pw / SPC / S0
+    conversion = 1.0 - (1.0 + m * k * t) ** (-1.0 / m)
+    # to about five digits: the kernel's small ridge on its normal equations works on the residuals' level
+    assert stat[0] == pytest.approx(_misfit_by_polyfit(t, reads - SPC * (S0 - substrate), sigma), rel=1e-4)
+    assert stat[1] == pytest.approx(_misfit_by_polyfit(t, reads - SPC * S0 * conversion, sigma), rel=1e-4)
+    assert stat[0] > MISFIT_TRY and stat[1] > MISFIT_TRY  # both wells were tried (and kept their curves)
+    assert out.code.tolist() == [0.0, 1.0]
