@@ -62,14 +62,16 @@ def test_power_law_verdict_clause_by_clause(monkeypatch: pytest.MonkeyPatch) -> 
             v0 = q.v0[rows] + np.array([CASES[w][3] for w in rows]) * 2.0 * q.se[rows]  # agree_z 2 (docs)
             seen["pw_v0"] = v0
             ratio = np.array([CASES[w][2] for w in rows])
-            return dataclasses.replace(res, v0=v0, extra=dict(res.extra, rmse_over_noise=ratio))
+            seen["pw_res"] = dataclasses.replace(res, v0=v0, extra=dict(res.extra, rmse_over_noise=ratio))
+            return seen["pw_res"]
         assert "mm" not in seen
         seen["mm"] = rows
         # the curve's v0 ten quadratic SEs away: the disagreement trigger sends every well on to the power law
         v0 = q.v0[rows] + 10.0 * q.se[rows]
         seen["mm_v0"] = v0
         ratio = np.array([CASES[w][1] for w in rows])
-        return dataclasses.replace(res, v0=v0, extra=dict(res.extra, rmse_over_noise=ratio))
+        seen["mm_res"] = dataclasses.replace(res, v0=v0, extra=dict(res.extra, rmse_over_noise=ratio))
+        return seen["mm_res"]
 
     monkeypatch.setattr(choice, "early_quadratic", quadratic)
     monkeypatch.setattr(choice, "progress_curve", fit)
@@ -83,3 +85,8 @@ def test_power_law_verdict_clause_by_clause(monkeypatch: pytest.MonkeyPatch) -> 
         assert r.v0[w] == want_v0 and r.extra["rmse_over_noise"][w] == want_ratio, case[0]
         if case[4] == 2:
             assert r.stderr[w] == q.se[w] and r.n_points[w] == q.n[w] and r.window_end_s[w] == q.end_s[w]
+            assert r.goodness[w] == q.goodness[w] and r.window_start_s[w] == T[0]
+        else:  # the kept curve's own figures (rows are in well order: asserted above)
+            res = seen["mm_res"] if case[4] == 0 else seen["pw_res"]
+            for name in ("stderr", "goodness", "window_start_s", "window_end_s", "n_points"):
+                assert getattr(r, name)[w] == getattr(res, name)[w], (case[0], name)
