@@ -90,3 +90,43 @@ def test_power_law_verdict_clause_by_clause(monkeypatch: pytest.MonkeyPatch) -> 
             res = seen["mm_res"] if case[4] == 0 else seen["pw_res"]
             for name in ("stderr", "goodness", "window_start_s", "window_end_s", "n_points"):
                 assert getattr(r, name)[w] == getattr(res, name)[w], (case[0], name)
+
+
+def test_hill_step_gets_the_wells_whose_power_law_order_exceeds_1_1(monkeypatch: pytest.MonkeyPatch) -> None:
+    # docs/rates.md, step 6b: wells whose power law needed an order above 1.1 go to the Hill step, with the
+    # residual RMS of the better three-parameter curve and whether Michaelis-Menten was kept (described the
+    # well and still stands after the power law's verdict); the plate and verdicts of the test above, each
+    # power-law fit given the order below
+    orders = np.array([1.09, 1.11, 1.5, 2.0, 0.5, 3.0, 1.2, 1.2, 1.3, 1.1])  # the last exactly at 1 + 0.1
+    s0 = np.full(N, KM)
+    y = simulate_plate(T, s0, KM, 4e-4, signal_per_conc=SPC, noise=0.0005, seed=5).signal
+    real_fit = choice.progress_curve
+    q = choice.early_quadratic(T, y, np.full(N, SPC * KM), frac=0.2, min_points=8,
+                               sigma=choice.screen(y, min_points=8, time=T).sigma)
+    seen: dict[str, Any] = {}
+
+    def fit(t: np.ndarray, yy: np.ndarray, **k: Any) -> Any:
+        res = real_fit(t, yy, **k)
+        power = k.get("model") == "power"
+        ratio = np.array([c[2] if power else c[1] for c in CASES])
+        v0 = q.v0 + (np.array([c[3] for c in CASES]) * 2.0 if power else 10.0) * q.se
+        extra = dict(res.extra, rmse_over_noise=ratio, **({"order": orders} if power else {}))
+        return dataclasses.replace(res, v0=v0, extra=extra)
+
+    def record(_t: Any, _y: Any, _sc: Any, _q: Any, rows: np.ndarray, pw_v0: np.ndarray, pw_order: np.ndarray,
+               r_best: np.ndarray, mm_kept: np.ndarray, *_a: Any, **_k: Any) -> None:
+        seen.update(rows=rows, pw_order=pw_order, r_best=r_best, mm_kept=mm_kept, pw_v0=pw_v0)
+
+    monkeypatch.setattr(choice, "progress_curve", fit)
+    monkeypatch.setattr(choice, "_hill_step", record)
+    choice.model_choice(T, y, s0=s0, signal_per_conc=SPC, find_lag=False)
+    rising = np.flatnonzero(orders > 1.1)
+    assert seen["rows"].tolist() == rising.tolist() == [1, 2, 3, 5, 6, 7, 8]
+    np.testing.assert_array_equal(seen["pw_order"], orders[rising])
+    best = np.array([min(CASES[w][1], CASES[w][2]) for w in rising])
+    np.testing.assert_array_equal(seen["r_best"], best)
+    # Michaelis-Menten kept (within 1.4 and not replaced by the power law): only the well whose power law is
+    # better by less than the tie
+    assert seen["mm_kept"].tolist() == [w == 1 for w in rising]
+    np.testing.assert_allclose(seen["pw_v0"], (q.v0 + np.array([c[3] for c in CASES]) * 2.0 * q.se)[rising],
+                               rtol=1e-12)
