@@ -118,8 +118,17 @@ def test_hill_step_gets_the_wells_whose_power_law_order_exceeds_1_1(monkeypatch:
         seen.update(rows=rows, pw_order=pw_order, r_best=r_best, mm_kept=mm_kept, pw_v0=pw_v0)
 
     monkeypatch.setattr(choice, "progress_curve", fit)
+    def record_si(_t: Any, _y: Any, _sc: Any, _q: Any, rows: np.ndarray, pw: Any, r_mm: np.ndarray, *_a: Any,
+                  **_k: Any) -> None:
+        seen.update(si_rows=rows, si_order=pw.extra["order"], si_r_mm=r_mm)
+
     monkeypatch.setattr(choice, "_hill_step", record)
+    monkeypatch.setattr(choice, "_inhibition_hook", record_si)
     choice.model_choice(T, y, s0=s0, signal_per_conc=SPC, find_lag=False)
+    # step 6e's hook is offered every well the power law was fitted to, with Michaelis-Menten's residual RMS
+    assert seen["si_rows"].tolist() == list(range(N))
+    np.testing.assert_array_equal(seen["si_order"], orders)
+    np.testing.assert_array_equal(seen["si_r_mm"], [c[1] for c in CASES])
     rising = np.flatnonzero(orders > 1.1)
     assert seen["rows"].tolist() == rising.tolist() == [1, 2, 3, 5, 6, 7, 8]
     np.testing.assert_array_equal(seen["pw_order"], orders[rising])
