@@ -773,8 +773,15 @@ def progress_curve(
         u_free = free_curvature(make(t), fit.params, yy, ww)
         var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
     elif not known:
+        from vzero.plugins.rates.shapegrid import mixed_ln_v0_var, shape_profile
+
         fitted, _ = make(t)(fit.params, np.arange(todo.size))
-        var = v0**2 * signal_ln_v0_var(t, fit.params, fitted, ww, d, scale2)
+        ln_var = mixed_ln_v0_var(shape_profile(t, yy, ww, d, fit.params, scale2), fit.params[:, 1], scale2)
+        # where no shape's fit converged: the four-parameter delta method (on the large side far from completion)
+        lost = ~np.isfinite(ln_var)
+        if lost.any():
+            ln_var[lost] = signal_ln_v0_var(t, fit.params[lost], fitted[lost], ww[lost], d[lost], scale2[lost])
+        var = v0**2 * ln_var
     failed = ~fit.converged | ~(ratio <= fail_ratio) | ~np.isfinite(v0)
     out["v0"][todo], out["stderr"][todo] = v0, np.sqrt(np.abs(var))
     with np.errstate(invalid="ignore", divide="ignore"):
