@@ -22,6 +22,15 @@ from __future__ import annotations
 
 import numpy as np
 from vzero.plugins.kinetics import lsq
+from vzero.plugins.rates.progress import (
+    QUICK_BLOCKS,
+    QUICK_FTOL,
+    block_means,
+    bounded_ln_v0_var,
+    fit_wells,
+    free_curvature,
+    wright_omega,
+)
 
 SHAPE_GRID = (0.0, 0.25, 0.5, 0.75, 0.95)
 """Fixed shapes r = A/(Km + A) of the profile, equally weighted beforehand: first order (r = 0; a curve whose
@@ -43,8 +52,6 @@ def shape_conversion(tau: np.ndarray, r: np.ndarray) -> np.ndarray:
     1/2`` (there ``1 - s`` loses digits; ``h(x) - tau`` with ``log1p`` keeps them). Below
     :data:`_SERIES_TAU` the series ``x = tau (1 - b tau/2 + (b^2/2 - b/3) tau^2)``, ``b = 1 - r``.
     """
-    from vzero.plugins.rates.progress import wright_omega
-
     tau = np.asarray(tau, dtype=float)
     r = np.broadcast_to(np.asarray(r, dtype=float), tau.shape)
     b = 1.0 - r
@@ -107,36 +114,32 @@ def shape_profile(t: np.ndarray, y: np.ndarray, w: np.ndarray, d: np.ndarray, st
                   scale2: np.ndarray, grid: tuple[float, ...] = SHAPE_GRID,
                   max_iter: int = 40) -> dict[str, np.ndarray]:
     """Fit every well at every fixed shape of ``grid``: ``ln_v0``, ``var`` (ln v0's variance with the
-    curvature bounded, :func:`vzero.plugins.rates.progress.bounded_ln_v0_var`) and ``rss``, each
-    ``[wells, shapes]``.
+    curvature bounded, :func:`vzero.plugins.rates.progress.bounded_ln_v0_var`), ``rss`` and ``converged``,
+    each ``[wells, shapes]``.
 
-    ``y`` ``[wells, n]`` reads with 0/1 weights ``w``; ``d`` the direction per well; ``start`` ``[wells, >=
-    2]`` the four-parameter fit's baseline and ln v0 (start values; the curvature starts at its value there,
-    ``exp(start[:, 2])``, where given); ``scale2`` the residual variance per well (signal²). The curvature
-    lies in [0, (1 - r)/P_last] (from a straight line to an amplitude A no smaller than the product formed
-    by the last read): its posterior about the fit, normal in the linear approximation and truncated to
-    that range, replaces its unbounded variance.
+    ``t`` ``[n]`` times (s); ``y`` ``[wells, n]`` reads with 0/1 weights ``w``; ``d`` the direction per
+    well; ``start`` ``[wells, 4]`` the four-parameter fit (baseline, ln v0, ln c1, logit r: start values);
+    ``scale2`` the residual variance per well (signal²). The fits run on block means of about
+    :data:`vzero.plugins.rates.progress.QUICK_BLOCKS` blocks (a linear compression of the reads, enough for
+    a smooth three-parameter curve, at a fraction of the work) and stop at
+    :data:`vzero.plugins.rates.progress.QUICK_FTOL`; ``rss`` is the block fit's (its differences between
+    shapes are those of the reads up to the neglected curvature within a block). The curvature lies in
+    [0, (1 - r)/P_last] (from a straight line to an amplitude A no smaller than the product formed by the
+    last block): its posterior about the fit, normal in the linear approximation and truncated to that
+    range, replaces its unbounded variance.
     """
-    from vzero.plugins.rates.progress import bounded_ln_v0_var, fit_coarse_to_fine, free_curvature
-
     n_w, n_g = y.shape[0], len(grid)
+    tb, yb, wb = block_means(t, y, w, max(t.size // QUICK_BLOCKS, 1))
     r = np.repeat(np.asarray(grid, dtype=float), n_w)
     well = np.tile(np.arange(n_w), n_g)
-    dd = d[well]
-    c0 = np.exp(start[:, 2]) if start.shape[1] > 2 else np.zeros(n_w)
-    p0 = np.stack([start[well, 0], start[well, 1], np.clip(c0[well], 0.0, None)], axis=1)
+    p0 = np.stack([start[well, 0], start[well, 1], np.exp(start[well, 2])], axis=1)
     lo = np.stack([np.full(r.size, -np.inf), p0[:, 1] - 12.0, np.zeros(r.size)], axis=1)
     hi = np.stack([np.full(r.size, np.inf), p0[:, 1] + 12.0, np.full(r.size, np.inf)], axis=1)
-    p0[:, 2] = np.fmax(p0[:, 2], 0.0)
-
-    def make(tg: np.ndarray) -> lsq.Model:
-        return fixed_shape_model(tg, dd, r)
-
-    yy, ww = y[well], w[well]
-    fit = fit_coarse_to_fine(make, t, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter)
-    model = fixed_shape_model(t, dd, r)
-    fitted, _ = model(fit.params, np.arange(r.size))
-    last = np.where(ww > 0, dd[:, None] * (fitted - fit.params[:, 0:1]), -np.inf).max(axis=1)
+    model = fixed_shape_model(tb[well], d[well], r)
+    yy, ww = yb[well], wb[well]
+    fit = fit_wells(model, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter, ftol=QUICK_FTOL)
+    fitted = fit.fitted if fit.fitted is not None else model(fit.params, np.arange(r.size))[0]
+    last = np.where(ww > 0, d[well, None] * (fitted - fit.params[:, 0:1]), -np.inf).max(axis=1)
     c_max = (1.0 - r) / np.where(last > 0, last, np.nan)
     c_free = free_curvature(model, fit.params, yy, ww)
     cov = fit.cov_unit * scale2[well, None, None]
