@@ -150,15 +150,52 @@ def test_shape_variance_is_the_delta_method_away_from_the_bound() -> None:
 
 
 def test_mixture_by_hand() -> None:
-    # hand calculation: two shapes whose RSS differ by 2 s2 weigh 1 : e^-1; variance about ln v0 = 0
-    prof = {"ln_v0": np.array([[0.01, -0.03, 0.5]]), "var": np.array([[4e-4, 1e-4, 1.0]]),
-            "rss": np.array([[10.0, 12.0, 50.0]]), "converged": np.array([[True, True, False]])}
+    # hand calculation: two shapes whose RSS differ by 2 s2 weigh 1 : e^-1 (s2 = 0.5, RSS about 2000 s2, so
+    # that only differences of RSS may enter the weights); the variance is taken about the reported ln v0
+    prof = {"ln_v0": np.array([[-7.01, -7.03, 0.5]]), "var": np.array([[4e-4, 1e-4, 1.0]]),
+            "rss": np.array([[1000.0, 1001.0, 50.0]]), "converged": np.array([[True, True, False]])}
     w1, w2 = 1.0, np.exp(-1.0)
     expected = (w1 * (4e-4 + 0.01**2) + w2 * (1e-4 + 0.03**2)) / (w1 + w2)
-    got = mixed_ln_v0_var(prof, np.array([0.0]), np.array([1.0]))
+    got = mixed_ln_v0_var(prof, np.array([-7.0]), np.array([0.5]))
     assert got[0] == pytest.approx(expected, rel=1e-12)
     prof["converged"][:] = False
-    assert np.isnan(mixed_ln_v0_var(prof, np.array([0.0]), np.array([1.0]))[0])
+    assert np.isnan(mixed_ln_v0_var(prof, np.array([-7.0]), np.array([0.5]))[0])
+
+
+def test_bounded_curvature_by_truncated_normal() -> None:
+    # reference: on a straight line (true curvature 0) at one fixed shape, the variance of ln v0 is the part
+    # with c1 held plus b² E[(C - c1_hat)²], C the normal likelihood of c1 about its optimum without bounds
+    # truncated to [0, (1 - r)/P_last] (scipy.stats.truncnorm). The bounded optimum and its Jacobian from
+    # scipy.optimize.least_squares; the optimum without bounds in the linear approximation, a Gauss-Newton
+    # step from there (numpy.linalg.lstsq), since the model holds c1 at 0 below its bound
+    from scipy.stats import truncnorm
+
+    r = 0.5
+    y = _curve(2e-3, 0.0, r, 0.002, 11, n=40)
+    tb = T.reshape(20, 3).mean(axis=1)
+    yb = y.reshape(40, 20, 3).mean(axis=2)
+    model = fixed_shape_model(tb, np.ones(1), np.array([r]))
+    start = np.column_stack([np.full(40, 0.05), np.full(40, np.log(2e-3)), np.full(40, np.log(0.05)), np.zeros(40)])
+    prof = shape_profile(T, y, np.ones_like(y), np.ones(40), start, np.full(40, 0.002**2), grid=(r,))
+    shorter = []
+    for i in range(40):
+        def resid(p: np.ndarray, i: int = i) -> np.ndarray:
+            return np.sqrt(3.0) * (model(p[None, :], np.array([0]))[0][0] - yb[i])
+        fit = least_squares(resid, [0.05, np.log(2e-3), 0.05], bounds=([-1, -20, 0], [1, 0, np.inf]),
+                            xtol=1e-14, ftol=1e-14, gtol=1e-14)
+        if fit.x[2] > 1e-6:  # the bound is not active on this well
+            continue
+        c_free = fit.x[2] - np.linalg.lstsq(fit.jac, fit.fun, rcond=None)[0][2]
+        cov = np.linalg.inv(fit.jac.T @ fit.jac) * 0.002**2
+        b = cov[1, 2] / cov[2, 2]
+        sd = np.sqrt(cov[2, 2])
+        p_last = model(fit.x[None, :], np.array([0]))[0][0][-1] - fit.x[0]
+        dist = truncnorm(-c_free / sd, ((1 - r) / p_last - c_free) / sd, loc=c_free, scale=sd)
+        expected = cov[1, 1] - cov[1, 2] * b + b * b * (dist.var() + (dist.mean() - fit.x[2]) ** 2)
+        assert prof["var"][i, 0] == pytest.approx(expected, rel=0.02)
+        shorter.append(prof["var"][i, 0] / cov[1, 1])
+    assert len(shorter) >= 8  # about half the wells of a straight line end on the bound
+    assert np.mean(shorter) < 0.9  # and there the bound does shorten the error bar
 
 
 def test_signal_unit_progress_takes_the_mixture(monkeypatch: pytest.MonkeyPatch) -> None:
