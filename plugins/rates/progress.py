@@ -25,6 +25,7 @@ from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import Screen, blank_result, check_inputs, finish, flag_noisy, screen
 from vzero.plugins.rates.polynomial import inv3_hankel
+from vzero.plugins.rates.shapegrid import SHAPE_GRID, fixed_shape_model, mixed_ln_v0_var
 
 
 @dataclass(frozen=True)
@@ -607,6 +608,46 @@ def signal_ln_v0_var(t: np.ndarray, params: np.ndarray, fitted: np.ndarray, w: n
         return cov[:, 1, 1] / norm[:, 1] ** 2 * scale2
 
 
+def shape_profile(t: np.ndarray, y: np.ndarray, w: np.ndarray, d: np.ndarray, start: np.ndarray,
+                  scale2: np.ndarray, grid: tuple[float, ...] = SHAPE_GRID,
+                  max_iter: int = 40) -> dict[str, np.ndarray]:
+    """Fit every well without S0 at every fixed shape of ``grid`` (:mod:`vzero.plugins.rates.shapegrid`):
+    ``ln_v0``, ``var`` (ln v0's variance with the curvature bounded, :func:`bounded_ln_v0_var`), ``rss`` and
+    ``converged``, each ``[wells, shapes]``; the profile behind the standard error of the fit in signal units.
+
+    ``t`` ``[n]`` times (s); ``y`` ``[wells, n]`` reads with 0/1 weights ``w``; ``d`` the direction per
+    well; ``start`` ``[wells, 4]`` the four-parameter fit (baseline, ln v0, ln c1, logit r: start values);
+    ``scale2`` the residual variance per well (signal²). The fits run on block means of about
+    :data:`QUICK_BLOCKS` blocks (a linear compression of the reads, enough for a smooth three-parameter
+    curve, at a fraction of the work) and stop at :data:`QUICK_FTOL`; ``rss`` is the block fit's (its
+    differences between shapes are those of the reads up to the neglected curvature within a block). The
+    curvature lies in [0, (1 - r)/P_last] (from a straight line to an amplitude A no smaller than the
+    product formed by the last block): its posterior about the fit, normal in the linear approximation and
+    truncated to that range, replaces its unbounded variance.
+    """
+    n_w, n_g = y.shape[0], len(grid)
+    tb, yb, wb = block_means(t, y, w, max(t.size // QUICK_BLOCKS, 1))
+    r = np.repeat(np.asarray(grid, dtype=float), n_w)
+    well = np.tile(np.arange(n_w), n_g)
+    p0 = np.stack([start[well, 0], start[well, 1], np.exp(start[well, 2])], axis=1)
+    lo = np.stack([np.full(r.size, -np.inf), p0[:, 1] - 12.0, np.zeros(r.size)], axis=1)
+    hi = np.stack([np.full(r.size, np.inf), p0[:, 1] + 12.0, np.full(r.size, np.inf)], axis=1)
+    model = fixed_shape_model(tb[well], d[well], r)
+    yy, ww = yb[well], wb[well]
+    fit = fit_wells(model, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter, ftol=QUICK_FTOL)
+    fitted = fit.fitted if fit.fitted is not None else model(fit.params, np.arange(r.size))[0]
+    last = np.where(ww > 0, d[well, None] * (fitted - fit.params[:, 0:1]), -np.inf).max(axis=1)
+    c_max = (1.0 - r) / np.where(last > 0, last, np.nan)
+    c_free = free_curvature(model, fit.params, yy, ww)
+    cov = fit.cov_unit * scale2[well, None, None]
+    cov[:, 2, :] /= c_max[:, None]
+    cov[:, :, 2] /= c_max[:, None]
+    var = bounded_ln_v0_var(cov, fit.params[:, 2] / c_max, c_free / c_max)
+    shape = (n_g, n_w)
+    return {"ln_v0": fit.params[:, 1].reshape(shape).T, "var": var.reshape(shape).T,
+            "rss": fit.rss.reshape(shape).T, "converged": fit.converged.reshape(shape).T}
+
+
 def start_quadratic(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
     """Coefficients ``[wells, 3]`` of ``y ≈ c0 + c1 u + c2 u²`` per well over the reads with ``w`` 1 (``u``
     the shared scaled time, in [0, 1]), from the moment sums (two matrix products and a closed-form 3x3
@@ -775,8 +816,6 @@ def progress_curve(
         u_free = free_curvature(make(t), fit.params, yy, ww)
         var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
     elif not known:
-        from vzero.plugins.rates.shapegrid import mixed_ln_v0_var, shape_profile
-
         fitted, _ = make(t)(fit.params, np.arange(todo.size))
         ln_var = mixed_ln_v0_var(shape_profile(t, yy, ww, d, fit.params, scale2), fit.params[:, 1], scale2)
         # where no shape's fit converged: the four-parameter delta method (on the large side far from completion)

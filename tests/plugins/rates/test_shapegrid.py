@@ -1,4 +1,5 @@
-"""The shape profile behind the standard error of a signal-unit progress curve (plugins/rates/shapegrid.py).
+"""The shape profile behind the standard error of a signal-unit progress curve (plugins/rates/shapegrid.py,
+and progress.shape_profile).
 
 Each piece is checked against an independent calculation: the conversion against scipy.optimize.brentq on
 the implicit rate law, the fixed-shape curve against scipy.integrate.solve_ivp on the Michaelis–Menten rate
@@ -12,14 +13,8 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq, least_squares
-from vzero.plugins.rates.progress import progress_curve
-from vzero.plugins.rates.shapegrid import (
-    SHAPE_GRID,
-    fixed_shape_model,
-    mixed_ln_v0_var,
-    shape_conversion,
-    shape_profile,
-)
+from vzero.plugins.rates.progress import progress_curve, shape_profile
+from vzero.plugins.rates.shapegrid import SHAPE_GRID, fixed_shape_model, mixed_ln_v0_var, shape_conversion
 
 T = np.arange(60) * 10.0
 
@@ -201,15 +196,15 @@ def test_bounded_curvature_by_truncated_normal() -> None:
 def test_signal_unit_progress_takes_the_mixture(monkeypatch: pytest.MonkeyPatch) -> None:
     # progress_curve without S0 reports SE(v0) = |v0| sqrt(mixture of ln v0's variance); where the mixture is
     # not finite (no shape's fit converged) it falls back to the four-parameter delta method
-    import vzero.plugins.rates.shapegrid as sg
+    import vzero.plugins.rates.progress as pg
 
     y = _curve(1.5e-3, 0.05, 0.8, 0.002, 5)
     base = progress_curve(T, y)
-    monkeypatch.setattr(sg, "mixed_ln_v0_var", lambda prof, lv, s2: np.full(lv.shape, 0.01**2))
+    monkeypatch.setattr(pg, "mixed_ln_v0_var", lambda prof, lv, s2: np.full(lv.shape, 0.01**2))
     fixed = progress_curve(T, y)
     np.testing.assert_array_equal(fixed.v0, base.v0)  # the SE changes, never v0
     np.testing.assert_allclose(fixed.stderr, 0.01 * np.abs(base.v0), rtol=1e-12)
-    monkeypatch.setattr(sg, "mixed_ln_v0_var", lambda prof, lv, s2: np.full(lv.shape, np.nan))
+    monkeypatch.setattr(pg, "mixed_ln_v0_var", lambda prof, lv, s2: np.full(lv.shape, np.nan))
     lost = progress_curve(T, y)
     assert np.all(np.isfinite(lost.stderr)) and np.all(lost.stderr > 0)
     assert not np.allclose(lost.stderr, base.stderr, rtol=1e-3)
