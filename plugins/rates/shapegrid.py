@@ -15,8 +15,9 @@ v0's variance allows for the curvature's bound at zero (a straight line) as
 :func:`vzero.plugins.rates.progress.bounded_ln_v0_var` does for known S0; and the variances are mixed with
 weights from each shape's likelihood, ``exp(-(RSS_r - RSS_min)/(2 sigma^2))`` (every shape in [0, 1) equally
 likely beforehand, as with known S0 every curvature is): the mean squared distance of ln v0 at the shapes the
-curve allows from the reported ln v0. Simulated calibration only (research use; defer to the lab's own
-validated procedures).
+curve allows from the reported ln v0. Measured on simulated replicate wells only: calibrated on clearly
+curving wells, still up to 1.6x the scatter on nearly straight ones, where nothing bounds the curvature from
+above without S0 (docs/rates.md). Research use; defer to the lab's own validated procedures.
 """
 
 from __future__ import annotations
