@@ -46,7 +46,7 @@ RATES = ["tests/plugins/rates/test_rate_fields.py", "tests/plugins/rates/test_la
          "tests/plugins/rates/test_se_quick.py", "tests/plugins/rates/test_rate_edges.py",
          "tests/plugins/rates/test_rate_parts.py",
          "tests/plugins/rates/test_rates_closed_form.py", "tests/plugins/rates/test_rates_kernels.py",
-         "tests/plugins/rates/test_progress_signal_se.py"]
+         "tests/plugins/rates/test_progress_signal_se.py", "tests/plugins/rates/test_shapegrid.py"]
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
 READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importers/test_time_formats.py",
            "tests/plugins/importers/test_readers.py",
@@ -84,6 +84,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/progress.py": ((), [*RATES, "tests/plugins/rates/test_power_order_bounds.py",
                                        "tests/plugins/rates/test_progress_fields.py",
                                        "tests/plugins/rates/test_progress_bounded_se.py"]),
+    "plugins/rates/shapegrid.py": ((), ["tests/plugins/rates/test_shapegrid.py"]),
     "plugins/rates/lagdecay.py": ((), RATES),
     "plugins/rates/choice.py": ((), CHOICE),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py",

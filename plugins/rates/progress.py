@@ -25,6 +25,7 @@ from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import Screen, blank_result, check_inputs, finish, flag_noisy, screen
 from vzero.plugins.rates.polynomial import inv3_hankel
+from vzero.plugins.rates.shapegrid import SHAPE_GRID, fixed_shape_model, mixed_ln_v0_var
 
 
 @dataclass(frozen=True)
@@ -607,6 +608,46 @@ def signal_ln_v0_var(t: np.ndarray, params: np.ndarray, fitted: np.ndarray, w: n
         return cov[:, 1, 1] / norm[:, 1] ** 2 * scale2
 
 
+def shape_profile(t: np.ndarray, y: np.ndarray, w: np.ndarray, d: np.ndarray, start: np.ndarray,
+                  scale2: np.ndarray, grid: tuple[float, ...] = SHAPE_GRID,
+                  max_iter: int = 40) -> dict[str, np.ndarray]:
+    """Fit every well without S0 at every fixed shape of ``grid`` (:mod:`vzero.plugins.rates.shapegrid`):
+    ``ln_v0``, ``var`` (ln v0's variance with the curvature bounded, :func:`bounded_ln_v0_var`), ``rss`` and
+    ``converged``, each ``[wells, shapes]``; the profile behind the standard error of the fit in signal units.
+
+    ``t`` ``[n]`` times (s); ``y`` ``[wells, n]`` reads with 0/1 weights ``w``; ``d`` the direction per
+    well; ``start`` ``[wells, 4]`` the four-parameter fit (baseline, ln v0, ln c1, logit r: start values);
+    ``scale2`` the residual variance per well (signal²). The fits run on block means of about
+    :data:`QUICK_BLOCKS` blocks (a linear compression of the reads, enough for a smooth three-parameter
+    curve, at a fraction of the work) and stop at :data:`QUICK_FTOL`; ``rss`` is the block fit's (its
+    differences between shapes are those of the reads up to the neglected curvature within a block). The
+    curvature lies in [0, (1 - r)/P_last] (from a straight line to an amplitude A no smaller than the
+    product formed by the last block): its posterior about the fit, normal in the linear approximation and
+    truncated to that range, replaces its unbounded variance.
+    """
+    n_w, n_g = y.shape[0], len(grid)
+    tb, yb, wb = block_means(t, y, w, max(t.size // QUICK_BLOCKS, 1))
+    r = np.repeat(np.asarray(grid, dtype=float), n_w)
+    well = np.tile(np.arange(n_w), n_g)
+    p0 = np.stack([start[well, 0], start[well, 1], np.exp(start[well, 2])], axis=1)
+    lo = np.stack([np.full(r.size, -np.inf), p0[:, 1] - 12.0, np.zeros(r.size)], axis=1)
+    hi = np.stack([np.full(r.size, np.inf), p0[:, 1] + 12.0, np.full(r.size, np.inf)], axis=1)
+    model = fixed_shape_model(tb[well], d[well], r)
+    yy, ww = yb[well], wb[well]
+    fit = fit_wells(model, p0, yy, ww, lower=lo, upper=hi, max_iter=max_iter, ftol=QUICK_FTOL)
+    fitted = fit.fitted if fit.fitted is not None else model(fit.params, np.arange(r.size))[0]
+    last = np.where(ww > 0, d[well, None] * (fitted - fit.params[:, 0:1]), -np.inf).max(axis=1)
+    c_max = (1.0 - r) / np.where(last > 0, last, np.nan)
+    c_free = free_curvature(model, fit.params, yy, ww)
+    cov = fit.cov_unit * scale2[well, None, None]
+    cov[:, 2, :] /= c_max[:, None]
+    cov[:, :, 2] /= c_max[:, None]
+    var = bounded_ln_v0_var(cov, fit.params[:, 2] / c_max, c_free / c_max)
+    shape = (n_g, n_w)
+    return {"ln_v0": fit.params[:, 1].reshape(shape).T, "var": var.reshape(shape).T,
+            "rss": fit.rss.reshape(shape).T, "converged": fit.converged.reshape(shape).T}
+
+
 def start_quadratic(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
     """Coefficients ``[wells, 3]`` of ``y ≈ c0 + c1 u + c2 u²`` per well over the reads with ``w`` 1 (``u``
     the shared scaled time, in [0, 1]), from the moment sums (two matrix products and a closed-form 3x3
@@ -650,9 +691,11 @@ def progress_curve(
     a fitted parameter itself, so its value stays sound there. With known S0 its standard error allows for
     the curvature's bounds (:func:`bounded_ln_v0_var`): SE 1.00-1.19x the scatter and 95 % intervals
     holding the truth 94-97 % of the time on curves far from completion (2000 wells per condition), except
-    S0 = Km with 12 % converted (98.5 %; docs/rates.md). Without S0 the standard error is that of four
-    parameters (:func:`signal_ln_v0_var`), two of them barely determined far from completion: it errs on the
-    large side there (1.4-3.1x the scatter; docs/rates.md, "Do the standard errors mean what they say?").
+    S0 = Km with 12 % converted (98.5 %; docs/rates.md). Without S0 the standard error comes from a profile
+    over the curve's shape (:mod:`vzero.plugins.rates.shapegrid`: fits at five fixed shapes mixed by their
+    likelihood; :func:`signal_ln_v0_var` only where none converges): calibrated on curving wells, still on the
+    large side where the curve is nearly straight (up to 1.6x the scatter, since nothing bounds the curvature
+    from above without S0; docs/rates.md, "Do the standard errors mean what they say?").
 
     ``model="power"`` fits instead a rate that falls as a power of the substrate left, ``v = v0 (1 -
     x)^n`` (:func:`power_conversion`; needs ``s0`` and ``signal_per_conc``), with fitted baseline, v0 and
@@ -774,7 +817,12 @@ def progress_curve(
         var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
     elif not known:
         fitted, _ = make(t)(fit.params, np.arange(todo.size))
-        var = v0**2 * signal_ln_v0_var(t, fit.params, fitted, ww, d, scale2)
+        ln_var = mixed_ln_v0_var(shape_profile(t, yy, ww, d, fit.params, scale2), fit.params[:, 1], scale2)
+        # where no shape's fit converged: the four-parameter delta method (on the large side far from completion)
+        lost = ~np.isfinite(ln_var)
+        if lost.any():
+            ln_var[lost] = signal_ln_v0_var(t, fit.params[lost], fitted[lost], ww[lost], d[lost], scale2[lost])
+        var = v0**2 * ln_var
     failed = ~fit.converged | ~(ratio <= fail_ratio) | ~np.isfinite(v0)
     out["v0"][todo], out["stderr"][todo] = v0, np.sqrt(np.abs(var))
     with np.errstate(invalid="ignore", divide="ignore"):
