@@ -55,7 +55,8 @@ READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importe
 HELPERS = "tests/plugins/rates/test_rate_helper_fields.py"
 CHOICE = [HELPERS, "tests/plugins/rates/test_choice_fields.py", "tests/plugins/rates/test_model_choice.py",
           "tests/plugins/rates/test_hillcurve.py", "tests/plugins/rates/test_same_reads.py",
-          "tests/plugins/rates/test_sicurve.py", "tests/plugins/rates/test_disagrees.py"]
+          "tests/plugins/rates/test_sicurve.py", "tests/plugins/rates/test_disagrees.py",
+          "tests/plugins/rates/test_poolshape.py"]
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
            "tests/pipeline/test_verify_digests.py::test_a_missing_results_group_is_reported"]
@@ -82,6 +83,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/choice.py": ((), CHOICE),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py"]),
     "plugins/rates/sicurve.py": ((), ["tests/plugins/rates/test_sicurve.py", *CHOICE[1:3]]),
+    "plugins/rates/poolshape.py": ((), ["tests/plugins/rates/test_poolshape.py"]),
     "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
                                      "tests/plugins/rates/test_imprecise.py",
