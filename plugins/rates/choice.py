@@ -584,7 +584,7 @@ def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_a
         ok = sc.usable & np.isfinite(out.v0)
         base0[ok] = _start_baseline(t, y[ok], sc.valid[ok], out.v0[ok])
     pc = pool_shape(t, y, sc.valid, s0_all, spc, sc.sigma, code, out.v0, out.se, base0, q.v0, q.se,
-                    lof_ratio=lof_ratio, agree_z=agree_z, min_reads=min_points)
+                    lof_ratio=lof_ratio, agree_z=agree_z, min_reads=min_points, smooth_misfit=smooth_misfit)
     r = np.flatnonzero(pc.take)
     out.v0[r], out.se[r], out.code[r], out.ratio[r] = pc.v0[r], pc.se[r], pc.code, pc.ratio[r]
     out.goodness[r] = np.nan

@@ -284,11 +284,14 @@ def shape_from_rates(family: str, s0: np.ndarray, v0: np.ndarray, se: np.ndarray
 POOL_MISFIT = 9.21
 
 
-def pooled_misfit(fit: PooledShape, t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray,
-                  spc: float, sigma: np.ndarray) -> np.ndarray:
-    """Per well of ``fit``, the smooth misfit of its curve with the plate's shape (read variances)."""
-    from vzero.plugins.rates.choice import smooth_misfit
+#: The smooth-misfit statistic: ``misfit(t, y, valid, curve, sigma)`` per well, ``curve(tb)`` the fitted curve
+#: at block times up to a constant (:func:`vzero.plugins.rates.choice.smooth_misfit`, passed in by the caller).
+Misfit = Callable[[np.ndarray, np.ndarray, np.ndarray, Callable[[np.ndarray], np.ndarray], np.ndarray], np.ndarray]
 
+
+def pooled_misfit(fit: PooledShape, t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray,
+                  spc: float, sigma: np.ndarray, smooth_misfit: Misfit) -> np.ndarray:
+    """Per well of ``fit``, the smooth misfit of its curve with the plate's shape (read variances)."""
     make = _hill_eval if fit.family == "hill" else _si_eval
     lv = np.log(fit.v0 / spc)
 
@@ -320,13 +323,14 @@ def _no_pool(n: int) -> PoolChoice:
 
 def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, spc: float, sigma: np.ndarray,
                code: np.ndarray, v0: np.ndarray, se: np.ndarray, base0: np.ndarray, q_v0: np.ndarray,
-               q_se: np.ndarray, *, lof_ratio: float, agree_z: float,
-               min_reads: int) -> PoolChoice:
+               q_se: np.ndarray, *, lof_ratio: float, agree_z: float, min_reads: int,
+               smooth_misfit: Misfit) -> PoolChoice:
     """Decide whether the plate's wells share a Hill or substrate-inhibition shape, and which wells take it.
 
     Per well (arrays ``[n]``): reads ``y`` / ``valid``, ``s0`` (concentration; NaN where unknown), read noise
     ``sigma``, the per-well choice so far (model ``code``, ``v0``, ``se`` signal/s, start baseline
-    ``base0``), the early quadratic's ``q_v0`` and ``q_se``; ``min_reads`` the least counted reads.
+    ``base0``), the early quadratic's ``q_v0`` and ``q_se``; ``min_reads`` the least counted reads;
+    ``smooth_misfit`` the statistic of point 4 (:data:`Misfit`).
 
     1. The plate is a candidate for a family when at least :data:`MIN_EVIDENCE` wells kept that family's
        per-well curve (model 4 Hill, 5 substrate inhibition); otherwise nothing is fitted.
@@ -367,7 +371,7 @@ def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, 
         return _no_pool(n)
     out = _no_pool(n)
     out.v0[rows], out.se[rows], out.ratio[rows] = best.v0, best.se, best.ratio
-    misfit = pooled_misfit(best, t, y[rows], valid[rows], s0[rows], spc, sigma[rows])
+    misfit = pooled_misfit(best, t, y[rows], valid[rows], s0[rows], spc, sigma[rows], smooth_misfit)
     with np.errstate(invalid="ignore"):
         take = (np.isfinite(best.v0) & np.isfinite(best.se) & (best.ratio <= lof_ratio) & (misfit <= POOL_MISFIT)
                 & (np.abs(best.v0 - q_v0[rows]) <= agree_z * q_se[rows]))

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.optimize import curve_fit
-from vzero.plugins.rates.choice import model_choice
+from vzero.plugins.rates.choice import model_choice, smooth_misfit
 from vzero.plugins.rates.poolshape import (
     POOLED_CODES,
     _bordered_solve,
@@ -178,7 +178,8 @@ def test_michaelis_menten_plate_never_gets_a_pooled_hill_shape() -> None:
         y, v0 = plate(rate, s, 6e-4 if rate is mm_rate else HILL["vmax"], 0.002, 7)
         sigma = np.full(s.size, 0.002)
         pc = pool_shape(T, y, np.ones(y.shape, bool), s, SPC, sigma, _evidence(s.size, (2, 4), 4.0), v0 * 1.01,
-                        v0 * 0.01, y[:, 0], v0, v0 * 0.05, lof_ratio=1.4, agree_z=2.0, min_reads=8)
+                        v0 * 0.01, y[:, 0], v0, v0 * 0.05, lof_ratio=1.4, agree_z=2.0, min_reads=8,
+                        smooth_misfit=smooth_misfit)
         assert pc.take.any() == want
         if want:
             assert pc.fit is not None and pc.fit.shape[0] == pytest.approx(HILL["h"], rel=0.05)
@@ -188,7 +189,7 @@ def test_no_evidence_no_joint_fit_and_unknown_substrate_never_pooled() -> None:
     y, v0 = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 8)
     sigma = np.full(S_HILL.size, 0.002)
     args = (T, y, np.ones(y.shape, bool))
-    kw = {"lof_ratio": 1.4, "agree_z": 2.0, "min_reads": 8}
+    kw = {"lof_ratio": 1.4, "agree_z": 2.0, "min_reads": 8, "smooth_misfit": smooth_misfit}
     none = pool_shape(*args, S_HILL, SPC, sigma, _evidence(9, (), 4.0), v0, v0 * 0.01, y[:, 0], v0, v0 * 0.05, **kw)
     assert none.fit is None and not none.take.any()
     s0 = S_HILL.copy()
@@ -229,3 +230,45 @@ def test_michaelis_menten_plate_is_unchanged_by_the_step() -> None:
         old = model_choice(T, y, s0=s0, signal_per_conc=SPC, pool_shape=False)
         assert not np.any(new.extra["model"] >= 6)
         np.testing.assert_array_equal(new.v0, old.v0)
+
+
+def test_a_well_whose_curve_leaves_a_smooth_misfit_keeps_its_own_choice() -> None:
+    # the per-well check of point 4 (docs/rates.md, step 9): the misfit statistic is passed in, so one well's
+    # value is set on either side of POOL_MISFIT (chi² with two degrees of freedom at 1 %, scipy.stats.chi2)
+    from scipy.stats import chi2
+    from vzero.plugins.rates.poolshape import POOL_MISFIT
+
+    assert POOL_MISFIT == pytest.approx(chi2.ppf(0.99, 2), abs=0.01)
+    y, v0 = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 9)
+    sigma = np.full(S_HILL.size, 0.002)
+    taken = []
+    for value in (POOL_MISFIT - 0.05, POOL_MISFIT + 0.05):
+        def fake(t: np.ndarray, yy: np.ndarray, valid: np.ndarray, curve: object, sig: np.ndarray,
+                 value: float = value) -> np.ndarray:
+            out = np.zeros(yy.shape[0])
+            out[4] = value
+            return out
+
+        pc = pool_shape(T, y, np.ones(y.shape, bool), S_HILL, SPC, sigma, _evidence(9, (5,), 4.0), v0, v0 * 0.01,
+                        y[:, 0], v0, v0 * 0.05, lof_ratio=1.4, agree_z=2.0, min_reads=8, smooth_misfit=fake)
+        taken.append(pc.take.copy())
+    assert taken[0].all()
+    assert not taken[1][4] and taken[1][np.arange(9) != 4].all()
+
+
+def test_pooled_misfit_is_small_for_the_plate_shape_and_large_for_another() -> None:
+    # reference curves: scipy's Radau; with the plate's shape right the statistic is chi²-sized (read noise
+    # only), while a Michaelis–Menten well (Km 0.3 mM) fitted with the Hill plate's shape leaves a large one
+    y, v0 = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 10)
+    sigma = np.full(S_HILL.size, 0.002)
+    valid = np.ones(y.shape, bool)
+    fit = fit_pooled("hill", T, y, valid, S_HILL, SPC, sigma, np.array([2.0, 0.4]), v0, y[:, 0])
+    from vzero.plugins.rates.poolshape import pooled_misfit
+
+    right = pooled_misfit(fit, T, y, valid, S_HILL, SPC, sigma, smooth_misfit)
+    assert np.all(right < 13.8)  # chi² with 2 degrees of freedom at 0.1 % (scipy.stats.chi2.ppf(0.999, 2))
+    y_mm = y.copy()
+    y_mm[6] = 0.05 + radau_signal(lambda s, vm: vm * s / (0.3 + s), S_HILL[6:7], np.array([4e-4]))[0]
+    fit_mm = fit_pooled("hill", T, y_mm, valid, S_HILL, SPC, sigma, np.array([2.0, 0.4]), v0, y_mm[:, 0])
+    wrong = pooled_misfit(fit_mm, T, y_mm, valid, S_HILL, SPC, sigma, smooth_misfit)
+    assert wrong[6] > 13.8
