@@ -232,13 +232,16 @@ def fit_pooled(family: str, t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0:
     dof = float(n_reads.sum() - 2.0 * s0.size - 2.0)
     scale = max(cost / max(dof, 1.0), 1.0)
     cov_g = np.linalg.pinv(schur) * scale
-    # per-well covariance of (baseline, ln v0): C^-1 + C^-1 B Cov_g B^T C^-1 (the bordered inverse)
-    ci_b = np.einsum("nij,njk->nik", ci, b)
-    var_lv = scale * ci[:, 1, 1] + np.einsum("ni,ij,nj->n", ci_b[:, 1], cov_g, ci_b[:, 1])
-    v0 = spc * np.exp(lv)
     rss = np.sum(valid * r * r, axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = np.sqrt(rss / np.fmax(n_reads - 2.0, 1.0)) / sigma
+    # per-well covariance of (baseline, ln v0): C^-1 + C^-1 B Cov_g B^T C^-1 (the bordered inverse); the
+    # well's own block scaled by the larger of its own residual variance and its read variance (as the
+    # per-well curves' SEs are), the shape's by the plate's
+    ci_b = np.einsum("nij,njk->nik", ci, b)
+    own = np.fmax(np.nan_to_num(ratio, nan=1.0) ** 2, 1.0)
+    var_lv = own * ci[:, 1, 1] + np.einsum("ni,ij,nj->n", ci_b[:, 1], cov_g, ci_b[:, 1])
+    v0 = spc * np.exp(lv)
     return PooledShape(family, np.exp(g), cov_g, v0, np.abs(v0) * np.sqrt(np.abs(var_lv)), rss, ratio, base,
                        cost, dof, converged and bool(np.all(np.isfinite(lv))))
 

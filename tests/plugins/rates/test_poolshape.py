@@ -127,24 +127,47 @@ def test_bordered_step_equals_the_dense_normal_equations() -> None:
     assert dg == pytest.approx(step[2 * n:], rel=1e-9, abs=1e-12)
 
 
+def _dense_se(fit: object, y: np.ndarray, sigma: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """v0's SE without any scaling, from the dense inverse of the full normal matrix at the fit (numpy), the
+    shape block of that inverse, and the per-well Jacobian of ln v0 (for the SE with the shape held)."""
+    f = _hill_eval(T, S_HILL, SPC)
+    _, jl, jg = f(np.log(fit.shape), fit.baseline, np.log(fit.v0 / SPC))  # type: ignore[attr-defined]
+    w = np.ones(y.shape) / sigma[:, None] ** 2
+    cov = np.linalg.inv((lambda a: a.T @ a)(_dense(jl, jg, w)))
+    return fit.v0 * np.sqrt(np.diag(cov)[1:2 * S_HILL.size:2]), cov[-2:, -2:], jl  # type: ignore[attr-defined]
+
+
 def test_rate_standard_errors_carry_the_shapes_uncertainty() -> None:
-    # reference: the diagonal of the dense inverse of the full normal matrix at the optimum (numpy.linalg.inv),
-    # scaled by the reduced chi-square where it is above 1: the delta method through the joint covariance
+    # reference: the diagonal of the dense inverse of the full normal matrix at the optimum (numpy.linalg.inv):
+    # the delta method through the joint covariance. The read noise is stated a little above the reads'
+    # scatter (0.0025 for 0.002), so that no variance is scaled up and the two must agree exactly
     y, v0 = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 5)
     valid = np.ones(y.shape, bool)
-    sigma = np.full(S_HILL.size, 0.002)
+    sigma = np.full(S_HILL.size, 0.0025)
     fit = fit_pooled("hill", T, y, valid, S_HILL, SPC, sigma, np.array([2.0, 0.4]), v0, y[:, 0])
-    f = _hill_eval(T, S_HILL, SPC)
-    _, jl, jg = f(np.log(fit.shape), fit.baseline, np.log(fit.v0 / SPC))
-    cov = np.linalg.inv((lambda a: a.T @ a)(_dense(jl, jg, valid / sigma[:, None] ** 2)))
-    scale = max(fit.chi2 / fit.dof, 1.0)
-    se_dense = fit.v0 * np.sqrt(scale * np.diag(cov)[1:2 * S_HILL.size:2])
+    assert np.all(fit.ratio < 1.0) and fit.chi2 < fit.dof
+    se_dense, cov_shape, jl = _dense_se(fit, y, sigma)
     assert fit.se == pytest.approx(se_dense, rel=1e-6)
-    assert fit.shape_cov == pytest.approx(scale * cov[-2:, -2:], rel=1e-6)
+    assert fit.shape_cov == pytest.approx(cov_shape, rel=1e-6)
     # and the shape's share is real: each well's SE with the shape held is smaller
-    held = fit.v0 * np.sqrt(scale / np.einsum("nit,nt,nit->n", jl[:, 1:2], valid / sigma[:, None] ** 2,
-                                               jl[:, 1:2]))
+    held = fit.v0 * np.sqrt(1.0 / np.einsum("nt,nt->n", jl[:, 1] ** 2, valid / sigma[:, None] ** 2))
     assert np.all(fit.se > held)
+
+
+def test_rate_standard_errors_grow_with_the_residual_scatter() -> None:
+    # the read noise stated at half the reads' scatter: the variances are scaled up by the wells' own residual
+    # variance (own block) and the plate's (shape block), so each SE over the dense unscaled one lies
+    # between the two scales (reference as above, numpy's dense inverse)
+    y, v0 = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 6)
+    sigma = np.full(S_HILL.size, 0.001)
+    fit = fit_pooled("hill", T, y, np.ones(y.shape, bool), S_HILL, SPC, sigma, np.array([2.0, 0.4]), v0, y[:, 0])
+    se_dense, _, _ = _dense_se(fit, y, sigma)
+    own, plate_scale = fit.ratio**2, fit.chi2 / fit.dof
+    assert np.all(own > 2.5) and plate_scale > 2.5
+    got = (fit.se / se_dense) ** 2
+    assert np.all(got >= np.fmin(own, plate_scale) * (1 - 1e-9))
+    assert np.all(got <= np.fmax(own, plate_scale) * (1 + 1e-9))
+    assert not np.allclose(got, plate_scale, rtol=1e-3)  # the wells' own scatter counts, not the plate's alone
 
 
 @pytest.mark.parametrize("family", ["hill", "substrate-inhibition"])
