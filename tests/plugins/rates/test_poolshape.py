@@ -295,3 +295,20 @@ def test_pooled_misfit_is_small_for_the_plate_shape_and_large_for_another() -> N
     fit_mm = fit_pooled("hill", T, y_mm, valid, S_HILL, SPC, sigma, np.array([2.0, 0.4]), v0, y_mm[:, 0])
     wrong = pooled_misfit(fit_mm, T, y_mm, valid, S_HILL, SPC, sigma, smooth_misfit)
     assert wrong[6] > 13.8
+
+
+def test_falling_signal_plate_takes_the_shape_with_the_right_sign() -> None:
+    # a substrate read directly (signal falls as it is used: signal per concentration -3.4 AU/mM, invented);
+    # reference curves: scipy's Radau of the Hill law; the plate's shape recovers h and every v0 keeps its sign
+    scale = np.linspace(0.8, 1.2, 9)
+    y, v0 = plate(hill_rate, S_HILL, HILL["vmax"], 0.0, 0, scale)
+    y_fall, v_fall = 2.0 - (y - 0.05), -v0
+    fit = fit_pooled("hill", T, y_fall, np.ones(y.shape, bool), S_HILL, -SPC, np.full(9, 1e-4),
+                     np.array([1.8, 0.4]), v_fall * 1.1, y_fall[:, 0])
+    assert fit.converged and fit.shape == pytest.approx([HILL["h"], HILL["k"]], rel=1e-4)
+    assert fit.v0 == pytest.approx(v_fall, rel=1e-5) and np.all(fit.v0 < 0)
+    noisy = y_fall + 0.002 * np.random.default_rng(12).standard_normal(y.shape)
+    r = model_choice(T, noisy, s0=S_HILL, signal_per_conc=-SPC)
+    pooled = r.extra["model"] == POOLED_CODES["hill"]
+    assert pooled.sum() >= 5
+    assert np.all(np.abs(r.v0[pooled] / v_fall[pooled] - 1.0) < 4 * r.stderr[pooled] / np.abs(v_fall[pooled]))
