@@ -59,7 +59,7 @@ CHOICE = [HELPERS, "tests/plugins/rates/test_choice_fields.py", "tests/plugins/r
           "tests/plugins/rates/test_choice_time_origin.py", "tests/plugins/rates/test_choice_triggers.py",
           "tests/plugins/rates/test_choice_shape_step.py", "tests/plugins/rates/test_choice_hill_step.py",
           "tests/plugins/rates/test_choice_power_step.py", "tests/plugins/rates/test_choice_reports.py",
-          "tests/plugins/rates/test_choice_late_steps.py"]
+          "tests/plugins/rates/test_choice_late_steps.py", "tests/plugins/rates/test_poolshape.py"]
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
            "tests/pipeline/test_verify_digests.py::test_a_missing_results_group_is_reported"]
@@ -91,6 +91,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
                                         "tests/plugins/rates/test_curve_jacobian_shape.py"]),
     "plugins/rates/sicurve.py": ((), ["tests/plugins/rates/test_sicurve.py", *CHOICE[1:3],
                                       "tests/plugins/rates/test_curve_jacobian_shape.py"]),
+    "plugins/rates/poolshape.py": ((), ["tests/plugins/rates/test_poolshape.py"]),
     "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
                                      "tests/plugins/rates/test_imprecise.py",

@@ -174,16 +174,18 @@ class ModelChoiceRates(KernelRates):
     quadratic through the reads up to 20 % conversion; no curve is fitted where the quadratic already holds
     every read and its third-order bias is negligible, and a power-law curve on the quadratic's own reads
     gives way to the quadratic unless its expected error is the smaller; wells with a lag get the lag/decay
-    model. Single-read spikes are masked first (docs/rates.md)."""
+    model. Where wells show a Hill or substrate-inhibition shape, one shape is fitted for the whole plate
+    and given to the wells it describes. Single-read spikes are masked first (docs/rates.md)."""
 
     #: 1.2: steps 6d (power law on the quadratic's own reads) and 6e (substrate-inhibition curve); without
-    #: s0 its curves' standard errors follow `progress` 1.1
-    method, version = "model-choice", "1.2"
+    #: s0 its curves' standard errors follow `progress` 1.1. 1.3: step 9, the plate's Hill or
+    #: substrate-inhibition shape fitted jointly over its wells (models 6 and 7; `pool_shape`)
+    method, version = "model-choice", "1.3"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
                "within the noise, else early quadratic; spikes masked")
     function = "vzero.plugins.rates.choice:model_choice"
-    kernel_params = ("min_points", "lof_ratio", "agree_z", "window_conversion", "find_lag")
+    kernel_params = ("min_points", "lof_ratio", "agree_z", "window_conversion", "find_lag", "pool_shape")
     params = {
         **CONVERSION_PARAMS,
         "min_points": Param("int", 8, "reads needed for any estimate", low=4),
@@ -195,6 +197,9 @@ class ModelChoiceRates(KernelRates):
         "window_conversion": Param("float", 0.20, "fraction of substrate converted up to which the fallback "
                                    "quadratic is fitted", low=0.01, high=1.0),
         "find_lag": Param("bool", True, "use the lag/decay model on wells with a detected lag"),
+        "pool_shape": Param("bool", True, "where wells show a Hill or substrate-inhibition shape, fit one shape "
+                            "for the whole plate (one enzyme per plate) and give it to the wells it describes; "
+                            "false for plates that mix enzymes or inhibitor levels"),
     }
 
     def finds_lags(self) -> bool:

@@ -40,7 +40,11 @@ Per well, all wells at once:
 8. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
    Michaelis–Menten curve on the enzyme's active time (:mod:`vzero.plugins.rates.lagfit`): v0 is the rate
    with fully active enzyme at t = 0 and ``lag_s`` the fitted lag time (without s0 and signal_per_conc:
-   :func:`vzero.plugins.rates.lagdecay.lag_decay`).
+   :func:`vzero.plugins.rates.lagdecay.lag_decay`);
+9. where at least one well kept the Hill (step 6b/6c) or the substrate-inhibition curve (6e), one shape is
+   fitted for the whole plate (one ``h`` and ``K0.5``, or one ``Km`` and ``Ki``; per well a baseline and v0)
+   and given to the wells it describes (:func:`_pool_hook`, :mod:`vzero.plugins.rates.poolshape`; codes 6
+   and 7): one enzyme per plate has one rate law. ``pool_shape=False`` turns it off.
 
 Reads next to a block of missing reads at the start or end of a well (saturation) are masked first
 (``censored_reads``, see :data:`CENSORED_READS`).
@@ -48,7 +52,8 @@ Reads next to a block of missing reads at the start or end of a well (saturation
 Needs ``s0`` and ``signal_per_conc``; without them the Michaelis–Menten curve is fitted in signal units and
 the quadratic window is the first third of the reads. ``extra['model']`` says which estimate each well got
 (0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag model, 4 Hill curve, 5
-substrate-inhibition curve);
+substrate-inhibition curve, 6 Hill curve with the plate's shape, 7 substrate-inhibition curve with the plate's
+shape);
 ``extra['rate_t']`` is
 v0 over its standard error; ``extra['misfit']`` the smooth misfit statistic of step 6c (read variances, NaN
 where no kept curve was tested). NOISY as for every method (relative SE above 10 %; includes every rate not
@@ -72,7 +77,7 @@ from vzero.plugins.rates.progress import QUICK_BLOCKS, block_means, integrated_m
 from vzero.plugins.rates.spikes import find_spikes
 
 MODEL_CODES = {"michaelis-menten": 0, "power": 1, "quadratic": 2, "lag-decay": 3, "hill": 4,
-               "substrate-inhibition": 5}
+               "substrate-inhibition": 5, "plate-hill": 6, "plate-substrate-inhibition": 7}
 
 
 #: Reads masked next to a block of missing reads at the start or the end of a well (saturated reads: the
@@ -563,6 +568,30 @@ def _inhibition_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic
     out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
 
 
+def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_all: np.ndarray, spc: float,
+               flags: np.ndarray, out: _Estimates, first: np.ndarray, *, lof_ratio: float, agree_z: float,
+               min_points: int) -> None:
+    """Step 9: the plate's shape (:func:`vzero.plugins.rates.poolshape.pool_shape`) for the wells that take
+    it (codes 6 Hill, 7 substrate inhibition); wells flagged LAG or DECAY are left out. In place."""
+    from vzero.plugins.rates.poolshape import pool_shape
+
+    n_w = y.shape[0]
+    code = np.where((flags & int(Flag.LAG | Flag.DECAY)) != 0, np.nan, out.code)
+    if not np.isin(code, (4.0, 5.0)).any():
+        return
+    with np.errstate(invalid="ignore"):
+        base0 = np.full(n_w, np.nan)
+        ok = sc.usable & np.isfinite(out.v0)
+        base0[ok] = _start_baseline(t, y[ok], sc.valid[ok], out.v0[ok])
+    pc = pool_shape(t, y, sc.valid, s0_all, spc, sc.sigma, code, out.v0, out.se, base0, q.v0, q.se,
+                    lof_ratio=lof_ratio, agree_z=agree_z, min_reads=min_points, smooth_misfit=smooth_misfit)
+    r = np.flatnonzero(pc.take)
+    out.v0[r], out.se[r], out.code[r], out.ratio[r] = pc.v0[r], pc.se[r], pc.code, pc.ratio[r]
+    out.goodness[r] = np.nan
+    last = t.size - 1 - np.argmax(sc.valid[r][:, ::-1], axis=1)
+    out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
+
+
 def model_choice(
     time: np.ndarray,
     signal: np.ndarray,
@@ -576,6 +605,7 @@ def model_choice(
     agree_z: float = AGREE_Z,
     censored_reads: int = CENSORED_READS,
     find_lag: bool = True,
+    pool_shape: bool = True,
 ) -> RateResult:
     """Initial rate (signal/s) per well by the model the well's own reads support; see the module text."""
     t = np.asarray(time, dtype=float)
@@ -703,6 +733,9 @@ def model_choice(
     if known:
         _decay_model(t, y, s0_all, spc, code, v0, se, flags, extra, w_start, order,
                      lof_ratio=lof_ratio, min_points=min_points)
+        if pool_shape:
+            _pool_hook(t, y, sc, q, s0_all, spc, flags, est, first, lof_ratio=lof_ratio, agree_z=agree_z,
+                       min_points=min_points)
     failed = sc.usable & ~np.isfinite(v0)
     flags[failed] |= int(Flag.FIT_FAILED)
     bad = (flags & int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)) != 0

@@ -75,7 +75,8 @@ def test_default_takes_the_hill_curve_where_the_power_law_runs_high() -> None:
     # holds it constant and runs high (docs/rates.md measured 3.7-4.8 % at 0.3-0.4 mM)
     y, v_true = hill_plate(0.4, 48, seed=3)
     s0 = np.full(48, 0.4)
-    mc = model_choice(T, y, s0=s0, signal_per_conc=SPC)
+    # the per-well step alone (the plate's shape of step 9 would take these wells: test_poolshape.py)
+    mc = model_choice(T, y, s0=s0, signal_per_conc=SPC, pool_shape=False)
     pw = progress_curve(T, y, s0=s0, signal_per_conc=SPC, model="power")
     err_mc, err_pw = mc.v0 / v_true - 1.0, pw.v0 / v_true - 1.0
     assert np.mean(mc.extra["model"] == 4) >= 0.5
@@ -134,7 +135,8 @@ def test_default_replaces_a_michaelis_menten_curve_that_fits_a_cooperative_well_
     # integration of simulate_plate (scipy.integrate.solve_ivp)
     y, v_true = hill_plate(0.6, 48, seed=5)
     s0 = np.full(48, 0.6)
-    mc = model_choice(T, y, s0=s0, signal_per_conc=SPC)
+    # the per-well step alone (the plate's shape of step 9 would take these wells: test_poolshape.py)
+    mc = model_choice(T, y, s0=s0, signal_per_conc=SPC, pool_shape=False)
     mm = progress_curve(T, y, s0=s0, signal_per_conc=SPC)
     err_mc, err_mm = mc.v0 / v_true - 1.0, mm.v0 / v_true - 1.0
     assert np.median(mm.extra["rmse_over_noise"]) < 1.4  # the curve describes the reads within the noise

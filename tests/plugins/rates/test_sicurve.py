@@ -92,7 +92,8 @@ def test_default_takes_the_inhibition_curve_where_the_power_law_runs_high() -> N
     # holds it constant and runs 0.4 % high (docs/rates.md, model-choice step 6d); the curve removes that
     y, v_true = inhibited_wells(1.5, 120, seed=3)
     s0 = np.full(120, 1.5)
-    mc = model_choice(T, y, s0=s0, signal_per_conc=SPC)
+    # the per-well step alone (the plate's shape of step 9 would take these wells: test_poolshape.py)
+    mc = model_choice(T, y, s0=s0, signal_per_conc=SPC, pool_shape=False)
     pw = progress_curve(T, y, s0=s0, signal_per_conc=SPC, model="power", quick=True)
     err_mc, err_pw = mc.v0 / v_true - 1.0, pw.v0 / v_true - 1.0
     assert np.mean(mc.extra["model"] == 5) >= 0.6
