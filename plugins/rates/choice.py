@@ -671,7 +671,8 @@ def model_choice(
     lag_s = np.where(sc.usable, 0.0, np.nan)
     extra = {"rmse_over_noise": ratio, "read_noise": sigma, "k_decay": np.full(n_w, np.nan)}
     if find_lag:
-        _, lag_all, has_lag = detect_lag(t, y, sc)
+        # no spike found: the reads are unchanged, and the lag detector's own search would find none either
+        _, lag_all, has_lag = detect_lag(t, y, sc, spike_free=not spikes.any())
         lag_s = np.where(has_lag, lag_all, lag_s)
         flags[has_lag] |= int(Flag.LAG)
         if has_lag.any() and known:
