@@ -90,6 +90,8 @@ def trim_censored(y: np.ndarray, k: int) -> np.ndarray:
         return y
     n_t = y.shape[1]
     valid = np.isfinite(y)
+    if valid.all():  # no missing read: nothing to mask
+        return y
     first = np.argmax(valid, axis=1)
     last = n_t - 1 - np.argmax(valid[:, ::-1], axis=1)
     idx = np.arange(n_t)[None, :]
