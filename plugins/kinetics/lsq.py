@@ -182,7 +182,7 @@ def solve(
                 rhs = np.where(hold, 0.0, grad)
             else:
                 rhs = grad
-            bad = ~np.all(np.isfinite(damp), axis=(1, 2)) | ~np.all(np.isfinite(rhs), axis=1)
+            bad = ~(np.isfinite(damp).all(axis=(1, 2)) & np.isfinite(rhs).all(axis=1))
             if bad.any():
                 damp[bad] = eye
                 rhs = np.where(bad[:, None], 0.0, rhs)
@@ -204,7 +204,7 @@ def solve(
             nfev[sel] += 1
             better = np.isfinite(ct) & (ct <= cost_a) & ~bad
             rel_cost = (cost_a - ct) / np.fmax(cost_a, 1e-300)
-            tiny_step = np.all(np.abs(trial - pa) <= xtol * (np.abs(pa) + xtol), axis=1)
+            tiny_step = np.all(np.abs(trial - pa) <= near, axis=1)  # near: xtol * (|p| + xtol), as above
             if whole and better.all():  # every step accepted: take the new arrays as they are
                 p, r, jac, cost = trial, rt, jt, ct
             else:
@@ -230,12 +230,44 @@ def _toward_bounds(p: np.ndarray, trial: np.ndarray, lo: np.ndarray, hi: np.ndar
 
 def unit_covariance(jac: np.ndarray) -> np.ndarray:
     """``(J Jᵀ)⁻¹`` per problem from a weighted Jacobian ``[g, p, n]`` (NaN where singular or not finite): the
-    covariance of the parameters for unit residual variance; multiply by the residual variance."""
+    covariance of the parameters for unit residual variance; multiply by the residual variance. Three
+    parameters (every rate curve with known substrate) by :func:`sym3_inverse`, others by numpy.linalg."""
     a = jac @ jac.transpose(0, 2, 1)
     eye = np.eye(a.shape[1])
     finite = np.all(np.isfinite(a), axis=(1, 2))
+    if a.shape[1] == 3:
+        cov = sym3_inverse(np.where(finite[:, None, None], a, eye))
+        cov[~finite | ~np.all(np.isfinite(cov), axis=(1, 2))] = np.nan
+        return cov
     bad = ~finite | (np.abs(np.linalg.det(np.where(finite[:, None, None], a, eye))) == 0)
     a[bad] = eye
     cov = np.linalg.inv(a)
     cov[bad] = np.nan
     return cov
+
+
+def sym3_inverse(a: np.ndarray) -> np.ndarray:
+    """Inverses ``[m, 3, 3]`` of symmetric 3x3 matrices ``a`` ``[m, 3, 3]`` (the lower triangle is not read)
+    by cofactors, in closed form: for the many small systems of a batched fit, ``numpy.linalg.inv`` spends
+    most of its time on per-matrix overhead.
+
+    Each matrix is first scaled to unit diagonal, ``S = D a D`` with ``D = diag(a)^-1/2`` (the inverse is
+    ``D S⁻¹ D``), so that parameters of very different scales (a baseline in signal units beside a log-rate)
+    lose no digits to the scaling. Not finite (inf or NaN) where the matrix is singular or a diagonal entry
+    is not positive: the caller checks. Checked against ``numpy.linalg.inv`` in tests/plugins/kinetics.
+    """
+    with np.errstate(all="ignore"):
+        d = 1.0 / np.sqrt(np.diagonal(a, axis1=1, axis2=2))  # [m, 3]; NaN/inf where a diagonal entry <= 0
+        d0, d1, d2 = d[:, 0], d[:, 1], d[:, 2]
+        s01, s02, s12 = a[:, 0, 1] * d0 * d1, a[:, 0, 2] * d0 * d2, a[:, 1, 2] * d1 * d2
+        c00, c11, c22 = 1.0 - s12 * s12, 1.0 - s02 * s02, 1.0 - s01 * s01
+        c01, c02, c12 = s02 * s12 - s01, s01 * s12 - s02, s01 * s02 - s12
+        inv_det = 1.0 / (c00 + s01 * c01 + s02 * c02)
+        out = np.empty(a.shape)
+        out[:, 0, 0] = c00 * inv_det * d0 * d0
+        out[:, 1, 1] = c11 * inv_det * d1 * d1
+        out[:, 2, 2] = c22 * inv_det * d2 * d2
+        out[:, 0, 1] = out[:, 1, 0] = c01 * inv_det * d0 * d1
+        out[:, 0, 2] = out[:, 2, 0] = c02 * inv_det * d0 * d2
+        out[:, 1, 2] = out[:, 2, 1] = c12 * inv_det * d1 * d2
+    return out

@@ -71,7 +71,10 @@ def fit_wells(
     tol = WELL_TOLERANCES if ftol is None else {**WELL_TOLERANCES, "ftol": ftol}
     sol = lsq.solve(fun, p0, y, w, lower=lower, upper=upper, max_iter=max_iter, lam0=lam0, **tol)
     with np.errstate(invalid="ignore", divide="ignore"):
-        fitted = np.where(w > 0, sol.resid / w + np.where(w > 0, y, 0.0), np.nan)
+        if np.all(w > 0):  # every point counts: no masks needed
+            fitted = sol.resid / w + y
+        else:
+            fitted = np.where(w > 0, sol.resid / w + np.where(w > 0, y, 0.0), np.nan)
     return LMFit(sol.params, sol.cost, fit_wells_tss(y, w), lsq.unit_covariance(sol.jac),
                  (sol.converged | sol.stalled) & np.isfinite(sol.cost), sol.n_iter, fitted)
 
@@ -136,7 +139,8 @@ def _substrate_left(
     arg += np.log(s0 / km)
     s = wright_omega(arg)
     s *= km
-    np.clip(s, 1e-300, s0, out=s)
+    np.maximum(s, 1e-300, out=s)  # np.clip's values, without its per-call overhead
+    np.minimum(s, s0, out=s)
     return s, vt
 
 
