@@ -116,8 +116,12 @@ def solve(
     held = ~np.broadcast_to(np.ones(n_p, bool) if free is None else np.asarray(free, bool), p.shape)
     p = np.clip(p, lo, hi)
     eye = np.eye(n_p)
+    diag_idx = np.arange(n_p)
     all_rows = np.arange(g)
     unit = bool(np.all(w == 1.0))  # every point counts with weight 1: no weighting to apply
+    zero = None if unit else w == 0  # points that do not count
+    if zero is not None and not zero.any():
+        zero = None
     any_held = bool(held.any())
 
     def evaluate(v: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -125,12 +129,14 @@ def solve(
         f, jac = model(v, rows)
         whole = rows.size == g
         r = np.subtract(f, y0 if whole else y0[rows])
-        jw = np.array(jac, dtype=float)  # a copy: the model's array is left alone
-        if not unit:
+        if unit:
+            jw = np.array(jac, dtype=float)  # a copy: the model's array is left alone
+        else:
             wr = w if whole else w[rows]
             r *= wr
-            np.copyto(r, 0.0, where=wr == 0)  # a point that does not count, even where the model is not finite
-            jw *= wr[:, None, :]
+            if zero is not None:  # a point that does not count, even where the model is not finite
+                np.copyto(r, 0.0, where=zero if whole else zero[rows])
+            jw = np.multiply(jac, wr[:, None, :])  # a new array: the model's is left alone
         if not np.isfinite(jw.sum()):
             jw[~np.isfinite(jw)] = 0.0
         if any_held:
@@ -154,48 +160,61 @@ def solve(
                 it -= 1
                 break
             whole = act.size == g
+            # while every problem is active, plain views instead of gathered copies
+            sel = slice(None) if whole else act
             ja, ra, pa = (jac, r, p.copy()) if whole else (jac[act], r[act], p[act])
+            lo_a, hi_a, cost_a, lam_a = lo[sel], hi[sel], cost[sel], lam[sel]
             a = ja @ ja.transpose(0, 2, 1)
             grad = (ja @ ra[:, :, None])[:, :, 0]  # gradient of cost/2
             diag = np.diagonal(a, axis1=1, axis2=2)
             scale = diag + 1e-12 * diag.max(axis=1, keepdims=True) + 1e-300
-            gnorm = np.max(np.abs(grad) / np.sqrt(scale), axis=1) / np.sqrt(np.fmax(cost[act], 1e-300))
+            gnorm = np.max(np.abs(grad) / np.sqrt(scale), axis=1) / np.sqrt(np.fmax(cost_a, 1e-300))
             # held: by the caller, or on a bound with the descent direction (-grad) pointing outward
             near = xtol * (np.abs(pa) + xtol)  # closer than this to a bound counts as on it
-            hold = held[act] | ((pa - lo[act] <= near) & (grad > 0)) | ((hi[act] - pa <= near) & (grad < 0))
-            keep = ~hold
-            damp = (a + (lam[act, None] * scale)[:, :, None] * eye) * (keep[:, :, None] & keep[:, None, :])
-            damp += hold[:, :, None] * eye
-            rhs = np.where(hold, 0.0, grad)
-            bad = ~np.all(np.isfinite(damp), axis=(1, 2)) | ~np.all(np.isfinite(rhs), axis=1)
-            damp[bad] = eye
-            rhs[bad] = 0.0
+            hold = held[sel] | ((pa - lo_a <= near) & (grad > 0)) | ((hi_a - pa <= near) & (grad < 0))
+            # a + lam * diag(scale), written on a's diagonal in place (a is not used again)
+            damp = a
+            damp[:, diag_idx, diag_idx] += lam_a[:, None] * scale
+            if hold.any():
+                keep = ~hold
+                damp *= keep[:, :, None] & keep[:, None, :]
+                damp += hold[:, :, None] * eye
+                rhs = np.where(hold, 0.0, grad)
+            else:
+                rhs = grad
+            bad = ~(np.isfinite(damp).all(axis=(1, 2)) & np.isfinite(rhs).all(axis=1))
+            if bad.any():
+                damp[bad] = eye
+                rhs = np.where(bad[:, None], 0.0, rhs)
             step = -np.linalg.solve(damp, rhs[:, :, None])[:, :, 0]
             trial = pa + step
             # open bounds: a parameter whose step would cross a bound goes TO_BOUND of the way to it instead,
             # and the step of the others is solved again for that shorter move (else the cut step is often
             # refused and the damping grows while the parameter creeps towards its bound)
-            cut = (trial < lo[act]) | (trial > hi[act])
+            cut = (trial < lo_a) | (trial > hi_a)
             if cut.any():
-                moved = np.where(cut, _toward_bounds(pa, trial, lo[act], hi[act]) - pa, 0.0)
+                moved = np.where(cut, _toward_bounds(pa, trial, lo_a, hi_a) - pa, 0.0)
                 rest = ~cut
                 again = damp * (rest[:, :, None] & rest[:, None, :]) + cut[:, :, None] * eye
                 rhs2 = np.where(cut, 0.0, rhs + (damp @ moved[:, :, None])[:, :, 0])
                 step = np.where(cut, moved, -np.linalg.solve(again, rhs2[:, :, None])[:, :, 0])
-                trial = _toward_bounds(pa, pa + step, lo[act], hi[act])
+                trial = _toward_bounds(pa, pa + step, lo_a, hi_a)
             rt, jt = evaluate(trial, act)
             ct = np.einsum("ij,ij->i", rt, rt)
-            nfev[act] += 1
-            better = np.isfinite(ct) & (ct <= cost[act]) & ~bad
-            rel_cost = (cost[act] - ct) / np.fmax(cost[act], 1e-300)
-            tiny_step = np.all(np.abs(trial - pa) <= xtol * (np.abs(pa) + xtol), axis=1)
-            acc = act[better]
-            p[acc], r[acc], jac[acc], cost[acc] = trial[better], rt[better], jt[better], ct[better]
-            lam[act] = np.where(better, np.fmax(lam[act] / 3.0, 1e-12), lam[act] * 4.0)
-            refused[act] = np.where(better, 0, refused[act] + 1)
+            nfev[sel] += 1
+            better = np.isfinite(ct) & (ct <= cost_a) & ~bad
+            rel_cost = (cost_a - ct) / np.fmax(cost_a, 1e-300)
+            tiny_step = np.all(np.abs(trial - pa) <= near, axis=1)  # near: xtol * (|p| + xtol), as above
+            if whole and better.all():  # every step accepted: take the new arrays as they are
+                p, r, jac, cost = trial, rt, jt, ct
+            else:
+                acc = act[better]
+                p[acc], r[acc], jac[acc], cost[acc] = trial[better], rt[better], jt[better], ct[better]
+            lam[sel] = np.where(better, np.fmax(lam_a / 3.0, 1e-12), lam_a * 4.0)
+            refused[sel] = np.where(better, 0, refused[sel] + 1)
             done = ((better & ((rel_cost < ftol) | tiny_step)) | (gnorm < gtol)
-                    | ((refused[act] >= STALL_REFUSALS) & (gnorm < STALL_GRADIENT)))
-            stuck = ~done & (lam[act] > MAX_DAMPING)
+                    | ((refused[sel] >= STALL_REFUSALS) & (gnorm < STALL_GRADIENT)))
+            stuck = ~done & (lam[sel] > MAX_DAMPING)
             converged[act[done]] = True
             stalled[act[stuck]] = True
             active[act[done | stuck]] = False
@@ -211,12 +230,44 @@ def _toward_bounds(p: np.ndarray, trial: np.ndarray, lo: np.ndarray, hi: np.ndar
 
 def unit_covariance(jac: np.ndarray) -> np.ndarray:
     """``(J Jᵀ)⁻¹`` per problem from a weighted Jacobian ``[g, p, n]`` (NaN where singular or not finite): the
-    covariance of the parameters for unit residual variance; multiply by the residual variance."""
+    covariance of the parameters for unit residual variance; multiply by the residual variance. Three
+    parameters (every rate curve with known substrate) by :func:`sym3_inverse`, others by numpy.linalg."""
     a = jac @ jac.transpose(0, 2, 1)
     eye = np.eye(a.shape[1])
     finite = np.all(np.isfinite(a), axis=(1, 2))
+    if a.shape[1] == 3:
+        cov = sym3_inverse(np.where(finite[:, None, None], a, eye))
+        cov[~finite | ~np.all(np.isfinite(cov), axis=(1, 2))] = np.nan
+        return cov
     bad = ~finite | (np.abs(np.linalg.det(np.where(finite[:, None, None], a, eye))) == 0)
     a[bad] = eye
     cov = np.linalg.inv(a)
     cov[bad] = np.nan
     return cov
+
+
+def sym3_inverse(a: np.ndarray) -> np.ndarray:
+    """Inverses ``[m, 3, 3]`` of symmetric 3x3 matrices ``a`` ``[m, 3, 3]`` (the lower triangle is not read)
+    by cofactors, in closed form: for the many small systems of a batched fit, ``numpy.linalg.inv`` spends
+    most of its time on per-matrix overhead.
+
+    Each matrix is first scaled to unit diagonal, ``S = D a D`` with ``D = diag(a)^-1/2`` (the inverse is
+    ``D S⁻¹ D``), so that parameters of very different scales (a baseline in signal units beside a log-rate)
+    lose no digits to the scaling. Not finite (inf or NaN) where the matrix is singular or a diagonal entry
+    is not positive: the caller checks. Checked against ``numpy.linalg.inv`` in tests/plugins/kinetics.
+    """
+    with np.errstate(all="ignore"):
+        d = 1.0 / np.sqrt(np.diagonal(a, axis1=1, axis2=2))  # [m, 3]; NaN/inf where a diagonal entry <= 0
+        d0, d1, d2 = d[:, 0], d[:, 1], d[:, 2]
+        s01, s02, s12 = a[:, 0, 1] * d0 * d1, a[:, 0, 2] * d0 * d2, a[:, 1, 2] * d1 * d2
+        c00, c11, c22 = 1.0 - s12 * s12, 1.0 - s02 * s02, 1.0 - s01 * s01
+        c01, c02, c12 = s02 * s12 - s01, s01 * s12 - s02, s01 * s02 - s12
+        inv_det = 1.0 / (c00 + s01 * c01 + s02 * c02)
+        out = np.empty(a.shape)
+        out[:, 0, 0] = c00 * inv_det * d0 * d0
+        out[:, 1, 1] = c11 * inv_det * d1 * d1
+        out[:, 2, 2] = c22 * inv_det * d2 * d2
+        out[:, 0, 1] = out[:, 1, 0] = c01 * inv_det * d0 * d1
+        out[:, 0, 2] = out[:, 2, 0] = c02 * inv_det * d0 * d2
+        out[:, 1, 2] = out[:, 2, 1] = c12 * inv_det * d1 * d2
+    return out

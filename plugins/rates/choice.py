@@ -95,6 +95,8 @@ def trim_censored(y: np.ndarray, k: int) -> np.ndarray:
         return y
     n_t = y.shape[1]
     valid = np.isfinite(y)
+    if valid.all():  # no missing read: nothing to mask
+        return y
     first = np.argmax(valid, axis=1)
     last = n_t - 1 - np.argmax(valid[:, ::-1], axis=1)
     idx = np.arange(n_t)[None, :]
@@ -128,20 +130,31 @@ def early_quadratic(
     SE from the read noise ``sigma``."""
     n_t = y.shape[1]
     valid = np.isfinite(y)
-    rank = np.cumsum(valid, axis=1)
-    yz = np.where(valid, y, 0.0)
-    first3 = valid & (rank <= 3)
+    every = bool(valid.all()) and n_t > 0  # every read finite (the common case): plain slices, no ranks
+    yz = y if every else np.where(valid, y, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
-        y0 = (yz * first3).sum(axis=1) / first3.sum(axis=1)
+        if every:
+            rank = None
+            y0 = yz[:, :3].sum(axis=1) / min(n_t, 3)
+        else:
+            rank = np.cumsum(valid, axis=1)
+            first3 = valid & (rank <= 3)
+            y0 = (yz * first3).sum(axis=1) / first3.sum(axis=1)
         if full is None:
             beyond = np.broadcast_to(np.arange(n_t) >= max(n_t // 3, min_points), y.shape)
         else:
-            beyond = valid & (np.abs(y - y0[:, None]) > frac * full[:, None])
+            beyond = np.abs(y - y0[:, None]) > frac * full[:, None]
+            if not every:
+                beyond &= valid
     stop = np.where(beyond.any(axis=1), np.argmax(beyond, axis=1), n_t)
     # at least min_points finite reads: the index just after the min_points-th finite read
-    enough = np.where(rank[:, -1] >= min_points, np.argmax(rank >= min_points, axis=1) + 1, n_t)
+    if every:
+        enough = np.full(y.shape[0], min_points if n_t >= min_points else n_t)
+    else:
+        enough = np.where(rank[:, -1] >= min_points, np.argmax(rank >= min_points, axis=1) + 1, n_t)
     end = np.maximum(stop, enough)
-    w = (valid & (np.arange(n_t)[None, :] < end[:, None])).astype(float)
+    inside = np.arange(n_t)[None, :] < end[:, None]
+    w = (inside if every else valid & inside).astype(float)
     span = max(float(t[-1] - t[0]), 1e-300)
     u = (t - t[0]) / span
     pw = u[:, None] ** np.arange(5)[None, :]
@@ -150,7 +163,8 @@ def early_quadratic(
     xy = wy @ pw[:, :3]
     inv = inv3_hankel(m)
     coef = np.einsum("npq,nq->np", inv, xy)
-    n_in = w.sum(axis=1)
+    n_used = np.minimum(end, n_t)  # with every read finite, the reads counted: all before ``end``
+    n_in = n_used.astype(float) if every else w.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         ok = n_in >= 4
         v0 = np.where(ok, coef[:, 1] / span, np.nan)
@@ -161,7 +175,7 @@ def early_quadratic(
         tss = yy - xy[:, 0] ** 2 / np.fmax(n_in, 1.0)
         ratio = np.where(n_in > 3, np.sqrt(rss / np.fmax(n_in - 3, 1.0)) / sigma, np.nan)
         good = np.where(ok, 1.0 - rss / tss, np.nan)
-    last = n_t - 1 - np.argmax(w[:, ::-1] > 0, axis=1)
+    last = n_used - 1 if every else n_t - 1 - np.argmax(w[:, ::-1] > 0, axis=1)
     return EarlyQuadratic(v0, se, curv, t[last], n_in.astype(np.int64), ratio, good)
 
 
@@ -701,7 +715,8 @@ def model_choice(
     lag_s = np.where(sc.usable, 0.0, np.nan)
     extra = {"rmse_over_noise": ratio, "read_noise": sigma, "k_decay": np.full(n_w, np.nan)}
     if find_lag:
-        _, lag_all, has_lag = detect_lag(t, y, sc)
+        # no spike found: the reads are unchanged, and the lag detector's own search would find none either
+        _, lag_all, has_lag = detect_lag(t, y, sc, spike_free=not spikes.any())
         lag_s = np.where(has_lag, lag_all, lag_s)
         flags[has_lag] |= int(Flag.LAG)
         if has_lag.any() and known:

@@ -92,13 +92,16 @@ def detect_lag(
     z: float = 6.0,
     settle: float = 0.02,
     early: bool = True,
+    spike_free: bool = False,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Find lag phases. Returns ``(start_index, lag_s, has_lag)`` per well.
 
     A lag is called when the first block's slope is below ``(1 - min_rise)`` times the steepest block's and
     the difference exceeds ``z`` standard errors, or when the first reads lie significantly below the
     steady-rate line (:func:`vzero.plugins.rates.earlylag.early_lag`, for lags shorter than a block);
-    ``early`` False leaves that test out. Single-read spikes are masked for both tests.
+    ``early`` False leaves that test out. Single-read spikes are masked for both tests; ``spike_free`` True
+    says the caller's :func:`vzero.plugins.rates.spikes.find_spikes` on these very reads with ``sc.sigma``
+    found none, so the search is not run again (the same answer, for less work).
 
     ``start_index`` is the middle read of the first block whose slope is within ``max(settle * steepest,
     2 SE)`` of the steepest (where the steady state begins; 0 when no lag; at most ``n_time - 2 * width`` so
@@ -113,8 +116,8 @@ def detect_lag(
     width = max(4, n_t // 8)
     if n_t < 3 * width:
         return start, lag_s, has
-    spikes = find_spikes(t, y, sc.sigma)
-    if spikes.any():  # a lone outlier early on would look like a slow (or fast) first block
+    spikes = None if spike_free else find_spikes(t, y, sc.sigma)
+    if spikes is not None and spikes.any():  # a lone outlier early on would look like a slow (or fast) first block
         y = np.where(spikes, np.nan, y)
         sc = dataclasses.replace(sc, valid=sc.valid & ~spikes)
     short = early_lag(t, y, sc.sigma, sc.change, sc.usable) if early else None

@@ -24,18 +24,15 @@ def find_spikes(
     t = np.asarray(time, dtype=float)
     y = np.asarray(signal, dtype=float)
     n_w, n_t = y.shape
-    out = np.zeros(y.shape, dtype=bool)
     if n_t < 5:
-        return out
+        return np.zeros(y.shape, dtype=bool)
     valid = np.isfinite(y)
     if valid.all():  # the common case: each read's neighbours are the reads beside it, plain slices
-        r = np.full(y.shape, np.nan)
         a = (t[2:] - t[1:-1]) / (t[2:] - t[:-2])
         b = 1.0 - a
+        r = np.full(y.shape, np.nan)
         r[:, 1:-1] = (y[:, 1:-1] - a * y[:, :-2] - b * y[:, 2:]) / np.sqrt(1.0 + a * a + b * b)
-        r_prev = np.concatenate([np.full((n_w, 1), np.nan), r[:, :-1]], axis=1)
-        r_next = np.concatenate([r[:, 1:], np.full((n_w, 1), np.nan)], axis=1)
-        return _spike_test(r, r_prev, r_next, sigma, z, neighbour_max) & np.isfinite(r)
+        return _spike_test(r, None, None, sigma, z, neighbour_max)
     idx = np.broadcast_to(np.arange(n_t), y.shape)
     # nearest finite read before and after each read (-1 / n_t where there is none)
     before = np.maximum.accumulate(np.where(valid, idx, -1), axis=1)
@@ -51,16 +48,27 @@ def find_spikes(
         b = (t[None, :] - t0) / (t2 - t0)
         r = (y - a * y[rows, pi] - b * y[rows, ni]) / np.sqrt(1.0 + a * a + b * b)
     r = np.where(inner, r, np.nan)
-    out[:] = inner & _spike_test(r, r[rows, pi], r[rows, ni], sigma, z, neighbour_max)
-    return out
+    return _spike_test(r, pi, ni, sigma, z, neighbour_max)
 
 
 def _spike_test(
-    r: np.ndarray, r_prev: np.ndarray, r_next: np.ndarray, sigma: np.ndarray, z: float, neighbour_max: float
+    r: np.ndarray, prev: np.ndarray | None, nxt: np.ndarray | None, sigma: np.ndarray, z: float,
+    neighbour_max: float,
 ) -> np.ndarray:
-    """The test of the module text on each read's statistic ``r`` and its neighbours' (NaN: no spike)."""
+    """The test of the module text on each read's statistic ``r`` ``[n_wells, n_time]`` (NaN: no spike) and
+    its neighbours', whose reads are ``prev`` and ``nxt`` (indices ``[n_wells, n_time]``; None: the reads
+    beside it). Only the reads beyond ``z`` read noises (a handful per plate) have their neighbours looked
+    at, so the test costs one pass over the plate."""
     with np.errstate(invalid="ignore"):
         big = np.abs(r) > z * np.asarray(sigma, dtype=float)[:, None]
-        opposite = (np.sign(r_prev) == -np.sign(r)) & (np.sign(r_next) == -np.sign(r))
-        small = np.fmax(np.abs(r_prev), np.abs(r_next)) <= neighbour_max * np.abs(r)
-    return big & opposite & small
+    i, j = np.nonzero(big)
+    if i.size == 0:
+        return big
+    r_i = r[i, j]
+    r_prev = r[i, j - 1 if prev is None else prev[i, j]]
+    r_next = r[i, j + 1 if nxt is None else nxt[i, j]]
+    with np.errstate(invalid="ignore"):
+        opposite = (np.sign(r_prev) == -np.sign(r_i)) & (np.sign(r_next) == -np.sign(r_i))
+        small = np.fmax(np.abs(r_prev), np.abs(r_next)) <= neighbour_max * np.abs(r_i)
+    big[i, j] = opposite & small
+    return big

@@ -71,3 +71,20 @@ def test_unit_covariance_is_the_inverse_normal_matrix() -> None:
         np.testing.assert_allclose(cov[i], np.linalg.inv(jac[i] @ jac[i].T), rtol=1e-12)
     singular = np.zeros((1, 2, 10))
     assert np.all(np.isnan(lsq.unit_covariance(singular)))
+
+
+def test_three_parameter_covariance_in_closed_form_matches_numpy_inverse() -> None:
+    # independent reference: numpy.linalg.inv (LAPACK) of each normal matrix, on columns of very different
+    # scales (a baseline beside a log-rate and a curvature), as the rate curves have them
+    rng = np.random.default_rng(1)
+    jac = rng.normal(size=(50, 3, 20)) * np.array([4.0, 0.05, 1e-3])[None, :, None]
+    cov = lsq.unit_covariance(jac.copy())
+    for i in range(50):
+        np.testing.assert_allclose(cov[i], np.linalg.inv(jac[i] @ jac[i].T), rtol=1e-10)
+    direct = lsq.sym3_inverse(jac @ jac.transpose(0, 2, 1))
+    np.testing.assert_allclose(direct, np.linalg.inv(jac @ jac.transpose(0, 2, 1)), rtol=1e-10)
+    # singular (a zero column, or two equal columns) and non-finite normal matrices give NaN, as for two parameters
+    bad = np.ones((3, 3, 20))
+    bad[0, 2] = 0.0
+    bad[2, 1, 0] = np.inf
+    assert np.all(np.isnan(lsq.unit_covariance(bad)))
