@@ -179,7 +179,8 @@ class ModelChoiceRates(KernelRates):
 
     #: 1.2: steps 6d (power law on the quadratic's own reads) and 6e (substrate-inhibition curve); without
     #: s0 its curves' standard errors follow `progress` 1.1. 1.3: step 9, the plate's Hill or
-    #: substrate-inhibition shape fitted jointly over its wells (models 6 and 7; `pool_shape`)
+    #: substrate-inhibition shape fitted jointly over its wells (models 6 and 7; `pool_shape`);
+    #: without s0, curve SEs from `progress` 1.2's profile over the shape
     method, version = "model-choice", "1.3"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
@@ -248,7 +249,8 @@ class ProgressRates(KernelRates):
     empirical order that follows cooperative enzymes, whose rate falls faster than Michaelis–Menten allows
     (measurements in docs/rates.md)."""
 
-    method, version = "progress", "1.1"  # 1.1: bounded-curvature and signal-unit SEs; IMPRECISE, DISAGREES at 3 SE
+    #: 1.1: bounded-curvature SE, IMPRECISE, DISAGREES at 3 SE; 1.2: the signal-unit SE from a profile over the shape
+    method, version = "progress", "1.2"
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
     function = "vzero.plugins.rates.progress:progress_curve"
     kernel_params = ("min_points", "fail_ratio", "model")

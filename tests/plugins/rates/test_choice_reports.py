@@ -20,13 +20,17 @@ DOCS = Path(__file__).resolve().parents[3] / "docs" / "rates.md"
 
 def test_model_codes_are_the_ones_the_documentation_gives() -> None:
     # docs/rates.md, model-choice's extra columns: "`model` (0 Michaelis–Menten, 1 power law, 2 quadratic, 3 lag
-    # model, 4 Hill, 5 substrate inhibition)": the codes a reader of the rates table looks up
+    # model, 4 Hill, 5 substrate inhibition, 6 Hill with the plate's shape, 7 ...)": the codes a reader of the
+    # rates table looks up
     text = " ".join(DOCS.read_text(encoding="utf-8").split())
     listed = re.search(r"`model` \((0 [^)]*)\)", text)
     assert listed is not None
-    doc = {int(m.group(1)): m.group(2).strip() for m in re.finditer(r"(\d) ([^,]+)", listed.group(1))}
+    # a remark after a colon ("...: the last two from step 9") is not part of the label
+    doc = {int(m.group(1)): m.group(2).split(":")[0].strip() for m in re.finditer(r"(\d) ([^,]+)", listed.group(1))}
     names = {"Michaelis–Menten": "michaelis-menten", "power law": "power", "quadratic": "quadratic",
-             "lag model": "lag-decay", "Hill": "hill", "substrate inhibition": "substrate-inhibition"}
+             "lag model": "lag-decay", "Hill": "hill", "substrate inhibition": "substrate-inhibition",
+             "Hill with the plate's shape": "plate-hill",
+             "substrate inhibition with the plate's shape": "plate-substrate-inhibition"}
     assert {names[label]: code for code, label in doc.items()} == MODEL_CODES
 
 
