@@ -96,6 +96,26 @@ def sample_wells(plate: PlateView) -> Any:
     return (plate.wells["role"].astype(str) == "sample").to_numpy()
 
 
+def pool_groups(plate: PlateView) -> Any:
+    """An integer per signal row: sample wells with the same layout ``group`` and ``inhibitor`` share a
+    number (one enzyme at one inhibitor level, so one rate-law shape); other wells (blanks, standards, empty)
+    get -1. A layout without those columns makes one group of its sample wells (every well without a role
+    column)."""
+    import numpy as np
+    import pandas as pd
+
+    wells = plate.wells
+    n = len(wells)
+    sample = sample_wells(plate)
+    keys = [c for c in ("group", "inhibitor") if c in wells.columns]
+    if keys:
+        frame = pd.DataFrame({c: wells[c].astype(str).to_numpy() for c in keys})
+        number = frame.groupby(keys, sort=True, dropna=False).ngroup().to_numpy()
+    else:
+        number = np.zeros(n, dtype=np.int64)
+    return np.where(np.ones(n, dtype=bool) if sample is None else sample, number, -1).astype(np.int64)
+
+
 class KernelRates(RateMethod):
     """Shared kernel for methods that call a function ``f(time, signal, s0=, signal_per_conc=, **kw)`` named by
     ``function`` (``"module:name"``, imported on first use)."""
@@ -111,12 +131,16 @@ class KernelRates(RateMethod):
         module, name = self.function.split(":")
         func = getattr(importlib.import_module(module), name)
         kwargs = {k: self._value(k) for k in self.kernel_params}
-        result = func(time, signal, s0=s0, signal_per_conc=per, **kwargs)
+        result = func(time, signal, s0=s0, signal_per_conc=per, **kwargs, **self.plate_kwargs(plate))
         from vzero.plugins.rates.checks import shared_checks
 
         return shared_checks(time, signal, result, s0=s0, signal_per_conc=per, finds_lags=self.finds_lags(),
                              models_decay=self.models_decay(), min_points=int(self.settings.get("min_points", 8)),
                              compares_model_free=self.compares_model_free(), samples=sample_wells(plate))
+
+    def plate_kwargs(self, plate: PlateView) -> dict[str, Any]:
+        """Further keyword arguments the kernel function takes from the plate's layout (none by default)."""
+        return {}
 
     def finds_lags(self) -> bool:
         """Whether the kernel looks for lags itself and models the wells that have one (then it sets LAG; else
@@ -174,8 +198,8 @@ class ModelChoiceRates(KernelRates):
     quadratic through the reads up to 20 % conversion; no curve is fitted where the quadratic already holds
     every read and its third-order bias is negligible, and a power-law curve on the quadratic's own reads
     gives way to the quadratic unless its expected error is the smaller; wells with a lag get the lag/decay
-    model. Where wells show a Hill or substrate-inhibition shape, one shape is fitted for the whole plate
-    and given to the wells it describes. Single-read spikes are masked first (docs/rates.md)."""
+    model. Where wells show a Hill or substrate-inhibition shape, one shape is fitted per layout group and
+    inhibitor level and given to the wells it describes. Single-read spikes are masked first (docs/rates.md)."""
 
     #: 1.2: steps 6d (power law on the quadratic's own reads) and 6e (substrate-inhibition curve); without
     #: s0 its curves' standard errors follow `progress` 1.1. 1.3: step 9, the plate's Hill or
@@ -199,9 +223,13 @@ class ModelChoiceRates(KernelRates):
                                    "quadratic is fitted", low=0.01, high=1.0),
         "find_lag": Param("bool", True, "use the lag/decay model on wells with a detected lag"),
         "pool_shape": Param("bool", True, "where wells show a Hill or substrate-inhibition shape, fit one shape "
-                            "for the whole plate (one enzyme per plate) and give it to the wells it describes; "
-                            "false for plates that mix enzymes or inhibitor levels"),
+                            "per layout group and inhibitor level (one enzyme each) and give it to the wells it "
+                            "describes; false when a group mixes enzymes"),
     }
+
+    def plate_kwargs(self, plate: PlateView) -> dict[str, Any]:
+        """``pool_groups``: the wells that may share one shape (step 9), from the layout (:func:`pool_groups`)."""
+        return {"pool_groups": pool_groups(plate)}
 
     def finds_lags(self) -> bool:
         """Wells with a detected lag get the lag model (LAG) unless ``find_lag`` is off."""

@@ -44,7 +44,10 @@ Per well, all wells at once:
 9. where at least one well kept the Hill (step 6b/6c) or the substrate-inhibition curve (6e), one shape is
    fitted for the whole plate (one ``h`` and ``K0.5``, or one ``Km`` and ``Ki``; per well a baseline and v0)
    and given to the wells it describes (:func:`_pool_hook`, :mod:`vzero.plugins.rates.poolshape`; codes 6
-   and 7): one enzyme per plate has one rate law. ``pool_shape=False`` turns it off.
+   and 7): one enzyme has one rate law. ``pool_groups`` (an integer per well, negative: never pooled) says
+   which wells hold the same enzyme at the same inhibitor level (the rates stage passes the layout's sample
+   wells by ``group`` and ``inhibitor``); without it the whole plate is one group. ``pool_shape=False``
+   turns the step off.
 
 Reads next to a block of missing reads at the start or end of a well (saturation) are masked first
 (``censored_reads``, see :data:`CENSORED_READS`).
@@ -583,27 +586,40 @@ def _inhibition_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic
 
 
 def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_all: np.ndarray, spc: float,
-               flags: np.ndarray, out: _Estimates, first: np.ndarray, *, lof_ratio: float, agree_z: float,
-               min_points: int) -> None:
+               flags: np.ndarray, out: _Estimates, first: np.ndarray, groups: np.ndarray | None, *,
+               lof_ratio: float, agree_z: float, min_points: int) -> None:
     """Step 9: the plate's shape (:func:`vzero.plugins.rates.poolshape.pool_shape`) for the wells that take
-    it (codes 6 Hill, 7 substrate inhibition); wells flagged LAG or DECAY are left out. In place."""
+    it (codes 6 Hill, 7 substrate inhibition), one shape per pooling group (``groups``: an integer per well,
+    negative for wells never pooled; None: the whole plate is one group); wells flagged LAG or DECAY are left
+    out. In place."""
     from vzero.plugins.rates.poolshape import pool_shape
 
     n_w = y.shape[0]
     code = np.where((flags & int(Flag.LAG | Flag.DECAY)) != 0, np.nan, out.code)
-    if not np.isin(code, (4.0, 5.0)).any():
+    key = np.zeros(n_w, dtype=np.int64) if groups is None else np.asarray(groups, dtype=np.int64)
+    if key.shape != (n_w,):
+        raise ValueError(f"pool_groups has {key.size} entries for {n_w} wells: give one integer per well")
+    code = np.where(key >= 0, code, np.nan)
+    shaped = np.isin(code, (4.0, 5.0))
+    if not shaped.any():
         return
     with np.errstate(invalid="ignore"):
         base0 = np.full(n_w, np.nan)
         ok = sc.usable & np.isfinite(out.v0)
         base0[ok] = _start_baseline(t, y[ok], sc.valid[ok], out.v0[ok])
-    pc = pool_shape(t, y, sc.valid, s0_all, spc, sc.sigma, code, out.v0, out.se, base0, q.v0, q.se,
-                    lof_ratio=lof_ratio, agree_z=agree_z, min_reads=min_points, smooth_misfit=smooth_misfit)
-    r = np.flatnonzero(pc.take)
-    out.v0[r], out.se[r], out.code[r], out.ratio[r] = pc.v0[r], pc.se[r], pc.code, pc.ratio[r]
-    out.goodness[r] = np.nan
-    last = t.size - 1 - np.argmax(sc.valid[r][:, ::-1], axis=1)
-    out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
+    # one enzyme (and one inhibitor level) per group: the shape is fitted within each group that shows it;
+    # a loop over the few groups of the layout, never over wells
+    for g in np.unique(key[shaped]):
+        code_g = np.where(key == g, code, np.nan)
+        pc = pool_shape(t, y, sc.valid, s0_all, spc, sc.sigma, code_g, out.v0, out.se, base0, q.v0, q.se,
+                        lof_ratio=lof_ratio, agree_z=agree_z, min_reads=min_points, smooth_misfit=smooth_misfit)
+        r = np.flatnonzero(pc.take)
+        if r.size == 0:
+            continue
+        out.v0[r], out.se[r], out.code[r], out.ratio[r] = pc.v0[r], pc.se[r], pc.code, pc.ratio[r]
+        out.goodness[r] = np.nan
+        last = t.size - 1 - np.argmax(sc.valid[r][:, ::-1], axis=1)
+        out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
 
 
 def model_choice(
@@ -620,6 +636,7 @@ def model_choice(
     censored_reads: int = CENSORED_READS,
     find_lag: bool = True,
     pool_shape: bool = True,
+    pool_groups: np.ndarray | None = None,
 ) -> RateResult:
     """Initial rate (signal/s) per well by the model the well's own reads support; see the module text."""
     t = np.asarray(time, dtype=float)
@@ -749,8 +766,8 @@ def model_choice(
         _decay_model(t, y, s0_all, spc, code, v0, se, flags, extra, w_start, order,
                      lof_ratio=lof_ratio, min_points=min_points)
         if pool_shape:
-            _pool_hook(t, y, sc, q, s0_all, spc, flags, est, first, lof_ratio=lof_ratio, agree_z=agree_z,
-                       min_points=min_points)
+            _pool_hook(t, y, sc, q, s0_all, spc, flags, est, first, pool_groups, lof_ratio=lof_ratio,
+                       agree_z=agree_z, min_points=min_points)
     failed = sc.usable & ~np.isfinite(v0)
     flags[failed] |= int(Flag.FIT_FAILED)
     bad = (flags & int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)) != 0

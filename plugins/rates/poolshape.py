@@ -20,9 +20,10 @@ uncertainty (delta method through the joint covariance: the well's own block plu
 through its cross terms).
 
 This module fits and judges; :func:`vzero.plugins.rates.choice.model_choice` decides which plates reach it
-(see :func:`pool_shape`). The assumption of one enzyme per plate is the user's: a plate that mixes enzymes,
-inhibitor levels or conditions that change the shape must be analysed in parts, or with ``pool_shape:
-false`` in the recipe. Results are for research use; a lab's own validated procedure takes precedence.
+(see :func:`pool_shape`), once per pool of wells (the layout's ``group`` and ``inhibitor`` level in a run).
+The assumption that a pool holds one enzyme under one set of conditions is the user's: a group that mixes
+enzymes or conditions that change the shape must be split in the layout, or run with ``pool_shape: false``
+in the recipe. Results are for research use; a lab's own validated procedure takes precedence.
 """
 
 from __future__ import annotations
