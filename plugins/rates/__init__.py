@@ -202,9 +202,10 @@ class ModelChoiceRates(KernelRates):
     inhibitor level and given to the wells it describes. Single-read spikes are masked first (docs/rates.md)."""
 
     #: 1.2: steps 6d (power law on the quadratic's own reads) and 6e (substrate-inhibition curve); without
-    #: s0 its curves' standard errors follow `progress` 1.1. 1.3: step 9, the plate's Hill or
-    #: substrate-inhibition shape fitted jointly over its wells (models 6 and 7; `pool_shape`);
-    #: without s0, curve SEs from `progress` 1.2's profile over the shape
+    #: s0 its curves' standard errors follow `progress` 1.1. 1.3: step 9, a Hill or substrate-inhibition
+    #: shape fitted jointly over the wells of each layout group and inhibitor level (models 6 and 7;
+    #: `pool_shape`); step 8's shared lag and decay constant per such pool, no longer per plate; without s0,
+    #: curve SEs from `progress` 1.2's profile over the shape
     method, version = "model-choice", "1.3"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "

@@ -39,15 +39,17 @@ Per well, all wells at once:
    :func:`vzero.plugins.rates.lagdecay.lag_decay`) get the first-order decay model when it describes them;
 8. wells with a lag (:func:`vzero.plugins.rates.lagdecay.detect_lag`, LAG) are fitted with the
    Michaelis–Menten curve on the enzyme's active time (:mod:`vzero.plugins.rates.lagfit`): v0 is the rate
-   with fully active enzyme at t = 0 and ``lag_s`` the fitted lag time (without s0 and signal_per_conc:
-   :func:`vzero.plugins.rates.lagdecay.lag_decay`);
+   with fully active enzyme at t = 0 and ``lag_s`` the fitted lag time; the decay constant is shared, and
+   the lag carried to wells whose lag the detector missed, within a pool of wells (``pool_groups`` below;
+   :func:`_lag_clock_step`) (without s0 and signal_per_conc: :func:`vzero.plugins.rates.lagdecay.lag_decay`);
 9. where at least one well kept the Hill (step 6b/6c) or the substrate-inhibition curve (6e), one shape is
-   fitted for the whole plate (one ``h`` and ``K0.5``, or one ``Km`` and ``Ki``; per well a baseline and v0)
+   fitted for each pool of wells (one ``h`` and ``K0.5``, or one ``Km`` and ``Ki``; per well a baseline and v0)
    and given to the wells it describes (:func:`_pool_hook`, :mod:`vzero.plugins.rates.poolshape`; codes 6
-   and 7): one enzyme has one rate law. ``pool_groups`` (an integer per well, negative: never pooled) says
-   which wells hold the same enzyme at the same inhibitor level (the rates stage passes the layout's sample
-   wells by ``group`` and ``inhibitor``); without it the whole plate is one group. ``pool_shape=False``
-   turns the step off.
+   and 7): one enzyme has one rate law. ``pool_shape=False`` turns the step off.
+
+``pool_groups`` (an integer per well; negative: the well is in no pool of step 9) says which wells hold the
+same enzyme at the same inhibitor level: the rates stage passes the layout's sample wells numbered by
+``group`` and ``inhibitor``; without it the whole plate is one pool.
 
 Reads next to a block of missing reads at the start or end of a well (saturation) are masked first
 (``censored_reads``, see :data:`CENSORED_READS`).
@@ -585,6 +587,42 @@ def _inhibition_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic
     out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
 
 
+def _pool_keys(groups: np.ndarray, n_w: int) -> np.ndarray:
+    """``pool_groups`` checked: one integer per well (negative: a well in no pool)."""
+    key = np.asarray(groups, dtype=np.int64)
+    if key.shape != (n_w,):
+        raise ValueError(f"pool_groups has {key.size} entries for {n_w} wells: give one integer per well")
+    return key
+
+
+def _lag_clock_step(t: np.ndarray, y: np.ndarray, s0_all: np.ndarray, spc: float, sc: Screen, sigma: np.ndarray,
+                    lagged: np.ndarray, usable: np.ndarray, v0: np.ndarray, se: np.ndarray, code: np.ndarray,
+                    lag_s: np.ndarray, extra: dict[str, np.ndarray], w_start: np.ndarray, flags: np.ndarray, *,
+                    min_points: int) -> None:
+    """Step 8 for one pool of wells (``usable``, of which ``lagged`` showed a lag): the lag wells on the
+    enzyme's active time, sharing the decay constant, then the pool's lag and decay for its other usable wells
+    (:func:`vzero.plugins.rates.lagfit.plate_clock`). In place."""
+    rows = np.flatnonzero(lagged)
+    lf = lag_clock_fit(t, y[rows], s0_all[rows], spc, min_points=min_points, sigma=sigma[rows])
+    ok = np.isfinite(lf["v0"])
+    r = rows[ok]
+    v0[r], se[r], code[r] = lf["v0"][ok], lf["stderr"][ok], 3.0
+    lag_s[r], extra["k_decay"][r] = lf["tau"][ok], lf["k"][ok]
+    extra["rmse_over_noise"][r] = lf["ratio"][ok]
+    w_start[r] = t[0]
+    flags[r[lf["k"][ok] > 0]] |= int(Flag.DECAY)
+    # the pool's lag and decay for its wells where the detector saw no lag (too little signal)
+    others = np.flatnonzero(usable & ~lagged)
+    pc = plate_clock(t, y[others], s0_all[others], spc, lf, int(usable.sum()), sigma=sigma[others],
+                     min_points=min_points)
+    r = others[pc["take"]]
+    v0[r], se[r], code[r] = pc["v0"][pc["take"]], pc["stderr"][pc["take"]], 3.0
+    lag_s[r], extra["k_decay"][r] = pc["tau"][pc["take"]], pc["k"][pc["take"]]
+    extra["rmse_over_noise"][r], w_start[r] = pc["ratio"][pc["take"]], t[0]
+    flags[r] |= int(Flag.LAG)
+    flags[r[pc["k"][pc["take"]] > 0]] |= int(Flag.DECAY)
+
+
 def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_all: np.ndarray, spc: float,
                flags: np.ndarray, out: _Estimates, first: np.ndarray, groups: np.ndarray | None, *,
                lof_ratio: float, agree_z: float, min_points: int) -> None:
@@ -596,9 +634,7 @@ def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_a
 
     n_w = y.shape[0]
     code = np.where((flags & int(Flag.LAG | Flag.DECAY)) != 0, np.nan, out.code)
-    key = np.zeros(n_w, dtype=np.int64) if groups is None else np.asarray(groups, dtype=np.int64)
-    if key.shape != (n_w,):
-        raise ValueError(f"pool_groups has {key.size} entries for {n_w} wells: give one integer per well")
+    key = np.zeros(n_w, dtype=np.int64) if groups is None else groups
     code = np.where(key >= 0, code, np.nan)
     shaped = np.isin(code, (4.0, 5.0))
     if not shaped.any():
@@ -646,6 +682,8 @@ def model_choice(
     y[spikes] = np.nan
     known = s0 is not None and signal_per_conc is not None
     n_w = y.shape[0]
+    if pool_groups is not None:
+        pool_groups = _pool_keys(pool_groups, n_w)
     sc = screen(y, min_points=min_points, time=t) if spikes.any() else sc0  # the same reads: the same screen
     sigma = sc.sigma
     full = conversion_scale(s0, signal_per_conc, n_w) if known else None
@@ -737,25 +775,12 @@ def model_choice(
         lag_s = np.where(has_lag, lag_all, lag_s)
         flags[has_lag] |= int(Flag.LAG)
         if has_lag.any() and known:
-            rows = np.flatnonzero(has_lag)
-            lf = lag_clock_fit(t, y[rows], s0_all[rows], spc, min_points=min_points, sigma=sigma[rows])
-            ok = np.isfinite(lf["v0"])
-            r = rows[ok]
-            v0[r], se[r], code[r] = lf["v0"][ok], lf["stderr"][ok], 3.0
-            lag_s[r], extra["k_decay"][r] = lf["tau"][ok], lf["k"][ok]
-            extra["rmse_over_noise"][r] = lf["ratio"][ok]
-            w_start[r] = t[0]
-            flags[r[lf["k"][ok] > 0]] |= int(Flag.DECAY)
-            # the plate's lag and decay for its wells where the detector saw no lag (too little signal)
-            others = np.flatnonzero(sc.usable & ~has_lag)
-            pc = plate_clock(t, y[others], s0_all[others], spc, lf, int(sc.usable.sum()), sigma=sigma[others],
-                             min_points=min_points)
-            r = others[pc["take"]]
-            v0[r], se[r], code[r] = pc["v0"][pc["take"]], pc["stderr"][pc["take"]], 3.0
-            lag_s[r], extra["k_decay"][r] = pc["tau"][pc["take"]], pc["k"][pc["take"]]
-            extra["rmse_over_noise"][r], w_start[r] = pc["ratio"][pc["take"]], t[0]
-            flags[r] |= int(Flag.LAG)
-            flags[r[pc["k"][pc["take"]] > 0]] |= int(Flag.DECAY)
+            # one enzyme per pool (the layout's group and inhibitor level; the whole plate without them): the
+            # lag and decay constant are shared within a pool only (a loop over the few pools, not wells)
+            pools = np.zeros(n_w, dtype=np.int64) if pool_groups is None else pool_groups
+            for g in np.unique(pools[has_lag]):
+                _lag_clock_step(t, y, s0_all, spc, sc, sigma, has_lag & (pools == g), sc.usable & (pools == g),
+                                v0, se, code, lag_s, extra, w_start, flags, min_points=min_points)
         elif has_lag.any():
             rows = np.flatnonzero(has_lag)
             ld = lag_decay(t, y[rows], min_points=min_points, fail_ratio=np.inf)

@@ -84,3 +84,29 @@ def test_a_layout_without_groups_pools_its_sample_wells_together() -> None:
     wells = pd.DataFrame({"well": ["A1", "A2", "A3"], "role": ["sample", "blank", "sample"]})
     assert pool_groups(_view(wells)).tolist() == [0, -1, 0]
     assert pool_groups(_view(pd.DataFrame({"well": ["A1", "A2"]}))).tolist() == [0, 0]
+
+
+def test_the_lag_and_decay_of_one_group_stay_in_that_group() -> None:
+    # step 8's lag clock (lag time and decay constant shared by the wells of a pool): a hysteretic enzyme with
+    # a 60-s lag and first-order inactivation (group 0) beside a stable enzyme without lag (group 1), integrated
+    # by scipy's solve_ivp (simulate_plate). With the groups given, each group gets what it gets on a plate of
+    # its own. As one pool (measured, seed 11/12), the stable enzyme's wells dilute the lag wells below the
+    # third of the usable wells that carries the lag clock to wells whose lag the detector missed, and three
+    # of the lagging enzyme's low wells lose the lag model.
+    from vzero.plugins.kinetics.simulate import simulate_plate
+
+    s0 = np.array([0.02, 0.05, 0.1, 0.2, 0.5, 1.0, 2.0, 5.0])
+    lagging = simulate_plate(T, s0, 0.5, 6e-4, lag_tau=60.0, k_inact=8e-4, signal_per_conc=SPC, noise=0.002,
+                             seed=11).signal
+    stable = simulate_plate(T, s0, 0.5, 6e-4, signal_per_conc=SPC, noise=0.002, seed=12).signal
+    y, s_all = np.vstack([lagging, stable]), np.r_[s0, s0]
+    groups = np.r_[np.zeros(s0.size, dtype=np.int64), np.ones(s0.size, dtype=np.int64)]
+    both = model_choice(T, y, s0=s_all, signal_per_conc=SPC, pool_groups=groups)
+    n = s0.size
+    for part, alone in ((slice(0, n), model_choice(T, lagging, s0=s0, signal_per_conc=SPC)),
+                        (slice(n, 2 * n), model_choice(T, stable, s0=s0, signal_per_conc=SPC))):
+        np.testing.assert_allclose(both.v0[part], alone.v0, rtol=1e-9)
+        np.testing.assert_array_equal(both.flags[part], alone.flags)
+        np.testing.assert_array_equal(both.extra["model"][part], alone.extra["model"])
+    assert np.all(both.extra["model"][:n] == 3)  # every lagging well on the lag clock
+    assert not np.any(both.extra["model"][n:] == 3)  # no stable well
