@@ -1,0 +1,53 @@
+"""Model choice where one well, or one read, decides: step 6c with exactly one misfit well, and the window of
+wells that take the plate's shape (step 9) when their last reads are missing.
+
+Sources: the clause table and fakes of ``test_choice_shape_step.py`` (step 6c's rule as its docstring states
+it); the Hill plate of ``test_poolshape.py`` (scipy.integrate.solve_ivp, Radau; Hill 1910, K0.5 0.3 mM,
+h 2.5). Wells are invented.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from vzero.plugins.rates.choice import CENSORED_READS, model_choice
+
+from tests.plugins.rates import test_choice_shape_step as shape_step
+from tests.plugins.rates.test_poolshape import HILL, S_HILL, SPC, T, hill_rate, plate
+
+
+@pytest.mark.parametrize("order", [(0, 1), (1, 0)])
+def test_shape_step_screens_a_lone_misfit_well(monkeypatch: pytest.MonkeyPatch, order: tuple[int, int]) -> None:
+    # two wells: one whose every clause holds (misfit 5 > 3.84), one with its misfit just below the trigger;
+    # the one misfit well must still be tried and replaced (code 4), the other left alone
+    cases = [shape_step.CASES[i] for i in order]
+    assert [c[0] for c in cases].count("every clause holds") == 1
+    monkeypatch.setattr(shape_step, "CASES", cases)
+    monkeypatch.setattr(shape_step, "N", 2)
+    out, stat, seen = shape_step._run(monkeypatch, np.full(2, shape_step.SE_HILL))
+    hit = order.index(0)
+    assert out.code.tolist() == [4.0 if i == hit else 0.0 for i in range(2)]
+    assert len(seen["calls"]) == 2 and seen["calls"][0][0].tolist() == [hit]
+    np.testing.assert_array_equal(stat, [c[2] for c in cases])
+
+
+def test_wells_taking_the_plate_shape_report_the_reads_they_used() -> None:
+    # the cooperative plate with each well's last reads missing (1 to 5 of them) and some wells' first two:
+    # a well that takes the plate's shape (model 6) reports the window from its first counted read to its
+    # last counted read and the number of counted reads, by hand from the mask: the finite reads less
+    # CENSORED_READS beside each missing block at the start or end (choice.trim_censored's docstring)
+    y, _ = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 100)
+    cut = 1 + np.arange(S_HILL.size) % 5
+    for i, c in enumerate(cut):
+        y[i, -c:] = np.nan
+    y[1::3, :2] = np.nan
+    r = model_choice(T, y, s0=S_HILL, signal_per_conc=SPC)
+    pooled = np.flatnonzero(r.extra["model"] == 6)
+    assert pooled.size >= 6 and np.isin([1, 4], pooled).all()
+    for i in pooled:
+        finite = np.flatnonzero(np.isfinite(y[i]))
+        lead = CENSORED_READS if finite[0] > 0 else 0
+        counted = finite[lead:finite.size - CENSORED_READS]
+        assert r.window_start_s[i] == T[counted[0]]
+        assert r.window_end_s[i] == T[counted[-1]] == T[T.size - 1 - cut[i] - CENSORED_READS]
+        assert r.n_points[i] == counted.size

@@ -1,0 +1,187 @@
+"""Both sides of the rate kernels' decisions, and their figures, against calculations written here.
+
+Each test builds wells that sit just inside and just outside one rule and checks the product's answer well by
+well against the rule recomputed by hand (numpy least squares, the exponential series, scipy): the small-x
+series of the first-order rate-loss model's Jacobian, the decay pre-screen of the decay check, the sign of
+the early-lag hinge statistic, the degrees of freedom of the substrate-inhibition curve's residual RMS and
+the plate-shape start from the wells' rates. Wells and noise are invented.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from vzero.plugins.kinetics.flags import Flag
+from vzero.plugins.rates.checks import PRESCREEN_MARGIN, _falling
+from vzero.plugins.rates.earlylag import EARLY_LAG_Z, early_lag, window_reads
+from vzero.plugins.rates.lagdecay import _selwyn, lag_decay
+from vzero.plugins.rates.noise import screen
+from vzero.plugins.rates.poolshape import shape_from_rates
+from vzero.plugins.rates.sicurve import fit_si_curve, si_left
+
+
+def _phi_series(x: np.ndarray, terms: int = 12) -> tuple[np.ndarray, np.ndarray]:
+    """phi(x) = (1 - e^(-x))/x and phi'(x) from the exponential series (Abramowitz & Stegun 4.2.1):
+    phi = sum_n (-x)^n/(n+1)!, phi' = sum_{n>=1} n (-1)^n x^(n-1)/(n+1)!."""
+    phi = sum((-x) ** n / math.factorial(n + 1) for n in range(terms))
+    dphi = sum(n * (-1) ** n * x ** (n - 1) / math.factorial(n + 1) for n in range(1, terms))
+    return phi, dphi
+
+
+def test_selwyn_jacobian_in_k_at_tiny_k_tau_follows_the_series() -> None:
+    # below |k tau| = 1e-6 the model takes phi and phi' from their series; the d/dk column v0 tau² phi'(k tau)
+    # must match the series of A&S 4.2.1 to 1e-10 (the next term, x/3 vs x/6, moves it by ~1e-7 relative)
+    tau = np.linspace(0.0, 300.0, 31)[None, :]
+    for k in (3e-9, -2e-9):
+        p = np.array([[0.2, 4e-3, k]])
+        f, jac = _selwyn(p, tau)
+        phi, dphi = _phi_series(k * tau[0])
+        np.testing.assert_allclose(f[0], 0.2 + 4e-3 * tau[0] * phi, rtol=1e-11)
+        np.testing.assert_allclose(jac[0, 2], 4e-3 * tau[0] ** 2 * dphi, rtol=1e-10, atol=1e-300)
+        np.testing.assert_allclose(jac[0, 1], tau[0] * phi, rtol=1e-11)
+    # just above the switch (k tau ~ 1e-4 .. 1e-3) the closed form holds: central differences in k
+    p = np.array([[0.2, 4e-3, 3e-6]])
+    dk = np.array([0.0, 0.0, 1e-9])
+    num = (_selwyn(p + dk, tau)[0] - _selwyn(p - dk, tau)[0]) / (2 * dk[2])
+    np.testing.assert_allclose(_selwyn(p, tau)[1][0, 2], num[0], rtol=1e-5, atol=1e-12)
+
+
+def test_lag_decay_recovers_strong_first_order_decay_from_its_clipped_start() -> None:
+    # noise-free curves y0 + v0 (1 - e^(-k t))/k (Selwyn 1965's first-order loss of rate) with k t_end from
+    # 0.5 to 50: the start value of k is clipped at 10/span, yet the fit reaches the curve's own v0 and k
+    t = np.arange(60) * 10.0
+    ks = np.array([0.5, 2.0, 5.0, 10.0, 15.0, 20.0, 30.0, 50.0]) / t[-1]
+    y = 0.1 + 5e-3 * -np.expm1(-ks[:, None] * t) / ks[:, None]
+    r = lag_decay(t, y, fail_ratio=np.inf)
+    np.testing.assert_allclose(r.v0, 5e-3, rtol=1e-8)
+    np.testing.assert_allclose(r.extra["k_decay"], ks, rtol=1e-8)
+    assert not np.any(np.asarray(r.flags) & int(Flag.FIT_FAILED))
+
+
+def _ramp_plate() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Wells rising at 1e-3 AU/s whose rate changes to r times that at 150 s (r swept finely from 0.3 to
+    2.7), the same fixed white noise (2e-3 AU) on every well; the last four reads of every other well
+    missing, so the last block holds fewer reads than the one before it. Returns t, y, r, s0 (mM)."""
+    t = np.arange(64) * 5.0
+    r = np.linspace(0.3, 2.7, 241)
+    v = 1e-3
+    y = 0.1 + v * np.minimum(t, 150.0)[None, :] + v * r[:, None] * np.maximum(t - 150.0, 0.0)[None, :]
+    y = y + 2e-3 * np.random.default_rng(4242).standard_normal(t.size)[None, :]
+    y[1::2, -4:] = np.nan
+    return t, y, r, np.full(r.size, 1e3)
+
+
+def _falling_by_hand(t: np.ndarray, y: np.ndarray, s0: np.ndarray, spc: float, order: float) -> np.ndarray:
+    """The rule of checks._falling's docstring, with numpy.polyfit lines over the first and last n_t/8 reads
+    by index and slope standard errors sigma/sqrt(Sxx); sigma and the signed change from noise.screen."""
+    sc = screen(y, min_points=8, time=t)
+    width = max(4, t.size // 8)
+    out = np.zeros(y.shape[0], dtype=bool)
+    for i in range(y.shape[0]):
+        d = np.sign(sc.change[i])
+        slopes, inv = [], []
+        for sl in (slice(0, width), slice(t.size - width, t.size)):
+            ok = np.isfinite(y[i, sl])
+            tt, yy = t[sl][ok], y[i, sl][ok]
+            slopes.append(d * np.polyfit(tt, yy, 1)[0])
+            inv.append(1.0 / np.sum((tt - tt.mean()) ** 2))
+        se = sc.sigma[i] * math.sqrt(inv[0] + inv[1])
+        x_end = min(max(abs(sc.change[i]) / (abs(spc) * s0[i]), 0.0), 1.0)
+        allowed = slopes[0] * (1.0 - x_end) ** order
+        out[i] = (slopes[1] < PRESCREEN_MARGIN * allowed + 3.0 * se) and (allowed > 3.0 * se)
+    return out
+
+
+def test_decay_prescreen_matches_its_rule_on_both_sides_of_the_bound() -> None:
+    t, y, r, s0 = _ramp_plate()
+    got = _falling(t, y, s0, 1.0, 1.0, 8)
+    want = _falling_by_hand(t, y, s0, 1.0, 1.0)
+    np.testing.assert_array_equal(got, want)
+    # the sweep crosses the bound in both sets of wells: slower ends pass the screen, faster ones do not;
+    # the 3-SE term lets ends a little faster than the margin through (about 0.24 v for the full wells)
+    for part in (slice(0, None, 2), slice(1, None, 2)):
+        assert got[part][r[part] < 1.0].all() and not got[part][r[part] > 2.5].any()
+    full_cross, gappy_cross = r[0::2][~got[0::2]][0], r[1::2][~got[1::2]][0]
+    assert PRESCREEN_MARGIN + 0.1 < full_cross < PRESCREEN_MARGIN + 0.5
+    # fewer reads in the last block widen its slope's SE: the crossing moves up for the gappy wells
+    assert gappy_cross > full_cross + 0.1
+
+
+def test_decay_prescreen_needs_a_depletion_bound_clear_of_zero() -> None:
+    # the same wells near full conversion: s0 swept so the depletion bound (1 - x_end) * first slope moves
+    # through three SEs; only wells with the bound above it pass
+    t, y, _, _ = _ramp_plate()
+    y = np.repeat(y[:1], 121, axis=0)  # r = 0.3: the end is slow, the first condition holds
+    change = screen(y, min_points=8, time=t).change[0]
+    s0 = change / np.linspace(0.5, 0.99, 121)  # x_end from 0.5 to 0.99 (spc 1 AU/mM)
+    got = _falling(t, y, s0, 1.0, 1.0, 8)
+    np.testing.assert_array_equal(got, _falling_by_hand(t, y, s0, 1.0, 1.0))
+    assert got[0] and not got[-1]
+
+
+def _hinge_z(t: np.ndarray, y: np.ndarray, sigma: float, change: float) -> float:
+    """Largest one-sided hinge t over knees 3 .. W//2 (earlylag module text) by numpy.linalg.lstsq."""
+    w = window_reads(t.size)
+    tc = t[:w] - t[0]
+    best = -np.inf
+    for k in range(3, w // 2 + 1):
+        x = np.stack([np.ones(w), tc, np.minimum(tc - tc[k], 0.0)], axis=1)
+        c = np.linalg.lstsq(x, y[:w], rcond=None)[0][2]
+        var = np.linalg.inv(x.T @ x)[2, 2]
+        best = max(best, -np.sign(change) * c / (sigma * math.sqrt(var)))
+    return float(best)
+
+
+def test_early_lag_statistic_has_the_sign_of_a_lag_not_of_depletion() -> None:
+    # rising signals: a lag (flat for 20 s, then 2e-3 AU/s), a rate that falls from the start (early reads
+    # above the steady line: depletion), a straight line; falling signals: the mirror images
+    t = np.arange(80) * 5.0
+    noise = 1e-3 * np.random.default_rng(77).standard_normal(t.size)
+    lag = 0.1 + 2e-3 * np.maximum(t - 20.0, 0.0)
+    drop = 0.1 + 0.5 * (1.0 - np.exp(-t / 100.0))
+    line = 0.1 + 2e-3 * t
+    y = np.vstack([lag, drop, line, 2.0 - lag, 2.0 - drop]) + noise
+    sigma = np.full(y.shape[0], 1e-3)
+    change = y[:, -1] - y[:, 0]
+    res = early_lag(t, y, sigma, change, np.ones(y.shape[0], bool))
+    want = np.array([_hinge_z(t, y[i], 1e-3, change[i]) for i in range(y.shape[0])])
+    np.testing.assert_allclose(res.z, want, rtol=1e-8)
+    assert res.has.tolist() == [True, False, False, True, False]
+    assert want[0] > EARLY_LAG_Z and want[3] > EARLY_LAG_Z and want[1] < 0 and want[4] < 0
+
+
+def test_substrate_inhibition_residual_rms_has_four_parameters_taken_off() -> None:
+    # ratio = sqrt(rss / (n - 4)) / sigma over the counted reads (fit_si_curve's docstring); wells with
+    # different numbers of missing reads, the curve from si_left with noise added (the figure is arithmetic
+    # on the returned rss, whatever the fit reached)
+    t = np.arange(60) * 10.0
+    s0 = np.array([0.5, 1.0, 2.0])
+    spc, v0 = 2.0, np.array([4e-4, 6e-4, 5e-4])  # AU/mM; mM/s
+    p, q = 0.3, 0.2
+    y = 0.05 + spc * s0[:, None] * -np.expm1(si_left(v0[:, None] * t / s0[:, None], p, q))
+    y = y + 1e-3 * np.random.default_rng(5).standard_normal(y.shape)
+    valid = np.ones(y.shape, bool)
+    valid[1, -5:] = False
+    valid[2, ::3] = False
+    sigma = np.full(3, 1e-3)
+    start = np.stack([np.full(3, 0.05), np.log(v0), np.full(3, p), np.full(3, q)], axis=1)
+    fit = fit_si_curve(t, y, valid, s0, spc, sigma, start)
+    n = valid.sum(axis=1)
+    np.testing.assert_allclose(fit["ratio"], np.sqrt(fit["rss"] / (n - 4.0)) / sigma, rtol=1e-12)
+    assert np.all(fit["ratio"] < 1.5)  # the curve it was drawn from describes the reads
+
+
+def test_plate_shape_start_from_exact_rates_recovers_the_rate_law() -> None:
+    # rates on the Hill law (Hill 1910) and the substrate-inhibition law (Haldane 1930) by hand: the start
+    # fitted to them returns the laws' (h, K0.5) and (Km, Ki), whatever start the fit itself took
+    s = np.array([0.05, 0.1, 0.15, 0.2, 0.3, 0.4, 0.6, 1.0, 1.5])
+    v = 4e-4 * s**2.5 / (0.3**2.5 + s**2.5)
+    got = shape_from_rates("hill", s, v, np.full(s.size, 1e-7))
+    assert got is not None
+    np.testing.assert_allclose(got, [2.5, 0.3], rtol=1e-6)
+    s = np.array([0.05, 0.1, 0.2, 0.4, 0.8, 1.5, 3.0, 6.0, 12.0])
+    v = 8e-4 * s / (0.3 + s + s * s / 3.0)
+    got = shape_from_rates("substrate-inhibition", s, v, np.full(s.size, 1e-7))
+    assert got is not None
+    np.testing.assert_allclose(got, [0.3, 3.0], rtol=1e-6)
