@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.rates.checks import PRESCREEN_MARGIN, _falling
 from vzero.plugins.rates.earlylag import EARLY_LAG_Z, early_lag, window_reads
@@ -185,3 +186,77 @@ def test_plate_shape_start_from_exact_rates_recovers_the_rate_law() -> None:
     got = shape_from_rates("substrate-inhibition", s, v, np.full(s.size, 1e-7))
     assert got is not None
     np.testing.assert_allclose(got, [0.3, 3.0], rtol=1e-6)
+
+
+def _selwyn_curve(t: np.ndarray, y0: float, v0: float, k: float) -> np.ndarray:
+    """Selwyn 1965 first-order loss of rate, for scipy's curve_fit."""
+    return y0 + v0 * -np.expm1(-k * t) / k
+
+
+def test_lag_decay_figures_match_scipy_curve_fit_with_missing_last_reads() -> None:
+    # a decaying well (k t_end = 2) with white noise and its last three reads missing: v0, k, their standard
+    # errors (the unscaled covariance times the larger of the residual variance, n - 3 degrees of freedom, and
+    # the read variance), the residual RMS over the read noise, R² and the window, all against
+    # scipy.optimize.curve_fit (independent Levenberg–Marquardt) and numpy
+    from scipy.optimize import curve_fit
+
+    t = np.arange(60) * 10.0
+    k_true = 2.0 / t[-1]
+    y = _selwyn_curve(t, 0.1, 5e-3, k_true) + 1e-3 * np.random.default_rng(31).standard_normal(t.size)
+    y[-3:] = np.nan
+    ok = np.isfinite(y)
+    r = lag_decay(t, y[None, :], fail_ratio=np.inf)
+    p, cov = curve_fit(_selwyn_curve, t[ok], y[ok], p0=[0.1, 5e-3, k_true], absolute_sigma=True,
+                       xtol=1e-14, ftol=1e-14)
+    resid = y[ok] - _selwyn_curve(t[ok], *p)
+    rss = float(resid @ resid)
+    rmse = math.sqrt(rss / (ok.sum() - 3))
+    noise = float(r.extra["read_noise"][0])
+    se = np.sqrt(np.diag(cov)) * max(rmse, noise)
+    np.testing.assert_allclose(r.v0[0], p[1], rtol=1e-6)
+    np.testing.assert_allclose(r.extra["k_decay"][0], p[2], rtol=1e-5)
+    np.testing.assert_allclose(r.stderr[0], se[1], rtol=1e-4)
+    np.testing.assert_allclose(r.extra["k_decay_stderr"][0], se[2], rtol=1e-4)
+    np.testing.assert_allclose(r.extra["rmse_over_noise"][0], rmse / noise, rtol=1e-6)
+    tss = float(np.sum((y[ok] - y[ok].mean()) ** 2))
+    np.testing.assert_allclose(r.goodness[0], 1.0 - rss / tss, rtol=1e-9)
+    assert r.window_start_s[0] == t[0] and r.window_end_s[0] == t[-4] and r.n_points[0] == ok.sum()
+    assert not np.asarray(r.flags)[0] & int(Flag.LAG)
+
+
+def test_lag_decay_rising_rate_is_a_lag_and_a_falling_one_is_not() -> None:
+    # k significantly below zero (the rate rises through the window) flags LAG; the mirror curve does not
+    t = np.arange(60) * 10.0
+    noise = 1e-3 * np.random.default_rng(32).standard_normal(t.size)
+    # and a straight line (k within its SEs of zero) is neither
+    y = np.vstack([_selwyn_curve(t, 0.1, 2e-3, -1.0 / t[-1]), _selwyn_curve(t, 0.1, 5e-3, 1.0 / t[-1]),
+                   0.1 + 3e-3 * t]) + noise
+    r = lag_decay(t, y, fail_ratio=np.inf)
+    k, se = r.extra["k_decay"], r.extra["k_decay_stderr"]
+    assert k[0] + 3.0 * se[0] < 0 < k[1] - 3.0 * se[1]
+    assert abs(k[2]) < 3.0 * se[2]
+    lag = (np.asarray(r.flags) & int(Flag.LAG)) != 0
+    assert lag.tolist() == [True, False, False]
+
+
+@pytest.mark.parametrize("order", [1.0, 2.0])
+def test_lag_decay_decay_flag_on_both_sides_of_the_depletion_bound(order: float) -> None:
+    # one noisy decaying curve repeated with s0 swept so the conversion at the last read moves through the
+    # bound: DECAY where the fitted decay's lower limit (k - 3 SE) loses more rate than (1 - x_end)^order,
+    # by hand from the returned v0, k and SE (module text; depletion_order)
+    t = np.arange(60) * 10.0
+    # noise 1e-2 AU: k's SE is a few percent, so the 3-SE margin moves the crossing by several wells
+    y1 = _selwyn_curve(t, 0.1, 5e-3, 2.0 / t[-1]) + 1e-2 * np.random.default_rng(33).standard_normal(t.size)
+    x_target = np.linspace(0.5, 0.995, 200)
+    change = 5e-3 * -np.expm1(-2.0) * t[-1] / 2.0
+    s0 = change / x_target
+    y = np.repeat(y1[None, :], s0.size, axis=0)
+    r = lag_decay(t, y, s0=s0, signal_per_conc=1.0, depletion_order=order, fail_ratio=np.inf)
+    v0, k, se = r.v0, r.extra["k_decay"], r.extra["k_decay_stderr"]
+    span = t[-1] - t[0]
+    x_end = np.abs(v0 * -np.expm1(-k * span) / k) / s0
+    k_low = k - 3.0 * se
+    want = (k_low > 0) & (np.exp(-k_low * span) < (1.0 - np.fmin(x_end, 1.0)) ** order)
+    got = (np.asarray(r.flags) & int(Flag.DECAY)) != 0
+    np.testing.assert_array_equal(got, want)
+    assert got[0] and not got[-1]
