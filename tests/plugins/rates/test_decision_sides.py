@@ -152,6 +152,48 @@ def test_early_lag_statistic_has_the_sign_of_a_lag_not_of_depletion() -> None:
     assert want[0] > EARLY_LAG_Z and want[3] > EARLY_LAG_Z and want[1] < 0 and want[4] < 0
 
 
+def _hinge_best(t: np.ndarray, y: np.ndarray, sigma: float) -> tuple[float, int, float, float]:
+    """(largest hinge t, its knee, slope b, hinge c) for a rising signal, by numpy.linalg.lstsq."""
+    w = window_reads(t.size)
+    tc = t[:w] - t[0]
+    best = (-np.inf, 0, np.nan, np.nan)
+    for k in range(3, w // 2 + 1):
+        x = np.stack([np.ones(w), tc, np.minimum(tc - tc[k], 0.0)], axis=1)
+        _, b, c = np.linalg.lstsq(x, y[:w], rcond=None)[0]
+        z = -c / (sigma * math.sqrt(np.linalg.inv(x.T @ x)[2, 2]))
+        if z > best[0]:
+            best = (float(z), k, float(b), float(c))
+    return best
+
+
+def test_early_lag_thresholds_on_both_sides_and_its_figures() -> None:
+    # a short lag (flat for 15 s, then 2e-3 AU/s) with noise: called when the largest hinge t exceeds z and the
+    # steady change per read is at least MIN_STEP read noises; just inside / outside each, by hand; the knee,
+    # the early-over-steady ratio (b + c)/b and the lag -c t_k / b from the same least squares
+    from vzero.plugins.rates.earlylag import MIN_STEP
+
+    t = np.arange(80) * 5.0
+    sigma = 1e-3
+    y = 0.1 + 2e-3 * np.maximum(t - 15.0, 0.0) + sigma * np.random.default_rng(78).standard_normal(t.size)
+    zmax, knee, b, c = _hinge_best(t, y, sigma)
+    yy, one = y[None, :], np.ones(1, bool)
+    ch = np.array([y[-1] - y[0]])
+    r = early_lag(t, yy, np.array([sigma]), ch, one)
+    assert r.has[0] and r.knee[0] == knee
+    np.testing.assert_allclose([r.z[0], r.ratio[0], r.lag_s[0]], [zmax, (b + c) / b, -c * (t[knee] - t[0]) / b],
+                               rtol=1e-8)
+    assert early_lag(t, yy, np.array([sigma]), ch, one, z=zmax * 0.999).has[0]
+    assert not early_lag(t, yy, np.array([sigma]), ch, one, z=zmax * 1.001).has[0]
+    # the step rule on its own: the same reads with a read noise claimed so that b dt / sigma sits at
+    # MIN_STEP (the statistic scales as 1/sigma; z lowered to keep it passing)
+    dt = 5.0
+    s_edge = b * dt / MIN_STEP
+    for scale, called in ((0.999, True), (1.001, False)):
+        s = s_edge * scale
+        got = early_lag(t, yy, np.array([s]), ch, one, z=0.5 * zmax * sigma / s)
+        assert bool(got.has[0]) is called
+
+
 def test_substrate_inhibition_residual_rms_has_four_parameters_taken_off() -> None:
     # ratio = sqrt(rss / (n - 4)) / sigma over the counted reads (fit_si_curve's docstring); wells with
     # different numbers of missing reads, the curve from si_left with noise added (the figure is arithmetic
