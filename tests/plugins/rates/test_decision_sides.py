@@ -302,3 +302,12 @@ def test_lag_decay_decay_flag_on_both_sides_of_the_depletion_bound(order: float)
     got = (np.asarray(r.flags) & int(Flag.DECAY)) != 0
     np.testing.assert_array_equal(got, want)
     assert got[0] and not got[-1]
+
+
+@pytest.mark.parametrize(("n_reads", "flag"), [(0, Flag.ALL_MISSING), (1, Flag.TOO_FEW_POINTS)])
+def test_lag_decay_with_no_or_one_read_reports_why_and_no_rate(n_reads: int, flag: Flag) -> None:
+    # no reads at all, or a single read, on two wells: no rate, no lag time, no reads used, and the reason
+    r = lag_decay(np.arange(n_reads) * 5.0, np.ones((2, n_reads)))
+    assert np.isnan(r.v0).all() and np.isnan(r.lag_s).all() and np.isnan(r.extra["k_decay"]).all()
+    assert np.asarray(r.n_points).tolist() == [0, 0]
+    assert np.asarray(r.flags).tolist() == [int(flag)] * 2
