@@ -13,7 +13,7 @@ import pytest
 from vzero.plugins.rates.choice import CENSORED_READS, model_choice
 
 from tests.plugins.rates import test_choice_shape_step as shape_step
-from tests.plugins.rates.test_poolshape import HILL, S_HILL, SPC, T, hill_rate, plate
+from tests.plugins.rates.test_poolshape import HILL, S_HILL, S_SI, SI, SPC, T, hill_rate, plate, si_rate
 
 
 @pytest.mark.parametrize("order", [(0, 1), (1, 0)])
@@ -31,20 +31,28 @@ def test_shape_step_screens_a_lone_misfit_well(monkeypatch: pytest.MonkeyPatch, 
     np.testing.assert_array_equal(stat, [c[2] for c in cases])
 
 
-def test_wells_taking_the_plate_shape_report_the_reads_they_used() -> None:
-    # the cooperative plate with each well's last reads missing (1 to 5 of them) and some wells' first two:
-    # a well that takes the plate's shape (model 6) reports the window from its first counted read to its
-    # last counted read and the number of counted reads, by hand from the mask: the finite reads less
+#: models fitted to the whole curve (Michaelis–Menten 0, power law 1, Hill 4, substrate inhibition 5, the plate's
+#: shape 6 and 7; docs/rates.md): their window is every counted read
+WHOLE_CURVE = (0.0, 1.0, 4.0, 5.0, 6.0, 7.0)
+
+
+@pytest.mark.parametrize(("family", "pooled", "must"), [("hill", True, (6.0,)), ("hill", False, (4.0,)),
+                                                        ("si", False, (5.0,))])
+def test_whole_curve_wells_report_the_reads_they_used(family: str, pooled: bool, must: tuple[float, ...]) -> None:
+    # the cooperative (or substrate-inhibited) plate with each well's last reads missing (1 to 5 of them) and
+    # some wells' first two: a well on a whole-curve model reports the window from its first counted read to
+    # its last counted read and the number of counted reads, by hand from the mask: the finite reads less
     # CENSORED_READS beside each missing block at the start or end (choice.trim_censored's docstring)
-    y, _ = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 100)
-    cut = 1 + np.arange(S_HILL.size) % 5
+    rate, s0, vmax = (hill_rate, S_HILL, HILL["vmax"]) if family == "hill" else (si_rate, S_SI, SI["vmax"])
+    y, _ = plate(rate, s0, vmax, 0.002, 100)
+    cut = 1 + np.arange(s0.size) % 5
     for i, c in enumerate(cut):
         y[i, -c:] = np.nan
     y[1::3, :2] = np.nan
-    r = model_choice(T, y, s0=S_HILL, signal_per_conc=SPC)
-    pooled = np.flatnonzero(r.extra["model"] == 6)
-    assert pooled.size >= 6 and np.isin([1, 4], pooled).all()
-    for i in pooled:
+    r = model_choice(T, y, s0=s0, signal_per_conc=SPC, pool_shape=pooled)
+    model = np.asarray(r.extra["model"])
+    assert np.isin(must, model).all() and np.isin(model[[1, 4]], WHOLE_CURVE).any()
+    for i in np.flatnonzero(np.isin(model, WHOLE_CURVE)):
         finite = np.flatnonzero(np.isfinite(y[i]))
         lead = CENSORED_READS if finite[0] > 0 else 0
         counted = finite[lead:finite.size - CENSORED_READS]

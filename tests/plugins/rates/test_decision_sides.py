@@ -14,12 +14,17 @@ import math
 import numpy as np
 import pytest
 from vzero.plugins.kinetics.flags import Flag
-from vzero.plugins.rates.checks import PRESCREEN_MARGIN, _falling
-from vzero.plugins.rates.earlylag import EARLY_LAG_Z, early_lag, window_reads
+from vzero.plugins.rates.checks import _falling
+from vzero.plugins.rates.earlylag import early_lag, window_reads
 from vzero.plugins.rates.lagdecay import _selwyn, lag_decay
 from vzero.plugins.rates.noise import screen
 from vzero.plugins.rates.poolshape import shape_from_rates
 from vzero.plugins.rates.sicurve import fit_si_curve, si_left
+
+# the thresholds as the modules state them (our choices, documented there and in docs/rates.md), written out
+# so that a changed constant is caught: the decay pre-screen's margin 1.1, the early-lag test's one-sided
+# threshold 4 and its least steady change per read, 2 read noises
+PRESCREEN_MARGIN, EARLY_LAG_Z, MIN_STEP = 1.1, 4.0, 2.0
 
 
 def _phi_series(x: np.ndarray, terms: int = 12) -> tuple[np.ndarray, np.ndarray]:
@@ -170,8 +175,6 @@ def test_early_lag_thresholds_on_both_sides_and_its_figures() -> None:
     # a short lag (flat for 15 s, then 2e-3 AU/s) with noise: called when the largest hinge t exceeds z and the
     # steady change per read is at least MIN_STEP read noises; just inside / outside each, by hand; the knee,
     # the early-over-steady ratio (b + c)/b and the lag -c t_k / b from the same least squares
-    from vzero.plugins.rates.earlylag import MIN_STEP
-
     t = np.arange(80) * 5.0
     sigma = 1e-3
     y = 0.1 + 2e-3 * np.maximum(t - 15.0, 0.0) + sigma * np.random.default_rng(78).standard_normal(t.size)
@@ -184,6 +187,11 @@ def test_early_lag_thresholds_on_both_sides_and_its_figures() -> None:
                                rtol=1e-8)
     assert early_lag(t, yy, np.array([sigma]), ch, one, z=zmax * 0.999).has[0]
     assert not early_lag(t, yy, np.array([sigma]), ch, one, z=zmax * 1.001).has[0]
+    # the default threshold: the read noise claimed so that the statistic is 4.2 or 3.8 (it scales as 1/sigma)
+    for target, called in ((4.2, True), (3.8, False)):
+        s = sigma * zmax / target
+        assert b * 5.0 / s >= MIN_STEP  # the step rule holds
+        assert bool(early_lag(t, yy, np.array([s]), ch, one).has[0]) is called
     # the step rule on its own: the same reads with a read noise claimed so that b dt / sigma sits at
     # MIN_STEP (the statistic scales as 1/sigma; z lowered to keep it passing)
     dt = 5.0

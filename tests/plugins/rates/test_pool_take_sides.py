@@ -12,11 +12,17 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from vzero.plugins.rates.poolshape import MIN_EVIDENCE, MIN_WELLS, POOL_MISFIT, POOLED_CODES, pool_shape
+from scipy.stats import chi2
+from vzero.plugins.rates.poolshape import POOLED_CODES, pool_shape
 
 from tests.plugins.rates.test_poolshape import HILL, S_HILL, SPC, T, hill_rate, plate
 
 N = S_HILL.size
+# the thresholds as the module's docstrings state them, written out so that a changed constant is caught: the
+# smooth misfit's limit is the 99th percentile of chi² with two degrees of freedom (scipy.stats, independent;
+# the product rounds it to 9.21), one well of evidence, three wells in the joint fit (our choice, stated there)
+POOL_MISFIT = float(chi2.ppf(0.99, 2))
+MIN_EVIDENCE, MIN_WELLS = 1, 3
 
 
 def _call(misfit: np.ndarray, *, lof: float = np.inf, agree: float = np.inf, q_v0: np.ndarray | None = None,
@@ -40,7 +46,7 @@ def test_each_well_clause_on_both_sides() -> None:
     assert 0 < np.sum(free.ratio <= lof) < N
     np.testing.assert_array_equal(_call(np.zeros(N), lof=lof).take, free.ratio <= lof)
     # the smooth misfit just below / just above POOL_MISFIT, alternately
-    m = POOL_MISFIT * np.where(np.arange(N) % 2 == 0, 0.99, 1.01)
+    m = POOL_MISFIT * np.where(np.arange(N) % 2 == 0, 0.999, 1.001)
     np.testing.assert_array_equal(_call(m).take, m <= POOL_MISFIT)
     # the quadratic's v0 set 0.99 or 1.01 agree_z quadratic SEs (1e-6) above or below the pooled v0
     off = np.array([0.99, -0.99, 1.01, -1.01, 0.5, -0.5, 1.2, -1.2, 0.0])
@@ -51,16 +57,17 @@ def test_each_well_clause_on_both_sides() -> None:
 
 def test_which_wells_enter_the_joint_fit() -> None:
     # a well with fewer counted reads than min_reads, or a model outside (0, 1, 2, 4, 5), is left out:
-    # no v0 of the joint fit and never taken; a well with exactly min_reads reads is in
+    # no v0 of the joint fit and never taken; a well with exactly min_reads reads is in, and so is a well on
+    # each of the models 0 (Michaelis–Menten), 1 (power law), 2 (quadratic) and 5 (substrate inhibition)
     valid = np.ones((N, T.size), bool)
     valid[0, 30:] = False  # 30 reads: exactly min_reads below
     valid[1, 29:] = False  # 29 reads
     code = np.full(N, 4.0)
     code[2] = 3.0
-    code[3] = 0.0
+    code[3:7] = [0.0, 1.0, 2.0, 5.0]
     got = _call(np.zeros(N), code=code, valid=valid, min_reads=30)
     assert np.isnan(got.v0[[1, 2]]).all() and not got.take[[1, 2]].any()
-    assert np.isfinite(got.v0[[0, 3]]).all() and got.take[[0, 3]].all()
+    assert np.isfinite(got.v0[[0, 3, 4, 5, 6]]).all() and got.take[[0, 3, 4, 5, 6]].all()
 
 
 def test_evidence_and_well_count_thresholds() -> None:
