@@ -172,12 +172,12 @@ def _hinge_best(t: np.ndarray, y: np.ndarray, sigma: float) -> tuple[float, int,
 
 
 def test_early_lag_thresholds_on_both_sides_and_its_figures() -> None:
-    # a short lag (flat for 15 s, then 2e-3 AU/s) with noise: called when the largest hinge t exceeds z and the
+    # a short lag (flat for 10 s, then 2e-3 AU/s) with noise: called when the largest hinge t exceeds z and the
     # steady change per read is at least MIN_STEP read noises; just inside / outside each, by hand; the knee,
     # the early-over-steady ratio (b + c)/b and the lag -c t_k / b from the same least squares
     t = np.arange(80) * 5.0
     sigma = 1e-3
-    y = 0.1 + 2e-3 * np.maximum(t - 15.0, 0.0) + sigma * np.random.default_rng(78).standard_normal(t.size)
+    y = 0.1 + 2e-3 * np.maximum(t - 10.0, 0.0) + sigma * np.random.default_rng(78).standard_normal(t.size)
     zmax, knee, b, c = _hinge_best(t, y, sigma)
     yy, one = y[None, :], np.ones(1, bool)
     ch = np.array([y[-1] - y[0]])
