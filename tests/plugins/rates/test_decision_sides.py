@@ -223,6 +223,38 @@ def test_substrate_inhibition_residual_rms_has_four_parameters_taken_off() -> No
     assert np.all(fit["ratio"] < 1.5)  # the curve it was drawn from describes the reads
 
 
+def test_substrate_inhibition_se_takes_the_larger_of_residual_and_read_noise() -> None:
+    # fit_si_curve's docstring: the covariance is scaled by the larger of the residual variance and sigma²;
+    # the fit itself does not depend on sigma, so claiming a read noise far below the residual RMS and one far
+    # above it scales the SE by exactly (sigma_big / rmse)
+    t = np.arange(60) * 10.0
+    s0, spc, v0 = np.array([1.0]), 2.0, np.array([6e-4])
+    y = 0.05 + spc * s0[:, None] * -np.expm1(si_left(v0[:, None] * t / s0[:, None], 0.3, 0.2))
+    y = y + 1e-3 * np.random.default_rng(6).standard_normal(y.shape)
+    valid = np.ones(y.shape, bool)
+    start = np.array([[0.05, math.log(6e-4), 0.3, 0.2]])
+    low = fit_si_curve(t, y, valid, s0, spc, np.array([1e-9]), start)
+    high = fit_si_curve(t, y, valid, s0, spc, np.array([1.0]), start)
+    rmse = math.sqrt(low["rss"][0] / (t.size - 4))
+    np.testing.assert_allclose(high["v0"], low["v0"], rtol=1e-12)
+    np.testing.assert_allclose(high["se"][0] / low["se"][0], 1.0 / rmse, rtol=1e-9)
+
+
+def test_inhibition_step_tries_only_wells_below_the_order_limit() -> None:
+    # the curve is tried only where the power law's order is below SI_ORDER = 0.25 (sicurve's docstring):
+    # the same reads with order 0.249 and 0.251; the fit's figures are NaN where it was not tried
+    from vzero.plugins.rates.sicurve import inhibition_step
+
+    t = np.arange(60) * 10.0
+    s0, spc = np.array([1.0, 1.0]), 2.0
+    y1 = 0.05 + spc * -np.expm1(si_left(6e-4 * t, 0.3, 0.2)) + 1e-3 * np.random.default_rng(8).standard_normal(t.size)
+    y = np.vstack([y1, y1])
+    keep, fit = inhibition_step(t, y, np.ones(y.shape, bool), s0, spc, np.full(2, 1e-3), np.full(2, 0.05),
+                                np.full(2, spc * 6e-4), np.array([0.249, 0.251]), np.full(2, 5.0),
+                                np.full(2, spc * 6e-4), np.full(2, 1e-5), lof_ratio=1.4, agree_z=2.0)
+    assert np.isfinite(fit["v0"][0]) and np.isnan(fit["v0"][1]) and not keep[1]
+
+
 def test_plate_shape_start_from_exact_rates_recovers_the_rate_law() -> None:
     # rates on the Hill law (Hill 1910) and the substrate-inhibition law (Haldane 1930) by hand: the start
     # fitted to them returns the laws' (h, K0.5) and (Km, Ki), whatever start the fit itself took
