@@ -351,3 +351,25 @@ def test_lag_decay_with_no_or_one_read_reports_why_and_no_rate(n_reads: int, fla
     assert np.isnan(r.v0).all() and np.isnan(r.lag_s).all() and np.isnan(r.extra["k_decay"]).all()
     assert np.asarray(r.n_points).tolist() == [0, 0]
     assert np.asarray(r.flags).tolist() == [int(flag)] * 2
+
+
+def test_lag_block_test_on_both_sides_of_min_rise() -> None:
+    # noise-free wells rising at r v over the first block (reads 0-7, n_time/8) and at v after it: a lag is
+    # called when the first block's slope is below (1 - min_rise) = 0.8 of the steepest block's (block slopes
+    # by numpy.polyfit); the lag time is where the steady line meets the first read's level, t_7 (1 - r), and
+    # the steady state starts at the middle of the first block within 2 % of the steepest (by hand)
+    from vzero.plugins.rates.lagdecay import detect_lag
+
+    t = np.arange(64) * 5.0
+    v = 2e-3
+    r = np.array([0.70, 0.79, 0.799, 0.801, 0.81, 0.9])
+    y = 0.1 + np.where(t <= t[7], r[:, None] * v * t, r[:, None] * v * t[7] + v * (t - t[7]))
+    sc = screen(y, min_points=8, time=t)
+    start, lag_s, has = detect_lag(t, y, sc, early=False)
+    assert has.tolist() == (r < 0.8).tolist()
+    np.testing.assert_allclose(lag_s[has], t[7] * (1.0 - r[has]), rtol=1e-9)
+    assert (lag_s[~has] == 0.0).all() and (start[~has] == 0).all()
+    for i in np.flatnonzero(has):
+        slopes = np.array([np.polyfit(t[j:j + 8], y[i, j:j + 8], 1)[0] for j in range(t.size - 7)])
+        first = int(np.argmax(slopes >= 0.98 * slopes.max()))
+        assert start[i] == min(first + 4, t.size - 16)
