@@ -59,3 +59,23 @@ def test_whole_curve_wells_report_the_reads_they_used(family: str, pooled: bool,
         assert r.window_start_s[i] == T[counted[0]]
         assert r.window_end_s[i] == T[counted[-1]] == T[T.size - 1 - cut[i] - CENSORED_READS]
         assert r.n_points[i] == counted.size
+
+
+def test_each_well_is_chosen_on_its_own_reads() -> None:
+    # without the plate's shape (step 9) every step decides per well: a plate of six wells that end on six
+    # different models (Michaelis–Menten 0, quadratic 2, power law 1, Hill 4, substrate inhibition 5, and a
+    # decaying well, 3: Selwyn 1965's first-order loss of rate, half-life 208 s, 3 % conversion) gives each
+    # well what it gets on a plate of its own, so every step also runs with exactly one well
+    yh, _ = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 100)
+    ys, _ = plate(si_rate, S_SI, SI["vmax"], 0.002, 100)
+    k = 1.0 / 300.0
+    yd = 0.05 + SPC * 5e-4 * -np.expm1(-k * T) / k + 0.002 * np.random.default_rng(9).standard_normal(T.size)
+    y = np.vstack([yh[[0, 1, 2, 4]], ys[[7]], yd])
+    s0 = np.r_[S_HILL[[0, 1, 2, 4]], S_SI[7], 5.0]
+    r = model_choice(T, y, s0=s0, signal_per_conc=SPC, pool_shape=False)
+    assert np.asarray(r.extra["model"]).tolist() == [0.0, 2.0, 1.0, 4.0, 5.0, 3.0]
+    for i in range(s0.size):
+        alone = model_choice(T, y[i:i + 1], s0=s0[i:i + 1], signal_per_conc=SPC, pool_shape=False)
+        assert alone.extra["model"][0] == r.extra["model"][i] and alone.flags[0] == r.flags[i]
+        np.testing.assert_allclose([alone.v0[0], alone.stderr[0]], [r.v0[i], r.stderr[i]], rtol=1e-8)
+        assert alone.window_end_s[0] == r.window_end_s[i] and alone.n_points[0] == r.n_points[i]
