@@ -82,3 +82,26 @@ def test_evidence_and_well_count_thresholds() -> None:
     assert _call(np.zeros(N), code=code).take[:MIN_WELLS].all()
     code[MIN_WELLS - 1] = 3.0
     assert _call(np.zeros(N), code=code).fit is None
+
+
+def test_joint_fit_degrees_of_freedom_and_shape_covariance_scaling() -> None:
+    # the joint fit has two parameters per well (baseline, ln v0) and two for the shape: dof = reads - 2 n - 2
+    # (by hand, with some reads missing); its shape covariance is scaled by the larger of the reduced chi-square
+    # and 1, so with the read noise claimed ten times too small it is the read-noise-free covariance times
+    # RSS / dof (the linearised least-squares covariance, e.g. Press et al., Numerical Recipes, 15.4), i.e.
+    # (claimed-right covariance) * RSS / (dof * sigma²)
+    from vzero.plugins.rates.poolshape import fit_pooled
+
+    y, v_true = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 43)
+    valid = np.ones(y.shape, bool)
+    valid[2, -7:] = False
+    valid[5, :3] = False
+    shape0 = np.array([HILL["h"], HILL["k"]])
+    right = fit_pooled("hill", T, y, valid, S_HILL, SPC, np.full(N, 0.01), shape0, v_true, np.full(N, 0.05))
+    small = fit_pooled("hill", T, y, valid, S_HILL, SPC, np.full(N, 0.0002), shape0, v_true, np.full(N, 0.05))
+    dof = valid.sum() - 2 * N - 2
+    assert right.dof == dof == small.dof
+    np.testing.assert_allclose(small.shape, right.shape, rtol=1e-6)
+    rss = float(np.sum(small.rss))
+    assert rss / dof < 0.01**2  # the generous noise: scale 1
+    np.testing.assert_allclose(small.shape_cov, right.shape_cov * rss / (dof * 0.01**2), rtol=1e-4)
