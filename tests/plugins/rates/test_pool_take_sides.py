@@ -102,6 +102,9 @@ def test_joint_fit_degrees_of_freedom_and_shape_covariance_scaling() -> None:
     dof = valid.sum() - 2 * N - 2
     assert right.dof == dof == small.dof
     np.testing.assert_allclose(small.shape, right.shape, rtol=1e-6)
+    # each well's residual RMS over its read noise, two parameters per well (PooledShape's docstring)
+    n_reads = valid.sum(axis=1)
+    np.testing.assert_allclose(small.ratio, np.sqrt(small.rss / (n_reads - 2)) / 0.0002, rtol=1e-12)
     rss = float(np.sum(small.rss))
     assert rss / dof < 0.01**2  # the generous noise: scale 1
     np.testing.assert_allclose(small.shape_cov, right.shape_cov * rss / (dof * 0.01**2), rtol=1e-4)
