@@ -53,13 +53,16 @@ READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importe
            "tests/plugins/importers/test_plain_numbers.py"]
 #: the default rate method (model-choice) and the shared checks, with their helpers' field tests
 HELPERS = "tests/plugins/rates/test_rate_helper_fields.py"
+#: both sides of the rate kernels' decisions (lag-decay, decay pre-screen, early lag, curves' figures)
+SIDES = "tests/plugins/rates/test_decision_sides.py"
 CHOICE = [HELPERS, "tests/plugins/rates/test_choice_fields.py", "tests/plugins/rates/test_model_choice.py",
           "tests/plugins/rates/test_hillcurve.py", "tests/plugins/rates/test_same_reads.py",
           "tests/plugins/rates/test_sicurve.py", "tests/plugins/rates/test_disagrees.py",
           "tests/plugins/rates/test_choice_time_origin.py", "tests/plugins/rates/test_choice_triggers.py",
           "tests/plugins/rates/test_choice_shape_step.py", "tests/plugins/rates/test_choice_hill_step.py",
           "tests/plugins/rates/test_choice_power_step.py", "tests/plugins/rates/test_choice_reports.py",
-          "tests/plugins/rates/test_choice_late_steps.py", "tests/plugins/rates/test_poolshape.py"]
+          "tests/plugins/rates/test_choice_late_steps.py", "tests/plugins/rates/test_poolshape.py",
+          "tests/plugins/rates/test_choice_lone_wells.py"]
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
            "tests/pipeline/test_verify_digests.py::test_a_missing_results_group_is_reported"]
@@ -85,25 +88,26 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
                                        "tests/plugins/rates/test_progress_fields.py",
                                        "tests/plugins/rates/test_progress_bounded_se.py"]),
     "plugins/rates/shapegrid.py": ((), ["tests/plugins/rates/test_shapegrid.py"]),
-    "plugins/rates/lagdecay.py": ((), RATES),
+    "plugins/rates/lagdecay.py": ((), [*RATES, SIDES]),
     "plugins/rates/choice.py": ((), CHOICE),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py",
                                         "tests/plugins/rates/test_curve_jacobian_shape.py"]),
     "plugins/rates/sicurve.py": ((), ["tests/plugins/rates/test_sicurve.py", *CHOICE[1:3],
-                                      "tests/plugins/rates/test_curve_jacobian_shape.py"]),
-    "plugins/rates/poolshape.py": ((), ["tests/plugins/rates/test_poolshape.py"]),
+                                      "tests/plugins/rates/test_curve_jacobian_shape.py", SIDES]),
+    "plugins/rates/poolshape.py": ((), ["tests/plugins/rates/test_poolshape.py", SIDES,
+                                        "tests/plugins/rates/test_pool_take_sides.py"]),
     "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
                                      "tests/plugins/rates/test_imprecise.py",
                                      "tests/plugins/rates/test_short_lag_and_decay.py",
                                      "tests/plugins/rates/test_lag_clock.py",
-                                     "tests/plugins/rates/test_check_thresholds.py"]),
+                                     "tests/plugins/rates/test_check_thresholds.py", SIDES]),
     "plugins/rates/lagfit.py": ((), [HELPERS, "tests/plugins/rates/test_lag_clock.py",
                                      "tests/plugins/rates/test_plate_clock_rules.py",
                                      "tests/plugins/rates/test_lag_clock_se.py",
                                      "tests/plugins/rates/test_lag_clock_choice.py"]),
     "plugins/rates/earlylag.py": ((), [HELPERS, "tests/plugins/rates/test_short_lag_and_decay.py",
-                                       "tests/plugins/rates/test_early_lag_edges.py"]),
+                                       "tests/plugins/rates/test_early_lag_edges.py", SIDES]),
     "plugins/convert/__init__.py": ((), CONVERT),
     "plugins/convert/pathlength.py": ((), CONVERT),
     "plugins/convert/standard_curve.py": ((), CONVERT),
