@@ -39,9 +39,11 @@ from vzero.plugins.rates.sicurve import si_model
 POOLED_CODES = {"hill": 6.0, "substrate-inhibition": 7.0}
 
 #: Least number of wells with evidence of the family's shape from the per-well steps (a Hill curve kept,
-#: model 4, or a substrate-inhibition curve kept, model 5) for the plate to be fitted jointly: one well may
-#: take a shape by chance (the F-tests run at 1-5 %), two on one plate rarely do; it also keeps the joint fit
-#: off plates that do not need it (no well of the Michaelis–Menten speed plates reaches model 4 or 5).
+#: model 4, or a substrate-inhibition curve kept, model 5) for the plate to be fitted jointly. One is enough
+#: to try: a well may keep a shape by chance (the F-tests run at 1-5 %), so the joint fit must itself place
+#: the shape :data:`SHAPE_WALD_Z` standard errors from Michaelis–Menten's before any well takes it. The gate
+#: keeps the joint fit off plates that do not need it (no well of the Michaelis–Menten speed plates reaches
+#: model 4 or 5).
 MIN_EVIDENCE = 1
 
 #: Least number of wells in the joint fit (two shape parameters must be determined by more than one well).
