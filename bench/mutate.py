@@ -74,6 +74,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
                            ["tests/plugins/fit/test_run_helpers.py", STATS, STAGE,
                             "tests/plugins/fit/test_titration.py"]),
     "plugins/fit/models.py": ((), ["tests/plugins/fit/test_start_values.py", "tests/plugins/fit/test_models.py",
+                                   "tests/plugins/fit/test_model_edges.py",
                                    STATS]),
     "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"),
                                    ["tests/plugins/fit/test_diagnostics_fields.py", STAGE]),

@@ -231,7 +231,8 @@ def _logistic(p: Sequence[Arr], x: X) -> np.ndarray:
 def _logistic_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
     u, li = _logistic_u(p, x["inhibitor"])
     w = 1 / (1 + u)  # 0 where u is infinite (I = 0 with n < 0)
-    uw = np.where(np.isinf(u), 1.0, u * w)  # u/(1 + u), its limit 1 there (inf/inf would be NaN)
+    with np.errstate(invalid="ignore"):
+        uw = np.where(np.isinf(u), 1.0, u * w)  # u/(1 + u), its limit 1 there (inf·0 would be NaN)
     span = p[0] - p[1]
     dn = np.where(u > 0, -span * uw * w * np.where(np.isfinite(li), li, 0.0), 0.0)
     return [w, uw, span * uw * w * p[3] / p[2], dn]
