@@ -219,3 +219,25 @@ def test_jacobian_at_the_edges_of_the_domain(model) -> None:
     analytic = _jac(model.name, p, **cols)
     assert np.all(np.isfinite(analytic))
     np.testing.assert_allclose(analytic, _central(model.name, p, **cols), rtol=1e-6, atol=1e-9)
+
+
+def _start(name: str, y: list[float], **x: list[float]) -> list[float]:
+    return BY_NAME[name].start(_x(**x), np.asarray(y, float))
+
+
+def test_start_values_from_data_below_one_unit() -> None:
+    # every "positive?" test of the start rules must let a small positive figure through unchanged (rates in
+    # µM/s and concentrations in mM are often well below 1); only a figure ≤ 0 falls back to 1
+    # Michaelis–Menten: Vmax = top rate 0.4; half (0.2) first reached at S = 0.02, level below 0.01 → √(2e-4)
+    assert _start("michaelis-menten", [0.1, 0.25, 0.4], substrate=[0.01, 0.02, 0.08]) == pytest.approx(
+        [0.4, math.sqrt(0.02 * 0.01)])
+    # substrate inhibition: Ksi starts at ten times the top level, 10 · 0.08
+    assert _start("substrate-inhibition", [0.1, 0.25, 0.4], substrate=[0.01, 0.02, 0.08])[2] == pytest.approx(0.8)
+    # Morrison: v0 at the top rate 0.3; Ki_app at the median positive inhibitor level, median(0.02, 0.2) = 0.11
+    assert _start("morrison", [0.3, 0.2, 0.05], inhibitor=[0.0, 0.02, 0.2], enzyme=[0.01] * 3) == pytest.approx(
+        [0.3, 0.11])
+    # competitive: Kic at median(0.02, 0.2) = 0.11 as well
+    assert _start("competitive", [0.1, 0.4, 0.1, 0.1], substrate=[0.01, 0.08, 0.01, 0.08],
+                  inhibitor=[0.0, 0.0, 0.02, 0.2])[2] == pytest.approx(0.11)
+    # logistic: midpoint at the geometric mean of the positive levels 0.01 and 0.04 = 0.02
+    assert _start("logistic-4p", [0.5, 0.3, 0.1], inhibitor=[0.0, 0.01, 0.04]) == pytest.approx([0.5, 0.1, 0.02, 1.0])
