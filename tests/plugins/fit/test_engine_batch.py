@@ -1,0 +1,100 @@
+"""The fit engine's entry points against scipy.optimize.curve_fit as the independent reference: the batched
+fit with padding and weights equals fitting each group alone, a fixed parameter is held (and the free one
+then has its closed-form least-squares value), a start outside the bounds is clipped, and the evaluation
+budget stops a fit with a message saying so. Invented Michaelis–Menten demo data."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.optimize import curve_fit
+from vzero.plugins.fit import engine
+from vzero.plugins.fit.catalog import BY_NAME
+
+MM = BY_NAME["michaelis-menten"]
+RNG = np.random.default_rng(20240611)
+GROUPS = [  # (substrate levels, Vmax, Km)
+    (np.array([0.5, 1.0, 2.0, 4.0, 8.0, 16.0, 32.0]), 10.0, 3.0),
+    (np.array([0.2, 0.5, 1.0, 2.0, 5.0]), 4.0, 0.8),
+    (np.array([1.0, 3.0, 9.0, 27.0, 81.0, 243.0]), 60.0, 25.0),
+]
+
+
+def _mm(s: np.ndarray, vmax: float, km: float) -> np.ndarray:
+    return vmax * s / (km + s)
+
+
+def _data() -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    out = []
+    for s, vmax, km in GROUPS:
+        sigma = 0.02 * _mm(s, vmax, km) + 0.05
+        out.append((s, _mm(s, vmax, km) + RNG.normal(0, 1, s.size) * sigma, sigma))
+    return out
+
+
+def test_batched_weighted_fit_equals_curve_fit_per_group() -> None:
+    data = _data()
+    width = max(s.size for s, _, _ in data)
+    shape = (len(data), width)
+    s_pad, y_pad, sig_pad, mask = np.zeros(shape), np.zeros(shape), np.ones(shape), np.zeros(shape, bool)
+    for g, (s, y, sig) in enumerate(data):
+        s_pad[g, : s.size], y_pad[g, : s.size], sig_pad[g, : s.size], mask[g, : s.size] = s, y, sig, True
+    p0 = np.array([MM.start({"substrate": s}, y) for s, y, _ in data])
+    results = engine.fit_batch(MM.evaluate, MM.jacobian, {"substrate": s_pad}, y_pad, mask, p0, MM.params,
+                               sigma=sig_pad, bounds=dict(MM.bounds))
+    for (s, y, sig), res in zip(data, results, strict=True):
+        popt, pcov = curve_fit(_mm, s, y, p0=[y.max(), np.median(s)], sigma=sig, absolute_sigma=False)
+        assert res.success and res.n_points == s.size and res.dof == s.size - 2
+        np.testing.assert_allclose(res.values, popt, rtol=1e-6)
+        np.testing.assert_allclose([res.params[n].stderr for n in MM.params], np.sqrt(np.diag(pcov)), rtol=1e-4)
+        assert res.rss == pytest.approx(float(np.sum(((y - _mm(s, *popt)) / sig) ** 2)), rel=1e-8)
+        # the single-group entry point gives the same figures
+        one = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, list(res.values), MM.params, sigma=sig,
+                         bounds=dict(MM.bounds))
+        np.testing.assert_allclose(one.values, res.values, rtol=1e-6)
+
+
+def test_a_fixed_parameter_is_held_and_the_free_one_is_its_closed_form() -> None:
+    # Km fixed: v = Vmax·g(S) with g = S/(Km + S) is linear in Vmax, whose weighted least-squares value is
+    # Σ(g·y/σ²)/Σ(g²/σ²) with variance s²/Σ(g²/σ²), s² = RSS/(n − 1) (linear regression through the origin)
+    s, y, sig = _data()[0]
+    res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, [1.0, 99.0], MM.params, sigma=sig,
+                     fixed={"Km": 2.5})
+    g = s / (2.5 + s)
+    vmax = float(np.sum(g * y / sig**2) / np.sum(g**2 / sig**2))
+    rss = float(np.sum(((y - vmax * g) / sig) ** 2))
+    assert res.values[1] == 2.5 and res.params["Km"].fixed and res.params["Km"].stderr == 0.0
+    assert res.values[0] == pytest.approx(vmax, rel=1e-9)
+    assert res.dof == s.size - 1
+    assert res.params["Vmax"].stderr == pytest.approx(np.sqrt(rss / (s.size - 1) / np.sum(g**2 / sig**2)), rel=1e-6)
+    batch = engine.fit_batch(MM.evaluate, MM.jacobian, {"substrate": s[None]}, y[None], np.ones((1, s.size), bool),
+                             np.array([[1.0, 99.0]]), MM.params, sigma=sig[None], fixed={"Km": 2.5})[0]
+    assert batch.values[1] == 2.5 and batch.values[0] == pytest.approx(vmax, rel=1e-9)
+
+
+def test_bounds_hold_the_solution_and_clip_the_start() -> None:
+    # true Km 3 but Km bounded to [0.1, 1]: the fit ends on the upper bound; a start of Km = 50 is clipped to 1
+    s, y, _ = _data()[0]
+    res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, [10.0, 50.0], MM.params,
+                     bounds={"Km": (0.1, 1.0)})
+    assert res.values[1] == pytest.approx(1.0, abs=1e-9)
+    # with Km at its bound, Vmax is the closed-form value for Km = 1 (unweighted)
+    g = s / (1.0 + s)
+    assert res.values[0] == pytest.approx(float(np.sum(g * y) / np.sum(g * g)), rel=1e-6)
+
+
+def test_the_evaluation_budget_stops_the_fit_with_a_message() -> None:
+    s, y, _ = _data()[0]
+    res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, [1.0, 100.0], MM.params, max_nfev=2)
+    assert not res.success
+    assert res.message == "stopped at the fit's budget of 2 model evaluations"
+    assert engine.FIT_MAX_NFEV == 5_000 and engine.FIT_SECONDS == 2.0
+    ok = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, [1.0, 100.0], MM.params)
+    assert ok.success and ok.nfev < engine.FIT_MAX_NFEV
+
+
+def test_padding_gets_a_harmless_fill_value() -> None:
+    # padded points take the mean of the finite used values (weight 0, so they never count); 1 when none
+    assert engine._fill_value(np.array([1.0, np.nan, 5.0])) == 3.0
+    assert engine._fill_value(np.array([np.nan])) == 1.0
+    assert engine._fill_value(np.array([])) == 1.0
