@@ -98,3 +98,54 @@ def test_padding_gets_a_harmless_fill_value() -> None:
     assert engine._fill_value(np.array([1.0, np.nan, 5.0])) == 3.0
     assert engine._fill_value(np.array([np.nan])) == 1.0
     assert engine._fill_value(np.array([])) == 1.0
+
+
+def _km_profile_limits(s: np.ndarray, y: np.ndarray, sig: np.ndarray, confidence: float) -> tuple[float, float]:
+    """Profile limits of Km by hand: with Km fixed the weighted RSS minimised over Vmax is
+    Σ(y/σ)² − (Σ g·y/σ²)²/Σ(g/σ)², g = S/(Km + S); the limits are where it reaches
+    RSS_min·(1 + F(confidence; 1, n − 2)/(n − 2)), found with scipy.optimize.brentq."""
+    from scipy import optimize, stats
+
+    def rss(km: float) -> float:
+        g = s / (km + s)
+        return float(np.sum((y / sig) ** 2) - np.sum(g * y / sig**2) ** 2 / np.sum((g / sig) ** 2))
+
+    best = optimize.minimize_scalar(rss, bounds=(1e-3, 1e3), method="bounded", options={"xatol": 1e-12})
+    dof = s.size - 2
+    target = best.fun * (1 + stats.f.ppf(confidence, 1, dof) / dof)
+    return (optimize.brentq(lambda k: rss(k) - target, 1e-6, best.x, xtol=1e-14),
+            optimize.brentq(lambda k: rss(k) - target, best.x, 1e4, xtol=1e-14))
+
+
+@pytest.mark.parametrize("confidence", [0.95, 0.8])
+def test_profile_limits_of_km_against_a_hand_profile(confidence: float) -> None:
+    data = _data()[:2]
+    width = max(s.size for s, _, _ in data)
+    shape = (2, width)
+    s_pad, y_pad, sig_pad, mask = np.ones(shape), np.zeros(shape), np.ones(shape), np.zeros(shape, bool)
+    for g, (s, y, sig) in enumerate(data):
+        s_pad[g, : s.size], y_pad[g, : s.size], sig_pad[g, : s.size], mask[g, : s.size] = s, y, sig, True
+    p0 = np.array([MM.start({"substrate": s}, y) for s, y, _ in data])
+    fits = engine.fit_batch(MM.evaluate, MM.jacobian, {"substrate": s_pad}, y_pad, mask, p0, MM.params,
+                            sigma=sig_pad, bounds=dict(MM.bounds), confidence=confidence)
+    limits = engine.profile_batch(MM.evaluate, MM.jacobian, {"substrate": s_pad}, y_pad, mask, fits, "Km",
+                                  sigma=sig_pad, bounds=dict(MM.bounds), confidence=confidence)
+    for (s, y, sig), (lo, hi, note) in zip(data, limits, strict=True):
+        want = _km_profile_limits(s, y, sig, confidence)
+        assert (lo, hi) == pytest.approx(want, rel=1e-6) and note == ""
+    # a fixed parameter or an unknown name has no profile
+    held = engine.fit(MM.evaluate, MM.jacobian, {"substrate": data[0][0]}, data[0][1], [1.0, 3.0], MM.params,
+                      fixed={"Km": 3.0})
+    lo, hi, note = engine.profile_interval(MM.evaluate, MM.jacobian, {"substrate": data[0][0]}, data[0][1], held, "Km")
+    assert np.isnan(lo) and np.isnan(hi) and note.startswith("no profile")
+    assert np.isnan(engine.profile_interval(MM.evaluate, MM.jacobian, {"substrate": data[0][0]}, data[0][1], held,
+                                            "Kx")[0])
+
+
+def test_profile_interval_defaults_to_95_percent() -> None:
+    s, y, sig = _data()[0]
+    res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, MM.start({"substrate": s}, y), MM.params,
+                     sigma=sig, bounds=dict(MM.bounds))
+    lo, hi, note = engine.profile_interval(MM.evaluate, MM.jacobian, {"substrate": s}, y, res, "Km", sigma=sig,
+                                           bounds=dict(MM.bounds))
+    assert (lo, hi) == pytest.approx(_km_profile_limits(s, y, sig, 0.95), rel=1e-6) and note == ""
