@@ -149,3 +149,41 @@ def test_profile_interval_defaults_to_95_percent() -> None:
     lo, hi, note = engine.profile_interval(MM.evaluate, MM.jacobian, {"substrate": s}, y, res, "Km", sigma=sig,
                                            bounds=dict(MM.bounds))
     assert (lo, hi) == pytest.approx(_km_profile_limits(s, y, sig, 0.95), rel=1e-6) and note == ""
+
+
+def _evaluations_needed(method: str, s: np.ndarray, y: np.ndarray, start: list[float]) -> int:
+    """The smallest evaluation budget with which scipy.optimize.least_squares alone converges (not stopped
+    by the budget) from ``start``, with the engine's tolerances."""
+    from scipy.optimize import least_squares
+
+    def f(p: np.ndarray) -> np.ndarray:
+        return p[0] * s / (p[1] + s) - y
+
+    def j(p: np.ndarray) -> np.ndarray:
+        return np.column_stack([s / (p[1] + s), -p[0] * s / (p[1] + s) ** 2])
+
+    for budget in range(2, 200):
+        sol = least_squares(f, start, jac=j, method=method, max_nfev=budget, ftol=engine.TOL, xtol=engine.TOL,
+                            gtol=engine.TOL)
+        if sol.status != 0:
+            return budget
+    raise AssertionError(f"{method} did not converge within 200 evaluations")
+
+
+def test_a_failed_first_algorithm_is_retried_with_the_other() -> None:
+    # an unbounded fit that the requested algorithm cannot finish within the budget, while the other one can:
+    # the engine's retry (lm ↔ trf) must give the converged fit (the same as curve_fit)
+    s, y, _ = _data()[0]
+    start = [1.0, 100.0]
+    need = {m: _evaluations_needed(m, s, y, start) for m in ("trf", "lm")}
+    assert need["trf"] != need["lm"]  # scipy's two algorithms take different paths from this start
+    slow, fast = sorted(need, key=need.get, reverse=True)
+    budget = need[fast]
+    res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, start, MM.params, method=slow, max_nfev=budget)
+    popt, _ = curve_fit(_mm, s, y, p0=[10.0, 3.0])
+    assert res.success, res.message
+    np.testing.assert_allclose(res.values, popt, rtol=1e-6)
+    # with a budget neither can finish in, the fit fails and says why
+    res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, start, MM.params, method=slow,
+                     max_nfev=budget - 1)
+    assert not res.success and "budget" in res.message
