@@ -213,3 +213,24 @@ def test_parsimony_reason_names_the_test() -> None:
                               f"(F = {t.f:.3g}, p = {t.p:.3g} ≥ 0.05)")
         else:
             assert reason.endswith(f"; F-test against michaelis-menten: p = {t.p:.3g}")
+
+
+def test_parsimony_walks_down_a_chain_of_two_nested_models() -> None:
+    # mixed (4 parameters) nests competitive (3), which nests michaelis-menten (2). Mixed has the lowest AICc
+    # (set directly), but neither extra parameter is supported (p = 0.3, then p = 0.4, extra-sum-of-squares F
+    # by scipy.stats.f): the walk ends at michaelis-menten; with the second p at 0.01 it stops at competitive
+    n = 30
+    mixed = _stub(10.0, n, 4)
+    comp = _stub(10.0 * (1 + stats.f.isf(0.3, 1, n - 4) / (n - 4)), n, 3)
+    for p_last, want in [(0.4, "michaelis-menten"), (0.01, "competitive")]:
+        mm = _stub(comp.rss * (1 + stats.f.isf(p_last, 1, n - 3) / (n - 3)), n, 2)
+        fits = {"mixed": dataclasses.replace(mixed, aicc=-100.0), "competitive": comp, "michaelis-menten": mm}
+        nests = {"mixed": {"competitive": ""}, "competitive": {"michaelis-menten": ""}}
+        rows, chosen, reason = compare.compare_set(fits, nests)
+        assert chosen == want, reason
+        by = {r["model"]: r for r in rows}
+        assert by["mixed"]["p"] == pytest.approx(0.3, rel=1e-9) and by["mixed"]["f_test_against"] == "competitive"
+        assert by["competitive"]["p"] == pytest.approx(p_last, rel=1e-9)
+        # a model tested against nothing has one row with no test
+        assert by["michaelis-menten"]["f_test_against"] == "" and np.isnan(by["michaelis-menten"]["F"])
+        assert all(r["selected_model"] == want for r in rows)
