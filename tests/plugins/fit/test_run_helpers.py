@@ -166,3 +166,16 @@ def test_saturation_check_only_for_a_successful_substrate_only_fit() -> None:
     import dataclasses
 
     assert fit_run._saturation_problem(MM, dataclasses.replace(res, success=False), low) == ""
+
+
+def test_saturation_check_is_for_substrate_only_laws_with_both_constants() -> None:
+    # the check names Vmax and the half-saturation constant of a law of S alone: a law with another variable,
+    # or without a declared limiting rate, is not checked (its own rules apply)
+    import dataclasses
+
+    s, v = _puromycin()
+    res = _fit(MM, s, v)
+    low = np.array([0.5 * res.value("Km")])
+    assert fit_run._saturation_problem(dataclasses.replace(MM, variables=("substrate", "inhibitor")), res, low) == ""
+    assert fit_run._saturation_problem(dataclasses.replace(MM, limiting_rate=""), res, low) == ""
+    assert fit_run._saturation_problem(dataclasses.replace(MM, half_saturation=""), res, low) == ""
