@@ -117,8 +117,12 @@ def test_ki_for_each_mechanism_by_hand() -> None:
     assert "needs Km" in fit_run._ki_rows(model, res, s, _cfg("competitive", None), "nM", "uM", 0.95)[0]["note"]
     row = fit_run._ki_rows(model, res, s, _cfg("competitive", "2 s"), "nM", "uM", 0.95)[0]
     assert np.isnan(row["estimate"]) and "cannot be expressed" in row["note"]
-    # a model without an IC50-like constant gives no Ki row at all
+    # a model without an IC50-like constant gives no Ki row at all, nor one naming a constant the fit lacks
     assert fit_run._ki_rows(MM, _fit(MM, *_puromycin()), s, _cfg("competitive"), "nM", "uM", 0.95) == []
+    import dataclasses
+
+    other = dataclasses.replace(model, ki_from="Kx")
+    assert fit_run._ki_rows(other, res, s, _cfg("competitive"), "nM", "uM", 0.95) == []
 
 
 def test_kcat_and_specificity_constant_by_hand() -> None:
