@@ -120,7 +120,11 @@ def test_hill_plot_of_exact_cooperative_data() -> None:
     # line's slope is h and K0.5 = 10^(−intercept/slope) (Hill 1910; any textbook linearisation)
     s = np.array([1.5, 2.0, 3.0, 4.0, 5.0])
     v = 10.0 * s**2.5 / (3.0**2.5 + s**2.5)
-    out = dg.transforms("g", s, v, 10.0, [("P1", f"B{i + 1}") for i in range(5)], "mM", "mM/min")
+    out = dg.transforms("g", s, v, 10.0, [(f"P{i + 1}", f"B{i + 1}") for i in range(5)], "mM", "mM/min")
+    hill = out["plot"] == "hill"
+    # each point keeps its plate and well; the line's rows have neither
+    assert out["plate"][hill].tolist() == [f"P{i + 1}" for i in range(5)] + [""] * 4
+    assert out["well"][hill].tolist() == [f"B{i + 1}" for i in range(5)] + [""] * 4
     pts, est = _rows(out, "hill")
     np.testing.assert_allclose(pts["x"], np.log10(s), rtol=1e-12)
     np.testing.assert_allclose(pts["y"], np.log10(v / (10.0 - v)), rtol=1e-12)
