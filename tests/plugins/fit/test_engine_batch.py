@@ -187,3 +187,31 @@ def test_a_failed_first_algorithm_is_retried_with_the_other() -> None:
     res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, start, MM.params, method=slow,
                      max_nfev=budget - 1)
     assert not res.success and "budget" in res.message
+
+
+def test_a_side_beyond_the_allowed_expansions_is_open() -> None:
+    # invented data with Km's upper profile limit 1.35 Wald half-widths above the estimate (the profile of
+    # Km is skewed upwards) and the lower one 0.78 below: with max_expand = 1 only the Wald limit itself is
+    # tried, so the upper side is reported open (NaN, with a note) and the lower one found; with 2 the upper
+    # limit is reached too. Limits against the hand profile above.
+    s = np.array([0.5, 1.0, 2.0, 4.0, 8.0])
+    y = 10 * s / (20 + s) + np.array([0.02, -0.03, 0.01, 0.03, -0.02])
+    res = engine.fit(MM.evaluate, MM.jacobian, {"substrate": s}, y, [1.0, 5.0], MM.params, bounds=dict(MM.bounds))
+    want = _km_profile_limits(s, y, np.ones_like(s), 0.95)
+    km = res.value("Km")
+    half = np.sqrt(stats_f_ppf(0.95, 1, res.dof)) * res.params["Km"].stderr
+    assert 1.1 < (want[1] - km) / half < 1.9 and (km - want[0]) / half < 1.0
+    lo, hi, note = engine.profile_interval(MM.evaluate, MM.jacobian, {"substrate": s}, y, res, "Km",
+                                           bounds=dict(MM.bounds), max_expand=1)
+    assert lo == pytest.approx(want[0], rel=1e-6) and np.isnan(hi)
+    assert note == "upper limit not reached (open interval)"
+    lo, hi, note = engine.profile_interval(MM.evaluate, MM.jacobian, {"substrate": s}, y, res, "Km",
+                                           bounds=dict(MM.bounds), max_expand=2)
+    assert (lo, hi) == pytest.approx(want, rel=1e-6) and note == ""
+
+
+def stats_f_ppf(q: float, d1: int, d2: int) -> float:
+    """F quantile from scipy.stats (the independent reference for the Wald half-width √F·SE)."""
+    from scipy import stats
+
+    return float(stats.f.ppf(q, d1, d2))
