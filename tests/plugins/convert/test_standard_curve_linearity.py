@@ -48,4 +48,7 @@ def test_levels_are_dropped_down_to_three_and_no_further() -> None:
     assert fit_standard_curve(x, y, check_linearity=False).dropped_levels == ()
     assert fit_standard_curve(x, y, min_levels=4).dropped_levels == (5.0,)
     # an exact line (the quadratic term fits nothing: p = 1) keeps every level
-    assert fit_standard_curve(x, 2 * x + 1).dropped_levels == ()
+    line = fit_standard_curve(x, 2 * x + 1)
+    assert line.dropped_levels == () and line.curvature_p == 1.0
+    # the reported p of the kept range: 0 for the exact parabola (the quadratic term explains everything)
+    assert curve.curvature_p == 0.0
