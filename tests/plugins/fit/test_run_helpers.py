@@ -96,6 +96,10 @@ def test_ki_needs_one_positive_substrate_concentration() -> None:
     row = fit_run._ki_rows(model, res, np.r_[np.full(11, 0.5), np.nan], _cfg("competitive"), "nM", "uM", 0.95)[0]
     assert row["estimate"] == pytest.approx(k / (1 + 0.5 / 2.0), rel=1e-12)
     assert row["unit"] == "nM" and "S = 0.5 uM" in row["note"]
+    # one well with a known S is enough (the others' S missing)
+    one = np.r_[6.0, np.full(11, np.nan)]
+    row = fit_run._ki_rows(model, res, one, _cfg("competitive"), "nM", "uM", 0.95)[0]
+    assert row["estimate"] == pytest.approx(k / (1 + 6.0 / 2.0), rel=1e-12)
 
 
 def test_ki_for_each_mechanism_by_hand() -> None:
