@@ -72,11 +72,13 @@ DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with
 TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/fit/compare.py": ((), [STATS, "tests/plugins/fit/test_compare_rules.py"]),
     "plugins/fit/engine.py": ((), [STATS, "tests/plugins/fit/test_engine_edges.py",
+                                   "tests/plugins/fit/test_engine_summary.py", "tests/plugins/fit/test_engine_batch.py",
                                    "tests/plugins/fit/test_engine_nist.py"]),
     "plugins/fit/run.py": (("_sigma", "_saturation_problem", "_derived_row", "_ki_rows", "_derived", "_group_enzyme"),
                            ["tests/plugins/fit/test_run_helpers.py", STATS, STAGE,
                             "tests/plugins/fit/test_titration.py"]),
     "plugins/fit/models.py": ((), ["tests/plugins/fit/test_start_values.py", "tests/plugins/fit/test_models.py",
+                                   "tests/plugins/fit/test_model_edges.py",
                                    STATS]),
     "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"),
                                    ["tests/plugins/fit/test_diagnostics_fields.py", STAGE]),

@@ -230,10 +230,12 @@ def _logistic(p: Sequence[Arr], x: X) -> np.ndarray:
 
 def _logistic_jac(p: Sequence[Arr], x: X) -> list[np.ndarray]:
     u, li = _logistic_u(p, x["inhibitor"])
-    d = (1 + u) ** 2
+    w = 1 / (1 + u)  # 0 where u is infinite (I = 0 with n < 0)
+    with np.errstate(invalid="ignore"):
+        uw = np.where(np.isinf(u), 1.0, u * w)  # u/(1 + u), its limit 1 there (inf·0 would be NaN)
     span = p[0] - p[1]
-    dn = np.where(u > 0, -span * u * np.where(np.isfinite(li), li, 0.0) / d, 0.0)
-    return [1 / (1 + u), u / (1 + u), span * u * p[3] / (p[2] * d), dn]
+    dn = np.where(u > 0, -span * uw * w * np.where(np.isfinite(li), li, 0.0), 0.0)
+    return [w, uw, span * uw * w * p[3] / p[2], dn]
 
 
 def _logistic_guess(x: X, y: np.ndarray) -> list[float]:
@@ -242,9 +244,10 @@ def _logistic_guess(x: X, y: np.ndarray) -> list[float]:
     mid = float(np.exp(np.median(np.log(pos)))) if pos.size else 1.0
     high, low = float(np.nanmax(y)), float(np.nanmin(y))
     order = np.argsort(i)
-    # a falling curve (inhibition) gets a positive steepness n; a rising one a negative n
+    # v_uninhibited is the rate at I = 0 (u = 0 when n > 0): the low rate for a rising curve (activation), the
+    # high one for a falling curve (inhibition); with n = +1 in both the start curve runs the data's way
     rising = np.nanmean(y[order][-3:]) > np.nanmean(y[order][:3])
-    return [low, high, mid, -1.0] if rising else [high, low, mid, 1.0]
+    return [low, high, mid, 1.0] if rising else [high, low, mid, 1.0]
 
 
 def _mm_guess(x: X, y: np.ndarray) -> list[float]:

@@ -29,3 +29,26 @@ def test_no_linearity_test_with_fewer_than_four_points_or_three_levels(x: list[f
     xa, ya = np.asarray(x), np.asarray(y)
     rss_lin = float(np.sum((ya - np.polyval(np.polyfit(xa, ya, 1), xa)) ** 2))
     assert math.isnan(_curvature_p(xa, ya, rss_lin))
+
+
+def test_levels_are_dropped_down_to_three_and_no_further() -> None:
+    # invented standards 1-5 in duplicate on an exact parabola: every subset of three or more levels is
+    # curved (the quadratic fits exactly, p = 0), so the top levels go one by one until three levels remain
+    # (the default minimum); the line is then the least-squares line of levels 1-3 (numpy.polyfit)
+    from vzero.plugins.convert.standard_curve import fit_standard_curve
+
+    x = np.repeat(np.arange(1.0, 6.0), 2)
+    y = x**2
+    curve = fit_standard_curve(x, y)
+    assert curve.dropped_levels == (5.0, 4.0)
+    slope, intercept = np.polyfit(x[x <= 3], y[x <= 3], 1)
+    assert curve.slope == pytest.approx(slope, rel=1e-12) and curve.intercept == pytest.approx(intercept, rel=1e-12)
+    assert curve.n_points == 6 and curve.conc_range == (1.0, 3.0)
+    # without the linearity check nothing is dropped; with a minimum of four levels only the top one
+    assert fit_standard_curve(x, y, check_linearity=False).dropped_levels == ()
+    assert fit_standard_curve(x, y, min_levels=4).dropped_levels == (5.0,)
+    # an exact line (the quadratic term fits nothing: p = 1) keeps every level
+    line = fit_standard_curve(x, 2 * x + 1)
+    assert line.dropped_levels == () and line.curvature_p == 1.0
+    # the reported p of the kept range: 0 for the exact parabola (the quadratic term explains everything)
+    assert curve.curvature_p == 0.0

@@ -113,3 +113,64 @@ def test_a_point_at_zero_substrate_is_left_out_of_the_reciprocal_plots() -> None
     hw = out["plot"] == "hanes-woolf"
     assert out["y"][hw & (out["quantity"] == "slope")][0] == pytest.approx(ref.slope, rel=1e-10)
     assert out["y"][hw & (out["quantity"] == "intercept")][0] == pytest.approx(ref.intercept, rel=1e-10)
+
+
+def test_hill_plot_of_exact_cooperative_data() -> None:
+    # Hill equation with h = 2.5, K0.5 = 3, Vmax = 10: log10(v/(Vmax − v)) = h·log10(S) − h·log10(K0.5), so the
+    # line's slope is h and K0.5 = 10^(−intercept/slope) (Hill 1910; any textbook linearisation)
+    s = np.array([1.5, 2.0, 3.0, 4.0, 5.0])
+    v = 10.0 * s**2.5 / (3.0**2.5 + s**2.5)
+    out = dg.transforms("g", s, v, 10.0, [(f"P{i + 1}", f"B{i + 1}") for i in range(5)], "mM", "mM/min")
+    hill = out["plot"] == "hill"
+    # each point keeps its plate and well; the line's rows have neither
+    assert out["plate"][hill].tolist() == [f"P{i + 1}" for i in range(5)] + [""] * 4
+    assert out["well"][hill].tolist() == [f"B{i + 1}" for i in range(5)] + [""] * 4
+    pts, est = _rows(out, "hill")
+    np.testing.assert_allclose(pts["x"], np.log10(s), rtol=1e-12)
+    np.testing.assert_allclose(pts["y"], np.log10(v / (10.0 - v)), rtol=1e-12)
+    assert est["h"] == pytest.approx(2.5, rel=1e-9) and est["K0.5"] == pytest.approx(3.0, rel=1e-9)
+    assert est["intercept"] == pytest.approx(-2.5 * np.log10(3.0), rel=1e-9)
+    hill = out["plot"] == "hill"
+    assert set(out["x_label"][hill]) == {"log10(S/mM)"} and set(out["y_label"][hill]) == {"log10(v/(Vmax − v))"}
+    lb = out["plot"] == "lineweaver-burk"
+    assert set(out["x_label"][lb]) == {"1/S (1/mM)"} and set(out["y_label"][lb]) == {"1/v (1/(mM/min))"}
+
+
+def test_hill_plot_usable_range_is_open_at_both_ends() -> None:
+    # v/Vmax exactly 0.1 and 0.9 lie on HILL_STABLE's ends and are not usable (the range is open); just
+    # inside they are; S = 0 never is
+    assert dg.HILL_STABLE == (0.1, 0.9)
+    s = np.array([0.5, 1.0, 2.0, 3.0, 4.0, 0.0])
+    v = np.array([1.0, 1.001, 5.0, 8.999, 9.0, 5.0])
+    out = dg.transforms("g", s, v, 10.0, [("P1", f"C{i + 1}") for i in range(6)], "uM", "uM/s")
+    pts, est = _rows(out, "hill")
+    assert pts["unstable"].tolist() == [True, False, False, False, True, True]
+    # the line goes through the three usable points only (scipy.stats.linregress)
+    ref = stats.linregress(np.log10(s[1:4]), np.log10(v[1:4] / (10.0 - v[1:4])))
+    assert est["h"] == pytest.approx(ref.slope, rel=1e-10)
+    assert est["intercept"] == pytest.approx(ref.intercept, rel=1e-10)
+
+
+def test_non_positive_rates_are_left_out_of_the_reciprocal_plots() -> None:
+    # a negative or zero rate has no meaningful 1/v or S/v: unstable there and not in the line; Eadie-Hofstee
+    # (v against v/S) keeps it (it needs only S > 0)
+    s = np.array([0.5, 1.0, 2.0, 4.0, 8.0])
+    v = np.array([-0.2, 0.0, 5.0, 6.7, 8.0])
+    out = dg.transforms("g", s, v, np.nan, [("P1", f"D{i + 1}") for i in range(5)], "uM", "uM/s")
+    for plot in ("lineweaver-burk", "hanes-woolf"):
+        assert _rows(out, plot)[0]["unstable"].tolist() == [True, True, False, False, False], plot
+    pts, est = _rows(out, "eadie-hofstee")
+    assert pts["unstable"].tolist() == [False] * 5
+    ref = stats.linregress(v / s, v)
+    assert est["Vmax"] == pytest.approx(ref.intercept, rel=1e-10) and est["Km"] == pytest.approx(-ref.slope, rel=1e-10)
+    _, lb = _rows(out, "lineweaver-burk")
+    ref = stats.linregress(1 / s[2:], 1 / v[2:])
+    assert lb["Vmax"] == pytest.approx(1 / ref.intercept, rel=1e-10)
+    assert lb["Km"] == pytest.approx(ref.slope / ref.intercept, rel=1e-10)
+
+
+def test_grid_default_size_and_ends() -> None:
+    g = dg.grid(np.array([2.0, 10.0]))
+    assert g.size == 101 and g[0] == 0.0 and g[-1] == pytest.approx(11.0)
+    g = dg.grid(np.array([0.1, 100.0]))
+    assert g.size == 101 and g[0] == pytest.approx(0.05) and g[-1] == pytest.approx(150.0)

@@ -81,10 +81,10 @@ def test_titration_starts() -> None:
     assert _start("morrison", [5, 4, 2, 0.5], inhibitor=[0, 0.1, 1, 10], enzyme=[1, 1, 1, 1]) == pytest.approx([5, 1])
     assert _start("morrison", [-1, -2], inhibitor=[0, 0], enzyme=[1, 1]) == pytest.approx([1, 1])
     # logistic: midpoint at the geometric median of the positive levels, exp(median of ln 0.1 ... ln 100) = √10;
-    # falling curve: [top, bottom, mid, +1]; rising: [bottom, top, mid, -1] (mean of the three highest-I rates
+    # falling curve: [top, bottom, mid, +1]; rising: [bottom, top, mid, +1] (mean of the three highest-I rates
     # against the three lowest)
     i = [0, 0.1, 1, 10, 100]
     assert _start("logistic-4p", [10, 9, 5, 2, 1], inhibitor=i) == pytest.approx([10, 1, math.sqrt(10), 1.0])
-    assert _start("logistic-4p", [1, 2, 5, 9, 10], inhibitor=i) == pytest.approx([1, 10, math.sqrt(10), -1.0])
+    assert _start("logistic-4p", [1, 2, 5, 9, 10], inhibitor=i) == pytest.approx([1, 10, math.sqrt(10), 1.0])
     assert _start("logistic-4p", [4, 3, 1], inhibitor=[0.5, 8, 2]) == pytest.approx([4, 1, 2, 1.0])
     assert _start("logistic-4p", [4, 3], inhibitor=[0, 0])[2] == 1.0  # no positive level
