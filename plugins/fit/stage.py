@@ -59,7 +59,9 @@ class FitStage(Stage):
 
     kind = "fit"
     method = "nls"
-    version = "1.2"  # 1.1: default weighting rate-error (was none); 1.2: imprecise among the default exclusions
+    #: 1.1: default weighting rate-error (was none); 1.2: imprecise among the default exclusions; 1.3: a
+    #: four-parameter logistic rising with the compound is fitted when a zero-concentration well is present
+    version = "1.3"
     scope = "pooled"
     summary = ("Nonlinear least squares of rate laws (Michaelis-Menten, Hill, inhibition, ...) on untransformed "
                "initial rates, per group; standard errors, t and profile-likelihood intervals, AICc and F-test "
