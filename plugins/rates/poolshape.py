@@ -1,6 +1,7 @@
-"""One rate-law shape for the whole plate: the Hill or substrate-inhibition curve fitted jointly over wells.
+"""One rate-law shape per pool of wells: the Hill or substrate-inhibition curve fitted jointly over wells.
 
-A plate holds one enzyme, so its rate law ``v(S)`` has one shape for every well; what differs per well is
+A pool (a plate, or in a run the sample wells of one layout group and inhibitor level) holds one enzyme, so
+its rate law ``v(S)`` has one shape for every well; what differs per well is
 the substrate at the start ``S0`` (known from the recipe) and the scale (the enzyme in the well). The
 per-well curves of :mod:`vzero.plugins.rates.choice` (steps 6b, 6c, 6e) must find the shape in each well
 alone, from a few percent of conversion, where a constant-order power law or a Michaelis–Menten curve of
