@@ -57,6 +57,16 @@ def test_a_plate_step_after_a_pooled_step_is_refused(plugins) -> None:
         _check(text, plugins)
 
 
+def test_a_pooled_step_after_a_final_step_is_refused(plugins) -> None:
+    # the order plate < pooled < final (pipeline/recipe.py): a report (final) before a fit (pooled) is refused,
+    # and the same report after the fit is accepted
+    after = GOOD.replace("  - fit: {method: nls}\n", "  - fit: {method: nls}\n  - report: {method: html}\n")
+    assert [s.kind for s in _check(after, plugins).steps] == ["import", "rates", "fit", "report"]
+    before = GOOD.replace("  - fit: {method: nls}\n", "  - report: {method: html}\n  - fit: {method: nls}\n")
+    with pytest.raises(RecipeError, match=r"steps\[3\]: a pooled step \(fit\) cannot come after a pooled or final"):
+        _check(before, plugins)
+
+
 def test_verify_reports_a_missing_results_group(tmp_path: Path) -> None:
     copy = tmp_path / "run.h5"
     shutil.copy(DATA / "audit" / "linear-v1.1.h5", copy)

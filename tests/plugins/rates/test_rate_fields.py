@@ -256,6 +256,24 @@ def test_polynomial_goodness_is_r_squared_of_the_window_fit() -> None:
     assert r.goodness[3] < 0.9
 
 
+def test_polynomial_residual_ratio_has_degree_plus_one_parameters_taken_off() -> None:
+    # rmse_over_noise = sqrt(RSS / (n − degree − 1)) / read noise: RSS of numpy.polyfit's fit on the same
+    # window, n − degree − 1 its residual degrees of freedom, the read noise the method reports
+    from vzero.plugins.rates.polynomial import polynomial
+
+    rng = np.random.default_rng(8)
+    t = np.arange(40) * 5.0
+    y = 0.2 + 3e-3 * t - 4e-6 * t**2 + rng.normal(0, 0.002, (3, t.size))
+    for degree in (2, 3):
+        r = polynomial(t, y, degree=degree, window_s=120.0)
+        sel = t <= 120.0
+        for i in range(3):
+            c = np.polyfit(t[sel], y[i, sel], degree)
+            rss = float(((y[i, sel] - np.polyval(c, t[sel])) ** 2).sum())
+            want = np.sqrt(rss / (sel.sum() - degree - 1)) / r.extra["read_noise"][i]
+            assert r.extra["rmse_over_noise"][i] == pytest.approx(want, rel=1e-7)
+
+
 @pytest.mark.parametrize(("t0", "start_s"), [(0.0, 40.0), (100.0, None), (100.0, 130.0)])
 def test_polynomial_slope_is_taken_at_the_window_start(t0: float, start_s: float | None) -> None:
     # a quadratic in time from the window start s: y = 0.2 + 0.03 (t - s) - 4e-5 (t - s)^2 has slope 0.03
