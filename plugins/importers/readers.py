@@ -681,6 +681,7 @@ def _times(
         uniq, inverse = np.unique(stripped, return_inverse=True)
         secs = np.empty(len(uniq))
         two_part = False
+        bad_k: list[int] = []
         for k, text in enumerate(uniq):
             parts = str(text).split(":")
             try:
@@ -688,20 +689,23 @@ def _times(
             except ValueError:
                 nums = []
             if len(parts) not in (2, 3) or len(nums) != len(parts) or any(x < 0 for x in nums):
-                i = int(np.flatnonzero(inverse == k)[0])
-                raise InputFileError(
-                    f"time {str(text)!r} is not a number or h:mm:ss / mm:ss",
-                    path=source,
-                    row=lines[i],
-                    column=label,
-                    hint="Every cell of the time column needs a time.",
-                )
+                bad_k.append(k)
+                continue
             if len(nums) == 3:
                 secs[k] = nums[0] * 3600 + nums[1] * 60 + nums[2]
             else:
                 two_part = True
                 scale = 3600.0 if opts.time_unit == "h" else 60.0
                 secs[k] = nums[0] * scale + nums[1] * scale / 60.0
+        if bad_k:  # the first bad cell in file order (the unique texts are sorted)
+            i = int(np.flatnonzero(np.isin(inverse, bad_k))[0])
+            raise InputFileError(
+                f"time {str(stripped.flat[i])!r} is not a number or h:mm:ss / mm:ss",
+                path=source,
+                row=lines[i],
+                column=label,
+                hint="Every cell of the time column needs a time.",
+            )
         if two_part and opts.time_unit is None:
             notes.append(f"times like '{uniq[0]}' in column {label!r} read as mm:ss (set time_unit h for h:mm)")
         return secs[inverse].reshape(cells.shape), notes

@@ -78,3 +78,16 @@ def test_wells_without_any_usable_blank_are_named_and_get_no_correction() -> Non
         assert not out.mask[0].any()
         assert any("no usable blank on the plate: left without a rate" in w and "(A1)" in w for w in warnings)
         assert out.wells["blank_match"][0] == "none"
+
+
+def test_a_well_that_falls_back_to_the_plates_blanks_is_named() -> None:
+    # a sample without substrate (0) beside blanks at 1: no same or nearest substrate level, so the mean of all
+    # usable blanks is used and the warning says so; with match "none" the same blanks are the match itself
+    sig = np.vstack([np.array([1.0, 1.2, 1.4]), np.array([0.1, 0.1, 0.1])])
+    out, warnings = _run(sig, ["sample", "blank"], [0, 1], {"match": "substrate"})
+    assert out.wells["blank_match"][0] == "plate"
+    assert_allclose(out.signal[0], [0.9, 1.1, 1.3], atol=1e-12)
+    (text,) = warnings
+    assert "used the mean of all usable blanks" in text and "(A1)" in text
+    out, warnings = _run(sig, ["sample", "blank"], [0, 1], {"match": "none"})
+    assert out.wells["blank_match"][0] == "matched" and warnings == []

@@ -87,3 +87,13 @@ def test_a_blank_time_cell_is_named_by_its_row(cells: list[str], row: int) -> No
     with pytest.raises(InputFileError) as err:
         readers._times(np.array(cells), "Time", ".", readers.ReadOptions(), "plate.csv", list(range(2, 2 + len(cells))))
     assert err.value.row == row and "plate.csv" in str(err.value) and "'Time'" in str(err.value)
+
+
+def test_the_first_bad_time_in_file_order_is_named() -> None:
+    # several bad h:mm:ss cells: the error names the first one in the file (row 3, '0:x5'), not the first in
+    # sorted order ('0:a0', row 4), so the user fixes the file from the top
+    from vzero.errors import InputFileError
+
+    with pytest.raises(InputFileError) as err:
+        _times("Time,A1\n0:10,1\n0:x5,2\n0:a0,3\n")
+    assert err.value.row == 3 and "'0:x5'" in str(err.value)
