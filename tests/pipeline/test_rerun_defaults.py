@@ -66,3 +66,16 @@ def test_a_step_without_a_method_keeps_the_old_runs_method(tmp_path: Path):
     assert "unknown_old_key" not in rec.steps[1].settings  # parameters the method no longer has are ignored
     fresh = check(parse(text, str(tmp_path / "r.yaml")), registry)
     assert fresh.steps[1].method == registry.default("rates") != "window"
+
+
+def test_a_step_without_a_method_whose_default_is_unchanged_gets_no_notice(tmp_path: Path):
+    # the old run used what is still the default: the rerun uses it too, and there is nothing to say
+    (tmp_path / "plate.csv").write_text("time (s),A1\n0,0.1\n10,0.2\n", "utf-8")
+    text = ("vzero: 1\nname: n\nplates:\n  - name: p\n    data: plate.csv\n"
+            "steps:\n  - import: {method: table}\n  - rates: {}\n")
+    registry = make_manager([]).registry
+    rec = parse(text, str(tmp_path / "r.yaml"))
+    rec.previous = {2: ("rates", registry.default("rates"), {}), 1: ("import", "table", {})}
+    check(rec, registry)
+    assert rec.steps[1].method == registry.default("rates")
+    assert not any("the old run used" in n for n in rec.notices)
