@@ -204,3 +204,15 @@ def test_peak_activity_matches_the_sequential_scheme_and_guards_extrapolation() 
     assert peak_activity(t, np.array([60.0]), np.array([8e-4]))[0] > 0.8 > MIN_PEAK_ACTIVITY
     assert peak_activity(t, np.array([400.0]), np.array([5e-3]))[0] < MIN_PEAK_ACTIVITY
     assert np.isnan(peak_activity(t, np.array([np.nan]), np.array([0.0]))[0])
+
+
+@pytest.mark.parametrize(("k0", "se0"), [(np.nan, 1e-4), (1e-3, np.nan), (1e-3, 0.0), (np.inf, 1e-4)])
+def test_the_decay_profile_is_refused_without_a_usable_start(k0: float, se0: float):
+    # the profile searches k0 ± 4 se0 (lagfit._profile_decay): without a finite start and a positive finite
+    # spread there is no interval to search, and the plate gets no decay constant (NaN, NaN), whatever the reads
+    from vzero.plugins.rates.lagfit import _profile_decay
+
+    t = np.arange(10) * 10.0
+    y = np.tile(0.01 * t, (2, 1))
+    k, se = _profile_decay(t, y, np.ones(2), 1.0, np.zeros((2, 3)), np.full(2, 1e-3), 10.0, 90.0, k0, se0)
+    assert np.isnan(k) and np.isnan(se)
