@@ -676,6 +676,11 @@ def _times(
     """Time cells -> seconds. Text ``h:mm:ss``/``mm:ss`` or numbers in the header's or options' unit."""
     notes: list[str] = []
     stripped = np.char.strip(cells)
+
+    def bad_time(text: str, row: int) -> InputFileError:
+        return InputFileError(f"time {text!r} is not a number or h:mm:ss / mm:ss", path=source, row=row,
+                              column=label, hint="Every cell of the time column needs a time.")
+
     colon = np.char.find(stripped, ":") >= 0
     if colon.any():
         uniq, inverse = np.unique(stripped, return_inverse=True)
@@ -699,13 +704,7 @@ def _times(
                 secs[k] = nums[0] * scale + nums[1] * scale / 60.0
         if bad_k:  # the first bad cell in file order (the unique texts are sorted)
             i = int(np.flatnonzero(np.isin(inverse, bad_k))[0])
-            raise InputFileError(
-                f"time {str(stripped.flat[i])!r} is not a number or h:mm:ss / mm:ss",
-                path=source,
-                row=lines[i],
-                column=label,
-                hint="Every cell of the time column needs a time.",
-            )
+            raise bad_time(str(stripped.flat[i]), lines[i])
         if two_part and opts.time_unit is None:
             notes.append(f"times like '{uniq[0]}' in column {label!r} read as mm:ss (set time_unit h for h:mm)")
         return secs[inverse].reshape(cells.shape), notes
@@ -713,13 +712,7 @@ def _times(
     if bad is None and np.isnan(values).any():
         bad = (int(np.flatnonzero(np.isnan(values))[0]),)
     if bad is not None:
-        raise InputFileError(
-            f"time {str(cells[bad]).strip()!r} is not a number or h:mm:ss / mm:ss",
-            path=source,
-            row=lines[bad[0]],
-            column=label,
-            hint="Every cell of the time column needs a time.",
-        )
+        raise bad_time(str(cells[bad]).strip(), lines[bad[0]])
     unit = opts.time_unit
     if unit is None:
         unit = split_label(label)[1]

@@ -52,10 +52,15 @@ def test_stored_recipe_keeps_the_old_default_and_says_so(tmp_path: Path):
     assert _ic50(fresh.fits) != pytest.approx(_ic50(before), rel=1e-6)  # weighting changes the estimate
 
 
-def test_a_step_without_a_method_keeps_the_old_runs_method(tmp_path: Path):
+def _no_method_recipe(tmp_path: Path) -> str:
+    """A recipe whose rates step names no method, beside its one-well plate."""
     (tmp_path / "plate.csv").write_text("time (s),A1\n0,0.1\n10,0.2\n", "utf-8")
-    text = ("vzero: 1\nname: n\nplates:\n  - name: p\n    data: plate.csv\n"
+    return ("vzero: 1\nname: n\nplates:\n  - name: p\n    data: plate.csv\n"
             "steps:\n  - import: {method: table}\n  - rates: {}\n")
+
+
+def test_a_step_without_a_method_keeps_the_old_runs_method(tmp_path: Path):
+    text = _no_method_recipe(tmp_path)
     registry = make_manager([]).registry
     rec = parse(text, str(tmp_path / "r.yaml"))
     rec.previous = {2: ("rates", "window", {"start": "0 s", "unknown_old_key": 1}),
@@ -70,9 +75,7 @@ def test_a_step_without_a_method_keeps_the_old_runs_method(tmp_path: Path):
 
 def test_a_step_without_a_method_whose_default_is_unchanged_gets_no_notice(tmp_path: Path):
     # the old run used what is still the default: the rerun uses it too, and there is nothing to say
-    (tmp_path / "plate.csv").write_text("time (s),A1\n0,0.1\n10,0.2\n", "utf-8")
-    text = ("vzero: 1\nname: n\nplates:\n  - name: p\n    data: plate.csv\n"
-            "steps:\n  - import: {method: table}\n  - rates: {}\n")
+    text = _no_method_recipe(tmp_path)
     registry = make_manager([]).registry
     rec = parse(text, str(tmp_path / "r.yaml"))
     rec.previous = {2: ("rates", registry.default("rates"), {}), 1: ("import", "table", {})}

@@ -20,6 +20,8 @@ from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates.choice import model_choice
 
+from tests.plugins.rates.choice_spy import rows_of, spy_quadratic
+
 T = np.arange(60) * 10.0  # s
 SPC = 2.5  # AU/mM, invented
 KM = 0.5  # mM
@@ -115,17 +117,14 @@ def test_power_law_is_tried_where_the_curve_and_quadratic_disagree_beyond_room_a
 
     s0 = np.full(8, 0.5)
     y = simulate_plate(T, s0, KM, 4e-4, signal_per_conc=SPC, noise=0.0005, seed=3).signal
-    real_fit, real_quadratic = choice.progress_curve, choice.early_quadratic
+    real_fit = choice.progress_curve
     seen: dict[str, Any] = {"power": []}
-
-    def quadratic(*a: Any, **k: Any) -> Any:
-        seen["q"] = real_quadratic(*a, **k)
-        return seen["q"]
+    quadratic = spy_quadratic(seen)
 
     def fit(t: np.ndarray, yy: np.ndarray, **k: Any) -> Any:
         res = real_fit(t, yy, **k)
         if k.get("model") == "power":
-            seen["power"] += [int(np.flatnonzero((y == row).all(axis=1))[0]) for row in yy]
+            seen["power"] += rows_of(y, yy).tolist()
             return res
         if "moved" in seen:
             return res

@@ -20,6 +20,8 @@ import pytest
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates import choice
 
+from tests.plugins.rates.choice_spy import rows_of, spy_quadratic
+
 T = np.arange(60) * 10.0  # s
 SPC, KM = 2.5, 0.5  # AU/mM, mM (invented)
 
@@ -43,15 +45,12 @@ N = len(CASES)
 def test_power_law_verdict_clause_by_clause(monkeypatch: pytest.MonkeyPatch) -> None:
     s0 = np.full(N, KM)
     y = simulate_plate(T, s0, KM, 4e-4, signal_per_conc=SPC, noise=0.0005, seed=5).signal
-    real_fit, real_quadratic = choice.progress_curve, choice.early_quadratic
+    real_fit = choice.progress_curve
     seen: dict[str, Any] = {}
+    quadratic = spy_quadratic(seen)
 
     def index(rows: np.ndarray) -> np.ndarray:
-        return np.array([int(np.flatnonzero((y == row).all(axis=1))[0]) for row in rows])
-
-    def quadratic(*a: Any, **k: Any) -> Any:
-        seen["q"] = real_quadratic(*a, **k)
-        return seen["q"]
+        return rows_of(y, rows)
 
     def fit(t: np.ndarray, yy: np.ndarray, **k: Any) -> Any:
         res = real_fit(t, yy, **k)

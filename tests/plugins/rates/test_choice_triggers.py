@@ -20,6 +20,8 @@ from vzero.plugins.rates import choice
 from vzero.plugins.rates.choice import BIAS_SHARE, U_EDGE, EarlyQuadratic, _skippable
 from vzero.plugins.rates.noise import Screen
 
+from tests.plugins.rates.choice_spy import rows_of, spy_quadratic
+
 # exact binary fractions, so that the order n = -curvature S0 spc / v0² is exact where a case sits on 0 or 1.5
 V0, S0, SPC = 0.5, 1.0, 2.0  # signal/s, mM, signal/mM (invented)
 N_T = 40
@@ -97,15 +99,12 @@ def test_power_law_is_tried_at_the_edges_of_the_michaelis_menten_orders(monkeypa
     kms = np.array([_km_for(u, 0.5) for u in u_cases])
     assert kms[1] / (kms[1] + 0.5) == U_EDGE == 0.1 and kms[6] / (kms[6] + 0.5) == 1.0 - U_EDGE
     y = simulate_plate(T, s0, KM_TRUE, 4e-4, signal_per_conc=SPC_PLATE, noise=0.0005, seed=3).signal
-    real_fit, real_quadratic = choice.progress_curve, choice.early_quadratic
+    real_fit = choice.progress_curve
     seen: dict[str, Any] = {"power": []}
+    quadratic = spy_quadratic(seen)
 
     def index(rows: np.ndarray) -> np.ndarray:
-        return np.array([int(np.flatnonzero((y == row).all(axis=1))[0]) for row in rows])
-
-    def quadratic(*a: Any, **k: Any) -> Any:
-        seen["q"] = real_quadratic(*a, **k)
-        return seen["q"]
+        return rows_of(y, rows)
 
     def fit(t: np.ndarray, yy: np.ndarray, **k: Any) -> Any:
         res = real_fit(t, yy, **k)
