@@ -205,8 +205,9 @@ class ModelChoiceRates(KernelRates):
     #: s0 its curves' standard errors follow `progress` 1.1. 1.3: step 9, a Hill or substrate-inhibition
     #: shape fitted jointly over the wells of each layout group and inhibitor level (models 6 and 7;
     #: `pool_shape`); step 8's shared lag and decay constant per such pool, no longer per plate; without s0,
-    #: curve SEs from `progress` 1.2's profile over the shape
-    method, version = "model-choice", "1.3"
+    #: curve SEs from `progress` 1.2's profile over the shape. 1.4: without s0, curve SEs from `progress` 1.3
+    #: and a fallback quadratic's SE scaled up to the rejected curve's residual RMS; v0 unchanged
+    method, version = "model-choice", "1.4"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
                "within the noise, else early quadratic; spikes masked")
@@ -279,7 +280,8 @@ class ProgressRates(KernelRates):
     (measurements in docs/rates.md)."""
 
     #: 1.1: bounded-curvature SE, IMPRECISE, DISAGREES at 3 SE; 1.2: the signal-unit SE from a profile over the shape
-    method, version = "progress", "1.2"
+    #: 1.3: that SE times the measured factor at how clearly the curve bends (shapegrid.BEND_KNOTS); v0 unchanged
+    method, version = "progress", "1.3"
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
     function = "vzero.plugins.rates.progress:progress_curve"
     kernel_params = ("min_points", "fail_ratio", "model")

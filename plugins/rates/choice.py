@@ -730,6 +730,13 @@ def model_choice(
             doubt = np.abs(mm.v0 - q.v0[fit_rows]) > agree_z * room + q_bias
             try_pw = ~ok_mm | ~(u > U_EDGE) | ~(u < 1.0 - U_EDGE) | doubt
         take(fit_rows, mm, 0.0, ok_mm)
+        if not known:
+            # a well left with the quadratic because the curve's residual RMS passed lof_ratio read noises: the
+            # robust read-noise estimate scatters (0.74-1.33 of the true noise over 60 reads), and where it
+            # is low the curve fits yet fails, and the quadratic's SE from that noise is too small
+            # (docs/rates.md); its SE is scaled to the larger of the noise and the curve's residual RMS
+            back = fit_rows[~ok_mm & (r_mm > 1.0)]
+            se[back] *= r_mm[~ok_mm & (r_mm > 1.0)]
         rows = fit_rows[try_pw]
         if known and rows.size:
             pw = progress_curve(t, y[rows], s0=s0_all[rows], signal_per_conc=spc, min_points=min_points,

@@ -25,7 +25,13 @@ from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
 from vzero.plugins.rates.noise import Screen, blank_result, check_inputs, finish, flag_noisy, screen
 from vzero.plugins.rates.polynomial import inv3_hankel
-from vzero.plugins.rates.shapegrid import SHAPE_GRID, fixed_shape_model, mixed_ln_v0_var
+from vzero.plugins.rates.shapegrid import (
+    SHAPE_GRID,
+    bend_factor,
+    fixed_shape_model,
+    mixed_ln_v0_var,
+    profile_bend,
+)
 
 
 @dataclass(frozen=True)
@@ -665,9 +671,12 @@ def shape_profile(t: np.ndarray, y: np.ndarray, w: np.ndarray, d: np.ndarray, st
     cov[:, 2, :] /= c_max[:, None]
     cov[:, :, 2] /= c_max[:, None]
     var = bounded_ln_v0_var(cov, fit.params[:, 2] / c_max, c_free / c_max)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bend = c_free / c_max / np.sqrt(cov[:, 2, 2])
     shape = (n_g, n_w)
     return {"ln_v0": fit.params[:, 1].reshape(shape).T, "var": var.reshape(shape).T,
-            "rss": fit.rss.reshape(shape).T, "converged": fit.converged.reshape(shape).T}
+            "rss": fit.rss.reshape(shape).T, "converged": fit.converged.reshape(shape).T,
+            "bend": bend.reshape(shape).T}
 
 
 def start_quadratic(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -839,7 +848,9 @@ def progress_curve(
         var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
     elif not known:
         fitted, _ = make(t)(fit.params, np.arange(todo.size))
-        ln_var = mixed_ln_v0_var(shape_profile(t, yy, ww, d, fit.params, scale2), fit.params[:, 1], scale2)
+        profile = shape_profile(t, yy, ww, d, fit.params, scale2)
+        # the profile's SE times the empirical factor at how clearly the curve bends (shapegrid.BEND_KNOTS)
+        ln_var = mixed_ln_v0_var(profile, fit.params[:, 1], scale2) * bend_factor(profile_bend(profile)) ** 2
         # where no shape's fit converged: the four-parameter delta method (on the large side far from completion)
         lost = ~np.isfinite(ln_var)
         if lost.any():

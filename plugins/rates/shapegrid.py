@@ -116,3 +116,30 @@ def mixed_ln_v0_var(profile: dict[str, np.ndarray], ln_v0: np.ndarray, scale2: n
         wt /= wt.sum(axis=1, keepdims=True)
         terms = np.where(ok, var + (lv - ln_v0[:, None]) ** 2, 0.0)
         return np.where(ok.any(axis=1), (wt * terms).sum(axis=1), np.nan)
+
+
+def profile_bend(profile: dict[str, np.ndarray]) -> np.ndarray:
+    """How clearly each well's curve bends, scale-free: ``c_free/sd_c`` at the best converged shape of a
+    :func:`vzero.plugins.rates.progress.shape_profile` (``c_free`` the curvature at the optimum without
+    bounds, ``sd_c`` its standard error from the read noise; negative where the optimum lies past the
+    straight line). In the linear approximation this is the signed root of the likelihood-ratio statistic
+    for a straight line against the curve, the same at every shape to first order in the curvature. NaN
+    where no shape's fit converged."""
+    ok = np.isfinite(profile["rss"]) & profile["converged"] & np.isfinite(profile["bend"])
+    best = np.argmin(np.where(ok, profile["rss"], np.inf), axis=1)
+    z = profile["bend"][np.arange(best.size), best]
+    return np.where(ok.any(axis=1), z, np.nan)
+
+
+BEND_KNOTS: tuple[tuple[float, float], ...] = ((-0.94, 0.74), (-0.23, 0.86), (0.24, 0.92), (0.74, 0.96), (1.23, 0.96), (1.73, 0.96), (2.42, 0.98), (3.42, 0.98), (6.65, 1.00))
+"""Knots ``(z, factor)`` of :func:`bend_factor` (placeholder before the measurement)."""
+
+
+def bend_factor(z: np.ndarray, knots: tuple[tuple[float, float], ...] = BEND_KNOTS) -> np.ndarray:
+    """Factor on the profile's standard error of v0 at the bend statistic ``z`` (:func:`profile_bend`):
+    linear between the knots of :data:`BEND_KNOTS`, their end values beyond them, 1 where ``z`` is not
+    finite (no shape converged: the four-parameter SE is kept as it is)."""
+    zk = np.array([k[0] for k in knots])
+    fk = np.array([k[1] for k in knots])
+    z = np.asarray(z, dtype=float)
+    return np.where(np.isfinite(z), np.interp(np.where(np.isfinite(z), z, 0.0), zk, fk), 1.0)

@@ -14,7 +14,15 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq, least_squares
 from vzero.plugins.rates.progress import progress_curve, shape_profile
-from vzero.plugins.rates.shapegrid import SHAPE_GRID, fixed_shape_model, mixed_ln_v0_var, shape_conversion
+from vzero.plugins.rates.shapegrid import (
+    BEND_KNOTS,
+    SHAPE_GRID,
+    bend_factor,
+    fixed_shape_model,
+    mixed_ln_v0_var,
+    profile_bend,
+    shape_conversion,
+)
 
 T = np.arange(60) * 10.0
 
@@ -188,6 +196,8 @@ def test_bounded_curvature_by_truncated_normal() -> None:
         dist = truncnorm(-c_free / sd, ((1 - r) / p_last - c_free) / sd, loc=c_free, scale=sd)
         expected = cov[1, 1] - cov[1, 2] * b + b * b * (dist.var() + (dist.mean() - fit.x[2]) ** 2)
         assert prof["var"][i, 0] == pytest.approx(expected, rel=0.02)
+        # the bend statistic: the optimum without bounds over its standard error, from the same reference
+        assert prof["bend"][i, 0] == pytest.approx(c_free / sd, rel=0.02, abs=0.02)
         shorter.append(prof["var"][i, 0] / cov[1, 1])
     assert len(shorter) >= 8  # about half the wells of a straight line end on the bound
     assert np.mean(shorter) < 0.9  # and there the bound does shorten the error bar
@@ -201,6 +211,7 @@ def test_signal_unit_progress_takes_the_mixture(monkeypatch: pytest.MonkeyPatch)
     y = _curve(1.5e-3, 0.05, 0.8, 0.002, 5)
     base = progress_curve(T, y)
     monkeypatch.setattr(pg, "mixed_ln_v0_var", lambda prof, lv, s2: np.full(lv.shape, 0.01**2))
+    monkeypatch.setattr(pg, "bend_factor", np.ones_like)  # the factor has its own tests below
     fixed = progress_curve(T, y)
     np.testing.assert_array_equal(fixed.v0, base.v0)  # the SE changes, never v0
     np.testing.assert_allclose(fixed.stderr, 0.01 * np.abs(base.v0), rtol=1e-12)
@@ -208,3 +219,52 @@ def test_signal_unit_progress_takes_the_mixture(monkeypatch: pytest.MonkeyPatch)
     lost = progress_curve(T, y)
     assert np.all(np.isfinite(lost.stderr)) and np.all(lost.stderr > 0)
     assert not np.allclose(lost.stderr, base.stderr, rtol=1e-3)
+
+
+def test_bend_factor_shape() -> None:
+    # the factor only ever shortens the profile's SE, less as the curve bends more clearly, and not at all
+    # from the last knot on (there the profile is calibrated: docs/rates.md); a well without a converged
+    # shape (z NaN) keeps its SE
+    z = np.linspace(-20.0, 60.0, 4001)
+    f = bend_factor(z)
+    assert np.all(np.diff(f) >= 0.0)
+    assert np.all((f > 0.0) & (f <= 1.0))
+    assert f[0] < 0.9  # a straight-looking curve's SE is shortened (the measured factor, bench.se_calibration)
+    last = BEND_KNOTS[-1][0]
+    assert BEND_KNOTS[-1][1] == 1.0
+    np.testing.assert_array_equal(f[z >= last], 1.0)
+    assert bend_factor(np.array([np.nan]))[0] == 1.0
+    knots_z = [k[0] for k in BEND_KNOTS]
+    assert knots_z == sorted(knots_z)
+    np.testing.assert_allclose(bend_factor(np.array(knots_z)), [k[1] for k in BEND_KNOTS], rtol=0, atol=0)
+
+
+def test_profile_bend_takes_the_best_converged_shape() -> None:
+    # by hand: the least RSS among converged shapes (the third shape has a smaller RSS but did not converge)
+    prof = {"rss": np.array([[3.0, 1.0, 0.5], [np.nan, 2.0, 1.0], [1.0, 1.0, 1.0]]),
+            "converged": np.array([[True, True, False], [True, True, True], [False, False, False]]),
+            "bend": np.array([[0.1, 2.5, 9.0], [7.0, -0.3, 1.2], [1.0, 1.0, 1.0]])}
+    z = profile_bend(prof)
+    assert z[0] == 2.5 and z[1] == 1.2 and np.isnan(z[2])
+
+
+def test_bend_factor_leaves_a_clearly_curving_well_alone(monkeypatch: pytest.MonkeyPatch) -> None:
+    # a well whose curve clearly bends (S0 = Km, 30 % converted: z about 10) keeps the profile's SE exactly;
+    # a straight one (no curvature) has it shortened by the factor at its own z, and v0 never changes
+    import vzero.plugins.rates.progress as pg
+
+    bent = _curve(1.5e-3, 0.4, 0.5, 0.002, 21, n=6)
+    straight = _curve(1.5e-3, 0.0, 0.5, 0.002, 22, n=6)
+    y = np.vstack([bent, straight])
+    seen: list[dict[str, np.ndarray]] = []
+    real = pg.shape_profile
+    monkeypatch.setattr(pg, "shape_profile", lambda *a, **k: seen.append(real(*a, **k)) or seen[-1])
+    calibrated = progress_curve(T, y)
+    z = profile_bend(seen[0])
+    monkeypatch.setattr(pg, "bend_factor", np.ones_like)
+    plain = progress_curve(T, y)
+    np.testing.assert_array_equal(calibrated.v0, plain.v0)
+    assert np.all(z[:6] > BEND_KNOTS[-1][0])
+    np.testing.assert_array_equal(calibrated.stderr[:6], plain.stderr[:6])
+    np.testing.assert_allclose(calibrated.stderr[6:] / plain.stderr[6:], bend_factor(z[6:]), rtol=1e-12)
+    assert np.all(calibrated.stderr[6:] < plain.stderr[6:])

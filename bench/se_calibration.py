@@ -1,0 +1,134 @@
+"""Measure the factor table of :data:`vzero.plugins.rates.shapegrid.BEND_KNOTS` (run on demand, not a test).
+
+``python -m bench.se_calibration [--wells N] [--seed K]`` simulates replicate wells on a calibration grid of
+invented Michaelis–Menten progress curves (the rate law integrated numerically by
+:func:`vzero.plugins.kinetics.simulate.simulate_plate`, never the closed forms the fit uses), fits each
+without S0 (:func:`vzero.plugins.rates.progress.progress_curve`, in signal units), and records per well the
+bend statistic ``z`` (:func:`vzero.plugins.rates.shapegrid.profile_bend`), the profile's standard error of
+v0 before the factor, and the error of v0 against the truth. In bins of ``z`` it prints how large the
+standard error should have been: ``f = q95(|v0 - truth|/SE)/1.96`` (the factor that makes the 95 % interval
+hold the truth 95 % of the time in the bin), the RMS of the standardised error beside it, and the knots
+made monotone (non-decreasing in ``z``, pool-adjacent-violators) and set to 1 from the last bin on, where
+the curve clearly bends.
+
+The grid is not the conditions of tests/plugins/rates/test_se_calibration.py, which stay held out for the
+validation: S0/Km in {0.5, 2, 5, 20, 50}, fraction of substrate converted by the last read in {1, 3, 8, 20
+%}, signal change by the last read 0.08 or 0.4 (read noise 0.002, so two signal-to-noise levels), 40 reads
+every 15 s or 90 reads every 5 s, seeds from 1000 on. Every condition counts equally. The factor therefore
+assumes that curves are spread over this grid; a lab whose curves all sit at one corner of it would see a
+different calibration (docs/rates.md, "Do the standard errors mean what they say?"). Invented data only.
+"""
+
+from __future__ import annotations
+
+import argparse
+import itertools
+from unittest import mock
+
+import numpy as np
+from scipy.optimize import brentq
+from vzero.plugins.kinetics.simulate import simulate_plate
+from vzero.plugins.rates import progress
+from vzero.plugins.rates.shapegrid import bend_factor, profile_bend
+
+S0_OVER_KM = (0.5, 2.0, 5.0, 20.0, 50.0)
+FRACTIONS = (0.01, 0.03, 0.05, 0.08, 0.12, 0.20)
+CHANGES = (0.08, 0.4)  # signal change by the last read (absorbance units)
+READS = ((40, 15.0), (90, 5.0))  # (reads, interval in s)
+NOISE = 0.002
+#: Bin edges of z; the last bin is open-ended and its factor set to 1.
+#: Bins of a condition's own bend (floor of the median z) counted separately; those above, one bin.
+TRUE_BEND_MAX = 8
+EDGES = (-np.inf, -0.5, 0.0, 0.5, 1.0, 1.5, 2.0, 3.0, 4.0, np.inf)
+
+
+def condition_wells(s0_km: float, fraction: float, change: float, reads: tuple[int, float], n_wells: int,
+                    seed: int) -> tuple[np.ndarray, np.ndarray, float]:
+    """Time (s), ``n_wells`` noisy replicate curves and the true v0 (signal/s) of one grid condition
+    (Km = 1, baseline 0.1, signal per unit product chosen for the signal change by the last read)."""
+    n, dt = reads
+    t = np.arange(n) * dt
+    s0, km = s0_km, 1.0
+    vmax = brentq(lambda v: 1 - progress.integrated_mm(t[-1], s0, km, v) / s0 - fraction, 1e-12, 1e3)
+    spc = change / (fraction * s0)
+    sim = simulate_plate(t, np.array([s0]), km, vmax, signal_per_conc=spc, baseline=0.1)
+    rng = np.random.default_rng(seed)
+    return t, sim.signal + NOISE * rng.standard_normal((n_wells, t.size)), float(sim.v0_true[0])
+
+
+def measure(t: np.ndarray, y: np.ndarray, truth: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per well: the bend statistic ``z`` and the standardised error ``(v0 - truth)/SE`` with the profile's
+    SE before the factor (the reported SE divided by :func:`bend_factor` at ``z``). Every well here is
+    usable, so the profile's rows are the wells."""
+    seen: list[dict[str, np.ndarray]] = []
+    real = progress.shape_profile
+
+    def record(*args: object, **kwargs: object) -> dict[str, np.ndarray]:
+        out = real(*args, **kwargs)  # type: ignore[arg-type]
+        seen.append(out)
+        return out
+
+    with mock.patch.object(progress, "shape_profile", record):
+        r = progress.progress_curve(t, y)
+    z = profile_bend(seen[0]) if seen and seen[0]["rss"].shape[0] == y.shape[0] else np.full(y.shape[0], np.nan)
+    se_raw = r.stderr / bend_factor(z)
+    return z, (r.v0 - truth) / se_raw
+
+
+def pav(values: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """Least-squares non-decreasing fit to ``values`` with ``weights`` (pool-adjacent-violators)."""
+    blocks: list[list[float]] = []  # [mean, weight, count]
+    for v, w in zip(values, weights, strict=True):
+        blocks.append([float(v), float(w), 1])
+        while len(blocks) > 1 and blocks[-2][0] > blocks[-1][0]:
+            v2, w2, n2 = blocks.pop()
+            v1, w1, n1 = blocks.pop()
+            blocks.append([(v1 * w1 + v2 * w2) / (w1 + w2), w1 + w2, n1 + n2])
+    return np.concatenate([np.full(int(n), m) for m, _, n in blocks])
+
+
+def main() -> None:
+    """Simulate the grid, print the per-bin table and the knots for :data:`BEND_KNOTS`."""
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--wells", type=int, default=400, help="replicate wells per grid condition")
+    ap.add_argument("--seed", type=int, default=1000, help="first seed (one per condition)")
+    args = ap.parse_args()
+    zs, es, weights = [], [], []
+    grid = list(itertools.product(S0_OVER_KM, FRACTIONS, CHANGES, READS))
+    for i, (s0_km, frac, change, reads) in enumerate(grid):
+        t, y, truth = condition_wells(s0_km, frac, change, reads, args.wells, args.seed + i)
+        z, e = measure(t, y, truth)
+        ok = np.isfinite(z) & np.isfinite(e)
+        zs.append(z[ok])
+        es.append(e[ok])
+    # the condition's own bend (the median of z over its wells, about z at the true curve), in unit bins up
+    # to TRUE_BEND_MAX and one bin beyond: every bin weighs the same, and within a bin every condition
+    true_bin = [min(int(np.floor(np.median(z))), TRUE_BEND_MAX) if z.size else -1 for z in zs]
+    per_bin = {b: true_bin.count(b) for b in set(true_bin)}
+    weights = [np.full(z.size, 1.0 / (per_bin[b] * max(z.size, 1))) for z, b in zip(zs, true_bin, strict=True)]
+    z, e, w = np.concatenate(zs), np.concatenate(es), np.concatenate(weights)
+    print("conditions per bin of their own bend:", dict(sorted(per_bin.items())))
+    print(f"{len(grid)} conditions, {z.size} wells with a converged profile")
+    print("| z bin | wells | median z | RMS(e/SE) | q95(|e|/SE)/1.96 |")
+    print("|---|---|---|---|---|")
+    centres, q95, rms, mass = [], [], [], []
+    for lo, hi in itertools.pairwise(EDGES):
+        m = (z >= lo) & (z < hi)
+        if m.sum() < 50:
+            continue
+        order = np.argsort(np.abs(e[m]))
+        cum = np.cumsum(w[m][order]) / w[m].sum()
+        q = float(np.abs(e[m])[order][np.searchsorted(cum, 0.95)]) / 1.96
+        r = float(np.sqrt(np.sum(w[m] * e[m] ** 2) / w[m].sum()))
+        centres.append(float(np.median(z[m])))
+        q95.append(q)
+        rms.append(r)
+        mass.append(float(w[m].sum()))
+        print(f"| [{lo:g}, {hi:g}) | {int(m.sum())} | {centres[-1]:.2f} | {r:.2f} | {q:.2f} |")
+    knots = pav(np.array(q95[:-1]), np.array(mass[:-1]))
+    knots = np.minimum(np.append(knots, 1.0), 1.0)
+    print("BEND_KNOTS = (" + ", ".join(f"({c:.2f}, {f:.2f})" for c, f in zip(centres, knots, strict=True)) + ")")
+
+
+if __name__ == "__main__":
+    main()
