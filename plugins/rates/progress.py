@@ -724,9 +724,11 @@ def progress_curve(
     holding the truth 94-97 % of the time on curves far from completion (2000 wells per condition), except
     S0 = Km with 12 % converted (98.5 %; docs/rates.md). Without S0 the standard error comes from a profile
     over the curve's shape (:mod:`vzero.plugins.rates.shapegrid`: fits at five fixed shapes mixed by their
-    likelihood; :func:`signal_ln_v0_var` only where none converges): calibrated on curving wells, still on the
-    large side where the curve is nearly straight (up to 1.6x the scatter, since nothing bounds the curvature
-    from above without S0; docs/rates.md, "Do the standard errors mean what they say?").
+    likelihood; :func:`signal_ln_v0_var` only where none converges), times an empirical factor at how clearly
+    the curve bends (:data:`vzero.plugins.rates.shapegrid.BEND_KNOTS`, measured on simulated wells by
+    ``python -m bench.se_calibration``): calibrated on curving and moderately curving wells, still on the
+    large side where the curve is nearly straight (up to 1.45x the scatter, since nothing bounds the
+    curvature from above without S0; docs/rates.md, "Do the standard errors mean what they say?").
 
     ``model="power"`` fits instead a rate that falls as a power of the substrate left, ``v = v0 (1 -
     x)^n`` (:func:`power_conversion`; needs ``s0`` and ``signal_per_conc``), with fitted baseline, v0 and

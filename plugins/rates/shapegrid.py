@@ -15,9 +15,12 @@ v0's variance allows for the curvature's bound at zero (a straight line) as
 :func:`vzero.plugins.rates.progress.bounded_ln_v0_var` does for known S0; and the variances are mixed with
 weights from each shape's likelihood, ``exp(-(RSS_r - RSS_min)/(2 sigma^2))`` (every shape in [0, 1) equally
 likely beforehand, as with known S0 every curvature is): the mean squared distance of ln v0 at the shapes the
-curve allows from the reported ln v0. Measured on simulated replicate wells only: calibrated on clearly
-curving wells, still up to 1.6x the scatter on nearly straight ones, where nothing bounds the curvature from
-above without S0 (docs/rates.md). Research use; defer to the lab's own validated procedures.
+curve allows from the reported ln v0. That SE is then multiplied by an empirical factor at how clearly the
+curve bends (:func:`profile_bend`, :func:`bend_factor`, :data:`BEND_KNOTS`, measured by ``python -m
+bench.se_calibration``): the profile alone overstated the scatter of nearly straight curves. Measured on
+simulated replicate wells only: calibrated on curving and moderately curving wells, still up to 1.45x the
+scatter on nearly straight ones, where nothing bounds the curvature from above without S0 (docs/rates.md).
+Research use; defer to the lab's own validated procedures.
 """
 
 from __future__ import annotations
@@ -138,15 +141,15 @@ BEND_KNOTS: tuple[tuple[float, float], ...] = (
 """Knots ``(z, factor)`` of :func:`bend_factor`, measured by ``python -m bench.se_calibration --wells 1000``
 (seed 1000; 120 conditions, 119371 wells): the median ``z`` of each bin of :func:`profile_bend`, and the
 factor that makes the profile's 95 % interval hold the truth 95 % of the time in that bin
-(``q95(|v0 - truth|/SE)/1.96``), made non-decreasing, and 1 from the last bin's median z on (that bin, z >= 4,
-measured 0.90: the curve clearly bends, and the profile is left as it is). Empirical, not derived: on the calibration grid of that script (S0/Km 0.5-50, 1-20 %
-converted, two signal-to-noise levels, 40 and 90 reads; never the test's conditions), with conditions
-weighted so that every unit of a condition's own bend (its median z, up to 8) counts the same: a flat
-prior over how clearly a curve bends, in units of its standard error. Why a prior at all: a curve that
-looks straight (z near 0) may be one whose true curvature sits on the bound (its SE then about 0.5-0.6
-of what the profile says) or one that bends by one or two SE (about 1.4): no statistic of one well tells
-them apart, so the factor depends on how often each occurs. Research use; docs/rates.md has the
-validation on held-out conditions."""
+(``q95(|v0 - truth|/SE)/1.96``), made non-decreasing, and 1 from the last bin's median z on (that bin,
+z >= 4, measured 0.90: the curve clearly bends, and the profile is left as it is). Empirical, not
+derived: on the calibration grid of that script (S0/Km 0.5-50, 1-20 % converted, two signal-to-noise
+levels, 40 and 90 reads; never the test's conditions), with conditions weighted so that every unit of a
+condition's own bend (its median z, up to 8) counts the same: a flat prior over how clearly a curve
+bends, in units of its standard error. Why a prior at all: a curve that looks straight (z near 0) may be
+one whose true curvature sits on the bound (its SE then about 0.5-0.6 of what the profile says) or one
+that bends by one or two SE (about 1.4): no statistic of one well tells them apart, so the factor depends
+on how often each occurs. Research use; docs/rates.md has the validation on held-out conditions."""
 
 
 def bend_factor(z: np.ndarray, knots: tuple[tuple[float, float], ...] = BEND_KNOTS) -> np.ndarray:
