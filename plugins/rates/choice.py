@@ -54,8 +54,11 @@ same enzyme at the same inhibitor level: the rates stage passes the layout's sam
 Reads next to a block of missing reads at the start or end of a well (saturation) are masked first
 (``censored_reads``, see :data:`CENSORED_READS`).
 
-Needs ``s0`` and ``signal_per_conc``; without them the Michaelis–Menten curve is fitted in signal units and
-the quadratic window is the first third of the reads. ``extra['model']`` says which estimate each well got
+Needs ``s0`` and ``signal_per_conc``; without them the Michaelis–Menten curve is fitted in signal units,
+the quadratic window is the first third of the reads, and a well left with the quadratic because the curve's
+residual RMS passed ``lof_ratio`` read noises gets the quadratic's SE times that ratio (the larger of the read
+noise and the curve's residual RMS: a low read-noise estimate, not a misfit, is the common cause).
+``extra['model']`` says which estimate each well got
 (0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag model, 4 Hill curve, 5
 substrate-inhibition curve, 6 Hill curve with the plate's shape, 7 substrate-inhibition curve with the plate's
 shape);
