@@ -8,15 +8,20 @@ bend statistic ``z`` (:func:`vzero.plugins.rates.shapegrid.profile_bend`), the p
 v0 before the factor, and the error of v0 against the truth. In bins of ``z`` it prints how large the
 standard error should have been: ``f = q95(|v0 - truth|/SE)/1.96`` (the factor that makes the 95 % interval
 hold the truth 95 % of the time in the bin), the RMS of the standardised error beside it, and the knots
-made monotone (non-decreasing in ``z``, pool-adjacent-violators) and set to 1 from the last bin on, where
-the curve clearly bends.
+made monotone (non-decreasing in ``z``: ``scipy.optimize.isotonic_regression``, weighted by each bin's
+share), at most 1, and 1 at the last bin (z >= 4), where the curve clearly bends.
 
 The grid is not the conditions of tests/plugins/rates/test_se_calibration.py, which stay held out for the
-validation: S0/Km in {0.5, 2, 5, 20, 50}, fraction of substrate converted by the last read in {1, 3, 8, 20
-%}, signal change by the last read 0.08 or 0.4 (read noise 0.002, so two signal-to-noise levels), 40 reads
-every 15 s or 90 reads every 5 s, seeds from 1000 on. Every condition counts equally. The factor therefore
-assumes that curves are spread over this grid; a lab whose curves all sit at one corner of it would see a
-different calibration (docs/rates.md, "Do the standard errors mean what they say?"). Invented data only.
+validation: S0/Km in {0.5, 2, 5, 20, 50}, fraction of substrate converted by the last read in {1, 3, 5, 8,
+12, 20 %}, signal change by the last read 0.08 or 0.4 (read noise 0.002, so two signal-to-noise levels),
+40 reads every 15 s or 90 reads every 5 s, one seed per condition from ``--seed`` on. The conditions are
+weighted so that each unit bin of a condition's own bend (the median z over its wells, up to
+:data:`TRUE_BEND_MAX`, and one bin beyond) weighs the same, and the conditions within a bin equally: a
+flat prior over how clearly a curve bends. The factor rests on that prior (a straight-looking well may
+have its true curvature on the bound or a few SE from it, and no statistic of one well tells them apart);
+counting every condition equally, most of them nearly straight, gave a factor of 0.5 below z = 0.5 that
+made moderately curving wells' intervals too short (docs/rates.md, "Do the standard errors mean what they
+say?"). Invented data only.
 """
 
 from __future__ import annotations
@@ -26,7 +31,7 @@ import itertools
 from unittest import mock
 
 import numpy as np
-from scipy.optimize import brentq
+from scipy.optimize import brentq, isotonic_regression
 from vzero.plugins.kinetics.simulate import simulate_plate
 from vzero.plugins.rates import progress
 from vzero.plugins.rates.shapegrid import bend_factor, profile_bend
@@ -75,18 +80,6 @@ def measure(t: np.ndarray, y: np.ndarray, truth: float) -> tuple[np.ndarray, np.
     return z, (r.v0 - truth) / se_raw
 
 
-def pav(values: np.ndarray, weights: np.ndarray) -> np.ndarray:
-    """Least-squares non-decreasing fit to ``values`` with ``weights`` (pool-adjacent-violators)."""
-    blocks: list[list[float]] = []  # [mean, weight, count]
-    for v, w in zip(values, weights, strict=True):
-        blocks.append([float(v), float(w), 1])
-        while len(blocks) > 1 and blocks[-2][0] > blocks[-1][0]:
-            v2, w2, n2 = blocks.pop()
-            v1, w1, n1 = blocks.pop()
-            blocks.append([(v1 * w1 + v2 * w2) / (w1 + w2), w1 + w2, n1 + n2])
-    return np.concatenate([np.full(int(n), m) for m, _, n in blocks])
-
-
 def main() -> None:
     """Simulate the grid, print the per-bin table and the knots for :data:`BEND_KNOTS`."""
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
@@ -125,7 +118,7 @@ def main() -> None:
         rms.append(r)
         mass.append(float(w[m].sum()))
         print(f"| [{lo:g}, {hi:g}) | {int(m.sum())} | {centres[-1]:.2f} | {r:.2f} | {q:.2f} |")
-    knots = pav(np.array(q95[:-1]), np.array(mass[:-1]))
+    knots = isotonic_regression(np.array(q95[:-1]), weights=np.array(mass[:-1]), increasing=True).x
     knots = np.minimum(np.append(knots, 1.0), 1.0)
     print("BEND_KNOTS = (" + ", ".join(f"({c:.2f}, {f:.2f})" for c, f in zip(centres, knots, strict=True)) + ")")
 
