@@ -28,8 +28,10 @@ issue's minimum), where the coverage's sampling SD is 0.015 and a calibrated SE 
 level or another by chance alone; there each level is held to the SE-ratio target (sampling SD about 0.05)
 and the coverage target is checked on the levels' wells together. A level that misses is marked
 ``xfail(strict=True)`` with its figure, so the table in docs/rates.md and this file change together.
-Invented data. Run ``pytest -m slow -s tests/plugins/rates/test_pool_se_calibration.py -k table`` to print
-the table of docs/rates.md.
+Without the shape's term (the shape taken as known) the SE ratio falls to 0.32–0.39 at some levels
+(docs/rates.md), which these checks catch. Invented data. Run
+``pytest -m slow -s tests/plugins/rates/test_pool_se_calibration.py -k table`` to print the table of
+docs/rates.md.
 """
 
 from __future__ import annotations
@@ -131,15 +133,17 @@ def test_step9_coverage_on_single_well_plates(family: str) -> None:
 
 
 def test_print_the_table() -> None:
-    lines = ["| family | layout | S0 (mM) | wells | took shape | bias | SD/v0 | mean z | SE ratio (z) | "
-             "RMS SE / SD | 95 % coverage |", "|---|---|---|---|---|---|---|---|---|---|---|"]
+    cols = "wells | bias | SE ratio (z) | RMS SE / SD | 95 % coverage"
+    lines = [f"| family | S0 (mM) | {' | '.join(f'{lay}: {cols}' for lay in LAYOUTS)} |",
+             "|---|---|" + "---|" * 5 * len(LAYOUTS)]
     for family, (_, s0) in FAMILIES.items():
-        for layout in LAYOUTS:
-            for i in [*range(s0.size), None]:
+        for i in [*range(s0.size), None]:
+            cells = []
+            for layout in LAYOUTS:
                 c = calibration(family, layout, i)
-                label = "all" if i is None else f"{s0[i]:g}"
-                lines.append(f"| {family} | {layout} | {label} | {c['wells']} | {c['taken']:.0%} | {c['bias']:+.2%} | "
-                             f"{c['rel_sd']:.2%} | {c['mean_z']:+.2f} | {c['se_ratio']:.2f} | {c['rms_ratio']:.2f} | "
-                             f"{c['coverage']:.3f} |")
                 assert c["wells"] >= 200 and np.isfinite([c["bias"], c["se_ratio"], c["coverage"]]).all(), c
+                cells.append(f"{c['wells']} | {c['bias']:+.2%} | {c['se_ratio']:.2f} | {c['rms_ratio']:.2f} | "
+                             f"{c['coverage']:.3f}")
+            label = "all" if i is None else f"{s0[i]:g}"
+            lines.append(f"| {family} | {label} | {' | '.join(cells)} |")
     print("\n".join(lines))
