@@ -9,7 +9,13 @@ compare the kernels against an independent computation. The model per well::
 
 ``lag_tau > 0`` gives a hysteretic lag (activity rising from ``a0`` to 1, the steady-state line meeting the
 baseline at ``t = lag_tau`` when ``a0 = 0`` and depletion is negligible); ``k_inact > 0`` gives first-order
-inactivation (Selwyn-type: ``P = v0/k (1 - exp(-k t))`` when depletion is negligible). The signal is
+inactivation (Selwyn-type: ``P = v0/k (1 - exp(-k t))`` when depletion is negligible). With both, the
+enzyme lost returns through the activation step (the ``(1 - a)`` term counts it as not yet active), so the
+activity levels off at ``1/(1 + k_inact lag_tau)``: the curve is exactly that of a lag of
+``lag_tau/(1 + k_inact lag_tau)`` without inactivation and ``Vmax/(1 + k_inact lag_tau)``, and ``v0_true``
+(the rate at a = 1, never reached) cannot be told from the reads; a fit returns ``v0_true/(1 + k_inact
+lag_tau)`` with no decay. Irreversible loss after a lag (an inactive form turning active, the active form
+lost, as :mod:`vzero.plugins.rates.lagfit` models it) is not this model. The signal is
 ``baseline + signal_per_conc * P`` plus Gaussian read noise; reads at or above ``ceiling`` become NaN and are
 marked saturated. Invented data only: never a stand-in for measured curves.
 """
