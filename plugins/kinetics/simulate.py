@@ -5,17 +5,16 @@ law is integrated as an ODE (never through the closed form the progress-curve ke
 compare the kernels against an independent computation. The model per well::
 
     dS/dt = -a(t) * Vmax * S^h / (Km^h + S^h)          (Hill; h = 1 is Michaelis–Menten)
-    da/dt = (1 - a) / lag_tau - k_inact * a             (active enzyme fraction; a(0) = a0)
+    dp/dt = -p / lag_tau                                (enzyme not yet active; p(0) = 1 - a0 with a lag)
+    da/dt = p / lag_tau - k_inact * a                   (active enzyme fraction; a(0) = a0)
 
 ``lag_tau > 0`` gives a hysteretic lag (activity rising from ``a0`` to 1, the steady-state line meeting the
-baseline at ``t = lag_tau`` when ``a0 = 0`` and depletion is negligible); ``k_inact > 0`` gives first-order
-inactivation (Selwyn-type: ``P = v0/k (1 - exp(-k t))`` when depletion is negligible). With both, the
-enzyme lost returns through the activation step (the ``(1 - a)`` term counts it as not yet active), so the
-activity levels off at ``1/(1 + k_inact lag_tau)``: the curve is exactly that of a lag of
-``lag_tau/(1 + k_inact lag_tau)`` without inactivation and ``Vmax/(1 + k_inact lag_tau)``, and ``v0_true``
-(the rate at a = 1, never reached) cannot be told from the reads; a fit returns ``v0_true/(1 + k_inact
-lag_tau)`` with no decay. Irreversible loss after a lag (an inactive form turning active, the active form
-lost, as :mod:`vzero.plugins.rates.lagfit` models it) is not this model. The signal is
+baseline at ``t = lag_tau`` when ``a0 = 0`` and depletion is negligible); ``k_inact > 0`` gives first-order,
+irreversible inactivation of the active form (Selwyn-type: ``P = v0/k (1 - exp(-k t))`` when depletion is
+negligible and there is no lag). With both, enzyme turns active and is lost in turn, ``a(t) = (exp(-k t) -
+exp(-t/lag_tau))/(1 - k lag_tau)`` from ``a0 = 0``: the model of :mod:`vzero.plugins.rates.lagfit`. Lost enzyme does not
+return (an earlier version let it re-enter the activation step, so the activity levelled off at ``1/(1 +
+k lag_tau)`` and ``v0_true`` was never reached). The signal is
 ``baseline + signal_per_conc * P`` plus Gaussian read noise; reads at or above ``ceiling`` become NaN and are
 marked saturated. Invented data only: never a stand-in for measured curves.
 """
@@ -74,13 +73,15 @@ def simulate_plate(
     a_start = np.where(tau > 0, 0.0, 1.0) if a0 is None else np.broadcast_to(np.asarray(a0, float), (n,))
     inv_tau = np.where(tau > 0, 1.0 / np.where(tau > 0, tau, 1.0), 0.0)
 
+    p_start = np.where(tau > 0, 1.0 - a_start, 0.0)
+
     def rhs(_t: float, z: np.ndarray) -> np.ndarray:
-        s, a = np.maximum(z[:n], 0.0), z[n:]
+        s, p, a = np.maximum(z[:n], 0.0), z[n:2 * n], z[2 * n:]
         sh = s**h
-        return np.concatenate([-a * vm * sh / (km_**h + sh), (1.0 - a) * inv_tau - ki * a])
+        return np.concatenate([-a * vm * sh / (km_**h + sh), -p * inv_tau, p * inv_tau - ki * a])
 
     t_eval = t if t[0] == 0 else np.concatenate([[0.0], t])
-    sol = solve_ivp(rhs, (0.0, float(t[-1])), np.concatenate([s0, a_start]), method="LSODA",
+    sol = solve_ivp(rhs, (0.0, float(t[-1])), np.concatenate([s0, p_start, a_start]), method="LSODA",
                     t_eval=t_eval, rtol=rtol, atol=1e-14 * max(float(s0.max()), 1.0) if atol is None else atol)
     s_t = sol.y[:n, -t.size:]
     product = s0[:, None] - s_t
