@@ -10,6 +10,7 @@ kernel, on fixed invented inputs, and writes every output to a JSON file:
 - the whole pipeline (importers, blank, rates, convert, fit and its model comparison) on the demo recipe and
   on every cookbook recipe of configs/, with the invented plates of ``tests/cookbook_data.py``;
 - the readers on the test suite's sample files (``tests/data/readers``);
+- the pathlength helpers on every plate geometry and on a straight-walled well;
 - the recipe check on every recipe of configs/ and ``verify`` on the stored audit files (``tests/data/audit``).
 
 Run as ``python -m bench.effect_battery OUT.json [--trace FILE:LINE]`` from the root of a source copy (the
@@ -241,6 +242,26 @@ def readers_part(out: Outputs, root: Path) -> None:
             out[f"{key}/{b.name}/assumptions"] = list(b.assumptions)
 
 
+def convert_part(out: Outputs) -> None:
+    """The pathlength helpers on every plate geometry and on an invented straight-walled well: the height
+    at 10-90 % of capacity, the volume back from heights, and water-peak pathlengths."""
+    import numpy as np
+    from vzero.plugins.convert.pathlength import (
+        PLATE_GEOMETRIES,
+        WellGeometry,
+        pathlength_from_volume,
+        pathlength_from_water_peak,
+        volume_to_height_inverse,
+    )
+
+    wells = [*PLATE_GEOMETRIES.values(), WellGeometry("straight-invented", "square", 3.0, 3.0, 10.0, "invented")]
+    for g in wells:
+        key = f"convert/{g.name}"
+        out[f"{key}/cm"] = _flat(pathlength_from_volume(g.capacity_ul * np.array([0.1, 0.5, 0.9]), g))
+        out[f"{key}/ul"] = _flat(volume_to_height_inverse(g, g.depth_mm * np.array([0.0, 0.25, 0.5, 1.0])))
+    out["convert/water"] = _flat(pathlength_from_water_peak(np.array([0.2, 0.1, 0.05]), np.array([0.02, 0.1, 0.01])))
+
+
 def checks_part(out: Outputs, root: Path) -> None:
     """The recipe check on every recipe in configs/ and ``verify`` on every stored audit file."""
     from vzero.api import check, verify
@@ -257,7 +278,7 @@ def checks_part(out: Outputs, root: Path) -> None:
         out[f"verify/{path.name}"] = [rep.text().replace(str(root), "<root>")]
 
 
-PARTS = ("rates", "pipeline", "readers", "checks")
+PARTS = ("rates", "pipeline", "readers", "convert", "checks")
 
 
 def run_battery(root: Path, parts: tuple[str, ...] = PARTS) -> Outputs:
@@ -269,6 +290,8 @@ def run_battery(root: Path, parts: tuple[str, ...] = PARTS) -> Outputs:
         pipeline_part(out, root)
     if "readers" in parts:
         readers_part(out, root)
+    if "convert" in parts:
+        convert_part(out)
     if "checks" in parts:
         checks_part(out, root)
     return out
