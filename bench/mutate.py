@@ -94,7 +94,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/noise.py": ((), RATES),
     "plugins/rates/window.py": ((), RATES),
     "plugins/rates/auto.py": ((), RATES),
-    "plugins/rates/polynomial.py": ((), RATES),
+    "plugins/rates/polynomial.py": ((), [*RATES, "tests/plugins/rates/test_threshold_equality.py"]),
     "plugins/rates/progress.py": ((), [*RATES, "tests/plugins/rates/test_power_order_bounds.py",
                                        "tests/plugins/rates/test_progress_fields.py",
                                        "tests/plugins/rates/test_progress_bounded_se.py",

@@ -10,7 +10,8 @@ each rule, from its docstring:
 - :func:`vzero.plugins.rates.earlylag.early_lag`: a lag when the largest hinge t is *above* ``z``
   (module text: ``zmax > z``), so a statistic equal to ``z`` is no lag.
 
-Invented curves.
+And one count at its edge: :func:`vzero.plugins.rates.polynomial.polynomial`'s residual ratio on the
+smallest window a cubic is fitted to (one residual degree of freedom). Invented curves.
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.rates import earlylag
 from vzero.plugins.rates.lagdecay import lag_decay
@@ -64,3 +66,22 @@ def test_early_lag_needs_a_statistic_above_z() -> None:
     assert at.lag_s[0] == 0.0
     below = earlylag.early_lag(*args, z=float(np.nextafter(zmax, -math.inf)))
     assert below.has[0] and below.lag_s[0] > 0.0  # one float below: above it
+
+
+def test_polynomial_ratio_with_one_residual_degree_of_freedom() -> None:
+    # the smallest window the method fits: five reads for a cubic leaves n - degree - 1 = 1 residual degree
+    # of freedom, and rmse_over_noise = sqrt(RSS / 1) / read noise (RSS of numpy.polyfit on the same reads);
+    # a floor of the degrees of freedom above 1 would change it here and nowhere else
+    from vzero.plugins.rates.polynomial import polynomial
+
+    rng = np.random.default_rng(21)
+    t = np.arange(40) * 5.0
+    y = 0.2 + 3e-3 * t - 4e-6 * t**2 + rng.normal(0, 0.002, (3, t.size))
+    r = polynomial(t, y, degree=3, window_s=20.0, min_points=5)
+    sel = t <= 20.0
+    assert sel.sum() == 5  # precondition: five reads in the window
+    for i in range(3):
+        c = np.polyfit(t[sel], y[i, sel], 3)
+        rss = float(((y[i, sel] - np.polyval(c, t[sel])) ** 2).sum())
+        want = np.sqrt(rss / 1.0) / r.extra["read_noise"][i]
+        assert r.extra["rmse_over_noise"][i] == pytest.approx(want, rel=1e-7)
