@@ -6,8 +6,8 @@ and ``or`` swapped, a ``not`` dropped, a unary minus dropped, or a number change
 float x to 2x, 0.0 to 1.0). The mutant is written into a private copy of the source tree (the checkout is
 never touched) and the module's own targeted tests (:data:`TARGETS`, slow tests excluded) are run on it in a
 fresh process with a timeout: a failing test kills the mutant; a timeout counts as killed too (the change
-made the code hang). Survivors are written with their place and change, for a person to sort into
-"equivalent" (the change cannot alter a result) or "needs a test".
+made the code hang). Survivors are written with their place and change; ``--effect`` then measures
+whether each changes anything the product computes (below), instead of a person's judgment.
 
 Budget: the machine is shared; ``--sample N`` takes N mutants per module (a seeded draw, the same every
 time), ``--timeout`` bounds each mutant (300 s by default: with a shorter limit a slow run of the tests on a busy
