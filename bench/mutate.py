@@ -6,8 +6,8 @@ and ``or`` swapped, a ``not`` dropped, a unary minus dropped, or a number change
 float x to 2x, 0.0 to 1.0). The mutant is written into a private copy of the source tree (the checkout is
 never touched) and the module's own targeted tests (:data:`TARGETS`, slow tests excluded) are run on it in a
 fresh process with a timeout: a failing test kills the mutant; a timeout counts as killed too (the change
-made the code hang). Survivors are written with their place and change, for a person to sort into
-"equivalent" (the change cannot alter a result) or "needs a test".
+made the code hang). Survivors are written with their place and change; ``--effect`` then measures
+whether each changes anything the product computes (below), instead of a person's judgment.
 
 Budget: the machine is shared; ``--sample N`` takes N mutants per module (a seeded draw, the same every
 time), ``--timeout`` bounds each mutant (300 s by default: with a shorter limit a slow run of the tests on a busy
@@ -19,6 +19,15 @@ Examples::
     python -m bench.mutate --list                      # count mutants per module
     python -m bench.mutate --sample 3 --seed 6607 --jobs 2  # the last run recorded in docs/testing.md
     python -m bench.mutate --module plugins/fit/compare.py --sample 0
+    python -m bench.mutate --sample 6 --seed N --jobs 2 --effect   # and measure every survivor's effect
+    python -m bench.mutate --classify mutants.json --out effect.json  # the survivors of an earlier run
+
+``--effect`` (and ``--classify``) replace a person's "equivalent in effect" by a measurement: the battery of
+:mod:`bench.effect_battery` runs once on the unmutated copy (twice, to find outputs that are not
+reproducible) and once per survivor on its mutant, each in a fresh process, and every output is compared
+(floats within 1e-9 relative with a 1e-12 absolute floor, everything else exactly). Verdicts: "no effect"
+(outputs the same and the mutated line executed by the battery: counted as equivalent in the second
+score), "not reached by the battery" (no evidence either way) or "changes outputs by X (open)".
 """
 
 from __future__ import annotations
@@ -85,12 +94,13 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/noise.py": ((), RATES),
     "plugins/rates/window.py": ((), RATES),
     "plugins/rates/auto.py": ((), RATES),
-    "plugins/rates/polynomial.py": ((), RATES),
+    "plugins/rates/polynomial.py": ((), [*RATES, "tests/plugins/rates/test_threshold_equality.py"]),
     "plugins/rates/progress.py": ((), [*RATES, "tests/plugins/rates/test_power_order_bounds.py",
                                        "tests/plugins/rates/test_progress_fields.py",
-                                       "tests/plugins/rates/test_progress_bounded_se.py"]),
+                                       "tests/plugins/rates/test_progress_bounded_se.py",
+                                       "tests/plugins/rates/test_open_survivors.py"]),
     "plugins/rates/shapegrid.py": ((), ["tests/plugins/rates/test_shapegrid.py"]),
-    "plugins/rates/lagdecay.py": ((), [*RATES, SIDES]),
+    "plugins/rates/lagdecay.py": ((), [*RATES, SIDES, "tests/plugins/rates/test_threshold_equality.py"]),
     "plugins/rates/choice.py": ((), CHOICE),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py",
                                         "tests/plugins/rates/test_curve_jacobian_shape.py"]),
@@ -107,9 +117,11 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/lagfit.py": ((), [HELPERS, "tests/plugins/rates/test_lag_clock.py",
                                      "tests/plugins/rates/test_plate_clock_rules.py",
                                      "tests/plugins/rates/test_lag_clock_se.py",
-                                     "tests/plugins/rates/test_lag_clock_choice.py"]),
+                                     "tests/plugins/rates/test_lag_clock_choice.py",
+                                     "tests/plugins/rates/test_open_survivors.py"]),
     "plugins/rates/earlylag.py": ((), [HELPERS, "tests/plugins/rates/test_short_lag_and_decay.py",
-                                       "tests/plugins/rates/test_early_lag_edges.py", SIDES]),
+                                       "tests/plugins/rates/test_early_lag_edges.py", SIDES,
+                                       "tests/plugins/rates/test_threshold_equality.py"]),
     "plugins/convert/__init__.py": ((), CONVERT),
     "plugins/convert/pathlength.py": ((), CONVERT),
     "plugins/convert/standard_curve.py": ((), CONVERT),
@@ -242,12 +254,13 @@ def mutated_source(m: Mutant) -> str:
 
 
 def _copy_tree(dest: Path) -> None:
-    """A private importable copy: dest/vzero (pipeline/) with dest/vzero/plugins (plugins/), and the tests."""
+    """A private importable copy: dest/vzero (pipeline/) with dest/vzero/plugins (plugins/), the tests, and
+    bench/ (the effect battery and the plates it simulates)."""
     ignore = shutil.ignore_patterns("__pycache__", "*.pyc", ".ruff_cache")
     shutil.copytree(ROOT / "pipeline", dest / "vzero", ignore=ignore)
     shutil.copytree(ROOT / "plugins", dest / "vzero" / "plugins", ignore=ignore)
     shutil.copytree(ROOT / "tests", dest / "tests", ignore=ignore)
-    for name in ("pyproject.toml", "configs", "docs"):
+    for name in ("pyproject.toml", "configs", "docs", "bench"):
         src = ROOT / name
         (shutil.copytree(src, dest / name, ignore=ignore) if src.is_dir() else shutil.copy(src, dest / name))
 
@@ -304,6 +317,98 @@ def check_baseline(timeout: float) -> None:
             raise SystemExit(f"targeted tests fail without any mutation: {outcome} {detail}")
 
 
+#: Verdicts of :func:`effect_verdict` (the summary counts the first as equivalent in effect).
+NO_EFFECT = "no effect (outputs within 1e-9 relative, line executed)"
+NOT_REACHED = "not reached by the battery"
+
+
+def _battery(copy: Path, out: Path, trace: list[str], timeout: float) -> dict:
+    """Run :mod:`bench.effect_battery` in a fresh process on ``copy``; its JSON (``outputs``, ``reached``),
+    or ``{"error": ...}`` when it crashed or hung (a mutant that breaks the battery changes its outputs)."""
+    env = {**os.environ, "PYTHONPATH": str(copy), "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1",
+           "PYTHONDONTWRITEBYTECODE": "1", "PYTHONHASHSEED": "0"}
+    cmd = [sys.executable, "-m", "bench.effect_battery", str(out), *(a for t in trace for a in ("--trace", t))]
+    try:
+        proc = subprocess.run(cmd, cwd=copy, env=env, capture_output=True, text=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        return {"error": "timeout"}
+    if proc.returncode != 0:
+        return {"error": f"exit {proc.returncode}: {proc.stderr.strip().splitlines()[-1:] or ''}"}
+    return json.loads(out.read_text(encoding="utf-8"))
+
+
+class EffectBaseline:
+    """The battery's outputs on the unmutated copy (run twice: outputs that differ between the two runs
+    are left out of every comparison and counted in ``unstable``), and which survivors' lines it reached."""
+
+    def __init__(self, survivors: list[Mutant], timeout: float) -> None:
+        from bench.effect_battery import compare
+
+        trace = sorted({f"{_in_copy(m.module)}:{m.line}" for m in survivors})
+        with tempfile.TemporaryDirectory(prefix="vzero-eff-") as tmp:
+            copy = Path(tmp)
+            _copy_tree(copy)
+            first = _battery(copy, copy / "first.json", trace, timeout)
+            second = _battery(copy, copy / "second.json", [], timeout)
+        if "error" in first or "error" in second:
+            raise SystemExit(f"the effect battery fails without any mutation: {first.get('error') or second['error']}")
+        self.outputs: dict = first["outputs"]
+        self.unstable = set(compare(first["outputs"], second["outputs"]))
+        self.reached = set(first["reached"])
+
+
+def effect_verdict(m: Mutant, base: EffectBaseline, timeout: float) -> tuple[str, dict[str, float]]:
+    """The measured verdict on a survivor: :data:`NO_EFFECT`, :data:`NOT_REACHED`, or "changes outputs by X
+    (open)" (X the largest relative difference); and the outputs that changed with their differences."""
+    from bench.effect_battery import compare
+
+    with tempfile.TemporaryDirectory(prefix="vzero-eff-") as tmp:
+        copy = Path(tmp)
+        _copy_tree(copy)
+        (copy / _in_copy(m.module)).write_text(mutated_source(m), encoding="utf-8")
+        got = _battery(copy, copy / "mutant.json", [], timeout)
+    if "error" in got:
+        return f"changes outputs: the battery fails ({got['error']}) (open)", {"<battery>": float("inf")}
+    diffs = {k: d for k, d in compare(base.outputs, got["outputs"]).items() if k not in base.unstable}
+    if diffs:
+        worst = max(diffs.values())
+        by = f"by {worst:.3g}" if worst < float("inf") else "(a text, flag, count, NaN or length differs)"
+        return f"changes outputs {by} (open)", diffs
+    if f"{_in_copy(m.module)}:{m.line}" not in base.reached:
+        return NOT_REACHED, {}
+    return NO_EFFECT, {}
+
+
+def classify(survivors: list[Mutant], timeout: float, jobs: int) -> list[dict]:
+    """:func:`effect_verdict` for every survivor (``jobs`` at a time); one record per survivor."""
+    base = EffectBaseline(survivors, timeout)
+    print(f"effect battery: {len(base.outputs)} outputs, {len(base.unstable)} unstable between two unmutated runs; "
+          f"{len(base.reached)} of {len(survivors)} survivors' lines reached", flush=True)
+
+    def one(m: Mutant) -> dict:
+        verdict, diffs = effect_verdict(m, base, timeout)
+        worst = sorted(diffs.items(), key=lambda kv: -kv[1])[:5]
+        return {**asdict(m), "effect": verdict, "changed": len(diffs), "worst": worst}
+
+    records = []
+    with cf.ThreadPoolExecutor(jobs) as pool:
+        for r in pool.map(one, survivors):
+            records.append(r)
+            print(f"  {r['module']}:{r['line']} {r['change']}: {r['effect']}"
+                  + (f" [{r['changed']} outputs, e.g. {r['worst'][0][0]}]" if r["changed"] else ""), flush=True)
+    return records
+
+
+def score(results: list[Mutant], records: list[dict]) -> str:
+    """The score both ways: strictly (every survivor counts against it), and with the survivors measured
+    to have no effect counted as equivalent (left out of the denominator)."""
+    killed = sum(r.outcome.startswith("killed") for r in results)
+    valid = sum(r.outcome != "invalid" and not r.outcome.startswith("error") for r in results)
+    none = sum(r["effect"] == NO_EFFECT for r in records)
+    return (f"strict: {killed} of {valid} killed ({killed / max(valid, 1):.1%}); no-effect survivors as equivalent: "
+            f"{killed} of {valid - none} ({killed / max(valid - none, 1):.1%}; {none} measured without effect)")
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(prog="python -m bench.mutate", description=__doc__.splitlines()[0])
     ap.add_argument("--module", action="append", help="only this module (repeatable); default: all targets")
@@ -314,7 +419,17 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--jobs", type=int, default=1)
     ap.add_argument("--out", default="mutants.json")
     ap.add_argument("--list", action="store_true", help="count the mutants per module and stop")
+    ap.add_argument("--effect", action="store_true", help="measure every survivor's effect on the outputs of "
+                    "bench/effect_battery.py (a fresh process each for the unmutated copy and for the mutant)")
+    ap.add_argument("--classify", metavar="RESULTS.json", help="measure the effect of the survivors of an earlier "
+                    "run (its --out file) without running the tests again; the sample options are not used")
     args = ap.parse_args(argv)
+    if args.classify:
+        results = [Mutant(**r) for r in json.loads(Path(args.classify).read_text(encoding="utf-8"))]
+        records = classify([r for r in results if r.outcome == "survived"], args.timeout, args.jobs)
+        Path(args.out).write_text(json.dumps(records, indent=1), encoding="utf-8")
+        print(score(results, records))
+        return 0
     modules = args.module or list(TARGETS)
     chosen: list[Mutant] = []
     for mod in modules:
@@ -338,6 +453,10 @@ def main(argv: list[str] | None = None) -> int:
     for r in results:
         if r.outcome == "survived":
             print(f"  {r.module}:{r.line}:{r.col} {r.change}")
+    if args.effect:
+        records = classify([r for r in results if r.outcome == "survived"], args.timeout, args.jobs)
+        Path(args.out).with_suffix(".effect.json").write_text(json.dumps(records, indent=1), encoding="utf-8")
+        print(score(results, records))
     return 0
 
 
