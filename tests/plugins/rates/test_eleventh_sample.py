@@ -1,0 +1,72 @@
+"""Rate kernels at the edges an eleventh mutation sample found untested: a spike two reads from the start of
+a well with a missing read, the small-argument branch of the Hill progress curve's integral, ..."""
+
+from __future__ import annotations
+
+from decimal import Decimal, getcontext
+
+import numpy as np
+from numpy.testing import assert_array_equal
+from vzero.plugins.rates import hillcurve
+from vzero.plugins.rates.choice import smooth_misfit
+from vzero.plugins.rates.spikes import find_spikes
+
+
+def test_a_spike_at_the_third_read_is_found_when_a_later_read_is_missing() -> None:
+    # invented well: a straight line (0.1 AU + 0.002 AU per read) with a 0.2 AU bubble at read 2; sigma
+    # 0.005 AU. By the module text's statistic, r = 0.2/sqrt(1.5) at read 2 (40 sigma) and -0.1/sqrt(1.5)
+    # at reads 1 and 3 (opposite sign, half its size): a spike. Read 1's own neighbours are reads 0 and 2.
+    t = np.arange(10) * 20.0
+    y = 0.1 + 0.002 * np.arange(10)
+    y[2] += 0.2
+    expected = np.zeros((1, 10), bool)
+    expected[0, 2] = True
+    sigma = np.array([0.005])
+    assert_array_equal(find_spikes(t, y[None], sigma), expected)  # every read finite
+    gap = y.copy()
+    gap[8] = np.nan  # a missing read far from the spike: its neighbours are unchanged
+    assert_array_equal(find_spikes(t, gap[None], sigma), expected)
+
+
+def _f_reference(w: float, h: float) -> float:
+    """``(z^(1 - h) - 1)/(h - 1)`` at ``ln z = w`` in 50-digit decimal arithmetic (the closed form of the
+    Hill curve's integral; at h = 1 its limit -ln z)."""
+    getcontext().prec = 50
+    dh = Decimal(h) - 1
+    return float(-w) if dh == 0 else float((((1 - Decimal(h)) * Decimal(w)).exp() - 1) / dh)
+
+
+def test_the_hill_integral_is_exact_next_to_h_equal_one() -> None:
+    # h within 1e-8 of 1 takes the module's series branch (|(1 - h) ln z| < 1e-8), the rest expm1: both
+    # must match the closed form to rounding (relative 1e-14); the series' first-order term is 1e-9 here
+    for w in (-2.0, -0.7, -9.0):
+        for h in (1.0, 1.0 + 3e-9, 1.0 - 4e-9, 1.0 + 2e-10, 1.0 + 1e-6, 0.5, 2.5):
+            got = float(hillcurve._f(np.array([w]), np.array([h]))[0])
+            want = _f_reference(w, h)
+            assert abs(got - want) <= 1e-14 * abs(want), (w, h, got, want)
+
+
+def _misfit_of_four_reads(step_s: float) -> tuple[float, float]:
+    """Model-choice's misfit statistic of a well whose only usable reads are its first four (``step_s``
+    apart; the 16 later reads, 1200-2500 s, saturated), residuals 0.01 AU x (1, -3, 3, -1) about a zero curve,
+    read noise 0.01 AU; and its closed-form value: four blocks are fitted exactly by a cubic, so the part a
+    cubic explains beyond a constant is the sum of squares about the mean, (1 + 9 + 9 + 1) = 20 read
+    variances."""
+    t = np.concatenate([np.arange(4) * step_s, np.linspace(1200.0, 2500.0, 16)])
+    y = np.full((1, 20), np.nan)
+    y[0, :4] = np.array([1.0, -3.0, 3.0, -1.0]) * 0.01
+    got = smooth_misfit(t, y, np.isfinite(y), lambda tb: np.zeros_like(tb), np.array([0.01]))
+    return float(got[0]), 20.0
+
+
+def test_the_misfit_is_a_projection_even_when_the_reads_crowd_together() -> None:
+    # a projection's squared norm lies between 0 and the squared norm of what it projects (Bessel's
+    # inequality): that holds whatever the read times, also when four reads a few seconds apart make the
+    # cubic's normal equations nearly singular (smallest eigenvalue 1e-14 - 1e-9 of the trace here)
+    for step in np.geomspace(2.0, 80.0, 61):
+        got, total = _misfit_of_four_reads(float(step))
+        assert -1e-9 * total <= got <= total * (1 + 1e-9), (step, got)
+    # reads well apart: the closed form itself (relative 1e-6)
+    for step in (300.0, 390.0):
+        got, total = _misfit_of_four_reads(step)
+        assert abs(got - total) <= 1e-6 * total, (step, got)
