@@ -6,9 +6,12 @@ from __future__ import annotations
 from decimal import Decimal, getcontext
 
 import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
 from numpy.testing import assert_array_equal
 from vzero.plugins.rates import hillcurve
 from vzero.plugins.rates.choice import smooth_misfit
+from vzero.plugins.rates.hillcurve import fit_hill_curve
 from vzero.plugins.rates.spikes import find_spikes
 
 
@@ -70,3 +73,24 @@ def test_the_misfit_is_a_projection_even_when_the_reads_crowd_together() -> None
     for step in (300.0, 390.0):
         got, total = _misfit_of_four_reads(step)
         assert abs(got - total) <= 1e-6 * total, (step, got)
+
+
+def test_the_hill_curve_fit_keeps_a_negatively_cooperative_well() -> None:
+    # invented enzyme with negative cooperativity (h = 0.45, K0.5 0.3 mM, Vmax 4e-4 mM/s, 3.4 AU/mM), reads
+    # every 10 s for 15 min; reference curve: scipy.integrate.solve_ivp (Radau) of dS/dt = -Vmax S^h/(K^h +
+    # S^h), and v0 = Vmax S0^h/(K^h + S0^h) (the rate law at t = 0). h = 0.45 lies inside the documented range
+    # of Hill coefficients a fit may end with, so the fit is kept (converged) and finds h and v0.
+    t = np.arange(90) * 10.0
+    vmax, k, h, spc, base = 4e-4, 0.3, 0.45, 3.4, 0.05
+    s0 = np.array([0.1, 0.3, 0.9])
+    y = np.empty((3, t.size))
+    for i, s in enumerate(s0):
+        sol = solve_ivp(lambda _t, x: -vmax * x**h / (k**h + x**h), (0.0, t[-1]), [s], method="Radau",
+                        t_eval=t, rtol=1e-11, atol=1e-15)
+        y[i] = base + spc * (s - sol.y[0])
+    v0 = spc * vmax * s0**h / (k**h + s0**h)
+    start = np.stack([np.full(3, base), np.log(v0 / spc * 0.9), np.full(3, 0.6), np.zeros(3)], axis=1)
+    fit = fit_hill_curve(t, y, np.ones_like(y, bool), s0, spc, np.full(3, 1e-3), start)
+    assert fit["converged"].all()
+    assert fit["h"] == pytest.approx(h, rel=0.03)
+    assert fit["v0"] == pytest.approx(v0, rel=3e-3)
