@@ -8,10 +8,12 @@ from decimal import Decimal, getcontext
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
+from scipy.special import lambertw
 from numpy.testing import assert_array_equal
 from vzero.plugins.rates import hillcurve
 from vzero.plugins.rates.choice import smooth_misfit
 from vzero.plugins.rates.hillcurve import fit_hill_curve
+from vzero.plugins.rates.lagfit import lag_clock_fit
 from vzero.plugins.rates.spikes import find_spikes
 
 
@@ -94,3 +96,18 @@ def test_the_hill_curve_fit_keeps_a_negatively_cooperative_well() -> None:
     assert fit["converged"].all()
     assert fit["h"] == pytest.approx(h, rel=0.03)
     assert fit["v0"] == pytest.approx(v0, rel=3e-3)
+
+
+def test_the_lag_clock_finds_no_lag_where_there_is_none() -> None:
+    # invented plate without lag or inactivation (Km 0.5 mM, Vmax 4e-4 mM/s, 3.4 AU/mM, reads every 10 s for
+    # 15 min); reference curve: the integrated Michaelis-Menten closed form S = Km W((S0/Km) exp((S0 - Vmax
+    # t)/Km)) with scipy.special.lambertw (Schnell & Mendoza 1997). The lag time may go down to 0, so the fit
+    # ends at a lag far below one read interval and at the closed form's v0 = Vmax S0/(Km + S0).
+    t = np.arange(90) * 10.0
+    km, vmax, spc, base = 0.5, 4e-4, 3.4, 0.05
+    s0 = np.array([0.2, 0.5, 1.5])
+    s = km * lambertw((s0[:, None] / km) * np.exp((s0[:, None] - vmax * t) / km)).real
+    y = base + spc * (s0[:, None] - s)
+    fit = lag_clock_fit(t, y, s0, spc, sigma=np.full(3, 1e-3))
+    assert np.all(fit["tau"] < 0.1 * 10.0), fit["tau"]
+    assert fit["v0"] == pytest.approx(spc * vmax * s0 / (km + s0), rel=1e-4)
