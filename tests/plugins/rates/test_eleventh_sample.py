@@ -8,12 +8,15 @@ from decimal import Decimal, getcontext
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
+from scipy.optimize import least_squares
 from scipy.special import lambertw
 from numpy.testing import assert_array_equal
 from vzero.plugins.rates import hillcurve
 from vzero.plugins.rates.choice import smooth_misfit
 from vzero.plugins.rates.hillcurve import fit_hill_curve
 from vzero.plugins.rates.lagfit import lag_clock_fit
+from vzero.plugins.rates.progress import shape_profile
+from vzero.plugins.rates.shapegrid import fixed_shape_model
 from vzero.plugins.rates.spikes import find_spikes
 
 
@@ -110,4 +113,25 @@ def test_the_lag_clock_finds_no_lag_where_there_is_none() -> None:
     y = base + spc * (s0[:, None] - s)
     fit = lag_clock_fit(t, y, s0, spc, sigma=np.full(3, 1e-3))
     assert np.all(fit["tau"] < 0.1 * 10.0), fit["tau"]
-    assert fit["v0"] == pytest.approx(spc * vmax * s0 / (km + s0), rel=1e-4)
+    assert fit["v0"] == pytest.approx(spc * vmax * s0 / (km + s0), rel=1e-6)
+
+
+def test_the_shape_profile_of_a_short_well_fits_every_read() -> None:
+    # a well of 12 reads (fewer than the 20 blocks the profile compresses to): blocks of one read, so each
+    # fixed-shape fit is that of the reads themselves. Reference: scipy.optimize.least_squares (trust region
+    # reflective, c1 >= 0) of the same fixed-shape curve on the 12 reads. Invented well: baseline 0.05 AU,
+    # v0 2e-3 AU/s, c1 0.4, shape 0.5, read noise 0.002 AU.
+    t = np.arange(12) * 30.0
+    f, _ = fixed_shape_model(t, np.ones(1), np.array([0.5]))(np.array([[0.05, np.log(2e-3), 0.4]]), np.array([0]))
+    y = f + 0.002 * np.random.default_rng(11).standard_normal((1, t.size))
+    start = np.array([[0.04, np.log(1.8e-3), np.log(0.3), 0.0]])
+    prof = shape_profile(t, y, np.ones_like(y), np.ones(1), start, np.array([0.002**2]), grid=(0.5,))
+    model = fixed_shape_model(t, np.ones(1), np.array([0.5]))
+
+    def resid(p: np.ndarray) -> np.ndarray:
+        return model(p[None, :], np.array([0]))[0][0] - y[0]
+    ref = least_squares(resid, [0.04, np.log(1.8e-3), 0.3], bounds=([-np.inf, -20, 0], [np.inf, 0, np.inf]),
+                        xtol=1e-14, ftol=1e-14, gtol=1e-14)
+    assert prof["converged"][0, 0]
+    assert prof["ln_v0"][0, 0] == pytest.approx(ref.x[1], abs=2e-4)
+    assert prof["rss"][0, 0] == pytest.approx(2 * ref.cost, rel=1e-3)
