@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from scipy import stats
 from vzero.plugins.fit import compare
+from vzero.plugins.fit.catalog import BY_NAME
 from vzero.plugins.fit import run as fit_run
 
 from tests.plugins.fit.test_statistics import _rss_for_p, _stub
@@ -39,3 +40,17 @@ def test_the_reason_quotes_only_the_chosen_models_f_test() -> None:
     f = (mm.rss - hill.rss) / 1 / (hill.rss / (n - 3))
     assert notes[0][0] == "michaelis-menten"
     assert float(notes[0][1]) == pytest.approx(stats.f.sf(f, 1, n - 3), rel=1e-2)
+
+
+def test_logistic_start_direction_from_the_three_rates_at_each_end() -> None:
+    # the rule as written (vzero.plugins.fit.models, start values): the curve falls when the mean of the three
+    # highest-inhibitor rates lies below that of the three lowest (falling: [top, bottom, mid, +1]; rising:
+    # [bottom, top, mid, +1]). Invented 8-level data, each with one stray rate next to an end, so that four
+    # rates at that end would give the other direction. Midpoint: the geometric median of the seven positive
+    # levels 0.1 ... 1000, 10**(median of -1, -0.5, ..., 2) = 10**0.5 (hand calculation).
+    i = {"inhibitor": np.array([0, 0.1, 10**-0.5, 1, 10**0.5, 10, 100, 1000])}
+    start = BY_NAME["logistic-4p"].start
+    # low end 7, 7, 7 (then a stray 1: four would give 5.5) against 6, 6, 6 at the high end: falling
+    assert start(i, np.array([7, 7, 7, 1, 6.5, 6, 6, 6], float)) == pytest.approx([7, 1, 10**0.5, 1.0])
+    # low end 5, 5, 5 against 1, 1, 1 (after a stray 20: four would give 5.75 against 3.75): falling
+    assert start(i, np.array([5, 5, 5, 0, 20, 1, 1, 1], float)) == pytest.approx([20, 0, 10**0.5, 1.0])
