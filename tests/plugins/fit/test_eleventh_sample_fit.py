@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 from scipy import stats
 from vzero.plugins.fit import compare
-from vzero.plugins.fit.catalog import BY_NAME
 from vzero.plugins.fit import run as fit_run
+from vzero.plugins.fit.catalog import BY_NAME
 
 from tests.plugins.fit.test_statistics import _rss_for_p, _stub
 

@@ -1,5 +1,9 @@
 """Rate kernels at the edges an eleventh mutation sample found untested: a spike two reads from the start of
-a well with a missing read, the small-argument branch of the Hill progress curve's integral, ..."""
+a well with a missing read, the small-argument branch of the Hill progress curve's integral, model-choice's
+misfit statistic on nearly singular normal equations, a negatively cooperative Hill well, the lag clock on a
+curve without lag, and the shape profile of a well shorter than its block count. Each against an independent
+calculation named beside it (scipy, 50-digit decimal arithmetic, closed forms, hand calculation); invented
+data."""
 
 from __future__ import annotations
 
@@ -7,10 +11,10 @@ from decimal import Decimal, getcontext
 
 import numpy as np
 import pytest
+from numpy.testing import assert_array_equal
 from scipy.integrate import solve_ivp
 from scipy.optimize import least_squares
 from scipy.special import lambertw
-from numpy.testing import assert_array_equal
 from vzero.plugins.rates import hillcurve
 from vzero.plugins.rates.choice import smooth_misfit
 from vzero.plugins.rates.hillcurve import fit_hill_curve
