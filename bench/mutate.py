@@ -72,6 +72,9 @@ CHOICE = [HELPERS, "tests/plugins/rates/test_choice_fields.py", "tests/plugins/r
           "tests/plugins/rates/test_choice_power_step.py", "tests/plugins/rates/test_choice_reports.py",
           "tests/plugins/rates/test_choice_late_steps.py", "tests/plugins/rates/test_poolshape.py",
           "tests/plugins/rates/test_choice_lone_wells.py"]
+#: the eleventh sample's tests (fit helpers; rate kernels' edges)
+ELEVENTH_FIT = "tests/plugins/fit/test_eleventh_sample_fit.py"
+ELEVENTH_RATES = "tests/plugins/rates/test_eleventh_sample.py"
 #: the format-2 digest checks of verify (the stored example files are format 1.x), the two quickest
 DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with_every_digest_checked",
            "tests/pipeline/test_verify_digests.py::test_a_missing_results_group_is_reported"]
@@ -79,16 +82,16 @@ DIGESTS = ["tests/pipeline/test_verify_digests.py::test_fresh_file_verifies_with
 #: module (path in the checkout) -> (functions to mutate, or () for the whole module; targeted tests, the
 #: quickest that exercise the module, fastest first)
 TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
-    "plugins/fit/compare.py": ((), [STATS, "tests/plugins/fit/test_compare_rules.py"]),
+    "plugins/fit/compare.py": ((), [STATS, "tests/plugins/fit/test_compare_rules.py", ELEVENTH_FIT]),
     "plugins/fit/engine.py": ((), [STATS, "tests/plugins/fit/test_engine_edges.py",
                                    "tests/plugins/fit/test_engine_summary.py", "tests/plugins/fit/test_engine_batch.py",
                                    "tests/plugins/fit/test_engine_nist.py"]),
     "plugins/fit/run.py": (("_sigma", "_saturation_problem", "_derived_row", "_ki_rows", "_derived", "_group_enzyme"),
                            ["tests/plugins/fit/test_run_helpers.py", STATS, STAGE,
-                            "tests/plugins/fit/test_titration.py"]),
+                            "tests/plugins/fit/test_titration.py", ELEVENTH_FIT]),
     "plugins/fit/models.py": ((), ["tests/plugins/fit/test_start_values.py", "tests/plugins/fit/test_models.py",
                                    "tests/plugins/fit/test_model_edges.py",
-                                   STATS]),
+                                   STATS, ELEVENTH_FIT]),
     "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"),
                                    ["tests/plugins/fit/test_diagnostics_fields.py", STAGE]),
     "plugins/rates/noise.py": ((), RATES),
@@ -98,17 +101,17 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/progress.py": ((), [*RATES, "tests/plugins/rates/test_power_order_bounds.py",
                                        "tests/plugins/rates/test_progress_fields.py",
                                        "tests/plugins/rates/test_progress_bounded_se.py",
-                                       "tests/plugins/rates/test_open_survivors.py"]),
+                                       "tests/plugins/rates/test_open_survivors.py", ELEVENTH_RATES]),
     "plugins/rates/shapegrid.py": ((), ["tests/plugins/rates/test_shapegrid.py"]),
     "plugins/rates/lagdecay.py": ((), [*RATES, SIDES, "tests/plugins/rates/test_threshold_equality.py"]),
-    "plugins/rates/choice.py": ((), CHOICE),
+    "plugins/rates/choice.py": ((), [*CHOICE, ELEVENTH_RATES]),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py",
-                                        "tests/plugins/rates/test_curve_jacobian_shape.py"]),
+                                        "tests/plugins/rates/test_curve_jacobian_shape.py", ELEVENTH_RATES]),
     "plugins/rates/sicurve.py": ((), ["tests/plugins/rates/test_sicurve.py", *CHOICE[1:3],
                                       "tests/plugins/rates/test_curve_jacobian_shape.py", SIDES]),
     "plugins/rates/poolshape.py": ((), ["tests/plugins/rates/test_poolshape.py", SIDES,
                                         "tests/plugins/rates/test_pool_take_sides.py"]),
-    "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py"]),
+    "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py", ELEVENTH_RATES]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
                                      "tests/plugins/rates/test_imprecise.py",
                                      "tests/plugins/rates/test_short_lag_and_decay.py",
@@ -118,7 +121,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
                                      "tests/plugins/rates/test_plate_clock_rules.py",
                                      "tests/plugins/rates/test_lag_clock_se.py",
                                      "tests/plugins/rates/test_lag_clock_choice.py",
-                                     "tests/plugins/rates/test_open_survivors.py"]),
+                                     "tests/plugins/rates/test_open_survivors.py", ELEVENTH_RATES]),
     "plugins/rates/earlylag.py": ((), [HELPERS, "tests/plugins/rates/test_short_lag_and_decay.py",
                                        "tests/plugins/rates/test_early_lag_edges.py", SIDES,
                                        "tests/plugins/rates/test_threshold_equality.py"]),
