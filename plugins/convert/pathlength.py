@@ -78,9 +78,8 @@ def volume_to_height_inverse(g: WellGeometry, height_mm: float | np.ndarray) -> 
     s0, s1 = _sqrt_area(g, g.bottom_mm), _sqrt_area(g, g.top_mm)
     k = (s1 - s0) / g.depth_mm
     h = np.asarray(height_mm, dtype=float)
-    if abs(k) < 1e-12:
-        return s0**2 * h
-    return ((s0 + k * h) ** 3 - s0**3) / (3 * k)
+    s = s0 + k * h  # a³ - b³ = (a - b)(a² + ab + b²) with a - b = k h: no cancellation, exact for k = 0
+    return h * (s * s + s * s0 + s0 * s0) / 3
 
 
 def geometry(plate_type: str | WellGeometry) -> WellGeometry:
@@ -110,7 +109,11 @@ def pathlength_from_volume(volume_ul: float | np.ndarray, plate_type: str | Well
         )
     s0, s1 = _sqrt_area(g, g.bottom_mm), _sqrt_area(g, g.top_mm)
     k = (s1 - s0) / g.depth_mm
-    height_mm = v / s0**2 if abs(k) < 1e-12 else (np.cbrt(3 * k * v + s0**3) - s0) / k
+    # the frustum's volume v = ((s0 + k h)^3 - s0^3)/(3k) solved for h, written without the difference of
+    # cube roots: h = (s - s0)/k = 3v/(s^2 + s s0 + s0^2), s = cbrt(3kv + s0^3); exact for k = 0 (v/s0^2)
+    # and free of cancellation for any taper, so no straight-wall branch is needed
+    s = np.cbrt(3 * k * v + s0**3)
+    height_mm = 3 * v / (s * s + s * s0 + s0 * s0)
     return height_mm / 10.0
 
 
