@@ -31,7 +31,8 @@ class BeerLambert(ConvertMethod):
     """
 
     method = "beer-lambert"
-    version = "1.1"
+    #: 1.2: the pathlength from a fill volume in a form free of cancellation (changes only the last digits)
+    version = "1.2"
     summary = "absorbance/s to concentration/time via ε and pathlength; turnover from [E]"
     params = {
         "epsilon": Param.quantity("M^-1 cm^-1", doc='molar absorption coefficient, e.g. "6220 M^-1 cm^-1"'),
