@@ -61,7 +61,8 @@ def test_line_tracer_sees_the_lines_that_ran_and_only_those(tmp_path: Path) -> N
     path.write_text(TOY, encoding="utf-8")
     tracer = LineTracer({str(path): {1, 6, 7}})  # the constant, the taken branch's return, the other one
     spec = importlib.util.spec_from_file_location("toy_effect_module", path)
-    assert spec is not None and spec.loader is not None
+    assert spec is not None
+    assert spec.loader is not None
     mod = importlib.util.module_from_spec(spec)
     with tracer.active():
         spec.loader.exec_module(mod)  # module-level line 1 runs here
@@ -102,7 +103,8 @@ def test_verdicts(fake_battery: dict) -> None:
     assert mu.effect_verdict(m, _baseline(base, set(), {"noisy"}), 10.0) == (mu.NOT_REACHED, {})
     fake_battery.update(outputs={"v0": [1.0, 2.2], "noisy": [0.5]})
     verdict, diffs = mu.effect_verdict(m, _baseline(base, {site}), 10.0)
-    assert verdict == "changes outputs by 0.0909 (open)" and list(diffs) == ["v0"]
+    assert verdict == "changes outputs by 0.0909 (open)"
+    assert list(diffs) == ["v0"]
     fake_battery.clear()
     fake_battery.update(error="timeout")
     assert mu.effect_verdict(m, _baseline(base, {site}), 10.0)[0].endswith("(open)")

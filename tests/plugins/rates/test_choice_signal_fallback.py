@@ -42,7 +42,8 @@ def test_fallback_quadratic_se_takes_the_curve_residual_rms(monkeypatch: pytest.
     q = seen["q"]
     code = out.extra["model"]
     # kept (1.2 <= lof_ratio 1.4): the curve's figures, not the quadratic's
-    assert code[1] == 0.0 and out.v0[1] != q.v0[1]
+    assert code[1] == 0.0
+    assert out.v0[1] != q.v0[1]
     # left with the quadratic: its v0 always; its SE times the curve's residual RMS over the noise where that
     # exceeds 1 (wells 0 and 2), unchanged where it does not (well 3: the curve failed for another reason)
     # or where it is unknown (well 4)

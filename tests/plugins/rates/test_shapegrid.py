@@ -217,7 +217,8 @@ def test_signal_unit_progress_takes_the_mixture(monkeypatch: pytest.MonkeyPatch)
     np.testing.assert_allclose(fixed.stderr, 0.01 * np.abs(base.v0), rtol=1e-12)
     monkeypatch.setattr(pg, "mixed_ln_v0_var", lambda prof, lv, s2: np.full(lv.shape, np.nan))
     lost = progress_curve(T, y)
-    assert np.all(np.isfinite(lost.stderr)) and np.all(lost.stderr > 0)
+    assert np.all(np.isfinite(lost.stderr))
+    assert np.all(lost.stderr > 0)
     assert not np.allclose(lost.stderr, base.stderr, rtol=1e-3)
 
 
@@ -245,7 +246,9 @@ def test_profile_bend_takes_the_best_converged_shape() -> None:
             "converged": np.array([[True, True, False], [True, True, True], [False, False, False]]),
             "bend": np.array([[0.1, 2.5, 9.0], [7.0, -0.3, 1.2], [1.0, 1.0, 1.0]])}
     z = profile_bend(prof)
-    assert z[0] == 2.5 and z[1] == 1.2 and np.isnan(z[2])
+    assert z[0] == 2.5
+    assert z[1] == 1.2
+    assert np.isnan(z[2])
 
 
 def test_bend_factor_leaves_a_clearly_curving_well_alone(monkeypatch: pytest.MonkeyPatch) -> None:

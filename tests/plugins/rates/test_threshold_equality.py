@@ -65,7 +65,8 @@ def test_early_lag_needs_a_statistic_above_z() -> None:
     assert not at.has[0]  # equal: not above
     assert at.lag_s[0] == 0.0
     below = earlylag.early_lag(*args, z=float(np.nextafter(zmax, -math.inf)))
-    assert below.has[0] and below.lag_s[0] > 0.0  # one float below: above it
+    assert below.has[0]  # one float below: above it
+    assert below.lag_s[0] > 0.0
 
 
 def test_polynomial_ratio_with_one_residual_degree_of_freedom() -> None:
