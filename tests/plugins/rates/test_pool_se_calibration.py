@@ -55,6 +55,8 @@ Z95 = 1.959963984540054  # scipy.stats.norm.ppf(0.975)
 FAMILIES = {"hill": (hill_rate, S_HILL), "substrate-inhibition": (si_rate, S_SI)}
 #: layout -> (wells per level, plates)
 LAYOUTS = {"single": (1, 250), "quadruplicate": (4, 250)}
+#: plates per call of the method (each its own pool)
+BATCH = 50
 #: first seed of each (family, layout); plate k uses seed + k
 SEEDS = {("hill", "single"): 1000, ("hill", "quadruplicate"): 2000,
          ("substrate-inhibition", "single"): 3000, ("substrate-inhibition", "quadruplicate"): 4000}
@@ -77,12 +79,17 @@ def replicate_wells(family: str, layout: str) -> tuple[np.ndarray, np.ndarray, n
     per, n_plates = LAYOUTS[layout]
     rows = np.repeat(np.arange(s0.size), per)  # well -> level, replicates side by side
     out = np.empty((3, n_plates, s0.size, per))
-    for k in range(n_plates):
-        rng = np.random.default_rng(SEEDS[(family, layout)] + k)
-        y = clean[rows] + NOISE * rng.standard_normal((rows.size, T.size))
-        r = model_choice(T, y, s0=s0[rows], signal_per_conc=SPC)
+    for first in range(0, n_plates, BATCH):
+        # BATCH plates in one call, each plate its own pool (pool_groups, as the rates stage passes a layout's
+        # groups): the same v0, SE and model per well as one call per plate (checked: within 4e-10
+        # relative, models identical), at a fraction of the calls
+        plates = range(first, min(first + BATCH, n_plates))
+        y = np.concatenate([clean[rows] + NOISE * np.random.default_rng(SEEDS[(family, layout)] + k)
+                            .standard_normal((rows.size, T.size)) for k in plates])
+        r = model_choice(T, y, s0=np.tile(s0[rows], len(plates)), signal_per_conc=SPC,
+                         pool_groups=np.repeat(np.arange(len(plates)), rows.size))
         for j, a in enumerate((r.v0, r.stderr, r.extra["model"])):
-            out[j, k] = a.reshape(s0.size, per)
+            out[j, first:first + len(plates)] = a.reshape(len(plates), s0.size, per)
     return out[0], out[1], out[2], truth
 
 
