@@ -38,7 +38,7 @@ def _decaying(seed: int) -> np.ndarray:
 def test_lag_decay_fails_only_above_fail_ratio() -> None:
     y = _decaying(11)
     ratio = float(lag_decay(T, y, fail_ratio=math.inf).extra["rmse_over_noise"][0])
-    assert 1.0 < ratio < 10.0  # precondition: an ordinary well, the fit converged
+    # (about 1.5 on this well; a NaN from a failed fit would fail the bit-for-bit check below, NaN != NaN)
     at = lag_decay(T, y, fail_ratio=ratio)
     assert at.extra["rmse_over_noise"][0] == ratio  # the same statistic, bit for bit
     assert not at.flags[0] & Flag.FIT_FAILED  # equal: does not exceed
