@@ -206,8 +206,11 @@ class ModelChoiceRates(KernelRates):
     #: shape fitted jointly over the wells of each layout group and inhibitor level (models 6 and 7;
     #: `pool_shape`); step 8's shared lag and decay constant per such pool, no longer per plate; without s0,
     #: curve SEs from `progress` 1.2's profile over the shape. 1.4: without s0, curve SEs from `progress` 1.3
-    #: and a fallback quadratic's SE scaled up to the rejected curve's residual RMS; v0 unchanged
-    method, version = "model-choice", "1.4"
+    #: and a fallback quadratic's SE scaled up to the rejected curve's residual RMS; v0 unchanged. 1.5: with
+    #: s0, the Michaelis–Menten curve's SE allows for the curvature's bounds as `progress`'s does (it was the
+    #: unbounded SE, 1.4-1.5x the scatter far from completion), and a quadratic kept because neither curve fits
+    #: within lof_ratio gets its SE scaled as without s0; v0 unchanged
+    method, version = "model-choice", "1.5"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
                "within the noise, else early quadratic; spikes masked")

@@ -755,8 +755,16 @@ def model_choice(
                 win = better & (r_pw <= lof_ratio) & ~(np.abs(pw.v0 - q.v0[rows]) > agree_z * q.se[rows])
             take(rows, pw, 1.0, win)
             pw_v0[rows] = pw.v0
-            lost = rows[(better & ~win) | (~better & ~ok_mm[try_pw])]  # back to the quadratic
+            back = (better & ~win) | (~better & ~ok_mm[try_pw])
+            lost = rows[back]  # back to the quadratic
             _use_quadratic(t, q, lost, est, first)
+            # as without S0: where neither curve describes the reads within lof_ratio read noises, a low
+            # read-noise estimate is the common cause, and the quadratic's SE from it is too small (SE 0.71x
+            # the scatter on such wells, docs/rates.md); it is scaled to the better curve's residual RMS
+            with np.errstate(invalid="ignore"):
+                r_fit = np.fmin(np.where(np.isfinite(r_old), r_old, np.inf), np.where(np.isfinite(r_pw), r_pw, np.inf))
+            misfit_back = back & np.isfinite(r_fit) & (r_fit > lof_ratio)
+            se[rows[misfit_back]] *= r_fit[misfit_back]
             if HILL_ORDER is not None:
                 with np.errstate(invalid="ignore"):
                     r_best = np.fmin(np.where(np.isfinite(r_old), r_old, np.inf),

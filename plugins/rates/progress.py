@@ -845,7 +845,7 @@ def progress_curve(
     grad = np.zeros_like(fit.params)
     grad[:, 1] = v0
     var = np.einsum("wp,wpq,wq->w", grad, fit.cov_unit, grad) * scale2
-    if known and not power and not quick:
+    if known and not power:
         u_free = free_curvature(make(t), fit.params, yy, ww)
         var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
     elif not known:
