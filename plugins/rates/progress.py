@@ -23,7 +23,7 @@ from vzero.errors import StageError
 from vzero.plugins.kinetics import lsq
 from vzero.plugins.kinetics.flags import Flag
 from vzero.plugins.kinetics.rate_result import RateResult
-from vzero.plugins.rates.noise import Screen, blank_result, check_inputs, finish, flag_noisy, screen
+from vzero.plugins.rates.noise import NOISY_MIN_T, Screen, blank_result, check_inputs, finish, flag_noisy, screen
 from vzero.plugins.rates.polynomial import inv3_hankel
 from vzero.plugins.rates.shapegrid import (
     SHAPE_GRID,
@@ -720,8 +720,10 @@ def progress_curve(
     never fitted. ``extra``: ``km``, ``vmax`` (per second), ``s0_fit`` (A in signal units when s0 is unknown),
     ``rmse_over_noise``. Km and Vmax are weakly determined when the curve is far from completion; v0 is
     a fitted parameter itself, so its value stays sound there. With known S0 its standard error allows for
-    the curvature's bounds (:func:`bounded_ln_v0_var`): SE 1.00-1.19x the scatter and 95 % intervals
-    holding the truth 94-97 % of the time on curves far from completion (2000 wells per condition), except
+    the curvature's bounds (:func:`bounded_ln_v0_var`; where the unbounded SE is within a tenth of v0, the
+    NOISY limit: beyond it the linear approximation fails and the larger SE is kept): SE 1.00-1.19x the
+    scatter and 95 % intervals holding the truth 94-97 % of the time on curves far from completion (2000
+    wells per condition), except
     S0 = Km with 12 % converted (98.5 %; docs/rates.md). Without S0 the standard error comes from a profile
     over the curve's shape (:mod:`vzero.plugins.rates.shapegrid`: fits at five fixed shapes mixed by their
     likelihood; :func:`signal_ln_v0_var` only where none converges), times an empirical factor at how clearly
@@ -847,7 +849,11 @@ def progress_curve(
     var = np.einsum("wp,wpq,wq->w", grad, fit.cov_unit, grad) * scale2
     if known and not power:
         u_free = free_curvature(make(t), fit.params, yy, ww)
-        var = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
+        bounded = v0**2 * bounded_ln_v0_var(fit.cov_unit * scale2[:, None, None], fit.params[:, 2], u_free)
+        # only where the rate is resolved (unbounded SE within the NOISY limit): beyond it the linear
+        # approximation behind the bound's correction fails, and the larger SE is kept (docs/rates.md)
+        with np.errstate(invalid="ignore"):
+            var = np.where(var * NOISY_MIN_T**2 <= v0**2, bounded, var)
     elif not known:
         fitted, _ = make(t)(fit.params, np.arange(todo.size))
         profile = shape_profile(t, yy, ww, d, fit.params, scale2)
