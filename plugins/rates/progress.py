@@ -853,7 +853,7 @@ def progress_curve(
         # only where the rate is resolved (unbounded SE within the NOISY limit): beyond it the linear
         # approximation behind the bound's correction fails, and the larger SE is kept (docs/rates.md)
         with np.errstate(invalid="ignore"):
-            var = np.where(var * NOISY_MIN_T**2 <= v0**2, bounded, var)
+            var = np.where(bounded * NOISY_MIN_T**2 <= v0**2, bounded, var)
     elif not known:
         fitted, _ = make(t)(fit.params, np.arange(todo.size))
         profile = shape_profile(t, yy, ww, d, fit.params, scale2)
