@@ -59,7 +59,7 @@ RATES = ["tests/plugins/rates/test_rate_fields.py", "tests/plugins/rates/test_la
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
 READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importers/test_time_formats.py",
            "tests/plugins/importers/test_readers.py",
-           "tests/plugins/importers/test_plain_numbers.py"]
+           "tests/plugins/importers/test_plain_numbers.py", "tests/plugins/importers/test_plain_numbers_route.py"]
 #: the default rate method (model-choice) and the shared checks, with their helpers' field tests
 HELPERS = "tests/plugins/rates/test_rate_helper_fields.py"
 #: both sides of the rate kernels' decisions (lag-decay, decay pre-screen, early lag, curves' figures)
