@@ -59,7 +59,7 @@ RATES = ["tests/plugins/rates/test_rate_fields.py", "tests/plugins/rates/test_la
 CONVERT = ["tests/plugins/convert", "tests/plugins/test_builtin_stages.py"]
 READERS = ["tests/plugins/importers/test_cell_values.py", "tests/plugins/importers/test_time_formats.py",
            "tests/plugins/importers/test_readers.py",
-           "tests/plugins/importers/test_plain_numbers.py"]
+           "tests/plugins/importers/test_plain_numbers.py", "tests/plugins/importers/test_plain_numbers_route.py"]
 #: the default rate method (model-choice) and the shared checks, with their helpers' field tests
 HELPERS = "tests/plugins/rates/test_rate_helper_fields.py"
 #: both sides of the rate kernels' decisions (lag-decay, decay pre-screen, early lag, curves' figures)
@@ -101,22 +101,29 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/rates/progress.py": ((), [*RATES, "tests/plugins/rates/test_power_order_bounds.py",
                                        "tests/plugins/rates/test_progress_fields.py",
                                        "tests/plugins/rates/test_progress_bounded_se.py",
-                                       "tests/plugins/rates/test_open_survivors.py", ELEVENTH_RATES]),
+                                       "tests/plugins/rates/test_open_survivors.py", ELEVENTH_RATES,
+                                       "tests/plugins/rates/test_progress_late_first_read.py",
+                                       "tests/plugins/rates/test_power_conversion_switch.py"]),
     "plugins/rates/shapegrid.py": ((), ["tests/plugins/rates/test_shapegrid.py"]),
-    "plugins/rates/lagdecay.py": ((), [*RATES, SIDES, "tests/plugins/rates/test_threshold_equality.py"]),
+    "plugins/rates/lagdecay.py": ((), [*RATES, SIDES, "tests/plugins/rates/test_threshold_equality.py",
+                                       "tests/plugins/rates/test_lag_short_plates.py"]),
     "plugins/rates/choice.py": ((), [*CHOICE, ELEVENTH_RATES]),
     "plugins/rates/hillcurve.py": ((), [HELPERS, "tests/plugins/rates/test_hillcurve.py",
                                         "tests/plugins/rates/test_curve_jacobian_shape.py", ELEVENTH_RATES]),
     "plugins/rates/sicurve.py": ((), ["tests/plugins/rates/test_sicurve.py", *CHOICE[1:3],
-                                      "tests/plugins/rates/test_curve_jacobian_shape.py", SIDES]),
+                                      "tests/plugins/rates/test_curve_jacobian_shape.py", SIDES,
+                                      "tests/plugins/rates/test_si_se_scatter.py"]),
     "plugins/rates/poolshape.py": ((), ["tests/plugins/rates/test_poolshape.py", SIDES,
-                                        "tests/plugins/rates/test_pool_take_sides.py"]),
+                                        "tests/plugins/rates/test_pool_take_sides.py",
+                                        "tests/plugins/rates/test_pool_start_weights.py",
+                                        "tests/plugins/rates/test_pool_shape_range.py"]),
     "plugins/rates/spikes.py": ((), [HELPERS, "tests/plugins/rates/test_choice_fields.py", ELEVENTH_RATES]),
     "plugins/rates/checks.py": ((), [HELPERS, "tests/plugins/rates/test_disagrees.py",
                                      "tests/plugins/rates/test_imprecise.py",
                                      "tests/plugins/rates/test_short_lag_and_decay.py",
                                      "tests/plugins/rates/test_lag_clock.py",
-                                     "tests/plugins/rates/test_check_thresholds.py", SIDES]),
+                                     "tests/plugins/rates/test_check_thresholds.py", SIDES,
+                                     "tests/plugins/rates/test_disagrees_equality.py"]),
     "plugins/rates/lagfit.py": ((), [HELPERS, "tests/plugins/rates/test_lag_clock.py",
                                      "tests/plugins/rates/test_plate_clock_rules.py",
                                      "tests/plugins/rates/test_lag_clock_se.py",

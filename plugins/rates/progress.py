@@ -782,7 +782,10 @@ def progress_curve(
     first_half = ww * (np.arange(t.size) < max(t.size // 2, min_points))[None, :]
     span = t[-1] - t[0]
     q = start_quadratic((t - t[0]) / span, yy, first_half)
-    v_init = np.fmax(d * q[:, 1] / span, 1e-6 * np.abs(sc.change[todo]) / span)
+    # the floor (where the early quadratic's slope is tiny or has the wrong sign, e.g. the first reads are
+    # missing) is a thousandth of the mean rate: ln v0's bounds (start +- 12) then run from 6e-9 to 160
+    # times the mean rate, which holds the initial rate of any curve that slows down (at least the mean)
+    v_init = np.fmax(d * q[:, 1] / span, 1e-3 * np.abs(sc.change[todo]) / span)
     base0 = q[:, 0]
     c_init = -2.0 * d * q[:, 2] / span**2 / v_init**2  # -(dv/dP)/v0 at the start, 1/signal
     c_floor = 1e-3 / np.abs(sc.change[todo])
