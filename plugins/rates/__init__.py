@@ -207,9 +207,8 @@ class ModelChoiceRates(KernelRates):
     #: `pool_shape`); step 8's shared lag and decay constant per such pool, no longer per plate; without s0,
     #: curve SEs from `progress` 1.2's profile over the shape. 1.4: without s0, curve SEs from `progress` 1.3
     #: and a fallback quadratic's SE scaled up to the rejected curve's residual RMS; v0 unchanged. 1.5: with
-    #: s0, the Michaelis–Menten curve's SE allows for the curvature's bounds as `progress` 1.4's does (it was the
-    #: unbounded SE, 1.4-1.5x the scatter far from completion), and a quadratic kept because neither curve fits
-    #: within lof_ratio gets its SE scaled as without s0; v0 unchanged
+    #: s0, a quadratic kept because neither curve fits within lof_ratio gets its SE scaled as without s0, and
+    #: the curves' start-rate floor of `progress` 1.4 (curves whose first reads are missing are fitted)
     method, version = "model-choice", "1.5"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
@@ -284,7 +283,9 @@ class ProgressRates(KernelRates):
 
     #: 1.1: bounded-curvature SE, IMPRECISE, DISAGREES at 3 SE; 1.2: the signal-unit SE from a profile over the shape
     #: 1.3: that SE times the measured factor at how clearly the curve bends (shapegrid.BEND_KNOTS); v0 unchanged
-    #: 1.4: with S0 the bounded-curvature SE only where the unbounded one is within the NOISY limit; v0 unchanged
+    #: 1.4: start-rate floor 1e-3 of the mean rate (was 1e-6: fits failed when the first reads were missing);
+    #: with S0 the bounded-curvature SE only where it is within the NOISY limit and u's free optimum within
+    #: 2 SE of its bounds
     method, version = "progress", "1.4"
     summary = "integrated Michaelis–Menten fit of the whole curve (Lambert W); v0 at S0"
     function = "vzero.plugins.rates.progress:progress_curve"

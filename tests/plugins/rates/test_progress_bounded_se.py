@@ -128,8 +128,16 @@ def test_se_follows_the_scatter_far_from_completion() -> None:
     assert abs(np.mean(z)) < 0.3  # no bias beyond a third of a standard error
 
 
-@pytest.mark.parametrize("quick", [False, True])
-def test_bounded_se_only_where_the_rate_is_resolved(monkeypatch: pytest.MonkeyPatch, quick: bool) -> None:
+def _low_signal_plate() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Times (s), S0 (mM) and reads of five wells, Km 0.5 mM, total signal change 0.017-6.8 AU at read noise
+    0.003 (integrated by solve_ivp)."""
+    t = np.arange(90) * 10.0
+    s0 = np.array([0.005, 0.01, 0.02, 0.5, 2.0])
+    y = simulate_plate(t, s0, 0.5, 9e-4, signal_per_conc=3.4, baseline=0.05, noise=0.003, seed=4).signal
+    return t, s0, y
+
+
+def test_bounded_se_only_where_the_rate_is_resolved(monkeypatch: pytest.MonkeyPatch) -> None:
     # The bound's correction rests on the linear approximation; where even the corrected SE of v0 exceeds the
     # NOISY limit (a tenth of v0) it is not applied, and the larger, unbounded SE is kept (docs/rates.md: on
     # the low-signal plate's lowest substrates the bounded SE was 0.43x the scatter). Two runs: once with the
@@ -137,14 +145,12 @@ def test_bounded_se_only_where_the_rate_is_resolved(monkeypatch: pytest.MonkeyPa
     # second must report half the unbounded SE exactly where that half is within a tenth of v0.
     from vzero.plugins.rates import progress
 
-    t = np.arange(90) * 10.0
-    s0 = np.array([0.005, 0.01, 0.02, 0.5, 2.0])  # mM; total signal change 0.017-6.8 AU at read noise 0.003
-    y = simulate_plate(t, s0, 0.5, 9e-4, signal_per_conc=3.4, baseline=0.05, noise=0.003, seed=4).signal
+    t, s0, y = _low_signal_plate()
     runs = {}
     for name, share in (("unbounded", 1.0), ("half", 0.25)):
         monkeypatch.setattr(progress, "bounded_ln_v0_var",
                             lambda cov, u_hat, u_free, share=share: share * cov[:, 1, 1])
-        runs[name] = progress_curve(t, y, s0=s0, signal_per_conc=3.4, quick=quick)
+        runs[name] = progress_curve(t, y, s0=s0, signal_per_conc=3.4)
     se_u, se_h = runs["unbounded"].stderr, runs["half"].stderr
     resolved = 0.5 * se_u <= 0.1 * np.abs(runs["unbounded"].v0)
     np.testing.assert_allclose(se_h[resolved], 0.5 * se_u[resolved], rtol=1e-12)
@@ -152,3 +158,34 @@ def test_bounded_se_only_where_the_rate_is_resolved(monkeypatch: pytest.MonkeyPa
     # both sides are in this plate, and a well whose unbounded SE is beyond the limit but whose corrected one
     # is within it (the rule judges the corrected SE): the lowest substrate beyond, the next ones within
     np.testing.assert_array_equal(resolved, [False, True, True, True, True])
+    # model-choice's quick fits keep the unbounded SE (docs/rates.md says why)
+    quick = progress_curve(t, y, s0=s0, signal_per_conc=3.4, quick=True)
+    monkeypatch.setattr(progress, "bounded_ln_v0_var", lambda cov, u_hat, u_free: np.zeros(cov.shape[0]))
+    np.testing.assert_array_equal(progress_curve(t, y, s0=s0, signal_per_conc=3.4, quick=True).stderr, quick.stderr)
+
+
+@pytest.mark.parametrize(("past", "kept"), [(1.9, True), (2.1, False)])
+def test_bounded_se_not_where_the_free_curvature_lies_far_past_a_bound(monkeypatch: pytest.MonkeyPatch,
+                                                                      past: float, kept: bool) -> None:
+    # A free optimum of u more than PAST_BOUND_Z = 2 of its SEs past a bound means the curve asks for a shape
+    # Michaelis–Menten cannot take (a rate falling faster than first order, as a cooperative enzyme's): the
+    # bound is then the model's limit, and the unbounded SE is kept. The free optimum is set by hand at
+    # 1 + past * sd_u (sd_u read from the covariance the fit hands over) on the resolved wells.
+    from vzero.plugins.rates import progress
+
+    t, s0, y = _low_signal_plate()
+    seen: dict[str, np.ndarray] = {}
+
+    def half(cov: np.ndarray, u_hat: np.ndarray, u_free: np.ndarray) -> np.ndarray:
+        seen["sd_u"] = np.sqrt(cov[:, 2, 2])
+        return 0.25 * cov[:, 1, 1]
+
+    monkeypatch.setattr(progress, "bounded_ln_v0_var", half)
+    first = progress_curve(t, y, s0=s0, signal_per_conc=3.4)  # the free optimum as the fit finds it
+    monkeypatch.setattr(progress, "free_curvature", lambda *a: 1.0 + past * seen["sd_u"])
+    moved = progress_curve(t, y, s0=s0, signal_per_conc=3.4)
+    monkeypatch.setattr(progress, "bounded_ln_v0_var", lambda cov, u_hat, u_free: cov[:, 1, 1].copy())
+    unbounded = progress_curve(t, y, s0=s0, signal_per_conc=3.4).stderr
+    resolved = slice(1, None)  # wells 1-4 (test above)
+    np.testing.assert_allclose(first.stderr[resolved], 0.5 * unbounded[resolved], rtol=1e-12)
+    np.testing.assert_allclose(moved.stderr[resolved], (0.5 if kept else 1.0) * unbounded[resolved], rtol=1e-12)

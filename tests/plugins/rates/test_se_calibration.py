@@ -120,7 +120,7 @@ CASES = [
     ("progress", "near-linear"),
     ("progress", "curving"),
     ("progress", "barely-curving"),
-    pytest.param("progress", "early-curving", marks=_miss("SE ratio 1.01 but coverage 0.985: v0's error is "
+    pytest.param("progress", "early-curving", marks=_miss("SE ratio 1.01 but coverage 0.986: v0's error is "
                                                           "light-tailed when the curvature is bounded on both "
                                                           "sides")),
     ("progress", "mid-substrate"),
@@ -139,12 +139,13 @@ CASES = [
     ("model-choice", "near-linear"),
     ("model-choice", "curving"),
     ("model-choice", "inactivating"),
-    # with S0, far from completion: its Michaelis–Menten fits' SE allows for the curvature's bounds as
-    # `progress`'s does (before, SE ratio 1.50 on barely-curving and 1.44 on saturating-2pct)
-    ("model-choice", "barely-curving"),
+    # with S0, far from completion: its quick Michaelis–Menten fits keep the unbounded SE (docs/rates.md: the
+    # bounded one calibrates these conditions, 1.06 and 1.16, but cut the SE threefold on cooperative wells
+    # whose Michaelis–Menten rate runs 18 % low, and moved the demo's h from 2.50 to 2.56)
+    pytest.param("model-choice", "barely-curving", marks=_miss("SE conservative: SE ratio 1.55, coverage 0.970")),
     ("model-choice", "early-curving"),
     ("model-choice", "mid-substrate"),
-    ("model-choice", "saturating-2pct"),
+    pytest.param("model-choice", "saturating-2pct", marks=_miss("SE conservative: SE ratio 1.50, coverage 0.962")),
     pytest.param("model-choice-signal", "near-linear", marks=_miss("SE ratio 1.17 but coverage 0.978")),
     ("model-choice-signal", "curving"),
     pytest.param("model-choice-signal", "barely-curving", marks=_miss("SE conservative: SE ratio 1.39, coverage "
