@@ -271,3 +271,31 @@ def test_bend_factor_leaves_a_clearly_curving_well_alone(monkeypatch: pytest.Mon
     np.testing.assert_array_equal(calibrated.stderr[:6], plain.stderr[:6])
     np.testing.assert_allclose(calibrated.stderr[6:] / plain.stderr[6:], bend_factor(z[6:]), rtol=1e-12)
     assert np.all(calibrated.stderr[6:] < plain.stderr[6:])
+
+
+def test_bounded_curvature_near_completion_by_truncated_normal() -> None:
+    # reference as above, on a curve that nearly completes at its shape (x = aP about 0.9 at the last read), so
+    # that the curvature's upper bound (1 - r)/P_last (the whole apparent amplitude converted by the last
+    # read; the documented range of shape_profile) cuts into its likelihood: the variance from
+    # scipy.stats.truncnorm on [0, (1 - r)/P_last] with the bounded optimum and Jacobian of least_squares
+    from scipy.stats import truncnorm
+
+    r = 0.5
+    y = _curve(2e-3, 1.0, r, 0.02, 12, n=12)
+    tb = T.reshape(20, 3).mean(axis=1)
+    yb = y.reshape(12, 20, 3).mean(axis=2)
+    model = fixed_shape_model(tb, np.ones(1), np.array([r]))
+    start = np.column_stack([np.full(12, 0.05), np.full(12, np.log(2e-3)), np.zeros(12), np.zeros(12)])
+    prof = shape_profile(T, y, np.ones_like(y), np.ones(12), start, np.full(12, 0.02**2), grid=(r,))
+    for i in range(12):
+        def resid(p: np.ndarray, i: int = i) -> np.ndarray:
+            return np.sqrt(3.0) * (model(p[None, :], np.array([0]))[0][0] - yb[i])
+        fit = least_squares(resid, [0.05, np.log(2e-3), 1.0], bounds=([-1, -20, 0], [1, 0, np.inf]),
+                            xtol=1e-14, ftol=1e-14, gtol=1e-14)
+        cov = np.linalg.inv(fit.jac.T @ fit.jac) * 0.02**2
+        b, sd = cov[1, 2] / cov[2, 2], np.sqrt(cov[2, 2])
+        p_last = model(fit.x[None, :], np.array([0]))[0][0][-1] - fit.x[0]
+        c_max = (1 - r) / p_last
+        dist = truncnorm(-fit.x[2] / sd, (c_max - fit.x[2]) / sd, loc=fit.x[2], scale=sd)
+        expected = cov[1, 1] - cov[1, 2] * b + b * b * (dist.var() + (dist.mean() - fit.x[2]) ** 2)
+        assert prof["var"][i, 0] == pytest.approx(expected, rel=0.03)
