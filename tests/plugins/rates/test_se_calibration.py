@@ -141,7 +141,7 @@ CASES = [
     ("model-choice", "inactivating"),
     # with S0, far from completion: its quick Michaelis–Menten fits keep the unbounded SE (docs/rates.md: the
     # bounded one calibrates these conditions, 1.06 and 1.16, but cut the SE threefold on cooperative wells
-    # whose Michaelis–Menten rate runs 18 % low, and moved the demo's h from 2.50 to 2.56)
+    # whose Michaelis–Menten rate runs 18 % low, and moved the demo's h from 2.49 to 2.56)
     pytest.param("model-choice", "barely-curving", marks=_miss("SE conservative: SE ratio 1.55, coverage 0.970")),
     ("model-choice", "early-curving"),
     ("model-choice", "mid-substrate"),
