@@ -513,7 +513,8 @@ a fact about the enzyme, and :func:`bounded_ln_v0_var`, which takes it as one, i
 unbounded SE is kept (:func:`progress_curve`; on the demo plate's cooperative wells u's free optimum lies up
 to 4.7 SE past 1, where the bounded SE would be 0.4-0.55x the unbounded one, docs/rates.md). The bounded SE is
 used too only where it is within the NOISY limit (a tenth of v0): beyond it the linear approximation behind it
-fails (on the low-signal plate's lowest substrates it was 0.43x the scatter)."""
+fails (measured where `model-choice`'s quick fits were given the bounded SE in a trial: 0.43x the scatter on
+the low-signal plate's lowest substrates)."""
 
 
 def truncated_mse(u_free: np.ndarray, sd: np.ndarray, u_hat: np.ndarray) -> np.ndarray:
@@ -735,7 +736,7 @@ def progress_curve(
     curve's free optimum of u lies within :data:`PAST_BOUND_Z` SE of its bounds, else the larger SE is
     kept): SE 1.00-1.19x the scatter and 95 % intervals holding the truth 94-97 % of the time on curves far
     from completion (2000 wells per condition), except
-    S0 = Km with 12 % converted (98.5 %; docs/rates.md). Without S0 the standard error comes from a profile
+    S0 = Km with 12 % converted (98.6 %; docs/rates.md). Without S0 the standard error comes from a profile
     over the curve's shape (:mod:`vzero.plugins.rates.shapegrid`: fits at five fixed shapes mixed by their
     likelihood; :func:`signal_ln_v0_var` only where none converges), times an empirical factor at how clearly
     the curve bends (:data:`vzero.plugins.rates.shapegrid.BEND_KNOTS`, measured on simulated wells by
