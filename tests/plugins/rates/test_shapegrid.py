@@ -165,14 +165,35 @@ def test_mixture_by_hand() -> None:
     assert np.isnan(mixed_ln_v0_var(prof, np.array([-7.0]), np.array([0.5]))[0])
 
 
+def _bounded_reference(model: object, yb: np.ndarray, p0: list[float], noise: float,
+                       r: float) -> tuple[float, float, float, float]:
+    """Reference for the bounded curvature at one fixed shape ``r``, from scipy alone: the bounded optimum and
+    Jacobian of ``least_squares`` (block means of 3 reads, so residuals weighted by sqrt 3), the optimum without
+    bounds one Gauss-Newton step from there (``numpy.linalg.lstsq``), and the variance of ln v0 as the part with
+    c1 held plus b² E[(C - c1_hat)²], C normal about that optimum truncated to [0, (1 - r)/P_last]
+    (``scipy.stats.truncnorm``). Returns the fitted c1, that variance, the bend statistic c_free/sd and the
+    unbounded variance of ln v0."""
+    from scipy.stats import truncnorm
+
+    def resid(p: np.ndarray) -> np.ndarray:
+        return np.sqrt(3.0) * (model(p[None, :], np.array([0]))[0][0] - yb)  # type: ignore[operator]
+
+    fit = least_squares(resid, p0, bounds=([-1, -20, 0], [1, 0, np.inf]), xtol=1e-14, ftol=1e-14, gtol=1e-14)
+    c_free = fit.x[2] - np.linalg.lstsq(fit.jac, fit.fun, rcond=None)[0][2]
+    cov = np.linalg.inv(fit.jac.T @ fit.jac) * noise**2
+    b, sd = cov[1, 2] / cov[2, 2], np.sqrt(cov[2, 2])
+    p_last = model(fit.x[None, :], np.array([0]))[0][0][-1] - fit.x[0]  # type: ignore[operator]
+    dist = truncnorm(-c_free / sd, ((1 - r) / p_last - c_free) / sd, loc=c_free, scale=sd)
+    var = cov[1, 1] - cov[1, 2] * b + b * b * (dist.var() + (dist.mean() - fit.x[2]) ** 2)
+    return float(fit.x[2]), float(var), float(c_free / sd), float(cov[1, 1])
+
+
 def test_bounded_curvature_by_truncated_normal() -> None:
     # reference: on a straight line (true curvature 0) at one fixed shape, the variance of ln v0 is the part
     # with c1 held plus b² E[(C - c1_hat)²], C the normal likelihood of c1 about its optimum without bounds
     # truncated to [0, (1 - r)/P_last] (scipy.stats.truncnorm). The bounded optimum and its Jacobian from
     # scipy.optimize.least_squares; the optimum without bounds in the linear approximation, a Gauss-Newton
     # step from there (numpy.linalg.lstsq), since the model holds c1 at 0 below its bound
-    from scipy.stats import truncnorm
-
     r = 0.5
     y = _curve(2e-3, 0.0, r, 0.002, 11, n=40)
     tb = T.reshape(20, 3).mean(axis=1)
@@ -182,23 +203,13 @@ def test_bounded_curvature_by_truncated_normal() -> None:
     prof = shape_profile(T, y, np.ones_like(y), np.ones(40), start, np.full(40, 0.002**2), grid=(r,))
     shorter = []
     for i in range(40):
-        def resid(p: np.ndarray, i: int = i) -> np.ndarray:
-            return np.sqrt(3.0) * (model(p[None, :], np.array([0]))[0][0] - yb[i])
-        fit = least_squares(resid, [0.05, np.log(2e-3), 0.05], bounds=([-1, -20, 0], [1, 0, np.inf]),
-                            xtol=1e-14, ftol=1e-14, gtol=1e-14)
-        if fit.x[2] > 1e-6:  # the bound is not active on this well
+        c_hat, expected, z, unbounded = _bounded_reference(model, yb[i], [0.05, np.log(2e-3), 0.05], 0.002, r)
+        if c_hat > 1e-6:  # the bound is not active on this well
             continue
-        c_free = fit.x[2] - np.linalg.lstsq(fit.jac, fit.fun, rcond=None)[0][2]
-        cov = np.linalg.inv(fit.jac.T @ fit.jac) * 0.002**2
-        b = cov[1, 2] / cov[2, 2]
-        sd = np.sqrt(cov[2, 2])
-        p_last = model(fit.x[None, :], np.array([0]))[0][0][-1] - fit.x[0]
-        dist = truncnorm(-c_free / sd, ((1 - r) / p_last - c_free) / sd, loc=c_free, scale=sd)
-        expected = cov[1, 1] - cov[1, 2] * b + b * b * (dist.var() + (dist.mean() - fit.x[2]) ** 2)
         assert prof["var"][i, 0] == pytest.approx(expected, rel=0.02)
         # the bend statistic: the optimum without bounds over its standard error, from the same reference
-        assert prof["bend"][i, 0] == pytest.approx(c_free / sd, rel=0.02, abs=0.02)
-        shorter.append(prof["var"][i, 0] / cov[1, 1])
+        assert prof["bend"][i, 0] == pytest.approx(z, rel=0.02, abs=0.02)
+        shorter.append(prof["var"][i, 0] / unbounded)
     assert len(shorter) >= 8  # about half the wells of a straight line end on the bound
     assert np.mean(shorter) < 0.9  # and there the bound does shorten the error bar
 
@@ -278,8 +289,6 @@ def test_bounded_curvature_near_completion_by_truncated_normal() -> None:
     # that the curvature's upper bound (1 - r)/P_last (the whole apparent amplitude converted by the last
     # read; the documented range of shape_profile) cuts into its likelihood: the variance from
     # scipy.stats.truncnorm on [0, (1 - r)/P_last] with the bounded optimum and Jacobian of least_squares
-    from scipy.stats import truncnorm
-
     r = 0.5
     y = _curve(2e-3, 1.0, r, 0.02, 12, n=12)
     tb = T.reshape(20, 3).mean(axis=1)
@@ -288,14 +297,5 @@ def test_bounded_curvature_near_completion_by_truncated_normal() -> None:
     start = np.column_stack([np.full(12, 0.05), np.full(12, np.log(2e-3)), np.zeros(12), np.zeros(12)])
     prof = shape_profile(T, y, np.ones_like(y), np.ones(12), start, np.full(12, 0.02**2), grid=(r,))
     for i in range(12):
-        def resid(p: np.ndarray, i: int = i) -> np.ndarray:
-            return np.sqrt(3.0) * (model(p[None, :], np.array([0]))[0][0] - yb[i])
-        fit = least_squares(resid, [0.05, np.log(2e-3), 1.0], bounds=([-1, -20, 0], [1, 0, np.inf]),
-                            xtol=1e-14, ftol=1e-14, gtol=1e-14)
-        cov = np.linalg.inv(fit.jac.T @ fit.jac) * 0.02**2
-        b, sd = cov[1, 2] / cov[2, 2], np.sqrt(cov[2, 2])
-        p_last = model(fit.x[None, :], np.array([0]))[0][0][-1] - fit.x[0]
-        c_max = (1 - r) / p_last
-        dist = truncnorm(-fit.x[2] / sd, (c_max - fit.x[2]) / sd, loc=fit.x[2], scale=sd)
-        expected = cov[1, 1] - cov[1, 2] * b + b * b * (dist.var() + (dist.mean() - fit.x[2]) ** 2)
+        _, expected, _, _ = _bounded_reference(model, yb[i], [0.05, np.log(2e-3), 1.0], 0.02, r)
         assert prof["var"][i, 0] == pytest.approx(expected, rel=0.03)
