@@ -208,8 +208,10 @@ class ModelChoiceRates(KernelRates):
     #: curve SEs from `progress` 1.2's profile over the shape. 1.4: without s0, curve SEs from `progress` 1.3
     #: and a fallback quadratic's SE scaled up to the rejected curve's residual RMS; v0 unchanged. 1.5: with
     #: s0, a quadratic kept because neither curve fits within lof_ratio gets its SE scaled as without s0, and
-    #: the curves' start-rate floor of `progress` 1.4 (curves whose first reads are missing are fitted)
-    method, version = "model-choice", "1.5"
+    #: the curves' start-rate floor of `progress` 1.4 (curves whose first reads are missing are fitted).
+    #: 1.6: step 9 also tries the Hill shape where the pool's own rates show cooperativity (no well need keep
+    #: the Hill curve alone; poolshape.RATES_HILL_Z)
+    method, version = "model-choice", "1.6"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
                "within the noise, else early quadratic; spikes masked")

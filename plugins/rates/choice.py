@@ -42,10 +42,12 @@ Per well, all wells at once:
    with fully active enzyme at t = 0 and ``lag_s`` the fitted lag time; the decay constant is shared, and
    the lag carried to wells whose lag the detector missed, within a pool of wells (``pool_groups`` below;
    :func:`_lag_clock_step`) (without s0 and signal_per_conc: :func:`vzero.plugins.rates.lagdecay.lag_decay`);
-9. where at least one well kept the Hill (step 6b/6c) or the substrate-inhibition curve (6e), one shape is
-   fitted for each pool of wells (one ``h`` and ``K0.5``, or one ``Km`` and ``Ki``; per well a baseline and v0)
-   and given to the wells it describes (:func:`_pool_hook`, :mod:`vzero.plugins.rates.poolshape`; codes 6
-   and 7): one enzyme has one rate law. ``pool_shape=False`` turns the step off.
+9. where at least one well kept the Hill (step 6b/6c) or the substrate-inhibition curve (6e), or the pool's
+   own rates show cooperativity (a Hill law fitted to them puts ``h`` 3 SE above 1:
+   :func:`vzero.plugins.rates.poolshape.rates_hill_z`), one shape is fitted for each pool of wells (one
+   ``h`` and ``K0.5``, or one ``Km`` and ``Ki``; per well a baseline and v0) and given to the wells it
+   describes (:func:`_pool_hook`, :mod:`vzero.plugins.rates.poolshape`; codes 6 and 7): one enzyme has one
+   rate law. ``pool_shape=False`` turns the step off.
 
 ``pool_groups`` (an integer per well; negative: the well is in no pool of step 9) says which wells hold the
 same enzyme at the same inhibitor level: the rates stage passes the layout's sample wells numbered by
@@ -629,8 +631,9 @@ def _lag_clock_step(t: np.ndarray, y: np.ndarray, s0_all: np.ndarray, spc: float
 def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_all: np.ndarray, spc: float,
                flags: np.ndarray, out: _Estimates, first: np.ndarray, groups: np.ndarray | None, *,
                lof_ratio: float, agree_z: float, min_points: int) -> None:
-    """Step 9: the plate's shape (:func:`vzero.plugins.rates.poolshape.pool_shape`) for the wells that take
-    it (codes 6 Hill, 7 substrate inhibition), one shape per pooling group (``groups``: an integer per well,
+    """Step 9: the plate's shape (:func:`vzero.plugins.rates.poolshape.pool_shape`, which decides whether a
+    group needs one) for the wells that take it (codes 6 Hill, 7 substrate inhibition), one shape per pooling
+    group (``groups``: an integer per well,
     negative for wells never pooled; None: the whole plate is one group); wells flagged LAG or DECAY are left
     out. In place."""
     from vzero.plugins.rates.poolshape import pool_shape
@@ -639,7 +642,7 @@ def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_a
     code = np.where((flags & int(Flag.LAG | Flag.DECAY)) != 0, np.nan, out.code)
     key = np.zeros(n_w, dtype=np.int64) if groups is None else groups
     code = np.where(key >= 0, code, np.nan)
-    shaped = np.isin(code, (4.0, 5.0))
+    shaped = np.isin(code, (0.0, 1.0, 2.0, 4.0, 5.0))  # the models pool_shape pools (its point 2)
     if not shaped.any():
         return
     with np.errstate(invalid="ignore"):

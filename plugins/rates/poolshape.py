@@ -47,6 +47,17 @@ POOLED_CODES = {"hill": 6.0, "substrate-inhibition": 7.0}
 #: model 4 or 5).
 MIN_EVIDENCE = 1
 
+#: Standard errors by which the Hill coefficient of the pool's own rates (the Hill law fitted to v0 against S0,
+#: :func:`rates_hill_z`) must lie above 1 for the joint Hill fit to be tried without per-well evidence. A
+#: cooperative enzyme's curves at low signal fit a Michaelis–Menten curve within the noise, so no well keeps
+#: the Hill curve alone, while the rates across its substrate levels show the cooperativity plainly (the demo
+#: plate: its Michaelis–Menten v0 ran 2-4 % low below K0.5, docs/rates.md). The joint fit must then still pass
+#: :data:`SHAPE_WALD_Z` on the reads themselves; this gate only decides whether it is tried.
+RATES_HILL_Z = 3.0
+
+#: Least substrate levels for :func:`rates_hill_z` (the Hill law has three parameters).
+RATES_MIN_LEVELS = 4
+
 #: Least number of wells in the joint fit (two shape parameters must be determined by more than one well).
 MIN_WELLS = 3
 
@@ -328,6 +339,46 @@ def _no_pool(n: int) -> PoolChoice:
     return PoolChoice(np.zeros(n, bool), np.nan, nan, nan.copy(), nan.copy(), None)
 
 
+def rates_hill_z(s0: np.ndarray, v0: np.ndarray, se: np.ndarray) -> float:
+    """How many standard errors the Hill coefficient of the wells' own rates lies above 1: the Hill rate law
+    fitted to ``v0`` against ``s0`` (weighted by ``se``, scipy's least_squares on log parameters with the
+    analytic Jacobian), ``ln h`` over its standard error (covariance from the Jacobian, scaled by the reduced
+    chi-square when above 1). 0 where fewer than :data:`RATES_MIN_LEVELS` substrate levels or the fit fails."""
+    from scipy.optimize import least_squares
+
+    v = np.abs(v0)
+    if np.unique(s0).size < RATES_MIN_LEVELS or not np.any(v > 0):
+        return 0.0
+    sig = np.fmax(np.abs(se), 1e-3 * np.max(v))
+    s_mid = float(np.exp(np.mean(np.log(s0))))
+    p0 = np.log([np.max(v) * 1.5, 2.0, s_mid])
+
+    ln_s = np.log(s0)
+
+    def res(lp: np.ndarray) -> np.ndarray:
+        return (_rate_law("hill", s0, np.exp(lp)) - v) / sig
+
+    def jac(lp: np.ndarray) -> np.ndarray:
+        # v = Vmax sigma(r), r = h (ln S - ln K0.5): d/d ln Vmax = v, d/d ln h = Vmax sigma' r, d/d ln K0.5 =
+        # -Vmax sigma' h, with sigma' = sigma (1 - sigma)
+        h = np.exp(lp[1])
+        r = h * (ln_s - lp[2])
+        sg = 1.0 / (1.0 + np.exp(-r))
+        d = np.exp(lp[0]) * sg * (1.0 - sg)
+        return np.stack([np.exp(lp[0]) * sg, d * r, -d * h], axis=1) / sig[:, None]
+
+    try:
+        with np.errstate(all="ignore"):
+            sol = least_squares(res, p0, jac=jac, method="lm", max_nfev=400)
+            dof = max(s0.size - 3, 1)
+            cov = np.linalg.pinv(sol.jac.T @ sol.jac) * max(float(sol.cost * 2.0 / dof), 1.0)
+    except (ValueError, np.linalg.LinAlgError):
+        return 0.0
+    sd = float(np.sqrt(cov[1, 1])) if cov[1, 1] > 0 else np.inf
+    z = float(sol.x[1]) / sd
+    return z if np.isfinite(z) else 0.0
+
+
 def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, spc: float, sigma: np.ndarray,
                code: np.ndarray, v0: np.ndarray, se: np.ndarray, base0: np.ndarray, q_v0: np.ndarray,
                q_se: np.ndarray, *, lof_ratio: float, agree_z: float, min_reads: int,
@@ -340,7 +391,9 @@ def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, 
     ``smooth_misfit`` the statistic of point 4 (:data:`Misfit`).
 
     1. The plate is a candidate for a family when at least :data:`MIN_EVIDENCE` wells kept that family's
-       per-well curve (model 4 Hill, 5 substrate inhibition); otherwise nothing is fitted.
+       per-well curve (model 4 Hill, 5 substrate inhibition), and for Hill also when the pooled wells' own
+       rates show cooperativity (:func:`rates_hill_z` at least :data:`RATES_HILL_Z`); otherwise nothing is
+       fitted.
     2. The wells pooled: substrate known, positive rate, at least ``min_reads`` reads, and a per-well choice
        among the curves and the quadratic (models 0, 1, 2, 4, 5: lag and decay models are left alone); at
        least :data:`MIN_WELLS`.
@@ -355,13 +408,15 @@ def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, 
     """
     n = y.shape[0]
     families = [fam for fam, c in (("hill", 4.0), ("substrate-inhibition", 5.0)) if np.sum(code == c) >= MIN_EVIDENCE]
-    if not families:
-        return _no_pool(n)
     with np.errstate(invalid="ignore", divide="ignore"):
         pool = (np.isfinite(s0) & (s0 > 0) & np.isfinite(v0) & (v0 / spc > 0) & np.isfinite(se)
                 & (valid.sum(axis=1) >= min_reads) & np.isin(code, (0.0, 1.0, 2.0, 4.0, 5.0)) & np.isfinite(base0))
     rows = np.flatnonzero(pool)
     if rows.size < MIN_WELLS:
+        return _no_pool(n)
+    if "hill" not in families and rates_hill_z(s0[rows], v0[rows] / spc, se[rows] / abs(spc)) >= RATES_HILL_Z:
+        families.insert(0, "hill")
+    if not families:
         return _no_pool(n)
     best: PooledShape | None = None
     for fam in families:

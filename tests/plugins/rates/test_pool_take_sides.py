@@ -26,7 +26,8 @@ MIN_EVIDENCE, MIN_WELLS = 1, 3
 
 
 def _call(misfit: np.ndarray, *, lof: float = np.inf, agree: float = np.inf, q_v0: np.ndarray | None = None,
-          code: np.ndarray | None = None, valid: np.ndarray | None = None, min_reads: int = 8) -> Any:
+          code: np.ndarray | None = None, valid: np.ndarray | None = None, min_reads: int = 8,
+          rel_se: float = 0.01) -> Any:
     y, v_true = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 41)
     vmask = np.ones(y.shape, bool) if valid is None else valid
 
@@ -34,7 +35,7 @@ def _call(misfit: np.ndarray, *, lof: float = np.inf, agree: float = np.inf, q_v
         return np.array([misfit[int(np.flatnonzero((y == row).all(axis=1))[0])] for row in yy])
 
     return pool_shape(T, y, vmask, S_HILL, SPC, np.full(N, 0.002), np.full(N, 4.0) if code is None else code,
-                      v_true, 0.01 * v_true, np.full(N, 0.05), v_true if q_v0 is None else q_v0,
+                      v_true, rel_se * v_true, np.full(N, 0.05), v_true if q_v0 is None else q_v0,
                       np.full(N, 1e-6), lof_ratio=lof, agree_z=agree, min_reads=min_reads, smooth_misfit=fixed)
 
 
@@ -71,12 +72,13 @@ def test_which_wells_enter_the_joint_fit() -> None:
 
 
 def test_evidence_and_well_count_thresholds() -> None:
-    # MIN_EVIDENCE wells must have kept the Hill curve (model 4) and MIN_WELLS wells must be pooled
+    # MIN_EVIDENCE wells must have kept the Hill curve (model 4) and MIN_WELLS wells must be pooled; the rates
+    # are given SEs of 10x themselves so that they cannot open the gate on their own (test_pool_rates_gate.py)
     code = np.zeros(N)
     code[:MIN_EVIDENCE] = 4.0
-    assert _call(np.zeros(N), code=code).take.any()
+    assert _call(np.zeros(N), code=code, rel_se=10.0).take.any()
     code[:MIN_EVIDENCE] = 0.0
-    assert _call(np.zeros(N), code=code).fit is None
+    assert _call(np.zeros(N), code=code, rel_se=10.0).fit is None
     code = np.full(N, 3.0)  # only MIN_WELLS wells poolable: still fitted; one fewer: not
     code[:MIN_WELLS] = 4.0
     assert _call(np.zeros(N), code=code).take[:MIN_WELLS].all()
