@@ -633,9 +633,8 @@ def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_a
                lof_ratio: float, agree_z: float, min_points: int) -> None:
     """Step 9: the plate's shape (:func:`vzero.plugins.rates.poolshape.pool_shape`, which decides whether a
     group needs one) for the wells that take it (codes 6 Hill, 7 substrate inhibition), one shape per pooling
-    group (``groups``: an integer per well,
-    negative for wells never pooled; None: the whole plate is one group); wells flagged LAG or DECAY are left
-    out. In place."""
+    group (``groups``: an integer per well, negative for wells never pooled; None: the whole plate is one
+    group); wells flagged LAG or DECAY are left out. In place."""
     from vzero.plugins.rates.poolshape import pool_shape
 
     n_w = y.shape[0]

@@ -352,7 +352,6 @@ def rates_hill_z(s0: np.ndarray, v0: np.ndarray, se: np.ndarray) -> float:
     sig = np.fmax(np.abs(se), 1e-3 * np.max(v))
     s_mid = float(np.exp(np.mean(np.log(s0))))
     p0 = np.log([np.max(v) * 1.5, 2.0, s_mid])
-
     ln_s = np.log(s0)
 
     def res(lp: np.ndarray) -> np.ndarray:

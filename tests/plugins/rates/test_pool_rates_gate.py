@@ -70,7 +70,9 @@ def test_gate_on_both_sides_of_its_threshold() -> None:
     above, below = z1 / (RATES_HILL_Z * 1.01), z1 / (RATES_HILL_Z * 0.99)
     assert rates_hill_z(S_HILL, v, above * v) == pytest.approx(RATES_HILL_Z * 1.01, rel=1e-3)
     tried = _pool(above)
-    assert tried.fit is not None and tried.fit.family == "hill" and tried.take.all()
+    assert tried.fit is not None
+    assert tried.fit.family == "hill"
+    assert tried.take.all()
     assert tried.fit.shape[0] == pytest.approx(HILL["h"], rel=0.05)
     assert _pool(below).fit is None
 
