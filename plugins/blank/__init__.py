@@ -23,12 +23,13 @@ class MeanBlank(BlankMethod):
     it, and its wells fall back to the next matching blanks: same substrate, then the nearest substrate
     level, then every usable blank on the plate (:mod:`vzero.plugins.blank.matching`), with a warning. The
     well columns ``blanks`` (the blank wells used, joined by ``;``) and ``blank_match`` (``matched``, ``same
-    substrate``, ``nearest level``, ``plate``) go on to the rates table. Blank wells are corrected too (they
-    end near zero), which keeps them useful for noise checks.
+    substrate``, ``nearest level``, ``plate``) go on to the rates table, with ``blank_share`` (the share of
+    each corrected trace's read-noise variance that its blank brings, :func:`blank_share`). Blank wells are
+    corrected too (they end near zero), which keeps them useful for noise checks.
     """
 
     method = "mean"
-    version = "1.1"
+    version = "1.2"  # 1.2: the blank_share column
     summary = "subtract the per-read mean of matching blank wells (fallback when a blank has no usable read)"
     params = {
         "match": Param.choice(MATCH_CHOICES, "none", "which blank wells apply to a well"),
@@ -78,8 +79,28 @@ class MeanBlank(BlankMethod):
                      f"({_listed(names[hit])}); {what}")
         # A read where the blank itself is missing cannot be corrected: it becomes missing (the base class
         # masks every read that is not finite).
-        columns = {"blanks": [";".join(names[u]) for u in plan.used], "blank_match": list(level)}
+        columns = {"blanks": [";".join(names[u]) for u in plan.used], "blank_match": list(level),
+                   "blank_share": list(blank_share(y, correction, traces.time))}
         return traces.signal - correction, columns
+
+
+def blank_share(y: Any, correction: Any, time: Any) -> Any:
+    """Per well, the share of the corrected trace's read-noise variance that its blank brings:
+    ``s_c² / (s_w² + s_c²)``, with ``s_w`` the well's own read noise and ``s_c`` that of the correction (the
+    mean of its blank wells), each from second differences of the reads
+    (:func:`vzero.plugins.rates.noise.read_noise`, robust, blind to straight lines). Dimensionless, 0-1;
+    NaN where either noise cannot be estimated (no blank, fewer than 5 reads).
+
+    Wells corrected by the same blank wells share that part of their rates' error: the fit stage widens its
+    uncertainties for it (:mod:`vzero.plugins.fit.shared`)."""
+    import numpy as np
+    from vzero.plugins.rates.noise import read_noise
+
+    own = read_noise(y, time)
+    shared = read_noise(correction, time)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = shared**2 / (own**2 + shared**2)
+    return np.where(np.isfinite(out), out, np.nan)
 
 
 def _listed(names: Any, most: int = 8) -> str:

@@ -20,7 +20,7 @@ from vzero.audit.reader import OLD_PARAMETERS
 from vzero.data import Table
 from vzero.errors import FitError
 from vzero.params import closest
-from vzero.plugins.fit import compare, diagnostics, engine, routes
+from vzero.plugins.fit import compare, diagnostics, engine, routes, shared
 from vzero.plugins.fit.catalog import BY_NAME, Model
 from vzero.plugins.fit.determined import NOT_DETERMINED, settle
 from vzero.stage import StageInput, StageOutput
@@ -291,6 +291,10 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     plate = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
     well = frame["well"].astype(str).to_numpy() if "well" in frame.columns else np.full(len(frame), "")
     no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
+    blank_sets = blank_share = None
+    if cfg["shared_blanks"] and {"blanks", "blank_share"} <= set(frame.columns):
+        blank_sets = shared.blank_sets(plate, frame["blanks"].fillna("").astype(str).to_numpy())
+        blank_share = frame["blank_share"].to_numpy(float)
     group_names = _selected_groups(sorted(set(groups[use])), groups, use, var["inhibitor"], cfg["select"], data.warn)
     skipped: dict[str, list[str]] = {}  # reason -> "model on group" that cannot apply
     conf = float(cfg["confidence"])
@@ -381,6 +385,10 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
         for (g, idx), res in zip(todo, results, strict=True):
             key = (g, model.name)
             xg = {v: xv[v][idx] for v in model.variables}
+            if blank_sets is not None and cfg["weighting"] == "rate-error" and sigmas[key] is not None:
+                res, shared_note = _shared_blanks(model, res, xg, rate[idx], sigmas[key], rate_se[idx],
+                                                  blank_sets[idx], blank_share[idx], conf)
+                extra_notes[key] = "; ".join(filter(None, [extra_notes.get(key, ""), shared_note]))
             if not res.success:
                 data.warn(f"fit: group {g}, {model.name}: did not converge ({res.message})")
             problem = _saturation_problem(model, res, xg["substrate"]) if "substrate" in xg else ""
@@ -397,6 +405,22 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     _note_left_out(output, frame, groups, use, plate, well)
     output.artifacts = routes.with_route(output.artifacts, "rates")
     return output
+
+
+def _shared_blanks(model: Model, res: engine.FitResult, xg: Mapping[str, np.ndarray], y: np.ndarray,
+                   sigma: np.ndarray, se: np.ndarray, sets: np.ndarray, share: np.ndarray,
+                   confidence: float) -> tuple[engine.FitResult, str]:
+    """One group's fit widened for the errors its wells share through common blanks
+    (:func:`vzero.plugins.fit.shared.adjust`): each rate's share of its weighting variance from its blank
+    is ``blank_share · SE² / σ²``. Returns the result and its note ('' where unchanged)."""
+    if not res.errorbars:
+        return res, ""
+    p = list(np.asarray(res.values, float))
+    resid = y - np.broadcast_to(model.evaluate(p, xg), y.shape)
+    jac = np.stack([np.broadcast_to(c, y.shape) for c in model.jacobian(p, xg)], axis=1)
+    with np.errstate(invalid="ignore"):
+        a = np.nan_to_num(share * se**2 / sigma**2, nan=0.0)
+    return shared.adjust(res, jac, resid, sigma, sets, a, confidence)
 
 
 def _selected_groups(names: list[str], groups: np.ndarray, use: np.ndarray, inhibitor: np.ndarray,

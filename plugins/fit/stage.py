@@ -60,8 +60,9 @@ class FitStage(Stage):
     kind = "fit"
     method = "nls"
     #: 1.1: default weighting rate-error (was none); 1.2: imprecise among the default exclusions; 1.3: a
-    #: four-parameter logistic rising with the compound is fitted when a zero-concentration well is present
-    version = "1.3"
+    #: four-parameter logistic rising with the compound is fitted when a zero-concentration well is present;
+    #: 1.4: with rate-error weighting, uncertainties widened for errors wells share through common blanks
+    version = "1.4"
     scope = "pooled"
     summary = ("Nonlinear least squares of rate laws (Michaelis-Menten, Hill, inhibition, ...) on untransformed "
                "initial rates, per group; standard errors, t and profile-likelihood intervals, AICc and F-test "
@@ -86,6 +87,9 @@ class FitStage(Stage):
         "rate_error_share": Param("float", 0.01, "with weighting: rate-error, the share of each rate added (in "
                                   "quadrature) to its standard error: errors the read noise does not show, such as "
                                   "pipetting (0: weights 1/SE²)", low=0.0, high=1.0),
+        "shared_blanks": Param("bool", True, "with weighting: rate-error, widen standard errors and intervals "
+                               "for the error that wells corrected by the same blank wells share (the rates "
+                               "table's blanks and blank_share columns); false: rates taken as independent"),
         "fixed": Param("mapping", {}, "model -> parameter -> value held fixed", check=_numbers_by_model),
         "bounds": Param("mapping", {}, "model -> parameter -> [low, high]", check=_numbers_by_model),
         "start": Param("mapping", {}, "model -> parameter -> start value (default: estimated from the data)",

@@ -11,8 +11,9 @@ from vzero.plugins.kinetics.flags import Flag, names_array
 from vzero.plugins.kinetics.rate_result import RateResult
 
 WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "inhibitor", "blanks", "blank_match",
-                "lot")
-"""Layout columns a rates table carries when the layout has them (``lot``: the well's enzyme lot, optional)."""
+                "blank_share", "lot")
+"""Layout columns a rates table carries when the layout has them (``lot``: the well's enzyme lot, optional;
+``blanks``, ``blank_match`` and ``blank_share`` from the blank stage)."""
 
 
 def saturation_flags(traces: Traces) -> np.ndarray:
@@ -32,7 +33,8 @@ def rates_table(traces: Traces, result: RateResult, method: str, extra_flags: np
     for c in WELL_COLUMNS:
         if c in w.columns:
             values = w[c].to_numpy()
-            cols[c] = values.astype(float) if c in ("substrate", "enzyme", "inhibitor") else values.astype(str)
+            cols[c] = values.astype(float) if c in ("substrate", "enzyme", "inhibitor", "blank_share") \
+                else values.astype(str)
             if c in ("substrate", "enzyme", "inhibitor"):
                 u = traces.well_units.get(c, "")
                 cols[f"{c}_unit"] = np.full(len(w), u, dtype=object)
