@@ -291,10 +291,15 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     plate = frame["plate"].astype(str).to_numpy() if "plate" in frame.columns else np.full(len(frame), "")
     well = frame["well"].astype(str).to_numpy() if "well" in frame.columns else np.full(len(frame), "")
     no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
-    blank_sets = blank_share = None
+    blank_sets = blank_share = shape_pools = shape_load = None
     if cfg["shared_blanks"] and {"blanks", "blank_share"} <= set(frame.columns):
         blank_sets = shared.blank_sets(plate, frame["blanks"].fillna("").astype(str).to_numpy())
         blank_share = frame["blank_share"].to_numpy(float)
+    if cfg["shared_blanks"] and {"shape_pool", "shape_load_1", "shape_load_2"} <= set(frame.columns):
+        shape_pools = shared.shape_pools(plate, frame["shape_pool"].to_numpy(float))
+        shape_load = frame[["shape_load_1", "shape_load_2"]].to_numpy(float)
+        if blank_sets is None:
+            blank_sets, blank_share = np.full(len(frame), -1), np.zeros(len(frame))
     group_names = _selected_groups(sorted(set(groups[use])), groups, use, var["inhibitor"], cfg["select"], data.warn)
     skipped: dict[str, list[str]] = {}  # reason -> "model on group" that cannot apply
     conf = float(cfg["confidence"])
@@ -387,7 +392,9 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
             xg = {v: xv[v][idx] for v in model.variables}
             if blank_sets is not None and cfg["weighting"] == "rate-error" and sigmas[key] is not None:
                 res, shared_note = _shared_blanks(model, res, xg, rate[idx], sigmas[key], rate_se[idx],
-                                                  blank_sets[idx], blank_share[idx], conf)
+                                                  blank_sets[idx], blank_share[idx], conf,
+                                                  None if shape_pools is None else shape_pools[idx],
+                                                  None if shape_load is None else shape_load[idx])
                 extra_notes[key] = "; ".join(filter(None, [extra_notes.get(key, ""), shared_note]))
             if not res.success:
                 data.warn(f"fit: group {g}, {model.name}: did not converge ({res.message})")
@@ -409,18 +416,26 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
 
 def _shared_blanks(model: Model, res: engine.FitResult, xg: Mapping[str, np.ndarray], y: np.ndarray,
                    sigma: np.ndarray, se: np.ndarray, sets: np.ndarray, share: np.ndarray,
-                   confidence: float) -> tuple[engine.FitResult, str]:
-    """One group's fit widened for the errors its wells share through common blanks
-    (:func:`vzero.plugins.fit.shared.adjust`): each rate's share of its weighting variance from its blank
-    is ``blank_share · SE² / σ²``. Returns the result and its note ('' where unchanged)."""
+                   confidence: float, pools: np.ndarray | None = None,
+                   load: np.ndarray | None = None) -> tuple[engine.FitResult, str]:
+    """One group's fit widened for the errors its wells share through common blanks and plate shapes
+    (:func:`vzero.plugins.fit.shared.adjust`): each rate's share of its weighting variance from its blank is
+    ``blank_share · SE_own² / σ²``, ``SE_own²`` its SE² less the shape's part ``(rate · |load|)²``, and its
+    loadings on the shape's factors in units of its σ are ``rate · load / σ``. Returns the result and its
+    note ('' where unchanged)."""
     if not res.errorbars:
         return res, ""
     p = list(np.asarray(res.values, float))
     resid = y - np.broadcast_to(model.evaluate(p, xg), y.shape)
     jac = np.stack([np.broadcast_to(c, y.shape) for c in model.jacobian(p, xg)], axis=1)
+    u = None
+    own = se**2
+    if load is not None:
+        u = np.nan_to_num(y[:, None] * load / sigma[:, None], nan=0.0)
+        own = np.fmax(se**2 - np.sum(np.nan_to_num(y[:, None] * load) ** 2, axis=1), 0.0)
     with np.errstate(invalid="ignore"):
-        a = np.nan_to_num(share * se**2 / sigma**2, nan=0.0)
-    return shared.adjust(res, jac, resid, sigma, sets, a, confidence)
+        a = np.nan_to_num(share * own / sigma**2, nan=0.0)
+    return shared.adjust(res, jac, resid, sigma, sets, a, confidence, pools, u)
 
 
 def _selected_groups(names: list[str], groups: np.ndarray, use: np.ndarray, inhibitor: np.ndarray,

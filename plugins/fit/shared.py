@@ -1,4 +1,4 @@
-"""Errors that wells share through a common blank, and the fit's uncertainties widened for them.
+"""Errors that wells share (through a common blank, or a plate shape), and the fit's uncertainties widened.
 
 The blank stage subtracts, read by read, the mean of a well's matching blank wells. Their read noise then
 enters every well corrected by the same blanks, and the rates of those wells (three replicates at one
@@ -13,6 +13,10 @@ Model of the rates' errors (``rate-error`` weighting, whose σ_i models each rat
 function of the reads, so the blank's share of its variance is the same). Two wells corrected by the same
 blank wells on the same plate have correlation ``sqrt(a_i a_j)``, ``a_i = b_i SE_i²/σ_i²`` (exactly so when
 their rate estimators weight the reads alike, as replicates at one level do; an upper bound otherwise).
+The rates of wells that took one plate shape in the default rates method (``model-choice`` step 9) share
+that shape's error too: the rates table gives each such well its pool (``shape_pool``) and the shape's
+loadings on its ln v0 (``shape_load_1``, ``shape_load_2``), so that two wells of one pool have the extra
+covariance ``rate_i rate_j (load_i · load_j)``, correlation ``u_i · u_j`` with ``u_i = rate_i load_i/σ_i``.
 
 The point estimates stay those of the weighted fit. Their covariance is the sandwich for a weighted fit
 under correlated errors: with the weighted Jacobian ``J`` (rows ``∂f/∂θ / σ_i``), ``A = JᵀJ`` and the
@@ -41,12 +45,32 @@ def blank_sets(plate: np.ndarray, blanks: np.ndarray) -> np.ndarray:
     return np.where(empty, -1, ids)
 
 
-def correlation(sets: np.ndarray, a: np.ndarray) -> np.ndarray:
-    """The rates' correlation matrix: ``sqrt(a_i a_j)`` for two wells of one blank set, 1 on the diagonal,
-    0 elsewhere (``a``: each rate's share of its variance from the blank; NaN counts as 0)."""
+def shape_pools(plate: np.ndarray, pool: np.ndarray) -> np.ndarray:
+    """An integer per well: the same for wells of one plate that took one pool's plate shape
+    (``shape_pool``), -1 for the others (NaN)."""
+    pool = np.asarray(pool, float)
+    key = np.char.add(np.char.add(np.asarray(plate, dtype=str), "\x00"),
+                      np.where(np.isfinite(pool), pool, -1).astype(int).astype(str))
+    _, ids = np.unique(key, return_inverse=True)
+    return np.where(np.isfinite(pool), ids, -1)
+
+
+def correlation(sets: np.ndarray, a: np.ndarray, pools: np.ndarray | None = None,
+                u: np.ndarray | None = None) -> np.ndarray:
+    """The rates' correlation matrix, 1 on the diagonal: ``sqrt(a_i a_j)`` for two wells of one blank set
+    (``a``: each rate's share of its variance from the blank; NaN counts as 0), plus ``u_i · u_j`` for two
+    wells of one shape pool (``pools``, -1 for none; ``u`` [n, k] each rate's loadings on the pool's shared
+    factors, in units of its SD; NaN counts as 0). Each well's shares are capped at 1 in all."""
     a = np.clip(np.nan_to_num(np.asarray(a, float), nan=0.0), 0.0, 1.0)
     same = (sets[:, None] == sets[None, :]) & (sets[:, None] >= 0)
     r = np.where(same, np.sqrt(np.outer(a, a)), 0.0)
+    if pools is not None and u is not None:
+        u = np.nan_to_num(np.asarray(u, float), nan=0.0)
+        s = np.sum(u * u, axis=1)
+        cap = np.where(a + s > 1.0, np.sqrt(np.fmax(1.0 - a, 0.0) / np.fmax(s, 1e-300)), 1.0)
+        u = u * cap[:, None]
+        pooled = (pools[:, None] == pools[None, :]) & (pools[:, None] >= 0)
+        r = r + np.where(pooled, u @ u.T, 0.0)
     np.fill_diagonal(r, 1.0)
     return r
 
@@ -89,24 +113,34 @@ def widen(res: FitResult, factors: Mapping[str, float], cov: np.ndarray, confide
                    note="; ".join(x for x in (res.note, note) if x))
 
 
+def _shared_groups(ids: np.ndarray) -> int:
+    """How many ids (>= 0) occur more than once."""
+    ids = np.asarray(ids)
+    return int(np.sum(np.unique(ids[ids >= 0], return_counts=True)[1] > 1))
+
+
 def adjust(res: FitResult, jac: Sequence[np.ndarray] | np.ndarray, resid: np.ndarray, sigma: np.ndarray,
-           sets: np.ndarray, a: np.ndarray, confidence: float) -> tuple[FitResult, str]:
-    """Widen ``res``'s uncertainties for errors shared through blanks (the module text). ``jac`` [n, p] the
-    model's Jacobian at the estimate (all parameters, unweighted), ``resid`` [n] the unweighted residuals,
-    ``sigma`` [n] the weighting SDs, ``sets`` [n] the blank sets (:func:`blank_sets`), ``a`` [n] each
-    rate's share of its variance from its blank. Returns the result (unchanged where no two of its wells
-    share a blank, or without error bars) and a note naming the factor per free parameter ('' unchanged)."""
+           sets: np.ndarray, a: np.ndarray, confidence: float, pools: np.ndarray | None = None,
+           u: np.ndarray | None = None) -> tuple[FitResult, str]:
+    """Widen ``res``'s uncertainties for errors its rates share (the module text). ``jac`` [n, p] the model's
+    Jacobian at the estimate (all parameters, unweighted), ``resid`` [n] the unweighted residuals, ``sigma``
+    [n] the weighting SDs, ``sets`` [n] the blank sets (:func:`blank_sets`), ``a`` [n] each rate's share of
+    its variance from its blank; ``pools`` and ``u`` the shape pools and loadings of :func:`correlation`.
+    Returns the result (unchanged where no two of its wells share a blank or a pool, or without error bars)
+    and a note naming the factor per free parameter ('' where unchanged)."""
     sets = np.asarray(sets)
-    valid = sets[sets >= 0]
-    if not res.errorbars or valid.size == np.unique(valid).size:
+    n_sets = _shared_groups(sets)
+    n_pools = 0 if pools is None else _shared_groups(pools)
+    if not res.errorbars or n_sets + n_pools == 0:
         return res, ""
     free = np.asarray(res.free, bool)
     jw = (np.asarray(jac, float)[:, free]) / sigma[:, None]
-    cov0, cov = sandwich(jw, np.asarray(resid, float) / sigma, correlation(sets, a))
+    cov0, cov = sandwich(jw, np.asarray(resid, float) / sigma, correlation(sets, a, pools, u))
     names = [n for n, f in zip(res.names, free, strict=True) if f]
     with np.errstate(invalid="ignore", divide="ignore"):
         factors = {n: float(np.sqrt(cov[k, k] / cov0[k, k])) for k, n in enumerate(names)}
     shown = ", ".join(f"{n} ×{f:.2f}" for n, f in factors.items())
-    n_sets = int(np.sum(np.unique(valid, return_counts=True)[1] > 1))
-    note = f"uncertainties include errors shared through common blanks ({n_sets} blank sets; {shown})"
+    through = [w for w, k in ((f"{n_sets} common blank sets", n_sets),
+                              (f"the plate shape of {n_pools} pool(s) of the rates method", n_pools)) if k]
+    note = f"uncertainties include errors the rates share through {' and '.join(through)} ({shown})"
     return widen(res, factors, cov, confidence, note), note

@@ -210,8 +210,9 @@ class ModelChoiceRates(KernelRates):
     #: s0, a quadratic kept because neither curve fits within lof_ratio gets its SE scaled as without s0, and
     #: the curves' start-rate floor of `progress` 1.4 (curves whose first reads are missing are fitted).
     #: 1.6: step 9 also tries the Hill shape where the pool's own rates show cooperativity (no well need keep
-    #: the Hill curve alone; poolshape.RATES_HILL_Z)
-    method, version = "model-choice", "1.6"
+    #: the Hill curve alone; poolshape.RATES_HILL_Z). 1.7: the columns shape_pool, shape_load_1 and
+    #: shape_load_2 (the error wells share through the plate's shape, for the fit); v0 and SE unchanged
+    method, version = "model-choice", "1.7"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
                "within the noise, else early quadratic; spikes masked")

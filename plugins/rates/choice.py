@@ -64,6 +64,10 @@ noise and the curve's residual RMS: a low read-noise estimate, not a misfit, is 
 (0 Michaelis–Menten curve, 1 power-law curve, 2 early quadratic, 3 lag model, 4 Hill curve, 5
 substrate-inhibition curve, 6 Hill curve with the plate's shape, 7 substrate-inhibition curve with the plate's
 shape);
+``extra['shape_pool']`` the pool whose shape a well took (step 9; NaN elsewhere) and ``extra['shape_load_1']``,
+``extra['shape_load_2']`` the shape's share of its ln v0 error as loadings on two independent unit factors
+(the covariance of ln v0 between two wells of one pool through the shape is the dot product of their
+loadings; the fit stage uses them, :mod:`vzero.plugins.fit.shared`);
 ``extra['rate_t']`` is
 v0 over its standard error; ``extra['misfit']`` the smooth misfit statistic of step 6c (read variances, NaN
 where no kept curve was tested). NOISY as for every method (relative SE above 10 %; includes every rate not
@@ -629,12 +633,14 @@ def _lag_clock_step(t: np.ndarray, y: np.ndarray, s0_all: np.ndarray, spc: float
 
 
 def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_all: np.ndarray, spc: float,
-               flags: np.ndarray, out: _Estimates, first: np.ndarray, groups: np.ndarray | None, *,
-               lof_ratio: float, agree_z: float, min_points: int) -> None:
+               flags: np.ndarray, out: _Estimates, first: np.ndarray, groups: np.ndarray | None,
+               shared: dict[str, np.ndarray], *, lof_ratio: float, agree_z: float, min_points: int) -> None:
     """Step 9: the plate's shape (:func:`vzero.plugins.rates.poolshape.pool_shape`, which decides whether a
     group needs one) for the wells that take it (codes 6 Hill, 7 substrate inhibition), one shape per pooling
     group (``groups``: an integer per well, negative for wells never pooled; None: the whole plate is one
-    group); wells flagged LAG or DECAY are left out. In place."""
+    group); wells flagged LAG or DECAY are left out. ``shared`` gets, for the wells that take a shape, their
+    pool (``shape_pool``) and the shape's loadings on their ln v0 (``shape_load_1``, ``shape_load_2``,
+    :attr:`vzero.plugins.rates.poolshape.PooledShape.load`): the error those wells share. In place."""
     from vzero.plugins.rates.poolshape import pool_shape
 
     n_w = y.shape[0]
@@ -658,6 +664,8 @@ def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_a
         if r.size == 0:
             continue
         out.v0[r], out.se[r], out.code[r], out.ratio[r] = pc.v0[r], pc.se[r], pc.code, pc.ratio[r]
+        shared["shape_pool"][r] = float(g)
+        shared["shape_load_1"][r], shared["shape_load_2"][r] = pc.load[r, 0], pc.load[r, 1]
         out.goodness[r] = np.nan
         last = t.size - 1 - np.argmax(sc.valid[r][:, ::-1], axis=1)
         out.w_start[r], out.w_end[r], out.n_pts[r] = t[first[r]], t[last], sc.n_valid[r]
@@ -788,7 +796,9 @@ def model_choice(
     flags = np.asarray(sc.flags, dtype=np.int64) | (fit_flags & ~np.int64(int(Flag.FIT_FAILED | Flag.NOISY)))
     flags[spikes.any(axis=1)] |= int(Flag.SPIKE)
     lag_s = np.where(sc.usable, 0.0, np.nan)
-    extra = {"rmse_over_noise": ratio, "read_noise": sigma, "k_decay": np.full(n_w, np.nan)}
+    extra = {"rmse_over_noise": ratio, "read_noise": sigma, "k_decay": np.full(n_w, np.nan),
+             "shape_pool": np.full(n_w, np.nan), "shape_load_1": np.full(n_w, np.nan),
+             "shape_load_2": np.full(n_w, np.nan)}
     if find_lag:
         # no spike found: the reads are unchanged, and the lag detector's own search would find none either
         _, lag_all, has_lag = detect_lag(t, y, sc, spike_free=not spikes.any())
@@ -811,7 +821,7 @@ def model_choice(
         _decay_model(t, y, s0_all, spc, code, v0, se, flags, extra, w_start, order,
                      lof_ratio=lof_ratio, min_points=min_points)
         if pool_shape:
-            _pool_hook(t, y, sc, q, s0_all, spc, flags, est, first, pool_groups, lof_ratio=lof_ratio,
+            _pool_hook(t, y, sc, q, s0_all, spc, flags, est, first, pool_groups, extra, lof_ratio=lof_ratio,
                        agree_z=agree_z, min_points=min_points)
     failed = sc.usable & ~np.isfinite(v0)
     flags[failed] |= int(Flag.FIT_FAILED)

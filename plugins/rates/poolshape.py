@@ -88,8 +88,10 @@ class PooledShape:
     ``K0.5`` in concentration, or ``Km`` and ``Ki``), ``shape_cov`` the covariance of their logarithms;
     per well: ``v0`` and ``se`` (signal/s, the SE including the shape's uncertainty), ``rss`` (signal²,
     counted reads), ``ratio`` (residual RMS over the read noise, two parameters per well), ``baseline``
-    (signal at t = 0); ``chi2`` the plate's sum of rss over read variances, ``dof`` its degrees of freedom,
-    ``converged``."""
+    (signal at t = 0), ``load`` ``[n, 2]`` (the shape's share of each well's ln v0 error: two loadings on
+    independent unit factors, so that the covariance of ln v0 between wells i and j through the shape is
+    ``load[i] · load[j]``); ``chi2`` the plate's sum of rss over read variances, ``dof`` its degrees of
+    freedom, ``converged``."""
 
     family: str
     shape: np.ndarray
@@ -99,6 +101,7 @@ class PooledShape:
     rss: np.ndarray
     ratio: np.ndarray
     baseline: np.ndarray
+    load: np.ndarray
     chi2: float
     dof: float
     converged: bool
@@ -257,8 +260,12 @@ def fit_pooled(family: str, t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0:
     own = np.fmax(np.nan_to_num(ratio, nan=1.0) ** 2, 1.0)
     var_lv = own * ci[:, 1, 1] + np.einsum("ni,ij,nj->n", ci_b[:, 1], cov_g, ci_b[:, 1])
     v0 = spc * np.exp(lv)
+    # the shape's part of each well's ln v0 error as loadings on two independent unit factors: with
+    # cov_g = V diag(e) V^T, load = -C^-1 B V sqrt(e) (its sign is immaterial: only load_i . load_j is used)
+    e, vec = np.linalg.eigh((cov_g + cov_g.T) / 2.0)
+    load = -ci_b[:, 1] @ (vec * np.sqrt(np.fmax(e, 0.0)))
     return PooledShape(family, np.exp(g), cov_g, v0, np.abs(v0) * np.sqrt(np.abs(var_lv)), rss, ratio, base,
-                       cost, dof, converged and bool(np.all(np.isfinite(lv))))
+                       load, cost, dof, converged and bool(np.all(np.isfinite(lv))))
 
 
 def _rate_law(family: str, s: np.ndarray, p: np.ndarray) -> np.ndarray:
@@ -323,20 +330,22 @@ def pooled_misfit(fit: PooledShape, t: np.ndarray, y: np.ndarray, valid: np.ndar
 class PoolChoice:
     """What :func:`pool_shape` decided: ``take`` (wells ``[n]`` that take the plate's shape), ``code`` the
     model code they get (:data:`POOLED_CODES`), and per well ``v0``, ``se`` (signal/s) and ``ratio`` (NaN
-    outside the joint fit); ``fit`` the joint fit used (None where no plate shape was used)."""
+    outside the joint fit), ``load`` ``[n, 2]`` (:attr:`PooledShape.load`, NaN outside); ``fit`` the joint fit
+    used (None where no plate shape was used)."""
 
     take: np.ndarray
     code: float
     v0: np.ndarray
     se: np.ndarray
     ratio: np.ndarray
+    load: np.ndarray
     fit: PooledShape | None
 
 
 def _no_pool(n: int) -> PoolChoice:
     """Nothing pooled."""
     nan = np.full(n, np.nan)
-    return PoolChoice(np.zeros(n, bool), np.nan, nan, nan.copy(), nan.copy(), None)
+    return PoolChoice(np.zeros(n, bool), np.nan, nan, nan.copy(), nan.copy(), np.full((n, 2), np.nan), None)
 
 
 def rates_hill_z(s0: np.ndarray, v0: np.ndarray, se: np.ndarray) -> float:
@@ -431,10 +440,10 @@ def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, 
     if best is None:
         return _no_pool(n)
     out = _no_pool(n)
-    out.v0[rows], out.se[rows], out.ratio[rows] = best.v0, best.se, best.ratio
+    out.v0[rows], out.se[rows], out.ratio[rows], out.load[rows] = best.v0, best.se, best.ratio, best.load
     misfit = pooled_misfit(best, t, y[rows], valid[rows], s0[rows], spc, sigma[rows], smooth_misfit)
     with np.errstate(invalid="ignore"):
         take = (np.isfinite(best.v0) & np.isfinite(best.se) & (best.ratio <= lof_ratio) & (misfit <= POOL_MISFIT)
                 & (np.abs(best.v0 - q_v0[rows]) <= agree_z * q_se[rows]))
     out.take[rows] = take
-    return PoolChoice(out.take, POOLED_CODES[best.family], out.v0, out.se, out.ratio, best)
+    return PoolChoice(out.take, POOLED_CODES[best.family], out.v0, out.se, out.ratio, out.load, best)

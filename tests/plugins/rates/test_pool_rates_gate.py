@@ -94,3 +94,20 @@ def test_low_signal_cooperative_plate_gets_the_plate_shape_from_its_rates() -> N
     assert pooled >= 4 * 6
     rms_new, rms_old = np.sqrt(np.nanmean(np.square(err_new))), np.sqrt(np.nanmean(np.square(err_old)))
     assert rms_new < 0.9 * rms_old, (rms_new, rms_old)
+
+
+def test_wells_of_the_plate_shape_carry_their_pool_and_the_shapes_loadings() -> None:
+    # the rates table gets, for the wells that took the plate's shape (model 6), their pool and the shape's
+    # loadings on ln v0 (for the fit's shared-error correction); the shape's part of each such well's variance,
+    # (v0 |load|)², lies within its SE²; other wells have neither
+    y, _ = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 41)
+    r = model_choice(T, y, s0=S_HILL, signal_per_conc=SPC)
+    took = r.extra["model"] == 6.0
+    assert took.any()
+    assert np.all(r.extra["shape_pool"][took] == 0.0)
+    assert np.isnan(r.extra["shape_pool"][~took]).all()
+    load = np.stack([r.extra["shape_load_1"], r.extra["shape_load_2"]], axis=1)
+    assert np.isfinite(load[took]).all()
+    assert np.isnan(load[~took]).all()
+    part = (r.v0[took] * np.linalg.norm(load[took], axis=1)) ** 2
+    assert np.all((part > 0) & (part < r.stderr[took] ** 2))

@@ -313,3 +313,19 @@ def test_falling_signal_plate_takes_the_shape_with_the_right_sign() -> None:
     pooled = r.extra["model"] == POOLED_CODES["hill"]
     assert pooled.sum() >= 5
     assert np.all(np.abs(r.v0[pooled] / v_fall[pooled] - 1.0) < 4 * r.stderr[pooled] / np.abs(v_fall[pooled]))
+
+
+def test_shape_loadings_give_the_rates_covariance_through_the_shape() -> None:
+    # reference: the off-diagonal ln v0 blocks of the dense inverse of the full normal matrix at the optimum
+    # (numpy.linalg.inv), i.e. the covariance two wells' ln v0 share through the plate's shape; the read noise
+    # is stated above the reads' scatter so that no variance is scaled (as in the test above)
+    y, v0 = plate(hill_rate, S_HILL, HILL["vmax"], 0.002, 5)
+    sigma = np.full(S_HILL.size, 0.0025)
+    fit = fit_pooled("hill", T, y, np.ones(y.shape, bool), S_HILL, SPC, sigma, np.array([2.0, 0.4]), v0, y[:, 0])
+    f = _hill_eval(T, S_HILL, SPC)
+    _, jl, jg = f(np.log(fit.shape), fit.baseline, np.log(fit.v0 / SPC))
+    cov = np.linalg.inv((lambda a: a.T @ a)(_dense(jl, jg, np.ones(y.shape) / sigma[:, None] ** 2)))
+    ln_v0 = cov[1:2 * S_HILL.size:2, 1:2 * S_HILL.size:2]
+    off = ~np.eye(S_HILL.size, dtype=bool)
+    np.testing.assert_allclose((fit.load @ fit.load.T)[off], ln_v0[off], rtol=1e-6, atol=1e-12)
+    assert fit.load.shape == (S_HILL.size, 2)
