@@ -116,6 +116,21 @@ def pool_groups(plate: PlateView) -> Any:
     return np.where(np.ones(n, dtype=bool) if sample is None else sample, number, -1).astype(np.int64)
 
 
+def blank_sets(plate: PlateView) -> dict[str, Any]:
+    """``blank_sets`` (an integer per signal row, the same for wells corrected by the same blank wells, -1 for
+    wells without a blank) and ``blank_share`` from the blank stage's ``blanks`` and ``blank_share`` columns;
+    empty where the plate has no such columns (no blank step)."""
+    import numpy as np
+
+    wells = plate.wells
+    if "blanks" not in wells.columns or "blank_share" not in wells.columns:
+        return {}
+    text = wells["blanks"].fillna("").astype(str).to_numpy()
+    ids = np.unique(text, return_inverse=True)[1]
+    return {"blank_sets": np.where(np.char.str_len(text.astype(str)) > 0, ids, -1),
+            "blank_share": wells["blank_share"].to_numpy(dtype=float)}
+
+
 class KernelRates(RateMethod):
     """Shared kernel for methods that call a function ``f(time, signal, s0=, signal_per_conc=, **kw)`` named by
     ``function`` (``"module:name"``, imported on first use)."""
@@ -211,7 +226,8 @@ class ModelChoiceRates(KernelRates):
     #: the curves' start-rate floor of `progress` 1.4 (curves whose first reads are missing are fitted).
     #: 1.6: step 9 also tries the Hill shape where the pool's own rates show cooperativity (no well need keep
     #: the Hill curve alone; poolshape.RATES_HILL_Z). 1.7: the columns shape_pool, shape_load_1 and
-    #: shape_load_2 (the error wells share through the plate's shape, for the fit); v0 and SE unchanged
+    #: shape_load_2 (the error wells share through the plate's shape, for the fit), and step 9's shape
+    #: covariance includes the read noise wells share through a common blank (SEs of model 6 and 7 wells)
     method, version = "model-choice", "1.7"
     default = True  # a rates step without 'method' gets this one (measured: docs/rates.md)
     summary = ("per well: whole-curve model (Michaelis–Menten, power law, Hill, substrate inhibition) if it fits "
@@ -235,8 +251,10 @@ class ModelChoiceRates(KernelRates):
     }
 
     def plate_kwargs(self, plate: PlateView) -> dict[str, Any]:
-        """``pool_groups``: the wells that may share one shape (step 9), from the layout (:func:`pool_groups`)."""
-        return {"pool_groups": pool_groups(plate)}
+        """``pool_groups``: the wells that may share one shape (step 9), from the layout (:func:`pool_groups`);
+        ``blank_sets`` and ``blank_share``: which wells share a blank's read noise, from the blank stage's
+        columns (:func:`blank_sets`), for step 9's shape covariance."""
+        return {"pool_groups": pool_groups(plate), **blank_sets(plate)}
 
     def finds_lags(self) -> bool:
         """Wells with a detected lag get the lag model (LAG) unless ``find_lag`` is off."""

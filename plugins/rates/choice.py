@@ -49,6 +49,11 @@ Per well, all wells at once:
    describes (:func:`_pool_hook`, :mod:`vzero.plugins.rates.poolshape`; codes 6 and 7): one enzyme has one
    rate law. ``pool_shape=False`` turns the step off.
 
+``blank_sets`` (an integer per well, the same for wells corrected by the same blank wells, -1 for none) and
+``blank_share`` (the blank's share of each well's read variance) let step 9's shape covariance include the
+read noise that such wells share (:func:`vzero.plugins.rates.poolshape.fit_pooled`); the rates stage passes
+them from the blank stage's ``blanks`` and ``blank_share`` columns.
+
 ``pool_groups`` (an integer per well; negative: the well is in no pool of step 9) says which wells hold the
 same enzyme at the same inhibitor level: the rates stage passes the layout's sample wells numbered by
 ``group`` and ``inhibitor``; without it the whole plate is one pool.
@@ -634,13 +639,15 @@ def _lag_clock_step(t: np.ndarray, y: np.ndarray, s0_all: np.ndarray, spc: float
 
 def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_all: np.ndarray, spc: float,
                flags: np.ndarray, out: _Estimates, first: np.ndarray, groups: np.ndarray | None,
-               shared: dict[str, np.ndarray], *, lof_ratio: float, agree_z: float, min_points: int) -> None:
+               shared: dict[str, np.ndarray], *, lof_ratio: float, agree_z: float, min_points: int,
+               blanks: tuple[np.ndarray, np.ndarray] | None = None) -> None:
     """Step 9: the plate's shape (:func:`vzero.plugins.rates.poolshape.pool_shape`, which decides whether a
     group needs one) for the wells that take it (codes 6 Hill, 7 substrate inhibition), one shape per pooling
     group (``groups``: an integer per well, negative for wells never pooled; None: the whole plate is one
     group); wells flagged LAG or DECAY are left out. ``shared`` gets, for the wells that take a shape, their
     pool (``shape_pool``) and the shape's loadings on their ln v0 (``shape_load_1``, ``shape_load_2``,
-    :attr:`vzero.plugins.rates.poolshape.PooledShape.load`): the error those wells share. In place."""
+    :attr:`vzero.plugins.rates.poolshape.PooledShape.load`): the error those wells share. ``blanks``: the
+    wells' blank sets and blank shares, for the shape's covariance. In place."""
     from vzero.plugins.rates.poolshape import pool_shape
 
     n_w = y.shape[0]
@@ -659,7 +666,9 @@ def _pool_hook(t: np.ndarray, y: np.ndarray, sc: Screen, q: EarlyQuadratic, s0_a
     for g in np.unique(key[shaped]):
         code_g = np.where(key == g, code, np.nan)
         pc = pool_shape(t, y, sc.valid, s0_all, spc, sc.sigma, code_g, out.v0, out.se, base0, q.v0, q.se,
-                        lof_ratio=lof_ratio, agree_z=agree_z, min_reads=min_points, smooth_misfit=smooth_misfit)
+                        lof_ratio=lof_ratio, agree_z=agree_z, min_reads=min_points, smooth_misfit=smooth_misfit,
+                        blank_sets=None if blanks is None else blanks[0],
+                        blank_share=None if blanks is None else blanks[1])
         r = np.flatnonzero(pc.take)
         if r.size == 0:
             continue
@@ -686,6 +695,8 @@ def model_choice(
     find_lag: bool = True,
     pool_shape: bool = True,
     pool_groups: np.ndarray | None = None,
+    blank_sets: np.ndarray | None = None,
+    blank_share: np.ndarray | None = None,
 ) -> RateResult:
     """Initial rate (signal/s) per well by the model the well's own reads support; see the module text."""
     t = np.asarray(time, dtype=float)
@@ -821,8 +832,10 @@ def model_choice(
         _decay_model(t, y, s0_all, spc, code, v0, se, flags, extra, w_start, order,
                      lof_ratio=lof_ratio, min_points=min_points)
         if pool_shape:
+            blanks = None if blank_sets is None or blank_share is None else \
+                (np.asarray(blank_sets), np.asarray(blank_share, float))
             _pool_hook(t, y, sc, q, s0_all, spc, flags, est, first, pool_groups, extra, lof_ratio=lof_ratio,
-                       agree_z=agree_z, min_points=min_points)
+                       agree_z=agree_z, min_points=min_points, blanks=blanks)
     failed = sc.usable & ~np.isfinite(v0)
     flags[failed] |= int(Flag.FIT_FAILED)
     bad = (flags & int(Flag.ALL_MISSING | Flag.TOO_FEW_POINTS | Flag.NO_SIGNAL | Flag.FIT_FAILED)) != 0

@@ -190,13 +190,39 @@ def _bordered_solve(c: np.ndarray, b: np.ndarray, a: np.ndarray, gl: np.ndarray,
     return dg, dl
 
 
+def shared_read_score(u: np.ndarray, sets: np.ndarray, share: np.ndarray) -> np.ndarray:
+    """The part of the shape score's covariance that wells sharing a blank add: ``sum over i != j of one
+    set of sqrt(b_i b_j) u_i u_jᵀ`` (``u`` ``[n, k, n_t]`` each well's shape Jacobian with its own
+    parameters profiled out, divided by its read SD, 0 on reads not counted; ``sets`` ``[n]`` blank sets, -1
+    for none; ``share`` ``[n]`` the blank's share of each well's read variance, NaN as 0). The reads of one
+    set carry the same blank noise, of variance ``sqrt(b_i σ_i² b_j σ_j²)`` between two of its wells."""
+    b = np.sqrt(np.clip(np.nan_to_num(np.asarray(share, float), nan=0.0), 0.0, 1.0))
+    ok = np.asarray(sets) >= 0
+    k = u.shape[1]
+    if not ok.any():
+        return np.zeros((k, k))
+    ids = np.unique(np.asarray(sets)[ok], return_inverse=True)[1]
+    summed = np.zeros((ids.max() + 1, k, u.shape[2]))
+    np.add.at(summed, ids, b[ok, None, None] * u[ok])
+    whole = np.einsum("skt,slt->kl", summed, summed)
+    own = np.einsum("n,nkt,nlt->kl", b[ok] ** 2, u[ok], u[ok])
+    return whole - own
+
+
 def fit_pooled(family: str, t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, spc: float,
                sigma: np.ndarray, shape0: np.ndarray, v0_start: np.ndarray,
-               base_start: np.ndarray) -> PooledShape:
+               base_start: np.ndarray, blank_sets: np.ndarray | None = None,
+               blank_share: np.ndarray | None = None) -> PooledShape:
     """Fit one shape (``family``) jointly to the wells' reads ``y [n, n_t]`` (signal; ``valid`` the reads
     counted, ``sigma [n]`` each well's read noise, ``s0 [n]`` concentration, ``spc`` signal per
     concentration), from the plate shape ``shape0`` (``h, K0.5`` or ``Km, Ki``) and per-well ``v0_start``
-    (signal/s) and ``base_start`` (signal). Returns :class:`PooledShape`."""
+    (signal/s) and ``base_start`` (signal). Returns :class:`PooledShape`.
+
+    ``blank_sets`` / ``blank_share`` (per well: which blank wells corrected it, -1 for none, and the blank's
+    share of its read variance): wells corrected by the same blanks share that part of their read noise,
+    which the least-squares fit takes as independent; the shape's covariance is then the sandwich
+    ``S⁻¹ (S + X) S⁻¹`` (``S`` the profiled normal matrix, ``X`` :func:`shared_read_score`), so that it and
+    the wells' SEs and loadings include the shared part."""
     make = _hill_eval if family == "hill" else _si_eval
     f = make(t, s0, spc)
     w = valid / sigma[:, None] ** 2
@@ -250,6 +276,11 @@ def fit_pooled(family: str, t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0:
     dof = float(n_reads.sum() - 2.0 * s0.size - 2.0)
     scale = max(cost / max(dof, 1.0), 1.0)
     cov_g = np.linalg.pinv(schur) * scale
+    if blank_sets is not None and blank_share is not None:
+        # the shape Jacobian with each well's own parameters profiled out, over its read SD
+        u = (jg - np.einsum("nmt,nmk->nkt", jl, ci @ b)) * np.sqrt(w)[:, None, :]
+        s_inv = np.linalg.pinv(schur)
+        cov_g = s_inv @ (schur + shared_read_score(u, blank_sets, blank_share)) @ s_inv * scale
     rss = np.sum(valid * r * r, axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = np.sqrt(rss / np.fmax(n_reads - 2.0, 1.0)) / sigma
@@ -390,13 +421,15 @@ def rates_hill_z(s0: np.ndarray, v0: np.ndarray, se: np.ndarray) -> float:
 def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, spc: float, sigma: np.ndarray,
                code: np.ndarray, v0: np.ndarray, se: np.ndarray, base0: np.ndarray, q_v0: np.ndarray,
                q_se: np.ndarray, *, lof_ratio: float, agree_z: float, min_reads: int,
-               smooth_misfit: Misfit) -> PoolChoice:
+               smooth_misfit: Misfit, blank_sets: np.ndarray | None = None,
+               blank_share: np.ndarray | None = None) -> PoolChoice:
     """Decide whether the plate's wells share a Hill or substrate-inhibition shape, and which wells take it.
 
     Per well (arrays ``[n]``): reads ``y`` / ``valid``, ``s0`` (concentration; NaN where unknown), read noise
     ``sigma``, the per-well choice so far (model ``code``, ``v0``, ``se`` signal/s, start baseline
     ``base0``), the early quadratic's ``q_v0`` and ``q_se``; ``min_reads`` the least counted reads;
-    ``smooth_misfit`` the statistic of point 4 (:data:`Misfit`).
+    ``smooth_misfit`` the statistic of point 4 (:data:`Misfit`); ``blank_sets`` and ``blank_share`` the
+    wells' blanks, for the shape's covariance (:func:`fit_pooled`).
 
     1. The plate is a candidate for a family when at least :data:`MIN_EVIDENCE` wells kept that family's
        per-well curve (model 4 Hill, 5 substrate inhibition), and for Hill also when the pooled wells' own
@@ -431,7 +464,9 @@ def pool_shape(t: np.ndarray, y: np.ndarray, valid: np.ndarray, s0: np.ndarray, 
         start = shape_from_rates(fam, s0[rows], v0[rows] / spc, se[rows] / abs(spc))
         if start is None:
             continue
-        fit = fit_pooled(fam, t, y[rows], valid[rows], s0[rows], spc, sigma[rows], start, v0[rows], base0[rows])
+        fit = fit_pooled(fam, t, y[rows], valid[rows], s0[rows], spc, sigma[rows], start, v0[rows], base0[rows],
+                         None if blank_sets is None else blank_sets[rows],
+                         None if blank_share is None else blank_share[rows])
         ok = fit.converged and np.all(np.isfinite(fit.shape_cov)) and fit.wald_z() >= SHAPE_WALD_Z
         if fam == "hill":
             ok = ok and H_POOL_RANGE[0] < fit.shape[0] <= H_POOL_RANGE[1]
