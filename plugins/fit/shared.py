@@ -35,6 +35,9 @@ from dataclasses import replace
 import numpy as np
 from vzero.plugins.fit.engine import FitResult, ParamEstimate, t_quantile
 
+#: Relative change of every standard error below which the result is left as it was (and no note added).
+NO_CHANGE = 1e-3
+
 
 def blank_sets(plate: np.ndarray, blanks: np.ndarray) -> np.ndarray:
     """An integer per well: the same for wells of one plate corrected by the same blank wells (the
@@ -139,6 +142,8 @@ def adjust(res: FitResult, jac: Sequence[np.ndarray] | np.ndarray, resid: np.nda
     names = [n for n, f in zip(res.names, free, strict=True) if f]
     with np.errstate(invalid="ignore", divide="ignore"):
         factors = {n: float(np.sqrt(cov[k, k] / cov0[k, k])) for k, n in enumerate(names)}
+    if all(abs(f - 1.0) < NO_CHANGE for f in factors.values()):
+        return res, ""  # nothing shared in effect (no blank noise measured, say): the result as it was
     shown = ", ".join(f"{n} ×{f:.2f}" for n, f in factors.items())
     through = [w for w, k in ((f"{n_sets} common blank sets", n_sets),
                               (f"the plate shape of {n_pools} pool(s) of the rates method", n_pools)) if k]

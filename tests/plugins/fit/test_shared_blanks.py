@@ -188,3 +188,17 @@ def test_widened_intervals_for_a_shared_shape_hold_the_truth_as_often_as_they_sa
         naive, widened = _coverage(fits, p), _coverage(wide, p)
         assert naive < 0.93, (p, naive)
         assert 0.93 <= widened <= 0.97, (p, naive, widened)
+
+
+def test_shared_sets_without_measured_blank_noise_leave_the_result_alone() -> None:
+    # wells share blank sets but no blank noise was measured (blank_share 0 or NaN): R = I, every factor 1
+    x = np.repeat([1.0, 2.0, 4.0, 8.0], 3)
+    model = BY_NAME["michaelis-menten"]
+    y = model.evaluate([10.0, 3.0], {"substrate": x}) * (1 + 0.02 * np.random.default_rng(1).standard_normal(x.size))
+    res = engine.fit(model.evaluate, model.jacobian, {"substrate": x}, y, [8.0, 2.0], model.params)
+    sig = np.full(x.size, 0.1)
+    share = np.where(np.arange(x.size) % 2 == 0, 0.0, np.nan)
+    out, note = fit_run._shared_blanks(model, res, {"substrate": x}, y, sig, sig, np.repeat(np.arange(4), 3),
+                                       share, 0.95)
+    assert out is res
+    assert note == ""
