@@ -128,3 +128,13 @@ def test_correlation_caps_each_wells_shares_at_one() -> None:
     assert r[0, 2] == pytest.approx(np.sqrt(0.4) * 0.5)
     assert r[1, 2] == pytest.approx(0.25)
     assert r[0, 1] == pytest.approx(0.6 + np.sqrt(0.4) * 0.5)
+
+
+def test_correlation_reads_missing_shares_and_loadings_as_none() -> None:
+    # NaN shares and loadings count as 0 and a share above 1 as 1 (by hand)
+    sets = np.array([0, 0, 0])
+    pools = np.array([2, 2, -1])
+    r = shared.correlation(sets, np.array([np.nan, 0.5, 1.7]), pools, np.array([[np.nan, 0.3], [0.2, 0.1], [0.4, 0.4]]))
+    assert r[0, 1] == pytest.approx(0.0 + 0.3 * 0.1)
+    assert r[1, 2] == pytest.approx(np.sqrt(0.5 * 1.0))
+    assert r[0, 2] == 0.0
