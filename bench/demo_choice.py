@@ -35,12 +35,14 @@ SCORED = [(TRUTH[0].group, "hill", "h", TRUTH[0].hill), (TRUTH[0].group, "hill",
           (TRUTH[1].group, "michaelis-menten", "Vmax", TRUTH[1].vmax_um_per_min)]
 
 
-def _recipe(rates: dict) -> str:
+def _recipe(rates: dict, fit: dict | None = None) -> str:
     data = yaml.safe_load(RECIPE.read_text("utf-8"))
     steps = [s for s in data["steps"] if "report" not in s]
     for s in steps:
         if "rates" in s:
             s["rates"] = dict(rates)
+        if "fit" in s and fit:
+            s["fit"] = {**s["fit"], **fit}
     data["steps"] = steps
     return yaml.safe_dump(data, sort_keys=False)
 
@@ -62,14 +64,14 @@ def quiet_blanks(seed: int) -> pd.DataFrame:
     return table
 
 
-def one(folder: Path, seed: int, rates: dict,
-        quiet: bool = False) -> dict[tuple[str, str, str], tuple[float, float, float]]:
+def one(folder: Path, seed: int, rates: dict, quiet: bool = False,
+        fit: dict | None = None) -> dict[tuple[str, str, str], tuple[float, float, float]]:
     """(group, model, parameter) -> (estimate, ci_low, ci_high) of one simulated plate (``quiet``: blanks
-    without read noise, :func:`quiet_blanks`)."""
+    without read noise, :func:`quiet_blanks`; ``fit``: fit-step settings over the recipe's)."""
     folder.mkdir(parents=True, exist_ok=True)
     (quiet_blanks(seed) if quiet else simulate(seed)).to_csv(folder / "demo_plate.csv", index=False)
     layout().to_csv(folder / "demo_layout.csv", index=False)
-    (folder / "demo.yaml").write_text(_recipe(rates), "utf-8")
+    (folder / "demo.yaml").write_text(_recipe(rates, fit), "utf-8")
     fits = run(folder / "demo.yaml", folder / "run", force=True).fits
     out = {}
     for group, model, param, _ in SCORED:
@@ -85,14 +87,19 @@ def main(argv: list[str] | None = None) -> None:
     ap.add_argument("--sims", type=int, default=40, help="simulated plates (default 40)")
     ap.add_argument("--quiet-blanks", action="store_true",
                     help="substrate blanks (row G) without read noise: what their shared noise costs")
+    ap.add_argument("--rate-error-share", type=float, default=None,
+                    help="the fit's rate_error_share (default: the recipe's, 1 %%; the simulated plate has no "
+                         "pipetting error, which that share stands for)")
     args = ap.parse_args(argv)
+    fit = None if args.rate_error_share is None else {"rate_error_share": args.rate_error_share}
     results: dict[str, list] = {name: [] for name in RATES}
     with tempfile.TemporaryDirectory() as tmp:
         for seed in range(100, 100 + args.sims):
             for name, rates in RATES.items():
                 results[name].append(one(Path(tmp) / f"{seed}-{len(results[name])}-{name[:5]}", seed, rates,
-                                         args.quiet_blanks))
+                                         args.quiet_blanks, fit))
     what = " with noise-free substrate blanks" if args.quiet_blanks else ""
+    what += f", fit rate_error_share {args.rate_error_share}" if fit else ""
     print(f"{args.sims} simulations of the demo plate{what} (seeds 100-{99 + args.sims}); error in % of the truth\n")
     print("| rates | group | parameter | median error | RMSE | 95 % interval holds the truth |")
     print("| --- | --- | --- | --- | --- | --- |")
