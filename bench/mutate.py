@@ -97,6 +97,7 @@ TARGETS: dict[str, tuple[tuple[str, ...], list[str]]] = {
     "plugins/fit/diagnostics.py": (("_ols", "transforms", "band", "grid"),
                                    ["tests/plugins/fit/test_diagnostics_fields.py", STAGE]),
     "plugins/rates/noise.py": ((), RATES),
+    "plugins/kinetics/readnoise.py": ((), [*RATES, "tests/plugins/fit/test_shared_blanks.py"]),
     "plugins/rates/window.py": ((), RATES),
     "plugins/rates/auto.py": ((), [*RATES, "tests/plugins/rates/test_twelfth_sample.py"]),
     "plugins/rates/polynomial.py": ((), [*RATES, "tests/plugins/rates/test_threshold_equality.py"]),

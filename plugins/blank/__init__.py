@@ -88,13 +88,13 @@ def blank_share(y: Any, correction: Any, time: Any) -> Any:
     """Per well, the share of the corrected trace's read-noise variance that its blank brings:
     ``s_c² / (s_w² + s_c²)``, with ``s_w`` the well's own read noise and ``s_c`` that of the correction (the
     mean of its blank wells), each from second differences of the reads
-    (:func:`vzero.plugins.rates.noise.read_noise`, robust, blind to straight lines). Dimensionless, 0-1;
+    (:func:`vzero.plugins.kinetics.readnoise.read_noise`, robust, blind to straight lines). Dimensionless, 0-1;
     NaN where either noise cannot be estimated (no blank, fewer than 5 reads).
 
     Wells corrected by the same blank wells share that part of their rates' error: the fit stage widens its
     uncertainties for it (:mod:`vzero.plugins.fit.shared`)."""
     import numpy as np
-    from vzero.plugins.rates.noise import read_noise
+    from vzero.plugins.kinetics.readnoise import read_noise
 
     own = read_noise(y, time)
     shared = read_noise(correction, time)
