@@ -73,7 +73,10 @@ def test_a_failing_job_here_leaves_no_child_behind(tmp_path) -> None:
                     break
                 time.sleep(0.01)
             raise RuntimeError("a figure that cannot be drawn")
-        (tmp_path / f"child-{k}").write_text(str(os.getpid()))
+        # written under another name and renamed, so that the parent never sees the file before its pid is in
+        # it (the parent fails, and the child is killed, as soon as the file appears)
+        (tmp_path / f"partial-{k}").write_text(str(os.getpid()))
+        (tmp_path / f"partial-{k}").replace(tmp_path / f"child-{k}")
         return (b"x" * 1_000_000,)
 
     with pytest.raises(RuntimeError, match="cannot be drawn"):
