@@ -23,6 +23,7 @@ from vzero.params import closest
 from vzero.plugins.fit import compare, diagnostics, engine, routes, shared
 from vzero.plugins.fit.catalog import BY_NAME, Model
 from vzero.plugins.fit.determined import NOT_DETERMINED, settle
+from vzero.plugins.kinetics.rates_table import blank_set_ids
 from vzero.stage import StageInput, StageOutput
 
 
@@ -293,7 +294,7 @@ def run_fit(settings: Mapping[str, Any], data: StageInput) -> StageOutput:
     no_inhibitor = ~np.isfinite(var["inhibitor"]) | (var["inhibitor"] == 0)
     blank_sets = blank_share = shape_pools = shape_load = None
     if cfg["shared_blanks"] and {"blanks", "blank_share"} <= set(frame.columns):
-        blank_sets = shared.blank_sets(plate, frame["blanks"].fillna("").astype(str).to_numpy())
+        blank_sets = blank_set_ids(plate, frame["blanks"].fillna("").astype(str).to_numpy())
         blank_share = frame["blank_share"].to_numpy(float)
     if cfg["shared_blanks"] and {"shape_pool", "shape_load_1", "shape_load_2"} <= set(frame.columns):
         shape_pools = shared.shape_pools(plate, frame["shape_pool"].to_numpy(float))

@@ -39,15 +39,6 @@ from vzero.plugins.fit.engine import FitResult, ParamEstimate, t_quantile
 NO_CHANGE = 1e-3
 
 
-def blank_sets(plate: np.ndarray, blanks: np.ndarray) -> np.ndarray:
-    """An integer per well: the same for wells of one plate corrected by the same blank wells (the
-    ``blanks`` text), -1 for wells without a blank."""
-    key = np.char.add(np.char.add(np.asarray(plate, dtype=str), "\x00"), np.asarray(blanks, dtype=str))
-    _, ids = np.unique(key, return_inverse=True)
-    empty = np.asarray([not str(b).strip() or str(b) == "nan" for b in blanks])
-    return np.where(empty, -1, ids)
-
-
 def shape_pools(plate: np.ndarray, pool: np.ndarray) -> np.ndarray:
     """An integer per well: the same for wells of one plate that took one pool's plate shape
     (``shape_pool``), -1 for the others (NaN)."""
@@ -127,8 +118,9 @@ def adjust(res: FitResult, jac: Sequence[np.ndarray] | np.ndarray, resid: np.nda
            u: np.ndarray | None = None) -> tuple[FitResult, str]:
     """Widen ``res``'s uncertainties for errors its rates share (the module text). ``jac`` [n, p] the model's
     Jacobian at the estimate (all parameters, unweighted), ``resid`` [n] the unweighted residuals, ``sigma``
-    [n] the weighting SDs, ``sets`` [n] the blank sets (:func:`blank_sets`), ``a`` [n] each rate's share of
-    its variance from its blank; ``pools`` and ``u`` the shape pools and loadings of :func:`correlation`.
+    [n] the weighting SDs, ``sets`` [n] the blank sets
+    (:func:`~vzero.plugins.kinetics.rates_table.blank_set_ids`), ``a`` [n] each rate's share of its variance
+    from its blank; ``pools`` and ``u`` the shape pools and loadings of :func:`correlation`.
     Returns the result (unchanged where no two of its wells share a blank or a pool, or without error bars)
     and a note naming the factor per free parameter ('' where unchanged)."""
     sets = np.asarray(sets)

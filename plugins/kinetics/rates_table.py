@@ -16,6 +16,17 @@ WELL_COLUMNS = ("well", "group", "role", "replicate", "substrate", "enzyme", "in
 ``blanks``, ``blank_match`` and ``blank_share`` from the blank stage)."""
 
 
+def blank_set_ids(plate: np.ndarray, blanks: np.ndarray) -> np.ndarray:
+    """An integer per well: the same for wells of one plate corrected by the same blank wells (the blank
+    stage's ``blanks`` text), -1 for wells without a blank (empty text or NaN). Wells of one set share their
+    blank's read noise (used by ``model-choice`` step 9 and the fit's shared-error correction)."""
+    text = np.asarray(blanks, dtype=str)
+    key = np.char.add(np.char.add(np.asarray(plate, dtype=str), "\x00"), text)
+    _, ids = np.unique(key, return_inverse=True)
+    empty = (np.char.str_len(np.char.strip(text)) == 0) | (text == "nan")
+    return np.where(empty, -1, ids)
+
+
 def saturation_flags(traces: Traces) -> np.ndarray:
     """SATURATED where a well has any saturated read, ALL_MISSING where it has no usable read."""
     flags = np.where(traces.saturated.any(axis=1), int(Flag.SATURATED), 0).astype(np.int64)

@@ -125,9 +125,10 @@ def blank_sets(plate: PlateView) -> dict[str, Any]:
     wells = plate.wells
     if "blanks" not in wells.columns or "blank_share" not in wells.columns:
         return {}
+    from vzero.plugins.kinetics.rates_table import blank_set_ids
+
     text = wells["blanks"].fillna("").astype(str).to_numpy()
-    ids = np.unique(text, return_inverse=True)[1]
-    return {"blank_sets": np.where(np.char.str_len(text.astype(str)) > 0, ids, -1),
+    return {"blank_sets": blank_set_ids(np.zeros(len(text), dtype=str), text),
             "blank_share": wells["blank_share"].to_numpy(dtype=float)}
 
 

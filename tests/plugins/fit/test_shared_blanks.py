@@ -16,6 +16,7 @@ from vzero.plugins.blank import blank_share
 from vzero.plugins.fit import engine, shared
 from vzero.plugins.fit import run as fit_run
 from vzero.plugins.fit.catalog import BY_NAME
+from vzero.plugins.kinetics.rates_table import blank_set_ids
 
 
 @pytest.mark.parametrize(("own", "blank", "n_blanks"), [(0.002, 0.002, 1), (0.002, 0.002, 4), (0.001, 0.003, 1)])
@@ -37,7 +38,7 @@ def test_blank_share_is_the_blanks_part_of_the_read_variance(own: float, blank: 
 def test_blank_sets_group_wells_by_plate_and_blank_wells() -> None:
     plate = np.array(["p1", "p1", "p1", "p2", "p1", "p1"])
     blanks = np.array(["G1", "G1", "G2", "G1", "", "G1;H1"])
-    ids = shared.blank_sets(plate, blanks)
+    ids = blank_set_ids(plate, blanks)
     assert ids[0] == ids[1]
     assert len({ids[0], ids[2], ids[3], ids[5]}) == 4  # another blank, another plate, another set of blanks
     assert ids[4] == -1
@@ -77,18 +78,6 @@ def test_sandwich_for_a_straight_line_against_the_formula() -> None:
     np.testing.assert_allclose(cov0, res.covariance, rtol=1e-6)
     _, same = shared.sandwich(design / sd[:, None], resid / sd, np.eye(x.size))
     np.testing.assert_allclose(same, cov0, rtol=1e-12)
-
-
-def test_no_shared_blank_leaves_the_result_alone() -> None:
-    x = np.repeat([1.0, 2.0, 4.0, 8.0], 3)
-    model = BY_NAME["michaelis-menten"]
-    y = model.evaluate([10.0, 3.0], {"substrate": x}) * (1 + 0.02 * np.random.default_rng(1).standard_normal(x.size))
-    res = engine.fit(model.evaluate, model.jacobian, {"substrate": x}, y, [8.0, 2.0], model.params)
-    sig = np.full(x.size, 0.1)
-    out, note = fit_run._shared_blanks(model, res, {"substrate": x}, y, sig, sig, np.arange(x.size),
-                                       np.full(x.size, 0.5), 0.95)
-    assert out is res
-    assert note == ""
 
 
 # simulated plates: Michaelis–Menten (Vmax 10, Km 5), 8 levels in triplicate, each level's three rates
@@ -190,15 +179,17 @@ def test_widened_intervals_for_a_shared_shape_hold_the_truth_as_often_as_they_sa
         assert 0.93 <= widened <= 0.97, (p, naive, widened)
 
 
-def test_shared_sets_without_measured_blank_noise_leave_the_result_alone() -> None:
-    # wells share blank sets but no blank noise was measured (blank_share 0 or NaN): R = I, every factor 1
+@pytest.mark.parametrize(("sets", "share"), [
+    (np.arange(12), np.full(12, 0.5)),  # every well its own blank: nothing shared
+    (np.repeat(np.arange(4), 3), np.where(np.arange(12) % 2 == 0, 0.0, np.nan)),  # shared, no blank noise measured
+])
+def test_nothing_shared_in_effect_leaves_the_result_alone(sets: np.ndarray, share: np.ndarray) -> None:
+    # no two wells share a blank, or they do but no blank noise was measured (R = I, every factor 1)
     x = np.repeat([1.0, 2.0, 4.0, 8.0], 3)
     model = BY_NAME["michaelis-menten"]
     y = model.evaluate([10.0, 3.0], {"substrate": x}) * (1 + 0.02 * np.random.default_rng(1).standard_normal(x.size))
     res = engine.fit(model.evaluate, model.jacobian, {"substrate": x}, y, [8.0, 2.0], model.params)
     sig = np.full(x.size, 0.1)
-    share = np.where(np.arange(x.size) % 2 == 0, 0.0, np.nan)
-    out, note = fit_run._shared_blanks(model, res, {"substrate": x}, y, sig, sig, np.repeat(np.arange(4), 3),
-                                       share, 0.95)
+    out, note = fit_run._shared_blanks(model, res, {"substrate": x}, y, sig, sig, sets, share, 0.95)
     assert out is res
     assert note == ""

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 from scipy import stats
 from vzero.plugins.fit import engine, shared
+from vzero.plugins.kinetics.rates_table import blank_set_ids
 
 
 def test_shape_pools_by_plate_and_pool() -> None:
@@ -24,7 +25,7 @@ def test_shape_pools_by_plate_and_pool() -> None:
 
 
 def test_blank_sets_treat_missing_text_as_no_blank() -> None:
-    ids = shared.blank_sets(np.array(["p", "p", "p", "p"]), np.array(["G1", "nan", " ", "G1"]))
+    ids = blank_set_ids(np.array(["p", "p", "p", "p"]), np.array(["G1", "nan", " ", "G1"]))
     assert ids[0] == ids[3] >= 0
     assert ids[1] == ids[2] == -1
 
